@@ -1,0 +1,62 @@
+/* The command line: a table of subcommands, a small option parser, and "did you mean".
+ *
+ * Each subcommand lives in its own src/cli/<name>.c and exports one cli_cmd_t; the table in
+ * src/cli/commands.c lists them. A command's main receives argv after the command name and
+ * returns a process exit code (enum sq_exit).
+ * Glossary: "option" = --name or -x, with or without a value (--name=V or --name V);
+ * "positional" = any other word; "--" ends options. */
+#ifndef SQUALL_CLI_H
+#define SQUALL_CLI_H
+
+#include "squall/out.h"
+
+typedef struct {
+    const char *name;  /* long name without dashes, e.g. "set" */
+    char short_name;   /* 0 if none */
+    const char *value; /* NULL for a flag, else the metavariable shown in help, e.g. "KEY=VALUE" */
+    const char *help;  /* one line */
+} cli_opt_t;
+
+typedef struct cli_cmd {
+    const char *name;
+    const char *summary;     /* one line for `squall --help` */
+    const char *usage;       /* after "squall NAME ", e.g. "PLAN.yaml [--set KEY=VALUE]..." */
+    const char *description; /* paragraphs for `squall help NAME`; may be NULL */
+    const cli_opt_t *opts;   /* terminated by an entry with name == NULL; --help is implicit */
+    int (*main)(const struct cli_cmd *cmd, int argc, char **argv, out_t *o);
+} cli_cmd_t;
+
+/* The table, terminated by an entry with name == NULL. */
+extern const cli_cmd_t *const cli_commands[];
+
+const cli_cmd_t *cli_find(const char *name);
+/* Writes `squall help NAME` text to the results stream. */
+void cli_print_help(const cli_cmd_t *cmd, out_t *o);
+void cli_print_overview(out_t *o);
+
+/* The word in `words` (NULL-terminated, or stride-separated structs via cli_closest_opt) closest
+ * to `word` by edit distance, or NULL when none is close enough to be a plausible typo. */
+const char *cli_closest(const char *word, const char *const *words);
+
+/* Option iteration over argv (argv[0] is the first word after the command name). */
+typedef struct {
+    const cli_cmd_t *cmd;
+    int argc;
+    char **argv;
+    int i;
+    int only_positional; /* after "--" */
+} cli_args_t;
+
+enum { CLI_END = -1, CLI_POSITIONAL = -2, CLI_ERROR = -3, CLI_HELP = -4 };
+
+void cli_args_init(cli_args_t *a, const cli_cmd_t *cmd, int argc, char **argv);
+/* Returns the index of the next option in cmd->opts and sets *value to its value (NULL for a
+ * flag); CLI_POSITIONAL with *value = the word; CLI_HELP for --help/-h; CLI_END when done;
+ * CLI_ERROR after printing one line naming the mistake and the closest valid option. */
+int cli_next(cli_args_t *a, out_t *o, const char **value);
+
+/* Common helper: report a usage mistake (one line) and return SQ_EXIT_USAGE. */
+int cli_usage_error(const cli_cmd_t *cmd, out_t *o, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
+
+#endif

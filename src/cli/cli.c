@@ -1,0 +1,193 @@
+/* The subcommand table's lookups, help text, option parsing and "did you mean" suggestions. */
+#include "squall/cli.h"
+
+#include <stdarg.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/err.h"
+
+const cli_cmd_t *cli_find(const char *name)
+{
+    for (int i = 0; cli_commands[i]; i++)
+        if (strcmp(cli_commands[i]->name, name) == 0)
+            return cli_commands[i];
+    return NULL;
+}
+
+void cli_print_overview(out_t *o)
+{
+    out_print(o, "squall %s: synthetic control-plane load from a YAML plan\n\n", SQUALL_VERSION);
+    out_print(o, "usage: squall COMMAND [options]\n       squall help COMMAND\n"
+                 "       squall --version\n\ncommands:\n");
+    for (int i = 0; cli_commands[i]; i++)
+        out_print(o, "  %-10s %s\n", cli_commands[i]->name, cli_commands[i]->summary);
+    out_print(o, "\nexit codes:\n");
+#define SQ_EXIT_HELP(name, value, text) out_print(o, "  %d  %s\n", value, text);
+    SQ_EXIT_MAP(SQ_EXIT_HELP)
+#undef SQ_EXIT_HELP
+    out_print(o, "\nLoad can hurt: point squall at staging first, tell the owners of the target,\n"
+                 "start small. Brakes are on by default; targets other than loopback need\n"
+                 "--confirm-target.\n");
+}
+
+void cli_print_help(const cli_cmd_t *cmd, out_t *o)
+{
+    out_print(o, "usage: squall %s %s\n\n%s\n", cmd->name, cmd->usage, cmd->summary);
+    if (cmd->description)
+        out_print(o, "\n%s\n", cmd->description);
+    out_print(o, "\noptions:\n");
+    for (const cli_opt_t *op = cmd->opts; op && op->name; op++) {
+        char left[64];
+        if (op->short_name)
+            snprintf(left, sizeof left, "-%c, --%s%s%s", op->short_name, op->name,
+                     op->value ? " " : "", op->value ? op->value : "");
+        else
+            snprintf(left, sizeof left, "    --%s%s%s", op->name, op->value ? " " : "",
+                     op->value ? op->value : "");
+        out_print(o, "  %-28s %s\n", left, op->help);
+    }
+    out_print(o, "  %-28s %s\n", "-h, --help", "show this help");
+}
+
+/* Levenshtein distance, bounded to short words (options and command names). */
+static int edit_distance(const char *a, const char *b)
+{
+    size_t la = strlen(a), lb = strlen(b);
+    if (la > 63 || lb > 63)
+        return 99;
+    int row[64];
+    for (size_t j = 0; j <= lb; j++)
+        row[j] = (int)j;
+    for (size_t i = 1; i <= la; i++) {
+        int diag = row[0];
+        row[0] = (int)i;
+        for (size_t j = 1; j <= lb; j++) {
+            int up = row[j];
+            int best = diag + (a[i - 1] != b[j - 1]);
+            if (up + 1 < best)
+                best = up + 1;
+            if (row[j - 1] + 1 < best)
+                best = row[j - 1] + 1;
+            row[j] = best;
+            diag = up;
+        }
+    }
+    return row[lb];
+}
+
+const char *cli_closest(const char *word, const char *const *words)
+{
+    const char *best = NULL;
+    int best_d = 1 << 30;
+    for (int i = 0; words[i]; i++) {
+        int d = edit_distance(word, words[i]);
+        /* A prefix of a valid word (e.g. "--conn") is a plausible shorthand too. */
+        if (strncmp(words[i], word, strlen(word)) == 0 && strlen(word) >= 2)
+            d = d < 1 ? d : 1;
+        if (d < best_d) {
+            best_d = d;
+            best = words[i];
+        }
+    }
+    int len = (int)strlen(word);
+    int allowed = len <= 4 ? 2 : (len + 2) / 3;
+    return best && best_d <= allowed ? best : NULL;
+}
+
+void cli_args_init(cli_args_t *a, const cli_cmd_t *cmd, int argc, char **argv)
+{
+    a->cmd = cmd;
+    a->argc = argc;
+    a->argv = argv;
+    a->i = 0;
+    a->only_positional = 0;
+}
+
+int cli_usage_error(const cli_cmd_t *cmd, out_t *o, const char *fmt, ...)
+{
+    char msg[512];
+    va_list ap;
+    va_start(ap, fmt);
+    vsnprintf(msg, sizeof msg, fmt, ap);
+    va_end(ap);
+    if (cmd)
+        out_error(o, "%s: %s (see 'squall help %s')", cmd->name, msg, cmd->name);
+    else
+        out_error(o, "%s (see 'squall --help')", msg);
+    return SQ_EXIT_USAGE;
+}
+
+static int unknown_option(cli_args_t *a, out_t *o, const char *word)
+{
+    const char *names[64];
+    char dashed[64][40];
+    int n = 0;
+    for (const cli_opt_t *op = a->cmd->opts; op && op->name && n < 62; op++, n++) {
+        snprintf(dashed[n], sizeof dashed[n], "--%s", op->name);
+        names[n] = dashed[n];
+    }
+    names[n++] = "--help";
+    names[n] = NULL;
+    char bare[64];
+    snprintf(bare, sizeof bare, "%s", word);
+    char *eq = strchr(bare, '=');
+    if (eq)
+        *eq = '\0';
+    const char *near = cli_closest(bare, names);
+    if (near)
+        cli_usage_error(a->cmd, o, "unknown option '%s'; did you mean '%s'?", bare, near);
+    else
+        cli_usage_error(a->cmd, o, "unknown option '%s'", bare);
+    return CLI_ERROR;
+}
+
+int cli_next(cli_args_t *a, out_t *o, const char **value)
+{
+    *value = NULL;
+    if (a->i >= a->argc)
+        return CLI_END;
+    char *w = a->argv[a->i++];
+    if (a->only_positional || w[0] != '-' || w[1] == '\0') {
+        *value = w;
+        return CLI_POSITIONAL;
+    }
+    if (strcmp(w, "--") == 0) {
+        a->only_positional = 1;
+        return cli_next(a, o, value);
+    }
+    if (strcmp(w, "--help") == 0 || strcmp(w, "-h") == 0)
+        return CLI_HELP;
+    const cli_opt_t *opts = a->cmd->opts;
+    for (int k = 0; opts && opts[k].name; k++) {
+        const cli_opt_t *op = &opts[k];
+        const char *inline_val = NULL;
+        if (w[1] == '-') {
+            size_t n = strlen(op->name);
+            if (strncmp(w + 2, op->name, n) != 0 || (w[2 + n] != '\0' && w[2 + n] != '='))
+                continue;
+            if (w[2 + n] == '=')
+                inline_val = w + 3 + n;
+        } else {
+            if (!op->short_name || w[1] != op->short_name || w[2] != '\0')
+                continue;
+        }
+        if (!op->value) {
+            if (inline_val)
+                return cli_usage_error(a->cmd, o, "option '--%s' takes no value", op->name),
+                       CLI_ERROR;
+            return k;
+        }
+        if (inline_val) {
+            *value = inline_val;
+            return k;
+        }
+        if (a->i >= a->argc)
+            return cli_usage_error(a->cmd, o, "option '--%s' needs a value (%s)", op->name,
+                                   op->value),
+                   CLI_ERROR;
+        *value = a->argv[a->i++];
+        return k;
+    }
+    return unknown_option(a, o, w);
+}

@@ -1,0 +1,9 @@
+/* The subcommand table. Each command is defined in its own file under src/cli/. */
+#include "squall/cli.h"
+
+extern const cli_cmd_t cli_cmd_help;
+
+const cli_cmd_t *const cli_commands[] = {
+    &cli_cmd_help,
+    NULL,
+};

@@ -1,0 +1,35 @@
+/* squall's entry point: argv -> the subcommand table, nothing else. */
+#include <stdio.h>
+#include <string.h>
+
+#include "squall/cli.h"
+#include "squall/err.h"
+
+int main(int argc, char **argv)
+{
+    out_t *o = out_new_file(stdout, stderr);
+    if (!o) {
+        fputs("squall: error: out of memory\n", stderr);
+        return SQ_EXIT_FAILURE;
+    }
+    int rc;
+    if (argc < 2 || strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0) {
+        cli_print_overview(o);
+        rc = argc < 2 ? SQ_EXIT_USAGE : SQ_EXIT_OK;
+    } else if (strcmp(argv[1], "--version") == 0) {
+        out_print(o, "squall %s\n", SQUALL_VERSION);
+        rc = SQ_EXIT_OK;
+    } else {
+        const cli_cmd_t *cmd = cli_find(argv[1]);
+        if (cmd) {
+            rc = cmd->main(cmd, argc - 2, argv + 2, o);
+        } else {
+            /* Reuse help's suggestion logic: `squall chek` says what `squall help chek` says. */
+            char *args[] = {argv[1], NULL};
+            rc = cli_find("help")->main(cli_find("help"), 1, args, o);
+        }
+    }
+    fflush(stdout);
+    out_free(o);
+    return rc;
+}
