@@ -29,22 +29,26 @@ int hist_new_ns(hist_t **out);
 void hist_free(hist_t *h);
 void hist_reset(hist_t *h);
 
-/* Counts a value (n times). Values below lowest count as lowest; values above highest count as
- * highest and are also tallied in hist_clamped(), so nothing is silently lost. */
+/* Counts a value (n times, n >= 1; n <= 0 is ignored). Values below lowest (also negative ones)
+ * count as lowest; values above highest count as highest and are also tallied in hist_clamped(),
+ * so nothing is silently lost. A bucket holds at most UINT32_MAX; a sample that would overflow
+ * its bucket is not counted but tallied in hist_overflow() (see "Memory" below). */
 void hist_record(hist_t *h, int64_t value);
 void hist_record_n(hist_t *h, int64_t value, int64_t n);
 
-/* Adds src's counts to dst. Both must have the same lowest, highest and digits: SQ_EMISMATCH
- * otherwise, and dst is unchanged. */
+/* Adds src's counts (and clamped/overflow tallies) to dst. Both must have the same lowest,
+ * highest and digits: SQ_EMISMATCH otherwise; SQ_ERANGE if a bucket would exceed UINT32_MAX.
+ * On error dst is unchanged. */
 int hist_merge(hist_t *dst, const hist_t *src);
 /* True when both have the same configuration and the same count in every bucket. */
 bool hist_equal(const hist_t *a, const hist_t *b);
 
-int64_t hist_count(const hist_t *h);
+int64_t hist_count(const hist_t *h); /* samples counted in buckets (clamped ones included) */
 int64_t hist_clamped(const hist_t *h);
-int64_t hist_min(const hist_t *h); /* 0 when empty */
-int64_t hist_max(const hist_t *h); /* 0 when empty */
-double hist_mean(const hist_t *h); /* weights each bucket by its middle; 0 when empty */
+int64_t hist_overflow(const hist_t *h); /* samples lost to a full bucket; 0 in any real run */
+int64_t hist_min(const hist_t *h);      /* 0 when empty */
+int64_t hist_max(const hist_t *h);      /* 0 when empty */
+double hist_mean(const hist_t *h);      /* weights each bucket by its middle; 0 when empty */
 double hist_stddev(const hist_t *h);
 /* The value at percentile p in [0, 100]: the highest equivalent value of the first bucket where
  * the cumulative count reaches round(p/100 * count) (at least 1). 0 when empty. */
@@ -60,9 +64,13 @@ int hist_digits(const hist_t *h);
 size_t hist_counts_len(const hist_t *h);
 int hist_bucket_count(const hist_t *h);
 int hist_sub_bucket_count(const hist_t *h);
+/* Memory: counts are uint32_t (half of HdrHistogram_c's int64_t) in one allocation with the
+ * header. Bytes one histogram holds, header included (98,392 for the HIST_NS_* range). */
+size_t hist_memory(const hist_t *h);
 
 /* Iteration over non-empty buckets in increasing order:
- *     hist_iter_t it; hist_iter_init(&it, h); while (hist_iter_next(&it)) use(it.lo, it.hi, it.count);
+ *     hist_iter_t it; hist_iter_init(&it, h); while (hist_iter_next(&it)) use(it.lo, it.hi,
+ * it.count);
  */
 typedef struct {
     const hist_t *h;
@@ -72,8 +80,12 @@ typedef struct {
 void hist_iter_init(hist_iter_t *it, const hist_t *h);
 bool hist_iter_next(hist_iter_t *it);
 
-/* Compact lossless text encoding of a histogram (configuration and every non-empty bucket) that
- * hist_decode reads back exactly. *out is malloc'd; the caller frees it. */
+/* Compact lossless text encoding of a histogram (configuration, tallies and every non-empty
+ * bucket) that hist_decode reads back exactly (hist_equal, same clamped and overflow):
+ *     "sqh1:LOWEST:HIGHEST:DIGITS:CLAMPED:OVERFLOW:NBUCKETS:PAYLOAD"
+ * decimal fields, PAYLOAD = base64 (RFC 4648, via libcrypto) of unsigned LEB128 varints, one
+ * pair per non-empty bucket: (index - previous index - 1, count), the first "previous" being -1.
+ * *out is malloc'd; the caller frees it. SQ_ENOMEM on allocation failure. */
 int hist_encode(const hist_t *h, char **out);
 /* SQ_EPARSE on malformed input; on success *out is a new histogram. */
 int hist_decode(const char *text, hist_t **out);
