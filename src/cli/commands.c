@@ -2,8 +2,10 @@
 #include "squall/cli.h"
 
 extern const cli_cmd_t cli_cmd_help;
+extern const cli_cmd_t cli_cmd_check;
 
 const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_help,
+    &cli_cmd_check,
     NULL,
 };

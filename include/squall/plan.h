@@ -1,0 +1,314 @@
+/* The load plan: a YAML file read once into typed, read-only structs, with strict validation.
+ *
+ * A plan names a target, request classes and an ordered list of phases, plus objectives and
+ * brakes. plan_load() reads the file (and its includes, and --set overrides), checks
+ * everything, prints every problem as one line `FILE:LINE:COL: error: WHAT (expected ..., got
+ * ...)` and either fails or returns a plan whose every value is parsed, defaulted, in range and
+ * cross-referenced: later modules only read these structs, never the YAML.
+ * Glossary: "class" = a named request class (requests.NAME); "source" = one way a phase starts
+ * requests (open-loop rate, closed-loop clients, fleet, watches, churn, teardown, replay);
+ * "ref" = a class or phase named by another entry, resolved to an index at load time.
+ * Durations are int64 nanoseconds; rates are requests per second (double); percentages are
+ * fractions (5% = 0.05). Every struct carries the source position of its YAML node. */
+#ifndef SQUALL_PLAN_H
+#define SQUALL_PLAN_H
+
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+
+#include "squall/out.h"
+
+/* ---- value syntax (reused by the CLI for --set and options) ---------------------------- */
+
+/* Durations: one or more <number><unit> parts (`250ms`, `1.5s`, `1m30s`), units ns, us (or µs),
+ * ms, s, m, h; a bare `0` is zero. Exact in integer nanoseconds. Returns 0, SQ_EPARSE when
+ * malformed, SQ_ERANGE when negative, finer than 1 ns or beyond INT64_MAX ns. */
+int plan_parse_duration(const char *s, int64_t *ns);
+/* Rates: <number>/<unit>, unit s, m (or min) or h: `500/s`, `30/m`, `2/h`; a bare `0` is zero.
+ * Returns requests per second; SQ_EPARSE when malformed, SQ_ERANGE above PLAN_RATE_MAX. */
+int plan_parse_rate(const char *s, double *per_s);
+/* Percentages: <number>%, 0% to 100%: `5%` -> 0.05. SQ_EPARSE / SQ_ERANGE as above. */
+int plan_parse_percent(const char *s, double *fraction);
+/* Plain decimal integers (no sign unless negative, no spaces), within [min, max]. */
+int plan_parse_int(const char *s, int64_t min, int64_t max, int64_t *v);
+/* Plain decimal numbers (`1`, `0.25`, `1e3`), finite, within [min, max]. */
+int plan_parse_number(const char *s, double min, double max, double *v);
+
+#define PLAN_RATE_MAX         1e9
+#define PLAN_DURATION_EXPECTS "a duration like 250ms, 1.5s, 5m or 1h"
+#define PLAN_RATE_EXPECTS     "a rate like 500/s, 30/m or 2/h"
+#define PLAN_PERCENT_EXPECTS  "a percentage like 5% or 0.1%"
+
+/* ---- the data model -------------------------------------------------------------------- */
+
+typedef struct {
+    const char *file; /* as given to plan_load (or an include path); "--set" for overrides */
+    int line, col;    /* 1-based; 0 when the value came from a --set override */
+} plan_pos_t;
+
+typedef struct {
+    const char *name;
+    const char *value;
+    plan_pos_t pos;
+} plan_kv_t;
+
+/* A name that refers to a class or a phase; index is resolved at load (-1 = "*" or absent). */
+typedef struct {
+    const char *name;
+    int index;
+    plan_pos_t pos;
+} plan_ref_t;
+
+enum plan_http { PLAN_HTTP_1_1, PLAN_HTTP_2 };
+
+typedef struct {
+    plan_pos_t pos;
+    const char *url; /* e.g. "http://127.0.0.1:7070" (no trailing slash) */
+    bool https;
+    const char *host; /* without brackets for IPv6 */
+    int port;         /* explicit or the scheme's default */
+    bool loopback;    /* host is 127.0.0.0/8, ::1 or "localhost"; others need --confirm-target */
+    enum plan_http http;
+    int connections;    /* default 16 */
+    int64_t timeout_ns; /* default 10 s; per-request classes may override */
+    plan_kv_t *headers;
+    size_t n_headers;
+    struct {
+        const char *ca, *cert, *key; /* file paths or NULL */
+        bool insecure;
+    } tls;
+    struct {
+        const char *file, *env; /* at most one is set; a literal token is never accepted */
+    } token;
+} plan_target_t;
+
+/* vars.NAME: a list of words, or an integer range {from, to} (inclusive). */
+typedef struct {
+    const char *name;
+    plan_pos_t pos;
+    const char **values; /* NULL for a range */
+    size_t n_values;     /* for a range: to - from + 1 */
+    bool is_range;
+    int64_t from, to;
+} plan_var_t;
+
+enum plan_kind { PLAN_GET, PLAN_LIST, PLAN_WRITE, PLAN_WATCH };
+enum plan_framing { PLAN_FRAME_NDJSON, PLAN_FRAME_SSE, PLAN_FRAME_RAW };
+enum plan_backoff {
+    PLAN_BACKOFF_IMMEDIATE,
+    PLAN_BACKOFF_FIXED,
+    PLAN_BACKOFF_EXPONENTIAL,
+    PLAN_BACKOFF_FULL_JITTER,
+    PLAN_BACKOFF_EQUAL_JITTER,
+    PLAN_BACKOFF_DECORRELATED
+};
+
+typedef struct {
+    const char *name;
+    plan_pos_t pos;
+    enum plan_kind kind;
+    const char *path; /* template text, compiled by tmpl */
+    plan_pos_t path_pos;
+    plan_kv_t *headers;
+    size_t n_headers;
+    int64_t timeout_ns; /* the target's unless set; 0 for watches means "no timeout" */
+    struct {            /* kind list */
+        int page;       /* items per page, 0 = no limit parameter sent */
+        const char *limit_param, *token_key, *token_param; /* "limit", "next", "after" */
+    } list;
+    struct {                /* kind write */
+        const char *method; /* POST, PUT, PATCH or DELETE (default PUT) */
+        const char *body;   /* template text or NULL */
+        plan_pos_t body_pos;
+        bool creates, deletes;
+    } write;
+    struct { /* kind watch */
+        enum plan_framing framing;
+        const char *version_key, *stamp_key; /* "version", "stamp" */
+        int too_old_status;                  /* 410 */
+        plan_ref_t relist;                   /* a list class, index -1 if none */
+        enum plan_backoff policy;            /* full-jitter */
+        int64_t base_ns, cap_ns;             /* 200 ms, 10 s */
+    } watch;
+} plan_req_t;
+
+enum plan_load_shape { PLAN_LOAD_NONE, PLAN_LOAD_CONSTANT, PLAN_LOAD_RAMP, PLAN_LOAD_STEPS };
+enum plan_arrivals { PLAN_ARRIVALS_EVEN, PLAN_ARRIVALS_POISSON };
+enum plan_timing { PLAN_TIMING_SPREAD, PLAN_TIMING_JITTER, PLAN_TIMING_ALIGNED };
+
+typedef struct {
+    plan_ref_t cls;
+    double weight; /* > 0; weights of a mix need not sum to anything */
+} plan_mix_t;
+
+typedef struct {
+    double rate;
+    int64_t for_ns;
+    plan_pos_t pos;
+} plan_step_t;
+
+typedef struct {
+    plan_ref_t cls;
+    int64_t every_ns; /* the fleet's `every` unless given */
+} plan_send_t;
+
+typedef struct {
+    plan_ref_t cls; /* a watch class */
+    int count;
+} plan_watch_set_t;
+
+typedef struct {
+    const char *name;
+    plan_pos_t pos;
+    int64_t duration_ns; /* 0 = open-ended (teardown, replay) */
+    bool has_duration;
+
+    /* Open loop: one of constant rate, ramp or steps, driving `mix`. */
+    enum plan_load_shape shape;
+    double rate, ramp_from, ramp_to;
+    plan_step_t *steps; /* in order; the last rate holds if the duration is longer */
+    size_t n_steps;
+    enum plan_arrivals arrivals; /* even */
+    plan_mix_t *mix;             /* for open loop or closed-loop clients */
+    size_t n_mix;
+
+    struct {
+        bool on;
+        int count;
+        int64_t think_ns;
+    } clients;
+    struct {
+        bool on;
+        int agents;
+        int64_t every_ns;
+        enum plan_timing timing; /* spread */
+        double jitter, drift;    /* fractions of `every` (jitter mode; clock drift per agent) */
+        int64_t join_ns;         /* agents join evenly over this time, 0 = all at start */
+        plan_send_t *send;
+        size_t n_send;
+    } fleet;
+    struct {
+        plan_watch_set_t *sets;
+        size_t n_sets;
+        int64_t spread_ns; /* 0 = open all at once */
+    } watches;
+    struct {
+        bool on;
+        plan_ref_t create, del; /* write classes with creates / deletes */
+        double rate;            /* creates + deletes per second */
+        int population;
+        double tolerance; /* fraction of population, default 10% */
+    } churn;
+    struct {
+        bool on;
+        double rate; /* 0 = as fast as the connections allow */
+    } teardown;
+    struct {
+        bool on;
+        const char *log;
+        double speed; /* 1.0 */
+    } replay;
+} plan_phase_t;
+
+enum plan_metric {
+    PLAN_METRIC_RESPONSE,
+    PLAN_METRIC_SERVICE,
+    PLAN_METRIC_OPEN,
+    PLAN_METRIC_PROPAGATION
+};
+enum plan_limit { PLAN_LIMIT_PERCENTILE, PLAN_LIMIT_ERROR_RATE, PLAN_LIMIT_MIN_RATE };
+
+typedef struct {
+    plan_pos_t pos;
+    plan_ref_t cls;   /* index -1 for "*" (every class) */
+    plan_ref_t phase; /* index -1 for every phase */
+    enum plan_metric metric;
+    enum plan_limit limit;
+    double percentile; /* 99.9 for p99.9 */
+    int64_t max_ns;    /* for PERCENTILE */
+    double value;      /* fraction for ERROR_RATE, per second for MIN_RATE */
+} plan_objective_t;
+
+enum plan_brake_kind {
+    PLAN_BRAKE_ERROR_RATE,
+    PLAN_BRAKE_PERCENTILE,
+    PLAN_BRAKE_UNREACHABLE,
+    PLAN_BRAKE_SATURATION
+};
+
+typedef struct {
+    plan_pos_t pos;
+    enum plan_brake_kind kind;
+    plan_ref_t cls;    /* index -1 = all classes */
+    double percentile; /* PERCENTILE */
+    int64_t max_ns;    /* PERCENTILE: the latency limit; UNREACHABLE: how long */
+    double value;      /* ERROR_RATE fraction */
+    int64_t for_ns;    /* window the condition must hold, default 10 s */
+} plan_brake_t;
+
+struct plan_mem; /* private: owns every string and array below */
+
+typedef struct {
+    const char *path;
+    bool has_seed;
+    uint64_t seed;
+    plan_target_t target;
+    plan_var_t *vars;
+    size_t n_vars;
+    plan_req_t *reqs;
+    size_t n_reqs;
+    plan_phase_t *phases;
+    size_t n_phases;
+    plan_objective_t *objectives;
+    size_t n_objectives;
+    plan_brake_t *brakes;
+    size_t n_brakes;
+    struct plan_mem *mem;
+} plan_t;
+
+/* A --set override: key is a dotted path (`target.connections`, `phases.steady.rate`, list items
+ * by name or 0-based index), value a YAML scalar. */
+typedef struct {
+    const char *key;
+    const char *value;
+} plan_override_t;
+
+/* Reads, overrides, validates. On success returns 0 and a plan to release with plan_free. On
+ * failure every error has been printed (one line each, OUT_ERROR) and *out is NULL: SQ_EIO when
+ * a file cannot be read, SQ_EPARSE for any other problem, SQ_ENOMEM. */
+int plan_load(const char *path, const plan_override_t *overrides, size_t n, plan_t **out, out_t *o);
+void plan_free(plan_t *p);
+
+/* Index of the class or phase with that name, or -1. */
+int plan_find_req(const plan_t *p, const char *name);
+int plan_find_phase(const plan_t *p, const char *name);
+
+/* Names for enum values, as written in plans. */
+const char *plan_kind_name(enum plan_kind k);
+const char *plan_backoff_name(enum plan_backoff b);
+
+/* ---- estimates: what a plan would do, from the plan alone ------------------------------- */
+
+#define PLAN_MAX_REQS 256 /* validation rejects plans with more classes */
+
+typedef struct {
+    int64_t duration_ns; /* 0 and open_ended for teardown/replay phases with no duration */
+    bool open_ended;
+    double per_class[PLAN_MAX_REQS]; /* expected starts per class (watches: streams opened) */
+    double requests;                 /* sum of per_class over non-watch classes */
+    double peak_rate;                /* highest expected request rate in the phase, per second */
+    double burst;                    /* aligned fleets: requests due at one instant, else 0 */
+    bool closed_loop;                /* clients: per_class is an upper bound, see below */
+    int clients;
+    bool bounded; /* closed loop with think > 0: per_class holds the upper bound */
+    int watches, agents;
+    double created, deleted; /* objects; teardown deletes everything still alive */
+    double alive_after;      /* objects this run created and has not deleted, after the phase */
+    bool replay;             /* counts come from the log, not the plan */
+} plan_estimate_t;
+
+/* Fills *e for phase i, counting the objects left alive by phases before it. */
+void plan_estimate(const plan_t *p, size_t i, plan_estimate_t *e);
+
+#endif

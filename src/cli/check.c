@@ -1,0 +1,214 @@
+/* `squall check PLAN [--set K=V]...`: validate a plan and print what it would do, computed from
+ * the plan alone (plan_estimate), without sending anything. */
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/cli.h"
+#include "squall/err.h"
+#include "squall/plan.h"
+
+/* 12300 -> "12,300"; values are expected counts, rounded to whole requests. */
+static const char *count_str(double v, char *buf, size_t len)
+{
+    char raw[32];
+    snprintf(raw, sizeof raw, "%.0f", v < 0 ? 0 : v);
+    size_t n = strlen(raw), o = 0;
+    for (size_t i = 0; i < n && o + 2 < len; i++) {
+        if (i > 0 && (n - i) % 3 == 0)
+            buf[o++] = ',';
+        buf[o++] = raw[i];
+    }
+    buf[o] = '\0';
+    return buf;
+}
+
+static const char *dur_str(int64_t ns, char *buf, size_t len)
+{
+    double s = ns / 1e9;
+    if (ns % INT64_C(3600000000000) == 0 && ns)
+        snprintf(buf, len, "%gh", s / 3600);
+    else if (ns % INT64_C(60000000000) == 0 && ns)
+        snprintf(buf, len, "%gm", s / 60);
+    else if (s >= 1 || ns == 0)
+        snprintf(buf, len, "%gs", s);
+    else
+        snprintf(buf, len, "%gms", s * 1e3);
+    return buf;
+}
+
+static void print_target(const plan_t *p, out_t *o)
+{
+    const plan_target_t *t = &p->target;
+    char d[32];
+    out_print(o, "target   %s  (HTTP/%s, %d connections, timeout %s%s)\n", t->url,
+              t->http == PLAN_HTTP_2 ? "2" : "1.1", t->connections,
+              dur_str(t->timeout_ns, d, sizeof d), t->loopback ? ", loopback" : "");
+    out_print(o, "classes  %zu:", p->n_reqs);
+    for (size_t i = 0; i < p->n_reqs; i++)
+        out_print(o, "%s %s (%s)", i ? "," : "", p->reqs[i].name, plan_kind_name(p->reqs[i].kind));
+    out_print(o, "\n");
+}
+
+static void print_shape(const plan_phase_t *ph, const plan_estimate_t *e, out_t *o)
+{
+    const char *arr = ph->arrivals == PLAN_ARRIVALS_POISSON ? "poisson" : "even";
+    if (ph->shape == PLAN_LOAD_CONSTANT)
+        out_print(o, "    open loop: %g/s, %s arrivals\n", ph->rate, arr);
+    else if (ph->shape == PLAN_LOAD_RAMP)
+        out_print(o, "    open loop: ramp %g/s -> %g/s, %s arrivals\n", ph->ramp_from, ph->ramp_to,
+                  arr);
+    else if (ph->shape == PLAN_LOAD_STEPS)
+        out_print(o, "    open loop: %zu steps, %s arrivals\n", ph->n_steps, arr);
+    if (e->closed_loop && e->bounded)
+        out_print(o, "    closed loop: up to %d clients; at most the counts below (think time)\n",
+                  e->clients);
+    else if (e->closed_loop)
+        out_print(o,
+                  "    closed loop: up to %d clients, no think time: as fast as the target "
+                  "answers (no upper bound)\n",
+                  e->clients);
+    if (ph->fleet.on) {
+        static const char *const timing[] = {"spread", "jitter", "aligned"};
+        char d[32], j[32];
+        out_print(o, "    fleet: %d agents every %s, %s%s%s\n", ph->fleet.agents,
+                  dur_str(ph->fleet.every_ns, d, sizeof d), timing[ph->fleet.timing],
+                  ph->fleet.join_ns ? ", joining over " : "",
+                  ph->fleet.join_ns ? dur_str(ph->fleet.join_ns, j, sizeof j) : "");
+    }
+    if (ph->churn.on)
+        out_print(o, "    churn: %g/s around a population of %d\n", ph->churn.rate,
+                  ph->churn.population);
+    if (ph->replay.on)
+        out_print(o, "    replay: %s at x%g (counts come from the log)\n", ph->replay.log,
+                  ph->replay.speed);
+}
+
+static void print_phase(const plan_t *p, size_t i, out_t *o)
+{
+    const plan_phase_t *ph = &p->phases[i];
+    plan_estimate_t e;
+    plan_estimate(p, i, &e);
+    char d[32], a[32], b[32], c[32];
+    out_print(o, "\nphase %zu/%zu %s: %s\n", i + 1, p->n_phases, ph->name,
+              e.open_ended ? "until done" : dur_str(e.duration_ns, d, sizeof d));
+    print_shape(ph, &e, o);
+    for (size_t k = 0; k < p->n_reqs; k++)
+        if (e.per_class[k] > 0)
+            out_print(o, "    %-24s %12s %s\n", p->reqs[k].name, count_str(e.per_class[k], a, 32),
+                      p->reqs[k].kind == PLAN_WATCH ? "streams" : "requests");
+    if (ph->teardown.on)
+        out_print(o, "    %-24s %12s requests\n", "(teardown deletes)",
+                  count_str(e.deleted, a, 32));
+    out_print(o, "    total %s requests, peak %s/s", count_str(e.requests, a, 32),
+              count_str(e.peak_rate, b, 32));
+    if (e.burst > 0)
+        out_print(o, ", bursts of %s at once", count_str(e.burst, c, 32));
+    if (e.watches || e.agents)
+        out_print(o, ", %d watches, %d agents", e.watches, e.agents);
+    out_print(o, "\n    objects: %s created, %s deleted, %s alive after\n",
+              count_str(e.created, a, 32), count_str(e.deleted, b, 32),
+              count_str(e.alive_after, c, 32));
+}
+
+static void print_summary(const plan_t *p, out_t *o)
+{
+    print_target(p, o);
+    double total = 0, peak = 0;
+    int64_t dur = 0;
+    for (size_t i = 0; i < p->n_phases; i++) {
+        print_phase(p, i, o);
+        plan_estimate_t e;
+        plan_estimate(p, i, &e);
+        total += e.requests;
+        peak = e.peak_rate > peak ? e.peak_rate : peak;
+        dur += e.duration_ns;
+    }
+    char a[32], b[32], d[32];
+    out_print(o,
+              "\nplan: %zu phases, at least %s, %s requests expected, peak %s/s; %zu "
+              "objectives, %zu brakes\n",
+              p->n_phases, dur_str(dur, d, sizeof d), count_str(total, a, 32),
+              count_str(peak, b, 32), p->n_objectives, p->n_brakes);
+    if (!p->target.loopback)
+        out_print(o,
+                  "caution: %s is not loopback; `squall run` will refuse it without "
+                  "--confirm-target. Make sure its owners know.\n",
+                  p->target.host);
+}
+
+static const cli_opt_t check_opts[] = {
+    {"set", 0, "KEY=VALUE", "override a plan value, e.g. phases.steady.rate=100/s (repeatable)"},
+    {NULL, 0, NULL, NULL},
+};
+
+static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
+{
+    cli_args_t a;
+    const char *v, *path = NULL;
+    plan_override_t *sets = calloc((size_t)argc + 1, sizeof(*sets));
+    char **copies = calloc((size_t)argc + 1, sizeof(*copies));
+    size_t n = 0;
+    int k, rc = SQ_EXIT_USAGE;
+    if (!sets || !copies)
+        goto done;
+    cli_args_init(&a, cmd, argc, argv);
+    while ((k = cli_next(&a, o, &v)) != CLI_END) {
+        if (k == CLI_ERROR)
+            goto done;
+        if (k == CLI_HELP) {
+            cli_print_help(cmd, o);
+            rc = SQ_EXIT_OK;
+            goto done;
+        }
+        if (k == CLI_POSITIONAL) {
+            if (path) {
+                rc = cli_usage_error(cmd, o, "one plan at a time, got '%s' after '%s'", v, path);
+                goto done;
+            }
+            path = v;
+            continue;
+        }
+        const char *eq = strchr(v, '=');
+        if (!eq || eq == v || !(copies[n] = strdup(v))) {
+            rc = cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
+            goto done;
+        }
+        copies[n][eq - v] = '\0';
+        sets[n].key = copies[n];
+        sets[n].value = copies[n] + (eq - v) + 1;
+        n++;
+    }
+    if (!path) {
+        rc = cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
+        goto done;
+    }
+    plan_t *p;
+    int err = plan_load(path, sets, n, &p, o);
+    if (err) {
+        rc = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+        goto done;
+    }
+    out_print(o, "plan     %s: valid\n", path);
+    print_summary(p, o);
+    plan_free(p);
+    rc = SQ_EXIT_OK;
+done:
+    for (size_t i = 0; copies && i < n; i++)
+        free(copies[i]);
+    free(copies);
+    free(sets);
+    return rc;
+}
+
+const cli_cmd_t cli_cmd_check = {
+    .name = "check",
+    .summary = "validate a plan and print what it would send, without sending anything",
+    .usage = "PLAN.yaml [--set KEY=VALUE]...",
+    .description = "Reads the plan (and its includes), reports every problem as\n"
+                   "FILE:LINE:COL: error: ..., and exits 2 if there is any. Otherwise prints,\n"
+                   "per phase, the expected requests per class, peak rate, watches, agents and\n"
+                   "objects created and deleted, computed from the plan alone.",
+    .opts = check_opts,
+    .main = check_main,
+};

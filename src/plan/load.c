@@ -1,0 +1,232 @@
+/* plan_load: reads a plan file and its includes with libyaml, applies --set overrides to the
+ * top file's document, and hands each top-level section to its parser in a fixed order. */
+#include <errno.h>
+#include <libgen.h>
+#include <limits.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "plan_int.h"
+#include "squall/err.h"
+
+#define MAX_INCLUDE_DEPTH 16
+
+static const char *const root_keys[] = {"include", "seed",       "target", "vars", "requests",
+                                        "phases",  "objectives", "brakes", NULL};
+
+typedef struct {
+    char *real[MAX_INCLUDE_DEPTH]; /* realpath of each file being read, for cycles */
+    int depth;
+} chain_t;
+
+static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch,
+                     const plan_override_t *ov, size_t n_ov);
+
+static void yaml_syntax_error(pctx_t *c, yaml_parser_t *ps)
+{
+    plan_pos_t pos = {c->file, (int)ps->problem_mark.line + 1, (int)ps->problem_mark.column + 1};
+    if (ps->context)
+        pc_error_at(c, pos,
+                    "YAML syntax: %s %s (expected valid YAML, got a syntax error at "
+                    "line %d, column %d)",
+                    ps->problem, ps->context, (int)ps->problem_mark.line + 1,
+                    (int)ps->problem_mark.column + 1);
+    else
+        pc_error_at(c, pos, "YAML syntax: %s (expected valid YAML, got a syntax error)",
+                    ps->problem ? ps->problem : "unreadable");
+}
+
+/* include: PATH or [PATH, ...], relative to the including file's directory. */
+static int do_includes(pctx_t *c, yaml_node_t *n, const char *path, chain_t *ch)
+{
+    bool seq = n->type == YAML_SEQUENCE_NODE;
+    size_t count = seq ? (size_t)(n->data.sequence.items.top - n->data.sequence.items.start) : 1;
+    yaml_document_t *doc = c->doc;
+    const char *file = c->file;
+    for (size_t i = 0; i < count; i++) {
+        yaml_node_t *it = seq ? yaml_document_get_node(doc, n->data.sequence.items.start[i]) : n;
+        if (!pc_text(it)) {
+            char got[64];
+            pc_describe(it, got, sizeof got);
+            pc_error(c, it,
+                     "include: wrong type (expected a file path or a list of them, got "
+                     "%s)",
+                     got);
+            continue;
+        }
+        char dir[PATH_MAX], full[PATH_MAX * 2];
+        snprintf(dir, sizeof dir, "%s", path);
+        const char *inc = pc_text(it);
+        if (inc[0] == '/')
+            snprintf(full, sizeof full, "%s", inc);
+        else
+            snprintf(full, sizeof full, "%s/%s", dirname(dir), inc);
+        /* An include that fails has printed its errors; they make the load fail later. */
+        int r = load_file(c, full, pc_pos(c, it), ch, NULL, 0);
+        c->doc = doc; /* back to this file */
+        c->file = file;
+        if (r == SQ_ENOMEM)
+            return r;
+    }
+    return 0;
+}
+
+static void parse_seed(pctx_t *c, yaml_node_t *root)
+{
+    yaml_node_t *n = pc_get(c, root, "seed");
+    if (!n)
+        return;
+    int64_t v;
+    const char *t = pc_text(n);
+    if (!t || plan_parse_int(t, 0, INT64_MAX, &v) != 0) {
+        char got[64];
+        pc_describe(n, got, sizeof got);
+        pc_error(c, n, "seed: malformed value (expected an integer from 0 to %lld, got %s)",
+                 (long long)INT64_MAX, got);
+        return;
+    }
+    c->p->seed = (uint64_t)v;
+    c->p->has_seed = true;
+}
+
+/* The sections of one document, in an order that does not depend on the file's. */
+static void parse_root(pctx_t *c, yaml_node_t *root)
+{
+    pc_check_keys(c, root, "plan", root_keys);
+    parse_seed(c, root);
+    void (*const parsers[])(pctx_t *, yaml_node_t *) = {plan_parse_target,     plan_parse_vars,
+                                                        plan_parse_requests,   plan_parse_phases,
+                                                        plan_parse_objectives, plan_parse_brakes};
+    for (size_t i = 0; i < sizeof parsers / sizeof parsers[0]; i++) {
+        yaml_node_t *n = pc_get(c, root, root_keys[i + 2]);
+        if (n)
+            parsers[i](c, n);
+    }
+}
+
+/* Reads one file: cycle check, YAML, overrides (top file only), includes, then sections. */
+static int read_doc(pctx_t *c, const char *path, plan_pos_t from, yaml_document_t *doc)
+{
+    FILE *fp = fopen(path, "rb");
+    if (!fp) {
+        if (from.file)
+            pc_error_at(c, from, "include: cannot read '%s' (expected a readable file, got %s)",
+                        path, strerror(errno));
+        else
+            pc_error_at(c, (plan_pos_t){c->file, 0, 0},
+                        "cannot read plan (expected a readable file, got %s)", strerror(errno));
+        return SQ_EIO;
+    }
+    yaml_parser_t ps;
+    if (!yaml_parser_initialize(&ps)) {
+        fclose(fp);
+        return SQ_ENOMEM;
+    }
+    yaml_parser_set_input_file(&ps, fp);
+    int ok = yaml_parser_load(&ps, doc);
+    if (!ok)
+        yaml_syntax_error(c, &ps);
+    yaml_parser_delete(&ps);
+    fclose(fp);
+    return ok ? 0 : SQ_EPARSE;
+}
+
+static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch,
+                     const plan_override_t *ov, size_t n_ov)
+{
+    c->file = pmem_strdup(c, path);
+    char *real = realpath(path, NULL);
+    for (int i = 0; real && i < ch->depth; i++)
+        if (strcmp(ch->real[i], real) == 0) {
+            pc_error_at(c, from,
+                        "include: cycle through '%s' (expected a file not already "
+                        "being read, got one of its includers)",
+                        path);
+            free(real);
+            return SQ_EPARSE;
+        }
+    if (ch->depth >= MAX_INCLUDE_DEPTH) {
+        pc_error_at(c, from, "include: nested too deep (expected at most %d levels, got more)",
+                    MAX_INCLUDE_DEPTH);
+        free(real);
+        return SQ_EPARSE;
+    }
+    yaml_document_t doc;
+    int rc = read_doc(c, path, from, &doc);
+    if (rc) {
+        free(real);
+        return rc;
+    }
+    ch->real[ch->depth++] = real ? real : strdup(path);
+    c->doc = &doc;
+    for (size_t k = 0; k < n_ov; k++)
+        plan_apply_override(c, k, &ov[k]);
+    yaml_node_t *root = yaml_document_get_root_node(&doc);
+    if (!root)
+        pc_error_at(c, (plan_pos_t){c->file, 1, 1},
+                    "plan: empty document (expected a mapping with target, requests and "
+                    "phases, got nothing)");
+    else if (pc_expect_map(c, root, "plan")) {
+        yaml_node_t *inc = pc_get(c, root, "include");
+        if (inc)
+            rc = do_includes(c, inc, path, ch);
+        if (rc != SQ_ENOMEM)
+            parse_root(c, root);
+    }
+    yaml_document_delete(&doc);
+    free(ch->real[--ch->depth]);
+    return rc;
+}
+
+static void set_defaults(plan_t *p)
+{
+    p->target.http = PLAN_HTTP_1_1;
+    p->target.connections = 16;
+    p->target.timeout_ns = INT64_C(10000000000);
+    p->target.pos = (plan_pos_t){p->path, 1, 1};
+}
+
+int plan_load(const char *path, const plan_override_t *overrides, size_t n, plan_t **out, out_t *o)
+{
+    *out = NULL;
+    plan_t *p = calloc(1, sizeof(*p));
+    if (!p)
+        return SQ_ENOMEM;
+    pctx_t c = {.p = p, .o = o};
+    p->path = pmem_strdup(&c, path);
+    set_defaults(p);
+    c.set_names = calloc(n + 1, sizeof(*c.set_names));
+    for (size_t k = 0; c.set_names && k < n; k++) {
+        char buf[512];
+        snprintf(buf, sizeof buf, "--set %s=%s", overrides[k].key, overrides[k].value);
+        c.set_names[k] = pmem_strdup(&c, buf);
+    }
+    c.n_set = c.set_names ? n : 0;
+    chain_t ch = {.depth = 0};
+    int rc =
+        c.set_names ? load_file(&c, path, (plan_pos_t){NULL, 0, 0}, &ch, overrides, n) : SQ_ENOMEM;
+    c.file = p->path;
+    if (rc != SQ_EIO && rc != SQ_ENOMEM && !c.nomem)
+        plan_check_whole(&c);
+    free(c.set_names);
+    if (c.nomem || rc == SQ_ENOMEM) {
+        out_error(o, "out of memory while reading %s", path);
+        rc = SQ_ENOMEM;
+    } else if (!rc && c.errors)
+        rc = SQ_EPARSE;
+    if (rc) {
+        plan_free(p);
+        return rc;
+    }
+    *out = p;
+    return 0;
+}
+
+void plan_free(plan_t *p)
+{
+    if (!p)
+        return;
+    pmem_free(p->mem);
+    free(p);
+}

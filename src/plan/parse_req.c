@@ -1,0 +1,218 @@
+/* The plan's `requests` section: named request classes (get, list, write, watch), each key
+ * checked against the kinds it applies to so `page` on a write is an error, not a no-op. */
+#include <stdio.h>
+#include <string.h>
+
+#include "plan_int.h"
+#include "squall/err.h"
+
+static const struct {
+    const char *key;
+    unsigned kinds;
+} req_keys[] = {
+    {"kind", PK_ANY},        {"path", PK_ANY},
+    {"headers", PK_ANY},     {"timeout", PK_ANY},
+    {"page", PK_LIST},       {"limit-param", PK_LIST},
+    {"token-key", PK_LIST},  {"token-param", PK_LIST},
+    {"method", PK_WRITE},    {"body", PK_WRITE},
+    {"creates", PK_WRITE},   {"deletes", PK_WRITE},
+    {"framing", PK_WATCH},   {"version-key", PK_WATCH},
+    {"stamp-key", PK_WATCH}, {"too-old-status", PK_WATCH},
+    {"relist", PK_WATCH},    {"reconnect", PK_WATCH},
+};
+#define N_REQ_KEYS (sizeof req_keys / sizeof req_keys[0])
+
+static const char *const kind_names[] = {"get", "list", "write", "watch", NULL};
+static const char *const backoff_names[] = {
+    "immediate", "fixed", "exponential", "full-jitter", "equal-jitter", "decorrelated", NULL};
+
+const char *plan_kind_name(enum plan_kind k)
+{
+    return kind_names[k];
+}
+
+const char *plan_backoff_name(enum plan_backoff b)
+{
+    return backoff_names[b];
+}
+
+/* Keys that exist but belong to another kind of request. */
+static void check_kind_keys(pctx_t *c, yaml_node_t *n, const char *where, enum plan_kind kind)
+{
+    for (size_t i = 0; i < N_REQ_KEYS; i++) {
+        if (req_keys[i].kinds & (1u << kind))
+            continue;
+        yaml_node_t *k = pc_get_key(c, n, req_keys[i].key);
+        if (!k)
+            continue;
+        char kinds[64] = "";
+        for (int j = 0; kind_names[j]; j++)
+            if (req_keys[i].kinds & (1u << j))
+                snprintf(kinds + strlen(kinds), sizeof kinds - strlen(kinds), "%s%s",
+                         kinds[0] ? " or " : "", kind_names[j]);
+        pc_error(c, k, "%s: key '%s' does not apply to this kind (expected kind %s, got %s)", where,
+                 req_keys[i].key, kinds, kind_names[kind]);
+    }
+}
+
+static void parse_list_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+{
+    r->list.limit_param = "limit";
+    r->list.token_key = "next";
+    r->list.token_param = "after";
+    pc_int(c, n, "page", where, 0, 1000000, &r->list.page);
+    pc_str(c, n, "limit-param", where, &r->list.limit_param);
+    pc_str(c, n, "token-key", where, &r->list.token_key);
+    pc_str(c, n, "token-param", where, &r->list.token_param);
+}
+
+static void parse_write_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+{
+    static const char *const methods[] = {"POST", "PUT", "PATCH", "DELETE", NULL};
+    int m = 1;
+    pc_enum(c, n, "method", where, methods, &m);
+    r->write.method = methods[m];
+    if (pc_str(c, n, "body", where, &r->write.body))
+        r->write.body_pos = pc_pos(c, pc_get(c, n, "body"));
+    pc_bool(c, n, "creates", where, &r->write.creates);
+    pc_bool(c, n, "deletes", where, &r->write.deletes);
+    if (r->write.creates && r->write.deletes)
+        pc_error(c, pc_get_key(c, n, "deletes"),
+                 "%s: a class either creates or deletes (expected one of creates, deletes, got "
+                 "both)",
+                 where);
+    else if (r->write.creates && m == 3)
+        pc_error(c, pc_get_key(c, n, "creates"),
+                 "%s: a DELETE cannot create (expected method POST, PUT or PATCH, got DELETE)",
+                 where);
+}
+
+static void parse_reconnect(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+{
+    static const char *const keys[] = {"policy", "base", "cap", NULL};
+    char w[200];
+    snprintf(w, sizeof w, "%s.reconnect", where);
+    if (!pc_expect_map(c, n, w))
+        return;
+    pc_check_keys(c, n, w, keys);
+    int pol = r->watch.policy;
+    if (pc_enum(c, n, "policy", w, backoff_names, &pol))
+        r->watch.policy = (enum plan_backoff)pol;
+    bool b = pc_dur(c, n, "base", w, 0, &r->watch.base_ns);
+    bool k = pc_dur(c, n, "cap", w, 0, &r->watch.cap_ns);
+    if ((b || k) && r->watch.cap_ns < r->watch.base_ns)
+        pc_error(c, pc_get(c, n, k ? "cap" : "base"),
+                 "%s: cap below base (expected cap >= base, got base %.3gs, cap %.3gs)", w,
+                 r->watch.base_ns / 1e9, r->watch.cap_ns / 1e9);
+}
+
+static void parse_watch_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+{
+    static const char *const framings[] = {"ndjson", "sse", "raw", NULL};
+    r->watch.version_key = "version";
+    r->watch.stamp_key = "stamp";
+    r->watch.too_old_status = 410;
+    r->watch.relist.index = -1;
+    r->watch.policy = PLAN_BACKOFF_FULL_JITTER;
+    r->watch.base_ns = INT64_C(200000000);
+    r->watch.cap_ns = INT64_C(10000000000);
+    int f = 0;
+    pc_enum(c, n, "framing", where, framings, &f);
+    r->watch.framing = (enum plan_framing)f;
+    pc_str(c, n, "version-key", where, &r->watch.version_key);
+    pc_str(c, n, "stamp-key", where, &r->watch.stamp_key);
+    pc_int(c, n, "too-old-status", where, 100, 599, &r->watch.too_old_status);
+    yaml_node_t *rl = pc_get(c, n, "relist");
+    if (rl) {
+        char w[200];
+        snprintf(w, sizeof w, "%s.relist", where);
+        pc_ref(c, &r->watch.relist, rl, w);
+    }
+    if (pc_get(c, n, "reconnect"))
+        parse_reconnect(c, pc_get(c, n, "reconnect"), where, r);
+}
+
+static void parse_common(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+{
+    r->timeout_ns = r->kind == PLAN_WATCH ? 0 : c->p->target.timeout_ns;
+    pc_dur(c, n, "timeout", where, r->kind == PLAN_WATCH ? 0 : 1, &r->timeout_ns);
+    yaml_node_t *path = pc_get(c, n, "path");
+    if (!path)
+        pc_error(c, n,
+                 "%s: missing key 'path' (expected a path template like /v1/things, got "
+                 "nothing)",
+                 where);
+    else if (pc_str(c, n, "path", where, &r->path)) {
+        r->path_pos = pc_pos(c, path);
+        if (r->path[0] != '/')
+            pc_error(c, path, "%s.path: not a path (expected text starting with '/', got '%s')",
+                     where, r->path);
+    }
+    if (pc_get(c, n, "headers")) {
+        char w[200];
+        snprintf(w, sizeof w, "%s.headers", where);
+        plan_parse_headers_into(c, pc_get(c, n, "headers"), w, &r->headers, &r->n_headers);
+    }
+}
+
+static void parse_one(pctx_t *c, yaml_node_t *k, yaml_node_t *n, plan_req_t *r)
+{
+    static const char *keys[N_REQ_KEYS + 1];
+    for (size_t i = 0; i < N_REQ_KEYS; i++)
+        keys[i] = req_keys[i].key;
+    char where[128];
+    snprintf(where, sizeof where, "requests.%s", pc_text(k));
+    r->name = pmem_strdup(c, pc_text(k));
+    r->pos = pc_pos(c, k);
+    if (!pc_expect_map(c, n, where))
+        return;
+    pc_check_keys(c, n, where, keys);
+    int kind = -1;
+    if (!pc_get(c, n, "kind")) {
+        pc_error(c, n,
+                 "%s: missing key 'kind' (expected one of get, list, write, watch, got "
+                 "nothing)",
+                 where);
+        return;
+    }
+    if (!pc_enum(c, n, "kind", where, kind_names, &kind))
+        return;
+    r->kind = (enum plan_kind)kind;
+    check_kind_keys(c, n, where, r->kind);
+    parse_common(c, n, where, r);
+    if (r->kind == PLAN_LIST)
+        parse_list_keys(c, n, where, r);
+    else if (r->kind == PLAN_WRITE)
+        parse_write_keys(c, n, where, r);
+    else if (r->kind == PLAN_WATCH)
+        parse_watch_keys(c, n, where, r);
+}
+
+void plan_parse_requests(pctx_t *c, yaml_node_t *n)
+{
+    if (!pc_expect_map(c, n, "requests"))
+        return;
+    pc_check_keys(c, n, "requests", NULL);
+    for (yaml_node_pair_t *pr = n->data.mapping.pairs.start; pr < n->data.mapping.pairs.top; pr++) {
+        yaml_node_t *k = pc_node(c, pr->key);
+        if (!pc_text(k) || !pc_name_ok(c, k, "requests", "class"))
+            continue;
+        int prev = plan_find_req(c->p, pc_text(k));
+        if (prev >= 0) {
+            plan_pos_t f = c->p->reqs[prev].pos;
+            if (f.file != c->file) /* same file: already reported as a duplicate key */
+                pc_error(c, k, "requests.%s: class defined twice (first at %s:%d:%d)", pc_text(k),
+                         f.file, f.line, f.col);
+            continue;
+        }
+        if (c->p->n_reqs >= PLAN_MAX_REQS) {
+            pc_error(c, k, "requests: too many classes (expected at most %d, got more)",
+                     PLAN_MAX_REQS);
+            return;
+        }
+        c->p->reqs = pc_grow(c, c->p->reqs, &c->p->n_reqs, 1, sizeof(plan_req_t));
+        if (c->nomem)
+            return;
+        parse_one(c, k, pc_node(c, pr->value), &c->p->reqs[c->p->n_reqs - 1]);
+    }
+}

@@ -1,0 +1,109 @@
+/* Private to src/plan: the loading context, the plan's memory, and YAML node readers.
+ *
+ * Every reader takes the mapping it reads from, the key, and the dotted "where" of the mapping
+ * (e.g. "requests.renew") so an error line can name the exact setting. A reader that finds a
+ * bad value prints one error line and returns false; a missing key returns false silently and
+ * leaves *out untouched, so defaults are set before reading. */
+#ifndef SQUALL_PLAN_INT_H
+#define SQUALL_PLAN_INT_H
+
+#include <yaml.h>
+
+#include "squall/plan.h"
+
+/* Which kinds a key applies to (bit per enum plan_kind), for "page on a write" errors. */
+#define PK_GET   (1u << PLAN_GET)
+#define PK_LIST  (1u << PLAN_LIST)
+#define PK_WRITE (1u << PLAN_WRITE)
+#define PK_WATCH (1u << PLAN_WATCH)
+#define PK_ANY   (PK_GET | PK_LIST | PK_WRITE | PK_WATCH)
+
+typedef struct {
+    plan_t *p;
+    out_t *o;
+    int errors;
+    yaml_document_t *doc;
+    const char *file;       /* owned by the plan's memory */
+    const char **set_names; /* "--set KEY=VALUE" per override, for positions */
+    size_t n_set;
+    bool nomem;
+} pctx_t;
+
+/* Nodes created by override k carry start_mark.line == PC_SET_MARK - k. */
+#define PC_SET_MARK ((size_t)-1)
+
+/* Memory owned by the plan: zeroed blocks and strings freed together by plan_free. */
+void *pmem_alloc(pctx_t *c, size_t n);
+const char *pmem_strdup(pctx_t *c, const char *s);
+void pmem_free(struct plan_mem *m);
+
+/* Diagnostics: `FILE:LINE:COL: error: ` + the formatted text, at the node (or pos). */
+void pc_error(pctx_t *c, const yaml_node_t *n, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
+void pc_error_at(pctx_t *c, plan_pos_t pos, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
+plan_pos_t pc_pos(pctx_t *c, const yaml_node_t *n);
+
+/* Nodes. */
+yaml_node_t *pc_node(pctx_t *c, int id);
+/* "a mapping", "a list", "'text'" (truncated), or "nothing" for an empty plain scalar. */
+void pc_describe(const yaml_node_t *n, char *buf, size_t len);
+/* The text of a non-empty scalar node, or NULL. */
+const char *pc_text(const yaml_node_t *n);
+bool pc_expect_map(pctx_t *c, yaml_node_t *n, const char *where);
+bool pc_expect_seq(pctx_t *c, yaml_node_t *n, const char *where);
+
+/* Reports unknown keys (with a suggestion from `keys`, NULL-terminated), non-scalar keys and
+ * duplicate keys in mapping `map`. */
+void pc_check_keys(pctx_t *c, yaml_node_t *map, const char *where, const char *const *keys);
+/* Value node of `key` in mapping `map`, or NULL (the first one when duplicated). */
+yaml_node_t *pc_get(pctx_t *c, yaml_node_t *map, const char *key);
+/* The key node of `key` (for positions of errors about the key itself), or NULL. */
+yaml_node_t *pc_get_key(pctx_t *c, yaml_node_t *map, const char *key);
+
+/* Typed readers (see the file comment). */
+bool pc_str(pctx_t *c, yaml_node_t *map, const char *key, const char *where, const char **out);
+bool pc_int(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int64_t min,
+            int64_t max, int *out);
+bool pc_dur(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int64_t min_ns,
+            int64_t *out);
+bool pc_rate(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double *out);
+bool pc_pct(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double *out);
+bool pc_num(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double min, double max,
+            double *out);
+bool pc_bool(pctx_t *c, yaml_node_t *map, const char *key, const char *where, bool *out);
+/* One of `names` (NULL-terminated); *out is its index. */
+bool pc_enum(pctx_t *c, yaml_node_t *map, const char *key, const char *where,
+             const char *const *names, int *out);
+/* Value readers for a node already in hand (sequence items, mix weights). */
+bool pc_node_rate(pctx_t *c, yaml_node_t *n, const char *where, double *out);
+bool pc_node_dur(pctx_t *c, yaml_node_t *n, const char *where, int64_t min_ns, int64_t *out);
+
+/* Names: class, phase and variable names are [A-Za-z0-9_.-]+ (no dots, for --set paths). */
+bool pc_name_ok(pctx_t *c, yaml_node_t *n, const char *where, const char *what);
+/* Sets ref's name and position from scalar node n (index -1); false after a type error.
+ * References are resolved, and their kinds checked, by plan_check_whole once every file is
+ * read, since arrays may still move while files are read. */
+bool pc_ref(pctx_t *c, plan_ref_t *ref, yaml_node_t *n, const char *what);
+
+/* headers: {Name: value}; a header already in *out (any case) is replaced. */
+void plan_parse_headers_into(pctx_t *c, yaml_node_t *n, const char *where, plan_kv_t **out,
+                             size_t *count);
+
+/* The sections, in parse_*.c. Each reads one top-level key of one file's document. */
+void plan_parse_target(pctx_t *c, yaml_node_t *n);
+void plan_parse_vars(pctx_t *c, yaml_node_t *n);
+void plan_parse_requests(pctx_t *c, yaml_node_t *n);
+void plan_parse_phases(pctx_t *c, yaml_node_t *n);
+void plan_parse_objectives(pctx_t *c, yaml_node_t *n);
+void plan_parse_brakes(pctx_t *c, yaml_node_t *n);
+/* Resolves every reference and runs the checks that need the whole plan. */
+void plan_check_whole(pctx_t *c);
+
+/* Applies --set override k to the document c->doc (see set.c). */
+void plan_apply_override(pctx_t *c, size_t k, const plan_override_t *ov);
+
+/* Appends n zeroed elements to a plan array (copying, since arrays live in plan memory). */
+void *pc_grow(pctx_t *c, void *arr, size_t *count, size_t add, size_t elem);
+
+#endif

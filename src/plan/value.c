@@ -1,0 +1,224 @@
+/* The plan's value syntax: durations, rates, percentages and numbers, parsed strictly.
+ * Durations are computed in exact integer nanoseconds so `1.1s` is 1100000000, not a float. */
+#include "squall/plan.h"
+
+#include <ctype.h>
+#include <errno.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/err.h"
+
+/* One <digits>[.<digits>] number at *s, as integer part and fraction digits; advances *s. */
+static int read_decimal(const char **s, uint64_t *whole, uint64_t *frac, int *frac_digits)
+{
+    const char *p = *s;
+    *whole = 0;
+    *frac = 0;
+    *frac_digits = 0;
+    if (!isdigit((unsigned char)*p))
+        return SQ_EPARSE;
+    for (; isdigit((unsigned char)*p); p++) {
+        if (*whole > (UINT64_MAX - 9) / 10)
+            return SQ_ERANGE;
+        *whole = *whole * 10 + (uint64_t)(*p - '0');
+    }
+    if (*p == '.') {
+        p++;
+        if (!isdigit((unsigned char)*p))
+            return SQ_EPARSE;
+        for (; isdigit((unsigned char)*p); p++) {
+            if (*frac_digits >= 18)
+                return SQ_ERANGE; /* finer than any unit can carry in nanoseconds */
+            *frac = *frac * 10 + (uint64_t)(*p - '0');
+            (*frac_digits)++;
+        }
+    }
+    *s = p;
+    return 0;
+}
+
+static const struct {
+    const char *name;
+    int64_t ns;
+} duration_units[] = {
+    /* Longest names first so "ms" is not read as "m" followed by junk. */
+    {"ns", 1},
+    {"us", 1000},
+    {"\xc2\xb5s", 1000},
+    {"ms", 1000000},
+    {"s", INT64_C(1000000000)},
+    {"m", INT64_C(60000000000)},
+    {"h", INT64_C(3600000000000)},
+};
+
+static int64_t read_duration_unit(const char **s)
+{
+    for (size_t i = 0; i < sizeof duration_units / sizeof duration_units[0]; i++) {
+        size_t n = strlen(duration_units[i].name);
+        if (strncmp(*s, duration_units[i].name, n) == 0) {
+            *s += n;
+            return duration_units[i].ns;
+        }
+    }
+    return 0;
+}
+
+/* whole.frac * unit in nanoseconds, exactly, or SQ_ERANGE. */
+static int scale_part(uint64_t whole, uint64_t frac, int digits, int64_t unit, int64_t *out)
+{
+    if (whole > (uint64_t)(INT64_MAX / unit))
+        return SQ_ERANGE;
+    int64_t v = (int64_t)whole * unit;
+    uint64_t den = 1;
+    for (int i = 0; i < digits; i++)
+        den *= 10;
+    /* frac/den * unit must be a whole number of ns. frac < 1e18 times a unit up to 3.6e12
+     * overflows 64 bits, so the product is formed in 128. */
+    unsigned __int128 num = (unsigned __int128)frac * (uint64_t)unit;
+    if (num % den != 0)
+        return SQ_ERANGE;
+    uint64_t add = (uint64_t)(num / den);
+    if (add > (uint64_t)(INT64_MAX - v))
+        return SQ_ERANGE;
+    *out = v + (int64_t)add;
+    return 0;
+}
+
+int plan_parse_duration(const char *s, int64_t *ns)
+{
+    if (!s || !*s)
+        return SQ_EPARSE;
+    if (s[0] == '-')
+        return isdigit((unsigned char)s[1]) ? SQ_ERANGE : SQ_EPARSE;
+    if (strcmp(s, "0") == 0) {
+        *ns = 0;
+        return 0;
+    }
+    int64_t total = 0;
+    while (*s) {
+        uint64_t whole, frac;
+        int digits, rc = read_decimal(&s, &whole, &frac, &digits);
+        if (rc)
+            return rc;
+        int64_t unit = read_duration_unit(&s);
+        if (!unit)
+            return SQ_EPARSE;
+        int64_t part;
+        if ((rc = scale_part(whole, frac, digits, unit, &part)))
+            return rc;
+        if (part > INT64_MAX - total)
+            return SQ_ERANGE;
+        total += part;
+    }
+    *ns = total;
+    return 0;
+}
+
+/* strtod restricted to plain decimal numbers: no sign, no hex, no inf/nan, no spaces. */
+static int read_number(const char *s, const char **end, double *v)
+{
+    if (!isdigit((unsigned char)s[0]) && !(s[0] == '.' && isdigit((unsigned char)s[1])))
+        return SQ_EPARSE;
+    for (const char *p = s; *p && p != *end; p++)
+        if (p[0] == '0' && (p[1] == 'x' || p[1] == 'X'))
+            return SQ_EPARSE;
+    char *e;
+    errno = 0;
+    double d = strtod(s, &e);
+    if (e == s)
+        return SQ_EPARSE;
+    if (errno == ERANGE || !isfinite(d))
+        return SQ_ERANGE;
+    *end = e;
+    *v = d;
+    return 0;
+}
+
+int plan_parse_number(const char *s, double min, double max, double *v)
+{
+    if (!s)
+        return SQ_EPARSE;
+    bool neg = s[0] == '-';
+    const char *end = NULL;
+    double d;
+    int rc = read_number(s + neg, &end, &d);
+    if (rc)
+        return rc;
+    if (*end)
+        return SQ_EPARSE;
+    d = neg ? -d : d;
+    if (d < min || d > max)
+        return SQ_ERANGE;
+    *v = d;
+    return 0;
+}
+
+int plan_parse_rate(const char *s, double *per_s)
+{
+    if (!s)
+        return SQ_EPARSE;
+    if (s[0] == '-')
+        return isdigit((unsigned char)s[1]) ? SQ_ERANGE : SQ_EPARSE;
+    if (strcmp(s, "0") == 0) {
+        *per_s = 0;
+        return 0;
+    }
+    const char *end = NULL;
+    double d;
+    int rc = read_number(s, &end, &d);
+    if (rc)
+        return rc;
+    double div;
+    if (strcmp(end, "/s") == 0)
+        div = 1;
+    else if (strcmp(end, "/m") == 0 || strcmp(end, "/min") == 0)
+        div = 60;
+    else if (strcmp(end, "/h") == 0)
+        div = 3600;
+    else
+        return SQ_EPARSE;
+    d /= div;
+    if (d > PLAN_RATE_MAX)
+        return SQ_ERANGE;
+    *per_s = d;
+    return 0;
+}
+
+int plan_parse_percent(const char *s, double *fraction)
+{
+    if (!s)
+        return SQ_EPARSE;
+    if (s[0] == '-')
+        return isdigit((unsigned char)s[1]) ? SQ_ERANGE : SQ_EPARSE;
+    const char *end = NULL;
+    double d;
+    int rc = read_number(s, &end, &d);
+    if (rc)
+        return rc;
+    if (strcmp(end, "%") != 0)
+        return SQ_EPARSE;
+    if (d > 100)
+        return SQ_ERANGE;
+    *fraction = d / 100;
+    return 0;
+}
+
+int plan_parse_int(const char *s, int64_t min, int64_t max, int64_t *v)
+{
+    if (!s)
+        return SQ_EPARSE;
+    const char *p = s + (s[0] == '-');
+    if (!isdigit((unsigned char)*p))
+        return SQ_EPARSE;
+    for (const char *q = p; *q; q++)
+        if (!isdigit((unsigned char)*q))
+            return SQ_EPARSE;
+    errno = 0;
+    long long n = strtoll(s, NULL, 10);
+    if (errno == ERANGE || n < min || n > max)
+        return SQ_ERANGE;
+    *v = n;
+    return 0;
+}
