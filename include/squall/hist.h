@@ -65,7 +65,7 @@ size_t hist_counts_len(const hist_t *h);
 int hist_bucket_count(const hist_t *h);
 int hist_sub_bucket_count(const hist_t *h);
 /* Memory: counts are uint32_t (half of HdrHistogram_c's int64_t) in one allocation with the
- * header. Bytes one histogram holds, header included (98,392 for the HIST_NS_* range). */
+ * header. Bytes one histogram holds, header included (98,408 for the HIST_NS_* range on x86-64). */
 size_t hist_memory(const hist_t *h);
 
 /* Iteration over non-empty buckets in increasing order:
