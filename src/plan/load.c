@@ -58,10 +58,11 @@ static int do_includes(pctx_t *c, yaml_node_t *n, const char *path, chain_t *ch)
         char dir[PATH_MAX], full[PATH_MAX * 2];
         snprintf(dir, sizeof dir, "%s", path);
         const char *inc = pc_text(it);
-        if (inc[0] == '/')
+        const char *d = dirname(dir);
+        if (inc[0] == '/' || strcmp(d, ".") == 0)
             snprintf(full, sizeof full, "%s", inc);
         else
-            snprintf(full, sizeof full, "%s/%s", dirname(dir), inc);
+            snprintf(full, sizeof full, "%s/%s", d, inc);
         /* An include that fails has printed its errors; they make the load fail later. */
         int r = load_file(c, full, pc_pos(c, it), ch, NULL, 0);
         c->doc = doc; /* back to this file */
@@ -207,7 +208,8 @@ int plan_load(const char *path, const plan_override_t *overrides, size_t n, plan
     int rc =
         c.set_names ? load_file(&c, path, (plan_pos_t){NULL, 0, 0}, &ch, overrides, n) : SQ_ENOMEM;
     c.file = p->path;
-    if (rc != SQ_EIO && rc != SQ_ENOMEM && !c.nomem)
+    /* Whole-plan checks on a file that did not parse would only repeat its syntax error. */
+    if (rc == 0 && !c.nomem)
         plan_check_whole(&c);
     free(c.set_names);
     if (c.nomem || rc == SQ_ENOMEM) {

@@ -404,10 +404,13 @@ static void parse_one(pctx_t *c, yaml_node_t *n, size_t index)
 
 void plan_parse_phases(pctx_t *c, yaml_node_t *n)
 {
+    c->phases_given = true;
     if (!pc_expect_seq(c, n, "phases"))
         return;
     size_t count = (size_t)(n->data.sequence.items.top - n->data.sequence.items.start);
     size_t base = c->p->n_phases; /* phases from included files come first */
+    if (count == 0)
+        pc_error(c, n, "phases: empty list (expected at least one phase, got [])");
     for (size_t i = 0; i < count; i++)
         parse_one(c, pc_node(c, n->data.sequence.items.start[i]), base + i);
 }

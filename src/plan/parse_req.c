@@ -134,7 +134,9 @@ static void parse_watch_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_
 
 static void parse_common(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
 {
-    r->timeout_ns = r->kind == PLAN_WATCH ? 0 : c->p->target.timeout_ns;
+    /* 0 until plan_check_whole: a non-watch class then takes the target's timeout, which a
+     * file read later (the includer) may still change. */
+    r->timeout_ns = 0;
     pc_dur(c, n, "timeout", where, r->kind == PLAN_WATCH ? 0 : 1, &r->timeout_ns);
     yaml_node_t *path = pc_get(c, n, "path");
     if (!path)

@@ -162,6 +162,7 @@ void plan_parse_target(pctx_t *c, yaml_node_t *n)
         t->pos = pc_pos(c, n);
     pc_check_keys(c, n, "target", keys);
     const char *url;
+    c->url_given = c->url_given || pc_get(c, n, "url");
     if (pc_str(c, n, "url", "target", &url))
         parse_url(c, pc_get(c, n, "url"), t);
     int http;

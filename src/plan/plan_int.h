@@ -27,6 +27,7 @@ typedef struct {
     const char **set_names; /* "--set KEY=VALUE" per override, for positions */
     size_t n_set;
     bool nomem;
+    bool url_given, phases_given; /* so a bad value is not also reported as missing */
 } pctx_t;
 
 /* Nodes created by override k carry start_mark.line == PC_SET_MARK - k. */

@@ -128,7 +128,7 @@ static void resolve_judges(pctx_t *c, const char *const *names)
 static void check_target(pctx_t *c)
 {
     plan_target_t *t = &c->p->target;
-    if (!t->url)
+    if (!t->url && !c->url_given)
         pc_error_at(c, t->pos,
                     "target.url: missing (expected an http:// or https:// URL like "
                     "http://127.0.0.1:7070, got nothing)");
@@ -163,7 +163,7 @@ void plan_check_whole(pctx_t *c)
     for (size_t i = 0; i < p->n_phases; i++)
         resolve_phase_refs(c, &p->phases[i], names);
     resolve_judges(c, names);
-    if (p->n_phases == 0)
+    if (p->n_phases == 0 && !c->phases_given)
         pc_error_at(c, (plan_pos_t){p->path, 1, 1},
                     "phases: missing (expected a list of at least one phase, got nothing)");
     free(names);

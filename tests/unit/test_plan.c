@@ -1,0 +1,367 @@
+/* Unit tests for the plan: value parsers, every broken plan in tests/data/plans against its
+ * exact expected diagnostics, and estimates of good plans checked against hand arithmetic. */
+#include <setjmp.h>
+#include <stdarg.h>
+#include <stddef.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <cmocka.h>
+
+#include "squall/err.h"
+#include "squall/plan.h"
+
+#define PLANS SRCDIR "/tests/data/plans"
+
+/* cmocka 1.1.5 has no assert_double_equal; this one names both values when it fails. */
+#define assert_double_equal(a, b, tol) assert_near((a), (b), (tol), #a, __LINE__)
+
+static void assert_near(double a, double b, double tol, const char *what, int line)
+{
+    if (!(a - b <= tol && b - a <= tol))
+        fail_msg("line %d: %s = %.17g, expected %.17g (within %g)", line, what, a, b, tol);
+}
+
+/* Durations. The units are SI (ms = 1e-3 s, us = 1e-6 s); minutes and hours are 60 s and
+ * 3600 s. Expected values are plain arithmetic in ns. */
+static void test_duration(void **state)
+{
+    (void)state;
+    static const struct {
+        const char *text;
+        int64_t ns;
+    } ok[] = {
+        {"0", 0},
+        {"250ms", 250000000},
+        {"10s", INT64_C(10000000000)},
+        {"5m", INT64_C(300000000000)},
+        {"1h", INT64_C(3600000000000)},
+        {"1.5s", 1500000000},
+        {"500us", 500000},
+        {"500\xc2\xb5s", 500000},
+        {"1ns", 1},
+        {"1.1s", 1100000000}, /* exact: 1.1 is not representable as a double */
+        {"1m30s", INT64_C(90000000000)},
+        {"0.000000001s", 1},
+        /* INT64_MAX ns = 9223372036854775807 ns, the largest representable duration. */
+        {"9223372036854775807ns", INT64_MAX},
+    };
+    for (size_t i = 0; i < sizeof ok / sizeof ok[0]; i++) {
+        int64_t v = -1;
+        assert_int_equal(plan_parse_duration(ok[i].text, &v), 0);
+        assert_true(v == ok[i].ns);
+    }
+    static const struct {
+        const char *text;
+        int rc;
+    } bad[] = {
+        {"", SQ_EPARSE},
+        {"10", SQ_EPARSE},
+        {"10 s", SQ_EPARSE},
+        {"s", SQ_EPARSE},
+        {"1.s", SQ_EPARSE},
+        {".5s", SQ_EPARSE},
+        {"10sec", SQ_EPARSE},
+        {"1d", SQ_EPARSE},
+        {"-5s", SQ_ERANGE},
+        {"1.5ns", SQ_ERANGE},
+        {"9223372036854775808ns", SQ_ERANGE},
+        {"3000000h", SQ_ERANGE}, /* 3e6 h = 1.08e22 ns > INT64_MAX (9.2e18) */
+        {"0x10s", SQ_EPARSE},
+    };
+    for (size_t i = 0; i < sizeof bad / sizeof bad[0]; i++) {
+        int64_t v = 42;
+        int rc = plan_parse_duration(bad[i].text, &v);
+        if (rc != bad[i].rc)
+            fail_msg("duration '%s': got %d, expected %d", bad[i].text, rc, bad[i].rc);
+        assert_true(v == 42);
+    }
+}
+
+static void test_rate_percent(void **state)
+{
+    (void)state;
+    double v;
+    assert_int_equal(plan_parse_rate("500/s", &v), 0);
+    assert_true(v == 500);
+    assert_int_equal(plan_parse_rate("30/m", &v), 0);
+    assert_true(v == 0.5); /* 30 per 60 s */
+    assert_int_equal(plan_parse_rate("2/h", &v), 0);
+    assert_double_equal(v, 2.0 / 3600, 1e-15);
+    assert_int_equal(plan_parse_rate("0", &v), 0);
+    assert_true(v == 0);
+    assert_int_equal(plan_parse_rate("1e3/s", &v), 0);
+    assert_true(v == 1000);
+    assert_int_equal(plan_parse_rate("500", &v), SQ_EPARSE);
+    assert_int_equal(plan_parse_rate("500/d", &v), SQ_EPARSE);
+    assert_int_equal(plan_parse_rate("500 /s", &v), SQ_EPARSE);
+    assert_int_equal(plan_parse_rate("-1/s", &v), SQ_ERANGE);
+    assert_int_equal(plan_parse_rate("2e9/s", &v), SQ_ERANGE); /* above PLAN_RATE_MAX 1e9 */
+    assert_int_equal(plan_parse_rate("inf/s", &v), SQ_EPARSE);
+    assert_int_equal(plan_parse_percent("5%", &v), 0);
+    assert_true(v == 0.05);
+    assert_int_equal(plan_parse_percent("0.1%", &v), 0);
+    assert_double_equal(v, 0.001, 1e-15);
+    assert_int_equal(plan_parse_percent("100%", &v), 0);
+    assert_true(v == 1);
+    assert_int_equal(plan_parse_percent("100.5%", &v), SQ_ERANGE);
+    assert_int_equal(plan_parse_percent("5", &v), SQ_EPARSE);
+    assert_int_equal(plan_parse_percent("5 %", &v), SQ_EPARSE);
+    assert_int_equal(plan_parse_percent("-5%", &v), SQ_ERANGE);
+    int64_t n;
+    assert_int_equal(plan_parse_int("16", 1, 100, &n), 0);
+    assert_true(n == 16);
+    assert_int_equal(plan_parse_int("0", 1, 100, &n), SQ_ERANGE);
+    assert_int_equal(plan_parse_int("1.5", 1, 100, &n), SQ_EPARSE);
+    assert_int_equal(plan_parse_int("+3", 1, 100, &n), SQ_EPARSE);
+    assert_int_equal(plan_parse_int("99999999999999999999", 0, INT64_MAX, &n), SQ_ERANGE);
+}
+
+/* Reads a whole file into a malloc'd string. */
+static char *slurp(const char *path)
+{
+    FILE *fp = fopen(path, "rb");
+    if (!fp)
+        fail_msg("cannot read %s", path);
+    fseek(fp, 0, SEEK_END);
+    long len = ftell(fp);
+    fseek(fp, 0, SEEK_SET);
+    char *s = calloc(1, (size_t)len + 1);
+    assert_non_null(s);
+    assert_int_equal(fread(s, 1, (size_t)len, fp), (size_t)len);
+    fclose(fp);
+    return s;
+}
+
+/* Replaces every "@DIR@" in text with dir. */
+static char *expand_dir(const char *text, const char *dir)
+{
+    size_t cap = strlen(text) * 2 + strlen(dir) * 64 + 1, o = 0;
+    char *out = calloc(1, cap);
+    assert_non_null(out);
+    for (const char *s = text; *s;) {
+        if (strncmp(s, "@DIR@", 5) == 0) {
+            o += (size_t)snprintf(out + o, cap - o, "%s", dir);
+            s += 5;
+        } else {
+            out[o++] = *s++;
+        }
+    }
+    return out;
+}
+
+/* Loads PLANS/NAME.yaml, expects failure, and compares the whole diagnostic text with
+ * PLANS/NAME.expected (one line per error, "@DIR@" standing for the plans directory). The
+ * positions in the .expected files were counted by hand in the YAML source: 1-based line and
+ * column of the offending node, as libyaml's 0-based marks + 1. */
+static void check_bad(const char *name, int want_errors)
+{
+    char path[512], exp_path[512];
+    snprintf(path, sizeof path, "%s/%s.yaml", PLANS, name);
+    snprintf(exp_path, sizeof exp_path, "%s/%s.expected", PLANS, name);
+    out_t *o = out_new_capture();
+    plan_t *p = (plan_t *)1;
+    int rc = plan_load(path, NULL, 0, &p, o);
+    char *raw = slurp(exp_path), *want = expand_dir(raw, PLANS);
+    const char *got = out_captured_diag(o);
+    if (strcmp(got, want) != 0)
+        fail_msg("%s: diagnostics differ\n--- expected\n%s--- got\n%s", name, want, got);
+    assert_int_equal(rc, SQ_EPARSE);
+    assert_null(p);
+    assert_int_equal(out_errors(o), want_errors);
+    free(raw);
+    free(want);
+    out_free(o);
+}
+
+static void test_bad_plans(void **state)
+{
+    (void)state;
+    static const struct {
+        const char *name;
+        int errors;
+    } cases[] = {
+        {"bad-syntax", 1}, {"bad-unknown-key", 2},   {"bad-duration", 3},
+        {"bad-rate", 2},   {"bad-percent", 2},       {"bad-duplicate", 3},
+        {"bad-refs", 6},   {"bad-kind-keys", 4},     {"bad-no-source", 4},
+        {"bad-types", 7},  {"bad-target", 3},        {"bad-missing-target", 2},
+        {"bad-judges", 7}, {"bad-include-cycle", 1},
+    };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++)
+        check_bad(cases[i].name, cases[i].errors);
+}
+
+/* bad-many.yaml holds nine unrelated mistakes across target, requests and four phases: all
+ * nine lines must come out of one load, in file order, then the cross-reference pass. */
+static void test_all_errors_in_one_pass(void **state)
+{
+    (void)state;
+    check_bad("bad-many", 9);
+}
+
+static plan_t *load_ok(const char *path, const plan_override_t *ov, size_t n)
+{
+    out_t *o = out_new_capture();
+    plan_t *p = NULL;
+    int rc = plan_load(path, ov, n, &p, o);
+    if (rc != 0)
+        fail_msg("%s: %s\n%s", path, sq_strerror(rc), out_captured_diag(o));
+    assert_string_equal(out_captured_diag(o), "");
+    out_free(o);
+    return p;
+}
+
+static double per_class(const plan_t *p, const plan_estimate_t *e, const char *cls)
+{
+    int i = plan_find_req(p, cls);
+    assert_true(i >= 0);
+    return e->per_class[i];
+}
+
+/* scenarios/demo.yaml, by hand:
+ *  fill:   ramp 10/s -> 50/s over 5 s = (10 + 50) / 2 * 5 = 150 create-gateway (150 alive).
+ *  steady: 100/s * 10 s = 1000, mix 70:5:25 -> read 700, list 50, renew 250; 3 watches.
+ *  teardown at 100/s: deletes the 150 alive objects, taking 150 / 100 = 1.5 s. */
+static void test_demo_estimates(void **state)
+{
+    (void)state;
+    plan_t *p = load_ok(SRCDIR "/scenarios/demo.yaml", NULL, 0);
+    assert_true(p->target.loopback);
+    assert_int_equal(p->n_phases, 3);
+    plan_estimate_t e;
+    plan_estimate(p, 0, &e);
+    assert_double_equal(per_class(p, &e, "create-gateway"), 150, 1e-9);
+    assert_double_equal(e.created, 150, 1e-9);
+    assert_double_equal(e.peak_rate, 50, 1e-9);
+    plan_estimate(p, 1, &e);
+    assert_double_equal(per_class(p, &e, "read-gateway"), 700, 1e-9);
+    assert_double_equal(per_class(p, &e, "list-site"), 50, 1e-9);
+    assert_double_equal(per_class(p, &e, "renew"), 250, 1e-9);
+    assert_double_equal(e.requests, 1000, 1e-9);
+    assert_int_equal(e.watches, 3);
+    assert_double_equal(e.alive_after, 150, 1e-9);
+    plan_estimate(p, 2, &e);
+    assert_double_equal(e.deleted, 150, 1e-9);
+    assert_true(e.duration_ns == 1500000000);
+    assert_double_equal(e.alive_after, 0, 1e-9);
+    plan_free(p);
+}
+
+/* scenarios/fleet-storm.yaml, by hand:
+ *  spread: 2000 agents joining evenly over 20 s of 60 s are present 60 - 20/2 = 50 s on
+ *          average: 100,000 agent-seconds; renew every 10 s -> 10,000; post-status every 30 s
+ *          -> 3,333.33; peak 2000/10 + 2000/30 = 266.67/s.
+ *  aligned: 2000 * 60 / 10 = 12,000 renews, bursts of 2,000 at each tick.
+ *  reconnect-storm: 2000 * 30 / 10 = 6,000 renews; 200 watches. */
+static void test_fleet_estimates(void **state)
+{
+    (void)state;
+    plan_t *p = load_ok(SRCDIR "/scenarios/fleet-storm.yaml", NULL, 0);
+    plan_estimate_t e;
+    plan_estimate(p, 0, &e);
+    assert_double_equal(per_class(p, &e, "renew"), 10000, 1e-6);
+    assert_double_equal(per_class(p, &e, "post-status"), 100000.0 / 30, 1e-6);
+    assert_double_equal(e.peak_rate, 200 + 2000.0 / 30, 1e-6);
+    assert_int_equal(e.agents, 2000);
+    assert_int_equal(e.watches, 40);
+    plan_estimate(p, 1, &e);
+    assert_double_equal(per_class(p, &e, "renew"), 12000, 1e-6);
+    assert_double_equal(e.burst, 2000, 1e-9);
+    plan_estimate(p, 2, &e);
+    assert_double_equal(per_class(p, &e, "renew"), 6000, 1e-6);
+    assert_int_equal(e.watches, 200);
+    assert_int_equal(p->reqs[plan_find_req(p, "follow-site-eager")].watch.policy,
+                     PLAN_BACKOFF_IMMEDIATE);
+    plan_free(p);
+}
+
+/* tests/data/plans/good-shapes.yaml (includes part-base.yaml), by hand:
+ *  ramp:   10/s -> 400/s over 60 s = (10 + 400) / 2 * 60 = 12,300 reads.
+ *  steps:  10/s for 10 s, then 50/s for the remaining 30 s (the last step holds) =
+ *          100 + 1500 = 1,600; mix read 3 : create 1 -> 1,200 reads, 400 creates.
+ *  closed: 4 clients thinking at least 500 ms over 10 s: at most 4 * 10 / 0.5 = 80 reads.
+ *  churn:  400 alive, population 500, 10/s * 30 s = 300 operations: 100 creates to reach 500,
+ *          the other 200 split evenly -> 200 creates, 100 deletes, 500 alive.
+ *  teardown deletes the 500 left. */
+static void test_shapes_and_include(void **state)
+{
+    (void)state;
+    plan_t *p = load_ok(PLANS "/good-shapes.yaml", NULL, 0);
+    assert_string_equal(p->target.host, "::1");
+    assert_true(p->target.loopback);
+    assert_int_equal(p->target.connections, 4);               /* from the included file */
+    assert_true(p->target.timeout_ns == INT64_C(3000000000)); /* overridden by the includer */
+    assert_true(p->reqs[plan_find_req(p, "read")].timeout_ns == INT64_C(2000000000));
+    assert_true(p->reqs[plan_find_req(p, "create")].timeout_ns == INT64_C(3000000000));
+    plan_estimate_t e;
+    plan_estimate(p, 0, &e);
+    assert_double_equal(per_class(p, &e, "read"), 12300, 1e-9);
+    plan_estimate(p, 1, &e);
+    assert_double_equal(per_class(p, &e, "read"), 1200, 1e-9);
+    assert_double_equal(per_class(p, &e, "create"), 400, 1e-9);
+    assert_double_equal(e.peak_rate, 50, 1e-9);
+    plan_estimate(p, 2, &e);
+    assert_true(e.closed_loop && e.bounded);
+    assert_double_equal(per_class(p, &e, "read"), 80, 1e-9);
+    plan_estimate(p, 3, &e);
+    assert_double_equal(per_class(p, &e, "create"), 200, 1e-9);
+    assert_double_equal(per_class(p, &e, "delete"), 100, 1e-9);
+    assert_double_equal(e.alive_after, 500, 1e-9);
+    plan_estimate(p, 4, &e);
+    assert_double_equal(e.deleted, 500, 1e-9);
+    assert_true(e.open_ended);
+    plan_free(p);
+}
+
+/* --set: a phase addressed by name, a key the file does not set, and a bad value reported
+ * with the override as its location. The added `rate` lands after the file's `ramp` (5:18),
+ * so the file's key is the second shape and carries that error. Ramp 10/s -> 400/s over 2 m = 205 *
+ * 120 = 24,600. */
+static void test_overrides(void **state)
+{
+    (void)state;
+    const plan_override_t ov[] = {{"phases.ramp.duration", "2m"}, {"target.http", "2"}};
+    plan_t *p = load_ok(PLANS "/good-shapes.yaml", ov, 2);
+    plan_estimate_t e;
+    plan_estimate(p, 0, &e);
+    assert_double_equal(per_class(p, &e, "read"), 24600, 1e-9);
+    assert_int_equal(p->target.http, PLAN_HTTP_2);
+    plan_free(p);
+
+    const plan_override_t bad[] = {{"phases.nope.rate", "1/s"}, {"phases.0.rate", "fast"}};
+    out_t *o = out_new_capture();
+    assert_int_equal(plan_load(PLANS "/good-shapes.yaml", bad, 2, &p, o), SQ_EPARSE);
+    assert_string_equal(out_captured_diag(o),
+                        "--set phases.nope.rate=1/s: error: no list item 'nope' (expected a "
+                        "name or index of an item in the top plan file, got none)\n"
+                        "--set phases.0.rate=fast: error: phases.ramp.rate: malformed value "
+                        "(expected a rate like 500/s, 30/m or 2/h, got 'fast')\n" PLANS
+                        "/good-shapes.yaml:5:18: error: phases.ramp: one load shape per phase "
+                        "(expected one of rate, ramp, steps, got rate and ramp)\n");
+    out_free(o);
+}
+
+static void test_missing_file(void **state)
+{
+    (void)state;
+    out_t *o = out_new_capture();
+    plan_t *p;
+    assert_int_equal(plan_load(PLANS "/no-such-plan.yaml", NULL, 0, &p, o), SQ_EIO);
+    assert_string_equal(out_captured_diag(o),
+                        PLANS "/no-such-plan.yaml: error: cannot read plan (expected a readable "
+                              "file, got No such file or directory)\n");
+    out_free(o);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_duration),           cmocka_unit_test(test_rate_percent),
+        cmocka_unit_test(test_bad_plans),          cmocka_unit_test(test_all_errors_in_one_pass),
+        cmocka_unit_test(test_demo_estimates),     cmocka_unit_test(test_fleet_estimates),
+        cmocka_unit_test(test_shapes_and_include), cmocka_unit_test(test_overrides),
+        cmocka_unit_test(test_missing_file),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
