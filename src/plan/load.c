@@ -128,6 +128,18 @@ static int read_doc(pctx_t *c, const char *path, plan_pos_t from, yaml_document_
     int ok = yaml_parser_load(&ps, doc);
     if (!ok)
         yaml_syntax_error(c, &ps);
+    yaml_document_t extra;
+    if (ok && yaml_parser_load(&ps, &extra)) {
+        /* libyaml loads one document per call; a second one would be silently ignored. */
+        yaml_node_t *root = yaml_document_get_root_node(&extra);
+        if (root)
+            pc_error_at(c,
+                        (plan_pos_t){c->file, (int)root->start_mark.line + 1,
+                                     (int)root->start_mark.column + 1},
+                        "plan: a second YAML document (expected one document per file, got "
+                        "another after '---')");
+        yaml_document_delete(&extra);
+    }
     yaml_parser_delete(&ps);
     fclose(fp);
     return ok ? 0 : SQ_EPARSE;

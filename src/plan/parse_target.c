@@ -249,10 +249,16 @@ void plan_parse_vars(pctx_t *c, yaml_node_t *n)
                      where, got);
             continue;
         }
-        for (size_t i = 0; i < c->p->n_vars; i++)
-            if (strcmp(c->p->vars[i].name, v.name) == 0 && c->p->vars[i].pos.file != c->file)
-                pc_error(c, k, "%s: defined twice (first at %s:%d:%d)", where,
-                         c->p->vars[i].pos.file, c->p->vars[i].pos.line, c->p->vars[i].pos.col);
+        bool dup = false;
+        for (size_t i = 0; i < c->p->n_vars && !dup; i++) {
+            const plan_var_t *f = &c->p->vars[i];
+            dup = strcmp(f->name, v.name) == 0;
+            if (dup && f->pos.file != c->file) /* same file: reported as a duplicate key */
+                pc_error(c, k, "%s: defined twice (first at %s:%d:%d)", where, f->pos.file,
+                         f->pos.line, f->pos.col);
+        }
+        if (dup)
+            continue;
         c->p->vars = pc_grow(c, c->p->vars, &c->p->n_vars, 1, sizeof(v));
         if (!c->nomem)
             c->p->vars[c->p->n_vars - 1] = v;
