@@ -9,7 +9,9 @@
  * requests (open-loop rate, closed-loop clients, fleet, watches, churn, teardown, replay);
  * "ref" = a class or phase named by another entry, resolved to an index at load time.
  * Durations are int64 nanoseconds; rates are requests per second (double); percentages are
- * fractions (5% = 0.05). Every struct carries the source position of its YAML node. */
+ * fractions (5% = 0.05). File paths in a plan (tls, token.file, replay.log) are relative to
+ * the plan file that names them and are stored already joined with its directory. Every struct
+ * carries the source position of its YAML node. */
 #ifndef SQUALL_PLAN_H
 #define SQUALL_PLAN_H
 

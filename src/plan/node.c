@@ -1,5 +1,7 @@
 /* Reading libyaml document nodes strictly: plan memory, error lines with positions, key checks
  * (unknown, duplicate, "did you mean") and typed value readers shared by every section. */
+#include <libgen.h>
+#include <limits.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -409,5 +411,22 @@ bool pc_ref(pctx_t *c, plan_ref_t *ref, yaml_node_t *n, const char *what)
         return false;
     }
     ref->name = pmem_strdup(c, pc_text(n));
+    return true;
+}
+
+bool pc_path(pctx_t *c, yaml_node_t *map, const char *key, const char *where, const char **out)
+{
+    const char *t;
+    if (!pc_str(c, map, key, where, &t))
+        return false;
+    char dir[PATH_MAX], full[PATH_MAX * 2];
+    snprintf(dir, sizeof dir, "%s", c->file);
+    const char *d = dirname(dir);
+    if (t[0] == '/' || strcmp(d, ".") == 0)
+        *out = t;
+    else {
+        snprintf(full, sizeof full, "%s/%s", d, t);
+        *out = pmem_strdup(c, full);
+    }
     return true;
 }

@@ -271,7 +271,7 @@ static void parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phas
     ph->replay.speed = 1.0;
     if (!pc_get(c, n, "log"))
         pc_error(c, n, "%s: missing key 'log' (expected an access log path, got nothing)", w);
-    pc_str(c, n, "log", w, &ph->replay.log);
+    pc_path(c, n, "log", w, &ph->replay.log);
     pc_num(c, n, "speed", w, 0.001, 1000, &ph->replay.speed);
 }
 

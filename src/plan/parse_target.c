@@ -78,8 +78,8 @@ static void parse_url(pctx_t *c, yaml_node_t *vn, plan_target_t *t)
         end++;
     } else {
         end = h + strcspn(h, ":/?#");
-        if (end == h || (size_t)(end - h) >= sizeof host)
-            goto bad;
+        if (end == h || (size_t)(end - h) >= sizeof host || memchr(h, '@', (size_t)(end - h)))
+            goto bad; /* user information in a URL would leak into logs; use token */
         snprintf(host, sizeof host, "%.*s", (int)(end - h), h);
     }
     int port = https ? 443 : 80;
@@ -119,9 +119,9 @@ static void parse_tls(pctx_t *c, yaml_node_t *n, plan_target_t *t)
     if (!pc_expect_map(c, n, "target.tls"))
         return;
     pc_check_keys(c, n, "target.tls", keys);
-    pc_str(c, n, "ca", "target.tls", &t->tls.ca);
-    pc_str(c, n, "cert", "target.tls", &t->tls.cert);
-    pc_str(c, n, "key", "target.tls", &t->tls.key);
+    pc_path(c, n, "ca", "target.tls", &t->tls.ca);
+    pc_path(c, n, "cert", "target.tls", &t->tls.cert);
+    pc_path(c, n, "key", "target.tls", &t->tls.key);
     pc_bool(c, n, "insecure", "target.tls", &t->tls.insecure);
     if (!t->tls.cert != !t->tls.key)
         pc_error(c, n,
@@ -143,7 +143,7 @@ static void parse_token(pctx_t *c, yaml_node_t *n, plan_target_t *t)
         return;
     pc_check_keys(c, n, "target.token", keys);
     t->token.file = t->token.env = NULL;
-    pc_str(c, n, "file", "target.token", &t->token.file);
+    pc_path(c, n, "file", "target.token", &t->token.file);
     pc_str(c, n, "env", "target.token", &t->token.env);
     if (!t->token.file == !t->token.env)
         pc_error(c, n, "target.token: exactly one source (expected file or env, got %s)",

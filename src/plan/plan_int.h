@@ -64,6 +64,8 @@ yaml_node_t *pc_get_key(pctx_t *c, yaml_node_t *map, const char *key);
 
 /* Typed readers (see the file comment). */
 bool pc_str(pctx_t *c, yaml_node_t *map, const char *key, const char *where, const char **out);
+/* A file path, made relative to the directory of the plan file that names it. */
+bool pc_path(pctx_t *c, yaml_node_t *map, const char *key, const char *where, const char **out);
 bool pc_int(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int64_t min,
             int64_t max, int *out);
 bool pc_dur(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int64_t min_ns,

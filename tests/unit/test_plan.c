@@ -342,6 +342,41 @@ static void test_overrides(void **state)
     out_free(o);
 }
 
+/* Paths are joined with the plan's directory; the URL's trailing slash is dropped and
+ * "localhost" counts as loopback. A closed loop without think time has no upper bound, so
+ * its estimate counts nothing; a replay phase's counts come from its log. */
+static void test_paths_and_open_counts(void **state)
+{
+    (void)state;
+    plan_t *p = load_ok(PLANS "/good-paths.yaml", NULL, 0);
+    const plan_target_t *t = &p->target;
+    assert_string_equal(t->url, "https://localhost:8443/api");
+    assert_true(t->https && t->loopback && t->port == 8443);
+    assert_string_equal(t->tls.ca, PLANS "/certs/ca.pem");
+    assert_string_equal(t->token.file, PLANS "/secrets/token");
+    assert_int_equal(t->n_headers, 1);
+    assert_string_equal(t->headers[0].value, "harbor");
+    const plan_phase_t *busy = &p->phases[0], *yest = &p->phases[1];
+    assert_true(busy->watches.spread_ns == INT64_C(10000000000));
+    assert_string_equal(yest->replay.log, PLANS "/logs/access.log");
+    assert_double_equal(yest->replay.speed, 2, 0);
+    assert_int_equal(p->reqs[1].watch.framing, PLAN_FRAME_SSE);
+    assert_true(p->reqs[1].timeout_ns == 0); /* watches have no timeout unless given */
+    assert_double_equal(p->objectives[0].percentile, 99.9, 1e-12);
+    assert_true(p->objectives[0].max_ns == 500000000);
+    assert_int_equal(p->objectives[1].cls.index, -1);
+    assert_int_equal(p->objectives[1].phase.index, 0);
+    assert_double_equal(p->objectives[1].value, 0.5, 1e-12); /* 30/m = 0.5/s */
+    plan_estimate_t e;
+    plan_estimate(p, 0, &e);
+    assert_true(e.closed_loop && !e.bounded);
+    assert_double_equal(e.requests, 0, 0);
+    assert_int_equal(e.watches, 20);
+    plan_estimate(p, 1, &e);
+    assert_true(e.replay && e.open_ended);
+    plan_free(p);
+}
+
 static void test_missing_file(void **state)
 {
     (void)state;
@@ -357,10 +392,15 @@ static void test_missing_file(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_duration),           cmocka_unit_test(test_rate_percent),
-        cmocka_unit_test(test_bad_plans),          cmocka_unit_test(test_all_errors_in_one_pass),
-        cmocka_unit_test(test_demo_estimates),     cmocka_unit_test(test_fleet_estimates),
-        cmocka_unit_test(test_shapes_and_include), cmocka_unit_test(test_overrides),
+        cmocka_unit_test(test_duration),
+        cmocka_unit_test(test_rate_percent),
+        cmocka_unit_test(test_bad_plans),
+        cmocka_unit_test(test_all_errors_in_one_pass),
+        cmocka_unit_test(test_demo_estimates),
+        cmocka_unit_test(test_fleet_estimates),
+        cmocka_unit_test(test_shapes_and_include),
+        cmocka_unit_test(test_overrides),
+        cmocka_unit_test(test_paths_and_open_counts),
         cmocka_unit_test(test_missing_file),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
