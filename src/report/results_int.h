@@ -1,0 +1,37 @@
+/* The results model's layout, shared by src/report/results*.c only. */
+#ifndef SQUALL_REPORT_RESULTS_INT_H
+#define SQUALL_REPORT_RESULTS_INT_H
+
+#include "squall/results.h"
+
+struct results_cell {
+    char *phase, *class_name, *outcome;
+    uint64_t hash; /* of the three keys, to skip most string compares */
+    results_counters_t counters;
+    hist_t *hists[RESULTS_M__COUNT]; /* NULL until first use */
+    const results_t *owner;          /* for the histogram configuration */
+};
+
+struct results {
+    int64_t lowest, highest;
+    int digits;
+    results_meta_t meta; /* its strings are malloc'd and owned here */
+    results_cell_t **cells;
+    size_t ncells, cap;
+    json_t *sections; /* object {name: object} */
+    json_t *inputs;   /* array of input objects; empty unless merged */
+};
+
+/* Replaces an owned meta string with a copy of s (NULL allowed); SQ_ENOMEM on failure. */
+int results_meta_str(const char **slot, const char *s);
+/* True for the top-level keys results.json itself uses (not allowed as section names). */
+bool results_reserved_name(const char *name);
+/* RFC 3339 UTC with milliseconds ("2026-12-01T23:34:09.123Z") <-> Unix ms; parse returns false
+ * on anything else. buf holds at least 32 bytes. */
+void results_format_time(int64_t unix_ms, char *buf);
+bool results_parse_time(const char *s, int64_t *unix_ms);
+/* The "meta" object of results.json for r (inputs included when merged); NULL when out of
+ * memory. The caller owns the reference. */
+json_t *results_meta_json(const results_t *r);
+
+#endif
