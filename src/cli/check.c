@@ -142,62 +142,71 @@ static const cli_opt_t check_opts[] = {
     {NULL, 0, NULL, NULL},
 };
 
-static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
+typedef struct {
+    const char *path;
+    plan_override_t *sets;
+    char **copies; /* KEY=VALUE copies split at '=' */
+    size_t n;
+} check_args_t;
+
+/* Reads argv into *ca. Returns -1 to go on, else the exit code (help shown or usage error). */
+static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, check_args_t *ca)
 {
     cli_args_t a;
-    const char *v, *path = NULL;
-    plan_override_t *sets = calloc((size_t)argc + 1, sizeof(*sets));
-    char **copies = calloc((size_t)argc + 1, sizeof(*copies));
-    size_t n = 0;
-    int k, rc = SQ_EXIT_USAGE;
-    if (!sets || !copies)
-        goto done;
+    const char *v;
+    int k;
+    ca->sets = calloc((size_t)argc + 1, sizeof(*ca->sets));
+    ca->copies = calloc((size_t)argc + 1, sizeof(*ca->copies));
+    if (!ca->sets || !ca->copies)
+        return SQ_EXIT_FAILURE;
     cli_args_init(&a, cmd, argc, argv);
     while ((k = cli_next(&a, o, &v)) != CLI_END) {
         if (k == CLI_ERROR)
-            goto done;
+            return SQ_EXIT_USAGE;
         if (k == CLI_HELP) {
             cli_print_help(cmd, o);
-            rc = SQ_EXIT_OK;
-            goto done;
+            return SQ_EXIT_OK;
         }
         if (k == CLI_POSITIONAL) {
-            if (path) {
-                rc = cli_usage_error(cmd, o, "one plan at a time, got '%s' after '%s'", v, path);
-                goto done;
-            }
-            path = v;
+            if (ca->path)
+                return cli_usage_error(cmd, o, "one plan at a time, got '%s' after '%s'", v,
+                                       ca->path);
+            ca->path = v;
             continue;
         }
         const char *eq = strchr(v, '=');
-        if (!eq || eq == v || !(copies[n] = strdup(v))) {
-            rc = cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
-            goto done;
+        if (!eq || eq == v || !(ca->copies[ca->n] = strdup(v)))
+            return cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
+        ca->copies[ca->n][eq - v] = '\0';
+        ca->sets[ca->n].key = ca->copies[ca->n];
+        ca->sets[ca->n].value = ca->copies[ca->n] + (eq - v) + 1;
+        ca->n++;
+    }
+    if (!ca->path)
+        return cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
+    return -1;
+}
+
+static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
+{
+    check_args_t ca = {0};
+    int rc = read_args(cmd, argc, argv, o, &ca);
+    if (rc < 0) {
+        plan_t *p;
+        int err = plan_load(ca.path, ca.sets, ca.n, &p, o);
+        if (err) {
+            rc = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+        } else {
+            out_print(o, "plan     %s: valid\n", ca.path);
+            print_summary(p, o);
+            plan_free(p);
+            rc = SQ_EXIT_OK;
         }
-        copies[n][eq - v] = '\0';
-        sets[n].key = copies[n];
-        sets[n].value = copies[n] + (eq - v) + 1;
-        n++;
     }
-    if (!path) {
-        rc = cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
-        goto done;
-    }
-    plan_t *p;
-    int err = plan_load(path, sets, n, &p, o);
-    if (err) {
-        rc = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
-        goto done;
-    }
-    out_print(o, "plan     %s: valid\n", path);
-    print_summary(p, o);
-    plan_free(p);
-    rc = SQ_EXIT_OK;
-done:
-    for (size_t i = 0; copies && i < n; i++)
-        free(copies[i]);
-    free(copies);
-    free(sets);
+    for (size_t i = 0; ca.copies && i < ca.n; i++)
+        free(ca.copies[i]);
+    free(ca.copies);
+    free(ca.sets);
     return rc;
 }
 

@@ -85,6 +85,36 @@ static void estimate_churn(const plan_phase_t *ph, double dur, double alive, pla
     e->peak_rate += ph->churn.rate;
 }
 
+/* Requests, objects created and deleted (deletes of objects already gone just fail, so they
+ * remove nothing), and teardown: one delete per object still alive. */
+static void count_objects(const plan_t *p, const plan_phase_t *ph, double alive, plan_estimate_t *e)
+{
+    for (size_t i = 0; i < p->n_reqs; i++) {
+        const plan_req_t *r = &p->reqs[i];
+        if (r->kind == PLAN_WATCH)
+            continue;
+        e->requests += e->per_class[i];
+        if (r->kind == PLAN_WRITE && r->write.creates)
+            e->created += e->per_class[i];
+    }
+    double avail = alive + e->created;
+    for (size_t i = 0; i < p->n_reqs; i++)
+        if (p->reqs[i].kind == PLAN_WRITE && p->reqs[i].write.deletes)
+            e->deleted += e->per_class[i];
+    e->deleted = e->deleted < avail ? e->deleted : avail;
+    if (ph->teardown.on) {
+        double rest = avail - e->deleted;
+        e->deleted += rest;
+        e->requests += rest;
+        if (ph->teardown.rate > 0 && !ph->has_duration) {
+            e->duration_ns = (int64_t)(rest / ph->teardown.rate * 1e9);
+            e->open_ended = false;
+        }
+        e->peak_rate += ph->teardown.rate;
+    }
+    e->alive_after = avail - e->deleted;
+}
+
 static void estimate_one(const plan_t *p, const plan_phase_t *ph, double alive, plan_estimate_t *e)
 {
     memset(e, 0, sizeof(*e));
@@ -113,31 +143,8 @@ static void estimate_one(const plan_t *p, const plan_phase_t *ph, double alive, 
             e->per_class[ph->watches.sets[i].cls.index] += ph->watches.sets[i].count;
         e->watches += ph->watches.sets[i].count;
     }
-    for (size_t i = 0; i < p->n_reqs; i++) {
-        const plan_req_t *r = &p->reqs[i];
-        if (r->kind == PLAN_WATCH)
-            continue;
-        e->requests += e->per_class[i];
-        if (r->kind == PLAN_WRITE && r->write.creates)
-            e->created += e->per_class[i];
-    }
-    double avail = alive + e->created;
-    for (size_t i = 0; i < p->n_reqs; i++)
-        if (p->reqs[i].kind == PLAN_WRITE && p->reqs[i].write.deletes)
-            e->deleted += e->per_class[i]; /* deletes of objects that are gone just fail */
-    e->deleted = e->deleted < avail ? e->deleted : avail;
-    if (ph->teardown.on) {
-        double rest = avail - e->deleted;
-        e->deleted += rest;
-        e->requests += rest;
-        if (ph->teardown.rate > 0 && !ph->has_duration) {
-            e->duration_ns = (int64_t)(rest / ph->teardown.rate * 1e9);
-            e->open_ended = false;
-        }
-        e->peak_rate += ph->teardown.rate;
-    }
+    count_objects(p, ph, alive, e);
     e->replay = ph->replay.on;
-    e->alive_after = avail - e->deleted;
 }
 
 void plan_estimate(const plan_t *p, size_t i, plan_estimate_t *e)

@@ -58,41 +58,51 @@ void plan_parse_headers_into(pctx_t *c, yaml_node_t *n, const char *where, plan_
     }
 }
 
-/* Splits http[s]://host[:port][/base] and decides whether host is loopback. */
-static void parse_url(pctx_t *c, yaml_node_t *vn, plan_target_t *t)
+/* Reads "host[:port]" (host may be a bracketed IPv6 address) at h into host and *port; *rest
+ * is left at the path. False when malformed. User information is refused: it would leak into
+ * logs, and target.token is the place for credentials. */
+static bool split_authority(const char *h, char *host, size_t len, int *port, const char **rest)
 {
-    const char *u = pc_text(vn);
-    const char *exp = "an http:// or https:// URL like http://127.0.0.1:7070";
-    bool https = strncmp(u, "https://", 8) == 0;
-    if (!https && strncmp(u, "http://", 7) != 0) {
-        pc_error(c, vn, "target.url: bad URL (expected %s, got '%s')", exp, u);
-        return;
-    }
-    const char *h = u + (https ? 8 : 7), *end;
-    char host[256];
+    const char *end;
     if (*h == '[') {
         end = strchr(h, ']');
-        if (!end || (size_t)(end - h - 1) >= sizeof host)
-            goto bad;
-        snprintf(host, sizeof host, "%.*s", (int)(end - h - 1), h + 1);
+        if (!end || (size_t)(end - h - 1) >= len)
+            return false;
+        snprintf(host, len, "%.*s", (int)(end - h - 1), h + 1);
         end++;
     } else {
         end = h + strcspn(h, ":/?#");
-        if (end == h || (size_t)(end - h) >= sizeof host || memchr(h, '@', (size_t)(end - h)))
-            goto bad; /* user information in a URL would leak into logs; use token */
-        snprintf(host, sizeof host, "%.*s", (int)(end - h), h);
+        if (end == h || (size_t)(end - h) >= len || memchr(h, '@', (size_t)(end - h)))
+            return false;
+        snprintf(host, len, "%.*s", (int)(end - h), h);
     }
-    int port = https ? 443 : 80;
     if (*end == ':') {
         char *pe;
         long v = strtol(end + 1, &pe, 10);
-        if (pe == end + 1 || v < 1 || v > 65535 || (*pe && *pe != '/'))
-            goto bad;
-        port = (int)v;
+        if (pe == end + 1 || v < 1 || v > 65535)
+            return false;
+        *port = (int)v;
         end = pe;
     }
-    if (*end && *end != '/')
-        goto bad;
+    *rest = end;
+    return *end == '\0' || *end == '/';
+}
+
+/* Splits http[s]://host[:port][/base] and decides whether host is loopback. */
+static void parse_url(pctx_t *c, yaml_node_t *vn, plan_target_t *t)
+{
+    const char *u = pc_text(vn), *end;
+    bool https = strncmp(u, "https://", 8) == 0;
+    char host[256];
+    int port = https ? 443 : 80;
+    if ((!https && strncmp(u, "http://", 7) != 0) ||
+        !split_authority(u + (https ? 8 : 7), host, sizeof host, &port, &end)) {
+        pc_error(c, vn,
+                 "target.url: bad URL (expected an http:// or https:// URL like "
+                 "http://127.0.0.1:7070, got '%s')",
+                 u);
+        return;
+    }
     unsigned char a[16];
     t->loopback = strcmp(host, "localhost") == 0 ||
                   (inet_pton(AF_INET, host, a) == 1 && a[0] == 127) ||
@@ -102,15 +112,12 @@ static void parse_url(pctx_t *c, yaml_node_t *vn, plan_target_t *t)
     t->port = port;
     size_t len = strlen(u);
     while (len > 0 && u[len - 1] == '/' && u + len > end)
-        len--;
+        len--; /* "http://h:1/" and "http://h:1" name the same base */
     char *copy = pmem_alloc(c, len + 1);
     if (copy)
         memcpy(copy, u, len);
     t->url = copy;
     t->pos = pc_pos(c, vn);
-    return;
-bad:
-    pc_error(c, vn, "target.url: bad URL (expected %s, got '%s')", exp, u);
 }
 
 static void parse_tls(pctx_t *c, yaml_node_t *n, plan_target_t *t)

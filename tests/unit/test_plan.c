@@ -377,6 +377,34 @@ static void test_paths_and_open_counts(void **state)
     plan_free(p);
 }
 
+/* Which hosts count as loopback: 127.0.0.0/8 (RFC 1122 section 3.2.1.3), ::1 (RFC 4291 section
+ * 2.5.3) and the name localhost (RFC 6761 section 6.3). Everything else needs
+ * --confirm-target, including an IPv4-mapped ::ffff:127.0.0.1 (conservatively). */
+static void test_loopback_urls(void **state)
+{
+    (void)state;
+    static const struct {
+        const char *url;
+        bool loopback;
+        int port;
+    } cases[] = {
+        {"http://127.0.0.1:7070", true, 7070},
+        {"http://127.9.8.7", true, 80},
+        {"https://[::1]/base/", true, 443},
+        {"http://localhost:1", true, 1},
+        {"http://10.0.0.1:7070", false, 7070},
+        {"http://[::ffff:127.0.0.1]:1", false, 1},
+        {"https://staging.example:8443", false, 8443},
+    };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        plan_override_t ov = {"target.url", cases[i].url};
+        plan_t *p = load_ok(PLANS "/good-shapes.yaml", &ov, 1);
+        if (p->target.loopback != cases[i].loopback || p->target.port != cases[i].port)
+            fail_msg("%s: loopback %d port %d", cases[i].url, p->target.loopback, p->target.port);
+        plan_free(p);
+    }
+}
+
 static void test_missing_file(void **state)
 {
     (void)state;
@@ -401,6 +429,7 @@ int main(void)
         cmocka_unit_test(test_shapes_and_include),
         cmocka_unit_test(test_overrides),
         cmocka_unit_test(test_paths_and_open_counts),
+        cmocka_unit_test(test_loopback_urls),
         cmocka_unit_test(test_missing_file),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
