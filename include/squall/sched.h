@@ -1,0 +1,176 @@
+/* The scheduler: a phase's source of starts turned into *intended* start times.
+ *
+ * Every time here is integer nanoseconds relative to the phase start (t = 0); the caller adds
+ * its uv_hrtime() base. Latency is measured from these intended times, so a late send shows up
+ * as response time instead of disappearing (no coordinated omission). Nothing here reads a
+ * clock, touches libuv or allocates after *_new: iterators are driven by the caller's "now".
+ *
+ * Glossary:
+ *   rate profile  r(t) per second: constant, a linear ramp from r0 to r1 over the duration, or
+ *                 steps (each rate for a time; the last one holds until the phase ends).
+ *   Λ(t)          the cumulative rate integral, expected number of starts in [0, t).
+ *   even          the k-th start (k = 0, 1, ...) at Λ⁻¹(k): deterministic spacing.
+ *   poisson       a non-homogeneous Poisson process by time transformation: unit-rate
+ *                 exponential gaps E_k (X = −ln U) summed and mapped through Λ⁻¹. For a constant
+ *                 rate λ the gaps are exactly Exp(λ).
+ *   Λ⁻¹(y)        the first t with Λ(t) = y, taken where the rate is positive (a zero-rate step
+ *                 never holds a start).
+ *   mix           weighted choice of a request class per start (Walker/Vose alias method).
+ *   closed loop   C clients: issue, wait for the completion, think, repeat. The next intended
+ *                 start is completion + think; results must be marked closed-loop.
+ *   fleet         N periodic agents (spread, jitter or aligned timing), yielding (t, agent).
+ *
+ * Starts lie in [0, duration): a start exactly at the end belongs to the next phase. */
+#ifndef SQUALL_SCHED_H
+#define SQUALL_SCHED_H
+
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+
+/* ---- Open loop ---------------------------------------------------------------------------- */
+
+enum sched_shape { SCHED_CONSTANT, SCHED_RAMP, SCHED_STEPS };
+enum sched_arrivals { SCHED_EVEN, SCHED_POISSON };
+
+typedef struct {
+    double rate;    /* per second, >= 0 */
+    int64_t for_ns; /* > 0; the last step's length is ignored: it holds until the phase ends */
+} sched_step_t;
+
+/* A small config the caller fills (the run glue copies it from the plan). */
+typedef struct {
+    enum sched_shape shape;
+    double rate;               /* SCHED_CONSTANT, per second */
+    double from, to;           /* SCHED_RAMP, per second */
+    const sched_step_t *steps; /* SCHED_STEPS; copied by sched_open_new */
+    size_t n_steps;
+    int64_t duration_ns; /* > 0 */
+    enum sched_arrivals arrivals;
+    uint64_t seed; /* poisson only; the same seed gives the same starts */
+} sched_open_cfg_t;
+
+typedef struct sched_open sched_open_t;
+
+/* Validates cfg (rates finite and >= 0, at most SCHED_RATE_MAX, duration > 0, steps given for
+ * SCHED_STEPS): SQ_EINVAL otherwise, SQ_ENOMEM. On success *out is an iterator at t = 0. */
+#define SCHED_RATE_MAX 1e9
+int sched_open_new(const sched_open_cfg_t *cfg, sched_open_t **out);
+void sched_open_free(sched_open_t *s);
+
+/* The next intended start: true and *t_ns, or false once the phase has no more starts. */
+bool sched_open_next(sched_open_t *s, int64_t *t_ns);
+/* The start sched_open_next would return, without consuming it: the glue arms its wake-up for
+ * it. False when none is left. */
+bool sched_open_peek(const sched_open_t *s, int64_t *t_ns);
+/* Every start due at or before now_ns, up to max of them, written in order to out[]; returns
+ * how many. Call again when it returns max: more may be due. */
+size_t sched_open_due(sched_open_t *s, int64_t now_ns, int64_t *out, size_t max);
+/* Number of starts consumed so far. */
+uint64_t sched_open_count(const sched_open_t *s);
+
+/* Λ(t) for the config, t clamped to [0, duration]: expected starts in [0, t). Poisson's mean. */
+double sched_open_lambda(const sched_open_cfg_t *cfg, int64_t t_ns);
+/* Exactly how many starts an even schedule makes over the phase: ceil(Λ(duration)). */
+uint64_t sched_open_even_count(const sched_open_cfg_t *cfg);
+
+/* ---- Mix: a weighted class picker ---------------------------------------------------------- */
+
+typedef struct sched_mix sched_mix_t;
+
+/* weights[i] >= 0, finite, at least one > 0, n >= 1: class i is picked with probability
+ * weights[i] / sum, exactly up to double rounding (alias table). SQ_EINVAL / SQ_ENOMEM. */
+int sched_mix_new(const double *weights, size_t n, uint64_t seed, sched_mix_t **out);
+void sched_mix_free(sched_mix_t *m);
+/* A class index in [0, n). O(1), no allocation. */
+size_t sched_mix_pick(sched_mix_t *m);
+
+/* ---- Closed loop --------------------------------------------------------------------------- */
+
+enum sched_think { SCHED_THINK_FIXED, SCHED_THINK_EXP };
+
+typedef struct {
+    int clients;      /* >= 1 */
+    int64_t think_ns; /* >= 0: fixed think time, or the mean of an exponential one */
+    enum sched_think think;
+    int64_t spread_ns;   /* client i's first start at i * spread / clients; 0 = all at t = 0 */
+    int64_t duration_ns; /* > 0: no start at or after it */
+    uint64_t seed;
+} sched_closed_cfg_t;
+
+/* A client's lifecycle; it changes only through one setter inside closed.c. */
+enum sched_client_state {
+    SCHED_CLIENT_WAITING, /* its next intended start is known and not yet issued */
+    SCHED_CLIENT_BUSY,    /* issued, waiting for the completion */
+    SCHED_CLIENT_DONE,    /* the next start would fall at or after the end of the phase */
+};
+
+typedef struct sched_closed sched_closed_t;
+
+int sched_closed_new(const sched_closed_cfg_t *cfg, sched_closed_t **out);
+void sched_closed_free(sched_closed_t *c);
+/* The next client due at or before now_ns: true with *client and its intended *t_ns, and the
+ * client becomes BUSY; false when none is due yet. Clients come out in intended-time order. */
+bool sched_closed_due(sched_closed_t *c, int64_t now_ns, int *client, int64_t *t_ns);
+/* The earliest intended start of a WAITING client (the glue's next wake-up); false if none. */
+bool sched_closed_peek(const sched_closed_t *c, int64_t *t_ns);
+/* A BUSY client's request completed at done_ns: it thinks, and its next intended start is
+ * done_ns + think (written to *next_ns when next_ns is not NULL). Returns true if it will start
+ * again, false if that start falls at or after the end (the client is then DONE).
+ * Misuse (client out of range or not BUSY) returns false and changes nothing. */
+bool sched_closed_complete(sched_closed_t *c, int client, int64_t done_ns, int64_t *next_ns);
+enum sched_client_state sched_closed_state(const sched_closed_t *c, int client);
+/* Requests issued so far by one client, and by all. */
+uint64_t sched_closed_issued(const sched_closed_t *c, int client);
+uint64_t sched_closed_total(const sched_closed_t *c);
+/* True when every client is DONE. */
+bool sched_closed_finished(const sched_closed_t *c);
+
+/* Expected requests over the phase if each response takes response_ns (a closed system's
+ * count depends on its own latency): per client, the number of start times
+ * first + k * (response + think) below the duration, summed. With exponential think the mean
+ * think is used, so the figure is an estimate. With response_ns = 0 and fixed think it is an
+ * exact upper bound. INFINITY when response + think is 0 (the loop never rests). */
+double sched_closed_expected(const sched_closed_cfg_t *cfg, int64_t response_ns);
+
+/* ---- Fleet of periodic agents ------------------------------------------------------------- */
+
+enum sched_timing {
+    SCHED_SPREAD,  /* a random phase in [0, P) per agent, fixed for the run */
+    SCHED_JITTER,  /* the agent starts at its join time; each period is P·(1 + U(−x, +x)) */
+    SCHED_ALIGNED, /* every agent fires on the wall-clock (CLOCK_REALTIME) multiples of P */
+};
+
+typedef struct {
+    int agents;        /* >= 1 */
+    int64_t period_ns; /* P > 0 */
+    enum sched_timing timing;
+    double jitter;       /* x in [0, 1): SCHED_JITTER only */
+    double drift;        /* d in [0, 0.5): agent i's period is P·(1 + e_i), e_i ~ U(−d, +d) */
+    int64_t join_ns;     /* agent k joins at k * join / agents; 0 = all at t = 0 */
+    int64_t duration_ns; /* > 0 */
+    /* SCHED_ALIGNED: CLOCK_REALTIME in ns at the phase's t = 0, so that t + realtime0 is a
+     * multiple of P on every tick; separate processes with synced clocks line up. */
+    int64_t realtime0_ns;
+    uint64_t seed;
+} sched_fleet_cfg_t;
+
+typedef struct sched_fleet sched_fleet_t;
+
+/* SQ_EINVAL for a bad config, SQ_ENOMEM. Memory is O(agents), allocated here only. */
+int sched_fleet_new(const sched_fleet_cfg_t *cfg, sched_fleet_t **out);
+void sched_fleet_free(sched_fleet_t *f);
+/* The next action in time order (ties by agent index): O(log agents), no allocation. */
+bool sched_fleet_next(sched_fleet_t *f, int64_t *t_ns, int *agent);
+bool sched_fleet_peek(const sched_fleet_t *f, int64_t *t_ns, int *agent);
+/* Every action due at or before now_ns, up to max, into t_out[] and agent_out[]. */
+size_t sched_fleet_due(sched_fleet_t *f, int64_t now_ns, int64_t *t_out, int *agent_out,
+                       size_t max);
+/* Exactly how many actions the fleet yields over its duration (a dry run of a copy of the
+ * schedule: O(result · log agents) time, O(agents) memory). SQ_ENOMEM as a negative value. */
+int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg);
+/* The CLOCK_REALTIME-to-phase offset helper for aligned fleets: the first t >= 0 such that
+ * realtime0 + t is a multiple of period. */
+int64_t sched_align_offset(int64_t realtime0_ns, int64_t period_ns);
+
+#endif

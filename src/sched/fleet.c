@@ -1,0 +1,168 @@
+/* A fleet of periodic agents: per-agent phase, period error and jitter, merged into one time
+ * order by a min-heap so N agents cost O(log N) per action and nothing per action in memory. */
+#include "squall/sched.h"
+
+#include <math.h>
+#include <stdlib.h>
+
+#include "sched_int.h"
+#include "squall/err.h"
+#include "squall/rng.h"
+
+typedef struct {
+    double period; /* ns, with this agent's drift */
+    int64_t first; /* its first action */
+    int64_t prev;  /* its last action (jitter mode accumulates from it) */
+    uint64_t k;    /* actions so far */
+} agent_t;
+
+struct sched_fleet {
+    sched_fleet_cfg_t cfg;
+    agent_t *agents;
+    sched_heap_t heap;
+    rng_t rng;
+};
+
+int64_t sched_align_offset(int64_t realtime0_ns, int64_t period_ns)
+{
+    if (period_ns <= 0)
+        return 0;
+    int64_t r = realtime0_ns % period_ns;
+    if (r < 0)
+        r += period_ns;
+    return r == 0 ? 0 : period_ns - r;
+}
+
+static int validate(const sched_fleet_cfg_t *c)
+{
+    if (!c || c->agents < 1 || c->period_ns <= 0 || c->duration_ns <= 0 || c->join_ns < 0)
+        return SQ_EINVAL;
+    if (!(c->jitter >= 0 && c->jitter < 1) || !(c->drift >= 0 && c->drift < 0.5))
+        return SQ_EINVAL;
+    if (c->timing != SCHED_SPREAD && c->timing != SCHED_JITTER && c->timing != SCHED_ALIGNED)
+        return SQ_EINVAL;
+    return 0;
+}
+
+/* U(−1, +1) from a (0, 1] variate. */
+static double sym_unit(rng_t *r)
+{
+    return 2 * rng_unit(r) - 1;
+}
+
+/* The first action of agent i, who joins at `join`. */
+static int64_t first_action(sched_fleet_t *f, int i, int64_t join)
+{
+    const sched_fleet_cfg_t *c = &f->cfg;
+    double p = f->agents[i].period;
+    if (c->timing == SCHED_SPREAD)
+        return join + (int64_t)((1 - rng_unit(&f->rng)) * p); /* phase in [0, P) */
+    if (c->timing == SCHED_JITTER)
+        return join;
+    /* Aligned: the first wall-clock multiple of P at or after the join time. */
+    int64_t off = sched_align_offset(c->realtime0_ns, c->period_ns);
+    if (join <= off)
+        return off;
+    return off + (join - off + c->period_ns - 1) / c->period_ns * c->period_ns;
+}
+
+/* The action after agent i's k-th. Spread and aligned count from the first action so rounding
+ * never accumulates; jitter draws each period afresh. */
+static int64_t next_action(sched_fleet_t *f, int i)
+{
+    agent_t *a = &f->agents[i];
+    if (f->cfg.timing == SCHED_JITTER)
+        return a->prev + (int64_t)llround(a->period * (1 + f->cfg.jitter * sym_unit(&f->rng)));
+    return a->first + (int64_t)llround(a->period * (double)a->k);
+}
+
+static void setup_agents(sched_fleet_t *f)
+{
+    const sched_fleet_cfg_t *c = &f->cfg;
+    for (int i = 0; i < c->agents; i++) {
+        agent_t *a = &f->agents[i];
+        a->period = (double)c->period_ns * (1 + c->drift * sym_unit(&f->rng));
+        int64_t join = (int64_t)((double)c->join_ns * i / c->agents);
+        a->first = a->prev = first_action(f, i, join);
+        if (a->first < c->duration_ns)
+            sched_heap_push(&f->heap, a->first, i);
+    }
+}
+
+int sched_fleet_new(const sched_fleet_cfg_t *cfg, sched_fleet_t **out)
+{
+    int rc = validate(cfg);
+    if (rc < 0)
+        return rc;
+    sched_fleet_t *f = calloc(1, sizeof(*f));
+    if (!f || !(f->agents = calloc((size_t)cfg->agents, sizeof(agent_t))) ||
+        sched_heap_init(&f->heap, (size_t)cfg->agents) < 0) {
+        sched_fleet_free(f);
+        return SQ_ENOMEM;
+    }
+    f->cfg = *cfg;
+    rng_seed(&f->rng, cfg->seed);
+    setup_agents(f);
+    *out = f;
+    return 0;
+}
+
+void sched_fleet_free(sched_fleet_t *f)
+{
+    if (!f)
+        return;
+    sched_heap_close(&f->heap);
+    free(f->agents);
+    free(f);
+}
+
+bool sched_fleet_peek(const sched_fleet_t *f, int64_t *t_ns, int *agent)
+{
+    sched_ev_t ev;
+    if (!sched_heap_top(&f->heap, &ev))
+        return false;
+    *t_ns = ev.t;
+    *agent = ev.id;
+    return true;
+}
+
+bool sched_fleet_next(sched_fleet_t *f, int64_t *t_ns, int *agent)
+{
+    if (!sched_fleet_peek(f, t_ns, agent))
+        return false;
+    agent_t *a = &f->agents[*agent];
+    a->prev = *t_ns;
+    a->k++;
+    int64_t t = next_action(f, *agent);
+    if (t < f->cfg.duration_ns)
+        sched_heap_retime_top(&f->heap, t);
+    else
+        sched_heap_pop(&f->heap);
+    return true;
+}
+
+size_t sched_fleet_due(sched_fleet_t *f, int64_t now_ns, int64_t *t_out, int *agent_out, size_t max)
+{
+    size_t n = 0;
+    int64_t t;
+    int agent;
+    while (n < max && sched_fleet_peek(f, &t, &agent) && t <= now_ns) {
+        sched_fleet_next(f, &t_out[n], &agent_out[n]);
+        n++;
+    }
+    return n;
+}
+
+int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg)
+{
+    sched_fleet_t *f;
+    int rc = sched_fleet_new(cfg, &f);
+    if (rc < 0)
+        return rc;
+    int64_t n = 0, t;
+    int agent;
+    while (sched_fleet_next(f, &t, &agent))
+        n++;
+    sched_fleet_free(f);
+    return n;
+}
