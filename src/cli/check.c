@@ -111,6 +111,43 @@ static void print_phase(const plan_t *p, size_t i, out_t *o)
               count_str(e.alive_after, c, 32));
 }
 
+/* One line per objective and brake, as the run will judge them. */
+static void print_judges(const plan_t *p, out_t *o)
+{
+    static const char *const metric[] = {"response", "service", "open", "propagation"};
+    char d[32];
+    for (size_t i = 0; i < p->n_objectives; i++) {
+        const plan_objective_t *ob = &p->objectives[i];
+        out_print(o, "objective  %s: ", ob->cls.index < 0 ? "every class" : ob->cls.name);
+        if (ob->limit == PLAN_LIMIT_PERCENTILE)
+            out_print(o, "p%g %s time <= %s", ob->percentile, metric[ob->metric],
+                      dur_str(ob->max_ns, d, sizeof d));
+        else if (ob->limit == PLAN_LIMIT_ERROR_RATE)
+            out_print(o, "error rate <= %g%%", ob->value * 100);
+        else
+            out_print(o, "rate >= %g/s", ob->value);
+        out_print(o, "%s%s\n", ob->phase.index >= 0 ? " in phase " : "",
+                  ob->phase.index >= 0 ? ob->phase.name : "");
+    }
+    for (size_t i = 0; i < p->n_brakes; i++) {
+        const plan_brake_t *b = &p->brakes[i];
+        const char *who = b->cls.index < 0 ? "any class" : b->cls.name;
+        char w[32];
+        dur_str(b->for_ns, w, sizeof w);
+        if (b->kind == PLAN_BRAKE_ERROR_RATE)
+            out_print(o, "brake      stop if %s has error rate > %g%% for %s\n", who,
+                      b->value * 100, w);
+        else if (b->kind == PLAN_BRAKE_PERCENTILE)
+            out_print(o, "brake      stop if %s has p%g response time > %s for %s\n", who,
+                      b->percentile, dur_str(b->max_ns, d, sizeof d), w);
+        else if (b->kind == PLAN_BRAKE_UNREACHABLE)
+            out_print(o, "brake      stop if the target is unreachable for %s\n",
+                      dur_str(b->max_ns, d, sizeof d));
+        else
+            out_print(o, "brake      stop if the generator cannot keep its schedule\n");
+    }
+}
+
 static void print_summary(const plan_t *p, out_t *o)
 {
     print_target(p, o);
@@ -130,6 +167,7 @@ static void print_summary(const plan_t *p, out_t *o)
               "objectives, %zu brakes\n",
               p->n_phases, dur_str(dur, d, sizeof d), count_str(total, a, 32),
               count_str(peak, b, 32), p->n_objectives, p->n_brakes);
+    print_judges(p, o);
     if (!p->target.loopback)
         out_print(o,
                   "caution: %s is not loopback; `squall run` will refuse it without "
