@@ -270,7 +270,9 @@ typedef struct {
 } plan_t;
 
 /* A --set override: key is a dotted path (`target.connections`, `phases.steady.rate`, list items
- * by name or 0-based index), value a YAML scalar. */
+ * by name or 0-based index), value a YAML scalar. It applies to the last file (the includer
+ * before its includes) that already holds the path's parent, else to the top file, where
+ * missing mapping keys are created. Its errors are located as "--set KEY=VALUE". */
 typedef struct {
     const char *key;
     const char *value;

@@ -11,17 +11,21 @@
 #include "squall/err.h"
 
 #define MAX_INCLUDE_DEPTH 16
+#define MAX_FILES         64
 
 static const char *const root_keys[] = {"include", "seed",       "target", "vars", "requests",
                                         "phases",  "objectives", "brakes", NULL};
 
+/* Every file of a plan, read before any is parsed so overrides can reach into includes. */
 typedef struct {
     char *real[MAX_INCLUDE_DEPTH]; /* realpath of each file being read, for cycles */
     int depth;
+    yaml_document_t docs[MAX_FILES]; /* in parse order: includes before their includer */
+    const char *files[MAX_FILES];
+    size_t n;
 } chain_t;
 
-static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch,
-                     const plan_override_t *ov, size_t n_ov);
+static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch);
 
 static void yaml_syntax_error(pctx_t *c, yaml_parser_t *ps)
 {
@@ -64,7 +68,7 @@ static int do_includes(pctx_t *c, yaml_node_t *n, const char *path, chain_t *ch)
         else
             snprintf(full, sizeof full, "%s/%s", d, inc);
         /* An include that fails has printed its errors; they make the load fail later. */
-        int r = load_file(c, full, pc_pos(c, it), ch, NULL, 0);
+        int r = load_file(c, full, pc_pos(c, it), ch);
         c->doc = doc; /* back to this file */
         c->file = file;
         if (r == SQ_ENOMEM)
@@ -145,51 +149,88 @@ static int read_doc(pctx_t *c, const char *path, plan_pos_t from, yaml_document_
     return ok ? 0 : SQ_EPARSE;
 }
 
-static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch,
-                     const plan_override_t *ov, size_t n_ov)
+/* Refuses a file already being read (a cycle) or nested too deep. */
+static bool may_enter(pctx_t *c, const char *real, plan_pos_t from, chain_t *ch, const char *path)
 {
-    c->file = pmem_strdup(c, path);
-    char *real = realpath(path, NULL);
     for (int i = 0; real && i < ch->depth; i++)
         if (strcmp(ch->real[i], real) == 0) {
             pc_error_at(c, from,
                         "include: cycle through '%s' (expected a file not already "
                         "being read, got one of its includers)",
                         path);
-            free(real);
-            return SQ_EPARSE;
+            return false;
         }
-    if (ch->depth >= MAX_INCLUDE_DEPTH) {
-        pc_error_at(c, from, "include: nested too deep (expected at most %d levels, got more)",
-                    MAX_INCLUDE_DEPTH);
-        free(real);
-        return SQ_EPARSE;
+    if (ch->depth >= MAX_INCLUDE_DEPTH || ch->n >= MAX_FILES) {
+        pc_error_at(c, from, "include: too many files (expected at most %d levels and %d files)",
+                    MAX_INCLUDE_DEPTH, MAX_FILES);
+        return false;
     }
+    return true;
+}
+
+/* Reads one file and, first, the files it includes; appends them all to ch->docs. */
+static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch)
+{
+    c->file = pmem_strdup(c, path);
+    char *real = realpath(path, NULL);
     yaml_document_t doc;
-    int rc = read_doc(c, path, from, &doc);
+    int rc = may_enter(c, real, from, ch, path) ? read_doc(c, path, from, &doc) : SQ_EPARSE;
     if (rc) {
         free(real);
         return rc;
     }
     ch->real[ch->depth++] = real ? real : strdup(path);
+    const char *file = c->file;
     c->doc = &doc;
-    for (size_t k = 0; k < n_ov; k++)
-        plan_apply_override(c, k, &ov[k]);
     yaml_node_t *root = yaml_document_get_root_node(&doc);
     if (!root)
         pc_error_at(c, (plan_pos_t){c->file, 1, 1},
                     "plan: empty document (expected a mapping with target, requests and "
                     "phases, got nothing)");
-    else if (pc_expect_map(c, root, "plan")) {
-        yaml_node_t *inc = pc_get(c, root, "include");
-        if (inc)
-            rc = do_includes(c, inc, path, ch);
-        if (rc != SQ_ENOMEM)
-            parse_root(c, root);
-    }
-    yaml_document_delete(&doc);
+    else if (pc_expect_map(c, root, "plan") && pc_get(c, root, "include"))
+        rc = do_includes(c, pc_get(c, root, "include"), path, ch);
     free(ch->real[--ch->depth]);
+    if (ch->n >= MAX_FILES) { /* an include filled the table */
+        yaml_document_delete(&doc);
+        return rc;
+    }
+    ch->docs[ch->n] = doc;
+    ch->files[ch->n++] = file;
     return rc;
+}
+
+/* Each override goes to the last file (the includer wins) whose document already holds the
+ * path's parent, so phases.steady.rate reaches a phase defined in an included file; failing
+ * that, to the top file, where missing mapping keys are created. */
+static void apply_overrides(pctx_t *c, chain_t *ch, const plan_override_t *ov, size_t n)
+{
+    for (size_t k = 0; k < n && ch->n > 0; k++) {
+        size_t d = ch->n - 1;
+        for (size_t i = ch->n; i-- > 0;) {
+            c->doc = &ch->docs[i];
+            if (plan_override_fits(c, &ov[k])) {
+                d = i;
+                break;
+            }
+        }
+        c->doc = &ch->docs[d];
+        c->file = ch->files[d];
+        plan_apply_override(c, k, &ov[k]);
+    }
+}
+
+/* Parses every document in order, then releases them. */
+static void parse_all(pctx_t *c, chain_t *ch)
+{
+    for (size_t i = 0; i < ch->n; i++) {
+        c->doc = &ch->docs[i];
+        c->file = ch->files[i];
+        yaml_node_t *root = yaml_document_get_root_node(c->doc);
+        if (root && root->type == YAML_MAPPING_NODE && !c->nomem)
+            parse_root(c, root);
+        yaml_document_delete(&ch->docs[i]);
+    }
+    ch->n = 0;
 }
 
 static void set_defaults(plan_t *p)
@@ -216,9 +257,13 @@ int plan_load(const char *path, const plan_override_t *overrides, size_t n, plan
         c.set_names[k] = pmem_strdup(&c, buf);
     }
     c.n_set = c.set_names ? n : 0;
-    chain_t ch = {.depth = 0};
-    int rc =
-        c.set_names ? load_file(&c, path, (plan_pos_t){NULL, 0, 0}, &ch, overrides, n) : SQ_ENOMEM;
+    chain_t *ch = calloc(1, sizeof(*ch));
+    int rc = c.set_names && ch ? load_file(&c, path, (plan_pos_t){NULL, 0, 0}, ch) : SQ_ENOMEM;
+    if (ch) {
+        apply_overrides(&c, ch, overrides, c.n_set);
+        parse_all(&c, ch);
+        free(ch);
+    }
     c.file = p->path;
     /* Whole-plan checks on a file that did not parse would only repeat its syntax error. */
     if (rc == 0 && !c.nomem)

@@ -105,6 +105,8 @@ void plan_check_whole(pctx_t *c);
 
 /* Applies --set override k to the document c->doc (see set.c). */
 void plan_apply_override(pctx_t *c, size_t k, const plan_override_t *ov);
+/* True when every part of the override's path but the last exists in c->doc. */
+bool plan_override_fits(pctx_t *c, const plan_override_t *ov);
 
 /* Appends n zeroed elements to a plan array (copying, since arrays live in plan memory). */
 void *pc_grow(pctx_t *c, void *arr, size_t *count, size_t add, size_t elem);

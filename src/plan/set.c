@@ -1,6 +1,6 @@
-/* --set KEY=VALUE overrides: a dotted path into the top plan file's YAML document, where list
- * items are addressed by their `name` (phases.steady.rate) or by 0-based index. Missing mapping
- * keys are created, so `--set target.connections=8` works whether or not the file sets it. */
+/* --set KEY=VALUE overrides: a dotted path into a plan file's YAML document, where list items
+ * are addressed by their `name` (phases.steady.rate) or by 0-based index. load.c picks the file
+ * (the last one holding the path's parent); missing mapping keys are created there. */
 #include <stdio.h>
 #include <string.h>
 
@@ -101,4 +101,27 @@ void plan_apply_override(pctx_t *c, size_t k, const plan_override_t *ov)
         id = step(c, k, id, comp, next == NULL, ov->value);
         comp = next;
     }
+}
+
+bool plan_override_fits(pctx_t *c, const plan_override_t *ov)
+{
+    char path[256];
+    yaml_node_t *n = yaml_document_get_root_node(c->doc);
+    if (!n || snprintf(path, sizeof path, "%s", ov->key) >= (int)sizeof path)
+        return false;
+    char *save = NULL, *comp = strtok_r(path, ".", &save);
+    while (comp && n) {
+        char *next = strtok_r(NULL, ".", &save);
+        if (!next)
+            return n->type == YAML_MAPPING_NODE ||
+                   (n->type == YAML_SEQUENCE_NODE && find_item(c, n, comp));
+        if (n->type == YAML_SEQUENCE_NODE) {
+            yaml_node_item_t *it = find_item(c, n, comp);
+            n = it ? pc_node(c, *it) : NULL;
+        } else {
+            n = pc_get(c, n, comp);
+        }
+        comp = next;
+    }
+    return false;
 }

@@ -329,6 +329,14 @@ static void test_overrides(void **state)
     assert_int_equal(p->target.http, PLAN_HTTP_2);
     plan_free(p);
 
+    /* requests.read lives in the included part-base.yaml: the override goes there. target is
+     * in both files: the includer gets the new key, and it wins over part-base's 4. */
+    const plan_override_t inc[] = {{"requests.read.timeout", "7s"}, {"target.connections", "9"}};
+    p = load_ok(PLANS "/good-shapes.yaml", inc, 2);
+    assert_true(p->reqs[plan_find_req(p, "read")].timeout_ns == INT64_C(7000000000));
+    assert_int_equal(p->target.connections, 9);
+    plan_free(p);
+
     const plan_override_t bad[] = {{"phases.nope.rate", "1/s"}, {"phases.0.rate", "fast"}};
     out_t *o = out_new_capture();
     assert_int_equal(plan_load(PLANS "/good-shapes.yaml", bad, 2, &p, o), SQ_EPARSE);
