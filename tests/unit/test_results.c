@@ -278,6 +278,66 @@ static void test_merge_equals_all(void **state)
     printf("merge: 3 shards of 20000 requests equal one results of all, cell by cell\n");
 }
 
+/* Bad input never crashes and always gets exactly one line: every truncation of a real file,
+ * and wrong types in each part of the layout (run under ASan+UBSan in tools/test). */
+static void test_reader_damaged(void **state)
+{
+    (void)state;
+    char *dir = tmpdir(), path[512], *diag;
+    results_t *r;
+    assert_int_equal(results_new(&r), 0);
+    simulate(&r, 1, 1, 9, 12);
+    assert_int_equal(results_set_section(r, "generator", json_pack("{s:i}", "x", 1)), 0);
+    snprintf(path, sizeof path, "%s/full.json", dir);
+    assert_int_equal(results_write(r, path, NULL), 0);
+    results_free(r);
+    FILE *f = fopen(path, "r");
+    assert_non_null(f);
+    static char text[1 << 16];
+    size_t n = fread(text, 1, sizeof text - 1, f);
+    fclose(f);
+    assert_true(n > 100 && n < sizeof text - 1);
+    size_t cuts = 0;
+    for (size_t cut = 0; cut + 2 < n; cut += 3, cuts++) { /* the last bytes are "}\n" */
+        char saved = text[cut];
+        text[cut] = '\0';
+        assert_int_not_equal(read_text(dir, "cut.json", text, &diag), 0);
+        free(diag);
+        text[cut] = saved;
+    }
+    static const struct {
+        const char *from, *to, *message;
+    } edits[] = {
+        {"\"cells\": [", "\"cells\": 3, \"x\": [", "cells: expected an array"},
+        {"\"bytes_in\": ", "\"bytes_in\": -", "cells[0].bytes_in: expected an integer >= 0"},
+        {"\"phase\": \"", "\"phase\": 1, \"y\": \"", "cells[0].phase: expected a string"},
+        {"\"interrupted\": false", "\"interrupted\": 0", "meta.interrupted: expected true or"},
+        {"\"digits\": 3", "\"digits\": 9", "histogram: unusable configuration"},
+        {"\"response\"", "\"responses\"", "cells[0].hist: unknown metric \"responses\""},
+        {"\"generator\": {", "\"generator\": [{", "malformed JSON"},
+        {"\"shard\": {", "\"shard\": {\"index\": 5, \"count\": 2}, \"z\": {", "not within 1..2"},
+        {"\"start\": null", "\"start\": \"yesterday\"", "meta.start: expected a time like"},
+    };
+    for (size_t i = 0; i < sizeof edits / sizeof edits[0]; i++) {
+        char *at = strstr(text, edits[i].from);
+        assert_non_null(at);
+        char *edited = malloc(n + 128);
+        assert_non_null(edited);
+        size_t head = (size_t)(at - text);
+        snprintf(edited, n + 128, "%.*s%s%s", (int)head, text, edits[i].to,
+                 at + strlen(edits[i].from));
+        assert_int_not_equal(read_text(dir, "edited.json", edited, &diag), 0);
+        if (!strstr(diag, edits[i].message))
+            fail_msg("edit %zu: expected \"%s\" in: %s", i, edits[i].message, diag);
+        free(diag);
+        free(edited);
+    }
+    printf("damaged files: %zu truncations and %zu type errors each got one error line\n", cuts,
+           sizeof edits / sizeof edits[0]);
+    rmtree(dir);
+    free(dir);
+}
+
 static void test_merge_mismatch(void **state)
 {
     (void)state;
@@ -343,6 +403,7 @@ int main(int argc, char **argv)
         cmocka_unit_test(test_meta),
         cmocka_unit_test(test_round_trip),
         cmocka_unit_test(test_reader_refusals),
+        cmocka_unit_test(test_reader_damaged),
         cmocka_unit_test(test_merge_equals_all),
         cmocka_unit_test(test_merge_mismatch),
     };
