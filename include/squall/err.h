@@ -21,6 +21,7 @@
     X(LIMIT, "limit reached")                                                                      \
     X(LIBCURL, "libcurl failed")                                                                   \
     X(LIBUV, "libuv failed")                                                                       \
+    X(STOPPED, "already stopped")                                                                  \
     X(INTERNAL, "internal error")
 
 enum sq_err {

@@ -1,0 +1,162 @@
+/* The request engine: HTTP requests on one libuv loop through libcurl's multi_socket interface.
+ *
+ * Concepts. A caller submits requests (eng_submit); each one waits in the engine's own FIFO
+ * admission queue until libcurl has a free slot for it, is then handed to libcurl ("admitted"),
+ * sent on a pooled keep-alive connection, and finished with exactly one call of its on_done
+ * callback carrying all its timestamps and its outcome. libcurl is never given more transfers
+ * than it can run at once (connections for HTTP/1.1, connections x streams for HTTP/2), so
+ * nothing ever waits inside libcurl where it cannot be seen: time spent in our queue is
+ * generator-side waiting and is part of the response time (done - intended).
+ *
+ * Glossary.
+ *   intended  the moment the caller meant the request to start (uv_hrtime() base, ns); the
+ *             basis of response time, free of coordinated omission.
+ *   admitted  the moment the request left our queue and was added to libcurl.
+ *   sent      the moment libcurl was about to send it on its connection (PREREQFUNCTION).
+ *   done      the moment the engine saw it finished.
+ *   opener    (HTTP/2 over http://) a transfer that opens a new pooled connection with prior
+ *             knowledge; later transfers reuse it (libcurl 7.88.1 workaround, NOTES-libraries).
+ *
+ * Threading: none. Every function must be called on the loop's thread. Callbacks (on_done,
+ * on_data, on_unreachable) run on the loop; on_done and on_unreachable may call eng_submit and
+ * eng_stop, on_data may call eng_submit (the request is then admitted after the current
+ * libcurl call returns). The engine never prints request headers, bodies or the bearer token. */
+#ifndef SQUALL_ENGINE_H
+#define SQUALL_ENGINE_H
+
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+#include <uv.h>
+
+#include "squall/out.h"
+
+typedef struct eng eng_t;
+
+enum eng_http { ENG_HTTP_1_1 = 0, ENG_HTTP_2 = 1 };
+
+/* Outcome of one request. Transport errors are split by kind (mapped from CURLcode). */
+#define ENG_OUTCOME_MAP(X)                                                                         \
+    X(S2XX, "2xx")                                                                                 \
+    X(S3XX, "3xx")                                                                                 \
+    X(S4XX, "4xx")                                                                                 \
+    X(S5XX, "5xx")                                                                                 \
+    X(TIMEOUT, "timeout")                                                                          \
+    X(REFUSED, "connect-refused")                                                                  \
+    X(RESOLVE, "resolve")                                                                          \
+    X(TLS, "tls")                                                                                  \
+    X(RESET, "reset")                                                                              \
+    X(OTHER, "transport-other")                                                                    \
+    X(CANCELLED, "cancelled")
+
+enum eng_outcome {
+#define ENG_OUTCOME_ENUM(name, text) ENG_OUT_##name,
+    ENG_OUTCOME_MAP(ENG_OUTCOME_ENUM)
+#undef ENG_OUTCOME_ENUM
+        ENG_OUT_COUNT
+};
+
+/* The outcome's short name as above ("2xx", "timeout", ...); "unknown" when out of range. */
+const char *eng_outcome_name(enum eng_outcome o);
+
+typedef struct {
+    /* "http://host:port" or "https://host:port" (a path prefix is allowed); copied. */
+    const char *base_url;
+    enum eng_http http;
+    int connections;    /* connection cap, >= 1 */
+    int streams;        /* HTTP/2 streams per connection, >= 1 (0 = 100); ignored for 1.1 */
+    int64_t timeout_ms; /* default per-request timeout (0 = none) */
+    /* TLS: files are paths (NULL = libcurl's defaults). Verification is on unless `insecure`;
+     * the caller prints the warning. */
+    const char *ca_file, *cert_file, *key_file;
+    bool insecure;
+    /* Sent as "Authorization: Bearer <token>" on every request; the caller reads it from a file
+     * or the environment. Copied; never printed. NULL = none. */
+    const char *bearer_token;
+    /* Extra headers sent on every request, "Name: value"; copied. */
+    const char *const *headers;
+    size_t n_headers;
+    /* Unreachability: after `unreachable_after` consecutive connect-refused or resolve outcomes
+     * with no HTTP response in between (0 = 3), on_unreachable (if set) is called once. */
+    int unreachable_after;
+    void (*on_unreachable)(void *user);
+    void *user;
+} eng_config_t;
+
+/* What on_done receives. Times are uv_hrtime() ns; libcurl's split is in µs from its start of
+ * the transfer (nested: connect <= appconnect <= starttransfer <= total; 0 on reused
+ * connections). A cancelled request that never left the queue has admitted_ns = sent_ns = 0;
+ * one that was never sent has sent_ns = 0. */
+typedef struct {
+    int64_t intended_ns, submitted_ns, admitted_ns, sent_ns, done_ns;
+    int64_t connect_us, appconnect_us, starttransfer_us, total_us;
+    long status; /* HTTP status, 0 if no response */
+    enum eng_outcome outcome;
+    int curl_code;         /* CURLcode, for diagnostics */
+    int64_t bytes_in;      /* response headers + body as received */
+    int64_t bytes_in_body; /* response body after de-chunking */
+    int64_t bytes_out;     /* request line + headers + body */
+    const char *body;      /* kept response body (keep_body), else NULL; valid in on_done */
+    size_t body_len;
+} eng_result_t;
+
+/* Streams a response body while it arrives: slices are arbitrary (never frame by them).
+ * Return 0 to continue, nonzero to abort the request (outcome "cancelled"). */
+typedef int (*eng_data_cb)(void *user, const char *data, size_t len);
+typedef void (*eng_done_cb)(void *user, const eng_result_t *res);
+
+typedef struct {
+    const char *method; /* NULL or "GET"; "POST", "PUT", "PATCH", "DELETE", ... */
+    const char *path;   /* appended to base_url; copied */
+    const char *body;   /* copied; NULL = no body */
+    size_t body_len;
+    const char *const *headers; /* extra headers for this request only, "Name: value"; copied */
+    size_t n_headers;
+    int64_t timeout_ms;  /* 0 = the config's */
+    int64_t intended_ns; /* 0 = now */
+    bool keep_body;      /* keep the body for on_done (list pagination tokens) */
+    eng_data_cb on_data; /* optional */
+    eng_done_cb on_done; /* required */
+    void *user;
+} eng_req_t;
+
+/* The engine's own view, for the live line and saturation. Window figures (max_*) cover the time
+ * since the previous eng_stats(..., true). */
+typedef struct {
+    int in_flight;                /* admitted to libcurl, not yet done */
+    int queued;                   /* waiting in our admission queue */
+    int capacity;                 /* how many may be in flight at once now */
+    int connections;              /* sockets libcurl has open */
+    int64_t max_queue_wait_ns;    /* longest admitted - submitted in the window */
+    int64_t max_loop_busy_ns;     /* longest single loop pass spent in callbacks (loop lag) */
+    int64_t loop_busy_ns;         /* total time spent in callbacks in the window */
+    int64_t window_ns;            /* length of the window */
+    int64_t submitted, completed; /* totals since eng_new */
+    int64_t by_outcome[ENG_OUT_COUNT];
+    bool unreachable; /* the unreachable condition has been met */
+} eng_stats_t;
+
+/* Creates an engine on `loop`. Ignores SIGPIPE for the process (libcurl runs with NOSIGNAL=1).
+ * Returns 0 and sets *out, or SQ_EINVAL (bad config, reason through `o`), SQ_ENOMEM,
+ * SQ_ELIBCURL, SQ_ELIBUV. `o` must outlive the engine. */
+int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
+
+/* Queues one request; its fields are copied. Returns 0, or SQ_EINVAL (no on_done, no path),
+ * SQ_ESTOPPED (after eng_stop), SQ_ENOMEM. A call that fails never calls on_done; a call that
+ * succeeds calls it exactly once, never from inside eng_submit. */
+int eng_submit(eng_t *e, const eng_req_t *req);
+
+/* Stops admitting: later eng_submit calls fail. Queued requests finish at once as "cancelled".
+ * In-flight ones are cancelled after `grace_ms` (0 = at once, < 0 = let them finish on their
+ * own timeouts). on_done callbacks may run from inside this call. */
+void eng_stop(eng_t *e, int64_t grace_ms);
+
+/* Fills *st; with `reset_window`, starts a new window for the max_* and busy figures. */
+void eng_stats(eng_t *e, eng_stats_t *st, bool reset_window);
+
+/* Cancels everything (as eng_stop(e, 0)), shuts libcurl down and closes all the engine's libuv
+ * handles; memory is released in their close callbacks, so the caller must run the loop
+ * afterwards (uv_run(loop, UV_RUN_DEFAULT)) before uv_loop_close(). NULL is allowed. */
+void eng_free(eng_t *e);
+
+#endif

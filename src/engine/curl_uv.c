@@ -1,0 +1,263 @@
+/* The libcurl <-> libuv glue: sockets to uv_poll, libcurl's timer to one uv_timer (0 ms through
+ * a uv_idle, never a 0 ms re-arm: libuv issues #4245/#4250), and the loop-lag probe. */
+#include <stdlib.h>
+#include <string.h>
+#include <sys/socket.h>
+#include <unistd.h>
+
+#include "eng_int.h"
+#include "squall/err.h"
+
+static int64_t now_ns(void)
+{
+    return (int64_t)uv_hrtime();
+}
+
+/* Drains finished transfers; each is removed from libcurl here, never inside a callback. */
+static void drain(eng_t *e)
+{
+    CURLMsg *m;
+    int left;
+    while ((m = curl_multi_info_read(e->multi, &left))) {
+        if (m->msg != CURLMSG_DONE)
+            continue;
+        struct eng_xfer *x = NULL;
+        curl_easy_getinfo(m->easy_handle, CURLINFO_PRIVATE, (char **)&x);
+        CURLcode rc = m->data.result;
+        curl_multi_remove_handle(e->multi, m->easy_handle);
+        eng_done(e, x, rc);
+    }
+}
+
+void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask)
+{
+    int running;
+    e->in_curl++;
+    curl_multi_socket_action(e->multi, fd, ev_bitmask, &running);
+    e->in_curl--;
+    drain(e);
+    if (!e->closing)
+        eng_admit(e);
+}
+
+static void on_poll(uv_poll_t *p, int status, int events)
+{
+    struct eng_sock *s = p->data;
+    int flags = 0;
+    if (status < 0)
+        flags = CURL_CSELECT_ERR;
+    if (events & UV_READABLE)
+        flags |= CURL_CSELECT_IN;
+    if (events & UV_WRITABLE)
+        flags |= CURL_CSELECT_OUT;
+    eng_glue_action(s->eng, s->fd, flags);
+}
+
+static struct eng_sock *sock_get(eng_t *e, curl_socket_t fd, bool create)
+{
+    if (fd < 0)
+        return NULL;
+    if ((size_t)fd >= e->n_socks_cap) {
+        if (!create)
+            return NULL;
+        size_t cap = e->n_socks_cap ? e->n_socks_cap : 64;
+        while (cap <= (size_t)fd)
+            cap *= 2;
+        struct eng_sock **n = realloc(e->socks, cap * sizeof(*n));
+        if (!n)
+            return NULL;
+        memset(n + e->n_socks_cap, 0, (cap - e->n_socks_cap) * sizeof(*n));
+        e->socks = n;
+        e->n_socks_cap = cap;
+    }
+    if (!e->socks[fd] && create) {
+        struct eng_sock *s = calloc(1, sizeof(*s));
+        if (!s || uv_poll_init_socket(e->loop, &s->poll, fd) != 0) {
+            free(s);
+            return NULL;
+        }
+        s->eng = e;
+        s->fd = fd;
+        s->poll.data = s;
+        e->socks[fd] = s;
+    }
+    return e->socks[fd];
+}
+
+static void sock_closed(uv_handle_t *h)
+{
+    free(h->data);
+}
+
+/* Forgets a socket's context; uv_close stops the poll synchronously, so the fd may close next. */
+static void sock_drop(eng_t *e, struct eng_sock *s)
+{
+    e->socks[s->fd] = NULL;
+    uv_close((uv_handle_t *)&s->poll, sock_closed);
+}
+
+static int on_socket(CURL *easy, curl_socket_t fd, int what, void *userp, void *socketp)
+{
+    (void)easy;
+    (void)socketp;
+    eng_t *e = userp;
+    if (what == CURL_POLL_REMOVE) {
+        struct eng_sock *s = sock_get(e, fd, false);
+        if (!s)
+            return 0;
+        /* Keep the handle for the socket's next request unless we will not see it close. */
+        if (s->ours)
+            uv_poll_stop(&s->poll);
+        else
+            sock_drop(e, s);
+        return 0;
+    }
+    struct eng_sock *s = sock_get(e, fd, true);
+    if (!s) {
+        out_error(e->out, "engine: cannot watch socket %d", (int)fd);
+        return -1;
+    }
+    int ev = 0;
+    if (what & CURL_POLL_IN)
+        ev |= UV_READABLE;
+    if (what & CURL_POLL_OUT)
+        ev |= UV_WRITABLE;
+    uv_poll_start(&s->poll, ev, on_poll);
+    return 0;
+}
+
+curl_socket_t eng_glue_opensocket(void *clientp, curlsocktype purpose, struct curl_sockaddr *a)
+{
+    struct eng_xfer *x = clientp;
+    eng_t *e = x->eng;
+    if (purpose != CURLSOCKTYPE_IPCXN)
+        return CURL_SOCKET_BAD;
+    curl_socket_t fd = socket(a->family, a->socktype | SOCK_CLOEXEC, a->protocol);
+    if (fd < 0)
+        return CURL_SOCKET_BAD;
+    struct eng_sock *s = sock_get(e, fd, true);
+    if (!s) {
+        close(fd);
+        return CURL_SOCKET_BAD;
+    }
+    s->ours = true;
+    e->n_socks++;
+    if (x->opener) {
+        x->opener = false;
+        e->openers_pending--;
+    }
+    return fd;
+}
+
+int eng_glue_closesocket(void *clientp, curl_socket_t fd)
+{
+    eng_t *e = clientp;
+    struct eng_sock *s = sock_get(e, fd, false);
+    if (s && s->ours) {
+        e->n_socks--;
+        sock_drop(e, s);
+    }
+    return close(fd);
+}
+
+static void on_timer(uv_timer_t *t)
+{
+    eng_glue_action(t->data, CURL_SOCKET_TIMEOUT, 0);
+}
+
+static void on_zero(uv_idle_t *i)
+{
+    uv_idle_stop(i);
+    eng_glue_action(i->data, CURL_SOCKET_TIMEOUT, 0);
+}
+
+static int on_curl_timer(CURLM *multi, long timeout_ms, void *userp)
+{
+    (void)multi;
+    eng_t *e = userp;
+    if (timeout_ms < 0) {
+        uv_timer_stop(&e->timer);
+        uv_idle_stop(&e->zero);
+    } else if (timeout_ms == 0) {
+        uv_timer_stop(&e->timer);
+        uv_idle_start(&e->zero, on_zero);
+    } else {
+        uv_idle_stop(&e->zero);
+        uv_timer_start(&e->timer, on_timer, (uint64_t)timeout_ms, 0);
+    }
+    return 0;
+}
+
+/* A loop pass polls between prepare and check; the callbacks between check and the next prepare
+ * are the pass's work, which delays every event that became ready meanwhile. */
+static void on_check(uv_check_t *c)
+{
+    eng_t *e = c->data;
+    e->pass_start_ns = now_ns();
+}
+
+static void on_prepare(uv_prepare_t *p)
+{
+    eng_t *e = p->data;
+    if (!e->pass_start_ns)
+        return;
+    int64_t busy = now_ns() - e->pass_start_ns;
+    e->busy_ns += busy;
+    if (busy > e->max_busy_ns)
+        e->max_busy_ns = busy;
+}
+
+int eng_glue_start(eng_t *e)
+{
+    e->multi = curl_multi_init();
+    if (!e->multi)
+        return SQ_ELIBCURL;
+    curl_multi_setopt(e->multi, CURLMOPT_SOCKETFUNCTION, on_socket);
+    curl_multi_setopt(e->multi, CURLMOPT_SOCKETDATA, e);
+    curl_multi_setopt(e->multi, CURLMOPT_TIMERFUNCTION, on_curl_timer);
+    curl_multi_setopt(e->multi, CURLMOPT_TIMERDATA, e);
+    long conns = e->cfg.connections;
+    curl_multi_setopt(e->multi, CURLMOPT_MAX_HOST_CONNECTIONS, conns);
+    curl_multi_setopt(e->multi, CURLMOPT_MAX_TOTAL_CONNECTIONS, conns);
+    curl_multi_setopt(e->multi, CURLMOPT_MAXCONNECTS, conns);
+    if (e->cfg.http == ENG_HTTP_2) {
+        curl_multi_setopt(e->multi, CURLMOPT_PIPELINING, CURLPIPE_MULTIPLEX);
+        curl_multi_setopt(e->multi, CURLMOPT_MAX_CONCURRENT_STREAMS, (long)e->streams);
+    } else {
+        curl_multi_setopt(e->multi, CURLMOPT_PIPELINING, CURLPIPE_NOTHING);
+    }
+    uv_timer_init(e->loop, &e->timer);
+    uv_idle_init(e->loop, &e->zero);
+    uv_prepare_init(e->loop, &e->prepare);
+    uv_check_init(e->loop, &e->check);
+    uv_timer_init(e->loop, &e->grace);
+    e->timer.data = e->zero.data = e->prepare.data = e->check.data = e->grace.data = e;
+    e->open_handles = 5;
+    uv_prepare_start(&e->prepare, on_prepare);
+    uv_check_start(&e->check, on_check);
+    /* The lag probe alone must not keep the loop alive. */
+    uv_unref((uv_handle_t *)&e->prepare);
+    uv_unref((uv_handle_t *)&e->check);
+    return 0;
+}
+
+/* Shutdown order (NOTES-methods, libuv 1.44.2): transfers are already removed; cleaning up the
+ * multi closes its connections through our closesocket (closing their polls); then our own
+ * handles close and the last close callback frees the engine. */
+void eng_glue_close(eng_t *e)
+{
+    if (e->multi) {
+        e->in_curl++;
+        curl_multi_cleanup(e->multi);
+        e->in_curl--;
+        e->multi = NULL;
+    }
+    for (size_t fd = 0; fd < e->n_socks_cap; fd++)
+        if (e->socks[fd])
+            sock_drop(e, e->socks[fd]);
+    uv_close((uv_handle_t *)&e->timer, eng_handle_closed);
+    uv_close((uv_handle_t *)&e->zero, eng_handle_closed);
+    uv_close((uv_handle_t *)&e->prepare, eng_handle_closed);
+    uv_close((uv_handle_t *)&e->check, eng_handle_closed);
+    uv_close((uv_handle_t *)&e->grace, eng_handle_closed);
+}

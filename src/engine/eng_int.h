@@ -1,0 +1,96 @@
+/* Internals shared by the engine's files: the engine, a transfer, a socket's poll context. */
+#ifndef SQUALL_ENG_INT_H
+#define SQUALL_ENG_INT_H
+
+#include <curl/curl.h>
+
+#include "squall/engine.h"
+
+/* A grow-only byte buffer reused across requests. */
+struct eng_buf {
+    char *data;
+    size_t len, cap;
+};
+
+/* One request from submit to on_done. Transfers and their buffers are pooled and reused. */
+struct eng_xfer {
+    struct eng_xfer *next, *prev; /* queue, in-flight list (doubly linked) or free list */
+    eng_t *eng;
+    CURL *easy;    /* attached at admission, returned to the pool when done */
+    eng_req_t req; /* copy; strings point into the buffers below */
+    struct eng_buf url, method, body, resp;
+    struct curl_slist *headers; /* per-request list, or NULL to use the engine's */
+    eng_result_t res;
+    bool opener;    /* HTTP/2 h2c: opens a fresh connection with prior knowledge */
+    bool aborted;   /* the caller's on_data asked to stop */
+    bool cancelled; /* eng_stop/eng_free removed it */
+};
+
+/* A socket libcurl uses; kept (with its uv_poll) until the socket really closes. */
+struct eng_sock {
+    uv_poll_t poll;
+    eng_t *eng;
+    curl_socket_t fd;
+    bool ours; /* opened through our OPENSOCKETFUNCTION, so we see its close */
+};
+
+struct eng {
+    uv_loop_t *loop;
+    out_t *out;
+    eng_config_t cfg; /* strings owned below */
+    char *base_url, *ca_file, *cert_file, *key_file;
+    struct curl_slist *headers; /* config headers + bearer token */
+    bool h2c;                   /* HTTP/2 over http:// (prior knowledge) */
+    int streams;
+
+    CURLM *multi;
+    uv_timer_t timer;     /* libcurl's one timer */
+    uv_idle_t zero;       /* libcurl asked for a 0 ms timeout */
+    uv_prepare_t prepare; /* loop lag: a pass's callbacks run between check and prepare */
+    uv_check_t check;
+    uv_timer_t grace; /* eng_stop's grace period */
+    int open_handles; /* engine handles not yet closed; memory is freed at 0 */
+    bool closing, stopped;
+    int in_curl; /* > 0 while inside a libcurl call (no multi calls allowed then) */
+
+    struct eng_sock **socks; /* indexed by fd */
+    size_t n_socks_cap;
+    int n_socks;         /* open sockets we created */
+    int openers_pending; /* openers admitted that have not opened their socket yet */
+
+    struct eng_xfer *queue_head, *queue_tail, *flight, *free_xfers;
+    int queued, in_flight;
+    CURL **easy_pool;
+    int n_easy_pool, easy_pool_cap;
+
+    /* Statistics. */
+    int64_t submitted, completed, by_outcome[ENG_OUT_COUNT];
+    int64_t window_start_ns, max_queue_wait_ns, max_busy_ns, busy_ns, pass_start_ns;
+    int unreachable_streak;
+    bool unreachable;
+};
+
+/* curl_uv.c: the libcurl <-> libuv glue. */
+int eng_glue_start(eng_t *e);
+void eng_glue_close(eng_t *e);
+/* Runs curl_multi_socket_action and then drains finished transfers and admits queued ones. */
+void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask);
+/* Easy-handle callbacks installed by xfer.c. */
+curl_socket_t eng_glue_opensocket(void *clientp, curlsocktype purpose, struct curl_sockaddr *a);
+int eng_glue_closesocket(void *clientp, curl_socket_t fd);
+void eng_handle_closed(uv_handle_t *h);
+
+/* xfer.c: one transfer's easy handle and result. */
+CURL *eng_easy_new(eng_t *e);
+int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req);
+int eng_xfer_setup(struct eng_xfer *x);
+void eng_xfer_finish(struct eng_xfer *x, CURLcode rc);
+void eng_xfer_release(struct eng_xfer *x);
+enum eng_outcome eng_outcome_of(CURLcode rc, long status);
+
+/* engine.c: the admission queue. */
+void eng_admit(eng_t *e);
+void eng_done(eng_t *e, struct eng_xfer *x, CURLcode rc);
+void eng_cancel_all(eng_t *e);
+
+#endif

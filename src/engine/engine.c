@@ -1,0 +1,389 @@
+/* The engine's lifecycle and its admission queue: requests wait here, never inside libcurl, and
+ * are handed to it only while it has a free connection (or HTTP/2 stream) for them. */
+#include <signal.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "eng_int.h"
+#include "squall/err.h"
+
+static int64_t now_ns(void)
+{
+    return (int64_t)uv_hrtime();
+}
+
+static char *dup_or_null(const char *s)
+{
+    return s ? strdup(s) : NULL;
+}
+
+static int check_config(const eng_config_t *c, out_t *o)
+{
+    if (!c->base_url ||
+        (strncmp(c->base_url, "http://", 7) != 0 && strncmp(c->base_url, "https://", 8) != 0)) {
+        out_error(o, "engine: base URL must start with http:// or https://");
+        return SQ_EINVAL;
+    }
+    if (c->connections < 1 || c->connections > 100000 || c->streams < 0 || c->streams > 10000 ||
+        c->timeout_ms < 0 || c->unreachable_after < 0) {
+        out_error(o, "engine: connections must be 1..100000 and streams 0..10000");
+        return SQ_EINVAL;
+    }
+    if ((c->cert_file == NULL) != (c->key_file == NULL)) {
+        out_error(o, "engine: a client certificate needs its key, and a key its certificate");
+        return SQ_EINVAL;
+    }
+    return 0;
+}
+
+static int headers_init(eng_t *e)
+{
+    struct curl_slist *t;
+    for (size_t i = 0; i < e->cfg.n_headers; i++) {
+        if (!(t = curl_slist_append(e->headers, e->cfg.headers[i])))
+            return SQ_ENOMEM;
+        e->headers = t;
+    }
+    if (e->cfg.bearer_token) {
+        size_t n = strlen(e->cfg.bearer_token) + sizeof("Authorization: Bearer ");
+        char *h = malloc(n);
+        if (!h)
+            return SQ_ENOMEM;
+        snprintf(h, n, "Authorization: Bearer %s", e->cfg.bearer_token);
+        t = curl_slist_append(e->headers, h);
+        /* The token leaves our memory only in the request itself. */
+        memset(h, 0, n);
+        free(h);
+        if (!t)
+            return SQ_ENOMEM;
+        e->headers = t;
+    }
+    e->cfg.headers = NULL;
+    e->cfg.n_headers = 0;
+    e->cfg.bearer_token = NULL;
+    return 0;
+}
+
+static void eng_release_memory(eng_t *e)
+{
+    for (int i = 0; i < e->n_easy_pool; i++)
+        curl_easy_cleanup(e->easy_pool[i]);
+    free(e->easy_pool);
+    while (e->free_xfers) {
+        struct eng_xfer *x = e->free_xfers;
+        e->free_xfers = x->next;
+        free(x->url.data);
+        free(x->method.data);
+        free(x->body.data);
+        free(x->resp.data);
+        free(x);
+    }
+    curl_slist_free_all(e->headers);
+    free(e->socks);
+    free(e->base_url);
+    free(e->ca_file);
+    free(e->cert_file);
+    free(e->key_file);
+    free(e);
+    curl_global_cleanup();
+}
+
+void eng_handle_closed(uv_handle_t *h)
+{
+    eng_t *e = h->data;
+    if (--e->open_handles == 0)
+        eng_release_memory(e);
+}
+
+int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
+{
+    int rc = check_config(cfg, o);
+    if (rc)
+        return rc;
+    if (curl_global_init(CURL_GLOBAL_DEFAULT) != CURLE_OK)
+        return SQ_ELIBCURL;
+    /* libcurl runs with NOSIGNAL=1, so a peer closing mid-write must not kill the process. */
+    signal(SIGPIPE, SIG_IGN);
+    eng_t *e = calloc(1, sizeof(*e));
+    if (!e) {
+        curl_global_cleanup();
+        return SQ_ENOMEM;
+    }
+    e->loop = loop;
+    e->out = o;
+    e->cfg = *cfg;
+    e->streams = cfg->streams ? cfg->streams : 100;
+    e->h2c = cfg->http == ENG_HTTP_2 && strncmp(cfg->base_url, "http://", 7) == 0;
+    if (!e->cfg.unreachable_after)
+        e->cfg.unreachable_after = 3;
+    e->base_url = strdup(cfg->base_url);
+    e->ca_file = dup_or_null(cfg->ca_file);
+    e->cert_file = dup_or_null(cfg->cert_file);
+    e->key_file = dup_or_null(cfg->key_file);
+    rc = SQ_ENOMEM;
+    if (!e->base_url || (cfg->ca_file && !e->ca_file) || (cfg->cert_file && !e->cert_file) ||
+        (cfg->key_file && !e->key_file))
+        goto fail;
+    if ((rc = headers_init(e)))
+        goto fail;
+    if ((rc = eng_glue_start(e)))
+        goto fail;
+    e->window_start_ns = now_ns();
+    *out = e;
+    return 0;
+fail:
+    eng_release_memory(e);
+    return rc;
+}
+
+static struct eng_xfer *xfer_get(eng_t *e)
+{
+    struct eng_xfer *x = e->free_xfers;
+    if (x) {
+        e->free_xfers = x->next;
+    } else if ((x = calloc(1, sizeof(*x)))) {
+        x->eng = e;
+    }
+    return x;
+}
+
+static void xfer_put(eng_t *e, struct eng_xfer *x)
+{
+    eng_xfer_release(x);
+    x->prev = NULL;
+    x->next = e->free_xfers;
+    e->free_xfers = x;
+}
+
+int eng_submit(eng_t *e, const eng_req_t *req)
+{
+    if (!req || !req->on_done || !req->path)
+        return SQ_EINVAL;
+    if (e->stopped)
+        return SQ_ESTOPPED;
+    struct eng_xfer *x = xfer_get(e);
+    if (!x)
+        return SQ_ENOMEM;
+    if (eng_xfer_prepare(x, req)) {
+        xfer_put(e, x);
+        return SQ_ENOMEM;
+    }
+    x->res.submitted_ns = now_ns();
+    if (!x->res.intended_ns)
+        x->res.intended_ns = x->res.submitted_ns;
+    x->next = NULL;
+    if (e->queue_tail)
+        e->queue_tail->next = x;
+    else
+        e->queue_head = x;
+    e->queue_tail = x;
+    e->queued++;
+    e->submitted++;
+    /* Admitting may not run inside a libcurl callback; the glue admits after it returns. */
+    if (!e->in_curl)
+        eng_admit(e);
+    return 0;
+}
+
+static int capacity(const eng_t *e)
+{
+    if (e->cfg.http == ENG_HTTP_1_1)
+        return e->cfg.connections;
+    if (!e->h2c)
+        return e->cfg.connections * e->streams;
+    int conns = e->n_socks + e->openers_pending;
+    return (conns < e->cfg.connections ? conns + 1 : conns) * e->streams;
+}
+
+/* Whether the next h2c transfer must open a connection: fewer are open (or opening) than the
+ * cap. Only openers may open one, so later transfers always find an h2 connection to share. */
+static bool needs_opener(const eng_t *e)
+{
+    return e->h2c && e->n_socks + e->openers_pending < e->cfg.connections;
+}
+
+static CURL *easy_get(eng_t *e)
+{
+    if (e->n_easy_pool)
+        return e->easy_pool[--e->n_easy_pool];
+    return eng_easy_new(e);
+}
+
+static void easy_put(eng_t *e, CURL *c)
+{
+    if (e->n_easy_pool == e->easy_pool_cap) {
+        int cap = e->easy_pool_cap ? e->easy_pool_cap * 2 : 64;
+        CURL **n = realloc(e->easy_pool, (size_t)cap * sizeof(*n));
+        if (!n) {
+            curl_easy_cleanup(c);
+            return;
+        }
+        e->easy_pool = n;
+        e->easy_pool_cap = cap;
+    }
+    e->easy_pool[e->n_easy_pool++] = c;
+}
+
+static void flight_link(eng_t *e, struct eng_xfer *x)
+{
+    x->prev = NULL;
+    x->next = e->flight;
+    if (e->flight)
+        e->flight->prev = x;
+    e->flight = x;
+    e->in_flight++;
+}
+
+static void flight_unlink(eng_t *e, struct eng_xfer *x)
+{
+    if (x->prev)
+        x->prev->next = x->next;
+    else
+        e->flight = x->next;
+    if (x->next)
+        x->next->prev = x->prev;
+    x->next = x->prev = NULL;
+    e->in_flight--;
+}
+
+/* Hands one queued transfer to libcurl; false when it cannot (no easy handle). */
+static bool admit_one(eng_t *e)
+{
+    struct eng_xfer *x = e->queue_head;
+    if (!(x->easy = easy_get(e)))
+        return false;
+    e->queue_head = x->next;
+    if (!e->queue_head)
+        e->queue_tail = NULL;
+    e->queued--;
+    x->opener = needs_opener(e);
+    if (x->opener)
+        e->openers_pending++;
+    eng_xfer_setup(x);
+    x->res.admitted_ns = now_ns();
+    int64_t wait = x->res.admitted_ns - x->res.submitted_ns;
+    if (wait > e->max_queue_wait_ns)
+        e->max_queue_wait_ns = wait;
+    flight_link(e, x);
+    if (curl_multi_add_handle(e->multi, x->easy) != CURLM_OK) {
+        /* Finish it through the normal path so on_done still runs exactly once. */
+        flight_unlink(e, x);
+        e->in_flight++;
+        eng_done(e, x, CURLE_FAILED_INIT);
+    }
+    return true;
+}
+
+void eng_admit(eng_t *e)
+{
+    if (e->in_curl || e->closing)
+        return;
+    while (e->queue_head && e->in_flight < capacity(e))
+        if (!admit_one(e))
+            break;
+}
+
+static void count_outcome(eng_t *e, const eng_result_t *r)
+{
+    e->completed++;
+    e->by_outcome[r->outcome]++;
+    if (r->status > 0) {
+        e->unreachable_streak = 0;
+    } else if (r->outcome == ENG_OUT_REFUSED || r->outcome == ENG_OUT_RESOLVE) {
+        if (++e->unreachable_streak >= e->cfg.unreachable_after && !e->unreachable) {
+            e->unreachable = true;
+            if (e->cfg.on_unreachable)
+                e->cfg.on_unreachable(e->cfg.user);
+        }
+    }
+}
+
+/* Finishes an in-flight transfer that is no longer in libcurl: result, pools, callback. */
+void eng_done(eng_t *e, struct eng_xfer *x, CURLcode rc)
+{
+    flight_unlink(e, x);
+    if (x->opener) {
+        x->opener = false;
+        e->openers_pending--;
+    }
+    eng_xfer_finish(x, rc);
+    easy_put(e, x->easy);
+    x->easy = NULL;
+    count_outcome(e, &x->res);
+    x->req.on_done(x->req.user, &x->res);
+    xfer_put(e, x);
+}
+
+static void cancel_queued(eng_t *e)
+{
+    while (e->queue_head) {
+        struct eng_xfer *x = e->queue_head;
+        e->queue_head = x->next;
+        e->queued--;
+        x->cancelled = true;
+        eng_xfer_finish(x, CURLE_ABORTED_BY_CALLBACK);
+        count_outcome(e, &x->res);
+        x->req.on_done(x->req.user, &x->res);
+        xfer_put(e, x);
+    }
+    e->queue_tail = NULL;
+}
+
+void eng_cancel_all(eng_t *e)
+{
+    cancel_queued(e);
+    while (e->flight) {
+        struct eng_xfer *x = e->flight;
+        x->cancelled = true;
+        curl_multi_remove_handle(e->multi, x->easy);
+        eng_done(e, x, CURLE_ABORTED_BY_CALLBACK);
+    }
+}
+
+static void on_grace(uv_timer_t *t)
+{
+    eng_cancel_all(t->data);
+}
+
+void eng_stop(eng_t *e, int64_t grace_ms)
+{
+    e->stopped = true;
+    cancel_queued(e);
+    if (grace_ms == 0)
+        eng_cancel_all(e);
+    else if (grace_ms > 0 && e->in_flight)
+        uv_timer_start(&e->grace, on_grace, (uint64_t)grace_ms, 0);
+}
+
+void eng_stats(eng_t *e, eng_stats_t *st, bool reset_window)
+{
+    int64_t now = now_ns();
+    memset(st, 0, sizeof(*st));
+    st->in_flight = e->in_flight;
+    st->queued = e->queued;
+    st->capacity = capacity(e);
+    st->connections = e->n_socks;
+    st->max_queue_wait_ns = e->max_queue_wait_ns;
+    st->max_loop_busy_ns = e->max_busy_ns;
+    st->loop_busy_ns = e->busy_ns;
+    st->window_ns = now - e->window_start_ns;
+    st->submitted = e->submitted;
+    st->completed = e->completed;
+    memcpy(st->by_outcome, e->by_outcome, sizeof(st->by_outcome));
+    st->unreachable = e->unreachable;
+    if (reset_window) {
+        e->window_start_ns = now;
+        e->max_queue_wait_ns = e->max_busy_ns = e->busy_ns = 0;
+    }
+}
+
+void eng_free(eng_t *e)
+{
+    if (!e)
+        return;
+    e->stopped = true;
+    eng_cancel_all(e);
+    e->closing = true;
+    uv_timer_stop(&e->grace);
+    eng_glue_close(e);
+}

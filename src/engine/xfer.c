@@ -1,0 +1,288 @@
+/* One transfer: copying a request into pooled buffers, setting up a reused easy handle for it,
+ * and reading back its timings, bytes and outcome. */
+#include <stdlib.h>
+#include <string.h>
+
+#include "eng_int.h"
+#include "squall/err.h"
+
+static const char *const outcome_names[] = {
+#define ENG_OUTCOME_NAME(name, text) text,
+    ENG_OUTCOME_MAP(ENG_OUTCOME_NAME)
+#undef ENG_OUTCOME_NAME
+};
+
+const char *eng_outcome_name(enum eng_outcome o)
+{
+    if ((int)o < 0 || o >= ENG_OUT_COUNT)
+        return "unknown";
+    return outcome_names[o];
+}
+
+enum eng_outcome eng_outcome_of(CURLcode rc, long status)
+{
+    switch (rc) {
+    case CURLE_OK:
+        if (status >= 500)
+            return ENG_OUT_S5XX;
+        if (status >= 400)
+            return ENG_OUT_S4XX;
+        if (status >= 300)
+            return ENG_OUT_S3XX;
+        return status >= 200 ? ENG_OUT_S2XX : ENG_OUT_OTHER;
+    case CURLE_OPERATION_TIMEDOUT:
+        return ENG_OUT_TIMEOUT;
+    case CURLE_COULDNT_CONNECT:
+        return ENG_OUT_REFUSED;
+    case CURLE_COULDNT_RESOLVE_HOST:
+    case CURLE_COULDNT_RESOLVE_PROXY:
+        return ENG_OUT_RESOLVE;
+    case CURLE_SSL_CONNECT_ERROR:
+    case CURLE_PEER_FAILED_VERIFICATION:
+    case CURLE_SSL_CERTPROBLEM:
+    case CURLE_SSL_CIPHER:
+    case CURLE_SSL_CACERT_BADFILE:
+    case CURLE_SSL_ISSUER_ERROR:
+    case CURLE_SSL_PINNEDPUBKEYNOTMATCH:
+    case CURLE_SSL_INVALIDCERTSTATUS:
+    case CURLE_SSL_CLIENTCERT:
+    case CURLE_SSL_ENGINE_NOTFOUND:
+    case CURLE_SSL_ENGINE_SETFAILED:
+    case CURLE_SSL_ENGINE_INITFAILED:
+    case CURLE_SSL_CRL_BADFILE:
+    case CURLE_SSL_SHUTDOWN_FAILED:
+    case CURLE_USE_SSL_FAILED:
+        return ENG_OUT_TLS;
+    case CURLE_RECV_ERROR:
+    case CURLE_SEND_ERROR:
+    case CURLE_GOT_NOTHING:
+    case CURLE_PARTIAL_FILE:
+    case CURLE_HTTP2:
+    case CURLE_HTTP2_STREAM:
+        return ENG_OUT_RESET;
+    default:
+        return ENG_OUT_OTHER;
+    }
+}
+
+static int buf_set(struct eng_buf *b, const char *a, size_t alen, const char *c, size_t clen)
+{
+    size_t need = alen + clen + 1;
+    if (need > b->cap) {
+        char *n = realloc(b->data, need);
+        if (!n)
+            return SQ_ENOMEM;
+        b->data = n;
+        b->cap = need;
+    }
+    memcpy(b->data, a, alen);
+    if (clen)
+        memcpy(b->data + alen, c, clen);
+    b->len = alen + clen;
+    b->data[b->len] = '\0';
+    return 0;
+}
+
+static int buf_append(struct eng_buf *b, const char *d, size_t n)
+{
+    if (b->len + n + 1 > b->cap) {
+        size_t cap = b->cap ? b->cap : 4096;
+        while (cap < b->len + n + 1)
+            cap *= 2;
+        char *nd = realloc(b->data, cap);
+        if (!nd)
+            return SQ_ENOMEM;
+        b->data = nd;
+        b->cap = cap;
+    }
+    memcpy(b->data + b->len, d, n);
+    b->len += n;
+    b->data[b->len] = '\0';
+    return 0;
+}
+
+static struct curl_slist *headers_build(const eng_t *e, const char *const *h, size_t n)
+{
+    struct curl_slist *l = NULL, *t;
+    for (size_t i = 0; i < n; i++) {
+        if (!(t = curl_slist_append(l, h[i])))
+            goto fail;
+        l = t;
+    }
+    for (const struct curl_slist *c = e->headers; c; c = c->next) {
+        if (!(t = curl_slist_append(l, c->data)))
+            goto fail;
+        l = t;
+    }
+    return l;
+fail:
+    curl_slist_free_all(l);
+    return NULL;
+}
+
+/* Copies a request into the transfer so the caller's memory may go away after eng_submit. */
+int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req)
+{
+    eng_t *e = x->eng;
+    const char *m = req->method ? req->method : "GET";
+    if (buf_set(&x->url, e->base_url, strlen(e->base_url), req->path, strlen(req->path)) ||
+        buf_set(&x->method, m, strlen(m), NULL, 0) ||
+        buf_set(&x->body, req->body ? req->body : "", req->body ? req->body_len : 0, NULL, 0))
+        return SQ_ENOMEM;
+    x->req = *req;
+    x->req.method = x->method.data;
+    x->req.path = NULL;
+    x->req.body = req->body ? x->body.data : NULL;
+    x->req.headers = NULL;
+    x->headers = NULL;
+    if (req->n_headers && !(x->headers = headers_build(e, req->headers, req->n_headers)))
+        return SQ_ENOMEM;
+    memset(&x->res, 0, sizeof(x->res));
+    x->res.intended_ns = req->intended_ns;
+    x->resp.len = 0;
+    x->opener = x->aborted = x->cancelled = false;
+    return 0;
+}
+
+static size_t on_write(char *data, size_t size, size_t n, void *userp)
+{
+    struct eng_xfer *x = userp;
+    size_t len = size * n;
+    x->res.bytes_in_body += (int64_t)len;
+    if (x->req.on_data && x->req.on_data(x->req.user, data, len)) {
+        x->aborted = true;
+        return 0;
+    }
+    if (x->req.keep_body && buf_append(&x->resp, data, len))
+        return 0;
+    return len;
+}
+
+static int on_prereq(void *clientp, char *conn_primary_ip, char *conn_local_ip, int pport,
+                     int lport)
+{
+    (void)conn_primary_ip;
+    (void)conn_local_ip;
+    (void)pport;
+    (void)lport;
+    struct eng_xfer *x = clientp;
+    x->res.sent_ns = (int64_t)uv_hrtime();
+    return CURL_PREREQFUNC_OK;
+}
+
+/* The options every transfer shares; set once per pooled easy handle. */
+CURL *eng_easy_new(eng_t *e)
+{
+    CURL *c = curl_easy_init();
+    if (!c)
+        return NULL;
+    curl_easy_setopt(c, CURLOPT_NOSIGNAL, 1L);
+    curl_easy_setopt(c, CURLOPT_TCP_NODELAY, 1L);
+    curl_easy_setopt(c, CURLOPT_WRITEFUNCTION, on_write);
+    curl_easy_setopt(c, CURLOPT_PREREQFUNCTION, on_prereq);
+    curl_easy_setopt(c, CURLOPT_OPENSOCKETFUNCTION, eng_glue_opensocket);
+    curl_easy_setopt(c, CURLOPT_CLOSESOCKETFUNCTION, eng_glue_closesocket);
+    curl_easy_setopt(c, CURLOPT_CLOSESOCKETDATA, e);
+    curl_easy_setopt(c, CURLOPT_PROTOCOLS_STR, "http,https");
+    if (e->ca_file)
+        curl_easy_setopt(c, CURLOPT_CAINFO, e->ca_file);
+    if (e->cert_file)
+        curl_easy_setopt(c, CURLOPT_SSLCERT, e->cert_file);
+    if (e->key_file)
+        curl_easy_setopt(c, CURLOPT_SSLKEY, e->key_file);
+    if (e->cfg.insecure) {
+        curl_easy_setopt(c, CURLOPT_SSL_VERIFYPEER, 0L);
+        curl_easy_setopt(c, CURLOPT_SSL_VERIFYHOST, 0L);
+    }
+    return c;
+}
+
+static void set_method(struct eng_xfer *x)
+{
+    CURL *c = x->easy;
+    const char *m = x->req.method;
+    bool has_body = x->req.body != NULL;
+    if (!has_body && strcmp(m, "GET") == 0) {
+        curl_easy_setopt(c, CURLOPT_HTTPGET, 1L);
+        curl_easy_setopt(c, CURLOPT_CUSTOMREQUEST, NULL);
+        return;
+    }
+    if (has_body || strcmp(m, "POST") == 0) {
+        curl_easy_setopt(c, CURLOPT_POSTFIELDSIZE_LARGE, (curl_off_t)x->body.len);
+        curl_easy_setopt(c, CURLOPT_POSTFIELDS, x->body.data);
+    } else {
+        curl_easy_setopt(c, CURLOPT_HTTPGET, 1L);
+    }
+    curl_easy_setopt(c, CURLOPT_CUSTOMREQUEST, strcmp(m, "POST") == 0 ? NULL : m);
+}
+
+/* The per-request options of a reused easy handle. For h2c the opener opens a fresh connection
+ * with prior knowledge and every other transfer asks for 2.0 and waits to multiplex: prior
+ * knowledge on a reused connection fails in 7.88.1 (curl issue #10634). */
+int eng_xfer_setup(struct eng_xfer *x)
+{
+    eng_t *e = x->eng;
+    CURL *c = x->easy;
+    curl_easy_setopt(c, CURLOPT_URL, x->url.data);
+    curl_easy_setopt(c, CURLOPT_PRIVATE, x);
+    curl_easy_setopt(c, CURLOPT_WRITEDATA, x);
+    curl_easy_setopt(c, CURLOPT_PREREQDATA, x);
+    curl_easy_setopt(c, CURLOPT_OPENSOCKETDATA, x);
+    curl_easy_setopt(c, CURLOPT_HTTPHEADER, x->headers ? x->headers : e->headers);
+    int64_t t = x->req.timeout_ms ? x->req.timeout_ms : e->cfg.timeout_ms;
+    curl_easy_setopt(c, CURLOPT_TIMEOUT_MS, (long)(t > 0 ? t : 0));
+    set_method(x);
+    if (e->cfg.http == ENG_HTTP_1_1) {
+        curl_easy_setopt(c, CURLOPT_HTTP_VERSION, (long)CURL_HTTP_VERSION_1_1);
+    } else if (e->h2c && x->opener) {
+        curl_easy_setopt(c, CURLOPT_HTTP_VERSION, (long)CURL_HTTP_VERSION_2_PRIOR_KNOWLEDGE);
+        curl_easy_setopt(c, CURLOPT_FRESH_CONNECT, 1L);
+        curl_easy_setopt(c, CURLOPT_PIPEWAIT, 0L);
+    } else {
+        curl_easy_setopt(c, CURLOPT_HTTP_VERSION, (long)CURL_HTTP_VERSION_2_0);
+        curl_easy_setopt(c, CURLOPT_FRESH_CONNECT, 0L);
+        curl_easy_setopt(c, CURLOPT_PIPEWAIT, 1L);
+    }
+    return 0;
+}
+
+/* Reads libcurl's view of a finished transfer into x->res. */
+void eng_xfer_finish(struct eng_xfer *x, CURLcode rc)
+{
+    eng_result_t *r = &x->res;
+    CURL *c = x->easy;
+    curl_off_t v = 0;
+    long l = 0;
+    r->done_ns = (int64_t)uv_hrtime();
+    r->curl_code = (int)rc;
+    if (c) {
+        curl_easy_getinfo(c, CURLINFO_RESPONSE_CODE, &r->status);
+        if (curl_easy_getinfo(c, CURLINFO_CONNECT_TIME_T, &v) == CURLE_OK)
+            r->connect_us = v;
+        if (curl_easy_getinfo(c, CURLINFO_APPCONNECT_TIME_T, &v) == CURLE_OK)
+            r->appconnect_us = v;
+        if (curl_easy_getinfo(c, CURLINFO_STARTTRANSFER_TIME_T, &v) == CURLE_OK)
+            r->starttransfer_us = v;
+        if (curl_easy_getinfo(c, CURLINFO_TOTAL_TIME_T, &v) == CURLE_OK)
+            r->total_us = v;
+        if (curl_easy_getinfo(c, CURLINFO_HEADER_SIZE, &l) == CURLE_OK)
+            r->bytes_in = l + r->bytes_in_body;
+        if (curl_easy_getinfo(c, CURLINFO_REQUEST_SIZE, &l) == CURLE_OK)
+            r->bytes_out = l;
+    }
+    if (x->aborted || x->cancelled)
+        r->outcome = ENG_OUT_CANCELLED;
+    else
+        r->outcome = eng_outcome_of(rc, r->status);
+    if (x->req.keep_body) {
+        r->body = x->resp.data ? x->resp.data : "";
+        r->body_len = x->resp.len;
+    }
+}
+
+/* Frees a transfer's per-request list; its buffers stay for the next request. */
+void eng_xfer_release(struct eng_xfer *x)
+{
+    curl_slist_free_all(x->headers);
+    x->headers = NULL;
+}
