@@ -1,0 +1,425 @@
+/* Request lifecycle of the embedded target: body collection and limits, the fault pipeline
+ * (stall, in-flight limit, added latency, injected errors), admin and report routes, and the
+ * per-request accounting (counts, server-side latency). The /v1/ store API is in api.c. */
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/err.h"
+#include "target_int.h"
+
+struct tgt_req {
+    tgt_server_t *sv;
+    struct MHD_Connection *conn;
+    uint64_t t0, due;
+    int method;
+    bool v1, watch, answered, admitted, delayed, stall_counted, too_large;
+    tgt_buf_t body;
+    uv_timer_t *timer;
+    tgt_req_t *hprev, *hnext; /* in sv->held while suspended */
+    tgt_req_t *qnext;         /* in the in-flight queue */
+};
+
+static const char allow[] = "GET, HEAD, PUT, POST, PATCH, DELETE";
+
+static int method_index(const char *m)
+{
+    static const char *const names[] = {"GET", "HEAD", "PUT", "POST", "PATCH", "DELETE"};
+    for (int i = 0; i < TGT_M_OTHER; i++)
+        if (strcmp(m, names[i]) == 0)
+            return i;
+    return TGT_M_OTHER;
+}
+
+void tgt_http_count(tgt_server_t *sv, int method, unsigned status)
+{
+    if (method >= 0 && method < TGT_M_COUNT && status < 600)
+        sv->requests[method][status]++;
+}
+
+static enum MHD_Result queue(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+                             unsigned status, struct MHD_Response *r)
+{
+    if (!r)
+        return MHD_NO;
+    tgt_http_count(sv, method, status);
+    enum MHD_Result rc = MHD_queue_response(conn, status, r);
+    MHD_destroy_response(r);
+    return rc;
+}
+
+enum MHD_Result tgt_http_reply(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+                               unsigned status, const char *ctype, const char *body, size_t len)
+{
+    struct MHD_Response *r =
+        MHD_create_response_from_buffer(len, (void *)body, MHD_RESPMEM_MUST_COPY);
+    if (r && ctype)
+        MHD_add_response_header(r, "Content-Type", ctype);
+    if (r && status == 405)
+        MHD_add_response_header(r, "Allow", allow);
+    return queue(sv, conn, method, status, r);
+}
+
+/* An error answer: {"error": CODE, "message": MSG}, optionally with Retry-After. */
+static enum MHD_Result error_reply(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+                                   unsigned status, const char *code, const char *msg,
+                                   int retry_after)
+{
+    tgt_buf_t b = {0};
+    tgt_buf_printf(&b, "{\"error\":\"%s\",\"message\":", code);
+    tgt_buf_json_str(&b, msg);
+    tgt_buf_str(&b, "}\n");
+    struct MHD_Response *r =
+        MHD_create_response_from_buffer(b.len, b.p ? b.p : "", MHD_RESPMEM_MUST_COPY);
+    tgt_buf_free(&b);
+    if (r) {
+        MHD_add_response_header(r, "Content-Type", "application/json");
+        if (status == 405)
+            MHD_add_response_header(r, "Allow", allow);
+        if (retry_after >= 0) {
+            char v[16];
+            snprintf(v, sizeof(v), "%d", retry_after);
+            MHD_add_response_header(r, "Retry-After", v);
+        }
+    }
+    return queue(sv, conn, method, status, r);
+}
+
+enum MHD_Result tgt_http_error(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+                               unsigned status, const char *code, const char *msg)
+{
+    return error_reply(sv, conn, method, status, code, msg, -1);
+}
+
+/* ---- Holding requests: suspended connections, woken by a timer or by a free slot. */
+
+static void hold_link(tgt_req_t *q)
+{
+    tgt_server_t *sv = q->sv;
+    q->hprev = NULL;
+    q->hnext = sv->held;
+    if (sv->held)
+        sv->held->hprev = q;
+    sv->held = q;
+    MHD_suspend_connection(q->conn);
+}
+
+static void hold_release(tgt_req_t *q)
+{
+    tgt_server_t *sv = q->sv;
+    if (q->hprev)
+        q->hprev->hnext = q->hnext;
+    else
+        sv->held = q->hnext;
+    if (q->hnext)
+        q->hnext->hprev = q->hprev;
+    q->hprev = q->hnext = NULL;
+    MHD_resume_connection(q->conn);
+    tgt_server_kick(sv);
+}
+
+static void timer_free(uv_handle_t *h)
+{
+    free(h);
+}
+
+static void on_hold_timer(uv_timer_t *h)
+{
+    tgt_req_t *q = h->data;
+    uint64_t now = uv_hrtime();
+    if (now < q->due) {
+        /* libuv timers have millisecond resolution and may fire early: wait out the rest. */
+        uv_timer_start(h, on_hold_timer, (q->due - now + 999999) / 1000000, 0);
+        return;
+    }
+    uv_close((uv_handle_t *)h, timer_free);
+    q->timer = NULL;
+    hold_release(q);
+}
+
+/* Suspends q until `ns` from now. */
+static enum MHD_Result hold_for(tgt_req_t *q, int64_t ns)
+{
+    q->timer = malloc(sizeof(*q->timer));
+    if (!q->timer)
+        return tgt_http_error(q->sv, q->conn, q->method, 500, "no-memory", "out of memory");
+    uv_timer_init(q->sv->loop, q->timer);
+    q->timer->data = q;
+    q->due = uv_hrtime() + (uint64_t)ns;
+    uv_timer_start(q->timer, on_hold_timer, ((uint64_t)ns + 999999) / 1000000, 0);
+    hold_link(q);
+    return MHD_YES;
+}
+
+static void drop_timer(tgt_req_t *q)
+{
+    if (!q->timer)
+        return;
+    uv_timer_stop(q->timer);
+    uv_close((uv_handle_t *)q->timer, timer_free);
+    q->timer = NULL;
+}
+
+void tgt_http_release_all(tgt_server_t *sv)
+{
+    while (sv->held) {
+        drop_timer(sv->held);
+        hold_release(sv->held);
+    }
+    sv->queue_head = sv->queue_tail = NULL;
+}
+
+/* Gives a freed in-flight slot to the oldest queued request. */
+static void admit_next(tgt_server_t *sv)
+{
+    tgt_req_t *q = sv->queue_head;
+    if (!q || sv->draining)
+        return;
+    sv->queue_head = q->qnext;
+    if (!sv->queue_head)
+        sv->queue_tail = NULL;
+    q->qnext = NULL;
+    q->admitted = true;
+    sv->inflight++;
+    hold_release(q);
+}
+
+static void slot_free(tgt_req_t *q)
+{
+    if (!q->admitted)
+        return;
+    q->admitted = false;
+    q->sv->inflight--;
+    admit_next(q->sv);
+}
+
+/* ---- The fault pipeline for /v1/ requests; MHD_YES with nothing queued means "held". */
+
+static enum MHD_Result faults_then_serve(tgt_req_t *q, const char *url)
+{
+    tgt_server_t *sv = q->sv;
+    const target_faults_t *f = &sv->faults;
+    uint64_t now = uv_hrtime();
+    if (sv->draining)
+        return error_reply(sv, q->conn, q->method, 503, "shutting-down", "the target is stopping",
+                           1);
+    if (f->stall_at_ns >= 0 && f->stall_for_ns > 0) {
+        uint64_t start = sv->faults_at + (uint64_t)f->stall_at_ns;
+        uint64_t end = start + (uint64_t)f->stall_for_ns;
+        if (now >= start && now < end) {
+            if (!q->stall_counted)
+                sv->fc.stalled++;
+            q->stall_counted = true;
+            return hold_for(q, (int64_t)(end - now));
+        }
+    }
+    if (!q->admitted && f->max_inflight > 0 && sv->inflight >= f->max_inflight) {
+        if (f->over_limit_reject) {
+            sv->fc.rejected++;
+            return error_reply(sv, q->conn, q->method, 429, "over-limit",
+                               "too many requests in flight", f->retry_after_s);
+        }
+        sv->fc.queued++;
+        if (sv->queue_tail)
+            sv->queue_tail->qnext = q;
+        else
+            sv->queue_head = q;
+        sv->queue_tail = q;
+        hold_link(q);
+        return MHD_YES;
+    }
+    if (!q->admitted) {
+        q->admitted = true;
+        sv->inflight++;
+    }
+    if (!q->delayed) {
+        q->delayed = true;
+        int64_t d = tgt_fault_delay(f, &sv->rng);
+        if (d > 0) {
+            sv->fc.delayed++;
+            sv->fc.delay_ns_total += (uint64_t)d;
+            return hold_for(q, d);
+        }
+    }
+    if (f->fail_rate > 0 && rng_unit(&sv->rng) <= f->fail_rate) {
+        sv->fc.failed++;
+        return error_reply(sv, q->conn, q->method, (unsigned)f->fail_status, "injected",
+                           "an error injected by the target's fault settings", f->retry_after_s);
+    }
+    return tgt_api_serve(sv, q->conn, q->method, url, q->body.p ? q->body.p : "", q->body.len,
+                         &q->watch);
+}
+
+/* ---- Routes outside /v1/: reports and administration. */
+
+/* Applies a POSTed fault configuration; on a bad body answers 400 and returns true. */
+static bool admin_faults_post(tgt_req_t *q, enum MHD_Result *rc)
+{
+    tgt_server_t *sv = q->sv;
+    json_error_t je;
+    char err[256];
+    json_t *j = json_loadb(q->body.p ? q->body.p : "", q->body.len, 0, &je);
+    target_faults_t f;
+    if (!j) {
+        snprintf(err, sizeof(err), "malformed JSON at line %d column %d: %s", je.line, je.column,
+                 je.text);
+        *rc = tgt_http_error(sv, q->conn, -1, 400, "bad-json", err);
+        return true;
+    }
+    int bad = tgt_faults_from_json(&f, j, err, sizeof(err));
+    json_decref(j);
+    if (bad < 0) {
+        *rc = tgt_http_error(sv, q->conn, -1, 400, "bad-faults", err);
+        return true;
+    }
+    tgt_server_set_faults(sv, &f);
+    out_info(sv->out, "serve: faults set through /admin/faults");
+    return false;
+}
+
+static enum MHD_Result reply_json(tgt_server_t *sv, struct MHD_Connection *conn, json_t *j)
+{
+    char *s = j ? json_dumps(j, JSON_COMPACT) : NULL;
+    json_decref(j);
+    if (!s)
+        return tgt_http_error(sv, conn, -1, 500, "no-memory", "out of memory");
+    enum MHD_Result rc = tgt_http_reply(sv, conn, -1, 200, "application/json", s, strlen(s));
+    free(s);
+    return rc;
+}
+
+static enum MHD_Result route_report(tgt_req_t *q, const char *url)
+{
+    tgt_server_t *sv = q->sv;
+    tgt_buf_t b = {0};
+    bool metrics = strcmp(url, "/metrics") == 0;
+    int rc = metrics ? tgt_report_metrics(sv, &b) : tgt_report_stats(sv, &b);
+    enum MHD_Result r =
+        rc < 0 ? tgt_http_error(sv, q->conn, -1, 500, "no-memory", "out of memory")
+               : tgt_http_reply(sv, q->conn, -1, 200,
+                                metrics ? "application/openmetrics-text; version=1.0.0; "
+                                          "charset=utf-8"
+                                        : "application/json",
+                                b.p, b.len);
+    tgt_buf_free(&b);
+    return r;
+}
+
+static enum MHD_Result route_other(tgt_req_t *q, const char *url)
+{
+    tgt_server_t *sv = q->sv;
+    bool get = q->method == TGT_M_GET || q->method == TGT_M_HEAD;
+    bool post = q->method == TGT_M_POST || q->method == TGT_M_PUT;
+    if (strcmp(url, "/stats") == 0 || strcmp(url, "/metrics") == 0)
+        return get ? route_report(q, url)
+                   : tgt_http_error(sv, q->conn, -1, 405, "bad-method", "use GET");
+    if (strcmp(url, "/admin/faults") == 0) {
+        enum MHD_Result rc;
+        if (post && admin_faults_post(q, &rc))
+            return rc;
+        if (!get && !post)
+            return tgt_http_error(sv, q->conn, -1, 405, "bad-method", "use GET or POST");
+        return reply_json(sv, q->conn, tgt_report_faults(sv));
+    }
+    if (strcmp(url, "/admin/drop-watches") == 0) {
+        if (q->method != TGT_M_POST)
+            return tgt_http_error(sv, q->conn, -1, 405, "bad-method", "use POST");
+        uint64_t before = sv->fc.dropped_streams;
+        sv->fc.drops++;
+        tgt_stream_end_all(sv, true);
+        return reply_json(
+            sv, q->conn,
+            json_pack("{s:I}", "dropped", (json_int_t)(sv->fc.dropped_streams - before)));
+    }
+    return tgt_http_error(sv, q->conn, -1, 404, "no-route",
+                          "no such path: objects live under /v1/; see also /stats, /metrics, "
+                          "/admin/faults, /admin/drop-watches");
+}
+
+/* ---- libmicrohttpd callbacks */
+
+static tgt_req_t *req_new(tgt_server_t *sv, struct MHD_Connection *conn, const char *url,
+                          const char *method)
+{
+    tgt_req_t *q = calloc(1, sizeof(*q));
+    if (!q)
+        return NULL;
+    q->sv = sv;
+    q->conn = conn;
+    q->t0 = uv_hrtime();
+    q->method = method_index(method);
+    q->v1 = strncmp(url, "/v1/", 4) == 0 || strcmp(url, "/v1") == 0;
+    return q;
+}
+
+static enum MHD_Result too_large(tgt_req_t *q)
+{
+    tgt_server_t *sv = q->sv;
+    char msg[96];
+    sv->too_large++;
+    snprintf(msg, sizeof(msg), "request body over the limit of %lld bytes", sv->opts.body_limit);
+    return tgt_http_error(sv, q->conn, q->v1 ? q->method : -1, 413, "too-large", msg);
+}
+
+enum MHD_Result tgt_http_access(void *cls, struct MHD_Connection *conn, const char *url,
+                                const char *method, const char *version, const char *upload,
+                                size_t *upload_size, void **con_cls)
+{
+    tgt_server_t *sv = cls;
+    tgt_req_t *q = *con_cls;
+    (void)version;
+    if (!q) {
+        if (!(*con_cls = q = req_new(sv, conn, url, method)))
+            return MHD_NO;
+        const char *cl = MHD_lookup_connection_value(conn, MHD_HEADER_KIND, "Content-Length");
+        if (cl && strtoll(cl, NULL, 10) > sv->opts.body_limit) {
+            q->answered = true;
+            return too_large(q);
+        }
+        return MHD_YES;
+    }
+    if (*upload_size > 0) {
+        if (!q->too_large && (long long)(q->body.len + *upload_size) > sv->opts.body_limit)
+            q->too_large = true;
+        if (!q->too_large && tgt_buf_add(&q->body, upload, *upload_size) < 0)
+            return MHD_NO;
+        *upload_size = 0;
+        return MHD_YES;
+    }
+    if (q->too_large)
+        return (q->answered = true), too_large(q);
+    if (!q->v1)
+        return (q->answered = true), route_other(q, url);
+    if (q->method == TGT_M_OTHER) {
+        sv->bad_method++;
+        q->answered = true;
+        return tgt_http_error(sv, conn, q->method, 405, "bad-method",
+                              "method not supported; allowed: GET, HEAD, PUT, POST, PATCH, "
+                              "DELETE");
+    }
+    enum MHD_Result rc = faults_then_serve(q, url);
+    q->answered = q->hprev || q->hnext || sv->held == q ? false : true;
+    if (q->watch)
+        slot_free(q); /* An open watch does not hold an in-flight slot. */
+    return rc;
+}
+
+void tgt_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
+                        enum MHD_RequestTerminationCode code)
+{
+    tgt_server_t *sv = cls;
+    tgt_req_t *q = *con_cls;
+    (void)conn;
+    if (!q)
+        return;
+    if (code == MHD_REQUEST_TERMINATED_COMPLETED_OK && q->v1 && !q->watch && q->answered) {
+        int64_t ns = (int64_t)(uv_hrtime() - q->t0);
+        hist_record(sv->latency, ns);
+        sv->latency_sum_s += (double)ns / 1e9;
+    }
+    drop_timer(q);
+    slot_free(q);
+    tgt_buf_free(&q->body);
+    free(q);
+    *con_cls = NULL;
+}

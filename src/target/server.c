@@ -1,0 +1,214 @@
+/* Lifecycle of the embedded target on a libuv loop: libmicrohttpd runs in external-epoll mode,
+ * its epoll descriptor watched by one uv_poll_t, its timeouts by one uv_timer_t. */
+#include <arpa/inet.h>
+#include <netinet/in.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/err.h"
+#include "target_int.h"
+
+static void mhd_run(tgt_server_t *sv);
+
+static void on_tick(uv_timer_t *h)
+{
+    mhd_run(h->data);
+}
+
+static void on_idle(uv_idle_t *h)
+{
+    uv_idle_stop(h);
+    mhd_run(h->data);
+}
+
+static void on_poll(uv_poll_t *h, int status, int events)
+{
+    (void)status;
+    (void)events;
+    mhd_run(h->data);
+}
+
+static void mhd_run(tgt_server_t *sv)
+{
+    if (sv->stopping)
+        return;
+    sv->in_run = true;
+    MHD_run(sv->mhd);
+    sv->in_run = false;
+    if (sv->kicked) {
+        sv->kicked = false;
+        uv_idle_start(&sv->idle, on_idle);
+    }
+    MHD_UNSIGNED_LONG_LONG ms;
+    if (MHD_get_timeout(sv->mhd, &ms) == MHD_YES)
+        uv_timer_start(&sv->tick, on_tick, ms, 0);
+    else
+        uv_timer_stop(&sv->tick);
+}
+
+void tgt_server_kick(tgt_server_t *sv)
+{
+    if (sv->stopping)
+        return;
+    if (sv->in_run)
+        sv->kicked = true;
+    else
+        uv_idle_start(&sv->idle, on_idle);
+}
+
+static void on_drop(uv_timer_t *h)
+{
+    tgt_server_t *sv = h->data;
+    sv->fc.drops++;
+    tgt_stream_end_all(sv, true);
+}
+
+void tgt_server_set_faults(tgt_server_t *sv, const target_faults_t *f)
+{
+    sv->faults = *f;
+    sv->faults_at = uv_hrtime();
+    uv_timer_stop(&sv->drop);
+    if (f->drop_at_ns >= 0)
+        uv_timer_start(&sv->drop, on_drop, (uint64_t)(f->drop_at_ns / 1000000), 0);
+}
+
+static void mhd_log(void *cls, const char *fmt, va_list ap)
+{
+    tgt_server_t *sv = cls;
+    char line[512];
+    vsnprintf(line, sizeof(line), fmt, ap);
+    line[strcspn(line, "\n")] = '\0';
+    out_debug(sv->out, "serve: libmicrohttpd: %s", line);
+}
+
+static int parse_addr(const target_opts_t *o, struct sockaddr_storage *ss)
+{
+    memset(ss, 0, sizeof(*ss));
+    struct sockaddr_in *a4 = (struct sockaddr_in *)ss;
+    struct sockaddr_in6 *a6 = (struct sockaddr_in6 *)ss;
+    if (o->port < 0 || o->port > 65535)
+        return SQ_EINVAL;
+    if (inet_pton(AF_INET, o->host, &a4->sin_addr) == 1) {
+        a4->sin_family = AF_INET;
+        a4->sin_port = htons((uint16_t)o->port);
+        return AF_INET;
+    }
+    if (inet_pton(AF_INET6, o->host, &a6->sin6_addr) == 1) {
+        a6->sin6_family = AF_INET6;
+        a6->sin6_port = htons((uint16_t)o->port);
+        return AF_INET6;
+    }
+    return SQ_EINVAL;
+}
+
+static int start_mhd(tgt_server_t *sv, struct sockaddr_storage *ss, int family)
+{
+    unsigned flags = MHD_USE_EPOLL | MHD_ALLOW_SUSPEND_RESUME | MHD_USE_TURBO | MHD_USE_ERROR_LOG;
+    if (family == AF_INET6)
+        flags |= MHD_USE_IPv6;
+    sv->mhd = MHD_start_daemon(
+        flags, 0, NULL, NULL, tgt_http_access, sv, MHD_OPTION_SOCK_ADDR, (struct sockaddr *)ss,
+        MHD_OPTION_NOTIFY_COMPLETED, tgt_http_completed, sv, MHD_OPTION_EXTERNAL_LOGGER, mhd_log,
+        sv, MHD_OPTION_CONNECTION_LIMIT, (unsigned)30000, MHD_OPTION_CONNECTION_TIMEOUT,
+        (unsigned)0, MHD_OPTION_CONNECTION_MEMORY_LIMIT, (size_t)16384,
+        MHD_OPTION_LISTEN_BACKLOG_SIZE, (unsigned)4096, MHD_OPTION_END);
+    if (!sv->mhd)
+        return SQ_EIO;
+    const union MHD_DaemonInfo *ep = MHD_get_daemon_info(sv->mhd, MHD_DAEMON_INFO_EPOLL_FD);
+    const union MHD_DaemonInfo *pi = MHD_get_daemon_info(sv->mhd, MHD_DAEMON_INFO_BIND_PORT);
+    if (!ep || !pi || uv_poll_init(sv->loop, &sv->poll, ep->epoll_fd) < 0) {
+        MHD_stop_daemon(sv->mhd);
+        return SQ_ELIBUV;
+    }
+    sv->port = pi->port;
+    return 0;
+}
+
+int target_start(uv_loop_t *loop, const target_opts_t *opts, out_t *o, target_t **out)
+{
+    struct sockaddr_storage ss;
+    int family = parse_addr(opts, &ss), rc = SQ_ENOMEM;
+    if (family < 0) {
+        out_error(o, "serve: '%s' port %d is not a numeric IP address and port", opts->host,
+                  opts->port);
+        return SQ_EINVAL;
+    }
+    target_t *t = calloc(1, sizeof(*t));
+    if (!t)
+        goto fail;
+    tgt_server_t *sv = &t->sv;
+    sv->loop = loop;
+    sv->out = o;
+    sv->opts = *opts;
+    rng_seed(&sv->rng, opts->seed);
+    if (tgt_store_init(&sv->store, opts->history) < 0)
+        goto fail_t;
+    sv->store.on_event = tgt_stream_publish;
+    sv->store.on_event_arg = sv;
+    if (hist_new_ns(&sv->latency) < 0)
+        goto fail_store;
+    rc = start_mhd(sv, &ss, family);
+    if (rc < 0) {
+        out_error(o, "serve: cannot listen on %s port %d (in use, or not an address here?)",
+                  opts->host, opts->port);
+        goto fail_hist;
+    }
+    sv->poll.data = sv->tick.data = sv->drop.data = sv->idle.data = sv;
+    uv_timer_init(loop, &sv->tick);
+    uv_timer_init(loop, &sv->drop);
+    uv_idle_init(loop, &sv->idle);
+    sv->handles_open = 4;
+    uv_poll_start(&sv->poll, UV_READABLE, on_poll);
+    tgt_server_set_faults(sv, &opts->faults);
+    mhd_run(sv);
+    *out = t;
+    return 0;
+fail_hist:
+    hist_free(sv->latency);
+fail_store:
+    tgt_store_close(&sv->store);
+fail_t:
+    free(t);
+fail:
+    return rc;
+}
+
+int target_port(const target_t *t)
+{
+    return t->sv.port;
+}
+
+static void on_closed(uv_handle_t *h)
+{
+    tgt_server_t *sv = h->data;
+    if (--sv->handles_open > 0)
+        return;
+    void (*cb)(void *) = sv->on_stopped;
+    void *arg = sv->on_stopped_arg;
+    hist_free(sv->latency);
+    tgt_store_close(&sv->store);
+    free((target_t *)sv); /* sv is the first member of target_t */
+    if (cb)
+        cb(arg);
+}
+
+void target_stop(target_t *t, void (*on_stopped)(void *), void *arg)
+{
+    tgt_server_t *sv = &t->sv;
+    sv->on_stopped = on_stopped;
+    sv->on_stopped_arg = arg;
+    /* libmicrohttpd forbids stopping with suspended connections: end streams and release held
+     * requests, let it take them back once, then stop it. */
+    sv->draining = true;
+    tgt_stream_end_all(sv, false);
+    tgt_http_release_all(sv);
+    MHD_run(sv->mhd);
+    sv->stopping = true;
+    uv_close((uv_handle_t *)&sv->poll, on_closed);
+    MHD_stop_daemon(sv->mhd);
+    sv->mhd = NULL;
+    uv_close((uv_handle_t *)&sv->tick, on_closed);
+    uv_close((uv_handle_t *)&sv->drop, on_closed);
+    uv_close((uv_handle_t *)&sv->idle, on_closed);
+}

@@ -1,0 +1,177 @@
+/* Watch streams of the embedded target: chunked NDJSON events per collection, each stream with
+ * a bounded queue; a stream that falls behind its bound ends with a final error event. */
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/err.h"
+#include "target_int.h"
+
+enum { STREAM_OPEN, STREAM_END, STREAM_DROP };
+
+struct tgt_stream {
+    tgt_server_t *sv;
+    struct MHD_Connection *conn;
+    tgt_coll_t *coll;
+    tgt_buf_t buf; /* queued bytes not yet handed to libmicrohttpd start at off */
+    size_t off;
+    bool suspended;
+    int state;
+    tgt_stream_t *prev, *next;   /* in coll->streams */
+    tgt_stream_t *aprev, *anext; /* in sv->all_streams */
+};
+
+static const char slow_event[] =
+    "{\"type\":\"error\",\"code\":\"slow-watcher\",\"message\":\"this stream fell behind its "
+    "buffer limit and was closed; re-list and watch again from the list's version\"}\n";
+
+static void stream_wake(tgt_stream_t *st)
+{
+    if (!st->suspended)
+        return;
+    st->suspended = false;
+    MHD_resume_connection(st->conn);
+    tgt_server_kick(st->sv);
+}
+
+static ssize_t stream_read(void *cls, uint64_t pos, char *out, size_t max)
+{
+    tgt_stream_t *st = cls;
+    (void)pos;
+    size_t avail = st->buf.len - st->off;
+    if (avail > 0) {
+        size_t n = avail < max ? avail : max;
+        memcpy(out, st->buf.p + st->off, n);
+        st->off += n;
+        if (st->off == st->buf.len) {
+            st->off = st->buf.len = 0;
+        } else if (st->off > st->buf.len / 2) {
+            memmove(st->buf.p, st->buf.p + st->off, st->buf.len - st->off);
+            st->buf.len -= st->off;
+            st->off = 0;
+        }
+        return (ssize_t)n;
+    }
+    if (st->state == STREAM_DROP)
+        return MHD_CONTENT_READER_END_WITH_ERROR;
+    if (st->state == STREAM_END)
+        return MHD_CONTENT_READER_END_OF_STREAM;
+    /* Nothing to send: park the connection until the next event (libmicrohttpd allows
+     * suspending from a content reader callback). */
+    MHD_suspend_connection(st->conn);
+    st->suspended = true;
+    return 0;
+}
+
+static void stream_free(void *cls)
+{
+    tgt_stream_t *st = cls;
+    tgt_server_t *sv = st->sv;
+    if (st->prev)
+        st->prev->next = st->next;
+    else
+        st->coll->streams = st->next;
+    if (st->next)
+        st->next->prev = st->prev;
+    if (st->aprev)
+        st->aprev->anext = st->anext;
+    else
+        sv->all_streams = st->anext;
+    if (st->anext)
+        st->anext->aprev = st->aprev;
+    sv->streams_open--;
+    tgt_buf_free(&st->buf);
+    free(st);
+}
+
+/* Queues one event line, or ends the stream when the line would pass its buffer limit. */
+static void stream_push(tgt_stream_t *st, const char *line, size_t len)
+{
+    tgt_server_t *sv = st->sv;
+    if (st->state != STREAM_OPEN)
+        return;
+    if ((long long)(st->buf.len - st->off + len) > sv->opts.stream_buffer ||
+        tgt_buf_add(&st->buf, line, len) < 0) {
+        /* The final error event may pass the limit by its own size, once. */
+        tgt_buf_add(&st->buf, slow_event, sizeof(slow_event) - 1);
+        st->state = STREAM_END;
+        sv->slow_closed++;
+    } else {
+        sv->events_sent++;
+    }
+    stream_wake(st);
+}
+
+void tgt_stream_publish(void *server, const tgt_event_t *ev)
+{
+    for (tgt_stream_t *st = ev->coll->streams; st; st = st->next)
+        stream_push(st, ev->line, ev->len);
+    (void)server;
+}
+
+static tgt_stream_t *stream_new(tgt_server_t *sv, struct MHD_Connection *conn, tgt_coll_t *c)
+{
+    tgt_stream_t *st = calloc(1, sizeof(*st));
+    if (!st)
+        return NULL;
+    st->sv = sv;
+    st->conn = conn;
+    st->coll = c;
+    st->next = c->streams;
+    if (st->next)
+        st->next->prev = st;
+    c->streams = st;
+    st->anext = sv->all_streams;
+    if (st->anext)
+        st->anext->aprev = st;
+    sv->all_streams = st;
+    sv->streams_open++;
+    sv->streams_opened++;
+    return st;
+}
+
+enum MHD_Result tgt_stream_open(tgt_server_t *sv, struct MHD_Connection *conn, const char *cpath,
+                                int first)
+{
+    tgt_store_t *s = &sv->store;
+    tgt_coll_t *c = tgt_store_coll_add(s, cpath, strlen(cpath));
+    tgt_stream_t *st = c ? stream_new(sv, conn, c) : NULL;
+    if (!st)
+        return tgt_http_error(sv, conn, TGT_M_GET, 500, "no-memory", "out of memory");
+    for (int i = first; i < s->ring_len; i++) {
+        const tgt_event_t *ev = tgt_store_history_at(s, i);
+        if (ev->coll == c)
+            stream_push(st, ev->line, ev->len);
+    }
+    struct MHD_Response *r =
+        MHD_create_response_from_callback(MHD_SIZE_UNKNOWN, 4096, stream_read, st, stream_free);
+    if (!r) {
+        stream_free(st);
+        return MHD_NO;
+    }
+    MHD_add_response_header(r, "Content-Type", "application/x-ndjson");
+    MHD_add_response_header(r, "Cache-Control", "no-store");
+    char v[32];
+    snprintf(v, sizeof(v), "%llu", (unsigned long long)s->version);
+    MHD_add_response_header(r, "X-Squall-Version", v);
+    enum MHD_Result rc = MHD_queue_response(conn, 200, r);
+    MHD_destroy_response(r);
+    tgt_http_count(sv, TGT_M_GET, 200);
+    return rc;
+}
+
+void tgt_stream_end_all(tgt_server_t *sv, bool drop)
+{
+    for (tgt_stream_t *st = sv->all_streams; st; st = st->anext) {
+        if (drop) {
+            if (st->state == STREAM_DROP)
+                continue;
+            st->state = STREAM_DROP;
+            st->buf.len = st->off = 0;
+            sv->fc.dropped_streams++;
+        } else if (st->state == STREAM_OPEN) {
+            st->state = STREAM_END;
+        }
+        stream_wake(st);
+    }
+}
