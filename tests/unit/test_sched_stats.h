@@ -16,14 +16,14 @@
 #define CHI2_9_01 21.666
 #define CHI2_4_01 13.277
 
-static int cmp_double(const void *a, const void *b)
+static inline int cmp_double(const void *a, const void *b)
 {
     double x = *(const double *)a, y = *(const double *)b;
     return (x > y) - (x < y);
 }
 
 /* D = sup |F_n - F| for the sorted sample x (sorted in place); cdf is the hypothesised CDF. */
-static double ks_distance(double *x, size_t n, double (*cdf)(double, double), double param)
+static inline double ks_distance(double *x, size_t n, double (*cdf)(double, double), double param)
 {
     qsort(x, n, sizeof(double), cmp_double);
     double d = 0;
@@ -35,12 +35,12 @@ static double ks_distance(double *x, size_t n, double (*cdf)(double, double), do
     return d;
 }
 
-static double exp_cdf(double x, double lambda)
+static inline double exp_cdf(double x, double lambda)
 {
     return x <= 0 ? 0 : 1 - exp(-lambda * x);
 }
 
-static double chi_square(const double *observed, const double *expected, size_t k)
+static inline double chi_square(const double *observed, const double *expected, size_t k)
 {
     double s = 0;
     for (size_t i = 0; i < k; i++)
@@ -49,7 +49,7 @@ static double chi_square(const double *observed, const double *expected, size_t 
 }
 
 /* Writes the samples to a fresh temporary file, one per line; returns its path (static). */
-static const char *write_samples(const double *x, size_t n, const char *fmt)
+static inline const char *write_samples(const double *x, size_t n, const char *fmt)
 {
     static char path[256];
     const char *dir = getenv("BUILDDIR") ? getenv("BUILDDIR") : "/tmp";
@@ -66,7 +66,7 @@ static const char *write_samples(const double *x, size_t n, const char *fmt)
 }
 
 /* Runs the scipy helper with the given arguments and reads two numbers from its answer. */
-static int run_ref(const char *args, double *a, double *b)
+static inline int run_ref(const char *args, double *a, double *b)
 {
     char cmd[1024];
     snprintf(cmd, sizeof(cmd), "/usr/bin/python3 %s/tests/unit/sched_ref.py %s", SRCDIR, args);
