@@ -73,6 +73,14 @@ uint64_t sched_open_count(const sched_open_t *s);
 double sched_open_lambda(const sched_open_cfg_t *cfg, int64_t t_ns);
 /* Exactly how many starts an even schedule makes over the phase: ceil(Λ(duration)). */
 uint64_t sched_open_even_count(const sched_open_cfg_t *cfg);
+/* The intended rate r(t) in starts per second at t (the live line's target rate); 0 outside
+ * [0, duration) or for an invalid config. */
+double sched_open_rate(const sched_open_cfg_t *cfg, int64_t t_ns);
+
+/* A seed for one random stream of one phase, from the run's seed: arrivals, mix, think times
+ * and fleets each take their own stream so that changing one never shifts another's draws.
+ * A fixed mixing function (splitmix64 finaliser), the same on every machine. */
+uint64_t sched_seed(uint64_t run_seed, uint32_t phase, uint32_t stream);
 
 /* ---- Mix: a weighted class picker ---------------------------------------------------------- */
 

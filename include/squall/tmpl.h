@@ -55,7 +55,8 @@ typedef struct {
 } tmpl_ctx_t;
 
 /* A resolver writes its value for `arg` into dst (at most cap bytes) and sets *len to the full
- * length; when *len > cap the renderer grows the buffer and calls it again. It must not
+ * length (dst is NULL when cap is 0); when *len > cap the renderer grows the buffer and calls it
+ * again, so a resolver runs once per reference per render, twice when the buffer grew. It must not
  * allocate on the hot path. Returns 0 or a negative code (the render then fails with it). */
 typedef int (*tmpl_resolve_fn)(void *user, const char *arg, size_t arg_len, const tmpl_ctx_t *ctx,
                                char *dst, size_t cap, size_t *len);

@@ -228,3 +228,20 @@ uint64_t sched_open_even_count(const sched_open_cfg_t *cfg)
     sched_open_free(s);
     return n;
 }
+
+double sched_open_rate(const sched_open_cfg_t *cfg, int64_t t_ns)
+{
+    if (validate(cfg) < 0 || t_ns < 0 || t_ns >= cfg->duration_ns)
+        return 0;
+    if (cfg->shape == SCHED_CONSTANT)
+        return cfg->rate;
+    if (cfg->shape == SCHED_RAMP)
+        return cfg->from + (cfg->to - cfg->from) * ((double)t_ns / (double)cfg->duration_ns);
+    int64_t at = 0;
+    for (size_t i = 0; i + 1 < cfg->n_steps; i++) {
+        if (t_ns < at + cfg->steps[i].for_ns)
+            return cfg->steps[i].rate;
+        at += cfg->steps[i].for_ns;
+    }
+    return cfg->steps[cfg->n_steps - 1].rate;
+}

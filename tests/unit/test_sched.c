@@ -236,11 +236,39 @@ static void test_steps(void **state)
     assert_int_equal(t[201] - t[200], 20000000);
     free(t);
 
-    cfg.duration_ns = 1500000000; /* the phase ends inside the first step */
+    assert_true(sched_open_rate(&cfg, 1999999999) == 100);
+    assert_true(sched_open_rate(&cfg, 2 * S) == 0);
+    assert_true(sched_open_rate(&cfg, 9 * S) == 50); /* the last step holds */
+    assert_true(sched_open_rate(&cfg, 10 * S) == 0); /* the phase is over */
+    cfg.duration_ns = 1500000000;                    /* the phase ends inside the first step */
     t = collect(&cfg, &n);
     assert_int_equal(n, 150);
     free(t);
     printf("steps: 100/s 2 s, 0/s 1 s, 50/s held 7 s -> 550 starts, none in the quiet second\n");
+}
+
+/* The ramp's intended rate at t is linear from r0 to r1 (the definition of a ramp). */
+static void test_rate_at(void **state)
+{
+    (void)state;
+    sched_open_cfg_t cfg = {.shape = SCHED_RAMP, .from = 10, .to = 400, .duration_ns = 60 * S};
+    assert_true(fabs(sched_open_rate(&cfg, 0) - 10) < 1e-12);
+    assert_true(fabs(sched_open_rate(&cfg, 30 * S) - 205) < 1e-9);
+    assert_true(sched_open_rate(&cfg, -1) == 0);
+}
+
+/* Derived seeds: reproducible, and distinct across phases and streams (1,000 of them). */
+static void test_seeds(void **state)
+{
+    (void)state;
+    assert_int_equal(sched_seed(42, 3, 1), sched_seed(42, 3, 1));
+    uint64_t seen[1000];
+    for (int i = 0; i < 1000; i++) {
+        seen[i] = sched_seed(42, (uint32_t)(i / 10), (uint32_t)(i % 10));
+        for (int j = 0; j < i; j++)
+            assert_true(seen[j] != seen[i]);
+    }
+    assert_true(sched_seed(42, 0, 0) != sched_seed(43, 0, 0));
 }
 
 /* The same seed gives the same schedule; another seed a different one. */
@@ -424,6 +452,8 @@ int main(void)
         cmocka_unit_test(test_ramp_poisson),
         cmocka_unit_test(test_steps),
         cmocka_unit_test(test_determinism),
+        cmocka_unit_test(test_rate_at),
+        cmocka_unit_test(test_seeds),
         cmocka_unit_test(test_due_and_peek),
         cmocka_unit_test(test_invalid),
         cmocka_unit_test(test_mix),
