@@ -174,8 +174,9 @@ bool sched_fleet_peek(const sched_fleet_t *f, int64_t *t_ns, int *agent);
 /* Every action due at or before now_ns, up to max, into t_out[] and agent_out[]. */
 size_t sched_fleet_due(sched_fleet_t *f, int64_t now_ns, int64_t *t_out, int *agent_out,
                        size_t max);
-/* Exactly how many actions the fleet yields over its duration (a dry run of a copy of the
- * schedule: O(result · log agents) time, O(agents) memory). SQ_ENOMEM as a negative value. */
+/* Exactly how many actions the fleet yields over its duration: O(agents) for spread and
+ * aligned; for jitter a dry run of a copy (O(actions · log agents)). SQ_EINVAL or SQ_ENOMEM as
+ * a negative value. */
 int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg);
 /* The CLOCK_REALTIME-to-phase offset helper for aligned fleets: the first t >= 0 such that
  * realtime0 + t is a multiple of period. */

@@ -153,6 +153,19 @@ size_t sched_fleet_due(sched_fleet_t *f, int64_t now_ns, int64_t *t_out, int *ag
     return n;
 }
 
+/* Actions of one spread or aligned agent: the k >= 0 with first + round(period · k) < end. */
+static int64_t agent_count(const agent_t *a, int64_t end)
+{
+    if (a->first >= end)
+        return 0;
+    int64_t k = (int64_t)((double)(end - a->first) / a->period);
+    while (k > 0 && a->first + (int64_t)llround(a->period * (double)k) >= end)
+        k--;
+    while (a->first + (int64_t)llround(a->period * (double)(k + 1)) < end)
+        k++;
+    return k + 1;
+}
+
 int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg)
 {
     sched_fleet_t *f;
@@ -161,8 +174,14 @@ int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg)
         return rc;
     int64_t n = 0, t;
     int agent;
-    while (sched_fleet_next(f, &t, &agent))
-        n++;
+    if (cfg->timing == SCHED_JITTER) {
+        /* Each period is drawn afresh: only a dry run knows the count. */
+        while (sched_fleet_next(f, &t, &agent))
+            n++;
+    } else {
+        for (int i = 0; i < cfg->agents; i++)
+            n += agent_count(&f->agents[i], cfg->duration_ns);
+    }
     sched_fleet_free(f);
     return n;
 }
