@@ -117,7 +117,7 @@ typedef struct {
     int64_t timeout_ns; /* the target's unless set; 0 for watches means "no timeout" */
     struct {            /* kind list */
         int page;       /* items per page, 0 = no limit parameter sent */
-        const char *limit_param, *token_key, *token_param; /* "limit", "next", "after" */
+        const char *limit_param, *token_key, *token_param; /* "limit", "continue", "continue" (the embedded target's names) */
     } list;
     struct {                /* kind write */
         const char *method; /* POST, PUT, PATCH or DELETE (default PUT) */
@@ -277,6 +277,10 @@ typedef struct {
     const char *key;
     const char *value;
 } plan_override_t;
+
+/* Splits a command line's "KEY=VALUE" into *ov, pointing into *copy (malloc'd; the caller frees
+ * it after plan_load). SQ_EINVAL when there is no '=' or the key is empty, SQ_ENOMEM. */
+int plan_override_split(const char *kv, plan_override_t *ov, char **copy);
 
 /* Reads, overrides, validates. On success returns 0 and a plan to release with plan_free. On
  * failure every error has been printed (one line each, OUT_ERROR) and *out is NULL: SQ_EIO when

@@ -212,12 +212,8 @@ static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, chec
             ca->path = v;
             continue;
         }
-        const char *eq = strchr(v, '=');
-        if (!eq || eq == v || !(ca->copies[ca->n] = strdup(v)))
+        if (plan_override_split(v, &ca->sets[ca->n], &ca->copies[ca->n]))
             return cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
-        ca->copies[ca->n][eq - v] = '\0';
-        ca->sets[ca->n].key = ca->copies[ca->n];
-        ca->sets[ca->n].value = ca->copies[ca->n] + (eq - v) + 1;
         ca->n++;
     }
     if (!ca->path)

@@ -58,8 +58,8 @@ static void check_kind_keys(pctx_t *c, yaml_node_t *n, const char *where, enum p
 static void parse_list_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
 {
     r->list.limit_param = "limit";
-    r->list.token_key = "next";
-    r->list.token_param = "after";
+    r->list.token_key = "continue";
+    r->list.token_param = "continue";
     pc_int(c, n, "page", where, 0, 1000000, &r->list.page);
     pc_str(c, n, "limit-param", where, &r->list.limit_param);
     pc_str(c, n, "token-key", where, &r->list.token_key);

@@ -2,9 +2,11 @@
  * are addressed by their `name` (phases.steady.rate) or by 0-based index. load.c picks the file
  * (the last one holding the path's parent); missing mapping keys are created there. */
 #include <stdio.h>
+#include <stdlib.h>
 #include <string.h>
 
 #include "plan_int.h"
+#include "squall/err.h"
 
 /* A new plain scalar carrying override k's mark (see PC_SET_MARK), or 0. */
 static int add_scalar(pctx_t *c, size_t k, const char *text)
@@ -124,4 +126,18 @@ bool plan_override_fits(pctx_t *c, const plan_override_t *ov)
         comp = next;
     }
     return false;
+}
+
+int plan_override_split(const char *kv, plan_override_t *ov, char **copy)
+{
+    const char *eq = strchr(kv, '=');
+    if (!eq || eq == kv)
+        return SQ_EINVAL;
+    *copy = strdup(kv);
+    if (!*copy)
+        return SQ_ENOMEM;
+    (*copy)[eq - kv] = '\0';
+    ov->key = *copy;
+    ov->value = *copy + (eq - kv) + 1;
+    return 0;
 }

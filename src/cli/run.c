@@ -1,0 +1,186 @@
+/* `squall run PLAN`: load a plan, refuse unsafe targets, send its traffic, write the results. */
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/cli.h"
+#include "squall/err.h"
+#include "squall/plan.h"
+#include "squall/run.h"
+
+enum {
+    OPT_OUT,
+    OPT_SET,
+    OPT_CONFIRM,
+    OPT_INSECURE,
+    OPT_NO_BRAKES,
+    OPT_QUIET,
+    OPT_SEED,
+    OPT_GRACE,
+    OPT_SHARD
+};
+
+static const cli_opt_t run_opts[] = {
+    [OPT_OUT] = {"out", 'o', "DIR", "results directory (default results/<UTC time>-<plan name>)"},
+    [OPT_SET] = {"set", 0, "KEY=VALUE", "override a plan value, e.g. phases.steady.rate=100/s"},
+    [OPT_CONFIRM] = {"confirm-target", 0, NULL,
+                     "allow a target that is not loopback (tell its owners first)"},
+    [OPT_INSECURE] = {"insecure", 0, NULL, "do not verify the target's TLS certificate (warns)"},
+    [OPT_NO_BRAKES] = {"no-brakes", 0, NULL,
+                       "drop the default brakes (the plan's own brakes still apply)"},
+    [OPT_QUIET] = {"quiet", 'q', NULL, "no live line and no summary table"},
+    [OPT_SEED] = {"seed", 0, "N", "seed for every random choice (default: the plan's, else time)"},
+    [OPT_GRACE] = {"grace", 0, "DURATION",
+                   "after a signal or brake, how long in-flight requests may take (2s)"},
+    [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (recorded in the results)"},
+    {NULL, 0, NULL, NULL},
+};
+
+typedef struct {
+    const char *path;
+    plan_override_t *sets;
+    char **copies;
+    size_t n;
+    run_opts_t ro;
+} run_args_t;
+
+static int parse_shard(const char *v, run_opts_t *ro)
+{
+    int64_t i, n;
+    char a[32], b[32];
+    const char *slash = strchr(v, '/');
+    if (!slash || slash - v >= 32 || strlen(slash + 1) >= 32)
+        return SQ_EINVAL;
+    snprintf(a, sizeof a, "%.*s", (int)(slash - v), v);
+    snprintf(b, sizeof b, "%s", slash + 1);
+    if (plan_parse_int(b, 1, 100000, &n) || plan_parse_int(a, 1, n, &i))
+        return SQ_EINVAL;
+    ro->shard_index = (int)i;
+    ro->shard_count = (int)n;
+    return 0;
+}
+
+/* One option's value into *ra; returns -1 to go on, else an exit code. */
+static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, run_args_t *ra)
+{
+    int64_t ns;
+    switch (k) {
+    case OPT_OUT:
+        ra->ro.results_dir = v;
+        break;
+    case OPT_SET:
+        if (plan_override_split(v, &ra->sets[ra->n], &ra->copies[ra->n]))
+            return cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
+        ra->n++;
+        break;
+    case OPT_CONFIRM:
+        ra->ro.confirm_target = true;
+        break;
+    case OPT_INSECURE:
+        ra->ro.insecure = true;
+        break;
+    case OPT_NO_BRAKES:
+        ra->ro.no_brakes = true;
+        break;
+    case OPT_QUIET:
+        ra->ro.quiet = true;
+        break;
+    case OPT_SEED: {
+        int64_t s;
+        if (plan_parse_int(v, 0, INT64_MAX, &s))
+            return cli_usage_error(cmd, o, "--seed needs a non-negative integer, got '%s'", v);
+        ra->ro.has_seed = true;
+        ra->ro.seed = (uint64_t)s;
+        break;
+    }
+    case OPT_GRACE:
+        if (plan_parse_duration(v, &ns))
+            return cli_usage_error(cmd, o, "--grace needs %s, got '%s'", PLAN_DURATION_EXPECTS, v);
+        ra->ro.grace_ns = ns;
+        break;
+    case OPT_SHARD:
+        if (parse_shard(v, &ra->ro))
+            return cli_usage_error(cmd, o, "--shard needs I/N with 1 <= I <= N, got '%s'", v);
+        break;
+    }
+    return -1;
+}
+
+static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, run_args_t *ra)
+{
+    cli_args_t a;
+    const char *v;
+    int k, rc;
+    ra->sets = calloc((size_t)argc + 1, sizeof(*ra->sets));
+    ra->copies = calloc((size_t)argc + 1, sizeof(*ra->copies));
+    if (!ra->sets || !ra->copies)
+        return SQ_EXIT_FAILURE;
+    ra->ro.grace_ns = INT64_C(2000000000);
+    cli_args_init(&a, cmd, argc, argv);
+    while ((k = cli_next(&a, o, &v)) != CLI_END) {
+        if (k == CLI_ERROR)
+            return SQ_EXIT_USAGE;
+        if (k == CLI_HELP) {
+            cli_print_help(cmd, o);
+            return SQ_EXIT_OK;
+        }
+        if (k == CLI_POSITIONAL) {
+            if (ra->path)
+                return cli_usage_error(cmd, o, "one plan at a time, got '%s' after '%s'", v,
+                                       ra->path);
+            ra->path = v;
+        } else if ((rc = take_opt(cmd, k, v, o, ra)) >= 0) {
+            return rc;
+        }
+    }
+    if (!ra->path)
+        return cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
+    return -1;
+}
+
+static int run_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
+{
+    run_args_t ra = {0};
+    int rc = read_args(cmd, argc, argv, o, &ra);
+    if (rc < 0) {
+        plan_t *p;
+        int err = plan_load(ra.path, ra.sets, ra.n, &p, o);
+        if (err) {
+            rc = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+        } else {
+            if (ra.ro.quiet)
+                out_set_level(o, OUT_WARN);
+            rc = run_plan(p, &ra.ro, o);
+            plan_free(p);
+        }
+    }
+    for (size_t i = 0; ra.copies && i < ra.n; i++)
+        free(ra.copies[i]);
+    free(ra.copies);
+    free(ra.sets);
+    return rc;
+}
+
+const cli_cmd_t cli_cmd_run = {
+    .name = "run",
+    .summary = "send a plan's traffic and write its results",
+    .usage = "PLAN.yaml [-o DIR] [--set KEY=VALUE]... [--confirm-target] [options]",
+    .description =
+        "Runs the plan's phases in order against its target. Every request is timed from its\n"
+        "intended start, so a target that stalls shows its stall in response time instead of\n"
+        "hiding it behind a stalled generator. Writes DIR/results.json (every histogram) and\n"
+        "DIR/series.csv (one row per class per second) and prints a summary.\n"
+        "\n"
+        "A live line on stderr shows, once a second: phase, elapsed/total time, achieved and\n"
+        "planned rate, requests in flight and queued, errors, and p50/p99 of the last second.\n"
+        "GENERATOR-LIMITED in it (and generator_limited in results.json) means squall itself\n"
+        "could not keep the schedule: the target was not offered the planned load.\n"
+        "\n"
+        "SIGINT or SIGTERM stops new requests and lets in-flight ones finish within --grace;\n"
+        "a second signal stops at once. Results are written either way.\n"
+        "\n"
+        "Safety: targets other than loopback are refused without --confirm-target. Default\n"
+        "brakes stop the run when more than 10% of answers in 10 s are errors, or when the\n"
+        "target gives no answer for 10 s.",
+    .opts = run_opts,
+    .main = run_main,
+};

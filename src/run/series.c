@@ -1,0 +1,106 @@
+/* The per-second view of a run: one series.csv row per class per second, and the live line. */
+#include <errno.h>
+#include <string.h>
+
+#include "run_int.h"
+#include "squall/err.h"
+
+int run_series_open(runner_t *r, const char *dir)
+{
+    char path[4096];
+    snprintf(path, sizeof path, "%s/series.csv", dir);
+    r->series = fopen(path, "w");
+    if (!r->series) {
+        out_error(r->o, "cannot write %s: %s", path, strerror(errno));
+        return SQ_EIO;
+    }
+    /* Times in milliseconds; `second` counts from the start of the run. */
+    fputs("second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms\n",
+          r->series);
+    return 0;
+}
+
+void run_series_close(runner_t *r)
+{
+    if (r->series)
+        fclose(r->series);
+    r->series = NULL;
+}
+
+void run_sec_record(runner_t *r, int cls, const eng_result_t *res)
+{
+    run_sec_t *s = &r->sec[cls];
+    int64_t v = res->done_ns - res->intended_ns;
+    s->completed++;
+    r->sec_completed++;
+    r->total_completed++;
+    if (run_is_error(res->outcome)) {
+        s->errors++;
+        r->sec_errors++;
+        r->total_errors++;
+    }
+    hist_record(s->response, v);
+    hist_record(r->sec_all, v);
+}
+
+static double ms(int64_t ns)
+{
+    return (double)ns / 1e6;
+}
+
+static void series_rows(runner_t *r, double secs)
+{
+    const char *phase = r->plan->phases[r->cur].name;
+    for (size_t i = 0; i < r->n_classes; i++) {
+        run_sec_t *s = &r->sec[i];
+        if (s->started == 0 && s->completed == 0)
+            continue;
+        const hist_t *h = s->response;
+        if (r->series)
+            fprintf(r->series, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f\n",
+                    (long long)r->sec_index, phase, r->classes[i].pr->name, (long long)s->started,
+                    (long long)s->completed, secs > 0 ? (double)s->completed / secs : 0.0,
+                    (long long)s->errors, ms(hist_value_at(h, 50)), ms(hist_value_at(h, 90)),
+                    ms(hist_value_at(h, 99)), ms(hist_max(h)));
+        s->started = s->completed = s->errors = 0;
+        hist_reset(s->response);
+    }
+    if (r->series)
+        fflush(r->series);
+}
+
+static void live_line(runner_t *r, const eng_stats_t *st, double secs)
+{
+    if (r->opts->quiet)
+        return;
+    const run_phase_t *ph = &r->phases[r->cur];
+    double elapsed = (double)((int64_t)uv_hrtime() - r->run_start_ns) / 1e9;
+    double total = (double)r->planned_ns / 1e9;
+    char limited[200] = "";
+    if (r->limited_now)
+        snprintf(limited, sizeof limited, "  GENERATOR-LIMITED: %s", r->limited_why);
+    out_live(r->o,
+             "[%s] %5.1fs/%.0fs  rate %.0f/s of %.0f/s  in flight %d  queued %d  errors %lld  "
+             "p50 %.1fms  p99 %.1fms%s",
+             ph->pp->name, elapsed, total, secs > 0 ? (double)r->sec_started / secs : 0.0,
+             secs > 0 ? r->sec_target / secs : 0.0, st->in_flight, st->queued,
+             (long long)r->sec_errors, ms(hist_value_at(r->sec_all, 50)),
+             ms(hist_value_at(r->sec_all, 99)), limited);
+}
+
+void run_second(runner_t *r, bool final)
+{
+    eng_stats_t st;
+    eng_stats(r->eng, &st, true);
+    double secs = st.window_ns > 0 ? (double)st.window_ns / 1e9 : 1.0;
+    int64_t lag_p99 = hist_value_at(r->sec_sched_lag, 99);
+    run_health_second(r, &st, lag_p99);
+    if (!final)
+        live_line(r, &st, secs);
+    series_rows(r, secs);
+    r->sec_index++;
+    r->sec_started = r->sec_completed = r->sec_errors = 0;
+    r->sec_target = 0;
+    hist_reset(r->sec_all);
+    hist_reset(r->sec_sched_lag);
+}

@@ -1,0 +1,94 @@
+/* The table printed at the end of a run: per phase and class, counts, errors and latency. */
+#include <string.h>
+
+#include "run_int.h"
+
+static bool outcome_is_ok(const char *oc)
+{
+    return strcmp(oc, "2xx") == 0 || strcmp(oc, "3xx") == 0;
+}
+
+static double ms(int64_t ns)
+{
+    return (double)ns / 1e6;
+}
+
+/* Sums every outcome of (phase, class) into h and the counters; false when nothing ran. */
+static bool gather(const runner_t *r, const char *phase, const char *cls, hist_t *h, hist_t *svc,
+                   int64_t *count, int64_t *errors, int64_t *cancelled)
+{
+    *count = *errors = *cancelled = 0;
+    hist_reset(h);
+    hist_reset(svc);
+    for (size_t i = 0; i < results_cell_count(r->res); i++) {
+        results_cell_t *c = results_cell_at(r->res, i);
+        if (strcmp(results_cell_phase(c), phase) || strcmp(results_cell_class(c), cls))
+            continue;
+        const char *oc = results_cell_outcome(c);
+        int64_t n = results_cell_counters(c)->count;
+        if (strcmp(oc, "cancelled") == 0) {
+            *cancelled += n;
+            continue;
+        }
+        *count += n;
+        if (!outcome_is_ok(oc))
+            *errors += n;
+        const hist_t *rh = results_cell_hist_find(c, RESULTS_M_RESPONSE);
+        const hist_t *sh = results_cell_hist_find(c, RESULTS_M_SERVICE);
+        if (rh)
+            hist_merge(h, rh);
+        if (sh)
+            hist_merge(svc, sh);
+    }
+    return *count > 0 || *cancelled > 0;
+}
+
+static void row(runner_t *r, const run_phase_t *ph, const char *cls, hist_t *h, hist_t *svc)
+{
+    int64_t count, errors, cancelled;
+    if (!gather(r, ph->pp->name, cls, h, svc, &count, &errors, &cancelled))
+        return;
+    double secs = (double)ph->duration_ns / 1e9;
+    char svc99[32] = "-";
+    if (hist_count(svc))
+        snprintf(svc99, sizeof svc99, "%.2f", ms(hist_value_at(svc, 99)));
+    out_print(r->o, "%-12s %-24s %8lld %8.1f %7lld %9.2f %9.2f %9.2f %9.2f %9s\n", ph->pp->name,
+              cls, (long long)count, secs > 0 ? (double)count / secs : 0.0, (long long)errors,
+              ms(hist_value_at(h, 50)), ms(hist_value_at(h, 90)), ms(hist_value_at(h, 99)),
+              ms(hist_max(h)), svc99);
+    if (cancelled)
+        out_print(r->o, "%-12s %-24s %8lld cancelled when the run stopped\n", "", "",
+                  (long long)cancelled);
+}
+
+void run_summary(runner_t *r, const char *dir)
+{
+    hist_t *h = NULL, *svc = NULL;
+    if (hist_new_ns(&h) || hist_new_ns(&svc)) {
+        hist_free(h);
+        return;
+    }
+    out_print(r->o, "\nresponse time is measured from each request's intended start (ms)\n");
+    out_print(r->o, "%-12s %-24s %8s %8s %7s %9s %9s %9s %9s %9s\n", "phase", "class", "requests",
+              "per s", "errors", "p50", "p90", "p99", "max", "svc p99");
+    for (size_t p = 0; p < r->n_phases; p++) {
+        for (size_t c = 0; c < r->n_classes; c++) {
+            row(r, &r->phases[p], r->classes[c].pr->name, h, svc);
+            if (r->classes[c].paginate)
+                row(r, &r->phases[p], r->classes[c].all_name, h, svc);
+        }
+    }
+    hist_free(h);
+    hist_free(svc);
+    out_print(r->o, "\nsent %lld requests in %.1f s, %lld errors; schedule lag p99 %.2f ms\n",
+              (long long)r->total_started, (double)(r->run_end_ns - r->run_start_ns) / 1e9,
+              (long long)r->total_errors, ms(hist_value_at(r->sched_lag, 99)));
+    if (r->limited_seconds)
+        out_print(r->o,
+                  "GENERATOR-LIMITED for %lld s (last: %s): the target was not offered the "
+                  "planned load; the figures above are not a verdict on it\n",
+                  (long long)r->limited_seconds, r->limited_why);
+    if (r->stop != RUN_STOP_NONE)
+        out_print(r->o, "stopped early: %s\n", r->stop_reason);
+    out_print(r->o, "results: %s/\n", dir);
+}
