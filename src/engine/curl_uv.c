@@ -40,12 +40,29 @@ void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask)
         eng_admit(e);
 }
 
+static void sock_stop(struct eng_sock *s)
+{
+    if (s->parked)
+        uv_ref((uv_handle_t *)&s->poll);
+    s->parked = false;
+    s->events = 0;
+    uv_poll_stop(&s->poll);
+}
+
 static void on_poll(uv_poll_t *p, int status, int events)
 {
     struct eng_sock *s = p->data;
+    /* An idle connection woke up (the server closed it, or sent h2 frames): libcurl is not
+     * watching it and will notice on reuse, so only stop polling. */
+    if (s->parked) {
+        sock_stop(s);
+        return;
+    }
     int flags = 0;
-    if (status < 0)
+    if (status < 0) {
+        s->events = 0; /* libuv stopped the handle before reporting the error */
         flags = CURL_CSELECT_ERR;
+    }
     if (events & UV_READABLE)
         flags |= CURL_CSELECT_IN;
     if (events & UV_WRITABLE)
@@ -96,6 +113,10 @@ static void sock_drop(eng_t *e, struct eng_sock *s)
     uv_close((uv_handle_t *)&s->poll, sock_closed);
 }
 
+/* uv_poll_start always removes the fd from epoll and adds it again (libuv 1.44 src/unix/poll.c),
+ * and libcurl removes a keep-alive socket after every response and re-adds it for the next
+ * request. So a socket stays polled for reading while idle ("parked", unref'd so it does not keep
+ * the loop alive), and an unchanged request never touches epoll. */
 static int on_socket(CURL *easy, curl_socket_t fd, int what, void *userp, void *socketp)
 {
     (void)easy;
@@ -105,11 +126,14 @@ static int on_socket(CURL *easy, curl_socket_t fd, int what, void *userp, void *
         struct eng_sock *s = sock_get(e, fd, false);
         if (!s)
             return 0;
-        /* Keep the handle for the socket's next request unless we will not see it close. */
-        if (s->ours)
-            uv_poll_stop(&s->poll);
-        else
-            sock_drop(e, s);
+        if (!s->ours) {
+            sock_drop(e, s); /* we will not see it close: forget it now */
+        } else if (s->events == UV_READABLE && !s->parked) {
+            s->parked = true;
+            uv_unref((uv_handle_t *)&s->poll);
+        } else if (!s->parked) {
+            sock_stop(s);
+        }
         return 0;
     }
     struct eng_sock *s = sock_get(e, fd, true);
@@ -122,7 +146,14 @@ static int on_socket(CURL *easy, curl_socket_t fd, int what, void *userp, void *
         ev |= UV_READABLE;
     if (what & CURL_POLL_OUT)
         ev |= UV_WRITABLE;
-    uv_poll_start(&s->poll, ev, on_poll);
+    if (s->parked) {
+        s->parked = false;
+        uv_ref((uv_handle_t *)&s->poll);
+    }
+    if (ev != s->events) {
+        s->events = ev;
+        uv_poll_start(&s->poll, ev, on_poll);
+    }
     return 0;
 }
 

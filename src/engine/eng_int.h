@@ -31,7 +31,9 @@ struct eng_sock {
     uv_poll_t poll;
     eng_t *eng;
     curl_socket_t fd;
-    bool ours; /* opened through our OPENSOCKETFUNCTION, so we see its close */
+    int events;  /* UV_READABLE/UV_WRITABLE the poll is started with, 0 when stopped */
+    bool ours;   /* opened through our OPENSOCKETFUNCTION, so we see its close */
+    bool parked; /* libcurl removed it but we still poll it for reading (see curl_uv.c) */
 };
 
 struct eng {
