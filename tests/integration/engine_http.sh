@@ -56,4 +56,28 @@ probe "$T/del.json" --url "$BASE" --path /small.json --method DELETE --requests 
 check "DELETE on a static file is answered 405 by nginx (4xx)" \
     'd["outcomes"]["4xx"] == 3 and d["last_status"] == 405' "$T/del.json"
 
+# Source: the file on disk. A kept body is byte-for-byte the file; the write hook sees every
+# response (at least one slice each).
+probe "$T/keep.json" --url "$BASE" --path /small.json --requests 50 --concurrency 4 \
+    --connections 4 --keep-body --stream
+check "kept bodies equal the file on disk; the write hook ran for every response" \
+    "d['first_body'] == open('$NGX_DIR/www/small.json').read() and \
+     d['kept_body_bytes'] == $SIZE * 50 and d['data_calls'] >= 50" "$T/keep.json"
+
+# Source: nginx echoes the headers it received ($http_x_squall_site, $http_authorization).
+# The bearer token is read from a file and must reach the server but never the probe's output
+# streams (the engine prints no headers).
+TOKEN="tok-north-$RANDOM$RANDOM"
+printf '%s\n' "$TOKEN" >"$T/token"
+probe "$T/hdr.json" --url "$BASE" --path /echo/headers --requests 3 --keep-body \
+    --header "X-Squall-Site: harbor" --bearer-file "$T/token" 2>"$T/hdr.err"
+check "custom header and bearer token reach the server" \
+    "d['first_body'] == 'site=harbor auth=Bearer $TOKEN\\n'" "$T/hdr.json"
+if grep -q "$TOKEN" "$T/hdr.err"; then
+    echo "FAIL: the bearer token appeared on the probe's stderr"
+    FAILED=1
+else
+    echo "ok: the bearer token never appears on stderr"
+fi
+
 exit $FAILED

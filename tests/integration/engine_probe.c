@@ -4,7 +4,8 @@
  * Usage: engine_probe --url BASE --path PATH [--requests N] [--concurrency C | --rate R]
  *        [--http 1.1|2] [--connections K] [--streams S] [--timeout-ms T] [--method M]
  *        [--body TEXT] [--header "Name: value"] [--ca F] [--cert F --key F] [--insecure]
- *        [--bearer-file F] [--max-s SECONDS]
+ *        [--bearer-file F] [--keep-body] [--stream] [--max-s SECONDS]
+ * --keep-body keeps each body (the first is printed as first_body); --stream counts on_data calls.
  * Stops itself after --max-s (default 60) and when the engine reports the target unreachable. */
 #include <getopt.h>
 #include <jansson.h>
@@ -31,6 +32,8 @@ struct probe {
     int max_conns, first_curl_error, submit_errors;
     long last_status;
     bool done;
+    int64_t kept_bytes, data_calls;
+    char *first_body;
 };
 
 static void finish(struct probe *p)
@@ -64,6 +67,11 @@ static void on_done(void *user, const eng_result_t *r)
     p->bytes_in_body += r->bytes_in_body;
     p->bytes_out += r->bytes_out;
     p->last_status = r->status;
+    if (r->body) {
+        p->kept_bytes += (int64_t)r->body_len;
+        if (!p->first_body)
+            p->first_body = strndup(r->body, r->body_len);
+    }
     if (r->curl_code && !p->first_curl_error)
         p->first_curl_error = r->curl_code;
     if (r->sent_ns) {
@@ -101,6 +109,15 @@ static void on_tick(uv_timer_t *t)
             break;
         submit_one(p, due);
     }
+}
+
+static int on_data(void *user, const char *data, size_t len)
+{
+    struct probe *p = user;
+    (void)data;
+    (void)len;
+    p->data_calls++;
+    return 0;
 }
 
 static void on_limit(uv_timer_t *t)
@@ -146,6 +163,9 @@ static void report(struct probe *p, int loop_close_rc)
         p->max_conns, "unreachable", p->unreachable_ns > 0, "unreachable_after_ms",
         p->unreachable_ns / 1e6, "first_curl_error", p->first_curl_error, "last_status",
         (int)p->last_status, "submit_errors", p->submit_errors, "loop_close", loop_close_rc);
+    json_object_set_new(o, "kept_body_bytes", json_integer(p->kept_bytes));
+    json_object_set_new(o, "data_calls", json_integer(p->data_calls));
+    json_object_set_new(o, "first_body", p->first_body ? json_string(p->first_body) : json_null());
     char *s = json_dumps(o, JSON_COMPACT);
     printf("%s\n", s);
     free(s);
@@ -168,25 +188,14 @@ static char *read_token(const char *path)
 
 static int parse_args(int argc, char **argv, struct probe *p, eng_config_t *c, const char **hdr)
 {
-    static const struct option opts[] = {{"url", 1, 0, 'u'},
-                                         {"path", 1, 0, 'p'},
-                                         {"requests", 1, 0, 'n'},
-                                         {"concurrency", 1, 0, 'c'},
-                                         {"rate", 1, 0, 'r'},
-                                         {"http", 1, 0, 'H'},
-                                         {"connections", 1, 0, 'k'},
-                                         {"streams", 1, 0, 's'},
-                                         {"timeout-ms", 1, 0, 't'},
-                                         {"method", 1, 0, 'm'},
-                                         {"body", 1, 0, 'b'},
-                                         {"header", 1, 0, 'h'},
-                                         {"ca", 1, 0, 'A'},
-                                         {"cert", 1, 0, 'C'},
-                                         {"key", 1, 0, 'K'},
-                                         {"insecure", 0, 0, 'i'},
-                                         {"bearer-file", 1, 0, 'B'},
-                                         {"max-s", 1, 0, 'x'},
-                                         {0, 0, 0, 0}};
+    static const struct option opts[] = {
+        {"url", 1, 0, 'u'},         {"path", 1, 0, 'p'},    {"requests", 1, 0, 'n'},
+        {"concurrency", 1, 0, 'c'}, {"rate", 1, 0, 'r'},    {"http", 1, 0, 'H'},
+        {"connections", 1, 0, 'k'}, {"streams", 1, 0, 's'}, {"timeout-ms", 1, 0, 't'},
+        {"method", 1, 0, 'm'},      {"body", 1, 0, 'b'},    {"header", 1, 0, 'h'},
+        {"ca", 1, 0, 'A'},          {"cert", 1, 0, 'C'},    {"key", 1, 0, 'K'},
+        {"keep-body", 0, 0, 'y'},   {"stream", 0, 0, 'z'},  {"insecure", 0, 0, 'i'},
+        {"bearer-file", 1, 0, 'B'}, {"max-s", 1, 0, 'x'},   {0, 0, 0, 0}};
     int ch;
     while ((ch = getopt_long(argc, argv, "", opts, NULL)) != -1) {
         switch (ch) {
@@ -235,6 +244,12 @@ static int parse_args(int argc, char **argv, struct probe *p, eng_config_t *c, c
             break;
         case 'K':
             c->key_file = optarg;
+            break;
+        case 'y':
+            p->req.keep_body = true;
+            break;
+        case 'z':
+            p->req.on_data = on_data;
             break;
         case 'i':
             c->insecure = true;
@@ -305,6 +320,7 @@ int main(int argc, char **argv)
     hist_free(p.curl_total);
     hist_free(p.first_byte);
     free((char *)cfg.bearer_token);
+    free(p.first_body);
     out_free(o);
     return rc == 0 ? 0 : 1;
 }

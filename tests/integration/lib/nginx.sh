@@ -9,6 +9,7 @@
 #     /delay/<N>ms          "ok\n" after a server-side echo_sleep of N ms, N in 1 10 50 200 1000
 #     /fail/503             503 with a JSON body
 #     /echo/body            echoes the request body (any method)
+#     /echo/headers         "site=<X-Squall-Site header> auth=<Authorization header>\n"
 #     /mtls/ok              200 only when a client certificate signed by our CA was presented,
 #                           403 otherwise (TLS port; the server asks for it as optional)
 # Certificates (generated with openssl per test): $NGX_CA (CA), $NGX_CLIENT_CERT/$NGX_CLIENT_KEY
@@ -90,6 +91,7 @@ http {
 $(_ngx_delays)
         location = /fail/503 { return 503 '{"error":"busy"}\n'; }
         location = /echo/body { echo_read_request_body; echo_request_body; }
+        location = /echo/headers { echo "site=\$http_x_squall_site auth=\$http_authorization"; }
         location = /mtls/ok {
             if (\$ssl_client_verify != SUCCESS) { return 403 '{"mtls":"refused"}\n'; }
             return 200 '{"mtls":"ok"}\n';
