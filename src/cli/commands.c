@@ -4,6 +4,7 @@
 extern const cli_cmd_t cli_cmd_help;
 extern const cli_cmd_t cli_cmd_check;
 extern const cli_cmd_t cli_cmd_run;
+extern const cli_cmd_t cli_cmd_demo;
 extern const cli_cmd_t cli_cmd_serve;
 extern const cli_cmd_t cli_cmd_merge;
 
@@ -11,6 +12,7 @@ const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_help,
     &cli_cmd_check,
     &cli_cmd_run,
+    &cli_cmd_demo,
     &cli_cmd_serve,
     &cli_cmd_merge,
     NULL,

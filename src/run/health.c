@@ -103,8 +103,8 @@ static void limited_second(runner_t *r, const eng_stats_t *st, int64_t lag_p99)
     r->limited_now = true;
     if (st->max_queue_wait_ns > LIMIT_QUEUE_WAIT_NS)
         snprintf(r->limited_why, sizeof r->limited_why,
-                 "requests waited up to %.1f ms for a free connection (%d queued)",
-                 (double)st->max_queue_wait_ns / 1e6, st->queued);
+                 "requests waited up to %.1f ms for a free connection",
+                 (double)st->max_queue_wait_ns / 1e6);
     else if (lag_p99 > LIMIT_LAG_P99_NS)
         snprintf(r->limited_why, sizeof r->limited_why, "schedule lag p99 %.1f ms",
                  (double)lag_p99 / 1e6);

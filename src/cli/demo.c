@@ -1,0 +1,168 @@
+/* `squall demo`: start the embedded target on a free loopback port, run the demo plan against
+ * it, stop the target. Everything stays on this machine. */
+#include <arpa/inet.h>
+#include <fcntl.h>
+#include <netinet/in.h>
+#include <signal.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/socket.h>
+#include <sys/wait.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "squall/cli.h"
+#include "squall/err.h"
+#include "squall/plan.h"
+#include "squall/run.h"
+
+static const cli_opt_t demo_opts[] = {
+    {"out", 'o', "DIR", "results directory (default results/<UTC time>-demo)"},
+    {"quiet", 'q', NULL, "no live line and no summary table"},
+    {NULL, 0, NULL, NULL},
+};
+
+/* A port that was free on 127.0.0.1 a moment ago (the kernel picks it). */
+static int free_port(void)
+{
+    int fd = socket(AF_INET, SOCK_STREAM, 0);
+    struct sockaddr_in a = {.sin_family = AF_INET, .sin_addr.s_addr = htonl(INADDR_LOOPBACK)};
+    socklen_t len = sizeof a;
+    int port = -1;
+    if (fd >= 0 && bind(fd, (struct sockaddr *)&a, sizeof a) == 0 &&
+        getsockname(fd, (struct sockaddr *)&a, &len) == 0)
+        port = ntohs(a.sin_port);
+    if (fd >= 0)
+        close(fd);
+    return port;
+}
+
+static bool port_open(int port)
+{
+    int fd = socket(AF_INET, SOCK_STREAM, 0);
+    struct sockaddr_in a = {.sin_family = AF_INET,
+                            .sin_port = htons((uint16_t)port),
+                            .sin_addr.s_addr = htonl(INADDR_LOOPBACK)};
+    bool ok = fd >= 0 && connect(fd, (struct sockaddr *)&a, sizeof a) == 0;
+    if (fd >= 0)
+        close(fd);
+    return ok;
+}
+
+/* Starts `squall serve` (this same binary) and waits up to 5 s for it to listen. */
+static pid_t target_spawn(int port, out_t *o)
+{
+    char listen[64];
+    snprintf(listen, sizeof listen, "127.0.0.1:%d", port);
+    pid_t pid = fork();
+    if (pid == 0) {
+        int null = open("/dev/null", O_RDWR);
+        if (null >= 0) {
+            dup2(null, STDOUT_FILENO);
+            dup2(null, STDERR_FILENO);
+        }
+        execl("/proc/self/exe", "squall", "serve", "--listen", listen, (char *)NULL);
+        _exit(127);
+    }
+    if (pid < 0) {
+        out_error(o, "demo: cannot start the embedded target");
+        return -1;
+    }
+    for (int i = 0; i < 100; i++) {
+        if (port_open(port))
+            return pid;
+        nanosleep(&(struct timespec){.tv_nsec = 50000000}, NULL);
+    }
+    out_error(o, "demo: the embedded target did not listen on %s within 5 s", listen);
+    kill(pid, SIGTERM);
+    waitpid(pid, NULL, 0);
+    return -1;
+}
+
+/* The demo plan: next to the binary's source tree (build/squall -> scenarios/), or here. */
+static const char *find_plan(char *buf, size_t cap)
+{
+    char exe[4096];
+    ssize_t n = readlink("/proc/self/exe", exe, sizeof exe - 1);
+    if (n > 0) {
+        exe[n] = '\0';
+        char *slash = strrchr(exe, '/');
+        if (slash) {
+            *slash = '\0';
+            snprintf(buf, cap, "%s/../scenarios/demo.yaml", exe);
+            if (access(buf, R_OK) == 0)
+                return buf;
+        }
+    }
+    snprintf(buf, cap, "scenarios/demo.yaml");
+    return access(buf, R_OK) == 0 ? buf : NULL;
+}
+
+static int demo_run(const char *plan_path, const run_opts_t *ro, out_t *o)
+{
+    int port = free_port();
+    if (port < 0)
+        return out_error(o, "demo: no free loopback port"), SQ_EXIT_FAILURE;
+    char url[64];
+    snprintf(url, sizeof url, "http://127.0.0.1:%d", port);
+    plan_override_t set = {"target.url", url};
+    plan_t *p;
+    int err = plan_load(plan_path, &set, 1, &p, o);
+    if (err)
+        return err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+    pid_t pid = target_spawn(port, o);
+    int rc = SQ_EXIT_FAILURE;
+    if (pid > 0) {
+        out_info(o, "demo: the embedded target listens on %s (pid %d); running %s", url, (int)pid,
+                 plan_path);
+        rc = run_plan(p, ro, o);
+        kill(pid, SIGTERM);
+        waitpid(pid, NULL, 0);
+    }
+    plan_free(p);
+    return rc;
+}
+
+static int demo_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
+{
+    cli_args_t a;
+    const char *v, *plan_path = NULL;
+    run_opts_t ro = {.grace_ns = INT64_C(2000000000)};
+    int k;
+    cli_args_init(&a, cmd, argc, argv);
+    while ((k = cli_next(&a, o, &v)) != CLI_END) {
+        if (k == CLI_ERROR)
+            return SQ_EXIT_USAGE;
+        if (k == CLI_HELP) {
+            cli_print_help(cmd, o);
+            return SQ_EXIT_OK;
+        }
+        if (k == CLI_POSITIONAL && plan_path)
+            return cli_usage_error(cmd, o, "one plan at a time, got '%s' after '%s'", v, plan_path);
+        if (k == CLI_POSITIONAL)
+            plan_path = v;
+        else if (k == 0)
+            ro.results_dir = v;
+        else
+            ro.quiet = true;
+    }
+    char buf[4200];
+    if (!plan_path && !(plan_path = find_plan(buf, sizeof buf)))
+        return cli_usage_error(cmd, o, "cannot find scenarios/demo.yaml; name a plan");
+    if (ro.quiet)
+        out_set_level(o, OUT_WARN);
+    return demo_run(plan_path, &ro, o);
+}
+
+const cli_cmd_t cli_cmd_demo = {
+    .name = "demo",
+    .summary = "run the demo plan against the embedded target, all on loopback",
+    .usage = "[PLAN.yaml] [-o DIR] [--quiet]",
+    .description =
+        "Starts `squall serve` on a free 127.0.0.1 port, points the plan (default\n"
+        "scenarios/demo.yaml) at it with --set target.url, runs it like `squall run`, and stops\n"
+        "the target. Exit codes are those of `squall run`.",
+    .opts = demo_opts,
+    .main = demo_main,
+};
