@@ -329,7 +329,13 @@ static void on_done(void *user, const eng_result_t *res)
     }
     if (q->client >= 0) {
         run_phase_t *ph = &r->phases[q->phase];
-        sched_closed_complete(ph->closed, q->client, res->done_ns - ph->base_ns, NULL);
+        int64_t next;
+        bool again = sched_closed_complete(ph->closed, q->client, res->done_ns - ph->base_ns,
+                                           &next);
+        /* A client with no think time starts again now, not at the next 1 ms wake-up. */
+        if (again && r->state == RUN_ACTIVE && (size_t)q->phase == r->cur &&
+            ph->base_ns + next <= res->done_ns && run_closed_due(r, res->done_ns))
+            run_request_stop(r, RUN_STOP_SIGNAL, "the generator could not issue a request");
     }
     req_give(r, q);
 }

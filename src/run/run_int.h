@@ -163,6 +163,8 @@ double run_phase_expected(const run_phase_t *ph, int64_t t0, int64_t t1);
 void run_summary(runner_t *r, const char *dir);
 
 /* runner.c */
+/* Issues every closed-loop start of the current phase that is due at now_ns. */
+int run_closed_due(runner_t *r, int64_t now_ns);
 void run_request_stop(runner_t *r, enum run_stop why, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));
 

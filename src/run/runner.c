@@ -168,6 +168,17 @@ static void issue_failed(runner_t *r, int rc)
                      sq_strerror(rc));
 }
 
+int run_closed_due(runner_t *r, int64_t now_ns)
+{
+    run_phase_t *ph = &r->phases[r->cur];
+    int client, rc = 0;
+    int64_t t;
+    while (rc == 0 && sched_closed_due(ph->closed, now_ns - ph->base_ns, &client, &t))
+        rc = run_issue(r, (int)r->cur, ph->mix_cls[sched_mix_pick(ph->mix)], ph->base_ns + t,
+                       client, client);
+    return rc;
+}
+
 /* Issues every start of the current phase that is due at now_ns. */
 static void issue_due(runner_t *r, int64_t now_ns)
 {
@@ -186,11 +197,8 @@ static void issue_due(runner_t *r, int64_t now_ns)
                                0, -1);
         } while (n == DUE_BATCH && rc == 0);
     }
-    int client;
-    int64_t tc;
-    while (rc == 0 && ph->closed && sched_closed_due(ph->closed, rel, &client, &tc))
-        rc = run_issue(r, (int)pi, ph->mix_cls[sched_mix_pick(ph->mix)], ph->base_ns + tc, client,
-                       client);
+    if (rc == 0 && ph->closed)
+        rc = run_closed_due(r, now_ns);
     for (size_t f = 0; f < ph->n_fleet && rc == 0; f++) {
         size_t n;
         do {
