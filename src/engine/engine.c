@@ -124,6 +124,11 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     if (!e->base_url || (cfg->ca_file && !e->ca_file) || (cfg->cert_file && !e->cert_file) ||
         (cfg->key_file && !e->key_file))
         goto fail;
+    /* The copy must not point at the caller's strings. */
+    e->cfg.base_url = e->base_url;
+    e->cfg.ca_file = e->ca_file;
+    e->cfg.cert_file = e->cert_file;
+    e->cfg.key_file = e->key_file;
     if ((rc = headers_init(e)))
         goto fail;
     if ((rc = eng_glue_start(e)))
