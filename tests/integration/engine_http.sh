@@ -56,6 +56,18 @@ probe "$T/del.json" --url "$BASE" --path /small.json --method DELETE --requests 
 check "DELETE on a static file is answered 405 by nginx (4xx)" \
     'd["outcomes"]["4xx"] == 3 and d["last_status"] == 405' "$T/del.json"
 
+# Generator-side waiting counts in response time. Open loop at 2000/s on ONE connection to a
+# 10 ms delay: request k (from 0) is intended at k/R but, served one after another, completes
+# near (k+1)·s with s the service time, so its response time is (k+1)·s − k/R (deterministic
+# queueing arithmetic; s measured, the server's delay is its source). The HDR p50 of 100 samples
+# is the 50th smallest (NOTES-methods), k = 49: 50·s − 24.5 ms. Service time must not show it.
+probe "$T/queue.json" --url "$BASE" --path /delay/10ms --requests 100 --rate 2000 \
+    --connections 1
+check "our queue's waiting is in response time: p50 = 50·s − 24.5 ms within 10 %, service ~10 ms" \
+    "abs(d['response_ms']['p50'] - (50 * d['service_ms']['p50'] - 24.5)) <= \
+     0.10 * (50 * d['service_ms']['p50'] - 24.5) and d['service_ms']['p50'] < 13 and \
+     d['queue_wait_max_ms'] > 500 and d['outcomes']['2xx'] == 100" "$T/queue.json"
+
 # Source: the file on disk. A kept body is byte-for-byte the file; the write hook sees every
 # response (at least one slice each).
 probe "$T/keep.json" --url "$BASE" --path /small.json --requests 50 --concurrency 4 \
