@@ -324,12 +324,9 @@ static enum MHD_Result route_other(tgt_req_t *q, const char *url)
     if (strcmp(url, "/admin/drop-watches") == 0) {
         if (q->method != TGT_M_POST)
             return tgt_http_error(sv, q->conn, -1, 405, "bad-method", "use POST");
-        uint64_t before = sv->fc.dropped_streams;
         sv->fc.drops++;
-        tgt_stream_end_all(sv, true);
-        return reply_json(
-            sv, q->conn,
-            json_pack("{s:I}", "dropped", (json_int_t)(sv->fc.dropped_streams - before)));
+        tgt_server_drop_soon(sv);
+        return reply_json(sv, q->conn, json_pack("{s:I}", "dropped", (json_int_t)sv->streams_open));
     }
     return tgt_http_error(sv, q->conn, -1, 404, "no-route",
                           "no such path: objects live under /v1/; see also /stats, /metrics, "
@@ -422,4 +419,5 @@ void tgt_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
     tgt_buf_free(&q->body);
     free(q);
     *con_cls = NULL;
+    tgt_server_kick(sv); /* A closing connection is only cleaned up on the next MHD_run. */
 }

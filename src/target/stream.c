@@ -3,6 +3,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/socket.h>
 
 #include "squall/err.h"
 #include "target_int.h"
@@ -52,8 +53,15 @@ static ssize_t stream_read(void *cls, uint64_t pos, char *out, size_t max)
         }
         return (ssize_t)n;
     }
-    if (st->state == STREAM_DROP)
+    if (st->state == STREAM_DROP) {
+        /* An abrupt end, as a crashing server would give: shut the socket down now, since
+         * libmicrohttpd may close a failed connection's socket only later. */
+        const union MHD_ConnectionInfo *ci =
+            MHD_get_connection_info(st->conn, MHD_CONNECTION_INFO_CONNECTION_FD);
+        if (ci)
+            shutdown(ci->connect_fd, SHUT_RDWR);
         return MHD_CONTENT_READER_END_WITH_ERROR;
+    }
     if (st->state == STREAM_END)
         return MHD_CONTENT_READER_END_OF_STREAM;
     /* Nothing to send: park the connection until the next event (libmicrohttpd allows
@@ -82,6 +90,9 @@ static void stream_free(void *cls)
     sv->streams_open--;
     tgt_buf_free(&st->buf);
     free(st);
+    /* libmicrohttpd closes the socket of a finished connection on its next MHD_run; without
+     * another run a dropped stream's client would not notice until other traffic came. */
+    tgt_server_kick(sv);
 }
 
 /* Queues one event line, or ends the stream when the line would pass its buffer limit. */

@@ -143,6 +143,7 @@ struct tgt_server {
     uv_timer_t drop; /* the drop-watches fault */
     uv_idle_t idle;  /* runs libmicrohttpd again soon after a connection was resumed */
     bool in_run, kicked;
+    bool drop_pending; /* POST /admin/drop-watches: drop from the idle callback */
     int handles_open;
     int port;
     bool stopping;
@@ -187,6 +188,7 @@ void tgt_http_release_all(tgt_server_t *sv);
 /* Applies a new fault configuration now. */
 void tgt_server_set_faults(tgt_server_t *sv, const target_faults_t *f);
 /* Ask libmicrohttpd to run soon (after a resume). */
+void tgt_server_drop_soon(tgt_server_t *sv);
 void tgt_server_kick(tgt_server_t *sv);
 
 /* api.c: serves one /v1/ request (faults already applied). Sets *watch when it opened a

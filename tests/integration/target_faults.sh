@@ -1,0 +1,195 @@
+#!/usr/bin/env bash
+# `squall serve` as a process: start-up and clean stop on SIGTERM, the loopback refusal, and every
+# fault measured from outside with curl (libcurl): added latency seen by the client against the
+# known injected delay, the injected error count exactly equal to what the client saw, the stall
+# window, dropping every watch (flag-free, at run time), and the in-flight limit in both modes.
+set -uo pipefail
+source "$SRCDIR/tests/integration/lib/port.sh"
+tmp=$(mktemp -d /tmp/squall-target-XXXXXX)
+pid=
+cleanup() {
+    [ -n "$pid" ] && kill "$pid" 2>/dev/null
+    rm -rf "$tmp"
+}
+trap cleanup EXIT
+fail() {
+    echo "FAIL: $*"
+    [ -f "$tmp/err" ] && sed 's/^/  server: /' "$tmp/err"
+    exit 1
+}
+
+port=$(free_port)
+U=http://127.0.0.1:$port
+t0=$(date +%s%N)
+"$SQUALL" serve --listen "127.0.0.1:$port" 2>"$tmp/err" &
+pid=$!
+wait_port "$port" 50 || fail "serve did not listen on $port"
+ms=$((($(date +%s%N) - t0) / 1000000))
+echo "ok: serve listening after ${ms} ms (includes this script's polling in 100 ms steps)"
+[ "$ms" -lt 1500 ] || fail "start-up took ${ms} ms"
+grep -q "listening on http://127.0.0.1:$port (pid $pid)" "$tmp/err" || fail "no listen line"
+
+stat() { curl -s "$U/stats" | jq -r "$1"; }
+faults() { curl -s -o /dev/null -w '%{http_code}' -X POST --data "$1" "$U/admin/faults"; }
+curl -s -X PUT --data '{"model":"t-a"}' "$U/v1/sites/north/gateways/gw-1" >/dev/null
+
+# Added latency: a fixed 50 ms server-side delay; libcurl's total time sits ~0.2 ms above a raw
+# client's against a known delay (shared/NOTES-libraries.md), so the client median must land in
+# [50, 65] ms and never below 50.
+[ "$(faults '{"delay":"fixed:50ms"}')" = 200 ] || fail "POST /admin/faults"
+for i in $(seq 20); do
+    curl -s -o /dev/null -w '%{time_total}\n' "$U/v1/sites/north/gateways/gw-1"
+done >"$tmp/lat"
+med=$(sort -n "$tmp/lat" | sed -n 10p)
+min=$(sort -n "$tmp/lat" | head -1)
+awk -v m="$med" -v n="$min" 'BEGIN{exit !(m >= 0.050 && m <= 0.065 && n >= 0.050)}' ||
+    fail "fixed 50 ms delay: client median ${med}s, min ${min}s"
+[ "$(curl -s "$U/admin/faults" | jq .counts.delayed)" = 20 ] || fail "delayed count != 20"
+echo "ok: fixed 50 ms delay seen by the client: median ${med}s, min ${min}s; delayed count 20"
+
+# Uniform delay 20..40 ms: every client time inside [20 ms, 40 ms + 15 ms slack].
+faults '{"delay":"uniform:20ms..40ms"}' >/dev/null
+for i in $(seq 20); do
+    curl -s -o /dev/null -w '%{time_total}\n' "$U/v1/sites/north/gateways/gw-1"
+done >"$tmp/lat"
+awk '$1 < 0.020 || $1 > 0.055 {bad=1} END{exit bad}' "$tmp/lat" ||
+    fail "uniform 20..40 ms: times $(tr '\n' ' ' <"$tmp/lat")"
+echo "ok: uniform 20..40 ms delay: client times $(sort -n "$tmp/lat" | head -1)..$(sort -n "$tmp/lat" | tail -1) s"
+
+# Error rate: 30 % answered 503 with Retry-After: 2. The client's count must equal the target's
+# exactly; the share must be plausible for Binomial(300, 0.3) (mean 90, sd 7.9: within 4 sd).
+faults '{"fail_rate":0.3,"fail_status":503,"retry_after":2}' >/dev/null
+before=$(stat '.requests.GET."503" // 0')
+for i in $(seq 300); do
+    curl -s -o /dev/null -w '%{http_code}\n' "$U/v1/sites/north/gateways/gw-1"
+done >"$tmp/codes"
+n503=$(grep -c '^503$' "$tmp/codes")
+n200=$(grep -c '^200$' "$tmp/codes")
+[ $((n503 + n200)) = 300 ] || fail "unexpected codes: $(sort "$tmp/codes" | uniq -c)"
+failed=$(curl -s "$U/admin/faults" | jq .counts.failed)
+[ "$failed" = "$n503" ] || fail "client saw $n503 503s, target counted $failed"
+after=$(stat '.requests.GET."503"')
+[ $((after - before)) = "$n503" ] || fail "requests.GET.503 moved by $((after - before))"
+[ "$n503" -ge 58 ] && [ "$n503" -le 122 ] || fail "$n503 of 300 failed at rate 0.3"
+ra=$(curl -s -D - -o /dev/null "$U/v1/sites/north/gateways/gw-1?x" | tr -d '\r' |
+    awk -F': ' 'tolower($1)=="retry-after"{print $2}')
+echo "ok: error rate 0.3: $n503/300 answered 503, target counted $failed (exact)"
+faults '{"fail_rate":1,"fail_status":429,"retry_after":7}' >/dev/null
+hdr=$(curl -s -D - -o /dev/null "$U/v1/sites/north/gateways/gw-1" | tr -d '\r')
+echo "$hdr" | grep -q '^HTTP/1.1 429' || fail "fail_status 429 not used: $hdr"
+echo "$hdr" | grep -qi '^retry-after: 7$' || fail "no Retry-After: 7 on 429: $hdr"
+echo "ok: fail_status 429 answered with Retry-After: 7 (503 run had Retry-After: ${ra:-none})"
+
+# Stall window: no /v1/ answers from 0.5 s to 2.0 s after the POST. A request sent at ~0.8 s
+# returns at ~2.0 s (so takes >= 1.1 s); /stats keeps answering during the stall.
+faults '{"stall_at":"0.5s","stall_for":"1.5s"}' >/dev/null
+sleep 0.8
+curl -s -o /dev/null -w '%{time_total} %{http_code}\n' "$U/v1/sites/north/gateways/gw-1" \
+    >"$tmp/stall" &
+sleep 0.2
+during=$(curl -s -o /dev/null -w '%{http_code}' --max-time 1 "$U/stats")
+wait $!
+read -r t code <"$tmp/stall"
+[ "$during" = 200 ] || fail "/stats did not answer during the stall ($during)"
+awk -v t="$t" 'BEGIN{exit !(t >= 1.05 && t <= 1.6)}' || fail "stalled request took ${t}s"
+[ "$code" = 200 ] || fail "stalled request answered $code"
+[ "$(curl -s "$U/admin/faults" | jq .counts.stalled)" = 1 ] || fail "stalled count != 1"
+echo "ok: stall 0.5s+1.5s: a request at ~0.8 s took ${t}s; /stats answered meanwhile"
+
+# Drop every watch at T = 0.5 s (set at run time): 5 open streams all end abruptly (curl 18,
+# partial transfer), not by their own 10 s limit; counts 5 dropped streams.
+faults '{}' >/dev/null
+wpids=()
+for i in 1 2 3 4 5; do
+    curl -s -N --max-time 10 "$U/v1/sites/north/gateways?watch=1&since=0" >"$tmp/w$i" &
+    wpids+=($!)
+done
+for i in $(seq 50); do [ "$(stat .streams.open)" = 5 ] && break; sleep 0.1; done
+[ "$(stat .streams.open)" = 5 ] || fail "5 watches did not open: $(stat .streams)"
+faults '{"drop_watches_at":"0.5s"}' >/dev/null
+for i in 0 1 2 3 4; do
+    wait "${wpids[$i]}"
+    rc=$?
+    [ $rc -ne 0 ] && [ $rc -ne 28 ] || fail "watch $i ended with curl code $rc, not a drop"
+    grep -q '"type":"create"' "$tmp/w$((i + 1))" || fail "watch $i saw no history event"
+done
+[ "$(curl -s "$U/admin/faults" | jq .counts.dropped_streams)" = 5 ] || fail "dropped != 5"
+[ "$(stat .streams.open)" = 0 ] || fail "streams still open after the drop"
+# The same by hand: POST /admin/drop-watches.
+curl -s -N --max-time 10 "$U/v1/sites/north/gateways?watch=1" >/dev/null &
+w=$!
+for i in $(seq 50); do [ "$(stat .streams.open)" = 1 ] && break; sleep 0.1; done
+d=$(curl -s -X POST "$U/admin/drop-watches" | jq .dropped)
+wait $w
+rc=$?
+[ "$d" = 1 ] && [ $rc -ne 28 ] || fail "drop-watches: dropped=$d, curl $rc"
+echo "ok: drop at 0.5 s ended 5 watches abruptly; POST /admin/drop-watches ended 1 more"
+
+# In-flight limit 2, reject: 6 simultaneous requests held 300 ms each -> exactly 2 answered 200
+# and 4 answered 429 with Retry-After.
+faults '{"max_inflight":2,"over_limit":"reject","delay":"fixed:300ms","retry_after":3}' >/dev/null
+cp=()
+for i in $(seq 6); do
+    curl -s -o /dev/null -w '%{http_code}\n' "$U/v1/sites/north/gateways/gw-1" >"$tmp/c$i" &
+    cp+=($!)
+done
+wait "${cp[@]}"
+codes=$(cat "$tmp"/c? | sort | uniq -c | tr -s ' ' | tr '\n' ',')
+[ "$(cat "$tmp"/c? | grep -c 200)" = 2 ] && [ "$(cat "$tmp"/c? | grep -c 429)" = 4 ] ||
+    fail "reject mode codes: $codes"
+[ "$(curl -s "$U/admin/faults" | jq .counts.rejected)" = 4 ] || fail "rejected != 4"
+echo "ok: in-flight limit 2 (reject): codes $codes; rejected count 4"
+
+# In-flight limit 2, queue: 6 simultaneous 200 ms requests all succeed, in three waves: the
+# slowest takes >= 3 x 200 ms.
+faults '{"max_inflight":2,"over_limit":"queue","delay":"fixed:200ms"}' >/dev/null
+cp=()
+for i in $(seq 6); do
+    curl -s -o /dev/null -w '%{http_code} %{time_total}\n' "$U/v1/sites/north/gateways/gw-1" \
+        >"$tmp/c$i" &
+    cp+=($!)
+done
+wait "${cp[@]}"
+[ "$(cat "$tmp"/c? | grep -c '^200 ')" = 6 ] || fail "queue mode: $(cat "$tmp"/c?)"
+slow=$(cat "$tmp"/c? | awk '{print $2}' | sort -n | tail -1)
+awk -v t="$slow" 'BEGIN{exit !(t >= 0.58)}' || fail "queue mode: slowest ${slow}s < 0.6 s"
+[ "$(curl -s "$U/admin/faults" | jq .counts.queued)" = 4 ] || fail "queued != 4"
+echo "ok: in-flight limit 2 (queue): 6 x 200, slowest ${slow}s (three waves), queued count 4"
+
+# Bad admin input is refused and changes nothing.
+[ "$(faults '{"delay":"sometimes"}')" = 400 ] || fail "bad delay accepted"
+[ "$(faults '{"bogus":1}')" = 400 ] || fail "unknown fault accepted"
+[ "$(curl -s "$U/admin/faults" | jq -r .faults.delay)" = "fixed:0.2s" ] || fail "faults changed"
+echo "ok: malformed fault settings answered 400, the settings stayed"
+
+# Flags set the same faults at start-up; a non-loopback address is refused without --public.
+"$SQUALL" serve --listen 0.0.0.0:"$(free_port)" 2>"$tmp/pub"
+rc=$?
+[ $rc = 2 ] && grep -q "not a loopback address" "$tmp/pub" || fail "0.0.0.0 not refused ($rc)"
+"$SQUALL" serve --delay sometimes 2>"$tmp/bad"
+[ $? = 2 ] || fail "--delay sometimes not refused"
+echo "ok: 0.0.0.0 refused without --public (exit 2); a bad --delay refused (exit 2)"
+
+kill -TERM "$pid"
+wait "$pid"
+rc=$?
+pid=
+[ $rc = 0 ] || fail "serve exited $rc after SIGTERM"
+grep -q "stopped cleanly" "$tmp/err" || fail "no clean-stop line"
+echo "ok: SIGTERM stopped serve with exit 0, every libuv handle closed (uv_loop_close == 0)"
+
+port=$(free_port)
+"$SQUALL" serve --listen "127.0.0.1:$port" --delay fixed:30ms --fail-rate 1 --fail-status 429 \
+    2>"$tmp/err" &
+pid=$!
+wait_port "$port" 50 || fail "serve with fault flags did not start"
+out=$(curl -s -o /dev/null -w '%{http_code} %{time_total}' "http://127.0.0.1:$port/v1/a/b")
+kill -INT "$pid"
+wait "$pid"
+rc=$?
+pid=
+set -- $out
+[ "$1" = 429 ] && awk -v t="$2" 'BEGIN{exit !(t >= 0.030)}' || fail "flags: got $out"
+[ $rc = 0 ] || fail "serve exited $rc after SIGINT"
+echo "ok: fault flags at start-up: 429 after ${2}s (>= 30 ms); SIGINT stopped it with exit 0"
+echo "PASS: target faults"

@@ -1,0 +1,529 @@
+/* Unit tests of the embedded target (squall serve), driven over real HTTP with libcurl against a
+ * server started in-process on its own thread and libuv loop. */
+#include <pthread.h>
+#include <stdarg.h>
+#include <stdatomic.h>
+#include <stddef.h>
+#include <setjmp.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <cmocka.h>
+#include <curl/curl.h>
+#include <jansson.h>
+
+#include "squall/target.h"
+
+/* ---- The server on a thread */
+typedef struct {
+    target_opts_t opts;
+    pthread_t thread;
+    uv_loop_t loop;
+    uv_async_t stop;
+    target_t *t;
+    atomic_int port; /* 0 until listening, -1 on failure */
+    int loop_close_rc;
+    out_t *out;
+} server_t;
+
+static void on_stop(uv_async_t *a)
+{
+    server_t *s = a->data;
+    target_stop(s->t, NULL, NULL);
+    uv_close((uv_handle_t *)a, NULL);
+}
+
+static void *server_main(void *arg)
+{
+    server_t *s = arg;
+    uv_loop_init(&s->loop);
+    uv_async_init(&s->loop, &s->stop, on_stop);
+    s->stop.data = s;
+    if (target_start(&s->loop, &s->opts, s->out, &s->t) < 0) {
+        uv_close((uv_handle_t *)&s->stop, NULL);
+        uv_run(&s->loop, UV_RUN_DEFAULT);
+        atomic_store(&s->port, -1);
+        return NULL;
+    }
+    atomic_store(&s->port, target_port(s->t));
+    uv_run(&s->loop, UV_RUN_DEFAULT);
+    s->loop_close_rc = uv_loop_close(&s->loop);
+    return NULL;
+}
+
+static void server_start(server_t *s)
+{
+    s->out = out_new_capture();
+    atomic_store(&s->port, 0);
+    assert_int_equal(pthread_create(&s->thread, NULL, server_main, s), 0);
+    for (int i = 0; i < 5000 && atomic_load(&s->port) == 0; i++)
+        usleep(1000);
+    assert_true(atomic_load(&s->port) > 0);
+}
+
+static void server_stop(server_t *s)
+{
+    uv_async_send(&s->stop);
+    pthread_join(s->thread, NULL);
+    /* Every handle closed: libuv's own check (docs/src/loop.rst, uv_loop_close). */
+    assert_int_equal(s->loop_close_rc, 0);
+    out_free(s->out);
+}
+
+static void opts_default(target_opts_t *o)
+{
+    target_opts_init(o);
+    o->port = 0;
+}
+
+/* ---- A small libcurl client */
+typedef struct {
+    char *p;
+    size_t len;
+} body_t;
+
+static size_t on_data(char *p, size_t sz, size_t n, void *arg)
+{
+    body_t *b = arg;
+    char *q = realloc(b->p, b->len + sz * n + 1);
+    assert_non_null(q);
+    memcpy(q + b->len, p, sz * n);
+    b->p = q;
+    b->len += sz * n;
+    b->p[b->len] = '\0';
+    return sz * n;
+}
+
+/* One request; returns the status, the body in *out (caller frees; may be NULL). timeout_ms
+ * bounds watches: a timed-out transfer returns -28 with what arrived. */
+static long http_t(CURL *c, int port, const char *method, const char *path, const char *body,
+                   char **out, long timeout_ms)
+{
+    char url[1200];
+    body_t b = {0};
+    long status = 0;
+    snprintf(url, sizeof(url), "http://127.0.0.1:%d%s", port, path);
+    curl_easy_reset(c);
+    curl_easy_setopt(c, CURLOPT_URL, url);
+    curl_easy_setopt(c, CURLOPT_CUSTOMREQUEST, method);
+    curl_easy_setopt(c, CURLOPT_NOSIGNAL, 1L);
+    curl_easy_setopt(c, CURLOPT_PATH_AS_IS, 1L);
+    curl_easy_setopt(c, CURLOPT_TIMEOUT_MS, timeout_ms);
+    curl_easy_setopt(c, CURLOPT_WRITEFUNCTION, on_data);
+    curl_easy_setopt(c, CURLOPT_WRITEDATA, &b);
+    if (strcmp(method, "HEAD") == 0)
+        curl_easy_setopt(c, CURLOPT_NOBODY, 1L);
+    if (body) {
+        curl_easy_setopt(c, CURLOPT_POSTFIELDS, body);
+        curl_easy_setopt(c, CURLOPT_POSTFIELDSIZE, (long)strlen(body));
+    }
+    CURLcode rc = curl_easy_perform(c);
+    curl_easy_getinfo(c, CURLINFO_RESPONSE_CODE, &status);
+    if (out)
+        *out = b.p;
+    else
+        free(b.p);
+    if (rc == CURLE_OPERATION_TIMEDOUT)
+        return -28;
+    assert_int_equal(rc, CURLE_OK);
+    return status;
+}
+
+static long http(CURL *c, int port, const char *method, const char *path, const char *body,
+                 char **out)
+{
+    return http_t(c, port, method, path, body, out, 10000);
+}
+
+static json_t *http_json(CURL *c, int port, const char *method, const char *path, const char *body,
+                         long want)
+{
+    char *out = NULL;
+    long st = http(c, port, method, path, body, &out);
+    if (st != want)
+        fail_msg("%s %s: status %ld, expected %ld; body: %s", method, path, st, want,
+                 out ? out : "");
+    json_error_t e;
+    json_t *j = json_loads(out ? out : "", JSON_DECODE_ANY, &e);
+    if (!j)
+        fail_msg("%s %s: body is not JSON: %s", method, path, out ? out : "");
+    free(out);
+    return j;
+}
+
+static json_int_t jint(const json_t *j, const char *k)
+{
+    const json_t *v = json_object_get(j, k);
+    assert_true(json_is_integer(v));
+    return json_integer_value(v);
+}
+
+/* ---- CRUD and status codes (RFC 9110: 201 Created for a new resource, §15.3.2; 200 OK with a
+ * representation, §15.3.1; 204 No Content, §15.3.5; 404, §15.5.5; 409 Conflict, §15.5.10). */
+static void test_crud(void **state)
+{
+    (void)state;
+    server_t s = {0};
+    opts_default(&s.opts);
+    server_start(&s);
+    int p = atomic_load(&s.port);
+    CURL *c = curl_easy_init();
+    const char *gw = "/v1/sites/north/gateways/gw-1";
+    assert_int_equal(http(c, p, "GET", gw, NULL, NULL), 404);
+    json_t *j = http_json(c, p, "PUT", gw, "{\"model\":\"t-a\"}", 201);
+    assert_int_equal(jint(j, "version"), 1);
+    assert_string_equal(json_string_value(json_object_get(j, "path")), gw);
+    json_decref(j);
+    j = http_json(c, p, "POST", gw, "{\"model\":\"t-b\"}", 200);
+    assert_int_equal(jint(j, "version"), 2);
+    json_decref(j);
+    j = http_json(c, p, "GET", gw, NULL, 200);
+    assert_string_equal(json_string_value(json_object_get(json_object_get(j, "object"), "model")),
+                        "t-b");
+    json_decref(j);
+    /* Compare-and-swap: the object is at version 2. */
+    j = http_json(c, p, "PUT", "/v1/sites/north/gateways/gw-1?version=1", "{}", 409);
+    assert_string_equal(json_string_value(json_object_get(j, "error")), "conflict");
+    json_decref(j);
+    j = http_json(c, p, "PUT", "/v1/sites/north/gateways/gw-1?version=2", "{\"n\":1}", 200);
+    assert_int_equal(jint(j, "version"), 3);
+    json_decref(j);
+    /* version=0 means "must not exist": create-only. */
+    assert_int_equal(http(c, p, "PUT", "/v1/sites/north/gateways/gw-1?version=0", "{}", NULL), 409);
+    assert_int_equal(http(c, p, "PUT", "/v1/sites/north/gateways/gw-2?version=0", "{}", NULL), 201);
+    assert_int_equal(http(c, p, "DELETE", "/v1/sites/north/gateways/gw-2?version=1", NULL, NULL),
+                     409);
+    assert_int_equal(http(c, p, "DELETE", "/v1/sites/north/gateways/gw-2", NULL, NULL), 204);
+    assert_int_equal(http(c, p, "DELETE", "/v1/sites/north/gateways/gw-2", NULL, NULL), 404);
+    assert_int_equal(http(c, p, "PATCH", "/v1/sites/north/gateways/gw-9", "{}", NULL), 404);
+    assert_int_equal(http(c, p, "HEAD", gw, NULL, NULL), 200);
+    /* The counts in /stats match what this test sent, exactly. */
+    j = http_json(c, p, "GET", "/stats", NULL, 200);
+    json_t *st = json_object_get(j, "store");
+    assert_int_equal(jint(st, "creates"), 2);
+    assert_int_equal(jint(st, "replaces"), 2);
+    assert_int_equal(jint(st, "deletes"), 1);
+    assert_int_equal(jint(st, "conflicts"), 3);
+    assert_int_equal(jint(j, "objects"), 1);
+    assert_int_equal(jint(j, "version"), 5);
+    json_t *req = json_object_get(j, "requests");
+    assert_int_equal(jint(json_object_get(req, "PUT"), "201"), 2);
+    assert_int_equal(jint(json_object_get(req, "PUT"), "409"), 2);
+    assert_int_equal(jint(json_object_get(req, "PUT"), "200"), 1);
+    assert_int_equal(jint(json_object_get(req, "GET"), "404"), 1);
+    assert_int_equal(jint(json_object_get(req, "DELETE"), "204"), 1);
+    assert_int_equal(jint(json_object_get(req, "DELETE"), "404"), 1);
+    assert_int_equal(jint(json_object_get(req, "DELETE"), "409"), 1);
+    assert_int_equal(jint(json_object_get(j, "latency"), "count"), 13);
+    json_decref(j);
+    curl_easy_cleanup(c);
+    server_stop(&s);
+}
+
+/* ---- JSON merge patch: every example of RFC 7386, Appendix A, in the RFC's order. */
+static void test_merge_patch_rfc7386(void **state)
+{
+    (void)state;
+    static const char *const ex[][3] = {
+        {"{\"a\":\"b\"}", "{\"a\":\"c\"}", "{\"a\":\"c\"}"},
+        {"{\"a\":\"b\"}", "{\"b\":\"c\"}", "{\"a\":\"b\",\"b\":\"c\"}"},
+        {"{\"a\":\"b\"}", "{\"a\":null}", "{}"},
+        {"{\"a\":\"b\",\"b\":\"c\"}", "{\"a\":null}", "{\"b\":\"c\"}"},
+        {"{\"a\":[\"b\"]}", "{\"a\":\"c\"}", "{\"a\":\"c\"}"},
+        {"{\"a\":\"c\"}", "{\"a\":[\"b\"]}", "{\"a\":[\"b\"]}"},
+        {"{\"a\":{\"b\":\"c\"}}", "{\"a\":{\"b\":\"d\",\"c\":null}}", "{\"a\":{\"b\":\"d\"}}"},
+        {"{\"a\":[{\"b\":\"c\"}]}", "{\"a\":[1]}", "{\"a\":[1]}"},
+        {"[\"a\",\"b\"]", "[\"c\",\"d\"]", "[\"c\",\"d\"]"},
+        {"{\"a\":\"b\"}", "[\"c\"]", "[\"c\"]"},
+        {"{\"a\":\"foo\"}", "null", "null"},
+        {"{\"a\":\"foo\"}", "\"bar\"", "\"bar\""},
+        {"{\"e\":null}", "{\"a\":1}", "{\"e\":null,\"a\":1}"},
+        {"[1,2]", "{\"a\":\"b\",\"c\":null}", "{\"a\":\"b\"}"},
+        {"{}", "{\"a\":{\"bb\":{\"ccc\":null}}}", "{\"a\":{\"bb\":{}}}"},
+    };
+    server_t s = {0};
+    opts_default(&s.opts);
+    server_start(&s);
+    int p = atomic_load(&s.port);
+    CURL *c = curl_easy_init();
+    for (size_t i = 0; i < sizeof(ex) / sizeof(ex[0]); i++) {
+        char path[64];
+        snprintf(path, sizeof(path), "/v1/rfc7386/ex-%zu", i);
+        assert_int_equal(http(c, p, "PUT", path, ex[i][0], NULL), 201);
+        json_t *got = http_json(c, p, "PATCH", path, ex[i][1], 200);
+        json_t *want = json_loads(ex[i][2], JSON_DECODE_ANY, NULL);
+        if (!json_equal(json_object_get(got, "object"), want))
+            fail_msg("RFC 7386 Appendix A example %zu: %s + %s gave %s", i + 1, ex[i][0], ex[i][1],
+                     json_dumps(json_object_get(got, "object"), JSON_ENCODE_ANY));
+        json_decref(got);
+        json_decref(want);
+    }
+    curl_easy_cleanup(c);
+    server_stop(&s);
+}
+
+/* ---- Bad input gets the right 4xx and the server keeps serving (RFC 9110: 400 §15.5.1, 405
+ * with Allow §15.5.6, 413 Content Too Large §15.5.14). */
+static void test_bad_input(void **state)
+{
+    (void)state;
+    server_t s = {0};
+    opts_default(&s.opts);
+    s.opts.body_limit = 1024;
+    server_start(&s);
+    int p = atomic_load(&s.port);
+    CURL *c = curl_easy_init();
+    assert_int_equal(http(c, p, "PUT", "/v1/a/b", "{\"x\":", NULL), 400);
+    assert_int_equal(http(c, p, "PUT", "/v1/a/b", "", NULL), 400);
+    assert_int_equal(http(c, p, "PATCH", "/v1/a/b", "nope", NULL), 400);
+    char *big = malloc(4096);
+    memset(big, 'x', 4095);
+    big[0] = '"';
+    big[4094] = '"';
+    big[4095] = '\0';
+    assert_int_equal(http(c, p, "PUT", "/v1/a/b", big, NULL), 413);
+    free(big);
+    assert_int_equal(http(c, p, "GET", "/v1/a/b%20c", NULL, NULL), 400);
+    assert_int_equal(http(c, p, "GET", "/v1//b", NULL, NULL), 400);
+    assert_int_equal(http(c, p, "GET", "/v1/a/./b", NULL, NULL), 400);
+    assert_int_equal(http(c, p, "GET", "/v1/a/b?limit=x", NULL, NULL), 404);
+    assert_int_equal(http(c, p, "GET", "/elsewhere", NULL, NULL), 404);
+    assert_int_equal(http(c, p, "BREW", "/v1/a/b", NULL, NULL), 405);
+    assert_int_equal(http(c, p, "PUT", "/v1/a/", "{}", NULL), 400);
+    assert_int_equal(http(c, p, "GET", "/v1/a/b?watch=1&since=-3", NULL, NULL), 400);
+    /* Still serving, and the rejections were counted. */
+    assert_int_equal(http(c, p, "PUT", "/v1/a/b", "{\"ok\":true}", NULL), 201);
+    json_t *j = http_json(c, p, "GET", "/stats", NULL, 200);
+    json_t *r = json_object_get(j, "rejected_input");
+    assert_int_equal(jint(r, "bad_json"), 3);
+    assert_int_equal(jint(r, "too_large"), 1);
+    assert_int_equal(jint(r, "bad_path"), 4);
+    assert_int_equal(jint(r, "bad_method"), 1);
+    json_decref(j);
+    curl_easy_cleanup(c);
+    server_stop(&s);
+}
+
+/* ---- Pagination under concurrent writes: objects that exist throughout appear exactly once. */
+typedef struct {
+    int port;
+    atomic_int stop;
+    int ops;
+} writer_t;
+
+static void *writer_main(void *arg)
+{
+    writer_t *w = arg;
+    CURL *c = curl_easy_init();
+    char path[96];
+    /* Bounded: at most 3000 writes, or until the lister is done. */
+    for (int i = 0; i < 3000 && !atomic_load(&w->stop); i++, w->ops++) {
+        int k = i % 3;
+        if (k == 0)
+            snprintf(path, sizeof(path), "/v1/sites/south/gateways/gw-%03d-tmp", (i * 7) % 200);
+        else if (k == 1)
+            snprintf(path, sizeof(path), "/v1/sites/south/gateways/gw-%03d", (i * 13) % 200);
+        else
+            snprintf(path, sizeof(path), "/v1/sites/south/gateways/gw-%03d-tmp",
+                     ((i - 2) * 7) % 200);
+        long st =
+            http(c, w->port, k == 2 ? "DELETE" : "PUT", path, k == 2 ? NULL : "{\"v\":1}", NULL);
+        if (st != 200 && st != 201 && st != 204 && st != 404)
+            break;
+    }
+    curl_easy_cleanup(c);
+    return NULL;
+}
+
+static void test_pagination_concurrent(void **state)
+{
+    (void)state;
+    server_t s = {0};
+    opts_default(&s.opts);
+    server_start(&s);
+    int p = atomic_load(&s.port);
+    CURL *c = curl_easy_init();
+    char path[160];
+    for (int i = 0; i < 200; i++) {
+        snprintf(path, sizeof(path), "/v1/sites/south/gateways/gw-%03d", i);
+        assert_int_equal(http(c, p, "PUT", path, "{\"v\":0}", NULL), 201);
+    }
+    writer_t w = {.port = p};
+    pthread_t wt;
+    assert_int_equal(pthread_create(&wt, NULL, writer_main, &w), 0);
+    int seen[200] = {0}, pages = 0;
+    for (int round = 0; round < 5; round++) {
+        char token[64] = "";
+        memset(seen, 0, sizeof(seen));
+        json_t *names = json_object();
+        do {
+            snprintf(path, sizeof(path), "/v1/sites/south/gateways?limit=7%s%s",
+                     token[0] ? "&continue=" : "", token);
+            json_t *j = http_json(c, p, "GET", path, NULL, 200);
+            json_t *it, *items = json_object_get(j, "items");
+            size_t i;
+            json_array_foreach(items, i, it)
+            {
+                const char *op = json_string_value(json_object_get(it, "path"));
+                const char *name = strrchr(op, '/') + 1;
+                if (json_object_get(names, name))
+                    fail_msg("page %d: %s listed twice", pages, name);
+                json_object_set_new(names, name, json_true());
+                int n;
+                if (strlen(name) == 6 && sscanf(name, "gw-%d", &n) == 1)
+                    seen[n]++;
+            }
+            const char *t = json_string_value(json_object_get(j, "continue"));
+            snprintf(token, sizeof(token), "%s", t ? t : "");
+            json_decref(j);
+            pages++;
+        } while (token[0] && pages < 10000);
+        json_decref(names);
+        for (int i = 0; i < 200; i++)
+            if (seen[i] != 1)
+                fail_msg("round %d: gw-%03d (present throughout) seen %d times", round, i, seen[i]);
+    }
+    atomic_store(&w.stop, 1);
+    pthread_join(wt, NULL);
+    /* The check means something only if writes really happened during the lists. */
+    assert_true(w.ops > 20);
+    curl_easy_cleanup(c);
+    server_stop(&s);
+}
+
+/* ---- Watches: resumption from a version delivers every later event once, in order; a version
+ * older than the history window gets 410 (common practice of watchable stores, see
+ * shared/NOTES-methods.md "Streams"). */
+static int count_lines(const char *s)
+{
+    int n = 0;
+    for (; s && *s; s++)
+        n += *s == '\n';
+    return n;
+}
+
+static void test_watch_resume_and_expiry(void **state)
+{
+    (void)state;
+    server_t s = {0};
+    opts_default(&s.opts);
+    s.opts.history = 64;
+    server_start(&s);
+    int p = atomic_load(&s.port);
+    CURL *c = curl_easy_init();
+    char path[160];
+    /* 30 writes in two collections, interleaved: versions 1..30. */
+    for (int i = 0; i < 30; i++) {
+        snprintf(path, sizeof(path), "/v1/sites/%s/gateways/gw-%d", i % 2 ? "harbor" : "north",
+                 i % 5);
+        long st = http(c, p, "PUT", path, "{\"k\":1}", NULL);
+        assert_true(st == 201 || st == 200);
+    }
+    assert_int_equal(http(c, p, "DELETE", "/v1/sites/harbor/gateways/gw-1", NULL, NULL), 204);
+    char *out = NULL;
+    long st = http_t(c, p, "GET", "/v1/sites/harbor/gateways?watch=1&since=10", NULL, &out, 400);
+    assert_int_equal(st, -28); /* a stream stays open; the client timed out */
+    /* Expected: harbor writes are the odd i at version i+1 (creates of gw-0..4 up to version
+     * 10, updates after), so updates at 12,14..30, then the delete at 31: 11 events, each once,
+     * increasing. */
+    int n = 0;
+    long last = 10;
+    for (char *line = out; line && *line; n++) {
+        char *nl = strchr(line, '\n');
+        assert_non_null(nl);
+        json_t *e = json_loadb(line, (size_t)(nl - line), 0, NULL);
+        assert_non_null(e);
+        long v = (long)jint(e, "version");
+        assert_int_equal(v, n < 10 ? 12 + 2 * n : 31);
+        assert_true(v > last);
+        last = v;
+        assert_string_equal(json_string_value(json_object_get(e, "type")),
+                            n == 10 ? "delete" : "update");
+        json_decref(e);
+        line = nl + 1;
+    }
+    assert_int_equal(n, 11);
+    free(out);
+    /* A watch from the current version sees nothing old. */
+    st = http_t(c, p, "GET", "/v1/sites/harbor/gateways?watch=1&since=31", NULL, &out, 300);
+    assert_int_equal(st, -28);
+    assert_int_equal(count_lines(out), 0);
+    free(out);
+    /* Push version 10 out of the 64-event window, then ask for it. */
+    for (int i = 0; i < 60; i++)
+        http(c, p, "PUT", "/v1/sites/north/gateways/gw-0", "{\"k\":2}", NULL);
+    json_t *j = http_json(c, p, "GET", "/v1/sites/harbor/gateways?watch=1&since=10", NULL, 410);
+    assert_string_equal(json_string_value(json_object_get(j, "error")), "expired");
+    json_decref(j);
+    /* Version 91 - 64 = 27 is the oldest resumable one. */
+    st = http_t(c, p, "GET", "/v1/sites/harbor/gateways?watch=1&since=27", NULL, &out, 300);
+    assert_int_equal(st, -28);
+    assert_int_equal(count_lines(out), 3); /* versions 28, 30, 31 */
+    free(out);
+    assert_int_equal(http(c, p, "GET", "/v1/sites/harbor/gateways?watch=1&since=26", NULL, NULL),
+                     410);
+    j = http_json(c, p, "GET", "/stats", NULL, 200);
+    assert_int_equal(jint(json_object_get(j, "store"), "expired"), 2);
+    json_decref(j);
+    curl_easy_cleanup(c);
+    server_stop(&s);
+}
+
+/* ---- OpenMetrics 1.0 text (shared/NOTES-methods.md "Live metrics"): ends with "# EOF",
+ * histogram buckets non-decreasing, le="+Inf" equal to _count. */
+static void test_metrics_wellformed(void **state)
+{
+    (void)state;
+    server_t s = {0};
+    opts_default(&s.opts);
+    server_start(&s);
+    int p = atomic_load(&s.port);
+    CURL *c = curl_easy_init();
+    for (int i = 0; i < 25; i++)
+        http(c, p, i % 2 ? "GET" : "PUT", "/v1/m/x", "{}", NULL);
+    char *m = NULL;
+    assert_int_equal(http(c, p, "GET", "/metrics", NULL, &m), 200);
+    size_t len = strlen(m);
+    assert_true(len > 6 && strcmp(m + len - 6, "# EOF\n") == 0);
+    long prev = -1, inf = -1, count = -1;
+    int buckets = 0;
+    for (char *line = strtok(m, "\n"); line; line = strtok(NULL, "\n")) {
+        long v;
+        if (line[0] == '#')
+            continue;
+        if (sscanf(line, "squall_target_request_seconds_bucket{le=\"+Inf\"} %ld", &v) == 1) {
+            inf = v;
+        } else if (strncmp(line, "squall_target_request_seconds_bucket", 36) == 0) {
+            assert_int_equal(sscanf(strchr(line, '}') + 1, " %ld", &v), 1);
+            assert_true(v >= prev);
+            prev = v;
+            buckets++;
+        } else if (sscanf(line, "squall_target_request_seconds_count %ld", &v) == 1) {
+            count = v;
+        }
+    }
+    assert_true(buckets > 5);
+    assert_true(inf >= prev);
+    assert_int_equal(inf, count);
+    assert_int_equal(count, 25);
+    free(m);
+    curl_easy_cleanup(c);
+    server_stop(&s);
+}
+
+int main(void)
+{
+    curl_global_init(CURL_GLOBAL_DEFAULT);
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_crud),
+        cmocka_unit_test(test_merge_patch_rfc7386),
+        cmocka_unit_test(test_bad_input),
+        cmocka_unit_test(test_pagination_concurrent),
+        cmocka_unit_test(test_watch_resume_and_expiry),
+        cmocka_unit_test(test_metrics_wellformed),
+    };
+    int rc = cmocka_run_group_tests(tests, NULL, NULL);
+    curl_global_cleanup();
+    return rc;
+}
