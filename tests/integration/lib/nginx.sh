@@ -10,6 +10,7 @@
 #     /fail/503             503 with a JSON body
 #     /echo/body            echoes the request body (any method)
 #     /echo/headers         "site=<X-Squall-Site header> auth=<Authorization header>\n"
+#     /auth/bearer          200 only with "Authorization: Bearer $NGX_TOKEN", 401 otherwise
 #     /mtls/ok              200 only when a client certificate signed by our CA was presented,
 #                           403 otherwise (TLS port; the server asks for it as optional)
 # Certificates (generated with openssl per test): $NGX_CA (CA), $NGX_CLIENT_CERT/$NGX_CLIENT_KEY
@@ -22,6 +23,7 @@
 source "$(dirname "${BASH_SOURCE[0]}")/port.sh"
 
 NGX_MODULE=/usr/lib/nginx/modules/ngx_http_echo_module.so
+NGX_TOKEN=gw-fleet-test-token-7f3a
 
 _ngx_certs() {
     local d=$1/tls
@@ -91,6 +93,10 @@ http {
 $(_ngx_delays)
         location = /fail/503 { return 503 '{"error":"busy"}\n'; }
         location = /echo/body { echo_read_request_body; echo_request_body; }
+        location = /auth/bearer {
+            if (\$http_authorization != "Bearer $NGX_TOKEN") { return 401 '{"auth":"refused"}\n'; }
+            return 200 '{"auth":"ok"}\n';
+        }
         location = /echo/headers { echo "site=\$http_x_squall_site auth=\$http_authorization"; }
         location = /mtls/ok {
             if (\$ssl_client_verify != SUCCESS) { return 403 '{"mtls":"refused"}\n'; }
