@@ -1,6 +1,11 @@
 /* Unit tests of the embedded target (squall serve), driven over real HTTP with libcurl against a
  * server started in-process on its own thread and libuv loop. */
+#include <arpa/inet.h>
+#include <netinet/in.h>
 #include <pthread.h>
+#include <sys/socket.h>
+#include <sys/time.h>
+#include <unistd.h>
 #include <stdarg.h>
 #include <stdatomic.h>
 #include <stddef.h>
@@ -512,6 +517,66 @@ static void test_metrics_wellformed(void **state)
     server_stop(&s);
 }
 
+/* ---- A slow watcher: a client that does not read is bounded by the per-stream buffer, then
+ * closed with a final error event; the server keeps serving everyone else. */
+static void test_slow_watcher_bounded(void **state)
+{
+    (void)state;
+    server_t s = {0};
+    opts_default(&s.opts);
+    s.opts.stream_buffer = 8192;
+    server_start(&s);
+    int p = atomic_load(&s.port);
+    CURL *c = curl_easy_init();
+    int fd = socket(AF_INET, SOCK_STREAM, 0);
+    int small = 2048;
+    assert_int_equal(setsockopt(fd, SOL_SOCKET, SO_RCVBUF, &small, sizeof(small)), 0);
+    struct sockaddr_in a = {.sin_family = AF_INET, .sin_port = htons((uint16_t)p)};
+    a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
+    assert_int_equal(connect(fd, (struct sockaddr *)&a, sizeof(a)), 0);
+    const char req[] = "GET /v1/slow/items?watch=1 HTTP/1.1\r\nHost: t\r\n\r\n";
+    assert_int_equal(write(fd, req, sizeof(req) - 1), (ssize_t)sizeof(req) - 1);
+    json_t *j = NULL;
+    for (int i = 0; i < 200; i++) {
+        json_decref(j);
+        j = http_json(c, p, "GET", "/stats", NULL, 200);
+        if (jint(json_object_get(j, "streams"), "open") == 1)
+            break;
+        usleep(10000);
+    }
+    assert_int_equal(jint(json_object_get(j, "streams"), "open"), 1);
+    json_decref(j);
+    /* 5,000 events of ~1 KiB: far more than the socket buffers and the 8 KiB stream limit. */
+    char body[1100];
+    memset(body, 'a', sizeof(body));
+    memcpy(body, "{\"pad\":\"", 8);
+    memcpy(body + sizeof(body) - 3, "\"}", 3);
+    for (int i = 0; i < 5000; i++)
+        assert_true(http(c, p, "PUT", "/v1/slow/items/one", body, NULL) / 100 == 2);
+    j = http_json(c, p, "GET", "/stats", NULL, 200);
+    assert_int_equal(jint(json_object_get(j, "streams"), "slow_closed"), 1);
+    assert_true(jint(json_object_get(j, "streams"), "events_sent") < 5000);
+    json_decref(j);
+    /* Read what the stream holds: it must end with the slow-watcher error event. */
+    struct timeval tv = {.tv_sec = 5};
+    setsockopt(fd, SOL_SOCKET, SO_RCVTIMEO, &tv, sizeof(tv));
+    size_t cap = 1 << 24, len = 0;
+    char *all = malloc(cap);
+    ssize_t n;
+    while (len < cap - 1 && (n = read(fd, all + len, cap - 1 - len)) > 0)
+        len += (size_t)n;
+    all[len] = '\0';
+    close(fd);
+    const char *err = strstr(all, "{\"type\":\"error\",\"code\":\"slow-watcher\"");
+    assert_non_null(err);
+    assert_null(strstr(err + 1, "{\"type\":"));    /* nothing after the error event */
+    assert_non_null(strstr(all, "\r\n0\r\n\r\n")); /* and the chunked stream ended properly */
+    free(all);
+    assert_int_equal(http(c, p, "GET", "/v1/slow/items/one", NULL, NULL), 200);
+    curl_easy_cleanup(c);
+    server_stop(&s);
+}
+
 int main(void)
 {
     curl_global_init(CURL_GLOBAL_DEFAULT);
@@ -522,6 +587,7 @@ int main(void)
         cmocka_unit_test(test_pagination_concurrent),
         cmocka_unit_test(test_watch_resume_and_expiry),
         cmocka_unit_test(test_metrics_wellformed),
+        cmocka_unit_test(test_slow_watcher_bounded),
     };
     int rc = cmocka_run_group_tests(tests, NULL, NULL);
     curl_global_cleanup();
