@@ -72,6 +72,11 @@ void run_summary(runner_t *r, const char *dir)
     out_print(r->o, "%-12s %-24s %8s %8s %7s %9s %9s %9s %9s %9s\n", "phase", "class", "requests",
               "per s", "errors", "p50", "p90", "p99", "max", "svc p99");
     for (size_t p = 0; p < r->n_phases; p++) {
+        const plan_phase_t *pp = r->phases[p].pp;
+        if (pp->clients.on)
+            out_print(r->o, "%-12s closed loop: %d clients, think %.0f ms (response time is "
+                            "from each client's next intended start)\n",
+                      pp->name, pp->clients.count, ms(pp->clients.think_ns));
         for (size_t c = 0; c < r->n_classes; c++) {
             row(r, &r->phases[p], r->classes[c].pr->name, h, svc);
             if (r->classes[c].paginate)
