@@ -35,7 +35,9 @@ typedef struct eng eng_t;
 
 enum eng_http { ENG_HTTP_1_1 = 0, ENG_HTTP_2 = 1 };
 
-/* Outcome of one request. Transport errors are split by kind (mapped from CURLcode). */
+/* Outcome of one request. Transport errors are split by kind (mapped from CURLcode).
+ * "http-version": HTTP/2 was asked for and the answer came over HTTP/1.x (never counted as a
+ * success: the plan's protocol is part of what is measured). */
 #define ENG_OUTCOME_MAP(X)                                                                         \
     X(S2XX, "2xx")                                                                                 \
     X(S3XX, "3xx")                                                                                 \
@@ -46,6 +48,7 @@ enum eng_http { ENG_HTTP_1_1 = 0, ENG_HTTP_2 = 1 };
     X(RESOLVE, "resolve")                                                                          \
     X(TLS, "tls")                                                                                  \
     X(RESET, "reset")                                                                              \
+    X(VERSION, "http-version")                                                                     \
     X(OTHER, "transport-other")                                                                    \
     X(CANCELLED, "cancelled")
 
@@ -77,7 +80,11 @@ typedef struct {
     const char *const *headers;
     size_t n_headers;
     /* Unreachability: after `unreachable_after` consecutive connect-refused or resolve outcomes
-     * with no HTTP response in between (0 = 3), on_unreachable (if set) is called once. */
+     * with no HTTP response in between (0 = 3), on_unreachable (if set) is called once. With
+     * HTTP/2 the target is also unusable when it answers over HTTP/1.x (at once), or when
+     * `unreachable_after` prior-knowledge openers in a row fail before any HTTP/2 answer was
+     * ever seen (a server without cleartext HTTP/2 closes on the preface). eng_stats' why says
+     * which. */
     int unreachable_after;
     void (*on_unreachable)(void *user);
     void *user;
@@ -134,6 +141,7 @@ typedef struct {
     int64_t submitted, completed; /* totals since eng_new */
     int64_t by_outcome[ENG_OUT_COUNT];
     bool unreachable; /* the unreachable condition has been met */
+    const char *why;  /* then: what the target did, e.g. "refuses connections" (static) */
 } eng_stats_t;
 
 /* Creates an engine on `loop`. Ignores SIGPIPE for the process (libcurl runs with NOSIGNAL=1).

@@ -73,6 +73,7 @@ typedef struct {
     bool loopback;    /* host is 127.0.0.0/8, ::1 or "localhost"; others need --confirm-target */
     enum plan_http http;
     int connections;    /* default 16 */
+    int streams;        /* HTTP/2 streams per connection, 1..10000; 0 = not given (100) */
     int64_t timeout_ns; /* default 10 s; per-request classes may override */
     plan_kv_t *headers;
     size_t n_headers;
@@ -117,7 +118,8 @@ typedef struct {
     int64_t timeout_ns; /* the target's unless set; 0 for watches means "no timeout" */
     struct {            /* kind list */
         int page;       /* items per page, 0 = no limit parameter sent */
-        const char *limit_param, *token_key, *token_param; /* "limit", "continue", "continue" (the embedded target's names) */
+        const char *limit_param, *token_key,
+            *token_param; /* "limit", "continue", "continue" (the embedded target's names) */
     } list;
     struct {                /* kind write */
         const char *method; /* POST, PUT, PATCH or DELETE (default PUT) */

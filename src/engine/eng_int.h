@@ -21,9 +21,10 @@ struct eng_xfer {
     struct eng_buf url, method, body, resp;
     struct curl_slist *headers; /* per-request list, or NULL to use the engine's */
     eng_result_t res;
-    bool opener;    /* HTTP/2 h2c: opens a fresh connection with prior knowledge */
-    bool aborted;   /* the caller's on_data asked to stop */
-    bool cancelled; /* eng_stop/eng_free removed it */
+    bool opener;     /* HTTP/2 h2c: opens a fresh connection with prior knowledge */
+    bool was_opener; /* was admitted as an opener (opener is cleared once its socket opens) */
+    bool aborted;    /* the caller's on_data asked to stop */
+    bool cancelled;  /* eng_stop/eng_free removed it */
 };
 
 /* A socket libcurl uses; kept (with its uv_poll) until the socket really closes. */
@@ -69,7 +70,10 @@ struct eng {
     int64_t submitted, completed, by_outcome[ENG_OUT_COUNT];
     int64_t window_start_ns, max_queue_wait_ns, max_busy_ns, busy_ns, pass_start_ns;
     int unreachable_streak;
+    int h2_opener_fails; /* h2c openers failed in a row before any HTTP/2 answer */
+    bool h2_seen;        /* some answer came over HTTP/2 */
     bool unreachable;
+    const char *unreachable_why;
 };
 
 /* curl_uv.c: the libcurl <-> libuv glue. */

@@ -261,7 +261,7 @@ static bool admit_one(eng_t *e)
     if (!e->queue_head)
         e->queue_tail = NULL;
     e->queued--;
-    x->opener = needs_opener(e);
+    x->opener = x->was_opener = needs_opener(e);
     if (x->opener)
         e->openers_pending++;
     eng_xfer_setup(x);
@@ -288,18 +288,47 @@ void eng_admit(eng_t *e)
             break;
 }
 
-static void count_outcome(eng_t *e, const eng_result_t *r)
+static void set_unreachable(eng_t *e, const char *why)
 {
+    if (e->unreachable)
+        return;
+    e->unreachable = true;
+    e->unreachable_why = why;
+    if (e->cfg.on_unreachable)
+        e->cfg.on_unreachable(e->cfg.user);
+}
+
+/* HTTP/2 asked for: an HTTP/1.x answer means the target cannot serve the plan as written; so
+ * do openers that keep failing before any HTTP/2 answer (a server without cleartext HTTP/2
+ * answers the prior-knowledge preface with an HTTP/1.1 error and closes). */
+static void check_h2(eng_t *e, const struct eng_xfer *x)
+{
+    const eng_result_t *r = &x->res;
+    if (r->outcome == ENG_OUT_VERSION) {
+        set_unreachable(e, "answers HTTP/2 requests over HTTP/1.x (it does not speak HTTP/2 "
+                           "here; use http: \"1.1\" or a target that does)");
+    } else if (r->status > 0) {
+        e->h2_seen = true;
+    } else if (x->was_opener && !e->h2_seen && r->outcome == ENG_OUT_RESET &&
+               ++e->h2_opener_fails >= e->cfg.unreachable_after) {
+        set_unreachable(e, "closes new connections on the HTTP/2 preface (it does not speak "
+                           "cleartext HTTP/2 with prior knowledge; use http: \"1.1\")");
+    }
+}
+
+static void count_outcome(eng_t *e, const struct eng_xfer *x)
+{
+    const eng_result_t *r = &x->res;
     e->completed++;
     e->by_outcome[r->outcome]++;
+    if (e->cfg.http == ENG_HTTP_2)
+        check_h2(e, x);
     if (r->status > 0) {
         e->unreachable_streak = 0;
     } else if (r->outcome == ENG_OUT_REFUSED || r->outcome == ENG_OUT_RESOLVE) {
-        if (++e->unreachable_streak >= e->cfg.unreachable_after && !e->unreachable) {
-            e->unreachable = true;
-            if (e->cfg.on_unreachable)
-                e->cfg.on_unreachable(e->cfg.user);
-        }
+        if (++e->unreachable_streak >= e->cfg.unreachable_after)
+            set_unreachable(e, r->outcome == ENG_OUT_REFUSED ? "refuses connections"
+                                                             : "does not resolve");
     }
 }
 
@@ -314,7 +343,7 @@ void eng_done(eng_t *e, struct eng_xfer *x, CURLcode rc)
     eng_xfer_finish(x, rc);
     easy_put(e, x->easy);
     x->easy = NULL;
-    count_outcome(e, &x->res);
+    count_outcome(e, x);
     x->req.on_done(x->req.user, &x->res);
     xfer_put(e, x);
 }
@@ -327,7 +356,7 @@ static void cancel_queued(eng_t *e)
         e->queued--;
         x->cancelled = true;
         eng_xfer_finish(x, CURLE_ABORTED_BY_CALLBACK);
-        count_outcome(e, &x->res);
+        count_outcome(e, x);
         x->req.on_done(x->req.user, &x->res);
         xfer_put(e, x);
     }
@@ -376,6 +405,7 @@ void eng_stats(eng_t *e, eng_stats_t *st, bool reset_window)
     st->completed = e->completed;
     memcpy(st->by_outcome, e->by_outcome, sizeof(st->by_outcome));
     st->unreachable = e->unreachable;
+    st->why = e->unreachable_why;
     if (reset_window) {
         e->window_start_ns = now;
         e->max_queue_wait_ns = e->max_busy_ns = e->busy_ns = 0;

@@ -140,7 +140,7 @@ int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req)
     memset(&x->res, 0, sizeof(x->res));
     x->res.intended_ns = req->intended_ns;
     x->resp.len = 0;
-    x->opener = x->aborted = x->cancelled = false;
+    x->opener = x->was_opener = x->aborted = x->cancelled = false;
     return 0;
 }
 
@@ -274,6 +274,11 @@ void eng_xfer_finish(struct eng_xfer *x, CURLcode rc)
         r->outcome = ENG_OUT_CANCELLED;
     else
         r->outcome = eng_outcome_of(rc, r->status);
+    /* libcurl falls back to HTTP/1.1 (with "Upgrade: h2c" on http://) when a transfer must open
+     * a connection the server will not speak HTTP/2 on; such an answer is not a success. */
+    if (c && r->status > 0 && x->eng->cfg.http == ENG_HTTP_2 &&
+        curl_easy_getinfo(c, CURLINFO_HTTP_VERSION, &l) == CURLE_OK && l != CURL_HTTP_VERSION_2_0)
+        r->outcome = ENG_OUT_VERSION;
     if (x->req.keep_body) {
         r->body = x->resp.data ? x->resp.data : "";
         r->body_len = x->resp.len;

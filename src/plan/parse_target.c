@@ -159,7 +159,7 @@ static void parse_token(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 
 void plan_parse_target(pctx_t *c, yaml_node_t *n)
 {
-    static const char *const keys[] = {"url",     "http", "connections", "timeout",
+    static const char *const keys[] = {"url",     "http", "connections", "streams", "timeout",
                                        "headers", "tls",  "token",       NULL};
     static const char *const versions[] = {"1.1", "2", NULL};
     plan_target_t *t = &c->p->target;
@@ -176,6 +176,9 @@ void plan_parse_target(pctx_t *c, yaml_node_t *n)
     if (pc_enum(c, n, "http", "target", versions, &http))
         t->http = http ? PLAN_HTTP_2 : PLAN_HTTP_1_1;
     pc_int(c, n, "connections", "target", 1, 100000, &t->connections);
+    /* HTTP/2 streams in flight per connection; libcurl's own assumption is 100 until the
+     * server's SETTINGS arrive. Ignored for HTTP/1.1. */
+    pc_int(c, n, "streams", "target", 1, 10000, &t->streams);
     pc_dur(c, n, "timeout", "target", 1, &t->timeout_ns);
     if (pc_get(c, n, "headers"))
         plan_parse_headers_into(c, pc_get(c, n, "headers"), "target.headers", &t->headers,

@@ -280,10 +280,10 @@ static void on_signal(uv_signal_t *s, int signum)
 static void on_unreachable(void *user)
 {
     runner_t *r = user;
-    run_request_stop(r, RUN_STOP_UNREACHABLE,
-                     "target unreachable: %s refuses connections or "
-                     "does not resolve",
-                     r->plan->target.url);
+    eng_stats_t st;
+    eng_stats(r->eng, &st, false);
+    run_request_stop(r, RUN_STOP_UNREACHABLE, "target unreachable: %s %s", r->plan->target.url,
+                     st.why ? st.why : "refuses connections or does not resolve");
 }
 
 static void close_handle(uv_handle_t *h)
@@ -405,6 +405,7 @@ static int engine_start(runner_t *r, const char *token)
         .base_url = t->url,
         .http = t->http == PLAN_HTTP_2 ? ENG_HTTP_2 : ENG_HTTP_1_1,
         .connections = t->connections,
+        .streams = t->streams,
         .timeout_ms = t->timeout_ns / 1000000,
         .ca_file = t->tls.ca,
         .cert_file = t->tls.cert,
