@@ -59,7 +59,7 @@ int tgt_report_stats(tgt_server_t *sv, tgt_buf_t *b)
     const tgt_store_t *s = &sv->store;
     json_t *j = json_pack(
         "{s:I,s:I,s:{s:I,s:I,s:I,s:I,s:I,s:I},s:o,s:{s:I,s:I,s:I,s:I},"
-        "s:{s:I,s:I,s:I,s:I},s:o,s:i,s:o}",
+        "s:{s:I,s:I,s:I,s:I,s:I},s:o,s:i,s:o}",
         "version", (json_int_t)s->version, "objects", (json_int_t)s->n_objects, "store", "creates",
         (json_int_t)s->creates, "replaces", (json_int_t)s->replaces, "patches",
         (json_int_t)s->patches, "deletes", (json_int_t)s->deletes, "conflicts",
@@ -68,8 +68,8 @@ int tgt_report_stats(tgt_server_t *sv, tgt_buf_t *b)
         (json_int_t)sv->bad_path, "too_large", (json_int_t)sv->too_large, "bad_method",
         (json_int_t)sv->bad_method, "streams", "open", (json_int_t)sv->streams_open, "opened",
         (json_int_t)sv->streams_opened, "events_sent", (json_int_t)sv->events_sent, "slow_closed",
-        (json_int_t)sv->slow_closed, "faults", fault_counts(&sv->fc), "inflight", sv->inflight,
-        "latency", latency_json(sv->latency));
+        (json_int_t)sv->slow_closed, "gone", (json_int_t)sv->streams_gone, "faults",
+        fault_counts(&sv->fc), "inflight", sv->inflight, "latency", latency_json(sv->latency));
     char *t = j ? json_dumps(j, JSON_COMPACT) : NULL;
     json_decref(j);
     if (!t)

@@ -70,6 +70,11 @@ void tgt_server_kick(tgt_server_t *sv)
         uv_idle_start(&sv->idle, on_idle);
 }
 
+static void on_sweep(uv_timer_t *h)
+{
+    tgt_stream_sweep(h->data);
+}
+
 static void on_drop(uv_timer_t *h)
 {
     tgt_server_t *sv = h->data;
@@ -124,7 +129,7 @@ static int start_mhd(tgt_server_t *sv, struct sockaddr_storage *ss, int family)
         flags, 0, NULL, NULL, tgt_http_access, sv, MHD_OPTION_SOCK_ADDR, (struct sockaddr *)ss,
         MHD_OPTION_NOTIFY_COMPLETED, tgt_http_completed, sv, MHD_OPTION_EXTERNAL_LOGGER, mhd_log,
         sv, MHD_OPTION_CONNECTION_LIMIT, (unsigned)30000, MHD_OPTION_CONNECTION_TIMEOUT,
-        (unsigned)0, MHD_OPTION_CONNECTION_MEMORY_LIMIT, (size_t)16384,
+        (unsigned)0, MHD_OPTION_CONNECTION_MEMORY_LIMIT, (size_t)8192,
         MHD_OPTION_LISTEN_BACKLOG_SIZE, (unsigned)4096, MHD_OPTION_END);
     if (!sv->mhd)
         return SQ_EIO;
@@ -167,11 +172,13 @@ int target_start(uv_loop_t *loop, const target_opts_t *opts, out_t *o, target_t 
                   opts->host, opts->port);
         goto fail_hist;
     }
-    sv->poll.data = sv->tick.data = sv->drop.data = sv->idle.data = sv;
+    sv->poll.data = sv->tick.data = sv->drop.data = sv->idle.data = sv->sweep.data = sv;
     uv_timer_init(loop, &sv->tick);
     uv_timer_init(loop, &sv->drop);
     uv_idle_init(loop, &sv->idle);
-    sv->handles_open = 4;
+    uv_timer_init(loop, &sv->sweep);
+    uv_timer_start(&sv->sweep, on_sweep, 2000, 2000);
+    sv->handles_open = 5;
     uv_poll_start(&sv->poll, UV_READABLE, on_poll);
     tgt_server_set_faults(sv, &opts->faults);
     mhd_run(sv);
@@ -224,4 +231,5 @@ void target_stop(target_t *t, void (*on_stopped)(void *), void *arg)
     uv_close((uv_handle_t *)&sv->tick, on_closed);
     uv_close((uv_handle_t *)&sv->drop, on_closed);
     uv_close((uv_handle_t *)&sv->idle, on_closed);
+    uv_close((uv_handle_t *)&sv->sweep, on_closed);
 }

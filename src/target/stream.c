@@ -171,6 +171,23 @@ enum MHD_Result tgt_stream_open(tgt_server_t *sv, struct MHD_Connection *conn, c
     return rc;
 }
 
+void tgt_stream_sweep(tgt_server_t *sv)
+{
+    char c;
+    for (tgt_stream_t *st = sv->all_streams; st; st = st->anext) {
+        if (!st->suspended || st->state != STREAM_OPEN)
+            continue;
+        const union MHD_ConnectionInfo *ci =
+            MHD_get_connection_info(st->conn, MHD_CONNECTION_INFO_CONNECTION_FD);
+        if (!ci || recv(ci->connect_fd, &c, 1, MSG_PEEK | MSG_DONTWAIT) != 0)
+            continue; /* still there (EAGAIN) or sending us bytes */
+        st->state = STREAM_DROP;
+        st->buf.len = st->off = 0;
+        sv->streams_gone++;
+        stream_wake(st);
+    }
+}
+
 void tgt_stream_end_all(tgt_server_t *sv, bool drop)
 {
     for (tgt_stream_t *st = sv->all_streams; st; st = st->anext) {

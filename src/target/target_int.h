@@ -106,6 +106,9 @@ enum MHD_Result tgt_stream_open(tgt_server_t *sv, struct MHD_Connection *conn, c
                                 int first);
 /* Fans out one event to the collection's watchers. */
 void tgt_stream_publish(void *server, const tgt_event_t *ev);
+/* Ends parked streams whose client closed its end (libmicrohttpd does not watch a suspended
+ * connection, so without this a vanished watcher would hold its socket until the next event). */
+void tgt_stream_sweep(tgt_server_t *sv);
 /* Ends every stream abruptly (the "drop watches" fault) or, when graceful, with its end. */
 void tgt_stream_end_all(tgt_server_t *sv, bool drop);
 
@@ -139,9 +142,10 @@ struct tgt_server {
     out_t *out;
     struct MHD_Daemon *mhd;
     uv_poll_t poll;
-    uv_timer_t tick; /* MHD's own timeouts */
-    uv_timer_t drop; /* the drop-watches fault */
-    uv_idle_t idle;  /* runs libmicrohttpd again soon after a connection was resumed */
+    uv_timer_t tick;  /* MHD's own timeouts */
+    uv_timer_t drop;  /* the drop-watches fault */
+    uv_idle_t idle;   /* runs libmicrohttpd again soon after a connection was resumed */
+    uv_timer_t sweep; /* finds parked watch streams whose client went away */
     bool in_run, kicked;
     bool drop_pending; /* POST /admin/drop-watches: drop from the idle callback */
     int handles_open;
@@ -160,7 +164,7 @@ struct tgt_server {
     tgt_fault_counts_t fc;
     uint64_t requests[TGT_M_COUNT][600]; /* by method and status */
     uint64_t bad_json, bad_path, too_large, bad_method;
-    uint64_t streams_open, streams_opened, events_sent, slow_closed;
+    uint64_t streams_open, streams_opened, events_sent, slow_closed, streams_gone;
     int inflight;
     tgt_req_t *held; /* suspended requests (stalled, delayed, queued), for shutdown */
     tgt_req_t *queue_head, *queue_tail; /* waiting for an in-flight slot, FIFO */

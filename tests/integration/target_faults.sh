@@ -125,6 +125,14 @@ rc=$?
 [ "$d" = 1 ] && [ $rc -ne 28 ] || fail "drop-watches: dropped=$d, curl $rc"
 echo "ok: drop at 0.5 s ended 5 watches abruptly; POST /admin/drop-watches ended 1 more"
 
+# A watcher that goes away while its stream is idle is noticed by the 2 s sweep: its socket is
+# released and the open count falls back, without any event on the collection.
+curl -s -N --max-time 1 "$U/v1/sites/quiet/gateways?watch=1" >/dev/null
+for i in $(seq 60); do [ "$(stat .streams.open)" = 0 ] && break; sleep 0.1; done
+[ "$(stat .streams.open)" = 0 ] && [ "$(stat .streams.gone)" = 1 ] ||
+    fail "a vanished idle watcher still counted: $(stat -c .streams)"
+echo "ok: an idle watcher that left was released by the sweep (streams.gone = 1)"
+
 # In-flight limit 2, reject: 6 simultaneous requests held 300 ms each -> exactly 2 answered 200
 # and 4 answered 429 with Retry-After.
 faults '{"max_inflight":2,"over_limit":"reject","delay":"fixed:300ms","retry_after":3}' >/dev/null
