@@ -26,6 +26,7 @@ typedef struct {
     uint64_t seed;    /* overrides the plan's seed */
     int64_t grace_ns; /* after a signal or a brake: how long in-flight requests may take */
     int shard_index, shard_count; /* 1/1 unless given */
+    bool keep; /* life: no teardown; the journal lists what was left */
 } run_opts_t;
 
 /* Runs `plan` to the end (or until a signal, a brake or an unreachable target stops it),

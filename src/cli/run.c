@@ -16,7 +16,8 @@ enum {
     OPT_QUIET,
     OPT_SEED,
     OPT_GRACE,
-    OPT_SHARD
+    OPT_SHARD,
+    OPT_KEEP
 };
 
 static const cli_opt_t run_opts[] = {
@@ -32,6 +33,7 @@ static const cli_opt_t run_opts[] = {
     [OPT_GRACE] = {"grace", 0, "DURATION",
                    "after a signal or brake, how long in-flight requests may take (2s)"},
     [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (recorded in the results)"},
+    [OPT_KEEP] = {"keep", 0, NULL, "no teardown: leave the objects this run created"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -100,6 +102,9 @@ static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, run_ar
     case OPT_SHARD:
         if (parse_shard(v, &ra->ro))
             return cli_usage_error(cmd, o, "--shard needs I/N with 1 <= I <= N, got '%s'", v);
+        break;
+    case OPT_KEEP:
+        ra->ro.keep = true;
         break;
     }
     return -1;
@@ -177,6 +182,10 @@ const cli_cmd_t cli_cmd_run = {
         "\n"
         "SIGINT or SIGTERM stops new requests and lets in-flight ones finish within --grace;\n"
         "a second signal stops at once. Results are written either way.\n"
+        "\n"
+        "Objects answered 201 by a class with creates: true are recorded in DIR/journal.ndjson\n"
+        "and deleted after the last phase (also after a signal, a brake or an unreachable\n"
+        "target, within 30 s) unless --keep; `squall cleanup DIR` deletes what is left.\n"
         "\n"
         "Safety: targets other than loopback are refused without --confirm-target. Default\n"
         "brakes stop the run when more than 10% of answers in 10 s are errors, or when the\n"

@@ -87,6 +87,8 @@ static int class_init(runner_t *r, run_class_t *c, const plan_req_t *pr)
 int run_classes_init(runner_t *r)
 {
     int rc = env_init(r);
+    if (rc == 0)
+        rc = run_life_init(r); /* life: the pick resolver, before any template compiles */
     if (rc)
         return rc;
     r->n_classes = r->plan->n_reqs;
@@ -271,7 +273,7 @@ static int submit(runner_t *r, run_req_t *q, const char *path, int64_t intended)
         .n_headers = c->n_headers,
         .timeout_ms = c->timeout_ms,
         .intended_ns = intended,
-        .keep_body = c->paginate,
+        .keep_body = c->paginate || c->pr->write.creates, /* life: a create's version */
         .on_done = on_done,
         .user = q,
     };
@@ -321,6 +323,7 @@ static void on_done(void *user, const eng_result_t *res)
     q->pages++;
     q->bytes_in += res->bytes_in;
     q->bytes_out += res->bytes_out;
+    run_life_done(r, q, res); /* life: pools and journal */
     const run_class_t *c = &r->classes[q->cls];
     if (c->paginate) {
         if (res->outcome == ENG_OUT_S2XX && next_page(r, q, res))
@@ -343,6 +346,8 @@ static void on_done(void *user, const eng_result_t *res)
 int run_issue(runner_t *r, int phase, int cls, int64_t intended_ns, int agent, int client)
 {
     run_class_t *c = &r->classes[cls];
+    if (run_life_skip(r, cls))
+        return 0; /* life: a {{pick}} pool is empty, nothing to send */
     tmpl_ctx_t ctx = {
         .agent = agent,
         .seq = c->seq++,
@@ -372,10 +377,12 @@ int run_issue(runner_t *r, int phase, int cls, int64_t intended_ns, int agent, i
     q->cls = cls;
     q->client = client;
     q->first_intended_ns = intended_ns;
-    if (c->paginate && !(q->base_path = strdup(r->path_buf.data))) {
+    bool track = c->paginate || c->pr->write.creates || c->pr->write.deletes; /* life */
+    if (track && !(q->base_path = strdup(r->path_buf.data))) {
         req_give(r, q);
         return SQ_ENOMEM;
     }
+    run_life_sending(r, cls, r->path_buf.data); /* life: a create's journal line goes first */
     rc = submit(r, q, path, intended_ns);
     if (rc) {
         req_give(r, q);

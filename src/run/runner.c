@@ -199,6 +199,8 @@ static void issue_due(runner_t *r, int64_t now_ns)
     }
     if (rc == 0 && ph->closed)
         rc = run_closed_due(r, now_ns);
+    if (rc == 0 && ph->pp->churn.on)
+        rc = run_life_churn_due(r, now_ns); /* life */
     for (size_t f = 0; f < ph->n_fleet && rc == 0; f++) {
         size_t n;
         do {
@@ -258,6 +260,7 @@ static void on_second(uv_timer_t *t)
     runner_t *r = t->data;
     if (r->state == RUN_ACTIVE || r->state == RUN_DRAINING)
         run_second(r, false);
+    run_life_second(r); /* life: flush the journal */
 }
 
 static void on_signal(uv_signal_t *s, int signum)
@@ -319,8 +322,6 @@ static int check_supported(const runner_t *r)
     for (size_t i = 0; i < r->plan->n_phases; i++) {
         const plan_phase_t *pp = &r->plan->phases[i];
         const char *what = pp->watches.n_sets ? "watches"
-                           : pp->churn.on     ? "churn"
-                           : pp->teardown.on  ? "teardown"
                            : pp->replay.on    ? "replay"
                                               : NULL;
         if (!what)
@@ -522,6 +523,7 @@ static int run_loop(runner_t *r, const char *dir, const char *token)
     }
     uv_run(&r->loop, UV_RUN_DEFAULT);
     out_live_end(r->o);
+    run_life_teardown(r, token); /* life: delete what this run created, unless --keep */
     int code = exit_code(r);
     if (write_results(r, dir))
         code = SQ_EXIT_FAILURE;
@@ -562,6 +564,8 @@ int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o)
         out_error(o, "cannot create results directory %s: %s", dir, strerror(errno));
         goto out_classes;
     }
+    if (run_life_start(r, dir)) /* life: DIR/journal.ndjson */
+        goto out_classes;
     if (state_init(r) || run_health_init(r) || results_new(&r->res) ||
         results_set_plan(r->res, plan->path, NULL, 0, o) ||
         results_set_target(r->res, plan->target.url) ||
@@ -584,5 +588,6 @@ out_classes:
     }
     run_reqs_close(r);
     run_classes_close(r);
+    run_life_close(r); /* life */
     return code;
 }

@@ -93,6 +93,7 @@ void run_summary(runner_t *r, const char *dir)
                   "GENERATOR-LIMITED for %lld s (last: %s): the target was not offered the "
                   "planned load; the figures above are not a verdict on it\n",
                   (long long)r->limited_seconds, r->limited_why);
+    run_verdict_print(r); /* judge: objective verdicts */
     if (r->stop != RUN_STOP_NONE)
         out_print(r->o, "stopped early: %s\n", r->stop_reason);
     out_print(r->o, "results: %s/\n", dir);

@@ -1,0 +1,103 @@
+/* The journal: an append-only record of every object a run creates and deletes, so that what it
+ * left behind can be deleted later, after a crash, a kill -9 or on another machine.
+ *
+ * File format (our own): NDJSON, one JSON object per line. The first line of a journal is a
+ * header {"squall_journal": 1, "target": URL, "started_unix_ms": T}; every later line is
+ * {"op": OP, "path": PATH, "class": NAME, "t": UNIX_MS} (plus "version" for created), where OP is
+ *   put      a create is about to be sent (written ahead of the request, straight to the kernel,
+ *            so a kill -9 between the target's answer and our record cannot hide an object)
+ *   created  the target answered 201: the object exists and is ours
+ *   failed   the target answered otherwise and definitely created nothing (4xx, or 2xx other
+ *            than 201: the object existed before and is not ours to delete)
+ *   deleted  it was deleted (2xx) or found already gone (404, 410)
+ * An object is alive when its last line is put or created. put, created, failed and deleted are
+ * buffered except put; the buffer is written at least once a second (journal_flush, called by
+ * the owner's timer), when it fills, and by journal_close (which also fsyncs).
+ * Reading tolerates a torn last line (a crash mid-write): it is reported and skipped. A journal
+ * reopened for append (squall cleanup) first ends a torn line, so records never run together.
+ *
+ * The reaper deletes a list of paths over the engine at a bounded rate with retries: the shared
+ * core of a run's teardown and of `squall cleanup`. */
+#ifndef SQUALL_JOURNAL_H
+#define SQUALL_JOURNAL_H
+
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+#include <uv.h>
+
+#include "squall/engine.h"
+#include "squall/out.h"
+
+#define JOURNAL_FILE "journal.ndjson" /* its name inside a results directory */
+
+typedef struct journal journal_t;
+
+enum journal_op { JOURNAL_PUT, JOURNAL_CREATED, JOURNAL_FAILED, JOURNAL_DELETED };
+
+/* Opens path for appending, writing the header when the file is new or empty. target_url is
+ * recorded in the header (user info removed is the caller's job). SQ_EIO (a line on o), SQ_ENOMEM.
+ */
+int journal_open(const char *path, const char *target_url, out_t *o, journal_t **out);
+/* Appends one record; JOURNAL_PUT is written through at once. SQ_EIO on a write error (reported
+ * once on the journal's out_t; later records are still attempted). */
+int journal_add(journal_t *j, enum journal_op op, const char *path, const char *cls,
+                uint64_t version);
+int journal_flush(journal_t *j);
+/* Flushes, fsyncs and closes; NULL is allowed. Returns the first write error, if any. */
+int journal_close(journal_t *j);
+
+/* What a journal shows still alive. */
+typedef struct {
+    char *target;         /* from the header (malloc'd) */
+    char **paths;         /* alive objects, in the order they were first recorded */
+    char **classes;       /* their classes ("" when unknown) */
+    bool *confirmed;      /* created (true) or only put (false: the answer never came) */
+    size_t n;             /* alive objects */
+    size_t records, torn; /* lines read; lines skipped as torn or malformed */
+    size_t created, deleted;
+} journal_alive_t;
+
+/* Reads a journal. Torn or malformed lines are reported (a warning naming the line) and skipped;
+ * a missing or unreadable file, or one without a header, is SQ_EIO / SQ_EPARSE (reported). */
+int journal_read(const char *path, journal_alive_t *a, out_t *o);
+void journal_alive_close(journal_alive_t *a);
+
+/* ---- the reaper ------------------------------------------------------------------------- */
+
+enum journal_fate {
+    JOURNAL_LEFT,    /* not deleted: never tried, or stopped (time limit, signal, unreachable) */
+    JOURNAL_DONE,    /* deleted: a 2xx answer */
+    JOURNAL_GONE,    /* already gone: 404 or 410 */
+    JOURNAL_REFUSED, /* failed: another 4xx, or 5xx/429/timeouts on every attempt */
+};
+
+typedef struct {
+    double rate;      /* first attempts per second; 0 = as fast as `parallel` allows */
+    int parallel;     /* deletes in flight at most, >= 1 */
+    int attempts;     /* tries per object on 5xx, 429, timeouts and transport errors, >= 1 */
+    int64_t limit_ns; /* everything stops after this long */
+    /* Called once per attempt that got an answer or failed (not for cancelled ones), with the
+     * object's index, the engine's result and its fate so far (LEFT while it will be retried). */
+    void (*on_result)(void *user, size_t i, const eng_result_t *res, enum journal_fate f);
+    void *user;
+} journal_reap_cfg_t;
+
+typedef struct {
+    size_t done, gone, refused, left;
+    int64_t elapsed_ns;
+    char why[160]; /* why it stopped early, "" when it did not */
+} journal_reap_counts_t;
+
+/* Deletes paths[0..n) with DELETE requests through a new engine on `loop` (made from ecfg; its
+ * on_unreachable is replaced), running the loop until every object has a fate, and closes all
+ * it opened before returning (the loop must have no other active handles). Retries wait
+ * 200 ms x 2^(attempt - 1), at most 2 s (a fixed backoff: the engine does not give us
+ * Retry-After). SIGINT or SIGTERM while it runs stops it at once (the rest is LEFT). fates (n
+ * entries) receives each object's fate. Returns 0 or SQ_ENOMEM / SQ_ELIBUV / the engine's code;
+ * on failure nothing was sent and every fate is LEFT. */
+int journal_reap(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o, const journal_reap_cfg_t *cfg,
+                 const char *const *paths, size_t n, enum journal_fate *fates,
+                 journal_reap_counts_t *counts);
+
+#endif

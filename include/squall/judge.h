@@ -1,0 +1,71 @@
+/* Objectives: the plan's service-level objectives judged against a run's results.
+ *
+ * An objective is one limit on one class (or every class, "*"): a percentile of a metric under
+ * a threshold, an error rate under a limit, or a minimum achieved rate. judge_evaluate turns
+ * each objective into *checks*, one per scope: every phase in which the class ran (or only the
+ * phase the objective names) and, unless a phase is named, the whole run. Each check holds the
+ * observed value, the threshold and a verdict. A check with nothing measured is "no-data" and
+ * counts as a failure: a gate that measured nothing must not pass.
+ * Glossary: "errors" are outcomes other than 2xx, 3xx and cancelled; "achieved rate" is the
+ * number of answered requests (any outcome but cancelled) per second of the phase's elapsed
+ * time; "scope" is a phase name or "run". Percentiles use hist_value_at (HDR, 3 digits). */
+#ifndef SQUALL_JUDGE_H
+#define SQUALL_JUDGE_H
+
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+
+#include <jansson.h>
+
+#include "squall/out.h"
+#include "squall/plan.h"
+#include "squall/results.h"
+
+#define JUDGE_SECTION "objectives" /* the results.json section judge_json fills */
+
+/* A phase as it ran: its name and the time it was issuing requests (stopped early, a phase is
+ * shorter than planned; phases that never started have duration 0 and are skipped). */
+typedef struct {
+    const char *name;
+    int64_t elapsed_ns;
+} judge_phase_t;
+
+enum judge_verdict { JUDGE_PASS, JUDGE_FAIL, JUDGE_NO_DATA };
+
+/* One check: a small public value. Strings point into the judge_t or the plan. */
+typedef struct {
+    size_t objective;  /* index in the objectives given */
+    const char *text;  /* the objective as written: "p99 of response <= 20 ms" */
+    const char *cls;   /* the class judged */
+    const char *scope; /* a phase name, or "run" */
+    double observed;   /* ms for percentiles, fraction for error rates, per second for rates */
+    double threshold;  /* in the same unit */
+    const char *unit;  /* "ms", "fraction" or "per_s" */
+    int64_t samples;   /* requests the value is computed from */
+    enum judge_verdict verdict;
+} judge_check_t;
+
+typedef struct judge judge_t;
+
+/* Evaluates every objective over res. phases lists the run's phases in order. Returns 0 and
+ * *out, or SQ_ENOMEM. Never fails for lack of data (see "no-data" above). */
+int judge_evaluate(const plan_objective_t *objs, size_t n_objs, const results_t *res,
+                   const judge_phase_t *phases, size_t n_phases, judge_t **out);
+void judge_free(judge_t *j);
+
+size_t judge_check_count(const judge_t *j);
+const judge_check_t *judge_check_at(const judge_t *j, size_t i);
+/* True when at least one check failed or had no data (the run then exits 1). */
+bool judge_failed(const judge_t *j);
+
+/* The results.json section: {"passed": bool, "objectives": N, "checks": [{objective, text,
+ * class, scope, observed, threshold, unit, samples, verdict: "pass"|"fail"|"no-data"}]}.
+ * A new reference; NULL when out of memory. */
+json_t *judge_json(const judge_t *j);
+/* The verdict table for the end of a run (results stream); nothing when there are no checks. */
+void judge_print(const judge_t *j, out_t *o);
+
+const char *judge_verdict_name(enum judge_verdict v);
+
+#endif

@@ -1,0 +1,356 @@
+/* The journal file: records appended to an own buffer and written with write(2) (creates'
+ * intents at once, the rest at least once a second), and read back into the set of objects
+ * still alive, skipping a torn last line. */
+#include <errno.h>
+#include <fcntl.h>
+#include <jansson.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "squall/err.h"
+#include "squall/journal.h"
+#include "squall/pool.h"
+
+#define BUF_CAP 65536
+
+struct journal {
+    int fd;
+    char *path;
+    out_t *o;
+    char buf[BUF_CAP];
+    size_t len;
+    int err; /* first write error */
+};
+
+static const char *const op_names[] = {"put", "created", "failed", "deleted"};
+
+static int64_t unix_ms(void)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_REALTIME, &ts);
+    return (int64_t)ts.tv_sec * 1000 + ts.tv_nsec / 1000000;
+}
+
+static int write_all(journal_t *j, const char *p, size_t n)
+{
+    while (n > 0) {
+        ssize_t w = write(j->fd, p, n);
+        if (w < 0 && errno == EINTR)
+            continue;
+        if (w <= 0) {
+            if (!j->err)
+                out_error(j->o,
+                          "journal %s: cannot write: %s (objects created from now on may "
+                          "not be cleaned up after a crash)",
+                          j->path, strerror(errno));
+            j->err = SQ_EIO;
+            return SQ_EIO;
+        }
+        p += w;
+        n -= (size_t)w;
+    }
+    return 0;
+}
+
+int journal_flush(journal_t *j)
+{
+    if (!j || j->len == 0)
+        return 0;
+    int rc = write_all(j, j->buf, j->len);
+    j->len = 0;
+    return rc;
+}
+
+/* Appends one JSON line to the buffer, flushing first when it would not fit. */
+static int append_line(journal_t *j, json_t *rec)
+{
+    char *line = json_dumps(rec, JSON_COMPACT);
+    json_decref(rec);
+    if (!line)
+        return SQ_ENOMEM;
+    size_t n = strlen(line);
+    int rc = 0;
+    if (j->len + n + 1 > BUF_CAP)
+        rc = journal_flush(j);
+    if (n + 1 > BUF_CAP) {
+        rc = write_all(j, line, n);
+        if (rc == 0)
+            rc = write_all(j, "\n", 1);
+    } else {
+        memcpy(j->buf + j->len, line, n);
+        j->buf[j->len + n] = '\n';
+        j->len += n + 1;
+    }
+    free(line);
+    return rc;
+}
+
+/* True when the file is not empty and its last byte is not a newline (a torn line). */
+static bool ends_torn(int fd, off_t size)
+{
+    char c;
+    return size > 0 && pread(fd, &c, 1, size - 1) == 1 && c != '\n';
+}
+
+int journal_open(const char *path, const char *target_url, out_t *o, journal_t **out)
+{
+    journal_t *j = calloc(1, sizeof(*j));
+    if (!j || !(j->path = strdup(path))) {
+        free(j);
+        return SQ_ENOMEM;
+    }
+    j->o = o;
+    j->fd = open(path, O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0644);
+    struct stat st;
+    if (j->fd < 0 || fstat(j->fd, &st)) {
+        out_error(o, "journal %s: cannot open for writing: %s", path, strerror(errno));
+        if (j->fd >= 0)
+            close(j->fd);
+        free(j->path);
+        free(j);
+        return SQ_EIO;
+    }
+    int rc = 0;
+    if (ends_torn(j->fd, st.st_size))
+        rc = write_all(j, "\n", 1);
+    if (rc == 0 && st.st_size == 0) {
+        rc = append_line(j, json_pack("{s:i, s:s, s:I}", "squall_journal", 1, "target", target_url,
+                                      "started_unix_ms", (json_int_t)unix_ms()));
+        if (rc == 0)
+            rc = journal_flush(j);
+    }
+    if (rc) {
+        journal_close(j);
+        return rc;
+    }
+    *out = j;
+    return 0;
+}
+
+int journal_add(journal_t *j, enum journal_op op, const char *path, const char *cls,
+                uint64_t version)
+{
+    json_t *rec = json_pack("{s:s, s:s, s:s, s:I}", "op", op_names[op], "path", path, "class",
+                            cls ? cls : "", "t", (json_int_t)unix_ms());
+    if (!rec)
+        return SQ_ENOMEM;
+    if (op == JOURNAL_CREATED && version)
+        json_object_set_new(rec, "version", json_integer((json_int_t)version));
+    int rc = append_line(j, rec);
+    if (rc == 0 && op == JOURNAL_PUT)
+        rc = journal_flush(j);
+    return rc;
+}
+
+int journal_close(journal_t *j)
+{
+    if (!j)
+        return 0;
+    journal_flush(j);
+    if (fsync(j->fd) && !j->err)
+        j->err = SQ_EIO;
+    close(j->fd);
+    int rc = j->err;
+    free(j->path);
+    free(j);
+    return rc;
+}
+
+/* ---- reading ------------------------------------------------------------------------------ */
+
+typedef struct {
+    journal_alive_t *a;
+    pool_t *index; /* path -> entry (its version field is the entry's index) */
+    char **paths, **classes;
+    int *state; /* the last op of each entry */
+    size_t n, cap;
+} reader_t;
+
+static int entry_for(reader_t *rd, const char *path, const char *cls, size_t *i)
+{
+    long slot = pool_slot(rd->index, path);
+    if (slot >= 0) {
+        *i = (size_t)pool_version(rd->index, (size_t)slot);
+        return 0;
+    }
+    if (rd->n == rd->cap) {
+        size_t cap = rd->cap ? rd->cap * 2 : 256;
+        char **p = realloc(rd->paths, cap * sizeof(*p));
+        if (p)
+            rd->paths = p;
+        char **c = realloc(rd->classes, cap * sizeof(*c));
+        if (c)
+            rd->classes = c;
+        int *s = realloc(rd->state, cap * sizeof(*s));
+        if (s)
+            rd->state = s;
+        if (!p || !c || !s)
+            return SQ_ENOMEM;
+        rd->cap = cap;
+    }
+    rd->paths[rd->n] = strdup(path);
+    rd->classes[rd->n] = strdup(cls);
+    if (!rd->paths[rd->n] || !rd->classes[rd->n] || pool_add(rd->index, path, rd->n)) {
+        free(rd->paths[rd->n]);
+        free(rd->classes[rd->n]);
+        return SQ_ENOMEM;
+    }
+    *i = rd->n++;
+    return 0;
+}
+
+/* One record line; false when it is not a record this reader knows. */
+static int read_record(reader_t *rd, json_t *rec, bool *ok)
+{
+    const char *op = NULL, *path = NULL, *cls = "";
+    *ok = json_unpack(rec, "{s:s, s:s, s?s}", "op", &op, "path", &path, "class", &cls) == 0;
+    int k = -1;
+    for (int i = 0; *ok && i < 4; i++)
+        if (strcmp(op, op_names[i]) == 0)
+            k = i;
+    if (!*ok || k < 0) {
+        *ok = false;
+        return 0;
+    }
+    size_t e;
+    int rc = entry_for(rd, path, cls, &e);
+    if (rc)
+        return rc;
+    rd->state[e] = k;
+    rd->a->created += k == JOURNAL_CREATED;
+    rd->a->deleted += k == JOURNAL_DELETED;
+    return 0;
+}
+
+static int read_line(reader_t *rd, const char *file, const char *s, size_t len, size_t lineno,
+                     bool last, out_t *o)
+{
+    json_error_t jerr;
+    json_t *rec = len ? json_loadb(s, len, 0, &jerr) : NULL;
+    bool ok = false;
+    int rc = 0;
+    if (rec && lineno == 1) {
+        const char *t = NULL;
+        ok = json_unpack(rec, "{s:i, s:s}", "squall_journal", &(int){0}, "target", &t) == 0;
+        if (ok && !(rd->a->target = strdup(t)))
+            rc = SQ_ENOMEM;
+    } else if (rec) {
+        rc = read_record(rd, rec, &ok);
+    }
+    json_decref(rec);
+    if (rc || ok || len == 0)
+        return rc;
+    if (lineno == 1) {
+        out_error(o, "%s:1: not a squall journal (expected its header line)", file);
+        return SQ_EPARSE;
+    }
+    rd->a->torn++;
+    out_warn(o, "%s:%zu: %s line skipped%s", file, lineno, last ? "torn last" : "malformed",
+             last ? " (the writer stopped mid-line, e.g. killed)" : "");
+    return 0;
+}
+
+static int read_all(const char *path, char **data, size_t *len, out_t *o)
+{
+    FILE *f = fopen(path, "rb");
+    if (!f) {
+        out_error(o, "journal %s: cannot read: %s", path, strerror(errno));
+        return SQ_EIO;
+    }
+    size_t cap = 65536, n = 0;
+    char *buf = malloc(cap);
+    size_t got;
+    while (buf && (got = fread(buf + n, 1, cap - n, f)) > 0) {
+        n += got;
+        if (n == cap) {
+            char *nb = realloc(buf, cap * 2);
+            if (!nb) {
+                free(buf);
+                buf = NULL;
+            }
+            buf = nb;
+            cap *= 2;
+        }
+    }
+    fclose(f);
+    if (!buf)
+        return SQ_ENOMEM;
+    *data = buf;
+    *len = n;
+    return 0;
+}
+
+/* Moves the entries whose last op is put or created into *a. */
+static int collect_alive(reader_t *rd)
+{
+    journal_alive_t *a = rd->a;
+    size_t m = rd->n ? rd->n : 1;
+    a->paths = calloc(m, sizeof(char *));
+    a->classes = calloc(m, sizeof(char *));
+    a->confirmed = calloc(m, sizeof(bool));
+    if (!a->paths || !a->classes || !a->confirmed)
+        return SQ_ENOMEM;
+    for (size_t i = 0; i < rd->n; i++) {
+        if (rd->state[i] == JOURNAL_PUT || rd->state[i] == JOURNAL_CREATED) {
+            a->paths[a->n] = rd->paths[i];
+            a->classes[a->n] = rd->classes[i];
+            a->confirmed[a->n++] = rd->state[i] == JOURNAL_CREATED;
+            rd->paths[i] = rd->classes[i] = NULL;
+        }
+    }
+    return 0;
+}
+
+int journal_read(const char *path, journal_alive_t *a, out_t *o)
+{
+    memset(a, 0, sizeof(*a));
+    char *data;
+    size_t len;
+    int rc = read_all(path, &data, &len, o);
+    if (rc)
+        return rc;
+    reader_t rd = {.a = a};
+    rc = pool_new(&rd.index);
+    size_t lineno = 0;
+    for (size_t at = 0; rc == 0 && at < len;) {
+        char *nl = memchr(data + at, '\n', len - at);
+        size_t end = nl ? (size_t)(nl - data) : len;
+        a->records++;
+        rc = read_line(&rd, path, data + at, end - at, ++lineno, !nl, o);
+        at = end + 1;
+    }
+    if (rc == 0 && !a->target) {
+        out_error(o, "%s: empty journal (expected its header line)", path);
+        rc = SQ_EPARSE;
+    }
+    if (rc == 0)
+        rc = collect_alive(&rd);
+    for (size_t i = 0; i < rd.n; i++) {
+        free(rd.paths[i]);
+        free(rd.classes[i]);
+    }
+    free(rd.paths);
+    free(rd.classes);
+    free(rd.state);
+    pool_free(rd.index);
+    free(data);
+    if (rc)
+        journal_alive_close(a);
+    return rc;
+}
+
+void journal_alive_close(journal_alive_t *a)
+{
+    for (size_t i = 0; i < a->n; i++) {
+        free(a->paths[i]);
+        free(a->classes[i]);
+    }
+    free(a->paths);
+    free(a->classes);
+    free(a->confirmed);
+    free(a->target);
+    memset(a, 0, sizeof(*a));
+}

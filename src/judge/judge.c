@@ -1,0 +1,286 @@
+/* Objectives judged against results: every objective becomes one check per phase its class ran
+ * in and one for the whole run, each with the observed value, the threshold and a verdict. */
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/err.h"
+#include "squall/judge.h"
+
+struct judge {
+    judge_check_t *checks;
+    size_t n, cap;
+    char **strings; /* texts and class names the checks point to */
+    size_t n_strings;
+};
+
+/* What one (class, scope) gathered from the cells: counts and the metric's histogram. */
+typedef struct {
+    int64_t answered, errors;
+    double elapsed_s;
+    hist_t *h;
+} tally_t;
+
+static const char *const metric_names[] = {
+    [PLAN_METRIC_RESPONSE] = "response",
+    [PLAN_METRIC_SERVICE] = "service",
+    [PLAN_METRIC_OPEN] = "open",
+    [PLAN_METRIC_PROPAGATION] = "propagation",
+};
+
+const char *judge_verdict_name(enum judge_verdict v)
+{
+    return v == JUDGE_PASS ? "pass" : v == JUDGE_FAIL ? "fail" : "no-data";
+}
+
+static bool outcome_is_error(const char *oc)
+{
+    return strcmp(oc, "2xx") && strcmp(oc, "3xx") && strcmp(oc, "cancelled");
+}
+
+static char *keep(judge_t *j, const char *s)
+{
+    char **ns = realloc(j->strings, (j->n_strings + 1) * sizeof(*ns));
+    if (!ns)
+        return NULL;
+    j->strings = ns;
+    char *c = strdup(s);
+    if (c)
+        j->strings[j->n_strings++] = c;
+    return c;
+}
+
+static judge_check_t *add_check(judge_t *j)
+{
+    if (j->n == j->cap) {
+        size_t cap = j->cap ? 2 * j->cap : 16;
+        judge_check_t *nc = realloc(j->checks, cap * sizeof(*nc));
+        if (!nc)
+            return NULL;
+        j->checks = nc;
+        j->cap = cap;
+    }
+    memset(&j->checks[j->n], 0, sizeof(j->checks[0]));
+    return &j->checks[j->n++];
+}
+
+static double phase_elapsed_s(const judge_phase_t *phases, size_t n, const char *name)
+{
+    for (size_t i = 0; i < n; i++)
+        if (strcmp(phases[i].name, name) == 0)
+            return (double)phases[i].elapsed_ns / 1e9;
+    return 0;
+}
+
+/* Sums the cells of class cls in phase `phase` (NULL: every phase) into t. The metric is
+ * metric (-1 when this build does not record it: t->h then stays empty). */
+static void gather(const results_t *res, const char *cls, const char *phase, int metric,
+                   const judge_phase_t *phases, size_t n_phases, tally_t *t)
+{
+    t->answered = t->errors = 0;
+    t->elapsed_s = 0;
+    hist_reset(t->h);
+    for (size_t i = 0; i < n_phases; i++) {
+        bool ran = false;
+        if (phase && strcmp(phase, phases[i].name))
+            continue;
+        for (size_t k = 0; k < results_cell_count(res); k++) {
+            const results_cell_t *c = results_cell_at(res, k);
+            const char *oc = results_cell_outcome(c);
+            if (strcmp(results_cell_class(c), cls) ||
+                strcmp(results_cell_phase(c), phases[i].name) || strcmp(oc, "cancelled") == 0)
+                continue;
+            int64_t n = results_cell_counters((results_cell_t *)c)->count;
+            ran = ran || n > 0;
+            t->answered += n;
+            t->errors += outcome_is_error(oc) ? n : 0;
+            const hist_t *h = metric >= 0 ? results_cell_hist_find(c, metric) : NULL;
+            if (h)
+                hist_merge(t->h, h);
+        }
+        if (ran)
+            t->elapsed_s += phase_elapsed_s(phases, n_phases, phases[i].name);
+    }
+}
+
+/* The observed value of objective ob over tally t; false when nothing was measured. */
+static bool observe(const plan_objective_t *ob, const tally_t *t, judge_check_t *ck)
+{
+    switch (ob->limit) {
+    case PLAN_LIMIT_PERCENTILE:
+        ck->unit = "ms";
+        ck->threshold = (double)ob->max_ns / 1e6;
+        ck->samples = hist_count(t->h);
+        ck->observed = (double)hist_value_at(t->h, ob->percentile) / 1e6;
+        return ck->samples > 0;
+    case PLAN_LIMIT_ERROR_RATE:
+        ck->unit = "fraction";
+        ck->threshold = ob->value;
+        ck->samples = t->answered;
+        ck->observed = t->answered ? (double)t->errors / (double)t->answered : 0;
+        return t->answered > 0;
+    case PLAN_LIMIT_MIN_RATE:
+        ck->unit = "per_s";
+        ck->threshold = ob->value;
+        ck->samples = t->answered;
+        ck->observed = t->elapsed_s > 0 ? (double)t->answered / t->elapsed_s : 0;
+        return t->elapsed_s > 0;
+    }
+    return false;
+}
+
+static bool holds(const plan_objective_t *ob, double observed, double threshold)
+{
+    return ob->limit == PLAN_LIMIT_MIN_RATE ? observed >= threshold : observed <= threshold;
+}
+
+/* The objective as a user would say it, e.g. "p99 of response <= 20 ms". */
+static void describe(const plan_objective_t *ob, char *buf, size_t cap)
+{
+    if (ob->limit == PLAN_LIMIT_PERCENTILE && ob->percentile >= 100)
+        snprintf(buf, cap, "max of %s <= %g ms", metric_names[ob->metric],
+                 (double)ob->max_ns / 1e6);
+    else if (ob->limit == PLAN_LIMIT_PERCENTILE)
+        snprintf(buf, cap, "p%g of %s <= %g ms", ob->percentile, metric_names[ob->metric],
+                 (double)ob->max_ns / 1e6);
+    else if (ob->limit == PLAN_LIMIT_ERROR_RATE)
+        snprintf(buf, cap, "error rate <= %g%%", ob->value * 100);
+    else
+        snprintf(buf, cap, "rate >= %g/s", ob->value);
+}
+
+static int check_one(judge_t *j, size_t oi, const plan_objective_t *ob, const char *text,
+                     const char *cls, const char *scope, const tally_t *t)
+{
+    judge_check_t *ck = add_check(j);
+    if (!ck)
+        return SQ_ENOMEM;
+    ck->objective = oi;
+    ck->text = text;
+    ck->cls = cls;
+    ck->scope = scope;
+    bool measured = observe(ob, t, ck);
+    ck->verdict = !measured                                ? JUDGE_NO_DATA
+                  : holds(ob, ck->observed, ck->threshold) ? JUDGE_PASS
+                                                           : JUDGE_FAIL;
+    return 0;
+}
+
+/* The checks of one objective for one class: each phase it ran in, then the run. */
+static int judge_class(judge_t *j, size_t oi, const plan_objective_t *ob, const char *text,
+                       const char *cls, const results_t *res, const judge_phase_t *phases,
+                       size_t n_phases, tally_t *t)
+{
+    int metric = results_metric_from_name(metric_names[ob->metric]);
+    metric = metric < 0 ? -1 : metric;
+    const char *kept = keep(j, cls);
+    if (!kept)
+        return SQ_ENOMEM;
+    int checks = 0, rc = 0;
+    for (size_t i = 0; rc == 0 && i < n_phases; i++) {
+        if (ob->phase.name && strcmp(ob->phase.name, phases[i].name))
+            continue;
+        gather(res, cls, phases[i].name, metric, phases, n_phases, t);
+        if (t->answered == 0 && !ob->phase.name)
+            continue;
+        rc = check_one(j, oi, ob, text, kept, phases[i].name, t);
+        checks++;
+    }
+    if (rc == 0 && !ob->phase.name) {
+        gather(res, cls, NULL, metric, phases, n_phases, t);
+        rc = check_one(j, oi, ob, text, kept, "run", t);
+    }
+    return rc;
+}
+
+/* Distinct class names of res's cells, in first-seen order; *n of them. NULL on ENOMEM. */
+static const char **cell_classes(const results_t *res, size_t *n)
+{
+    size_t cells = results_cell_count(res);
+    const char **names = calloc(cells ? cells : 1, sizeof(*names));
+    *n = 0;
+    for (size_t i = 0; names && i < cells; i++) {
+        const char *c = results_cell_class(results_cell_at(res, i));
+        size_t k = 0;
+        while (k < *n && strcmp(names[k], c))
+            k++;
+        if (k == *n)
+            names[(*n)++] = c;
+    }
+    return names;
+}
+
+static int judge_objective(judge_t *j, size_t oi, const plan_objective_t *ob, const results_t *res,
+                           const judge_phase_t *phases, size_t n_phases, tally_t *t)
+{
+    char buf[128];
+    describe(ob, buf, sizeof buf);
+    const char *text = keep(j, buf);
+    if (!text)
+        return SQ_ENOMEM;
+    if (ob->cls.name && strcmp(ob->cls.name, "*"))
+        return judge_class(j, oi, ob, text, ob->cls.name, res, phases, n_phases, t);
+    size_t n = 0;
+    const char **names = cell_classes(res, &n);
+    if (!names)
+        return SQ_ENOMEM;
+    int rc = 0;
+    for (size_t k = 0; rc == 0 && k < n; k++)
+        rc = judge_class(j, oi, ob, text, names[k], res, phases, n_phases, t);
+    if (rc == 0 && n == 0)
+        rc = check_one(j, oi, ob, text, "*", "run", t);
+    free(names);
+    return rc;
+}
+
+int judge_evaluate(const plan_objective_t *objs, size_t n_objs, const results_t *res,
+                   const judge_phase_t *phases, size_t n_phases, judge_t **out)
+{
+    *out = NULL;
+    judge_t *j = calloc(1, sizeof(*j));
+    if (!j)
+        return SQ_ENOMEM;
+    int64_t lo, hi;
+    int digits;
+    results_hist_config(res, &lo, &hi, &digits);
+    tally_t t = {0};
+    int rc = hist_new(lo, hi, digits, &t.h);
+    for (size_t i = 0; rc == 0 && i < n_objs; i++)
+        rc = judge_objective(j, i, &objs[i], res, phases, n_phases, &t);
+    hist_free(t.h);
+    if (rc) {
+        judge_free(j);
+        return rc;
+    }
+    *out = j;
+    return 0;
+}
+
+void judge_free(judge_t *j)
+{
+    if (!j)
+        return;
+    for (size_t i = 0; i < j->n_strings; i++)
+        free(j->strings[i]);
+    free(j->strings);
+    free(j->checks);
+    free(j);
+}
+
+size_t judge_check_count(const judge_t *j)
+{
+    return j->n;
+}
+
+const judge_check_t *judge_check_at(const judge_t *j, size_t i)
+{
+    return i < j->n ? &j->checks[i] : NULL;
+}
+
+bool judge_failed(const judge_t *j)
+{
+    for (size_t i = 0; i < j->n; i++)
+        if (j->checks[i].verdict != JUDGE_PASS)
+            return true;
+    return false;
+}

@@ -1,0 +1,60 @@
+/* Objectives as output: the results.json section and the verdict table printed after a run. */
+#include <stdio.h>
+#include <string.h>
+
+#include "squall/judge.h"
+
+json_t *judge_json(const judge_t *j)
+{
+    json_t *checks = json_array();
+    size_t objectives = 0;
+    for (size_t i = 0; checks && i < judge_check_count(j); i++) {
+        const judge_check_t *c = judge_check_at(j, i);
+        if (c->objective + 1 > objectives)
+            objectives = c->objective + 1;
+        json_array_append_new(checks, json_pack("{s:I, s:s, s:s, s:s, s:f, s:f, s:s, s:I, s:s}",
+                                                "objective", (json_int_t)c->objective, "text",
+                                                c->text, "class", c->cls, "scope", c->scope,
+                                                "observed", c->observed, "threshold", c->threshold,
+                                                "unit", c->unit, "samples", (json_int_t)c->samples,
+                                                "verdict", judge_verdict_name(c->verdict)));
+    }
+    return json_pack("{s:b, s:I, s:o}", "passed", !judge_failed(j), "objectives",
+                     (json_int_t)objectives, "checks", checks);
+}
+
+/* A value in its unit, for people: "12.40 ms", "0.50%", "199.8/s". */
+static void human(double v, const char *unit, char *buf, size_t cap)
+{
+    if (strcmp(unit, "ms") == 0)
+        snprintf(buf, cap, "%.2f ms", v);
+    else if (strcmp(unit, "fraction") == 0)
+        snprintf(buf, cap, "%.2f%%", v * 100);
+    else
+        snprintf(buf, cap, "%.1f/s", v);
+}
+
+void judge_print(const judge_t *j, out_t *o)
+{
+    size_t n = judge_check_count(j), failed = 0;
+    if (n == 0)
+        return;
+    out_print(o, "\nobjectives\n%-8s %-12s %-24s %-30s %12s %12s\n", "verdict", "scope", "class",
+              "objective", "observed", "threshold");
+    for (size_t i = 0; i < n; i++) {
+        const judge_check_t *c = judge_check_at(j, i);
+        char obs[32] = "-", thr[32];
+        if (c->verdict != JUDGE_NO_DATA)
+            human(c->observed, c->unit, obs, sizeof obs);
+        human(c->threshold, c->unit, thr, sizeof thr);
+        static const char *const shout[] = {"pass", "FAIL", "NO-DATA"};
+        out_print(o, "%-8s %-12s %-24s %-30s %12s %12s\n", shout[c->verdict], c->scope, c->cls,
+                  c->text, obs, thr);
+        failed += c->verdict != JUDGE_PASS;
+    }
+    if (failed)
+        out_print(o, "%zu of %zu objective checks did not pass (no-data counts as a failure)\n",
+                  failed, n);
+    else
+        out_print(o, "all %zu objective checks passed\n", n);
+}

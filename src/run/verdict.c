@@ -1,0 +1,62 @@
+/* The run's verdict: the plan's objectives judged over the finished results (the "objectives"
+ * section of results.json, the table after the summary, exit 1 on a failure). */
+#include <stdlib.h>
+
+#include "run_int.h"
+#include "squall/err.h"
+#include "squall/judge.h"
+
+struct run_verdict {
+    judge_t *judge;
+};
+
+/* Each phase's elapsed time: planned, cut short where the run stopped; 0 if never started. */
+static judge_phase_t *phase_times(const runner_t *r)
+{
+    judge_phase_t *ph = calloc(r->n_phases ? r->n_phases : 1, sizeof(*ph));
+    for (size_t i = 0; ph && i < r->n_phases; i++) {
+        const run_phase_t *p = &r->phases[i];
+        ph[i].name = p->pp->name;
+        if (i > r->cur || r->run_start_ns == 0)
+            continue;
+        int64_t ran = r->run_end_ns - p->base_ns;
+        ph[i].elapsed_ns = ran < p->duration_ns ? (ran > 0 ? ran : 0) : p->duration_ns;
+    }
+    return ph;
+}
+
+int run_verdict_judge(runner_t *r)
+{
+    struct run_verdict *v = calloc(1, sizeof(*v));
+    judge_phase_t *ph = phase_times(r);
+    int rc = v && ph ? 0 : SQ_ENOMEM;
+    r->verdict = v;
+    if (rc == 0)
+        rc = judge_evaluate(r->plan->objectives, r->plan->n_objectives, r->res, ph, r->n_phases,
+                            &v->judge);
+    free(ph);
+    if (rc == 0 && r->plan->n_objectives)
+        rc = results_set_section(r->res, JUDGE_SECTION, judge_json(v->judge));
+    if (rc)
+        out_error(r->o, "objectives could not be judged: %s", sq_strerror(rc));
+    return rc;
+}
+
+bool run_verdict_failed(const runner_t *r)
+{
+    return !r->verdict || !r->verdict->judge || judge_failed(r->verdict->judge);
+}
+
+void run_verdict_print(runner_t *r)
+{
+    if (r->verdict && r->verdict->judge)
+        judge_print(r->verdict->judge, r->o);
+}
+
+void run_verdict_close(runner_t *r)
+{
+    if (r->verdict)
+        judge_free(r->verdict->judge);
+    free(r->verdict);
+    r->verdict = NULL;
+}
