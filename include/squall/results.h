@@ -35,7 +35,9 @@
     X(LAG, "lag")               /* actual start - intended start */                                \
     X(CONNECT, "connect")       /* TCP connect, new connections only */                            \
     X(TLS, "tls")               /* TLS handshake, new connections only */                          \
-    X(FIRST_BYTE, "first_byte") /* actual start -> first response byte */
+    X(FIRST_BYTE, "first_byte") /* actual start -> first response byte */                          \
+    X(OPEN, "open")             /* watch: intended open -> first body byte */                      \
+    X(PROPAGATION, "propagation") /* watch: writer's stamp -> event seen (CLOCK_REALTIME) */
 
 enum results_metric {
 #define RESULTS_METRIC_ENUM(id, name) RESULTS_M_##id,

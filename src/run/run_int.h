@@ -132,6 +132,9 @@ struct runner {
     struct run_health *health; /* the brakes (health.c) */
     int64_t last_response_ns;  /* last HTTP answer of any kind */
 
+    /* watch: the current phase's watch streams (watches.c). */
+    struct run_watches *watches;
+
     /* life: pools, journal, churn and teardown (lifecycle.c). */
     struct run_life *life;
 };
@@ -164,6 +167,38 @@ double run_phase_expected(const run_phase_t *ph, int64_t t0, int64_t t1);
 
 /* summary.c */
 void run_summary(runner_t *r, const char *dir);
+
+/* life: lifecycle.c. Pools of the objects that creating classes made (201 answers), served to
+ * templates by the `pick` resolver; the journal (DIR/journal.ndjson) of every create and
+ * delete; churn phases; and the teardown after the last phase. run_life_init (from
+ * run_classes_init, before any template is compiled), run_life_start (opens the journal once
+ * the results directory exists), per request run_life_skip (before rendering: true when a
+ * {{pick}} pool is empty, so nothing is sent), run_life_sending (a create's write-ahead journal
+ * line), run_life_done (every answer), run_life_churn_due (every wake-up), run_life_second
+ * (flushes the journal), run_life_teardown (after the loop ends, before results are written;
+ * runs its own engine on r->loop) and run_life_close. */
+int run_life_init(runner_t *r);
+int run_life_start(runner_t *r, const char *dir);
+bool run_life_skip(runner_t *r, int cls);
+void run_life_sending(runner_t *r, int cls, const char *path);
+void run_life_done(runner_t *r, const run_req_t *q, const eng_result_t *res);
+int run_life_churn_due(runner_t *r, int64_t now_ns);
+void run_life_second(runner_t *r);
+void run_life_teardown(runner_t *r, const char *token);
+void run_life_close(runner_t *r);
+
+/* watch: watches.c. A phase's watch streams run on their own engine (one connection per stream
+ * over HTTP/1.1, multiplexed over HTTP/2) so they never take the main engine's slots; they open
+ * at once or spread, live for the phase, and close at its end. run_watches_init (before any
+ * traffic; raises RLIMIT_NOFILE and refuses a plan the limit stops; keeps `token`), then per
+ * phase run_watches_start (from phase_start), run_watches_tick (every wake-up: opens and
+ * reconnects that are due), run_watches_stop (at the phase's end and in finish: writes the
+ * "watches" section), and run_watches_close (teardown). All are no-ops without watches. */
+int run_watches_init(runner_t *r, const char *token);
+int run_watches_start(runner_t *r, size_t phase);
+void run_watches_tick(runner_t *r, int64_t now_ns);
+void run_watches_stop(runner_t *r);
+void run_watches_close(runner_t *r);
 
 /* life: lifecycle.c. Pools of the objects that creating classes made (201 answers), served to
  * templates by the `pick` resolver; the journal (DIR/journal.ndjson) of every create and

@@ -144,6 +144,8 @@ static int phase_start(runner_t *r, size_t i, int64_t base_ns)
     }
     if (rc == 0 && pp->fleet.on)
         rc = phase_fleet_init(r, ph, i);
+    if (rc == 0 && pp->watches.n_sets)
+        rc = run_watches_start(r, i); /* watch */
     r->cur = i;
     if (rc)
         out_error(r->o, "phase '%s': cannot build its schedule: %s", pp->name, sq_strerror(rc));
@@ -219,6 +221,7 @@ static void next_phase(runner_t *r, int64_t now_ns)
 {
     run_phase_t *ph = &r->phases[r->cur];
     int64_t end = ph->base_ns + ph->duration_ns;
+    run_watches_stop(r); /* watch: a phase's watches end with it */
     if (r->cur + 1 >= r->n_phases) {
         /* Every request has its timeout: draining ends by the longest one. */
         int64_t longest = 0;
@@ -248,6 +251,7 @@ static void on_tick(uv_timer_t *t)
             ph->counted_to = upto;
         }
         issue_due(r, now);
+        run_watches_tick(r, now); /* watch */
         if (r->state == RUN_ACTIVE && rel >= ph->duration_ns)
             next_phase(r, now);
     }
@@ -303,6 +307,7 @@ static void finish(runner_t *r)
     r->run_end_ns = (int64_t)uv_hrtime();
     run_second(r, true);
     r->state = RUN_DONE;
+    run_watches_stop(r); /* watch */
     eng_free(r->eng);
     r->eng = NULL;
     uv_timer_stop(&r->tick);
@@ -321,9 +326,7 @@ static int check_supported(const runner_t *r)
     int bad = 0;
     for (size_t i = 0; i < r->plan->n_phases; i++) {
         const plan_phase_t *pp = &r->plan->phases[i];
-        const char *what = pp->watches.n_sets ? "watches"
-                           : pp->replay.on    ? "replay"
-                                              : NULL;
+        const char *what = pp->replay.on ? "replay" : NULL;
         if (!what)
             continue;
         out_raw(r->o, OUT_ERROR,
@@ -506,7 +509,10 @@ static int write_results(runner_t *r, const char *dir)
 /* Sets up, runs the loop to the end, and tears down; returns the exit code. */
 static int run_loop(runner_t *r, const char *dir, const char *token)
 {
-    int rc = engine_start(r, token);
+    int rc = run_watches_init(r, token); /* watch: before any traffic */
+    if (rc)
+        return rc == SQ_ELIMIT ? SQ_EXIT_USAGE : SQ_EXIT_FAILURE;
+    rc = engine_start(r, token);
     if (rc)
         return rc == SQ_EINVAL ? SQ_EXIT_USAGE : SQ_EXIT_FAILURE;
     rc = handles_start(r);
@@ -580,6 +586,7 @@ out_state:
     run_series_close(r);
     results_free(r->res);
     run_health_close(r);
+    run_watches_close(r); /* watch */
     state_close(r);
 out_classes:
     if (token) {
