@@ -82,7 +82,9 @@ base = f"http://127.0.0.1:{port}"
 req = b"GET /v1/sites/harbor/gateways?watch=1 HTTP/1.1\r\nHost: t\r\n\r\n"
 socks, t0 = [], time.monotonic()
 for i in range(n):
-    s = socket.create_connection(("127.0.0.1", port))
+    # Spread over 8 source addresses: with one, connect() slows to ~1 ms as the kernel searches
+    # a nearly full ephemeral port range (measured: 19.5 s vs 2.5 s for 19,000 connections).
+    s = socket.create_connection(("127.0.0.1", port), source_address=(f"127.0.0.{2 + i % 8}", 0))
     s.sendall(req)
     socks.append(s)
 def stats():
