@@ -135,6 +135,9 @@ struct runner {
     /* watch: the current phase's watch streams (watches.c). */
     struct run_watches *watches;
 
+    /* judge: objectives and report.html (verdict.c). */
+    struct run_verdict *verdict;
+
     /* life: pools, journal, churn and teardown (lifecycle.c). */
     struct run_life *life;
 };
@@ -167,6 +170,14 @@ double run_phase_expected(const run_phase_t *ph, int64_t t0, int64_t t1);
 
 /* summary.c */
 void run_summary(runner_t *r, const char *dir);
+
+/* judge: verdict.c. After the loop ends and before results are written: run_verdict_judge
+ * adds the "objectives" section to r->res; run_verdict_failed says whether an objective failed
+ * (exit 1). */
+int run_verdict_judge(runner_t *r);
+bool run_verdict_failed(const runner_t *r);
+void run_verdict_print(runner_t *r);
+void run_verdict_close(runner_t *r);
 
 /* life: lifecycle.c. Pools of the objects that creating classes made (201 answers), served to
  * templates by the `pick` resolver; the journal (DIR/journal.ndjson) of every create and

@@ -503,6 +503,8 @@ static int write_results(runner_t *r, const char *dir)
         if (r->plan->phases[i].clients.on)
             json_object_set(g, "closed_loop", json_true());
     results_set_section(r->res, "generator", g);
+    if (run_verdict_judge(r)) /* judge: the "objectives" section */
+        return SQ_ENOMEM;
     return results_write_dir(r->res, dir, r->o);
 }
 
@@ -533,6 +535,8 @@ static int run_loop(runner_t *r, const char *dir, const char *token)
     int code = exit_code(r);
     if (write_results(r, dir))
         code = SQ_EXIT_FAILURE;
+    else if (code == SQ_EXIT_OK && run_verdict_failed(r)) /* judge */
+        code = SQ_EXIT_OBJECTIVES;
     if (!r->opts->quiet)
         run_summary(r, dir);
     return rc && code == SQ_EXIT_OK ? SQ_EXIT_FAILURE : code;
@@ -584,6 +588,7 @@ int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o)
         out_warn(o, "internal: event loop closed with handles still open");
 out_state:
     run_series_close(r);
+    run_verdict_close(r);
     results_free(r->res);
     run_health_close(r);
     run_watches_close(r); /* watch */
