@@ -56,6 +56,21 @@ awk '$1 < 0.020 || $1 > 0.055 {bad=1} END{exit bad}' "$tmp/lat" ||
     fail "uniform 20..40 ms: times $(tr '\n' ' ' <"$tmp/lat")"
 echo "ok: uniform 20..40 ms delay: client times $(sort -n "$tmp/lat" | head -1)..$(sort -n "$tmp/lat" | tail -1) s"
 
+# Exponential delay, mean 20 ms: the mean of 100 draws (the target's exact sum / count) lies
+# within 4 standard errors of 20 ms (for Exp, sd = mean: se = 2 ms), and the client's mean time
+# is at least the drawn mean (each answer waits its own draw).
+faults '{"delay":"exp:20ms"}' >/dev/null
+read -r s0 n0 < <(curl -s "$U/admin/faults" | jq -r '"\(.counts.delay_seconds_total) \(.counts.delayed)"')
+for i in $(seq 100); do
+    curl -s -o /dev/null -w '%{time_total}\n' "$U/v1/sites/north/gateways/gw-1"
+done >"$tmp/lat"
+drawn=$(curl -s "$U/admin/faults" |
+    jq --argjson s0 "$s0" --argjson n0 "$n0" '(.counts.delay_seconds_total - $s0) / (.counts.delayed - $n0)')
+cmean=$(awk '{s+=$1} END{print s/NR}' "$tmp/lat")
+awk -v d="$drawn" -v c="$cmean" 'BEGIN{exit !(d >= 0.012 && d <= 0.028 && c >= d)}' ||
+    fail "exp:20ms: drawn mean ${drawn}s, client mean ${cmean}s"
+echo "ok: exp:20ms delay: drawn mean ${drawn}s over 100, client mean ${cmean}s"
+
 # Error rate: 30 % answered 503 with Retry-After: 2. The client's count must equal the target's
 # exactly; the share must be plausible for Binomial(300, 0.3) (mean 90, sd 7.9: within 4 sd).
 faults '{"fail_rate":0.3,"fail_status":503,"retry_after":2}' >/dev/null
