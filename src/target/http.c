@@ -195,29 +195,37 @@ static void slot_free(tgt_req_t *q)
 
 /* ---- The fault pipeline for /v1/ requests; MHD_YES with nothing queued means "held". */
 
-static enum MHD_Result faults_then_serve(tgt_req_t *q, const char *url)
+/* Inside a stall window: hold q until the window ends (counted once per request). */
+static bool stall_hold(tgt_req_t *q, enum MHD_Result *rc)
 {
     tgt_server_t *sv = q->sv;
     const target_faults_t *f = &sv->faults;
-    uint64_t now = uv_hrtime();
-    if (sv->draining)
-        return error_reply(sv, q->conn, q->method, 503, "shutting-down", "the target is stopping",
-                           1);
-    if (f->stall_at_ns >= 0 && f->stall_for_ns > 0) {
-        uint64_t start = sv->faults_at + (uint64_t)f->stall_at_ns;
-        uint64_t end = start + (uint64_t)f->stall_for_ns;
-        if (now >= start && now < end) {
-            if (!q->stall_counted)
-                sv->fc.stalled++;
-            q->stall_counted = true;
-            return hold_for(q, (int64_t)(end - now));
-        }
-    }
-    if (!q->admitted && f->max_inflight > 0 && sv->inflight >= f->max_inflight) {
+    if (f->stall_at_ns < 0 || f->stall_for_ns <= 0)
+        return false;
+    uint64_t now = uv_hrtime(), start = sv->faults_at + (uint64_t)f->stall_at_ns;
+    uint64_t end = start + (uint64_t)f->stall_for_ns;
+    if (now < start || now >= end)
+        return false;
+    if (!q->stall_counted)
+        sv->fc.stalled++;
+    q->stall_counted = true;
+    *rc = hold_for(q, (int64_t)(end - now));
+    return true;
+}
+
+/* Takes an in-flight slot, or rejects (429) or queues q when none is free. */
+static bool admit_or_hold(tgt_req_t *q, enum MHD_Result *rc)
+{
+    tgt_server_t *sv = q->sv;
+    const target_faults_t *f = &sv->faults;
+    if (q->admitted)
+        return false;
+    if (f->max_inflight > 0 && sv->inflight >= f->max_inflight) {
         if (f->over_limit_reject) {
             sv->fc.rejected++;
-            return error_reply(sv, q->conn, q->method, 429, "over-limit",
-                               "too many requests in flight", f->retry_after_s);
+            *rc = error_reply(sv, q->conn, q->method, 429, "over-limit",
+                              "too many requests in flight", f->retry_after_s);
+            return true;
         }
         sv->fc.queued++;
         if (sv->queue_tail)
@@ -226,12 +234,27 @@ static enum MHD_Result faults_then_serve(tgt_req_t *q, const char *url)
             sv->queue_head = q;
         sv->queue_tail = q;
         hold_link(q);
-        return MHD_YES;
+        *rc = MHD_YES;
+        return true;
     }
-    if (!q->admitted) {
-        q->admitted = true;
-        sv->inflight++;
-    }
+    q->admitted = true;
+    sv->inflight++;
+    return false;
+}
+
+/* The order is that of a real overloaded server: a stall holds everything, then admission,
+ * then the added service time, then an injected error instead of the answer. Each step runs
+ * once per request even though the handler is called again after every hold. */
+static enum MHD_Result faults_then_serve(tgt_req_t *q, const char *url)
+{
+    tgt_server_t *sv = q->sv;
+    const target_faults_t *f = &sv->faults;
+    enum MHD_Result rc;
+    if (sv->draining)
+        return error_reply(sv, q->conn, q->method, 503, "shutting-down", "the target is stopping",
+                           1);
+    if (stall_hold(q, &rc) || admit_or_hold(q, &rc))
+        return rc;
     if (!q->delayed) {
         q->delayed = true;
         int64_t d = tgt_fault_delay(f, &sv->rng);
