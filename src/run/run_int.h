@@ -172,11 +172,12 @@ double run_phase_expected(const run_phase_t *ph, int64_t t0, int64_t t1);
 void run_summary(runner_t *r, const char *dir);
 
 /* judge: verdict.c. After the loop ends and before results are written: run_verdict_judge
- * adds the "objectives" section to r->res; run_verdict_failed says whether an objective failed
- * (exit 1). */
+ * adds the "objectives" and "phases" sections to r->res; run_verdict_failed says whether an
+ * objective failed (exit 1). After writing: run_verdict_report writes DIR/report.html. */
 int run_verdict_judge(runner_t *r);
 bool run_verdict_failed(const runner_t *r);
 void run_verdict_print(runner_t *r);
+int run_verdict_report(runner_t *r, const char *dir);
 void run_verdict_close(runner_t *r);
 
 /* life: lifecycle.c. Pools of the objects that creating classes made (201 answers), served to

@@ -537,6 +537,8 @@ static int run_loop(runner_t *r, const char *dir, const char *token)
         code = SQ_EXIT_FAILURE;
     else if (code == SQ_EXIT_OK && run_verdict_failed(r)) /* judge */
         code = SQ_EXIT_OBJECTIVES;
+    if (run_verdict_report(r, dir)) /* judge: DIR/report.html */
+        code = SQ_EXIT_FAILURE;
     if (!r->opts->quiet)
         run_summary(r, dir);
     return rc && code == SQ_EXIT_OK ? SQ_EXIT_FAILURE : code;

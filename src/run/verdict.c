@@ -1,10 +1,12 @@
 /* The run's verdict: the plan's objectives judged over the finished results (the "objectives"
- * section of results.json, the table after the summary, exit 1 on a failure). */
+ * section of results.json, the table after the summary, exit 1 on a failure), the "phases"
+ * section (when each phase ran) and report.html. */
 #include <stdlib.h>
 
 #include "run_int.h"
 #include "squall/err.h"
 #include "squall/judge.h"
+#include "squall/report.h"
 
 struct run_verdict {
     judge_t *judge;
@@ -25,6 +27,18 @@ static judge_phase_t *phase_times(const runner_t *r)
     return ph;
 }
 
+/* {"phases": [{name, start_s, elapsed_s}]}: seconds from the run's start, for reports. */
+static json_t *phases_json(const runner_t *r, const judge_phase_t *ph)
+{
+    json_t *list = json_array();
+    for (size_t i = 0; list && i < r->n_phases; i++) {
+        double start = i <= r->cur ? (double)(r->phases[i].base_ns - r->run_start_ns) / 1e9 : 0;
+        json_array_append_new(list, json_pack("{s:s, s:f, s:f}", "name", ph[i].name, "start_s",
+                                              start, "elapsed_s", (double)ph[i].elapsed_ns / 1e9));
+    }
+    return json_pack("{s:o}", "phases", list);
+}
+
 int run_verdict_judge(runner_t *r)
 {
     struct run_verdict *v = calloc(1, sizeof(*v));
@@ -34,6 +48,8 @@ int run_verdict_judge(runner_t *r)
     if (rc == 0)
         rc = judge_evaluate(r->plan->objectives, r->plan->n_objectives, r->res, ph, r->n_phases,
                             &v->judge);
+    if (rc == 0 && r->run_start_ns)
+        rc = results_set_section(r->res, "phases", phases_json(r, ph));
     free(ph);
     if (rc == 0 && r->plan->n_objectives)
         rc = results_set_section(r->res, JUDGE_SECTION, judge_json(v->judge));
@@ -51,6 +67,11 @@ void run_verdict_print(runner_t *r)
 {
     if (r->verdict && r->verdict->judge)
         judge_print(r->verdict->judge, r->o);
+}
+
+int run_verdict_report(runner_t *r, const char *dir)
+{
+    return report_html_write_dir(dir, r->res, r->o);
 }
 
 void run_verdict_close(runner_t *r)

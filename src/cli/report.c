@@ -1,0 +1,55 @@
+/* `squall report`: regenerates DIR/report.html from DIR/results.json and DIR/series.csv. */
+#include "squall/cli.h"
+#include "squall/err.h"
+#include "squall/report.h"
+#include "squall/results.h"
+
+static const cli_opt_t report_opts[] = {
+    {NULL, 0, NULL, NULL},
+};
+
+static int report_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
+{
+    cli_args_t a;
+    const char *v, *dir = NULL;
+    int k;
+    cli_args_init(&a, cmd, argc, argv);
+    while ((k = cli_next(&a, o, &v)) != CLI_END) {
+        if (k == CLI_HELP) {
+            cli_print_help(cmd, o);
+            return SQ_EXIT_OK;
+        }
+        if (k == CLI_ERROR)
+            return SQ_EXIT_USAGE;
+        if (dir)
+            return cli_usage_error(cmd, o, "one RESULTS_DIR only (got '%s' and '%s')", dir, v);
+        dir = v;
+    }
+    if (!dir)
+        return cli_usage_error(cmd, o, "missing RESULTS_DIR");
+    results_t *res = NULL;
+    if (results_read(dir, &res, o) != 0)
+        return SQ_EXIT_FAILURE;
+    int rc = report_html_write_dir(dir, res, o);
+    results_free(res);
+    if (rc)
+        return SQ_EXIT_FAILURE;
+    out_print(o, "%s/%s\n", dir, REPORT_HTML_FILE);
+    return SQ_EXIT_OK;
+}
+
+const cli_cmd_t cli_cmd_report = {
+    .name = "report",
+    .summary = "write report.html of a results directory again",
+    .usage = "RESULTS_DIR",
+    .description =
+        "Reads RESULTS_DIR/results.json and RESULTS_DIR/series.csv and writes\n"
+        "RESULTS_DIR/report.html: one self-contained page (inline SVG and CSS, no scripts,\n"
+        "nothing fetched) with the run header, objective verdicts, generator health, per phase\n"
+        "and class tables, plots over time and latency percentile spectra. squall run writes\n"
+        "the same file at the end of every run. Without series.csv the plots over time are\n"
+        "left out. Exit 0 when written, 2 on a usage mistake, 6 when a file cannot be read or\n"
+        "written.",
+    .opts = report_opts,
+    .main = report_main,
+};

@@ -1,0 +1,229 @@
+/* report.html: one self-contained page (inline CSS and SVG, no scripts, nothing fetched) with
+ * the run header, objective verdicts, per phase x class tables and the plots. */
+#include <errno.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "html_int.h"
+#include "squall/err.h"
+
+static const char css[] =
+    "body{font:15px/1.45 system-ui,sans-serif;color:#1a1a1a;background:#fff;margin:0 auto;"
+    "max-width:1120px;padding:0 24px 48px}\n"
+    "h1{font-size:26px;margin:24px 0 4px}h2{font-size:20px;margin:32px 0 8px;"
+    "border-bottom:2px solid #0072B2;padding-bottom:3px}\n"
+    "table{border-collapse:collapse;margin:8px 0;font-variant-numeric:tabular-nums}\n"
+    "th,td{padding:4px 10px;border-bottom:1px solid #ddd;text-align:left}\n"
+    "td.n,th.n{text-align:right}th{background:#f2f2f2}\n"
+    "table.meta th{background:none;font-weight:600;padding-right:18px}\n"
+    ".pass{color:#005a8c;font-weight:700}.fail{color:#b34700;font-weight:700}\n"
+    ".banner{padding:10px 14px;margin:12px 0;border-left:6px solid;font-weight:600}\n"
+    ".banner.good{border-color:#0072B2;background:#eaf3fa}.banner.bad{border-color:#D55E00;"
+    "background:#fbeee6}\n"
+    ".note{color:#555;font-size:13px}figure{margin:12px 0 24px}figcaption{font-size:13px;"
+    "color:#444}\n"
+    "svg.plot{width:100%;height:auto;font:12px system-ui,sans-serif}\n"
+    "svg .grid{stroke:#e6e6e6}svg .tick{stroke:#888;fill:#333}svg text.tick{stroke:none}\n"
+    "svg .frame{fill:none;stroke:#999}svg .axis-label{font-size:13px;fill:#222}\n"
+    "svg .mark line{stroke:#666;stroke-dasharray:3 3}svg .mark text{font-size:11px;fill:#444}\n"
+    "svg .legend text{font-size:12px;fill:#222}pre{background:#f6f6f6;padding:8px;"
+    "overflow:auto;max-height:320px}\n";
+
+static void kv(FILE *f, const char *k, const char *v)
+{
+    fprintf(f, "<tr><th>%s</th><td>", k);
+    html_esc(f, v ? v : "-");
+    fputs("</td></tr>\n", f);
+}
+
+static const char *jstr(json_t *o, const char *k)
+{
+    return json_string_value(json_object_get(o, k));
+}
+
+static double jnum(json_t *o, const char *k)
+{
+    return json_number_value(json_object_get(o, k));
+}
+
+static void header(FILE *f, const results_t *res)
+{
+    const results_meta_t *m = results_meta(res);
+    char buf[256];
+    fputs("<h1>squall run report</h1>\n<table class=\"meta\">\n", f);
+    kv(f, "plan", m->plan_path);
+    kv(f, "plan SHA-256", m->plan_sha256);
+    kv(f, "target", m->target_url);
+    if (m->start_unix_ms) {
+        time_t t = (time_t)(m->start_unix_ms / 1000);
+        struct tm tm;
+        gmtime_r(&t, &tm);
+        strftime(buf, sizeof buf, "%Y-%m-%d %H:%M:%S UTC", &tm);
+        kv(f, "started", buf);
+    }
+    snprintf(buf, sizeof buf, "%.1f s", (double)m->duration_ns / 1e9);
+    kv(f, "duration", buf);
+    if (m->shard_count)
+        snprintf(buf, sizeof buf, "%d of %d", m->shard_index, m->shard_count);
+    else
+        snprintf(buf, sizeof buf, "merged from %zu inputs", results_input_count(res));
+    kv(f, "shard", buf);
+    kv(f, "host", m->host);
+    kv(f, "squall", m->squall_version);
+    kv(f, "ended early", m->interrupted ? (m->stop_reason ? m->stop_reason : "yes") : "no");
+    fputs("</table>\n", f);
+}
+
+static void generator(FILE *f, const results_t *res)
+{
+    json_t *g = results_section(res, "generator");
+    fputs("<section id=\"generator\"><h2>Generator health</h2>\n", f);
+    if (!g) {
+        fputs("<p class=\"note\">No generator section in results.json.</p></section>\n", f);
+        return;
+    }
+    bool limited = json_is_true(json_object_get(g, "generator_limited"));
+    fprintf(f, "<div class=\"banner %s\">%s</div>\n", limited ? "bad" : "good",
+            limited ? "GENERATOR-LIMITED: the target was not offered the planned load; the "
+                      "figures below are not a verdict on it."
+                    : "The generator kept its schedule.");
+    fputs("<table class=\"meta\">\n", f);
+    char buf[160];
+    if (limited) {
+        snprintf(buf, sizeof buf, "%.0f s", jnum(g, "limited_seconds"));
+        kv(f, "limited for", buf);
+        kv(f, "last reason", jstr(g, "last_reason"));
+    }
+    snprintf(buf, sizeof buf, "%.2f / %.2f / %.2f ms", jnum(g, "schedule_lag_p50_ms"),
+             jnum(g, "schedule_lag_p99_ms"), jnum(g, "schedule_lag_max_ms"));
+    kv(f, "schedule lag p50 / p99 / max", buf);
+    snprintf(buf, sizeof buf, "%.2f ms", jnum(g, "max_queue_wait_ms"));
+    kv(f, "longest wait for a connection", buf);
+    snprintf(buf, sizeof buf, "%.0f started, %.0f completed, %.0f errors", jnum(g, "started"),
+             jnum(g, "completed"), jnum(g, "errors"));
+    kv(f, "requests", buf);
+    fputs("</table></section>\n", f);
+}
+
+static void fmt_value(double v, const char *unit, char *buf, size_t cap)
+{
+    if (!strcmp(unit, "ms"))
+        snprintf(buf, cap, "%.2f ms", v);
+    else if (!strcmp(unit, "fraction"))
+        snprintf(buf, cap, "%.2f %%", v * 100);
+    else
+        snprintf(buf, cap, "%.1f /s", v);
+}
+
+static void objectives(FILE *f, const results_t *res)
+{
+    json_t *o = results_section(res, "objectives");
+    fputs("<section id=\"objectives\"><h2>Objectives</h2>\n", f);
+    if (!o) {
+        fputs("<p class=\"note\">The plan sets no objectives.</p></section>\n", f);
+        return;
+    }
+    bool passed = json_is_true(json_object_get(o, "passed"));
+    fprintf(f, "<div class=\"banner %s\">%s</div>\n", passed ? "good" : "bad",
+            passed ? "&#10004; PASS: every objective held."
+                   : "&#10008; FAIL: at least one "
+                     "objective did not hold.");
+    fputs("<table><tr><th>verdict</th><th>class</th><th>scope</th><th>objective</th>"
+          "<th class=\"n\">observed</th><th class=\"n\">threshold</th><th class=\"n\">samples"
+          "</th></tr>\n",
+          f);
+    size_t i;
+    json_t *c;
+    json_array_foreach(json_object_get(o, "checks"), i, c)
+    {
+        const char *v = jstr(c, "verdict") ? jstr(c, "verdict") : "?";
+        const char *unit = jstr(c, "unit") ? jstr(c, "unit") : "";
+        bool ok = !strcmp(v, "pass");
+        char obs[48] = "-", thr[48];
+        if (strcmp(v, "no-data"))
+            fmt_value(jnum(c, "observed"), unit, obs, sizeof obs);
+        fmt_value(jnum(c, "threshold"), unit, thr, sizeof thr);
+        fprintf(f, "<tr><td class=\"%s\">%s %s</td><td>", ok ? "pass" : "fail",
+                ok ? "&#10004;" : "&#10008;",
+                ok                   ? "pass"
+                : !strcmp(v, "fail") ? "FAIL"
+                                     : "NO DATA");
+        html_esc(f, jstr(c, "class"));
+        fputs("</td><td>", f);
+        html_esc(f, jstr(c, "scope"));
+        fputs("</td><td>", f);
+        html_esc(f, jstr(c, "text"));
+        fprintf(f,
+                "</td><td class=\"n\">%s</td><td class=\"n\">%s</td><td class=\"n\">%.0f</td>"
+                "</tr>\n",
+                obs, thr, jnum(c, "samples"));
+    }
+    fputs("</table></section>\n", f);
+}
+
+/* The section other engineers' storm ticks go in, shown as it is (its layout is theirs). */
+static void storms(FILE *f, const results_t *res)
+{
+    json_t *s = results_section(res, "storms");
+    if (!s)
+        return;
+    char *text = json_dumps(s, JSON_INDENT(2) | JSON_SORT_KEYS);
+    fputs("<section id=\"storms\"><h2>Storm ticks</h2>\n<pre>", f);
+    if (text && strlen(text) > 20000)
+        text[20000] = '\0';
+    html_esc(f, text);
+    fputs("</pre></section>\n", f);
+    free(text);
+}
+
+int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
+{
+    fputs("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">\n"
+          "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n<title>"
+          "squall report: ",
+          f);
+    html_esc(f, results_meta(res)->plan_path);
+    fprintf(f, "</title>\n<style>\n%s</style></head><body>\n", css);
+    header(f, res);
+    objectives(f, res);
+    generator(f, res);
+    html_tables(f, res, s);
+    html_plots_time(f, res, s);
+    html_plots_spectrum(f, res);
+    storms(f, res);
+    fputs("<p class=\"note\">Colours: Okabe&#8211;Ito palette; each class also has its own "
+          "marker shape. Response time is measured from each request's intended start.</p>\n"
+          "</body></html>\n",
+          f);
+    return ferror(f) ? SQ_EIO : 0;
+}
+
+int report_html_write_dir(const char *dir, const results_t *res, out_t *o)
+{
+    char path[4096], tmp[4200], series[4096];
+    snprintf(path, sizeof path, "%s/%s", dir, REPORT_HTML_FILE);
+    snprintf(tmp, sizeof tmp, "%s.tmp.%ld", path, (long)getpid());
+    snprintf(series, sizeof series, "%s/%s", dir, REPORT_SERIES_FILE);
+    report_series_t *s = NULL;
+    out_t *quiet = out_new_capture(); /* a missing series.csv is noted in the page instead */
+    if (report_series_read(series, &s, quiet ? quiet : o) != 0 && report_series_new(&s) != 0) {
+        out_free(quiet);
+        return SQ_ENOMEM;
+    }
+    out_free(quiet);
+    FILE *f = fopen(tmp, "w");
+    int rc = f ? report_html_write(f, res, s) : SQ_EIO;
+    if (f && fclose(f) != 0)
+        rc = SQ_EIO;
+    if (rc == 0 && rename(tmp, path) != 0)
+        rc = SQ_EIO;
+    if (rc) {
+        out_error(o, "cannot write %s: %s", path, strerror(errno));
+        unlink(tmp);
+    }
+    report_series_free(s);
+    return rc;
+}

@@ -1,0 +1,198 @@
+/* series.csv read back for reports and comparisons: one row per class per second, columns
+ * found by their header names. */
+#include <errno.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/err.h"
+#include "squall/report.h"
+
+struct report_series {
+    report_row_t *rows;
+    size_t n, cap;
+    char **names; /* phase and class strings, each kept once per row */
+    size_t n_names, cap_names;
+};
+
+enum col {
+    C_SECOND,
+    C_PHASE,
+    C_CLASS,
+    C_STARTED,
+    C_COMPLETED,
+    C_RATE,
+    C_ERRORS,
+    C_P50,
+    C_P90,
+    C_P99,
+    C_MAX,
+    C__COUNT
+};
+static const char *const col_names[C__COUNT] = {
+    "second", "phase",  "class",  "started", "completed", "rate_per_s",
+    "errors", "p50_ms", "p90_ms", "p99_ms",  "max_ms",
+};
+
+int report_series_new(report_series_t **out)
+{
+    *out = calloc(1, sizeof(**out));
+    return *out ? 0 : SQ_ENOMEM;
+}
+
+void report_series_free(report_series_t *s)
+{
+    if (!s)
+        return;
+    for (size_t i = 0; i < s->n_names; i++)
+        free(s->names[i]);
+    free(s->names);
+    free(s->rows);
+    free(s);
+}
+
+size_t report_series_count(const report_series_t *s)
+{
+    return s->n;
+}
+
+const report_row_t *report_series_at(const report_series_t *s, size_t i)
+{
+    return i < s->n ? &s->rows[i] : NULL;
+}
+
+/* Splits line in place at commas into at most cap fields; returns the count. */
+static size_t split(char *line, char **f, size_t cap)
+{
+    size_t n = 0;
+    line[strcspn(line, "\r\n")] = '\0';
+    for (char *p = line; n < cap;) {
+        f[n++] = p;
+        p = strchr(p, ',');
+        if (!p)
+            break;
+        *p++ = '\0';
+    }
+    return n;
+}
+
+static const char *keep(report_series_t *s, const char *text)
+{
+    /* Rows of one run repeat few names: reuse the last matching one. */
+    for (size_t i = s->n_names; i-- > 0 && i + 16 >= s->n_names;)
+        if (strcmp(s->names[i], text) == 0)
+            return s->names[i];
+    if (s->n_names == s->cap_names) {
+        size_t cap = s->cap_names ? 2 * s->cap_names : 64;
+        char **nn = realloc(s->names, cap * sizeof(*nn));
+        if (!nn)
+            return NULL;
+        s->names = nn;
+        s->cap_names = cap;
+    }
+    char *c = strdup(text);
+    if (c)
+        s->names[s->n_names++] = c;
+    return c;
+}
+
+static bool number(const char *t, double *v)
+{
+    char *end;
+    errno = 0;
+    *v = strtod(t, &end);
+    return end != t && *end == '\0' && errno == 0;
+}
+
+/* One data line into a row; false when a field is malformed. */
+static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, report_row_t *row)
+{
+    double v[C__COUNT] = {0};
+    for (int c = 0; c < C__COUNT; c++) {
+        if ((size_t)idx[c] >= nf)
+            return false;
+        if (c != C_PHASE && c != C_CLASS && !number(f[idx[c]], &v[c]))
+            return false;
+    }
+    row->phase = keep(s, f[idx[C_PHASE]]);
+    row->cls = keep(s, f[idx[C_CLASS]]);
+    row->second = (int64_t)v[C_SECOND];
+    row->started = (int64_t)v[C_STARTED];
+    row->completed = (int64_t)v[C_COMPLETED];
+    row->errors = (int64_t)v[C_ERRORS];
+    row->rate_per_s = v[C_RATE];
+    row->p50_ms = v[C_P50];
+    row->p90_ms = v[C_P90];
+    row->p99_ms = v[C_P99];
+    row->max_ms = v[C_MAX];
+    return row->phase && row->cls;
+}
+
+static int header(char *line, int *idx, const char *path, out_t *o)
+{
+    char *f[64];
+    size_t nf = split(line, f, 64);
+    for (int c = 0; c < C__COUNT; c++) {
+        idx[c] = -1;
+        for (size_t k = 0; k < nf; k++)
+            if (strcmp(f[k], col_names[c]) == 0)
+                idx[c] = (int)k;
+        if (idx[c] < 0) {
+            out_error(o, "%s:1: no column '%s' in the header", path, col_names[c]);
+            return SQ_EPARSE;
+        }
+    }
+    return 0;
+}
+
+static int read_lines(FILE *f, report_series_t *s, const char *path, out_t *o)
+{
+    char line[4096];
+    int idx[C__COUNT];
+    if (!fgets(line, sizeof line, f)) {
+        out_error(o, "%s: empty file (expected a header line)", path);
+        return SQ_EPARSE;
+    }
+    int rc = header(line, idx, path, o);
+    for (size_t ln = 2; rc == 0 && fgets(line, sizeof line, f); ln++) {
+        char *fields[64];
+        size_t nf = split(line, fields, 64);
+        if (nf == 1 && fields[0][0] == '\0')
+            continue;
+        if (s->n == s->cap) {
+            size_t cap = s->cap ? 2 * s->cap : 256;
+            report_row_t *nr = realloc(s->rows, cap * sizeof(*nr));
+            if (!nr)
+                return SQ_ENOMEM;
+            s->rows = nr;
+            s->cap = cap;
+        }
+        if (!parse_row(s, fields, nf, idx, &s->rows[s->n])) {
+            out_error(o, "%s:%zu: malformed row (expected %d comma-separated fields)", path, ln,
+                      C__COUNT);
+            rc = SQ_EPARSE;
+        }
+        s->n++;
+    }
+    return rc;
+}
+
+int report_series_read(const char *path, report_series_t **out, out_t *o)
+{
+    *out = NULL;
+    FILE *f = fopen(path, "r");
+    if (!f) {
+        out_error(o, "cannot read %s: %s", path, strerror(errno));
+        return SQ_EIO;
+    }
+    report_series_t *s;
+    int rc = report_series_new(&s);
+    if (rc == 0)
+        rc = read_lines(f, s, path, o);
+    fclose(f);
+    if (rc) {
+        report_series_free(s);
+        return rc;
+    }
+    *out = s;
+    return 0;
+}

@@ -1,0 +1,138 @@
+/* report.html's tables: per phase x class counts, rates, errors by kind and response-time
+ * percentiles, from the histograms of results.json. */
+#include <stdlib.h>
+#include <string.h>
+
+#include "html_int.h"
+
+static bool is_ok(const char *oc)
+{
+    return !strcmp(oc, "2xx") || !strcmp(oc, "3xx");
+}
+
+/* Seconds phase ran: the "phases" section when the run wrote one, else the seconds it has
+ * rows for in series.csv (0 when unknown). */
+static double phase_seconds(const results_t *res, const report_series_t *s, const char *phase)
+{
+    size_t i;
+    json_t *p;
+    json_array_foreach(json_object_get(results_section(res, "phases"), "phases"), i, p)
+    {
+        if (!strcmp(json_string_value(json_object_get(p, "name")) ?: "", phase))
+            return json_number_value(json_object_get(p, "elapsed_s"));
+    }
+    int64_t lo = -1, hi = -1;
+    for (size_t k = 0; k < report_series_count(s); k++) {
+        const report_row_t *r = report_series_at(s, k);
+        if (strcmp(r->phase, phase))
+            continue;
+        lo = lo < 0 || r->second < lo ? r->second : lo;
+        hi = r->second > hi ? r->second : hi;
+    }
+    return lo < 0 ? 0 : (double)(hi - lo + 1);
+}
+
+/* Distinct (phase) or (class within phase) names of the cells, in first-seen order. */
+static size_t names(const results_t *res, const char *phase, const char **out, size_t cap)
+{
+    size_t n = 0;
+    for (size_t i = 0; i < results_cell_count(res); i++) {
+        const results_cell_t *c = results_cell_at(res, i);
+        if (phase && strcmp(results_cell_phase(c), phase))
+            continue;
+        const char *v = phase ? results_cell_class(c) : results_cell_phase(c);
+        size_t k = 0;
+        while (k < n && strcmp(out[k], v))
+            k++;
+        if (k == n && n < cap)
+            out[n++] = v;
+    }
+    return n;
+}
+
+static double ms(int64_t ns)
+{
+    return (double)ns / 1e6;
+}
+
+static void row(FILE *f, const results_t *res, const char *phase, const char *cls, double secs,
+                hist_t *h)
+{
+    int64_t count = 0, errors = 0, cancelled = 0;
+    char kinds[512] = "";
+    hist_reset(h);
+    for (size_t i = 0; i < results_cell_count(res); i++) {
+        const results_cell_t *c = results_cell_at(res, i);
+        if (strcmp(results_cell_phase(c), phase) || strcmp(results_cell_class(c), cls))
+            continue;
+        const char *oc = results_cell_outcome(c);
+        int64_t n = results_cell_counters((results_cell_t *)c)->count;
+        if (!strcmp(oc, "cancelled")) {
+            cancelled += n;
+            continue;
+        }
+        count += n;
+        const hist_t *rh = results_cell_hist_find(c, RESULTS_M_RESPONSE);
+        if (rh)
+            hist_merge(h, rh);
+        if (is_ok(oc) || n == 0)
+            continue;
+        errors += n;
+        size_t len = strlen(kinds);
+        snprintf(kinds + len, sizeof kinds - len, "%s%s: %lld", len ? ", " : "", oc, (long long)n);
+    }
+    fputs("<tr><td>", f);
+    html_esc(f, cls);
+    fprintf(f, "</td><td class=\"n\">%lld</td><td class=\"n\">", (long long)count);
+    if (secs > 0)
+        fprintf(f, "%.1f", (double)count / secs);
+    else
+        fputs("-", f);
+    fprintf(f, "</td><td class=\"n\">%lld</td><td>", (long long)errors);
+    html_esc(f, kinds[0] ? kinds : "-");
+    if (cancelled)
+        fprintf(f, "%s(%lld cancelled at stop)", kinds[0] ? " " : "", (long long)cancelled);
+    fputs("</td>", f);
+    static const double pct[] = {50, 90, 99, 99.9};
+    for (size_t k = 0; k < 4; k++)
+        fprintf(f, "<td class=\"n\">%.2f</td>", ms(hist_value_at(h, pct[k])));
+    fprintf(f, "<td class=\"n\">%.2f</td></tr>\n", ms(hist_max(h)));
+}
+
+void html_tables(FILE *f, const results_t *res, const report_series_t *s)
+{
+    int64_t lo, hi;
+    int digits;
+    hist_t *h = NULL;
+    results_hist_config(res, &lo, &hi, &digits);
+    fputs("<section id=\"tables\"><h2>Per phase and class</h2>\n<p class=\"note\">Response time "
+          "(ms) from each request's intended start, over every answered request (errors "
+          "included); rate = answered requests per second of the phase.</p>\n",
+          f);
+    if (hist_new(lo, hi, digits, &h)) {
+        fputs("</section>\n", f);
+        return;
+    }
+    const char *phases[256], *classes[256];
+    size_t np = names(res, NULL, phases, 256);
+    for (size_t p = 0; p < np; p++) {
+        double secs = phase_seconds(res, s, phases[p]);
+        fputs("<h3>phase ", f);
+        html_esc(f, phases[p]);
+        if (secs > 0)
+            fprintf(f, " <span class=\"note\">(%.1f s)</span>", secs);
+        fputs("</h3>\n<table class=\"cells\"><tr><th>class</th><th class=\"n\">requests</th>"
+              "<th class=\"n\">per s</th><th class=\"n\">errors</th><th>errors by kind</th>"
+              "<th class=\"n\">p50</th><th class=\"n\">p90</th><th class=\"n\">p99</th>"
+              "<th class=\"n\">p99.9</th><th class=\"n\">max</th></tr>\n",
+              f);
+        size_t nc = names(res, phases[p], classes, 256);
+        for (size_t c = 0; c < nc; c++)
+            row(f, res, phases[p], classes[c], secs, h);
+        fputs("</table>\n", f);
+    }
+    if (np == 0)
+        fputs("<p class=\"note\">No requests were recorded.</p>\n", f);
+    hist_free(h);
+    fputs("</section>\n", f);
+}
