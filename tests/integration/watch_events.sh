@@ -1,0 +1,86 @@
+#!/usr/bin/env bash
+# Watches in `squall run` against the embedded target: the events watchers saw equal the events
+# the target says it sent (its /stats), with no loss and no duplicates across a resume after the
+# target drops every stream, and a resume point that fell out of the target's history (410)
+# answered by a re-list first, then a watch from the list's version.
+set -uo pipefail
+source "$SRCDIR/tests/integration/lib/target.sh"
+source "$SRCDIR/tests/integration/lib/run.sh"
+T="$BUILDDIR/watch-events"
+rm -rf "$T"
+mkdir -p "$T"
+
+W=8 # watchers on one collection; 40 writes/s for 5 s = 200 writes to it
+plan() { # plan FILE POLICY BASE
+    cat >"$1" <<YAML
+seed: 5
+target: {url: "$TGT_URL", connections: 4, timeout: 5s}
+requests:
+  put: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}",
+        body: '{"model":"t-a","stamp":{{now_ns}}}'}
+  list-north: {kind: list, path: "/v1/sites/north/gateways", page: 50}
+  follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1", stamp-key: stamp,
+           relist: list-north, reconnect: {policy: $2, base: $3, cap: 2s}}
+phases:
+  - {name: w, duration: 5s, rate: 40/s, mix: {put: 1}, watches: {follow: $W}}
+YAML
+}
+F='d["sections"]["watches"]["w"]["classes"]["follow"]'
+
+# --- 1. No faults: every event the target queued reached a watcher, once. ------------------
+target_start || exit 1
+plan "$T/calm.yaml" full-jitter 200ms
+run_plan "$T/calm" "$T/calm.yaml"
+sent=$(target_stats 's["streams"]["events_sent"]')
+writes=$(target_stats 's["store"]["creates"]')
+target_stop
+expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect "the target stored 200 writes (got $writes)" test "$writes" = 200
+rcheck "events seen = events the target sent ($sent), from its /stats" \
+    "$F['events'] == $sent" "$T/calm"
+rcheck "events seen = $W watchers x $writes writes (no loss, no duplicate)" \
+    "$F['events'] == $W * $writes and $F['duplicates'] == 0" "$T/calm"
+rcheck "the events cell counts the same events" "cell('w', 'follow', 'events')['count'] == $F['events']" \
+    "$T/calm"
+rcheck "no drops, no reconnects, $W opens; the streams end as cancelled at the phase end" \
+    "$F['drops'] == 0 and $F['reconnects'] == 0 and $F['opens'] == $W and cell('w', 'follow', 'cancelled')['count'] == $W" \
+    "$T/calm"
+
+# --- 2. The target drops every stream once: each watcher resumes from its last version. -----
+target_start --drop-watches-at 2s || exit 1
+plan "$T/drop.yaml" full-jitter 300ms
+run_plan "$T/drop" "$T/drop.yaml"
+writes=$(target_stats 's["store"]["creates"]')
+dropped=$(target_stats 's["faults"]["dropped_streams"]')
+expired=$(target_stats 's["store"]["expired"]')
+target_stop
+expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect "the target dropped $W streams (got $dropped) and answered no 410 (got $expired)" \
+    test "$dropped" = "$W" -a "$expired" = 0
+rcheck "across the resume each watcher saw each of the $writes writes exactly once" \
+    "$F['events'] == $W * $writes and $F['duplicates'] == 0" "$T/drop"
+rcheck "drops = reconnects = $W (the target's count), opens = 2 x $W" \
+    "$F['drops'] == $dropped and $F['reconnects'] == $W and $F['opens'] == 2 * $W" "$T/drop"
+
+# --- 3. History of 5 events and a 500 ms fixed reconnect: 20 writes are missed, so the resume
+# point is too old: 410, then the relist class, then a watch from the list's version. --------
+target_start --drop-watches-at 2s --history 5 || exit 1
+plan "$T/gone.yaml" fixed 500ms
+run_plan "$T/gone" "$T/gone.yaml"
+expired=$(target_stats 's["store"]["expired"]')
+lists=$(target_stats 's["requests"]["GET"]["200"]')
+target_stop
+expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect "the target answered $W resumes with 410 (got $expired)" test "$expired" = "$W"
+rcheck "too_old = relists = the target's 410 count ($expired)" \
+    "$F['too_old'] == $expired and $F['relists'] == $expired" "$T/gone"
+rcheck "the 410s are counted as 4xx answers of the watch class, with no events" \
+    "cell('w', 'follow', '4xx')['count'] == $expired" "$T/gone"
+rcheck "every relist followed its pages: list 2xx answers >= $W, recorded under list-north" \
+    "cell('w', 'list-north', '2xx')['count'] >= $W" "$T/gone"
+rcheck "no duplicates after watching from the list's version, and events kept arriving" \
+    "$F['duplicates'] == 0 and $F['events'] > $W * 80" "$T/gone"
+rcheck "opens = 3 x $W: the first, the refused resume (410) and the one after the relist" \
+    "$F['opens'] == 3 * $W" "$T/gone"
+[ "$FAILED" = 0 ] && echo "PASS: watch events" || echo "FAIL: watch events"
+exit "$FAILED"

@@ -1,0 +1,81 @@
+#!/usr/bin/env bash
+# Reconnect storms in `squall run`: after the embedded target drops every watch at once,
+# full-jitter reconnects are spread over the window as the formula says, U(0, expo(0)) =
+# U(0, base) for a first failure ("Exponential Backoff and Jitter", AWS Architecture Blog,
+# 2015), checked with the one-sample Kolmogorov-Smirnov test against its published asymptotic
+# critical value; with the immediate policy the same streams all come back at once.
+set -uo pipefail
+source "$SRCDIR/tests/integration/lib/target.sh"
+source "$SRCDIR/tests/integration/lib/run.sh"
+T="$BUILDDIR/watch-reconnect"
+rm -rf "$T"
+mkdir -p "$T"
+N=200
+
+plan() { # plan FILE POLICY
+    cat >"$1" <<YAML
+seed: 9
+target: {url: "$TGT_URL", connections: 2, timeout: 5s}
+vars: {site: [north, south, harbor, ridge]}
+requests:
+  follow: {kind: watch, path: "/v1/sites/{{site}}/gateways?watch=1",
+           reconnect: {policy: $2, base: 2s, cap: 10s}}
+phases:
+  - {name: w, duration: 6s, watches: {follow: $N}}
+YAML
+}
+
+# The reconnect log: per reconnect, when squall saw the stream end, the delay it drew and when
+# the new request was handed to the connection (libcurl's PREREQFUNCTION), ns from phase start.
+ks_check() { # ks_check OUT WHAT: prints "ok ..." or "FAIL ..."
+    /usr/bin/python3 - "$1" "$2" "$N" <<'PY'
+import json, math, sys
+d = json.load(open(sys.argv[1] + "/results.json"))
+what, n_want = sys.argv[2], int(sys.argv[3])
+log = d["sections"]["watches"]["w"]["reconnect_log"]
+end, delay, sent, att = log["ended_ns"], log["delay_ns"], log["sent_ns"], log["attempt"]
+ok = True
+def check(desc, cond):
+    global ok
+    print(("ok: " if cond else "FAIL: ") + desc)
+    ok = ok and cond
+check("%d reconnects logged, all first failures (attempt 0): got %d" % (n_want, len(delay)),
+      len(delay) == n_want and set(att) == {0})
+waited = [(s - e) / 1e9 for s, e in zip(sent, end)]
+lateness = max(w - dl / 1e9 for w, dl in zip(waited, delay))
+check("every reconnect was sent at or after its drawn delay (latest by %.1f ms)" % (lateness * 1e3),
+      all(w >= dl / 1e9 - 1e-4 for w, dl in zip(waited, delay)))
+if what == "jitter":
+    # Spread out, each reconnect goes out within the 1 ms wake-up plus a loopback connect.
+    check("spread reconnects are at most 20 ms late", lateness < 0.020)
+    # One-sample KS against U(0, 2 s); c(.01) = 1.62762 (Kolmogorov distribution, asymptotic;
+    # NOTES-methods.md "Statistics for tests").
+    crit = 1.62762 / math.sqrt(len(waited))
+    for name, xs in (("drawn delays", [x / 1e9 for x in delay]), ("actual waits", waited)):
+        xs = sorted(xs)
+        n = len(xs)
+        D = max(max((i + 1) / n - min(x / 2, 1), min(x / 2, 1) - i / n) for i, x in enumerate(xs))
+        check("full jitter %s ~ U(0, 2 s): KS D = %.4f < %.4f (alpha .01)" % (name, D, crit), D < crit)
+    check("the reconnects spread over the window: the last at %.2f s of 2 s" % max(waited),
+          1.5 < max(waited) < 2.02)
+else:
+    check("immediate: all %d streams back within 100 ms of their drop (max %.1f ms)"
+          % (len(waited), max(waited) * 1e3), max(waited) < 0.1)
+sys.exit(0 if ok else 1)
+PY
+}
+
+for policy in full-jitter immediate; do
+    target_start --drop-watches-at 2s || exit 1
+    plan "$T/$policy.yaml" "$policy"
+    run_plan "$T/$policy" "$T/$policy.yaml"
+    dropped=$(target_stats 's["faults"]["dropped_streams"]')
+    opened=$(target_stats 's["streams"]["opened"]')
+    target_stop
+    expect "$policy: the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+    expect "$policy: the target dropped $N streams (got $dropped) and saw 2 x $N opens (got $opened)" \
+        test "$dropped" = "$N" -a "$opened" = $((2 * N))
+    ks_check "$T/$policy" "$([ $policy = immediate ] && echo immediate || echo jitter)" || FAILED=1
+done
+[ "$FAILED" = 0 ] && echo "PASS: watch reconnect" || echo "FAIL: watch reconnect"
+exit "$FAILED"
