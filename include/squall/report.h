@@ -7,8 +7,9 @@
  * each of p50, p99, p99.9 and the error rate, whether NEW differs from BASE (Mann-Whitney U over
  * the per-second samples, see compare.c), giving a verdict: regression, improvement or no
  * significant change.
- * Ownership: strings in rows and comparison lines are owned by their report_series_t /
- * report_cmp_t. Every function writing a file writes a temporary and renames it. */
+ * Ownership: strings in rows are owned by their report_series_t; strings in comparison lines
+ * point into the two results_t compared (keep them until report_cmp_free). Every function
+ * writing a file writes a temporary and renames it. */
 #ifndef SQUALL_REPORT_H
 #define SQUALL_REPORT_H
 

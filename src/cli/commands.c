@@ -8,6 +8,8 @@ extern const cli_cmd_t cli_cmd_demo;
 extern const cli_cmd_t cli_cmd_serve;
 extern const cli_cmd_t cli_cmd_merge;
 extern const cli_cmd_t cli_cmd_report;
+extern const cli_cmd_t cli_cmd_compare;
+extern const cli_cmd_t cli_cmd_report;
 
 const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_help,
@@ -16,6 +18,8 @@ const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_demo,
     &cli_cmd_serve,
     &cli_cmd_merge,
+    &cli_cmd_report,
+    &cli_cmd_compare,
     &cli_cmd_report,
     NULL,
 };

@@ -168,15 +168,21 @@ static int check_one(judge_t *j, size_t oi, const plan_objective_t *ob, const ch
 
 /* The checks of one objective for one class: each phase it ran in, then the run. */
 static int judge_class(judge_t *j, size_t oi, const plan_objective_t *ob, const char *text,
-                       const char *cls, const results_t *res, const judge_phase_t *phases,
-                       size_t n_phases, tally_t *t)
+                       const char *cls, bool wildcard, const results_t *res,
+                       const judge_phase_t *phases, size_t n_phases, tally_t *t)
 {
     int metric = results_metric_from_name(metric_names[ob->metric]);
     metric = metric < 0 ? -1 : metric;
     const char *kept = keep(j, cls);
     if (!kept)
         return SQ_ENOMEM;
-    int checks = 0, rc = 0;
+    int rc = 0;
+    if (wildcard) {
+        /* "*" judges the classes that ran in the plan's phases (not e.g. a teardown's). */
+        gather(res, cls, NULL, metric, phases, n_phases, t);
+        if (t->answered == 0)
+            return 0;
+    }
     for (size_t i = 0; rc == 0 && i < n_phases; i++) {
         if (ob->phase.name && strcmp(ob->phase.name, phases[i].name))
             continue;
@@ -184,7 +190,6 @@ static int judge_class(judge_t *j, size_t oi, const plan_objective_t *ob, const 
         if (t->answered == 0 && !ob->phase.name)
             continue;
         rc = check_one(j, oi, ob, text, kept, phases[i].name, t);
-        checks++;
     }
     if (rc == 0 && !ob->phase.name) {
         gather(res, cls, NULL, metric, phases, n_phases, t);
@@ -219,16 +224,18 @@ static int judge_objective(judge_t *j, size_t oi, const plan_objective_t *ob, co
     if (!text)
         return SQ_ENOMEM;
     if (ob->cls.name && strcmp(ob->cls.name, "*"))
-        return judge_class(j, oi, ob, text, ob->cls.name, res, phases, n_phases, t);
-    size_t n = 0;
+        return judge_class(j, oi, ob, text, ob->cls.name, false, res, phases, n_phases, t);
+    size_t n = 0, before = j->n;
     const char **names = cell_classes(res, &n);
     if (!names)
         return SQ_ENOMEM;
     int rc = 0;
     for (size_t k = 0; rc == 0 && k < n; k++)
-        rc = judge_class(j, oi, ob, text, names[k], res, phases, n_phases, t);
-    if (rc == 0 && n == 0)
+        rc = judge_class(j, oi, ob, text, names[k], true, res, phases, n_phases, t);
+    if (rc == 0 && j->n == before) { /* nothing ran at all */
+        gather(res, "*", NULL, -1, phases, n_phases, t);
         rc = check_one(j, oi, ob, text, "*", "run", t);
+    }
     free(names);
     return rc;
 }

@@ -10,7 +10,7 @@
 #include "html_int.h"
 #include "squall/err.h"
 
-static const char css[] =
+const char html_css[] =
     "body{font:15px/1.45 system-ui,sans-serif;color:#1a1a1a;background:#fff;margin:0 auto;"
     "max-width:1120px;padding:0 24px 48px}\n"
     "h1{font-size:26px;margin:24px 0 4px}h2{font-size:20px;margin:32px 0 8px;"
@@ -186,7 +186,7 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
           "squall report: ",
           f);
     html_esc(f, results_meta(res)->plan_path);
-    fprintf(f, "</title>\n<style>\n%s</style></head><body>\n", css);
+    fprintf(f, "</title>\n<style>\n%s</style></head><body>\n", html_css);
     header(f, res);
     objectives(f, res);
     generator(f, res);

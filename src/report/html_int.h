@@ -8,6 +8,9 @@
 
 #include "squall/report.h"
 
+/* The page's style sheet (html.c), shared by the comparison page. */
+extern const char html_css[];
+
 /* Writes s with &, <, >, " escaped. */
 void html_esc(FILE *f, const char *s);
 
@@ -45,6 +48,11 @@ void html_tables(FILE *f, const results_t *res, const report_series_t *s);
 /* The style (colour and marker) of a class: its rank among the classes of res's cells, so a
  * class looks the same in every plot. */
 int html_class_style(const results_t *res, const char *cls);
+/* The percentile spectrum of class cls, metric m (every phase pooled, cancelled left out) into
+ * x (percentiles) and y (ms): p = 100 (1 - 10^(-k/10)) for k = 0, 1, ... up to the highest
+ * percentile the sample count resolves; returns the number of points. h is scratch. */
+#define HTML_SPECTRUM_POINTS 61
+size_t html_spectrum(const results_t *res, int m, const char *cls, hist_t *h, double *x, double *y);
 void html_plots_time(FILE *f, const results_t *res, const report_series_t *s);
 void html_plots_spectrum(FILE *f, const results_t *res);
 

@@ -185,11 +185,7 @@ static size_t metric_classes(const results_t *res, int m, const char **out, size
     return n;
 }
 
-#define SPECTRUM_POINTS 61 /* p = 100 (1 - 10^(-k/10)), k = 0..60: p0 .. p99.9999 */
-
-/* The spectrum of one class: percentiles up to the one its sample count can resolve. */
-static size_t spectrum(const results_t *res, int m, const char *cls, hist_t *h, double *x,
-                       double *y)
+size_t html_spectrum(const results_t *res, int m, const char *cls, hist_t *h, double *x, double *y)
 {
     hist_reset(h);
     for (size_t i = 0; i < results_cell_count(res); i++) {
@@ -201,7 +197,7 @@ static size_t spectrum(const results_t *res, int m, const char *cls, hist_t *h, 
     }
     int64_t count = hist_count(h);
     size_t n = 0;
-    for (int k = 0; k < SPECTRUM_POINTS && count > 0; k++) {
+    for (int k = 0; k < HTML_SPECTRUM_POINTS && count > 0; k++) {
         double tail = pow(10, -k / 10.0);
         if (k > 0 && 1 / tail > (double)count)
             break;
@@ -223,10 +219,10 @@ static void spectrum_plot(FILE *f, const results_t *res, const char *metric, con
     results_hist_config(res, &lo, &hi, &digits);
     if (nc == 0 || hist_new(lo, hi, digits, &h))
         return;
-    static double xs[MAX_LINES][SPECTRUM_POINTS], ys[MAX_LINES][SPECTRUM_POINTS];
+    static double xs[MAX_LINES][HTML_SPECTRUM_POINTS], ys[MAX_LINES][HTML_SPECTRUM_POINTS];
     html_line_t l[MAX_LINES];
     for (size_t c = 0; c < nc; c++)
-        l[c] = (html_line_t){xs[c],  ys[c],  spectrum(res, m, cls[c], h, xs[c], ys[c]),
+        l[c] = (html_line_t){xs[c],  ys[c],  html_spectrum(res, m, cls[c], h, xs[c], ys[c]),
                              cls[c], (int)c, (int)c % 4};
     hist_free(h);
     char ylabel[64];

@@ -1,0 +1,141 @@
+/* `squall compare`: BASE and NEW results directories compared per phase and class, with a
+ * verdict per metric; the exit code says whether a regression was found. */
+#include <stdlib.h>
+#include <string.h>
+
+#include "squall/cli.h"
+#include "squall/err.h"
+#include "squall/plan.h"
+#include "squall/report.h"
+#include "squall/results.h"
+
+enum { OPT_JSON, OPT_HTML, OPT_ALPHA, OPT_MIN_MS, OPT_MIN_REL };
+
+static const cli_opt_t compare_opts[] = {
+    [OPT_JSON] = {"json", 0, NULL, "print the comparison as JSON instead of a table"},
+    [OPT_HTML] = {"html", 0, "FILE", "also write a side-by-side HTML page to FILE"},
+    [OPT_ALPHA] = {"alpha", 0, "P", "significance level of the test (default 0.01)"},
+    [OPT_MIN_MS] = {"min-change", 0, "DURATION",
+                    "smallest latency change that counts (default 1ms)"},
+    [OPT_MIN_REL] = {"min-change-pct", 0, "PERCENT",
+                     "smallest change relative to BASE that counts (default 10%)"},
+    {NULL, 0, NULL, NULL},
+};
+
+typedef struct {
+    const char *dir[2], *html;
+    bool json;
+    report_cmp_opts_t opts;
+} compare_args_t;
+
+static int parse_value(const cli_cmd_t *cmd, int k, const char *v, compare_args_t *ca, out_t *o)
+{
+    int64_t ns;
+    if (k == OPT_HTML)
+        ca->html = v;
+    else if (k == OPT_ALPHA && plan_parse_number(v, 1e-12, 0.5, &ca->opts.alpha))
+        return cli_usage_error(cmd, o, "--alpha needs a number in (0, 0.5], got '%s'", v);
+    else if (k == OPT_MIN_MS && plan_parse_duration(v, &ns))
+        return cli_usage_error(cmd, o, "--min-change needs %s, got '%s'", PLAN_DURATION_EXPECTS, v);
+    else if (k == OPT_MIN_MS)
+        ca->opts.min_abs_ms = (double)ns / 1e6;
+    else if (k == OPT_MIN_REL && plan_parse_percent(v, &ca->opts.min_rel))
+        return cli_usage_error(cmd, o, "--min-change-pct needs %s, got '%s'", PLAN_PERCENT_EXPECTS,
+                               v);
+    return -1;
+}
+
+/* Returns -1 to go on, else an exit code. */
+static int parse(const cli_cmd_t *cmd, int argc, char **argv, compare_args_t *ca, out_t *o)
+{
+    cli_args_t a;
+    const char *v;
+    int k, n = 0;
+    report_cmp_opts_default(&ca->opts);
+    cli_args_init(&a, cmd, argc, argv);
+    while ((k = cli_next(&a, o, &v)) != CLI_END) {
+        if (k == CLI_HELP) {
+            cli_print_help(cmd, o);
+            return SQ_EXIT_OK;
+        }
+        if (k == CLI_ERROR)
+            return SQ_EXIT_USAGE;
+        if (k == CLI_POSITIONAL && n == 2)
+            return cli_usage_error(cmd, o,
+                                   "two results directories only (BASE NEW), got a third: "
+                                   "'%s'",
+                                   v);
+        if (k == CLI_POSITIONAL)
+            ca->dir[n++] = v;
+        else if (k == OPT_JSON)
+            ca->json = true;
+        else if ((k = parse_value(cmd, k, v, ca, o)) >= 0)
+            return k;
+    }
+    if (n < 2)
+        return cli_usage_error(cmd, o, "needs BASE and NEW results directories");
+    return -1;
+}
+
+/* Reads one run: results.json and series.csv (needed: the test runs on per-second samples). */
+static int read_run(const char *dir, results_t **res, report_series_t **s, out_t *o)
+{
+    char path[4096];
+    if (results_read(dir, res, o))
+        return SQ_EIO;
+    snprintf(path, sizeof path, "%s/%s", dir, REPORT_SERIES_FILE);
+    return report_series_read(path, s, o) ? SQ_EIO : 0;
+}
+
+static int compare_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
+{
+    compare_args_t ca = {0};
+    int code = parse(cmd, argc, argv, &ca, o);
+    if (code >= 0)
+        return code;
+    results_t *res[2] = {NULL, NULL};
+    report_series_t *s[2] = {NULL, NULL};
+    report_cmp_t *c = NULL;
+    code = SQ_EXIT_FAILURE;
+    if (read_run(ca.dir[0], &res[0], &s[0], o) || read_run(ca.dir[1], &res[1], &s[1], o) ||
+        report_compare(res[0], s[0], res[1], s[1], &ca.opts, &c))
+        goto out;
+    if (ca.json) {
+        json_t *j = report_cmp_json(c, &ca.opts);
+        char *text = j ? json_dumps(j, JSON_INDENT(2)) : NULL;
+        if (text)
+            out_print(o, "%s\n", text);
+        free(text);
+        json_decref(j);
+    } else {
+        report_cmp_print(c, o);
+    }
+    if (ca.html && report_cmp_html(c, res[0], res[1], ca.html, o))
+        goto out;
+    code = report_cmp_regressed(c) ? SQ_EXIT_OBJECTIVES : SQ_EXIT_OK;
+out:
+    report_cmp_free(c);
+    for (int i = 0; i < 2; i++) {
+        results_free(res[i]);
+        report_series_free(s[i]);
+    }
+    return code;
+}
+
+const cli_cmd_t cli_cmd_compare = {
+    .name = "compare",
+    .summary = "compare two runs: regression, improvement or no significant change",
+    .usage = "BASE NEW [--json] [--html FILE] [--alpha P] [--min-change DURATION]",
+    .description =
+        "BASE and NEW are results directories (results.json and series.csv). For every phase\n"
+        "and class of BASE, compares p50, p99, p99.9 and the error rate. The verdict uses the\n"
+        "Mann-Whitney U test (two-sided, normal approximation, tie and continuity corrections)\n"
+        "over the per-second samples in series.csv (p99.9 over the per-second max): a change\n"
+        "is a regression or an improvement when p < --alpha and the per-second medians differ\n"
+        "by more than --min-change (latency; 1 percentage point for error rates) and by more\n"
+        "than --min-change-pct of BASE. Phases and classes only one run has are untested.\n"
+        "Exit 0: no regression; 1: at least one regression; 2: usage mistake; 6: a file\n"
+        "could not be read or written.",
+    .opts = compare_opts,
+    .main = compare_main,
+};
