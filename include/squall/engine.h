@@ -100,6 +100,8 @@ typedef struct {
     long status; /* HTTP status, 0 if no response */
     enum eng_outcome outcome;
     int curl_code;         /* CURLcode, for diagnostics */
+    int64_t retry_after_s; /* a 429 or 503 answer's Retry-After (seconds or a date, parsed by
+                              libcurl's CURLINFO_RETRY_AFTER), else 0 */
     int64_t bytes_in;      /* response headers + body as received */
     int64_t bytes_in_body; /* response body after de-chunking */
     int64_t bytes_out;     /* request line + headers + body */

@@ -40,7 +40,7 @@ enum journal_op { JOURNAL_PUT, JOURNAL_CREATED, JOURNAL_FAILED, JOURNAL_DELETED 
  */
 int journal_open(const char *path, const char *target_url, out_t *o, journal_t **out);
 /* Appends one record; JOURNAL_PUT is written through at once. SQ_EIO on a write error (reported
- * once on the journal's out_t; later records are still attempted). */
+ * once on the journal's out_t; later records are still attempted). j NULL: does nothing. */
 int journal_add(journal_t *j, enum journal_op op, const char *path, const char *cls,
                 uint64_t version);
 int journal_flush(journal_t *j);
@@ -91,9 +91,9 @@ typedef struct {
 
 /* Deletes paths[0..n) with DELETE requests through a new engine on `loop` (made from ecfg; its
  * on_unreachable is replaced), running the loop until every object has a fate, and closes all
- * it opened before returning (the loop must have no other active handles). Retries wait
- * 200 ms x 2^(attempt - 1), at most 2 s (a fixed backoff: the engine does not give us
- * Retry-After). SIGINT or SIGTERM while it runs stops it at once (the rest is LEFT). fates (n
+ * it opened before returning (the loop must have no other active handles). A retry waits the
+ * answer's Retry-After when a 429 or 503 gives one (at most 30 s), else 200 ms x 2^(attempt - 1),
+ * at most 2 s. SIGINT or SIGTERM while it runs stops it at once (the rest is LEFT). fates (n
  * entries) receives each object's fate. Returns 0 or SQ_ENOMEM / SQ_ELIBUV / the engine's code;
  * on failure nothing was sent and every fate is LEFT. */
 int journal_reap(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o, const journal_reap_cfg_t *cfg,

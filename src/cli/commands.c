@@ -7,6 +7,7 @@ extern const cli_cmd_t cli_cmd_run;
 extern const cli_cmd_t cli_cmd_demo;
 extern const cli_cmd_t cli_cmd_serve;
 extern const cli_cmd_t cli_cmd_merge;
+extern const cli_cmd_t cli_cmd_cleanup;
 extern const cli_cmd_t cli_cmd_report;
 extern const cli_cmd_t cli_cmd_compare;
 extern const cli_cmd_t cli_cmd_report;
@@ -18,6 +19,7 @@ const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_demo,
     &cli_cmd_serve,
     &cli_cmd_merge,
+    &cli_cmd_cleanup,
     &cli_cmd_report,
     &cli_cmd_compare,
     &cli_cmd_report,

@@ -273,6 +273,9 @@ void eng_xfer_finish(struct eng_xfer *x, CURLcode rc)
             r->bytes_in = l + r->bytes_in_body;
         if (curl_easy_getinfo(c, CURLINFO_REQUEST_SIZE, &l) == CURLE_OK)
             r->bytes_out = l;
+        if ((r->status == 429 || r->status == 503) &&
+            curl_easy_getinfo(c, CURLINFO_RETRY_AFTER, &v) == CURLE_OK && v > 0)
+            r->retry_after_s = v; /* life: teardown retries wait this long */
     }
     if (x->aborted || x->cancelled)
         r->outcome = ENG_OUT_CANCELLED;

@@ -103,7 +103,7 @@ int journal_open(const char *path, const char *target_url, out_t *o, journal_t *
         return SQ_ENOMEM;
     }
     j->o = o;
-    j->fd = open(path, O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0644);
+    j->fd = open(path, O_RDWR | O_CREAT | O_APPEND | O_CLOEXEC, 0644); /* read: a torn tail */
     struct stat st;
     if (j->fd < 0 || fstat(j->fd, &st)) {
         out_error(o, "journal %s: cannot open for writing: %s", path, strerror(errno));
@@ -133,6 +133,8 @@ int journal_open(const char *path, const char *target_url, out_t *o, journal_t *
 int journal_add(journal_t *j, enum journal_op op, const char *path, const char *cls,
                 uint64_t version)
 {
+    if (!j)
+        return 0; /* no journal (a plan without creating classes): nothing to record */
     json_t *rec = json_pack("{s:s, s:s, s:s, s:I}", "op", op_names[op], "path", path, "class",
                             cls ? cls : "", "t", (json_int_t)unix_ms());
     if (!rec)

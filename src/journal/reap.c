@@ -9,6 +9,7 @@
 
 #define BACKOFF_BASE_NS (200 * INT64_C(1000000))
 #define BACKOFF_CAP_NS  (2000 * INT64_C(1000000))
+#define RETRY_AFTER_CAP (30 * INT64_C(1000000000)) /* a longer Retry-After waits only this long */
 
 typedef struct reaper reaper_t;
 
@@ -105,8 +106,12 @@ static enum journal_fate judge(reaper_t *rp, size_t i, const eng_result_t *res, 
     if (!again || rp->attempts[i] >= rp->cfg->attempts || rp->stopping)
         return JOURNAL_REFUSED;
     int64_t wait = BACKOFF_BASE_NS << (rp->attempts[i] - 1 < 4 ? rp->attempts[i] - 1 : 4);
+    wait = wait < BACKOFF_CAP_NS ? wait : BACKOFF_CAP_NS;
+    if (res->retry_after_s > 0) /* the server's word (RFC 9110, 10.2.3) over our backoff */
+        wait = res->retry_after_s < RETRY_AFTER_CAP / 1000000000 ? res->retry_after_s * 1000000000
+                                                                 : RETRY_AFTER_CAP;
     rp->retry[rp->n_retry] = i;
-    rp->retry_due[rp->n_retry++] = res->done_ns + (wait < BACKOFF_CAP_NS ? wait : BACKOFF_CAP_NS);
+    rp->retry_due[rp->n_retry++] = res->done_ns + wait;
     *final = false;
     return JOURNAL_LEFT;
 }

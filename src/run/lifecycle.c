@@ -433,15 +433,19 @@ typedef struct {
     const char **paths;
     int *cls; /* creating class of each object, -1 when unknown */
     size_t n;
-    const char *phase; /* the cells' phase name */
+    const char *phase; /* the teardown phase's name, for its cells; NULL when implicit */
+    hist_t *response;  /* every answer's response time, for the lifecycle section */
 } reap_ctx_t;
 
 static void reap_result(void *user, size_t i, const eng_result_t *res, enum journal_fate f)
 {
     reap_ctx_t *x = user;
     runner_t *r = x->r;
+    hist_record(x->response, res->done_ns - res->intended_ns);
+    /* Cells only for a teardown phase of the plan: objectives are judged per plan phase. */
     results_cell_t *cell =
-        results_cell(r->res, x->phase, "teardown", eng_outcome_name(res->outcome));
+        x->phase ? results_cell(r->res, x->phase, "teardown", eng_outcome_name(res->outcome))
+                 : NULL;
     if (cell) {
         results_counters_t *k = results_cell_counters(cell);
         k->count++;
@@ -515,12 +519,18 @@ static void teardown_limits(const runner_t *r, size_t n, journal_reap_cfg_t *cfg
         cfg->limit_ns = INTERRUPTED_MAX_NS;
 }
 
-static json_t *teardown_json(const journal_reap_counts_t *c, size_t n, bool kept)
+static json_t *teardown_json(const journal_reap_counts_t *c, size_t n, bool kept, const hist_t *h)
 {
-    return json_pack("{s:I, s:b, s:I, s:I, s:I, s:I, s:f, s:s?}", "objects", (json_int_t)n, "kept",
-                     kept, "deleted", (json_int_t)c->done, "already_gone", (json_int_t)c->gone,
-                     "failed", (json_int_t)c->refused, "left", (json_int_t)(kept ? n : c->left),
-                     "seconds", (double)c->elapsed_ns / 1e9, "stopped", c->why[0] ? c->why : NULL);
+    json_t *t =
+        json_pack("{s:I, s:b, s:I, s:I, s:I, s:I, s:f, s:s?}", "objects", (json_int_t)n, "kept",
+                  kept, "deleted", (json_int_t)c->done, "already_gone", (json_int_t)c->gone,
+                  "failed", (json_int_t)c->refused, "left", (json_int_t)(kept ? n : c->left),
+                  "seconds", (double)c->elapsed_ns / 1e9, "stopped", c->why[0] ? c->why : NULL);
+    if (t && h && hist_count(h)) {
+        json_object_set_new(t, "response_p50_ms", json_real((double)hist_value_at(h, 50) / 1e6));
+        json_object_set_new(t, "response_p99_ms", json_real((double)hist_value_at(h, 99) / 1e6));
+    }
+    return t;
 }
 
 static void life_section(runner_t *r, json_t *teardown)
@@ -542,6 +552,8 @@ static void life_section(runner_t *r, json_t *teardown)
 
 static void teardown_report(runner_t *r, const journal_reap_counts_t *c, size_t n)
 {
+    if (n == 0)
+        return;
     out_info(r->o,
              "teardown: %zu objects: %zu deleted, %zu already gone, %zu failed, %zu left "
              "(%.1f s)",
@@ -565,15 +577,16 @@ void run_life_teardown(runner_t *r, const char *token)
     reap_ctx_t x = {.r = r};
     journal_reap_counts_t c = {0};
     enum journal_fate *fates = NULL;
-    if (gather(r, &x) || !(fates = calloc(x.n ? x.n : 1, sizeof(*fates)))) {
+    if (gather(r, &x) || !(fates = calloc(x.n ? x.n : 1, sizeof(*fates))) ||
+        hist_new_ns(&x.response)) {
         out_error(r->o, "teardown: out of memory; `squall cleanup` can delete what is left");
     } else if (r->opts->keep) {
         out_info(r->o, "--keep: %zu objects left on the target; `squall cleanup %s` deletes them",
                  x.n, L->journal_path);
-        life_section(r, teardown_json(&c, x.n, true));
+        life_section(r, teardown_json(&c, x.n, true, NULL));
     } else {
         const plan_phase_t *last = &r->plan->phases[r->plan->n_phases - 1];
-        x.phase = last->teardown.on ? last->name : "teardown";
+        x.phase = last->teardown.on ? last->name : NULL;
         journal_reap_cfg_t cfg = {.on_result = reap_result, .user = &x};
         teardown_limits(r, x.n, &cfg);
         eng_config_t ecfg;
@@ -582,10 +595,11 @@ void run_life_teardown(runner_t *r, const char *token)
         if (rc)
             out_error(r->o, "teardown could not start: %s", sq_strerror(rc));
         teardown_report(r, &c, x.n);
-        life_section(r, teardown_json(&c, x.n, false));
+        life_section(r, teardown_json(&c, x.n, false, x.response));
     }
     journal_flush(L->journal);
     free(fates);
+    hist_free(x.response);
     free(x.paths);
     free(x.cls);
 }

@@ -1,0 +1,240 @@
+/* `squall cleanup RESULTS_DIR|JOURNAL`: delete whatever a run's journal shows still alive (after a
+ * crash, a kill -9, --keep, or a run on another machine), idempotently, and report counts. */
+#include <arpa/inet.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+
+#include "squall/cli.h"
+#include "squall/err.h"
+#include "squall/journal.h"
+#include "squall/plan.h"
+
+enum { OPT_CONFIRM, OPT_RATE, OPT_CONNECTIONS, OPT_DRY_RUN, OPT_INSECURE, OPT_CA, OPT_TOKEN_ENV };
+
+static const cli_opt_t cleanup_opts[] = {
+    [OPT_CONFIRM] = {"confirm-target", 0, NULL,
+                     "allow a target that is not loopback (tell its owners first)"},
+    [OPT_RATE] = {"rate", 0, "RATE", "deletes per second (default 100/s; 0 = as fast as allowed)"},
+    [OPT_CONNECTIONS] = {"connections", 0, "N", "deletes in flight at most (default 8)"},
+    [OPT_DRY_RUN] = {"dry-run", 'n', NULL, "list what is alive, delete nothing"},
+    [OPT_INSECURE] = {"insecure", 0, NULL, "do not verify the target's TLS certificate"},
+    [OPT_CA] = {"ca", 0, "FILE", "CA certificates to verify the target with"},
+    [OPT_TOKEN_ENV] = {"token-env", 0, "NAME",
+                       "send the bearer token in environment variable NAME"},
+    {NULL, 0, NULL, NULL},
+};
+
+typedef struct {
+    const char *input, *ca, *token_env;
+    bool confirm, dry_run, insecure;
+    double rate;
+    int connections;
+} cleanup_args_t;
+
+/* True when the URL's host is 127.0.0.0/8, ::1 or localhost (as `squall run` decides). */
+static bool url_is_loopback(const char *url)
+{
+    const char *h = strstr(url, "://");
+    h = h ? h + 3 : url;
+    const char *at = strchr(h, '@'), *slash = strchr(h, '/');
+    if (at && (!slash || at < slash))
+        h = at + 1;
+    char host[256];
+    size_t n = h[0] == '[' ? strcspn(h + 1, "]") : strcspn(h, ":/");
+    snprintf(host, sizeof host, "%.*s", (int)(n < 255 ? n : 255), h + (h[0] == '['));
+    struct in_addr a4;
+    struct in6_addr a6;
+    if (inet_pton(AF_INET, host, &a4) == 1)
+        return (ntohl(a4.s_addr) >> 24) == 127;
+    if (inet_pton(AF_INET6, host, &a6) == 1)
+        return IN6_IS_ADDR_LOOPBACK(&a6);
+    return strcmp(host, "localhost") == 0;
+}
+
+static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, cleanup_args_t *ca)
+{
+    int64_t n;
+    switch (k) {
+    case OPT_CONFIRM:
+        ca->confirm = true;
+        break;
+    case OPT_RATE:
+        if (plan_parse_rate(v, &ca->rate))
+            return cli_usage_error(cmd, o, "--rate needs %s, got '%s'", PLAN_RATE_EXPECTS, v);
+        break;
+    case OPT_CONNECTIONS:
+        if (plan_parse_int(v, 1, 10000, &n))
+            return cli_usage_error(cmd, o, "--connections needs 1..10000, got '%s'", v);
+        ca->connections = (int)n;
+        break;
+    case OPT_DRY_RUN:
+        ca->dry_run = true;
+        break;
+    case OPT_INSECURE:
+        ca->insecure = true;
+        break;
+    case OPT_CA:
+        ca->ca = v;
+        break;
+    case OPT_TOKEN_ENV:
+        ca->token_env = v;
+        break;
+    }
+    return -1;
+}
+
+static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, cleanup_args_t *ca)
+{
+    cli_args_t a;
+    const char *v;
+    int k, rc;
+    ca->rate = 100;
+    ca->connections = 8;
+    cli_args_init(&a, cmd, argc, argv);
+    while ((k = cli_next(&a, o, &v)) != CLI_END) {
+        if (k == CLI_ERROR)
+            return SQ_EXIT_USAGE;
+        if (k == CLI_HELP) {
+            cli_print_help(cmd, o);
+            return SQ_EXIT_OK;
+        }
+        if (k == CLI_POSITIONAL) {
+            if (ca->input)
+                return cli_usage_error(cmd, o, "one journal at a time, got '%s' after '%s'", v,
+                                       ca->input);
+            ca->input = v;
+        } else if ((rc = take_opt(cmd, k, v, o, ca)) >= 0) {
+            return rc;
+        }
+    }
+    if (!ca->input)
+        return cli_usage_error(cmd, o, "which run? (expected RESULTS_DIR or a journal file)");
+    return -1;
+}
+
+typedef struct {
+    journal_t *j;
+    const journal_alive_t *alive;
+} cleanup_ctx_t;
+
+static void on_result(void *user, size_t i, const eng_result_t *res, enum journal_fate f)
+{
+    (void)res;
+    cleanup_ctx_t *x = user;
+    if (f == JOURNAL_DONE || f == JOURNAL_GONE)
+        journal_add(x->j, JOURNAL_DELETED, x->alive->paths[i], x->alive->classes[i], 0);
+}
+
+/* Deletes every alive object; returns the exit code. */
+static int reap_alive(const cleanup_args_t *ca, const char *path, const journal_alive_t *al,
+                      out_t *o)
+{
+    cleanup_ctx_t x = {.alive = al};
+    if (journal_open(path, al->target, o, &x.j))
+        return SQ_EXIT_FAILURE;
+    const char *token = ca->token_env ? getenv(ca->token_env) : NULL;
+    if (ca->token_env && (!token || !token[0])) {
+        journal_close(x.j);
+        out_error(o, "--token-env: environment variable %s is not set", ca->token_env);
+        return SQ_EXIT_USAGE;
+    }
+    eng_config_t ecfg = {.base_url = al->target,
+                         .connections = ca->connections,
+                         .timeout_ms = 10000,
+                         .ca_file = ca->ca,
+                         .insecure = ca->insecure,
+                         .bearer_token = token};
+    journal_reap_cfg_t cfg = {.rate = ca->rate,
+                              .parallel = ca->connections,
+                              .attempts = 4,
+                              .on_result = on_result,
+                              .user = &x};
+    double secs = ca->rate > 0 ? (double)al->n / ca->rate : (double)al->n / 1000;
+    cfg.limit_ns = (int64_t)(secs * 2e9) + 30 * INT64_C(1000000000);
+    enum journal_fate *fates = calloc(al->n ? al->n : 1, sizeof(*fates));
+    journal_reap_counts_t c = {0};
+    uv_loop_t loop;
+    int rc = fates ? uv_loop_init(&loop) : SQ_ENOMEM;
+    if (rc == 0) {
+        rc = journal_reap(&loop, &ecfg, o, &cfg, (const char *const *)al->paths, al->n, fates, &c);
+        if (uv_loop_close(&loop))
+            out_warn(o, "internal: event loop closed with handles still open");
+    }
+    free(fates);
+    if (journal_close(x.j))
+        out_warn(o, "journal %s: not every deletion could be recorded", path);
+    if (rc) {
+        out_error(o, "cleanup could not start: %s", sq_strerror(rc));
+        return SQ_EXIT_FAILURE;
+    }
+    out_print(
+        o, "cleanup %s: %zu alive: %zu deleted, %zu already gone, %zu failed, %zu left (%.1f s)\n",
+        al->target, al->n, c.done, c.gone, c.refused, c.left, (double)c.elapsed_ns / 1e9);
+    if (c.why[0])
+        out_warn(o, "stopped early: %s", c.why);
+    if (c.refused + c.left == 0)
+        return SQ_EXIT_OK;
+    out_warn(o, "%zu objects are still alive on the target; run cleanup again later",
+             c.refused + c.left);
+    return strstr(c.why, "unreachable") ? SQ_EXIT_UNREACHABLE
+           : (strstr(c.why, "SIG"))     ? SQ_EXIT_INTERRUPTED
+                                        : SQ_EXIT_FAILURE;
+}
+
+static int cleanup_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
+{
+    cleanup_args_t ca = {0};
+    int rc = read_args(cmd, argc, argv, o, &ca);
+    if (rc >= 0)
+        return rc;
+    char path[4096];
+    struct stat st;
+    bool dir = stat(ca.input, &st) == 0 && S_ISDIR(st.st_mode);
+    snprintf(path, sizeof path, dir ? "%s/" JOURNAL_FILE : "%s", ca.input);
+    journal_alive_t al;
+    if ((rc = journal_read(path, &al, o)))
+        return rc == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+    size_t unconfirmed = 0;
+    for (size_t i = 0; i < al.n; i++)
+        unconfirmed += !al.confirmed[i];
+    out_print(o,
+              "journal %s: %zu lines (%zu skipped), %zu created, %zu deleted: %zu alive (%zu "
+              "never confirmed: their create got no clear answer)\n",
+              path, al.records, al.torn, al.created, al.deleted, al.n, unconfirmed);
+    if (!url_is_loopback(al.target) && !ca.confirm) {
+        out_error(o,
+                  "target %s is not a loopback address: deleting on a shared system needs "
+                  "--confirm-target",
+                  al.target);
+        rc = SQ_EXIT_USAGE;
+    } else if (ca.dry_run) {
+        for (size_t i = 0; i < al.n; i++)
+            out_print(o, "%s%s\n", al.paths[i], al.confirmed[i] ? "" : " (unconfirmed)");
+        rc = SQ_EXIT_OK;
+    } else {
+        rc = reap_alive(&ca, path, &al, o);
+    }
+    journal_alive_close(&al);
+    return rc;
+}
+
+const cli_cmd_t cli_cmd_cleanup = {
+    .name = "cleanup",
+    .summary = "delete the objects a run's journal shows still alive",
+    .usage = "RESULTS_DIR|JOURNAL [--dry-run] [--rate RATE] [--confirm-target] [options]",
+    .description =
+        "Reads RESULTS_DIR/journal.ndjson (or the journal file given) and sends DELETE for\n"
+        "every object it shows created and not yet deleted, to the target the journal names:\n"
+        "after a crash or a kill -9 of `squall run`, after --keep, or from another machine.\n"
+        "Deletions are appended to the journal, so running it again deletes nothing twice;\n"
+        "404 and 410 count as already gone. A torn last line (the writer was killed mid-line)\n"
+        "is reported and skipped. Tries each object up to 4 times on 5xx, 429 and timeouts,\n"
+        "waiting the answer's Retry-After (at most 30 s), else 200 ms, then doubling up to 2 s.\n"
+        "\n"
+        "Exit code 0 when nothing is left alive, 4 when the target is unreachable, 5 after a\n"
+        "signal, 6 when some objects could not be deleted. Targets other than loopback are\n"
+        "refused without --confirm-target.",
+    .opts = cleanup_opts,
+    .main = cleanup_main,
+};

@@ -1,0 +1,158 @@
+#!/usr/bin/env bash
+# Object lifecycle against the embedded target: after fill, churn, picked reads and teardown the
+# target holds exactly the objects it held before (its own /stats count, an outside view); the
+# objects that existed before are never deleted; --keep leaves them and `squall cleanup` removes
+# them, idempotently; SIGINT and a dead target still end with a bounded teardown that says what
+# was left.
+set -uo pipefail
+source "$SRCDIR/tests/integration/lib/target.sh"
+source "$SRCDIR/tests/integration/lib/run.sh"
+T="$BUILDDIR/life-target"
+rm -rf "$T"
+mkdir -p "$T"
+objects() { target_stats 's["objects"]'; }
+lc() { rget "$1" "d['sections']['lifecycle']$2"; }
+
+target_start || exit 1
+# Five objects that were there before: no run may delete them.
+for i in 0 1 2 3 4; do
+    curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/south/gateways/pre-$i" >/dev/null
+done
+BEFORE=$(objects)
+expect "the target starts with the 5 pre-existing objects (got $BEFORE)" test "$BEFORE" = 5
+
+plan() { # plan FILE CHURN_SECONDS TEARDOWN
+    cat >"$1" <<YAML
+seed: 11
+target: {url: "$TGT_URL", connections: 8, timeout: 2s}
+requests:
+  add-gateway:
+    {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"m":1}',
+     creates: true}
+  drop-gateway: {kind: write, method: DELETE, path: "/v1/sites/north/gateways/{{pick}}",
+                 deletes: true}
+  read-gateway: {kind: get, path: "/{{pick:add-gateway,path,zipf=1.1}}"}
+phases:
+  - {name: fill, rate: 50/s, duration: 2s, mix: {add-gateway: 1}}
+  - {name: turn, duration: $2, churn: {create: add-gateway, delete: drop-gateway, rate: 40/s,
+     population: 60}}
+  - {name: read, rate: 50/s, duration: 1s, mix: {read-gateway: 1}}
+$3
+YAML
+}
+
+# --- churn, reads, teardown -------------------------------------------------------------------
+# Arithmetic (the plan's): fill creates 50/s x 2 s = 100; churn at 40/s for 3 s = 120 ops first
+# deletes 100 - 60 = 40, then alternates, 40 creates and 40 deletes: 140 created, 80 deleted, and
+# teardown deletes the 60 left.
+plan "$T/churn.yaml" 3s "  - {name: clean, teardown: {rate: 200/s}}"
+run_plan "$T/churn" "$T/churn.yaml"
+expect "the churn run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+AFTER=$(objects)
+expect "after churn and teardown the target holds exactly its $BEFORE objects (got $AFTER)" \
+    test "$AFTER" = "$BEFORE"
+rcheck "201 answers: fill 100 + churn 40 = 140 created; churn deleted 40 + 40 = 80" \
+    "d['sections']['lifecycle']['created'] == 140 and d['sections']['lifecycle']['deleted'] == 80" \
+    "$T/churn"
+rcheck "teardown deleted the population of 60, none left, none failed" \
+    "d['sections']['lifecycle']['teardown']['deleted'] == 60 and
+     d['sections']['lifecycle']['teardown']['left'] == 0 and cell('clean', 'teardown', '2xx')['count'] == 60" \
+    "$T/churn"
+rcheck "the churn held the population at 60 once reached" \
+    "d['sections']['lifecycle']['churn_population_min'] >= 59 and
+     d['sections']['lifecycle']['churn_population_max'] <= 61" "$T/churn"
+rcheck "reads picked objects that exist: 50 answers, all 2xx (the target's 200s)" \
+    "cell('read', 'read-gateway', '2xx')['count'] == 50 and total('read-gateway', '4xx') == 0" \
+    "$T/churn"
+J="$T/churn/journal.ndjson"
+expect "the journal names the target on its first line" grep -q "\"target\":\"$TGT_URL\"" <(head -1 "$J")
+"$SQUALL" cleanup "$T/churn" >"$T/c0.out" 2>&1
+expect "cleanup after a clean run finds nothing alive" grep -q ": 0 alive" "$T/c0.out"
+
+# --- objects that existed before are not ours ---------------------------------------------------
+cat >"$T/pre.yaml" <<YAML
+target: {url: "$TGT_URL", connections: 4}
+requests:
+  touch: {kind: write, method: PUT, path: "/v1/sites/south/gateways/pre-{{seq}}", body: '{"m":2}',
+          creates: true}
+phases:
+  - {name: touch, rate: 100/s, duration: 100ms, mix: {touch: 1}}
+YAML
+run_plan "$T/pre" "$T/pre.yaml"
+rcheck "PUT on the 5 existing objects answers 200, not 201: 5 existed, 5 created (pre-5..9)" \
+    "d['sections']['lifecycle']['existed'] == 5 and d['sections']['lifecycle']['created'] == 5" \
+    "$T/pre"
+expect "implicit teardown removed only the 5 it created (count $(objects), expected $BEFORE)" \
+    test "$(objects)" = "$BEFORE"
+
+# --- --keep, then cleanup ---------------------------------------------------------------------
+plan "$T/keep.yaml" 1s ""
+run_plan "$T/keep" "$T/keep.yaml" --keep
+KEPT=$(lc "$T/keep" "['teardown']['left']")
+expect "--keep leaves the population on the target ($KEPT objects, target has $(objects))" \
+    test "$(objects)" = $((BEFORE + KEPT))
+"$SQUALL" cleanup "$T/keep" >"$T/c1.out" 2>&1
+C1=$?
+expect "squall cleanup exits 0 (got $C1) and deleted $KEPT" grep -q "$KEPT alive: $KEPT deleted" "$T/c1.out"
+expect "and the target is back to $BEFORE objects (got $(objects))" test "$(objects)" = "$BEFORE"
+"$SQUALL" cleanup "$T/keep/journal.ndjson" >"$T/c2.out" 2>&1
+expect "a second cleanup deletes nothing: idempotent" grep -q ": 0 alive: 0 deleted" "$T/c2.out"
+
+# --- SIGINT: teardown still runs -------------------------------------------------------------
+plan "$T/int.yaml" 20s ""
+timeout 60 "$SQUALL" run "$T/int.yaml" -o "$T/int" --quiet >"$T/int.stdout" 2>"$T/int.stderr" &
+RP=$!
+sleep 3
+kill -INT "$RP"
+wait "$RP"
+RC=$?
+expect "SIGINT mid-churn exits 5 (got $RC)" test "$RC" = 5
+expect "and teardown still brought the target back to $BEFORE (got $(objects))" \
+    test "$(objects)" = "$BEFORE"
+rcheck "results.json says teardown deleted every object and left none" \
+    "d['sections']['lifecycle']['teardown']['left'] == 0 and
+     d['sections']['lifecycle']['teardown']['deleted'] == d['sections']['lifecycle']['teardown']['objects'] > 0" \
+    "$T/int"
+
+# --- Retry-After: 503s with "Retry-After: 2" are waited out ---------------------------------
+# The target answers every /v1/ request 503 with Retry-After: 2 (RFC 9110, 10.2.3) for the
+# first 1.5 s of cleanup, then recovers. Honouring the header, every first DELETE waits 2 s and
+# succeeds on its second try; the fixed backoff alone (0.2 + 0.4 + 0.8 s over 4 tries) would
+# give up before the target recovers.
+plan "$T/retry.yaml" 1s ""
+run_plan "$T/retry" "$T/retry.yaml" --keep
+N=$(lc "$T/retry" "['teardown']['left']")
+faults() { curl -s -X POST -d "$1" "$TGT_URL/admin/faults" >/dev/null; }
+faults '{"fail_rate": 1, "fail_status": 503, "retry_after": 2}'
+"$SQUALL" cleanup "$T/retry" --rate 0 >"$T/retry.out" 2>&1 &
+CP=$!
+sleep 1.5
+faults '{"fail_rate": 0}'
+wait "$CP"
+CRC=$?
+expect "cleanup through 503 + Retry-After exits 0 (got $CRC) with all $N deleted" \
+    grep -q "$N alive: $N deleted, 0 already gone, 0 failed, 0 left" "$T/retry.out"
+SECS=$(sed -n 's/.*left (\([0-9.]*\) s).*/\1/p' "$T/retry.out")
+expect "it waited the 2 s Retry-After before retrying (took $SECS s)" \
+    /usr/bin/python3 -c "import sys; sys.exit(not 2.0 <= float('$SECS') < 10)"
+FAILED503=$(target_stats 's["faults"]["failed"]')
+expect "the target saw $N first tries answered 503 (its count: $FAILED503)" test "$FAILED503" -ge "$N"
+expect "and the target is back to $BEFORE objects (got $(objects))" test "$(objects)" = "$BEFORE"
+
+# --- a dead target: teardown is bounded and says what was left --------------------------------
+timeout 90 "$SQUALL" run "$T/int.yaml" -o "$T/dead" --quiet >"$T/dead.stdout" 2>"$T/dead.stderr" &
+RP=$!
+sleep 3
+kill -KILL "$TGT_PID"
+wait "$TGT_PID" 2>/dev/null
+TGT_PID=
+START=$(date +%s)
+wait "$RP"
+RC=$?
+SECS=$(($(date +%s) - START))
+expect "a dead target stops the run with exit 4 (got $RC)" test "$RC" = 4
+expect "teardown gave up within 40 s of the target dying (took ${SECS}s)" test "$SECS" -le 40
+expect "and said how many objects it left" grep -q "teardown left [1-9][0-9]* objects" "$T/dead.stderr"
+rcheck "results.json records what was left" \
+    "d['sections']['lifecycle']['teardown']['left'] > 0" "$T/dead"
+exit $FAILED
