@@ -19,6 +19,7 @@ struct eng_xfer {
     CURL *easy;    /* attached at admission, returned to the pool when done */
     eng_req_t req; /* copy; strings point into the buffers below */
     struct eng_buf url, method, body, resp;
+    CURLU *uh; /* the base URL parsed once; path and query set per request (xfer.c) */
     struct curl_slist *headers; /* per-request list, or NULL to use the engine's */
     eng_result_t res;
     bool opener;     /* HTTP/2 h2c: opens a fresh connection with prior knowledge */
@@ -44,6 +45,7 @@ struct eng {
     char *base_url, *ca_file, *cert_file, *key_file;
     struct curl_slist *headers; /* config headers + bearer token */
     bool h2c;                   /* HTTP/2 over http:// (prior knowledge) */
+    size_t origin_len;          /* length of base_url's "scheme://authority" */
     int streams;
 
     CURLM *multi;

@@ -76,6 +76,7 @@ static void eng_release_memory(eng_t *e)
         free(x->method.data);
         free(x->body.data);
         free(x->resp.data);
+        curl_url_cleanup(x->uh);
         free(x);
     }
     curl_slist_free_all(e->headers);
@@ -124,6 +125,8 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     if (!e->base_url || (cfg->ca_file && !e->ca_file) || (cfg->cert_file && !e->cert_file) ||
         (cfg->key_file && !e->key_file))
         goto fail;
+    const char *authority = strstr(e->base_url, "://") + 3;
+    e->origin_len = (size_t)(authority - e->base_url) + strcspn(authority, "/?#");
     /* The copy must not point at the caller's strings. */
     e->cfg.base_url = e->base_url;
     e->cfg.ca_file = e->ca_file;

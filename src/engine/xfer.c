@@ -223,11 +223,44 @@ static void set_method(struct eng_xfer *x)
 /* The per-request options of a reused easy handle. For h2c the opener opens a fresh connection
  * with prior knowledge and every other transfer asks for 2.0 and waits to multiplex: prior
  * knowledge on a reused connection fails in 7.88.1 (curl issue #10634). */
+/* Hands libcurl the URL as a parsed handle: the transfer's own CURLU keeps the base URL parsed
+ * once and gets only its path and query per request. With CURLOPT_URL libcurl 7.88.1 parses the
+ * whole URL and prints it back for every transfer (curl_url_set + curl_url_get + aprintf, ~10 %
+ * of the instructions per request under callgrind). Anything unusual (no path, a fragment, a
+ * path libcurl refuses) goes through CURLOPT_URL, so libcurl judges it exactly as before. */
+static void set_url(struct eng_xfer *x)
+{
+    eng_t *e = x->eng;
+    char *path = x->url.data + e->origin_len;
+    char *query = strchr(path, '?');
+    bool plain = path[0] == '/' && !strchr(path, '#');
+    if (plain && !x->uh && (x->uh = curl_url()) &&
+        curl_url_set(x->uh, CURLUPART_URL, e->base_url, 0) != CURLUE_OK) {
+        curl_url_cleanup(x->uh);
+        x->uh = NULL;
+    }
+    if (plain && x->uh) {
+        if (query)
+            *query = '\0';
+        CURLUcode uc = curl_url_set(x->uh, CURLUPART_PATH, path, 0);
+        if (query)
+            *query = '?';
+        if (uc == CURLUE_OK)
+            uc = curl_url_set(x->uh, CURLUPART_QUERY, query ? query + 1 : NULL, 0);
+        if (uc == CURLUE_OK) {
+            curl_easy_setopt(x->easy, CURLOPT_CURLU, x->uh);
+            return;
+        }
+    }
+    curl_easy_setopt(x->easy, CURLOPT_CURLU, NULL);
+    curl_easy_setopt(x->easy, CURLOPT_URL, x->url.data);
+}
+
 int eng_xfer_setup(struct eng_xfer *x)
 {
     eng_t *e = x->eng;
     CURL *c = x->easy;
-    curl_easy_setopt(c, CURLOPT_URL, x->url.data);
+    set_url(x);
     curl_easy_setopt(c, CURLOPT_PRIVATE, x);
     curl_easy_setopt(c, CURLOPT_WRITEDATA, x);
     curl_easy_setopt(c, CURLOPT_PREREQDATA, x);

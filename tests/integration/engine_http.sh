@@ -19,6 +19,23 @@ check "p50 service time with a 50 ms server delay is 50 ms within 2 ms" \
 check "response time (from intended start) is never below service time at p50" \
     'd["response_ms"]["p50"] >= d["service_ms"]["p50"]' "$T/delay.json"
 
+# URL assembly (the engine hands libcurl a parsed URL and sets only path and query per request;
+# RFC 3986 §3: path, then "?" query, then "#" fragment, which is never sent). nginx's exact-match
+# locations see only the path: a query sent as part of the path would get 404.
+probe "$T/query.json" --url "$BASE" --path '/echo/args?site=north&page=2' --requests 200 \
+    --concurrency 4 --connections 2 --keep-body
+check "a query string arrives as the query (nginx's \$args), 200 x 2xx" \
+    'd["outcomes"]["2xx"] == 200 and d["first_body"] == "args=site=north&page=2\n"' \
+    "$T/query.json"
+probe "$T/prefix.json" --url "$BASE/echo" --path /body --method PUT --body '{"n":1}' \
+    --requests 50 --concurrency 2 --connections 2 --keep-body
+check "a base URL with a path prefix: /echo + /body reaches /echo/body and echoes the body" \
+    'd["outcomes"]["2xx"] == 50 and d["first_body"] == "{\"n\":1}"' "$T/prefix.json"
+probe "$T/frag.json" --url "$BASE" --path '/small.json#part' --requests 20 --concurrency 1 \
+    --connections 1
+check "a fragment is not sent (the unusual-URL path through CURLOPT_URL): 20 x 2xx" \
+    'd["outcomes"]["2xx"] == 20' "$T/frag.json"
+
 # Source: the file on disk (stat). Every response carries exactly the file's bytes as its body;
 # headers come on top, so bytes_in is strictly larger.
 SIZE=$(stat -c %s "$NGX_DIR/www/small.json")

@@ -10,6 +10,7 @@
 #     /fail/503             503 with a JSON body
 #     /echo/body            echoes the request body (any method)
 #     /echo/headers         "site=<X-Squall-Site header> auth=<Authorization header>\n"
+#     /echo/args            "args=<the query string>\n"
 #     /auth/bearer          200 only with "Authorization: Bearer $NGX_TOKEN", 401 otherwise
 #     /mtls/ok              200 only when a client certificate signed by our CA was presented,
 #                           403 otherwise (TLS port; the server asks for it as optional)
@@ -98,6 +99,7 @@ $(_ngx_delays)
             return 200 '{"auth":"ok"}\n';
         }
         location = /echo/headers { echo "site=\$http_x_squall_site auth=\$http_authorization"; }
+        location = /echo/args { echo "args=\$args"; }
         location = /mtls/ok {
             if (\$ssl_client_verify != SUCCESS) { return 403 '{"mtls":"refused"}\n'; }
             return 200 '{"mtls":"ok"}\n';
