@@ -223,13 +223,14 @@ static double per_class(const plan_t *p, const plan_estimate_t *e, const char *c
  *  fill:   ramp 10/s -> 50/s over 5 s = (10 + 50) / 2 * 5 = 150 register-gateway (150 alive).
  *  steady: 100/s * 10 s = 1000, mix 70:5:25 -> read 700, list 50, renew 250.
  *  rush:   200 aligned agents every 2 s for 6 s = 200 * 6 / 2 = 600 renew-agent, in bursts of
- *          200 at once. */
+ *          200 at once.
+ *  teardown: one delete per gateway still alive = 150, at 500/s: 150 / 500 = 0.3 s; 0 alive. */
 static void test_demo_estimates(void **state)
 {
     (void)state;
     plan_t *p = load_ok(SRCDIR "/scenarios/demo.yaml", NULL, 0);
     assert_true(p->target.loopback);
-    assert_int_equal(p->n_phases, 3);
+    assert_int_equal(p->n_phases, 4);
     plan_estimate_t e;
     plan_estimate(p, 0, &e);
     assert_double_equal(per_class(p, &e, "register-gateway"), 150, 1e-9);
@@ -246,6 +247,13 @@ static void test_demo_estimates(void **state)
     assert_double_equal(e.burst, 200, 1e-9);
     assert_int_equal(e.agents, 200);
     assert_double_equal(e.alive_after, 150, 1e-9);
+    plan_estimate(p, 3, &e);
+    assert_double_equal(e.deleted, 150, 1e-9);
+    assert_double_equal(e.requests, 150, 1e-9);
+    assert_false(e.open_ended);
+    assert_int_equal(e.duration_ns, 300000000);
+    assert_double_equal(e.peak_rate, 500, 1e-9);
+    assert_double_equal(e.alive_after, 0, 1e-9);
     plan_free(p);
 }
 
