@@ -77,6 +77,36 @@ static void header(FILE *f, const results_t *res)
     fputs("</table>\n", f);
 }
 
+/* The brakes in force (the "brakes" section), one line each. */
+static void brakes(FILE *f, const results_t *res)
+{
+    json_t *b = results_section(res, "brakes"), *k;
+    size_t i;
+    if (!b)
+        return;
+    fprintf(f, "<p>Brakes in force (%s target):</p>\n<ul>\n",
+            json_is_true(json_object_get(b, "shared_target")) ? "shared" : "loopback");
+    json_array_foreach(json_object_get(b, "brakes"), i, k)
+    {
+        const char *kind = jstr(k, "kind") ? jstr(k, "kind") : "?";
+        char what[128];
+        if (!strcmp(kind, "error-rate"))
+            snprintf(what, sizeof what, "error rate above %.1f %% over %.0f s",
+                     100 * jnum(k, "error_rate"), jnum(k, "for_s"));
+        else if (!strcmp(kind, "percentile"))
+            snprintf(what, sizeof what, "p%g above %.0f ms held for %.0f s", jnum(k, "percentile"),
+                     jnum(k, "max_ms"), jnum(k, "for_s"));
+        else if (!strcmp(kind, "unreachable"))
+            snprintf(what, sizeof what, "no answer for %.0f s", jnum(k, "after_s"));
+        else
+            snprintf(what, sizeof what, "generator limited for %.0f s", jnum(k, "for_s"));
+        fprintf(f, "<li>%s (%s, class ", what, jstr(k, "source") ? jstr(k, "source") : "?");
+        html_esc(f, jstr(k, "class"));
+        fputs(")</li>\n", f);
+    }
+    fputs("</ul>\n", f);
+}
+
 static void generator(FILE *f, const results_t *res)
 {
     json_t *g = results_section(res, "generator");
@@ -105,7 +135,9 @@ static void generator(FILE *f, const results_t *res)
     snprintf(buf, sizeof buf, "%.0f started, %.0f completed, %.0f errors", jnum(g, "started"),
              jnum(g, "completed"), jnum(g, "errors"));
     kv(f, "requests", buf);
-    fputs("</table></section>\n", f);
+    fputs("</table>\n", f);
+    brakes(f, res);
+    fputs("</section>\n", f);
 }
 
 static void fmt_value(double v, const char *unit, char *buf, size_t cap)

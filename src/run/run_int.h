@@ -179,6 +179,9 @@ bool run_verdict_failed(const runner_t *r);
 void run_verdict_print(runner_t *r);
 int run_verdict_report(runner_t *r, const char *dir);
 void run_verdict_close(runner_t *r);
+/* health.c, for judge: the brakes in force, {"shared_target": bool, "brakes": [{kind, source
+ * ("plan" or "default"), class, for_s, ...the limit}]}, a new reference. */
+json_t *run_health_brakes_json(const runner_t *r);
 
 /* life: lifecycle.c. Pools of the objects that creating classes made (201 answers), served to
  * templates by the `pick` resolver; the journal (DIR/journal.ndjson) of every create and

@@ -1,6 +1,6 @@
 /* The run's verdict: the plan's objectives judged over the finished results (the "objectives"
  * section of results.json, the table after the summary, exit 1 on a failure), the "phases"
- * section (when each phase ran) and report.html. */
+ * section (when each phase ran), the "brakes" section (the brakes in force) and report.html. */
 #include <stdlib.h>
 
 #include "run_int.h"
@@ -50,6 +50,8 @@ int run_verdict_judge(runner_t *r)
                             &v->judge);
     if (rc == 0 && r->run_start_ns)
         rc = results_set_section(r->res, "phases", phases_json(r, ph));
+    if (rc == 0)
+        rc = results_set_section(r->res, "brakes", run_health_brakes_json(r));
     free(ph);
     if (rc == 0 && r->plan->n_objectives)
         rc = results_set_section(r->res, JUDGE_SECTION, judge_json(v->judge));

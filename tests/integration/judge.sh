@@ -98,6 +98,13 @@ rcheck "stop_reason names the percentile brake" \
     "$T/pbrake"
 rcheck "it stopped after 2-5 s of the planned 20 s (100-250 of 1,000 requests answered)" \
     "100 <= total('read', '2xx') <= 250" "$T/pbrake"
+rcheck "the brakes section: the plan's p99 brake replaces the default of its kind; the loopback
+      defaults (error rate 10 % over 10 s, unreachable 10 s) stay" \
+    "sorted((b['kind'], b['source']) for b in d['sections']['brakes']['brakes']) ==
+     [('error-rate', 'default'), ('percentile', 'plan'), ('unreachable', 'default')]
+     and d['sections']['brakes']['shared_target'] is False" "$T/pbrake"
+expect "report.html lists the brakes in force" grep -q "p99 above 20 ms held for 2 s (plan" \
+    "$T/pbrake/report.html"
 
 # A saturation brake: one connection cannot carry 100/s at 50 ms each (20/s at most), so requests
 # wait in squall's queue (generator-limited); held for 2 s, the brake stops the run.
