@@ -45,6 +45,13 @@ struct run_life {
     int64_t churn_min, churn_max; /* population seen once the target was first reached */
     bool churn_reached;
     int64_t created, existed, create_failed, deleted, skipped;
+    /* Signal guards (unreferenced, so they never keep the loop alive): libuv restores the
+     * default action when the runner closes its own signal handles, and a signal between that
+     * and the teardown's handles would kill us with objects left. They also count signals, so
+     * one that arrives after the runner stopped listening stops the teardown. */
+    uv_signal_t guard[2];
+    bool guarded;
+    int guard_seen;
 };
 
 /* ---- {{pick}} ---------------------------------------------------------------------------- */
@@ -301,11 +308,45 @@ static const char *object_path(const char *path, char *buf, size_t cap)
     return buf;
 }
 
+static void on_guard(uv_signal_t *s, int signum)
+{
+    (void)signum;
+    struct run_life *L = s->data;
+    L->guard_seen++;
+}
+
+/* Started with the first create: from then on there is something to tear down. */
+static void guards_start(runner_t *r)
+{
+    struct run_life *L = r->life;
+    static const int sig[2] = {SIGINT, SIGTERM};
+    for (int i = 0; i < 2; i++) {
+        uv_signal_init(&r->loop, &L->guard[i]);
+        L->guard[i].data = L;
+        uv_signal_start(&L->guard[i], on_guard, sig[i]);
+        uv_unref((uv_handle_t *)&L->guard[i]);
+    }
+    L->guarded = true;
+}
+
+static void guards_close(runner_t *r)
+{
+    struct run_life *L = r->life;
+    if (!L->guarded)
+        return;
+    for (int i = 0; i < 2; i++)
+        uv_close((uv_handle_t *)&L->guard[i], NULL);
+    L->guarded = false;
+    uv_run(&r->loop, UV_RUN_DEFAULT); /* runs the close callbacks */
+}
+
 void run_life_sending(runner_t *r, int cls, const char *path)
 {
     struct run_life *L = r->life;
     if (!L->pools[cls])
         return;
+    if (!L->guarded)
+        guards_start(r);
     char buf[4096];
     L->creating[cls]++;
     journal_add(L->journal, JOURNAL_PUT, object_path(path, buf, sizeof buf),
@@ -584,6 +625,12 @@ void run_life_teardown(runner_t *r, const char *token)
         out_info(r->o, "--keep: %zu objects left on the target; `squall cleanup %s` deletes them",
                  x.n, L->journal_path);
         life_section(r, teardown_json(&c, x.n, true, NULL));
+    } else if (L->guard_seen > r->signals) {
+        /* A signal after the runner had stopped listening: the user wants out now. */
+        c.left = x.n;
+        snprintf(c.why, sizeof c.why, "a signal arrived after the run had stopped");
+        teardown_report(r, &c, x.n);
+        life_section(r, teardown_json(&c, x.n, false, NULL));
     } else {
         const plan_phase_t *last = &r->plan->phases[r->plan->n_phases - 1];
         x.phase = last->teardown.on ? last->name : NULL;
@@ -598,6 +645,7 @@ void run_life_teardown(runner_t *r, const char *token)
         life_section(r, teardown_json(&c, x.n, false, x.response));
     }
     journal_flush(L->journal);
+    guards_close(r);
     free(fates);
     hist_free(x.response);
     free(x.paths);
