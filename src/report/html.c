@@ -196,21 +196,6 @@ static void objectives(FILE *f, const results_t *res)
     fputs("</table></section>\n", f);
 }
 
-/* The section other engineers' storm ticks go in, shown as it is (its layout is theirs). */
-static void storms(FILE *f, const results_t *res)
-{
-    json_t *s = results_section(res, "storms");
-    if (!s)
-        return;
-    char *text = json_dumps(s, JSON_INDENT(2) | JSON_SORT_KEYS);
-    fputs("<section id=\"storms\"><h2>Storm ticks</h2>\n<pre>", f);
-    if (text && strlen(text) > 20000)
-        text[20000] = '\0';
-    html_esc(f, text);
-    fputs("</pre></section>\n", f);
-    free(text);
-}
-
 int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
 {
     fputs("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">\n"
@@ -225,7 +210,7 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
     html_tables(f, res, s);
     html_plots_time(f, res, s);
     html_plots_spectrum(f, res);
-    storms(f, res);
+    html_storms(f, res);
     fputs("<p class=\"note\">Colours: Okabe&#8211;Ito palette; each class also has its own "
           "marker shape. Response time is measured from each request's intended start.</p>\n"
           "</body></html>\n",

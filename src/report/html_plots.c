@@ -221,9 +221,11 @@ static void spectrum_plot(FILE *f, const results_t *res, const char *metric, con
         return;
     static double xs[MAX_LINES][HTML_SPECTRUM_POINTS], ys[MAX_LINES][HTML_SPECTRUM_POINTS];
     html_line_t l[MAX_LINES];
-    for (size_t c = 0; c < nc; c++)
-        l[c] = (html_line_t){xs[c],  ys[c],  html_spectrum(res, m, cls[c], h, xs[c], ys[c]),
-                             cls[c], (int)c, (int)c % 4};
+    for (size_t c = 0; c < nc; c++) {
+        int st = html_class_style(res, cls[c]);
+        size_t n = html_spectrum(res, m, cls[c], h, xs[c], ys[c]);
+        l[c] = (html_line_t){xs[c], ys[c], n, cls[c], st, st % 4};
+    }
     hist_free(h);
     char ylabel[64];
     snprintf(ylabel, sizeof ylabel, "%s time (ms, log scale)", metric);
@@ -255,6 +257,15 @@ void html_plots_spectrum(FILE *f, const results_t *res)
               "(wall clocks of writer and watcher).</p>\n",
               f);
         spectrum_plot(f, res, "propagation", "Propagation latency by percentile, per watch class");
+        fputs("</section>\n", f);
+    }
+    m = results_metric_from_name("open");
+    if (m >= 0 && metric_classes(res, m, cls, 1)) {
+        fputs("<section id=\"watch-open\"><h2>Watch open latency</h2>\n"
+              "<p class=\"note\">From a stream's intended open to its first body byte, "
+              "reconnects included.</p>\n",
+              f);
+        spectrum_plot(f, res, "open", "Watch open latency by percentile, per watch class");
         fputs("</section>\n", f);
     }
 }

@@ -194,10 +194,14 @@ static void line(FILE *f, const html_plot_t *p, const html_line_t *l, const axis
         pen = true;
     }
     fputs("\"/>", f);
+    /* Markers on every few points (offset per style so lines' markers do not coincide), and
+     * on every point without a drawable neighbour: no line passes through it. */
     size_t every = l->n > MARKERS ? l->n / MARKERS : 1;
-    for (size_t k = (size_t)l->style % every; k < l->n; k += every) {
-        double yv;
-        if (yval(p, l->y[k], &yv))
+    for (size_t k = 0; k < l->n; k++) {
+        double yv, nb;
+        bool alone =
+            (k == 0 || !yval(p, l->y[k - 1], &nb)) && (k + 1 == l->n || !yval(p, l->y[k + 1], &nb));
+        if (yval(p, l->y[k], &yv) && (alone || k % every == (size_t)l->style % every))
             marker(f, l->style, ax_map(x, xval(p, l->x[k])), ax_map(y, yv));
     }
     fputs("</g>\n", f);

@@ -50,6 +50,19 @@ static size_t names(const results_t *res, const char *phase, const char **out, s
     return n;
 }
 
+/* Watch classes count events, and record open and propagation latency, not response time. */
+static bool is_watch(const results_t *res, const char *phase, const char *cls)
+{
+    int open = results_metric_from_name("open");
+    for (size_t i = 0; open >= 0 && i < results_cell_count(res); i++) {
+        const results_cell_t *c = results_cell_at(res, i);
+        if (!strcmp(results_cell_phase(c), phase) && !strcmp(results_cell_class(c), cls) &&
+            results_cell_hist_find(c, open))
+            return true;
+    }
+    return false;
+}
+
 static double ms(int64_t ns)
 {
     return (double)ns / 1e6;
@@ -83,20 +96,27 @@ static void row(FILE *f, const results_t *res, const char *phase, const char *cl
     }
     fputs("<tr><td>", f);
     html_esc(f, cls);
+    if (is_watch(res, phase, cls))
+        fputs(" <span class=\"note\">(watch: events)</span>", f);
     fprintf(f, "</td><td class=\"n\">%lld</td><td class=\"n\">", (long long)count);
     if (secs > 0)
         fprintf(f, "%.1f", (double)count / secs);
     else
         fputs("-", f);
     fprintf(f, "</td><td class=\"n\">%lld</td><td>", (long long)errors);
-    html_esc(f, kinds[0] ? kinds : "-");
+    html_esc(f, kinds);
     if (cancelled)
         fprintf(f, "%s(%lld cancelled at stop)", kinds[0] ? " " : "", (long long)cancelled);
+    else if (!kinds[0])
+        fputs("-", f);
     fputs("</td>", f);
-    static const double pct[] = {50, 90, 99, 99.9};
-    for (size_t k = 0; k < 4; k++)
-        fprintf(f, "<td class=\"n\">%.2f</td>", ms(hist_value_at(h, pct[k])));
-    fprintf(f, "<td class=\"n\">%.2f</td></tr>\n", ms(hist_max(h)));
+    static const double pct[] = {50, 90, 99, 99.9, 100};
+    for (size_t k = 0; k < 5; k++)
+        if (hist_count(h))
+            fprintf(f, "<td class=\"n\">%.2f</td>", ms(hist_value_at(h, pct[k])));
+        else
+            fputs("<td class=\"n\">-</td>", f);
+    fputs("</tr>\n", f);
 }
 
 void html_tables(FILE *f, const results_t *res, const report_series_t *s)
@@ -107,7 +127,8 @@ void html_tables(FILE *f, const results_t *res, const report_series_t *s)
     results_hist_config(res, &lo, &hi, &digits);
     fputs("<section id=\"tables\"><h2>Per phase and class</h2>\n<p class=\"note\">Response time "
           "(ms) from each request's intended start, over every answered request (errors "
-          "included); rate = answered requests per second of the phase.</p>\n",
+          "included); rate = answered requests per second of the phase. Watch classes count the "
+          "events they received; their latency is in the sections below.</p>\n",
           f);
     if (hist_new(lo, hi, digits, &h)) {
         fputs("</section>\n", f);

@@ -135,6 +135,57 @@ check("objective table shows FAIL for error-rate checks",
 sys.exit(bad)
 PY
 
+# A run with watches, stamped writes and an aligned fleet gets the propagation, watch-open and
+# storm-tick sections; the run above, which has none of them, has none of those sections.
+target_start || exit 1
+cat >"$T/watch.yaml" <<YAML
+target: {url: "$TGT_URL", connections: 16, timeout: 5s}
+requests:
+  write: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"n":{{seq}},"stamp":{{now_ns}}}'}
+  follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1"}
+  renew: {kind: write, method: PUT, path: "/v1/leases/agent-{{agent}}", body: '{"holder":"agent-{{agent}}"}'}
+phases:
+  - {name: steady, rate: 50/s, duration: 3s, mix: {write: 1}, watches: {follow: 3}}
+  - {name: rush, duration: 3s, fleet: {agents: 20, every: 1s, timing: aligned, send: renew}}
+YAML
+run_plan "$T/watch" "$T/watch.yaml"
+expect "the watch and fleet run completes (exit $RUN_RC)" test "$RUN_RC" = 0
+target_stop
+/usr/bin/python3 - "$T/watch/report.html" "$T/run/report.html" <<'PY' || FAILED=1
+import html.parser, sys
+class P(html.parser.HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.ids, self.sect, self.series = [], None, {}
+    def handle_starttag(self, tag, a):
+        a = dict(a)
+        if tag == "section":
+            self.sect = a.get("id")
+        if "id" in a:
+            self.ids.append(a["id"])
+        if tag == "svg":
+            self.series.setdefault(self.sect, []).append([])
+        if tag == "g" and a.get("class") == "series":
+            self.series[self.sect][-1].append(a.get("data-label"))
+w, plain = P(), P()
+w.feed(open(sys.argv[1]).read())
+plain.feed(open(sys.argv[2]).read())
+bad = 0
+def check(desc, cond, detail=""):
+    global bad
+    print(("ok: " if cond else "FAIL: ") + desc + ("" if cond else "  [%s]" % (detail,)))
+    bad |= not cond
+for s in ("propagation", "watch-open", "storms"):
+    check("watch/fleet report has section #%s" % s, s in w.ids, w.ids)
+    check("the plain report has no section #%s" % s, s not in plain.ids, plain.ids)
+check("propagation spectrum: one series, the watch class", w.series.get("propagation") == [["follow"]],
+      w.series.get("propagation"))
+st = w.series.get("storms", [])
+check("storm ticks: one plot for the fleet's action, with 4 series (spread, burst, p99, p50)",
+      len(st) == 1 and len(st[0]) == 4, st)
+sys.exit(bad)
+PY
+
 # `squall report` regenerates the same page from results.json and series.csv.
 cp "$T/run/report.html" "$T/first.html"
 rm "$T/run/report.html"
