@@ -10,7 +10,6 @@ extern const cli_cmd_t cli_cmd_merge;
 extern const cli_cmd_t cli_cmd_cleanup;
 extern const cli_cmd_t cli_cmd_report;
 extern const cli_cmd_t cli_cmd_compare;
-extern const cli_cmd_t cli_cmd_report;
 
 const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_help,
@@ -22,6 +21,5 @@ const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_cleanup,
     &cli_cmd_report,
     &cli_cmd_compare,
-    &cli_cmd_report,
     NULL,
 };

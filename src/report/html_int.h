@@ -53,6 +53,8 @@ int html_class_style(const results_t *res, const char *cls);
  * percentile the sample count resolves; returns the number of points. h is scratch. */
 #define HTML_SPECTRUM_POINTS 61
 size_t html_spectrum(const results_t *res, int m, const char *cls, hist_t *h, double *x, double *y);
+/* html_storms.c: the "storms" section's ticks, when a fleet phase ran. */
+void html_storms(FILE *f, const results_t *res);
 void html_plots_time(FILE *f, const results_t *res, const report_series_t *s);
 void html_plots_spectrum(FILE *f, const results_t *res);
 
