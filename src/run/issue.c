@@ -215,6 +215,7 @@ static void record(runner_t *r, const run_req_t *q, const eng_result_t *res, int
         hist_record(r->sec_sched_lag, res->submitted_ns - intended);
     }
     run_sec_record(r, q->cls, res);
+    run_storm_done(r, q->phase, q->cls, intended, res); /* watch: storm reporting */
 }
 
 static void record_whole(runner_t *r, const run_req_t *q, const eng_result_t *last)

@@ -134,6 +134,7 @@ struct runner {
 
     /* watch: the current phase's watch streams (watches.c). */
     struct run_watches *watches;
+    struct run_storm *storm; /* fleet phases' storm reporting (storm.c) */
 
     /* judge: objectives and report.html (verdict.c). */
     struct run_verdict *verdict;
@@ -209,6 +210,13 @@ void run_life_close(runner_t *r);
  * phase run_watches_start (from phase_start), run_watches_tick (every wake-up: opens and
  * reconnects that are due), run_watches_stop (at the phase's end and in finish: writes the
  * "watches" section), and run_watches_close (teardown). All are no-ops without watches. */
+/* watch: storm.c. For fleet phases: run_storm_start (from phase_start, after the fleet's
+ * schedules exist), run_storm_done (every recorded completion, any class), run_storm_finish
+ * (once every request has finished: the "storms" section), run_storm_close (teardown). */
+int run_storm_start(runner_t *r, size_t phase);
+void run_storm_done(runner_t *r, int phase, int cls, int64_t intended, const eng_result_t *res);
+void run_storm_finish(runner_t *r);
+void run_storm_close(runner_t *r);
 int run_watches_init(runner_t *r, const char *token);
 int run_watches_start(runner_t *r, size_t phase);
 void run_watches_tick(runner_t *r, int64_t now_ns);

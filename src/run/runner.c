@@ -146,6 +146,8 @@ static int phase_start(runner_t *r, size_t i, int64_t base_ns)
         rc = phase_fleet_init(r, ph, i);
     if (rc == 0 && pp->watches.n_sets)
         rc = run_watches_start(r, i); /* watch */
+    if (rc == 0 && pp->fleet.on)
+        rc = run_storm_start(r, i); /* watch: storm reporting */
     r->cur = i;
     if (rc)
         out_error(r->o, "phase '%s': cannot build its schedule: %s", pp->name, sq_strerror(rc));
@@ -310,6 +312,7 @@ static void finish(runner_t *r)
     run_watches_stop(r); /* watch */
     eng_free(r->eng);
     r->eng = NULL;
+    run_storm_finish(r); /* watch: every request has finished */
     uv_timer_stop(&r->tick);
     uv_timer_stop(&r->second);
     close_handle((uv_handle_t *)&r->tick);
@@ -594,6 +597,7 @@ out_state:
     results_free(r->res);
     run_health_close(r);
     run_watches_close(r); /* watch */
+    run_storm_close(r);
     state_close(r);
 out_classes:
     if (token) {

@@ -20,7 +20,7 @@
 /* Per watch class of the phase. */
 typedef struct {
     int cls;
-    results_cell_t *events; /* (phase, class, "events"): count = events, open, propagation */
+    results_cell_t *events; /* (phase, class, "2xx"): count = events; open, propagation */
     int streams;
     int64_t events_n, bytes, unparsed, oversize, server_errors, no_stamp, stamp_ahead;
 } wclass_t;
@@ -261,6 +261,7 @@ static int on_data(void *user, const char *data, size_t len)
     if (!w->got_first) {
         w->got_first = true;
         w->first_byte_ns = (int64_t)uv_hrtime();
+        w->ws->r->last_response_ns = w->first_byte_ns; /* the target answers (brakes) */
         watch_stream_set(&w->st, WATCH_OPEN);
     }
     w->wc->bytes += (int64_t)len;
@@ -346,7 +347,10 @@ static void on_stream_done(void *user, const eng_result_t *res)
     struct run_watches *ws = w->ws;
     w->busy = false;
     watch_framer_end(&w->fr);
-    record_end(ws, w->wc->cls, res, false);
+    /* The 2xx cell counts events: a stream the server ended cleanly is counted in the section
+     * (drops), other ends under their outcome (reset, 4xx, cancelled at the phase end, ...). */
+    if (res->outcome != ENG_OUT_S2XX)
+        record_end(ws, w->wc->cls, res, false);
     if (w->log >= 0 && res->sent_ns) {
         ws->log_sent[w->log] = res->sent_ns - ws->base_ns;
         w->log = -1;
@@ -567,7 +571,7 @@ int run_watches_start(runner_t *r, size_t phase)
         wclass_t *wc = &ws->wcs[ws->n_wc++];
         wc->cls = pp->watches.sets[k].cls.index;
         wc->streams = pp->watches.sets[k].count;
-        wc->events = cell(ws, wc->cls, "events");
+        wc->events = cell(ws, wc->cls, "2xx"); /* a watch class's 2xx cell counts events */
         for (int j = 0; rc == 0 && j < wc->streams; j++, index++) {
             rc = watcher_init(ws, &ws->w[index], wc, index,
                               sched_seed(r->seed, (uint32_t)phase, 1000u + (uint32_t)index));

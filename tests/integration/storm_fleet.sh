@@ -1,0 +1,57 @@
+#!/usr/bin/env bash
+# Storm reporting for fleets in `squall run` against the embedded target: aligned ticks carry
+# every agent at once (counts agree with what the target stored), the burst fills exactly the
+# plan's connection cap, its first request is written right at the tick, and its dispatch
+# spread is reported; spread agents' sends are uniform over each period (Pearson chi-square,
+# df 9, critical value 21.666 at alpha .01, NIST/SEMATECH e-Handbook table, NOTES-methods.md);
+# jittered ticks split the phase's latency into burst and quiet time.
+set -uo pipefail
+source "$SRCDIR/tests/integration/lib/target.sh"
+source "$SRCDIR/tests/integration/lib/run.sh"
+T="$BUILDDIR/storm-fleet"
+rm -rf "$T"
+mkdir -p "$T"
+target_start || exit 1
+cat >"$T/f.yaml" <<YAML
+seed: 21
+target: {url: "$TGT_URL", connections: 32, timeout: 5s}
+requests:
+  renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}",
+          body: '{"holder":"gw-{{agent}}","stamp":{{now_ns}}}'}
+  read: {kind: get, path: "/v1/leases/gw-1"}
+phases:
+  - {name: aligned, duration: 4s, fleet: {agents: 500, every: 1s, timing: aligned, send: renew}}
+  - {name: spread, duration: 3s, fleet: {agents: 1000, every: 1s, timing: spread, send: renew}}
+  - {name: jitter, duration: 3s, rate: 50/s, mix: {read: 1},
+     fleet: {agents: 300, every: 1s, timing: jitter, jitter: 10%, send: renew}}
+YAML
+run_plan "$T/f" "$T/f.yaml"
+puts=$(target_stats 's["requests"]["PUT"].get("200", 0) + s["requests"]["PUT"].get("201", 0)')
+target_stop
+expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+A='d["sections"]["storms"]["aligned"]["actions"][0]'
+S='d["sections"]["storms"]["spread"]["actions"][0]'
+J='d["sections"]["storms"]["jitter"]'
+rcheck "the storm report's requests of all three fleets = the PUTs the target answered ($puts)" \
+    "$A['requests'] + $S['requests'] + $J['actions'][0]['requests'] == $puts" "$T/f"
+rcheck "aligned: 4 ticks of exactly 500 requests, all written" \
+    "[t['requests'] for t in $A['ticks']] == [500] * 4 and all(t['written'] == 500 for t in $A['ticks'])" "$T/f"
+rcheck "aligned: ticks 1 s apart on the wall-clock grid (offset < 1 s)" \
+    "[t['t_ns'] - $A['ticks'][0]['t_ns'] for t in $A['ticks']] == [0, 10**9, 2 * 10**9, 3 * 10**9] and 0 <= $A['offset_ns'] < 10**9" "$T/f"
+rcheck "aligned: each burst fills the plan's 32 connections and never more (peak in flight = 32)" \
+    "all(t['peak_in_flight'] == 32 for t in $A['ticks'])" "$T/f"
+rcheck "aligned: the first request of each tick is written within 20 ms of the tick" \
+    "all(0 <= t['first_written_ns'] < 20e6 for t in $A['ticks'])" "$T/f"
+rcheck "aligned: each tick's dispatch spread is reported and under the 1 s period ($(rget "$T/f" "[round(t['dispatch_spread_ns'] / 1e6, 1) for t in $A['ticks']]" 2>/dev/null) ms)" \
+    "all(0 < t['dispatch_spread_ns'] < 1e9 for t in $A['ticks'])" "$T/f"
+rcheck "aligned: nothing written before the tick (bins 0-4 of the centred window are empty)" \
+    "all(sum(t['bins'][:5]) == 0 for t in $A['ticks'])" "$T/f"
+# Chi-square per full tick: 1,000 sends in 10 equal sub-intervals, 100 expected in each.
+rcheck "spread: each tick's sends are uniform over the period (chi-square df 9 < 21.666) $(rget "$T/f" "[round(sum((b - 100) ** 2 / 100 for b in t['bins']), 2) for t in $S['ticks']]" 2>/dev/null)" \
+    "len($S['ticks']) == 3 and all(sum(t['bins']) == 1000 and sum((b - 100) ** 2 / 100 for b in t['bins']) < 21.666 for t in $S['ticks'])" "$T/f"
+rcheck "jitter: burst and quiet latency both measured and they cover every request of the phase" \
+    "$J['burst']['count'] > 0 and $J['quiet']['count'] > 0 and $J['burst']['count'] + $J['quiet']['count'] == sum(c['count'] for c in d['cells'] if c['phase'] == 'jitter')" "$T/f"
+rcheck "jitter: the spread phase has no burst/quiet split (nothing is synchronised)" \
+    "'burst' not in d['sections']['storms']['spread']" "$T/f"
+[ "$FAILED" = 0 ] && echo "PASS: storm fleet" || echo "FAIL: storm fleet"
+exit "$FAILED"
