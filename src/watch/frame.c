@@ -30,6 +30,8 @@ void watch_framer_close(watch_framer_t *f)
 /* Appends to a growable buffer; the framer's bound is checked by the callers. */
 static int buf_add(char **buf, size_t *len, size_t *cap, const char *p, size_t n)
 {
+    if (n == 0)
+        return 0;
     if (*len + n > *cap) {
         size_t c = *cap ? *cap : 256;
         while (c < *len + n)
