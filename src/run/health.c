@@ -243,6 +243,8 @@ double run_phase_expected(const run_phase_t *ph, int64_t t0, int64_t t1)
     for (size_t i = 0; i < ph->n_fleet; i++)
         e += (double)ph->pp->fleet.agents * (double)(t1 - t0) /
              (double)ph->pp->fleet.send[i].every_ns;
+    if (ph->pp->churn.on) /* life: churn issues its ops evenly at its rate */
+        e += ph->pp->churn.rate * (double)(t1 - t0) / 1e9;
     return e;
 }
 

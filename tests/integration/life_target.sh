@@ -141,6 +141,21 @@ FAILED503=$(target_stats 's["faults"]["failed"]')
 expect "the target saw $N first tries answered 503 (its count: $FAILED503)" test "$FAILED503" -ge "$N"
 expect "and the target is back to $BEFORE objects (got $(objects))" test "$(objects)" = "$BEFORE"
 
+# --- plan mistakes are refused before anything is sent -----------------------------------------
+sed 's/- {name: read,/- {name: clean, teardown: true}\n  - {name: read,/' "$T/retry.yaml" >"$T/bad1.yaml"
+"$SQUALL" run "$T/bad1.yaml" -o "$T/bad1" --quiet >"$T/bad1.out" 2>&1
+BAD1=$?
+expect "a teardown phase before the last phase exits 2 (got $BAD1)" test "$BAD1" = 2
+expect "saying teardown must be the last phase" \
+    grep -q "error: phase 'clean': teardown must be the last phase" "$T/bad1.out"
+sed 's/{{pick:add-gateway,path,zipf=1.1}}/{{pick:add-gatway}}/' "$T/retry.yaml" >"$T/bad2.yaml"
+"$SQUALL" run "$T/bad2.yaml" -o "$T/bad2" --quiet >"$T/bad2.out" 2>&1
+BAD2=$?
+expect "a pick of an unknown pool exits 2 (got $BAD2)" test "$BAD2" = 2
+expect "naming the file, line, column and the word" \
+    grep -q "bad2.yaml:[0-9]*:[0-9]*: error: class 'read-gateway': {{pick:add-gatway}}: unknown pick option 'add-gatway'" "$T/bad2.out"
+expect "and nothing was created by either (count $(objects))" test "$(objects)" = "$BEFORE"
+
 # --- a dead target: teardown is bounded and says what was left --------------------------------
 timeout 90 "$SQUALL" run "$T/int.yaml" -o "$T/dead" --quiet >"$T/dead.stdout" 2>"$T/dead.stderr" &
 RP=$!
