@@ -9,20 +9,25 @@
 #       (issue - intended, results.json's generator section) and send lag (sent - intended,
 #       the cells' lag histogram) p50/p99/max, CPU µs per request
 #   HTTP/2 (h2c prior knowledge), closed loop at 1 and 4 connections x 64 and 256 streams
-# Usage: tools/bench/run.sh [BUILDDIR] [SECONDS]   (default build, 5 s per point; the whole
-# matrix takes about 28 points x (SECONDS + 2) s, well under 10 minutes at the default)
+# Usage: tools/bench/run.sh [BUILDDIR] [SECONDS] [REPS]   (default build, 3 s per point, 3 runs
+# per point, the median run reported). 20 runs x REPS x (SECONDS + ~2 s): about 5 minutes at the
+# defaults; SECONDS x REPS <= 15 is enforced, which keeps the whole script under 10 minutes.
 set -uo pipefail
 cd "$(dirname "$0")/../.."
 SRCDIR=$PWD
 BUILDDIR=$(realpath "${1:-build}")
-SECS=${2:-5}
+SECS=${2:-3}
+REPS=${3:-3}
 export BUILDDIR SRCDIR
 CEIL="$BUILDDIR/tools/bench/ceiling"
 SQUALL="$BUILDDIR/squall"
 for b in "$CEIL" "$SQUALL"; do
     [ -x "$b" ] || { echo "run.sh: $b not built (ninja -C $BUILDDIR)"; exit 1; }
 done
-[ "$SECS" -ge 1 ] && [ "$SECS" -le 30 ] || { echo "run.sh: SECONDS must be 1..30"; exit 1; }
+[ "$SECS" -ge 1 ] && [ "$SECS" -le 10 ] || { echo "run.sh: SECONDS must be 1..10"; exit 1; }
+[ "$REPS" -ge 1 ] && [ "$REPS" -le 5 ] || { echo "run.sh: REPS must be 1..5"; exit 1; }
+[ $((SECS * REPS)) -le 15 ] || { echo "run.sh: SECONDS x REPS must be <= 15 (10 min bound)"; exit 1; }
+LOAD_BEFORE=$(cut -d' ' -f1-3 /proc/loadavg)
 source tests/integration/lib/nginx.sh
 nginx_start bench-run 1 || exit 1
 OUT="$NGX_DIR/bench"
@@ -36,7 +41,7 @@ squall_point() {
     local name=$1
     printf '%s\n' "$2" >"$OUT/$name.yaml"
     rm -rf "${OUT:?}/$name"
-    /usr/bin/time -f "%U %S" -o "$OUT/$name.cpu" taskset -c 0 timeout $((SECS + 60)) \
+    /usr/bin/time -f "%U %S" -o "$OUT/$name.cpu" taskset -c 0 timeout $((SECS + 20)) \
         "$SQUALL" run "$OUT/$name.yaml" -o "$OUT/$name" --quiet >"$OUT/$name.log" 2>&1
     [ -f "$OUT/$name/results.json" ] || { echo "run.sh: $name wrote no results"; cat "$OUT/$name.log"; }
 }
@@ -85,6 +90,35 @@ print({"requests": n, "rps": n / secs, "cpu_us": cpu * 1e6 / n if n else 0, "err
 PY
 }
 
+# median_ceiling NAME / median_squall NAME: of the REPS runs NAME.1 .. NAME.REPS, the one with
+# the median requests/s becomes NAME (one whole run, so its figures stay consistent).
+median_ceiling() {
+    /usr/bin/python3 - "$OUT/$1" "$REPS" <<'PY'
+import json, shutil, sys
+runs = sorted((json.load(open(f"{sys.argv[1]}.{k}.json"))["rps"], k)
+              for k in range(1, int(sys.argv[2]) + 1))
+shutil.copy(f"{sys.argv[1]}.{runs[len(runs) // 2][1]}.json", sys.argv[1] + ".json")
+PY
+}
+
+median_squall() {
+    /usr/bin/python3 - "$OUT/$1" "$REPS" <<'PY'
+import json, os, shutil, sys
+def rps(k):
+    try:
+        d = json.load(open(f"{sys.argv[1]}.{k}/results.json"))
+    except OSError:
+        return 0.0
+    return sum(c["count"] for c in d["cells"]) / (d["meta"]["duration_ns"] / 1e9)
+runs = sorted((rps(k), k) for k in range(1, int(sys.argv[2]) + 1))
+k = runs[len(runs) // 2][1]
+shutil.rmtree(sys.argv[1], ignore_errors=True)
+if os.path.isdir(f"{sys.argv[1]}.{k}"):
+    shutil.copytree(f"{sys.argv[1]}.{k}", sys.argv[1])
+shutil.copy(f"{sys.argv[1]}.{k}.cpu", sys.argv[1] + ".cpu")
+PY
+}
+
 # The table rows, from the ceiling's JSON and a squall point's figures.
 closed_row() {
     /usr/bin/python3 - "$OUT/ceil-$1.json" "$(figures "closed-$1")" "$1" <<'PY'
@@ -117,20 +151,33 @@ print(f"| {sys.argv[3]} x {sys.argv[4]} | {s['rps']:.0f} | {s['cpu_us']:.1f} | "
 PY
 }
 
+# Each point runs REPS times, the ceiling and squall alternating, and reports the median run.
 ROWS_CLOSED="" ROWS_OPEN="" ROWS_H2=""
 for c in 1 16 64 256; do
-    ceiling --connections $c >"$OUT/ceil-$c.json"
-    squall_point "closed-$c" "$(closed_plan "http://127.0.0.1:$NGX_PORT" 1.1 $c 1 $c)"
+    for k in $(seq "$REPS"); do
+        ceiling --connections $c >"$OUT/ceil-$c.$k.json"
+        squall_point "closed-$c.$k" "$(closed_plan "http://127.0.0.1:$NGX_PORT" 1.1 $c 1 $c)"
+    done
+    median_ceiling "ceil-$c"
+    median_squall "closed-$c"
     ROWS_CLOSED+=$(closed_row $c)$'\n'
 done
 for r in 2000 5000 10000 20000; do
-    ceiling --connections 64 --rate $r >"$OUT/ceil-r$r.json"
-    squall_point "open-$r" "$(open_plan $r)"
+    for k in $(seq "$REPS"); do
+        ceiling --connections 64 --rate $r >"$OUT/ceil-r$r.$k.json"
+        squall_point "open-$r.$k" "$(open_plan $r)"
+    done
+    median_ceiling "ceil-r$r"
+    median_squall "open-$r"
     ROWS_OPEN+=$(open_row $r)$'\n'
 done
 for conf in "1 64" "1 256" "4 64" "4 256"; do
     set -- $conf
-    squall_point "h2-$1-$2" "$(closed_plan "http://127.0.0.1:$NGX_H2_PORT" 2 $1 $2 $(($1 * $2)))"
+    for k in $(seq "$REPS"); do
+        squall_point "h2-$1-$2.$k" \
+            "$(closed_plan "http://127.0.0.1:$NGX_H2_PORT" 2 $1 $2 $(($1 * $2)))"
+    done
+    median_squall "h2-$1-$2"
     ROWS_H2+=$(h2_row $1 $2)$'\n'
 done
 
@@ -141,8 +188,9 @@ SECTION=$(cat <<MD
 $(date -u '+%Y-%m-%d %H:%M UTC'), $(nproc) CPUs, kernel $(uname -r), libcurl
 $(curl-config --version 2>/dev/null | cut -d' ' -f2), nginx 1 worker on CPU 1, client on CPU 0,
 loopback, \`/small.json\` ($(stat -c %s "$NGX_DIR/www/small.json") bytes), ${SECS} s per point,
-one run each (the machine is shared and noisy: ±10-20 %). Command:
-\`tools/bench/run.sh $(basename "$BUILDDIR") $SECS\`. CPU is the client process's user+sys
+median of ${REPS} runs per point (the machine is shared and noisy; load average before / after:
+${LOAD_BEFORE} / $(cut -d' ' -f1-3 /proc/loadavg)). Command:
+\`tools/bench/run.sh $(basename "$BUILDDIR") $SECS $REPS\`. CPU is the client process's user+sys
 (\`/usr/bin/time\`, so squall's includes plan loading and writing results) per completed request.
 Goals (issue 3): closed loop at 64 connections ≥ 0.8 of the ceiling and ≤ 25 µs per request;
 open loop at 20k/s within 1 % with schedule lag p99 ≤ 5 ms; zero errors over HTTP/2 reuse.
