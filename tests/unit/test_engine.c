@@ -177,6 +177,7 @@ static void test_refused_is_unreachable(void **state)
     eng_stats_t st;
     eng_stats(e, &st, true);
     assert_true(st.unreachable);
+    assert_string_equal(st.why, "refuses connections");
     assert_int_equal(st.completed, 50);
     close_all(&loop, e);
     close(fd);
@@ -224,6 +225,7 @@ static void test_outcome_names(void **state)
     assert_string_equal(eng_outcome_name(ENG_OUT_S2XX), "2xx");
     assert_string_equal(eng_outcome_name(ENG_OUT_REFUSED), "connect-refused");
     assert_string_equal(eng_outcome_name(ENG_OUT_CANCELLED), "cancelled");
+    assert_string_equal(eng_outcome_name(ENG_OUT_VERSION), "http-version");
     assert_string_equal(eng_outcome_name(ENG_OUT_COUNT), "unknown");
 }
 
