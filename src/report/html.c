@@ -226,11 +226,15 @@ int report_html_write_dir(const char *dir, const results_t *res, out_t *o)
     snprintf(series, sizeof series, "%s/%s", dir, REPORT_SERIES_FILE);
     report_series_t *s = NULL;
     out_t *quiet = out_new_capture(); /* a missing series.csv is noted in the page instead */
-    if (report_series_read(series, &s, quiet ? quiet : o) != 0 && report_series_new(&s) != 0) {
-        out_free(quiet);
-        return SQ_ENOMEM;
+    int read = report_series_read(series, &s, quiet ? quiet : o);
+    if (read == SQ_EPARSE && quiet) {
+        const char *why = out_captured_diag(quiet), *e = strstr(why, "error: ");
+        why = e ? e + strlen("error: ") : why;
+        out_warn(o, "plots over time are left out: %.*s", (int)strcspn(why, "\n"), why);
     }
     out_free(quiet);
+    if (read != 0 && report_series_new(&s) != 0)
+        return SQ_ENOMEM;
     FILE *f = fopen(tmp, "w");
     int rc = f ? report_html_write(f, res, s) : SQ_EIO;
     if (f && fclose(f) != 0)
