@@ -222,7 +222,7 @@ else
     timeout 90 chromium --headless --no-sandbox --disable-gpu --disable-dev-shm-usage \
         --disable-background-networking --disable-component-update --disable-sync \
         --no-first-run --user-data-dir="$PROFILE" --screenshot="$T/shot.png" \
-        --window-size=1280,2000 "file://$T/run/report.html" >"$T/chromium.log" 2>&1
+        --window-size=1280,4000 "file://$T/run/report.html" >"$T/chromium.log" 2>&1
     rm -rf "$PROFILE"
     expect "chromium wrote a screenshot" test -s "$T/shot.png"
     /usr/bin/python3 - "$T/shot.png" <<'PY' || FAILED=1
