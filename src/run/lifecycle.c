@@ -35,6 +35,7 @@ struct run_life {
     pool_t *uncertain;  /* creates with no clear answer (5xx, timeout, cancelled): may exist */
     int *creating;      /* per class: creates in flight */
     pick_need_t *needs; /* per class */
+    bool *needed;       /* per class: some template picks from its pool */
     int default_cls;    /* the only creating class, for a bare {{pick}}; -1 if none or several */
     int cur_cls;        /* the class being rendered */
     journal_t *journal;
@@ -53,6 +54,12 @@ struct run_life {
     bool guarded;
     int guard_seen;
 };
+
+static bool creating(const runner_t *r, size_t i)
+{
+    const plan_req_t *pr = &r->plan->reqs[i];
+    return pr->kind == PLAN_WRITE && pr->write.creates;
+}
 
 /* ---- {{pick}} ---------------------------------------------------------------------------- */
 
@@ -96,7 +103,8 @@ static int parse_pick(const runner_t *r, const char *arg, size_t len, pick_spec_
             }
         } else if (n > 0) {
             snprintf(why, cap,
-                     "unknown pick option '%.*s' (expected a creating class, name, path or zipf=S)",
+                     "unknown pick option '%.*s' (expected a creating or list class, name, path or "
+                     "zipf=S)",
                      (int)n, w);
             return SQ_EINVAL;
         }
@@ -104,9 +112,8 @@ static int parse_pick(const runner_t *r, const char *arg, size_t len, pick_spec_
     }
     if (sp->cls < 0) {
         snprintf(why, cap,
-                 "which pool? the plan has %s creating class: name one, e.g. "
-                 "{{pick:CLASS}}",
-                 r->life->default_cls == -1 ? "no or more than one" : "no");
+                 "a bare {{pick}} needs exactly one creating class in the plan: name "
+                 "the pool, e.g. {{pick:CLASS}}");
         return SQ_EINVAL;
     }
     return 0;
@@ -182,6 +189,7 @@ static int scan_picks(runner_t *r, size_t cls, const char *text, plan_pos_t pos)
             return SQ_ELIMIT;
         need->cls[k] = sp.cls;
         need->count[k]++;
+        r->life->needed[sp.cls] = true;
         need->n += k == need->n;
     }
     return 0;
@@ -215,28 +223,32 @@ int run_life_init(runner_t *r)
     L->pools = calloc(n, sizeof(*L->pools));
     L->creating = calloc(n, sizeof(*L->creating));
     L->needs = calloc(n, sizeof(*L->needs));
-    if (!L->pools || !L->creating || !L->needs || pool_new(&L->held) || pool_new(&L->uncertain))
+    L->needed = calloc(n, sizeof(*L->needed));
+    if (!L->pools || !L->creating || !L->needs || !L->needed || pool_new(&L->held) ||
+        pool_new(&L->uncertain))
         return SQ_ENOMEM;
-    int creators = 0;
+    int creators = 0, pools = 0;
     L->default_cls = -1;
     for (size_t i = 0; i < r->plan->n_reqs; i++) {
         const plan_req_t *pr = &r->plan->reqs[i];
-        if (pr->kind != PLAN_WRITE || !pr->write.creates)
+        if (!creating(r, i) && pr->kind != PLAN_LIST)
             continue;
         if (pool_new(&L->pools[i]))
             return SQ_ENOMEM;
-        L->default_cls = creators++ ? -2 : (int)i;
+        pools++;
+        if (creating(r, i))
+            L->default_cls = creators++ ? -2 : (int)i;
     }
     if (L->default_cls == -2)
         L->default_cls = -1;
     int rc = check_phases(r);
-    for (size_t i = 0; rc == 0 && creators && i < r->plan->n_reqs; i++) {
+    for (size_t i = 0; rc == 0 && pools && i < r->plan->n_reqs; i++) {
         const plan_req_t *pr = &r->plan->reqs[i];
         rc = scan_picks(r, i, pr->path, pr->path_pos);
         if (rc == 0 && pr->kind == PLAN_WRITE)
             rc = scan_picks(r, i, pr->write.body, pr->write.body_pos);
     }
-    if (rc == 0 && creators)
+    if (rc == 0 && pools)
         rc = tmpl_env_add_resolver(r->env, "pick", pick_resolve, r);
     return rc;
 }
@@ -251,7 +263,7 @@ int run_life_start(runner_t *r, const char *dir)
     snprintf(L->journal_path, n, "%s/%s", dir, JOURNAL_FILE);
     bool creates = false;
     for (size_t i = 0; i < r->plan->n_reqs; i++)
-        creates |= L->pools[i] != NULL;
+        creates |= creating(r, i);
     if (!creates)
         return 0; /* nothing to journal: no file */
     return journal_open(L->journal_path, r->plan->target.url, r->o, &L->journal);
@@ -270,6 +282,7 @@ void run_life_close(runner_t *r)
     pool_free(L->uncertain);
     free(L->creating);
     free(L->needs);
+    free(L->needed);
     free(L->journal_path);
     free(L);
     r->life = NULL;
@@ -343,7 +356,7 @@ static void guards_close(runner_t *r)
 void run_life_sending(runner_t *r, int cls, const char *path)
 {
     struct run_life *L = r->life;
-    if (!L->pools[cls])
+    if (!creating(r, (size_t)cls))
         return;
     if (!L->guarded)
         guards_start(r);
@@ -408,9 +421,33 @@ static void delete_done(runner_t *r, int cls, const char *path, const eng_result
     }
 }
 
+/* A list page's items join its class's pool of discovered objects: objects that existed before
+ * the run, or were made by others, to pick from, never to tear down. Items are found where the
+ * embedded target puts them: {"items": [{"path": P, "version": V}, ...]}. */
+static void list_done(runner_t *r, int cls, const eng_result_t *res)
+{
+    if (res->outcome != ENG_OUT_S2XX || !res->body || !r->life->needed[cls])
+        return;
+    json_t *doc = json_loadb(res->body, res->body_len, 0, NULL);
+    json_t *items = json_is_object(doc) ? json_object_get(doc, "items") : NULL;
+    size_t i;
+    json_t *it;
+    json_array_foreach(items, i, it)
+    {
+        json_t *path = json_object_get(it, "path"), *ver = json_object_get(it, "version");
+        if (json_is_string(path) && json_string_value(path)[0] == '/' &&
+            !pool_contains(r->life->held, json_string_value(path)))
+            pool_add(r->life->pools[cls], json_string_value(path),
+                     json_is_integer(ver) ? (uint64_t)json_integer_value(ver) : 0);
+    }
+    json_decref(doc);
+}
+
 void run_life_done(runner_t *r, const run_req_t *q, const eng_result_t *res)
 {
     const plan_req_t *pr = &r->plan->reqs[q->cls];
+    if (pr->kind == PLAN_LIST)
+        list_done(r, q->cls, res);
     if (pr->kind != PLAN_WRITE || !q->base_path || (!pr->write.creates && !pr->write.deletes))
         return;
     char buf[4096];
@@ -510,13 +547,13 @@ static int gather(runner_t *r, reap_ctx_t *x)
     struct run_life *L = r->life;
     size_t n = pool_count(L->held) + pool_count(L->uncertain);
     for (size_t i = 0; i < r->plan->n_reqs; i++)
-        n += L->pools[i] ? pool_count(L->pools[i]) : 0;
+        n += creating(r, i) ? pool_count(L->pools[i]) : 0;
     x->paths = calloc(n ? n : 1, sizeof(*x->paths));
     x->cls = calloc(n ? n : 1, sizeof(*x->cls));
     if (!x->paths || !x->cls)
         return SQ_ENOMEM;
     for (size_t i = 0; i < r->plan->n_reqs; i++) {
-        for (size_t s = 0; L->pools[i] && s < pool_count(L->pools[i]); s++) {
+        for (size_t s = 0; creating(r, i) && s < pool_count(L->pools[i]); s++) {
             x->cls[x->n] = (int)i;
             x->paths[x->n++] = pool_path(L->pools[i], s);
         }
@@ -611,7 +648,7 @@ void run_life_teardown(runner_t *r, const char *token)
     struct run_life *L = r->life;
     bool any = false;
     for (size_t i = 0; i < r->plan->n_reqs; i++)
-        any |= L->pools[i] != NULL;
+        any |= creating(r, i);
     if (!any)
         return; /* no creating class: no journal, no section */
     journal_flush(L->journal);

@@ -85,6 +85,27 @@ rcheck "PUT on the 5 existing objects answers 200, not 201: 5 existed, 5 created
 expect "implicit teardown removed only the 5 it created (count $(objects), expected $BEFORE)" \
     test "$(objects)" = "$BEFORE"
 
+# --- discovery: an initial list fills a pool with objects the run did not create -------------
+# The list's pages (2 items each, so 3 pages for the 5 objects) add every item's path to the
+# list class's pool; reads pick from it; teardown leaves them alone: they are not ours.
+cat >"$T/disc.yaml" <<YAML
+seed: 3
+target: {url: "$TGT_URL", connections: 4}
+requests:
+  list-south: {kind: list, path: /v1/sites/south/gateways, page: 2}
+  read-found: {kind: get, path: "/{{pick:list-south,path}}"}
+phases:
+  - {name: discover, rate: 1/s, duration: 1s, mix: {list-south: 1}}
+  - {name: read, rate: 100/s, duration: 500ms, mix: {read-found: 1}}
+YAML
+run_plan "$T/disc" "$T/disc.yaml"
+rcheck "the initial list walked 3 pages of 2" "cell('discover', 'list-south', '2xx')['count'] == 3" \
+    "$T/disc"
+rcheck "50 reads picked discovered objects: all answered 200 by the target" \
+    "cell('read', 'read-found', '2xx')['count'] == 50 and total('read-found', '4xx') == 0" "$T/disc"
+expect "nothing discovered was deleted (count $(objects), expected $BEFORE)" test "$(objects)" = "$BEFORE"
+expect "and no journal was written: the plan creates nothing" test ! -e "$T/disc/journal.ndjson"
+
 # --- --keep, then cleanup ---------------------------------------------------------------------
 plan "$T/keep.yaml" 1s ""
 run_plan "$T/keep" "$T/keep.yaml" --keep
