@@ -9,7 +9,7 @@
 #include "squall/report.h"
 #include "squall/results.h"
 
-enum { OPT_JSON, OPT_HTML, OPT_ALPHA, OPT_MIN_MS, OPT_MIN_REL };
+enum { OPT_JSON, OPT_HTML, OPT_ALPHA, OPT_MIN_MS, OPT_MIN_TAIL, OPT_MIN_REL };
 
 static const cli_opt_t compare_opts[] = {
     [OPT_JSON] = {"json", 0, NULL, "print the comparison as JSON instead of a table"},
@@ -17,6 +17,8 @@ static const cli_opt_t compare_opts[] = {
     [OPT_ALPHA] = {"alpha", 0, "P", "significance level of the test (default 0.01)"},
     [OPT_MIN_MS] = {"min-change", 0, "DURATION",
                     "smallest latency change that counts (default 1ms)"},
+    [OPT_MIN_TAIL] = {"min-change-tail", 0, "DURATION",
+                      "smallest p99 / p99.9 change that counts (default 3ms)"},
     [OPT_MIN_REL] = {"min-change-pct", 0, "PERCENT",
                      "smallest change relative to BASE that counts (default 10%)"},
     {NULL, 0, NULL, NULL},
@@ -39,6 +41,11 @@ static int parse_value(const cli_cmd_t *cmd, int k, const char *v, compare_args_
         return cli_usage_error(cmd, o, "--min-change needs %s, got '%s'", PLAN_DURATION_EXPECTS, v);
     else if (k == OPT_MIN_MS)
         ca->opts.min_abs_ms = (double)ns / 1e6;
+    else if (k == OPT_MIN_TAIL && plan_parse_duration(v, &ns))
+        return cli_usage_error(cmd, o, "--min-change-tail needs %s, got '%s'",
+                               PLAN_DURATION_EXPECTS, v);
+    else if (k == OPT_MIN_TAIL)
+        ca->opts.min_tail_ms = (double)ns / 1e6;
     else if (k == OPT_MIN_REL && plan_parse_percent(v, &ca->opts.min_rel))
         return cli_usage_error(cmd, o, "--min-change-pct needs %s, got '%s'", PLAN_PERCENT_EXPECTS,
                                v);
@@ -132,8 +139,10 @@ const cli_cmd_t cli_cmd_compare = {
         "Mann-Whitney U test (two-sided, normal approximation, tie and continuity corrections)\n"
         "over the per-second samples in series.csv (p99.9 over the per-second max): a change\n"
         "is a regression or an improvement when p < --alpha and the per-second medians differ\n"
-        "by more than --min-change (latency; 1 percentage point for error rates) and by more\n"
-        "than --min-change-pct of BASE. Phases and classes only one run has are untested.\n"
+        "by more than --min-change (p50; --min-change-tail for p99 and p99.9; 1 percentage\n"
+        "point for error rates) and by more than --min-change-pct of BASE. Phases and classes\n"
+        "only one run has, or with too few seconds to reach --alpha, are untested. The test\n"
+        "sees the seconds of one run: if the machine's load changed for a whole run, repeat.\n"
         "Exit 0: no regression; 1: at least one regression; 2: usage mistake; 6: a file\n"
         "could not be read or written.",
     .opts = compare_opts,

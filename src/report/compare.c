@@ -30,8 +30,8 @@ static const struct {
 
 void report_cmp_opts_default(report_cmp_opts_t *opts)
 {
-    *opts =
-        (report_cmp_opts_t){.alpha = 0.01, .min_abs_ms = 1.0, .min_rel = 0.10, .min_abs_err = 0.01};
+    *opts = (report_cmp_opts_t){
+        .alpha = 0.01, .min_abs_ms = 1.0, .min_tail_ms = 3.0, .min_rel = 0.10, .min_abs_err = 0.01};
 }
 
 const char *report_verdict_name(enum report_verdict v)
@@ -126,10 +126,12 @@ static bool resolvable(size_t n, size_t m, double alpha)
 }
 
 /* The verdict of one line from its test and the minimum change. */
-static void decide(report_cmp_line_t *l, bool is_err, const report_cmp_opts_t *o)
+static void decide(report_cmp_line_t *l, size_t m, const report_cmp_opts_t *o)
 {
     double change = l->new_med - l->base_med;
-    double floor_abs = is_err ? o->min_abs_err : o->min_abs_ms;
+    double floor_abs = metrics[m].pct < 0    ? o->min_abs_err
+                       : metrics[m].pct > 50 ? o->min_tail_ms
+                                             : o->min_abs_ms;
     double floor_rel = o->min_rel * fabs(l->base_med);
     if (!resolvable(l->n_base, l->n_new, o->alpha))
         l->verdict = REPORT_UNTESTED;
@@ -166,7 +168,7 @@ static int compare_pair(report_cmp_t *c, const results_t *b, const report_series
             return rc;
         l->base_med = median(sb, l->n_base);
         l->new_med = median(sn, l->n_new);
-        decide(l, metrics[m].pct < 0, o);
+        decide(l, m, o);
     }
     return 0;
 }

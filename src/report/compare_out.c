@@ -85,11 +85,11 @@ json_t *report_cmp_json(const report_cmp_t *c, const report_cmp_opts_t *opts)
                       (json_int_t)l->n_new, "tested_on", l->tested_on, "u", l->u, "z", l->z, "p",
                       l->p, "verdict", report_verdict_name(l->verdict)));
     }
-    return json_pack("{s:s, s:i, s:s, s:f, s:f, s:f, s:f, s:b, s:o}", "format", "squall-compare",
-                     "version", 1, "method", METHOD, "alpha", opts->alpha, "min_change_ms",
-                     opts->min_abs_ms, "min_change_fraction", opts->min_rel,
-                     "min_change_error_rate", opts->min_abs_err, "regression",
-                     report_cmp_regressed(c), "lines", lines);
+    return json_pack("{s:s, s:i, s:s, s:f, s:f, s:f, s:f, s:f, s:b, s:o}", "format",
+                     "squall-compare", "version", 1, "method", METHOD, "alpha", opts->alpha,
+                     "min_change_ms", opts->min_abs_ms, "min_change_tail_ms", opts->min_tail_ms,
+                     "min_change_fraction", opts->min_rel, "min_change_error_rate",
+                     opts->min_abs_err, "regression", report_cmp_regressed(c), "lines", lines);
 }
 
 /* ---- HTML side-by-side ------------------------------------------------------------------ */

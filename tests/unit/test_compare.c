@@ -172,6 +172,19 @@ static void test_verdicts(void **state)
     assert_int_equal(line(c, "p50")->verdict, REPORT_IMPROVEMENT);
     report_cmp_free(c);
 
+    /* +1.2 ms at p50 (so +2.4 ms at p99, +3.6 ms at the per-second max): past the p50 floor
+     * (1 ms), short of the tail floor (3 ms) at p99, past it at p99.9. */
+    results_t *mid;
+    report_series_t *ms;
+    make_run(dir, 2.0, 1.2, 10, 6, &mid, &ms);
+    assert_int_equal(report_compare(b, bs, mid, ms, &o, &c), 0);
+    assert_int_equal(line(c, "p50")->verdict, REPORT_REGRESSION);
+    assert_int_equal(line(c, "p99")->verdict, REPORT_SAME);
+    assert_int_equal(line(c, "p99.9")->verdict, REPORT_REGRESSION);
+    report_cmp_free(c);
+    results_free(mid);
+    report_series_free(ms);
+
     assert_int_equal(report_compare(b, bs, shortr, shs, &o, &c), 0);
     assert_int_equal(line(c, "p50")->verdict, REPORT_UNTESTED);
     report_cmp_free(c);
