@@ -133,6 +133,9 @@ static int reap_alive(const cleanup_args_t *ca, const char *path, const journal_
     cleanup_ctx_t x = {.alive = al};
     if (journal_open(path, al->target, o, &x.j))
         return SQ_EXIT_FAILURE;
+    if (ca->insecure)
+        out_warn(o, "TLS certificate verification is OFF: anyone on the path can read and change "
+                    "this traffic");
     const char *token = ca->token_env ? getenv(ca->token_env) : NULL;
     if (ca->token_env && (!token || !token[0])) {
         journal_close(x.j);

@@ -1,5 +1,6 @@
-/* Object lifecycle in a run: pools of created objects behind {{pick}}, the journal of creates
- * and deletes, churn phases that hold a population, and the teardown after the last phase. */
+/* Object lifecycle in a run: pools of created (and listed) objects behind {{pick}}, the journal
+ * of creates and deletes, churn phases that hold a population, and the teardown after the last
+ * phase. */
 #include <jansson.h>
 #include <stdlib.h>
 #include <string.h>

@@ -50,6 +50,11 @@ expect "kill -9 mid-churn left objects behind ($MID on the target, $BEFORE befor
 expect "the run was killed before it could tear down (no results.json)" \
     test ! -e "$T/out/results.json"
 
+"$SQUALL" cleanup --dry-run "$T/out" >"$T/dry.out" 2>&1
+DRY=$(grep -c '^/v1/sites/harbor/gateways/gw-' "$T/dry.out")
+expect "--dry-run lists the $DRY alive paths and deletes nothing (count $(objects), was $MID)" \
+    test "$(objects)" = "$MID" -a "$DRY" -ge $((MID - BEFORE))
+
 # A crash mid-write: half a record with no newline at the end of the journal.
 printf '{"op":"created","path":"/v1/sites/harbor/gatew' >>"$T/out/journal.ndjson"
 "$SQUALL" cleanup "$T/out" >"$T/c1.out" 2>&1
