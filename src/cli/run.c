@@ -187,9 +187,13 @@ const cli_cmd_t cli_cmd_run = {
         "and deleted after the last phase (also after a signal, a brake or an unreachable\n"
         "target, within 30 s) unless --keep; `squall cleanup DIR` deletes what is left.\n"
         "\n"
+        "Objectives in the plan are judged per phase and for the run; a failure exits 1.\n"
+        "DIR/report.html is written at the end (`squall report DIR` rewrites it).\n"
+        "\n"
         "Safety: targets other than loopback are refused without --confirm-target. Default\n"
-        "brakes stop the run when more than 10% of answers in 10 s are errors, or when the\n"
-        "target gives no answer for 10 s.",
+        "brakes (exit 3): on loopback, more than 10% errors over 10 s or no answer for 10 s;\n"
+        "on other targets, more than 5% errors over 10 s, no answer for 5 s, or p99 above 5 s\n"
+        "for 10 s. A plan brake replaces the default of its kind; --no-brakes drops them.",
     .opts = run_opts,
     .main = run_main,
 };
