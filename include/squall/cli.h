@@ -55,6 +55,17 @@ void cli_args_init(cli_args_t *a, const cli_cmd_t *cmd, int argc, char **argv);
  * CLI_ERROR after printing one line naming the mistake and the closest valid option. */
 int cli_next(cli_args_t *a, out_t *o, const char **value);
 
+/* The option loop every command shares. --help prints the command's help and returns
+ * SQ_EXIT_OK; a mistake has been reported and returns SQ_EXIT_USAGE; every option (k = its index
+ * in cmd->opts) and positional word (k = CLI_POSITIONAL) goes to take(), which returns -1 to go on
+ * or an exit code to stop with. Returns -1 once every word was taken. */
+typedef int (*cli_take_fn)(const struct cli_cmd *cmd, int k, const char *v, out_t *o, void *ctx);
+int cli_parse(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, cli_take_fn take, void *ctx);
+/* For take(): keeps a command's single positional word in *slot; a second one is a usage error
+ * naming `what` ("plan", "journal"). Returns -1 or SQ_EXIT_USAGE. */
+int cli_take_one(const cli_cmd_t *cmd, const char **slot, const char *v, const char *what,
+                 out_t *o);
+
 /* Common helper: report a usage mistake (one line) and return SQ_EXIT_USAGE. */
 int cli_usage_error(const cli_cmd_t *cmd, out_t *o, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));

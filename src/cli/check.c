@@ -187,38 +187,29 @@ typedef struct {
     size_t n;
 } check_args_t;
 
+/* One word of argv into *ca (cli_take_fn): the plan, or a --set. */
+static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
+{
+    check_args_t *ca = ctx;
+    if (k == CLI_POSITIONAL)
+        return cli_take_one(cmd, &ca->path, v, "plan", o);
+    if (plan_override_split(v, &ca->sets[ca->n], &ca->copies[ca->n]))
+        return cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
+    ca->n++;
+    return -1;
+}
+
 /* Reads argv into *ca. Returns -1 to go on, else the exit code (help shown or usage error). */
 static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, check_args_t *ca)
 {
-    cli_args_t a;
-    const char *v;
-    int k;
     ca->sets = calloc((size_t)argc + 1, sizeof(*ca->sets));
     ca->copies = calloc((size_t)argc + 1, sizeof(*ca->copies));
     if (!ca->sets || !ca->copies)
         return SQ_EXIT_FAILURE;
-    cli_args_init(&a, cmd, argc, argv);
-    while ((k = cli_next(&a, o, &v)) != CLI_END) {
-        if (k == CLI_ERROR)
-            return SQ_EXIT_USAGE;
-        if (k == CLI_HELP) {
-            cli_print_help(cmd, o);
-            return SQ_EXIT_OK;
-        }
-        if (k == CLI_POSITIONAL) {
-            if (ca->path)
-                return cli_usage_error(cmd, o, "one plan at a time, got '%s' after '%s'", v,
-                                       ca->path);
-            ca->path = v;
-            continue;
-        }
-        if (plan_override_split(v, &ca->sets[ca->n], &ca->copies[ca->n]))
-            return cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
-        ca->n++;
-    }
-    if (!ca->path)
+    int rc = cli_parse(cmd, argc, argv, o, take_word, ca);
+    if (rc < 0 && !ca->path)
         return cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
-    return -1;
+    return rc;
 }
 
 static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)

@@ -52,8 +52,11 @@ static bool url_is_loopback(const char *url)
     return strcmp(host, "localhost") == 0;
 }
 
-static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, cleanup_args_t *ca)
+static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
 {
+    cleanup_args_t *ca = ctx;
+    if (k == CLI_POSITIONAL)
+        return cli_take_one(cmd, &ca->input, v, "journal", o);
     int64_t n;
     switch (k) {
     case OPT_CONFIRM:
@@ -86,31 +89,12 @@ static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, cleanu
 
 static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, cleanup_args_t *ca)
 {
-    cli_args_t a;
-    const char *v;
-    int k, rc;
     ca->rate = 100;
     ca->connections = 8;
-    cli_args_init(&a, cmd, argc, argv);
-    while ((k = cli_next(&a, o, &v)) != CLI_END) {
-        if (k == CLI_ERROR)
-            return SQ_EXIT_USAGE;
-        if (k == CLI_HELP) {
-            cli_print_help(cmd, o);
-            return SQ_EXIT_OK;
-        }
-        if (k == CLI_POSITIONAL) {
-            if (ca->input)
-                return cli_usage_error(cmd, o, "one journal at a time, got '%s' after '%s'", v,
-                                       ca->input);
-            ca->input = v;
-        } else if ((rc = take_opt(cmd, k, v, o, ca)) >= 0) {
-            return rc;
-        }
-    }
-    if (!ca->input)
+    int rc = cli_parse(cmd, argc, argv, o, take_opt, ca);
+    if (rc < 0 && !ca->input)
         return cli_usage_error(cmd, o, "which run? (expected RESULTS_DIR or a journal file)");
-    return -1;
+    return rc;
 }
 
 typedef struct {

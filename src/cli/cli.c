@@ -191,3 +191,30 @@ int cli_next(cli_args_t *a, out_t *o, const char **value)
     }
     return unknown_option(a, o, w);
 }
+
+int cli_parse(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, cli_take_fn take, void *ctx)
+{
+    cli_args_t a;
+    const char *v;
+    int k, rc;
+    cli_args_init(&a, cmd, argc, argv);
+    while ((k = cli_next(&a, o, &v)) != CLI_END) {
+        if (k == CLI_ERROR)
+            return SQ_EXIT_USAGE;
+        if (k == CLI_HELP) {
+            cli_print_help(cmd, o);
+            return SQ_EXIT_OK;
+        }
+        if ((rc = take(cmd, k, v, o, ctx)) >= 0)
+            return rc;
+    }
+    return -1;
+}
+
+int cli_take_one(const cli_cmd_t *cmd, const char **slot, const char *v, const char *what, out_t *o)
+{
+    if (*slot)
+        return cli_usage_error(cmd, o, "one %s at a time, got '%s' after '%s'", what, v, *slot);
+    *slot = v;
+    return -1;
+}

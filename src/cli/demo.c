@@ -124,29 +124,31 @@ static int demo_run(const char *plan_path, const run_opts_t *ro, out_t *o)
     return rc;
 }
 
+typedef struct {
+    const char *plan_path;
+    run_opts_t ro;
+} demo_args_t;
+
+static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
+{
+    demo_args_t *da = ctx;
+    if (k == CLI_POSITIONAL)
+        return cli_take_one(cmd, &da->plan_path, v, "plan", o);
+    if (k == 0)
+        da->ro.results_dir = v;
+    else
+        da->ro.quiet = true;
+    return -1;
+}
+
 static int demo_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
-    cli_args_t a;
-    const char *v, *plan_path = NULL;
-    run_opts_t ro = {.grace_ns = INT64_C(2000000000)};
-    int k;
-    cli_args_init(&a, cmd, argc, argv);
-    while ((k = cli_next(&a, o, &v)) != CLI_END) {
-        if (k == CLI_ERROR)
-            return SQ_EXIT_USAGE;
-        if (k == CLI_HELP) {
-            cli_print_help(cmd, o);
-            return SQ_EXIT_OK;
-        }
-        if (k == CLI_POSITIONAL && plan_path)
-            return cli_usage_error(cmd, o, "one plan at a time, got '%s' after '%s'", v, plan_path);
-        if (k == CLI_POSITIONAL)
-            plan_path = v;
-        else if (k == 0)
-            ro.results_dir = v;
-        else
-            ro.quiet = true;
-    }
+    demo_args_t da = {.ro = {.grace_ns = INT64_C(2000000000)}};
+    int rc = cli_parse(cmd, argc, argv, o, take_word, &da);
+    if (rc >= 0)
+        return rc;
+    const char *plan_path = da.plan_path;
+    run_opts_t ro = da.ro;
     char buf[4200];
     if (!plan_path && !(plan_path = find_plan(buf, sizeof buf)))
         return cli_usage_error(cmd, o, "cannot find scenarios/demo.yaml; name a plan");

@@ -61,11 +61,14 @@ static int parse_shard(const char *v, run_opts_t *ro)
     return 0;
 }
 
-/* One option's value into *ra; returns -1 to go on, else an exit code. */
-static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, run_args_t *ra)
+/* One word of argv into *ra (cli_take_fn); returns -1 to go on, else an exit code. */
+static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
 {
+    run_args_t *ra = ctx;
     int64_t ns;
     switch (k) {
+    case CLI_POSITIONAL:
+        return cli_take_one(cmd, &ra->path, v, "plan", o);
     case OPT_OUT:
         ra->ro.results_dir = v;
         break;
@@ -112,34 +115,15 @@ static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, run_ar
 
 static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, run_args_t *ra)
 {
-    cli_args_t a;
-    const char *v;
-    int k, rc;
     ra->sets = calloc((size_t)argc + 1, sizeof(*ra->sets));
     ra->copies = calloc((size_t)argc + 1, sizeof(*ra->copies));
     if (!ra->sets || !ra->copies)
         return SQ_EXIT_FAILURE;
     ra->ro.grace_ns = INT64_C(2000000000);
-    cli_args_init(&a, cmd, argc, argv);
-    while ((k = cli_next(&a, o, &v)) != CLI_END) {
-        if (k == CLI_ERROR)
-            return SQ_EXIT_USAGE;
-        if (k == CLI_HELP) {
-            cli_print_help(cmd, o);
-            return SQ_EXIT_OK;
-        }
-        if (k == CLI_POSITIONAL) {
-            if (ra->path)
-                return cli_usage_error(cmd, o, "one plan at a time, got '%s' after '%s'", v,
-                                       ra->path);
-            ra->path = v;
-        } else if ((rc = take_opt(cmd, k, v, o, ra)) >= 0) {
-            return rc;
-        }
-    }
-    if (!ra->path)
+    int rc = cli_parse(cmd, argc, argv, o, take_opt, ra);
+    if (rc < 0 && !ra->path)
         return cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
-    return -1;
+    return rc;
 }
 
 static int run_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
