@@ -179,9 +179,12 @@ static bool brake_check(runner_t *r, brake_t *k, char *why, size_t cap)
         return true;
     }
     case PLAN_BRAKE_UNREACHABLE: {
+        /* Only time spent waiting counts: the silence between a fleet's ticks, with nothing
+         * in flight, is the plan's own, not the target's. */
         int64_t now = (int64_t)uv_hrtime();
-        int64_t since = r->last_response_ns ? r->last_response_ns : r->run_start_ns;
-        if (r->total_started == 0 || now - since < b->max_ns)
+        int64_t since = r->last_response_ns > r->busy_since_ns ? r->last_response_ns
+                                                                : r->busy_since_ns;
+        if (r->in_flight == 0 || now - since < b->max_ns)
             return false;
         snprintf(why, cap, "no answer from the target for %.0fs", (double)(now - since) / 1e9);
         return true;

@@ -284,7 +284,8 @@ static int submit(runner_t *r, run_req_t *q, const char *path, int64_t intended)
     }
     int rc = eng_submit(r->eng, &er);
     if (rc == 0)
-        r->in_flight++;
+        if (r->in_flight++ == 0)
+            r->busy_since_ns = (int64_t)uv_hrtime();
     return rc;
 }
 

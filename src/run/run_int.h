@@ -131,6 +131,7 @@ struct runner {
     char limited_why[160];
     struct run_health *health; /* the brakes (health.c) */
     int64_t last_response_ns;  /* last HTTP answer of any kind */
+    int64_t busy_since_ns;     /* when in_flight last went from 0 to 1 */
 
     /* watch: the current phase's watch streams (watches.c). */
     struct run_watches *watches;

@@ -61,6 +61,24 @@ static void row(runner_t *r, const run_phase_t *ph, const char *cls, hist_t *h, 
                   (long long)cancelled);
 }
 
+/* A watch class counts events, not requests: one line with its events and the p99 of its open
+ * and propagation times. */
+static void watch_row(runner_t *r, const run_phase_t *ph, const char *cls)
+{
+    results_cell_t *c = results_cell_find(r->res, ph->pp->name, cls, "2xx");
+    if (!c)
+        return;
+    const hist_t *open = results_cell_hist_find(c, RESULTS_M_OPEN);
+    const hist_t *prop = results_cell_hist_find(c, RESULTS_M_PROPAGATION);
+    char o99[32] = "-", p99[32] = "-";
+    if (open && hist_count(open))
+        snprintf(o99, sizeof o99, "%.2f ms", ms(hist_value_at(open, 99)));
+    if (prop && hist_count(prop))
+        snprintf(p99, sizeof p99, "%.2f ms", ms(hist_value_at(prop, 99)));
+    out_print(r->o, "%-12s %-24s %8lld events (watch); open p99 %s, propagation p99 %s\n",
+              ph->pp->name, cls, (long long)results_cell_counters(c)->count, o99, p99);
+}
+
 void run_summary(runner_t *r, const char *dir)
 {
     hist_t *h = NULL, *svc = NULL;
@@ -74,11 +92,15 @@ void run_summary(runner_t *r, const char *dir)
     for (size_t p = 0; p < r->n_phases; p++) {
         const plan_phase_t *pp = r->phases[p].pp;
         if (pp->clients.on)
-            out_print(r->o, "%-12s closed loop: %d clients, think %.0f ms (response time is "
-                            "from each client's next intended start)\n",
+            out_print(r->o,
+                      "%-12s closed loop: %d clients, think %.0f ms (response time is "
+                      "from each client's next intended start)\n",
                       pp->name, pp->clients.count, ms(pp->clients.think_ns));
         for (size_t c = 0; c < r->n_classes; c++) {
-            row(r, &r->phases[p], r->classes[c].pr->name, h, svc);
+            if (r->classes[c].pr->kind == PLAN_WATCH)
+                watch_row(r, &r->phases[p], r->classes[c].pr->name);
+            else
+                row(r, &r->phases[p], r->classes[c].pr->name, h, svc);
             if (r->classes[c].paginate)
                 row(r, &r->phases[p], r->classes[c].all_name, h, svc);
         }

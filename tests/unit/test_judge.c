@@ -196,6 +196,33 @@ static void test_no_data_and_wildcard(void **state)
     results_free(r);
 }
 
+/* A watch class's cells count events and stream endings (a dropped stream is a "reset"); "*"
+ * leaves it out, as control-plane objectives exclude watches (NOTES-methods.md "Objectives",
+ * common practice). An objective naming the watch class still judges it. */
+static void test_wildcard_skips_watches(void **state)
+{
+    (void)state;
+    results_t *r = fixture();
+    results_cell_t *ev = results_cell(r, "steady", "follow", "2xx");
+    results_cell_counters(ev)->count = 400;
+    hist_record_n(results_cell_hist(ev, RESULTS_M_OPEN), 3000000, 10);
+    hist_record_n(results_cell_hist(ev, RESULTS_M_PROPAGATION), 5000000, 400);
+    results_cell_counters(results_cell(r, "steady", "follow", "reset"))->count = 10;
+    plan_objective_t ob[2] = {
+        {.cls = {.name = "*"}, .phase = {.index = -1}, .limit = PLAN_LIMIT_ERROR_RATE,
+         .value = 0.5},
+        {.cls = {.name = "follow"}, .phase = {.index = -1}, .metric = PLAN_METRIC_PROPAGATION,
+         .limit = PLAN_LIMIT_PERCENTILE, .percentile = 99, .max_ns = 10000000},
+    };
+    judge_t *j;
+    assert_int_equal(judge_evaluate(ob, 2, r, phases, 2, &j), 0);
+    assert_null(find(j, 0, "follow", "run"));
+    assert_non_null(find(j, 0, "read", "run"));
+    assert_int_equal(find(j, 1, "follow", "run")->verdict, JUDGE_PASS);
+    judge_free(j);
+    results_free(r);
+}
+
 int main(void)
 {
     if (access("/usr/bin/python3", X_OK) != 0 ||
@@ -207,6 +234,7 @@ int main(void)
         cmocka_unit_test(test_percentile_against_numpy),
         cmocka_unit_test(test_error_rate_and_min_rate),
         cmocka_unit_test(test_no_data_and_wildcard),
+        cmocka_unit_test(test_wildcard_skips_watches),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
