@@ -189,6 +189,11 @@ typedef struct {
         enum plan_timing timing; /* spread */
         double jitter, drift;    /* fractions of `every` (jitter mode; clock drift per agent) */
         int64_t join_ns;         /* agents join evenly over this time, 0 = all at start */
+        int64_t leave_ns;        /* they leave (first in, first out) over the phase's last
+                                  * `leave`, 0 = all stay to the end */
+        plan_ref_t watch;        /* each agent's own watch (a watch class; name NULL if none):
+                                  * also added to `watches` as a set of `agents` streams whose
+                                  * {{agent}} is the agent's index */
         plan_send_t *send;
         size_t n_send;
     } fleet;

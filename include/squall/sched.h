@@ -156,6 +156,8 @@ typedef struct {
     double jitter;       /* x in [0, 1): SCHED_JITTER only */
     double drift;        /* d in [0, 0.5): agent i's period is P·(1 + e_i), e_i ~ U(−d, +d) */
     int64_t join_ns;     /* agent k joins at k * join / agents; 0 = all at t = 0 */
+    int64_t leave_ns;    /* agent k leaves at duration - leave + k * leave / agents (first in,
+                          * first out); 0 = all stay to the end; at most the duration */
     int64_t duration_ns; /* > 0 */
     /* SCHED_ALIGNED: CLOCK_REALTIME in ns at the phase's t = 0, so that t + realtime0 is a
      * multiple of P on every tick; separate processes with synced clocks line up. */

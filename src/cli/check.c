@@ -70,11 +70,15 @@ static void print_shape(const plan_phase_t *ph, const plan_estimate_t *e, out_t 
                   e->clients);
     if (ph->fleet.on) {
         static const char *const timing[] = {"spread", "jitter", "aligned"};
-        char d[32], j[32];
-        out_print(o, "    fleet: %d agents every %s, %s%s%s\n", ph->fleet.agents,
+        char d[32], j[32], l[32];
+        out_print(o, "    fleet: %d agents every %s, %s%s%s%s%s%s%s\n", ph->fleet.agents,
                   dur_str(ph->fleet.every_ns, d, sizeof d), timing[ph->fleet.timing],
                   ph->fleet.join_ns ? ", joining over " : "",
-                  ph->fleet.join_ns ? dur_str(ph->fleet.join_ns, j, sizeof j) : "");
+                  ph->fleet.join_ns ? dur_str(ph->fleet.join_ns, j, sizeof j) : "",
+                  ph->fleet.leave_ns ? ", leaving over the last " : "",
+                  ph->fleet.leave_ns ? dur_str(ph->fleet.leave_ns, l, sizeof l) : "",
+                  ph->fleet.watch.name ? ", each watching with " : "",
+                  ph->fleet.watch.name ? ph->fleet.watch.name : "");
     }
     if (ph->churn.on)
         out_print(o, "    churn: %g/s around a population of %d\n", ph->churn.rate,

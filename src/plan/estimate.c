@@ -49,8 +49,10 @@ static void spread_over_mix(const plan_phase_t *ph, double total, plan_estimate_
 
 static void estimate_fleet(const plan_phase_t *ph, double dur, plan_estimate_t *e)
 {
-    /* Agents join evenly over `join`, so on average each is present for dur - join/2. */
-    double agent_s = ph->fleet.agents * (dur - ph->fleet.join_ns / 1e9 / 2);
+    /* Agents join evenly over `join` and leave evenly over `leave`, so on average each is
+     * present for dur - join/2 - leave/2. */
+    double agent_s =
+        ph->fleet.agents * (dur - ph->fleet.join_ns / 1e9 / 2 - ph->fleet.leave_ns / 1e9 / 2);
     e->agents = ph->fleet.agents;
     for (size_t i = 0; i < ph->fleet.n_send; i++) {
         double every = ph->fleet.send[i].every_ns / 1e9;

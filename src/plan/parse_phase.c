@@ -142,8 +142,8 @@ static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *p
 
 static void parse_fleet(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
-    static const char *const keys[] = {"agents", "every", "timing", "jitter",
-                                       "drift",  "join",  "send",   NULL};
+    static const char *const keys[] = {"agents", "every", "timing", "jitter", "drift",
+                                       "join",   "leave", "send",   "watch",  NULL};
     static const char *const timings[] = {"spread", "jitter", "aligned", NULL};
     char w[200];
     snprintf(w, sizeof w, "%s.fleet", where);
@@ -165,12 +165,36 @@ static void parse_fleet(pctx_t *c, yaml_node_t *n, const char *where, plan_phase
     pc_pct(c, n, "jitter", w, &ph->fleet.jitter);
     pc_pct(c, n, "drift", w, &ph->fleet.drift);
     pc_dur(c, n, "join", w, 0, &ph->fleet.join_ns);
+    pc_dur(c, n, "leave", w, 0, &ph->fleet.leave_ns);
+    ph->fleet.watch.index = -1;
+    if (pc_get(c, n, "watch")) {
+        char ww[240];
+        snprintf(ww, sizeof ww, "%s.watch", w);
+        pc_ref(c, &ph->fleet.watch, pc_get(c, n, "watch"), ww);
+    }
     if (pc_get_key(c, n, "jitter") && ph->fleet.timing != PLAN_TIMING_JITTER)
         pc_error(c, pc_get_key(c, n, "jitter"),
                  "%s: key 'jitter' needs timing jitter (expected timing: jitter, got %s)", w,
                  timings[t]);
     if (pc_get(c, n, "send"))
         parse_send(c, pc_get(c, n, "send"), w, ph);
+}
+
+/* fleet.watch: every agent keeps its own watch, a set of `agents` streams; without an `open`
+ * spread of its own it opens as the agents join. Resolution checks it is a watch class. */
+static void add_agent_watches(pctx_t *c, plan_phase_t *ph)
+{
+    plan_watch_set_t *sets = pmem_alloc(c, (ph->watches.n_sets + 1) * sizeof(*sets));
+    if (!sets)
+        return;
+    for (size_t i = 0; i < ph->watches.n_sets; i++)
+        sets[i] = ph->watches.sets[i];
+    sets[ph->watches.n_sets] =
+        (plan_watch_set_t){.cls = ph->fleet.watch, .count = ph->fleet.agents};
+    ph->watches.sets = sets;
+    ph->watches.n_sets++;
+    if (ph->watches.spread_ns == 0)
+        ph->watches.spread_ns = ph->fleet.join_ns;
 }
 
 /* watches: {CLASS: count, ..., open: at-once | spread DURATION}. */
@@ -350,6 +374,10 @@ static void check_sources(pctx_t *c, yaml_node_t *n, const char *where, plan_pha
         pc_error(c, n, "%s: missing key 'duration' (expected a duration like 5m, got nothing)",
                  where);
     }
+    if (ph->has_duration && ph->fleet.leave_ns > ph->duration_ns)
+        pc_error(c, pc_get(c, pc_get(c, n, "fleet"), "leave"),
+                 "%s.fleet.leave: longer than the phase (expected at most %.6gs, got %.6gs)", where,
+                 ph->duration_ns / 1e9, ph->fleet.leave_ns / 1e9);
     if (ph->has_duration && ph->fleet.join_ns > ph->duration_ns)
         pc_error(c, pc_get(c, pc_get(c, n, "fleet"), "join"),
                  "%s.fleet.join: longer than the phase (expected at most %.6gs, got %.6gs)", where,
@@ -390,6 +418,8 @@ static void parse_one(pctx_t *c, yaml_node_t *n, size_t index)
         parse_fleet(c, pc_get(c, n, "fleet"), where, &ph);
     if (pc_get(c, n, "watches"))
         parse_watches(c, pc_get(c, n, "watches"), where, &ph);
+    if (ph.fleet.on && ph.fleet.watch.name)
+        add_agent_watches(c, &ph);
     if (pc_get(c, n, "churn"))
         parse_churn(c, pc_get(c, n, "churn"), where, &ph);
     if (pc_get(c, n, "teardown"))

@@ -108,6 +108,7 @@ static int phase_fleet_init(runner_t *r, run_phase_t *ph, size_t i)
             .jitter = pp->fleet.jitter,
             .drift = pp->fleet.drift,
             .join_ns = pp->fleet.join_ns,
+            .leave_ns = pp->fleet.leave_ns,
             .duration_ns = ph->duration_ns,
             .realtime0_ns = realtime0,
             .seed = phase_seed(r, i, 3 + k),

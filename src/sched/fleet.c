@@ -14,6 +14,7 @@ typedef struct {
     int64_t first; /* its first action */
     int64_t prev;  /* its last action (jitter mode accumulates from it) */
     uint64_t k;    /* actions so far */
+    int64_t end;   /* no action at or after it: the phase's end, or when the agent leaves */
 } agent_t;
 
 struct sched_fleet {
@@ -35,7 +36,8 @@ int64_t sched_align_offset(int64_t realtime0_ns, int64_t period_ns)
 
 static int validate(const sched_fleet_cfg_t *c)
 {
-    if (!c || c->agents < 1 || c->period_ns <= 0 || c->duration_ns <= 0 || c->join_ns < 0)
+    if (!c || c->agents < 1 || c->period_ns <= 0 || c->duration_ns <= 0 || c->join_ns < 0 ||
+        c->leave_ns < 0 || c->leave_ns > c->duration_ns)
         return SQ_EINVAL;
     if (!(c->jitter >= 0 && c->jitter < 1) || !(c->drift >= 0 && c->drift < 0.5))
         return SQ_EINVAL;
@@ -83,8 +85,10 @@ static void setup_agents(sched_fleet_t *f)
         agent_t *a = &f->agents[i];
         a->period = (double)c->period_ns * (1 + c->drift * sym_unit(&f->rng));
         int64_t join = (int64_t)((double)c->join_ns * i / c->agents);
+        /* Agents leave in the order they joined, evenly over the last `leave` of the phase. */
+        a->end = c->duration_ns - c->leave_ns + (int64_t)((double)c->leave_ns * i / c->agents);
         a->first = a->prev = first_action(f, i, join);
-        if (a->first < c->duration_ns)
+        if (a->first < a->end)
             sched_heap_push(&f->heap, a->first, i);
     }
 }
@@ -134,7 +138,7 @@ bool sched_fleet_next(sched_fleet_t *f, int64_t *t_ns, int *agent)
     a->prev = *t_ns;
     a->k++;
     int64_t t = next_action(f, *agent);
-    if (t < f->cfg.duration_ns)
+    if (t < a->end)
         sched_heap_retime_top(&f->heap, t);
     else
         sched_heap_pop(&f->heap);
@@ -180,7 +184,7 @@ int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg)
             n++;
     } else {
         for (int i = 0; i < cfg->agents; i++)
-            n += agent_count(&f->agents[i], cfg->duration_ns);
+            n += agent_count(&f->agents[i], f->agents[i].end);
     }
     sched_fleet_free(f);
     return n;

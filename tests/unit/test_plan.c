@@ -257,6 +257,26 @@ static void test_demo_estimates(void **state)
     plan_free(p);
 }
 
+/* tests/data/plans/good-fleet-life.yaml, by hand: 10 agents join over 4 s and leave over the
+ * last 6 s of 20 s, so each is present 20 - 4/2 - 6/2 = 15 s on average: 10 x 15 / 2 = 75 renews;
+ * each agent's own watch is a set of 10 streams, opened as the agents join (spread 4 s). */
+static void test_fleet_leave_and_watch(void **state)
+{
+    (void)state;
+    plan_t *p = load_ok(SRCDIR "/tests/data/plans/good-fleet-life.yaml", NULL, 0);
+    const plan_phase_t *ph = &p->phases[0];
+    assert_true(ph->fleet.leave_ns == 6000000000);
+    assert_int_equal(ph->watches.n_sets, 1);
+    assert_int_equal(ph->watches.sets[0].count, 10);
+    assert_int_equal(ph->watches.sets[0].cls.index, plan_find_req(p, "follow-own"));
+    assert_true(ph->watches.spread_ns == 4000000000);
+    plan_estimate_t e;
+    plan_estimate(p, 0, &e);
+    assert_double_equal(per_class(p, &e, "renew"), 75, 1e-9);
+    assert_int_equal(e.watches, 10);
+    plan_free(p);
+}
+
 /* scenarios/fleet-storm.yaml, by hand:
  *  spread: 2000 agents joining evenly over 20 s of 60 s are present 60 - 20/2 = 50 s on
  *          average: 100,000 agent-seconds; renew every 10 s -> 10,000; post-status every 30 s
@@ -442,6 +462,7 @@ int main(void)
         cmocka_unit_test(test_bad_plans),
         cmocka_unit_test(test_all_errors_in_one_pass),
         cmocka_unit_test(test_demo_estimates),
+        cmocka_unit_test(test_fleet_leave_and_watch),
         cmocka_unit_test(test_fleet_estimates),
         cmocka_unit_test(test_shapes_and_include),
         cmocka_unit_test(test_overrides),

@@ -236,6 +236,39 @@ static void test_join(void **state)
     run_free(&r);
 }
 
+/* Leaves over the last 10 s of 30: agent k's last action is before 20 s + k · 10 s / N (first
+ * in, first out), and an aligned agent acts on every tick before it leaves, so its count is
+ * the number of 2 s multiples below its leave time (the definition; no outside source). */
+static void test_leave(void **state)
+{
+    (void)state;
+    sched_fleet_cfg_t cfg = {.agents = 50,
+                             .period_ns = 2 * S,
+                             .timing = SCHED_ALIGNED,
+                             .leave_ns = 10 * S,
+                             .duration_ns = 30 * S,
+                             .realtime0_ns = 0,
+                             .seed = 3};
+    run_t r = run_fleet(&cfg);
+    int64_t last[50], count[50] = {0};
+    for (int a = 0; a < 50; a++)
+        last[a] = -1;
+    for (size_t i = 0; i < r.n; i++) {
+        last[r.agent[i]] = r.t[i];
+        count[r.agent[i]]++;
+    }
+    for (int a = 0; a < 50; a++) {
+        int64_t leave = 20 * S + (int64_t)a * 10 * S / 50;
+        assert_true(last[a] < leave);
+        assert_int_equal(count[a], (leave + 2 * S - 1) / (2 * S)); /* ticks at 0, 2 s, ... */
+    }
+    assert_int_equal((int64_t)r.n, sched_fleet_count(&cfg));
+    run_free(&r);
+    cfg.leave_ns = 31 * S; /* longer than the phase */
+    sched_fleet_t *f;
+    assert_int_equal(sched_fleet_new(&cfg, &f), SQ_EINVAL);
+}
+
 /* The same seed replays the same fleet; another seed moves the spread phases. */
 static void test_fleet_determinism(void **state)
 {
@@ -289,10 +322,15 @@ static void test_fleet_due(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_align_offset), cmocka_unit_test(test_aligned),
-        cmocka_unit_test(test_spread),       cmocka_unit_test(test_jitter),
-        cmocka_unit_test(test_drift),        cmocka_unit_test(test_join),
-        cmocka_unit_test(test_fleet_due),    cmocka_unit_test(test_fleet_determinism),
+        cmocka_unit_test(test_align_offset),
+        cmocka_unit_test(test_aligned),
+        cmocka_unit_test(test_spread),
+        cmocka_unit_test(test_jitter),
+        cmocka_unit_test(test_drift),
+        cmocka_unit_test(test_join),
+        cmocka_unit_test(test_leave),
+        cmocka_unit_test(test_fleet_due),
+        cmocka_unit_test(test_fleet_determinism),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
