@@ -156,6 +156,9 @@ bool run_is_error(enum eng_outcome oc);
 /* series.c */
 int run_series_open(runner_t *r, const char *dir);
 void run_series_close(runner_t *r);
+/* DIR/storms.csv from the results' "storms" section (one row per fleet tick); nothing without
+ * fleets. SQ_EIO with a line on r->o. */
+int run_storms_csv(runner_t *r, const char *dir);
 /* Closes the current second: a series row per class, the live line, health and brakes. The
  * final, partial second at the end of a run gets its rows but no live line. */
 void run_second(runner_t *r, bool final);

@@ -537,7 +537,7 @@ static int run_loop(runner_t *r, const char *dir, const char *token)
     out_live_end(r->o);
     run_life_teardown(r, token); /* life: delete what this run created, unless --keep */
     int code = exit_code(r);
-    if (write_results(r, dir))
+    if (write_results(r, dir) || run_storms_csv(r, dir))
         code = SQ_EXIT_FAILURE;
     else if (code == SQ_EXIT_OK && run_verdict_failed(r)) /* judge */
         code = SQ_EXIT_OBJECTIVES;

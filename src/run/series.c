@@ -20,6 +20,53 @@ int run_series_open(runner_t *r, const char *dir)
     return 0;
 }
 
+/* ns in a JSON object as milliseconds for a CSV cell. */
+static double json_ms(const json_t *o, const char *key)
+{
+    return (double)json_integer_value(json_object_get(o, key)) / 1e6;
+}
+
+int run_storms_csv(runner_t *r, const char *dir)
+{
+    json_t *storms = results_section(r->res, "storms");
+    if (!storms)
+        return 0;
+    char path[4096];
+    snprintf(path, sizeof path, "%s/storms.csv", dir);
+    FILE *f = fopen(path, "w");
+    if (!f) {
+        out_error(r->o, "cannot write %s: %s", path, strerror(errno));
+        return SQ_EIO;
+    }
+    /* One row per fleet tick; tick_s counts from the start of its phase. */
+    fputs("phase,class,timing,tick_s,requests,written,dispatch_spread_ms,first_written_ms,"
+          "peak_in_flight,burst_ms,p50_ms,p99_ms,max_ms\n",
+          f);
+    const char *phase;
+    json_t *ph;
+    json_object_foreach(storms, phase, ph)
+    {
+        size_t i, k;
+        json_t *a, *t;
+        json_array_foreach(json_object_get(ph, "actions"), i, a)
+        {
+            json_array_foreach(json_object_get(a, "ticks"), k, t)
+            {
+                fprintf(f, "%s,%s,%s,%.3f,%lld,%lld,%.3f,%.3f,%lld,%.3f,%.3f,%.3f,%.3f\n", phase,
+                        json_string_value(json_object_get(a, "class")),
+                        json_string_value(json_object_get(a, "timing")), json_ms(t, "t_ns") / 1e3,
+                        (long long)json_integer_value(json_object_get(t, "requests")),
+                        (long long)json_integer_value(json_object_get(t, "written")),
+                        json_ms(t, "dispatch_spread_ns"), json_ms(t, "first_written_ns"),
+                        (long long)json_integer_value(json_object_get(t, "peak_in_flight")),
+                        json_ms(t, "burst_ns"), json_ms(t, "p50_ns"), json_ms(t, "p99_ns"),
+                        json_ms(t, "max_ns"));
+            }
+        }
+    }
+    return fclose(f) == 0 ? 0 : SQ_EIO;
+}
+
 void run_series_close(runner_t *r)
 {
     if (r->series)

@@ -53,5 +53,13 @@ rcheck "jitter: burst and quiet latency both measured and they cover every reque
     "$J['burst']['count'] > 0 and $J['quiet']['count'] > 0 and $J['burst']['count'] + $J['quiet']['count'] == sum(c['count'] for c in d['cells'] if c['phase'] == 'jitter')" "$T/f"
 rcheck "jitter: the spread phase has no burst/quiet split (nothing is synchronised)" \
     "'burst' not in d['sections']['storms']['spread']" "$T/f"
+# storms.csv holds the same ticks as the section, one row each.
+ROWS=$(awk -F, 'NR > 1' "$T/f/storms.csv" | wc -l)
+rcheck "storms.csv has one row per tick of the section ($ROWS rows)" \
+    "sum(len(a['ticks']) for p in d['sections']['storms'].values() for a in p['actions']) == $ROWS" "$T/f"
+SUM=$(awk -F, 'NR > 1 && $1 == "aligned" { s += $5 } END { print s }' "$T/f/storms.csv")
+expect "and its aligned rows add up to the 2,000 aligned requests (got $SUM)" test "$SUM" = 2000
+expect "storms.csv has the documented header" test "$(head -1 "$T/f/storms.csv")" = \
+    "phase,class,timing,tick_s,requests,written,dispatch_spread_ms,first_written_ms,peak_in_flight,burst_ms,p50_ms,p99_ms,max_ms"
 [ "$FAILED" = 0 ] && echo "PASS: storm fleet" || echo "FAIL: storm fleet"
 exit "$FAILED"
