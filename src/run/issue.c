@@ -230,8 +230,7 @@ static void record_whole(runner_t *r, const run_req_t *q, const eng_result_t *la
     hist_add(cell, RESULTS_M_RESPONSE, last->done_ns - q->first_intended_ns);
 }
 
-/* Percent-encodes a continuation token for a query string (RFC 3986 unreserved kept). */
-static size_t url_escape(const char *s, char *dst, size_t cap)
+size_t run_url_escape(const char *s, char *dst, size_t cap)
 {
     static const char hex[] = "0123456789ABCDEF";
     size_t n = 0;
@@ -298,7 +297,7 @@ static bool next_page(runner_t *r, run_req_t *q, const eng_result_t *res)
     bool sent = false;
     if (tok && q->pages < 100000 && r->state == RUN_ACTIVE) {
         char esc[1024], path[4096];
-        if (url_escape(tok, esc, sizeof esc)) {
+        if (run_url_escape(tok, esc, sizeof esc)) {
             const char *sep = strchr(q->base_path, '?') ? "&" : "?";
             int n;
             if (c->pr->list.page > 0)

@@ -152,6 +152,9 @@ int run_classes_init(runner_t *r);
 void run_classes_close(runner_t *r);
 void run_reqs_close(runner_t *r);
 bool run_is_error(enum eng_outcome oc);
+/* Percent-encodes s for a query string (RFC 3986 unreserved characters kept) into dst; returns
+ * the length, or 0 when cap is too small. */
+size_t run_url_escape(const char *s, char *dst, size_t cap);
 
 /* series.c */
 int run_series_open(runner_t *r, const char *dir);

@@ -416,35 +416,13 @@ static void on_relist_done(void *user, const eng_result_t *res)
     next_step(ws, w, &end, res->done_ns);
 }
 
-static size_t url_escape(const char *s, char *dst, size_t cap)
-{
-    static const char hex[] = "0123456789ABCDEF";
-    size_t n = 0;
-    for (; *s; s++) {
-        unsigned char ch = (unsigned char)*s;
-        bool keep = (ch >= 'A' && ch <= 'Z') || (ch >= 'a' && ch <= 'z') ||
-                    (ch >= '0' && ch <= '9') || strchr("-._~", ch);
-        if (n + 4 > cap)
-            return 0;
-        if (keep) {
-            dst[n++] = (char)ch;
-        } else {
-            dst[n++] = '%';
-            dst[n++] = hex[ch >> 4];
-            dst[n++] = hex[ch & 15];
-        }
-    }
-    dst[n] = '\0';
-    return n;
-}
-
 /* Sends one page of the relist (token NULL for the first). */
 static int relist_page(struct run_watches *ws, watcher_t *w, const char *token, int64_t intended)
 {
     const run_class_t *lc = &ws->r->classes[ws->r->classes[w->wc->cls].pr->watch.relist.index];
     const plan_req_t *lp = lc->pr;
     char path[4096], esc[3072] = "";
-    if (token && !url_escape(token, esc, sizeof esc))
+    if (token && !run_url_escape(token, esc, sizeof esc))
         return SQ_ELIMIT;
     const char *sep = strchr(w->list_base, '?') ? "&" : "?";
     int n = snprintf(path, sizeof path, "%s", w->list_base);
