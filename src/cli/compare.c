@@ -52,34 +52,30 @@ static int parse_value(const cli_cmd_t *cmd, int k, const char *v, compare_args_
     return -1;
 }
 
+/* One word of argv into *ca (cli_take_fn). */
+static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
+{
+    compare_args_t *ca = ctx;
+    if (k == CLI_POSITIONAL && ca->dir[1])
+        return cli_usage_error(cmd, o, "two results directories only (BASE NEW), got a third: '%s'",
+                               v);
+    if (k == CLI_POSITIONAL)
+        ca->dir[ca->dir[0] ? 1 : 0] = v;
+    else if (k == OPT_JSON)
+        ca->json = true;
+    else
+        return parse_value(cmd, k, v, ca, o);
+    return -1;
+}
+
 /* Returns -1 to go on, else an exit code. */
 static int parse(const cli_cmd_t *cmd, int argc, char **argv, compare_args_t *ca, out_t *o)
 {
-    cli_args_t a;
-    const char *v;
-    int k, n = 0;
     report_cmp_opts_default(&ca->opts);
-    cli_args_init(&a, cmd, argc, argv);
-    while ((k = cli_next(&a, o, &v)) != CLI_END) {
-        if (k == CLI_HELP) {
-            cli_print_help(cmd, o);
-            return SQ_EXIT_OK;
-        }
-        if (k == CLI_ERROR)
-            return SQ_EXIT_USAGE;
-        if (k == CLI_POSITIONAL && n == 2)
-            return cli_usage_error(cmd, o,
-                                   "two results directories only (BASE NEW), got a third: "
-                                   "'%s'",
-                                   v);
-        if (k == CLI_POSITIONAL)
-            ca->dir[n++] = v;
-        else if (k == OPT_JSON)
-            ca->json = true;
-        else if ((k = parse_value(cmd, k, v, ca, o)) >= 0)
-            return k;
-    }
-    if (n < 2)
+    int code = cli_parse(cmd, argc, argv, o, take_word, ca);
+    if (code >= 0)
+        return code;
+    if (!ca->dir[1])
         return cli_usage_error(cmd, o, "needs BASE and NEW results directories");
     return -1;
 }

@@ -8,23 +8,23 @@ static const cli_opt_t report_opts[] = {
     {NULL, 0, NULL, NULL},
 };
 
+/* The one positional word, RESULTS_DIR (report takes no options). */
+static int take_dir(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
+{
+    const char **dir = ctx;
+    (void)k;
+    if (*dir)
+        return cli_usage_error(cmd, o, "one RESULTS_DIR only (got '%s' and '%s')", *dir, v);
+    *dir = v;
+    return -1;
+}
+
 static int report_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
-    cli_args_t a;
-    const char *v, *dir = NULL;
-    int k;
-    cli_args_init(&a, cmd, argc, argv);
-    while ((k = cli_next(&a, o, &v)) != CLI_END) {
-        if (k == CLI_HELP) {
-            cli_print_help(cmd, o);
-            return SQ_EXIT_OK;
-        }
-        if (k == CLI_ERROR)
-            return SQ_EXIT_USAGE;
-        if (dir)
-            return cli_usage_error(cmd, o, "one RESULTS_DIR only (got '%s' and '%s')", dir, v);
-        dir = v;
-    }
+    const char *dir = NULL;
+    int code = cli_parse(cmd, argc, argv, o, take_dir, &dir);
+    if (code >= 0)
+        return code;
     if (!dir)
         return cli_usage_error(cmd, o, "missing RESULTS_DIR");
     results_t *res = NULL;

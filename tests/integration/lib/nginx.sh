@@ -110,16 +110,7 @@ CONF
 }
 
 nginx_stop() {
-    if [ -n "${NGX_PID:-}" ] && kill -0 "$NGX_PID" 2>/dev/null; then
-        kill -TERM "$NGX_PID" 2>/dev/null
-        local i
-        for ((i = 0; i < 50; i++)); do
-            kill -0 "$NGX_PID" 2>/dev/null || break
-            sleep 0.1
-        done
-        kill -KILL "$NGX_PID" 2>/dev/null || true
-        wait "$NGX_PID" 2>/dev/null || true
-    fi
+    stop_pid "${NGX_PID:-}"
     NGX_PID=
 }
 

@@ -5,16 +5,7 @@
 source "$(dirname "${BASH_SOURCE[0]}")/port.sh"
 
 target_stop() {
-    if [ -n "${TGT_PID:-}" ] && kill -0 "$TGT_PID" 2>/dev/null; then
-        kill -TERM "$TGT_PID" 2>/dev/null
-        local i
-        for ((i = 0; i < 50; i++)); do
-            kill -0 "$TGT_PID" 2>/dev/null || break
-            sleep 0.1
-        done
-        kill -KILL "$TGT_PID" 2>/dev/null || true
-    fi
-    wait "${TGT_PID:-}" 2>/dev/null || true
+    stop_pid "${TGT_PID:-}"
     TGT_PID=
 }
 
