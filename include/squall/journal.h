@@ -77,10 +77,13 @@ typedef struct {
     int parallel;     /* deletes in flight at most, >= 1 */
     int attempts;     /* tries per object on 5xx, 429, timeouts and transport errors, >= 1 */
     int64_t limit_ns; /* everything stops after this long */
-    /* Called once per attempt that got an answer or failed (not for cancelled ones), with the
-     * object's index, the engine's result and its fate so far (LEFT while it will be retried). */
+    /* Called once per attempt as it is handed to the engine, and once per attempt that ended
+     * (cancelled ones too), with the object's index, the engine's result and its fate so far
+     * (LEFT while it will be retried or when cancelled). Either may be NULL. */
+    void (*on_submit)(void *user, size_t i);
     void (*on_result)(void *user, size_t i, const eng_result_t *res, enum journal_fate f);
     void *user;
+    bool signals; /* SIGINT or SIGTERM stops it (the rest is LEFT): for `cleanup` */
 } journal_reap_cfg_t;
 
 typedef struct {
@@ -89,13 +92,28 @@ typedef struct {
     char why[160]; /* why it stopped early, "" when it did not */
 } journal_reap_counts_t;
 
-/* Deletes paths[0..n) with DELETE requests through a new engine on `loop` (made from ecfg; its
- * on_unreachable is replaced), running the loop until every object has a fate, and closes all
- * it opened before returning (the loop must have no other active handles). A retry waits the
- * answer's Retry-After when a 429 or 503 gives one (at most 30 s), else 200 ms x 2^(attempt - 1),
- * at most 2 s. SIGINT or SIGTERM while it runs stops it at once (the rest is LEFT). fates (n
- * entries) receives each object's fate. Returns 0 or SQ_ENOMEM / SQ_ELIBUV / the engine's code;
- * on failure nothing was sent and every fate is LEFT. */
+typedef struct journal_reaper journal_reaper_t;
+
+/* Starts deleting paths[0..n) with DELETE requests through a new engine on `loop` (made from
+ * ecfg, which carries the target's headers, TLS and token; its on_unreachable is replaced), on
+ * its own 1 ms timer, until every object has a fate. A retry waits the answer's Retry-After
+ * when a 429 or 503 gives one (at most 30 s), else 200 ms x 2^(attempt - 1), at most 2 s.
+ * fates (n entries) receives each object's fate and must outlive the reaper; so must paths
+ * and cfg. Returns 0 and *out, or SQ_ENOMEM / SQ_ELIBUV / the engine's code (then nothing is
+ * sent, every fate is LEFT, and *out, when set, must still be freed). */
+int journal_reaper_start(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o,
+                         const journal_reap_cfg_t *cfg, const char *const *paths, size_t n,
+                         enum journal_fate *fates, journal_reaper_t **out);
+/* Stops at once: deletes in flight are cancelled, everything without a fate is LEFT. */
+void journal_reaper_stop(journal_reaper_t *rp, const char *why);
+/* True when every object has its fate and the reaper closed its engine and timer. */
+bool journal_reaper_finished(const journal_reaper_t *rp);
+void journal_reaper_counts(const journal_reaper_t *rp, journal_reap_counts_t *counts);
+/* Stops it if needed and releases it once its handles closed (run the loop afterwards). */
+void journal_reaper_free(journal_reaper_t *rp);
+
+/* The reaper run to the end on `loop` (which must have no other active handles), closing all
+ * it opened before returning. */
 int journal_reap(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o, const journal_reap_cfg_t *cfg,
                  const char *const *paths, size_t n, enum journal_fate *fates,
                  journal_reap_counts_t *counts);

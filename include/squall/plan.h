@@ -303,27 +303,6 @@ int plan_find_phase(const plan_t *p, const char *name);
 const char *plan_kind_name(enum plan_kind k);
 const char *plan_backoff_name(enum plan_backoff b);
 
-/* ---- estimates: what a plan would do, from the plan alone ------------------------------- */
-
 #define PLAN_MAX_REQS 256 /* validation rejects plans with more classes */
-
-typedef struct {
-    int64_t duration_ns; /* 0 and open_ended for teardown/replay phases with no duration */
-    bool open_ended;
-    double per_class[PLAN_MAX_REQS]; /* expected starts per class (watches: streams opened) */
-    double requests;                 /* sum of per_class over non-watch classes */
-    double peak_rate;                /* highest expected request rate in the phase, per second */
-    double burst;                    /* aligned fleets: requests due at one instant, else 0 */
-    bool closed_loop;                /* clients: per_class is an upper bound, see below */
-    int clients;
-    bool bounded; /* closed loop with think > 0: per_class holds the upper bound */
-    int watches, agents;
-    double created, deleted; /* objects; teardown deletes everything still alive */
-    double alive_after;      /* objects this run created and has not deleted, after the phase */
-    bool replay;             /* counts come from the log, not the plan */
-} plan_estimate_t;
-
-/* Fills *e for phase i, counting the objects left alive by phases before it. */
-void plan_estimate(const plan_t *p, size_t i, plan_estimate_t *e);
 
 #endif

@@ -103,6 +103,22 @@ int results_set_stopped(results_t *r, const char *reason);
  * memory. Strings are copied. */
 results_cell_t *results_cell(results_t *r, const char *phase, const char *class_name,
                              const char *outcome);
+/* One finished request as a cell records it. Times are ns on one monotonic clock. */
+typedef struct {
+    int64_t intended_ns; /* the schedule's start: response time counts from here */
+    int64_t sent_ns;     /* when it went on its connection; 0 = never sent (no service time) */
+    int64_t done_ns;     /* when it finished; 0 = count it without any time */
+    bool with_lag;       /* also record sent - intended as the lag metric */
+    int64_t connect_ns, tls_ns, first_byte_ns; /* > 0 when measured (a new connection) */
+    int64_t bytes_in, bytes_out;
+} results_sample_t;
+
+/* Records one completion into c (NULL: nothing): count and bytes always; then, when done_ns is
+ * set, response = done - intended, service = done - sent and (with_lag) lag = sent - intended
+ * when sent_ns is set, and connect, TLS and first byte when measured. Negative spans count as
+ * 0. Histograms are created on first use; out of memory loses the sample, never the count. */
+void results_record(results_cell_t *c, const results_sample_t *s);
+
 /* The cell if it exists, else NULL. */
 results_cell_t *results_cell_find(const results_t *r, const char *phase, const char *class_name,
                                   const char *outcome);

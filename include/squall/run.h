@@ -1,12 +1,13 @@
-/* A run: a loaded plan turned into timed traffic, measured, and written to a results directory.
+/* A run: a loaded plan turned into timed traffic, measured, judged and written.
  *
- * The runner is the one place where the modules meet: it reads the plan, builds the schedules
- * (sched) and templates (tmpl) of each phase, hands requests to the engine at their intended
- * start times, records every completion into the results (response time from the intended
- * start, service time from the actual send, schedule lag, libcurl's connect/TLS/first-byte
- * split), keeps the per-second series, watches its own health (generator_limited) and the
- * brakes, draws the live line, and at the end writes results.json and series.csv and prints a
- * summary. Glossary: "draining" = no new starts, waiting for in-flight requests to finish. */
+ * The conductor holds only the phase sequence, signals and the shutdown order. Each phase's
+ * traffic comes from its sources (source.h), built when the phase starts and asked, on one
+ * libuv loop, for every start that is due; every completion goes through the observers
+ * (observe.h) into the results. After the plan's last phase the run drains what is in flight,
+ * tears down what it created (a teardown phase, the plan's or its own), writes results.json,
+ * series.csv and report.html, judges the objectives and prints a summary.
+ * Glossary: "draining" = no new starts, waiting for in-flight requests to finish. The library
+ * returns error codes only; the command line turns a run's outcome into an exit code. */
 #ifndef SQUALL_RUN_H
 #define SQUALL_RUN_H
 
@@ -26,11 +27,38 @@ typedef struct {
     uint64_t seed;    /* overrides the plan's seed */
     int64_t grace_ns; /* after a signal or a brake: how long in-flight requests may take */
     int shard_index, shard_count; /* 1/1 unless given */
-    bool keep; /* life: no teardown; the journal lists what was left */
+    bool keep;                    /* no teardown; the journal lists what was left */
 } run_opts_t;
 
-/* Runs `plan` to the end (or until a signal, a brake or an unreachable target stops it),
- * writes the results and returns the process exit code (enum sq_exit). */
-int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o);
+/* Why a run ended. */
+enum run_end {
+    RUN_END_DONE,        /* every phase ran to its end */
+    RUN_END_SIGNAL,      /* SIGINT or SIGTERM */
+    RUN_END_BRAKE,       /* a brake's condition held */
+    RUN_END_UNREACHABLE, /* the target refused connections or did not resolve */
+    RUN_END_FAILED,      /* an internal failure (out of memory, a phase that could not start) */
+};
+
+typedef struct {
+    enum run_end end;
+    bool objectives_failed; /* an objective failed or had no data */
+    bool write_failed;      /* results.json, series.csv or report.html could not be written */
+} run_result_t;
+
+/* Everything a run checks before it sends anything, and nothing more: the target's safety
+ * (non-loopback targets need confirm_target: refused otherwise), engine settings (token, TLS),
+ * every template compiled against the plan's vars and pools, every phase's sources built and
+ * validated (open files, teardown position, shapes). Problems are reported on o.
+ * `check` calls it too, so a plan `check` accepts is one `run` accepts. Returns 0, or SQ_EINVAL /
+ * SQ_EPARSE / SQ_ELIMIT / SQ_EIO for a plan or environment problem, SQ_ENOMEM. */
+int run_check(const plan_t *plan, const run_opts_t *opts, out_t *o);
+
+/* Runs `plan` to the end (or until a signal, a brake, an unreachable target or a failure stops
+ * it), writes the results, and fills *result. Returns 0 when it ran (whatever its outcome), or
+ * run_check's codes when nothing was sent, SQ_EIO when the results directory cannot be made. */
+int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o, run_result_t *result);
+
+/* The run's seed: the option's, else the plan's, else the clock's. */
+uint64_t run_seed(const plan_t *plan, const run_opts_t *opts);
 
 #endif

@@ -180,6 +180,11 @@ size_t sched_fleet_due(sched_fleet_t *f, int64_t now_ns, int64_t *t_out, int *ag
  * aligned; for jitter a dry run of a copy (O(actions · log agents)). SQ_EINVAL or SQ_ENOMEM as
  * a negative value. */
 int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg);
+/* The fleet's planned actions in [t0, t1) (relative ns), from its own agents: exact for spread
+ * and aligned timing (every instant is fixed when the fleet is built; an aligned tick counts
+ * whole, all its agents at once), the expectation for jitter (each period is drawn as it goes;
+ * see fleet.c). Joins and leaves are counted. O(agents) per call; it does not move the fleet. */
+double sched_fleet_expected(const sched_fleet_t *f, int64_t t0_ns, int64_t t1_ns);
 /* The CLOCK_REALTIME-to-phase offset helper for aligned fleets: the first t >= 0 such that
  * realtime0 + t is a multiple of period. */
 int64_t sched_align_offset(int64_t realtime0_ns, int64_t period_ns);

@@ -1,12 +1,16 @@
-/* `squall check PLAN [--set K=V]...`: validate a plan and print what it would do, computed from
- * the plan alone (plan_estimate), without sending anything. */
+/* `squall check PLAN [--set K=V]...`: validate a plan exactly as `run` does before it sends
+ * (run_check) and print what it would do, from the sources' own models (src_estimate), without
+ * sending anything. */
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
 #include "squall/cli.h"
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/plan.h"
+#include "squall/run.h"
+#include "squall/source.h"
 
 /* 12300 -> "12,300"; values are expected counts, rounded to whole requests. */
 static const char *count_str(double v, char *buf, size_t len)
@@ -50,7 +54,7 @@ static void print_target(const plan_t *p, out_t *o)
     out_print(o, "\n");
 }
 
-static void print_shape(const plan_phase_t *ph, const plan_estimate_t *e, out_t *o)
+static void print_shape(const plan_phase_t *ph, const src_estimate_t *e, out_t *o)
 {
     const char *arr = ph->arrivals == PLAN_ARRIVALS_POISSON ? "poisson" : "even";
     if (ph->shape == PLAN_LOAD_CONSTANT)
@@ -88,11 +92,10 @@ static void print_shape(const plan_phase_t *ph, const plan_estimate_t *e, out_t 
                   ph->replay.speed);
 }
 
-static void print_phase(const plan_t *p, size_t i, out_t *o)
+static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, out_t *o)
 {
     const plan_phase_t *ph = &p->phases[i];
-    plan_estimate_t e;
-    plan_estimate(p, i, &e);
+    src_estimate_t e = est[i];
     char d[32], a[32], b[32], c[32];
     out_print(o, "\nphase %zu/%zu %s: %s\n", i + 1, p->n_phases, ph->name,
               e.open_ended ? "until done" : dur_str(e.duration_ns, d, sizeof d));
@@ -152,15 +155,14 @@ static void print_judges(const plan_t *p, out_t *o)
     }
 }
 
-static void print_summary(const plan_t *p, out_t *o)
+static void print_summary(const plan_t *p, const src_estimate_t *est, out_t *o)
 {
     print_target(p, o);
     double total = 0, peak = 0;
     int64_t dur = 0;
     for (size_t i = 0; i < p->n_phases; i++) {
-        print_phase(p, i, o);
-        plan_estimate_t e;
-        plan_estimate(p, i, &e);
+        print_phase(p, i, est, o);
+        src_estimate_t e = est[i];
         total += e.requests;
         peak = e.peak_rate > peak ? e.peak_rate : peak;
         dur += e.duration_ns;
@@ -177,6 +179,24 @@ static void print_summary(const plan_t *p, out_t *o)
                   "caution: %s is not loopback; `squall run` will refuse it without "
                   "--confirm-target. Make sure its owners know.\n",
                   p->target.host);
+}
+
+/* What `run` checks before it sends (the target's safety aside: check warns about that), then
+ * the estimates. The plan is freed. */
+static int validate_and_print(const char *path, plan_t *p, out_t *o)
+{
+    run_opts_t ro = {.confirm_target = true};
+    src_estimate_t *est = calloc(p->n_phases ? p->n_phases : 1, sizeof(*est));
+    int rc = est ? run_check(p, &ro, o) : SQ_ENOMEM;
+    if (rc == 0)
+        rc = src_estimate(p, run_seed(p, &ro), clock_real_ns(), o, est);
+    if (rc == 0) {
+        out_print(o, "plan     %s: valid\n", path);
+        print_summary(p, est, o);
+    }
+    free(est);
+    plan_free(p);
+    return rc;
 }
 
 static const cli_opt_t check_opts[] = {
@@ -223,14 +243,9 @@ static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     if (rc < 0) {
         plan_t *p;
         int err = plan_load(ca.path, ca.sets, ca.n, &p, o);
-        if (err) {
-            rc = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
-        } else {
-            out_print(o, "plan     %s: valid\n", ca.path);
-            print_summary(p, o);
-            plan_free(p);
-            rc = SQ_EXIT_OK;
-        }
+        if (err == 0)
+            err = validate_and_print(ca.path, p, o);
+        rc = err == 0 ? SQ_EXIT_OK : err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
     }
     for (size_t i = 0; ca.copies && i < ca.n; i++)
         free(ca.copies[i]);

@@ -9,8 +9,19 @@
 #include "squall/err.h"
 #include "squall/journal.h"
 #include "squall/plan.h"
+#include "squall/source.h"
 
-enum { OPT_CONFIRM, OPT_RATE, OPT_CONNECTIONS, OPT_DRY_RUN, OPT_INSECURE, OPT_CA, OPT_TOKEN_ENV };
+enum {
+    OPT_CONFIRM,
+    OPT_RATE,
+    OPT_CONNECTIONS,
+    OPT_DRY_RUN,
+    OPT_INSECURE,
+    OPT_CA,
+    OPT_TOKEN_ENV,
+    OPT_PLAN,
+    OPT_SET
+};
 
 static const cli_opt_t cleanup_opts[] = {
     [OPT_CONFIRM] = {"confirm-target", 0, NULL,
@@ -22,14 +33,20 @@ static const cli_opt_t cleanup_opts[] = {
     [OPT_CA] = {"ca", 0, "FILE", "CA certificates to verify the target with"},
     [OPT_TOKEN_ENV] = {"token-env", 0, "NAME",
                        "send the bearer token in environment variable NAME"},
+    [OPT_PLAN] = {"plan", 0, "PLAN.yaml",
+                  "the run's plan: its target's headers, TLS and token go with every delete"},
+    [OPT_SET] = {"set", 0, "KEY=VALUE", "override a value of --plan (repeatable)"},
     {NULL, 0, NULL, NULL},
 };
 
 typedef struct {
-    const char *input, *ca, *token_env;
+    const char *input, *ca, *token_env, *plan;
     bool confirm, dry_run, insecure;
     double rate;
     int connections;
+    plan_override_t sets[64];
+    char *copies[64];
+    size_t n_sets;
 } cleanup_args_t;
 
 /* True when the URL's host is 127.0.0.0/8, ::1 or localhost (as `squall run` decides). */
@@ -83,6 +100,16 @@ static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *
     case OPT_TOKEN_ENV:
         ca->token_env = v;
         break;
+    case OPT_PLAN:
+        ca->plan = v;
+        break;
+    case OPT_SET:
+        if (ca->n_sets == 64)
+            return cli_usage_error(cmd, o, "--set: at most 64 overrides");
+        if (plan_override_split(v, &ca->sets[ca->n_sets], &ca->copies[ca->n_sets]))
+            return cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
+        ca->n_sets++;
+        break;
     }
     return -1;
 }
@@ -94,6 +121,10 @@ static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, clea
     int rc = cli_parse(cmd, argc, argv, o, take_opt, ca);
     if (rc < 0 && !ca->input)
         return cli_usage_error(cmd, o, "which run? (expected RESULTS_DIR or a journal file)");
+    if (rc < 0 && ca->plan && (ca->ca || ca->token_env))
+        return cli_usage_error(cmd, o, "--plan gives TLS and the token: drop --ca and --token-env");
+    if (rc < 0 && !ca->plan && ca->n_sets)
+        return cli_usage_error(cmd, o, "--set overrides a value of --plan: give the plan too");
     return rc;
 }
 
@@ -101,6 +132,43 @@ typedef struct {
     journal_t *j;
     const journal_alive_t *alive;
 } cleanup_ctx_t;
+
+/* The engine settings of the deletes: the run's plan's target (headers, TLS, token, made by
+ * the same function a run uses), or the command line's --ca and --token-env. Always sent to
+ * the journal's target, which must be the plan's. Returns 0 or an exit code. */
+static int target_settings(const cleanup_args_t *ca, const char *url, out_t *o, plan_t **plan,
+                           src_target_t *t)
+{
+    memset(t, 0, sizeof(*t));
+    if (ca->plan) {
+        int rc = plan_load(ca->plan, ca->sets, ca->n_sets, plan, o);
+        if (rc)
+            return rc == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+        if (strcmp((*plan)->target.url, url)) {
+            out_error(o,
+                      "the journal's target is %s but the plan's is %s: give the plan of the "
+                      "run that wrote the journal (or --set target.url)",
+                      url, (*plan)->target.url);
+            return SQ_EXIT_USAGE;
+        }
+        if (src_target_init(t, *plan, ca->insecure, o))
+            return SQ_EXIT_USAGE;
+    } else {
+        if (ca->insecure)
+            out_warn(o, "TLS certificate verification is OFF: anyone on the path can read and "
+                        "change this traffic");
+        const char *token = ca->token_env ? getenv(ca->token_env) : NULL;
+        if (ca->token_env && (!token || !token[0])) {
+            out_error(o, "--token-env: environment variable %s is not set", ca->token_env);
+            return SQ_EXIT_USAGE;
+        }
+        t->eng = (eng_config_t){.ca_file = ca->ca, .insecure = ca->insecure, .bearer_token = token};
+    }
+    t->eng.base_url = url;
+    t->eng.connections = ca->connections;
+    t->eng.timeout_ms = t->eng.timeout_ms ? t->eng.timeout_ms : 10000;
+    return 0;
+}
 
 static void on_result(void *user, size_t i, const eng_result_t *res, enum journal_fate f)
 {
@@ -117,38 +185,34 @@ static int reap_alive(const cleanup_args_t *ca, const char *path, const journal_
     cleanup_ctx_t x = {.alive = al};
     if (journal_open(path, al->target, o, &x.j))
         return SQ_EXIT_FAILURE;
-    if (ca->insecure)
-        out_warn(o, "TLS certificate verification is OFF: anyone on the path can read and change "
-                    "this traffic");
-    const char *token = ca->token_env ? getenv(ca->token_env) : NULL;
-    if (ca->token_env && (!token || !token[0])) {
+    src_target_t tgt;
+    plan_t *plan = NULL;
+    int rc = target_settings(ca, al->target, o, &plan, &tgt);
+    if (rc) {
         journal_close(x.j);
-        out_error(o, "--token-env: environment variable %s is not set", ca->token_env);
-        return SQ_EXIT_USAGE;
+        return rc;
     }
-    eng_config_t ecfg = {.base_url = al->target,
-                         .connections = ca->connections,
-                         .timeout_ms = 10000,
-                         .ca_file = ca->ca,
-                         .insecure = ca->insecure,
-                         .bearer_token = token};
+    eng_config_t ecfg = tgt.eng;
     journal_reap_cfg_t cfg = {.rate = ca->rate,
                               .parallel = ca->connections,
                               .attempts = 4,
                               .on_result = on_result,
-                              .user = &x};
+                              .user = &x,
+                              .signals = true};
     double secs = ca->rate > 0 ? (double)al->n / ca->rate : (double)al->n / 1000;
     cfg.limit_ns = (int64_t)(secs * 2e9) + 30 * INT64_C(1000000000);
     enum journal_fate *fates = calloc(al->n ? al->n : 1, sizeof(*fates));
     journal_reap_counts_t c = {0};
     uv_loop_t loop;
-    int rc = fates ? uv_loop_init(&loop) : SQ_ENOMEM;
+    rc = fates ? uv_loop_init(&loop) : SQ_ENOMEM;
     if (rc == 0) {
         rc = journal_reap(&loop, &ecfg, o, &cfg, (const char *const *)al->paths, al->n, fates, &c);
         if (uv_loop_close(&loop))
             out_warn(o, "internal: event loop closed with handles still open");
     }
     free(fates);
+    src_target_close(&tgt);
+    plan_free(plan);
     if (journal_close(x.j))
         out_warn(o, "journal %s: not every deletion could be recorded", path);
     if (rc) {
@@ -203,6 +267,8 @@ static int cleanup_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         rc = reap_alive(&ca, path, &al, o);
     }
     journal_alive_close(&al);
+    for (size_t i = 0; i < ca.n_sets; i++)
+        free(ca.copies[i]);
     return rc;
 }
 
@@ -221,7 +287,11 @@ const cli_cmd_t cli_cmd_cleanup = {
         "\n"
         "Exit code 0 when nothing is left alive, 4 when the target is unreachable, 5 after a\n"
         "signal, 6 when some objects could not be deleted. Targets other than loopback are\n"
-        "refused without --confirm-target.",
+        "refused without --confirm-target.\n"
+        "\n"
+        "Give the run's plan with --plan (and its --set overrides) when the target needs\n"
+        "headers, TLS files or a token: the deletes then carry target.headers, target.tls and\n"
+        "target.token exactly as the run's requests did.",
     .opts = cleanup_opts,
     .main = cleanup_main,
 };

@@ -12,16 +12,8 @@
 #include <time.h>
 #include <unistd.h>
 
-#include "squall/cli.h"
+#include "cli_run.h"
 #include "squall/err.h"
-#include "squall/plan.h"
-#include "squall/run.h"
-
-static const cli_opt_t demo_opts[] = {
-    {"out", 'o', "DIR", "results directory (default results/<UTC time>-demo)"},
-    {"quiet", 'q', NULL, "no live line and no summary table"},
-    {NULL, 0, NULL, NULL},
-};
 
 /* A port that was free on 127.0.0.1 a moment ago (the kernel picks it). */
 static int free_port(void)
@@ -99,16 +91,22 @@ static const char *find_plan(char *buf, size_t cap)
     return access(buf, R_OK) == 0 ? buf : NULL;
 }
 
-static int demo_run(const char *plan_path, const run_opts_t *ro, out_t *o)
+/* The plan pointed at the target's port (after the user's own --set overrides). */
+static int demo_run(const char *plan_path, const cli_run_args_t *ra, out_t *o)
 {
     int port = free_port();
     if (port < 0)
         return out_error(o, "demo: no free loopback port"), SQ_EXIT_FAILURE;
     char url[64];
     snprintf(url, sizeof url, "http://127.0.0.1:%d", port);
-    plan_override_t set = {"target.url", url};
+    plan_override_t *sets = calloc(ra->n + 1, sizeof(*sets));
+    if (!sets)
+        return SQ_EXIT_FAILURE;
+    memcpy(sets, ra->sets, ra->n * sizeof(*sets));
+    sets[ra->n] = (plan_override_t){"target.url", url};
     plan_t *p;
-    int err = plan_load(plan_path, &set, 1, &p, o);
+    int err = plan_load(plan_path, sets, ra->n + 1, &p, o);
+    free(sets);
     if (err)
         return err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
     pid_t pid = target_spawn(port, o);
@@ -116,7 +114,7 @@ static int demo_run(const char *plan_path, const run_opts_t *ro, out_t *o)
     if (pid > 0) {
         out_info(o, "demo: the embedded target listens on %s (pid %d); running %s", url, (int)pid,
                  plan_path);
-        rc = run_plan(p, ro, o);
+        rc = cli_run_plan(p, &ra->ro, o);
         kill(pid, SIGTERM);
         waitpid(pid, NULL, 0);
     }
@@ -124,47 +122,30 @@ static int demo_run(const char *plan_path, const run_opts_t *ro, out_t *o)
     return rc;
 }
 
-typedef struct {
-    const char *plan_path;
-    run_opts_t ro;
-} demo_args_t;
-
-static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
-{
-    demo_args_t *da = ctx;
-    if (k == CLI_POSITIONAL)
-        return cli_take_one(cmd, &da->plan_path, v, "plan", o);
-    if (k == 0)
-        da->ro.results_dir = v;
-    else
-        da->ro.quiet = true;
-    return -1;
-}
-
 static int demo_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
-    demo_args_t da = {.ro = {.grace_ns = INT64_C(2000000000)}};
-    int rc = cli_parse(cmd, argc, argv, o, take_word, &da);
-    if (rc >= 0)
-        return rc;
-    const char *plan_path = da.plan_path;
-    run_opts_t ro = da.ro;
+    cli_run_args_t ra;
+    int rc = cli_run_args_init(&ra, argc) ? SQ_EXIT_FAILURE : -1;
+    if (rc < 0)
+        rc = cli_parse(cmd, argc, argv, o, cli_run_take, &ra);
     char buf[4200];
-    if (!plan_path && !(plan_path = find_plan(buf, sizeof buf)))
-        return cli_usage_error(cmd, o, "cannot find scenarios/demo.yaml; name a plan");
-    if (ro.quiet)
-        out_set_level(o, OUT_WARN);
-    return demo_run(plan_path, &ro, o);
+    const char *plan_path = ra.path;
+    if (rc < 0 && !plan_path && !(plan_path = find_plan(buf, sizeof buf)))
+        rc = cli_usage_error(cmd, o, "cannot find scenarios/demo.yaml; name a plan");
+    if (rc < 0)
+        rc = demo_run(plan_path, &ra, o);
+    cli_run_args_close(&ra);
+    return rc;
 }
 
 const cli_cmd_t cli_cmd_demo = {
     .name = "demo",
     .summary = "run the demo plan against the embedded target, all on loopback",
-    .usage = "[PLAN.yaml] [-o DIR] [--quiet]",
+    .usage = "[PLAN.yaml] [-o DIR] [--set KEY=VALUE]... [--keep] [run options]",
     .description =
         "Starts `squall serve` on a free 127.0.0.1 port, points the plan (default\n"
-        "scenarios/demo.yaml) at it with --set target.url, runs it like `squall run`, and stops\n"
-        "the target. Exit codes are those of `squall run`.",
-    .opts = demo_opts,
+        "scenarios/demo.yaml) at it with --set target.url, runs it like `squall run` (with\n"
+        "the same options), and stops the target. Exit codes are those of `squall run`.",
+    .opts = cli_run_opts,
     .main = demo_main,
 };

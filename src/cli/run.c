@@ -1,11 +1,10 @@
-/* `squall run PLAN`: load a plan, refuse unsafe targets, send its traffic, write the results. */
+/* `squall run PLAN`: load a plan, refuse unsafe targets, send its traffic, write the results.
+ * Its options and its exit codes are shared with `squall demo` (cli_run.h). */
 #include <stdlib.h>
 #include <string.h>
 
-#include "squall/cli.h"
+#include "cli_run.h"
 #include "squall/err.h"
-#include "squall/plan.h"
-#include "squall/run.h"
 
 enum {
     OPT_OUT,
@@ -20,7 +19,7 @@ enum {
     OPT_KEEP
 };
 
-static const cli_opt_t run_opts[] = {
+const cli_opt_t cli_run_opts[] = {
     [OPT_OUT] = {"out", 'o', "DIR", "results directory (default results/<UTC time>-<plan name>)"},
     [OPT_SET] = {"set", 0, "KEY=VALUE", "override a plan value, e.g. phases.steady.rate=100/s"},
     [OPT_CONFIRM] = {"confirm-target", 0, NULL,
@@ -36,14 +35,6 @@ static const cli_opt_t run_opts[] = {
     [OPT_KEEP] = {"keep", 0, NULL, "no teardown: leave the objects this run created"},
     {NULL, 0, NULL, NULL},
 };
-
-typedef struct {
-    const char *path;
-    plan_override_t *sets;
-    char **copies;
-    size_t n;
-    run_opts_t ro;
-} run_args_t;
 
 static int parse_shard(const char *v, run_opts_t *ro)
 {
@@ -61,10 +52,9 @@ static int parse_shard(const char *v, run_opts_t *ro)
     return 0;
 }
 
-/* One word of argv into *ra (cli_take_fn); returns -1 to go on, else an exit code. */
-static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
+int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
 {
-    run_args_t *ra = ctx;
+    cli_run_args_t *ra = ctx;
     int64_t ns;
     switch (k) {
     case CLI_POSITIONAL:
@@ -113,39 +103,71 @@ static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *
     return -1;
 }
 
-static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, run_args_t *ra)
+int cli_run_args_init(cli_run_args_t *ra, int argc)
 {
+    memset(ra, 0, sizeof(*ra));
     ra->sets = calloc((size_t)argc + 1, sizeof(*ra->sets));
     ra->copies = calloc((size_t)argc + 1, sizeof(*ra->copies));
-    if (!ra->sets || !ra->copies)
-        return SQ_EXIT_FAILURE;
     ra->ro.grace_ns = INT64_C(2000000000);
-    int rc = cli_parse(cmd, argc, argv, o, take_opt, ra);
-    if (rc < 0 && !ra->path)
-        return cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
-    return rc;
+    return ra->sets && ra->copies ? 0 : SQ_ENOMEM;
+}
+
+void cli_run_args_close(cli_run_args_t *ra)
+{
+    for (size_t i = 0; ra->copies && i < ra->n; i++)
+        free(ra->copies[i]);
+    free(ra->copies);
+    free(ra->sets);
+}
+
+int cli_run_exit(int rc, const run_result_t *res)
+{
+    if (rc)
+        return rc == SQ_ENOMEM || rc == SQ_EIO || rc == SQ_ELIBUV ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+    if (res->write_failed || res->end == RUN_END_FAILED)
+        return SQ_EXIT_FAILURE;
+    switch (res->end) {
+    case RUN_END_SIGNAL:
+        return SQ_EXIT_INTERRUPTED;
+    case RUN_END_BRAKE:
+        return SQ_EXIT_BRAKE;
+    case RUN_END_UNREACHABLE:
+        return SQ_EXIT_UNREACHABLE;
+    default:
+        return res->objectives_failed ? SQ_EXIT_OBJECTIVES : SQ_EXIT_OK;
+    }
+}
+
+int cli_run_plan(const plan_t *p, const run_opts_t *ro, out_t *o)
+{
+    run_result_t res;
+    if (ro->quiet)
+        out_set_level(o, OUT_WARN);
+    int rc = run_plan(p, ro, o, &res);
+    return cli_run_exit(rc, &res);
 }
 
 static int run_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
-    run_args_t ra = {0};
-    int rc = read_args(cmd, argc, argv, o, &ra);
+    cli_run_args_t ra;
+    if (cli_run_args_init(&ra, argc)) {
+        cli_run_args_close(&ra);
+        return SQ_EXIT_FAILURE;
+    }
+    int rc = cli_parse(cmd, argc, argv, o, cli_run_take, &ra);
+    if (rc < 0 && !ra.path)
+        rc = cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
     if (rc < 0) {
         plan_t *p;
         int err = plan_load(ra.path, ra.sets, ra.n, &p, o);
         if (err) {
             rc = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
         } else {
-            if (ra.ro.quiet)
-                out_set_level(o, OUT_WARN);
-            rc = run_plan(p, &ra.ro, o);
+            rc = cli_run_plan(p, &ra.ro, o);
             plan_free(p);
         }
     }
-    for (size_t i = 0; ra.copies && i < ra.n; i++)
-        free(ra.copies[i]);
-    free(ra.copies);
-    free(ra.sets);
+    cli_run_args_close(&ra);
     return rc;
 }
 
@@ -178,6 +200,6 @@ const cli_cmd_t cli_cmd_run = {
         "brakes (exit 3): on loopback, more than 10% errors over 10 s or no answer for 10 s;\n"
         "on other targets, more than 5% errors over 10 s, no answer for 5 s, or p99 above 5 s\n"
         "for 10 s. A plan brake replaces the default of its kind; --no-brakes drops them.",
-    .opts = run_opts,
+    .opts = cli_run_opts,
     .main = run_main,
 };

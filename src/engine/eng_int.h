@@ -65,6 +65,7 @@ struct eng {
 
     struct eng_xfer *queue_head, *queue_tail, *flight, *free_xfers;
     int queued, in_flight;
+    int max_queued, max_in_flight; /* peaks in the stats window */
     CURL **easy_pool;
     int n_easy_pool, easy_pool_cap;
 

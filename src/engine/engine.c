@@ -185,7 +185,8 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     else
         e->queue_head = x;
     e->queue_tail = x;
-    e->queued++;
+    if (++e->queued > e->max_queued)
+        e->max_queued = e->queued;
     e->submitted++;
     /* Admitting may not run inside a libcurl callback; the glue admits after it returns. */
     if (!e->in_curl)
@@ -239,7 +240,8 @@ static void flight_link(eng_t *e, struct eng_xfer *x)
     if (e->flight)
         e->flight->prev = x;
     e->flight = x;
-    e->in_flight++;
+    if (++e->in_flight > e->max_in_flight)
+        e->max_in_flight = e->in_flight;
 }
 
 static void flight_unlink(eng_t *e, struct eng_xfer *x)
@@ -400,6 +402,8 @@ void eng_stats(eng_t *e, eng_stats_t *st, bool reset_window)
     st->queued = e->queued;
     st->capacity = capacity(e);
     st->connections = e->n_socks;
+    st->max_in_flight = e->max_in_flight;
+    st->max_queued = e->max_queued;
     st->max_queue_wait_ns = e->max_queue_wait_ns;
     st->max_loop_busy_ns = e->max_busy_ns;
     st->loop_busy_ns = e->busy_ns;
@@ -412,6 +416,8 @@ void eng_stats(eng_t *e, eng_stats_t *st, bool reset_window)
     if (reset_window) {
         e->window_start_ns = now;
         e->max_queue_wait_ns = e->max_busy_ns = e->busy_ns = 0;
+        e->max_in_flight = e->in_flight;
+        e->max_queued = e->queued;
     }
 }
 

@@ -1,6 +1,7 @@
 /* The reaper: DELETE every listed path at a bounded rate over its own engine, retrying what the
  * target could not answer yet, until each object has a fate or a time limit, a signal or an
- * unreachable target stops it. Shared by a run's teardown and `squall cleanup`. */
+ * unreachable target stops it. A run's teardown drives it on the run's loop; `squall cleanup`
+ * runs it to the end with journal_reap. */
 #include <stdlib.h>
 #include <string.h>
 
@@ -11,14 +12,14 @@
 #define BACKOFF_CAP_NS  (2000 * INT64_C(1000000))
 #define RETRY_AFTER_CAP (30 * INT64_C(1000000000)) /* a longer Retry-After waits only this long */
 
-typedef struct reaper reaper_t;
+typedef struct journal_reaper reaper_t;
 
 typedef struct {
     reaper_t *rp;
     size_t i;
 } slot_t;
 
-struct reaper {
+struct journal_reaper {
     uv_loop_t *loop;
     eng_t *eng;
     uv_timer_t tick;
@@ -37,8 +38,27 @@ struct reaper {
     int in_flight;
     int64_t t0, deadline;
     bool stopping, finished;
+    int open;     /* our handles not yet closed */
+    bool release; /* journal_reaper_free was called: free once every handle closed */
     char why[160];
 };
+
+static void reaper_release(reaper_t *rp)
+{
+    free(rp->final);
+    free(rp->attempts);
+    free(rp->slots);
+    free(rp->retry);
+    free(rp->retry_due);
+    free(rp);
+}
+
+static void on_closed(uv_handle_t *h)
+{
+    reaper_t *rp = h->data;
+    if (--rp->open == 0 && rp->release)
+        reaper_release(rp);
+}
 
 static void set_final(reaper_t *rp, size_t i, enum journal_fate f)
 {
@@ -49,15 +69,23 @@ static void set_final(reaper_t *rp, size_t i, enum journal_fate f)
     rp->pending--;
 }
 
+static void close_handle(reaper_t *rp, uv_handle_t *h)
+{
+    if (h->loop && !uv_is_closing(h)) {
+        uv_close(h, on_closed);
+        rp->open++;
+    }
+}
+
 static void close_all(reaper_t *rp)
 {
     if (rp->finished)
         return;
     rp->finished = true;
     uv_timer_stop(&rp->tick);
-    uv_close((uv_handle_t *)&rp->tick, NULL);
-    uv_close((uv_handle_t *)&rp->sigint, NULL);
-    uv_close((uv_handle_t *)&rp->sigterm, NULL);
+    close_handle(rp, (uv_handle_t *)&rp->tick);
+    close_handle(rp, (uv_handle_t *)&rp->sigint);
+    close_handle(rp, (uv_handle_t *)&rp->sigterm);
     eng_free(rp->eng);
     rp->eng = NULL;
 }
@@ -65,7 +93,7 @@ static void close_all(reaper_t *rp)
 /* Stops at once: in-flight deletes are cancelled, everything without a fate is LEFT. */
 static void reap_stop(reaper_t *rp, const char *why)
 {
-    if (rp->stopping)
+    if (rp->stopping || rp->finished)
         return;
     rp->stopping = true;
     snprintf(rp->why, sizeof rp->why, "%s", why);
@@ -76,6 +104,8 @@ static void on_done(void *user, const eng_result_t *res);
 
 static int submit(reaper_t *rp, size_t i, int64_t intended)
 {
+    if (rp->cfg->on_submit)
+        rp->cfg->on_submit(rp->cfg->user, i);
     eng_req_t req = {
         .method = "DELETE",
         .path = rp->paths[i],
@@ -125,7 +155,7 @@ static void on_done(void *user, const eng_result_t *res)
     enum journal_fate f = judge(rp, s->i, res, &final);
     if (final)
         set_final(rp, s->i, f);
-    if (res->outcome != ENG_OUT_CANCELLED && rp->cfg->on_result)
+    if (rp->cfg->on_result)
         rp->cfg->on_result(rp->cfg->user, s->i, res, f);
 }
 
@@ -209,52 +239,90 @@ static int reaper_init(reaper_t *rp, const eng_config_t *ecfg)
     if (rc)
         return rc;
     uv_timer_init(rp->loop, &rp->tick);
-    uv_signal_init(rp->loop, &rp->sigint);
-    uv_signal_init(rp->loop, &rp->sigterm);
     rp->tick.data = rp->sigint.data = rp->sigterm.data = rp;
-    if (uv_signal_start(&rp->sigint, on_signal, SIGINT) ||
-        uv_signal_start(&rp->sigterm, on_signal, SIGTERM) ||
-        uv_timer_start(&rp->tick, on_tick, 1, 1)) {
+    rc = uv_timer_start(&rp->tick, on_tick, 1, 1);
+    if (rc == 0 && rp->cfg->signals) {
+        uv_signal_init(rp->loop, &rp->sigint);
+        uv_signal_init(rp->loop, &rp->sigterm);
+        rc = uv_signal_start(&rp->sigint, on_signal, SIGINT) ||
+             uv_signal_start(&rp->sigterm, on_signal, SIGTERM);
+    }
+    if (rc) {
         close_all(rp);
         return SQ_ELIBUV;
     }
     return 0;
 }
 
-static void reaper_free(reaper_t *rp)
+int journal_reaper_start(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o,
+                         const journal_reap_cfg_t *cfg, const char *const *paths, size_t n,
+                         enum journal_fate *fates, journal_reaper_t **out)
 {
-    free(rp->final);
-    free(rp->attempts);
-    free(rp->slots);
-    free(rp->retry);
-    free(rp->retry_due);
+    *out = NULL;
+    for (size_t i = 0; i < n; i++)
+        fates[i] = JOURNAL_LEFT;
+    reaper_t *rp = calloc(1, sizeof(*rp));
+    if (!rp)
+        return SQ_ENOMEM;
+    *rp = (reaper_t){
+        .loop = loop, .o = o, .cfg = cfg, .paths = paths, .n = n, .pending = n, .fates = fates};
+    rp->t0 = (int64_t)uv_hrtime();
+    rp->deadline = rp->t0 + cfg->limit_ns;
+    int rc = n ? reaper_init(rp, ecfg) : 0;
+    if (n == 0)
+        rp->finished = true;
+    *out = rp;
+    return rc;
+}
+
+void journal_reaper_stop(journal_reaper_t *rp, const char *why)
+{
+    if (rp)
+        reap_stop(rp, why);
+}
+
+bool journal_reaper_finished(const journal_reaper_t *rp)
+{
+    return !rp || rp->finished;
+}
+
+void journal_reaper_counts(const journal_reaper_t *rp, journal_reap_counts_t *counts)
+{
+    memset(counts, 0, sizeof(*counts));
+    if (!rp)
+        return;
+    for (size_t i = 0; i < rp->n; i++) {
+        counts->done += rp->fates[i] == JOURNAL_DONE;
+        counts->gone += rp->fates[i] == JOURNAL_GONE;
+        counts->refused += rp->fates[i] == JOURNAL_REFUSED;
+        counts->left += rp->fates[i] == JOURNAL_LEFT;
+    }
+    counts->elapsed_ns = (int64_t)uv_hrtime() - rp->t0;
+    snprintf(counts->why, sizeof counts->why, "%s", rp->why);
+}
+
+void journal_reaper_free(journal_reaper_t *rp)
+{
+    if (!rp)
+        return;
+    reap_stop(rp, "stopped");
+    close_all(rp);
+    rp->release = true;
+    if (rp->open == 0)
+        reaper_release(rp);
 }
 
 int journal_reap(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o, const journal_reap_cfg_t *cfg,
                  const char *const *paths, size_t n, enum journal_fate *fates,
                  journal_reap_counts_t *counts)
 {
-    memset(counts, 0, sizeof(*counts));
-    for (size_t i = 0; i < n; i++)
-        fates[i] = JOURNAL_LEFT;
-    if (n == 0)
-        return 0;
-    reaper_t rp = {
-        .loop = loop, .o = o, .cfg = cfg, .paths = paths, .n = n, .pending = n, .fates = fates};
-    int64_t start = (int64_t)uv_hrtime();
-    rp.t0 = start;
-    rp.deadline = start + cfg->limit_ns;
-    int rc = reaper_init(&rp, ecfg);
-    if (rc == 0 || rp.finished)
+    journal_reaper_t *rp;
+    int rc = journal_reaper_start(loop, ecfg, o, cfg, paths, n, fates, &rp);
+    if (rp && (rc == 0 || rp->finished))
         uv_run(loop, UV_RUN_DEFAULT);
-    for (size_t i = 0; i < n; i++) {
-        counts->done += fates[i] == JOURNAL_DONE;
-        counts->gone += fates[i] == JOURNAL_GONE;
-        counts->refused += fates[i] == JOURNAL_REFUSED;
-        counts->left += fates[i] == JOURNAL_LEFT;
-    }
-    counts->elapsed_ns = (int64_t)uv_hrtime() - start;
-    snprintf(counts->why, sizeof counts->why, "%s", rp.why);
-    reaper_free(&rp);
+    journal_reaper_counts(rp, counts);
+    journal_reaper_free(rp);
+    if (rp)
+        uv_run(loop, UV_RUN_DEFAULT); /* the close callbacks */
     return rc;
 }

@@ -2,6 +2,7 @@
 #include <string.h>
 
 #include "run_int.h"
+#include "squall/judge.h"
 
 static bool outcome_is_ok(const char *oc)
 {
@@ -14,7 +15,7 @@ static double ms(int64_t ns)
 }
 
 /* Sums every outcome of (phase, class) into h and the counters; false when nothing ran. */
-static bool gather(const runner_t *r, const char *phase, const char *cls, hist_t *h, hist_t *svc,
+static bool gather(const run_t *r, const char *phase, const char *cls, hist_t *h, hist_t *svc,
                    int64_t *count, int64_t *errors, int64_t *cancelled)
 {
     *count = *errors = *cancelled = 0;
@@ -43,17 +44,18 @@ static bool gather(const runner_t *r, const char *phase, const char *cls, hist_t
     return *count > 0 || *cancelled > 0;
 }
 
-static void row(runner_t *r, const run_phase_t *ph, const char *cls, hist_t *h, hist_t *svc)
+/* Requests per second are over the time the phase actually ran. */
+static void row(run_t *r, const judge_phase_t *ph, const char *cls, hist_t *h, hist_t *svc)
 {
     int64_t count, errors, cancelled;
-    if (!gather(r, ph->pp->name, cls, h, svc, &count, &errors, &cancelled))
+    if (!gather(r, ph->name, cls, h, svc, &count, &errors, &cancelled))
         return;
-    double secs = (double)ph->duration_ns / 1e9;
+    double secs = (double)ph->elapsed_ns / 1e9;
     char svc99[32] = "-";
     if (hist_count(svc))
         snprintf(svc99, sizeof svc99, "%.2f", ms(hist_value_at(svc, 99)));
-    out_print(r->o, "%-12s %-24s %8lld %8.1f %7lld %9.2f %9.2f %9.2f %9.2f %9s\n", ph->pp->name,
-              cls, (long long)count, secs > 0 ? (double)count / secs : 0.0, (long long)errors,
+    out_print(r->o, "%-12s %-24s %8lld %8.1f %7lld %9.2f %9.2f %9.2f %9.2f %9s\n", ph->name, cls,
+              (long long)count, secs > 0 ? (double)count / secs : 0.0, (long long)errors,
               ms(hist_value_at(h, 50)), ms(hist_value_at(h, 90)), ms(hist_value_at(h, 99)),
               ms(hist_max(h)), svc99);
     if (cancelled)
@@ -63,9 +65,9 @@ static void row(runner_t *r, const run_phase_t *ph, const char *cls, hist_t *h, 
 
 /* A watch class counts events, not requests: one line with its events and the p99 of its open
  * and propagation times. */
-static void watch_row(runner_t *r, const run_phase_t *ph, const char *cls)
+static void watch_row(run_t *r, const judge_phase_t *ph, const char *cls)
 {
-    results_cell_t *c = results_cell_find(r->res, ph->pp->name, cls, "2xx");
+    results_cell_t *c = results_cell_find(r->res, ph->name, cls, "2xx");
     if (!c)
         return;
     const hist_t *open = results_cell_hist_find(c, RESULTS_M_OPEN);
@@ -75,11 +77,32 @@ static void watch_row(runner_t *r, const run_phase_t *ph, const char *cls)
         snprintf(o99, sizeof o99, "%.2f ms", ms(hist_value_at(open, 99)));
     if (prop && hist_count(prop))
         snprintf(p99, sizeof p99, "%.2f ms", ms(hist_value_at(prop, 99)));
-    out_print(r->o, "%-12s %-24s %8lld events (watch); open p99 %s, propagation p99 %s\n",
-              ph->pp->name, cls, (long long)results_cell_counters(c)->count, o99, p99);
+    out_print(r->o, "%-12s %-24s %8lld events (watch); open p99 %s, propagation p99 %s\n", ph->name,
+              cls, (long long)results_cell_counters(c)->count, o99, p99);
 }
 
-void run_summary(runner_t *r, const char *dir)
+static void phase_rows(run_t *r, size_t p, const judge_phase_t *ph, hist_t *h, hist_t *svc)
+{
+    const plan_phase_t *pp = &r->plan->phases[p];
+    if (pp->clients.on)
+        out_print(r->o,
+                  "%-12s closed loop: %d clients, think %.0f ms (response time is "
+                  "from each client's next intended start)\n",
+                  pp->name, pp->clients.count, ms(pp->clients.think_ns));
+    for (size_t c = 0; c < r->plan->n_reqs; c++) {
+        const src_class_t *k = src_class(r->issuer, (int)c);
+        if (k->pr->kind == PLAN_WATCH)
+            watch_row(r, ph, k->pr->name);
+        else
+            row(r, ph, k->pr->name, h, svc);
+        if (k->paginate)
+            row(r, ph, k->all_name, h, svc);
+    }
+    if (pp->teardown.on)
+        row(r, ph, "teardown", h, svc);
+}
+
+void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j)
 {
     hist_t *h = NULL, *svc = NULL;
     if (hist_new_ns(&h) || hist_new_ns(&svc)) {
@@ -89,34 +112,23 @@ void run_summary(runner_t *r, const char *dir)
     out_print(r->o, "\nresponse time is measured from each request's intended start (ms)\n");
     out_print(r->o, "%-12s %-24s %8s %8s %7s %9s %9s %9s %9s %9s\n", "phase", "class", "requests",
               "per s", "errors", "p50", "p90", "p99", "max", "svc p99");
-    for (size_t p = 0; p < r->n_phases; p++) {
-        const plan_phase_t *pp = r->phases[p].pp;
-        if (pp->clients.on)
-            out_print(r->o,
-                      "%-12s closed loop: %d clients, think %.0f ms (response time is "
-                      "from each client's next intended start)\n",
-                      pp->name, pp->clients.count, ms(pp->clients.think_ns));
-        for (size_t c = 0; c < r->n_classes; c++) {
-            if (r->classes[c].pr->kind == PLAN_WATCH)
-                watch_row(r, &r->phases[p], r->classes[c].pr->name);
-            else
-                row(r, &r->phases[p], r->classes[c].pr->name, h, svc);
-            if (r->classes[c].paginate)
-                row(r, &r->phases[p], r->classes[c].all_name, h, svc);
-        }
-    }
+    for (size_t p = 0; p < r->plan->n_phases; p++)
+        phase_rows(r, p, &ph[p], h, svc);
     hist_free(h);
     hist_free(svc);
+    obs_totals_t t;
+    obs_totals(r->obs, &t);
     out_print(r->o, "\nsent %lld requests in %.1f s, %lld errors; schedule lag p99 %.2f ms\n",
-              (long long)r->total_started, (double)(r->run_end_ns - r->run_start_ns) / 1e9,
-              (long long)r->total_errors, ms(hist_value_at(r->sched_lag, 99)));
-    if (r->limited_seconds)
+              (long long)t.started, (double)(r->end_ns - r->start_ns) / 1e9, (long long)t.errors,
+              ms(hist_value_at(t.sched_lag, 99)));
+    if (t.limited_seconds)
         out_print(r->o,
                   "GENERATOR-LIMITED for %lld s (last: %s): the target was not offered the "
                   "planned load; the figures above are not a verdict on it\n",
-                  (long long)r->limited_seconds, r->limited_why);
-    run_verdict_print(r); /* judge: objective verdicts */
-    if (r->stop != RUN_STOP_NONE)
-        out_print(r->o, "stopped early: %s\n", r->stop_reason);
-    out_print(r->o, "results: %s/\n", dir);
+                  (long long)t.limited_seconds, t.limited_why);
+    if (j)
+        judge_print(j, r->o);
+    if (r->end != RUN_END_DONE)
+        out_print(r->o, "stopped early: %s\n", r->why);
+    out_print(r->o, "results: %s/\n", r->dir);
 }

@@ -15,6 +15,7 @@ typedef struct {
     int64_t prev;  /* its last action (jitter mode accumulates from it) */
     uint64_t k;    /* actions so far */
     int64_t end;   /* no action at or after it: the phase's end, or when the agent leaves */
+    int64_t join;  /* when it joins (its first action is at or after it) */
 } agent_t;
 
 struct sched_fleet {
@@ -85,6 +86,7 @@ static void setup_agents(sched_fleet_t *f)
         agent_t *a = &f->agents[i];
         a->period = (double)c->period_ns * (1 + c->drift * sym_unit(&f->rng));
         int64_t join = (int64_t)((double)c->join_ns * i / c->agents);
+        a->join = join;
         /* Agents leave in the order they joined, evenly over the last `leave` of the phase. */
         a->end = c->duration_ns - c->leave_ns + (int64_t)((double)c->leave_ns * i / c->agents);
         a->first = a->prev = first_action(f, i, join);
@@ -187,5 +189,57 @@ int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg)
             n += agent_count(&f->agents[i], f->agents[i].end);
     }
     sched_fleet_free(f);
+    return n;
+}
+
+/* Standard normal distribution function. */
+static double phi(double z)
+{
+    return 0.5 * erfc(-z / M_SQRT2);
+}
+
+/* Expected actions of one jitter agent before x: its k-th action (k >= 1) is at join plus k
+ * periods each stretched by 1 + U(-j, +j), so it has mean join + k·P and variance k·(P·j)²/3;
+ * by the central limit theorem P(S_k < x) is taken as Φ((x - join - k·P) / σ_k). The first
+ * action is at the join time itself. Terms beyond 8 σ of x are 0 or 1 to within 1e-15. */
+static double jitter_before(const agent_t *a, double jitter, int64_t x)
+{
+    if (x > a->end)
+        x = a->end;
+    if (a->join >= x)
+        return 0;
+    double p = a->period, sd1 = p * jitter / sqrt(3.0), rel = (double)(x - a->join);
+    double n = 1; /* the action at the join time */
+    for (int64_t k = 1;; k++) {
+        double mean = (double)k * p, sd = sd1 * sqrt((double)k);
+        if (sd == 0) {
+            if (mean >= rel)
+                break;
+            n += 1;
+        } else if (mean - 8 * sd >= rel) {
+            break;
+        } else {
+            n += mean + 8 * sd < rel ? 1 : phi((rel - mean) / sd);
+        }
+    }
+    return n;
+}
+
+/* Actions of one agent before x: exact for spread and aligned (their instants are fixed once
+ * the fleet is built), expected for jitter. */
+static double agent_before(const sched_fleet_t *f, const agent_t *a, int64_t x)
+{
+    if (f->cfg.timing == SCHED_JITTER)
+        return jitter_before(a, f->cfg.jitter, x);
+    return (double)agent_count(a, x < a->end ? x : a->end);
+}
+
+double sched_fleet_expected(const sched_fleet_t *f, int64_t t0_ns, int64_t t1_ns)
+{
+    double n = 0;
+    if (t1_ns <= t0_ns)
+        return 0;
+    for (int i = 0; i < f->cfg.agents; i++)
+        n += agent_before(f, &f->agents[i], t1_ns) - agent_before(f, &f->agents[i], t0_ns);
     return n;
 }

@@ -9,7 +9,7 @@ source "$SRCDIR/tests/integration/lib/port.sh"
 source "$SRCDIR/tests/integration/lib/run.sh"
 T="$BUILDDIR/life-nginx-dav"
 rm -rf "$T"
-mkdir -p "$T/www/gw" "$T/tmp"
+mkdir -p "$T/www/gw" "$T/www/tenant" "$T/tmp"
 PORT=$(free_port)
 USER_LINE=""
 [ "$(id -u)" = 0 ] && USER_LINE="user root root;"
@@ -27,6 +27,11 @@ http {
         listen 127.0.0.1:$PORT;
         root $T/www;
         location /gw/ { dav_methods PUT DELETE; create_full_put_path on; dav_access user:rw; }
+        # A tenant's files: every method, PUT and DELETE alike, needs the tenant's header.
+        location /tenant/ {
+            if (\$http_x_tenant != "north") { return 401; }
+            dav_methods PUT DELETE; create_full_put_path on; dav_access user:rw;
+        }
     }
 }
 CONF
@@ -74,4 +79,32 @@ expect "with --keep the 100 PUT files stay in the root ($(files) files)" \
 "$SQUALL" cleanup "$T/keep" >"$T/cleanup.out" 2>&1
 expect "squall cleanup deletes them (exit $?)" grep -q "100 alive: 100 deleted" "$T/cleanup.out"
 expect "and the root is back to $BEFORE file (has $(files))" test "$(files)" = "$BEFORE"
+
+# The target's headers go with every request the run sends, teardown deletes included, and
+# with `cleanup --plan`: nginx answers 401 to a DELETE without X-Tenant (its `if` above).
+tenant() { find "$T/www/tenant" -type f | wc -l; }
+cat >"$T/tenant.yaml" <<YAML
+target: {url: "http://127.0.0.1:$PORT", connections: 4, timeout: 2s, headers: {X-Tenant: north}}
+requests:
+  put-file: {kind: write, method: PUT, path: "/tenant/gw-{{seq}}.json",
+             body: '{"site":"north"}', creates: true}
+phases:
+  - {name: fill, rate: 50/s, duration: 1s, mix: {put-file: 1}}
+YAML
+run_plan "$T/tenant" "$T/tenant.yaml"
+rcheck "with the header every PUT is created: 50 x 201" \
+    "d['sections']['lifecycle']['created'] == 50" "$T/tenant"
+rcheck "and the teardown's DELETEs carry it too: all 50 deleted, none failed" \
+    "d['sections']['lifecycle']['teardown']['deleted'] == 50 and
+     d['sections']['lifecycle']['teardown']['failed'] == 0" "$T/tenant"
+expect "the tenant's directory is empty again (has $(tenant))" test "$(tenant)" = 0
+run_plan "$T/tenant-keep" "$T/tenant.yaml" --keep
+expect "with --keep the 50 tenant files stay ($(tenant))" test "$(tenant)" = 50
+"$SQUALL" cleanup "$T/tenant-keep" >"$T/cleanup-noplan.out" 2>&1
+expect "cleanup without the plan sends no header: nginx refuses all 50 (exit $?, 6)" \
+    grep -q "50 alive: 0 deleted, 0 already gone, 50 failed" "$T/cleanup-noplan.out"
+"$SQUALL" cleanup "$T/tenant-keep" --plan "$T/tenant.yaml" >"$T/cleanup-plan.out" 2>&1
+expect "cleanup --plan sends target.headers: all 50 deleted (exit $?)" \
+    grep -q "50 alive: 50 deleted" "$T/cleanup-plan.out"
+expect "and the tenant's directory is empty again (has $(tenant))" test "$(tenant)" = 0
 exit $FAILED

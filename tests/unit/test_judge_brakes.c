@@ -1,4 +1,4 @@
-/* Unit tests for the brakes in force (src/run/health.c): loose defaults for a loopback target,
+/* Unit tests for the brakes in force (src/observe/brakes.c): loose defaults for a loopback target,
  * stricter ones with a latency brake for any other (taken to be shared), a plan's own brake of
  * a kind replacing that default, and --no-brakes. Plans are only loaded: nothing is sent. */
 #include <setjmp.h>
@@ -12,8 +12,8 @@
 
 #include <cmocka.h>
 
-#include "../../src/run/run_int.h"
 #include "squall/err.h"
+#include "squall/observe.h"
 
 /* Loads a plan for `url` with the given brakes: YAML text (may be empty). */
 static plan_t *load(const char *url, const char *brakes)
@@ -38,14 +38,19 @@ static plan_t *load(const char *url, const char *brakes)
     return p;
 }
 
-/* The brakes run_health_init puts in force, as run_health_brakes_json reports them. */
+/* The brakes an observer list puts in force, as obs_brakes_json reports them. */
 static json_t *brakes(const plan_t *p, bool no_brakes)
 {
-    run_opts_t opts = {.no_brakes = no_brakes};
-    runner_t r = {.plan = p, .opts = &opts};
-    assert_int_equal(run_health_init(&r), 0);
-    json_t *j = run_health_brakes_json(&r);
-    run_health_close(&r);
+    results_t *res;
+    assert_int_equal(results_new(&res), 0);
+    out_t *o = out_new_capture();
+    obs_cfg_t cfg = {.plan = p, .res = res, .o = o, .quiet = true, .no_brakes = no_brakes};
+    obs_t *l;
+    assert_int_equal(obs_new(&cfg, &l), 0);
+    json_t *j = obs_brakes_json(l);
+    obs_free(l);
+    out_free(o);
+    results_free(res);
     return j;
 }
 

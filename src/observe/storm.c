@@ -1,12 +1,14 @@
 /* Storm reporting for fleet phases: per tick of each periodic action, how tightly the burst went
  * out (dispatch spread, first to last request written), how many of it were on the wire at once,
  * and the latency of requests inside bursts against those in the quiet time between them. */
+#include <errno.h>
 #include <jansson.h>
 #include <stdlib.h>
 #include <string.h>
 
-#include "run_int.h"
+#include "obs_int.h"
 #include "squall/err.h"
+#include "squall/sched.h"
 
 #define BINS 10 /* sub-intervals of a tick's window for its dispatch shape */
 
@@ -31,21 +33,31 @@ typedef struct {
     size_t n_ticks;
 } saction_t;
 
-struct run_storm {
+typedef struct {
+    const plan_t *plan;
+    out_t *o;
     saction_t *a;
     size_t n, cap;
     hist_t **burst, **quiet; /* per phase, created with its first storm action */
-};
+    int failed;              /* SQ_ENOMEM when an action could not be set up */
+} storm_t;
 
-static saction_t *action_add(runner_t *r)
+static int storm_new(const obs_cfg_t *cfg, void **self)
 {
-    struct run_storm *s = r->storm;
-    if (!s) {
-        s = r->storm = calloc(1, sizeof(*s));
-        if (!s || !(s->burst = calloc(r->n_phases, sizeof(hist_t *))) ||
-            !(s->quiet = calloc(r->n_phases, sizeof(hist_t *))))
-            return NULL;
-    }
+    storm_t *s = calloc(1, sizeof(*s));
+    if (!s)
+        return SQ_ENOMEM;
+    *self = s;
+    s->plan = cfg->plan;
+    s->o = cfg->o;
+    size_t n = cfg->plan->n_phases ? cfg->plan->n_phases : 1;
+    s->burst = calloc(n, sizeof(hist_t *));
+    s->quiet = calloc(n, sizeof(hist_t *));
+    return s->burst && s->quiet ? 0 : SQ_ENOMEM;
+}
+
+static saction_t *action_add(storm_t *s)
+{
     if (s->n == s->cap) {
         size_t cap = s->cap ? s->cap * 2 : 4;
         saction_t *a = realloc(s->a, cap * sizeof(*a));
@@ -59,33 +71,36 @@ static saction_t *action_add(runner_t *r)
     return a;
 }
 
-int run_storm_start(runner_t *r, size_t phase)
+/* A fleet phase starts: one action per class its agents send. Aligned ticks sit on wall-clock
+ * multiples of the period, so their offset from t = 0 follows from the wall clock then. */
+static void storm_phase(void *self, size_t phase, int64_t base_ns, int64_t realtime0_ns)
 {
-    run_phase_t *ph = &r->phases[phase];
-    const plan_phase_t *pp = ph->pp;
-    for (size_t k = 0; k < ph->n_fleet; k++) {
-        saction_t *a = action_add(r);
-        if (!a)
-            return SQ_ENOMEM;
+    storm_t *s = self;
+    if (phase >= s->plan->n_phases || !s->plan->phases[phase].fleet.on)
+        return;
+    const plan_phase_t *pp = &s->plan->phases[phase];
+    static const enum plan_timing none = PLAN_TIMING_SPREAD;
+    for (size_t k = 0; k < pp->fleet.n_send; k++) {
+        saction_t *a = action_add(s);
+        if (!a) {
+            s->failed = SQ_ENOMEM;
+            return;
+        }
         a->phase = phase;
-        a->cls = ph->fleet[k].cls;
+        a->cls = pp->fleet.send[k].cls.index;
         a->timing = pp->fleet.timing;
         a->period = pp->fleet.send[k].every_ns;
-        a->base = ph->base_ns;
-        a->n_ticks = (size_t)(ph->duration_ns / a->period) + 2;
+        a->base = base_ns;
+        a->n_ticks = (size_t)(pp->duration_ns / a->period) + 2;
         a->ticks = calloc(a->n_ticks, sizeof(*a->ticks));
-        if (!a->ticks)
-            return SQ_ENOMEM;
-        int64_t t0;
-        int agent;
-        /* Aligned ticks sit on wall-clock multiples of the period: the first action's offset. */
-        if (a->timing == PLAN_TIMING_ALIGNED && sched_fleet_peek(ph->fleet[k].sched, &t0, &agent))
-            a->offset = t0 % a->period;
-        if (a->timing != PLAN_TIMING_SPREAD && !r->storm->burst[phase] &&
-            (hist_new_ns(&r->storm->burst[phase]) || hist_new_ns(&r->storm->quiet[phase])))
-            return SQ_ENOMEM;
+        if (a->timing == PLAN_TIMING_ALIGNED)
+            a->offset = sched_align_offset(realtime0_ns, a->period);
+        if (!a->ticks || (a->timing != none && !s->burst[phase] &&
+                          (hist_new_ns(&s->burst[phase]) || hist_new_ns(&s->quiet[phase])))) {
+            s->failed = SQ_ENOMEM;
+            return;
+        }
     }
-    return 0;
 }
 
 /* The tick a start belongs to: aligned and jittered ticks are windows centred on base + offset
@@ -106,7 +121,7 @@ static int64_t window_start(const saction_t *a, int64_t k)
 
 /* A request is in a burst when its intended start falls between the first intended start and
  * the latest completion so far of the tick it falls in. */
-static bool in_burst(const struct run_storm *s, size_t phase, int64_t intended)
+static bool in_burst(const storm_t *s, size_t phase, int64_t intended)
 {
     for (size_t i = 0; i < s->n; i++) {
         const saction_t *a = &s->a[i];
@@ -142,22 +157,30 @@ static void action_record(saction_t *a, int64_t intended, const eng_result_t *re
         t->last_done = res->done_ns;
 }
 
-void run_storm_done(runner_t *r, int phase, int cls, int64_t intended, const eng_result_t *res)
+/* Every completion of a fleet phase: its action's record, and burst or quiet latency. */
+static void storm_done(void *self, const obs_done_t *d)
 {
-    struct run_storm *s = r->storm;
-    if (!s || res->outcome == ENG_OUT_CANCELLED)
+    storm_t *s = self;
+    const eng_result_t *res = d->res;
+    if (d->whole || d->phase >= s->plan->n_phases || res->outcome == ENG_OUT_CANCELLED)
         return;
-    bool mine = false;
+    size_t phase = d->phase;
+    bool mine = false, any = false;
     for (size_t i = 0; i < s->n; i++) {
         saction_t *a = &s->a[i];
-        if (a->phase == (size_t)phase && a->cls == cls && !mine) {
-            action_record(a, intended, res);
+        if (a->phase != phase)
+            continue;
+        any = true;
+        if (a->cls == d->cls && !mine) {
+            action_record(a, d->intended_ns, res);
             mine = a->timing != PLAN_TIMING_SPREAD;
         }
     }
-    hist_t *h = mine || in_burst(s, (size_t)phase, intended) ? s->burst[phase] : s->quiet[phase];
+    if (!any)
+        return;
+    hist_t *h = mine || in_burst(s, phase, d->intended_ns) ? s->burst[phase] : s->quiet[phase];
     if (h)
-        hist_record(h, res->done_ns - intended);
+        hist_record(h, res->done_ns - d->intended_ns);
 }
 
 /* ---- the report, once every request has finished ------------------------------------------- */
@@ -260,7 +283,7 @@ static const char *timing_name(enum plan_timing t)
     return t == PLAN_TIMING_ALIGNED ? "aligned" : t == PLAN_TIMING_JITTER ? "jitter" : "spread";
 }
 
-static json_t *action_json(const runner_t *r, const saction_t *a)
+static json_t *action_json(const storm_t *s, const saction_t *a)
 {
     size_t *order = NULL, *start = NULL;
     int64_t *buf = malloc(3 * (a->n ? a->n : 1) * sizeof(*buf));
@@ -283,7 +306,7 @@ static json_t *action_json(const runner_t *r, const saction_t *a)
     free(order);
     free(start);
     free(buf);
-    return json_pack("{s:s,s:s,s:I,s:I,s:I,s:I,s:i,s:o}", "class", r->classes[a->cls].pr->name,
+    return json_pack("{s:s,s:s,s:I,s:I,s:I,s:I,s:i,s:o}", "class", s->plan->reqs[a->cls].name,
                      "timing", timing_name(a->timing), "period_ns", (json_int_t)a->period,
                      "offset_ns", (json_int_t)a->offset, "max_dispatch_spread_ns",
                      (json_int_t)max_spread, "requests", (json_int_t)a->n, "max_peak_in_flight",
@@ -297,17 +320,14 @@ static json_t *hist_json(const hist_t *h)
                      "p99_ns", (json_int_t)hist_value_at(h, 99), "max_ns", (json_int_t)hist_max(h));
 }
 
-void run_storm_finish(runner_t *r)
+static json_t *storms_json(const storm_t *s)
 {
-    struct run_storm *s = r->storm;
-    if (!s || !s->n || !r->res)
-        return;
     json_t *sec = json_object();
-    for (size_t p = 0; sec && p < r->n_phases; p++) {
+    for (size_t p = 0; sec && p < s->plan->n_phases; p++) {
         json_t *actions = json_array();
         for (size_t i = 0; i < s->n; i++)
             if (s->a[i].phase == p)
-                json_array_append_new(actions, action_json(r, &s->a[i]));
+                json_array_append_new(actions, action_json(s, &s->a[i]));
         if (!json_array_size(actions)) {
             json_decref(actions);
             continue;
@@ -318,22 +338,82 @@ void run_storm_finish(runner_t *r)
             json_object_set_new(ph, "burst", hist_json(s->burst[p]));
             json_object_set_new(ph, "quiet", hist_json(s->quiet[p]));
         }
-        json_object_set_new(sec, r->plan->phases[p].name, ph);
+        json_object_set_new(sec, s->plan->phases[p].name, ph);
     }
-    results_set_section(r->res, "storms", sec);
+    return sec;
 }
 
-void run_storm_close(runner_t *r)
+/* ns in a JSON object as milliseconds for a CSV cell. */
+static double json_ms(const json_t *o, const char *key)
 {
-    struct run_storm *s = r->storm;
-    if (!s)
-        return;
+    return (double)json_integer_value(json_object_get(o, key)) / 1e6;
+}
+
+static void csv_action(FILE *f, const char *phase, json_t *a)
+{
+    size_t k;
+    json_t *t;
+    json_array_foreach(json_object_get(a, "ticks"), k, t)
+    {
+        fprintf(f, "%s,%s,%s,%.3f,%lld,%lld,%.3f,%.3f,%lld,%.3f,%.3f,%.3f,%.3f\n", phase,
+                json_string_value(json_object_get(a, "class")),
+                json_string_value(json_object_get(a, "timing")), json_ms(t, "t_ns") / 1e3,
+                (long long)json_integer_value(json_object_get(t, "requests")),
+                (long long)json_integer_value(json_object_get(t, "written")),
+                json_ms(t, "dispatch_spread_ns"), json_ms(t, "first_written_ns"),
+                (long long)json_integer_value(json_object_get(t, "peak_in_flight")),
+                json_ms(t, "burst_ns"), json_ms(t, "p50_ns"), json_ms(t, "p99_ns"),
+                json_ms(t, "max_ns"));
+    }
+}
+
+/* DIR/storms.csv: one row per fleet tick; tick_s counts from the start of its phase. */
+static int storms_csv(const storm_t *s, json_t *storms, const char *dir)
+{
+    char path[4096];
+    snprintf(path, sizeof path, "%s/storms.csv", dir);
+    FILE *f = fopen(path, "w");
+    if (!f) {
+        out_error(s->o, "cannot write %s: %s", path, strerror(errno));
+        return SQ_EIO;
+    }
+    fputs("phase,class,timing,tick_s,requests,written,dispatch_spread_ms,first_written_ms,"
+          "peak_in_flight,burst_ms,p50_ms,p99_ms,max_ms\n",
+          f);
+    const char *phase;
+    json_t *ph;
+    json_object_foreach(storms, phase, ph)
+    {
+        size_t i;
+        json_t *a;
+        json_array_foreach(json_object_get(ph, "actions"), i, a) csv_action(f, phase, a);
+    }
+    return fclose(f) == 0 ? 0 : SQ_EIO;
+}
+
+static int storm_finish(void *self, results_t *res, const char *dir)
+{
+    storm_t *s = self;
+    if (s->failed)
+        return s->failed;
+    if (!s->n)
+        return 0;
+    json_t *sec = storms_json(s);
+    if (!sec || results_set_section(res, "storms", sec))
+        return SQ_ENOMEM;
+    return dir ? storms_csv(s, results_section(res, "storms"), dir) : 0;
+}
+
+static void storm_free(void *self)
+{
+    storm_t *s = self;
     for (size_t i = 0; i < s->n; i++) {
         free(s->a[i].v);
         free(s->a[i].ticks);
     }
-    for (size_t p = 0; p < r->n_phases && s->burst; p++) {
-        hist_free(s->burst[p]);
+    for (size_t p = 0; p < s->plan->n_phases; p++) {
+        if (s->burst)
+            hist_free(s->burst[p]);
         if (s->quiet)
             hist_free(s->quiet[p]);
     }
@@ -341,5 +421,14 @@ void run_storm_close(runner_t *r)
     free(s->quiet);
     free(s->a);
     free(s);
-    r->storm = NULL;
 }
+
+static const obs_ops_t ops = {
+    .name = "storm",
+    .phase = storm_phase,
+    .done = storm_done,
+    .finish = storm_finish,
+    .free = storm_free,
+};
+
+const obs_entry_t obs_storm_entry = {.ops = &ops, .new = storm_new};

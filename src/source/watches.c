@@ -1,13 +1,14 @@
-/* A phase's watch streams in a run: opened at once or spread on their own engine, kept open for
- * the phase (reconnecting, resuming and re-listing as the class says), closed at its end, and
- * measured per class: open latency, events, bytes, drops, reconnects, propagation latency. */
+/* Watch streams: a phase's long-lived streams, opened at once or spread on an engine of their
+ * own, kept open for the phase (reconnecting, resuming and re-listing as the class says),
+ * closed at its end, and measured per class: open latency, events, bytes, drops, reconnects,
+ * propagation latency. */
 #include <jansson.h>
 #include <stdlib.h>
 #include <string.h>
 #include <sys/resource.h>
-#include <time.h>
 
-#include "run_int.h"
+#include "src_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/watch.h"
 
@@ -25,8 +26,10 @@ typedef struct {
     int64_t events_n, bytes, unparsed, oversize, server_errors, no_stamp, stamp_ahead;
 } wclass_t;
 
+typedef struct watches watches_t;
+
 typedef struct watcher {
-    struct run_watches *ws;
+    watches_t *ws;
     int index;
     wclass_t *wc;
     watch_stream_t st;
@@ -47,12 +50,12 @@ typedef struct watcher {
     char list_version[64];
 } watcher_t;
 
-struct run_watches {
-    runner_t *r;
-    const char *token;
-    json_t *section; /* {phase: {class: figures}}, copied into the results at each phase end */
+struct watches {
+    src_ctx_t ctx;
+    const plan_phase_t *pp;
+    rng_t rng;      /* reconnect delays */
+    tmpl_buf_t buf; /* rendered paths */
     bool active;
-    size_t phase;
     int64_t base_ns;
     eng_t *eng;
     watcher_t *w;
@@ -64,13 +67,6 @@ struct run_watches {
     int *log_attempt;
     size_t n_log;
 };
-
-static int64_t realtime_ns(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_REALTIME, &ts);
-    return (int64_t)ts.tv_sec * 1000000000 + ts.tv_nsec;
-}
 
 static int phase_watchers(const plan_phase_t *pp)
 {
@@ -92,8 +88,8 @@ static int64_t files_needed(const plan_t *p, int watchers)
     return conns + p->target.connections + FD_RESERVE;
 }
 
-/* Raises the soft open-files limit to the hard one and refuses a plan that needs more. */
-static int check_files(runner_t *r)
+/* Raises the soft open-files limit to the hard one and refuses a phase that needs more. */
+static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp)
 {
     struct rlimit rl;
     if (getrlimit(RLIMIT_NOFILE, &rl) != 0)
@@ -103,48 +99,23 @@ static int check_files(runner_t *r)
         setrlimit(RLIMIT_NOFILE, &rl);
         getrlimit(RLIMIT_NOFILE, &rl);
     }
-    int bad = 0;
-    for (size_t i = 0; i < r->plan->n_phases; i++) {
-        const plan_phase_t *pp = &r->plan->phases[i];
-        int64_t need = files_needed(r->plan, phase_watchers(pp));
-        if (rl.rlim_cur == RLIM_INFINITY || need <= (int64_t)rl.rlim_cur)
-            continue;
-        out_raw(r->o, OUT_ERROR,
-                "%s:%d:%d: error: phase '%s' opens %d watches, which need about %lld open files "
-                "over HTTP/%s, but this process may open at most %llu (RLIMIT_NOFILE hard limit); "
-                "use fewer watches per process (shards), or http: \"2\" to multiplex streams",
-                pp->pos.file, pp->pos.line, pp->pos.col, pp->name, phase_watchers(pp),
-                (long long)need, r->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1",
-                (unsigned long long)rl.rlim_cur);
-        bad = 1;
-    }
-    return bad ? SQ_ELIMIT : 0;
-}
-
-int run_watches_init(runner_t *r, const char *token)
-{
-    bool any = false;
-    for (size_t i = 0; i < r->plan->n_phases; i++)
-        any |= r->plan->phases[i].watches.n_sets > 0;
-    if (!any)
+    int64_t need = files_needed(ctx->plan, phase_watchers(pp));
+    if (rl.rlim_cur == RLIM_INFINITY || need <= (int64_t)rl.rlim_cur)
         return 0;
-    int rc = check_files(r);
-    if (rc)
-        return rc;
-    r->watches = calloc(1, sizeof(*r->watches));
-    if (!r->watches || !(r->watches->section = json_object()))
-        return SQ_ENOMEM;
-    r->watches->r = r;
-    r->watches->token = token;
-    return 0;
+    out_raw(ctx->o, OUT_ERROR,
+            "%s:%d:%d: error: phase '%s' opens %d watches, which need about %lld open files "
+            "over HTTP/%s, but this process may open at most %llu (RLIMIT_NOFILE hard limit); "
+            "use fewer watches per process (shards), or http: \"2\" to multiplex streams",
+            pp->pos.file, pp->pos.line, pp->pos.col, pp->name, phase_watchers(pp), (long long)need,
+            ctx->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1", (unsigned long long)rl.rlim_cur);
+    return SQ_ELIMIT;
 }
 
 /* ---- recording ------------------------------------------------------------------------- */
 
-static results_cell_t *cell(struct run_watches *ws, int cls, const char *outcome)
+static results_cell_t *cell(watches_t *ws, int cls, const char *outcome)
 {
-    runner_t *r = ws->r;
-    return results_cell(r->res, r->plan->phases[ws->phase].name, r->classes[cls].pr->name, outcome);
+    return obs_cell(ws->ctx.obs, ws->ctx.phase, cls, outcome);
 }
 
 static void hist_add(results_cell_t *c, enum results_metric m, int64_t v)
@@ -155,25 +126,21 @@ static void hist_add(results_cell_t *c, enum results_metric m, int64_t v)
 }
 
 /* One request of a watcher (a stream attempt or a relist page) ended with this outcome. */
-static void record_end(struct run_watches *ws, int cls, const eng_result_t *res, bool timed)
+static void record_end(watches_t *ws, int cls, const eng_result_t *res, bool timed)
 {
-    results_cell_t *c = cell(ws, cls, eng_outcome_name(res->outcome));
-    if (!c)
-        return;
-    results_counters_t *k = results_cell_counters(c);
-    k->count++;
-    k->bytes_in += res->bytes_in;
-    k->bytes_out += res->bytes_out;
-    if (timed) {
-        hist_add(c, RESULTS_M_RESPONSE, res->done_ns - res->intended_ns);
-        if (res->sent_ns)
-            hist_add(c, RESULTS_M_SERVICE, res->done_ns - res->sent_ns);
-    }
+    results_sample_t smp = {
+        .intended_ns = res->intended_ns,
+        .sent_ns = res->sent_ns,
+        .done_ns = timed ? res->done_ns : 0,
+        .bytes_in = res->bytes_in,
+        .bytes_out = res->bytes_out,
+    };
+    results_record(cell(ws, cls, eng_outcome_name(res->outcome)), &smp);
     if (res->status > 0)
-        ws->r->last_response_ns = res->done_ns;
+        obs_answered(ws->ctx.obs, res->done_ns);
 }
 
-static void log_reconnect(struct run_watches *ws, watcher_t *w, int64_t now, int64_t delay)
+static void log_reconnect(watches_t *ws, watcher_t *w, int64_t now, int64_t delay)
 {
     if (ws->n_log >= LOG_MAX)
         return;
@@ -214,7 +181,7 @@ static void on_event(void *user, const watch_event_t *ev)
 {
     watcher_t *w = user;
     wclass_t *wc = w->wc;
-    const plan_req_t *pr = w->ws->r->classes[wc->cls].pr;
+    const plan_req_t *pr = src_class(w->ws->ctx.issuer, wc->cls)->pr;
     watch_fields_t f = {0};
     if (pr->watch.framing != PLAN_FRAME_RAW &&
         watch_event_fields(ev->data, ev->len, pr->watch.version_key, pr->watch.stamp_key, &f))
@@ -249,7 +216,7 @@ static void on_event(void *user, const watch_event_t *ev)
         w->attempt_no_stamp++;
         return;
     }
-    int64_t d = realtime_ns() - f.stamp_ns;
+    int64_t d = clock_real_ns() - f.stamp_ns;
     if (d < 0)
         wc->stamp_ahead++; /* the writer's clock is ahead of ours: recorded as 0 */
     hist_add(wc->events, RESULTS_M_PROPAGATION, d);
@@ -261,7 +228,7 @@ static int on_data(void *user, const char *data, size_t len)
     if (!w->got_first) {
         w->got_first = true;
         w->first_byte_ns = (int64_t)uv_hrtime();
-        w->ws->r->last_response_ns = w->first_byte_ns; /* the target answers (brakes) */
+        obs_answered(w->ws->ctx.obs, w->first_byte_ns); /* the target answers (brakes) */
         watch_stream_set(&w->st, WATCH_OPEN);
     }
     w->wc->bytes += (int64_t)len;
@@ -274,7 +241,7 @@ static int on_data(void *user, const char *data, size_t len)
 
 /* ---- opening and ending streams -------------------------------------------------------------- */
 
-static void set_due(struct run_watches *ws, watcher_t *w, int64_t due)
+static void set_due(watches_t *ws, watcher_t *w, int64_t due)
 {
     w->due_ns = due;
     if (due < ws->next_due_ns)
@@ -283,9 +250,9 @@ static void set_due(struct run_watches *ws, watcher_t *w, int64_t due)
 
 static void on_stream_done(void *user, const eng_result_t *res);
 
-static int open_stream(struct run_watches *ws, watcher_t *w, int64_t intended)
+static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
 {
-    const run_class_t *c = &ws->r->classes[w->wc->cls];
+    const src_class_t *c = src_class(ws->ctx.issuer, w->wc->cls);
     bool sse = c->pr->watch.framing == PLAN_FRAME_SSE;
     char path[4096], leid[96];
     const char *headers[c->n_headers + 1];
@@ -325,14 +292,14 @@ static int open_stream(struct run_watches *ws, watcher_t *w, int64_t intended)
     return 0;
 }
 
-static int relist_page(struct run_watches *ws, watcher_t *w, const char *token, int64_t intended);
+static int relist_page(watches_t *ws, watcher_t *w, const char *token, int64_t intended);
 
 /* What a finished stream or relist leads to: a due time for the next request. */
-static void next_step(struct run_watches *ws, watcher_t *w, const watch_end_t *end, int64_t now)
+static void next_step(watches_t *ws, watcher_t *w, const watch_end_t *end, int64_t now)
 {
     int64_t delay = 0;
     bool was_relist = w->st.state == WATCH_RELISTING;
-    enum watch_action a = watch_stream_ended(&w->st, end, &ws->r->rng, &delay);
+    enum watch_action a = watch_stream_ended(&w->st, end, &ws->rng, &delay);
     if (a == WATCH_DO_NOTHING)
         return;
     w->due_relist = a == WATCH_DO_RELIST;
@@ -344,7 +311,7 @@ static void next_step(struct run_watches *ws, watcher_t *w, const watch_end_t *e
 static void on_stream_done(void *user, const eng_result_t *res)
 {
     watcher_t *w = user;
-    struct run_watches *ws = w->ws;
+    watches_t *ws = w->ws;
     w->busy = false;
     watch_framer_end(&w->fr);
     /* The 2xx cell counts events: a stream the server ended cleanly is counted in the section
@@ -374,7 +341,7 @@ static void on_stream_done(void *user, const eng_result_t *res)
 
 /* The version and continuation token of a list page (the watch class's version key; the list
  * class's token key). */
-static void page_fields(const run_class_t *lc, const char *vkey, const eng_result_t *res,
+static void page_fields(const src_class_t *lc, const char *vkey, const eng_result_t *res,
                         char *version, size_t vcap, char *token, size_t tcap)
 {
     json_t *doc = json_loadb(res->body ? res->body : "", res->body_len, 0, NULL);
@@ -392,9 +359,9 @@ static void page_fields(const run_class_t *lc, const char *vkey, const eng_resul
 static void on_relist_done(void *user, const eng_result_t *res)
 {
     watcher_t *w = user;
-    struct run_watches *ws = w->ws;
-    const run_class_t *wcl = &ws->r->classes[w->wc->cls];
-    const run_class_t *lc = &ws->r->classes[wcl->pr->watch.relist.index];
+    watches_t *ws = w->ws;
+    const src_class_t *wcl = src_class(ws->ctx.issuer, w->wc->cls);
+    const src_class_t *lc = src_class(ws->ctx.issuer, wcl->pr->watch.relist.index);
     w->busy = false;
     record_end(ws, wcl->pr->watch.relist.index, res, true);
     char version[64] = "", token[1024] = "";
@@ -417,12 +384,13 @@ static void on_relist_done(void *user, const eng_result_t *res)
 }
 
 /* Sends one page of the relist (token NULL for the first). */
-static int relist_page(struct run_watches *ws, watcher_t *w, const char *token, int64_t intended)
+static int relist_page(watches_t *ws, watcher_t *w, const char *token, int64_t intended)
 {
-    const run_class_t *lc = &ws->r->classes[ws->r->classes[w->wc->cls].pr->watch.relist.index];
+    const src_class_t *lc =
+        src_class(ws->ctx.issuer, src_class(ws->ctx.issuer, w->wc->cls)->pr->watch.relist.index);
     const plan_req_t *lp = lc->pr;
     char path[4096], esc[3072] = "";
-    if (token && !run_url_escape(token, esc, sizeof esc))
+    if (token && !src_url_escape(token, esc, sizeof esc))
         return SQ_ELIMIT;
     const char *sep = strchr(w->list_base, '?') ? "&" : "?";
     int n = snprintf(path, sizeof path, "%s", w->list_base);
@@ -452,18 +420,16 @@ static int relist_page(struct run_watches *ws, watcher_t *w, const char *token, 
 }
 
 /* Starts a relist: the list class's path rendered with the watcher's own draws. */
-static int relist_start(struct run_watches *ws, watcher_t *w, int64_t intended)
+static int relist_start(watches_t *ws, watcher_t *w, int64_t intended)
 {
-    runner_t *r = ws->r;
-    const run_class_t *lc = &r->classes[r->classes[w->wc->cls].pr->watch.relist.index];
+    int list = src_class(ws->ctx.issuer, w->wc->cls)->pr->watch.relist.index;
     rng_t draws = w->draws;
-    tmpl_ctx_t ctx = {
-        .agent = w->index, .seq = 0, .phase = r->plan->phases[ws->phase].name, .rng = &draws};
-    int rc = tmpl_render(lc->path, &ctx, &r->path_buf);
+    tmpl_ctx_t ctx = {.agent = w->index, .seq = 0, .phase = ws->ctx.name, .rng = &draws};
+    int rc = src_render_path(ws->ctx.issuer, list, &ctx, &ws->buf);
     if (rc)
         return rc;
     free(w->list_base);
-    if (!(w->list_base = strdup(r->path_buf.data)))
+    if (!(w->list_base = strdup(ws->buf.data)))
         return SQ_ENOMEM;
     w->pages = 0;
     w->list_version[0] = '\0';
@@ -474,50 +440,41 @@ static int relist_start(struct run_watches *ws, watcher_t *w, int64_t intended)
 
 /* ---- the phase ----------------------------------------------------------------------------- */
 
-static int watcher_init(struct run_watches *ws, watcher_t *w, wclass_t *wc, int index,
-                        uint64_t seed)
+static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, uint64_t seed)
 {
-    runner_t *r = ws->r;
-    const run_class_t *c = &r->classes[wc->cls];
+    const src_class_t *c = src_class(ws->ctx.issuer, wc->cls);
     w->ws = ws;
     w->wc = wc;
     w->index = index;
     w->log = -1;
     rng_seed(&w->draws, seed);
     rng_t draws = w->draws;
-    tmpl_ctx_t ctx = {
-        .agent = index, .seq = 0, .phase = r->plan->phases[ws->phase].name, .rng = &draws};
-    int rc = tmpl_render(c->path, &ctx, &r->path_buf);
+    tmpl_ctx_t ctx = {.agent = index, .seq = 0, .phase = ws->ctx.name, .rng = &draws};
+    int rc = src_render_path(ws->ctx.issuer, wc->cls, &ctx, &ws->buf);
     if (rc)
         return rc;
-    if (!(w->path = strdup(r->path_buf.data)))
+    if (!(w->path = strdup(ws->buf.data)))
         return SQ_ENOMEM;
     watch_stream_init(&w->st, c->pr, c->pr->watch.relist.index >= 0);
     watch_framer_init(&w->fr, c->pr->watch.framing, 0, on_event, w);
     return 0;
 }
 
-static int engine_new(struct run_watches *ws, int watchers)
+/* The plan's target, with one connection per stream over HTTP/1.1 and ceil(n / streams)
+ * connections over HTTP/2, no timeout (relists carry their class's). */
+static int engine_new(watches_t *ws, int watchers)
 {
-    const plan_target_t *t = &ws->r->plan->target;
+    const plan_target_t *t = &ws->ctx.plan->target;
     int per = t->streams ? t->streams : H2_STREAMS;
     int conns = t->http == PLAN_HTTP_2 ? (watchers + per - 1) / per : watchers;
-    eng_config_t cfg = {
-        .base_url = t->url,
-        .http = t->http == PLAN_HTTP_2 ? ENG_HTTP_2 : ENG_HTTP_1_1,
-        .connections = conns > 0 ? conns : 1,
-        .streams = per,
-        .timeout_ms = 0, /* watches have none; relists carry their class's */
-        .ca_file = t->tls.ca,
-        .cert_file = t->tls.cert,
-        .key_file = t->tls.key,
-        .insecure = t->tls.insecure || ws->r->opts->insecure,
-        .bearer_token = ws->token,
-    };
-    return eng_new(&ws->r->loop, &cfg, ws->r->o, &ws->eng);
+    eng_config_t cfg = ws->ctx.target->eng;
+    cfg.connections = conns > 0 ? conns : 1;
+    cfg.streams = per;
+    cfg.timeout_ms = 0;
+    return eng_new(ws->ctx.loop, &cfg, ws->ctx.o, &ws->eng);
 }
 
-static int phase_alloc(struct run_watches *ws, const plan_phase_t *pp, int n)
+static int phase_alloc(watches_t *ws, const plan_phase_t *pp, int n)
 {
     ws->w = calloc((size_t)n, sizeof(*ws->w));
     ws->wcs = calloc(pp->watches.n_sets, sizeof(*ws->wcs));
@@ -532,19 +489,29 @@ static int phase_alloc(struct run_watches *ws, const plan_phase_t *pp, int n)
     return 0;
 }
 
-int run_watches_start(runner_t *r, size_t phase)
+static bool watches_used_by(const plan_t *plan, const plan_phase_t *pp)
 {
-    struct run_watches *ws = r->watches;
-    const plan_phase_t *pp = &r->plan->phases[phase];
-    int n = phase_watchers(pp);
-    if (!ws || n == 0)
-        return 0;
-    ws->phase = phase;
-    ws->base_ns = r->phases[phase].base_ns;
-    int rc = phase_alloc(ws, pp, n);
-    if (rc == 0)
-        rc = engine_new(ws, n);
-    int index = 0;
+    (void)plan;
+    return pp->watches.n_sets > 0;
+}
+
+static int watches_new(const src_ctx_t *ctx, void **self)
+{
+    watches_t *ws = calloc(1, sizeof(*ws));
+    if (!ws)
+        return SQ_ENOMEM;
+    *self = ws;
+    ws->ctx = *ctx;
+    ws->pp = src_phase(ctx);
+    tmpl_buf_init(&ws->buf);
+    rng_seed(&ws->rng, src_seed(ctx, SRC_STREAM_BACKOFF));
+    return check_files(ctx, ws->pp);
+}
+
+static int watchers_init(watches_t *ws)
+{
+    const plan_phase_t *pp = ws->pp;
+    int n = phase_watchers(pp), index = 0, rc = 0;
     for (size_t k = 0; rc == 0 && k < pp->watches.n_sets; k++) {
         wclass_t *wc = &ws->wcs[ws->n_wc++];
         wc->cls = pp->watches.sets[k].cls.index;
@@ -552,25 +519,50 @@ int run_watches_start(runner_t *r, size_t phase)
         wc->events = cell(ws, wc->cls, "2xx"); /* a watch class's 2xx cell counts events */
         for (int j = 0; rc == 0 && j < wc->streams; j++, index++) {
             rc = watcher_init(ws, &ws->w[index], wc, index,
-                              sched_seed(r->seed, (uint32_t)phase, 1000u + (uint32_t)index));
+                              src_seed(&ws->ctx, SRC_STREAM_WATCH + (uint32_t)index));
             ws->n = (size_t)index + 1;
             /* Spread: watcher i opens at i * spread / n, evenly over the window. */
             ws->w[index].due_ns =
                 ws->base_ns + (int64_t)((double)pp->watches.spread_ns * index / n);
         }
     }
-    ws->next_due_ns = ws->base_ns;
-    ws->active = rc == 0;
-    if (rc)
-        out_error(r->o, "phase '%s': cannot set up its watches: %s", pp->name, sq_strerror(rc));
     return rc;
 }
 
-void run_watches_tick(runner_t *r, int64_t now_ns)
+static int watches_start(void *self, src_t *me)
 {
-    struct run_watches *ws = r->watches;
-    if (!ws || !ws->active || now_ns < ws->next_due_ns)
-        return;
+    (void)me;
+    watches_t *ws = self;
+    int n = phase_watchers(ws->pp);
+    ws->base_ns = ws->ctx.base_ns;
+    int rc = phase_alloc(ws, ws->pp, n);
+    if (rc == 0)
+        rc = engine_new(ws, n);
+    if (rc == 0)
+        rc = watchers_init(ws);
+    ws->next_due_ns = ws->base_ns;
+    ws->active = rc == 0;
+    if (rc)
+        out_error(ws->ctx.o, "phase '%s': cannot set up its watches: %s", ws->pp->name,
+                  sq_strerror(rc));
+    return rc;
+}
+
+static bool watches_next(const void *self, int64_t *at_ns)
+{
+    const watches_t *ws = self;
+    if (!ws->active || ws->next_due_ns == INT64_MAX)
+        return false;
+    *at_ns = ws->next_due_ns;
+    return true;
+}
+
+/* Opens, reconnects and relists that are due. */
+static int watches_due(void *self, int64_t now_ns)
+{
+    watches_t *ws = self;
+    if (!ws->active || now_ns < ws->next_due_ns)
+        return 0;
     int64_t next = INT64_MAX;
     for (size_t i = 0; i < ws->n; i++) {
         watcher_t *w = &ws->w[i];
@@ -583,7 +575,7 @@ void run_watches_tick(runner_t *r, int64_t now_ns)
         }
         int rc = w->due_relist ? relist_start(ws, w, w->due_ns) : open_stream(ws, w, w->due_ns);
         if (rc == SQ_ESTOPPED)
-            return;
+            return 0;
         if (rc) {
             /* Counted as a failed attempt; the stream tries again after its backoff. */
             watch_end_t end = {.transport = true};
@@ -592,6 +584,19 @@ void run_watches_tick(runner_t *r, int64_t now_ns)
         }
     }
     ws->next_due_ns = next;
+    return 0;
+}
+
+/* Streams opened: each watch set's count (streams, not requests; the estimate says so). */
+static double watches_expected(const void *self, int64_t t0, int64_t t1, double *per_class)
+{
+    const watches_t *ws = self;
+    if (!per_class || t0 > 0 || t1 <= 0)
+        return 0;
+    for (size_t k = 0; k < ws->pp->watches.n_sets; k++)
+        if (ws->pp->watches.sets[k].cls.index >= 0)
+            per_class[ws->pp->watches.sets[k].cls.index] += ws->pp->watches.sets[k].count;
+    return 0;
 }
 
 /* ---- the end of a phase ------------------------------------------------------------------ */
@@ -605,7 +610,7 @@ static json_t *int_array(const int64_t *v, size_t n)
 }
 
 /* The phase's figures per class, summed over its watchers. */
-static json_t *class_json(struct run_watches *ws, const wclass_t *wc)
+static json_t *class_json(watches_t *ws, const wclass_t *wc)
 {
     int64_t opens = 0, drops = 0, reconnects = 0, relists = 0, too_old = 0, dup = 0, over = 0;
     for (size_t i = 0; i < ws->n; i++) {
@@ -627,17 +632,17 @@ static json_t *class_json(struct run_watches *ws, const wclass_t *wc)
                      (json_int_t)too_old, "duplicates", (json_int_t)dup, "oversize",
                      (json_int_t)over, "unparsed", (json_int_t)wc->unparsed, "server_errors",
                      (json_int_t)wc->server_errors, "no_stamp", (json_int_t)wc->no_stamp, "policy",
-                     plan_backoff_name(ws->r->classes[wc->cls].pr->watch.policy));
+                     plan_backoff_name(src_class(ws->ctx.issuer, wc->cls)->pr->watch.policy));
 }
 
-static json_t *phase_json(struct run_watches *ws)
+static json_t *phase_json(watches_t *ws)
 {
     json_t *ph = json_object();
     json_t *classes = json_object();
     for (size_t k = 0; k < ws->n_wc; k++) {
         json_t *cj = class_json(ws, &ws->wcs[k]);
         if (cj)
-            json_object_set_new(classes, ws->r->classes[ws->wcs[k].cls].pr->name, cj);
+            json_object_set_new(classes, ws->ctx.plan->reqs[ws->wcs[k].cls].name, cj);
     }
     json_t *attempt = json_array();
     for (size_t i = 0; attempt && i < ws->n_log; i++)
@@ -652,7 +657,7 @@ static json_t *phase_json(struct run_watches *ws)
     return ph;
 }
 
-static void phase_free(struct run_watches *ws)
+static void phase_free(watches_t *ws)
 {
     for (size_t i = 0; i < ws->n; i++) {
         watch_framer_close(&ws->w[i].fr);
@@ -672,31 +677,40 @@ static void phase_free(struct run_watches *ws)
     ws->n = ws->n_wc = ws->n_log = 0;
 }
 
-void run_watches_stop(runner_t *r)
+/* The phase's end: every stream closes (as "cancelled", a watch's natural end), and the
+ * phase's figures join the "watches" section. */
+static void watches_stop(void *self)
 {
-    struct run_watches *ws = r->watches;
-    if (!ws || (!ws->active && !ws->eng))
+    watches_t *ws = self;
+    if (!ws->active && !ws->eng)
         return;
     ws->active = false;
     for (size_t i = 0; i < ws->n; i++)
         watch_stream_set(&ws->w[i].st, WATCH_CLOSED);
-    /* Every stream still open ends here as "cancelled": the phase's natural end of a watch. */
     eng_free(ws->eng);
     ws->eng = NULL;
     json_t *ph = phase_json(ws);
     if (ph)
-        json_object_set_new(ws->section, r->plan->phases[ws->phase].name, ph);
-    results_set_section(r->res, "watches", json_deep_copy(ws->section));
-    phase_free(ws);
+        obs_section_put(ws->ctx.obs, "watches", ws->ctx.name, ph);
 }
 
-void run_watches_close(runner_t *r)
+static void watches_free(void *self)
 {
-    struct run_watches *ws = r->watches;
-    if (!ws)
-        return;
+    watches_t *ws = self;
+    eng_free(ws->eng);
     phase_free(ws);
-    json_decref(ws->section);
+    tmpl_buf_close(&ws->buf);
     free(ws);
-    r->watches = NULL;
 }
+
+const src_ops_t src_watches_ops = {
+    .name = "watches",
+    .used_by = watches_used_by,
+    .new = watches_new,
+    .start = watches_start,
+    .next = watches_next,
+    .due = watches_due,
+    .expected = watches_expected,
+    .stop = watches_stop,
+    .free = watches_free,
+};

@@ -1,0 +1,31 @@
+/* What `squall run` and `squall demo` share: the run's options, their parsing, and the one
+ * place where a run's outcome becomes an exit code. */
+#ifndef SQUALL_CLI_RUN_H
+#define SQUALL_CLI_RUN_H
+
+#include "squall/cli.h"
+#include "squall/plan.h"
+#include "squall/run.h"
+
+typedef struct {
+    const char *path; /* the plan */
+    plan_override_t *sets;
+    char **copies; /* KEY=VALUE copies split at '=' */
+    size_t n;
+    run_opts_t ro;
+} cli_run_args_t;
+
+/* The options of `run` (and `demo`), terminated by an entry with name == NULL. */
+extern const cli_opt_t cli_run_opts[];
+
+/* Sizes the argument holders for argc words; SQ_ENOMEM. Close it in any case. */
+int cli_run_args_init(cli_run_args_t *ra, int argc);
+void cli_run_args_close(cli_run_args_t *ra);
+/* A cli_take_fn over cli_run_opts into a cli_run_args_t (the positional word is the plan). */
+int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx);
+/* The exit code of run_plan's return code and result (enum sq_exit). */
+int cli_run_exit(int rc, const run_result_t *res);
+/* Runs the plan with the options and returns the exit code. */
+int cli_run_plan(const plan_t *p, const run_opts_t *ro, out_t *o);
+
+#endif

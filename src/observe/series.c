@@ -1,0 +1,94 @@
+/* series.csv: one row per phase x class x second. A second in which a phase ends has rows for
+ * both phases, each holding exactly its own requests (a request belongs to the phase that
+ * started it); the teardown has rows of its own. */
+#include <errno.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "obs_int.h"
+#include "squall/err.h"
+
+typedef struct {
+    const plan_t *plan;
+    out_t *o;
+    FILE *f;
+} series_t;
+
+static void series_free(void *self)
+{
+    series_t *s = self;
+    if (s->f)
+        fclose(s->f);
+    free(s);
+}
+
+static int series_new(const obs_cfg_t *cfg, void **self)
+{
+    series_t *s = calloc(1, sizeof(*s));
+    if (!s)
+        return SQ_ENOMEM;
+    *self = s;
+    s->plan = cfg->plan;
+    s->o = cfg->o;
+    return 0;
+}
+
+static int series_open(void *self, const char *dir)
+{
+    series_t *s = self;
+    char path[4096];
+    snprintf(path, sizeof path, "%s/series.csv", dir);
+    if (!(s->f = fopen(path, "w"))) {
+        out_error(s->o, "cannot write %s: %s", path, strerror(errno));
+        return SQ_EIO;
+    }
+    /* Times in milliseconds; `second` counts from the start of the run. */
+    fputs("second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,"
+          "planned\n",
+          s->f);
+    return 0;
+}
+
+static double ms(int64_t ns)
+{
+    return (double)ns / 1e6;
+}
+
+static void series_second(void *self, const obs_second_t *w)
+{
+    series_t *s = self;
+    if (!s->f)
+        return;
+    for (size_t i = 0; i < w->n_cells; i++) {
+        const obs_cell_t *c = &w->cells[i];
+        const hist_t *h = c->response;
+        bool any = h && c->completed > 0;
+        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f\n",
+                (long long)w->index, obs_phase_name(s->plan, c->phase),
+                obs_class_name(s->plan, c->cls), (long long)c->started, (long long)c->completed,
+                (double)c->completed / w->secs, (long long)c->errors,
+                any ? ms(hist_value_at(h, 50)) : 0.0, any ? ms(hist_value_at(h, 90)) : 0.0,
+                any ? ms(hist_value_at(h, 99)) : 0.0, any ? ms(hist_max(h)) : 0.0, c->planned);
+    }
+    fflush(s->f);
+}
+
+static int series_finish(void *self, results_t *res, const char *dir)
+{
+    (void)res;
+    (void)dir;
+    series_t *s = self;
+    int rc = s->f && fclose(s->f) != 0 ? SQ_EIO : 0;
+    s->f = NULL;
+    return rc;
+}
+
+static const obs_ops_t ops = {
+    .name = "series",
+    .open = series_open,
+    .second = series_second,
+    .finish = series_finish,
+    .free = series_free,
+};
+
+const obs_entry_t obs_series_entry = {.ops = &ops, .new = series_new};

@@ -1,0 +1,109 @@
+/* After the loop: every source's and observer's figures into the results, the phases as they
+ * ran, the objectives judged, results.json and report.html written, the summary printed. */
+#include <stdlib.h>
+#include <string.h>
+
+#include "run_int.h"
+#include "squall/err.h"
+#include "squall/judge.h"
+#include "squall/report.h"
+
+/* Each plan phase's elapsed time: from its start to when it stopped starting requests (its
+ * planned end, or the moment a signal, a brake or a failure stopped it); 0 if never started. */
+static judge_phase_t *phase_times(const run_t *r)
+{
+    size_t n = r->plan->n_phases;
+    judge_phase_t *ph = calloc(n ? n : 1, sizeof(*ph));
+    for (size_t i = 0; ph && i < n; i++) {
+        const run_phase_t *p = &r->phases[i];
+        ph[i].name = p->name;
+        if (!p->started)
+            continue;
+        int64_t end = p->ended_ns ? p->ended_ns : r->end_ns;
+        int64_t ran = end - p->base_ns;
+        if (p->duration_ns && ran > p->duration_ns)
+            ran = p->duration_ns;
+        ph[i].elapsed_ns = ran > 0 ? ran : 0;
+    }
+    return ph;
+}
+
+/* {"phases": [{name, start_s, elapsed_s}]}: seconds from the run's start, for reports. */
+static json_t *phases_json(const run_t *r, const judge_phase_t *ph)
+{
+    json_t *list = json_array();
+    for (size_t i = 0; list && i < r->plan->n_phases; i++) {
+        const run_phase_t *p = &r->phases[i];
+        double start = p->started ? (double)(p->base_ns - r->start_ns) / 1e9 : 0;
+        json_array_append_new(list, json_pack("{s:s, s:f, s:f}", "name", ph[i].name, "start_s",
+                                              start, "elapsed_s", (double)ph[i].elapsed_ns / 1e9));
+    }
+    return json_pack("{s:o}", "phases", list);
+}
+
+/* The phases objectives judge: the plan's load phases; a teardown phase only when an
+ * objective names it (its deletes are the run's own housekeeping, not the plan's traffic). */
+static size_t judged_phases(const run_t *r)
+{
+    const plan_t *p = r->plan;
+    size_t n = p->n_phases;
+    if (n == 0 || !p->phases[n - 1].teardown.on)
+        return n;
+    for (size_t i = 0; i < p->n_objectives; i++)
+        if (p->objectives[i].phase.index == (int)n - 1)
+            return n;
+    return n - 1;
+}
+
+/* The sections every run has, and the objectives judged; *j is the verdict (NULL on error). */
+static int judge(run_t *r, const judge_phase_t *ph, judge_t **j)
+{
+    int rc =
+        judge_evaluate(r->plan->objectives, r->plan->n_objectives, r->res, ph, judged_phases(r), j);
+    if (rc == 0 && r->start_ns)
+        rc = results_set_section(r->res, "phases", phases_json(r, ph));
+    if (rc == 0)
+        rc = results_set_section(r->res, "brakes", obs_brakes_json(r->obs));
+    if (rc == 0 && r->plan->n_objectives)
+        rc = results_set_section(r->res, JUDGE_SECTION, judge_json(*j));
+    if (rc)
+        out_error(r->o, "objectives could not be judged: %s", sq_strerror(rc));
+    return rc;
+}
+
+/* Every source's and observer's own figures, the sources' first (the teardown's figures go
+ * into the ledger's section). */
+static int sections(run_t *r)
+{
+    int rc = 0;
+    for (size_t i = 0; i < r->n_phases; i++) {
+        run_phase_t *p = &r->phases[i];
+        for (size_t k = 0; p->started && k < p->n_src; k++) {
+            int e = p->src[k].ops->finish ? p->src[k].ops->finish(p->src[k].self, r->res) : 0;
+            rc = rc ? rc : e;
+        }
+    }
+    int e = obs_finish(r->obs, r->dir);
+    return rc ? rc : e;
+}
+
+void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j);
+
+bool run_finish(run_t *r, bool *objectives_failed)
+{
+    results_set_duration(r->res, r->end_ns - r->start_ns);
+    if (r->end != RUN_END_DONE)
+        results_set_stopped(r->res, r->why);
+    bool failed = sections(r) != 0;
+    judge_phase_t *ph = phase_times(r);
+    judge_t *j = NULL;
+    failed |= !ph || judge(r, ph, &j) != 0;
+    *objectives_failed = !j || judge_failed(j);
+    failed |= results_write_dir(r->res, r->dir, r->o) != 0;
+    failed |= report_html_write_dir(r->dir, r->res, r->o) != 0;
+    if (!r->opts->quiet && ph)
+        run_summary(r, ph, j);
+    judge_free(j);
+    free(ph);
+    return failed;
+}

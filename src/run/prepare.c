@@ -1,0 +1,157 @@
+/* Before anything is sent: the target's safety, engine settings, templates, every phase's
+ * sources built and validated. `check` runs exactly this, so what it accepts `run` accepts. */
+#include <stdlib.h>
+#include <string.h>
+
+#include "run_int.h"
+#include "squall/clock.h"
+#include "squall/err.h"
+
+uint64_t run_seed(const plan_t *plan, const run_opts_t *opts)
+{
+    if (opts->has_seed)
+        return opts->seed;
+    return plan->has_seed ? plan->seed : (uint64_t)clock_real_ns();
+}
+
+src_ctx_t run_src_ctx(const run_t *r, size_t phase)
+{
+    const run_phase_t *ph = &r->phases[phase];
+    return (src_ctx_t){
+        .plan = r->plan,
+        .phase = phase,
+        .name = ph->name,
+        .duration_ns = ph->duration_ns,
+        .base_ns = ph->base_ns,
+        .realtime0_ns = ph->realtime0_ns,
+        .seed = r->seed,
+        .stopped = r->end != RUN_END_DONE,
+        .keep = r->opts->keep,
+        .loop = (uv_loop_t *)&r->loop,
+        .target = &r->target,
+        .issuer = r->issuer,
+        .obs = r->obs,
+        .o = r->o,
+    };
+}
+
+/* The plan's phases, and a teardown after them when the plan creates objects and has no
+ * teardown phase of its own. */
+int run_phases_init(run_t *r)
+{
+    const plan_t *p = r->plan;
+    bool own = p->n_phases && p->phases[p->n_phases - 1].teardown.on;
+    bool add = !own && ledger_creates(obs_ledger(r->obs));
+    r->n_phases = p->n_phases + add;
+    r->phases = calloc(r->n_phases ? r->n_phases : 1, sizeof(*r->phases));
+    if (!r->phases)
+        return SQ_ENOMEM;
+    for (size_t i = 0; i < p->n_phases; i++)
+        r->phases[i] = (run_phase_t){.name = p->phases[i].name,
+                                     .duration_ns = p->phases[i].duration_ns,
+                                     .teardown = p->phases[i].teardown.on};
+    if (add)
+        r->phases[p->n_phases] = (run_phase_t){.name = "teardown", .teardown = true};
+    return 0;
+}
+
+/* A phase this build has no source for (the table has no replay yet) is refused, by `check`
+ * as by `run`, naming its position. */
+static int unsupported(const run_t *r, size_t i)
+{
+    const plan_phase_t *pp = i < r->plan->n_phases ? &r->plan->phases[i] : NULL;
+    if (!pp || !pp->replay.on)
+        return 0;
+    out_raw(r->o, OUT_ERROR,
+            "%s:%d:%d: error: phase '%s' uses replay, which this build of squall cannot run yet",
+            pp->pos.file, pp->pos.line, pp->pos.col, pp->name);
+    return SQ_EINVAL;
+}
+
+/* Every phase's sources, built as they will be at the phase's start and freed again: their
+ * own validation (shapes, open files, the teardown's position). */
+static int validate_sources(run_t *r)
+{
+    int bad = 0;
+    for (size_t i = 0; i < r->n_phases; i++) {
+        if (unsupported(r, i)) {
+            bad = 1;
+            continue;
+        }
+        src_ctx_t ctx = run_src_ctx(r, i);
+        ctx.loop = NULL;
+        ctx.realtime0_ns = clock_real_ns();
+        src_t s[RUN_MAX_SOURCES];
+        size_t n;
+        int rc = src_phase_new(&ctx, s, &n);
+        if (rc == SQ_ENOMEM)
+            return rc;
+        bad |= rc != 0;
+        for (size_t k = 0; k < n; k++)
+            s[k].ops->free(s[k].self);
+    }
+    return bad ? SQ_EINVAL : 0;
+}
+
+static void brake(void *user, const char *why);
+
+int run_prepare(run_t *r)
+{
+    const plan_t *p = r->plan;
+    if (!p->target.loopback && !r->opts->confirm_target) {
+        out_error(r->o,
+                  "target %s is not a loopback address: load can hurt a shared control "
+                  "plane. Point squall at staging, tell its owners, start small, and pass "
+                  "--confirm-target to go ahead",
+                  p->target.url);
+        return SQ_EINVAL;
+    }
+    r->seed = run_seed(p, r->opts);
+    int rc = src_target_init(&r->target, p, r->opts->insecure, r->o);
+    if (rc == 0)
+        rc = results_new(&r->res);
+    obs_cfg_t oc = {.plan = p,
+                    .res = r->res,
+                    .o = r->o,
+                    .quiet = r->opts->quiet,
+                    .no_brakes = r->opts->no_brakes,
+                    .brake = brake,
+                    .user = r};
+    if (rc == 0)
+        rc = obs_new(&oc, &r->obs);
+    if (rc == 0)
+        rc = src_issuer_new(p, r->seed, r->obs, r->o, &r->issuer);
+    if (rc == 0)
+        rc = run_phases_init(r);
+    if (rc == 0)
+        rc = validate_sources(r);
+    return rc;
+}
+
+/* A brake fired (from the observers, once a second). */
+static void brake(void *user, const char *why)
+{
+    run_t *r = user;
+    run_stop(r, RUN_END_BRAKE, "%s", why);
+}
+
+void run_close(run_t *r)
+{
+    for (size_t i = 0; r->phases && i < r->n_phases; i++)
+        for (size_t k = 0; k < r->phases[i].n_src; k++)
+            r->phases[i].src[k].ops->free(r->phases[i].src[k].self);
+    free(r->phases);
+    r->phases = NULL;
+    src_issuer_free(r->issuer);
+    obs_free(r->obs);
+    results_free(r->res);
+    src_target_close(&r->target);
+}
+
+int run_check(const plan_t *plan, const run_opts_t *opts, out_t *o)
+{
+    run_t r = {.plan = plan, .opts = opts, .o = o};
+    int rc = run_prepare(&r);
+    run_close(&r);
+    return rc;
+}

@@ -1,0 +1,451 @@
+/* The conductor: the phases in order on one libuv loop, a wake-up at each source's next
+ * intended start, a close of every second for the observers, signals, draining, the teardown,
+ * and the order in which everything shuts down. */
+#include <errno.h>
+#include <math.h>
+#include <stdarg.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+
+#include "run_int.h"
+#include "squall/clock.h"
+#include "squall/err.h"
+
+#define DRAIN_SLACK_NS INT64_C(500000000) /* after the grace, for cancellations to arrive */
+
+static void phase_start(run_t *r, size_t i, int64_t base_ns);
+static void finish(run_t *r);
+static void on_wake(uv_timer_t *t);
+
+/* The one setter of the run's state. */
+static void set_state(run_t *r, enum run_state to)
+{
+    r->state = to;
+}
+
+static run_phase_t *current(run_t *r)
+{
+    return &r->phases[r->cur];
+}
+
+/* The current phase stops starting requests: its sources stop (watch streams close). */
+static void phase_end(run_t *r, int64_t now)
+{
+    run_phase_t *ph = current(r);
+    if (!ph->started || ph->ended_ns)
+        return;
+    ph->ended_ns = now;
+    for (size_t k = 0; k < ph->n_src; k++)
+        if (ph->src[k].ops->stop)
+            ph->src[k].ops->stop(ph->src[k].self);
+}
+
+void run_stop(run_t *r, enum run_end why, const char *fmt, ...)
+{
+    if (r->end == RUN_END_DONE) {
+        r->end = why;
+        va_list ap;
+        va_start(ap, fmt);
+        vsnprintf(r->why, sizeof r->why, fmt, ap);
+        va_end(ap);
+        out_live_end(r->o);
+        out_warn(r->o, "stopping: %s", r->why);
+    }
+    int64_t now = clock_mono_ns();
+    if (r->state == RUN_TEARDOWN) {
+        phase_end(r, now); /* what the teardown has not deleted yet is left, and reported */
+        return;
+    }
+    if (r->state != RUN_LOADING && r->state != RUN_DRAINING)
+        return;
+    int64_t grace_ms = why == RUN_END_UNREACHABLE ? 0 : r->opts->grace_ns / 1000000;
+    phase_end(r, now);
+    src_issuer_paging(r->issuer, false);
+    set_state(r, RUN_DRAINING);
+    r->drain_deadline_ns = now + grace_ms * 1000000 + DRAIN_SLACK_NS;
+    eng_stop(r->eng, grace_ms);
+}
+
+/* ---- the phases -------------------------------------------------------------------------- */
+
+static void phase_failed(run_t *r, size_t i, int rc)
+{
+    out_error(r->o, "phase '%s' could not start: %s", r->phases[i].name, sq_strerror(rc));
+    run_stop(r, RUN_END_FAILED, "phase '%s' could not start", r->phases[i].name);
+}
+
+/* Builds and starts phase i's sources; its t = 0 is base_ns. */
+static void phase_start(run_t *r, size_t i, int64_t base_ns)
+{
+    run_phase_t *ph = &r->phases[i];
+    r->cur = i;
+    ph->base_ns = base_ns;
+    ph->realtime0_ns = clock_real_ns() - (clock_mono_ns() - base_ns);
+    ph->started = true;
+    obs_phase(r->obs, i, base_ns, ph->realtime0_ns);
+    src_ctx_t ctx = run_src_ctx(r, i);
+    ctx.alive = 0; /* the models of a running phase count what its sources see */
+    int rc = src_phase_new(&ctx, ph->src, &ph->n_src);
+    for (size_t k = 0; rc == 0 && k < ph->n_src; k++)
+        rc = ph->src[k].ops->start ? ph->src[k].ops->start(ph->src[k].self, &ph->src[k]) : 0;
+    if (rc)
+        phase_failed(r, i, rc);
+}
+
+/* After the last plan phase: requests finish on their own timeouts (the longest class's). */
+static void drain(run_t *r, int64_t now)
+{
+    int64_t longest = 0;
+    for (size_t i = 0; i < r->plan->n_reqs; i++)
+        longest = r->plan->reqs[i].timeout_ns > longest ? r->plan->reqs[i].timeout_ns : longest;
+    phase_end(r, now);
+    set_state(r, RUN_DRAINING);
+    r->drain_deadline_ns = now + longest + 1000000000;
+}
+
+/* The current timed phase reached its end: the next one starts where it ended, so the schedule
+ * never slips; a teardown waits for everything before it to drain. */
+static void next_phase(run_t *r, int64_t now)
+{
+    run_phase_t *ph = current(r);
+    int64_t end = ph->base_ns + ph->duration_ns;
+    size_t next = r->cur + 1;
+    if (next >= r->n_phases || r->phases[next].teardown) {
+        drain(r, now);
+        return;
+    }
+    phase_end(r, end);
+    phase_start(r, next, end);
+}
+
+/* Draining is over: the teardown phase (if any) starts, else the run finishes. */
+static void drained(run_t *r, int64_t now)
+{
+    size_t next = r->cur + 1;
+    while (next < r->n_phases && !r->phases[next].teardown)
+        next++;
+    if (next >= r->n_phases) {
+        finish(r);
+        return;
+    }
+    set_state(r, RUN_TEARDOWN);
+    phase_start(r, next, now);
+}
+
+static bool sources_idle(const run_phase_t *ph)
+{
+    for (size_t k = 0; k < ph->n_src; k++)
+        if (!ph->src[k].ops->idle || !ph->src[k].ops->idle(ph->src[k].self))
+            return false;
+    return true;
+}
+
+/* ---- the wake-up ------------------------------------------------------------------------- */
+
+/* Asks every source of the current phase for what is due. */
+static void due(run_t *r, int64_t now)
+{
+    run_phase_t *ph = current(r);
+    for (size_t k = 0; k < ph->n_src && r->state == RUN_LOADING; k++) {
+        int64_t at;
+        src_t *s = &ph->src[k];
+        if (!s->ops->next || !s->ops->next(s->self, &at) || at > now)
+            continue;
+        int rc = s->ops->due(s->self, now);
+        if (rc)
+            run_stop(r, RUN_END_FAILED, "the generator could not issue a request: %s",
+                     sq_strerror(rc));
+    }
+}
+
+/* The next instant something must happen: a source's start, the phase's end, a deadline. */
+static int64_t next_event(run_t *r)
+{
+    int64_t next = INT64_MAX, at;
+    if (r->state == RUN_LOADING) {
+        run_phase_t *ph = current(r);
+        if (ph->duration_ns)
+            next = ph->base_ns + ph->duration_ns;
+        for (size_t k = 0; k < ph->n_src; k++)
+            if (ph->src[k].ops->next && ph->src[k].ops->next(ph->src[k].self, &at) && at < next)
+                next = at;
+    } else if (r->state == RUN_DRAINING) {
+        next = r->drain_deadline_ns;
+    }
+    return next;
+}
+
+/* Arms the wake timer for the next event (libuv timers count whole milliseconds and never
+ * fire before the loop's clock reaches them; a wake-up that comes early just rearms). */
+static void rearm(run_t *r, int64_t now)
+{
+    int64_t next = next_event(r);
+    if (next == INT64_MAX || r->state == RUN_DONE) {
+        uv_timer_stop(&r->wake);
+        r->wake_at_ns = INT64_MAX;
+        return;
+    }
+    /* Armed early enough already: a timer cannot fire sooner than 1 ms from now, and pushing an
+     * armed timer later on every pass would keep it from ever firing. */
+    if (r->wake_at_ns <= (next > now ? next : now) + 1000000)
+        return;
+    int64_t ms = next > now ? (next - now + 999999) / 1000000 : 1;
+    r->wake_at_ns = now + ms * 1000000;
+    uv_update_time(&r->loop); /* the timer counts from the loop's clock: bring it to now */
+    uv_timer_start(&r->wake, on_wake, (uint64_t)ms, 0);
+}
+
+static void on_wake(uv_timer_t *t)
+{
+    run_t *r = t->data;
+    int64_t now = clock_mono_ns();
+    r->wake_at_ns = INT64_MAX;
+    if (r->state == RUN_LOADING) {
+        due(r, now);
+        run_phase_t *ph = current(r);
+        if (r->state == RUN_LOADING && ph->duration_ns && now >= ph->base_ns + ph->duration_ns) {
+            next_phase(r, now);
+            due(r, now); /* the next phase's first starts may be due already */
+        }
+    }
+    if (r->state == RUN_DRAINING && now >= r->drain_deadline_ns)
+        drained(r, now);
+    if (r->state != RUN_DONE)
+        rearm(r, now); /* the loop polls next: the timer must be armed before it blocks */
+}
+
+/* After every loop pass: the end of draining or of the teardown, and the wake-up rearmed for
+ * what the pass changed (a closed-loop answer, a watch that must reconnect). */
+static void on_check(uv_check_t *c)
+{
+    run_t *r = c->data;
+    int64_t now = clock_mono_ns();
+    if (r->state == RUN_DRAINING && obs_in_flight(r->obs) == 0)
+        drained(r, now);
+    if (r->state == RUN_TEARDOWN && sources_idle(current(r)))
+        finish(r);
+    if (r->state != RUN_DONE)
+        rearm(r, now);
+}
+
+/* ---- seconds, signals, the target --------------------------------------------------------- */
+
+/* The starts the sources planned in [from, to), for every phase that ran in it. */
+static void planned(run_t *r, int64_t from, int64_t to)
+{
+    double pc[PLAN_MAX_REQS + 1];
+    for (size_t i = 0; i <= r->cur && i < r->n_phases; i++) {
+        run_phase_t *ph = &r->phases[i];
+        int64_t end = ph->ended_ns ? ph->ended_ns : to;
+        if (ph->duration_ns && ph->base_ns + ph->duration_ns < end)
+            end = ph->base_ns + ph->duration_ns;
+        int64_t a = from > ph->base_ns ? from : ph->base_ns, b = to < end ? to : end;
+        if (!ph->started || b <= a)
+            continue;
+        memset(pc, 0, (r->plan->n_reqs + 1) * sizeof(*pc));
+        double e = src_expected(ph->src, ph->n_src, a - ph->base_ns, b - ph->base_ns, pc);
+        obs_planned(r->obs, i, pc, e);
+    }
+}
+
+/* Closes a second for the observers; the last, partial one at the end of the run. */
+static void second(run_t *r, bool final)
+{
+    int64_t now = clock_mono_ns();
+    eng_stats_t st;
+    if (r->eng) {
+        eng_stats(r->eng, &st, true);
+    } else {
+        memset(&st, 0, sizeof st);
+        st.window_ns = now - r->sec_start_ns;
+    }
+    planned(r, r->sec_start_ns, now);
+    obs_second(r->obs, &st, r->state == RUN_LOADING, r->cur, final);
+    r->sec_start_ns = now;
+}
+
+static void on_second(uv_timer_t *t)
+{
+    run_t *r = t->data;
+    if (r->state != RUN_IDLE && r->state != RUN_DONE)
+        second(r, false);
+}
+
+static void on_signal(uv_signal_t *s, int signum)
+{
+    run_t *r = s->data;
+    if (++r->signals == 1) {
+        run_stop(r, RUN_END_SIGNAL,
+                 "signal %s: letting in-flight requests finish (send it again to stop at once)",
+                 signum == SIGINT ? "SIGINT" : "SIGTERM");
+    } else if (r->state == RUN_DRAINING) {
+        eng_stop(r->eng, 0);
+        r->drain_deadline_ns = 0;
+    } else if (r->state == RUN_TEARDOWN) {
+        phase_end(r, clock_mono_ns());
+    }
+}
+
+static void on_unreachable(void *user)
+{
+    run_t *r = user;
+    eng_stats_t st;
+    eng_stats(r->eng, &st, false);
+    run_stop(r, RUN_END_UNREACHABLE, "target unreachable: %s %s", r->plan->target.url,
+             st.why ? st.why : "refuses connections or does not resolve");
+}
+
+/* ---- start and end ------------------------------------------------------------------------ */
+
+static void close_handle(uv_handle_t *h)
+{
+    if (!uv_is_closing(h))
+        uv_close(h, NULL);
+}
+
+/* Everything is done: the last partial second, every source stopped, the main engine freed,
+ * our own handles closed, so uv_run returns and uv_loop_close succeeds. */
+static void finish(run_t *r)
+{
+    if (r->state == RUN_DONE)
+        return;
+    r->end_ns = clock_mono_ns();
+    phase_end(r, r->end_ns);
+    second(r, true);
+    set_state(r, RUN_DONE);
+    for (size_t i = 0; i < r->n_phases; i++)
+        for (size_t k = 0; r->phases[i].started && k < r->phases[i].n_src; k++)
+            if (r->phases[i].src[k].ops->stop)
+                r->phases[i].src[k].ops->stop(r->phases[i].src[k].self);
+    eng_free(r->eng);
+    r->eng = NULL;
+    uv_timer_stop(&r->wake);
+    uv_timer_stop(&r->second);
+    uv_check_stop(&r->check);
+    close_handle((uv_handle_t *)&r->wake);
+    close_handle((uv_handle_t *)&r->second);
+    close_handle((uv_handle_t *)&r->check);
+    close_handle((uv_handle_t *)&r->sigint);
+    close_handle((uv_handle_t *)&r->sigterm);
+}
+
+static int handles_start(run_t *r)
+{
+    uv_timer_init(&r->loop, &r->wake);
+    uv_timer_init(&r->loop, &r->second);
+    uv_check_init(&r->loop, &r->check);
+    uv_signal_init(&r->loop, &r->sigint);
+    uv_signal_init(&r->loop, &r->sigterm);
+    r->wake.data = r->second.data = r->check.data = r->sigint.data = r->sigterm.data = r;
+    r->wake_at_ns = INT64_MAX;
+    int rc = uv_signal_start(&r->sigint, on_signal, SIGINT);
+    rc = rc ? rc : uv_signal_start(&r->sigterm, on_signal, SIGTERM);
+    rc = rc ? rc : uv_check_start(&r->check, on_check);
+    rc = rc ? rc : uv_timer_start(&r->second, on_second, 1000, 1000);
+    return rc ? SQ_ELIBUV : 0;
+}
+
+/* The main engine, the handles, the first phase: the loop then runs to the end. */
+static void run_loop(run_t *r)
+{
+    eng_config_t cfg = r->target.eng;
+    cfg.on_unreachable = on_unreachable;
+    cfg.user = r;
+    int rc = eng_new(&r->loop, &cfg, r->o, &r->eng);
+    if (rc == 0) {
+        src_issuer_attach(r->issuer, r->eng);
+        rc = handles_start(r);
+    }
+    if (rc == 0) {
+        r->start_ns = r->sec_start_ns = clock_mono_ns();
+        results_set_start(r->res, clock_real_ns() / 1000000);
+        set_state(r, RUN_LOADING);
+        if (r->n_phases == 0 || r->phases[0].teardown)
+            drain(r, r->start_ns);
+        else
+            phase_start(r, 0, r->start_ns);
+        if (r->state != RUN_DONE)
+            rearm(r, r->start_ns);
+    } else {
+        out_error(r->o, "the run could not start: %s", sq_strerror(rc));
+        r->end = RUN_END_FAILED;
+        snprintf(r->why, sizeof r->why, "the run could not start");
+        finish(r);
+    }
+    uv_run(&r->loop, UV_RUN_DEFAULT);
+    out_live_end(r->o);
+}
+
+static int make_dirs(const char *dir)
+{
+    char p[4096];
+    snprintf(p, sizeof p, "%s", dir);
+    for (char *s = p + 1; *s; s++) {
+        if (*s != '/')
+            continue;
+        *s = '\0';
+        if (mkdir(p, 0755) && errno != EEXIST)
+            return -1;
+        *s = '/';
+    }
+    return mkdir(p, 0755) && errno != EEXIST ? -1 : 0;
+}
+
+/* results/<UTC time>-<plan name> */
+static void default_dir(const run_t *r, char *dir, size_t cap)
+{
+    const char *base = strrchr(r->plan->path, '/');
+    base = base ? base + 1 : r->plan->path;
+    size_t n = strcspn(base, ".");
+    time_t now = time(NULL);
+    struct tm tm;
+    gmtime_r(&now, &tm);
+    char stamp[32];
+    strftime(stamp, sizeof stamp, "%Y%m%dT%H%M%SZ", &tm);
+    snprintf(dir, cap, "results/%s-%.*s", stamp, (int)n, base);
+}
+
+/* The results directory and what is written into it while the run goes. */
+static int open_results(run_t *r)
+{
+    const run_opts_t *o = r->opts;
+    if (o->results_dir)
+        snprintf(r->dir, sizeof r->dir, "%s", o->results_dir);
+    else
+        default_dir(r, r->dir, sizeof r->dir);
+    if (make_dirs(r->dir)) {
+        out_error(r->o, "cannot create results directory %s: %s", r->dir, strerror(errno));
+        return SQ_EIO;
+    }
+    int rc = obs_open(r->obs, r->dir);
+    rc = rc ? rc : results_set_plan(r->res, r->plan->path, NULL, 0, r->o);
+    rc = rc ? rc : results_set_target(r->res, r->plan->target.url);
+    rc = rc ? rc
+            : results_set_shard(r->res, o->shard_index ? o->shard_index : 1,
+                                o->shard_count ? o->shard_count : 1);
+    return rc;
+}
+
+int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o, run_result_t *result)
+{
+    run_t r = {.plan = plan, .opts = opts, .o = o};
+    memset(result, 0, sizeof(*result));
+    int rc = run_prepare(&r);
+    if (rc == 0)
+        rc = open_results(&r);
+    if (rc == 0 && uv_loop_init(&r.loop))
+        rc = SQ_ELIBUV;
+    if (rc) {
+        run_close(&r);
+        return rc;
+    }
+    run_loop(&r);
+    result->write_failed = run_finish(&r, &result->objectives_failed);
+    result->end = r.end;
+    run_close(&r);
+    if (uv_run(&r.loop, UV_RUN_DEFAULT), uv_loop_close(&r.loop) != 0)
+        out_warn(o, "internal: event loop closed with handles still open");
+    return 0;
+}

@@ -1,0 +1,134 @@
+/* What a plan would do, phase by phase: the sources' own models (the same `expected` the live
+ * line asks each second) give the starts per class; the objects created, deleted and left
+ * alive follow from them. `check` prints these. Expected values, not promises: Poisson
+ * arrivals and closed loops vary around them. */
+#include <math.h>
+#include <string.h>
+
+#include "src_int.h"
+#include "squall/err.h"
+
+/* The highest planned rate of the open-loop shape. */
+static double open_peak(const plan_phase_t *ph)
+{
+    switch (ph->shape) {
+    case PLAN_LOAD_CONSTANT:
+        return ph->rate;
+    case PLAN_LOAD_RAMP:
+        return ph->ramp_from > ph->ramp_to ? ph->ramp_from : ph->ramp_to;
+    case PLAN_LOAD_STEPS: {
+        double peak = 0, t = 0;
+        for (size_t i = 0; i < ph->n_steps && t < ph->duration_ns; i++) {
+            peak = ph->steps[i].rate > peak ? ph->steps[i].rate : peak;
+            t += (double)ph->steps[i].for_ns;
+        }
+        return peak;
+    }
+    default:
+        return 0;
+    }
+}
+
+/* Rates, bursts and counts of the phase as the plan writes them. */
+static void describe(const plan_phase_t *ph, src_estimate_t *e)
+{
+    e->peak_rate = open_peak(ph);
+    if (ph->clients.on) {
+        e->closed_loop = true;
+        e->clients = ph->clients.count;
+        e->bounded = ph->clients.think_ns > 0;
+        if (e->bounded)
+            e->peak_rate = ph->clients.count / (ph->clients.think_ns / 1e9);
+    }
+    if (ph->fleet.on) {
+        e->agents = ph->fleet.agents;
+        for (size_t i = 0; i < ph->fleet.n_send; i++) {
+            e->peak_rate += ph->fleet.agents / (ph->fleet.send[i].every_ns / 1e9);
+            if (ph->fleet.timing == PLAN_TIMING_ALIGNED)
+                e->burst += ph->fleet.agents;
+        }
+    }
+    if (ph->churn.on)
+        e->peak_rate += ph->churn.rate;
+    if (ph->teardown.on)
+        e->peak_rate += ph->teardown.rate;
+    for (size_t i = 0; i < ph->watches.n_sets; i++)
+        e->watches += ph->watches.sets[i].count;
+    e->replay = ph->replay.on;
+}
+
+/* Requests, objects created and deleted (deletes of objects already gone just fail, so they
+ * remove nothing), and teardown: one delete per object still alive. */
+static void count_objects(const plan_t *p, const plan_phase_t *ph, double alive, double torn,
+                          src_estimate_t *e)
+{
+    for (size_t i = 0; i < p->n_reqs; i++) {
+        const plan_req_t *r = &p->reqs[i];
+        if (r->kind == PLAN_WATCH)
+            continue;
+        e->requests += e->per_class[i];
+        if (r->kind == PLAN_WRITE && r->write.creates)
+            e->created += e->per_class[i];
+        if (r->kind == PLAN_WRITE && r->write.deletes)
+            e->deleted += e->per_class[i];
+    }
+    double avail = alive + e->created;
+    e->deleted = e->deleted < avail ? e->deleted : avail;
+    if (ph->teardown.on) {
+        e->deleted += torn;
+        e->requests += torn;
+        if (ph->teardown.rate > 0 && !ph->has_duration) {
+            e->duration_ns = (int64_t)(torn / ph->teardown.rate * 1e9);
+            e->open_ended = false;
+        }
+    }
+    e->alive_after = avail - e->deleted > 0 ? avail - e->deleted : 0;
+}
+
+/* The phase's sources, built as a run would build them, asked for [0, duration). */
+static int model(const src_ctx_t *ctx, const plan_phase_t *ph, double *torn, src_estimate_t *e)
+{
+    src_t s[8];
+    size_t n;
+    int rc = src_phase_new(ctx, s, &n);
+    if (rc)
+        return rc;
+    /* An open-ended phase (teardown) runs until its work is done. */
+    int64_t end = ph->has_duration ? ph->duration_ns : INT64_MAX / 2;
+    *torn = 0;
+    for (size_t k = 0; k < n; k++) {
+        double got = s[k].ops->expected ? s[k].ops->expected(s[k].self, 0, end, e->per_class) : 0;
+        if (s[k].ops == &src_teardown_ops)
+            *torn = got;
+        s[k].ops->free(s[k].self);
+    }
+    return 0;
+}
+
+int src_estimate(const plan_t *plan, uint64_t seed, int64_t realtime0_ns, out_t *o,
+                 src_estimate_t *e)
+{
+    double alive = 0;
+    int rc = 0;
+    for (size_t i = 0; i < plan->n_phases; i++) {
+        const plan_phase_t *ph = &plan->phases[i];
+        memset(&e[i], 0, sizeof(e[i]));
+        e[i].duration_ns = ph->duration_ns;
+        e[i].open_ended = !ph->has_duration;
+        src_ctx_t ctx = {.plan = plan,
+                         .phase = i,
+                         .name = ph->name,
+                         .duration_ns = ph->duration_ns,
+                         .realtime0_ns = realtime0_ns,
+                         .seed = seed,
+                         .alive = alive,
+                         .o = o};
+        double torn = 0;
+        int r = model(&ctx, ph, &torn, &e[i]);
+        rc = rc ? rc : r;
+        describe(ph, &e[i]);
+        count_objects(plan, ph, alive, torn, &e[i]);
+        alive = e[i].alive_after;
+    }
+    return rc;
+}

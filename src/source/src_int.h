@@ -1,0 +1,45 @@
+/* Internals the sources share: seed streams, the phase's mix, and small helpers. */
+#ifndef SQUALL_SRC_INT_H
+#define SQUALL_SRC_INT_H
+
+#include "squall/sched.h"
+#include "squall/source.h"
+
+/* Random streams of one phase, each its own sched_seed(run seed, phase, stream): changing one
+ * never shifts another's draws. */
+enum {
+    SRC_STREAM_ARRIVALS = 1,
+    SRC_STREAM_MIX = 2,
+    SRC_STREAM_CLOSED = 3,
+    SRC_STREAM_BACKOFF = 4,  /* watch reconnect delays */
+    SRC_STREAM_FLEET = 100,  /* + the fleet's send index */
+    SRC_STREAM_WATCH = 1000, /* + the watcher's index */
+};
+
+/* The plan phase of a context (NULL for the teardown the run adds). */
+static inline const plan_phase_t *src_phase(const src_ctx_t *ctx)
+{
+    return ctx->phase < ctx->plan->n_phases ? &ctx->plan->phases[ctx->phase] : NULL;
+}
+
+static inline uint64_t src_seed(const src_ctx_t *ctx, uint32_t stream)
+{
+    return sched_seed(ctx->seed, (uint32_t)ctx->phase, stream);
+}
+
+/* A phase's mix: pick a class by weight; spread an expected total over the classes. */
+typedef struct {
+    sched_mix_t *mix;
+    int *cls;       /* mix index -> class index */
+    double *weight; /* normalised */
+    size_t n;
+} src_mix_t;
+
+int src_mix_init(src_mix_t *m, const plan_phase_t *pp, uint64_t seed);
+void src_mix_close(src_mix_t *m);
+int src_mix_pick(src_mix_t *m);
+void src_mix_spread(const src_mix_t *m, double total, double *per_class);
+
+#define SRC_DUE_BATCH 512 /* starts taken from a schedule at a time */
+
+#endif
