@@ -10,7 +10,7 @@
 
 #include "squall/err.h"
 #include "squall/sched.h"
-#include "test_sched_stats.h"
+#include "test_stats.h"
 
 #define S INT64_C(1000000000)
 
@@ -86,8 +86,9 @@ static double *poisson_gaps(double rate, int64_t dur, uint64_t seed, size_t *n)
 }
 
 /* One-sample KS of the intended gaps against Exp(λ) at α = .01 with the asymptotic critical
- * value 1.62762/√n (NOTES-methods.md), D and its p-value cross-checked with scipy.stats.kstest
- * (Debian python3-scipy) on the same gaps. A wrong λ (1.1λ) must be rejected: the test bites. */
+ * value KS_C_01/√n (the Kolmogorov distribution's 0.99 quantile, test_stats.h), D and its p-value
+ * cross-checked with scipy.stats.kstest (Debian python3-scipy) on the same gaps. A wrong λ
+ * (1.1λ) must be rejected: the test bites. */
 static void test_poisson_ks(void **state)
 {
     (void)state;
@@ -117,13 +118,15 @@ static void test_poisson_ks(void **state)
     free(g);
 }
 
-/* Chi-square of λ·gap over the ten equiprobable Exp(1) bins listed in NOTES-methods.md, df 9,
- * critical 21.666 at .01 (NIST/SEMATECH table). */
+/* Chi-square of λ·gap over ten equiprobable Exp(1) bins, df 9, critical 21.666 at .01
+ * (NIST/SEMATECH table, test_stats.h). The edges are the Exp(1) deciles, derived here from its
+ * CDF F(x) = 1 − e^(−x): F(x_k) = k/10 gives x_k = −ln(1 − k/10), 0.10536 … 2.30259. */
 static void test_poisson_chi_square(void **state)
 {
     (void)state;
-    static const double edges[9] = {0.10536, 0.22314, 0.35667, 0.51083, 0.69315,
-                                    0.91629, 1.20397, 1.60944, 2.30259};
+    double edges[9];
+    for (int k = 1; k <= 9; k++)
+        edges[k - 1] = -log(1.0 - k / 10.0);
     double rate = 2000;
     size_t n;
     double *g = poisson_gaps(rate, 10 * S, 7, &n);
@@ -459,6 +462,7 @@ int main(void)
         cmocka_unit_test(test_mix),
         cmocka_unit_test(test_closed_fixed),
         cmocka_unit_test(test_closed_exp),
+        cmocka_unit_test(test_critical_values_match_scipy),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

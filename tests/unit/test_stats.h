@@ -1,10 +1,18 @@
-/* Small statistics shared by the scheduler tests: Kolmogorov-Smirnov distance against a known
- * distribution, Pearson's chi-square, and a temporary file of samples for the scipy helper.
- * Critical values come from /work/shared NOTES-methods.md "Statistics for tests": KS c(.01) =
- * 1.62762 (Kolmogorov distribution, asymptotic), chi-square df 9 at .01 = 21.666 and df 4 at .01 =
- * 13.277 (NIST/SEMATECH e-Handbook, table of the chi-square distribution). */
-#ifndef TEST_SCHED_STATS_H
-#define TEST_SCHED_STATS_H
+/* Small statistics shared by the statistical unit tests: Kolmogorov-Smirnov distance against a
+ * known distribution, Pearson's chi-square, a temporary file of samples for the scipy helpers,
+ * and the critical values they compare with.
+ *
+ * Critical values at alpha = .01: quantiles of published distributions, written here to the
+ * precision their tables print and recomputed by scipy (Debian python3-scipy) in
+ * test_critical_values_match_scipy, which every program that uses them runs:
+ *   KS_C_01    the 0.99 quantile of the Kolmogorov distribution, the limit law of sqrt(n) D_n for
+ *              the one-sample KS statistic (Marsaglia, Tsang & Wang, "Evaluating Kolmogorov's
+ *              Distribution", J. Stat. Softw. 8(18), 2003); scipy.stats.kstwobign.ppf(0.99).
+ *   CHI2_K_01  the upper .01 critical value of chi-square with K degrees of freedom
+ *              (NIST/SEMATECH e-Handbook of Statistical Methods, "Critical Values of the
+ *              Chi-Square Distribution", section 1.3.6.7.4); scipy.stats.chi2.ppf(0.99, K). */
+#ifndef TEST_STATS_H
+#define TEST_STATS_H
 
 #include <math.h>
 #include <stdio.h>
@@ -13,8 +21,9 @@
 #include <unistd.h>
 
 #define KS_C_01   1.62762
-#define CHI2_9_01 21.666
+#define CHI2_2_01 9.210
 #define CHI2_4_01 13.277
+#define CHI2_9_01 21.666
 
 static inline int cmp_double(const void *a, const void *b)
 {
@@ -65,7 +74,8 @@ static inline const char *write_samples(const double *x, size_t n, const char *f
     return path;
 }
 
-/* Runs the scipy helper with the given arguments and reads two numbers from its answer. */
+/* Runs the scipy helper of the scheduler tests (tests/unit/sched_ref.py) with the given arguments
+ * and reads two numbers from its answer. */
 static inline int run_ref(const char *args, double *a, double *b)
 {
     char cmd[1024];
@@ -76,6 +86,30 @@ static inline int run_ref(const char *args, double *a, double *b)
     int got = fscanf(p, "%lf %lf", a, b);
     int rc = pclose(p);
     return got == 2 && rc == 0 ? 0 : -1;
+}
+
+/* The constants above against scipy's quantiles, to the precision the tables print (5 decimals
+ * for KS, 3 for chi-square). A missing python3 or scipy fails here: the reference is required. */
+static inline void test_critical_values_match_scipy(void **state)
+{
+    (void)state;
+    FILE *p = popen("/usr/bin/python3 -c 'from scipy.stats import kstwobign, chi2\n"
+                    "print(repr(float(kstwobign.ppf(0.99))), *(repr(float(chi2.ppf(0.99, k)))"
+                    " for k in (2, 4, 9)))'",
+                    "r");
+    assert_non_null(p);
+    double ks = NAN, c2 = NAN, c4 = NAN, c9 = NAN;
+    int got = fscanf(p, "%lf %lf %lf %lf", &ks, &c2, &c4, &c9);
+    int rc = pclose(p);
+    if (got != 4 || rc != 0)
+        fail_msg("/usr/bin/python3 with scipy is required (tools/setup installs python3-scipy)");
+    printf("critical values: KS c(.01) %.6f (table %.5f); chi-square .01 df 2 %.4f (%.3f), "
+           "df 4 %.4f (%.3f), df 9 %.4f (%.3f)\n",
+           ks, KS_C_01, c2, CHI2_2_01, c4, CHI2_4_01, c9, CHI2_9_01);
+    assert_true(fabs(ks - KS_C_01) <= 5e-6);
+    assert_true(fabs(c2 - CHI2_2_01) <= 5e-4);
+    assert_true(fabs(c4 - CHI2_4_01) <= 5e-4);
+    assert_true(fabs(c9 - CHI2_9_01) <= 5e-4);
 }
 
 #endif
