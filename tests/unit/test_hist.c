@@ -96,8 +96,8 @@ static hdr_ref_t hdr_ref(int64_t lowest, int64_t highest, int digits)
 
 static int64_t hdr_ref_lowest(const hdr_ref_t *r, int64_t v, int64_t *size)
 {
-    int bucket = (64 - __builtin_clzll((unsigned long long)(v | r->mask))) - r->unit -
-                 (r->half_mag + 1);
+    int bucket =
+        (64 - __builtin_clzll((unsigned long long)(v | r->mask))) - r->unit - (r->half_mag + 1);
     int64_t sub = v >> (bucket + r->unit);
     *size = INT64_C(1) << (r->unit + (sub >= r->sub_count ? bucket + 1 : bucket));
     return sub << (bucket + r->unit);
@@ -166,8 +166,8 @@ static void test_layout_check_values(void **state)
     assert_int_equal(hist_bucket_count(ns), rns.bucket_count);
     assert_int_equal(hist_counts_len(ns), rns.counts_len);
     for (int i = 0; i < 200000; i++) {
-        int64_t v = HIST_NS_LOWEST + (int64_t)rng_below(&r, (uint64_t)(HIST_NS_HIGHEST -
-                                                                       HIST_NS_LOWEST));
+        int64_t v =
+            HIST_NS_LOWEST + (int64_t)rng_below(&r, (uint64_t)(HIST_NS_HIGHEST - HIST_NS_LOWEST));
         assert_int_equal(hist_highest_equiv(ns, v), hdr_ref_highest(&rns, v));
     }
     hist_free(ns);

@@ -115,7 +115,8 @@ static void test_percentile_against_numpy(void **state)
      * p50 = 3 ms > 1 ms fails too (the threshold is what decides, not the figure's size). The
      * run scope holds the same samples (read ran in steady only), so it fails alike. */
     for (size_t k = 0; k < 2; k++) {
-        const judge_check_t *steady = find(j, k, "read", "steady"), *run = find(j, k, "read", "run");
+        const judge_check_t *steady = find(j, k, "read", "steady"),
+                            *run = find(j, k, "read", "run");
         assert_non_null(steady);
         assert_non_null(run);
         assert_int_equal(steady->verdict, JUDGE_FAIL);
