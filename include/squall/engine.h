@@ -15,7 +15,8 @@
  *   sent      the moment libcurl was about to send it on its connection (PREREQFUNCTION).
  *   done      the moment the engine saw it finished.
  *   opener    (HTTP/2 over http://) a transfer that opens a new pooled connection with prior
- *             knowledge; later transfers reuse it (libcurl 7.88.1 workaround, NOTES-libraries).
+ *             knowledge; later transfers reuse it (workaround for libcurl 7.88.1, curl issue
+ *             #10634: a reused prior-knowledge connection failed; fixed in 8.0.0).
  *
  * Threading: none. Every function must be called on the loop's thread. Callbacks (on_done,
  * on_data, on_unreachable) run on the loop; on_done and on_unreachable may call eng_submit and

@@ -272,9 +272,12 @@ int eng_glue_start(eng_t *e)
     return 0;
 }
 
-/* Shutdown order (NOTES-methods, libuv 1.44.2): transfers are already removed; cleaning up the
- * multi closes its connections through our closesocket (closing their polls); then our own
- * handles close and the last close callback frees the engine. */
+/* Shutdown order: transfers are already removed; cleaning up the multi closes its connections
+ * through our closesocket (closing their polls), and the socket callback may run during it
+ * (libcurl docs, CURLMOPT_SOCKETFUNCTION: "likely to happen during a call to curl_multi_cleanup
+ * when cached connections are closed"); then our own handles close with uv_close and the last
+ * close callback frees the engine (libuv 1.44 docs, handle.rst: memory only after the close
+ * callback). */
 void eng_glue_close(eng_t *e)
 {
     if (e->multi) {

@@ -217,7 +217,7 @@ static const char **cell_classes(const results_t *res, size_t *n)
 
 /* A watch class's cells carry its streams' open or propagation times. "*" leaves watches out:
  * their counts are events and stream endings, not requests (common practice for control-plane
- * objectives: watches are excluded, NOTES-methods.md "Objectives"). */
+ * latency objectives, which exclude watches; no primary source). */
 static bool is_watch_class(const results_t *res, const char *cls)
 {
     for (size_t i = 0; i < results_cell_count(res); i++) {

@@ -1,6 +1,7 @@
 /* HDR histograms: bucket layout, O(1) recording, percentiles, mean and merge.
- * The index arithmetic follows the method in shared/NOTES-methods.md ("HDR histograms"); the
- * text encoding lives in hist_codec.c. */
+ * The index arithmetic is HdrHistogram_c's (src/hdr_histogram.c: hdr_calculate_bucket_config,
+ * get_bucket_index, counts_index, hdr_value_at_percentile); the text encoding lives in
+ * hist_codec.c. */
 #include "squall/hist.h"
 
 #include <math.h>

@@ -1,7 +1,10 @@
 #!/usr/bin/env bash
 # `squall check` end to end: exit codes as documented in README.md ("Exit codes": 0 valid plan,
-# 2 plan error), the exact diagnostics of a broken plan on stderr, the summary of a good one on
-# stdout, --set, and the caution printed for a target that is not loopback. Sends nothing.
+# 2 plan error), the exact diagnostics of every broken plan (tests/data/plans/bad-*.yaml) on
+# stderr against its .expected file, whose positions are checked against the YAML source by an
+# independent parser (plan_positions.py, PyYAML), the estimates of good plans against arithmetic
+# done here from the plan's numbers, --set, and the caution printed for a target that is not
+# loopback. Sends nothing.
 set -uo pipefail
 : "${SQUALL:?}" "${SRCDIR:?}"
 work=$(mktemp -d)
@@ -17,13 +20,81 @@ for plan in "$SRCDIR"/scenarios/*.yaml; do
     echo "ok: $(basename "$plan") is valid and summarised"
 done
 
+# Every broken plan has its .expected, written by hand from the plan's mistake and the loader's
+# documented message format (DEVELOPERS.md, "plan"); a plan without one fails here.
 dir="$SRCDIR/tests/data/plans"
-"$SQUALL" check "$dir/bad-many.yaml" >"$work/out" 2>"$work/err"; rc=$?
-[ $rc -eq 2 ] || fail "bad-many: exit $rc, expected 2"
-sed "s#@DIR@#$dir#g" "$dir/bad-many.expected" >"$work/want"
-diff -u "$work/want" "$work/err" || fail "bad-many: stderr differs from bad-many.expected"
-[ -s "$work/out" ] && fail "bad-many: a broken plan printed a summary"
-echo "ok: bad-many exits 2 with its 9 expected error lines and no summary"
+nbad=0
+for plan in "$dir"/bad-*.yaml; do
+    name=$(basename "$plan" .yaml)
+    nbad=$((nbad + 1))
+    if [ ! -f "$dir/$name.expected" ]; then
+        fail "$name.yaml has no $name.expected"
+        continue
+    fi
+    "$SQUALL" check "$plan" >"$work/out" 2>"$work/err"; rc=$?
+    [ $rc -eq 2 ] || fail "$name: exit $rc, expected 2"
+    sed "s#@DIR@#$dir#g" "$dir/$name.expected" >"$work/want"
+    [ -s "$work/want" ] || fail "$name.expected is empty"
+    diff -u "$work/want" "$work/err" || fail "$name: stderr differs from $name.expected"
+    [ -s "$work/out" ] && fail "$name: a broken plan printed a summary"
+    /usr/bin/python3 "$SRCDIR/tests/integration/plan_positions.py" "$dir" "$dir/$name.expected" \
+        >"$work/pos" 2>&1 || fail "$name.expected: positions do not match the YAML: $(cat "$work/pos")"
+    echo "ok: $name exits 2 with its $(wc -l <"$work/want") expected lines, positions checked by PyYAML"
+done
+[ $nbad -ge 16 ] || fail "only $nbad bad-*.yaml plans found in $dir"
+for exp in "$dir"/*.expected; do
+    [ -f "${exp%.expected}.yaml" ] || fail "$(basename "$exp") has no plan beside it"
+done
+
+# The estimates `check` prints, per phase and class, against arithmetic done here from the
+# numbers in the plan files (the semantics are DEVELOPERS.md's: ramp = mean rate x duration; the
+# last step holds; closed loop with think = clients x duration / think at most; aligned fleet =
+# agents x ticks; churn creates until the population is reached, then pairs; teardown deletes
+# everything alive).
+estimates() { # the "PHASE: CLASS COUNT" lines of `squall check PLAN`, thousands unseparated
+    "$SQUALL" check "$1" | awk '
+        /^phase [0-9]+\/[0-9]+ / { ph = $3; sub(/:$/, "", ph) }
+        /^    [^ ].* requests$/ && !/^    total / {
+            line = substr($0, 5); n = split(line, w, " "); count = w[n - 1]; gsub(",", "", count)
+            print ph ": " substr(line, 1, index(line, "  ") - 1) " " count
+        }'
+}
+# good-shapes.yaml: ramp 10/s -> 400/s over 60 s; steps 10/s for 10 s then 50/s held for the
+# rest of 40 s, mix read 3 : create 1; closed loop 4 clients, think 500 ms, 10 s; churn 10/s for
+# 30 s around a population of 500, starting from the creates of the steps; teardown of all.
+steps=$((10 * 10 + 50 * (40 - 10)))
+churn_ops=$((10 * 30))
+to_fill=$((500 - steps / 4))
+{
+    echo "ramp: read $(((10 + 400) * 60 / 2))"
+    echo "steps: create $((steps * 1 / 4))"
+    echo "steps: read $((steps * 3 / 4))"
+    echo "closed: read $((4 * 10 * 1000 / 500))"
+    echo "churn: create $((to_fill + (churn_ops - to_fill) / 2))"
+    echo "churn: delete $(((churn_ops - to_fill) / 2))"
+    echo "teardown: (teardown deletes) 500"
+} >"$work/want-shapes"
+estimates "$dir/good-shapes.yaml" >"$work/got-shapes"
+diff -u "$work/want-shapes" "$work/got-shapes" || fail "good-shapes: estimates differ from the arithmetic"
+total=$(((10 + 400) * 60 / 2 + steps + 4 * 10 * 1000 / 500 + churn_ops + 500))
+"$SQUALL" check "$dir/good-shapes.yaml" |
+    grep -q "^plan: 5 phases, .*, $((total / 1000)),$(printf %03d $((total % 1000))) requests expected" ||
+    fail "good-shapes: the plan total is not $total"
+echo "ok: good-shapes estimates equal the arithmetic (ramp $(((10 + 400) * 60 / 2)), total $total)"
+# scenarios/demo.yaml: ramp 10/s -> 50/s over 5 s; 100/s for 10 s, mix 70 : 5 : 25; 200 agents
+# every 2 s, aligned, for 6 s; teardown of what the fill created.
+fill=$(((10 + 50) * 5 / 2))
+{
+    echo "fill: register-gateway $fill"
+    echo "steady: read-gateway $((100 * 10 * 70 / 100))"
+    echo "steady: list-gateways $((100 * 10 * 5 / 100))"
+    echo "steady: renew $((100 * 10 * 25 / 100))"
+    echo "rush: renew-agent $((200 * 6 / 2))"
+    echo "teardown: (teardown deletes) $fill"
+} >"$work/want-demo"
+estimates "$SRCDIR/scenarios/demo.yaml" >"$work/got-demo"
+diff -u "$work/want-demo" "$work/got-demo" || fail "demo: estimates differ from the arithmetic"
+echo "ok: demo estimates equal the arithmetic"
 
 # demo's steady phase is 100/s for 10 s; at 20/s its 25% renew share is 20 * 10 * 25/100 = 50.
 out=$("$SQUALL" check "$SRCDIR/scenarios/demo.yaml" --set phases.steady.rate=20/s)

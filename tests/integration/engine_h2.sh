@@ -2,7 +2,7 @@
 # Engine over HTTP/2 against a real nginx: many requests over reused h2c (prior knowledge) and
 # TLS (ALPN) connections with zero errors, within the connection cap.
 # Source of the trap: curl issue #10634 (libcurl 7.88.1 fails the second transfer on a reused
-# h2c connection opened with prior knowledge), see shared/NOTES-libraries.md.
+# h2c connection opened with prior knowledge; fixed by curl pull request #10643, in 8.0.0).
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/nginx.sh"
 source "$SRCDIR/tests/integration/lib/probe.sh"

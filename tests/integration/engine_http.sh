@@ -77,7 +77,9 @@ check "DELETE on a static file is answered 405 by nginx (4xx)" \
 # 10 ms delay: request k (from 0) is intended at k/R but, served one after another, completes
 # near (k+1)·s with s the service time, so its response time is (k+1)·s − k/R (deterministic
 # queueing arithmetic; s measured, the server's delay is its source). The HDR p50 of 100 samples
-# is the 50th smallest (NOTES-methods), k = 49: 50·s − 24.5 ms. Service time must not show it.
+# is the sample of rank (int64)(0.50·100 + 0.5) = 50 (HdrHistogram_c src/hdr_histogram.c,
+# hdr_value_at_percentile), the 50th smallest, k = 49: 50·s − 49/2000 s = 50·s − 24.5 ms.
+# Service time must not show it.
 probe "$T/queue.json" --url "$BASE" --path /delay/10ms --requests 100 --rate 2000 \
     --connections 1
 check "our queue's waiting is in response time: p50 = 50·s − 24.5 ms within 10 %, service ~10 ms" \

@@ -74,10 +74,13 @@ expect "the root holds only its $BEFORE file again (has $(files))" test "$(files
 expect "and the file that was there before is untouched" test -s "$T/www/gw/keep-me.json"
 
 run_plan "$T/keep" "$T/dav.yaml" --keep
+expect "the --keep run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
 expect "with --keep the 100 PUT files stay in the root ($(files) files)" \
     test "$(files)" = $((BEFORE + 100))
 "$SQUALL" cleanup "$T/keep" >"$T/cleanup.out" 2>&1
-expect "squall cleanup deletes them (exit $?)" grep -q "100 alive: 100 deleted" "$T/cleanup.out"
+CRC=$?
+expect "squall cleanup exits 0 (got $CRC)" test "$CRC" = 0
+expect "and deletes them" grep -q "100 alive: 100 deleted" "$T/cleanup.out"
 expect "and the root is back to $BEFORE file (has $(files))" test "$(files)" = "$BEFORE"
 
 # The target's headers go with every request the run sends, teardown deletes included, and

@@ -107,17 +107,25 @@ expect "nothing discovered was deleted (count $(objects), expected $BEFORE)" tes
 expect "and no journal was written: the plan creates nothing" test ! -e "$T/disc/journal.ndjson"
 
 # --- --keep, then cleanup ---------------------------------------------------------------------
+# Arithmetic (the plan's): fill creates 100; churn at 40/s for 1 s = 40 operations, all deletes
+# while the population is above 60 (100 - 40 = 60 reaches it exactly): 60 objects stay.
 plan "$T/keep.yaml" 1s ""
 run_plan "$T/keep" "$T/keep.yaml" --keep
+expect "the --keep run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
 KEPT=$(lc "$T/keep" "['teardown']['left']")
+expect "--keep leaves the population of 100 - 40 = 60 objects (results say $KEPT)" \
+    test "$KEPT" = 60
 expect "--keep leaves the population on the target ($KEPT objects, target has $(objects))" \
     test "$(objects)" = $((BEFORE + KEPT))
 "$SQUALL" cleanup "$T/keep" >"$T/c1.out" 2>&1
 C1=$?
-expect "squall cleanup exits 0 (got $C1) and deleted $KEPT" grep -q "$KEPT alive: $KEPT deleted" "$T/c1.out"
+expect "squall cleanup exits 0 (got $C1)" test "$C1" = 0
+expect "and deleted $KEPT" grep -q "$KEPT alive: $KEPT deleted" "$T/c1.out"
 expect "and the target is back to $BEFORE objects (got $(objects))" test "$(objects)" = "$BEFORE"
 "$SQUALL" cleanup "$T/keep/journal.ndjson" >"$T/c2.out" 2>&1
-expect "a second cleanup deletes nothing: idempotent" grep -q ": 0 alive: 0 deleted" "$T/c2.out"
+C2=$?
+expect "a second cleanup exits 0 (got $C2)" test "$C2" = 0
+expect "and deletes nothing: idempotent" grep -q ": 0 alive: 0 deleted" "$T/c2.out"
 
 # --- SIGINT: teardown still runs -------------------------------------------------------------
 plan "$T/int.yaml" 20s ""
@@ -145,6 +153,7 @@ rcheck "results.json says teardown deleted every object and left none" \
 plan "$T/retry.yaml" 1s ""
 run_plan "$T/retry" "$T/retry.yaml" --keep
 N=$(lc "$T/retry" "['teardown']['left']")
+expect "the run before cleanup kept its 60 objects (results say $N)" test "$N" = 60
 faults() { curl -s -X POST -d "$1" "$TGT_URL/admin/faults" >/dev/null; }
 faults '{"fail_rate": 1, "fail_status": 503, "retry_after": 2}'
 "$SQUALL" cleanup "$T/retry" --rate 0 >"$T/retry.out" 2>&1 &
@@ -153,7 +162,8 @@ sleep 1.5
 faults '{"fail_rate": 0}'
 wait "$CP"
 CRC=$?
-expect "cleanup through 503 + Retry-After exits 0 (got $CRC) with all $N deleted" \
+expect "cleanup through 503 + Retry-After exits 0 (got $CRC)" test "$CRC" = 0
+expect "with all $N deleted" \
     grep -q "$N alive: $N deleted, 0 already gone, 0 failed, 0 left" "$T/retry.out"
 SECS=$(sed -n 's/.*left (\([0-9.]*\) s).*/\1/p' "$T/retry.out")
 expect "it waited the 2 s Retry-After before retrying (took $SECS s)" \

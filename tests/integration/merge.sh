@@ -7,8 +7,8 @@
 set -uo pipefail
 helper="$BUILDDIR/tests/unit/test-results"
 if [ ! -x "$helper" ]; then
-    echo "SKIP: $helper not built (cmocka missing)"
-    exit 77
+    echo "FAIL: $helper not built (it needs cmocka: tools/setup installs libcmocka-dev)"
+    exit 1
 fi
 tmp=$(mktemp -d /tmp/squall-merge-XXXXXX)
 trap 'rm -rf "$tmp"' EXIT

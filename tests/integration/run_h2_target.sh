@@ -6,9 +6,9 @@
 # (checked first with curl --http2-prior-knowledge) the same holds; if it does not, the run must
 # stop at once with exit 4 and a message saying so, counting no request as a success.
 # Sources: curl issue #10634 (libcurl 7.88.1 fails the second transfer on a reused h2c
-# connection opened with prior knowledge), shared/NOTES-libraries.md; RFC 9113 §3.3 (prior
-# knowledge: the client sends the preface first; a server that does not speak HTTP/2 cannot
-# answer it).
+# connection opened with prior knowledge; fixed by curl pull request #10643, in 8.0.0); RFC 9113
+# §3.3 (prior knowledge: the client sends the preface first; a server that does not speak
+# HTTP/2 cannot answer it).
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/nginx.sh"
 source "$SRCDIR/tests/integration/lib/target.sh"

@@ -11,8 +11,9 @@ mkdir -p "$T"
 
 # --- Coordinated omission -------------------------------------------------------------------
 # A constant-rate run of T = 10 s during which the server answers nothing for S = 2 s (the
-# target's stall fault, from 1 s after it starts). Analytic values (HdrHistogram README,
-# "Corrected vs. Raw", NOTES-methods.md): the requests whose intended start falls in the stall,
+# target's stall fault, from 1 s after it starts). Analytic values (the situation of the
+# HdrHistogram README's "Corrected vs. Raw" example, derived here): the requests whose intended
+# start falls in the stall,
 # a fraction S/T = 0.2, each wait until the stall ends, so their response time is uniform on
 # [0, S]; the other 80 % see only the quiet-time latency. Hence the response-time percentile p
 # (as a fraction) is about (p - (1 - S/T)) * T for p > 0.8: p90 = 1.0 s, p99 = 1.9 s,

@@ -3,8 +3,8 @@
 # every agent at once (counts agree with what the target stored), the burst fills exactly the
 # plan's connection cap, its first request is written right at the tick, and its dispatch
 # spread is reported; spread agents' sends are uniform over each period (Pearson chi-square,
-# df 9, critical value 21.666 at alpha .01, NIST/SEMATECH e-Handbook table, NOTES-methods.md);
-# jittered ticks split the phase's latency into burst and quiet time.
+# df 9, critical value 21.666 at alpha .01, NIST/SEMATECH e-Handbook table, recomputed below with
+# scipy.stats.chi2); jittered ticks split the phase's latency into burst and quiet time.
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/target.sh"
 source "$SRCDIR/tests/integration/lib/run.sh"
@@ -47,6 +47,9 @@ rcheck "aligned: each tick's dispatch spread is reported and under the 1 s perio
 rcheck "aligned: nothing written before the tick (bins 0-4 of the centred window are empty)" \
     "all(sum(t['bins'][:5]) == 0 for t in $A['ticks'])" "$T/f"
 # Chi-square per full tick: 1,000 sends in 10 equal sub-intervals, 100 expected in each.
+CRIT=$(/usr/bin/python3 -c 'from scipy.stats import chi2; print(repr(float(chi2.ppf(0.99, 9))))')
+expect "scipy's chi-square .01 critical value for df 9 ($CRIT) is the table's 21.666" \
+    /usr/bin/python3 -c "import sys; sys.exit(not abs(float('${CRIT:-nan}') - 21.666) <= 5e-4)"
 rcheck "spread: each tick's sends are uniform over the period (chi-square df 9 < 21.666) $(rget "$T/f" "[round(sum((b - 100) ** 2 / 100 for b in t['bins']), 2) for t in $S['ticks']]" 2>/dev/null)" \
     "len($S['ticks']) == 3 and all(sum(t['bins']) == 1000 and sum((b - 100) ** 2 / 100 for b in t['bins']) < 21.666 for t in $S['ticks'])" "$T/f"
 rcheck "jitter: burst and quiet latency both measured and they cover every request of the phase" \

@@ -33,9 +33,10 @@ stat() { curl -s "$U/stats" | jq -r "$1"; }
 faults() { curl -s -o /dev/null -w '%{http_code}' -X POST --data "$1" "$U/admin/faults"; }
 curl -s -X PUT --data '{"model":"t-a"}' "$U/v1/sites/north/gateways/gw-1" >/dev/null
 
-# Added latency: a fixed 50 ms server-side delay; libcurl's total time sits ~0.2 ms above a raw
-# client's against a known delay (shared/NOTES-libraries.md), so the client median must land in
-# [50, 65] ms and never below 50.
+# Added latency: a fixed 50 ms server-side delay. No answer can come before the delay has passed,
+# so the client's minimum is at least 50 ms; on loopback the client's own overhead is well under
+# a millisecond (a bound we measured on these machines, not a published figure), and the 15 ms
+# margin is our allowance for a shared 2-core machine, so the median must land in [50, 65] ms.
 [ "$(faults '{"delay":"fixed:50ms"}')" = 200 ] || fail "POST /admin/faults"
 for i in $(seq 20); do
     curl -s -o /dev/null -w '%{time_total}\n' "$U/v1/sites/north/gateways/gw-1"
@@ -145,7 +146,7 @@ echo "ok: drop at 0.5 s ended 5 watches abruptly; POST /admin/drop-watches ended
 curl -s -N --max-time 1 "$U/v1/sites/quiet/gateways?watch=1" >/dev/null
 for i in $(seq 60); do [ "$(stat .streams.open)" = 0 ] && break; sleep 0.1; done
 [ "$(stat .streams.open)" = 0 ] && [ "$(stat .streams.gone)" = 1 ] ||
-    fail "a vanished idle watcher still counted: $(stat -c .streams)"
+    fail "a vanished idle watcher still counted: $(stat .streams)"
 echo "ok: an idle watcher that left was released by the sweep (streams.gone = 1)"
 
 # In-flight limit 2, reject: 6 simultaneous requests held 300 ms each -> exactly 2 answered 200

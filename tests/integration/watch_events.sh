@@ -83,21 +83,22 @@ rcheck "no duplicates after watching from the list's version, and events kept ar
 rcheck "opens = 3 x $W: the first, the refused resume (410) and the one after the relist" \
     "$F['opens'] == 3 * $W" "$T/gone"
 # --- 4. A plan the open-file limit stops is refused before anything is sent. ---------------
-# Over HTTP/1.1 each watch holds a connection; this container's hard RLIMIT_NOFILE is 20,000.
-hard=$(ulimit -Hn)
-if [ "$hard" != unlimited ] && [ "$hard" -lt 100000 ]; then
-    cat >"$T/many.yaml" <<YAML
+# Over HTTP/1.1 each watch holds a connection. The run gets a known hard RLIMIT_NOFILE of 4,096
+# (lowered in a subshell, which needs no privilege), so the check runs whatever this machine's
+# own limit is, and 5,096 watches are more than it allows.
+hard=4096
+cat >"$T/many.yaml" <<YAML
 target: {url: "http://127.0.0.1:9", connections: 2}
 requests:
   follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1"}
 phases:
   - {name: many, duration: 5s, watches: {follow: $((hard + 1000))}}
 YAML
-    "$SQUALL" run "$T/many.yaml" -o "$T/many" --quiet >"$T/many.out" 2>&1
-    rc=$?
-    expect "$((hard + 1000)) HTTP/1.1 watches exit 2 (got $rc)" test "$rc" = 2
-    expect "and the message names the phase and the RLIMIT_NOFILE limit ($hard)" \
-        grep -q "phase 'many' opens $((hard + 1000)) watches.*at most $hard (RLIMIT_NOFILE" "$T/many.out"
-fi
+(ulimit -n "$hard" && exec "$SQUALL" run "$T/many.yaml" -o "$T/many" --quiet) >"$T/many.out" 2>&1
+rc=$?
+expect "$((hard + 1000)) HTTP/1.1 watches exit 2 (got $rc)" test "$rc" = 2
+expect "and the message names the phase and the RLIMIT_NOFILE limit ($hard)" \
+    grep -q "phase 'many' opens $((hard + 1000)) watches.*at most $hard (RLIMIT_NOFILE" "$T/many.out"
+expect "and writes no results" test ! -e "$T/many/results.json"
 [ "$FAILED" = 0 ] && echo "PASS: watch events" || echo "FAIL: watch events"
 exit "$FAILED"

@@ -1,6 +1,8 @@
 /* Unit tests for the brakes in force (src/observe/brakes.c): loose defaults for a loopback target,
  * stricter ones with a latency brake for any other (taken to be shared), a plan's own brake of
- * a kind replacing that default, and --no-brakes. Plans are only loaded: nothing is sent. */
+ * a kind replacing that default, and --no-brakes. Plans are only loaded: nothing is sent. The
+ * expected figures are the documented ones (README.md, "Judgement": the table of default brakes;
+ * they are squall's own choice, not an outside standard). */
 #include <setjmp.h>
 #include <stdarg.h>
 #include <stddef.h>

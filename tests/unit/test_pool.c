@@ -14,9 +14,7 @@
 #include "squall/err.h"
 #include "squall/pool.h"
 #include "squall/rng.h"
-
-/* Chi-square critical value at .01, df 9 (NIST/SEMATECH e-Handbook table). */
-#define CHI2_9_01 21.666
+#include "test_stats.h" /* CHI2_9_01: NIST/SEMATECH table, checked with scipy */
 
 static void test_add_remove(void **state)
 {
@@ -163,7 +161,7 @@ int main(void)
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_add_remove),   cmocka_unit_test(test_random_ops),
         cmocka_unit_test(test_uniform_pick), cmocka_unit_test(test_zipf_matches_scipy),
-        cmocka_unit_test(test_zipf_edges),
+        cmocka_unit_test(test_zipf_edges),   cmocka_unit_test(test_critical_values_match_scipy),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -218,7 +218,8 @@ static void test_reader_refusals(void **state)
 }
 
 /* The issue's proof: merging shard files gives the histograms of all samples recorded into
- * one (merging adds counts, NOTES-methods.md "HDR histograms"), also after a write/read. */
+ * one (merging adds counts: HdrHistogram_c src/hdr_histogram.c, hdr_add records every bucket's
+ * count of the source into the destination), also after a write/read. */
 static void test_merge_equals_all(void **state)
 {
     (void)state;

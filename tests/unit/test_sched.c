@@ -10,7 +10,7 @@
 
 #include "squall/err.h"
 #include "squall/sched.h"
-#include "test_sched_stats.h"
+#include "test_stats.h"
 
 #define S INT64_C(1000000000)
 
@@ -86,8 +86,9 @@ static double *poisson_gaps(double rate, int64_t dur, uint64_t seed, size_t *n)
 }
 
 /* One-sample KS of the intended gaps against Exp(λ) at α = .01 with the asymptotic critical
- * value 1.62762/√n (NOTES-methods.md), D and its p-value cross-checked with scipy.stats.kstest
- * (Debian python3-scipy) on the same gaps. A wrong λ (1.1λ) must be rejected: the test bites. */
+ * value KS_C_01/√n (the Kolmogorov distribution's 0.99 quantile, test_stats.h), D and its p-value
+ * cross-checked with scipy.stats.kstest (Debian python3-scipy) on the same gaps. A wrong λ
+ * (1.1λ) must be rejected: the test bites. */
 static void test_poisson_ks(void **state)
 {
     (void)state;
@@ -117,13 +118,15 @@ static void test_poisson_ks(void **state)
     free(g);
 }
 
-/* Chi-square of λ·gap over the ten equiprobable Exp(1) bins listed in NOTES-methods.md, df 9,
- * critical 21.666 at .01 (NIST/SEMATECH table). */
+/* Chi-square of λ·gap over ten equiprobable Exp(1) bins, df 9, critical 21.666 at .01
+ * (NIST/SEMATECH table, test_stats.h). The edges are the Exp(1) deciles, derived here from its
+ * CDF F(x) = 1 − e^(−x): F(x_k) = k/10 gives x_k = −ln(1 − k/10), 0.10536 … 2.30259. */
 static void test_poisson_chi_square(void **state)
 {
     (void)state;
-    static const double edges[9] = {0.10536, 0.22314, 0.35667, 0.51083, 0.69315,
-                                    0.91629, 1.20397, 1.60944, 2.30259};
+    double edges[9];
+    for (int k = 1; k <= 9; k++)
+        edges[k - 1] = -log(1.0 - k / 10.0);
     double rate = 2000;
     size_t n;
     double *g = poisson_gaps(rate, 10 * S, 7, &n);
@@ -257,10 +260,47 @@ static void test_rate_at(void **state)
     assert_true(sched_open_rate(&cfg, -1) == 0);
 }
 
-/* Derived seeds: reproducible, and distinct across phases and streams (1,000 of them). */
+/* splitmix64's K-th output for SEED, computed by tests/unit/sched_ref.py from the published
+ * constants (Python integers, no code shared with src/sched/). */
+static uint64_t splitmix_ref(uint64_t seed, uint64_t k)
+{
+    char cmd[512];
+    snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s/tests/unit/sched_ref.py splitmix %llu %llu",
+             SRCDIR, (unsigned long long)seed, (unsigned long long)k);
+    FILE *p = popen(cmd, "r");
+    assert_non_null(p);
+    unsigned long long v = 0;
+    int got = fscanf(p, "%llu", &v);
+    if (pclose(p) != 0 || got != 1)
+        fail_msg("sched_ref.py splitmix failed (needs /usr/bin/python3)");
+    return (uint64_t)v;
+}
+
+/* Derived seeds: sched_seed(run, phase, stream) is the k-th output of a splitmix64 generator
+ * seeded with run, k = (phase << 32 | stream) + 1 (src/sched/seed.c), checked against splitmix64
+ * recomputed in Python from the published constants (Steele, Lea & Flood, OOPSLA 2014), and
+ * against a published check sequence (seed 1234567, quoted from memory in sched_ref.py). Then:
+ * reproducible, and distinct across phases and streams (1,000 of them). */
 static void test_seeds(void **state)
 {
     (void)state;
+    /* Rosetta Code's splitmix64 sequence for seed 1234567: phase 0, streams 0, 1, 2. */
+    assert_true(sched_seed(1234567, 0, 0) == UINT64_C(6457827717110365317));
+    assert_true(sched_seed(1234567, 0, 1) == UINT64_C(3203168211198807973));
+    assert_true(sched_seed(1234567, 0, 2) == UINT64_C(9817491932198370423));
+    static const struct {
+        uint64_t run;
+        uint32_t phase, stream;
+    } cases[] = {{42, 3, 1}, {0, 0, 0}, {UINT64_MAX, 7, 1003}, {0x5eed, 4294967295u, 12}};
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        uint64_t k = ((uint64_t)cases[i].phase << 32 | cases[i].stream) + 1;
+        uint64_t want = splitmix_ref(cases[i].run, k);
+        if (sched_seed(cases[i].run, cases[i].phase, cases[i].stream) != want)
+            fail_msg("sched_seed(%llu, %u, %u) = %llu, splitmix64 gives %llu",
+                     (unsigned long long)cases[i].run, cases[i].phase, cases[i].stream,
+                     (unsigned long long)sched_seed(cases[i].run, cases[i].phase, cases[i].stream),
+                     (unsigned long long)want);
+    }
     assert_int_equal(sched_seed(42, 3, 1), sched_seed(42, 3, 1));
     uint64_t seen[1000];
     for (int i = 0; i < 1000; i++) {
@@ -459,6 +499,7 @@ int main(void)
         cmocka_unit_test(test_mix),
         cmocka_unit_test(test_closed_fixed),
         cmocka_unit_test(test_closed_exp),
+        cmocka_unit_test(test_critical_values_match_scipy),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

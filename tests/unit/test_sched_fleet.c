@@ -9,7 +9,7 @@
 
 #include "squall/err.h"
 #include "squall/sched.h"
-#include "test_sched_stats.h"
+#include "test_stats.h"
 
 #define S INT64_C(1000000000)
 
@@ -331,6 +331,7 @@ int main(void)
         cmocka_unit_test(test_leave),
         cmocka_unit_test(test_fleet_due),
         cmocka_unit_test(test_fleet_determinism),
+        cmocka_unit_test(test_critical_values_match_scipy),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -398,8 +398,8 @@ static void test_pagination_concurrent(void **state)
 }
 
 /* ---- Watches: resumption from a version delivers every later event once, in order; a version
- * older than the history window gets 410 (common practice of watchable stores, see
- * shared/NOTES-methods.md "Streams"). */
+ * older than the history window gets 410 Gone (RFC 9110 §15.5.11: no longer available; using it
+ * for an expired resume point is common practice of watchable stores, not a standard). */
 static int count_lines(const char *s)
 {
     int n = 0;
@@ -475,8 +475,9 @@ static void test_watch_resume_and_expiry(void **state)
     server_stop(&s);
 }
 
-/* ---- OpenMetrics 1.0 text (shared/NOTES-methods.md "Live metrics"): ends with "# EOF",
- * histogram buckets non-decreasing, le="+Inf" equal to _count. */
+/* ---- OpenMetrics 1.0 text (OpenMetrics specification 1.0, "Histogram" and "Overall
+ * structure"): the exposition ends with "# EOF", bucket counts are cumulative (non-decreasing),
+ * and the le="+Inf" bucket equals _count. */
 static void test_metrics_wellformed(void **state)
 {
     (void)state;

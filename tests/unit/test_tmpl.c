@@ -13,10 +13,7 @@
 
 #include "squall/err.h"
 #include "squall/tmpl.h"
-
-/* Chi-square critical values at .01 (NIST/SEMATECH e-Handbook table): df 2 9.210, df 9 21.666. */
-#define CHI2_2_01 9.210
-#define CHI2_9_01 21.666
+#include "test_stats.h" /* CHI2_2_01, CHI2_9_01: NIST/SEMATECH table, checked with scipy */
 
 static tmpl_t *compile_ok(const tmpl_env_t *env, const char *text)
 {
@@ -397,7 +394,7 @@ int main(void)
         cmocka_unit_test(test_escaping),        cmocka_unit_test(test_pick_list),
         cmocka_unit_test(test_pick_range),      cmocka_unit_test(test_env),
         cmocka_unit_test(test_errors),          cmocka_unit_test(test_buffers),
-        cmocka_unit_test(test_json_body),
+        cmocka_unit_test(test_json_body),       cmocka_unit_test(test_critical_values_match_scipy),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

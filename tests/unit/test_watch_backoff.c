@@ -1,7 +1,9 @@
-/* Reconnect delays against the formulas of "Exponential Backoff and Jitter" (AWS Architecture
- * Blog, 2015; NOTES-methods.md), checked with the one-sample Kolmogorov-Smirnov test and its
- * published asymptotic critical value, and the watch stream's state machine (resume, too old,
- * relist, duplicates, closed is final). */
+/* Reconnect delays against the formulas of "Exponential Backoff and Jitter" (Marc Brooker, AWS
+ * Architecture Blog, March 2015: expo = min(cap, base * 2 ** attempt); full jitter
+ * random_between(0, expo); equal jitter expo/2 + random_between(0, expo/2); decorrelated
+ * min(cap, random_between(base, sleep * 3))), checked with the one-sample Kolmogorov-Smirnov test
+ * and the Kolmogorov distribution's critical value (test_stats.h, checked against scipy), and the
+ * watch stream's state machine (resume, too old, relist, duplicates, closed is final). */
 #include <setjmp.h>
 #include <stdarg.h>
 #include <stddef.h>
@@ -10,7 +12,7 @@
 #include <cmocka.h>
 
 #include "squall/watch.h"
-#include "test_sched_stats.h"
+#include "test_stats.h"
 
 #define MS INT64_C(1000000)
 #define N  4000
@@ -44,8 +46,8 @@ static void test_expo_and_deterministic_policies(void **state)
 }
 
 /* Full jitter: attempt n is U(0, expo(n)). N draws per attempt, each fresh from attempt 0. The KS
- * distance must stay under c(.01)/sqrt(N) = 1.62762/sqrt(N) (Kolmogorov distribution,
- * asymptotic; NOTES-methods.md "Statistics for tests"). */
+ * distance must stay under c(.01)/sqrt(N) = 1.62762/sqrt(N) (the Kolmogorov distribution's 0.99
+ * quantile, asymptotic; KS_C_01 in test_stats.h, recomputed with scipy.stats.kstwobign). */
 static void test_full_jitter_ks(void **state)
 {
     (void)state;
@@ -225,6 +227,7 @@ int main(void)
         cmocka_unit_test(test_decorrelated),
         cmocka_unit_test(test_stream_machine),
         cmocka_unit_test(test_too_old_without_relist),
+        cmocka_unit_test(test_critical_values_match_scipy),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

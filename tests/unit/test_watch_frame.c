@@ -157,8 +157,10 @@ static void test_sse_spec_examples(void **state)
 }
 
 /* Lines end with CRLF, LF or CR, mixed; `event` sets the type for one event only; an unknown
- * field (`data : x` names the field "data ") and a non-digit retry are ignored (NOTES-methods.md
- * check vectors); a valid retry is kept. */
+ * field and a non-digit retry are ignored; a valid retry is kept. Derived from WHATWG HTML,
+ * "Interpreting an event stream": the field name is everything before the first colon, so
+ * `data : x` names the field "data " (with its space), which matches no known field and is
+ * ignored; a `retry` value is used only if it consists of ASCII digits. */
 static void test_sse_line_ends_and_fields(void **state)
 {
     (void)state;

@@ -69,7 +69,7 @@ done
 stop_target
 
 # Watch streams held: HTTP/1.1 needs one descriptor per stream on each side; the hard
-# RLIMIT_NOFILE here is 20,000 (shared/NOTES-libraries.md), so STREAMS stays below it.
+# RLIMIT_NOFILE in this container is 20,000 (`ulimit -Hn`), so STREAMS stays below it.
 ulimit -n "$(ulimit -Hn)"
 start_target --stream-buffer 65536
 rss() { awk '/^VmRSS/{print $2}' "/proc/$TPID/status"; }
@@ -143,7 +143,7 @@ per request from the cached rendering). Goal: target/nginx >= 0.5.
 |---|---|---|---|---|
 ${ROWS}
 ### Watch streams held (HTTP/1.1, one connection each)
-The hard open-file limit here is 20,000 per process (shared/NOTES-libraries.md), and HTTP/1.1
+The hard open-file limit here is 20,000 per process (\`ulimit -Hn\`), and HTTP/1.1
 needs one descriptor per stream on each side, so ${STREAMS} streams were requested (not 20,000;
 the target has no HTTP/2, see DEVELOPERS.md).
 
