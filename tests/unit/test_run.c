@@ -1,0 +1,333 @@
+/* Unit tests for the conductor (src/run/) over a fake engine (fake_engine.c): phases in order
+ * with exact counts, the teardown after everything drained, a signal, an unreachable target,
+ * a brake, an internal failure (exit 6), closed-loop clients that never overlap, and the
+ * planned starts in series.csv matching what was sent. Counts and order are asserted, never
+ * times: the machine is shared. */
+#include <pthread.h>
+#include <setjmp.h>
+#include <signal.h>
+#include <stdarg.h>
+#include <stddef.h>
+#include <stdint.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+#include <unistd.h>
+
+#include <cmocka.h>
+
+#include "../../src/cli/cli_run.h"
+#include "fake_engine.h"
+#include "squall/err.h"
+#include "squall/results.h"
+#include "squall/run.h"
+
+typedef struct {
+    char dir[64];
+    char plan_path[128];
+    plan_t *plan;
+    out_t *o;
+    run_result_t res;
+    int rc;
+    results_t *results;
+} run_case_t;
+
+/* Loads `yaml`, runs it into a fresh directory with seed 1 and the given options. */
+static void run_yaml(run_case_t *c, const char *yaml, const run_opts_t *extra)
+{
+    snprintf(c->dir, sizeof c->dir, "/tmp/squall-run-XXXXXX");
+    assert_non_null(mkdtemp(c->dir));
+    snprintf(c->plan_path, sizeof c->plan_path, "%s/plan.yaml", c->dir);
+    FILE *f = fopen(c->plan_path, "w");
+    assert_non_null(f);
+    fputs(yaml, f);
+    fclose(f);
+    c->o = out_new_capture();
+    int rc = plan_load(c->plan_path, NULL, 0, &c->plan, c->o);
+    if (rc)
+        fail_msg("plan: %s", out_captured_diag(c->o));
+    char out[160];
+    snprintf(out, sizeof out, "%s/out", c->dir);
+    run_opts_t ro = extra ? *extra : (run_opts_t){0};
+    ro.results_dir = out;
+    ro.quiet = true;
+    ro.has_seed = true;
+    ro.seed = 1;
+    ro.grace_ns = ro.grace_ns ? ro.grace_ns : 200000000;
+    fake.n_log = fake.completed = fake.engines = 0;
+    c->rc = run_plan(c->plan, &ro, c->o, &c->res);
+    if (c->rc == 0 && results_read(out, &c->results, c->o))
+        fail_msg("results: %s", out_captured_diag(c->o));
+}
+
+static void case_close(run_case_t *c)
+{
+    /* Every libuv handle was closed: run_plan says so when uv_loop_close fails. */
+    assert_null(strstr(out_captured_diag(c->o), "handles still open"));
+    results_free(c->results);
+    plan_free(c->plan);
+    out_free(c->o);
+    char cmd[200];
+    snprintf(cmd, sizeof cmd, "rm -rf %s", c->dir);
+    assert_int_equal(system(cmd), 0);
+    fake.answer = NULL;
+    fake.delay_ns = 0;
+}
+
+static int64_t count(const run_case_t *c, const char *phase, const char *cls, const char *oc)
+{
+    results_cell_t *cell = results_cell_find(c->results, phase, cls, oc);
+    return cell ? results_cell_counters(cell)->count : 0;
+}
+
+static int logged(const char *method, const char *prefix)
+{
+    int n = 0;
+    for (int i = 0; i < fake.n_log; i++)
+        n += !strcmp(fake.log[i].method, method) && !strncmp(fake.log[i].path, prefix, strlen(prefix));
+    return n;
+}
+
+/* Even arrivals are at Λ⁻¹(k), k = 0, 1, ...: 50/s over 1 s is exactly 50 starts, 100/s over
+ * 0.5 s exactly 50; every start of the second phase comes after every start of the first. */
+static void test_phases_in_order(void **state)
+{
+    (void)state;
+    run_case_t c = {0};
+    run_yaml(&c,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  a: {kind: get, path: /a}\n  b: {kind: get, path: /b}\n"
+             "phases:\n  - {name: one, rate: 50/s, duration: 1s, mix: {a: 1}}\n"
+             "  - {name: two, rate: 100/s, duration: 500ms, mix: {b: 1}}\n",
+             NULL);
+    assert_int_equal(c.rc, 0);
+    assert_int_equal(c.res.end, RUN_END_DONE);
+    assert_false(c.res.objectives_failed || c.res.write_failed);
+    assert_int_equal(count(&c, "one", "a", "2xx"), 50);
+    assert_int_equal(count(&c, "two", "b", "2xx"), 50);
+    int64_t last_a = 0, first_b = INT64_MAX;
+    for (int i = 0; i < fake.n_log; i++) {
+        if (fake.log[i].path[1] == 'a' && fake.log[i].intended_ns > last_a)
+            last_a = fake.log[i].intended_ns;
+        if (fake.log[i].path[1] == 'b' && fake.log[i].intended_ns < first_b)
+            first_b = fake.log[i].intended_ns;
+    }
+    assert_true(last_a < first_b);
+    assert_int_equal(cli_run_exit(c.rc, &c.res), SQ_EXIT_OK);
+    case_close(&c);
+}
+
+static void answer_created(const char *method, const char *path, fake_answer_t *a)
+{
+    (void)path;
+    a->status = !strcmp(method, "PUT") ? 201 : !strcmp(method, "DELETE") ? 204 : 200;
+    a->body = "{\"version\": 3}";
+}
+
+/* A class that creates: every object answered 201 is deleted after the last phase, and only
+ * once every create has its answer (the teardown waits for the drain). */
+static void test_teardown_after_drain(void **state)
+{
+    (void)state;
+    fake.answer = answer_created;
+    fake.delay_ns = 30000000;
+    run_case_t c = {0};
+    run_yaml(&c,
+             "target: {url: \"http://127.0.0.1:9\", headers: {X-Site: north}}\n"
+             "requests:\n  make: {kind: write, method: PUT, path: \"/gw/{{seq}}\", "
+             "body: '{}', creates: true}\n"
+             "phases:\n  - {name: fill, rate: 20/s, duration: 300ms, mix: {make: 1}}\n",
+             NULL);
+    assert_int_equal(c.res.end, RUN_END_DONE);
+    assert_int_equal(logged("PUT", "/gw/"), 6);
+    assert_int_equal(logged("DELETE", "/gw/"), 6);
+    /* The teardown has an engine of its own, made from the same target settings. */
+    assert_int_equal(fake.engines, 2);
+    assert_string_equal(fake.headers, "X-Site: north");
+    int64_t last_put = 0;
+    for (int i = 0; i < fake.n_log; i++)
+        if (!strcmp(fake.log[i].method, "PUT") && fake.log[i].submitted_ns > last_put)
+            last_put = fake.log[i].submitted_ns;
+    for (int i = 0; i < fake.n_log; i++)
+        if (!strcmp(fake.log[i].method, "DELETE"))
+            assert_true(fake.log[i].submitted_ns >= last_put + fake.delay_ns);
+    json_t *life = results_section(c.results, "lifecycle");
+    assert_int_equal(json_integer_value(json_object_get(life, "created")), 6);
+    json_t *td = json_object_get(life, "teardown");
+    assert_int_equal(json_integer_value(json_object_get(td, "deleted")), 6);
+    case_close(&c);
+}
+
+static void *interrupt_soon(void *arg)
+{
+    (void)arg;
+    nanosleep(&(struct timespec){.tv_nsec = 300000000}, NULL);
+    kill(getpid(), SIGINT);
+    return NULL;
+}
+
+/* SIGINT stops new starts; results are still written, marked stopped, and the phase counts
+ * the time it actually ran (far less than its planned 20 s). */
+static void test_signal(void **state)
+{
+    (void)state;
+    pthread_t th;
+    assert_int_equal(pthread_create(&th, NULL, interrupt_soon, NULL), 0);
+    run_case_t c = {0};
+    run_yaml(&c,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  a: {kind: get, path: /a}\n"
+             "phases:\n  - {name: long, rate: 20/s, duration: 20s, mix: {a: 1}}\n",
+             NULL);
+    pthread_join(th, NULL);
+    assert_int_equal(c.res.end, RUN_END_SIGNAL);
+    assert_int_equal(cli_run_exit(c.rc, &c.res), SQ_EXIT_INTERRUPTED);
+    assert_true(results_meta(c.results)->interrupted);
+    assert_true(count(&c, "long", "a", "2xx") < 400);
+    json_t *ph = json_array_get(json_object_get(results_section(c.results, "phases"), "phases"), 0);
+    assert_true(json_real_value(json_object_get(ph, "elapsed_s")) < 20);
+    case_close(&c);
+}
+
+static void answer_refused(const char *method, const char *path, fake_answer_t *a)
+{
+    (void)method;
+    (void)path;
+    a->refused = true;
+}
+
+/* A target that refuses connections ends the run as unreachable (exit 4). */
+static void test_unreachable(void **state)
+{
+    (void)state;
+    fake.answer = answer_refused;
+    run_case_t c = {0};
+    run_yaml(&c,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  a: {kind: get, path: /a}\n"
+             "phases:\n  - {name: p, rate: 50/s, duration: 20s, mix: {a: 1}}\n",
+             NULL);
+    assert_int_equal(c.res.end, RUN_END_UNREACHABLE);
+    assert_int_equal(cli_run_exit(c.rc, &c.res), SQ_EXIT_UNREACHABLE);
+    case_close(&c);
+}
+
+static void answer_503(const char *method, const char *path, fake_answer_t *a)
+{
+    (void)method;
+    (void)path;
+    a->status = 503;
+}
+
+/* Every answer a 503: the plan's error-rate brake (over 1 s, at least 20 answers) stops it. */
+static void test_brake(void **state)
+{
+    (void)state;
+    fake.answer = answer_503;
+    run_case_t c = {0};
+    run_yaml(&c,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  a: {kind: get, path: /a}\n"
+             "phases:\n  - {name: p, rate: 100/s, duration: 20s, mix: {a: 1}}\n"
+             "brakes:\n  - {error-rate: 5%, for: 1s}\n",
+             NULL);
+    assert_int_equal(c.res.end, RUN_END_BRAKE);
+    assert_int_equal(cli_run_exit(c.rc, &c.res), SQ_EXIT_BRAKE);
+    assert_non_null(strstr(results_meta(c.results)->stop_reason, "brake: error rate"));
+    case_close(&c);
+}
+
+/* A request the generator cannot build (a list path longer than squall's 4 KiB URL buffer once
+ * its page size is added) is an internal failure: exit 6, not "interrupted by a signal". */
+static void test_internal_failure(void **state)
+{
+    (void)state;
+    char yaml[6000], seg[4200];
+    memset(seg, 'x', sizeof seg - 1);
+    seg[sizeof seg - 1] = '\0';
+    snprintf(yaml, sizeof yaml,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  l: {kind: list, path: \"/%s\", page: 10}\n"
+             "phases:\n  - {name: p, rate: 10/s, duration: 2s, mix: {l: 1}}\n",
+             seg);
+    run_case_t c = {0};
+    run_yaml(&c, yaml, NULL);
+    assert_int_equal(c.res.end, RUN_END_FAILED);
+    assert_int_equal(cli_run_exit(c.rc, &c.res), SQ_EXIT_FAILURE);
+    case_close(&c);
+}
+
+/* Closed-loop clients without think time: each client's next request starts when its last
+ * answer arrives, so one client's requests never overlap (2 clients, 40 ms answers). */
+static void test_closed_loop(void **state)
+{
+    (void)state;
+    fake.delay_ns = 40000000;
+    run_case_t c = {0};
+    run_yaml(&c,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  a: {kind: get, path: \"/c/{{agent}}\"}\n"
+             "phases:\n  - {name: p, duration: 1s, clients: {count: 2}, mix: {a: 1}}\n",
+             NULL);
+    assert_int_equal(c.res.end, RUN_END_DONE);
+    for (int k = 0; k < 2; k++) {
+        char who[16];
+        snprintf(who, sizeof who, "/c/%d", k);
+        int64_t prev = 0;
+        int n = 0;
+        for (int i = 0; i < fake.n_log; i++) {
+            if (strcmp(fake.log[i].path, who))
+                continue;
+            if (n++)
+                assert_true(fake.log[i].submitted_ns >= prev + fake.delay_ns);
+            prev = fake.log[i].submitted_ns;
+        }
+        assert_true(n >= 2 && n <= 26); /* at most one per 40 ms answer over 1 s, plus one */
+    }
+    case_close(&c);
+}
+
+/* series.csv's planned column: the sources' own model, second by second, adds up to what the
+ * plan sends (even 40/s over 1.5 s = 60) and to what was started. */
+static void test_planned_in_series(void **state)
+{
+    (void)state;
+    run_case_t c = {0};
+    run_yaml(&c,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  a: {kind: get, path: /a}\n"
+             "phases:\n  - {name: p, rate: 40/s, duration: 1500ms, mix: {a: 1}}\n",
+             NULL);
+    char path[200], line[512];
+    snprintf(path, sizeof path, "%s/out/series.csv", c.dir);
+    FILE *f = fopen(path, "r");
+    assert_non_null(f);
+    double planned = 0;
+    long started = 0;
+    assert_non_null(fgets(line, sizeof line, f)); /* header */
+    while (fgets(line, sizeof line, f)) {
+        char *fld[12] = {0};
+        int n = 0;
+        for (char *t = strtok(line, ",\n"); t && n < 12; t = strtok(NULL, ",\n"))
+            fld[n++] = t;
+        assert_int_equal(n, 12);
+        started += atol(fld[3]);
+        planned += atof(fld[11]);
+    }
+    fclose(f);
+    assert_int_equal(started, 60);
+    assert_true(planned > 59.999 && planned < 60.001);
+    case_close(&c);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_phases_in_order),  cmocka_unit_test(test_teardown_after_drain),
+        cmocka_unit_test(test_signal),           cmocka_unit_test(test_unreachable),
+        cmocka_unit_test(test_brake),            cmocka_unit_test(test_internal_failure),
+        cmocka_unit_test(test_closed_loop),      cmocka_unit_test(test_planned_in_series),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
