@@ -10,6 +10,7 @@
 #include <yaml.h>
 
 #include "squall/plan.h"
+#include "squall/value.h"
 
 /* Which kinds a key applies to (bit per enum plan_kind), for "page on a write" errors. */
 #define PK_GET   (1u << PLAN_GET)

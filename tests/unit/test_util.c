@@ -1,0 +1,185 @@
+/* Unit tests for the shared helpers in src/util/: the value parsers (durations, rates,
+ * percentages, numbers), the did-you-mean suggestion, the clocks and the atomic file write. */
+#include <setjmp.h>
+#include <stdarg.h>
+#include <stddef.h>
+#include <stdint.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <cmocka.h>
+
+#include "squall/err.h"
+#include "squall/value.h"
+
+/* cmocka 1.1.5 has no assert_double_equal; this one names both values when it fails. */
+#define assert_double_equal(a, b, tol) assert_near((a), (b), (tol), #a, __LINE__)
+
+static void assert_near(double a, double b, double tol, const char *what, int line)
+{
+    if (!(a - b <= tol && b - a <= tol))
+        fail_msg("line %d: %s = %.17g, expected %.17g (within %g)", line, what, a, b, tol);
+}
+
+/* Durations. The units are the SI second and its decimal submultiples (ms = 1e-3 s, us and µs
+ * = 1e-6 s, ns = 1e-9 s), and the minute and hour accepted for use with the SI (1 min = 60 s,
+ * 1 h = 3600 s): BIPM, The International System of Units, 9th ed. (2019), Tables 7 and 8.
+ * Expected values are that arithmetic, written out in ns. */
+static void test_duration(void **state)
+{
+    (void)state;
+    static const struct {
+        const char *text;
+        int64_t ns;
+    } ok[] = {
+        {"0", 0},
+        {"250ms", 250000000},
+        {"10s", INT64_C(10000000000)},
+        {"5m", INT64_C(300000000000)},
+        {"1h", INT64_C(3600000000000)},
+        {"1.5s", 1500000000},
+        {"500us", 500000},
+        {"500\xc2\xb5s", 500000},
+        {"1ns", 1},
+        {"1.1s", 1100000000}, /* exact: 1.1 is not representable as a double */
+        {"1m30s", INT64_C(90000000000)},
+        {"2m15s", INT64_C(135000000000)},     /* 2 * 60 + 15 = 135 s */
+        {"1h30m", INT64_C(5400000000000)},    /* 3600 + 30 * 60 = 5400 s */
+        {"1h0m0.5s", INT64_C(3600500000000)}, /* 3600.5 s */
+        {"1.5m", INT64_C(90000000000)},       /* 1.5 * 60 = 90 s */
+        {"0.25h", INT64_C(900000000000)},     /* 0.25 * 3600 = 900 s */
+        {"1s500ms", 1500000000},              /* parts add up whatever their order */
+        {"0.000000001s", 1},
+        /* INT64_MAX ns = 9223372036854775807 ns, the largest representable duration. */
+        {"9223372036854775807ns", INT64_MAX},
+    };
+    for (size_t i = 0; i < sizeof ok / sizeof ok[0]; i++) {
+        int64_t v = -1;
+        int rc = value_parse_duration(ok[i].text, &v);
+        if (rc != 0 || v != ok[i].ns)
+            fail_msg("duration '%s': rc %d, %lld ns, expected %lld ns", ok[i].text, rc,
+                     (long long)v, (long long)ok[i].ns);
+    }
+    static const struct {
+        const char *text;
+        int rc;
+    } bad[] = {
+        {"", SQ_EPARSE},
+        {"10", SQ_EPARSE}, /* a number without its unit */
+        {"2m15", SQ_EPARSE},
+        {"10 s", SQ_EPARSE},
+        {"1h 30m", SQ_EPARSE},
+        {" 1s", SQ_EPARSE},
+        {"1s ", SQ_EPARSE},
+        {"s", SQ_EPARSE},
+        {"m15s", SQ_EPARSE},
+        {"1.s", SQ_EPARSE},
+        {".5s", SQ_EPARSE},
+        {"1,5s", SQ_EPARSE},
+        {"+1s", SQ_EPARSE},
+        {"1e3ms", SQ_EPARSE},
+        {"10sec", SQ_EPARSE},
+        {"1d", SQ_EPARSE},
+        {"inf", SQ_EPARSE},
+        {"nans", SQ_EPARSE},
+        {"bogus", SQ_EPARSE},
+        {"-5s", SQ_ERANGE},
+        {"1.5ns", SQ_ERANGE},
+        {"9223372036854775808ns", SQ_ERANGE},
+        {"3000000h", SQ_ERANGE},                 /* 3e6 h = 1.08e22 ns > INT64_MAX (9.2e18) */
+        {"9223372036854775807ns1ns", SQ_ERANGE}, /* the sum passes INT64_MAX */
+        {"0x10s", SQ_EPARSE},
+    };
+    for (size_t i = 0; i < sizeof bad / sizeof bad[0]; i++) {
+        int64_t v = 42;
+        int rc = value_parse_duration(bad[i].text, &v);
+        if (rc != bad[i].rc)
+            fail_msg("duration '%s': got %d, expected %d", bad[i].text, rc, bad[i].rc);
+        assert_true(v == 42);
+    }
+}
+
+/* Rates are per second, per minute (60 s) or per hour (3600 s); percentages are hundredths. */
+static void test_rate_percent(void **state)
+{
+    (void)state;
+    double v;
+    assert_int_equal(value_parse_rate("500/s", &v), 0);
+    assert_true(v == 500);
+    assert_int_equal(value_parse_rate("30/m", &v), 0);
+    assert_true(v == 0.5); /* 30 per 60 s */
+    assert_int_equal(value_parse_rate("90/min", &v), 0);
+    assert_true(v == 1.5); /* 90 per 60 s */
+    assert_int_equal(value_parse_rate("2/h", &v), 0);
+    assert_double_equal(v, 2.0 / 3600, 1e-15);
+    assert_int_equal(value_parse_rate("0", &v), 0);
+    assert_true(v == 0);
+    assert_int_equal(value_parse_rate("1e3/s", &v), 0);
+    assert_true(v == 1000);
+    assert_int_equal(value_parse_rate("1e9/s", &v), 0); /* VALUE_RATE_MAX itself */
+    assert_true(v == VALUE_RATE_MAX);
+    v = 7;
+    assert_int_equal(value_parse_rate("500", &v), SQ_EPARSE);
+    assert_int_equal(value_parse_rate("500/d", &v), SQ_EPARSE);
+    assert_int_equal(value_parse_rate("500 /s", &v), SQ_EPARSE);
+    assert_int_equal(value_parse_rate("-1/s", &v), SQ_ERANGE);
+    assert_int_equal(value_parse_rate("2e9/s", &v), SQ_ERANGE); /* above VALUE_RATE_MAX 1e9 */
+    assert_int_equal(value_parse_rate("inf/s", &v), SQ_EPARSE);
+    assert_true(v == 7);
+    assert_int_equal(value_parse_percent("5%", &v), 0);
+    assert_true(v == 0.05);
+    assert_int_equal(value_parse_percent("0.1%", &v), 0);
+    assert_double_equal(v, 0.001, 1e-15);
+    assert_int_equal(value_parse_percent("100%", &v), 0);
+    assert_true(v == 1);
+    v = 7;
+    assert_int_equal(value_parse_percent("100.5%", &v), SQ_ERANGE);
+    assert_int_equal(value_parse_percent("5", &v), SQ_EPARSE);
+    assert_int_equal(value_parse_percent("5 %", &v), SQ_EPARSE);
+    assert_int_equal(value_parse_percent("-5%", &v), SQ_ERANGE);
+    assert_true(v == 7);
+}
+
+static void test_int_number(void **state)
+{
+    (void)state;
+    int64_t n;
+    assert_int_equal(value_parse_int("16", 1, 100, &n), 0);
+    assert_true(n == 16);
+    assert_int_equal(value_parse_int("-3", -5, 5, &n), 0);
+    assert_true(n == -3);
+    n = 7;
+    assert_int_equal(value_parse_int("0", 1, 100, &n), SQ_ERANGE);
+    assert_int_equal(value_parse_int("1.5", 1, 100, &n), SQ_EPARSE);
+    assert_int_equal(value_parse_int("+3", 1, 100, &n), SQ_EPARSE);
+    assert_int_equal(value_parse_int("3 ", 1, 100, &n), SQ_EPARSE);
+    assert_int_equal(value_parse_int("", 1, 100, &n), SQ_EPARSE);
+    assert_int_equal(value_parse_int("99999999999999999999", 0, INT64_MAX, &n), SQ_ERANGE);
+    assert_true(n == 7);
+    double d;
+    assert_int_equal(value_parse_number("0.25", 0, 1, &d), 0);
+    assert_true(d == 0.25);
+    assert_int_equal(value_parse_number("1e3", 0, 1e4, &d), 0);
+    assert_true(d == 1000);
+    assert_int_equal(value_parse_number("-0.5", -1, 1, &d), 0);
+    assert_true(d == -0.5);
+    d = 7;
+    assert_int_equal(value_parse_number("2", 0, 1, &d), SQ_ERANGE);
+    assert_int_equal(value_parse_number("0x1p3", 0, 100, &d), SQ_EPARSE);
+    assert_int_equal(value_parse_number("inf", 0, 1e308, &d), SQ_EPARSE);
+    assert_int_equal(value_parse_number("nan", 0, 1, &d), SQ_EPARSE);
+    assert_int_equal(value_parse_number("1e999", 0, 1e308, &d), SQ_ERANGE);
+    assert_int_equal(value_parse_number("1 ", 0, 10, &d), SQ_EPARSE);
+    assert_true(d == 7);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_duration),
+        cmocka_unit_test(test_rate_percent),
+        cmocka_unit_test(test_int_number),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
