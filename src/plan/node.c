@@ -8,8 +8,8 @@
 #include <string.h>
 
 #include "plan_int.h"
-#include "squall/cli.h"
 #include "squall/err.h"
+#include "squall/suggest.h"
 
 struct plan_mem {
     struct plan_mem *next;
@@ -149,7 +149,7 @@ bool pc_expect_seq(pctx_t *c, yaml_node_t *n, const char *where)
 
 static void unknown_key(pctx_t *c, yaml_node_t *k, const char *where, const char *const *keys)
 {
-    const char *near = cli_closest((const char *)k->data.scalar.value, keys);
+    const char *near = suggest_closest((const char *)k->data.scalar.value, keys);
     if (near) {
         pc_error(c, k, "%s: unknown key '%s' (did you mean '%s'?)", where,
                  (const char *)k->data.scalar.value, near);

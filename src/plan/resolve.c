@@ -5,8 +5,8 @@
 #include <string.h>
 
 #include "plan_int.h"
-#include "squall/cli.h"
 #include "squall/err.h"
+#include "squall/suggest.h"
 
 int plan_find_req(const plan_t *p, const char *name)
 {
@@ -60,7 +60,7 @@ static void resolve_class(pctx_t *c, plan_ref_t *ref, const char *what, enum nee
     }
     ref->index = plan_find_req(c->p, ref->name);
     if (ref->index < 0) {
-        const char *near = cli_closest(ref->name, names);
+        const char *near = suggest_closest(ref->name, names);
         if (near)
             pc_error_at(c, ref->pos, "%s: unknown class '%s' (did you mean '%s'?)", what, ref->name,
                         near);

@@ -11,6 +11,7 @@
 #include <cmocka.h>
 
 #include "squall/err.h"
+#include "squall/suggest.h"
 #include "squall/value.h"
 
 /* cmocka 1.1.5 has no assert_double_equal; this one names both values when it fails. */
@@ -174,12 +175,75 @@ static void test_int_number(void **state)
     assert_true(d == 7);
 }
 
+/* Did you mean. Distances are Levenshtein's (V. I. Levenshtein, "Binary codes capable of
+ * correcting deletions, insertions and reversals", Soviet Physics Doklady 10(8), 1966): the
+ * textbook pair kitten -> sitting is 3 edits (k->s, e->i, +g; a common worked example, quoted
+ * from memory), and a swap of two letters costs 2. The thresholds are the ones suggest.h states. */
+static void test_suggest(void **state)
+{
+    (void)state;
+    const char *const kitten[] = {"kitten", NULL};
+    /* 3 edits, and 3 are allowed for 7 letters ((7 + 2) / 3). */
+    assert_ptr_equal(suggest_closest("sitting", kitten), kitten[0]);
+    /* sittings is 4 edits away; 8 letters allow 3. */
+    assert_null(suggest_closest("sittings", kitten));
+    const char *const cmds[] = {"check", "run", "serve", "merge", "demo", NULL};
+    assert_string_equal(suggest_closest("chek", cmds), "check");  /* one deletion */
+    assert_string_equal(suggest_closest("chekc", cmds), "check"); /* a swap: 2 of 2 allowed */
+    assert_string_equal(suggest_closest("mrege", cmds), "merge");
+    assert_string_equal(suggest_closest("serve", cmds), "serve"); /* exact */
+    assert_null(suggest_closest("zzzz", cmds));                   /* 4 edits from run */
+    assert_null(suggest_closest("xyzzy", cmds));
+    /* Ties go to the word listed first; a typed prefix of 2+ characters counts as 1 edit. */
+    const char *const animals[] = {"bat", "hat", NULL};
+    assert_ptr_equal(suggest_closest("cat", animals), animals[0]);
+    const char *const opts[] = {"--confirm-target", "--connections", NULL};
+    assert_ptr_equal(suggest_closest("--conn", opts), opts[1]);
+    const char *const none[] = {NULL};
+    assert_null(suggest_closest("run", none));
+    /* Over 63 characters only the prefix rule applies: one changed letter is not found. */
+    char typed[80], valid[80];
+    memset(typed, 'a', 70);
+    typed[70] = '\0';
+    memcpy(valid, typed, 71);
+    valid[69] = 'b';
+    const char *const longs[] = {valid, NULL};
+    assert_null(suggest_closest(typed, longs));
+    typed[60] = '\0'; /* now a 60-letter prefix of valid */
+    assert_ptr_equal(suggest_closest(typed, longs), valid);
+}
+
+/* The incremental form compares prefix + name and returns the name as offered. */
+static void test_suggest_offer(void **state)
+{
+    (void)state;
+    static const char *const names[] = {"quiet", "out", "set", "help"};
+    suggest_t s;
+    suggest_init(&s, "--quite");
+    for (int i = 0; i < 4; i++)
+        suggest_offer(&s, "--", names[i]);
+    assert_ptr_equal(suggest_best(&s), names[0]); /* --quite -> --quiet: 2 of 3 allowed */
+    suggest_init(&s, "--sett");
+    for (int i = 0; i < 4; i++)
+        suggest_offer(&s, "--", names[i]);
+    assert_ptr_equal(suggest_best(&s), names[2]);
+    suggest_init(&s, "--verbose");
+    for (int i = 0; i < 4; i++)
+        suggest_offer(&s, "--", names[i]);
+    assert_null(suggest_best(&s));
+    /* Without a prefix the same call is suggest_closest over the names. */
+    suggest_init(&s, "hepl");
+    for (int i = 0; i < 4; i++)
+        suggest_offer(&s, NULL, names[i]);
+    assert_ptr_equal(suggest_best(&s), names[3]);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_duration),
-        cmocka_unit_test(test_rate_percent),
-        cmocka_unit_test(test_int_number),
+        cmocka_unit_test(test_duration),      cmocka_unit_test(test_rate_percent),
+        cmocka_unit_test(test_int_number),    cmocka_unit_test(test_suggest),
+        cmocka_unit_test(test_suggest_offer),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
