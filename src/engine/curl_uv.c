@@ -6,12 +6,8 @@
 #include <unistd.h>
 
 #include "eng_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
-
-static int64_t now_ns(void)
-{
-    return (int64_t)uv_hrtime();
-}
 
 /* Drains finished transfers; each is removed from libcurl here, never inside a callback. */
 static void drain(eng_t *e)
@@ -224,7 +220,7 @@ static int on_curl_timer(CURLM *multi, long timeout_ms, void *userp)
 static void on_check(uv_check_t *c)
 {
     eng_t *e = c->data;
-    e->pass_start_ns = now_ns();
+    e->pass_start_ns = clock_mono_ns();
 }
 
 static void on_prepare(uv_prepare_t *p)
@@ -232,7 +228,7 @@ static void on_prepare(uv_prepare_t *p)
     eng_t *e = p->data;
     if (!e->pass_start_ns)
         return;
-    int64_t busy = now_ns() - e->pass_start_ns;
+    int64_t busy = clock_mono_ns() - e->pass_start_ns;
     e->busy_ns += busy;
     if (busy > e->max_busy_ns)
         e->max_busy_ns = busy;

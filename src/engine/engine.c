@@ -5,12 +5,8 @@
 #include <string.h>
 
 #include "eng_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
-
-static int64_t now_ns(void)
-{
-    return (int64_t)uv_hrtime();
-}
 
 static char *dup_or_null(const char *s)
 {
@@ -136,7 +132,7 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
         goto fail;
     if ((rc = eng_glue_start(e)))
         goto fail;
-    e->window_start_ns = now_ns();
+    e->window_start_ns = clock_mono_ns();
     *out = e;
     return 0;
 fail:
@@ -176,7 +172,7 @@ int eng_submit(eng_t *e, const eng_req_t *req)
         xfer_put(e, x);
         return SQ_ENOMEM;
     }
-    x->res.submitted_ns = now_ns();
+    x->res.submitted_ns = clock_mono_ns();
     if (!x->res.intended_ns)
         x->res.intended_ns = x->res.submitted_ns;
     x->next = NULL;
@@ -268,7 +264,7 @@ static bool admit_one(eng_t *e)
     if (x->opener)
         e->openers_pending++;
     eng_xfer_setup(x);
-    x->res.admitted_ns = now_ns();
+    x->res.admitted_ns = clock_mono_ns();
     int64_t wait = x->res.admitted_ns - x->res.submitted_ns;
     if (wait > e->max_queue_wait_ns)
         e->max_queue_wait_ns = wait;
@@ -394,7 +390,7 @@ void eng_stop(eng_t *e, int64_t grace_ms)
 
 void eng_stats(eng_t *e, eng_stats_t *st, bool reset_window)
 {
-    int64_t now = now_ns();
+    int64_t now = clock_mono_ns();
     memset(st, 0, sizeof(*st));
     st->in_flight = e->in_flight;
     st->queued = e->queued;

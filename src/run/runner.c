@@ -8,6 +8,7 @@
 #include <time.h>
 
 #include "run_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
 
 #define DUE_BATCH 512
@@ -29,13 +30,6 @@ void run_request_stop(runner_t *r, enum run_stop why, const char *fmt, ...)
         r->drain_deadline_ns = (int64_t)uv_hrtime() + grace_ms * 1000000 + 500000000;
         eng_stop(r->eng, grace_ms);
     }
-}
-
-static int64_t realtime_ns(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_REALTIME, &ts);
-    return (int64_t)ts.tv_sec * 1000000000 + ts.tv_nsec;
 }
 
 static uint64_t phase_seed(const runner_t *r, size_t i, uint64_t salt)
@@ -94,7 +88,7 @@ static int phase_fleet_init(runner_t *r, run_phase_t *ph, size_t i)
     ph->fleet = calloc(pp->fleet.n_send, sizeof(*ph->fleet));
     if (!ph->fleet)
         return SQ_ENOMEM;
-    int64_t realtime0 = realtime_ns();
+    int64_t realtime0 = clock_real_ns();
     static const enum sched_timing timing[] = {
         [PLAN_TIMING_SPREAD] = SCHED_SPREAD,
         [PLAN_TIMING_JITTER] = SCHED_JITTER,
@@ -524,7 +518,7 @@ static int run_loop(runner_t *r, const char *dir, const char *token)
     rc = handles_start(r);
     if (rc == 0 && r->n_phases > 0) {
         r->run_start_ns = (int64_t)uv_hrtime();
-        results_set_start(r->res, realtime_ns() / 1000000);
+        results_set_start(r->res, clock_real_ns() / 1000000);
         r->state = RUN_ACTIVE;
         rc = phase_start(r, 0, r->run_start_ns);
     }
@@ -562,7 +556,7 @@ int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o)
     }
     if (check_supported(r))
         return SQ_EXIT_USAGE;
-    r->seed = opts->has_seed ? opts->seed : plan->has_seed ? plan->seed : (uint64_t)realtime_ns();
+    r->seed = opts->has_seed ? opts->seed : plan->has_seed ? plan->seed : (uint64_t)clock_real_ns();
     rng_seed(&r->rng, r->seed);
 
     char dir[4096];

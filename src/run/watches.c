@@ -5,9 +5,9 @@
 #include <stdlib.h>
 #include <string.h>
 #include <sys/resource.h>
-#include <time.h>
 
 #include "run_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/watch.h"
 
@@ -64,13 +64,6 @@ struct run_watches {
     int *log_attempt;
     size_t n_log;
 };
-
-static int64_t realtime_ns(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_REALTIME, &ts);
-    return (int64_t)ts.tv_sec * 1000000000 + ts.tv_nsec;
-}
 
 static int phase_watchers(const plan_phase_t *pp)
 {
@@ -249,7 +242,7 @@ static void on_event(void *user, const watch_event_t *ev)
         w->attempt_no_stamp++;
         return;
     }
-    int64_t d = realtime_ns() - f.stamp_ns;
+    int64_t d = clock_real_ns() - f.stamp_ns;
     if (d < 0)
         wc->stamp_ahead++; /* the writer's clock is ahead of ours: recorded as 0 */
     hist_add(wc->events, RESULTS_M_PROPAGATION, d);

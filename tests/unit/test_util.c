@@ -9,7 +9,9 @@
 #include <string.h>
 
 #include <cmocka.h>
+#include <uv.h>
 
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/suggest.h"
 #include "squall/value.h"
@@ -238,12 +240,40 @@ static void test_suggest_offer(void **state)
     assert_ptr_equal(suggest_best(&s), names[3]);
 }
 
+/* The clocks against libuv's readings of the same clocks, by order only (no duration is
+ * asserted). uv_hrtime() is nanoseconds "relative to an arbitrary time in the past" (libuv docs,
+ * misc.rst), read from CLOCK_MONOTONIC on Linux (libuv 1.44, src/unix, UV_CLOCK_PRECISE): a
+ * reading of ours taken between two of its readings lies between them, which it would not on
+ * another base. uv_gettimeofday() is gettimeofday(2), wall time in microseconds, the clock that
+ * CLOCK_REALTIME reads in nanoseconds (POSIX.1-2017, clock_gettime). */
+static void test_clock(void **state)
+{
+    (void)state;
+    for (int i = 0; i < 1000; i++) {
+        uint64_t a = uv_hrtime();
+        int64_t m = clock_mono_ns();
+        uint64_t b = uv_hrtime();
+        if (!((int64_t)a <= m && m <= (int64_t)b))
+            fail_msg("uv_hrtime %llu, clock_mono_ns %lld, uv_hrtime %llu", (unsigned long long)a,
+                     (long long)m, (unsigned long long)b);
+    }
+    uv_timeval64_t t0, t1;
+    assert_int_equal(uv_gettimeofday(&t0), 0);
+    int64_t r = clock_real_ns();
+    assert_int_equal(uv_gettimeofday(&t1), 0);
+    int64_t lo = (t0.tv_sec * 1000000 + t0.tv_usec) * 1000;
+    int64_t hi = (t1.tv_sec * 1000000 + t1.tv_usec + 1) * 1000;
+    if (!(lo <= r && r < hi))
+        fail_msg("gettimeofday %lld ns, clock_real_ns %lld, gettimeofday %lld ns", (long long)lo,
+                 (long long)r, (long long)hi);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_duration),      cmocka_unit_test(test_rate_percent),
         cmocka_unit_test(test_int_number),    cmocka_unit_test(test_suggest),
-        cmocka_unit_test(test_suggest_offer),
+        cmocka_unit_test(test_suggest_offer), cmocka_unit_test(test_clock),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
