@@ -7,12 +7,19 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <dirent.h>
+#include <errno.h>
+#include <stdbool.h>
+#include <sys/stat.h>
+#include <unistd.h>
 
 #include <cmocka.h>
 #include <uv.h>
 
 #include "squall/clock.h"
 #include "squall/err.h"
+#include "squall/file.h"
+#include "squall/out.h"
 #include "squall/suggest.h"
 #include "squall/value.h"
 
@@ -268,12 +275,191 @@ static void test_clock(void **state)
                  (long long)r, (long long)hi);
 }
 
+/* ---- file_write_atomic: checked against POSIX.1-2017 rename(): "If the link named by the new
+ * argument exists, it shall be removed and old renamed to new. In this case, a link named new
+ * shall remain visible to other threads throughout the renaming operation and refer either to
+ * the file referred to by new or old before the operation began." So while the contents are
+ * written the old file is still whole at its name, afterwards the name is a new file (a new
+ * inode: a descriptor opened on the old file still reads the old text), and on failure the
+ * directory holds exactly what it held before. */
+
+typedef struct {
+    char dir[64], path[128];
+    const char *text;   /* what fill writes */
+    int fail;           /* what fill returns after writing */
+    const char *during; /* what PATH must hold while fill runs (NULL: not checked) */
+    bool absent;        /* PATH must not exist while fill runs */
+    int entries_during; /* files in dir while fill runs */
+} fixture_t;
+
+static char *read_text(const char *path)
+{
+    static char buf[256];
+    FILE *f = fopen(path, "r");
+    if (!f)
+        return NULL;
+    size_t n = fread(buf, 1, sizeof buf - 1, f);
+    buf[n] = '\0';
+    fclose(f);
+    return buf;
+}
+
+static void write_text(const char *path, const char *text)
+{
+    FILE *f = fopen(path, "w");
+    assert_non_null(f);
+    fputs(text, f);
+    assert_int_equal(fclose(f), 0);
+}
+
+/* Number of entries in dir, "." and ".." excluded. */
+static int entries(const char *dir)
+{
+    DIR *d = opendir(dir);
+    assert_non_null(d);
+    int n = 0;
+    for (struct dirent *e; (e = readdir(d));)
+        n += strcmp(e->d_name, ".") != 0 && strcmp(e->d_name, "..") != 0;
+    closedir(d);
+    return n;
+}
+
+static int fill_fixture(FILE *f, void *ctx)
+{
+    fixture_t *fx = ctx;
+    fputs(fx->text, f);
+    fflush(f);
+    const char *now = read_text(fx->path);
+    if (fx->during)
+        assert_string_equal(now, fx->during);
+    if (fx->absent)
+        assert_null(now);
+    fx->entries_during = entries(fx->dir);
+    return fx->fail;
+}
+
+static void fixture_init(fixture_t *fx)
+{
+    memset(fx, 0, sizeof *fx);
+    snprintf(fx->dir, sizeof fx->dir, "/tmp/squall-util-XXXXXX");
+    assert_non_null(mkdtemp(fx->dir));
+    snprintf(fx->path, sizeof fx->path, "%s/report.html", fx->dir);
+}
+
+static void fixture_close(fixture_t *fx)
+{
+    DIR *d = opendir(fx->dir);
+    assert_non_null(d);
+    char p[512];
+    for (struct dirent *e; (e = readdir(d));) {
+        if (strcmp(e->d_name, ".") == 0 || strcmp(e->d_name, "..") == 0)
+            continue;
+        snprintf(p, sizeof p, "%s/%s", fx->dir, e->d_name);
+        if (unlink(p) != 0)
+            assert_int_equal(rmdir(p), 0);
+    }
+    closedir(d);
+    assert_int_equal(rmdir(fx->dir), 0);
+}
+
+static void test_file_new_and_replace(void **state)
+{
+    (void)state;
+    fixture_t fx;
+    fixture_init(&fx);
+    out_t *o = out_new_capture();
+    /* A new file: absent while written, its temporary beside it in the same directory. */
+    fx.text = "first\n";
+    fx.absent = true;
+    assert_int_equal(file_write_atomic(fx.path, fill_fixture, &fx, o), 0);
+    assert_int_equal(fx.entries_during, 1);
+    assert_string_equal(read_text(fx.path), "first\n");
+    assert_int_equal(entries(fx.dir), 1);
+    struct stat st;
+    assert_int_equal(stat(fx.path, &st), 0);
+    assert_int_equal(st.st_mode & 0777, 0644);
+    ino_t first = st.st_ino;
+    /* Replacing: the old file stays whole at its name until the rename. */
+    FILE *old = fopen(fx.path, "r");
+    assert_non_null(old);
+    fx.text = "second, longer\n";
+    fx.absent = false;
+    fx.during = "first\n";
+    assert_int_equal(file_write_atomic(fx.path, fill_fixture, &fx, o), 0);
+    assert_int_equal(fx.entries_during, 2);
+    assert_string_equal(read_text(fx.path), "second, longer\n");
+    assert_int_equal(entries(fx.dir), 1);
+    assert_int_equal(stat(fx.path, &st), 0);
+    assert_true(st.st_ino != first);
+    char buf[32] = "";
+    assert_non_null(fgets(buf, sizeof buf, old)); /* the old file itself was not rewritten */
+    assert_string_equal(buf, "first\n");
+    fclose(old);
+    assert_string_equal(out_captured_diag(o), "");
+    out_free(o);
+    fixture_close(&fx);
+}
+
+static void test_file_failures(void **state)
+{
+    (void)state;
+    fixture_t fx;
+    fixture_init(&fx);
+    out_t *o = out_new_capture();
+    char want[512];
+    /* The fill fails after writing part of the text: the old file stays, no temporary is left,
+     * and the reason is the fill's own code. */
+    write_text(fx.path, "old\n");
+    fx.text = "half of the new";
+    fx.during = "old\n";
+    fx.fail = SQ_ENOMEM;
+    assert_int_equal(file_write_atomic(fx.path, fill_fixture, &fx, o), SQ_EIO);
+    assert_int_equal(fx.entries_during, 2);
+    assert_string_equal(read_text(fx.path), "old\n");
+    assert_int_equal(entries(fx.dir), 1);
+    snprintf(want, sizeof want, "squall: error: cannot write %s: out of memory\n", fx.path);
+    assert_string_equal(out_captured_diag(o), want);
+    out_free(o);
+    /* The rename fails (the name is a directory that is not empty): the temporary goes too. */
+    o = out_new_capture();
+    assert_int_equal(unlink(fx.path), 0);
+    assert_int_equal(mkdir(fx.path, 0755), 0);
+    char inner[256];
+    snprintf(inner, sizeof inner, "%s/keep", fx.path);
+    write_text(inner, "x");
+    fx.fail = 0;
+    fx.during = NULL;
+    fx.text = "new\n";
+    assert_int_equal(file_write_atomic(fx.path, fill_fixture, &fx, o), SQ_EIO);
+    assert_int_equal(entries(fx.dir), 1);
+    assert_int_equal(entries(fx.path), 1);
+    snprintf(want, sizeof want, "squall: error: cannot write %s: %s\n", fx.path, strerror(EISDIR));
+    assert_string_equal(out_captured_diag(o), want);
+    out_free(o);
+    assert_int_equal(unlink(inner), 0);
+    /* The directory does not exist: nothing is created and the reason is the system's. */
+    o = out_new_capture();
+    char missing[256];
+    snprintf(missing, sizeof missing, "%s/no-such-dir/report.html", fx.dir);
+    assert_int_equal(file_write_atomic(missing, fill_fixture, &fx, o), SQ_EIO);
+    snprintf(want, sizeof want, "squall: error: cannot write %s: %s\n", missing, strerror(ENOENT));
+    assert_string_equal(out_captured_diag(o), want);
+    assert_int_equal(entries(fx.dir), 1);
+    out_free(o);
+    fixture_close(&fx);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_duration),      cmocka_unit_test(test_rate_percent),
-        cmocka_unit_test(test_int_number),    cmocka_unit_test(test_suggest),
-        cmocka_unit_test(test_suggest_offer), cmocka_unit_test(test_clock),
+        cmocka_unit_test(test_duration),
+        cmocka_unit_test(test_rate_percent),
+        cmocka_unit_test(test_int_number),
+        cmocka_unit_test(test_suggest),
+        cmocka_unit_test(test_suggest_offer),
+        cmocka_unit_test(test_clock),
+        cmocka_unit_test(test_file_new_and_replace),
+        cmocka_unit_test(test_file_failures),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
