@@ -21,7 +21,7 @@ static void drain(eng_t *e)
         curl_easy_getinfo(m->easy_handle, CURLINFO_PRIVATE, (char **)&x);
         CURLcode rc = m->data.result;
         curl_multi_remove_handle(e->multi, m->easy_handle);
-        eng_done(e, x, rc);
+        e->glue->done(e, x, rc);
     }
 }
 
@@ -33,7 +33,7 @@ void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask)
     e->in_curl--;
     drain(e);
     if (!e->closing)
-        eng_admit(e);
+        e->glue->after_action(e);
 }
 
 static void sock_stop(struct eng_sock *s)
@@ -234,8 +234,9 @@ static void on_prepare(uv_prepare_t *p)
         e->max_busy_ns = busy;
 }
 
-int eng_glue_start(eng_t *e)
+int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops)
 {
+    e->glue = ops;
     e->multi = curl_multi_init();
     if (!e->multi)
         return SQ_ELIBCURL;
@@ -282,9 +283,9 @@ void eng_glue_close(eng_t *e)
     for (size_t fd = 0; fd < e->n_socks_cap; fd++)
         if (e->socks[fd])
             sock_drop(e, e->socks[fd]);
-    uv_close((uv_handle_t *)&e->timer, eng_handle_closed);
-    uv_close((uv_handle_t *)&e->zero, eng_handle_closed);
-    uv_close((uv_handle_t *)&e->prepare, eng_handle_closed);
-    uv_close((uv_handle_t *)&e->check, eng_handle_closed);
-    uv_close((uv_handle_t *)&e->grace, eng_handle_closed);
+    uv_close((uv_handle_t *)&e->timer, e->glue->closed);
+    uv_close((uv_handle_t *)&e->zero, e->glue->closed);
+    uv_close((uv_handle_t *)&e->prepare, e->glue->closed);
+    uv_close((uv_handle_t *)&e->check, e->glue->closed);
+    uv_close((uv_handle_t *)&e->grace, e->glue->closed);
 }
