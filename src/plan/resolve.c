@@ -8,22 +8,6 @@
 #include "squall/err.h"
 #include "squall/suggest.h"
 
-int plan_find_req(const plan_t *p, const char *name)
-{
-    for (size_t i = 0; i < p->n_reqs; i++)
-        if (p->reqs[i].name && strcmp(p->reqs[i].name, name) == 0)
-            return (int)i;
-    return -1;
-}
-
-int plan_find_phase(const plan_t *p, const char *name)
-{
-    for (size_t i = 0; i < p->n_phases; i++)
-        if (p->phases[i].name && strcmp(p->phases[i].name, name) == 0)
-            return (int)i;
-    return -1;
-}
-
 enum need { NEED_ANY, NEED_NOT_WATCH, NEED_WATCH, NEED_LIST, NEED_CREATES, NEED_DELETES };
 
 static const char *const need_text[] = {
