@@ -51,7 +51,7 @@ static bool port_open(int port)
 }
 
 /* Starts `squall serve` (this same binary) and waits up to 5 s for it to listen. */
-static pid_t target_spawn(int port, out_t *o)
+static pid_t spawn_server(int port, out_t *o)
 {
     char listen[64];
     snprintf(listen, sizeof listen, "127.0.0.1:%d", port);
@@ -111,7 +111,7 @@ static int demo_run(const char *plan_path, const run_opts_t *ro, out_t *o)
     int err = plan_load(plan_path, &set, 1, &p, o);
     if (err)
         return err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
-    pid_t pid = target_spawn(port, o);
+    pid_t pid = spawn_server(port, o);
     int rc = SQ_EXIT_FAILURE;
     if (pid > 0) {
         out_info(o, "demo: the embedded target listens on %s (pid %d); running %s", url, (int)pid,

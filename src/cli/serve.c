@@ -9,7 +9,7 @@
 
 #include "squall/cli.h"
 #include "squall/err.h"
-#include "squall/target.h"
+#include "squall/server.h"
 
 enum {
     O_LISTEN,
@@ -52,7 +52,7 @@ static const cli_opt_t serve_opts[] = {
 
 typedef struct {
     uv_signal_t sigint, sigterm;
-    target_t *target;
+    server_t *server;
     out_t *out;
 } serve_ctx_t;
 
@@ -60,15 +60,15 @@ static void on_signal(uv_signal_t *h, int signum)
 {
     serve_ctx_t *c = h->data;
     out_info(c->out, "serve: %s, stopping", signum == SIGINT ? "SIGINT" : "SIGTERM");
-    if (c->target)
-        target_stop(c->target, NULL, NULL);
-    c->target = NULL;
+    if (c->server)
+        server_stop(c->server, NULL, NULL);
+    c->server = NULL;
     uv_close((uv_handle_t *)&c->sigint, NULL);
     uv_close((uv_handle_t *)&c->sigterm, NULL);
 }
 
 /* "127.0.0.1:7070", "[::1]:7070" or ":7070" (loopback IPv4). */
-static int parse_listen(const char *s, target_opts_t *o, char *host, size_t hostlen)
+static int parse_listen(const char *s, server_opts_t *o, char *host, size_t hostlen)
 {
     const char *colon = strrchr(s, ':');
     char *end;
@@ -113,12 +113,12 @@ static int num(const char *v, double lo, double hi, double *out)
 }
 
 /* Applies one option; returns 0 or a usage error already printed. */
-static int apply_opt(const cli_cmd_t *cmd, int k, const char *v, target_opts_t *t, char *host,
+static int apply_opt(const cli_cmd_t *cmd, int k, const char *v, server_opts_t *t, char *host,
                      bool *pub, out_t *o)
 {
     char err[200];
     double d = 0;
-    target_faults_t *f = &t->faults;
+    server_faults_t *f = &t->faults;
     int rc = 0;
     switch (k) {
     case O_LISTEN:
@@ -128,7 +128,7 @@ static int apply_opt(const cli_cmd_t *cmd, int k, const char *v, target_opts_t *
         *pub = true;
         break;
     case O_DELAY:
-        if (target_delay_parse(f, v, err, sizeof(err)) < 0)
+        if (server_delay_parse(f, v, err, sizeof(err)) < 0)
             return cli_usage_error(cmd, o, "--%s", err);
         break;
     case O_FAIL_RATE:
@@ -144,13 +144,13 @@ static int apply_opt(const cli_cmd_t *cmd, int k, const char *v, target_opts_t *
         f->retry_after_s = (int)d;
         break;
     case O_STALL_AT:
-        rc = target_duration_parse(v, &f->stall_at_ns);
+        rc = server_duration_parse(v, &f->stall_at_ns);
         break;
     case O_STALL_FOR:
-        rc = target_duration_parse(v, &f->stall_for_ns);
+        rc = server_duration_parse(v, &f->stall_for_ns);
         break;
     case O_DROP_AT:
-        rc = target_duration_parse(v, &f->drop_at_ns);
+        rc = server_duration_parse(v, &f->drop_at_ns);
         break;
     case O_MAX_INFLIGHT:
         rc = num(v, 0, 1000000, &d);
@@ -183,14 +183,14 @@ static int apply_opt(const cli_cmd_t *cmd, int k, const char *v, target_opts_t *
     return 0;
 }
 
-static int run(target_opts_t *topts, out_t *o)
+static int run(server_opts_t *sopts, out_t *o)
 {
     uv_loop_t loop;
     serve_ctx_t c = {.out = o};
     if (uv_loop_init(&loop) < 0)
         return SQ_EXIT_FAILURE;
     signal(SIGPIPE, SIG_IGN);
-    if (target_start(&loop, topts, o, &c.target) < 0) {
+    if (server_start(&loop, sopts, o, &c.server) < 0) {
         uv_loop_close(&loop);
         return SQ_EXIT_FAILURE;
     }
@@ -199,9 +199,9 @@ static int run(target_opts_t *topts, out_t *o)
     c.sigint.data = c.sigterm.data = &c;
     uv_signal_start(&c.sigint, on_signal, SIGINT);
     uv_signal_start(&c.sigterm, on_signal, SIGTERM);
-    bool v6 = strchr(topts->host, ':') != NULL;
-    out_info(o, "squall serve: listening on http://%s%s%s:%d (pid %d)", v6 ? "[" : "", topts->host,
-             v6 ? "]" : "", target_port(c.target), (int)getpid());
+    bool v6 = strchr(sopts->host, ':') != NULL;
+    out_info(o, "squall serve: listening on http://%s%s%s:%d (pid %d)", v6 ? "[" : "", sopts->host,
+             v6 ? "]" : "", server_port(c.server), (int)getpid());
     uv_run(&loop, UV_RUN_DEFAULT);
     int rc = uv_loop_close(&loop);
     if (rc != 0) {
@@ -214,13 +214,13 @@ static int run(target_opts_t *topts, out_t *o)
 
 static int serve_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
-    target_opts_t topts;
+    server_opts_t sopts;
     char host[64];
     bool pub = false;
     cli_args_t a;
     const char *v;
     int k;
-    target_opts_init(&topts);
+    server_opts_init(&sopts);
     cli_args_init(&a, cmd, argc, argv);
     while ((k = cli_next(&a, o, &v)) != CLI_END) {
         if (k == CLI_ERROR)
@@ -231,21 +231,21 @@ static int serve_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         }
         if (k == CLI_POSITIONAL)
             return cli_usage_error(cmd, o, "unexpected argument '%s'", v);
-        if (apply_opt(cmd, k, v, &topts, host, &pub, o) != 0)
+        if (apply_opt(cmd, k, v, &sopts, host, &pub, o) != 0)
             return SQ_EXIT_USAGE;
     }
-    if (topts.faults.stall_at_ns >= 0 && topts.faults.stall_for_ns <= 0)
+    if (sopts.faults.stall_at_ns >= 0 && sopts.faults.stall_for_ns <= 0)
         return cli_usage_error(cmd, o, "--stall-at needs --stall-for (its length)");
-    if (!is_loopback(topts.host)) {
+    if (!is_loopback(sopts.host)) {
         if (!pub)
             return cli_usage_error(
-                cmd, o, "'%s' is not a loopback address; add --public to listen there", topts.host);
+                cmd, o, "'%s' is not a loopback address; add --public to listen there", sopts.host);
         out_warn(o,
                  "serve: listening on a non-loopback address (%s): anyone who can reach it "
                  "can read and write the store and its faults",
-                 topts.host);
+                 sopts.host);
     }
-    return run(&topts, o);
+    return run(&sopts, o);
 }
 
 const cli_cmd_t cli_cmd_serve = {

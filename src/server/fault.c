@@ -6,19 +6,19 @@
 #include <string.h>
 
 #include "squall/err.h"
-#include "target_int.h"
+#include "server_int.h"
 
-void target_faults_init(target_faults_t *f)
+void server_faults_init(server_faults_t *f)
 {
     memset(f, 0, sizeof(*f));
-    f->delay_kind = TARGET_DELAY_NONE;
+    f->delay_kind = SERVER_DELAY_NONE;
     f->fail_status = 503;
     f->retry_after_s = 1;
     f->stall_at_ns = -1;
     f->drop_at_ns = -1;
 }
 
-void target_opts_init(target_opts_t *o)
+void server_opts_init(server_opts_t *o)
 {
     memset(o, 0, sizeof(*o));
     o->host = "127.0.0.1";
@@ -27,10 +27,10 @@ void target_opts_init(target_opts_t *o)
     o->history = 10000;
     o->stream_buffer = 1 << 20;
     o->seed = 1;
-    target_faults_init(&o->faults);
+    server_faults_init(&o->faults);
 }
 
-int target_duration_parse(const char *s, int64_t *ns)
+int server_duration_parse(const char *s, int64_t *ns)
 {
     char *end;
     double v = strtod(s, &end);
@@ -51,12 +51,12 @@ int target_duration_parse(const char *s, int64_t *ns)
     return 0;
 }
 
-int target_delay_parse(target_faults_t *f, const char *spec, char *err, size_t errlen)
+int server_delay_parse(server_faults_t *f, const char *spec, char *err, size_t errlen)
 {
     char a[64] = "", b[64] = "";
     const char *colon = strchr(spec, ':');
     if (strcmp(spec, "none") == 0) {
-        f->delay_kind = TARGET_DELAY_NONE;
+        f->delay_kind = SERVER_DELAY_NONE;
         return 0;
     }
     if (!colon || strlen(colon + 1) >= sizeof(a))
@@ -69,17 +69,17 @@ int target_delay_parse(target_faults_t *f, const char *spec, char *err, size_t e
     } else {
         snprintf(a, sizeof(a), "%s", colon + 1);
     }
-    enum target_delay_kind k;
+    enum server_delay_kind k;
     if (kl == 5 && strncmp(spec, "fixed", 5) == 0 && !dots)
-        k = TARGET_DELAY_FIXED;
+        k = SERVER_DELAY_FIXED;
     else if (kl == 7 && strncmp(spec, "uniform", 7) == 0 && dots)
-        k = TARGET_DELAY_UNIFORM;
+        k = SERVER_DELAY_UNIFORM;
     else if (kl == 3 && strncmp(spec, "exp", 3) == 0 && !dots)
-        k = TARGET_DELAY_EXP;
+        k = SERVER_DELAY_EXP;
     else
         goto bad;
     int64_t x, y = 0;
-    if (target_duration_parse(a, &x) < 0 || (dots && target_duration_parse(b, &y) < 0))
+    if (server_duration_parse(a, &x) < 0 || (dots && server_duration_parse(b, &y) < 0))
         goto bad;
     if (dots && y < x)
         goto bad;
@@ -93,14 +93,14 @@ bad:
     return SQ_EPARSE;
 }
 
-int64_t tgt_fault_delay(const target_faults_t *f, rng_t *r)
+int64_t srv_fault_delay(const server_faults_t *f, rng_t *r)
 {
     switch (f->delay_kind) {
-    case TARGET_DELAY_FIXED:
+    case SERVER_DELAY_FIXED:
         return f->delay_a_ns;
-    case TARGET_DELAY_UNIFORM:
+    case SERVER_DELAY_UNIFORM:
         return f->delay_a_ns + (int64_t)rng_below(r, (uint64_t)(f->delay_b_ns - f->delay_a_ns) + 1);
-    case TARGET_DELAY_EXP:
+    case SERVER_DELAY_EXP:
         return f->delay_a_ns > 0 ? (int64_t)llround(rng_exp(r, 1.0 / (double)f->delay_a_ns)) : 0;
     default:
         return 0;
@@ -111,7 +111,7 @@ int64_t tgt_fault_delay(const target_faults_t *f, rng_t *r)
 static int json_duration(const json_t *v, int64_t *ns)
 {
     if (json_is_string(v))
-        return target_duration_parse(json_string_value(v), ns);
+        return server_duration_parse(json_string_value(v), ns);
     if (json_is_number(v) && json_number_value(v) >= 0 && json_number_value(v) <= 1e7) {
         *ns = (int64_t)llround(json_number_value(v) * 1e9);
         return 0;
@@ -119,11 +119,11 @@ static int json_duration(const json_t *v, int64_t *ns)
     return SQ_EPARSE;
 }
 
-static int fault_key(target_faults_t *f, const char *k, const json_t *v, char *err, size_t n)
+static int fault_key(server_faults_t *f, const char *k, const json_t *v, char *err, size_t n)
 {
     json_int_t i = json_is_integer(v) ? json_integer_value(v) : -1;
     if (strcmp(k, "delay") == 0)
-        return json_is_string(v) ? target_delay_parse(f, json_string_value(v), err, n) : SQ_EPARSE;
+        return json_is_string(v) ? server_delay_parse(f, json_string_value(v), err, n) : SQ_EPARSE;
     if (strcmp(k, "fail_rate") == 0) {
         f->fail_rate = json_is_number(v) ? json_number_value(v) : -1;
         return f->fail_rate >= 0 && f->fail_rate <= 1 ? 0 : SQ_EPARSE;
@@ -152,9 +152,9 @@ static int fault_key(target_faults_t *f, const char *k, const json_t *v, char *e
     return SQ_EINVAL;
 }
 
-int tgt_faults_from_json(target_faults_t *f, const json_t *j, char *err, size_t errlen)
+int srv_faults_from_json(server_faults_t *f, const json_t *j, char *err, size_t errlen)
 {
-    target_faults_init(f);
+    server_faults_init(f);
     if (!json_is_object(j)) {
         snprintf(err, errlen, "the fault configuration must be a JSON object");
         return SQ_EPARSE;
@@ -181,14 +181,14 @@ static json_t *ns_json(int64_t ns)
     return json_string(s);
 }
 
-json_t *tgt_faults_to_json(const target_faults_t *f)
+json_t *srv_faults_to_json(const server_faults_t *f)
 {
     static const char *const kinds[] = {"none", "fixed", "uniform", "exp"};
     char d[128];
-    if (f->delay_kind == TARGET_DELAY_UNIFORM)
+    if (f->delay_kind == SERVER_DELAY_UNIFORM)
         snprintf(d, sizeof(d), "uniform:%.9gs..%.9gs", (double)f->delay_a_ns / 1e9,
                  (double)f->delay_b_ns / 1e9);
-    else if (f->delay_kind != TARGET_DELAY_NONE)
+    else if (f->delay_kind != SERVER_DELAY_NONE)
         snprintf(d, sizeof(d), "%s:%.9gs", kinds[f->delay_kind], (double)f->delay_a_ns / 1e9);
     else
         snprintf(d, sizeof(d), "none");
