@@ -61,11 +61,20 @@ typedef struct server server_t;
 void server_opts_init(server_opts_t *opts);
 void server_faults_init(server_faults_t *f);
 
-/* Parses a delay spec "fixed:50ms", "uniform:10ms..90ms" or "exp:20ms" (units ns, us, ms, s;
- * "none" clears it) into f. SQ_EPARSE with a message in err (size errlen) when malformed. */
-int server_delay_parse(server_faults_t *f, const char *spec, char *err, size_t errlen);
-/* Parses a duration such as "250ms", "3s", "1.5s", "0" into nanoseconds. */
+/* Reads a duration (a delay, a stall or drop time) with value_parse_duration (squall/value.h),
+ * the syntax plans use (`250ms`, `1.5s`, `2m15s`, `1h30m`), up to SERVER_DURATION_MAX_NS, which
+ * keeps the server's time arithmetic far from overflowing. Returns 0, SQ_EPARSE when malformed,
+ * SQ_ERANGE when negative or above the bound; *ns is left alone on failure. */
 int server_duration_parse(const char *s, int64_t *ns);
+#define SERVER_DURATION_MAX_NS INT64_C(3600000000000000) /* 1000h */
+#define SERVER_DURATION_RANGE  "a duration from 0 to 1000h"
+
+/* Parses a delay spec into f: "none", "fixed:D", "uniform:A..B" (A <= B) or "exp:MEAN", each
+ * time a duration as above. Returns 0, or SQ_EPARSE and leaves f alone; SERVER_DELAY_EXPECTS
+ * describes the syntax for error messages. */
+int server_delay_parse(server_faults_t *f, const char *spec);
+#define SERVER_DELAY_EXPECTS                                                                       \
+    "one of none, fixed:D, uniform:A..B (A <= B) or exp:MEAN with durations like 50ms"
 
 /* Creates a server on `loop` listening on opts->host:opts->port and starts serving.
  * Returns 0 and sets *out, or a negative code after printing one line to `o`

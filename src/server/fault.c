@@ -6,6 +6,7 @@
 #include <string.h>
 
 #include "squall/err.h"
+#include "squall/value.h"
 #include "server_int.h"
 
 void server_faults_init(server_faults_t *f)
@@ -32,64 +33,56 @@ void server_opts_init(server_opts_t *o)
 
 int server_duration_parse(const char *s, int64_t *ns)
 {
-    char *end;
-    double v = strtod(s, &end);
-    if (end == s || !(v >= 0) || v > 1e7)
-        return SQ_EPARSE;
-    double mult;
-    if (strcmp(end, "ns") == 0)
-        mult = 1;
-    else if (strcmp(end, "us") == 0)
-        mult = 1e3;
-    else if (strcmp(end, "ms") == 0)
-        mult = 1e6;
-    else if (strcmp(end, "s") == 0 || (*end == '\0' && v == 0))
-        mult = 1e9;
-    else
-        return SQ_EPARSE;
-    *ns = (int64_t)llround(v * mult);
+    int64_t v;
+    int rc = value_parse_duration(s, &v);
+    if (rc)
+        return rc;
+    if (v > SERVER_DURATION_MAX_NS)
+        return SQ_ERANGE;
+    *ns = v;
     return 0;
 }
 
-int server_delay_parse(server_faults_t *f, const char *spec, char *err, size_t errlen)
+/* The times of a delay spec after its "kind:": one duration, or "A..B" for uniform. */
+static int delay_times(server_faults_t *f, enum server_delay_kind kind, const char *t)
 {
-    char a[64] = "", b[64] = "";
-    const char *colon = strchr(spec, ':');
+    char a[64];
+    const char *dots = strstr(t, "..");
+    if ((kind == SERVER_DELAY_UNIFORM) != (dots != NULL))
+        return SQ_EPARSE;
+    size_t n = dots ? (size_t)(dots - t) : strlen(t);
+    if (n >= sizeof a)
+        return SQ_EPARSE;
+    memcpy(a, t, n);
+    a[n] = '\0';
+    int64_t x, y = 0;
+    if (server_duration_parse(a, &x) || (dots && server_duration_parse(dots + 2, &y)))
+        return SQ_EPARSE;
+    if (dots && y < x)
+        return SQ_EPARSE;
+    f->delay_kind = kind;
+    f->delay_a_ns = x;
+    f->delay_b_ns = y;
+    return 0;
+}
+
+int server_delay_parse(server_faults_t *f, const char *spec)
+{
     if (strcmp(spec, "none") == 0) {
         f->delay_kind = SERVER_DELAY_NONE;
         return 0;
     }
-    if (!colon || strlen(colon + 1) >= sizeof(a))
-        goto bad;
-    size_t kl = (size_t)(colon - spec);
-    const char *dots = strstr(colon + 1, "..");
-    if (dots) {
-        snprintf(a, sizeof(a), "%.*s", (int)(dots - colon - 1), colon + 1);
-        snprintf(b, sizeof(b), "%s", dots + 2);
-    } else {
-        snprintf(a, sizeof(a), "%s", colon + 1);
+    static const struct {
+        const char *prefix;
+        enum server_delay_kind kind;
+    } kinds[] = {{"fixed:", SERVER_DELAY_FIXED},
+                 {"uniform:", SERVER_DELAY_UNIFORM},
+                 {"exp:", SERVER_DELAY_EXP}};
+    for (size_t i = 0; i < sizeof kinds / sizeof kinds[0]; i++) {
+        size_t n = strlen(kinds[i].prefix);
+        if (strncmp(spec, kinds[i].prefix, n) == 0)
+            return delay_times(f, kinds[i].kind, spec + n);
     }
-    enum server_delay_kind k;
-    if (kl == 5 && strncmp(spec, "fixed", 5) == 0 && !dots)
-        k = SERVER_DELAY_FIXED;
-    else if (kl == 7 && strncmp(spec, "uniform", 7) == 0 && dots)
-        k = SERVER_DELAY_UNIFORM;
-    else if (kl == 3 && strncmp(spec, "exp", 3) == 0 && !dots)
-        k = SERVER_DELAY_EXP;
-    else
-        goto bad;
-    int64_t x, y = 0;
-    if (server_duration_parse(a, &x) < 0 || (dots && server_duration_parse(b, &y) < 0))
-        goto bad;
-    if (dots && y < x)
-        goto bad;
-    f->delay_kind = k;
-    f->delay_a_ns = x;
-    f->delay_b_ns = y;
-    return 0;
-bad:
-    snprintf(err, errlen,
-             "delay '%s': expected none, fixed:D, uniform:A..B or exp:MEAN (D like 50ms)", spec);
     return SQ_EPARSE;
 }
 
@@ -112,8 +105,9 @@ static int json_duration(const json_t *v, int64_t *ns)
 {
     if (json_is_string(v))
         return server_duration_parse(json_string_value(v), ns);
-    if (json_is_number(v) && json_number_value(v) >= 0 && json_number_value(v) <= 1e7) {
-        *ns = (int64_t)llround(json_number_value(v) * 1e9);
+    double s = json_is_number(v) ? json_number_value(v) : -1;
+    if (s >= 0 && s <= (double)SERVER_DURATION_MAX_NS / 1e9) {
+        *ns = (int64_t)llround(s * 1e9);
         return 0;
     }
     return SQ_EPARSE;
@@ -122,8 +116,12 @@ static int json_duration(const json_t *v, int64_t *ns)
 static int fault_key(server_faults_t *f, const char *k, const json_t *v, char *err, size_t n)
 {
     json_int_t i = json_is_integer(v) ? json_integer_value(v) : -1;
-    if (strcmp(k, "delay") == 0)
-        return json_is_string(v) ? server_delay_parse(f, json_string_value(v), err, n) : SQ_EPARSE;
+    if (strcmp(k, "delay") == 0) {
+        if (json_is_string(v) && server_delay_parse(f, json_string_value(v)) == 0)
+            return 0;
+        snprintf(err, n, "delay: expected %s", SERVER_DELAY_EXPECTS);
+        return SQ_EPARSE;
+    }
     if (strcmp(k, "fail_rate") == 0) {
         f->fail_rate = json_is_number(v) ? json_number_value(v) : -1;
         return f->fail_rate >= 0 && f->fail_rate <= 1 ? 0 : SQ_EPARSE;
@@ -132,12 +130,16 @@ static int fault_key(server_faults_t *f, const char *k, const json_t *v, char *e
         return (i == 503 || i == 429) ? (f->fail_status = (int)i, 0) : SQ_EPARSE;
     if (strcmp(k, "retry_after") == 0)
         return (i >= 0 && i <= 86400) ? (f->retry_after_s = (int)i, 0) : SQ_EPARSE;
-    if (strcmp(k, "stall_at") == 0)
-        return json_duration(v, &f->stall_at_ns);
-    if (strcmp(k, "stall_for") == 0)
-        return json_duration(v, &f->stall_for_ns);
-    if (strcmp(k, "drop_watches_at") == 0)
-        return json_duration(v, &f->drop_at_ns);
+    int64_t *t = strcmp(k, "stall_at") == 0          ? &f->stall_at_ns
+                 : strcmp(k, "stall_for") == 0       ? &f->stall_for_ns
+                 : strcmp(k, "drop_watches_at") == 0 ? &f->drop_at_ns
+                                                     : NULL;
+    if (t) {
+        if (json_duration(v, t) == 0)
+            return 0;
+        snprintf(err, n, "%s: expected %s (or a number of seconds)", k, SERVER_DURATION_RANGE);
+        return SQ_EPARSE;
+    }
     if (strcmp(k, "max_inflight") == 0)
         return (i >= 0 && i <= 1000000) ? (f->max_inflight = (int)i, 0) : SQ_EPARSE;
     if (strcmp(k, "over_limit") == 0 && json_is_string(v)) {
@@ -174,22 +176,35 @@ int srv_faults_from_json(server_faults_t *f, const json_t *j, char *err, size_t 
     return 0;
 }
 
+/* ns as exact decimal seconds ("135s", "0.05s", "0.00001s"), which server_duration_parse reads
+ * back to the same value. */
+static void fmt_seconds(char *buf, size_t len, int64_t ns)
+{
+    char frac[16];
+    snprintf(frac, sizeof frac, ".%09lld", (long long)(ns % 1000000000));
+    size_t n = strlen(frac);
+    while (n > 1 && frac[n - 1] == '0')
+        frac[--n] = '\0';
+    snprintf(buf, len, "%lld%ss", (long long)(ns / 1000000000), n > 1 ? frac : "");
+}
+
 static json_t *ns_json(int64_t ns)
 {
     char s[48];
-    snprintf(s, sizeof(s), "%.9gs", (double)ns / 1e9);
+    fmt_seconds(s, sizeof s, ns);
     return json_string(s);
 }
 
 json_t *srv_faults_to_json(const server_faults_t *f)
 {
     static const char *const kinds[] = {"none", "fixed", "uniform", "exp"};
-    char d[128];
+    char d[128], a[48], b[48];
+    fmt_seconds(a, sizeof a, f->delay_a_ns);
+    fmt_seconds(b, sizeof b, f->delay_b_ns);
     if (f->delay_kind == SERVER_DELAY_UNIFORM)
-        snprintf(d, sizeof(d), "uniform:%.9gs..%.9gs", (double)f->delay_a_ns / 1e9,
-                 (double)f->delay_b_ns / 1e9);
+        snprintf(d, sizeof(d), "uniform:%s..%s", a, b);
     else if (f->delay_kind != SERVER_DELAY_NONE)
-        snprintf(d, sizeof(d), "%s:%.9gs", kinds[f->delay_kind], (double)f->delay_a_ns / 1e9);
+        snprintf(d, sizeof(d), "%s:%s", kinds[f->delay_kind], a);
     else
         snprintf(d, sizeof(d), "none");
     json_t *j =

@@ -18,6 +18,7 @@
 #include <curl/curl.h>
 #include <jansson.h>
 
+#include "squall/err.h"
 #include "squall/server.h"
 
 /* ---- The server on a thread */
@@ -577,10 +578,47 @@ static void test_slow_watcher_bounded(void **state)
     fixture_stop(&s);
 }
 
+/* Fault times are read with the plan's duration syntax (units by the SI and its accepted minute
+ * and hour: BIPM SI Brochure, 9th ed., Tables 7 and 8), also inside delay specs; a spec that is
+ * refused leaves the faults as they were. */
+static void test_delay_spec(void **state)
+{
+    (void)state;
+    server_faults_t f;
+    server_faults_init(&f);
+    assert_int_equal(server_delay_parse(&f, "uniform:10ms..1m30s"), 0);
+    assert_int_equal(f.delay_kind, SERVER_DELAY_UNIFORM);
+    assert_true(f.delay_a_ns == 10000000 && f.delay_b_ns == INT64_C(90000000000));
+    assert_int_equal(server_delay_parse(&f, "exp:2m15s"), 0); /* 135 s */
+    assert_true(f.delay_kind == SERVER_DELAY_EXP && f.delay_a_ns == INT64_C(135000000000));
+    assert_int_equal(server_delay_parse(&f, "fixed:1.5s"), 0);
+    assert_true(f.delay_kind == SERVER_DELAY_FIXED && f.delay_a_ns == 1500000000);
+    static const char *const bad[] = {
+        "bogus",   "fixed:",      "fixed:2m15",   "fixed:1s..2s", "uniform:1s", "uniform:2s..1s",
+        "exp:-1s", "fixed:1001h", "uniform:..1s", "Fixed:1s",     "fixed: 1s",  "none:1s"};
+    for (size_t i = 0; i < sizeof bad / sizeof bad[0]; i++) {
+        if (server_delay_parse(&f, bad[i]) != SQ_EPARSE)
+            fail_msg("delay '%s' accepted", bad[i]);
+        assert_true(f.delay_kind == SERVER_DELAY_FIXED && f.delay_a_ns == 1500000000);
+    }
+    assert_int_equal(server_delay_parse(&f, "none"), 0);
+    assert_int_equal(f.delay_kind, SERVER_DELAY_NONE);
+    int64_t ns = 7;
+    assert_int_equal(server_duration_parse("1h30m", &ns), 0);
+    assert_true(ns == INT64_C(5400000000000)); /* 3600 + 1800 s */
+    assert_int_equal(server_duration_parse("1000h", &ns), 0);
+    assert_true(ns == SERVER_DURATION_MAX_NS);
+    assert_int_equal(server_duration_parse("1000h1ns", &ns), SQ_ERANGE);
+    assert_int_equal(server_duration_parse("-1s", &ns), SQ_ERANGE);
+    assert_int_equal(server_duration_parse("10", &ns), SQ_EPARSE);
+    assert_true(ns == SERVER_DURATION_MAX_NS);
+}
+
 int main(void)
 {
     curl_global_init(CURL_GLOBAL_DEFAULT);
     const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_delay_spec),
         cmocka_unit_test(test_crud),
         cmocka_unit_test(test_merge_patch_rfc7386),
         cmocka_unit_test(test_bad_input),
