@@ -1,4 +1,5 @@
-/* The command line: a table of subcommands, a small option parser, and "did you mean".
+/* The command line: a table of subcommands and a small option parser that answers mistakes with
+ * the closest valid word (squall/suggest.h).
  *
  * Each subcommand lives in its own src/cli/<name>.c and exports one cli_cmd_t; the table in
  * src/cli/commands.c lists them. A command's main receives argv after the command name and
@@ -33,10 +34,6 @@ const cli_cmd_t *cli_find(const char *name);
 /* Writes `squall help NAME` text to the results stream. */
 void cli_print_help(const cli_cmd_t *cmd, out_t *o);
 void cli_print_overview(out_t *o);
-
-/* The word in `words` (NULL-terminated, or stride-separated structs via cli_closest_opt) closest
- * to `word` by edit distance, or NULL when none is close enough to be a plausible typo. */
-const char *cli_closest(const char *word, const char *const *words);
 
 /* Option iteration over argv (argv[0] is the first word after the command name). */
 typedef struct {

@@ -21,27 +21,6 @@
 
 #include "squall/out.h"
 
-/* ---- value syntax (reused by the CLI for --set and options) ---------------------------- */
-
-/* Durations: one or more <number><unit> parts (`250ms`, `1.5s`, `1m30s`), units ns, us (or µs),
- * ms, s, m, h; a bare `0` is zero. Exact in integer nanoseconds. Returns 0, SQ_EPARSE when
- * malformed, SQ_ERANGE when negative, finer than 1 ns or beyond INT64_MAX ns. */
-int plan_parse_duration(const char *s, int64_t *ns);
-/* Rates: <number>/<unit>, unit s, m (or min) or h: `500/s`, `30/m`, `2/h`; a bare `0` is zero.
- * Returns requests per second; SQ_EPARSE when malformed, SQ_ERANGE above PLAN_RATE_MAX. */
-int plan_parse_rate(const char *s, double *per_s);
-/* Percentages: <number>%, 0% to 100%: `5%` -> 0.05. SQ_EPARSE / SQ_ERANGE as above. */
-int plan_parse_percent(const char *s, double *fraction);
-/* Plain decimal integers (no sign unless negative, no spaces), within [min, max]. */
-int plan_parse_int(const char *s, int64_t min, int64_t max, int64_t *v);
-/* Plain decimal numbers (`1`, `0.25`, `1e3`), finite, within [min, max]. */
-int plan_parse_number(const char *s, double min, double max, double *v);
-
-#define PLAN_RATE_MAX         1e9
-#define PLAN_DURATION_EXPECTS "a duration like 250ms, 1.5s, 5m or 1h"
-#define PLAN_RATE_EXPECTS     "a rate like 500/s, 30/m or 2/h"
-#define PLAN_PERCENT_EXPECTS  "a percentage like 5% or 0.1%"
-
 /* ---- the data model -------------------------------------------------------------------- */
 
 typedef struct {

@@ -10,6 +10,7 @@
 #include "squall/journal.h"
 #include "squall/plan.h"
 #include "squall/source.h"
+#include "squall/value.h"
 
 enum {
     OPT_CONFIRM,
@@ -80,11 +81,11 @@ static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *
         ca->confirm = true;
         break;
     case OPT_RATE:
-        if (plan_parse_rate(v, &ca->rate))
-            return cli_usage_error(cmd, o, "--rate needs %s, got '%s'", PLAN_RATE_EXPECTS, v);
+        if (value_parse_rate(v, &ca->rate))
+            return cli_usage_error(cmd, o, "--rate needs %s, got '%s'", VALUE_RATE_EXPECTS, v);
         break;
     case OPT_CONNECTIONS:
-        if (plan_parse_int(v, 1, 10000, &n))
+        if (value_parse_int(v, 1, 10000, &n))
             return cli_usage_error(cmd, o, "--connections needs 1..10000, got '%s'", v);
         ca->connections = (int)n;
         break;

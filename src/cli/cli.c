@@ -1,4 +1,4 @@
-/* The subcommand table's lookups, help text, option parsing and "did you mean" suggestions. */
+/* The subcommand table's lookups, help text and option parsing (with "did you mean" answers). */
 #include "squall/cli.h"
 
 #include <stdarg.h>
@@ -6,6 +6,7 @@
 #include <string.h>
 
 #include "squall/err.h"
+#include "squall/suggest.h"
 
 const cli_cmd_t *cli_find(const char *name)
 {
@@ -50,51 +51,6 @@ void cli_print_help(const cli_cmd_t *cmd, out_t *o)
     out_print(o, "  %-28s %s\n", "-h, --help", "show this help");
 }
 
-/* Levenshtein distance, bounded to short words (options and command names). */
-static int edit_distance(const char *a, const char *b)
-{
-    size_t la = strlen(a), lb = strlen(b);
-    if (la > 63 || lb > 63)
-        return 99;
-    int row[64];
-    for (size_t j = 0; j <= lb; j++)
-        row[j] = (int)j;
-    for (size_t i = 1; i <= la; i++) {
-        int diag = row[0];
-        row[0] = (int)i;
-        for (size_t j = 1; j <= lb; j++) {
-            int up = row[j];
-            int best = diag + (a[i - 1] != b[j - 1]);
-            if (up + 1 < best)
-                best = up + 1;
-            if (row[j - 1] + 1 < best)
-                best = row[j - 1] + 1;
-            row[j] = best;
-            diag = up;
-        }
-    }
-    return row[lb];
-}
-
-const char *cli_closest(const char *word, const char *const *words)
-{
-    const char *best = NULL;
-    int best_d = 1 << 30;
-    for (int i = 0; words[i]; i++) {
-        int d = edit_distance(word, words[i]);
-        /* A prefix of a valid word (e.g. "--conn") is a plausible shorthand too. */
-        if (strncmp(words[i], word, strlen(word)) == 0 && strlen(word) >= 2)
-            d = d < 1 ? d : 1;
-        if (d < best_d) {
-            best_d = d;
-            best = words[i];
-        }
-    }
-    int len = (int)strlen(word);
-    int allowed = len <= 4 ? 2 : (len + 2) / 3;
-    return best && best_d <= allowed ? best : NULL;
-}
-
 void cli_args_init(cli_args_t *a, const cli_cmd_t *cmd, int argc, char **argv)
 {
     a->cmd = cmd;
@@ -120,23 +76,19 @@ int cli_usage_error(const cli_cmd_t *cmd, out_t *o, const char *fmt, ...)
 
 static int unknown_option(cli_args_t *a, out_t *o, const char *word)
 {
-    const char *names[64];
-    char dashed[64][40];
-    int n = 0;
-    for (const cli_opt_t *op = a->cmd->opts; op && op->name && n < 62; op++, n++) {
-        snprintf(dashed[n], sizeof dashed[n], "--%s", op->name);
-        names[n] = dashed[n];
-    }
-    names[n++] = "--help";
-    names[n] = NULL;
     char bare[64];
     snprintf(bare, sizeof bare, "%s", word);
     char *eq = strchr(bare, '=');
     if (eq)
         *eq = '\0';
-    const char *near = cli_closest(bare, names);
+    suggest_t s;
+    suggest_init(&s, bare);
+    for (const cli_opt_t *op = a->cmd->opts; op && op->name; op++)
+        suggest_offer(&s, "--", op->name);
+    suggest_offer(&s, "--", "help");
+    const char *near = suggest_best(&s);
     if (near)
-        cli_usage_error(a->cmd, o, "unknown option '%s'; did you mean '%s'?", bare, near);
+        cli_usage_error(a->cmd, o, "unknown option '%s'; did you mean '--%s'?", bare, near);
     else
         cli_usage_error(a->cmd, o, "unknown option '%s'", bare);
     return CLI_ERROR;

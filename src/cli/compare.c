@@ -5,9 +5,9 @@
 
 #include "squall/cli.h"
 #include "squall/err.h"
-#include "squall/plan.h"
 #include "squall/report.h"
 #include "squall/results.h"
+#include "squall/value.h"
 
 enum { OPT_JSON, OPT_HTML, OPT_ALPHA, OPT_MIN_MS, OPT_MIN_TAIL, OPT_MIN_REL };
 
@@ -35,19 +35,20 @@ static int parse_value(const cli_cmd_t *cmd, int k, const char *v, compare_args_
     int64_t ns;
     if (k == OPT_HTML)
         ca->html = v;
-    else if (k == OPT_ALPHA && plan_parse_number(v, 1e-12, 0.5, &ca->opts.alpha))
+    else if (k == OPT_ALPHA && value_parse_number(v, 1e-12, 0.5, &ca->opts.alpha))
         return cli_usage_error(cmd, o, "--alpha needs a number in (0, 0.5], got '%s'", v);
-    else if (k == OPT_MIN_MS && plan_parse_duration(v, &ns))
-        return cli_usage_error(cmd, o, "--min-change needs %s, got '%s'", PLAN_DURATION_EXPECTS, v);
+    else if (k == OPT_MIN_MS && value_parse_duration(v, &ns))
+        return cli_usage_error(cmd, o, "--min-change needs %s, got '%s'", VALUE_DURATION_EXPECTS,
+                               v);
     else if (k == OPT_MIN_MS)
         ca->opts.min_abs_ms = (double)ns / 1e6;
-    else if (k == OPT_MIN_TAIL && plan_parse_duration(v, &ns))
+    else if (k == OPT_MIN_TAIL && value_parse_duration(v, &ns))
         return cli_usage_error(cmd, o, "--min-change-tail needs %s, got '%s'",
-                               PLAN_DURATION_EXPECTS, v);
+                               VALUE_DURATION_EXPECTS, v);
     else if (k == OPT_MIN_TAIL)
         ca->opts.min_tail_ms = (double)ns / 1e6;
-    else if (k == OPT_MIN_REL && plan_parse_percent(v, &ca->opts.min_rel))
-        return cli_usage_error(cmd, o, "--min-change-pct needs %s, got '%s'", PLAN_PERCENT_EXPECTS,
+    else if (k == OPT_MIN_REL && value_parse_percent(v, &ca->opts.min_rel))
+        return cli_usage_error(cmd, o, "--min-change-pct needs %s, got '%s'", VALUE_PERCENT_EXPECTS,
                                v);
     return -1;
 }

@@ -43,7 +43,7 @@ static bool port_open(int port)
 }
 
 /* Starts `squall serve` (this same binary) and waits up to 5 s for it to listen. */
-static pid_t target_spawn(int port, out_t *o)
+static pid_t spawn_server(int port, out_t *o)
 {
     char listen[64];
     snprintf(listen, sizeof listen, "127.0.0.1:%d", port);
@@ -109,7 +109,7 @@ static int demo_run(const char *plan_path, const cli_run_args_t *ra, out_t *o)
     free(sets);
     if (err)
         return err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
-    pid_t pid = target_spawn(port, o);
+    pid_t pid = spawn_server(port, o);
     int rc = SQ_EXIT_FAILURE;
     if (pid > 0) {
         out_info(o, "demo: the embedded target listens on %s (pid %d); running %s", url, (int)pid,

@@ -3,6 +3,7 @@
 
 #include "squall/cli.h"
 #include "squall/err.h"
+#include "squall/suggest.h"
 
 static int help_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
@@ -18,8 +19,7 @@ static int help_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
             return SQ_EXIT_OK;
         }
         if (topic)
-            return cli_usage_error(cmd, o, "one command at a time, got '%s' after '%s'", v,
-                                   topic);
+            return cli_usage_error(cmd, o, "one command at a time, got '%s' after '%s'", v, topic);
         topic = v;
     }
     if (!topic) {
@@ -28,12 +28,11 @@ static int help_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     }
     const cli_cmd_t *c = cli_find(topic);
     if (!c) {
-        const char *names[64];
-        int n = 0;
-        for (; cli_commands[n] && n < 63; n++)
-            names[n] = cli_commands[n]->name;
-        names[n] = NULL;
-        const char *near = cli_closest(topic, names);
+        suggest_t s;
+        suggest_init(&s, topic);
+        for (int i = 0; cli_commands[i]; i++)
+            suggest_offer(&s, NULL, cli_commands[i]->name);
+        const char *near = suggest_best(&s);
         if (near)
             return cli_usage_error(NULL, o, "unknown command '%s'; did you mean '%s'?", topic,
                                    near);

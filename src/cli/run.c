@@ -5,6 +5,7 @@
 
 #include "cli_run.h"
 #include "squall/err.h"
+#include "squall/value.h"
 
 enum {
     OPT_OUT,
@@ -45,7 +46,7 @@ static int parse_shard(const char *v, run_opts_t *ro)
         return SQ_EINVAL;
     snprintf(a, sizeof a, "%.*s", (int)(slash - v), v);
     snprintf(b, sizeof b, "%s", slash + 1);
-    if (plan_parse_int(b, 1, 100000, &n) || plan_parse_int(a, 1, n, &i))
+    if (value_parse_int(b, 1, 100000, &n) || value_parse_int(a, 1, n, &i))
         return SQ_EINVAL;
     ro->shard_index = (int)i;
     ro->shard_count = (int)n;
@@ -81,15 +82,15 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
         break;
     case OPT_SEED: {
         int64_t s;
-        if (plan_parse_int(v, 0, INT64_MAX, &s))
+        if (value_parse_int(v, 0, INT64_MAX, &s))
             return cli_usage_error(cmd, o, "--seed needs a non-negative integer, got '%s'", v);
         ra->ro.has_seed = true;
         ra->ro.seed = (uint64_t)s;
         break;
     }
     case OPT_GRACE:
-        if (plan_parse_duration(v, &ns))
-            return cli_usage_error(cmd, o, "--grace needs %s, got '%s'", PLAN_DURATION_EXPECTS, v);
+        if (value_parse_duration(v, &ns))
+            return cli_usage_error(cmd, o, "--grace needs %s, got '%s'", VALUE_DURATION_EXPECTS, v);
         ra->ro.grace_ns = ns;
         break;
     case OPT_SHARD:

@@ -9,7 +9,8 @@
 
 #include "squall/cli.h"
 #include "squall/err.h"
-#include "squall/target.h"
+#include "squall/server.h"
+#include "squall/value.h"
 
 enum {
     O_LISTEN,
@@ -52,7 +53,7 @@ static const cli_opt_t serve_opts[] = {
 
 typedef struct {
     uv_signal_t sigint, sigterm;
-    target_t *target;
+    server_t *server;
     out_t *out;
 } serve_ctx_t;
 
@@ -60,15 +61,15 @@ static void on_signal(uv_signal_t *h, int signum)
 {
     serve_ctx_t *c = h->data;
     out_info(c->out, "serve: %s, stopping", signum == SIGINT ? "SIGINT" : "SIGTERM");
-    if (c->target)
-        target_stop(c->target, NULL, NULL);
-    c->target = NULL;
+    if (c->server)
+        server_stop(c->server, NULL, NULL);
+    c->server = NULL;
     uv_close((uv_handle_t *)&c->sigint, NULL);
     uv_close((uv_handle_t *)&c->sigterm, NULL);
 }
 
 /* "127.0.0.1:7070", "[::1]:7070" or ":7070" (loopback IPv4). */
-static int parse_listen(const char *s, target_opts_t *o, char *host, size_t hostlen)
+static int parse_listen(const char *s, server_opts_t *o, char *host, size_t hostlen)
 {
     const char *colon = strrchr(s, ':');
     char *end;
@@ -102,95 +103,108 @@ static bool is_loopback(const char *host)
     return inet_pton(AF_INET6, host, &a6) == 1 && IN6_IS_ADDR_LOOPBACK(&a6);
 }
 
-static int num(const char *v, double lo, double hi, double *out)
+/* --stall-at, --stall-for, --drop-watches-at: durations as plans write them (squall/value.h). */
+static int read_duration(int k, const char *v, server_faults_t *f, const char **need)
 {
-    char *end;
-    double d = strtod(v, &end);
-    if (end == v || *end || !(d >= lo && d <= hi))
-        return SQ_EPARSE;
-    *out = d;
-    return 0;
+    int64_t *slot = k == O_STALL_AT    ? &f->stall_at_ns
+                    : k == O_STALL_FOR ? &f->stall_for_ns
+                                       : &f->drop_at_ns;
+    int rc = server_duration_parse(v, slot);
+    *need = rc == SQ_ERANGE ? SERVER_DURATION_RANGE : VALUE_DURATION_EXPECTS;
+    return rc;
 }
 
-/* Applies one option; returns 0 or a usage error already printed. */
-static int apply_opt(const cli_cmd_t *cmd, int k, const char *v, target_opts_t *t, char *host,
-                     bool *pub, out_t *o)
+/* The options that take a whole number: their ranges, and where the value goes. */
+static const struct {
+    int opt;
+    int64_t lo, hi;
+    const char *need;
+} counts[] = {
+    {O_FAIL_STATUS, 429, 503, "503 or 429"},
+    {O_RETRY_AFTER, 0, 86400, "whole seconds in 0..86400"},
+    {O_MAX_INFLIGHT, 0, 1000000, "a whole number in 0..1000000"},
+    {O_BODY_LIMIT, 0, INT64_C(10000000000), "a number of bytes in 0..10000000000"},
+    {O_HISTORY, 1, 10000000, "a whole number in 1..10000000"},
+    {O_STREAM_BUFFER, 256, INT64_C(10000000000), "a number of bytes in 256..10000000000"},
+    {O_SEED, 0, INT64_MAX, "a whole number in 0..9223372036854775807"},
+};
+
+static int read_count(int k, const char *v, server_opts_t *t, const char **need)
 {
-    char err[200];
-    double d = 0;
-    target_faults_t *f = &t->faults;
-    int rc = 0;
+    size_t i = 0;
+    while (i < sizeof counts / sizeof counts[0] && counts[i].opt != k)
+        i++;
+    *need = "a value it knows"; /* not reached: every option is read by read_opt or listed here */
+    if (i == sizeof counts / sizeof counts[0])
+        return SQ_EINVAL;
+    int64_t n;
+    *need = counts[i].need;
+    if (value_parse_int(v, counts[i].lo, counts[i].hi, &n) ||
+        (k == O_FAIL_STATUS && n != 429 && n != 503))
+        return SQ_EPARSE;
     switch (k) {
-    case O_LISTEN:
-        rc = parse_listen(v, t, host, 64);
-        break;
-    case O_PUBLIC:
-        *pub = true;
-        break;
-    case O_DELAY:
-        if (target_delay_parse(f, v, err, sizeof(err)) < 0)
-            return cli_usage_error(cmd, o, "--%s", err);
-        break;
-    case O_FAIL_RATE:
-        rc = num(v, 0, 1, &f->fail_rate);
-        break;
     case O_FAIL_STATUS:
-        rc = num(v, 429, 503, &d);
-        f->fail_status = (int)d;
-        rc = rc < 0 || (d != 429 && d != 503) ? SQ_EPARSE : 0;
+        t->faults.fail_status = (int)n;
         break;
     case O_RETRY_AFTER:
-        rc = num(v, 0, 86400, &d);
-        f->retry_after_s = (int)d;
-        break;
-    case O_STALL_AT:
-        rc = target_duration_parse(v, &f->stall_at_ns);
-        break;
-    case O_STALL_FOR:
-        rc = target_duration_parse(v, &f->stall_for_ns);
-        break;
-    case O_DROP_AT:
-        rc = target_duration_parse(v, &f->drop_at_ns);
+        t->faults.retry_after_s = (int)n;
         break;
     case O_MAX_INFLIGHT:
-        rc = num(v, 0, 1000000, &d);
-        f->max_inflight = (int)d;
-        break;
-    case O_OVER_LIMIT:
-        f->over_limit_reject = strcmp(v, "reject") == 0;
-        rc = f->over_limit_reject || strcmp(v, "queue") == 0 ? 0 : SQ_EPARSE;
+        t->faults.max_inflight = (int)n;
         break;
     case O_BODY_LIMIT:
-        rc = num(v, 0, 1e10, &d);
-        t->body_limit = (long long)d;
+        t->body_limit = n;
         break;
     case O_HISTORY:
-        rc = num(v, 1, 1e7, &d);
-        t->history = (int)d;
+        t->history = (int)n;
         break;
     case O_STREAM_BUFFER:
-        rc = num(v, 256, 1e10, &d);
-        t->stream_buffer = (long long)d;
+        t->stream_buffer = n;
         break;
-    case O_SEED:
-        rc = num(v, 0, 1.8e19, &d);
-        t->seed = (uint64_t)d;
-        break;
+    default:
+        t->seed = (uint64_t)n;
     }
-    if (rc < 0)
-        return cli_usage_error(cmd, o, "--%s: '%s' is not a valid value (see squall help serve)",
-                               serve_opts[k].name, v);
     return 0;
 }
 
-static int run(target_opts_t *topts, out_t *o)
+/* Reads the value of option k (not --public) into opts. Returns 0, or SQ_EPARSE with what the
+ * option needs in *need, for the one-line usage error. */
+static int read_opt(int k, const char *v, server_opts_t *t, char *host, const char **need)
+{
+    server_faults_t *f = &t->faults;
+    switch (k) {
+    case O_LISTEN:
+        *need = "ADDR:PORT (127.0.0.1:7070, [::1]:7070 or :7070)";
+        return parse_listen(v, t, host, 64);
+    case O_DELAY:
+        *need = SERVER_DELAY_EXPECTS;
+        return server_delay_parse(f, v);
+    case O_FAIL_RATE:
+        *need = "a number in [0, 1]";
+        return value_parse_number(v, 0, 1, &f->fail_rate);
+    case O_STALL_AT:
+    case O_STALL_FOR:
+    case O_DROP_AT:
+        return read_duration(k, v, f, need);
+    case O_OVER_LIMIT:
+        *need = "queue or reject";
+        if (strcmp(v, "reject") != 0 && strcmp(v, "queue") != 0)
+            return SQ_EPARSE;
+        f->over_limit_reject = strcmp(v, "reject") == 0;
+        return 0;
+    default:
+        return read_count(k, v, t, need);
+    }
+}
+
+static int run(server_opts_t *sopts, out_t *o)
 {
     uv_loop_t loop;
     serve_ctx_t c = {.out = o};
     if (uv_loop_init(&loop) < 0)
         return SQ_EXIT_FAILURE;
     signal(SIGPIPE, SIG_IGN);
-    if (target_start(&loop, topts, o, &c.target) < 0) {
+    if (server_start(&loop, sopts, o, &c.server) < 0) {
         uv_loop_close(&loop);
         return SQ_EXIT_FAILURE;
     }
@@ -199,9 +213,9 @@ static int run(target_opts_t *topts, out_t *o)
     c.sigint.data = c.sigterm.data = &c;
     uv_signal_start(&c.sigint, on_signal, SIGINT);
     uv_signal_start(&c.sigterm, on_signal, SIGTERM);
-    bool v6 = strchr(topts->host, ':') != NULL;
-    out_info(o, "squall serve: listening on http://%s%s%s:%d (pid %d)", v6 ? "[" : "", topts->host,
-             v6 ? "]" : "", target_port(c.target), (int)getpid());
+    bool v6 = strchr(sopts->host, ':') != NULL;
+    out_info(o, "squall serve: listening on http://%s%s%s:%d (pid %d)", v6 ? "[" : "", sopts->host,
+             v6 ? "]" : "", server_port(c.server), (int)getpid());
     uv_run(&loop, UV_RUN_DEFAULT);
     int rc = uv_loop_close(&loop);
     if (rc != 0) {
@@ -212,40 +226,46 @@ static int run(target_opts_t *topts, out_t *o)
     return SQ_EXIT_OK;
 }
 
+typedef struct {
+    server_opts_t opts;
+    char host[64];
+    bool pub;
+} serve_args_t;
+
+/* cli_parse's take(): one option or word. Returns -1 to go on, or the exit code of a mistake. */
+static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
+{
+    serve_args_t *sa = ctx;
+    const char *need = NULL;
+    if (k == CLI_POSITIONAL)
+        return cli_usage_error(cmd, o, "unexpected argument '%s'", v);
+    if (k == O_PUBLIC)
+        sa->pub = true;
+    else if (read_opt(k, v, &sa->opts, sa->host, &need) != 0)
+        return cli_usage_error(cmd, o, "--%s needs %s, got '%s'", serve_opts[k].name, need, v);
+    return -1;
+}
+
 static int serve_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
-    target_opts_t topts;
-    char host[64];
-    bool pub = false;
-    cli_args_t a;
-    const char *v;
-    int k;
-    target_opts_init(&topts);
-    cli_args_init(&a, cmd, argc, argv);
-    while ((k = cli_next(&a, o, &v)) != CLI_END) {
-        if (k == CLI_ERROR)
-            return SQ_EXIT_USAGE;
-        if (k == CLI_HELP) {
-            cli_print_help(cmd, o);
-            return SQ_EXIT_OK;
-        }
-        if (k == CLI_POSITIONAL)
-            return cli_usage_error(cmd, o, "unexpected argument '%s'", v);
-        if (apply_opt(cmd, k, v, &topts, host, &pub, o) != 0)
-            return SQ_EXIT_USAGE;
-    }
-    if (topts.faults.stall_at_ns >= 0 && topts.faults.stall_for_ns <= 0)
+    serve_args_t sa = {.pub = false};
+    server_opts_init(&sa.opts);
+    int rc = cli_parse(cmd, argc, argv, o, take_opt, &sa);
+    if (rc >= 0)
+        return rc;
+    const server_opts_t *so = &sa.opts;
+    if (so->faults.stall_at_ns >= 0 && so->faults.stall_for_ns <= 0)
         return cli_usage_error(cmd, o, "--stall-at needs --stall-for (its length)");
-    if (!is_loopback(topts.host)) {
-        if (!pub)
+    if (!is_loopback(so->host)) {
+        if (!sa.pub)
             return cli_usage_error(
-                cmd, o, "'%s' is not a loopback address; add --public to listen there", topts.host);
+                cmd, o, "'%s' is not a loopback address; add --public to listen there", so->host);
         out_warn(o,
                  "serve: listening on a non-loopback address (%s): anyone who can reach it "
                  "can read and write the store and its faults",
-                 topts.host);
+                 so->host);
     }
-    return run(&topts, o);
+    return run(&sa.opts, o);
 }
 
 const cli_cmd_t cli_cmd_serve = {

@@ -6,12 +6,8 @@
 #include <unistd.h>
 
 #include "eng_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
-
-static int64_t now_ns(void)
-{
-    return (int64_t)uv_hrtime();
-}
 
 /* Drains finished transfers; each is removed from libcurl here, never inside a callback. */
 static void drain(eng_t *e)
@@ -25,7 +21,7 @@ static void drain(eng_t *e)
         curl_easy_getinfo(m->easy_handle, CURLINFO_PRIVATE, (char **)&x);
         CURLcode rc = m->data.result;
         curl_multi_remove_handle(e->multi, m->easy_handle);
-        eng_done(e, x, rc);
+        e->glue->done(e, x, rc);
     }
 }
 
@@ -37,7 +33,7 @@ void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask)
     e->in_curl--;
     drain(e);
     if (!e->closing)
-        eng_admit(e);
+        e->glue->after_action(e);
 }
 
 static void sock_stop(struct eng_sock *s)
@@ -224,7 +220,7 @@ static int on_curl_timer(CURLM *multi, long timeout_ms, void *userp)
 static void on_check(uv_check_t *c)
 {
     eng_t *e = c->data;
-    e->pass_start_ns = now_ns();
+    e->pass_start_ns = clock_mono_ns();
 }
 
 static void on_prepare(uv_prepare_t *p)
@@ -232,14 +228,15 @@ static void on_prepare(uv_prepare_t *p)
     eng_t *e = p->data;
     if (!e->pass_start_ns)
         return;
-    int64_t busy = now_ns() - e->pass_start_ns;
+    int64_t busy = clock_mono_ns() - e->pass_start_ns;
     e->busy_ns += busy;
     if (busy > e->max_busy_ns)
         e->max_busy_ns = busy;
 }
 
-int eng_glue_start(eng_t *e)
+int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops)
 {
+    e->glue = ops;
     e->multi = curl_multi_init();
     if (!e->multi)
         return SQ_ELIBCURL;
@@ -289,9 +286,9 @@ void eng_glue_close(eng_t *e)
     for (size_t fd = 0; fd < e->n_socks_cap; fd++)
         if (e->socks[fd])
             sock_drop(e, e->socks[fd]);
-    uv_close((uv_handle_t *)&e->timer, eng_handle_closed);
-    uv_close((uv_handle_t *)&e->zero, eng_handle_closed);
-    uv_close((uv_handle_t *)&e->prepare, eng_handle_closed);
-    uv_close((uv_handle_t *)&e->check, eng_handle_closed);
-    uv_close((uv_handle_t *)&e->grace, eng_handle_closed);
+    uv_close((uv_handle_t *)&e->timer, e->glue->closed);
+    uv_close((uv_handle_t *)&e->zero, e->glue->closed);
+    uv_close((uv_handle_t *)&e->prepare, e->glue->closed);
+    uv_close((uv_handle_t *)&e->check, e->glue->closed);
+    uv_close((uv_handle_t *)&e->grace, e->glue->closed);
 }

@@ -38,6 +38,17 @@ struct eng_sock {
     bool parked; /* libcurl removed it but we still poll it for reading (see curl_uv.c) */
 };
 
+/* What the libcurl <-> libuv glue (curl_uv.c) reports upward. The glue sits below engine.c and
+ * never calls it: engine.c hands these callbacks to eng_glue_start. */
+typedef struct {
+    /* A transfer left libcurl (removed from the multi handle) with this result. */
+    void (*done)(eng_t *e, struct eng_xfer *x, CURLcode rc);
+    /* libcurl returned from a socket action: queued requests may be admitted now. */
+    void (*after_action)(eng_t *e);
+    /* One of the engine's own handles closed (its data is the engine). */
+    uv_close_cb closed;
+} eng_glue_ops_t;
+
 struct eng {
     uv_loop_t *loop;
     out_t *out;
@@ -49,9 +60,10 @@ struct eng {
     int streams;
 
     CURLM *multi;
-    uv_timer_t timer;     /* libcurl's one timer */
-    uv_idle_t zero;       /* libcurl asked for a 0 ms timeout */
-    uv_prepare_t prepare; /* loop lag: a pass's callbacks run between check and prepare */
+    const eng_glue_ops_t *glue; /* how the glue reports to engine.c */
+    uv_timer_t timer;           /* libcurl's one timer */
+    uv_idle_t zero;             /* libcurl asked for a 0 ms timeout */
+    uv_prepare_t prepare;       /* loop lag: a pass's callbacks run between check and prepare */
     uv_check_t check;
     uv_timer_t grace; /* eng_stop's grace period */
     int open_handles; /* engine handles not yet closed; memory is freed at 0 */
@@ -79,15 +91,14 @@ struct eng {
     const char *unreachable_why;
 };
 
-/* curl_uv.c: the libcurl <-> libuv glue. */
-int eng_glue_start(eng_t *e);
+/* curl_uv.c: the libcurl <-> libuv glue (reports back through eng_glue_ops_t). */
+int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops);
 void eng_glue_close(eng_t *e);
 /* Runs curl_multi_socket_action and then drains finished transfers and admits queued ones. */
 void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask);
 /* Easy-handle callbacks installed by xfer.c. */
 curl_socket_t eng_glue_opensocket(void *clientp, curlsocktype purpose, struct curl_sockaddr *a);
 int eng_glue_closesocket(void *clientp, curl_socket_t fd);
-void eng_handle_closed(uv_handle_t *h);
 
 /* xfer.c: one transfer's easy handle and result. */
 CURL *eng_easy_new(eng_t *e);
@@ -96,10 +107,5 @@ int eng_xfer_setup(struct eng_xfer *x);
 void eng_xfer_finish(struct eng_xfer *x, CURLcode rc);
 void eng_xfer_release(struct eng_xfer *x);
 enum eng_outcome eng_outcome_of(CURLcode rc, long status);
-
-/* engine.c: the admission queue. */
-void eng_admit(eng_t *e);
-void eng_done(eng_t *e, struct eng_xfer *x, CURLcode rc);
-void eng_cancel_all(eng_t *e);
 
 #endif

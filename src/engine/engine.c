@@ -5,12 +5,8 @@
 #include <string.h>
 
 #include "eng_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
-
-static int64_t now_ns(void)
-{
-    return (int64_t)uv_hrtime();
-}
 
 static char *dup_or_null(const char *s)
 {
@@ -89,12 +85,22 @@ static void eng_release_memory(eng_t *e)
     curl_global_cleanup();
 }
 
-void eng_handle_closed(uv_handle_t *h)
+static void handle_closed(uv_handle_t *h)
 {
     eng_t *e = h->data;
     if (--e->open_handles == 0)
         eng_release_memory(e);
 }
+
+static void admit(eng_t *e);
+static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc);
+
+/* How the glue (curl_uv.c, below this file) reports back without calling into it. */
+static const eng_glue_ops_t glue_ops = {
+    .done = finish,
+    .after_action = admit,
+    .closed = handle_closed,
+};
 
 int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
 {
@@ -134,9 +140,9 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     e->cfg.key_file = e->key_file;
     if ((rc = headers_init(e)))
         goto fail;
-    if ((rc = eng_glue_start(e)))
+    if ((rc = eng_glue_start(e, &glue_ops)))
         goto fail;
-    e->window_start_ns = now_ns();
+    e->window_start_ns = clock_mono_ns();
     *out = e;
     return 0;
 fail:
@@ -176,7 +182,7 @@ int eng_submit(eng_t *e, const eng_req_t *req)
         xfer_put(e, x);
         return SQ_ENOMEM;
     }
-    x->res.submitted_ns = now_ns();
+    x->res.submitted_ns = clock_mono_ns();
     if (!x->res.intended_ns)
         x->res.intended_ns = x->res.submitted_ns;
     x->next = NULL;
@@ -190,7 +196,7 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     e->submitted++;
     /* Admitting may not run inside a libcurl callback; the glue admits after it returns. */
     if (!e->in_curl)
-        eng_admit(e);
+        admit(e);
     return 0;
 }
 
@@ -270,7 +276,7 @@ static bool admit_one(eng_t *e)
     if (x->opener)
         e->openers_pending++;
     eng_xfer_setup(x);
-    x->res.admitted_ns = now_ns();
+    x->res.admitted_ns = clock_mono_ns();
     int64_t wait = x->res.admitted_ns - x->res.submitted_ns;
     if (wait > e->max_queue_wait_ns)
         e->max_queue_wait_ns = wait;
@@ -279,12 +285,12 @@ static bool admit_one(eng_t *e)
         /* Finish it through the normal path so on_done still runs exactly once. */
         flight_unlink(e, x);
         e->in_flight++;
-        eng_done(e, x, CURLE_FAILED_INIT);
+        finish(e, x, CURLE_FAILED_INIT);
     }
     return true;
 }
 
-void eng_admit(eng_t *e)
+static void admit(eng_t *e)
 {
     if (e->in_curl || e->closing)
         return;
@@ -338,7 +344,7 @@ static void count_outcome(eng_t *e, const struct eng_xfer *x)
 }
 
 /* Finishes an in-flight transfer that is no longer in libcurl: result, pools, callback. */
-void eng_done(eng_t *e, struct eng_xfer *x, CURLcode rc)
+static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc)
 {
     flight_unlink(e, x);
     if (x->opener) {
@@ -368,20 +374,20 @@ static void cancel_queued(eng_t *e)
     e->queue_tail = NULL;
 }
 
-void eng_cancel_all(eng_t *e)
+static void cancel_all(eng_t *e)
 {
     cancel_queued(e);
     while (e->flight) {
         struct eng_xfer *x = e->flight;
         x->cancelled = true;
         curl_multi_remove_handle(e->multi, x->easy);
-        eng_done(e, x, CURLE_ABORTED_BY_CALLBACK);
+        finish(e, x, CURLE_ABORTED_BY_CALLBACK);
     }
 }
 
 static void on_grace(uv_timer_t *t)
 {
-    eng_cancel_all(t->data);
+    cancel_all(t->data);
 }
 
 void eng_stop(eng_t *e, int64_t grace_ms)
@@ -389,14 +395,14 @@ void eng_stop(eng_t *e, int64_t grace_ms)
     e->stopped = true;
     cancel_queued(e);
     if (grace_ms == 0)
-        eng_cancel_all(e);
+        cancel_all(e);
     else if (grace_ms > 0 && e->in_flight)
         uv_timer_start(&e->grace, on_grace, (uint64_t)grace_ms, 0);
 }
 
 void eng_stats(eng_t *e, eng_stats_t *st, bool reset_window)
 {
-    int64_t now = now_ns();
+    int64_t now = clock_mono_ns();
     memset(st, 0, sizeof(*st));
     st->in_flight = e->in_flight;
     st->queued = e->queued;
@@ -426,7 +432,7 @@ void eng_free(eng_t *e)
     if (!e)
         return;
     e->stopped = true;
-    eng_cancel_all(e);
+    cancel_all(e);
     e->closing = true;
     uv_timer_stop(&e->grace);
     eng_glue_close(e);

@@ -7,9 +7,9 @@
 #include <stdlib.h>
 #include <string.h>
 #include <sys/stat.h>
-#include <time.h>
 #include <unistd.h>
 
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/journal.h"
 #include "squall/pool.h"
@@ -26,13 +26,6 @@ struct journal {
 };
 
 static const char *const op_names[] = {"put", "created", "failed", "deleted"};
-
-static int64_t unix_ms(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_REALTIME, &ts);
-    return (int64_t)ts.tv_sec * 1000 + ts.tv_nsec / 1000000;
-}
 
 static int write_all(journal_t *j, const char *p, size_t n)
 {
@@ -118,7 +111,7 @@ int journal_open(const char *path, const char *target_url, out_t *o, journal_t *
         rc = write_all(j, "\n", 1);
     if (rc == 0 && st.st_size == 0) {
         rc = append_line(j, json_pack("{s:i, s:s, s:I}", "squall_journal", 1, "target", target_url,
-                                      "started_unix_ms", (json_int_t)unix_ms()));
+                                      "started_unix_ms", (json_int_t)(clock_real_ns() / 1000000)));
         if (rc == 0)
             rc = journal_flush(j);
     }
@@ -136,7 +129,7 @@ int journal_add(journal_t *j, enum journal_op op, const char *path, const char *
     if (!j)
         return 0; /* no journal (a plan without creating classes): nothing to record */
     json_t *rec = json_pack("{s:s, s:s, s:s, s:I}", "op", op_names[op], "path", path, "class",
-                            cls ? cls : "", "t", (json_int_t)unix_ms());
+                            cls ? cls : "", "t", (json_int_t)(clock_real_ns() / 1000000));
     if (!rec)
         return SQ_ENOMEM;
     if (op == JOURNAL_CREATED && version)

@@ -9,6 +9,7 @@
 #include "squall/err.h"
 #include "squall/journal.h"
 #include "squall/pool.h"
+#include "squall/value.h"
 
 #define MAX_PICKS 8 /* pools one class may pick from */
 
@@ -90,7 +91,7 @@ static int parse_pick(const ledger_t *g, const char *arg, size_t len, pick_spec_
         } else if (n > 5 && memcmp(w, "zipf=", 5) == 0) {
             char num[32];
             snprintf(num, sizeof num, "%.*s", (int)(n - 5 < 31 ? n - 5 : 31), w + 5);
-            if (plan_parse_number(num, 0.01, 10, &sp->zipf)) {
+            if (value_parse_number(num, 0.01, 10, &sp->zipf)) {
                 snprintf(why, cap, "zipf=S needs a number in [0.01, 10], got '%s'", num);
                 return SQ_EINVAL;
             }

@@ -84,7 +84,7 @@ static void parse_seed(pctx_t *c, yaml_node_t *root)
         return;
     int64_t v;
     const char *t = pc_text(n);
-    if (!t || plan_parse_int(t, 0, INT64_MAX, &v) != 0) {
+    if (!t || value_parse_int(t, 0, INT64_MAX, &v) != 0) {
         char got[64];
         pc_describe(n, got, sizeof got);
         pc_error(c, n, "seed: malformed value (expected an integer from 0 to %lld, got %s)",

@@ -8,8 +8,8 @@
 #include <string.h>
 
 #include "plan_int.h"
-#include "squall/cli.h"
 #include "squall/err.h"
+#include "squall/suggest.h"
 
 struct plan_mem {
     struct plan_mem *next;
@@ -149,7 +149,7 @@ bool pc_expect_seq(pctx_t *c, yaml_node_t *n, const char *where)
 
 static void unknown_key(pctx_t *c, yaml_node_t *k, const char *where, const char *const *keys)
 {
-    const char *near = cli_closest((const char *)k->data.scalar.value, keys);
+    const char *near = suggest_closest((const char *)k->data.scalar.value, keys);
     if (near) {
         pc_error(c, k, "%s: unknown key '%s' (did you mean '%s'?)", where,
                  (const char *)k->data.scalar.value, near);
@@ -267,7 +267,7 @@ bool pc_int(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int
     if (!t)
         return false;
     int64_t v;
-    int rc = plan_parse_int(t, min, max, &v);
+    int rc = value_parse_int(t, min, max, &v);
     if (rc)
         return bad_value(c, vn, where, key, rc, exp);
     *out = (int)v;
@@ -277,9 +277,9 @@ bool pc_int(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int
 static bool dur_value(pctx_t *c, yaml_node_t *vn, const char *where, const char *key,
                       int64_t min_ns, int64_t *out)
 {
-    const char *exp = min_ns > 0 ? PLAN_DURATION_EXPECTS " above 0" : PLAN_DURATION_EXPECTS;
+    const char *exp = min_ns > 0 ? VALUE_DURATION_EXPECTS " above 0" : VALUE_DURATION_EXPECTS;
     int64_t v;
-    int rc = plan_parse_duration(pc_text(vn), &v);
+    int rc = value_parse_duration(pc_text(vn), &v);
     if (!rc && v < min_ns)
         rc = SQ_ERANGE;
     if (rc)
@@ -292,7 +292,7 @@ bool pc_dur(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int
             int64_t *out)
 {
     yaml_node_t *vn;
-    if (!scalar_of(c, map, key, where, PLAN_DURATION_EXPECTS, &vn))
+    if (!scalar_of(c, map, key, where, VALUE_DURATION_EXPECTS, &vn))
         return false;
     return dur_value(c, vn, where, key, min_ns, out);
 }
@@ -302,7 +302,7 @@ bool pc_node_dur(pctx_t *c, yaml_node_t *n, const char *where, int64_t min_ns, i
     if (!pc_text(n)) {
         char got[64];
         pc_describe(n, got, sizeof got);
-        pc_error(c, n, "%s: wrong type (expected %s, got %s)", where, PLAN_DURATION_EXPECTS, got);
+        pc_error(c, n, "%s: wrong type (expected %s, got %s)", where, VALUE_DURATION_EXPECTS, got);
         return false;
     }
     return dur_value(c, n, where, NULL, min_ns, out);
@@ -313,31 +313,31 @@ bool pc_node_rate(pctx_t *c, yaml_node_t *n, const char *where, double *out)
     if (!pc_text(n)) {
         char got[64];
         pc_describe(n, got, sizeof got);
-        pc_error(c, n, "%s: wrong type (expected %s, got %s)", where, PLAN_RATE_EXPECTS, got);
+        pc_error(c, n, "%s: wrong type (expected %s, got %s)", where, VALUE_RATE_EXPECTS, got);
         return false;
     }
-    int rc = plan_parse_rate(pc_text(n), out);
-    return rc ? bad_value(c, n, where, NULL, rc, PLAN_RATE_EXPECTS) : true;
+    int rc = value_parse_rate(pc_text(n), out);
+    return rc ? bad_value(c, n, where, NULL, rc, VALUE_RATE_EXPECTS) : true;
 }
 
 bool pc_rate(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double *out)
 {
     yaml_node_t *vn;
-    const char *t = scalar_of(c, map, key, where, PLAN_RATE_EXPECTS, &vn);
+    const char *t = scalar_of(c, map, key, where, VALUE_RATE_EXPECTS, &vn);
     if (!t)
         return false;
-    int rc = plan_parse_rate(t, out);
-    return rc ? bad_value(c, vn, where, key, rc, PLAN_RATE_EXPECTS) : true;
+    int rc = value_parse_rate(t, out);
+    return rc ? bad_value(c, vn, where, key, rc, VALUE_RATE_EXPECTS) : true;
 }
 
 bool pc_pct(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double *out)
 {
     yaml_node_t *vn;
-    const char *t = scalar_of(c, map, key, where, PLAN_PERCENT_EXPECTS, &vn);
+    const char *t = scalar_of(c, map, key, where, VALUE_PERCENT_EXPECTS, &vn);
     if (!t)
         return false;
-    int rc = plan_parse_percent(t, out);
-    return rc ? bad_value(c, vn, where, key, rc, PLAN_PERCENT_EXPECTS) : true;
+    int rc = value_parse_percent(t, out);
+    return rc ? bad_value(c, vn, where, key, rc, VALUE_PERCENT_EXPECTS) : true;
 }
 
 bool pc_num(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double min, double max,
@@ -349,7 +349,7 @@ bool pc_num(pctx_t *c, yaml_node_t *map, const char *key, const char *where, dou
     const char *t = scalar_of(c, map, key, where, exp, &vn);
     if (!t)
         return false;
-    int rc = plan_parse_number(t, min, max, out);
+    int rc = value_parse_number(t, min, max, out);
     return rc ? bad_value(c, vn, where, key, rc, exp) : true;
 }
 

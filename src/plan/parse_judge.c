@@ -16,7 +16,7 @@ static bool percentile_key(const char *k, double *pct)
     }
     if (k[0] != 'p')
         return false;
-    return plan_parse_number(k + 1, 1e-9, 100, pct) == 0;
+    return value_parse_number(k + 1, 1e-9, 100, pct) == 0;
 }
 
 /* Checks keys: fixed ones from `keys`, plus percentile keys; suggestions come from `keys`. */

@@ -22,20 +22,6 @@ static const struct {
 };
 #define N_REQ_KEYS (sizeof req_keys / sizeof req_keys[0])
 
-static const char *const kind_names[] = {"get", "list", "write", "watch", NULL};
-static const char *const backoff_names[] = {
-    "immediate", "fixed", "exponential", "full-jitter", "equal-jitter", "decorrelated", NULL};
-
-const char *plan_kind_name(enum plan_kind k)
-{
-    return kind_names[k];
-}
-
-const char *plan_backoff_name(enum plan_backoff b)
-{
-    return backoff_names[b];
-}
-
 /* Keys that exist but belong to another kind of request. */
 static void check_kind_keys(pctx_t *c, yaml_node_t *n, const char *where, enum plan_kind kind)
 {
@@ -46,12 +32,12 @@ static void check_kind_keys(pctx_t *c, yaml_node_t *n, const char *where, enum p
         if (!k)
             continue;
         char kinds[64] = "";
-        for (int j = 0; kind_names[j]; j++)
+        for (int j = 0; plan_kind_names[j]; j++)
             if (req_keys[i].kinds & (1u << j))
                 snprintf(kinds + strlen(kinds), sizeof kinds - strlen(kinds), "%s%s",
-                         kinds[0] ? " or " : "", kind_names[j]);
+                         kinds[0] ? " or " : "", plan_kind_names[j]);
         pc_error(c, k, "%s: key '%s' does not apply to this kind (expected kind %s, got %s)", where,
-                 req_keys[i].key, kinds, kind_names[kind]);
+                 req_keys[i].key, kinds, plan_kind_names[kind]);
     }
 }
 
@@ -96,7 +82,7 @@ static void parse_reconnect(pctx_t *c, yaml_node_t *n, const char *where, plan_r
         return;
     pc_check_keys(c, n, w, keys);
     int pol = r->watch.policy;
-    if (pc_enum(c, n, "policy", w, backoff_names, &pol))
+    if (pc_enum(c, n, "policy", w, plan_backoff_names, &pol))
         r->watch.policy = (enum plan_backoff)pol;
     bool b = pc_dur(c, n, "base", w, 0, &r->watch.base_ns);
     bool k = pc_dur(c, n, "cap", w, 0, &r->watch.cap_ns);
@@ -177,7 +163,7 @@ static void parse_one(pctx_t *c, yaml_node_t *k, yaml_node_t *n, plan_req_t *r)
                  where);
         return;
     }
-    if (!pc_enum(c, n, "kind", where, kind_names, &kind))
+    if (!pc_enum(c, n, "kind", where, plan_kind_names, &kind))
         return;
     r->kind = (enum plan_kind)kind;
     check_kind_keys(c, n, where, r->kind);

@@ -10,6 +10,7 @@
 #include <yaml.h>
 
 #include "squall/plan.h"
+#include "squall/value.h"
 
 /* Which kinds a key applies to (bit per enum plan_kind), for "page on a write" errors. */
 #define PK_GET   (1u << PLAN_GET)
@@ -107,6 +108,11 @@ void plan_check_whole(pctx_t *c);
 void plan_apply_override(pctx_t *c, size_t k, const plan_override_t *ov);
 /* True when every part of the override's path but the last exists in c->doc. */
 bool plan_override_fits(pctx_t *c, const plan_override_t *ov);
+
+/* Names of enum plan_kind and enum plan_backoff values as written in plans, NULL-terminated
+ * (names.c), for pc_enum. */
+extern const char *const plan_kind_names[];
+extern const char *const plan_backoff_names[];
 
 /* Appends n zeroed elements to a plan array (copying, since arrays live in plan memory). */
 void *pc_grow(pctx_t *c, void *arr, size_t *count, size_t add, size_t elem);

@@ -5,24 +5,8 @@
 #include <string.h>
 
 #include "plan_int.h"
-#include "squall/cli.h"
 #include "squall/err.h"
-
-int plan_find_req(const plan_t *p, const char *name)
-{
-    for (size_t i = 0; i < p->n_reqs; i++)
-        if (p->reqs[i].name && strcmp(p->reqs[i].name, name) == 0)
-            return (int)i;
-    return -1;
-}
-
-int plan_find_phase(const plan_t *p, const char *name)
-{
-    for (size_t i = 0; i < p->n_phases; i++)
-        if (p->phases[i].name && strcmp(p->phases[i].name, name) == 0)
-            return (int)i;
-    return -1;
-}
+#include "squall/suggest.h"
 
 enum need { NEED_ANY, NEED_NOT_WATCH, NEED_WATCH, NEED_LIST, NEED_CREATES, NEED_DELETES };
 
@@ -60,7 +44,7 @@ static void resolve_class(pctx_t *c, plan_ref_t *ref, const char *what, enum nee
     }
     ref->index = plan_find_req(c->p, ref->name);
     if (ref->index < 0) {
-        const char *near = cli_closest(ref->name, names);
+        const char *near = suggest_closest(ref->name, names);
         if (near)
             pc_error_at(c, ref->pos, "%s: unknown class '%s' (did you mean '%s'?)", what, ref->name,
                         near);

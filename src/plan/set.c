@@ -26,7 +26,7 @@ static yaml_node_item_t *find_item(pctx_t *c, yaml_node_t *seq, const char *comp
 {
     size_t count = (size_t)(seq->data.sequence.items.top - seq->data.sequence.items.start);
     int64_t idx;
-    if (plan_parse_int(comp, 0, (int64_t)count - 1, &idx) == 0)
+    if (value_parse_int(comp, 0, (int64_t)count - 1, &idx) == 0)
         return &seq->data.sequence.items.start[idx];
     for (size_t i = 0; i < count; i++) {
         yaml_node_t *it = pc_node(c, seq->data.sequence.items.start[i]);

@@ -1,13 +1,12 @@
 /* A comparison as output: the terminal table, the JSON document (--json) and the HTML
  * side-by-side page (--html). */
-#include <errno.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
-#include <unistd.h>
 
 #include "html_int.h"
 #include "squall/err.h"
+#include "squall/file.h"
 
 #define METHOD                                                                                     \
     "Mann-Whitney U (Mann & Whitney 1947), two-sided, normal approximation with tie and "          \
@@ -204,20 +203,19 @@ static int write_page(FILE *f, const report_cmp_t *c, const results_t *b, const 
     return ferror(f) ? SQ_EIO : 0;
 }
 
+typedef struct {
+    const report_cmp_t *cmp;
+    const results_t *base, *nw;
+} page_t;
+
+static int fill_page(FILE *f, void *ctx)
+{
+    const page_t *p = ctx;
+    return write_page(f, p->cmp, p->base, p->nw);
+}
+
 int report_cmp_html(const report_cmp_t *c, const results_t *base, const results_t *nw,
                     const char *path, out_t *o)
 {
-    char tmp[4200];
-    snprintf(tmp, sizeof tmp, "%s.tmp.%ld", path, (long)getpid());
-    FILE *f = fopen(tmp, "w");
-    int rc = f ? write_page(f, c, base, nw) : SQ_EIO;
-    if (f && fclose(f) != 0)
-        rc = SQ_EIO;
-    if (rc == 0 && rename(tmp, path) != 0)
-        rc = SQ_EIO;
-    if (rc) {
-        out_error(o, "cannot write %s: %s", path, strerror(errno));
-        unlink(tmp);
-    }
-    return rc;
+    return file_write_atomic(path, fill_page, &(page_t){c, base, nw}, o);
 }

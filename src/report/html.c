@@ -1,14 +1,13 @@
 /* report.html: one self-contained page (inline CSS and SVG, no scripts, nothing fetched) with
  * the run header, objective verdicts, per phase x class tables and the plots. */
-#include <errno.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
 #include <time.h>
-#include <unistd.h>
 
 #include "html_int.h"
 #include "squall/err.h"
+#include "squall/file.h"
 
 const char html_css[] =
     "body{font:15px/1.45 system-ui,sans-serif;color:#1a1a1a;background:#fff;margin:0 auto;"
@@ -218,11 +217,21 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
     return ferror(f) ? SQ_EIO : 0;
 }
 
+typedef struct {
+    const results_t *res;
+    const report_series_t *series;
+} page_t;
+
+static int fill_page(FILE *f, void *ctx)
+{
+    const page_t *p = ctx;
+    return report_html_write(f, p->res, p->series);
+}
+
 int report_html_write_dir(const char *dir, const results_t *res, out_t *o)
 {
-    char path[4096], tmp[4200], series[4096];
+    char path[4096], series[4096];
     snprintf(path, sizeof path, "%s/%s", dir, REPORT_HTML_FILE);
-    snprintf(tmp, sizeof tmp, "%s.tmp.%ld", path, (long)getpid());
     snprintf(series, sizeof series, "%s/%s", dir, REPORT_SERIES_FILE);
     report_series_t *s = NULL;
     out_t *quiet = out_new_capture(); /* a missing series.csv is noted in the page instead */
@@ -235,16 +244,7 @@ int report_html_write_dir(const char *dir, const results_t *res, out_t *o)
     out_free(quiet);
     if (read != 0 && report_series_new(&s) != 0)
         return SQ_ENOMEM;
-    FILE *f = fopen(tmp, "w");
-    int rc = f ? report_html_write(f, res, s) : SQ_EIO;
-    if (f && fclose(f) != 0)
-        rc = SQ_EIO;
-    if (rc == 0 && rename(tmp, path) != 0)
-        rc = SQ_EIO;
-    if (rc) {
-        out_error(o, "cannot write %s: %s", path, strerror(errno));
-        unlink(tmp);
-    }
+    int rc = file_write_atomic(path, fill_page, &(page_t){res, s}, o);
     report_series_free(s);
     return rc;
 }

@@ -1,15 +1,15 @@
-/* results.json: writing (atomically) and reading back, with one clear line per problem.
- * The layout is documented in DEVELOPERS.md ("Results files"). */
+/* results.json: writing (atomically, squall/file.h) and reading back, with one clear line per
+ * problem. The layout is documented in DEVELOPERS.md ("Results files"). */
 #include <errno.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <sys/stat.h>
-#include <unistd.h>
 
 #include "results_int.h"
 #include "squall/err.h"
+#include "squall/file.h"
 
 /* Percentiles listed in each cell's human-readable summary (readers ignore it). */
 static const struct {
@@ -87,40 +87,11 @@ static json_t *results_json(const results_t *r)
                      "digits", r->digits, "cells", cells, "sections", r->sections);
 }
 
-/* Dumps root into a temporary file next to path, flushes it to disk, then renames it. */
-static int write_atomic(json_t *root, const char *path, out_t *o)
+static int dump_json(FILE *f, void *root)
 {
-    size_t n = strlen(path);
-    char *tmp = malloc(n + 16);
-    if (!tmp)
-        return SQ_ENOMEM;
-    snprintf(tmp, n + 16, "%s.tmp-XXXXXX", path);
-    int fd = mkstemp(tmp);
-    FILE *f = fd >= 0 ? fdopen(fd, "w") : NULL;
-    if (!f) {
-        out_raw(o, OUT_ERROR, "%s: error: cannot write results: %s", path, strerror(errno));
-        if (fd >= 0) {
-            close(fd);
-            unlink(tmp);
-        }
-        free(tmp);
+    if (json_dumpf(root, f, JSON_INDENT(1) | JSON_REAL_PRECISION(17)) != 0 || fputc('\n', f) == EOF)
         return SQ_EIO;
-    }
-    int bad = fchmod(fd, 0644) != 0;
-    bad |= json_dumpf(root, f, JSON_INDENT(1) | JSON_REAL_PRECISION(17)) != 0;
-    bad |= fputc('\n', f) == EOF || fflush(f) != 0 || fsync(fd) != 0;
-    int saved = errno;
-    bad |= fclose(f) != 0;
-    if (!bad && rename(tmp, path) != 0) {
-        saved = errno;
-        bad = 1;
-    }
-    if (bad) {
-        out_raw(o, OUT_ERROR, "%s: error: cannot write results: %s", path, strerror(saved));
-        unlink(tmp);
-    }
-    free(tmp);
-    return bad ? SQ_EIO : 0;
+    return 0;
 }
 
 int results_write(const results_t *r, const char *path, out_t *o)
@@ -128,7 +99,7 @@ int results_write(const results_t *r, const char *path, out_t *o)
     json_t *root = results_json(r);
     if (!root)
         return SQ_ENOMEM;
-    int rc = write_atomic(root, path, o);
+    int rc = file_write_atomic(path, dump_json, root, o);
     json_decref(root);
     return rc;
 }

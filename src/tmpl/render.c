@@ -2,8 +2,8 @@
  * and numbers are formatted by hand (no locale, no printf). */
 #include <stdlib.h>
 #include <string.h>
-#include <time.h>
 
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "tmpl_int.h"
 
@@ -48,13 +48,6 @@ static void put_uint(writer_t *w, uint64_t v, int width)
     while (sizeof(buf) - i < (size_t)width)
         buf[--i] = '0';
     put(w, buf + i, sizeof(buf) - i);
-}
-
-static int64_t realtime_ns(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_REALTIME, &ts);
-    return (int64_t)ts.tv_sec * 1000000000 + ts.tv_nsec;
 }
 
 static int put_resolved(writer_t *w, const tmpl_seg_t *s, const tmpl_ctx_t *ctx)
@@ -112,7 +105,7 @@ int tmpl_render_to(const tmpl_t *t, const tmpl_ctx_t *ctx, char *dst, size_t cap
     *len = 0;
     if (t->uses_rng && !ctx->rng)
         return SQ_EINVAL;
-    int64_t now = t->uses_now ? (ctx->now_ns ? ctx->now_ns : realtime_ns()) : 0;
+    int64_t now = t->uses_now ? (ctx->now_ns ? ctx->now_ns : clock_real_ns()) : 0;
     for (size_t i = 0; i < t->n_segs; i++) {
         int rc = put_seg(&w, t, &t->segs[i], ctx, now);
         if (rc < 0)
@@ -142,7 +135,7 @@ int tmpl_render(const tmpl_t *t, const tmpl_ctx_t *ctx, tmpl_buf_t *b)
     /* A second pass must show the same instant and the same picks as the first. */
     tmpl_ctx_t c = *ctx;
     if (t->uses_now && !c.now_ns)
-        c.now_ns = realtime_ns();
+        c.now_ns = clock_real_ns();
     rng_t saved = c.rng ? *c.rng : (rng_t){{0}};
     int rc = 0;
     /* A resolver may answer longer the second time; a few rounds settle any sane one. */

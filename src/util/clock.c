@@ -1,7 +1,8 @@
-/* The two clocks squall reads, in integer nanoseconds. */
-#include <time.h>
-
+/* The two clocks squall reads (see squall/clock.h): wall time for stamps, monotonic time for
+ * intervals, both in int64 nanoseconds. */
 #include "squall/clock.h"
+
+#include <time.h>
 
 static int64_t read_ns(clockid_t id)
 {

@@ -9,16 +9,16 @@ source "$SRCDIR/tests/integration/lib/run.sh"
 T="$BUILDDIR/cleanup-kill9"
 rm -rf "$T"
 mkdir -p "$T"
-objects() { target_stats 's["objects"]'; }
+objects() { serve_stats 's["objects"]'; }
 
-target_start || exit 1
+serve_start || exit 1
 for i in 0 1 2; do
-    curl -s -X PUT -d '{"model":"t-b"}' "$TGT_URL/v1/sites/harbor/gateways/old-$i" >/dev/null
+    curl -s -X PUT -d '{"model":"t-b"}' "$SERVE_URL/v1/sites/harbor/gateways/old-$i" >/dev/null
 done
 BEFORE=$(objects)
 cat >"$T/churn.yaml" <<YAML
 seed: 5
-target: {url: "$TGT_URL", connections: 8, timeout: 2s}
+target: {url: "$SERVE_URL", connections: 8, timeout: 2s}
 requests:
   add-gateway: {kind: write, method: PUT, path: "/v1/sites/harbor/gateways/gw-{{seq}}",
                 body: '{"m":1}', creates: true}
@@ -34,7 +34,7 @@ YAML
 RP=$!
 stop_all() {
     kill -KILL "$RP" 2>/dev/null
-    target_stop
+    serve_stop
 }
 trap stop_all EXIT
 # Mid-churn: the population of 150 is reached after 0.75 s at 200/s; wait until deletes run too.

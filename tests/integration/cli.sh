@@ -20,13 +20,12 @@ for c in $(sed -n 's/^  \([a-z]*\)  .*/\1/p' "$T/help" | sort -u); do
         bash -c "[ $rc = 0 ] && grep -q '^usage: squall $c' '$T/help-$c'"
 done
 
-mistake() { # mistake DESC EXPECTED-LINE ARGS...
-    local desc=$1 want=$2
-    shift 2
-    "$SQUALL" "$@" >"$T/out" 2>"$T/err"
-    local rc=$? lines
+# judge DESC EXPECTED-LINE RC: the command that just ran wrote exactly that one line to stderr,
+# nothing to stdout, and exited 2.
+judge() {
+    local desc=$1 want=$2 rc=$3 lines
     lines=$(wc -l <"$T/err")
-    if [ $rc = 2 ] && [ "$lines" = 1 ] && [ "$(cat "$T/err")" = "$want" ] && [ ! -s "$T/out" ]; then
+    if [ "$rc" = 2 ] && [ "$lines" = 1 ] && [ "$(cat "$T/err")" = "$want" ] && [ ! -s "$T/out" ]; then
         echo "ok: $desc"
     else
         echo "FAIL: $desc: exit $rc, stderr:"
@@ -34,6 +33,33 @@ mistake() { # mistake DESC EXPECTED-LINE ARGS...
         echo "      wanted: $want"
         FAILED=1
     fi
+}
+mistake() { # mistake DESC EXPECTED-LINE ARGS...
+    local desc=$1 want=$2
+    shift 2
+    "$SQUALL" "$@" >"$T/out" 2>"$T/err"
+    judge "$desc" "$want" $?
+}
+# serve_mistake DESC EXPECTED-LINE ARGS...: `squall serve --listen 127.0.0.1:0 ARGS`, which must
+# refuse the options; a serve that starts anyway is stopped by pid after 5 s and fails the test.
+serve_mistake() {
+    local desc=$1 want=$2 pid i
+    shift 2
+    "$SQUALL" serve --listen 127.0.0.1:0 "$@" >"$T/out" 2>"$T/err" &
+    pid=$!
+    for i in $(seq 50); do
+        kill -0 "$pid" 2>/dev/null || break
+        sleep 0.1
+    done
+    if kill -0 "$pid" 2>/dev/null; then
+        kill "$pid"
+        wait "$pid"
+        echo "FAIL: $desc: serve started instead of refusing $*"
+        FAILED=1
+        return
+    fi
+    wait "$pid"
+    judge "$desc" "$want" $?
 }
 mistake "an unknown command names the closest one" \
     "squall: error: unknown command 'chek'; did you mean 'check'? (see 'squall --help')" chek
@@ -49,4 +75,32 @@ mistake "a command without its plan" \
     "squall: error: run: which plan? (expected PLAN.yaml) (see 'squall help run')" run
 mistake "help for an unknown command" \
     "squall: error: unknown command 'mrege'; did you mean 'merge'? (see 'squall --help')" help mrege
+
+# squall serve: every bad option value is one line that names the option, what it needs and what
+# it got, with the help hint once. Durations are the plan's (2m15s, 1m30s), also inside --delay.
+H="(see 'squall help serve')"
+serve_mistake "serve: a bad --delay" \
+    "squall: error: serve: --delay needs one of none, fixed:D, uniform:A..B (A <= B) or exp:MEAN with durations like 50ms, got 'bogus' $H" \
+    --delay bogus
+serve_mistake "serve: a uniform delay whose ends are swapped" \
+    "squall: error: serve: --delay needs one of none, fixed:D, uniform:A..B (A <= B) or exp:MEAN with durations like 50ms, got 'uniform:1m30s..10ms' $H" \
+    --delay uniform:1m30s..10ms
+serve_mistake "serve: a bad duration" \
+    "squall: error: serve: --stall-at needs a duration like 250ms, 1.5s, 5m or 1h, got 'x' $H" \
+    --stall-at x
+serve_mistake "serve: a duration without its unit" \
+    "squall: error: serve: --drop-watches-at needs a duration like 250ms, 1.5s, 5m or 1h, got '2m15' $H" \
+    --drop-watches-at 2m15
+serve_mistake "serve: --stall-at 1m30s is read, and needs --stall-for" \
+    "squall: error: serve: --stall-at needs --stall-for (its length) $H" --stall-at 1m30s
+serve_mistake "serve: a fail rate out of range" \
+    "squall: error: serve: --fail-rate needs a number in [0, 1], got '1.5' $H" --fail-rate 1.5
+serve_mistake "serve: a status it cannot inject" \
+    "squall: error: serve: --fail-status needs 503 or 429, got '500' $H" --fail-status 500
+serve_mistake "serve: a count that is not a whole number" \
+    "squall: error: serve: --max-inflight needs a whole number in 0..1000000, got '2.5' $H" \
+    --max-inflight 2.5
+serve_mistake "serve: a bad listen address" \
+    "squall: error: serve: --listen needs ADDR:PORT (127.0.0.1:7070, [::1]:7070 or :7070), got 'nowhere' $H" \
+    --listen nowhere
 exit $FAILED

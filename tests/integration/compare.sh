@@ -12,7 +12,7 @@ mkdir -p "$T"
 
 plan() {
     cat >"$T/plan.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 8, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
   write: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"n":{{seq}}}'}
@@ -21,20 +21,20 @@ phases:
 YAML
 }
 
-target_start || exit 1
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/north/gateways/gw-1" >/dev/null
+serve_start || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 plan
 for k in 1 2 3; do
     run_plan "$T/same-$k" "$T/plan.yaml"
     expect "baseline run $k completes (exit $RUN_RC)" test "$RUN_RC" = 0
 done
-target_stop
-target_start --delay fixed:5ms || exit 1
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/north/gateways/gw-1" >/dev/null
+serve_stop
+serve_start --delay fixed:5ms || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 plan
 run_plan "$T/slow" "$T/plan.yaml"
 expect "the 5 ms delay run completes (exit $RUN_RC)" test "$RUN_RC" = 0
-target_stop
+serve_stop
 
 "$SQUALL" compare "$T/same-1" "$T/slow" >"$T/reg.txt" 2>&1
 RC=$?

@@ -7,7 +7,7 @@ source "$SRCDIR/tests/integration/lib/run.sh"
 T="$BUILDDIR/fleet-life"
 rm -rf "$T"
 mkdir -p "$T"
-target_start || exit 1
+serve_start || exit 1
 # 6 agents renew every 1 s for 5 s, leaving evenly over the last 2 s: each is present 5 - 2/2 =
 # 4 s on average, so about 6 x 4 = 24 renews, against 30 if they stayed. Exactly: agent k leaves
 # at 5 - 2 + 2k/6 s (first in, first out; DEVELOPERS.md "Fleet lifetimes") and, spread, renews at
@@ -18,7 +18,7 @@ target_start || exit 1
 # watcher's open is missed, at most one per agent).
 cat >"$T/life.yaml" <<YAML
 seed: 5
-target: {url: "$TGT_URL", connections: 16, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 16, timeout: 5s}
 requests:
   renew: {kind: write, method: PUT, path: "/v1/agents/a-{{agent}}/lease/l", body: '{"stamp":{{now_ns}}}'}
   follow-own: {kind: watch, path: "/v1/agents/a-{{agent}}/lease?watch=1", stamp-key: stamp}
@@ -34,7 +34,7 @@ leave = [5 - 2 + F(2 * k, 6) for k in range(6)]
 print(sum(math.floor(t) for t in leave), sum(math.ceil(t) for t in leave))')
 expect "the bounds are 21..25 (got $LO..$HI)" test "$LO.$HI" = 21.25
 expect "agents that leave send fewer renews: $N in $LO..$HI, not 30" test "$N" -ge "$LO" -a "$N" -le "$HI"
-SAW=$(target_stats 's["requests"]["PUT"].get("201", 0) + s["requests"]["PUT"].get("200", 0)')
+SAW=$(serve_stats 's["requests"]["PUT"].get("201", 0) + s["requests"]["PUT"].get("200", 0)')
 expect "the target saw exactly the $N renews squall reports (saw $SAW)" test "$SAW" = "$N"
 rcheck "each agent's own watch sees its own renews: events in [N - 6, N]" \
     "$N - 6 <= cell('life', 'follow-own', '2xx')['count'] <= $N" "$T/life"

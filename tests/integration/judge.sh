@@ -28,9 +28,9 @@ O='d["sections"]["objectives"]'
 K='d["sections"]["objectives"]["checks"]'
 
 # --- 50 ms server-side delay: the p99 objective fails in every scope ---------------------------
-target_start --delay fixed:50ms || exit 1
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/north/gateways/gw-1" >/dev/null
-plan "$T/slow.yaml" "$TGT_URL"
+serve_start --delay fixed:50ms || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
+plan "$T/slow.yaml" "$SERVE_URL"
 run_plan "$T/slow" "$T/slow.yaml"
 expect "a 50 ms delay breaks p99 <= 20 ms: exit 1 (got $RUN_RC)" test "$RUN_RC" = 1
 rcheck "results.json says the run failed its objectives" "$O['passed'] is False" "$T/slow"
@@ -46,12 +46,12 @@ rcheck "observed rate of steady is 200 requests / 2 s = 100/s within 1 %" \
 $SQUALL run "$T/slow.yaml" -o "$T/slow2" >"$T/slow2.stdout" 2>/dev/null
 expect "the summary prints the failed verdicts" grep -q "^FAIL *steady *read *p99 of response" \
     "$T/slow2.stdout"
-target_stop
+serve_stop
 
 # --- No delay: every check passes, exit 0 -------------------------------------------------------
-target_start || exit 1
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/north/gateways/gw-1" >/dev/null
-plan "$T/fast.yaml" "$TGT_URL"
+serve_start || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
+plan "$T/fast.yaml" "$SERVE_URL"
 run_plan "$T/fast" "$T/fast.yaml"
 expect "with no delay every objective holds: exit 0 (got $RUN_RC)" test "$RUN_RC" = 0
 rcheck "results.json: passed, 7 checks, all pass" \
@@ -60,7 +60,7 @@ rcheck "results.json: passed, 7 checks, all pass" \
 
 # --- An objective on a phase where its class never ran is no-data, which fails -------------------
 cat >"$T/nodata.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 8, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
   write: {kind: write, method: PUT, path: /v1/sites/north/gateways/gw-w, body: '{"n":1}'}
@@ -76,15 +76,15 @@ expect "a class that never ran makes its objective no-data: exit 1 (got $RUN_RC)
 rcheck "the only non-passing check is write's, verdict no-data, 0 samples" \
     "[(c['class'], c['verdict'], c['samples']) for c in $K if c['verdict'] != 'pass']
      == [('write', 'no-data', 0)]" "$T/nodata"
-target_stop
+serve_stop
 
 # --- Brakes ------------------------------------------------------------------------------------
 # A percentile brake: p99 above 20 ms held for 2 s, against a 50 ms delay, stops a 20 s run after
 # about 2 s: exit 3, results written, stop_reason naming the brake.
-target_start --delay fixed:50ms || exit 1
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/north/gateways/gw-1" >/dev/null
+serve_start --delay fixed:50ms || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 cat >"$T/pbrake.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 8, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
 phases:
@@ -110,7 +110,7 @@ expect "report.html lists the brakes in force" grep -q "p99 above 20 ms held for
 # A saturation brake: one connection cannot carry 100/s at 50 ms each (20/s at most), so requests
 # wait in squall's queue (generator-limited); held for 2 s, the brake stops the run.
 cat >"$T/sbrake.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 1, timeout: 30s}
+target: {url: "$SERVE_URL", connections: 1, timeout: 30s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
 phases:
@@ -125,7 +125,7 @@ rcheck "stop_reason names the saturation brake and the queue wait" \
      'free connection' in d['meta']['stop_reason']" "$T/sbrake"
 rcheck "results say the generator was limited" \
     "d['sections']['generator']['generator_limited']" "$T/sbrake"
-target_stop
+serve_stop
 
 [ "$FAILED" = 0 ] && echo "judge: all checks passed"
 exit "$FAILED"

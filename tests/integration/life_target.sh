@@ -10,13 +10,13 @@ source "$SRCDIR/tests/integration/lib/run.sh"
 T="$BUILDDIR/life-target"
 rm -rf "$T"
 mkdir -p "$T"
-objects() { target_stats 's["objects"]'; }
+objects() { serve_stats 's["objects"]'; }
 lc() { rget "$1" "d['sections']['lifecycle']$2"; }
 
-target_start || exit 1
+serve_start || exit 1
 # Five objects that were there before: no run may delete them.
 for i in 0 1 2 3 4; do
-    curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/south/gateways/pre-$i" >/dev/null
+    curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/south/gateways/pre-$i" >/dev/null
 done
 BEFORE=$(objects)
 expect "the target starts with the 5 pre-existing objects (got $BEFORE)" test "$BEFORE" = 5
@@ -24,7 +24,7 @@ expect "the target starts with the 5 pre-existing objects (got $BEFORE)" test "$
 plan() { # plan FILE CHURN_SECONDS TEARDOWN
     cat >"$1" <<YAML
 seed: 11
-target: {url: "$TGT_URL", connections: 8, timeout: 2s}
+target: {url: "$SERVE_URL", connections: 8, timeout: 2s}
 requests:
   add-gateway:
     {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"m":1}',
@@ -65,13 +65,13 @@ rcheck "reads picked objects that exist: 50 answers, all 2xx (the target's 200s)
     "cell('read', 'read-gateway', '2xx')['count'] == 50 and total('read-gateway', '4xx') == 0" \
     "$T/churn"
 J="$T/churn/journal.ndjson"
-expect "the journal names the target on its first line" grep -q "\"target\":\"$TGT_URL\"" <(head -1 "$J")
+expect "the journal names the target on its first line" grep -q "\"target\":\"$SERVE_URL\"" <(head -1 "$J")
 "$SQUALL" cleanup "$T/churn" >"$T/c0.out" 2>&1
 expect "cleanup after a clean run finds nothing alive" grep -q ": 0 alive" "$T/c0.out"
 
 # --- objects that existed before are not ours ---------------------------------------------------
 cat >"$T/pre.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 4}
+target: {url: "$SERVE_URL", connections: 4}
 requests:
   touch: {kind: write, method: PUT, path: "/v1/sites/south/gateways/pre-{{seq}}", body: '{"m":2}',
           creates: true}
@@ -90,7 +90,7 @@ expect "implicit teardown removed only the 5 it created (count $(objects), expec
 # list class's pool; reads pick from it; teardown leaves them alone: they are not ours.
 cat >"$T/disc.yaml" <<YAML
 seed: 3
-target: {url: "$TGT_URL", connections: 4}
+target: {url: "$SERVE_URL", connections: 4}
 requests:
   list-south: {kind: list, path: /v1/sites/south/gateways, page: 2}
   read-found: {kind: get, path: "/{{pick:list-south,path}}"}
@@ -154,7 +154,7 @@ plan "$T/retry.yaml" 1s ""
 run_plan "$T/retry" "$T/retry.yaml" --keep
 N=$(lc "$T/retry" "['teardown']['left']")
 expect "the run before cleanup kept its 60 objects (results say $N)" test "$N" = 60
-faults() { curl -s -X POST -d "$1" "$TGT_URL/admin/faults" >/dev/null; }
+faults() { curl -s -X POST -d "$1" "$SERVE_URL/admin/faults" >/dev/null; }
 faults '{"fail_rate": 1, "fail_status": 503, "retry_after": 2}'
 "$SQUALL" cleanup "$T/retry" --rate 0 >"$T/retry.out" 2>&1 &
 CP=$!
@@ -168,7 +168,7 @@ expect "with all $N deleted" \
 SECS=$(sed -n 's/.*left (\([0-9.]*\) s).*/\1/p' "$T/retry.out")
 expect "it waited the 2 s Retry-After before retrying (took $SECS s)" \
     /usr/bin/python3 -c "import sys; sys.exit(not 2.0 <= float('$SECS') < 10)"
-FAILED503=$(target_stats 's["faults"]["failed"]')
+FAILED503=$(serve_stats 's["faults"]["failed"]')
 expect "the target saw $N first tries answered 503 (its count: $FAILED503)" test "$FAILED503" -ge "$N"
 expect "and the target is back to $BEFORE objects (got $(objects))" test "$(objects)" = "$BEFORE"
 
@@ -191,9 +191,9 @@ expect "and nothing was created by either (count $(objects))" test "$(objects)" 
 timeout 90 "$SQUALL" run "$T/int.yaml" -o "$T/dead" --quiet >"$T/dead.stdout" 2>"$T/dead.stderr" &
 RP=$!
 sleep 3
-kill -KILL "$TGT_PID"
-wait "$TGT_PID" 2>/dev/null
-TGT_PID=
+kill -KILL "$SERVE_PID"
+wait "$SERVE_PID" 2>/dev/null
+SERVE_PID=
 START=$(date +%s)
 wait "$RP"
 RC=$?

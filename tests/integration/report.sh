@@ -11,10 +11,10 @@ T="$BUILDDIR/report"
 rm -rf "$T"
 mkdir -p "$T"
 
-target_start --delay uniform:1ms..20ms --fail-rate 0.1 || exit 1
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/north/gateways/gw-1" >/dev/null
+serve_start --delay uniform:1ms..20ms --fail-rate 0.1 || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 cat >"$T/plan.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 8, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
   write: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"n":{{seq}}}'}
@@ -30,7 +30,7 @@ run_plan "$T/run" "$T/plan.yaml"
 expect "the run ends with exit 1 (10 % errors break error-rate <= 1 %; got $RUN_RC)" \
     test "$RUN_RC" = 1
 expect "squall run wrote report.html" test -s "$T/run/report.html"
-target_stop
+serve_stop
 
 # The structure, parsed. Plot order (html_plots.c): rate, errors, p50/p99 over time, then the
 # response-time spectrum. Series: one per class in series.csv (read, write, list) for rate and
@@ -137,9 +137,9 @@ PY
 
 # A run with watches, stamped writes and an aligned fleet gets the propagation, watch-open and
 # storm-tick sections; the run above, which has none of them, has none of those sections.
-target_start || exit 1
+serve_start || exit 1
 cat >"$T/watch.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 16, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 16, timeout: 5s}
 requests:
   write: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"n":{{seq}},"stamp":{{now_ns}}}'}
   follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1"}
@@ -150,7 +150,7 @@ phases:
 YAML
 run_plan "$T/watch" "$T/watch.yaml"
 expect "the watch and fleet run completes (exit $RUN_RC)" test "$RUN_RC" = 0
-target_stop
+serve_stop
 /usr/bin/python3 - "$T/watch/report.html" "$T/run/report.html" "$T/watch/results.json" <<'PY' || FAILED=1
 import html.parser, json, sys
 class P(html.parser.HTMLParser):

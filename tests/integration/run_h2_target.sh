@@ -16,7 +16,7 @@ source "$SRCDIR/tests/integration/lib/run.sh"
 T="$BUILDDIR/run-h2-target"
 rm -rf "$T"
 mkdir -p "$T"
-stop_all() { target_stop; nginx_stop; }
+stop_all() { serve_stop; nginx_stop; }
 
 # plan URL CONNECTIONS STREAMS PUT_PATH GET_PATH: 2,000 PUTs with bodies and 2,000 GETs in 2 s.
 plan() {
@@ -50,17 +50,17 @@ rcheck "... and no request counted as 2xx" 'total("put", "2xx") + total("get", "
     "$T/ngx-h1"
 nginx_stop
 
-target_start || exit 1
-plan "$TGT_URL" 4 16 "/v1/sites/harbor/gateways/gw-{{seq}}" /v1/sites/harbor/gateways/gw-1 \
+serve_start || exit 1
+plan "$SERVE_URL" 4 16 "/v1/sites/harbor/gateways/gw-{{seq}}" /v1/sites/harbor/gateways/gw-1 \
     >"$T/tgt.yaml"
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/harbor/gateways/gw-1" >/dev/null
-if curl -s -o /dev/null --max-time 2 --http2-prior-knowledge "$TGT_URL/v1/sites/harbor/gateways/gw-1"; then
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/harbor/gateways/gw-1" >/dev/null
+if curl -s -o /dev/null --max-time 2 --http2-prior-knowledge "$SERVE_URL/v1/sites/harbor/gateways/gw-1"; then
     echo "note: squall serve speaks cleartext HTTP/2 (prior knowledge)"
     run_plan "$T/tgt" "$T/tgt.yaml"
     expect "squall serve h2c: exit code 0" [ "$RUN_RC" = 0 ]
     rcheck "squall serve h2c, 4 x 16: 4,000 requests, all 2xx (zero resets)" \
         'total("put", "2xx") + total("get", "2xx") == 4000' "$T/tgt"
-    puts=$(target_stats 's["requests"]["by_method"]["PUT"]' 2>/dev/null || echo "?")
+    puts=$(serve_stats 's["requests"]["by_method"]["PUT"]' 2>/dev/null || echo "?")
     echo "note: the target counted $puts PUTs"
 else
     echo "note: squall serve does not speak cleartext HTTP/2 (the preface gets an HTTP/1.1 answer)"

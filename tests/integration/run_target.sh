@@ -20,10 +20,10 @@ mkdir -p "$T"
 # p99.9 = 1.99 s, and p50 is the quiet-time latency. Service time (from the actual send) must not
 # show the stall: only the 8 requests on the wire when it began (8 connections, 0.4 % of 2,000)
 # wait in the server; the rest wait in squall's own queue, before being sent.
-target_start --stall-at 1s --stall-for 2s || exit 1
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/north/gateways/gw-1" >/dev/null
+serve_start --stall-at 1s --stall-for 2s || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 cat >"$T/co.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 8, timeout: 10s}
+target: {url: "$SERVE_URL", connections: 8, timeout: 10s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
 phases:
@@ -45,15 +45,15 @@ rcheck "service time does not show the stall: p99 < 50 ms" \
 rcheck "the run says its requests waited for a free connection (generator_limited)" \
     'd["sections"]["generator"]["generator_limited"] and d["sections"]["generator"]["max_queue_wait_ms"] > 1000' \
     "$T/co"
-target_stop
+serve_stop
 
 # --- Pagination and exact counts --------------------------------------------------------------
 # 90 gateways are created through squall, then listed 30 per page, so each list is 3 pages (the
 # target sends no continuation token with the last one); the target's own /stats must count
 # exactly what squall says it sent.
-target_start || exit 1
+serve_start || exit 1
 cat >"$T/pages.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 4, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 4, timeout: 5s}
 requests:
   create: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"n":{{seq}}}'}
   list: {kind: list, path: /v1/sites/north/gateways, page: 30}
@@ -65,18 +65,18 @@ run_plan "$T/pages" "$T/pages.yaml"
 rcheck "90 creates answered 201 (2xx)" 'total("create", "2xx") == 90' "$T/pages"
 rcheck "20 lists (10/s x 2 s) of 90 objects at 30 per page = 3 pages each" \
     'total("list/all-pages", "2xx") == 20 and total("list", "2xx") == 60' "$T/pages"
-SAW_PUT=$(target_stats 's["requests"]["PUT"].get("201", 0)')
-SAW_GET=$(target_stats 's["requests"]["GET"].get("200", 0)')
+SAW_PUT=$(serve_stats 's["requests"]["PUT"].get("201", 0)')
+SAW_GET=$(serve_stats 's["requests"]["GET"].get("200", 0)')
 expect "the target saw exactly the 90 PUTs squall reports (saw $SAW_PUT)" test "$SAW_PUT" = 90
 expect "and exactly the 60 list pages (saw $SAW_GET)" test "$SAW_GET" = 60
-target_stop
+serve_stop
 
 # --- Planned silence is not an unreachable target ---------------------------------------------
 # An aligned fleet ticks every 4 s; between ticks nothing is in flight, so an "unreachable for
 # 2 s" brake must not trip (it only counts time spent waiting for an answer).
-target_start || exit 1
+serve_start || exit 1
 cat >"$T/quiet.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 4, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 4, timeout: 5s}
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}", body: '{"n":1}'}
 phases:
@@ -89,15 +89,15 @@ expect "a fleet's quiet time between ticks does not trip the unreachable brake (
     test "$RUN_RC" = 0
 rcheck "and its ticks were all sent: 3 agents x 2 or 3 ticks" \
     'total("renew", "2xx") in (6, 9)' "$T/quiet"
-target_stop
+serve_stop
 
 # --- SIGINT -------------------------------------------------------------------------------------
 # The first signal stops new requests and lets in-flight ones finish; results are complete and
 # marked interrupted; the exit code is 5 (README, "Exit codes").
-target_start --delay fixed:200ms || exit 1
-curl -s -X PUT -d '{"model":"t-a"}' "$TGT_URL/v1/sites/north/gateways/gw-1" >/dev/null
+serve_start --delay fixed:200ms || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 cat >"$T/sig.yaml" <<YAML
-target: {url: "$TGT_URL", connections: 16, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 16, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
 phases:
@@ -120,6 +120,6 @@ rcheck "results are written, marked interrupted by the signal, in-flight request
     'd["meta"]["interrupted"] and "SIGINT" in d["meta"]["stop_reason"] and total("read", "2xx") >= 80 and total("read", "2xx") + total("read", "cancelled") == total("read")' \
     "$T/sig"
 expect "the summary is printed" grep -q "stopped early: signal SIGINT" "$T/sig.stdout"
-target_stop
+serve_stop
 
 exit $FAILED

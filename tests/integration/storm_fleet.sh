@@ -11,10 +11,10 @@ source "$SRCDIR/tests/integration/lib/run.sh"
 T="$BUILDDIR/storm-fleet"
 rm -rf "$T"
 mkdir -p "$T"
-target_start || exit 1
+serve_start || exit 1
 cat >"$T/f.yaml" <<YAML
 seed: 21
-target: {url: "$TGT_URL", connections: 32, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 32, timeout: 5s}
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}",
           body: '{"holder":"gw-{{agent}}","stamp":{{now_ns}}}'}
@@ -26,8 +26,8 @@ phases:
      fleet: {agents: 300, every: 1s, timing: jitter, jitter: 10%, send: renew}}
 YAML
 run_plan "$T/f" "$T/f.yaml"
-puts=$(target_stats 's["requests"]["PUT"].get("200", 0) + s["requests"]["PUT"].get("201", 0)')
-target_stop
+puts=$(serve_stats 's["requests"]["PUT"].get("200", 0) + s["requests"]["PUT"].get("201", 0)')
+serve_stop
 expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
 A='d["sections"]["storms"]["aligned"]["actions"][0]'
 S='d["sections"]["storms"]["spread"]["actions"][0]'

@@ -217,4 +217,32 @@ set -- $out
 [ "$1" = 429 ] && awk -v t="$2" 'BEGIN{exit !(t >= 0.030)}' || fail "flags: got $out"
 [ $rc = 0 ] || fail "serve exited $rc after SIGINT"
 echo "ok: fault flags at start-up: 429 after ${2}s (>= 30 ms); SIGINT stopped it with exit 0"
+
+# Durations are read in the plan's syntax everywhere the target takes one (flags, the admin JSON,
+# --delay specs), so the README's `--drop-watches-at 2m15s` starts. /admin/faults shows each
+# back in seconds: 2m15s = 2*60+15 = 135 s, 1m30s = 90 s, 1h30m = 5400 s (1 min = 60 s, 1 h =
+# 3600 s). The times lie far ahead, so nothing fires while this runs.
+port=$(free_port)
+"$SQUALL" serve --listen "127.0.0.1:$port" --drop-watches-at 2m15s --stall-at 1m30s \
+    --stall-for 1.5s --delay uniform:10ms..1m 2>"$tmp/err" &
+pid=$!
+wait_port "$port" 50 || fail "serve --drop-watches-at 2m15s --stall-at 1m30s did not start"
+got=$(curl -s "http://127.0.0.1:$port/admin/faults" |
+    jq -c '.faults | [.drop_watches_at, .stall_at, .stall_for, .delay]')
+want='["135s","90s","1.5s","uniform:0.01s..60s"]'
+[ "$got" = "$want" ] || fail "flags read as $got, expected $want"
+code=$(curl -s -o "$tmp/admin" -w '%{http_code}' -X POST \
+    --data '{"stall_at":"1h30m","stall_for":"2m15s","drop_watches_at":"1m0.5s","delay":"exp:1m30s"}' \
+    "http://127.0.0.1:$port/admin/faults")
+[ "$code" = 200 ] || fail "compound durations in /admin/faults: $code $(cat "$tmp/admin")"
+got=$(curl -s "http://127.0.0.1:$port/admin/faults" |
+    jq -c '.faults | [.stall_at, .stall_for, .drop_watches_at, .delay]')
+want='["5400s","135s","60.5s","exp:90s"]'
+[ "$got" = "$want" ] || fail "admin JSON read as $got, expected $want"
+kill -TERM "$pid"
+wait "$pid"
+rc=$?
+pid=
+[ $rc = 0 ] || fail "serve exited $rc after SIGTERM"
+echo "ok: durations as in plans: flags 2m15s, 1m30s, 1.5s, uniform:10ms..1m and admin 1h30m, 2m15s, 1m0.5s, exp:1m30s read back exactly"
 echo "PASS: target faults"

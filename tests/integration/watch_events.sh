@@ -14,7 +14,7 @@ W=8 # watchers on one collection; 40 writes/s for 5 s = 200 writes to it
 plan() { # plan FILE POLICY BASE
     cat >"$1" <<YAML
 seed: 5
-target: {url: "$TGT_URL", connections: 4, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 4, timeout: 5s}
 requests:
   put: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}",
         body: '{"model":"t-a","stamp":{{now_ns}}}'}
@@ -28,12 +28,12 @@ YAML
 F='d["sections"]["watches"]["w"]["classes"]["follow"]'
 
 # --- 1. No faults: every event the target queued reached a watcher, once. ------------------
-target_start || exit 1
+serve_start || exit 1
 plan "$T/calm.yaml" full-jitter 200ms
 run_plan "$T/calm" "$T/calm.yaml"
-sent=$(target_stats 's["streams"]["events_sent"]')
-writes=$(target_stats 's["store"]["creates"]')
-target_stop
+sent=$(serve_stats 's["streams"]["events_sent"]')
+writes=$(serve_stats 's["store"]["creates"]')
+serve_stop
 expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
 expect "the target stored 200 writes (got $writes)" test "$writes" = 200
 rcheck "events seen = events the target sent ($sent), from its /stats" \
@@ -47,13 +47,13 @@ rcheck "no drops, no reconnects, $W opens; the streams end as cancelled at the p
     "$T/calm"
 
 # --- 2. The target drops every stream once: each watcher resumes from its last version. -----
-target_start --drop-watches-at 2s || exit 1
+serve_start --drop-watches-at 2s || exit 1
 plan "$T/drop.yaml" full-jitter 300ms
 run_plan "$T/drop" "$T/drop.yaml"
-writes=$(target_stats 's["store"]["creates"]')
-dropped=$(target_stats 's["faults"]["dropped_streams"]')
-expired=$(target_stats 's["store"]["expired"]')
-target_stop
+writes=$(serve_stats 's["store"]["creates"]')
+dropped=$(serve_stats 's["faults"]["dropped_streams"]')
+expired=$(serve_stats 's["store"]["expired"]')
+serve_stop
 expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
 expect "the target dropped $W streams (got $dropped) and answered no 410 (got $expired)" \
     test "$dropped" = "$W" -a "$expired" = 0
@@ -64,12 +64,12 @@ rcheck "drops = reconnects = $W (the target's count), opens = 2 x $W" \
 
 # --- 3. History of 5 events and a 500 ms fixed reconnect: 20 writes are missed, so the resume
 # point is too old: 410, then the relist class, then a watch from the list's version. --------
-target_start --drop-watches-at 2s --history 5 || exit 1
+serve_start --drop-watches-at 2s --history 5 || exit 1
 plan "$T/gone.yaml" fixed 500ms
 run_plan "$T/gone" "$T/gone.yaml"
-expired=$(target_stats 's["store"]["expired"]')
-lists=$(target_stats 's["requests"]["GET"]["200"]')
-target_stop
+expired=$(serve_stats 's["store"]["expired"]')
+lists=$(serve_stats 's["requests"]["GET"]["200"]')
+serve_stop
 expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
 expect "the target answered $W resumes with 410 (got $expired)" test "$expired" = "$W"
 rcheck "too_old = relists = the target's 410 count ($expired)" \

@@ -9,10 +9,10 @@ source "$SRCDIR/tests/integration/lib/run.sh"
 T="$BUILDDIR/watch-propagation"
 rm -rf "$T"
 mkdir -p "$T"
-target_start --delay fixed:50ms || exit 1
+serve_start --delay fixed:50ms || exit 1
 cat >"$T/p.yaml" <<YAML
 seed: 3
-target: {url: "$TGT_URL", connections: 8, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
 requests:
   put: {kind: write, method: PUT, path: "/v1/sites/harbor/gateways/gw-{{seq}}",
         body: '{"model":"t-b","stamp":{{now_ns}}}'}
@@ -25,8 +25,8 @@ phases:
      mix: {put: 1}, watches: {follow: 4, follow-other: 2}}
 YAML
 run_plan "$T/p" "$T/p.yaml"
-sent=$(target_stats 's["streams"]["events_sent"]')
-target_stop
+sent=$(serve_stats 's["streams"]["events_sent"]')
+serve_stop
 C='cell("w", "follow", "2xx")'
 expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
 rcheck "every event the target sent ($sent) was seen" \

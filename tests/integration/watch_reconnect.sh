@@ -15,7 +15,7 @@ N=200
 plan() { # plan FILE POLICY
     cat >"$1" <<YAML
 seed: 9
-target: {url: "$TGT_URL", connections: 2, timeout: 5s}
+target: {url: "$SERVE_URL", connections: 2, timeout: 5s}
 vars: {site: [north, south, harbor, ridge]}
 requests:
   follow: {kind: watch, path: "/v1/sites/{{site}}/gateways?watch=1",
@@ -71,12 +71,12 @@ PY
 }
 
 for policy in full-jitter immediate; do
-    target_start --drop-watches-at 2s || exit 1
+    serve_start --drop-watches-at 2s || exit 1
     plan "$T/$policy.yaml" "$policy"
     run_plan "$T/$policy" "$T/$policy.yaml"
-    dropped=$(target_stats 's["faults"]["dropped_streams"]')
-    opened=$(target_stats 's["streams"]["opened"]')
-    target_stop
+    dropped=$(serve_stats 's["faults"]["dropped_streams"]')
+    opened=$(serve_stats 's["streams"]["opened"]')
+    serve_stop
     expect "$policy: the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
     expect "$policy: the target dropped $N streams (got $dropped) and saw 2 x $N opens (got $opened)" \
         test "$dropped" = "$N" -a "$opened" = $((2 * N))

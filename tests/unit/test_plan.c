@@ -1,6 +1,7 @@
-/* Unit tests for the plan: value parsers, every broken plan in tests/data/plans against its
- * exact expected diagnostics, and estimates of good plans checked against arithmetic done in the
- * test from the plans' numbers. */
+/* Unit tests for the plan: every broken plan in tests/data/plans against its exact expected
+ * diagnostics, and the sources' estimates of good plans checked against arithmetic done in the
+ * test from the plans' numbers. (The value parsers the plan reads through are tested in
+ * test_util.c.) */
 #include <glob.h>
 #include <setjmp.h>
 #include <stdarg.h>
@@ -24,101 +25,6 @@ static void assert_near(double a, double b, double tol, const char *what, int li
 {
     if (!(a - b <= tol && b - a <= tol))
         fail_msg("line %d: %s = %.17g, expected %.17g (within %g)", line, what, a, b, tol);
-}
-
-/* Durations. The units are SI (ms = 1e-3 s, us = 1e-6 s); minutes and hours are 60 s and
- * 3600 s. Expected values are plain arithmetic in ns. */
-static void test_duration(void **state)
-{
-    (void)state;
-    static const struct {
-        const char *text;
-        int64_t ns;
-    } ok[] = {
-        {"0", 0},
-        {"250ms", 250000000},
-        {"10s", INT64_C(10000000000)},
-        {"5m", INT64_C(300000000000)},
-        {"1h", INT64_C(3600000000000)},
-        {"1.5s", 1500000000},
-        {"500us", 500000},
-        {"500\xc2\xb5s", 500000},
-        {"1ns", 1},
-        {"1.1s", 1100000000}, /* exact: 1.1 is not representable as a double */
-        {"1m30s", INT64_C(90000000000)},
-        {"0.000000001s", 1},
-        /* INT64_MAX ns = 9223372036854775807 ns, the largest representable duration. */
-        {"9223372036854775807ns", INT64_MAX},
-    };
-    for (size_t i = 0; i < sizeof ok / sizeof ok[0]; i++) {
-        int64_t v = -1;
-        assert_int_equal(plan_parse_duration(ok[i].text, &v), 0);
-        assert_true(v == ok[i].ns);
-    }
-    static const struct {
-        const char *text;
-        int rc;
-    } bad[] = {
-        {"", SQ_EPARSE},
-        {"10", SQ_EPARSE},
-        {"10 s", SQ_EPARSE},
-        {"s", SQ_EPARSE},
-        {"1.s", SQ_EPARSE},
-        {".5s", SQ_EPARSE},
-        {"10sec", SQ_EPARSE},
-        {"1d", SQ_EPARSE},
-        {"-5s", SQ_ERANGE},
-        {"1.5ns", SQ_ERANGE},
-        {"9223372036854775808ns", SQ_ERANGE},
-        {"3000000h", SQ_ERANGE}, /* 3e6 h = 1.08e22 ns > INT64_MAX (9.2e18) */
-        {"0x10s", SQ_EPARSE},
-    };
-    for (size_t i = 0; i < sizeof bad / sizeof bad[0]; i++) {
-        int64_t v = 42;
-        int rc = plan_parse_duration(bad[i].text, &v);
-        if (rc != bad[i].rc)
-            fail_msg("duration '%s': got %d, expected %d", bad[i].text, rc, bad[i].rc);
-        assert_true(v == 42);
-    }
-}
-
-static void test_rate_percent(void **state)
-{
-    (void)state;
-    double v;
-    assert_int_equal(plan_parse_rate("500/s", &v), 0);
-    assert_true(v == 500);
-    assert_int_equal(plan_parse_rate("30/m", &v), 0);
-    assert_true(v == 0.5); /* 30 per 60 s */
-    assert_int_equal(plan_parse_rate("2/h", &v), 0);
-    assert_double_equal(v, 2.0 / 3600, 1e-15);
-    assert_int_equal(plan_parse_rate("0", &v), 0);
-    assert_true(v == 0);
-    assert_int_equal(plan_parse_rate("1e3/s", &v), 0);
-    assert_true(v == 1000);
-    assert_int_equal(plan_parse_rate("500", &v), SQ_EPARSE);
-    assert_int_equal(plan_parse_rate("500/d", &v), SQ_EPARSE);
-    assert_int_equal(plan_parse_rate("500 /s", &v), SQ_EPARSE);
-    assert_int_equal(plan_parse_rate("-1/s", &v), SQ_ERANGE);
-    assert_int_equal(plan_parse_rate("2e9/s", &v), SQ_ERANGE); /* above PLAN_RATE_MAX 1e9 */
-    assert_int_equal(plan_parse_rate("inf/s", &v), SQ_EPARSE);
-    assert_int_equal(plan_parse_percent("5%", &v), 0);
-    assert_true(v == 0.05);
-    assert_int_equal(plan_parse_percent("0.1%", &v), 0);
-    assert_double_equal(v, 0.001, 1e-15);
-    assert_int_equal(plan_parse_percent("100%", &v), 0);
-    assert_true(v == 1);
-    assert_int_equal(plan_parse_percent("100.5%", &v), SQ_ERANGE);
-    assert_int_equal(plan_parse_percent("5", &v), SQ_EPARSE);
-    assert_int_equal(plan_parse_percent("5 %", &v), SQ_EPARSE);
-    assert_int_equal(plan_parse_percent("-5%", &v), SQ_ERANGE);
-    int64_t n;
-    assert_int_equal(plan_parse_int("16", 1, 100, &n), 0);
-    assert_true(n == 16);
-    assert_int_equal(plan_parse_int("0", 1, 100, &n), SQ_ERANGE);
-    assert_int_equal(plan_parse_int("1.5", 1, 100, &n), SQ_EPARSE);
-    assert_int_equal(plan_parse_int("+3", 1, 100, &n), SQ_EPARSE);
-    assert_int_equal(plan_parse_int("99999999999999999999", 0, INT64_MAX, &n), SQ_ERANGE);
 }
 
 /* Reads a whole file into a malloc'd string. */
@@ -497,8 +403,6 @@ static void test_missing_file(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_duration),
-        cmocka_unit_test(test_rate_percent),
         cmocka_unit_test(test_bad_plans),
         cmocka_unit_test(test_all_errors_in_one_pass),
         cmocka_unit_test(test_demo_estimates),

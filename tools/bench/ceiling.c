@@ -28,9 +28,9 @@
 #include <sys/epoll.h>
 #include <sys/resource.h>
 #include <sys/socket.h>
-#include <time.h>
 #include <unistd.h>
 
+#include "squall/clock.h"
 #include "squall/hist.h"
 
 struct conn {
@@ -52,13 +52,6 @@ struct ceiling {
     int64_t requests, errors, due, next_due_index, queued, t0, t_end;
     hist_t *lag;
 };
-
-static int64_t now_ns(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (int64_t)ts.tv_sec * 1000000000 + ts.tv_nsec;
-}
 
 static int conn_open(struct ceiling *c, struct conn *k)
 {
@@ -91,7 +84,7 @@ static void conn_reopen(struct ceiling *c, struct conn *k)
 /* Sends one request; a keep-alive request this small always fits the socket buffer. */
 static void conn_send(struct ceiling *c, struct conn *k, int64_t intended)
 {
-    int64_t t = now_ns();
+    int64_t t = clock_mono_ns();
     if (write(k->fd, c->req, c->req_len) != (ssize_t)c->req_len) {
         c->errors++;
         conn_reopen(c, k);
@@ -194,7 +187,7 @@ static void dispatch(struct ceiling *c, int64_t now)
 static void run(struct ceiling *c)
 {
     struct epoll_event evs[256];
-    c->t0 = now_ns();
+    c->t0 = clock_mono_ns();
     c->t_end = c->t0 + (int64_t)(c->duration * 1e9);
     int64_t now = c->t0;
     /* Bounded: stops at t_end, plus at most 2 s for answers still in flight. */
@@ -205,7 +198,7 @@ static void run(struct ceiling *c)
         if (now >= c->t_end && !busy)
             break;
         int n = epoll_wait(c->ep, evs, 256, c->rate > 0 ? 1 : 100);
-        now = now_ns();
+        now = clock_mono_ns();
         for (int i = 0; i < n; i++) {
             struct conn *k = evs[i].data.ptr;
             if ((evs[i].events & EPOLLOUT) && !k->connected) {

@@ -22,13 +22,13 @@ nginx_start bench-target 1 || exit 1
 OUT="$NGX_DIR/bench"
 mkdir -p "$OUT"
 TPID=
-stop_target() {
+serve_stop() {
     [ -n "$TPID" ] && kill -TERM "$TPID" 2>/dev/null && wait "$TPID" 2>/dev/null
     TPID=
 }
-trap 'stop_target; nginx_stop' EXIT
+trap 'serve_stop; nginx_stop' EXIT
 
-start_target() {
+serve_start() {
     TPORT=$(free_port)
     taskset -c 1 "$SQUALL" serve --listen "127.0.0.1:$TPORT" "$@" 2>"$OUT/serve.err" &
     TPID=$!
@@ -36,7 +36,7 @@ start_target() {
 }
 
 # An object whose GET answer is about as long as nginx's file (body bytes).
-start_target
+serve_start
 NGX_BYTES=$(stat -c %s "$NGX_DIR/www/small.json")
 pad=x
 for i in $(seq 200); do
@@ -46,7 +46,7 @@ for i in $(seq 200); do
     [ "$len" -ge "$NGX_BYTES" ] && break
     pad+=x
 done
-TGT_BYTES=$len
+SERVE_BYTES=$len
 
 med3() { sort -n | sed -n 2p; }
 j() { /usr/bin/python3 -c 'import json,sys; d=json.load(sys.stdin); print(d[sys.argv[1]])' "$1"; }
@@ -66,12 +66,12 @@ for c in 1 16 64; do
     ROWS+=$(awk -v c=$c -v n="$nginx_rps" -v t="$target_rps" -v ne="$nginx_err" -v te="$target_err" \
         'BEGIN{printf "| %d | %.0f | %.0f | %.2f | %d / %d |", c, n, t, t / n, ne, te}')$'\n'
 done
-stop_target
+serve_stop
 
 # Watch streams held: HTTP/1.1 needs one descriptor per stream on each side; the hard
 # RLIMIT_NOFILE in this container is 20,000 (`ulimit -Hn`), so STREAMS stays below it.
 ulimit -n "$(ulimit -Hn)"
-start_target --stream-buffer 65536
+serve_start --stream-buffer 65536
 rss() { awk '/^VmRSS/{print $2}' "/proc/$TPID/status"; }
 RSS0=$(rss)
 /usr/bin/python3 - "$TPORT" "$STREAMS" "$TPID" >"$OUT/watch.json" <<'PY'
@@ -126,7 +126,7 @@ GOT=$(j received <"$OUT/watch.json")
 OPEN_S=$(j open_s <"$OUT/watch.json")
 FAN_S=$(j fanout_s <"$OUT/watch.json")
 PER=$(awk -v a="$RSS0" -v b="$RSS1" -v n="$OPEN" 'BEGIN{printf "%.1f", (b - a) / n}')
-stop_target
+serve_stop
 
 SECTION=$(cat <<MD
 <!-- target:begin (written by tools/bench/target.sh; edit the script, not this section) -->
@@ -135,7 +135,7 @@ SECTION=$(cat <<MD
 $(date -u +%Y-%m-%d), $(nproc) CPUs; the server under test (squall serve, or nginx with one
 worker) pinned to CPU 1, the ceiling client (tools/bench/ceiling) to CPU 0; loopback,
 HTTP/1.1 keep-alive, closed loop, median of 3 runs of ${SECS} s. nginx serves \`/small.json\`
-(${NGX_BYTES} bytes); the target answers GET of one object (${TGT_BYTES} bytes of JSON, built
+(${NGX_BYTES} bytes); the target answers GET of one object (${SERVE_BYTES} bytes of JSON, built
 per request from the cached rendering). Goal: target/nginx >= 0.5.
 
 ### GET throughput on one core

@@ -1,29 +1,29 @@
 # Shared test helper: the embedded target (`$SQUALL serve`) on a free loopback port.
-#     target_start [SERVE OPTIONS...]   sets TGT_PORT, TGT_PID, TGT_URL; EXIT trap stops it
-#     target_stop                       stops it by pid (also run by the trap)
-#     target_stats EXPR                 prints a Python expression over GET /stats as `s`
+#     serve_start [SERVE OPTIONS...]  sets SERVE_PORT, SERVE_PID, SERVE_URL; EXIT trap stops it
+#     serve_stop                      stops it by pid (also run by the trap)
+#     serve_stats EXPR                prints a Python expression over GET /stats as `s`
 source "$(dirname "${BASH_SOURCE[0]}")/port.sh"
 
-target_stop() {
-    stop_pid "${TGT_PID:-}"
-    TGT_PID=
+serve_stop() {
+    stop_pid "${SERVE_PID:-}"
+    SERVE_PID=
 }
 
-target_start() {
-    TGT_PORT=$(free_port)
-    "$SQUALL" serve --listen "127.0.0.1:$TGT_PORT" "$@" >"${BUILDDIR:?}/target-$TGT_PORT.log" 2>&1 &
-    TGT_PID=$!
-    TGT_URL="http://127.0.0.1:$TGT_PORT"
-    trap target_stop EXIT
-    if ! wait_port "$TGT_PORT"; then
-        echo "FAIL: squall serve did not listen on $TGT_PORT; its log:"
-        cat "$BUILDDIR/target-$TGT_PORT.log"
+serve_start() {
+    SERVE_PORT=$(free_port)
+    "$SQUALL" serve --listen "127.0.0.1:$SERVE_PORT" "$@" >"${BUILDDIR:?}/target-$SERVE_PORT.log" 2>&1 &
+    SERVE_PID=$!
+    SERVE_URL="http://127.0.0.1:$SERVE_PORT"
+    trap serve_stop EXIT
+    if ! wait_port "$SERVE_PORT"; then
+        echo "FAIL: squall serve did not listen on $SERVE_PORT; its log:"
+        cat "$BUILDDIR/target-$SERVE_PORT.log"
         return 1
     fi
 }
 
-target_stats() {
-    curl -s "$TGT_URL/stats" | /usr/bin/python3 -c 'import json, sys
+serve_stats() {
+    curl -s "$SERVE_URL/stats" | /usr/bin/python3 -c 'import json, sys
 s = json.load(sys.stdin)
 print(eval(sys.argv[1]))' "$1"
 }

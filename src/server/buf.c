@@ -5,9 +5,9 @@
 #include <string.h>
 
 #include "squall/err.h"
-#include "target_int.h"
+#include "server_int.h"
 
-static int reserve(tgt_buf_t *b, size_t extra)
+static int reserve(srv_buf_t *b, size_t extra)
 {
     if (b->len + extra + 1 <= b->cap)
         return 0;
@@ -22,7 +22,7 @@ static int reserve(tgt_buf_t *b, size_t extra)
     return 0;
 }
 
-int tgt_buf_add(tgt_buf_t *b, const char *s, size_t n)
+int srv_buf_add(srv_buf_t *b, const char *s, size_t n)
 {
     if (reserve(b, n) < 0)
         return SQ_ENOMEM;
@@ -32,12 +32,12 @@ int tgt_buf_add(tgt_buf_t *b, const char *s, size_t n)
     return 0;
 }
 
-int tgt_buf_str(tgt_buf_t *b, const char *s)
+int srv_buf_str(srv_buf_t *b, const char *s)
 {
-    return tgt_buf_add(b, s, strlen(s));
+    return srv_buf_add(b, s, strlen(s));
 }
 
-int tgt_buf_printf(tgt_buf_t *b, const char *fmt, ...)
+int srv_buf_printf(srv_buf_t *b, const char *fmt, ...)
 {
     va_list ap;
     va_start(ap, fmt);
@@ -52,22 +52,22 @@ int tgt_buf_printf(tgt_buf_t *b, const char *fmt, ...)
     return 0;
 }
 
-int tgt_buf_json_str(tgt_buf_t *b, const char *s)
+int srv_buf_json_str(srv_buf_t *b, const char *s)
 {
     /* Paths are restricted to URL-safe characters, but messages may hold anything. */
     json_t *j = json_string(s);
     if (!j)
-        return tgt_buf_str(b, "\"\"");
+        return srv_buf_str(b, "\"\"");
     char *t = json_dumps(j, JSON_ENCODE_ANY);
     json_decref(j);
     if (!t)
         return SQ_ENOMEM;
-    int rc = tgt_buf_str(b, t);
+    int rc = srv_buf_str(b, t);
     free(t);
     return rc;
 }
 
-void tgt_buf_free(tgt_buf_t *b)
+void srv_buf_free(srv_buf_t *b)
 {
     free(b->p);
     b->p = NULL;

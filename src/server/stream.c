@@ -6,38 +6,38 @@
 #include <sys/socket.h>
 
 #include "squall/err.h"
-#include "target_int.h"
+#include "server_int.h"
 
 enum { STREAM_OPEN, STREAM_END, STREAM_DROP };
 
-struct tgt_stream {
-    tgt_server_t *sv;
+struct srv_stream {
+    srv_server_t *sv;
     struct MHD_Connection *conn;
-    tgt_coll_t *coll;
-    tgt_buf_t buf; /* queued bytes not yet handed to libmicrohttpd start at off */
+    srv_coll_t *coll;
+    srv_buf_t buf; /* queued bytes not yet handed to libmicrohttpd start at off */
     size_t off;
     bool suspended;
     int state;
-    tgt_stream_t *prev, *next;   /* in coll->streams */
-    tgt_stream_t *aprev, *anext; /* in sv->all_streams */
+    srv_stream_t *prev, *next;   /* in coll->streams */
+    srv_stream_t *aprev, *anext; /* in sv->all_streams */
 };
 
 static const char slow_event[] =
     "{\"type\":\"error\",\"code\":\"slow-watcher\",\"message\":\"this stream fell behind its "
     "buffer limit and was closed; re-list and watch again from the list's version\"}\n";
 
-static void stream_wake(tgt_stream_t *st)
+static void stream_wake(srv_stream_t *st)
 {
     if (!st->suspended)
         return;
     st->suspended = false;
     MHD_resume_connection(st->conn);
-    tgt_server_kick(st->sv);
+    srv_server_kick(st->sv);
 }
 
 static ssize_t stream_read(void *cls, uint64_t pos, char *out, size_t max)
 {
-    tgt_stream_t *st = cls;
+    srv_stream_t *st = cls;
     (void)pos;
     size_t avail = st->buf.len - st->off;
     if (avail > 0) {
@@ -73,8 +73,8 @@ static ssize_t stream_read(void *cls, uint64_t pos, char *out, size_t max)
 
 static void stream_free(void *cls)
 {
-    tgt_stream_t *st = cls;
-    tgt_server_t *sv = st->sv;
+    srv_stream_t *st = cls;
+    srv_server_t *sv = st->sv;
     if (st->prev)
         st->prev->next = st->next;
     else
@@ -88,23 +88,23 @@ static void stream_free(void *cls)
     if (st->anext)
         st->anext->aprev = st->aprev;
     sv->streams_open--;
-    tgt_buf_free(&st->buf);
+    srv_buf_free(&st->buf);
     free(st);
     /* libmicrohttpd closes the socket of a finished connection on its next MHD_run; without
      * another run a dropped stream's client would not notice until other traffic came. */
-    tgt_server_kick(sv);
+    srv_server_kick(sv);
 }
 
 /* Queues one event line, or ends the stream when the line would pass its buffer limit. */
-static void stream_push(tgt_stream_t *st, const char *line, size_t len)
+static void stream_push(srv_stream_t *st, const char *line, size_t len)
 {
-    tgt_server_t *sv = st->sv;
+    srv_server_t *sv = st->sv;
     if (st->state != STREAM_OPEN)
         return;
     if ((long long)(st->buf.len - st->off + len) > sv->opts.stream_buffer ||
-        tgt_buf_add(&st->buf, line, len) < 0) {
+        srv_buf_add(&st->buf, line, len) < 0) {
         /* The final error event may pass the limit by its own size, once. */
-        tgt_buf_add(&st->buf, slow_event, sizeof(slow_event) - 1);
+        srv_buf_add(&st->buf, slow_event, sizeof(slow_event) - 1);
         st->state = STREAM_END;
         sv->slow_closed++;
     } else {
@@ -113,16 +113,16 @@ static void stream_push(tgt_stream_t *st, const char *line, size_t len)
     stream_wake(st);
 }
 
-void tgt_stream_publish(void *server, const tgt_event_t *ev)
+void srv_stream_publish(void *server, const srv_event_t *ev)
 {
-    for (tgt_stream_t *st = ev->coll->streams; st; st = st->next)
+    for (srv_stream_t *st = ev->coll->streams; st; st = st->next)
         stream_push(st, ev->line, ev->len);
     (void)server;
 }
 
-static tgt_stream_t *stream_new(tgt_server_t *sv, struct MHD_Connection *conn, tgt_coll_t *c)
+static srv_stream_t *stream_new(srv_server_t *sv, struct MHD_Connection *conn, srv_coll_t *c)
 {
-    tgt_stream_t *st = calloc(1, sizeof(*st));
+    srv_stream_t *st = calloc(1, sizeof(*st));
     if (!st)
         return NULL;
     st->sv = sv;
@@ -141,16 +141,16 @@ static tgt_stream_t *stream_new(tgt_server_t *sv, struct MHD_Connection *conn, t
     return st;
 }
 
-enum MHD_Result tgt_stream_open(tgt_server_t *sv, struct MHD_Connection *conn, const char *cpath,
+enum MHD_Result srv_stream_open(srv_server_t *sv, struct MHD_Connection *conn, const char *cpath,
                                 int first)
 {
-    tgt_store_t *s = &sv->store;
-    tgt_coll_t *c = tgt_store_coll_add(s, cpath, strlen(cpath));
-    tgt_stream_t *st = c ? stream_new(sv, conn, c) : NULL;
+    srv_store_t *s = &sv->store;
+    srv_coll_t *c = srv_store_coll_add(s, cpath, strlen(cpath));
+    srv_stream_t *st = c ? stream_new(sv, conn, c) : NULL;
     if (!st)
-        return tgt_http_error(sv, conn, TGT_M_GET, 500, "no-memory", "out of memory");
+        return srv_http_error(sv, conn, SRV_M_GET, 500, "no-memory", "out of memory");
     for (int i = first; i < s->ring_len; i++) {
-        const tgt_event_t *ev = tgt_store_history_at(s, i);
+        const srv_event_t *ev = srv_store_history_at(s, i);
         if (ev->coll == c)
             stream_push(st, ev->line, ev->len);
     }
@@ -167,14 +167,14 @@ enum MHD_Result tgt_stream_open(tgt_server_t *sv, struct MHD_Connection *conn, c
     MHD_add_response_header(r, "X-Squall-Version", v);
     enum MHD_Result rc = MHD_queue_response(conn, 200, r);
     MHD_destroy_response(r);
-    tgt_http_count(sv, TGT_M_GET, 200);
+    srv_http_count(sv, SRV_M_GET, 200);
     return rc;
 }
 
-void tgt_stream_sweep(tgt_server_t *sv)
+void srv_stream_sweep(srv_server_t *sv)
 {
     char c;
-    for (tgt_stream_t *st = sv->all_streams; st; st = st->anext) {
+    for (srv_stream_t *st = sv->all_streams; st; st = st->anext) {
         if (!st->suspended || st->state != STREAM_OPEN)
             continue;
         const union MHD_ConnectionInfo *ci =
@@ -188,9 +188,9 @@ void tgt_stream_sweep(tgt_server_t *sv)
     }
 }
 
-void tgt_stream_end_all(tgt_server_t *sv, bool drop)
+void srv_stream_end_all(srv_server_t *sv, bool drop)
 {
-    for (tgt_stream_t *st = sv->all_streams; st; st = st->anext) {
+    for (srv_stream_t *st = sv->all_streams; st; st = st->anext) {
         if (drop) {
             if (st->state == STREAM_DROP)
                 continue;

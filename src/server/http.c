@@ -6,18 +6,18 @@
 #include <string.h>
 
 #include "squall/err.h"
-#include "target_int.h"
+#include "server_int.h"
 
-struct tgt_req {
-    tgt_server_t *sv;
+struct srv_req {
+    srv_server_t *sv;
     struct MHD_Connection *conn;
     uint64_t t0, due;
     int method;
     bool v1, watch, answered, admitted, delayed, stall_counted, too_large;
-    tgt_buf_t body;
+    srv_buf_t body;
     uv_timer_t *timer;
-    tgt_req_t *hprev, *hnext; /* in sv->held while suspended */
-    tgt_req_t *qnext;         /* in the in-flight queue */
+    srv_req_t *hprev, *hnext; /* in sv->held while suspended */
+    srv_req_t *qnext;         /* in the in-flight queue */
 };
 
 static const char allow[] = "GET, HEAD, PUT, POST, PATCH, DELETE";
@@ -25,30 +25,30 @@ static const char allow[] = "GET, HEAD, PUT, POST, PATCH, DELETE";
 static int method_index(const char *m)
 {
     static const char *const names[] = {"GET", "HEAD", "PUT", "POST", "PATCH", "DELETE"};
-    for (int i = 0; i < TGT_M_OTHER; i++)
+    for (int i = 0; i < SRV_M_OTHER; i++)
         if (strcmp(m, names[i]) == 0)
             return i;
-    return TGT_M_OTHER;
+    return SRV_M_OTHER;
 }
 
-void tgt_http_count(tgt_server_t *sv, int method, unsigned status)
+void srv_http_count(srv_server_t *sv, int method, unsigned status)
 {
-    if (method >= 0 && method < TGT_M_COUNT && status < 600)
+    if (method >= 0 && method < SRV_M_COUNT && status < 600)
         sv->requests[method][status]++;
 }
 
-static enum MHD_Result queue(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+static enum MHD_Result queue(srv_server_t *sv, struct MHD_Connection *conn, int method,
                              unsigned status, struct MHD_Response *r)
 {
     if (!r)
         return MHD_NO;
-    tgt_http_count(sv, method, status);
+    srv_http_count(sv, method, status);
     enum MHD_Result rc = MHD_queue_response(conn, status, r);
     MHD_destroy_response(r);
     return rc;
 }
 
-enum MHD_Result tgt_http_reply(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+enum MHD_Result srv_http_reply(srv_server_t *sv, struct MHD_Connection *conn, int method,
                                unsigned status, const char *ctype, const char *body, size_t len)
 {
     struct MHD_Response *r =
@@ -61,17 +61,17 @@ enum MHD_Result tgt_http_reply(tgt_server_t *sv, struct MHD_Connection *conn, in
 }
 
 /* An error answer: {"error": CODE, "message": MSG}, optionally with Retry-After. */
-static enum MHD_Result error_reply(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+static enum MHD_Result error_reply(srv_server_t *sv, struct MHD_Connection *conn, int method,
                                    unsigned status, const char *code, const char *msg,
                                    int retry_after)
 {
-    tgt_buf_t b = {0};
-    tgt_buf_printf(&b, "{\"error\":\"%s\",\"message\":", code);
-    tgt_buf_json_str(&b, msg);
-    tgt_buf_str(&b, "}\n");
+    srv_buf_t b = {0};
+    srv_buf_printf(&b, "{\"error\":\"%s\",\"message\":", code);
+    srv_buf_json_str(&b, msg);
+    srv_buf_str(&b, "}\n");
     struct MHD_Response *r =
         MHD_create_response_from_buffer(b.len, b.p ? b.p : "", MHD_RESPMEM_MUST_COPY);
-    tgt_buf_free(&b);
+    srv_buf_free(&b);
     if (r) {
         MHD_add_response_header(r, "Content-Type", "application/json");
         if (status == 405)
@@ -85,7 +85,7 @@ static enum MHD_Result error_reply(tgt_server_t *sv, struct MHD_Connection *conn
     return queue(sv, conn, method, status, r);
 }
 
-enum MHD_Result tgt_http_error(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+enum MHD_Result srv_http_error(srv_server_t *sv, struct MHD_Connection *conn, int method,
                                unsigned status, const char *code, const char *msg)
 {
     return error_reply(sv, conn, method, status, code, msg, -1);
@@ -93,9 +93,9 @@ enum MHD_Result tgt_http_error(tgt_server_t *sv, struct MHD_Connection *conn, in
 
 /* ---- Holding requests: suspended connections, woken by a timer or by a free slot. */
 
-static void hold_link(tgt_req_t *q)
+static void hold_link(srv_req_t *q)
 {
-    tgt_server_t *sv = q->sv;
+    srv_server_t *sv = q->sv;
     q->hprev = NULL;
     q->hnext = sv->held;
     if (sv->held)
@@ -104,9 +104,9 @@ static void hold_link(tgt_req_t *q)
     MHD_suspend_connection(q->conn);
 }
 
-static void hold_release(tgt_req_t *q)
+static void hold_release(srv_req_t *q)
 {
-    tgt_server_t *sv = q->sv;
+    srv_server_t *sv = q->sv;
     if (q->hprev)
         q->hprev->hnext = q->hnext;
     else
@@ -115,7 +115,7 @@ static void hold_release(tgt_req_t *q)
         q->hnext->hprev = q->hprev;
     q->hprev = q->hnext = NULL;
     MHD_resume_connection(q->conn);
-    tgt_server_kick(sv);
+    srv_server_kick(sv);
 }
 
 static void timer_free(uv_handle_t *h)
@@ -125,7 +125,7 @@ static void timer_free(uv_handle_t *h)
 
 static void on_hold_timer(uv_timer_t *h)
 {
-    tgt_req_t *q = h->data;
+    srv_req_t *q = h->data;
     uint64_t now = uv_hrtime();
     if (now < q->due) {
         /* libuv timers have millisecond resolution and may fire early: wait out the rest. */
@@ -138,11 +138,11 @@ static void on_hold_timer(uv_timer_t *h)
 }
 
 /* Suspends q until `ns` from now. */
-static enum MHD_Result hold_for(tgt_req_t *q, int64_t ns)
+static enum MHD_Result hold_for(srv_req_t *q, int64_t ns)
 {
     q->timer = malloc(sizeof(*q->timer));
     if (!q->timer)
-        return tgt_http_error(q->sv, q->conn, q->method, 500, "no-memory", "out of memory");
+        return srv_http_error(q->sv, q->conn, q->method, 500, "no-memory", "out of memory");
     uv_timer_init(q->sv->loop, q->timer);
     q->timer->data = q;
     q->due = uv_hrtime() + (uint64_t)ns;
@@ -151,7 +151,7 @@ static enum MHD_Result hold_for(tgt_req_t *q, int64_t ns)
     return MHD_YES;
 }
 
-static void drop_timer(tgt_req_t *q)
+static void drop_timer(srv_req_t *q)
 {
     if (!q->timer)
         return;
@@ -160,7 +160,7 @@ static void drop_timer(tgt_req_t *q)
     q->timer = NULL;
 }
 
-void tgt_http_release_all(tgt_server_t *sv)
+void srv_http_release_all(srv_server_t *sv)
 {
     while (sv->held) {
         drop_timer(sv->held);
@@ -170,9 +170,9 @@ void tgt_http_release_all(tgt_server_t *sv)
 }
 
 /* Gives a freed in-flight slot to the oldest queued request. */
-static void admit_next(tgt_server_t *sv)
+static void admit_next(srv_server_t *sv)
 {
-    tgt_req_t *q = sv->queue_head;
+    srv_req_t *q = sv->queue_head;
     if (!q || sv->draining)
         return;
     sv->queue_head = q->qnext;
@@ -184,7 +184,7 @@ static void admit_next(tgt_server_t *sv)
     hold_release(q);
 }
 
-static void slot_free(tgt_req_t *q)
+static void slot_free(srv_req_t *q)
 {
     if (!q->admitted)
         return;
@@ -196,10 +196,10 @@ static void slot_free(tgt_req_t *q)
 /* ---- The fault pipeline for /v1/ requests; MHD_YES with nothing queued means "held". */
 
 /* Inside a stall window: hold q until the window ends (counted once per request). */
-static bool stall_hold(tgt_req_t *q, enum MHD_Result *rc)
+static bool stall_hold(srv_req_t *q, enum MHD_Result *rc)
 {
-    tgt_server_t *sv = q->sv;
-    const target_faults_t *f = &sv->faults;
+    srv_server_t *sv = q->sv;
+    const server_faults_t *f = &sv->faults;
     if (f->stall_at_ns < 0 || f->stall_for_ns <= 0)
         return false;
     uint64_t now = uv_hrtime(), start = sv->faults_at + (uint64_t)f->stall_at_ns;
@@ -214,10 +214,10 @@ static bool stall_hold(tgt_req_t *q, enum MHD_Result *rc)
 }
 
 /* Takes an in-flight slot, or rejects (429) or queues q when none is free. */
-static bool admit_or_hold(tgt_req_t *q, enum MHD_Result *rc)
+static bool admit_or_hold(srv_req_t *q, enum MHD_Result *rc)
 {
-    tgt_server_t *sv = q->sv;
-    const target_faults_t *f = &sv->faults;
+    srv_server_t *sv = q->sv;
+    const server_faults_t *f = &sv->faults;
     if (q->admitted)
         return false;
     if (f->max_inflight > 0 && sv->inflight >= f->max_inflight) {
@@ -245,10 +245,10 @@ static bool admit_or_hold(tgt_req_t *q, enum MHD_Result *rc)
 /* The order is that of a real overloaded server: a stall holds everything, then admission,
  * then the added service time, then an injected error instead of the answer. Each step runs
  * once per request even though the handler is called again after every hold. */
-static enum MHD_Result faults_then_serve(tgt_req_t *q, const char *url)
+static enum MHD_Result faults_then_serve(srv_req_t *q, const char *url)
 {
-    tgt_server_t *sv = q->sv;
-    const target_faults_t *f = &sv->faults;
+    srv_server_t *sv = q->sv;
+    const server_faults_t *f = &sv->faults;
     enum MHD_Result rc;
     if (sv->draining)
         return error_reply(sv, q->conn, q->method, 503, "shutting-down", "the target is stopping",
@@ -257,7 +257,7 @@ static enum MHD_Result faults_then_serve(tgt_req_t *q, const char *url)
         return rc;
     if (!q->delayed) {
         q->delayed = true;
-        int64_t d = tgt_fault_delay(f, &sv->rng);
+        int64_t d = srv_fault_delay(f, &sv->rng);
         if (d > 0) {
             sv->fc.delayed++;
             sv->fc.delay_ns_total += (uint64_t)d;
@@ -269,99 +269,99 @@ static enum MHD_Result faults_then_serve(tgt_req_t *q, const char *url)
         return error_reply(sv, q->conn, q->method, (unsigned)f->fail_status, "injected",
                            "an error injected by the target's fault settings", f->retry_after_s);
     }
-    return tgt_api_serve(sv, q->conn, q->method, url, q->body.p ? q->body.p : "", q->body.len,
+    return srv_api_serve(sv, q->conn, q->method, url, q->body.p ? q->body.p : "", q->body.len,
                          &q->watch);
 }
 
 /* ---- Routes outside /v1/: reports and administration. */
 
 /* Applies a POSTed fault configuration; on a bad body answers 400 and returns true. */
-static bool admin_faults_post(tgt_req_t *q, enum MHD_Result *rc)
+static bool admin_faults_post(srv_req_t *q, enum MHD_Result *rc)
 {
-    tgt_server_t *sv = q->sv;
+    srv_server_t *sv = q->sv;
     json_error_t je;
     char err[256];
     json_t *j = json_loadb(q->body.p ? q->body.p : "", q->body.len, 0, &je);
-    target_faults_t f;
+    server_faults_t f;
     if (!j) {
         snprintf(err, sizeof(err), "malformed JSON at line %d column %d: %s", je.line, je.column,
                  je.text);
-        *rc = tgt_http_error(sv, q->conn, -1, 400, "bad-json", err);
+        *rc = srv_http_error(sv, q->conn, -1, 400, "bad-json", err);
         return true;
     }
-    int bad = tgt_faults_from_json(&f, j, err, sizeof(err));
+    int bad = srv_faults_from_json(&f, j, err, sizeof(err));
     json_decref(j);
     if (bad < 0) {
-        *rc = tgt_http_error(sv, q->conn, -1, 400, "bad-faults", err);
+        *rc = srv_http_error(sv, q->conn, -1, 400, "bad-faults", err);
         return true;
     }
-    tgt_server_set_faults(sv, &f);
+    srv_server_set_faults(sv, &f);
     out_info(sv->out, "serve: faults set through /admin/faults");
     return false;
 }
 
-static enum MHD_Result reply_json(tgt_server_t *sv, struct MHD_Connection *conn, json_t *j)
+static enum MHD_Result reply_json(srv_server_t *sv, struct MHD_Connection *conn, json_t *j)
 {
     char *s = j ? json_dumps(j, JSON_COMPACT) : NULL;
     json_decref(j);
     if (!s)
-        return tgt_http_error(sv, conn, -1, 500, "no-memory", "out of memory");
-    enum MHD_Result rc = tgt_http_reply(sv, conn, -1, 200, "application/json", s, strlen(s));
+        return srv_http_error(sv, conn, -1, 500, "no-memory", "out of memory");
+    enum MHD_Result rc = srv_http_reply(sv, conn, -1, 200, "application/json", s, strlen(s));
     free(s);
     return rc;
 }
 
-static enum MHD_Result route_report(tgt_req_t *q, const char *url)
+static enum MHD_Result route_report(srv_req_t *q, const char *url)
 {
-    tgt_server_t *sv = q->sv;
-    tgt_buf_t b = {0};
+    srv_server_t *sv = q->sv;
+    srv_buf_t b = {0};
     bool metrics = strcmp(url, "/metrics") == 0;
-    int rc = metrics ? tgt_report_metrics(sv, &b) : tgt_report_stats(sv, &b);
+    int rc = metrics ? srv_report_metrics(sv, &b) : srv_report_stats(sv, &b);
     enum MHD_Result r =
-        rc < 0 ? tgt_http_error(sv, q->conn, -1, 500, "no-memory", "out of memory")
-               : tgt_http_reply(sv, q->conn, -1, 200,
+        rc < 0 ? srv_http_error(sv, q->conn, -1, 500, "no-memory", "out of memory")
+               : srv_http_reply(sv, q->conn, -1, 200,
                                 metrics ? "application/openmetrics-text; version=1.0.0; "
                                           "charset=utf-8"
                                         : "application/json",
                                 b.p, b.len);
-    tgt_buf_free(&b);
+    srv_buf_free(&b);
     return r;
 }
 
-static enum MHD_Result route_other(tgt_req_t *q, const char *url)
+static enum MHD_Result route_other(srv_req_t *q, const char *url)
 {
-    tgt_server_t *sv = q->sv;
-    bool get = q->method == TGT_M_GET || q->method == TGT_M_HEAD;
-    bool post = q->method == TGT_M_POST || q->method == TGT_M_PUT;
+    srv_server_t *sv = q->sv;
+    bool get = q->method == SRV_M_GET || q->method == SRV_M_HEAD;
+    bool post = q->method == SRV_M_POST || q->method == SRV_M_PUT;
     if (strcmp(url, "/stats") == 0 || strcmp(url, "/metrics") == 0)
         return get ? route_report(q, url)
-                   : tgt_http_error(sv, q->conn, -1, 405, "bad-method", "use GET");
+                   : srv_http_error(sv, q->conn, -1, 405, "bad-method", "use GET");
     if (strcmp(url, "/admin/faults") == 0) {
         enum MHD_Result rc;
         if (post && admin_faults_post(q, &rc))
             return rc;
         if (!get && !post)
-            return tgt_http_error(sv, q->conn, -1, 405, "bad-method", "use GET or POST");
-        return reply_json(sv, q->conn, tgt_report_faults(sv));
+            return srv_http_error(sv, q->conn, -1, 405, "bad-method", "use GET or POST");
+        return reply_json(sv, q->conn, srv_report_faults(sv));
     }
     if (strcmp(url, "/admin/drop-watches") == 0) {
-        if (q->method != TGT_M_POST)
-            return tgt_http_error(sv, q->conn, -1, 405, "bad-method", "use POST");
+        if (q->method != SRV_M_POST)
+            return srv_http_error(sv, q->conn, -1, 405, "bad-method", "use POST");
         sv->fc.drops++;
-        tgt_server_drop_soon(sv);
+        srv_server_drop_soon(sv);
         return reply_json(sv, q->conn, json_pack("{s:I}", "dropped", (json_int_t)sv->streams_open));
     }
-    return tgt_http_error(sv, q->conn, -1, 404, "no-route",
+    return srv_http_error(sv, q->conn, -1, 404, "no-route",
                           "no such path: objects live under /v1/; see also /stats, /metrics, "
                           "/admin/faults, /admin/drop-watches");
 }
 
 /* ---- libmicrohttpd callbacks */
 
-static tgt_req_t *req_new(tgt_server_t *sv, struct MHD_Connection *conn, const char *url,
+static srv_req_t *req_new(srv_server_t *sv, struct MHD_Connection *conn, const char *url,
                           const char *method)
 {
-    tgt_req_t *q = calloc(1, sizeof(*q));
+    srv_req_t *q = calloc(1, sizeof(*q));
     if (!q)
         return NULL;
     q->sv = sv;
@@ -372,21 +372,21 @@ static tgt_req_t *req_new(tgt_server_t *sv, struct MHD_Connection *conn, const c
     return q;
 }
 
-static enum MHD_Result too_large(tgt_req_t *q)
+static enum MHD_Result too_large(srv_req_t *q)
 {
-    tgt_server_t *sv = q->sv;
+    srv_server_t *sv = q->sv;
     char msg[96];
     sv->too_large++;
     snprintf(msg, sizeof(msg), "request body over the limit of %lld bytes", sv->opts.body_limit);
-    return tgt_http_error(sv, q->conn, q->v1 ? q->method : -1, 413, "too-large", msg);
+    return srv_http_error(sv, q->conn, q->v1 ? q->method : -1, 413, "too-large", msg);
 }
 
-enum MHD_Result tgt_http_access(void *cls, struct MHD_Connection *conn, const char *url,
+enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const char *url,
                                 const char *method, const char *version, const char *upload,
                                 size_t *upload_size, void **con_cls)
 {
-    tgt_server_t *sv = cls;
-    tgt_req_t *q = *con_cls;
+    srv_server_t *sv = cls;
+    srv_req_t *q = *con_cls;
     (void)version;
     if (!q) {
         if (!(*con_cls = q = req_new(sv, conn, url, method)))
@@ -401,7 +401,7 @@ enum MHD_Result tgt_http_access(void *cls, struct MHD_Connection *conn, const ch
     if (*upload_size > 0) {
         if (!q->too_large && (long long)(q->body.len + *upload_size) > sv->opts.body_limit)
             q->too_large = true;
-        if (!q->too_large && tgt_buf_add(&q->body, upload, *upload_size) < 0)
+        if (!q->too_large && srv_buf_add(&q->body, upload, *upload_size) < 0)
             return MHD_NO;
         *upload_size = 0;
         return MHD_YES;
@@ -410,10 +410,10 @@ enum MHD_Result tgt_http_access(void *cls, struct MHD_Connection *conn, const ch
         return (q->answered = true), too_large(q);
     if (!q->v1)
         return (q->answered = true), route_other(q, url);
-    if (q->method == TGT_M_OTHER) {
+    if (q->method == SRV_M_OTHER) {
         sv->bad_method++;
         q->answered = true;
-        return tgt_http_error(sv, conn, q->method, 405, "bad-method",
+        return srv_http_error(sv, conn, q->method, 405, "bad-method",
                               "method not supported; allowed: GET, HEAD, PUT, POST, PATCH, "
                               "DELETE");
     }
@@ -424,11 +424,11 @@ enum MHD_Result tgt_http_access(void *cls, struct MHD_Connection *conn, const ch
     return rc;
 }
 
-void tgt_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
+void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
                         enum MHD_RequestTerminationCode code)
 {
-    tgt_server_t *sv = cls;
-    tgt_req_t *q = *con_cls;
+    srv_server_t *sv = cls;
+    srv_req_t *q = *con_cls;
     (void)conn;
     if (!q)
         return;
@@ -439,8 +439,8 @@ void tgt_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
     }
     drop_timer(q);
     slot_free(q);
-    tgt_buf_free(&q->body);
+    srv_buf_free(&q->body);
     free(q);
     *con_cls = NULL;
-    tgt_server_kick(sv); /* A closing connection is only cleaned up on the next MHD_run. */
+    srv_server_kick(sv); /* A closing connection is only cleaned up on the next MHD_run. */
 }

@@ -5,7 +5,7 @@
 #include <string.h>
 
 #include "squall/err.h"
-#include "target_int.h"
+#include "server_int.h"
 
 static const char ctype_json[] = "application/json";
 
@@ -28,8 +28,8 @@ static bool parse_u64(const char *s, uint64_t *v)
     return true;
 }
 
-static enum MHD_Result reply_obj(tgt_server_t *sv, struct MHD_Connection *conn, int method,
-                                 unsigned status, const tgt_obj_t *o)
+static enum MHD_Result reply_obj(srv_server_t *sv, struct MHD_Connection *conn, int method,
+                                 unsigned status, const srv_obj_t *o)
 {
     struct MHD_Response *r =
         MHD_create_response_from_buffer(o->item_len, o->item, MHD_RESPMEM_MUST_COPY);
@@ -41,58 +41,58 @@ static enum MHD_Result reply_obj(tgt_server_t *sv, struct MHD_Connection *conn, 
     MHD_add_response_header(r, "ETag", etag);
     if (status == 201)
         MHD_add_response_header(r, "Location", o->path);
-    tgt_http_count(sv, method, status);
+    srv_http_count(sv, method, status);
     enum MHD_Result rc = MHD_queue_response(conn, status, r);
     MHD_destroy_response(r);
     return rc;
 }
 
-static enum MHD_Result list(tgt_server_t *sv, struct MHD_Connection *conn, int method,
-                            const char *path, const tgt_coll_t *c)
+static enum MHD_Result list(srv_server_t *sv, struct MHD_Connection *conn, int method,
+                            const char *path, const srv_coll_t *c)
 {
     uint64_t limit = 0;
     const char *ls = arg(conn, "limit"), *token = arg(conn, "continue");
     if (ls && !parse_u64(ls, &limit))
-        return tgt_http_error(sv, conn, method, 400, "bad-limit",
+        return srv_http_error(sv, conn, method, 400, "bad-limit",
                               "limit must be a non-negative integer (0 = no limit)");
-    size_t i = (c && token && *token) ? tgt_coll_after(c, token) : 0, n = c ? c->n : 0;
+    size_t i = (c && token && *token) ? srv_coll_after(c, token) : 0, n = c ? c->n : 0;
     size_t end = (limit > 0 && limit < n - i) ? i + limit : n;
-    tgt_buf_t b = {0};
-    int rc = tgt_buf_str(&b, "{\"collection\":");
-    rc |= tgt_buf_json_str(&b, path);
+    srv_buf_t b = {0};
+    int rc = srv_buf_str(&b, "{\"collection\":");
+    rc |= srv_buf_json_str(&b, path);
     rc |=
-        tgt_buf_printf(&b, ",\"version\":%llu,\"items\":[", (unsigned long long)sv->store.version);
+        srv_buf_printf(&b, ",\"version\":%llu,\"items\":[", (unsigned long long)sv->store.version);
     for (size_t k = i; k < end; k++) {
         if (k > i)
-            rc |= tgt_buf_add(&b, ",", 1);
-        rc |= tgt_buf_add(&b, c->items[k]->item, c->items[k]->item_len);
+            rc |= srv_buf_add(&b, ",", 1);
+        rc |= srv_buf_add(&b, c->items[k]->item, c->items[k]->item_len);
     }
-    rc |= tgt_buf_str(&b, "]");
+    rc |= srv_buf_str(&b, "]");
     /* The token is the last name returned: the next page starts after it in name order, so a
      * member that exists throughout is returned exactly once whatever is written meanwhile. */
     if (end < n) {
-        rc |= tgt_buf_str(&b, ",\"continue\":");
-        rc |= tgt_buf_json_str(&b, c->items[end - 1]->name);
+        rc |= srv_buf_str(&b, ",\"continue\":");
+        rc |= srv_buf_json_str(&b, c->items[end - 1]->name);
     }
-    rc |= tgt_buf_str(&b, "}");
-    enum MHD_Result r = rc < 0 ? tgt_http_error(sv, conn, method, 500, "no-memory", "no memory")
-                               : tgt_http_reply(sv, conn, method, 200, ctype_json, b.p, b.len);
-    tgt_buf_free(&b);
+    rc |= srv_buf_str(&b, "}");
+    enum MHD_Result r = rc < 0 ? srv_http_error(sv, conn, method, 500, "no-memory", "no memory")
+                               : srv_http_reply(sv, conn, method, 200, ctype_json, b.p, b.len);
+    srv_buf_free(&b);
     return r;
 }
 
-static enum MHD_Result watch(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+static enum MHD_Result watch(srv_server_t *sv, struct MHD_Connection *conn, int method,
                              const char *path, bool *is_watch)
 {
-    tgt_store_t *s = &sv->store;
+    srv_store_t *s = &sv->store;
     uint64_t since = s->version;
     const char *ss = arg(conn, "since");
-    if (method == TGT_M_HEAD)
-        return tgt_http_error(sv, conn, method, 400, "bad-watch", "watch with GET, not HEAD");
+    if (method == SRV_M_HEAD)
+        return srv_http_error(sv, conn, method, 400, "bad-watch", "watch with GET, not HEAD");
     if (ss && !parse_u64(ss, &since))
-        return tgt_http_error(sv, conn, method, 400, "bad-since",
+        return srv_http_error(sv, conn, method, 400, "bad-since",
                               "since must be a version (a non-negative integer)");
-    int first = tgt_store_history_after(s, since);
+    int first = srv_store_history_after(s, since);
     if (first < 0) {
         char msg[256];
         s->expired++;
@@ -100,76 +100,76 @@ static enum MHD_Result watch(tgt_server_t *sv, struct MHD_Connection *conn, int 
                  "version %llu is older than the history window (the oldest version a watch can "
                  "resume from is %llu); list the collection again and watch from its version",
                  (unsigned long long)since, (unsigned long long)s->evicted_upto);
-        return tgt_http_error(sv, conn, method, 410, "expired", msg);
+        return srv_http_error(sv, conn, method, 410, "expired", msg);
     }
     *is_watch = true;
-    return tgt_stream_open(sv, conn, path, first);
+    return srv_stream_open(sv, conn, path, first);
 }
 
-static enum MHD_Result get(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+static enum MHD_Result get(srv_server_t *sv, struct MHD_Connection *conn, int method,
                            const char *path, bool coll_only, bool *is_watch)
 {
     const char *w = arg(conn, "watch");
     if (w && (strcmp(w, "1") == 0 || strcmp(w, "true") == 0))
         return watch(sv, conn, method, path, is_watch);
     bool listing = coll_only || arg(conn, "limit") || arg(conn, "continue");
-    tgt_obj_t *o = listing ? NULL : tgt_store_get(&sv->store, path);
+    srv_obj_t *o = listing ? NULL : srv_store_get(&sv->store, path);
     if (o)
         return reply_obj(sv, conn, method, 200, o);
     /* A collection that ever had a member stays listable (possibly empty). */
-    tgt_coll_t *c = tgt_store_coll(&sv->store, path);
+    srv_coll_t *c = srv_store_coll(&sv->store, path);
     if (!c && !coll_only)
-        return tgt_http_error(sv, conn, method, 404, "not-found", "no object or collection here");
+        return srv_http_error(sv, conn, method, 404, "not-found", "no object or collection here");
     return list(sv, conn, method, path, c);
 }
 
-static enum MHD_Result conflict(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+static enum MHD_Result conflict(srv_server_t *sv, struct MHD_Connection *conn, int method,
                                 const char *path, uint64_t expect)
 {
-    const tgt_obj_t *o = tgt_store_get(&sv->store, path);
+    const srv_obj_t *o = srv_store_get(&sv->store, path);
     char msg[160];
     snprintf(msg, sizeof(msg), "expected version %llu, the object is at version %llu",
              (unsigned long long)expect, (unsigned long long)(o ? o->version : 0));
-    return tgt_http_error(sv, conn, method, 409, "conflict", msg);
+    return srv_http_error(sv, conn, method, 409, "conflict", msg);
 }
 
-static enum MHD_Result write_obj(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+static enum MHD_Result write_obj(srv_server_t *sv, struct MHD_Connection *conn, int method,
                                  const char *path, const char *body, size_t len)
 {
-    enum tgt_op op = method == TGT_M_PATCH    ? TGT_OP_PATCH
-                     : method == TGT_M_DELETE ? TGT_OP_DELETE
-                                              : TGT_OP_PUT;
+    enum srv_op op = method == SRV_M_PATCH    ? SRV_OP_PATCH
+                     : method == SRV_M_DELETE ? SRV_OP_DELETE
+                                              : SRV_OP_PUT;
     uint64_t expect = 0;
     const char *vs = arg(conn, "version");
     if (vs && !parse_u64(vs, &expect))
-        return tgt_http_error(sv, conn, method, 400, "bad-version",
+        return srv_http_error(sv, conn, method, 400, "bad-version",
                               "version must be the expected object version (0 = must not exist)");
     json_t *doc = NULL;
-    if (op != TGT_OP_DELETE) {
+    if (op != SRV_OP_DELETE) {
         json_error_t je;
         if (!(doc = json_loadb(body, len, JSON_DECODE_ANY, &je))) {
             char msg[256];
             sv->bad_json++;
             snprintf(msg, sizeof(msg), "malformed JSON body at line %d column %d: %s", je.line,
                      je.column, je.text);
-            return tgt_http_error(sv, conn, method, 400, "bad-json", msg);
+            return srv_http_error(sv, conn, method, 400, "bad-json", msg);
         }
     }
-    tgt_obj_t *o;
-    int status = tgt_store_write(&sv->store, op, path, doc, vs ? (int64_t)expect : -1, &o);
+    srv_obj_t *o;
+    int status = srv_store_write(&sv->store, op, path, doc, vs ? (int64_t)expect : -1, &o);
     json_decref(doc);
     if (status == 409)
         return conflict(sv, conn, method, path, expect);
     if (status == 404)
-        return tgt_http_error(sv, conn, method, 404, "not-found", "no object here");
+        return srv_http_error(sv, conn, method, 404, "not-found", "no object here");
     if (status == 204)
-        return tgt_http_reply(sv, conn, method, 204, NULL, "", 0);
+        return srv_http_reply(sv, conn, method, 204, NULL, "", 0);
     if (!o)
-        return tgt_http_error(sv, conn, method, 500, "no-memory", "out of memory");
+        return srv_http_error(sv, conn, method, 500, "no-memory", "out of memory");
     return reply_obj(sv, conn, method, (unsigned)status, o);
 }
 
-enum MHD_Result tgt_api_serve(tgt_server_t *sv, struct MHD_Connection *conn, int method,
+enum MHD_Result srv_api_serve(srv_server_t *sv, struct MHD_Connection *conn, int method,
                               const char *url, const char *body, size_t len, bool *is_watch)
 {
     char path[520];
@@ -179,17 +179,17 @@ enum MHD_Result tgt_api_serve(tgt_server_t *sv, struct MHD_Connection *conn, int
         n = sizeof(path) - 2; /* too long: fails the check below */
     memcpy(path, url, n);
     path[n - (coll_only ? 1 : 0)] = '\0';
-    if (!tgt_path_valid(path)) {
+    if (!srv_path_valid(path)) {
         sv->bad_path++;
-        return tgt_http_error(sv, conn, method, 400, "bad-path",
+        return srv_http_error(sv, conn, method, 400, "bad-path",
                               "a path is /v1/ then 1 to 16 segments of letters, digits and . _ ~ "
                               "- (512 bytes at most)");
     }
-    if (method == TGT_M_GET || method == TGT_M_HEAD)
+    if (method == SRV_M_GET || method == SRV_M_HEAD)
         return get(sv, conn, method, path, coll_only, is_watch);
     if (coll_only) {
         sv->bad_path++;
-        return tgt_http_error(sv, conn, method, 400, "bad-path",
+        return srv_http_error(sv, conn, method, 400, "bad-path",
                               "writes name an object, not a collection (drop the trailing /)");
     }
     return write_obj(sv, conn, method, path, body, len);

@@ -7,9 +7,9 @@
 #include <string.h>
 
 #include "squall/err.h"
-#include "target_int.h"
+#include "server_int.h"
 
-static void mhd_run(tgt_server_t *sv);
+static void mhd_run(srv_server_t *sv);
 
 static void on_tick(uv_timer_t *h)
 {
@@ -18,21 +18,21 @@ static void on_tick(uv_timer_t *h)
 
 static void on_idle(uv_idle_t *h)
 {
-    tgt_server_t *sv = h->data;
+    srv_server_t *sv = h->data;
     uv_idle_stop(h);
     if (sv->drop_pending) {
         sv->drop_pending = false;
-        tgt_stream_end_all(sv, true);
+        srv_stream_end_all(sv, true);
     }
     mhd_run(sv);
 }
 
-void tgt_server_drop_soon(tgt_server_t *sv)
+void srv_server_drop_soon(srv_server_t *sv)
 {
     /* Ending streams from inside one of libmicrohttpd's own callbacks left a parked stream
      * unnoticed (measured with 0.9.75); from outside MHD_run it always works. */
     sv->drop_pending = true;
-    tgt_server_kick(sv);
+    srv_server_kick(sv);
 }
 
 static void on_poll(uv_poll_t *h, int status, int events)
@@ -42,7 +42,7 @@ static void on_poll(uv_poll_t *h, int status, int events)
     mhd_run(h->data);
 }
 
-static void mhd_run(tgt_server_t *sv)
+static void mhd_run(srv_server_t *sv)
 {
     if (sv->stopping)
         return;
@@ -60,7 +60,7 @@ static void mhd_run(tgt_server_t *sv)
         uv_timer_stop(&sv->tick);
 }
 
-void tgt_server_kick(tgt_server_t *sv)
+void srv_server_kick(srv_server_t *sv)
 {
     if (sv->stopping)
         return;
@@ -72,17 +72,17 @@ void tgt_server_kick(tgt_server_t *sv)
 
 static void on_sweep(uv_timer_t *h)
 {
-    tgt_stream_sweep(h->data);
+    srv_stream_sweep(h->data);
 }
 
 static void on_drop(uv_timer_t *h)
 {
-    tgt_server_t *sv = h->data;
+    srv_server_t *sv = h->data;
     sv->fc.drops++;
-    tgt_stream_end_all(sv, true);
+    srv_stream_end_all(sv, true);
 }
 
-void tgt_server_set_faults(tgt_server_t *sv, const target_faults_t *f)
+void srv_server_set_faults(srv_server_t *sv, const server_faults_t *f)
 {
     sv->faults = *f;
     sv->faults_at = uv_hrtime();
@@ -93,14 +93,14 @@ void tgt_server_set_faults(tgt_server_t *sv, const target_faults_t *f)
 
 static void mhd_log(void *cls, const char *fmt, va_list ap)
 {
-    tgt_server_t *sv = cls;
+    srv_server_t *sv = cls;
     char line[512];
     vsnprintf(line, sizeof(line), fmt, ap);
     line[strcspn(line, "\n")] = '\0';
     out_debug(sv->out, "serve: libmicrohttpd: %s", line);
 }
 
-static int parse_addr(const target_opts_t *o, struct sockaddr_storage *ss)
+static int parse_addr(const server_opts_t *o, struct sockaddr_storage *ss)
 {
     memset(ss, 0, sizeof(*ss));
     struct sockaddr_in *a4 = (struct sockaddr_in *)ss;
@@ -120,14 +120,14 @@ static int parse_addr(const target_opts_t *o, struct sockaddr_storage *ss)
     return SQ_EINVAL;
 }
 
-static int start_mhd(tgt_server_t *sv, struct sockaddr_storage *ss, int family)
+static int start_mhd(srv_server_t *sv, struct sockaddr_storage *ss, int family)
 {
     unsigned flags = MHD_USE_EPOLL | MHD_ALLOW_SUSPEND_RESUME | MHD_USE_TURBO | MHD_USE_ERROR_LOG;
     if (family == AF_INET6)
         flags |= MHD_USE_IPv6;
     sv->mhd = MHD_start_daemon(
-        flags, 0, NULL, NULL, tgt_http_access, sv, MHD_OPTION_SOCK_ADDR, (struct sockaddr *)ss,
-        MHD_OPTION_NOTIFY_COMPLETED, tgt_http_completed, sv, MHD_OPTION_EXTERNAL_LOGGER, mhd_log,
+        flags, 0, NULL, NULL, srv_http_access, sv, MHD_OPTION_SOCK_ADDR, (struct sockaddr *)ss,
+        MHD_OPTION_NOTIFY_COMPLETED, srv_http_completed, sv, MHD_OPTION_EXTERNAL_LOGGER, mhd_log,
         sv, MHD_OPTION_CONNECTION_LIMIT, (unsigned)30000, MHD_OPTION_CONNECTION_TIMEOUT,
         (unsigned)0, MHD_OPTION_CONNECTION_MEMORY_LIMIT, (size_t)8192,
         MHD_OPTION_LISTEN_BACKLOG_SIZE, (unsigned)4096, MHD_OPTION_END);
@@ -143,7 +143,7 @@ static int start_mhd(tgt_server_t *sv, struct sockaddr_storage *ss, int family)
     return 0;
 }
 
-int target_start(uv_loop_t *loop, const target_opts_t *opts, out_t *o, target_t **out)
+int server_start(uv_loop_t *loop, const server_opts_t *opts, out_t *o, server_t **out)
 {
     struct sockaddr_storage ss;
     int family = parse_addr(opts, &ss), rc = SQ_ENOMEM;
@@ -152,17 +152,17 @@ int target_start(uv_loop_t *loop, const target_opts_t *opts, out_t *o, target_t 
                   opts->port);
         return SQ_EINVAL;
     }
-    target_t *t = calloc(1, sizeof(*t));
+    server_t *t = calloc(1, sizeof(*t));
     if (!t)
         goto fail;
-    tgt_server_t *sv = &t->sv;
+    srv_server_t *sv = &t->sv;
     sv->loop = loop;
     sv->out = o;
     sv->opts = *opts;
     rng_seed(&sv->rng, opts->seed);
-    if (tgt_store_init(&sv->store, opts->history) < 0)
+    if (srv_store_init(&sv->store, opts->history) < 0)
         goto fail_t;
-    sv->store.on_event = tgt_stream_publish;
+    sv->store.on_event = srv_stream_publish;
     sv->store.on_event_arg = sv;
     if (hist_new_ns(&sv->latency) < 0)
         goto fail_store;
@@ -180,49 +180,49 @@ int target_start(uv_loop_t *loop, const target_opts_t *opts, out_t *o, target_t 
     uv_timer_start(&sv->sweep, on_sweep, 2000, 2000);
     sv->handles_open = 5;
     uv_poll_start(&sv->poll, UV_READABLE, on_poll);
-    tgt_server_set_faults(sv, &opts->faults);
+    srv_server_set_faults(sv, &opts->faults);
     mhd_run(sv);
     *out = t;
     return 0;
 fail_hist:
     hist_free(sv->latency);
 fail_store:
-    tgt_store_close(&sv->store);
+    srv_store_close(&sv->store);
 fail_t:
     free(t);
 fail:
     return rc;
 }
 
-int target_port(const target_t *t)
+int server_port(const server_t *t)
 {
     return t->sv.port;
 }
 
 static void on_closed(uv_handle_t *h)
 {
-    tgt_server_t *sv = h->data;
+    srv_server_t *sv = h->data;
     if (--sv->handles_open > 0)
         return;
     void (*cb)(void *) = sv->on_stopped;
     void *arg = sv->on_stopped_arg;
     hist_free(sv->latency);
-    tgt_store_close(&sv->store);
-    free((target_t *)sv); /* sv is the first member of target_t */
+    srv_store_close(&sv->store);
+    free((server_t *)sv); /* sv is the first member of server_t */
     if (cb)
         cb(arg);
 }
 
-void target_stop(target_t *t, void (*on_stopped)(void *), void *arg)
+void server_stop(server_t *t, void (*on_stopped)(void *), void *arg)
 {
-    tgt_server_t *sv = &t->sv;
+    srv_server_t *sv = &t->sv;
     sv->on_stopped = on_stopped;
     sv->on_stopped_arg = arg;
     /* libmicrohttpd forbids stopping with suspended connections: end streams and release held
      * requests, let it take them back once, then stop it. */
     sv->draining = true;
-    tgt_stream_end_all(sv, false);
-    tgt_http_release_all(sv);
+    srv_stream_end_all(sv, false);
+    srv_http_release_all(sv);
     MHD_run(sv->mhd);
     sv->stopping = true;
     uv_close((uv_handle_t *)&sv->poll, on_closed);

@@ -5,12 +5,12 @@
 #include <string.h>
 
 #include "squall/err.h"
-#include "target_int.h"
+#include "server_int.h"
 
-static const char *const method_names[TGT_M_COUNT] = {"GET",   "HEAD",   "PUT",  "POST",
+static const char *const method_names[SRV_M_COUNT] = {"GET",   "HEAD",   "PUT",  "POST",
                                                       "PATCH", "DELETE", "OTHER"};
 
-static json_t *fault_counts(const tgt_fault_counts_t *c)
+static json_t *fault_counts(const srv_fault_counts_t *c)
 {
     return json_pack("{s:I,s:f,s:I,s:I,s:I,s:I,s:I,s:I}", "delayed", (json_int_t)c->delayed,
                      "delay_seconds_total", (double)c->delay_ns_total / 1e9, "failed",
@@ -19,16 +19,16 @@ static json_t *fault_counts(const tgt_fault_counts_t *c)
                      (json_int_t)c->drops, "dropped_streams", (json_int_t)c->dropped_streams);
 }
 
-json_t *tgt_report_faults(tgt_server_t *sv)
+json_t *srv_report_faults(srv_server_t *sv)
 {
-    return json_pack("{s:o,s:o,s:i}", "faults", tgt_faults_to_json(&sv->faults), "counts",
+    return json_pack("{s:o,s:o,s:i}", "faults", srv_faults_to_json(&sv->faults), "counts",
                      fault_counts(&sv->fc), "inflight", sv->inflight);
 }
 
-static json_t *requests_json(const tgt_server_t *sv)
+static json_t *requests_json(const srv_server_t *sv)
 {
     json_t *all = json_object();
-    for (int m = 0; all && m < TGT_M_COUNT; m++) {
+    for (int m = 0; all && m < SRV_M_COUNT; m++) {
         json_t *by = NULL;
         for (int st = 100; st < 600; st++) {
             if (!sv->requests[m][st])
@@ -54,9 +54,9 @@ static json_t *latency_json(const hist_t *h)
                      (double)hist_value_at(h, 99.9) / 1e6, "max_ms", (double)hist_max(h) / 1e6);
 }
 
-int tgt_report_stats(tgt_server_t *sv, tgt_buf_t *b)
+int srv_report_stats(srv_server_t *sv, srv_buf_t *b)
 {
-    const tgt_store_t *s = &sv->store;
+    const srv_store_t *s = &sv->store;
     json_t *j = json_pack(
         "{s:I,s:I,s:{s:I,s:I,s:I,s:I,s:I,s:I},s:o,s:{s:I,s:I,s:I,s:I},"
         "s:{s:I,s:I,s:I,s:I,s:I},s:o,s:i,s:o}",
@@ -74,64 +74,64 @@ int tgt_report_stats(tgt_server_t *sv, tgt_buf_t *b)
     json_decref(j);
     if (!t)
         return SQ_ENOMEM;
-    int rc = tgt_buf_str(b, t);
+    int rc = srv_buf_str(b, t);
     free(t);
-    return rc < 0 ? rc : tgt_buf_str(b, "\n");
+    return rc < 0 ? rc : srv_buf_str(b, "\n");
 }
 
 /* One metric family header (OpenMetrics 1.0: TYPE and HELP name the family, without _total). */
-static int family(tgt_buf_t *b, const char *name, const char *type, const char *help)
+static int family(srv_buf_t *b, const char *name, const char *type, const char *help)
 {
-    return tgt_buf_printf(b, "# TYPE squall_target_%s %s\n# HELP squall_target_%s %s\n", name, type,
+    return srv_buf_printf(b, "# TYPE squall_target_%s %s\n# HELP squall_target_%s %s\n", name, type,
                           name, help);
 }
 
-static int metrics_store(tgt_server_t *sv, tgt_buf_t *b)
+static int metrics_store(srv_server_t *sv, srv_buf_t *b)
 {
-    const tgt_store_t *s = &sv->store;
+    const srv_store_t *s = &sv->store;
     int rc = family(b, "objects", "gauge", "Objects in the store.");
-    rc |= tgt_buf_printf(b, "squall_target_objects %llu\n", (unsigned long long)s->n_objects);
+    rc |= srv_buf_printf(b, "squall_target_objects %llu\n", (unsigned long long)s->n_objects);
     rc |= family(b, "store_version", "gauge", "The store's global version.");
-    rc |= tgt_buf_printf(b, "squall_target_store_version %llu\n", (unsigned long long)s->version);
+    rc |= srv_buf_printf(b, "squall_target_store_version %llu\n", (unsigned long long)s->version);
     rc |= family(b, "writes", "counter", "Writes applied, by kind.");
     const char *ops[] = {"create", "replace", "patch", "delete", "conflict"};
     const uint64_t vals[] = {s->creates, s->replaces, s->patches, s->deletes, s->conflicts};
     for (int i = 0; i < 5; i++)
-        rc |= tgt_buf_printf(b, "squall_target_writes_total{op=\"%s\"} %llu\n", ops[i],
+        rc |= srv_buf_printf(b, "squall_target_writes_total{op=\"%s\"} %llu\n", ops[i],
                              (unsigned long long)vals[i]);
     rc |= family(b, "open_streams", "gauge", "Watch streams open now.");
-    rc |= tgt_buf_printf(b, "squall_target_open_streams %llu\n",
+    rc |= srv_buf_printf(b, "squall_target_open_streams %llu\n",
                          (unsigned long long)sv->streams_open);
     rc |= family(b, "events_sent", "counter", "Watch events queued to streams.");
-    rc |= tgt_buf_printf(b, "squall_target_events_sent_total %llu\n",
+    rc |= srv_buf_printf(b, "squall_target_events_sent_total %llu\n",
                          (unsigned long long)sv->events_sent);
     return rc;
 }
 
-static int metrics_requests(tgt_server_t *sv, tgt_buf_t *b)
+static int metrics_requests(srv_server_t *sv, srv_buf_t *b)
 {
     int rc = family(b, "requests", "counter", "Requests under /v1/ answered, by method and code.");
-    for (int m = 0; m < TGT_M_COUNT; m++)
+    for (int m = 0; m < SRV_M_COUNT; m++)
         for (int st = 100; st < 600; st++)
             if (sv->requests[m][st])
-                rc |= tgt_buf_printf(b,
+                rc |= srv_buf_printf(b,
                                      "squall_target_requests_total{method=\"%s\",code=\"%d\"} "
                                      "%llu\n",
                                      method_names[m], st, (unsigned long long)sv->requests[m][st]);
-    const tgt_fault_counts_t *c = &sv->fc;
+    const srv_fault_counts_t *c = &sv->fc;
     rc |= family(b, "faults", "counter", "Fault injections, by fault.");
     const char *names[] = {"delayed", "failed", "stalled", "queued", "rejected", "dropped_streams"};
     const uint64_t vals[] = {c->delayed, c->failed,   c->stalled,
                              c->queued,  c->rejected, c->dropped_streams};
     for (int i = 0; i < 6; i++)
-        rc |= tgt_buf_printf(b, "squall_target_faults_total{fault=\"%s\"} %llu\n", names[i],
+        rc |= srv_buf_printf(b, "squall_target_faults_total{fault=\"%s\"} %llu\n", names[i],
                              (unsigned long long)vals[i]);
     return rc;
 }
 
 /* The server-side latency histogram; bucket counts are cumulative over HDR buckets whose
  * highest value is at most the bound (within the histogram's 0.1 % resolution). */
-static int metrics_latency(tgt_server_t *sv, tgt_buf_t *b)
+static int metrics_latency(srv_server_t *sv, srv_buf_t *b)
 {
     static const char *const le[] = {"0.0001", "0.00025", "0.0005", "0.001", "0.0025", "0.005",
                                      "0.01",   "0.025",   "0.05",   "0.1",   "0.25",   "0.5",
@@ -149,21 +149,21 @@ static int metrics_latency(tgt_server_t *sv, tgt_buf_t *b)
             cum += it.count;
             more = hist_iter_next(&it);
         }
-        rc |= tgt_buf_printf(b, "squall_target_request_seconds_bucket{le=\"%s\"} %lld\n", le[i],
+        rc |= srv_buf_printf(b, "squall_target_request_seconds_bucket{le=\"%s\"} %lld\n", le[i],
                              (long long)cum);
     }
     long long n = (long long)hist_count(h);
-    rc |= tgt_buf_printf(b, "squall_target_request_seconds_bucket{le=\"+Inf\"} %lld\n", n);
-    rc |= tgt_buf_printf(b, "squall_target_request_seconds_sum %.17g\n", sv->latency_sum_s);
-    rc |= tgt_buf_printf(b, "squall_target_request_seconds_count %lld\n", n);
+    rc |= srv_buf_printf(b, "squall_target_request_seconds_bucket{le=\"+Inf\"} %lld\n", n);
+    rc |= srv_buf_printf(b, "squall_target_request_seconds_sum %.17g\n", sv->latency_sum_s);
+    rc |= srv_buf_printf(b, "squall_target_request_seconds_count %lld\n", n);
     return rc;
 }
 
-int tgt_report_metrics(tgt_server_t *sv, tgt_buf_t *b)
+int srv_report_metrics(srv_server_t *sv, srv_buf_t *b)
 {
     int rc = metrics_store(sv, b);
     rc |= metrics_requests(sv, b);
     rc |= metrics_latency(sv, b);
-    rc |= tgt_buf_str(b, "# EOF\n");
+    rc |= srv_buf_str(b, "# EOF\n");
     return rc < 0 ? SQ_ENOMEM : 0;
 }

@@ -4,7 +4,7 @@
 #include <string.h>
 
 #include "squall/err.h"
-#include "target_int.h"
+#include "server_int.h"
 
 /* ---- A string-keyed hash map: open addressing, linear probing, backward-shift deletion.
  * Keys are owned by the values (an object's or a collection's path). */
@@ -14,7 +14,7 @@ typedef struct {
     void *val;
 } slot_t;
 
-struct tgt_map {
+struct srv_map {
     slot_t *slots;
     size_t mask, n;
 };
@@ -27,9 +27,9 @@ static uint64_t hash_str(const char *s)
     return h ? h : 1;
 }
 
-static tgt_map_t *map_new(void)
+static srv_map_t *map_new(void)
 {
-    tgt_map_t *m = calloc(1, sizeof(*m));
+    srv_map_t *m = calloc(1, sizeof(*m));
     if (!m)
         return NULL;
     m->slots = calloc(1024, sizeof(slot_t));
@@ -41,7 +41,7 @@ static tgt_map_t *map_new(void)
     return m;
 }
 
-static size_t map_find(const tgt_map_t *m, const char *key, uint64_t h)
+static size_t map_find(const srv_map_t *m, const char *key, uint64_t h)
 {
     size_t i = h & m->mask;
     while (m->slots[i].h && (m->slots[i].h != h || strcmp(m->slots[i].key, key) != 0))
@@ -49,12 +49,12 @@ static size_t map_find(const tgt_map_t *m, const char *key, uint64_t h)
     return i;
 }
 
-static void *map_get(const tgt_map_t *m, const char *key)
+static void *map_get(const srv_map_t *m, const char *key)
 {
     return m->slots[map_find(m, key, hash_str(key))].val;
 }
 
-static int map_grow(tgt_map_t *m)
+static int map_grow(srv_map_t *m)
 {
     size_t cap = (m->mask + 1) * 2;
     slot_t *old = m->slots, *ns = calloc(cap, sizeof(slot_t));
@@ -71,7 +71,7 @@ static int map_grow(tgt_map_t *m)
 }
 
 /* Inserts a key that is not present. */
-static int map_put(tgt_map_t *m, const char *key, void *val)
+static int map_put(srv_map_t *m, const char *key, void *val)
 {
     if ((m->n + 1) * 4 > (m->mask + 1) * 3 && map_grow(m) < 0)
         return SQ_ENOMEM;
@@ -81,7 +81,7 @@ static int map_put(tgt_map_t *m, const char *key, void *val)
     return 0;
 }
 
-static void map_del(tgt_map_t *m, const char *key)
+static void map_del(srv_map_t *m, const char *key)
 {
     size_t i = map_find(m, key, hash_str(key)), j = i;
     if (!m->slots[i].h)
@@ -103,7 +103,7 @@ static void map_del(tgt_map_t *m, const char *key)
 
 /* ---- Objects and collections */
 
-bool tgt_path_valid(const char *path)
+bool srv_path_valid(const char *path)
 {
     size_t len = strlen(path);
     if (len > 512 || strncmp(path, "/v1/", 4) != 0)
@@ -130,22 +130,22 @@ bool tgt_path_valid(const char *path)
     return *p == '\0';
 }
 
-tgt_obj_t *tgt_store_get(tgt_store_t *s, const char *path)
+srv_obj_t *srv_store_get(srv_store_t *s, const char *path)
 {
     return map_get(s->objs, path);
 }
 
-tgt_coll_t *tgt_store_coll(tgt_store_t *s, const char *path)
+srv_coll_t *srv_store_coll(srv_store_t *s, const char *path)
 {
     return map_get(s->colls, path);
 }
 
-tgt_coll_t *tgt_store_coll_add(tgt_store_t *s, const char *path, size_t len)
+srv_coll_t *srv_store_coll_add(srv_store_t *s, const char *path, size_t len)
 {
     char key[520];
     memcpy(key, path, len);
     key[len] = '\0';
-    tgt_coll_t *c = map_get(s->colls, key);
+    srv_coll_t *c = map_get(s->colls, key);
     if (c)
         return c;
     c = calloc(1, sizeof(*c));
@@ -159,7 +159,7 @@ tgt_coll_t *tgt_store_coll_add(tgt_store_t *s, const char *path, size_t len)
 }
 
 /* Position of `name` in c->items, or where it would be inserted. */
-static size_t coll_lower_bound(const tgt_coll_t *c, const char *name)
+static size_t coll_lower_bound(const srv_coll_t *c, const char *name)
 {
     size_t lo = 0, hi = c->n;
     while (lo < hi) {
@@ -172,17 +172,17 @@ static size_t coll_lower_bound(const tgt_coll_t *c, const char *name)
     return lo;
 }
 
-size_t tgt_coll_after(const tgt_coll_t *c, const char *name)
+size_t srv_coll_after(const srv_coll_t *c, const char *name)
 {
     size_t i = coll_lower_bound(c, name);
     return (i < c->n && strcmp(c->items[i]->name, name) == 0) ? i + 1 : i;
 }
 
-static int coll_insert(tgt_coll_t *c, tgt_obj_t *o)
+static int coll_insert(srv_coll_t *c, srv_obj_t *o)
 {
     if (c->n == c->cap) {
         size_t cap = c->cap ? c->cap * 2 : 16;
-        tgt_obj_t **p = realloc(c->items, cap * sizeof(*p));
+        srv_obj_t **p = realloc(c->items, cap * sizeof(*p));
         if (!p)
             return SQ_ENOMEM;
         c->items = p;
@@ -195,7 +195,7 @@ static int coll_insert(tgt_coll_t *c, tgt_obj_t *o)
     return 0;
 }
 
-static void coll_remove(tgt_coll_t *c, const tgt_obj_t *o)
+static void coll_remove(srv_coll_t *c, const srv_obj_t *o)
 {
     size_t i = coll_lower_bound(c, o->name);
     if (i < c->n && c->items[i] == o) {
@@ -205,19 +205,19 @@ static void coll_remove(tgt_coll_t *c, const tgt_obj_t *o)
 }
 
 /* Rebuilds the cached item text {"path":..,"version":..,"object":..}. */
-static int obj_render(tgt_obj_t *o)
+static int obj_render(srv_obj_t *o)
 {
     char *doc = json_dumps(o->doc, JSON_ENCODE_ANY | JSON_COMPACT);
     if (!doc)
         return SQ_ENOMEM;
-    tgt_buf_t b = {0};
-    int rc = tgt_buf_str(&b, "{\"path\":");
-    rc |= tgt_buf_json_str(&b, o->path);
+    srv_buf_t b = {0};
+    int rc = srv_buf_str(&b, "{\"path\":");
+    rc |= srv_buf_json_str(&b, o->path);
     rc |=
-        tgt_buf_printf(&b, ",\"version\":%llu,\"object\":%s}", (unsigned long long)o->version, doc);
+        srv_buf_printf(&b, ",\"version\":%llu,\"object\":%s}", (unsigned long long)o->version, doc);
     free(doc);
     if (rc < 0) {
-        tgt_buf_free(&b);
+        srv_buf_free(&b);
         return SQ_ENOMEM;
     }
     free(o->item);
@@ -226,7 +226,7 @@ static int obj_render(tgt_obj_t *o)
     return 0;
 }
 
-static void obj_free(tgt_obj_t *o)
+static void obj_free(srv_obj_t *o)
 {
     json_decref(o->doc);
     free(o->item);
@@ -234,11 +234,11 @@ static void obj_free(tgt_obj_t *o)
     free(o);
 }
 
-static tgt_obj_t *obj_new(tgt_store_t *s, const char *path)
+static srv_obj_t *obj_new(srv_store_t *s, const char *path)
 {
     const char *slash = strrchr(path, '/');
-    tgt_coll_t *c = tgt_store_coll_add(s, path, (size_t)(slash - path));
-    tgt_obj_t *o = c ? calloc(1, sizeof(*o)) : NULL;
+    srv_coll_t *c = srv_store_coll_add(s, path, (size_t)(slash - path));
+    srv_obj_t *o = c ? calloc(1, sizeof(*o)) : NULL;
     if (!o || !(o->path = strdup(path)))
         goto fail;
     o->name = o->path + (slash - path) + 1;
@@ -259,38 +259,38 @@ fail:
 
 /* ---- History */
 
-static void history_push(tgt_store_t *s, const char *type, const tgt_obj_t *o)
+static void history_push(srv_store_t *s, const char *type, const srv_obj_t *o)
 {
-    tgt_buf_t b = {0};
-    if (tgt_buf_printf(&b, "{\"type\":\"%s\",%s\n", type, o->item + 1) < 0)
+    srv_buf_t b = {0};
+    if (srv_buf_printf(&b, "{\"type\":\"%s\",%s\n", type, o->item + 1) < 0)
         return; /* Out of memory: watchers miss the event; the version still advanced. */
     if (s->ring_len == s->ring_cap) {
-        tgt_event_t *old = &s->ring[s->ring_head];
+        srv_event_t *old = &s->ring[s->ring_head];
         s->evicted_upto = old->version;
         free(old->line);
         s->ring_head = (s->ring_head + 1) % s->ring_cap;
         s->ring_len--;
     }
-    tgt_event_t *ev = &s->ring[(s->ring_head + s->ring_len) % s->ring_cap];
-    *ev = (tgt_event_t){o->version, o->coll, b.p, b.len};
+    srv_event_t *ev = &s->ring[(s->ring_head + s->ring_len) % s->ring_cap];
+    *ev = (srv_event_t){o->version, o->coll, b.p, b.len};
     s->ring_len++;
     if (s->on_event)
         s->on_event(s->on_event_arg, ev);
 }
 
-const tgt_event_t *tgt_store_history_at(const tgt_store_t *s, int i)
+const srv_event_t *srv_store_history_at(const srv_store_t *s, int i)
 {
     return &s->ring[(s->ring_head + i) % s->ring_cap];
 }
 
-int tgt_store_history_after(const tgt_store_t *s, uint64_t since)
+int srv_store_history_after(const srv_store_t *s, uint64_t since)
 {
     if (since < s->evicted_upto)
         return -1;
     int lo = 0, hi = s->ring_len;
     while (lo < hi) {
         int mid = lo + (hi - lo) / 2;
-        if (tgt_store_history_at(s, mid)->version <= since)
+        if (srv_store_history_at(s, mid)->version <= since)
             lo = mid + 1;
         else
             hi = mid;
@@ -300,7 +300,7 @@ int tgt_store_history_after(const tgt_store_t *s, uint64_t since)
 
 /* ---- Writes */
 
-json_t *tgt_merge_patch(const json_t *target, const json_t *patch)
+json_t *srv_merge_patch(const json_t *target, const json_t *patch)
 {
     /* RFC 7386 section 2, the MergePatch pseudo-code, returning a fresh value. */
     if (!json_is_object(patch))
@@ -316,7 +316,7 @@ json_t *tgt_merge_patch(const json_t *target, const json_t *patch)
             json_object_del(out, k);
             continue;
         }
-        json_t *m = tgt_merge_patch(json_object_get(out, k), v);
+        json_t *m = srv_merge_patch(json_object_get(out, k), v);
         if (!m || json_object_set_new(out, k, m) < 0) {
             json_decref(out);
             return NULL;
@@ -325,7 +325,7 @@ json_t *tgt_merge_patch(const json_t *target, const json_t *patch)
     return out;
 }
 
-static int do_delete(tgt_store_t *s, tgt_obj_t *o)
+static int do_delete(srv_store_t *s, srv_obj_t *o)
 {
     o->version = ++s->version;
     if (obj_render(o) == 0)
@@ -338,20 +338,20 @@ static int do_delete(tgt_store_t *s, tgt_obj_t *o)
     return 204;
 }
 
-int tgt_store_write(tgt_store_t *s, enum tgt_op op, const char *path, json_t *body, int64_t expect,
-                    tgt_obj_t **obj)
+int srv_store_write(srv_store_t *s, enum srv_op op, const char *path, json_t *body, int64_t expect,
+                    srv_obj_t **obj)
 {
-    tgt_obj_t *o = tgt_store_get(s, path);
+    srv_obj_t *o = srv_store_get(s, path);
     *obj = NULL;
     if (expect >= 0 && (o ? (int64_t)o->version : 0) != expect) {
         s->conflicts++;
         return 409;
     }
-    if (!o && op != TGT_OP_PUT)
+    if (!o && op != SRV_OP_PUT)
         return 404;
-    if (op == TGT_OP_DELETE)
+    if (op == SRV_OP_DELETE)
         return do_delete(s, o);
-    json_t *doc = op == TGT_OP_PATCH ? tgt_merge_patch(o->doc, body) : json_incref(body);
+    json_t *doc = op == SRV_OP_PATCH ? srv_merge_patch(o->doc, body) : json_incref(body);
     if (!doc)
         return 500;
     bool created = !o;
@@ -378,13 +378,13 @@ int tgt_store_write(tgt_store_t *s, enum tgt_op op, const char *path, json_t *bo
     json_decref(old);
     s->version++;
     s->n_objects += created;
-    *(created ? &s->creates : op == TGT_OP_PATCH ? &s->patches : &s->replaces) += 1;
+    *(created ? &s->creates : op == SRV_OP_PATCH ? &s->patches : &s->replaces) += 1;
     history_push(s, created ? "create" : "update", o);
     *obj = o;
     return created ? 201 : 200;
 }
 
-int tgt_store_init(tgt_store_t *s, int history)
+int srv_store_init(srv_store_t *s, int history)
 {
     memset(s, 0, sizeof(*s));
     s->ring_cap = history > 0 ? history : 1;
@@ -392,13 +392,13 @@ int tgt_store_init(tgt_store_t *s, int history)
     s->objs = map_new();
     s->colls = map_new();
     if (!s->ring || !s->objs || !s->colls) {
-        tgt_store_close(s);
+        srv_store_close(s);
         return SQ_ENOMEM;
     }
     return 0;
 }
 
-static void map_free(tgt_map_t *m, void (*free_val)(void *))
+static void map_free(srv_map_t *m, void (*free_val)(void *))
 {
     if (!m)
         return;
@@ -416,13 +416,13 @@ static void obj_free_v(void *v)
 
 static void coll_free_v(void *v)
 {
-    tgt_coll_t *c = v;
+    srv_coll_t *c = v;
     free(c->items);
     free(c->path);
     free(c);
 }
 
-void tgt_store_close(tgt_store_t *s)
+void srv_store_close(srv_store_t *s)
 {
     map_free(s->objs, obj_free_v);
     map_free(s->colls, coll_free_v);

@@ -1,10 +1,12 @@
-/* The plan's value syntax: durations, rates, percentages and numbers, parsed strictly.
- * Durations are computed in exact integer nanoseconds so `1.1s` is 1100000000, not a float. */
-#include "squall/plan.h"
+/* The value syntax shared by plans, options and the embedded server: durations, rates,
+ * percentages and numbers, parsed strictly. Durations are computed in exact integer nanoseconds
+ * so `1.1s` is 1100000000, not a float. */
+#include "squall/value.h"
 
 #include <ctype.h>
 #include <errno.h>
 #include <math.h>
+#include <stdbool.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -86,7 +88,7 @@ static int scale_part(uint64_t whole, uint64_t frac, int digits, int64_t unit, i
     return 0;
 }
 
-int plan_parse_duration(const char *s, int64_t *ns)
+int value_parse_duration(const char *s, int64_t *ns)
 {
     if (!s || !*s)
         return SQ_EPARSE;
@@ -136,7 +138,7 @@ static int read_number(const char *s, const char **end, double *v)
     return 0;
 }
 
-int plan_parse_number(const char *s, double min, double max, double *v)
+int value_parse_number(const char *s, double min, double max, double *v)
 {
     if (!s)
         return SQ_EPARSE;
@@ -155,7 +157,7 @@ int plan_parse_number(const char *s, double min, double max, double *v)
     return 0;
 }
 
-int plan_parse_rate(const char *s, double *per_s)
+int value_parse_rate(const char *s, double *per_s)
 {
     if (!s)
         return SQ_EPARSE;
@@ -180,13 +182,13 @@ int plan_parse_rate(const char *s, double *per_s)
     else
         return SQ_EPARSE;
     d /= div;
-    if (d > PLAN_RATE_MAX)
+    if (d > VALUE_RATE_MAX)
         return SQ_ERANGE;
     *per_s = d;
     return 0;
 }
 
-int plan_parse_percent(const char *s, double *fraction)
+int value_parse_percent(const char *s, double *fraction)
 {
     if (!s)
         return SQ_EPARSE;
@@ -205,7 +207,7 @@ int plan_parse_percent(const char *s, double *fraction)
     return 0;
 }
 
-int plan_parse_int(const char *s, int64_t min, int64_t max, int64_t *v)
+int value_parse_int(const char *s, int64_t min, int64_t max, int64_t *v)
 {
     if (!s)
         return SQ_EPARSE;

@@ -1,4 +1,4 @@
-/* Unit tests of the embedded target (squall serve), driven over real HTTP with libcurl against a
+/* Unit tests of the embedded server (squall serve), driven over real HTTP with libcurl against a
  * server started in-process on its own thread and libuv loop. */
 #include <arpa/inet.h>
 #include <netinet/in.h>
@@ -18,56 +18,57 @@
 #include <curl/curl.h>
 #include <jansson.h>
 
-#include "squall/target.h"
+#include "squall/err.h"
+#include "squall/server.h"
 
 /* ---- The server on a thread */
 typedef struct {
-    target_opts_t opts;
+    server_opts_t opts;
     pthread_t thread;
     uv_loop_t loop;
     uv_async_t stop;
-    target_t *t;
+    server_t *sv;
     atomic_int port; /* 0 until listening, -1 on failure */
     int loop_close_rc;
     out_t *out;
-} server_t;
+} fixture_t;
 
 static void on_stop(uv_async_t *a)
 {
-    server_t *s = a->data;
-    target_stop(s->t, NULL, NULL);
+    fixture_t *s = a->data;
+    server_stop(s->sv, NULL, NULL);
     uv_close((uv_handle_t *)a, NULL);
 }
 
-static void *server_main(void *arg)
+static void *fixture_thread(void *arg)
 {
-    server_t *s = arg;
+    fixture_t *s = arg;
     uv_loop_init(&s->loop);
     uv_async_init(&s->loop, &s->stop, on_stop);
     s->stop.data = s;
-    if (target_start(&s->loop, &s->opts, s->out, &s->t) < 0) {
+    if (server_start(&s->loop, &s->opts, s->out, &s->sv) < 0) {
         uv_close((uv_handle_t *)&s->stop, NULL);
         uv_run(&s->loop, UV_RUN_DEFAULT);
         atomic_store(&s->port, -1);
         return NULL;
     }
-    atomic_store(&s->port, target_port(s->t));
+    atomic_store(&s->port, server_port(s->sv));
     uv_run(&s->loop, UV_RUN_DEFAULT);
     s->loop_close_rc = uv_loop_close(&s->loop);
     return NULL;
 }
 
-static void server_start(server_t *s)
+static void fixture_start(fixture_t *s)
 {
     s->out = out_new_capture();
     atomic_store(&s->port, 0);
-    assert_int_equal(pthread_create(&s->thread, NULL, server_main, s), 0);
+    assert_int_equal(pthread_create(&s->thread, NULL, fixture_thread, s), 0);
     for (int i = 0; i < 5000 && atomic_load(&s->port) == 0; i++)
         usleep(1000);
     assert_true(atomic_load(&s->port) > 0);
 }
 
-static void server_stop(server_t *s)
+static void fixture_stop(fixture_t *s)
 {
     uv_async_send(&s->stop);
     pthread_join(s->thread, NULL);
@@ -76,9 +77,9 @@ static void server_stop(server_t *s)
     out_free(s->out);
 }
 
-static void opts_default(target_opts_t *o)
+static void opts_default(server_opts_t *o)
 {
-    target_opts_init(o);
+    server_opts_init(o);
     o->port = 0;
 }
 
@@ -169,9 +170,9 @@ static json_int_t jint(const json_t *j, const char *k)
 static void test_crud(void **state)
 {
     (void)state;
-    server_t s = {0};
+    fixture_t s = {0};
     opts_default(&s.opts);
-    server_start(&s);
+    fixture_start(&s);
     int p = atomic_load(&s.port);
     CURL *c = curl_easy_init();
     const char *gw = "/v1/sites/north/gateways/gw-1";
@@ -223,7 +224,7 @@ static void test_crud(void **state)
     assert_int_equal(jint(json_object_get(j, "latency"), "count"), 13);
     json_decref(j);
     curl_easy_cleanup(c);
-    server_stop(&s);
+    fixture_stop(&s);
 }
 
 /* ---- JSON merge patch: every example of RFC 7386, Appendix A, in the RFC's order. */
@@ -247,9 +248,9 @@ static void test_merge_patch_rfc7386(void **state)
         {"[1,2]", "{\"a\":\"b\",\"c\":null}", "{\"a\":\"b\"}"},
         {"{}", "{\"a\":{\"bb\":{\"ccc\":null}}}", "{\"a\":{\"bb\":{}}}"},
     };
-    server_t s = {0};
+    fixture_t s = {0};
     opts_default(&s.opts);
-    server_start(&s);
+    fixture_start(&s);
     int p = atomic_load(&s.port);
     CURL *c = curl_easy_init();
     for (size_t i = 0; i < sizeof(ex) / sizeof(ex[0]); i++) {
@@ -265,7 +266,7 @@ static void test_merge_patch_rfc7386(void **state)
         json_decref(want);
     }
     curl_easy_cleanup(c);
-    server_stop(&s);
+    fixture_stop(&s);
 }
 
 /* ---- Bad input gets the right 4xx and the server keeps serving (RFC 9110: 400 §15.5.1, 405
@@ -273,10 +274,10 @@ static void test_merge_patch_rfc7386(void **state)
 static void test_bad_input(void **state)
 {
     (void)state;
-    server_t s = {0};
+    fixture_t s = {0};
     opts_default(&s.opts);
     s.opts.body_limit = 1024;
-    server_start(&s);
+    fixture_start(&s);
     int p = atomic_load(&s.port);
     CURL *c = curl_easy_init();
     assert_int_equal(http(c, p, "PUT", "/v1/a/b", "{\"x\":", NULL), 400);
@@ -307,7 +308,7 @@ static void test_bad_input(void **state)
     assert_int_equal(jint(r, "bad_method"), 1);
     json_decref(j);
     curl_easy_cleanup(c);
-    server_stop(&s);
+    fixture_stop(&s);
 }
 
 /* ---- Pagination under concurrent writes: objects that exist throughout appear exactly once. */
@@ -344,9 +345,9 @@ static void *writer_main(void *arg)
 static void test_pagination_concurrent(void **state)
 {
     (void)state;
-    server_t s = {0};
+    fixture_t s = {0};
     opts_default(&s.opts);
-    server_start(&s);
+    fixture_start(&s);
     int p = atomic_load(&s.port);
     CURL *c = curl_easy_init();
     char path[160];
@@ -394,7 +395,7 @@ static void test_pagination_concurrent(void **state)
     /* The check means something only if writes really happened during the lists. */
     assert_true(w.ops > 20);
     curl_easy_cleanup(c);
-    server_stop(&s);
+    fixture_stop(&s);
 }
 
 /* ---- Watches: resumption from a version delivers every later event once, in order; a version
@@ -411,10 +412,10 @@ static int count_lines(const char *s)
 static void test_watch_resume_and_expiry(void **state)
 {
     (void)state;
-    server_t s = {0};
+    fixture_t s = {0};
     opts_default(&s.opts);
     s.opts.history = 64;
-    server_start(&s);
+    fixture_start(&s);
     int p = atomic_load(&s.port);
     CURL *c = curl_easy_init();
     char path[160];
@@ -472,7 +473,7 @@ static void test_watch_resume_and_expiry(void **state)
     assert_int_equal(jint(json_object_get(j, "store"), "expired"), 2);
     json_decref(j);
     curl_easy_cleanup(c);
-    server_stop(&s);
+    fixture_stop(&s);
 }
 
 /* ---- OpenMetrics 1.0 text (OpenMetrics specification 1.0, "Histogram" and "Overall
@@ -481,9 +482,9 @@ static void test_watch_resume_and_expiry(void **state)
 static void test_metrics_wellformed(void **state)
 {
     (void)state;
-    server_t s = {0};
+    fixture_t s = {0};
     opts_default(&s.opts);
-    server_start(&s);
+    fixture_start(&s);
     int p = atomic_load(&s.port);
     CURL *c = curl_easy_init();
     for (int i = 0; i < 25; i++)
@@ -515,7 +516,7 @@ static void test_metrics_wellformed(void **state)
     assert_int_equal(count, 25);
     free(m);
     curl_easy_cleanup(c);
-    server_stop(&s);
+    fixture_stop(&s);
 }
 
 /* ---- A slow watcher: a client that does not read is bounded by the per-stream buffer, then
@@ -523,10 +524,10 @@ static void test_metrics_wellformed(void **state)
 static void test_slow_watcher_bounded(void **state)
 {
     (void)state;
-    server_t s = {0};
+    fixture_t s = {0};
     opts_default(&s.opts);
     s.opts.stream_buffer = 8192;
-    server_start(&s);
+    fixture_start(&s);
     int p = atomic_load(&s.port);
     CURL *c = curl_easy_init();
     int fd = socket(AF_INET, SOCK_STREAM, 0);
@@ -575,13 +576,50 @@ static void test_slow_watcher_bounded(void **state)
     free(all);
     assert_int_equal(http(c, p, "GET", "/v1/slow/items/one", NULL, NULL), 200);
     curl_easy_cleanup(c);
-    server_stop(&s);
+    fixture_stop(&s);
+}
+
+/* Fault times are read with the plan's duration syntax (units by the SI and its accepted minute
+ * and hour: BIPM SI Brochure, 9th ed., Tables 7 and 8), also inside delay specs; a spec that is
+ * refused leaves the faults as they were. */
+static void test_delay_spec(void **state)
+{
+    (void)state;
+    server_faults_t f;
+    server_faults_init(&f);
+    assert_int_equal(server_delay_parse(&f, "uniform:10ms..1m30s"), 0);
+    assert_int_equal(f.delay_kind, SERVER_DELAY_UNIFORM);
+    assert_true(f.delay_a_ns == 10000000 && f.delay_b_ns == INT64_C(90000000000));
+    assert_int_equal(server_delay_parse(&f, "exp:2m15s"), 0); /* 135 s */
+    assert_true(f.delay_kind == SERVER_DELAY_EXP && f.delay_a_ns == INT64_C(135000000000));
+    assert_int_equal(server_delay_parse(&f, "fixed:1.5s"), 0);
+    assert_true(f.delay_kind == SERVER_DELAY_FIXED && f.delay_a_ns == 1500000000);
+    static const char *const bad[] = {
+        "bogus",   "fixed:",      "fixed:2m15",   "fixed:1s..2s", "uniform:1s", "uniform:2s..1s",
+        "exp:-1s", "fixed:1001h", "uniform:..1s", "Fixed:1s",     "fixed: 1s",  "none:1s"};
+    for (size_t i = 0; i < sizeof bad / sizeof bad[0]; i++) {
+        if (server_delay_parse(&f, bad[i]) != SQ_EPARSE)
+            fail_msg("delay '%s' accepted", bad[i]);
+        assert_true(f.delay_kind == SERVER_DELAY_FIXED && f.delay_a_ns == 1500000000);
+    }
+    assert_int_equal(server_delay_parse(&f, "none"), 0);
+    assert_int_equal(f.delay_kind, SERVER_DELAY_NONE);
+    int64_t ns = 7;
+    assert_int_equal(server_duration_parse("1h30m", &ns), 0);
+    assert_true(ns == INT64_C(5400000000000)); /* 3600 + 1800 s */
+    assert_int_equal(server_duration_parse("1000h", &ns), 0);
+    assert_true(ns == SERVER_DURATION_MAX_NS);
+    assert_int_equal(server_duration_parse("1000h1ns", &ns), SQ_ERANGE);
+    assert_int_equal(server_duration_parse("-1s", &ns), SQ_ERANGE);
+    assert_int_equal(server_duration_parse("10", &ns), SQ_EPARSE);
+    assert_true(ns == SERVER_DURATION_MAX_NS);
 }
 
 int main(void)
 {
     curl_global_init(CURL_GLOBAL_DEFAULT);
     const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_delay_spec),
         cmocka_unit_test(test_crud),
         cmocka_unit_test(test_merge_patch_rfc7386),
         cmocka_unit_test(test_bad_input),

@@ -1,0 +1,18 @@
+/* Files written whole or not at all: results, reports and comparisons are replaced in one step,
+ * so a reader (or a crash) never finds half a file. */
+#ifndef SQUALL_FILE_H
+#define SQUALL_FILE_H
+
+#include <stdio.h>
+
+#include "squall/out.h"
+
+/* Writes `path` through a temporary file in the same directory (PATH.tmp-XXXXXX): fill(f, ctx)
+ * writes the contents and returns 0 or a negative code (squall/err.h); then the file is flushed,
+ * synced to disk (fsync), closed, given mode 0644 and renamed over `path`. POSIX rename()
+ * replaces the name in one step, so readers see the old file or the whole new one. On any failure
+ * the temporary file is removed, `path` is left as it was, one line naming the file and the
+ * reason goes to `o` ("cannot write PATH: REASON"), and SQ_EIO is returned. */
+int file_write_atomic(const char *path, int (*fill)(FILE *f, void *ctx), void *ctx, out_t *o);
+
+#endif

@@ -1,0 +1,33 @@
+/* The value syntax every part of squall reads: durations, rates, percentages and plain numbers,
+ * parsed strictly (no spaces, no signs on what cannot be negative, no hex, no inf or nan).
+ *
+ * Plans, command-line options and the embedded server's faults all read values through these
+ * functions, so `2m15s` means the same everywhere. Each returns 0 and sets its output, or a
+ * negative code (squall/err.h) and leaves the output alone: SQ_EPARSE when the text is
+ * malformed, SQ_ERANGE when it is well formed but out of range. The *_EXPECTS texts describe
+ * the syntax for error messages ("expected " VALUE_DURATION_EXPECTS). */
+#ifndef SQUALL_VALUE_H
+#define SQUALL_VALUE_H
+
+#include <stdint.h>
+
+/* Durations: one or more <number><unit> parts (`250ms`, `1.5s`, `1m30s`), units ns, us (or µs),
+ * ms, s, m, h; a bare `0` is zero. Exact in integer nanoseconds. Returns 0, SQ_EPARSE when
+ * malformed, SQ_ERANGE when negative, finer than 1 ns or beyond INT64_MAX ns. */
+int value_parse_duration(const char *s, int64_t *ns);
+/* Rates: <number>/<unit>, unit s, m (or min) or h: `500/s`, `30/m`, `2/h`; a bare `0` is zero.
+ * Returns requests per second; SQ_EPARSE when malformed, SQ_ERANGE above VALUE_RATE_MAX. */
+int value_parse_rate(const char *s, double *per_s);
+/* Percentages: <number>%, 0% to 100%: `5%` -> 0.05. SQ_EPARSE / SQ_ERANGE as above. */
+int value_parse_percent(const char *s, double *fraction);
+/* Plain decimal integers (no sign unless negative, no spaces), within [min, max]. */
+int value_parse_int(const char *s, int64_t min, int64_t max, int64_t *v);
+/* Plain decimal numbers (`1`, `0.25`, `1e3`), finite, within [min, max]. */
+int value_parse_number(const char *s, double min, double max, double *v);
+
+#define VALUE_RATE_MAX         1e9
+#define VALUE_DURATION_EXPECTS "a duration like 250ms, 1.5s, 5m or 1h"
+#define VALUE_RATE_EXPECTS     "a rate like 500/s, 30/m or 2/h"
+#define VALUE_PERCENT_EXPECTS  "a percentage like 5% or 0.1%"
+
+#endif
