@@ -87,8 +87,6 @@ static int sections(run_t *r)
     return rc ? rc : e;
 }
 
-void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j);
-
 bool run_finish(run_t *r, bool *objectives_failed)
 {
     results_set_duration(r->res, r->end_ns - r->start_ns);

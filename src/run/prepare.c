@@ -93,8 +93,6 @@ static int validate_sources(run_t *r)
     return bad ? SQ_EINVAL : 0;
 }
 
-static void brake(void *user, const char *why);
-
 int run_prepare(run_t *r)
 {
     const plan_t *p = r->plan;
@@ -115,7 +113,7 @@ int run_prepare(run_t *r)
                     .o = r->o,
                     .quiet = r->opts->quiet,
                     .no_brakes = r->opts->no_brakes,
-                    .brake = brake,
+                    .brake = r->on_brake,
                     .user = r};
     if (rc == 0)
         rc = obs_new(&oc, &r->obs);
@@ -126,13 +124,6 @@ int run_prepare(run_t *r)
     if (rc == 0)
         rc = validate_sources(r);
     return rc;
-}
-
-/* A brake fired (from the observers, once a second). */
-static void brake(void *user, const char *why)
-{
-    run_t *r = user;
-    run_stop(r, RUN_END_BRAKE, "%s", why);
 }
 
 void run_close(run_t *r)

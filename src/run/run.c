@@ -428,9 +428,15 @@ static int open_results(run_t *r)
     return rc;
 }
 
+/* A brake fired (from the observers, once a second). */
+static void on_brake(void *user, const char *why)
+{
+    run_stop(user, RUN_END_BRAKE, "%s", why);
+}
+
 int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o, run_result_t *result)
 {
-    run_t r = {.plan = plan, .opts = opts, .o = o};
+    run_t r = {.plan = plan, .opts = opts, .o = o, .on_brake = on_brake};
     memset(result, 0, sizeof(*result));
     int rc = run_prepare(&r);
     if (rc == 0)

@@ -7,6 +7,7 @@
 #include <uv.h>
 
 #include "squall/engine.h"
+#include "squall/judge.h"
 #include "squall/observe.h"
 #include "squall/results.h"
 #include "squall/run.h"
@@ -41,6 +42,7 @@ typedef struct run {
     uint64_t seed;
     char dir[4096];
 
+    void (*on_brake)(void *run, const char *why); /* set before run_prepare; NULL to check */
     src_target_t target;
     obs_t *obs;
     src_issuer_t *issuer;
@@ -77,5 +79,8 @@ src_ctx_t run_src_ctx(const run_t *r, size_t phase);
 
 /* finish.c: after the loop ended. Returns the result's write_failed. */
 bool run_finish(run_t *r, bool *objectives_failed);
+
+/* summary.c: the table printed at the end of a run (ph: each plan phase as it ran). */
+void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j);
 
 #endif

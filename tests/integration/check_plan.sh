@@ -106,6 +106,37 @@ out=$("$SQUALL" check "$SRCDIR/scenarios/demo.yaml" --set target.url=http://192.
 grep -q '^caution: 192.0.2.10 is not loopback' <<<"$out" || fail "no caution for 192.0.2.10"
 echo "ok: a target that is not loopback gets a caution line"
 
+# check runs the very validation run runs before it sends (run_check): a plan check accepts
+# is one run accepts, and what run refuses check refuses, with the same lines. Each plan below
+# points at the discard port of loopback and is refused before anything could be sent.
+refused() { # NAME YAML EXPECTED-TEXT
+    printf '%s\n' "$2" >"$work/$1.yaml"
+    "$SQUALL" check "$work/$1.yaml" >/dev/null 2>"$work/$1.check"; local c=$?
+    "$SQUALL" run "$work/$1.yaml" -o "$work/$1.out" -q >/dev/null 2>"$work/$1.run"; local r=$?
+    [ $c -eq 2 ] || fail "$1: check exits $c, expected 2: $(cat "$work/$1.check")"
+    [ $r -eq 2 ] || fail "$1: run exits $r, expected 2: $(cat "$work/$1.run")"
+    grep -q "$3" "$work/$1.check" || fail "$1: check does not say '$3': $(cat "$work/$1.check")"
+    diff -u "$work/$1.check" "$work/$1.run" >/dev/null ||
+        fail "$1: check and run say different things: $(diff "$work/$1.check" "$work/$1.run")"
+    [ -e "$work/$1.out" ] && fail "$1: run made its results directory for a plan it refuses"
+    echo "ok: $1: check and run both refuse it (exit 2) with the same line"
+}
+base='target: {url: "http://127.0.0.1:9"}
+requests:'
+refused undefined-var "$base
+  read: {kind: get, path: \"/v1/gateways/{{nope}}\"}
+phases:
+  - {name: p, rate: 1/s, duration: 1s, mix: {read: 1}}" "template: unknown"
+refused missing-log "$base
+  read: {kind: get, path: /v1/gateways}
+phases:
+  - {name: yesterday, replay: {log: no-such-access.log}}" "phase 'yesterday' uses replay"
+refused token-unset "target: {url: \"http://127.0.0.1:9\", token: {env: SQUALL_TEST_NO_SUCH_TOKEN}}
+requests:
+  read: {kind: get, path: /v1/gateways}
+phases:
+  - {name: p, rate: 1/s, duration: 1s, mix: {read: 1}}" "SQUALL_TEST_NO_SUCH_TOKEN is not set"
+
 "$SQUALL" check >/dev/null 2>&1; rc=$?
 [ $rc -eq 2 ] || fail "check without a plan: exit $rc, expected 2"
 echo "ok: check without a plan is a usage error (exit 2)"

@@ -118,4 +118,22 @@ PY
 TPID=$(sed -n 's/.*embedded target listens on .* (pid \([0-9]*\)).*/\1/p' "$T/out.stderr")
 expect "the demo named its target's pid ($TPID)" test -n "$TPID"
 expect "and stopped that target when it was done" bash -c "! kill -0 ${TPID:-0} 2>/dev/null"
+
+# demo takes run's options, as the README says: --set scales the plan (steady at 20/s is 200
+# requests in 10 s, Poisson: within 4 standard deviations, 200 +- 57) and --keep leaves the 150
+# registered gateways alive, listed by the journal for `squall cleanup`.
+timeout 120 "$SQUALL" demo -o "$T/kept" -q --set phases.steady.rate=20/s --keep \
+    >"$T/kept.stdout" 2>"$T/kept.stderr"
+RC=$?
+expect "demo --set --keep is accepted and the run exits 0 (got $RC: $(head -2 "$T/kept.stderr"))" \
+    test "$RC" = 0
+rcheck "--set phases.steady.rate=20/s: the steady phase started 200 +- 57 (a list counts once)" \
+    "143 <= sum(c['count'] for c in d['cells'] if c['phase'] == 'steady' and
+               c['class'] in ('read-gateway', 'renew', 'list-gateways/all-pages')) <= 257" \
+    "$T/kept"
+rcheck "--keep: the 150 gateways were kept, none deleted" \
+    "d['sections']['lifecycle']['teardown']['kept'] and
+     d['sections']['lifecycle']['teardown']['objects'] == 150" "$T/kept"
+ALIVE=$("$SQUALL" cleanup --dry-run "$T/kept" 2>/dev/null | grep -c '^/v1/gateways/')
+expect "the journal lists the 150 kept gateways for cleanup (lists $ALIVE)" test "$ALIVE" = 150
 exit $FAILED
