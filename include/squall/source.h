@@ -49,6 +49,10 @@ typedef struct {
 int src_target_init(src_target_t *t, const plan_t *plan, bool insecure, out_t *o);
 /* Wipes the token and frees what t owns. */
 void src_target_close(src_target_t *t);
+/* Headers of a plan (target.headers, a class's headers) as "Name: value" lines: *out holds
+ * *n_out of them (also on failure, for src_headers_free). SQ_ENOMEM. */
+int src_headers_new(const plan_kv_t *kv, size_t n, const char ***out, size_t *n_out);
+void src_headers_free(const char **h, size_t n);
 
 /* ---- a request a source wants sent ---------------------------------------------------------- */
 

@@ -27,8 +27,19 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#include "squall/plan.h"
 #include "squall/rng.h"
+
+/* The configuration the caller (the watches source) fills from its plan: the module knows no
+ * plan type, as sched does not. */
+enum watch_framing { WATCH_FRAME_NDJSON, WATCH_FRAME_SSE, WATCH_FRAME_RAW };
+enum watch_policy {
+    WATCH_POLICY_IMMEDIATE,
+    WATCH_POLICY_FIXED,
+    WATCH_POLICY_EXPONENTIAL,
+    WATCH_POLICY_FULL_JITTER,
+    WATCH_POLICY_EQUAL_JITTER,
+    WATCH_POLICY_DECORRELATED
+};
 
 /* ---- framing ----------------------------------------------------------------------------- */
 
@@ -56,7 +67,7 @@ typedef struct {
 } watch_framer_stats_t;
 
 typedef struct {
-    enum plan_framing framing;
+    enum watch_framing framing;
     watch_event_cb on_event;
     void *user;
     size_t max_event;
@@ -76,7 +87,7 @@ typedef struct {
 
 /* Sets up a framer (caller-owned memory). max_event bounds one event's bytes (0 = 1 MiB): a
  * longer line or SSE event is skipped and counted, so a hostile stream cannot grow memory. */
-void watch_framer_init(watch_framer_t *f, enum plan_framing framing, size_t max_event,
+void watch_framer_init(watch_framer_t *f, enum watch_framing framing, size_t max_event,
                        watch_event_cb on_event, void *user);
 /* Feeds a slice; calls on_event for every event completed by it, in order. Returns 0 or
  * SQ_ENOMEM (the framer is then reset to the start of the next line). */
@@ -121,13 +132,13 @@ int watch_event_fields(const char *data, size_t len, const char *version_key, co
  *   equal jitter  expo(n)/2 + U(0, expo(n)/2)
  *   decorrelated  sleep = min(cap, U(base, 3 * sleep)), sleep starting at base. */
 typedef struct {
-    enum plan_backoff policy;
+    enum watch_policy policy;
     int64_t base_ns, cap_ns;
     int attempt;      /* n */
     int64_t sleep_ns; /* decorrelated: the previous sleep */
 } watch_backoff_t;
 
-void watch_backoff_init(watch_backoff_t *b, enum plan_backoff policy, int64_t base_ns,
+void watch_backoff_init(watch_backoff_t *b, enum watch_policy policy, int64_t base_ns,
                         int64_t cap_ns);
 /* The next delay in ns (advancing n); random draws come from rng. */
 int64_t watch_backoff_next(watch_backoff_t *b, rng_t *rng);
@@ -177,8 +188,16 @@ typedef struct {
     void *user;
 } watch_stream_t;
 
-/* A stream in WATCH_IDLE with the class's reconnect policy and too-old handling. */
-void watch_stream_init(watch_stream_t *s, const plan_req_t *cls, bool can_relist);
+/* A stream's reconnect policy and too-old handling. */
+typedef struct {
+    enum watch_policy policy;
+    int64_t base_ns, cap_ns;
+    int too_old_status; /* the answer meaning "resume point too old", e.g. 410 */
+    bool can_relist;    /* a relist request exists to recover from it */
+} watch_stream_cfg_t;
+
+/* A stream in WATCH_IDLE with cfg's reconnect policy and too-old handling. */
+void watch_stream_init(watch_stream_t *s, const watch_stream_cfg_t *cfg);
 /* The one setter of s->state: every change goes through it (and on_state, when set). */
 void watch_stream_set(watch_stream_t *s, enum watch_state to);
 /* An event's fields arrived: records the version; returns true when the event is a duplicate

@@ -258,10 +258,12 @@ const cli_cmd_t cli_cmd_check = {
     .name = "check",
     .summary = "validate a plan and print what it would send, without sending anything",
     .usage = "PLAN.yaml [--set KEY=VALUE]...",
-    .description = "Reads the plan (and its includes), reports every problem as\n"
-                   "FILE:LINE:COL: error: ..., and exits 2 if there is any. Otherwise prints,\n"
-                   "per phase, the expected requests per class, peak rate, watches, agents and\n"
-                   "objects created and deleted, computed from the plan alone.",
+    .description = "Reads the plan (and its includes) and validates it exactly as `run` does\n"
+                   "before sending (templates, sources, token, open files), reports every\n"
+                   "problem as FILE:LINE:COL: error: ..., and exits 2 if there is any.\n"
+                   "Otherwise prints, per phase, the expected requests per class (the same model\n"
+                   "the run plans with), peak rate, watches, agents and objects created and\n"
+                   "deleted.",
     .opts = check_opts,
     .main = check_main,
 };

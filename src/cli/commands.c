@@ -12,14 +12,6 @@ extern const cli_cmd_t cli_cmd_report;
 extern const cli_cmd_t cli_cmd_compare;
 
 const cli_cmd_t *const cli_commands[] = {
-    &cli_cmd_help,
-    &cli_cmd_check,
-    &cli_cmd_run,
-    &cli_cmd_demo,
-    &cli_cmd_serve,
-    &cli_cmd_merge,
-    &cli_cmd_cleanup,
-    &cli_cmd_report,
-    &cli_cmd_compare,
-    NULL,
+    &cli_cmd_help,  &cli_cmd_check,   &cli_cmd_run,    &cli_cmd_demo,    &cli_cmd_serve,
+    &cli_cmd_merge, &cli_cmd_cleanup, &cli_cmd_report, &cli_cmd_compare, NULL,
 };

@@ -79,22 +79,6 @@ static int compile_at(src_issuer_t *is, const char *text, plan_pos_t pos, const 
     return rc;
 }
 
-static int class_headers(src_class_t *c, const plan_req_t *pr)
-{
-    c->headers = calloc(pr->n_headers ? pr->n_headers : 1, sizeof(*c->headers));
-    if (!c->headers)
-        return SQ_ENOMEM;
-    for (size_t i = 0; i < pr->n_headers; i++) {
-        size_t len = strlen(pr->headers[i].name) + strlen(pr->headers[i].value) + 3;
-        char *h = malloc(len);
-        if (!h)
-            return SQ_ENOMEM;
-        snprintf(h, len, "%s: %s", pr->headers[i].name, pr->headers[i].value);
-        c->headers[c->n_headers++] = h;
-    }
-    return 0;
-}
-
 static int class_init(src_issuer_t *is, src_class_t *c, const plan_req_t *pr)
 {
     c->pr = pr;
@@ -102,7 +86,7 @@ static int class_init(src_issuer_t *is, src_class_t *c, const plan_req_t *pr)
     if (rc == 0 && pr->kind == PLAN_WRITE && pr->write.body)
         rc = compile_at(is, pr->write.body, pr->write.body_pos, "body", &c->body);
     if (rc == 0)
-        rc = class_headers(c, pr);
+        rc = src_headers_new(pr->headers, pr->n_headers, &c->headers, &c->n_headers);
     if (rc)
         return rc;
     c->timeout_ms = pr->timeout_ns / 1000000;
@@ -146,9 +130,7 @@ void src_issuer_free(src_issuer_t *is)
         src_class_t *c = &is->classes[i];
         tmpl_free(c->path);
         tmpl_free(c->body);
-        for (size_t k = 0; k < c->n_headers; k++)
-            free((char *)c->headers[k]);
-        free(c->headers);
+        src_headers_free(c->headers, c->n_headers);
         free(c->all_name);
     }
     free(is->classes);

@@ -39,23 +39,35 @@ static int read_token(const plan_target_t *t, out_t *o, char **tok)
     return *tok ? 0 : SQ_ENOMEM;
 }
 
-/* target.headers as "Name: value" lines. */
-static int headers_init(src_target_t *t, const plan_target_t *pt)
+int src_headers_new(const plan_kv_t *kv, size_t n, const char ***out, size_t *n_out)
 {
-    t->headers = calloc(pt->n_headers ? pt->n_headers : 1, sizeof(*t->headers));
-    if (!t->headers)
+    *n_out = 0;
+    if (!(*out = calloc(n ? n : 1, sizeof(**out))))
         return SQ_ENOMEM;
-    for (size_t i = 0; i < pt->n_headers; i++) {
-        size_t len = strlen(pt->headers[i].name) + strlen(pt->headers[i].value) + 3;
+    for (size_t i = 0; i < n; i++) {
+        size_t len = strlen(kv[i].name) + strlen(kv[i].value) + 3;
         char *h = malloc(len);
         if (!h)
             return SQ_ENOMEM;
-        snprintf(h, len, "%s: %s", pt->headers[i].name, pt->headers[i].value);
-        t->headers[i] = h;
-        t->eng.n_headers = i + 1;
+        snprintf(h, len, "%s: %s", kv[i].name, kv[i].value);
+        (*out)[(*n_out)++] = h;
     }
-    t->eng.headers = t->headers;
     return 0;
+}
+
+void src_headers_free(const char **h, size_t n)
+{
+    for (size_t i = 0; h && i < n; i++)
+        free((char *)h[i]);
+    free(h);
+}
+
+/* target.headers, sent by every engine made from these settings. */
+static int headers_init(src_target_t *t, const plan_target_t *pt)
+{
+    int rc = src_headers_new(pt->headers, pt->n_headers, &t->headers, &t->eng.n_headers);
+    t->eng.headers = t->headers;
+    return rc;
 }
 
 int src_target_init(src_target_t *t, const plan_t *plan, bool insecure, out_t *o)
@@ -93,8 +105,6 @@ void src_target_close(src_target_t *t)
         memset(t->token, 0, strlen(t->token));
         free(t->token);
     }
-    for (size_t i = 0; t->headers && i < t->eng.n_headers; i++)
-        free((char *)t->headers[i]);
-    free(t->headers);
+    src_headers_free(t->headers, t->eng.n_headers);
     memset(t, 0, sizeof(*t));
 }

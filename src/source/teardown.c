@@ -10,11 +10,12 @@
 #include "squall/err.h"
 #include "squall/journal.h"
 
-#define DEFAULT_RATE       100 /* deletes per second when the plan names no teardown rate */
-#define ATTEMPTS           4
-#define SLACK_NS           (10 * INT64_C(1000000000))
-#define INTERRUPTED_MAX_NS (30 * INT64_C(1000000000)) /* after a signal, a brake or a dead target  \
-                                                       */
+#define DEFAULT_RATE 100 /* deletes per second when the plan names no teardown rate */
+#define ATTEMPTS     4
+#define SLACK_NS     (10 * INT64_C(1000000000))
+#define INTERRUPTED_MAX_NS                                                                         \
+    (30 * INT64_C(1000000000)) /* after a signal, a brake or a dead target                         \
+                                */
 
 typedef struct {
     src_ctx_t ctx;

@@ -440,6 +440,32 @@ static int relist_start(watches_t *ws, watcher_t *w, int64_t intended)
 
 /* ---- the phase ----------------------------------------------------------------------------- */
 
+/* The plan's words for a watch class, as the watch module's own. */
+static const enum watch_framing framing[] = {
+    [PLAN_FRAME_NDJSON] = WATCH_FRAME_NDJSON,
+    [PLAN_FRAME_SSE] = WATCH_FRAME_SSE,
+    [PLAN_FRAME_RAW] = WATCH_FRAME_RAW,
+};
+
+static watch_stream_cfg_t stream_cfg(const plan_req_t *pr)
+{
+    static const enum watch_policy policy[] = {
+        [PLAN_BACKOFF_IMMEDIATE] = WATCH_POLICY_IMMEDIATE,
+        [PLAN_BACKOFF_FIXED] = WATCH_POLICY_FIXED,
+        [PLAN_BACKOFF_EXPONENTIAL] = WATCH_POLICY_EXPONENTIAL,
+        [PLAN_BACKOFF_FULL_JITTER] = WATCH_POLICY_FULL_JITTER,
+        [PLAN_BACKOFF_EQUAL_JITTER] = WATCH_POLICY_EQUAL_JITTER,
+        [PLAN_BACKOFF_DECORRELATED] = WATCH_POLICY_DECORRELATED,
+    };
+    return (watch_stream_cfg_t){
+        .policy = policy[pr->watch.policy],
+        .base_ns = pr->watch.base_ns,
+        .cap_ns = pr->watch.cap_ns,
+        .too_old_status = pr->watch.too_old_status,
+        .can_relist = pr->watch.relist.index >= 0,
+    };
+}
+
 static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, uint64_t seed)
 {
     const src_class_t *c = src_class(ws->ctx.issuer, wc->cls);
@@ -455,8 +481,9 @@ static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, ui
         return rc;
     if (!(w->path = strdup(ws->buf.data)))
         return SQ_ENOMEM;
-    watch_stream_init(&w->st, c->pr, c->pr->watch.relist.index >= 0);
-    watch_framer_init(&w->fr, c->pr->watch.framing, 0, on_event, w);
+    watch_stream_cfg_t cfg = stream_cfg(c->pr);
+    watch_stream_init(&w->st, &cfg);
+    watch_framer_init(&w->fr, framing[c->pr->watch.framing], 0, on_event, w);
     return 0;
 }
 

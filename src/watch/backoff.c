@@ -2,7 +2,7 @@
  * Backoff and Jitter" (AWS Architecture Blog, 2015, and its backoff_simulator.py). */
 #include "squall/watch.h"
 
-void watch_backoff_init(watch_backoff_t *b, enum plan_backoff policy, int64_t base_ns,
+void watch_backoff_init(watch_backoff_t *b, enum watch_policy policy, int64_t base_ns,
                         int64_t cap_ns)
 {
     b->policy = policy;
@@ -38,22 +38,22 @@ int64_t watch_backoff_next(watch_backoff_t *b, rng_t *rng)
     int64_t expo = watch_backoff_expo(b->base_ns, b->cap_ns, b->attempt);
     int64_t d = 0;
     switch (b->policy) {
-    case PLAN_BACKOFF_IMMEDIATE:
+    case WATCH_POLICY_IMMEDIATE:
         d = 0;
         break;
-    case PLAN_BACKOFF_FIXED:
+    case WATCH_POLICY_FIXED:
         d = b->base_ns;
         break;
-    case PLAN_BACKOFF_EXPONENTIAL:
+    case WATCH_POLICY_EXPONENTIAL:
         d = expo;
         break;
-    case PLAN_BACKOFF_FULL_JITTER:
+    case WATCH_POLICY_FULL_JITTER:
         d = uniform(rng, 0, expo);
         break;
-    case PLAN_BACKOFF_EQUAL_JITTER:
+    case WATCH_POLICY_EQUAL_JITTER:
         d = expo / 2 + uniform(rng, 0, expo - expo / 2);
         break;
-    case PLAN_BACKOFF_DECORRELATED: {
+    case WATCH_POLICY_DECORRELATED: {
         int64_t hi = b->sleep_ns > INT64_MAX / 3 ? INT64_MAX : 3 * b->sleep_ns;
         d = uniform(rng, b->base_ns, hi > b->base_ns ? hi : b->base_ns + 1);
         d = d < b->cap_ns ? d : b->cap_ns;

@@ -8,7 +8,7 @@
 
 #define DEFAULT_MAX_EVENT (1u << 20)
 
-void watch_framer_init(watch_framer_t *f, enum plan_framing framing, size_t max_event,
+void watch_framer_init(watch_framer_t *f, enum watch_framing framing, size_t max_event,
                        watch_event_cb on_event, void *user)
 {
     memset(f, 0, sizeof(*f));
@@ -50,7 +50,7 @@ static int buf_add(char **buf, size_t *len, size_t *cap, const char *p, size_t n
 static void dispatch(watch_framer_t *f, const char *data, size_t len)
 {
     watch_event_t ev = {.data = data, .len = len};
-    if (f->framing == PLAN_FRAME_SSE) {
+    if (f->framing == WATCH_FRAME_SSE) {
         ev.id = f->id;
         ev.id_len = f->id_len;
         ev.type = f->type_len ? f->type : "message";
@@ -213,11 +213,11 @@ int watch_framer_feed(watch_framer_t *f, const char *data, size_t len)
 {
     f->st.bytes += (int64_t)len;
     switch (f->framing) {
-    case PLAN_FRAME_NDJSON:
+    case WATCH_FRAME_NDJSON:
         return ndjson_feed(f, data, len);
-    case PLAN_FRAME_SSE:
+    case WATCH_FRAME_SSE:
         return sse_feed(f, data, len);
-    case PLAN_FRAME_RAW:
+    case WATCH_FRAME_RAW:
         if (len > 0)
             dispatch(f, data, len);
         return 0;
@@ -227,7 +227,7 @@ int watch_framer_feed(watch_framer_t *f, const char *data, size_t len)
 
 void watch_framer_end(watch_framer_t *f)
 {
-    if (f->framing == PLAN_FRAME_NDJSON && !f->skipping && f->line_len > 0)
+    if (f->framing == WATCH_FRAME_NDJSON && !f->skipping && f->line_len > 0)
         ndjson_line(f, f->line, f->line_len);
     /* SSE: "If the file ends in the middle of an event, before the final empty line, the
      * incomplete event is not dispatched." The last event ID buffer survives a reconnect. */

@@ -16,13 +16,13 @@ const char *watch_state_name(enum watch_state st)
     return st >= 0 && st < WATCH__STATES ? state_names[st] : "unknown";
 }
 
-void watch_stream_init(watch_stream_t *s, const plan_req_t *cls, bool can_relist)
+void watch_stream_init(watch_stream_t *s, const watch_stream_cfg_t *cfg)
 {
     memset(s, 0, sizeof(*s));
     s->state = WATCH_IDLE;
-    watch_backoff_init(&s->backoff, cls->watch.policy, cls->watch.base_ns, cls->watch.cap_ns);
-    s->too_old_status = cls->watch.too_old_status;
-    s->can_relist = can_relist;
+    watch_backoff_init(&s->backoff, cfg->policy, cfg->base_ns, cfg->cap_ns);
+    s->too_old_status = cfg->too_old_status;
+    s->can_relist = cfg->can_relist;
 }
 
 void watch_stream_set(watch_stream_t *s, enum watch_state to)

@@ -28,9 +28,9 @@ struct eng {
     int64_t window_start;
 };
 
-static const char *const names[] = {"2xx", "3xx", "4xx", "5xx", "timeout", "connect-refused",
-                                    "resolve", "tls", "reset", "http-version", "transport-other",
-                                    "cancelled"};
+static const char *const names[] = {
+    "2xx",     "3xx", "4xx",   "5xx",          "timeout",         "connect-refused",
+    "resolve", "tls", "reset", "http-version", "transport-other", "cancelled"};
 
 const char *eng_outcome_name(enum eng_outcome o)
 {
@@ -115,7 +115,7 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     if (fake.answer)
         fake.answer(x->method, x->path, &a);
     x->res.status = a.status;
-    x->res.outcome = a.refused          ? ENG_OUT_REFUSED
+    x->res.outcome = a.refused         ? ENG_OUT_REFUSED
                      : a.status >= 500 ? ENG_OUT_S5XX
                      : a.status >= 400 ? ENG_OUT_S4XX
                      : a.status >= 300 ? ENG_OUT_S3XX
@@ -133,9 +133,8 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     if (++e->in_flight > e->max_in_flight)
         e->max_in_flight = e->in_flight;
     if (fake.n_log < FAKE_LOG)
-        fake.log[fake.n_log++] = (fake_req_t){.intended_ns = x->res.intended_ns,
-                                              .submitted_ns = now,
-                                              .engine = fake.engines};
+        fake.log[fake.n_log++] = (fake_req_t){
+            .intended_ns = x->res.intended_ns, .submitted_ns = now, .engine = fake.engines};
     if (fake.n_log <= FAKE_LOG) {
         fake_req_t *l = &fake.log[fake.n_log - 1];
         snprintf(l->method, sizeof l->method, "%s", x->method);

@@ -85,7 +85,8 @@ static int logged(const char *method, const char *prefix)
 {
     int n = 0;
     for (int i = 0; i < fake.n_log; i++)
-        n += !strcmp(fake.log[i].method, method) && !strncmp(fake.log[i].path, prefix, strlen(prefix));
+        n += !strcmp(fake.log[i].method, method) &&
+             !strncmp(fake.log[i].path, prefix, strlen(prefix));
     return n;
 }
 
@@ -324,10 +325,10 @@ static void test_planned_in_series(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_phases_in_order),  cmocka_unit_test(test_teardown_after_drain),
-        cmocka_unit_test(test_signal),           cmocka_unit_test(test_unreachable),
-        cmocka_unit_test(test_brake),            cmocka_unit_test(test_internal_failure),
-        cmocka_unit_test(test_closed_loop),      cmocka_unit_test(test_planned_in_series),
+        cmocka_unit_test(test_phases_in_order), cmocka_unit_test(test_teardown_after_drain),
+        cmocka_unit_test(test_signal),          cmocka_unit_test(test_unreachable),
+        cmocka_unit_test(test_brake),           cmocka_unit_test(test_internal_failure),
+        cmocka_unit_test(test_closed_loop),     cmocka_unit_test(test_planned_in_series),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -30,7 +30,7 @@ static void test_expo_and_deterministic_policies(void **state)
     watch_backoff_t b;
     rng_t rng;
     rng_seed(&rng, 1);
-    watch_backoff_init(&b, PLAN_BACKOFF_EXPONENTIAL, 100 * MS, 1000 * MS);
+    watch_backoff_init(&b, WATCH_POLICY_EXPONENTIAL, 100 * MS, 1000 * MS);
     for (int n = 0; n < 7; n++) {
         assert_true(watch_backoff_expo(100 * MS, 1000 * MS, n) == want[n] * MS);
         assert_true(watch_backoff_next(&b, &rng) == want[n] * MS);
@@ -38,10 +38,10 @@ static void test_expo_and_deterministic_policies(void **state)
     assert_true(watch_backoff_expo(1, INT64_MAX, 80) == INT64_MAX); /* no overflow */
     watch_backoff_reset(&b);
     assert_true(watch_backoff_next(&b, &rng) == 100 * MS);
-    watch_backoff_init(&b, PLAN_BACKOFF_FIXED, 250 * MS, 10000 * MS);
+    watch_backoff_init(&b, WATCH_POLICY_FIXED, 250 * MS, 10000 * MS);
     for (int n = 0; n < 5; n++)
         assert_true(watch_backoff_next(&b, &rng) == 250 * MS);
-    watch_backoff_init(&b, PLAN_BACKOFF_IMMEDIATE, 250 * MS, 10000 * MS);
+    watch_backoff_init(&b, WATCH_POLICY_IMMEDIATE, 250 * MS, 10000 * MS);
     assert_true(watch_backoff_next(&b, &rng) == 0);
 }
 
@@ -58,7 +58,7 @@ static void test_full_jitter_ks(void **state)
         double hi = (double)watch_backoff_expo(200 * MS, 2000 * MS, attempt);
         for (int i = 0; i < N; i++) {
             watch_backoff_t b;
-            watch_backoff_init(&b, PLAN_BACKOFF_FULL_JITTER, 200 * MS, 2000 * MS);
+            watch_backoff_init(&b, WATCH_POLICY_FULL_JITTER, 200 * MS, 2000 * MS);
             for (int k = 0; k < attempt; k++)
                 watch_backoff_next(&b, &rng);
             int64_t d = watch_backoff_next(&b, &rng);
@@ -80,7 +80,7 @@ static void test_equal_jitter_ks(void **state)
     rng_seed(&rng, 7);
     watch_backoff_t b;
     for (int i = 0; i < N; i++) {
-        watch_backoff_init(&b, PLAN_BACKOFF_EQUAL_JITTER, 200 * MS, 2000 * MS);
+        watch_backoff_init(&b, WATCH_POLICY_EQUAL_JITTER, 200 * MS, 2000 * MS);
         watch_backoff_next(&b, &rng);
         int64_t d = watch_backoff_next(&b, &rng); /* attempt 1: expo = 400 ms */
         assert_true(d >= 200 * MS && d < 400 * MS);
@@ -100,7 +100,7 @@ static void test_decorrelated(void **state)
     rng_seed(&rng, 11);
     watch_backoff_t b;
     for (int i = 0; i < N; i++) {
-        watch_backoff_init(&b, PLAN_BACKOFF_DECORRELATED, 100 * MS, 5000 * MS);
+        watch_backoff_init(&b, WATCH_POLICY_DECORRELATED, 100 * MS, 5000 * MS);
         int64_t prev = watch_backoff_next(&b, &rng);
         x[i] = (double)(prev - 100 * MS);
         for (int k = 0; k < 20; k++) {
@@ -114,15 +114,13 @@ static void test_decorrelated(void **state)
     assert_true(D < KS_C_01 / sqrt(N));
 }
 
-static plan_req_t watch_class(enum plan_backoff policy)
+static watch_stream_cfg_t watch_class(enum watch_policy policy, bool can_relist)
 {
-    plan_req_t c = {.name = "follow", .kind = PLAN_WATCH};
-    c.watch.policy = policy;
-    c.watch.base_ns = 100 * MS;
-    c.watch.cap_ns = 1000 * MS;
-    c.watch.too_old_status = 410;
-    c.watch.version_key = "version";
-    return c;
+    return (watch_stream_cfg_t){.policy = policy,
+                                .base_ns = 100 * MS,
+                                .cap_ns = 1000 * MS,
+                                .too_old_status = 410,
+                                .can_relist = can_relist};
 }
 
 static int changes;
@@ -139,12 +137,12 @@ static void on_state(void *user, enum watch_state from, enum watch_state to)
 static void test_stream_machine(void **state)
 {
     (void)state;
-    plan_req_t c = watch_class(PLAN_BACKOFF_EXPONENTIAL);
+    watch_stream_cfg_t c = watch_class(WATCH_POLICY_EXPONENTIAL, true);
     watch_stream_t s;
     rng_t rng;
     rng_seed(&rng, 3);
     int64_t delay;
-    watch_stream_init(&s, &c, true);
+    watch_stream_init(&s, &c);
     s.on_state = on_state;
     changes = 0;
     assert_int_equal(s.state, WATCH_IDLE);
@@ -204,12 +202,12 @@ static void test_stream_machine(void **state)
 static void test_too_old_without_relist(void **state)
 {
     (void)state;
-    plan_req_t c = watch_class(PLAN_BACKOFF_FIXED);
+    watch_stream_cfg_t c = watch_class(WATCH_POLICY_FIXED, false);
     watch_stream_t s;
     rng_t rng;
     rng_seed(&rng, 4);
     int64_t delay;
-    watch_stream_init(&s, &c, false);
+    watch_stream_init(&s, &c);
     watch_stream_relisted(&s, "12");
     watch_stream_set(&s, WATCH_OPENING);
     watch_end_t gone = {.status = 410};

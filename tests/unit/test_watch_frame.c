@@ -37,11 +37,11 @@ static void on_event(void *user, const watch_event_t *ev)
 }
 
 /* Frames `in` cut at the given slice lengths (0-terminated list; the rest goes last). */
-static void frame_slices(enum plan_framing fr, const char *in, size_t len, const size_t *cuts,
+static void frame_slices(enum watch_framing fr, const char *in, size_t len, const size_t *cuts,
                          size_t max_event, seen_t *s, watch_framer_stats_t *st)
 {
     memset(s, 0, sizeof(*s));
-    s->sse = fr == PLAN_FRAME_SSE;
+    s->sse = fr == WATCH_FRAME_SSE;
     watch_framer_t f;
     watch_framer_init(&f, fr, max_event, on_event, s);
     size_t off = 0;
@@ -69,7 +69,7 @@ static void assert_seen(const seen_t *s, const char *const *want, int n)
 
 /* Every way of slicing the input gives the expected events: whole, one byte at a time, every
  * two-way split, and 200 random slicings (fixed seed). */
-static void check_all_slicings(enum plan_framing fr, const char *in, const char *const *want, int n)
+static void check_all_slicings(enum watch_framing fr, const char *in, const char *const *want, int n)
 {
     size_t len = strlen(in);
     seen_t s;
@@ -106,7 +106,7 @@ static void test_ndjson(void **state)
     const char *in = "{\"version\":1}\n{\"version\":2}\r\n\n\r\n{\"a\":\"x\\ny\"}\n{\"version\":3}";
     const char *want[] = {"{\"version\":1}", "{\"version\":2}", "{\"a\":\"x\\ny\"}",
                           "{\"version\":3}"};
-    check_all_slicings(PLAN_FRAME_NDJSON, in, want, 4);
+    check_all_slicings(WATCH_FRAME_NDJSON, in, want, 4);
 }
 
 /* A line longer than max_event is skipped whole and counted; the lines around it survive. */
@@ -120,7 +120,7 @@ static void test_ndjson_oversize(void **state)
         seen_t s;
         watch_framer_stats_t st;
         size_t c[2] = {cut, 0};
-        frame_slices(PLAN_FRAME_NDJSON, in, strlen(in), c, 64, &s, &st);
+        frame_slices(WATCH_FRAME_NDJSON, in, strlen(in), c, 64, &s, &st);
         assert_seen(&s, want, 2);
         assert_int_equal(st.oversize, 1);
     }
@@ -134,7 +134,7 @@ static void test_sse_spec_examples(void **state)
     (void)state;
     const char *ticker = "data: YHOO\ndata: +2\ndata: 10\n\n";
     const char *w1[] = {"YHOO\n+2\n10|id=|type=message"};
-    check_all_slicings(PLAN_FRAME_SSE, ticker, w1, 1);
+    check_all_slicings(WATCH_FRAME_SSE, ticker, w1, 1);
 
     /* A comment, ids (an empty id resets the last event ID), and only one leading space
      * stripped from a value. */
@@ -142,18 +142,18 @@ static void test_sse_spec_examples(void **state)
                       " third event\n\n";
     const char *w2[] = {"first event|id=1|type=message", "second event|id=|type=message",
                         " third event|id=|type=message"};
-    check_all_slicings(PLAN_FRAME_SSE, ids, w2, 3);
+    check_all_slicings(WATCH_FRAME_SSE, ids, w2, 3);
 
     /* "data" alone gives an empty data line: the first event is "", the second "\n"; the last,
      * cut off at the end of the stream, is discarded. */
     const char *empty = "data\n\ndata\ndata\n\ndata:";
     const char *w3[] = {"|id=|type=message", "\n|id=|type=message"};
-    check_all_slicings(PLAN_FRAME_SSE, empty, w3, 2);
+    check_all_slicings(WATCH_FRAME_SSE, empty, w3, 2);
 
     /* "data:test" and "data: test" are the same event. */
     const char *space = "data:test\n\ndata: test\n\n";
     const char *w4[] = {"test|id=|type=message", "test|id=|type=message"};
-    check_all_slicings(PLAN_FRAME_SSE, space, w4, 2);
+    check_all_slicings(WATCH_FRAME_SSE, space, w4, 2);
 }
 
 /* Lines end with CRLF, LF or CR, mixed; `event` sets the type for one event only; an unknown
@@ -169,12 +169,12 @@ static void test_sse_line_ends_and_fields(void **state)
                      "data: a\ndata: b\r\n\n"
                      "retry: 2500\n: keep-alive\n\n";
     const char *want[] = {"{\"version\":7}|id=7|type=put", "a\nb|id=7|type=message"};
-    check_all_slicings(PLAN_FRAME_SSE, in, want, 2);
+    check_all_slicings(WATCH_FRAME_SSE, in, want, 2);
     seen_t s;
     watch_framer_stats_t st;
-    frame_slices(PLAN_FRAME_SSE, in, strlen(in), NULL, 0, &s, &st);
+    frame_slices(WATCH_FRAME_SSE, in, strlen(in), NULL, 0, &s, &st);
     assert_int_equal(st.retry_ms, 2500);
-    frame_slices(PLAN_FRAME_SSE, "retry: one thousand\n\n", 21, NULL, 0, &s, &st);
+    frame_slices(WATCH_FRAME_SSE, "retry: one thousand\n\n", 21, NULL, 0, &s, &st);
     assert_int_equal(st.retry_ms, -1);
 }
 
@@ -184,7 +184,7 @@ static void test_raw(void **state)
     (void)state;
     seen_t s;
     size_t c[3] = {3, 2, 0};
-    frame_slices(PLAN_FRAME_RAW, "abcdefg", 7, c, 0, &s, NULL);
+    frame_slices(WATCH_FRAME_RAW, "abcdefg", 7, c, 0, &s, NULL);
     const char *want[] = {"abc", "de", "fg"};
     assert_seen(&s, want, 3);
 }
