@@ -1,5 +1,5 @@
 /* report.html's internals: escaping and the SVG line plot (html_svg.c), the page's sections
- * (html.c, html_plots.c). */
+ * (report.c, html_plots.c). */
 #ifndef SQUALL_HTML_INT_H
 #define SQUALL_HTML_INT_H
 
@@ -8,7 +8,7 @@
 
 #include "squall/report.h"
 
-/* The page's style sheet (html.c), shared by the comparison page. */
+/* The page's style sheet (report.c), shared by the comparison page. */
 extern const char html_css[];
 
 /* Writes s with &, <, >, " escaped. */

@@ -1,4 +1,4 @@
-/* report.html: one self-contained page (inline CSS and SVG, no scripts, nothing fetched) with
+/* report.html, the report of one run: one self-contained page (inline SVG and CSS, no scripts);
  * the run header, objective verdicts, per phase x class tables and the plots. */
 #include <math.h>
 #include <stdlib.h>
