@@ -81,7 +81,8 @@ typedef struct {
     const hist_t *sched_lag;            /* submitted - intended of first pages */
     const obs_cell_t *cells;            /* phase x class with a start or completion */
     size_t n_cells;
-    const obs_cell_t *per_class;           /* per class over every phase: [n_classes] */
+    const obs_cell_t *per_class;           /* per class over every phase: [n_classes]; response
+                                              times only of a class a plan brake names */
     const eng_stats_t *eng;                /* the main engine's window (peaks of the second) */
     int in_flight;                         /* requests of the run not finished at the end */
     int64_t busy_since_ns, last_answer_ns; /* in_flight last went 0 -> 1; the last answer */

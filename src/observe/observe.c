@@ -91,9 +91,13 @@ static int window_init(obs_t *l)
                                ? OBS_TEARDOWN
                                : (int)(i % l->n_classes);
     }
-    for (size_t c = 0; c < l->n_classes; c++) {
+    for (size_t c = 0; c < l->n_classes; c++)
         l->per_class[c].cls = c + 1 == l->n_classes ? OBS_TEARDOWN : (int)c;
-        if (hist_new_ns(&l->per_class[c].response))
+    /* A class's response times over every phase serve only a brake on that class. */
+    const plan_t *p = l->cfg.plan;
+    for (size_t b = 0; b < p->n_brakes; b++) {
+        obs_cell_t *k = p->brakes[b].cls.index >= 0 ? &l->per_class[p->brakes[b].cls.index] : NULL;
+        if (k && !k->response && hist_new_ns(&k->response))
             return SQ_ENOMEM;
     }
     if (hist_new_ns(&l->all) || hist_new_ns(&l->sec_lag) || hist_new_ns(&l->sched_lag))
@@ -249,7 +253,8 @@ static void tally(obs_t *l, const obs_done_t *d)
     c->errors += err;
     k->errors += err;
     hist_record(c->response, v);
-    hist_record(k->response, v);
+    if (k->response)
+        hist_record(k->response, v);
     hist_record(l->all, v);
     l->completed++;
     l->errors += err;
@@ -356,7 +361,8 @@ static void window_reset(obs_t *l, int64_t now)
     for (size_t c = 0; c < l->n_classes; c++) {
         obs_cell_t *k = &l->per_class[c];
         k->started = k->completed = k->errors = 0;
-        hist_reset(k->response);
+        if (k->response)
+            hist_reset(k->response);
     }
     hist_reset(l->all);
     hist_reset(l->sec_lag);
