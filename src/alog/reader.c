@@ -146,6 +146,8 @@ int alog_next(alog_t *r, alog_record_t *rec)
     size_t n;
     bool overlong;
     int rc;
+    if (r->failed) /* after a read error the reader stays at the end */
+        return 0;
     while ((rc = next_line(r, &line, &n, &overlong)) == 1) {
         r->st.lines++;
         if (overlong) {

@@ -45,7 +45,7 @@ static int civil_ns(int y, int mo, int d, int h, int mi, int sec, int off_s, int
         return -1;
     int64_t days = alog_days_from_civil(y, (unsigned)mo, (unsigned)d);
     int64_t s = days * 86400 + h * 3600 + mi * 60 + sec - off_s;
-    if (s < 0)
+    if (s < 0 || s >= INT64_MAX / NS_PER_S) /* int64 ns end in April 2262 */
         return -1;
     *ns = s * NS_PER_S;
     return 0;

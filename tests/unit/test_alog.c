@@ -351,15 +351,20 @@ static void test_ndjson_malformed(void **state)
         "{\"time\":1,\"method\":\"GET\",\"path\":\"/a\",\"status\":42}",          /* status */
         "{\"time\":1,\"method\":\"GET\",\"path\":\"/a\",\"duration\":-1}",        /* negative */
         "{\"time\":01,\"method\":\"GET\",\"path\":\"/a\"}",                       /* leading 0 */
-        "[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[[]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]]"
-        "]]",
+        NULL, /* nested 40 deep: past the scanner's 32 levels */
     };
     size_t n = sizeof bad / sizeof bad[0];
+    char deep[200] = "{\"time\":1,\"method\":\"GET\",\"path\":\"/a\",\"x\":";
+    for (int i = 0; i < 40; i++)
+        strcat(deep, "[");
+    for (int i = 0; i < 40; i++)
+        strcat(deep, "]");
+    strcat(deep, "}");
     char text[8192];
     size_t o = 0;
     for (size_t i = 0; i < 2 * n; i++) /* each bad line after a good one */
         o += (size_t)snprintf(text + o, sizeof text - o, "%s\n",
-                              i % 2 ? bad[i / 2]
+                              i % 2 ? (bad[i / 2] ? bad[i / 2] : deep)
                                     : "{\"time\":1,\"method\":\"GET\",\"path\":\"/ok\"}");
     alog_config_t c;
     alog_config_init(&c);
