@@ -62,7 +62,7 @@ struct run_watches {
     int64_t next_due_ns;
     int64_t *log_end, *log_delay, *log_sent; /* relative to the phase start, ns */
     int *log_attempt;
-    size_t n_log;
+    size_t n_log, cap_log; /* cap_log: entries allocated (at most LOG_MAX) */
 };
 
 static int64_t realtime_ns(void)
@@ -175,7 +175,7 @@ static void record_end(struct run_watches *ws, int cls, const eng_result_t *res,
 
 static void log_reconnect(struct run_watches *ws, watcher_t *w, int64_t now, int64_t delay)
 {
-    if (ws->n_log >= LOG_MAX)
+    if (ws->n_log >= ws->cap_log)
         return;
     size_t i = ws->n_log++;
     ws->log_end[i] = now - ws->base_ns;
@@ -527,6 +527,7 @@ static int phase_alloc(struct run_watches *ws, const plan_phase_t *pp, int n)
     ws->log_sent = calloc(logs, sizeof(int64_t));
     ws->log_attempt = calloc(logs, sizeof(int));
     ws->n_log = 0;
+    ws->cap_log = logs;
     if (!ws->w || !ws->wcs || !ws->log_end || !ws->log_delay || !ws->log_sent || !ws->log_attempt)
         return SQ_ENOMEM;
     return 0;
@@ -648,7 +649,7 @@ static json_t *phase_json(struct run_watches *ws)
                                   int_array(ws->log_end, ws->n_log), "delay_ns",
                                   int_array(ws->log_delay, ws->n_log), "sent_ns",
                                   int_array(ws->log_sent, ws->n_log), "attempt", attempt,
-                                  "truncated", ws->n_log >= LOG_MAX));
+                                  "truncated", ws->n_log >= ws->cap_log));
     return ph;
 }
 
