@@ -10,6 +10,7 @@ extern const cli_cmd_t cli_cmd_merge;
 extern const cli_cmd_t cli_cmd_cleanup;
 extern const cli_cmd_t cli_cmd_report;
 extern const cli_cmd_t cli_cmd_compare;
+extern const cli_cmd_t cli_cmd_profile;
 
 const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_help,
@@ -21,5 +22,6 @@ const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_cleanup,
     &cli_cmd_report,
     &cli_cmd_compare,
+    &cli_cmd_profile,
     NULL,
 };
