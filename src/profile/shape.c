@@ -296,7 +296,8 @@ static uint32_t step(prof_trie_t *t, uint32_t node, const char *s, size_t n)
 {
     enum prof_lex lex = prof_lex_of(s, n);
     bool var = lex != LEX_WORD;
-    size_t pn = n;
+    /* A variable's text is its PNUM prefix, else empty: the look alone names it. */
+    size_t pn = var && lex != LEX_PNUM ? 0 : n;
     if (lex == LEX_PNUM)
         while (pn > 0 && is_digit(s[pn - 1]))
             pn--;

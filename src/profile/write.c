@@ -418,8 +418,8 @@ static void fleet(const prof_t *p, FILE *f)
  * durations, the distinct watchers. */
 static void watches(const prof_t *p, FILE *f)
 {
-    bool any = false;
-    char a[32], b[32];
+    char a[32], b[32], line[4096] = "";
+    size_t o = 0;
     for (size_t i = 0; i < p->n_cls; i++) {
         const prof_class_t *c = &p->cls[i];
         if (c->kind != PLAN_WATCH)
@@ -428,19 +428,19 @@ static void watches(const prof_t *p, FILE *f)
         n = n < 1 ? 1 : n;
         if (c->dur_n)
             fprintf(f,
-                    "    # %s: %s streams, median %.3g s open; %ld open at the median second, "
+                    "    # %s: %s streams, median %.3g s open; %u open at the median second, "
                     "%.3g on average\n    # (%.4g stream-seconds over %lld s, Little's law)\n",
                     c->name, num(c->count, a, sizeof a), (double)prof_class_quantile(c, 0.5) / 1e9,
-                    n, c->dur_sum / 1e9 / (double)prof_span_s(p), c->dur_sum / 1e9,
+                    c->open_median, c->dur_sum / 1e9 / (double)prof_span_s(p), c->dur_sum / 1e9,
                     (long long)prof_span_s(p));
         else
             fprintf(f, "    # %s: %s streams from %s distinct watchers (no durations logged)\n",
                     c->name, num(c->count, a, sizeof a), num(c->keys, b, sizeof b));
-        fprintf(f, "%s%s: %ld", any ? ", " : "    watches: {", c->name, n);
-        any = true;
+        int w = snprintf(line + o, sizeof line - o, "%s%s: %ld", o ? ", " : "", c->name, n);
+        o += w > 0 && (size_t)w < sizeof line - o ? (size_t)w : 0;
     }
-    if (any)
-        fprintf(f, "}\n");
+    if (o)
+        fprintf(f, "    watches: {%s}\n", line);
 }
 
 static void phases(const prof_t *p, FILE *f)
