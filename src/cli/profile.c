@@ -30,8 +30,7 @@ static const cli_opt_t profile_opts[] = {
     [OPT_FORCE] = {"force", 0, NULL, "replace PLAN.yaml if it exists"},
     [OPT_FORMAT] = {"format", 0, "FORMAT", "auto (default), common, combined or ndjson"},
     [OPT_FIELD] = {"field", 0, "NAME=KEY",
-                   "NDJSON: the JSON key of time, method, path, status, duration, client, bytes "
-                   "or body (repeatable; dotted keys reach into objects)"},
+                   "NDJSON: which JSON key holds time, method, path, status, duration, ..."},
     [OPT_TIME_UNIT] = {"time-unit", 0, "UNIT",
                        "NDJSON time: auto (default), rfc3339, s, ms, us, ns"},
     [OPT_DURATION_UNIT] = {"duration-unit", 0, "UNIT", "NDJSON duration: s (default), ms, us, ns"},
@@ -210,7 +209,10 @@ const cli_cmd_t cli_cmd_profile = {
         "    of dispersion of counts (Cox & Lewis 1966);\n"
         "  - clients repeating a path at one period become a fleet (agents, every), aligned\n"
         "    or spread by a Rayleigh test of their phases (Mardia & Jupp 2000, 6.3.1);\n"
-        "  - watches with how many are open on average; objectives from common practice.\n"
+        "  - watches with how many are open at once; objectives from common practice.\n"
+        "NDJSON fields (--field NAME=KEY, dotted keys reach into objects): time, method,\n"
+        "path (a path or a full URI), status, duration, client, bytes, body; defaults are\n"
+        "the NAMEs themselves.\n"
         "The log is refused (exit 2) when most of its first 1,000 lines do not parse. Exit 0\n"
         "plan written, 2 usage or a log it cannot use, 6 input/output failure.",
     .opts = profile_opts,
