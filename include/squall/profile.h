@@ -57,7 +57,7 @@ void prof_free(prof_t *p);
 /* ---- the statistics, for tests --------------------------------------------------------- */
 
 /* Rayleigh test of uniformity of n angles (radians) (Mardia & Jupp, "Directional Statistics",
- * Wiley 2000, §6.3.1; the p-value approximation of Zar, "Biostatistical Analysis", the Rayleigh
+ * Wiley 2000, §6.3; the p-value approximation of Zar, "Biostatistical Analysis", the Rayleigh
  * test in its chapter on circular distributions):
  * R̄ = |Σ exp(iθ)| / n, Z = nR̄², p = exp(√(1 + 4n + 4(n² − (nR̄)²)) − (1 + 2n)), clamped to
  * [0, 1]. mean is the mean direction in [0, 2π). */

@@ -208,7 +208,7 @@ const cli_cmd_t cli_cmd_profile = {
         "  - the open-loop rate as steps and its mix; arrivals even or poisson by the index\n"
         "    of dispersion of counts (Cox & Lewis 1966);\n"
         "  - clients repeating a path at one period become a fleet (agents, every), aligned\n"
-        "    or spread by a Rayleigh test of their phases (Mardia & Jupp 2000, 6.3.1);\n"
+        "    or spread by a Rayleigh test of their phases (Mardia & Jupp 2000, 6.3);\n"
         "  - watches with how many are open at once; objectives from common practice.\n"
         "NDJSON fields (--field NAME=KEY, dotted keys reach into objects): time, method,\n"
         "path (a path or a full URI), status, duration, client, bytes, body; defaults are\n"

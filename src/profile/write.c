@@ -388,7 +388,7 @@ static void fleet(const prof_t *p, FILE *f)
         if (!x->in_plan)
             continue;
         fprintf(f,
-                "    #   Rayleigh test of their phases modulo %s (Mardia & Jupp 2000, 6.3.1; "
+                "    #   Rayleigh test of their phases modulo %s (Mardia & Jupp 2000, 6.3; "
                 "Zar): R = %.4f,\n    #   Z = %.4g, p = %.3g %s %g: %s (mean phase %.1f ms, "
                 "circular sd %.1f ms)\n",
                 dur(x->every_ns, e, sizeof e), x->ray.r_bar, x->ray.z, x->ray.p,

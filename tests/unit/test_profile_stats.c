@@ -51,7 +51,7 @@ static char *reference(const char *input)
 
 /* Angle cases: uniform (300, 50), aligned within milliseconds of a 10 s period (300), a wide
  * normal spread of 2 rad (20), a tight cluster (10), and two opposite clusters (100), which the
- * Rayleigh test cannot tell from uniform (Mardia & Jupp 2000, 6.3.1: it has power against
+ * Rayleigh test cannot tell from uniform (Mardia & Jupp 2000, 6.3: it has power against
  * unimodal alternatives only). */
 static size_t angles(int k, rng_t *g, double *a)
 {
