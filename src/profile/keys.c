@@ -244,8 +244,7 @@ void prof_fleets_phases(prof_t *p)
         fl->aligned = fl->ray.p < p->cfg.alpha;
         double per_rad_ms = (double)fl->every_ns / 1e6 / (2 * M_PI);
         fl->offset_ms = fl->ray.mean * per_rad_ms;
-        /* The circular standard deviation sqrt(-2 ln R̄) (Mardia & Jupp 2000, ch. 2; from memory).
-         */
+        /* Circular standard deviation sqrt(-2 ln R̄) (Mardia & Jupp, ch. 2; from memory). */
         fl->spread_ms =
             fl->ray.r_bar > 0 ? sqrt(fmax(0, -2 * log(fl->ray.r_bar))) * per_rad_ms : INFINITY;
     }
