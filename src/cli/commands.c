@@ -10,8 +10,18 @@ extern const cli_cmd_t cli_cmd_merge;
 extern const cli_cmd_t cli_cmd_cleanup;
 extern const cli_cmd_t cli_cmd_report;
 extern const cli_cmd_t cli_cmd_compare;
+extern const cli_cmd_t cli_cmd_profile;
 
 const cli_cmd_t *const cli_commands[] = {
-    &cli_cmd_help,  &cli_cmd_check,   &cli_cmd_run,    &cli_cmd_demo,    &cli_cmd_serve,
-    &cli_cmd_merge, &cli_cmd_cleanup, &cli_cmd_report, &cli_cmd_compare, NULL,
+    &cli_cmd_help,
+    &cli_cmd_check,
+    &cli_cmd_run,
+    &cli_cmd_demo,
+    &cli_cmd_serve,
+    &cli_cmd_merge,
+    &cli_cmd_cleanup,
+    &cli_cmd_report,
+    &cli_cmd_compare,
+    &cli_cmd_profile,
+    NULL,
 };

@@ -28,6 +28,13 @@ typedef struct {
 
 typedef struct watches watches_t;
 
+/* One reconnect: when the stream ended, the delay drawn, when the next attempt was sent (ns
+ * from the phase start; -1 until it is) and the backoff attempt it was. */
+typedef struct {
+    int64_t end, delay, sent;
+    int attempt;
+} recon_t;
+
 typedef struct watcher {
     watches_t *ws;
     int index;
@@ -63,9 +70,9 @@ struct watches {
     wclass_t *wcs;
     size_t n_wc;
     int64_t next_due_ns;
-    int64_t *log_end, *log_delay, *log_sent; /* relative to the phase start, ns */
-    int *log_attempt;
-    size_t n_log;
+    recon_t *log;      /* reconnects, grown as they come, at most LOG_MAX */
+    size_t n_log, cap_log;
+    int64_t log_dropped; /* reconnects past LOG_MAX: counted, not kept */
 };
 
 static int phase_watchers(const plan_phase_t *pp)
@@ -140,15 +147,26 @@ static void record_end(watches_t *ws, int cls, const eng_result_t *res, bool tim
         obs_answered(ws->ctx.obs, res->done_ns);
 }
 
+/* Keeps a reconnect in the log, which grows as needed up to LOG_MAX entries; past that (or
+ * out of memory) it is counted as dropped, and the section says so. */
 static void log_reconnect(watches_t *ws, watcher_t *w, int64_t now, int64_t delay)
 {
-    if (ws->n_log >= LOG_MAX)
-        return;
+    if (ws->n_log == ws->cap_log) {
+        size_t cap = ws->cap_log ? ws->cap_log * 2 : 256;
+        cap = cap < LOG_MAX ? cap : LOG_MAX;
+        recon_t *l = cap > ws->cap_log ? realloc(ws->log, cap * sizeof(*l)) : NULL;
+        if (!l) {
+            ws->log_dropped++;
+            return;
+        }
+        ws->log = l;
+        ws->cap_log = cap;
+    }
     size_t i = ws->n_log++;
-    ws->log_end[i] = now - ws->base_ns;
-    ws->log_delay[i] = delay;
-    ws->log_sent[i] = -1;
-    ws->log_attempt[i] = w->st.backoff.attempt - 1;
+    ws->log[i] = (recon_t){.end = now - ws->base_ns,
+                           .delay = delay,
+                           .sent = -1,
+                           .attempt = w->st.backoff.attempt - 1};
     w->log = (int)i;
 }
 
@@ -319,7 +337,7 @@ static void on_stream_done(void *user, const eng_result_t *res)
     if (res->outcome != ENG_OUT_S2XX)
         record_end(ws, w->wc->cls, res, false);
     if (w->log >= 0 && res->sent_ns) {
-        ws->log_sent[w->log] = res->sent_ns - ws->base_ns;
+        ws->log[w->log].sent = res->sent_ns - ws->base_ns;
         w->log = -1;
     }
     bool stream = res->status == 0 || (res->status >= 200 && res->status < 300);
@@ -505,13 +523,9 @@ static int phase_alloc(watches_t *ws, const plan_phase_t *pp, int n)
 {
     ws->w = calloc((size_t)n, sizeof(*ws->w));
     ws->wcs = calloc(pp->watches.n_sets, sizeof(*ws->wcs));
-    size_t logs = n * 4 < LOG_MAX ? (size_t)n * 4 : LOG_MAX;
-    ws->log_end = calloc(logs, sizeof(int64_t));
-    ws->log_delay = calloc(logs, sizeof(int64_t));
-    ws->log_sent = calloc(logs, sizeof(int64_t));
-    ws->log_attempt = calloc(logs, sizeof(int));
-    ws->n_log = 0;
-    if (!ws->w || !ws->wcs || !ws->log_end || !ws->log_delay || !ws->log_sent || !ws->log_attempt)
+    ws->n_log = ws->cap_log = 0;
+    ws->log_dropped = 0;
+    if (!ws->w || !ws->wcs)
         return SQ_ENOMEM;
     return 0;
 }
@@ -628,12 +642,20 @@ static double watches_expected(const void *self, int64_t t0, int64_t t1, double 
 
 /* ---- the end of a phase ------------------------------------------------------------------ */
 
-static json_t *int_array(const int64_t *v, size_t n)
+/* The reconnect log as columns: {ended_ns, delay_ns, sent_ns, attempt: [...], truncated,
+ * dropped}; truncated when reconnects were dropped (more than LOG_MAX in the phase). */
+static json_t *log_json(const watches_t *ws)
 {
-    json_t *a = json_array();
-    for (size_t i = 0; a && i < n; i++)
-        json_array_append_new(a, json_integer(v[i]));
-    return a;
+    json_t *end = json_array(), *delay = json_array(), *sent = json_array(), *att = json_array();
+    for (size_t i = 0; i < ws->n_log; i++) {
+        json_array_append_new(end, json_integer(ws->log[i].end));
+        json_array_append_new(delay, json_integer(ws->log[i].delay));
+        json_array_append_new(sent, json_integer(ws->log[i].sent));
+        json_array_append_new(att, json_integer(ws->log[i].attempt));
+    }
+    return json_pack("{s:o,s:o,s:o,s:o,s:b,s:I}", "ended_ns", end, "delay_ns", delay, "sent_ns",
+                     sent, "attempt", att, "truncated", ws->log_dropped > 0, "dropped",
+                     (json_int_t)ws->log_dropped);
 }
 
 /* The phase's figures per class, summed over its watchers. */
@@ -671,16 +693,8 @@ static json_t *phase_json(watches_t *ws)
         if (cj)
             json_object_set_new(classes, ws->ctx.plan->reqs[ws->wcs[k].cls].name, cj);
     }
-    json_t *attempt = json_array();
-    for (size_t i = 0; attempt && i < ws->n_log; i++)
-        json_array_append_new(attempt, json_integer(ws->log_attempt[i]));
     json_object_set_new(ph, "classes", classes);
-    json_object_set_new(ph, "reconnect_log",
-                        json_pack("{s:o,s:o,s:o,s:o,s:b}", "ended_ns",
-                                  int_array(ws->log_end, ws->n_log), "delay_ns",
-                                  int_array(ws->log_delay, ws->n_log), "sent_ns",
-                                  int_array(ws->log_sent, ws->n_log), "attempt", attempt,
-                                  "truncated", ws->n_log >= LOG_MAX));
+    json_object_set_new(ph, "reconnect_log", log_json(ws));
     return ph;
 }
 
@@ -693,14 +707,10 @@ static void phase_free(watches_t *ws)
     }
     free(ws->w);
     free(ws->wcs);
-    free(ws->log_end);
-    free(ws->log_delay);
-    free(ws->log_sent);
-    free(ws->log_attempt);
+    free(ws->log);
     ws->w = NULL;
     ws->wcs = NULL;
-    ws->log_end = ws->log_delay = ws->log_sent = NULL;
-    ws->log_attempt = NULL;
+    ws->log = NULL;
     ws->n = ws->n_wc = ws->n_log = 0;
 }
 

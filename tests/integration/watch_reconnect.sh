@@ -82,5 +82,26 @@ for policy in full-jitter immediate; do
         test "$dropped" = "$N" -a "$opened" = $((2 * N))
     ks_check "$T/$policy" "$([ $policy = immediate ] && echo immediate || echo jitter)" || FAILED=1
 done
+# A target that refuses every watch (503) and one watcher reconnecting every 50 ms for 2 s: about
+# 40 reconnects, far more than the 4 per watcher the log once had room for (a heap overflow
+# that killed the run and lost its results). Every reconnect is kept, none dropped.
+serve_start --fail-rate 1 || exit 1
+cat >"$T/refused.yaml" <<YAML
+target: {url: "$SERVE_URL", connections: 2, timeout: 5s}
+requests:
+  follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1",
+           reconnect: {policy: fixed, base: 50ms}}
+phases:
+  - {name: w, duration: 2s, watches: {follow: 1}}
+brakes:
+  - {error-rate: 100%}
+YAML
+run_plan "$T/refused" "$T/refused.yaml"
+serve_stop
+expect "every watch refused: the run still ends cleanly (exit $RUN_RC, 0)" test "$RUN_RC" = 0
+rcheck "its reconnect log keeps all of them: 30..41 (2 s / 50 ms), none dropped" \
+    "30 <= len(d['sections']['watches']['w']['reconnect_log']['ended_ns']) <= 41 and
+     d['sections']['watches']['w']['reconnect_log']['dropped'] == 0 and
+     not d['sections']['watches']['w']['reconnect_log']['truncated']" "$T/refused"
 [ "$FAILED" = 0 ] && echo "PASS: watch reconnect" || echo "FAIL: watch reconnect"
 exit "$FAILED"

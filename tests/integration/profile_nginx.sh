@@ -1,0 +1,176 @@
+#!/usr/bin/env bash
+# `squall profile` against a writer squall did not write: Debian's nginx logs a known plan's
+# traffic (a 300-agent aligned fleet renewing every 10 s, 50/s Poisson reads with a list every
+# 5 s on average, 20 watches held by nginx's echo_sleep for 5 s each) in its own `combined`
+# format and in an NDJSON log_format with $msec and $request_time (nginx docs,
+# ngx_http_log_module: both are taken when the request ends, so --time-at end). The plans
+# derived from both logs must validate with `squall check` and give back the classes, the
+# open-loop rate within 5 % and its mix within 2 points, Poisson arrivals, and the fleet with
+# its agents, period and aligned timing; the NDJSON log, which carries durations, also the 20
+# watches. About 80 s.
+set -uo pipefail
+source "$SRCDIR/tests/integration/lib/port.sh"
+source "$SRCDIR/tests/integration/lib/run.sh"
+T="$BUILDDIR/profile-nginx"
+rm -rf "$T"
+mkdir -p "$T/tmp"
+PORT=$(free_port)
+USER_LINE=""
+[ "$(id -u)" = 0 ] && USER_LINE="user root root;"
+cat >"$T/nginx.conf" <<CONF
+$USER_LINE
+daemon off;
+worker_processes 1;
+pid $T/nginx.pid;
+error_log $T/error.log warn;
+load_module /usr/lib/nginx/modules/ngx_http_echo_module.so;
+events { worker_connections 4096; }
+http {
+    client_body_temp_path $T/tmp;
+    proxy_temp_path $T/tmp;
+    fastcgi_temp_path $T/tmp;
+    uwsgi_temp_path $T/tmp;
+    scgi_temp_path $T/tmp;
+    keepalive_requests 1000000;
+    keepalive_timeout 120s;
+    default_type application/json;
+    log_format sqjson escape=json '{"msec":\$msec,"method":"\$request_method",'
+        '"uri":"\$request_uri","status":\$status,"request_time":\$request_time,'
+        '"client":"\$remote_addr","bytes":\$body_bytes_sent}';
+    access_log $T/access.log combined;
+    access_log $T/access.ndjson sqjson;
+    server {
+        listen 127.0.0.1:$PORT;
+        location /v1/ {
+            if (\$arg_watch) { rewrite ^ /watch-stream last; }
+            return 200 '{"items":[]}\n';
+        }
+        # A long-lived watch: one NDJSON event, then the stream stays open 5 s.
+        location = /watch-stream {
+            internal;
+            echo '{"type":"create","path":"/v1/sites/north/gateways/gw-1","version":1}';
+            echo_flush;
+            echo_sleep 5;
+        }
+    }
+}
+CONF
+NGX_PID=
+stop_nginx() {
+    stop_pid "$NGX_PID"
+    NGX_PID=
+}
+trap stop_nginx EXIT
+nginx -p "$T" -e "$T/error.log" -c "$T/nginx.conf" &
+NGX_PID=$!
+wait_port "$PORT" || { echo "FAIL: nginx did not listen on $PORT"; cat "$T/error.log"; exit 1; }
+
+cat >"$T/known.yaml" <<YAML
+seed: 13
+target: {url: "http://127.0.0.1:$PORT", http: "1.1", connections: 64, timeout: 10s}
+vars:
+  site: [north, south, harbor, ridge]
+requests:
+  read-gateway: {kind: get, path: "/v1/sites/{{site}}/gateways/gw-{{pick:0..99}}"}
+  list-site: {kind: list, path: "/v1/sites/{{site}}/gateways", page: 500}
+  renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}",
+          body: '{"holder":"gw-{{agent}}","stamp":{{now_ns}}}'}
+  follow-site: {kind: watch, path: "/v1/sites/{{site}}/gateways?watch=1",
+                reconnect: {policy: immediate}}
+phases:
+  - name: steady
+    duration: 60s
+    rate: 50.2/s
+    arrivals: poisson
+    mix: {read-gateway: 250, list-site: 1}
+    fleet: {agents: 300, every: 10s, timing: aligned, send: renew}
+    watches: {follow-site: 20}
+YAML
+run_plan "$T/run" "$T/known.yaml" --no-brakes
+expect "the known plan ran against nginx (exit $RUN_RC)" test "$RUN_RC" = 0
+sleep 6 # the last watches end (echo_sleep) and are logged
+stop_nginx
+SENT=$(rget "$T/run" "total('read-gateway', '2xx') + total('list-site', '2xx')")
+echo "squall sent $SENT open-loop requests; nginx logged $(wc -l <"$T/access.log") lines"
+
+"$SQUALL" profile "$T/access.log" -o "$T/combined.yaml" 2>"$T/combined.err"
+rc=$?
+expect "profile of the combined log exits 0 (got $rc: $(tail -1 "$T/combined.err"))" test $rc = 0
+"$SQUALL" profile "$T/access.ndjson" --field time=msec --field path=uri \
+    --field duration=request_time --time-at end -o "$T/ndjson.yaml" 2>"$T/ndjson.err"
+rc=$?
+expect "profile of the NDJSON log exits 0 (got $rc: $(tail -1 "$T/ndjson.err"))" test $rc = 0
+for f in combined ndjson; do
+    "$SQUALL" check "$T/$f.yaml" >"$T/$f.check" 2>&1
+    rc=$?
+    expect "squall check accepts the plan derived from the $f log (exit $rc)" test $rc = 0
+done
+
+# The derived plans against the known one (python3-yaml reads them as any YAML reader would).
+/usr/bin/python3 - "$T" "$SENT" <<'PY' || FAILED=1
+import re, sys, yaml
+T, sent = sys.argv[1], int(sys.argv[2])
+bad = 0
+def check(desc, ok):
+    global bad
+    print(("ok: " if ok else "FAIL: ") + desc)
+    bad += not ok
+def seconds(d):
+    m = re.fullmatch(r"(\d+)(h|m|s|ms)", d)
+    return int(m[1]) * {"h": 3600, "m": 60, "s": 1, "ms": 1e-3}[m[2]]
+def per_s(r):
+    m = re.fullmatch(r"([0-9.]+)/(s|m|h)", r)
+    return float(m[1]) / {"s": 1, "m": 60, "h": 3600}[m[2]]
+for name in ("combined", "ndjson"):
+    p = yaml.safe_load(open(f"{T}/{name}.yaml"))
+    reqs = p["requests"]
+    by = {}
+    for c, r in reqs.items():
+        key = (r["kind"], r.get("method", "GET"))
+        by[key] = (c, r)
+    check(f"{name}: four classes, one get, list, PUT write and watch ({sorted(reqs)})",
+          len(reqs) == 4 and set(by) == {("get", "GET"), ("list", "GET"), ("write", "PUT"),
+                                         ("watch", "GET")})
+    if len(by) != 4 or ("get", "GET") not in by:
+        continue
+    get, lst, put, watch = (by[k] for k in (("get", "GET"), ("list", "GET"), ("write", "PUT"),
+                                            ("watch", "GET")))
+    check(f"{name}: the read's path shape is /v1/sites/{{{{site}}}}/gateways/gw-{{{{pick:0..99}}}}",
+          get[1]["path"] == "/v1/sites/{{site}}/gateways/gw-{{pick:0..99}}")
+    check(f"{name}: the list's path and page size 500",
+          lst[1]["path"] == "/v1/sites/{{site}}/gateways" and lst[1].get("page") == 500)
+    check(f"{name}: the renewals keep PUT and name the agent ({put[1]['path']})",
+          put[1]["path"] == "/v1/leases/gw-{{agent}}")
+    check(f"{name}: the watch keeps its marker ({watch[1]['path']})",
+          watch[1]["path"] == "/v1/sites/{{site}}/gateways?watch=1")
+    check(f"{name}: the sites are a word list ({p.get('vars')})",
+          set(p.get("vars", {}).get("site", [])) == {"north", "south", "harbor", "ridge"})
+    ph = p["phases"][0]
+    dur = seconds(ph["duration"])
+    rate = per_s(ph["rate"]) if "rate" in ph else \
+        sum(per_s(s["rate"]) * seconds(s["for"]) for s in ph["steps"]) / dur
+    check(f"{name}: phase of {dur} s for the 60 s run (within 5 %)", abs(dur - 60) <= 3)
+    check(f"{name}: open-loop rate {rate:.2f}/s within 5 % of the planned 50.2/s",
+          abs(rate - 50.2) <= 0.05 * 50.2)
+    check(f"{name}: rate x duration = {rate * dur:.0f} within 2 % of the {sent} squall sent",
+          abs(rate * dur - sent) <= 0.02 * sent)
+    check(f"{name}: arrivals poisson ({ph.get('arrivals')})", ph.get("arrivals") == "poisson")
+    mix = ph["mix"]
+    total = sum(mix.values())
+    check(f"{name}: mix {mix} within 2 points of 99.6 / 0.4",
+          abs(100 * mix.get(get[0], 0) / total - 100 * 250 / 251) <= 2 and
+          abs(100 * mix.get(lst[0], 0) / total - 100 / 251) <= 2 and len(mix) == 2)
+    fl = ph.get("fleet", {})
+    check(f"{name}: fleet of 300 agents every 10s, aligned, sending the renewals ({fl})",
+          fl.get("agents") == 300 and fl.get("every") == "10s" and
+          fl.get("timing") == "aligned" and fl.get("send") == put[0])
+    w = ph.get("watches", {})
+    if name == "ndjson":
+        check(f"{name}: 20 watches of the watch class ({w})", w == {watch[0]: 20})
+    else:
+        check(f"{name}: the watch class is held open ({w}; a 1 s format has no durations)",
+              list(w) == [watch[0]] and w[watch[0]] >= 1)
+sys.exit(1 if bad else 0)
+PY
+[ "$FAILED" = 0 ] && echo "PASS: profile nginx" || echo "FAIL: profile nginx"
+exit "$FAILED"
