@@ -216,9 +216,11 @@ static void on_wake(uv_timer_t *t)
         rearm(r, now); /* the loop polls next: the timer must be armed before it blocks */
 }
 
-/* After every loop pass: the end of draining or of the teardown, and the wake-up rearmed for
- * what the pass changed (a closed-loop answer, a watch that must reconnect). */
-static void on_check(uv_check_t *c)
+/* Just before the loop polls (and computes how long it may sleep): the end of draining or of
+ * the teardown, and the wake-up rearmed for what the pass changed (a closed-loop answer, a
+ * watch that must reconnect), whichever phase of the loop pass the change came from: timers,
+ * idle callbacks and I/O all run before the next poll. */
+static void on_prepare(uv_prepare_t *c)
 {
     run_t *r = c->data;
     int64_t now = clock_mono_ns();
@@ -323,10 +325,10 @@ static void finish(run_t *r)
     r->eng = NULL;
     uv_timer_stop(&r->wake);
     uv_timer_stop(&r->second);
-    uv_check_stop(&r->check);
+    uv_prepare_stop(&r->prepare);
     close_handle((uv_handle_t *)&r->wake);
     close_handle((uv_handle_t *)&r->second);
-    close_handle((uv_handle_t *)&r->check);
+    close_handle((uv_handle_t *)&r->prepare);
     close_handle((uv_handle_t *)&r->sigint);
     close_handle((uv_handle_t *)&r->sigterm);
 }
@@ -335,14 +337,14 @@ static int handles_start(run_t *r)
 {
     uv_timer_init(&r->loop, &r->wake);
     uv_timer_init(&r->loop, &r->second);
-    uv_check_init(&r->loop, &r->check);
+    uv_prepare_init(&r->loop, &r->prepare);
     uv_signal_init(&r->loop, &r->sigint);
     uv_signal_init(&r->loop, &r->sigterm);
-    r->wake.data = r->second.data = r->check.data = r->sigint.data = r->sigterm.data = r;
+    r->wake.data = r->second.data = r->prepare.data = r->sigint.data = r->sigterm.data = r;
     r->wake_at_ns = INT64_MAX;
     int rc = uv_signal_start(&r->sigint, on_signal, SIGINT);
     rc = rc ? rc : uv_signal_start(&r->sigterm, on_signal, SIGTERM);
-    rc = rc ? rc : uv_check_start(&r->check, on_check);
+    rc = rc ? rc : uv_prepare_start(&r->prepare, on_prepare);
     rc = rc ? rc : uv_timer_start(&r->second, on_second, 1000, 1000);
     return rc ? SQ_ELIBUV : 0;
 }

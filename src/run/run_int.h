@@ -51,7 +51,7 @@ typedef struct run {
 
     uv_loop_t loop;
     uv_timer_t wake, second;
-    uv_check_t check; /* after every loop pass: rearm the wake-up, notice the end of draining */
+    uv_prepare_t prepare; /* before every poll: rearm the wake-up, notice the end of draining */
     uv_signal_t sigint, sigterm;
     int64_t wake_at_ns; /* what the wake timer is armed for (INT64_MAX: not armed) */
 

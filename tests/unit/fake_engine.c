@@ -24,6 +24,7 @@ struct eng {
     uv_timer_t tick;
     fx_t *pending;
     int in_flight, max_in_flight, refused;
+    uv_timer_cb on_tick;
     bool stopped, unreachable;
     int64_t window_start;
 };
@@ -54,6 +55,22 @@ static void finish(eng_t *e, fx_t *x, bool cancelled)
     free(x);
 }
 
+/* The timer is one-shot, armed for the earliest answer due (a real engine wakes for its
+ * sockets, not on a fixed tick: the conductor must not count on being woken every ms). */
+static void arm(eng_t *e)
+{
+    int64_t due = INT64_MAX, now = (int64_t)uv_hrtime();
+    for (fx_t *x = e->pending; x; x = x->next)
+        due = x->due_ns < due ? x->due_ns : due;
+    if (due == INT64_MAX || e->stopped) {
+        uv_timer_stop(&e->tick);
+        return;
+    }
+    uv_update_time(e->loop);
+    uv_timer_start(&e->tick, e->on_tick, due > now ? (uint64_t)((due - now + 999999) / 1000000) : 1,
+                   0);
+}
+
 /* Answers every request whose time has come, in submission order. */
 static void on_tick(uv_timer_t *t)
 {
@@ -77,6 +94,7 @@ static void on_tick(uv_timer_t *t)
             return;
         pp = &e->pending;
     }
+    arm(e);
 }
 
 int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
@@ -90,7 +108,7 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     e->window_start = (int64_t)uv_hrtime();
     uv_timer_init(loop, &e->tick);
     e->tick.data = e;
-    uv_timer_start(&e->tick, on_tick, 1, 1);
+    e->on_tick = on_tick;
     fake.engines++;
     if (cfg->n_headers)
         snprintf(fake.headers, sizeof fake.headers, "%s", cfg->headers[0]);
@@ -132,6 +150,7 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     *pp = x;
     if (++e->in_flight > e->max_in_flight)
         e->max_in_flight = e->in_flight;
+    arm(e);
     if (fake.n_log < FAKE_LOG)
         fake.log[fake.n_log++] = (fake_req_t){
             .intended_ns = x->res.intended_ns, .submitted_ns = now, .engine = fake.engines};

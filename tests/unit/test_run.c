@@ -289,6 +289,33 @@ static void test_closed_loop(void **state)
     case_close(&c);
 }
 
+/* Closed-loop clients with think time: a client's next start (its answer + 30 ms) must wake the
+ * loop although the answer came from a timer callback, before the loop went to sleep: 2
+ * clients, 20 ms answers, 30 ms think, 1 s: about 20 each. A wake-up armed only after the next
+ * I/O would let each client start about once a second (counts, not times, are asserted). */
+static void test_closed_loop_think(void **state)
+{
+    (void)state;
+    fake.delay_ns = 20000000;
+    run_case_t c = {0};
+    run_yaml(
+        &c,
+        "target: {url: \"http://127.0.0.1:9\"}\n"
+        "requests:\n  a: {kind: get, path: \"/c/{{agent}}\"}\n"
+        "phases:\n  - {name: p, duration: 1s, clients: {count: 2, think: 30ms}, mix: {a: 1}}\n",
+        NULL);
+    assert_int_equal(c.res.end, RUN_END_DONE);
+    for (int k = 0; k < 2; k++) {
+        char who[16];
+        snprintf(who, sizeof who, "/c/%d", k);
+        int n = 0;
+        for (int i = 0; i < fake.n_log; i++)
+            n += !strcmp(fake.log[i].path, who);
+        assert_true(n >= 8 && n <= 21); /* 1 s / (20 + 30 ms) = 20, plus the one at t = 0 */
+    }
+    case_close(&c);
+}
+
 /* series.csv's planned column: the sources' own model, second by second, adds up to what the
  * plan sends (even 40/s over 1.5 s = 60) and to what was started. */
 static void test_planned_in_series(void **state)
@@ -325,10 +352,15 @@ static void test_planned_in_series(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_phases_in_order), cmocka_unit_test(test_teardown_after_drain),
-        cmocka_unit_test(test_signal),          cmocka_unit_test(test_unreachable),
-        cmocka_unit_test(test_brake),           cmocka_unit_test(test_internal_failure),
-        cmocka_unit_test(test_closed_loop),     cmocka_unit_test(test_planned_in_series),
+        cmocka_unit_test(test_phases_in_order),
+        cmocka_unit_test(test_teardown_after_drain),
+        cmocka_unit_test(test_signal),
+        cmocka_unit_test(test_unreachable),
+        cmocka_unit_test(test_brake),
+        cmocka_unit_test(test_internal_failure),
+        cmocka_unit_test(test_closed_loop),
+        cmocka_unit_test(test_closed_loop_think),
+        cmocka_unit_test(test_planned_in_series),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
