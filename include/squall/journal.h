@@ -77,7 +77,7 @@ typedef struct {
     int parallel;     /* deletes in flight at most, >= 1 */
     int attempts;     /* tries per object on 5xx, 429, timeouts and transport errors, >= 1 */
     int64_t limit_ns; /* everything stops after this long */
-    /* Called once per attempt as it is handed to the engine, and once per attempt that ended
+    /* Called once per attempt the engine accepted, and once per attempt that ended
      * (cancelled ones too), with the object's index, the engine's result and its fate so far
      * (LEFT while it will be retried or when cancelled). Either may be NULL. */
     void (*on_submit)(void *user, size_t i);

@@ -104,8 +104,6 @@ static void on_done(void *user, const eng_result_t *res);
 
 static int submit(reaper_t *rp, size_t i, int64_t intended)
 {
-    if (rp->cfg->on_submit)
-        rp->cfg->on_submit(rp->cfg->user, i);
     eng_req_t req = {
         .method = "DELETE",
         .path = rp->paths[i],
@@ -117,6 +115,8 @@ static int submit(reaper_t *rp, size_t i, int64_t intended)
     if (rc == 0) {
         rp->in_flight++;
         rp->attempts[i]++;
+        if (rp->cfg->on_submit) /* on_done has not run yet: it never runs inside eng_submit */
+            rp->cfg->on_submit(rp->cfg->user, i);
     }
     return rc;
 }

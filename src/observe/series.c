@@ -12,6 +12,7 @@ typedef struct {
     const plan_t *plan;
     out_t *o;
     FILE *f;
+    int64_t real_minus_mono; /* CLOCK_REALTIME - CLOCK_MONOTONIC, read at each phase's start */
 } series_t;
 
 static void series_free(void *self)
@@ -44,9 +45,16 @@ static int series_open(void *self, const char *dir)
     }
     /* Times in milliseconds; `second` counts from the start of the run. */
     fputs("second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,"
-          "planned\n",
+          "planned,unix_ms\n",
           s->f);
     return 0;
+}
+
+/* Wall-clock time of the rows: the monotonic clock's offset, taken as each phase starts. */
+static void series_phase(void *self, size_t phase, int64_t base_ns, int64_t realtime0_ns)
+{
+    (void)phase;
+    ((series_t *)self)->real_minus_mono = realtime0_ns - base_ns;
 }
 
 static double ms(int64_t ns)
@@ -63,12 +71,13 @@ static void series_second(void *self, const obs_second_t *w)
         const obs_cell_t *c = &w->cells[i];
         const hist_t *h = c->response;
         bool any = h && c->completed > 0;
-        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f\n",
+        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld\n",
                 (long long)w->index, obs_phase_name(s->plan, c->phase),
                 obs_class_name(s->plan, c->cls), (long long)c->started, (long long)c->completed,
                 (double)c->completed / w->secs, (long long)c->errors,
                 any ? ms(hist_value_at(h, 50)) : 0.0, any ? ms(hist_value_at(h, 90)) : 0.0,
-                any ? ms(hist_value_at(h, 99)) : 0.0, any ? ms(hist_max(h)) : 0.0, c->planned);
+                any ? ms(hist_value_at(h, 99)) : 0.0, any ? ms(hist_max(h)) : 0.0, c->planned,
+                (long long)((w->start_ns + s->real_minus_mono) / 1000000));
     }
     fflush(s->f);
 }
@@ -86,6 +95,7 @@ static int series_finish(void *self, results_t *res, const char *dir)
 static const obs_ops_t ops = {
     .name = "series",
     .open = series_open,
+    .phase = series_phase,
     .second = series_second,
     .finish = series_finish,
     .free = series_free,

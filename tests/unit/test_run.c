@@ -335,11 +335,14 @@ static void test_planned_in_series(void **state)
     long started = 0;
     assert_non_null(fgets(line, sizeof line, f)); /* header */
     while (fgets(line, sizeof line, f)) {
-        char *fld[12] = {0};
+        char *fld[13] = {0};
         int n = 0;
-        for (char *t = strtok(line, ",\n"); t && n < 12; t = strtok(NULL, ",\n"))
+        for (char *t = strtok(line, ",\n"); t && n < 13; t = strtok(NULL, ",\n"))
             fld[n++] = t;
-        assert_int_equal(n, 12);
+        assert_int_equal(n, 13);
+        /* unix_ms: the second's wall-clock start, within the run (results.json's start). */
+        int64_t unix_ms = atoll(fld[12]), start = results_meta(c.results)->start_unix_ms;
+        assert_true(unix_ms >= start - 1000 && unix_ms <= start + 10000);
         started += atol(fld[3]);
         planned += atof(fld[11]);
     }
