@@ -3,7 +3,8 @@
  *
  * Layout: buf.c (a growable byte buffer), store.c (objects, collections, versions, history),
  * stream.c (watch streams), fault.c (fault parsing and decisions), report.c (/stats, /metrics),
- * http.c (libmicrohttpd handlers and routing), server.c (lifecycle on the libuv loop).
+ * reply.c (answers and their counts), http.c (libmicrohttpd handlers and routing), server.c
+ * (lifecycle on the libuv loop).
  * Internal names carry the prefix srv_; the public API (squall/server.h) uses server_. */
 #ifndef SQUALL_SERVER_INT_H
 #define SQUALL_SERVER_INT_H
@@ -182,12 +183,6 @@ enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const ch
                                 size_t *upload_size, void **con_cls);
 void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
                         enum MHD_RequestTerminationCode code);
-/* Queues a response with a body copied from (body, len) and counts it. */
-enum MHD_Result srv_http_reply(srv_server_t *sv, struct MHD_Connection *conn, int method,
-                               unsigned status, const char *ctype, const char *body, size_t len);
-enum MHD_Result srv_http_error(srv_server_t *sv, struct MHD_Connection *conn, int method,
-                               unsigned status, const char *code, const char *msg);
-void srv_http_count(srv_server_t *sv, int method, unsigned status);
 /* Resumes every suspended request (shutdown). */
 void srv_http_release_all(srv_server_t *sv);
 /* Applies a new fault configuration now. */
@@ -200,6 +195,19 @@ void srv_server_kick(srv_server_t *sv);
  * watch stream. */
 enum MHD_Result srv_api_serve(srv_server_t *sv, struct MHD_Connection *conn, int method,
                               const char *url, const char *body, size_t len, bool *watch);
+
+/* reply.c: answers and their counts. A method of -1 is not counted (routes outside /v1/). */
+void srv_reply_count(srv_server_t *sv, int method, unsigned status);
+/* Queues a response with a body copied from (body, len) and counts it. */
+enum MHD_Result srv_reply(srv_server_t *sv, struct MHD_Connection *conn, int method,
+                          unsigned status, const char *ctype, const char *body, size_t len);
+/* Queues an error answer {"error": CODE, "message": MSG} and counts it. */
+enum MHD_Result srv_reply_error(srv_server_t *sv, struct MHD_Connection *conn, int method,
+                                unsigned status, const char *code, const char *msg);
+/* The same with a Retry-After of retry_after seconds (none when negative). */
+enum MHD_Result srv_reply_error_retry(srv_server_t *sv, struct MHD_Connection *conn, int method,
+                                      unsigned status, const char *code, const char *msg,
+                                      int retry_after);
 
 /* report.c */
 int srv_report_stats(srv_server_t *sv, srv_buf_t *b);
