@@ -185,10 +185,8 @@ void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
                         enum MHD_RequestTerminationCode code);
 /* Resumes every suspended request (shutdown). */
 void srv_http_release_all(srv_server_t *sv);
-/* Applies a new fault configuration now. */
-void srv_server_set_faults(srv_server_t *sv, const server_faults_t *f);
-/* Ask libmicrohttpd to run soon (after a resume). */
-void srv_server_drop_soon(srv_server_t *sv);
+/* Applies a new fault configuration now (and arms the drop-watches timer, sv->drop). */
+void srv_http_set_faults(srv_server_t *sv, const server_faults_t *f);
 void srv_server_kick(srv_server_t *sv);
 
 /* api.c: serves one /v1/ request (faults already applied). Sets *watch when it opened a
