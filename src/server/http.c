@@ -53,7 +53,7 @@ static void hold_release(srv_req_t *q)
         q->hnext->hprev = q->hprev;
     q->hprev = q->hnext = NULL;
     MHD_resume_connection(q->conn);
-    srv_server_kick(sv);
+    sv->kick(sv);
 }
 
 static void timer_free(uv_handle_t *h)
@@ -236,7 +236,7 @@ static void drop_soon(srv_server_t *sv)
     /* Ending streams from inside one of libmicrohttpd's own callbacks left a parked stream
      * unnoticed (measured with 0.9.75); from outside MHD_run it always works. */
     sv->drop_pending = true;
-    srv_server_kick(sv);
+    sv->kick(sv);
 }
 
 /* Applies a POSTed fault configuration; on a bad body answers 400 and returns true. */
@@ -405,5 +405,5 @@ void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
     srv_buf_free(&q->body);
     free(q);
     *con_cls = NULL;
-    srv_server_kick(sv); /* A closing connection is only cleaned up on the next MHD_run. */
+    sv->kick(sv); /* A closing connection is only cleaned up on the next MHD_run. */
 }

@@ -52,7 +52,9 @@ static void mhd_run(srv_server_t *sv)
         uv_timer_stop(&sv->tick);
 }
 
-void srv_server_kick(srv_server_t *sv)
+/* Runs libmicrohttpd again soon: the hook (sv->kick) the files below call after resuming a
+ * connection or when one ended, since libmicrohttpd acts on either only in its next run. */
+static void kick(srv_server_t *sv)
 {
     if (sv->stopping)
         return;
@@ -135,6 +137,7 @@ int server_start(uv_loop_t *loop, const server_opts_t *opts, out_t *o, server_t 
     sv->loop = loop;
     sv->out = o;
     sv->opts = *opts;
+    sv->kick = kick;
     rng_seed(&sv->rng, opts->seed);
     if (srv_store_init(&sv->store, opts->history) < 0)
         goto fail_t;

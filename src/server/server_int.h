@@ -148,6 +148,9 @@ struct srv_server {
     uv_timer_t drop;  /* the drop-watches fault */
     uv_idle_t idle;   /* runs libmicrohttpd again soon after a connection was resumed */
     uv_timer_t sweep; /* finds parked watch streams whose client went away */
+    /* Asks for libmicrohttpd to run again soon (after a resume, or once a connection ended):
+     * server.c's hook, so that the files below it never call server.c. */
+    void (*kick)(srv_server_t *sv);
     bool in_run, kicked;
     bool drop_pending; /* POST /admin/drop-watches: drop from the idle callback */
     int handles_open;
@@ -187,7 +190,6 @@ void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
 void srv_http_release_all(srv_server_t *sv);
 /* Applies a new fault configuration now (and arms the drop-watches timer, sv->drop). */
 void srv_http_set_faults(srv_server_t *sv, const server_faults_t *f);
-void srv_server_kick(srv_server_t *sv);
 
 /* api.c: serves one /v1/ request (faults already applied). Sets *watch when it opened a
  * watch stream. */

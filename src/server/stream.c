@@ -32,7 +32,7 @@ static void stream_wake(srv_stream_t *st)
         return;
     st->suspended = false;
     MHD_resume_connection(st->conn);
-    srv_server_kick(st->sv);
+    st->sv->kick(st->sv);
 }
 
 static ssize_t stream_read(void *cls, uint64_t pos, char *out, size_t max)
@@ -92,7 +92,7 @@ static void stream_free(void *cls)
     free(st);
     /* libmicrohttpd closes the socket of a finished connection on its next MHD_run; without
      * another run a dropped stream's client would not notice until other traffic came. */
-    srv_server_kick(sv);
+    sv->kick(sv);
 }
 
 /* Queues one event line, or ends the stream when the line would pass its buffer limit. */
