@@ -1,10 +1,13 @@
 /* Internals of the embedded server ("the embedded target" to users), shared by the files of
- * src/server/ only.
+ * src/server/ only. Its layers, each file calling only files to its right (tools/layers checks):
+ * server.c -> http.c -> api.c -> stream.c -> reply.c -> report.c -> fault.c -> store.c -> buf.c
  *
- * Layout: buf.c (a growable byte buffer), store.c (objects, collections, versions, history),
- * stream.c (watch streams), fault.c (fault parsing and decisions), report.c (/stats, /metrics),
- * reply.c (answers and their counts), http.c (libmicrohttpd handlers and routing), server.c
- * (lifecycle on the libuv loop).
+ * server.c: lifecycle on the libuv loop. http.c: libmicrohttpd's handlers, the request
+ * lifecycle, fault steps, admin and report routes. api.c: the /v1/ routes. stream.c: watch
+ * streams. reply.c: answers and their counts. report.c: /stats, /metrics, fault counts.
+ * fault.c: fault settings and draws. store.c: objects, collections, versions, history. buf.c: a
+ * growable byte buffer. Where a lower file must reach up it calls a hook installed from above:
+ * sv->kick (run libmicrohttpd again soon) and store.on_event (publish a write to watchers).
  * Internal names carry the prefix srv_; the public API (squall/server.h) uses server_. */
 #ifndef SQUALL_SERVER_INT_H
 #define SQUALL_SERVER_INT_H
