@@ -41,7 +41,7 @@ static enum MHD_Result reply_obj(srv_server_t *sv, struct MHD_Connection *conn, 
     MHD_add_response_header(r, "ETag", etag);
     if (status == 201)
         MHD_add_response_header(r, "Location", o->path);
-    srv_http_count(sv, method, status);
+    srv_reply_count(sv, method, status);
     enum MHD_Result rc = MHD_queue_response(conn, status, r);
     MHD_destroy_response(r);
     return rc;
@@ -53,8 +53,8 @@ static enum MHD_Result list(srv_server_t *sv, struct MHD_Connection *conn, int m
     uint64_t limit = 0;
     const char *ls = arg(conn, "limit"), *token = arg(conn, "continue");
     if (ls && !parse_u64(ls, &limit))
-        return srv_http_error(sv, conn, method, 400, "bad-limit",
-                              "limit must be a non-negative integer (0 = no limit)");
+        return srv_reply_error(sv, conn, method, 400, "bad-limit",
+                               "limit must be a non-negative integer (0 = no limit)");
     size_t i = (c && token && *token) ? srv_coll_after(c, token) : 0, n = c ? c->n : 0;
     size_t end = (limit > 0 && limit < n - i) ? i + limit : n;
     srv_buf_t b = {0};
@@ -75,8 +75,8 @@ static enum MHD_Result list(srv_server_t *sv, struct MHD_Connection *conn, int m
         rc |= srv_buf_json_str(&b, c->items[end - 1]->name);
     }
     rc |= srv_buf_str(&b, "}");
-    enum MHD_Result r = rc < 0 ? srv_http_error(sv, conn, method, 500, "no-memory", "no memory")
-                               : srv_http_reply(sv, conn, method, 200, ctype_json, b.p, b.len);
+    enum MHD_Result r = rc < 0 ? srv_reply_error(sv, conn, method, 500, "no-memory", "no memory")
+                               : srv_reply(sv, conn, method, 200, ctype_json, b.p, b.len);
     srv_buf_free(&b);
     return r;
 }
@@ -88,10 +88,10 @@ static enum MHD_Result watch(srv_server_t *sv, struct MHD_Connection *conn, int 
     uint64_t since = s->version;
     const char *ss = arg(conn, "since");
     if (method == SRV_M_HEAD)
-        return srv_http_error(sv, conn, method, 400, "bad-watch", "watch with GET, not HEAD");
+        return srv_reply_error(sv, conn, method, 400, "bad-watch", "watch with GET, not HEAD");
     if (ss && !parse_u64(ss, &since))
-        return srv_http_error(sv, conn, method, 400, "bad-since",
-                              "since must be a version (a non-negative integer)");
+        return srv_reply_error(sv, conn, method, 400, "bad-since",
+                               "since must be a version (a non-negative integer)");
     int first = srv_store_history_after(s, since);
     if (first < 0) {
         char msg[256];
@@ -100,7 +100,7 @@ static enum MHD_Result watch(srv_server_t *sv, struct MHD_Connection *conn, int 
                  "version %llu is older than the history window (the oldest version a watch can "
                  "resume from is %llu); list the collection again and watch from its version",
                  (unsigned long long)since, (unsigned long long)s->evicted_upto);
-        return srv_http_error(sv, conn, method, 410, "expired", msg);
+        return srv_reply_error(sv, conn, method, 410, "expired", msg);
     }
     *is_watch = true;
     return srv_stream_open(sv, conn, path, first);
@@ -119,7 +119,7 @@ static enum MHD_Result get(srv_server_t *sv, struct MHD_Connection *conn, int me
     /* A collection that ever had a member stays listable (possibly empty). */
     srv_coll_t *c = srv_store_coll(&sv->store, path);
     if (!c && !coll_only)
-        return srv_http_error(sv, conn, method, 404, "not-found", "no object or collection here");
+        return srv_reply_error(sv, conn, method, 404, "not-found", "no object or collection here");
     return list(sv, conn, method, path, c);
 }
 
@@ -130,7 +130,7 @@ static enum MHD_Result conflict(srv_server_t *sv, struct MHD_Connection *conn, i
     char msg[160];
     snprintf(msg, sizeof(msg), "expected version %llu, the object is at version %llu",
              (unsigned long long)expect, (unsigned long long)(o ? o->version : 0));
-    return srv_http_error(sv, conn, method, 409, "conflict", msg);
+    return srv_reply_error(sv, conn, method, 409, "conflict", msg);
 }
 
 static enum MHD_Result write_obj(srv_server_t *sv, struct MHD_Connection *conn, int method,
@@ -142,8 +142,8 @@ static enum MHD_Result write_obj(srv_server_t *sv, struct MHD_Connection *conn, 
     uint64_t expect = 0;
     const char *vs = arg(conn, "version");
     if (vs && !parse_u64(vs, &expect))
-        return srv_http_error(sv, conn, method, 400, "bad-version",
-                              "version must be the expected object version (0 = must not exist)");
+        return srv_reply_error(sv, conn, method, 400, "bad-version",
+                               "version must be the expected object version (0 = must not exist)");
     json_t *doc = NULL;
     if (op != SRV_OP_DELETE) {
         json_error_t je;
@@ -152,7 +152,7 @@ static enum MHD_Result write_obj(srv_server_t *sv, struct MHD_Connection *conn, 
             sv->bad_json++;
             snprintf(msg, sizeof(msg), "malformed JSON body at line %d column %d: %s", je.line,
                      je.column, je.text);
-            return srv_http_error(sv, conn, method, 400, "bad-json", msg);
+            return srv_reply_error(sv, conn, method, 400, "bad-json", msg);
         }
     }
     srv_obj_t *o;
@@ -161,11 +161,11 @@ static enum MHD_Result write_obj(srv_server_t *sv, struct MHD_Connection *conn, 
     if (status == 409)
         return conflict(sv, conn, method, path, expect);
     if (status == 404)
-        return srv_http_error(sv, conn, method, 404, "not-found", "no object here");
+        return srv_reply_error(sv, conn, method, 404, "not-found", "no object here");
     if (status == 204)
-        return srv_http_reply(sv, conn, method, 204, NULL, "", 0);
+        return srv_reply(sv, conn, method, 204, NULL, "", 0);
     if (!o)
-        return srv_http_error(sv, conn, method, 500, "no-memory", "out of memory");
+        return srv_reply_error(sv, conn, method, 500, "no-memory", "out of memory");
     return reply_obj(sv, conn, method, (unsigned)status, o);
 }
 
@@ -181,16 +181,16 @@ enum MHD_Result srv_api_serve(srv_server_t *sv, struct MHD_Connection *conn, int
     path[n - (coll_only ? 1 : 0)] = '\0';
     if (!srv_path_valid(path)) {
         sv->bad_path++;
-        return srv_http_error(sv, conn, method, 400, "bad-path",
-                              "a path is /v1/ then 1 to 16 segments of letters, digits and . _ ~ "
-                              "- (512 bytes at most)");
+        return srv_reply_error(sv, conn, method, 400, "bad-path",
+                               "a path is /v1/ then 1 to 16 segments of letters, digits and . _ ~ "
+                               "- (512 bytes at most)");
     }
     if (method == SRV_M_GET || method == SRV_M_HEAD)
         return get(sv, conn, method, path, coll_only, is_watch);
     if (coll_only) {
         sv->bad_path++;
-        return srv_http_error(sv, conn, method, 400, "bad-path",
-                              "writes name an object, not a collection (drop the trailing /)");
+        return srv_reply_error(sv, conn, method, 400, "bad-path",
+                               "writes name an object, not a collection (drop the trailing /)");
     }
     return write_obj(sv, conn, method, path, body, len);
 }

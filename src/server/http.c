@@ -1,6 +1,6 @@
 /* Request lifecycle of the embedded target: body collection and limits, the fault pipeline
- * (stall, in-flight limit, added latency, injected errors), admin and report routes, and the
- * per-request accounting (counts, server-side latency). The /v1/ store API is in api.c. */
+ * (stall, in-flight limit, added latency, injected errors), admin and report routes, and each
+ * request's server-side latency. The /v1/ store API is in api.c, answers and counts in reply.c. */
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -20,8 +20,6 @@ struct srv_req {
     srv_req_t *qnext;         /* in the in-flight queue */
 };
 
-static const char allow[] = "GET, HEAD, PUT, POST, PATCH, DELETE";
-
 static int method_index(const char *m)
 {
     static const char *const names[] = {"GET", "HEAD", "PUT", "POST", "PATCH", "DELETE"};
@@ -29,66 +27,6 @@ static int method_index(const char *m)
         if (strcmp(m, names[i]) == 0)
             return i;
     return SRV_M_OTHER;
-}
-
-void srv_http_count(srv_server_t *sv, int method, unsigned status)
-{
-    if (method >= 0 && method < SRV_M_COUNT && status < 600)
-        sv->requests[method][status]++;
-}
-
-static enum MHD_Result queue(srv_server_t *sv, struct MHD_Connection *conn, int method,
-                             unsigned status, struct MHD_Response *r)
-{
-    if (!r)
-        return MHD_NO;
-    srv_http_count(sv, method, status);
-    enum MHD_Result rc = MHD_queue_response(conn, status, r);
-    MHD_destroy_response(r);
-    return rc;
-}
-
-enum MHD_Result srv_http_reply(srv_server_t *sv, struct MHD_Connection *conn, int method,
-                               unsigned status, const char *ctype, const char *body, size_t len)
-{
-    struct MHD_Response *r =
-        MHD_create_response_from_buffer(len, (void *)body, MHD_RESPMEM_MUST_COPY);
-    if (r && ctype)
-        MHD_add_response_header(r, "Content-Type", ctype);
-    if (r && status == 405)
-        MHD_add_response_header(r, "Allow", allow);
-    return queue(sv, conn, method, status, r);
-}
-
-/* An error answer: {"error": CODE, "message": MSG}, optionally with Retry-After. */
-static enum MHD_Result error_reply(srv_server_t *sv, struct MHD_Connection *conn, int method,
-                                   unsigned status, const char *code, const char *msg,
-                                   int retry_after)
-{
-    srv_buf_t b = {0};
-    srv_buf_printf(&b, "{\"error\":\"%s\",\"message\":", code);
-    srv_buf_json_str(&b, msg);
-    srv_buf_str(&b, "}\n");
-    struct MHD_Response *r =
-        MHD_create_response_from_buffer(b.len, b.p ? b.p : "", MHD_RESPMEM_MUST_COPY);
-    srv_buf_free(&b);
-    if (r) {
-        MHD_add_response_header(r, "Content-Type", "application/json");
-        if (status == 405)
-            MHD_add_response_header(r, "Allow", allow);
-        if (retry_after >= 0) {
-            char v[16];
-            snprintf(v, sizeof(v), "%d", retry_after);
-            MHD_add_response_header(r, "Retry-After", v);
-        }
-    }
-    return queue(sv, conn, method, status, r);
-}
-
-enum MHD_Result srv_http_error(srv_server_t *sv, struct MHD_Connection *conn, int method,
-                               unsigned status, const char *code, const char *msg)
-{
-    return error_reply(sv, conn, method, status, code, msg, -1);
 }
 
 /* ---- Holding requests: suspended connections, woken by a timer or by a free slot. */
@@ -115,7 +53,7 @@ static void hold_release(srv_req_t *q)
         q->hnext->hprev = q->hprev;
     q->hprev = q->hnext = NULL;
     MHD_resume_connection(q->conn);
-    srv_server_kick(sv);
+    sv->kick(sv);
 }
 
 static void timer_free(uv_handle_t *h)
@@ -142,7 +80,7 @@ static enum MHD_Result hold_for(srv_req_t *q, int64_t ns)
 {
     q->timer = malloc(sizeof(*q->timer));
     if (!q->timer)
-        return srv_http_error(q->sv, q->conn, q->method, 500, "no-memory", "out of memory");
+        return srv_reply_error(q->sv, q->conn, q->method, 500, "no-memory", "out of memory");
     uv_timer_init(q->sv->loop, q->timer);
     q->timer->data = q;
     q->due = uv_hrtime() + (uint64_t)ns;
@@ -223,8 +161,8 @@ static bool admit_or_hold(srv_req_t *q, enum MHD_Result *rc)
     if (f->max_inflight > 0 && sv->inflight >= f->max_inflight) {
         if (f->over_limit_reject) {
             sv->fc.rejected++;
-            *rc = error_reply(sv, q->conn, q->method, 429, "over-limit",
-                              "too many requests in flight", f->retry_after_s);
+            *rc = srv_reply_error_retry(sv, q->conn, q->method, 429, "over-limit",
+                                        "too many requests in flight", f->retry_after_s);
             return true;
         }
         sv->fc.queued++;
@@ -251,8 +189,8 @@ static enum MHD_Result faults_then_serve(srv_req_t *q, const char *url)
     const server_faults_t *f = &sv->faults;
     enum MHD_Result rc;
     if (sv->draining)
-        return error_reply(sv, q->conn, q->method, 503, "shutting-down", "the target is stopping",
-                           1);
+        return srv_reply_error_retry(sv, q->conn, q->method, 503, "shutting-down",
+                                     "the target is stopping", 1);
     if (stall_hold(q, &rc) || admit_or_hold(q, &rc))
         return rc;
     if (!q->delayed) {
@@ -266,14 +204,40 @@ static enum MHD_Result faults_then_serve(srv_req_t *q, const char *url)
     }
     if (f->fail_rate > 0 && rng_unit(&sv->rng) <= f->fail_rate) {
         sv->fc.failed++;
-        return error_reply(sv, q->conn, q->method, (unsigned)f->fail_status, "injected",
-                           "an error injected by the target's fault settings", f->retry_after_s);
+        return srv_reply_error_retry(sv, q->conn, q->method, (unsigned)f->fail_status, "injected",
+                                     "an error injected by the target's fault settings",
+                                     f->retry_after_s);
     }
     return srv_api_serve(sv, q->conn, q->method, url, q->body.p ? q->body.p : "", q->body.len,
                          &q->watch);
 }
 
 /* ---- Routes outside /v1/: reports and administration. */
+
+static void on_drop(uv_timer_t *h)
+{
+    srv_server_t *sv = h->data;
+    sv->fc.drops++;
+    srv_stream_end_all(sv, true);
+}
+
+void srv_http_set_faults(srv_server_t *sv, const server_faults_t *f)
+{
+    sv->faults = *f;
+    sv->faults_at = uv_hrtime();
+    uv_timer_stop(&sv->drop);
+    if (f->drop_at_ns >= 0)
+        uv_timer_start(&sv->drop, on_drop, (uint64_t)(f->drop_at_ns / 1000000), 0);
+}
+
+/* Drops every watch stream from server.c's idle callback, soon after this request. */
+static void drop_soon(srv_server_t *sv)
+{
+    /* Ending streams from inside one of libmicrohttpd's own callbacks left a parked stream
+     * unnoticed (measured with 0.9.75); from outside MHD_run it always works. */
+    sv->drop_pending = true;
+    sv->kick(sv);
+}
 
 /* Applies a POSTed fault configuration; on a bad body answers 400 and returns true. */
 static bool admin_faults_post(srv_req_t *q, enum MHD_Result *rc)
@@ -286,16 +250,16 @@ static bool admin_faults_post(srv_req_t *q, enum MHD_Result *rc)
     if (!j) {
         snprintf(err, sizeof(err), "malformed JSON at line %d column %d: %s", je.line, je.column,
                  je.text);
-        *rc = srv_http_error(sv, q->conn, -1, 400, "bad-json", err);
+        *rc = srv_reply_error(sv, q->conn, -1, 400, "bad-json", err);
         return true;
     }
     int bad = srv_faults_from_json(&f, j, err, sizeof(err));
     json_decref(j);
     if (bad < 0) {
-        *rc = srv_http_error(sv, q->conn, -1, 400, "bad-faults", err);
+        *rc = srv_reply_error(sv, q->conn, -1, 400, "bad-faults", err);
         return true;
     }
-    srv_server_set_faults(sv, &f);
+    srv_http_set_faults(sv, &f);
     out_info(sv->out, "serve: faults set through /admin/faults");
     return false;
 }
@@ -305,8 +269,8 @@ static enum MHD_Result reply_json(srv_server_t *sv, struct MHD_Connection *conn,
     char *s = j ? json_dumps(j, JSON_COMPACT) : NULL;
     json_decref(j);
     if (!s)
-        return srv_http_error(sv, conn, -1, 500, "no-memory", "out of memory");
-    enum MHD_Result rc = srv_http_reply(sv, conn, -1, 200, "application/json", s, strlen(s));
+        return srv_reply_error(sv, conn, -1, 500, "no-memory", "out of memory");
+    enum MHD_Result rc = srv_reply(sv, conn, -1, 200, "application/json", s, strlen(s));
     free(s);
     return rc;
 }
@@ -317,13 +281,12 @@ static enum MHD_Result route_report(srv_req_t *q, const char *url)
     srv_buf_t b = {0};
     bool metrics = strcmp(url, "/metrics") == 0;
     int rc = metrics ? srv_report_metrics(sv, &b) : srv_report_stats(sv, &b);
-    enum MHD_Result r =
-        rc < 0 ? srv_http_error(sv, q->conn, -1, 500, "no-memory", "out of memory")
-               : srv_http_reply(sv, q->conn, -1, 200,
-                                metrics ? "application/openmetrics-text; version=1.0.0; "
-                                          "charset=utf-8"
-                                        : "application/json",
-                                b.p, b.len);
+    enum MHD_Result r = rc < 0 ? srv_reply_error(sv, q->conn, -1, 500, "no-memory", "out of memory")
+                               : srv_reply(sv, q->conn, -1, 200,
+                                           metrics ? "application/openmetrics-text; version=1.0.0; "
+                                                     "charset=utf-8"
+                                                   : "application/json",
+                                           b.p, b.len);
     srv_buf_free(&b);
     return r;
 }
@@ -335,25 +298,25 @@ static enum MHD_Result route_other(srv_req_t *q, const char *url)
     bool post = q->method == SRV_M_POST || q->method == SRV_M_PUT;
     if (strcmp(url, "/stats") == 0 || strcmp(url, "/metrics") == 0)
         return get ? route_report(q, url)
-                   : srv_http_error(sv, q->conn, -1, 405, "bad-method", "use GET");
+                   : srv_reply_error(sv, q->conn, -1, 405, "bad-method", "use GET");
     if (strcmp(url, "/admin/faults") == 0) {
         enum MHD_Result rc;
         if (post && admin_faults_post(q, &rc))
             return rc;
         if (!get && !post)
-            return srv_http_error(sv, q->conn, -1, 405, "bad-method", "use GET or POST");
+            return srv_reply_error(sv, q->conn, -1, 405, "bad-method", "use GET or POST");
         return reply_json(sv, q->conn, srv_report_faults(sv));
     }
     if (strcmp(url, "/admin/drop-watches") == 0) {
         if (q->method != SRV_M_POST)
-            return srv_http_error(sv, q->conn, -1, 405, "bad-method", "use POST");
+            return srv_reply_error(sv, q->conn, -1, 405, "bad-method", "use POST");
         sv->fc.drops++;
-        srv_server_drop_soon(sv);
+        drop_soon(sv);
         return reply_json(sv, q->conn, json_pack("{s:I}", "dropped", (json_int_t)sv->streams_open));
     }
-    return srv_http_error(sv, q->conn, -1, 404, "no-route",
-                          "no such path: objects live under /v1/; see also /stats, /metrics, "
-                          "/admin/faults, /admin/drop-watches");
+    return srv_reply_error(sv, q->conn, -1, 404, "no-route",
+                           "no such path: objects live under /v1/; see also /stats, /metrics, "
+                           "/admin/faults, /admin/drop-watches");
 }
 
 /* ---- libmicrohttpd callbacks */
@@ -378,7 +341,7 @@ static enum MHD_Result too_large(srv_req_t *q)
     char msg[96];
     sv->too_large++;
     snprintf(msg, sizeof(msg), "request body over the limit of %lld bytes", sv->opts.body_limit);
-    return srv_http_error(sv, q->conn, q->v1 ? q->method : -1, 413, "too-large", msg);
+    return srv_reply_error(sv, q->conn, q->v1 ? q->method : -1, 413, "too-large", msg);
 }
 
 enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const char *url,
@@ -413,9 +376,9 @@ enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const ch
     if (q->method == SRV_M_OTHER) {
         sv->bad_method++;
         q->answered = true;
-        return srv_http_error(sv, conn, q->method, 405, "bad-method",
-                              "method not supported; allowed: GET, HEAD, PUT, POST, PATCH, "
-                              "DELETE");
+        return srv_reply_error(sv, conn, q->method, 405, "bad-method",
+                               "method not supported; allowed: GET, HEAD, PUT, POST, PATCH, "
+                               "DELETE");
     }
     enum MHD_Result rc = faults_then_serve(q, url);
     q->answered = q->hprev || q->hnext || sv->held == q ? false : true;
@@ -442,5 +405,5 @@ void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
     srv_buf_free(&q->body);
     free(q);
     *con_cls = NULL;
-    srv_server_kick(sv); /* A closing connection is only cleaned up on the next MHD_run. */
+    sv->kick(sv); /* A closing connection is only cleaned up on the next MHD_run. */
 }

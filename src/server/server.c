@@ -27,14 +27,6 @@ static void on_idle(uv_idle_t *h)
     mhd_run(sv);
 }
 
-void srv_server_drop_soon(srv_server_t *sv)
-{
-    /* Ending streams from inside one of libmicrohttpd's own callbacks left a parked stream
-     * unnoticed (measured with 0.9.75); from outside MHD_run it always works. */
-    sv->drop_pending = true;
-    srv_server_kick(sv);
-}
-
 static void on_poll(uv_poll_t *h, int status, int events)
 {
     (void)status;
@@ -60,7 +52,9 @@ static void mhd_run(srv_server_t *sv)
         uv_timer_stop(&sv->tick);
 }
 
-void srv_server_kick(srv_server_t *sv)
+/* Runs libmicrohttpd again soon: the hook (sv->kick) the files below call after resuming a
+ * connection or when one ended, since libmicrohttpd acts on either only in its next run. */
+static void kick(srv_server_t *sv)
 {
     if (sv->stopping)
         return;
@@ -73,22 +67,6 @@ void srv_server_kick(srv_server_t *sv)
 static void on_sweep(uv_timer_t *h)
 {
     srv_stream_sweep(h->data);
-}
-
-static void on_drop(uv_timer_t *h)
-{
-    srv_server_t *sv = h->data;
-    sv->fc.drops++;
-    srv_stream_end_all(sv, true);
-}
-
-void srv_server_set_faults(srv_server_t *sv, const server_faults_t *f)
-{
-    sv->faults = *f;
-    sv->faults_at = uv_hrtime();
-    uv_timer_stop(&sv->drop);
-    if (f->drop_at_ns >= 0)
-        uv_timer_start(&sv->drop, on_drop, (uint64_t)(f->drop_at_ns / 1000000), 0);
 }
 
 static void mhd_log(void *cls, const char *fmt, va_list ap)
@@ -159,6 +137,7 @@ int server_start(uv_loop_t *loop, const server_opts_t *opts, out_t *o, server_t 
     sv->loop = loop;
     sv->out = o;
     sv->opts = *opts;
+    sv->kick = kick;
     rng_seed(&sv->rng, opts->seed);
     if (srv_store_init(&sv->store, opts->history) < 0)
         goto fail_t;
@@ -180,7 +159,7 @@ int server_start(uv_loop_t *loop, const server_opts_t *opts, out_t *o, server_t 
     uv_timer_start(&sv->sweep, on_sweep, 2000, 2000);
     sv->handles_open = 5;
     uv_poll_start(&sv->poll, UV_READABLE, on_poll);
-    srv_server_set_faults(sv, &opts->faults);
+    srv_http_set_faults(sv, &opts->faults);
     mhd_run(sv);
     *out = t;
     return 0;

@@ -1,9 +1,13 @@
 /* Internals of the embedded server ("the embedded target" to users), shared by the files of
- * src/server/ only.
+ * src/server/ only. Its layers, each file calling only files to its right (tools/layers checks):
+ * server.c -> http.c -> api.c -> stream.c -> reply.c -> report.c -> fault.c -> store.c -> buf.c
  *
- * Layout: buf.c (a growable byte buffer), store.c (objects, collections, versions, history),
- * stream.c (watch streams), fault.c (fault parsing and decisions), report.c (/stats, /metrics),
- * http.c (libmicrohttpd handlers and routing), server.c (lifecycle on the libuv loop).
+ * server.c: lifecycle on the libuv loop. http.c: libmicrohttpd's handlers, the request
+ * lifecycle, fault steps, admin and report routes. api.c: the /v1/ routes. stream.c: watch
+ * streams. reply.c: answers and their counts. report.c: /stats, /metrics, fault counts.
+ * fault.c: fault settings and draws. store.c: objects, collections, versions, history. buf.c: a
+ * growable byte buffer. Where a lower file must reach up it calls a hook installed from above:
+ * sv->kick (run libmicrohttpd again soon) and store.on_event (publish a write to watchers).
  * Internal names carry the prefix srv_; the public API (squall/server.h) uses server_. */
 #ifndef SQUALL_SERVER_INT_H
 #define SQUALL_SERVER_INT_H
@@ -147,6 +151,9 @@ struct srv_server {
     uv_timer_t drop;  /* the drop-watches fault */
     uv_idle_t idle;   /* runs libmicrohttpd again soon after a connection was resumed */
     uv_timer_t sweep; /* finds parked watch streams whose client went away */
+    /* Asks for libmicrohttpd to run again soon (after a resume, or once a connection ended):
+     * server.c's hook, so that the files below it never call server.c. */
+    void (*kick)(srv_server_t *sv);
     bool in_run, kicked;
     bool drop_pending; /* POST /admin/drop-watches: drop from the idle callback */
     int handles_open;
@@ -182,24 +189,28 @@ enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const ch
                                 size_t *upload_size, void **con_cls);
 void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
                         enum MHD_RequestTerminationCode code);
-/* Queues a response with a body copied from (body, len) and counts it. */
-enum MHD_Result srv_http_reply(srv_server_t *sv, struct MHD_Connection *conn, int method,
-                               unsigned status, const char *ctype, const char *body, size_t len);
-enum MHD_Result srv_http_error(srv_server_t *sv, struct MHD_Connection *conn, int method,
-                               unsigned status, const char *code, const char *msg);
-void srv_http_count(srv_server_t *sv, int method, unsigned status);
 /* Resumes every suspended request (shutdown). */
 void srv_http_release_all(srv_server_t *sv);
-/* Applies a new fault configuration now. */
-void srv_server_set_faults(srv_server_t *sv, const server_faults_t *f);
-/* Ask libmicrohttpd to run soon (after a resume). */
-void srv_server_drop_soon(srv_server_t *sv);
-void srv_server_kick(srv_server_t *sv);
+/* Applies a new fault configuration now (and arms the drop-watches timer, sv->drop). */
+void srv_http_set_faults(srv_server_t *sv, const server_faults_t *f);
 
 /* api.c: serves one /v1/ request (faults already applied). Sets *watch when it opened a
  * watch stream. */
 enum MHD_Result srv_api_serve(srv_server_t *sv, struct MHD_Connection *conn, int method,
                               const char *url, const char *body, size_t len, bool *watch);
+
+/* reply.c: answers and their counts. A method of -1 is not counted (routes outside /v1/). */
+void srv_reply_count(srv_server_t *sv, int method, unsigned status);
+/* Queues a response with a body copied from (body, len) and counts it. */
+enum MHD_Result srv_reply(srv_server_t *sv, struct MHD_Connection *conn, int method,
+                          unsigned status, const char *ctype, const char *body, size_t len);
+/* Queues an error answer {"error": CODE, "message": MSG} and counts it. */
+enum MHD_Result srv_reply_error(srv_server_t *sv, struct MHD_Connection *conn, int method,
+                                unsigned status, const char *code, const char *msg);
+/* The same with a Retry-After of retry_after seconds (none when negative). */
+enum MHD_Result srv_reply_error_retry(srv_server_t *sv, struct MHD_Connection *conn, int method,
+                                      unsigned status, const char *code, const char *msg,
+                                      int retry_after);
 
 /* report.c */
 int srv_report_stats(srv_server_t *sv, srv_buf_t *b);

@@ -32,7 +32,7 @@ static void stream_wake(srv_stream_t *st)
         return;
     st->suspended = false;
     MHD_resume_connection(st->conn);
-    srv_server_kick(st->sv);
+    st->sv->kick(st->sv);
 }
 
 static ssize_t stream_read(void *cls, uint64_t pos, char *out, size_t max)
@@ -92,7 +92,7 @@ static void stream_free(void *cls)
     free(st);
     /* libmicrohttpd closes the socket of a finished connection on its next MHD_run; without
      * another run a dropped stream's client would not notice until other traffic came. */
-    srv_server_kick(sv);
+    sv->kick(sv);
 }
 
 /* Queues one event line, or ends the stream when the line would pass its buffer limit. */
@@ -148,7 +148,7 @@ enum MHD_Result srv_stream_open(srv_server_t *sv, struct MHD_Connection *conn, c
     srv_coll_t *c = srv_store_coll_add(s, cpath, strlen(cpath));
     srv_stream_t *st = c ? stream_new(sv, conn, c) : NULL;
     if (!st)
-        return srv_http_error(sv, conn, SRV_M_GET, 500, "no-memory", "out of memory");
+        return srv_reply_error(sv, conn, SRV_M_GET, 500, "no-memory", "out of memory");
     for (int i = first; i < s->ring_len; i++) {
         const srv_event_t *ev = srv_store_history_at(s, i);
         if (ev->coll == c)
@@ -167,7 +167,7 @@ enum MHD_Result srv_stream_open(srv_server_t *sv, struct MHD_Connection *conn, c
     MHD_add_response_header(r, "X-Squall-Version", v);
     enum MHD_Result rc = MHD_queue_response(conn, 200, r);
     MHD_destroy_response(r);
-    srv_http_count(sv, SRV_M_GET, 200);
+    srv_reply_count(sv, SRV_M_GET, 200);
     return rc;
 }
 
