@@ -12,6 +12,7 @@ int main(int argc, char **argv)
         fputs("squall: error: out of memory\n", stderr);
         return SQ_EXIT_FAILURE;
     }
+    cli_use_table(cli_commands);
     int rc;
     if (argc < 2 || strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0) {
         cli_print_overview(o);

@@ -27,8 +27,12 @@ typedef struct cli_cmd {
     int (*main)(const struct cli_cmd *cmd, int argc, char **argv, out_t *o);
 } cli_cmd_t;
 
-/* The table, terminated by an entry with name == NULL. */
+/* The table, terminated by an entry with name == NULL (src/cli/commands.c). main hands it to
+ * cli_use_table before anything else, so that the lookups below (and `help`) read it without
+ * calling up into the file that lists every command. */
 extern const cli_cmd_t *const cli_commands[];
+void cli_use_table(const cli_cmd_t *const *table);
+const cli_cmd_t *const *cli_table(void);
 
 const cli_cmd_t *cli_find(const char *name);
 /* Writes `squall help NAME` text to the results stream. */

@@ -8,11 +8,25 @@
 #include "squall/err.h"
 #include "squall/suggest.h"
 
+static const cli_cmd_t *const *table;
+
+void cli_use_table(const cli_cmd_t *const *t)
+{
+    table = t;
+}
+
+const cli_cmd_t *const *cli_table(void)
+{
+    static const cli_cmd_t *const none[] = {NULL};
+    return table ? table : none;
+}
+
 const cli_cmd_t *cli_find(const char *name)
 {
-    for (int i = 0; cli_commands[i]; i++)
-        if (strcmp(cli_commands[i]->name, name) == 0)
-            return cli_commands[i];
+    const cli_cmd_t *const *t = cli_table();
+    for (int i = 0; t[i]; i++)
+        if (strcmp(t[i]->name, name) == 0)
+            return t[i];
     return NULL;
 }
 
@@ -21,8 +35,8 @@ void cli_print_overview(out_t *o)
     out_print(o, "squall %s: synthetic control-plane load from a YAML plan\n\n", SQUALL_VERSION);
     out_print(o, "usage: squall COMMAND [options]\n       squall help COMMAND\n"
                  "       squall --version\n\ncommands:\n");
-    for (int i = 0; cli_commands[i]; i++)
-        out_print(o, "  %-10s %s\n", cli_commands[i]->name, cli_commands[i]->summary);
+    for (const cli_cmd_t *const *t = cli_table(); *t; t++)
+        out_print(o, "  %-10s %s\n", (*t)->name, (*t)->summary);
     out_print(o, "\nexit codes:\n");
 #define SQ_EXIT_HELP(name, value, text) out_print(o, "  %d  %s\n", value, text);
     SQ_EXIT_MAP(SQ_EXIT_HELP)

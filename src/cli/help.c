@@ -30,8 +30,8 @@ static int help_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     if (!c) {
         suggest_t s;
         suggest_init(&s, topic);
-        for (int i = 0; cli_commands[i]; i++)
-            suggest_offer(&s, NULL, cli_commands[i]->name);
+        for (const cli_cmd_t *const *t = cli_table(); *t; t++)
+            suggest_offer(&s, NULL, (*t)->name);
         const char *near = suggest_best(&s);
         if (near)
             return cli_usage_error(NULL, o, "unknown command '%s'; did you mean '%s'?", topic,

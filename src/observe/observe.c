@@ -61,16 +61,6 @@ bool obs_is_error(enum eng_outcome oc)
     return oc != ENG_OUT_S2XX && oc != ENG_OUT_S3XX && oc != ENG_OUT_CANCELLED;
 }
 
-const char *obs_phase_name(const plan_t *p, size_t phase)
-{
-    return phase < p->n_phases ? p->phases[phase].name : "teardown";
-}
-
-const char *obs_class_name(const plan_t *p, int cls)
-{
-    return cls >= 0 && (size_t)cls < p->n_reqs ? p->reqs[cls].name : "teardown";
-}
-
 /* Class index -> slot: the teardown's deletes take the last one. */
 static size_t cls_slot(const obs_t *l, int cls)
 {
