@@ -43,7 +43,10 @@ const char *sq_strerror(int code);
     X(BRAKE, 3, "stopped early by a brake")                                                        \
     X(UNREACHABLE, 4, "target unreachable")                                                        \
     X(INTERRUPTED, 5, "interrupted by a signal")                                                   \
-    X(FAILURE, 6, "internal or input/output failure (e.g. results could not be written)")
+    X(FAILURE, 6, "internal or input/output failure (e.g. results could not be written)")          \
+    X(INCONCLUSIVE, 7,                                                                             \
+      "run completed but cannot support a pass: squall could not offer the planned load, a "      \
+      "percentile had too few samples, or the run stopped early (the summary says which)")
 
 enum sq_exit {
 #define SQ_EXIT_ENUM(name, value, text) SQ_EXIT_##name = value,

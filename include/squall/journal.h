@@ -66,10 +66,11 @@ void journal_alive_close(journal_alive_t *a);
 /* ---- the reaper ------------------------------------------------------------------------- */
 
 enum journal_fate {
-    JOURNAL_LEFT,    /* not deleted: never tried, or stopped (time limit, signal, unreachable) */
-    JOURNAL_DONE,    /* deleted: a 2xx answer */
-    JOURNAL_GONE,    /* already gone: 404 or 410 */
-    JOURNAL_REFUSED, /* failed: another 4xx, or 5xx/429/timeouts on every attempt */
+    JOURNAL_LEFT,      /* not deleted: tried, then stopped (time limit, signal, unreachable) */
+    JOURNAL_DONE,      /* deleted: a 2xx answer */
+    JOURNAL_GONE,      /* already gone: 404 or 410 */
+    JOURNAL_REFUSED,   /* failed: another 4xx, or 5xx/429/timeouts on every attempt */
+    JOURNAL_NOT_TRIED, /* its delete was never sent: the reaper stopped first */
 };
 
 typedef struct {
@@ -87,10 +88,14 @@ typedef struct {
 } journal_reap_cfg_t;
 
 typedef struct {
-    size_t done, gone, refused, left;
+    size_t done, gone, refused, left, not_tried;
     int64_t elapsed_ns;
     char why[160]; /* why it stopped early, "" when it did not */
 } journal_reap_counts_t;
+
+/* The one wording teardown and cleanup share: "N objects: D deleted, G already gone, F failed,
+ * L left, T not tried (S s)" into buf; returns how many are still on the target (F + L + T). */
+size_t journal_counts_text(const journal_reap_counts_t *c, char *buf, size_t cap);
 
 typedef struct journal_reaper journal_reaper_t;
 
@@ -100,7 +105,7 @@ typedef struct journal_reaper journal_reaper_t;
  * when a 429 or 503 gives one (at most 30 s), else 200 ms x 2^(attempt - 1), at most 2 s.
  * fates (n entries) receives each object's fate and must outlive the reaper; so must paths
  * and cfg. Returns 0 and *out, or SQ_ENOMEM / SQ_ELIBUV / the engine's code (then nothing is
- * sent, every fate is LEFT, and *out, when set, must still be freed). */
+ * sent, every fate is NOT_TRIED, and *out, when set, must still be freed). */
 int journal_reaper_start(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o,
                          const journal_reap_cfg_t *cfg, const char *const *paths, size_t n,
                          enum journal_fate *fates, journal_reaper_t **out);

@@ -5,7 +5,15 @@
  * each objective into *checks*, one per scope: every phase in which the class ran (or only the
  * phase the objective names) and, unless a phase is named, the whole run. Each check holds the
  * observed value, the threshold and a verdict. A check with nothing measured is "no-data" and
- * counts as a failure: a gate that measured nothing must not pass.
+ * counts as a failure: a gate that measured nothing must not pass. A percentile needs enough
+ * samples to be resolved (p99 at least 100, p99.9 at least 1,000: 1 / (1 - p/100)); with fewer
+ * it is "too-few". A latency objective fails when its class had no successful answer (2xx or
+ * 3xx) at all, whatever the latency of its errors. Every class that ran and has no error-rate
+ * objective of its own (nor a "*" one) is judged on a default error rate (1 %).
+ * The run's *outcome* (judge_outcome) then weighs the checks and the evidence: FAIL when a
+ * check failed or had no data; else INCONCLUSIVE when the evidence cannot support a pass
+ * (squall could not offer the planned load, a percentile had too few samples, the run stopped
+ * early), unless the plan accepts that reason; else PASS.
  * Glossary: "errors" are outcomes other than 2xx, 3xx and cancelled; "achieved rate" is the
  * number of answered requests (any outcome but cancelled) per second of the phase's elapsed
  * time; "scope" is a phase name or "run". Percentiles use hist_value_at (HDR, 3 digits). */
@@ -31,7 +39,7 @@ typedef struct {
     int64_t elapsed_ns;
 } judge_phase_t;
 
-enum judge_verdict { JUDGE_PASS, JUDGE_FAIL, JUDGE_NO_DATA };
+enum judge_verdict { JUDGE_PASS, JUDGE_FAIL, JUDGE_NO_DATA, JUDGE_TOO_FEW };
 
 /* One check: a small public value. Strings point into the judge_t or the plan. */
 typedef struct {
@@ -43,21 +51,55 @@ typedef struct {
     double threshold;  /* in the same unit */
     const char *unit;  /* "ms", "fraction" or "per_s" */
     int64_t samples;   /* requests the value is computed from */
+    int64_t needed;    /* samples a percentile needs to be resolved (0: any) */
+    bool implicit;     /* the default error-rate objective, not one the plan wrote */
+    const char *why;   /* why it failed when not by its value ("no successful answer"), or NULL */
     enum judge_verdict verdict;
 } judge_check_t;
+
+typedef struct {
+    double default_error_rate; /* for classes no error-rate objective covers; 0 = none */
+    /* The plan's watch classes: their error rate counts stream attempts (opened or refused),
+     * and "*" latency objectives leave them out. Without the list, a class whose cells carry
+     * open or propagation times is taken as one. */
+    const char *const *watch_classes;
+    size_t n_watch_classes;
+} judge_opts_t;
 
 typedef struct judge judge_t;
 
 /* Evaluates every objective over res. phases lists the run's phases in order. Returns 0 and
  * *out, or SQ_ENOMEM. Never fails for lack of data (see "no-data" above). */
 int judge_evaluate(const plan_objective_t *objs, size_t n_objs, const results_t *res,
-                   const judge_phase_t *phases, size_t n_phases, judge_t **out);
+                   const judge_phase_t *phases, size_t n_phases, const judge_opts_t *opts,
+                   judge_t **out);
 void judge_free(judge_t *j);
 
 size_t judge_check_count(const judge_t *j);
 const judge_check_t *judge_check_at(const judge_t *j, size_t i);
 /* True when at least one check failed or had no data (the run then exits 1). */
 bool judge_failed(const judge_t *j);
+
+/* ---- the run's outcome ----------------------------------------------------------------------- */
+
+enum judge_outcome { JUDGE_OUTCOME_PASS, JUDGE_OUTCOME_FAIL, JUDGE_OUTCOME_INCONCLUSIVE };
+
+/* What else a verdict rests on besides the checks. */
+typedef struct {
+    int64_t generator_bound_s;   /* seconds squall itself could not offer the planned load */
+    const char *generator_seconds; /* which, e.g. "4, 5, 9" (may be NULL) */
+    const char *generator_why;   /* the last reason, e.g. "schedule lag p99 12.3 ms" */
+    bool stopped_early;          /* a signal, a brake, an unreachable target, a failure */
+    const char *stop_why;
+    unsigned accept;             /* 1 << enum plan_accept: reasons the plan accepts */
+} judge_evidence_t;
+
+/* The outcome and, into reasons (a JSON array, appended to), one sentence per reason; a reason
+ * the plan accepts goes into accepted instead (may be NULL), so a pass still says what it
+ * rests on. */
+enum judge_outcome judge_outcome(const judge_t *j, const judge_evidence_t *ev, json_t *reasons,
+                                 json_t *accepted);
+const char *judge_outcome_name(enum judge_outcome o); /* "pass", "fail", "inconclusive" */
 
 /* The results.json section: {"passed": bool, "objectives": N, "checks": [{objective, text,
  * class, scope, observed, threshold, unit, samples, verdict: "pass"|"fail"|"no-data"}]}.

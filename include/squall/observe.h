@@ -57,6 +57,12 @@ typedef struct {
     const eng_result_t *res;
 } obs_done_t;
 
+/* A second in which squall could not offer the planned load: generator-bound when squall itself
+ * fell behind (the target's figures for it are not evidence); connection-bound when every
+ * connection was busy because the target answered slowly (a fair verdict on the target: more
+ * connections would offer more load). */
+enum obs_bound { OBS_BOUND_NONE, OBS_BOUND_GENERATOR, OBS_BOUND_CONNECTIONS };
+
 /* Per phase x class figures of one second. */
 typedef struct {
     size_t phase;
@@ -72,7 +78,7 @@ typedef struct {
     int64_t start_ns, end_ns;
     double secs;    /* end - start in seconds (the last one is partial) */
     bool final;     /* the run's last, partial second */
-    bool loading;   /* the plan's phases are sending (not draining, not in teardown) */
+    bool loading;   /* the plan's phases sent during this second (not only drain or teardown) */
     size_t phase;   /* the phase current at the end of the second */
     double planned; /* starts the sources planned for the second (NAN: no plan, e.g. closed
                        loop without think time) */
@@ -86,8 +92,8 @@ typedef struct {
     const eng_stats_t *eng;                /* the main engine's window (peaks of the second) */
     int in_flight;                         /* requests of the run not finished at the end */
     int64_t busy_since_ns, last_answer_ns; /* in_flight last went 0 -> 1; the last answer */
-    bool limited;                          /* generator-limited (see brakes.c for the rule) */
-    const char *limited_why;               /* then: why, e.g. "schedule lag p99 12.3 ms" */
+    enum obs_bound bound;                  /* could squall offer the planned load (health.c) */
+    const char *bound_why;                 /* when bound: why, e.g. "schedule lag p99 12.3 ms" */
 } obs_second_t;
 
 typedef struct obs_ops {
@@ -145,11 +151,13 @@ int obs_finish(obs_t *l, const char *dir);
 
 /* Requests handed to an engine and not finished. */
 int obs_in_flight(const obs_t *l);
-/* Run totals for the summary. */
+/* Run totals for the summary and the verdict. */
 typedef struct {
     int64_t started, completed, errors;
-    int64_t limited_seconds;
-    const char *limited_why; /* the last reason */
+    int64_t generator_bound_s, connection_bound_s; /* while the plan's phases were sending */
+    const char *generator_why, *connection_why;    /* the last reasons */
+    char generator_seconds[160];                   /* which, e.g. "4, 5, 9" */
+    char connection_seconds[160];
     const hist_t *sched_lag; /* the whole run's */
 } obs_totals_t;
 void obs_totals(const obs_t *l, obs_totals_t *t);
@@ -183,8 +191,11 @@ int64_t ledger_alive(const ledger_t *g, int cls);
 size_t ledger_gather(ledger_t *g, const char ***paths, const int **cls);
 /* A teardown delete of path ended with fate (JOURNAL_DONE/GONE: journaled as deleted). */
 void ledger_torn(ledger_t *g, const char *path, int cls, bool gone);
-/* Whether the run has something to tear down at all (a class creates). */
+/* Whether the run may have something to tear down: some class writes (any write answered 201
+ * Created made an object of the run's, whatever its class says). */
 bool ledger_creates(const ledger_t *g);
+/* Objects of class cls left on the target because the class keeps them (`keep:`). */
+size_t ledger_kept(const ledger_t *g, int cls);
 /* The journal's path. */
 const char *ledger_journal(const ledger_t *g);
 /* The teardown's outcome, for the "lifecycle" section (json: a new reference, or NULL). */

@@ -105,6 +105,8 @@ typedef struct {
         const char *body;   /* template text or NULL */
         plan_pos_t body_pos;
         bool creates, deletes;
+        bool keep;            /* its created objects stay after the run (not torn down) */
+        const char *keep_why; /* the plan's reason, or NULL */
     } write;
     struct { /* kind watch */
         enum plan_framing framing;
@@ -235,6 +237,10 @@ typedef struct {
     int64_t for_ns;    /* window the condition must hold, default 10 s */
 } plan_brake_t;
 
+/* Reasons a run is INCONCLUSIVE that a plan may accept (`accept:`), in plan_accept_names order. */
+enum plan_accept { PLAN_ACCEPT_GENERATOR_BOUND, PLAN_ACCEPT_FEW_SAMPLES, PLAN_ACCEPT_STOPPED_EARLY };
+extern const char *const plan_accept_names[]; /* "generator-bound", "few-samples", ... */
+
 struct plan_mem; /* private: owns every string and array below */
 
 typedef struct {
@@ -252,6 +258,7 @@ typedef struct {
     size_t n_objectives;
     plan_brake_t *brakes;
     size_t n_brakes;
+    unsigned accept; /* 1 << enum plan_accept: reasons for INCONCLUSIVE the plan accepts */
     struct plan_mem *mem;
 } plan_t;
 

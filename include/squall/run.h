@@ -14,8 +14,11 @@
 #include <stdbool.h>
 #include <stdint.h>
 
+#include "squall/judge.h"
 #include "squall/out.h"
 #include "squall/plan.h"
+
+struct run_result;
 
 typedef struct {
     const char *results_dir; /* NULL: results/<UTC time>-<plan name> */
@@ -28,6 +31,15 @@ typedef struct {
     int64_t grace_ns; /* after a signal or a brake: how long in-flight requests may take */
     int shard_index, shard_count; /* 1/1 unless given */
     bool keep;                    /* no teardown; the journal lists what was left */
+    bool force; /* write into a results directory that already holds results */
+    /* For the record (results.json's "run" section and the report): the --set overrides as
+     * given, and the command line. */
+    const char *const *overrides;
+    size_t n_overrides;
+    const char *command_line;
+    /* The exit code the command line will give this outcome (exit codes are chosen there; the
+     * results record it); NULL records none. */
+    int (*exit_code)(int rc, const struct run_result *res);
 } run_opts_t;
 
 /* Why a run ended. */
@@ -39,10 +51,11 @@ enum run_end {
     RUN_END_FAILED,      /* an internal failure (out of memory, a phase that could not start) */
 };
 
-typedef struct {
+typedef struct run_result {
     enum run_end end;
-    bool objectives_failed; /* an objective failed or had no data */
-    bool write_failed;      /* results.json, series.csv or report.html could not be written */
+    enum judge_outcome outcome; /* pass; fail (an objective failed or had no data); inconclusive
+                                   (the evidence cannot support a pass) */
+    bool write_failed; /* results.json, series.csv or report.html could not be written */
 } run_result_t;
 
 /* Everything a run checks before it sends anything, and nothing more: the target's safety

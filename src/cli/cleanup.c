@@ -220,15 +220,17 @@ static int reap_alive(const cleanup_args_t *ca, const char *path, const journal_
         out_error(o, "cleanup could not start: %s", sq_strerror(rc));
         return SQ_EXIT_FAILURE;
     }
-    out_print(
-        o, "cleanup %s: %zu alive: %zu deleted, %zu already gone, %zu failed, %zu left (%.1f s)\n",
-        al->target, al->n, c.done, c.gone, c.refused, c.left, (double)c.elapsed_ns / 1e9);
+    char text[200];
+    size_t still = journal_counts_text(&c, text, sizeof text);
+    out_print(o, "cleanup %s: %s\n", al->target, text);
     if (c.why[0])
         out_warn(o, "stopped early: %s", c.why);
-    if (c.refused + c.left == 0)
+    if (still == 0)
         return SQ_EXIT_OK;
-    out_warn(o, "%zu objects are still alive on the target; run cleanup again later",
-             c.refused + c.left);
+    out_warn(o,
+             "%zu objects are still on the target (%zu failed, %zu left, %zu not tried); "
+             "`squall cleanup %s` tries them again",
+             still, c.refused, c.left, c.not_tried, path);
     return strstr(c.why, "unreachable") ? SQ_EXIT_UNREACHABLE
            : (strstr(c.why, "SIG"))     ? SQ_EXIT_INTERRUPTED
                                         : SQ_EXIT_FAILURE;

@@ -12,14 +12,17 @@ typedef struct {
     plan_override_t *sets;
     char **copies; /* KEY=VALUE copies split at '=' */
     size_t n;
+    const char **texts; /* the --set arguments as given, for the record */
+    char *line;         /* the command line, for the record */
     run_opts_t ro;
 } cli_run_args_t;
 
 /* The options of `run` (and `demo`), terminated by an entry with name == NULL. */
 extern const cli_opt_t cli_run_opts[];
 
-/* Sizes the argument holders for argc words; SQ_ENOMEM. Close it in any case. */
-int cli_run_args_init(cli_run_args_t *ra, int argc);
+/* Sizes the argument holders for argc words and records the command line; SQ_ENOMEM. Close it
+ * in any case. */
+int cli_run_args_init(cli_run_args_t *ra, const cli_cmd_t *cmd, int argc, char **argv);
 void cli_run_args_close(cli_run_args_t *ra);
 /* A cli_take_fn over cli_run_opts into a cli_run_args_t (the positional word is the plan). */
 int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx);

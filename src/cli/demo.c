@@ -125,7 +125,7 @@ static int demo_run(const char *plan_path, const cli_run_args_t *ra, out_t *o)
 static int demo_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
     cli_run_args_t ra;
-    int rc = cli_run_args_init(&ra, argc) ? SQ_EXIT_FAILURE : -1;
+    int rc = cli_run_args_init(&ra, cmd, argc, argv) ? SQ_EXIT_FAILURE : -1;
     if (rc < 0)
         rc = cli_parse(cmd, argc, argv, o, cli_run_take, &ra);
     char buf[4200];

@@ -17,7 +17,8 @@ enum {
     OPT_SEED,
     OPT_GRACE,
     OPT_SHARD,
-    OPT_KEEP
+    OPT_KEEP,
+    OPT_FORCE
 };
 
 const cli_opt_t cli_run_opts[] = {
@@ -34,6 +35,7 @@ const cli_opt_t cli_run_opts[] = {
                    "after a signal or brake, how long in-flight requests may take (2s)"},
     [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (recorded in the results)"},
     [OPT_KEEP] = {"keep", 0, NULL, "no teardown: leave the objects this run created"},
+    [OPT_FORCE] = {"force", 0, NULL, "write into a results directory that already holds results"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -66,7 +68,8 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
     case OPT_SET:
         if (plan_override_split(v, &ra->sets[ra->n], &ra->copies[ra->n]))
             return cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
-        ra->n++;
+        ra->texts[ra->n] = v;
+        ra->ro.n_overrides = ++ra->n;
         break;
     case OPT_CONFIRM:
         ra->ro.confirm_target = true;
@@ -100,17 +103,53 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
     case OPT_KEEP:
         ra->ro.keep = true;
         break;
+    case OPT_FORCE:
+        ra->ro.force = true;
+        break;
     }
     return -1;
 }
 
-int cli_run_args_init(cli_run_args_t *ra, int argc)
+/* "squall NAME ARGS...", each word quoted for a POSIX shell when it needs to be. */
+static char *command_line(const char *name, int argc, char **argv)
+{
+    size_t len = strlen(name) + 8;
+    for (int i = 0; i < argc; i++)
+        len += 4 * strlen(argv[i]) + 3;
+    char *s = malloc(len);
+    if (!s)
+        return NULL;
+    size_t n = (size_t)snprintf(s, len, "squall %s", name);
+    for (int i = 0; i < argc; i++) {
+        const char *a = argv[i];
+        bool plain = a[0] && strspn(a, "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ"
+                                           "0123456789-_./=:,@%+") == strlen(a);
+        s[n++] = ' ';
+        if (plain) {
+            n += (size_t)snprintf(s + n, len - n, "%s", a);
+            continue;
+        }
+        s[n++] = '\'';
+        for (; *a; a++)
+            n += (size_t)snprintf(s + n, len - n, *a == '\'' ? "'\\''" : "%c", *a);
+        s[n++] = '\'';
+        s[n] = '\0';
+    }
+    return s;
+}
+
+int cli_run_args_init(cli_run_args_t *ra, const cli_cmd_t *cmd, int argc, char **argv)
 {
     memset(ra, 0, sizeof(*ra));
     ra->sets = calloc((size_t)argc + 1, sizeof(*ra->sets));
     ra->copies = calloc((size_t)argc + 1, sizeof(*ra->copies));
+    ra->texts = calloc((size_t)argc + 1, sizeof(*ra->texts));
+    ra->line = command_line(cmd->name, argc, argv);
     ra->ro.grace_ns = INT64_C(2000000000);
-    return ra->sets && ra->copies ? 0 : SQ_ENOMEM;
+    ra->ro.overrides = ra->texts;
+    ra->ro.command_line = ra->line;
+    ra->ro.exit_code = cli_run_exit;
+    return ra->sets && ra->copies && ra->texts && ra->line ? 0 : SQ_ENOMEM;
 }
 
 void cli_run_args_close(cli_run_args_t *ra)
@@ -119,6 +158,8 @@ void cli_run_args_close(cli_run_args_t *ra)
         free(ra->copies[i]);
     free(ra->copies);
     free(ra->sets);
+    free(ra->texts);
+    free(ra->line);
 }
 
 int cli_run_exit(int rc, const run_result_t *res)
@@ -135,7 +176,9 @@ int cli_run_exit(int rc, const run_result_t *res)
     case RUN_END_UNREACHABLE:
         return SQ_EXIT_UNREACHABLE;
     default:
-        return res->objectives_failed ? SQ_EXIT_OBJECTIVES : SQ_EXIT_OK;
+        return res->outcome == JUDGE_OUTCOME_FAIL           ? SQ_EXIT_OBJECTIVES
+               : res->outcome == JUDGE_OUTCOME_INCONCLUSIVE ? SQ_EXIT_INCONCLUSIVE
+                                                            : SQ_EXIT_OK;
     }
 }
 
@@ -151,7 +194,7 @@ int cli_run_plan(const plan_t *p, const run_opts_t *ro, out_t *o)
 static int run_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
     cli_run_args_t ra;
-    if (cli_run_args_init(&ra, argc)) {
+    if (cli_run_args_init(&ra, cmd, argc, argv)) {
         cli_run_args_close(&ra);
         return SQ_EXIT_FAILURE;
     }

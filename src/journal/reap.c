@@ -205,7 +205,7 @@ static void on_tick(uv_timer_t *t)
     }
     if (rp->stopping && rp->in_flight == 0)
         for (size_t i = 0; i < rp->n; i++)
-            set_final(rp, i, JOURNAL_LEFT);
+            set_final(rp, i, rp->attempts[i] ? JOURNAL_LEFT : JOURNAL_NOT_TRIED);
     if (rp->pending == 0)
         close_all(rp);
 }
@@ -260,7 +260,7 @@ int journal_reaper_start(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o,
 {
     *out = NULL;
     for (size_t i = 0; i < n; i++)
-        fates[i] = JOURNAL_LEFT;
+        fates[i] = JOURNAL_NOT_TRIED;
     reaper_t *rp = calloc(1, sizeof(*rp));
     if (!rp)
         return SQ_ENOMEM;
@@ -296,6 +296,7 @@ void journal_reaper_counts(const journal_reaper_t *rp, journal_reap_counts_t *co
         counts->gone += rp->fates[i] == JOURNAL_GONE;
         counts->refused += rp->fates[i] == JOURNAL_REFUSED;
         counts->left += rp->fates[i] == JOURNAL_LEFT;
+        counts->not_tried += rp->fates[i] == JOURNAL_NOT_TRIED;
     }
     counts->elapsed_ns = (int64_t)uv_hrtime() - rp->t0;
     snprintf(counts->why, sizeof counts->why, "%s", rp->why);
@@ -325,4 +326,14 @@ int journal_reap(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o, const jour
     if (rp)
         uv_run(loop, UV_RUN_DEFAULT); /* the close callbacks */
     return rc;
+}
+
+size_t journal_counts_text(const journal_reap_counts_t *c, char *buf, size_t cap)
+{
+    size_t n = c->done + c->gone + c->refused + c->left + c->not_tried;
+    snprintf(buf, cap,
+             "%zu objects: %zu deleted, %zu already gone, %zu failed, %zu left, %zu not tried "
+             "(%.1f s)",
+             n, c->done, c->gone, c->refused, c->left, c->not_tried, (double)c->elapsed_ns / 1e9);
+    return c->refused + c->left + c->not_tried;
 }

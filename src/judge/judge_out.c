@@ -12,12 +12,16 @@ json_t *judge_json(const judge_t *j)
         const judge_check_t *c = judge_check_at(j, i);
         if (c->objective + 1 > objectives)
             objectives = c->objective + 1;
-        json_array_append_new(checks, json_pack("{s:I, s:s, s:s, s:s, s:f, s:f, s:s, s:I, s:s}",
-                                                "objective", (json_int_t)c->objective, "text",
-                                                c->text, "class", c->cls, "scope", c->scope,
-                                                "observed", c->observed, "threshold", c->threshold,
-                                                "unit", c->unit, "samples", (json_int_t)c->samples,
-                                                "verdict", judge_verdict_name(c->verdict)));
+        json_t *ck = json_pack("{s:I, s:s, s:s, s:s, s:f, s:f, s:s, s:I, s:s, s:b}", "objective",
+                               (json_int_t)c->objective, "text", c->text, "class", c->cls, "scope",
+                               c->scope, "observed", c->observed, "threshold", c->threshold, "unit",
+                               c->unit, "samples", (json_int_t)c->samples, "verdict",
+                               judge_verdict_name(c->verdict), "default", c->implicit);
+        if (ck && c->needed)
+            json_object_set_new(ck, "needed", json_integer(c->needed));
+        if (ck && c->why)
+            json_object_set_new(ck, "why", json_string(c->why));
+        json_array_append_new(checks, ck);
     }
     return json_pack("{s:b, s:I, s:o}", "passed", !judge_failed(j), "objectives",
                      (json_int_t)objectives, "checks", checks);
@@ -47,13 +51,20 @@ void judge_print(const judge_t *j, out_t *o)
         if (c->verdict != JUDGE_NO_DATA)
             human(c->observed, c->unit, obs, sizeof obs);
         human(c->threshold, c->unit, thr, sizeof thr);
-        static const char *const shout[] = {"pass", "FAIL", "NO-DATA"};
+        static const char *const shout[] = {"pass", "FAIL", "NO-DATA", "TOO-FEW"};
         out_print(o, "%-8s %-12s %-24s %-30s %12s %12s\n", shout[c->verdict], c->scope, c->cls,
                   c->text, obs, thr);
+        if (c->verdict == JUDGE_TOO_FEW)
+            out_print(o, "%-8s %-12s %-24s %lld samples, needs %lld to resolve it\n", "", "", "",
+                      (long long)c->samples, (long long)c->needed);
+        else if (c->why)
+            out_print(o, "%-8s %-12s %-24s %s\n", "", "", "", c->why);
         failed += c->verdict != JUDGE_PASS;
     }
     if (failed)
-        out_print(o, "%zu of %zu objective checks did not pass (no-data counts as a failure)\n",
+        out_print(o,
+                  "%zu of %zu objective checks did not pass (no-data counts as a failure, "
+                  "too-few as inconclusive)\n",
                   failed, n);
     else
         out_print(o, "all %zu objective checks passed\n", n);

@@ -1,5 +1,5 @@
 /* The brakes: once a second while the plan's phases send, has a brake's condition held long
- * enough to stop the run (error rate, a latency percentile, no answer, generator-limited). */
+ * enough to stop the run (error rate, a latency percentile, no answer, squall unable to offer the planned load). */
 #include <stdlib.h>
 #include <string.h>
 
@@ -154,10 +154,14 @@ static bool unreachable(brake_t *k, const obs_second_t *s, char *why, size_t cap
 
 static bool saturation(brake_t *k, const obs_second_t *s, char *why, size_t cap)
 {
-    k->held_s = s->limited ? k->held_s + 1 : 0;
+    /* Either kind: squall's own lag, or a queue behind connections a slow target holds (its
+     * backlog would reach the target all at once when it recovers). */
+    k->held_s = s->bound != OBS_BOUND_NONE ? k->held_s + 1 : 0;
     if (k->held_s < (int64_t)k->window_s)
         return false;
-    snprintf(why, cap, "generator limited for %zus: %s", k->window_s, s->limited_why);
+    snprintf(why, cap, "squall could not offer the planned load for %zus (%s): %s", k->window_s,
+             s->bound == OBS_BOUND_GENERATOR ? "generator-bound" : "connection-bound",
+             s->bound_why);
     return true;
 }
 

@@ -41,6 +41,7 @@ struct ledger {
     journal_t *journal;
     char *journal_path;
     int64_t created, existed, create_failed, deleted, skipped;
+    int64_t incidental; /* of created: by writes whose class did not say it creates */
     json_t *teardown; /* the teardown's figures, or NULL */
     bool churn;       /* a churn phase reported its band */
     bool churn_reached;
@@ -53,6 +54,20 @@ static bool creating(const plan_t *p, size_t i)
 {
     const plan_req_t *pr = &p->reqs[i];
     return pr->kind == PLAN_WRITE && pr->write.creates;
+}
+
+/* A write that may create an object: any but DELETE and a deletes class. Whatever its class
+ * says, an object it answered 201 for is this run's: journaled, and torn down unless kept. */
+static bool may_create(const plan_t *p, size_t i)
+{
+    const plan_req_t *pr = &p->reqs[i];
+    return pr->kind == PLAN_WRITE && !pr->write.deletes && strcmp(pr->write.method, "DELETE");
+}
+
+/* Objects of class i the teardown deletes: those it created, unless the class keeps them. */
+static bool torn_down(const plan_t *p, size_t i)
+{
+    return may_create(p, i) && !p->reqs[i].write.keep;
 }
 
 /* ---- {{pick}} ---------------------------------------------------------------------------- */
@@ -209,21 +224,22 @@ static void ledger_free(void *self)
     free(g);
 }
 
-/* One pool per creating or list class; the bare {{pick}} names the only creating class. */
+/* One pool per write that may create and per list class; the bare {{pick}} names the only
+ * class with `creates: true`. */
 static int pools_init(ledger_t *g)
 {
     const plan_t *p = g->plan;
     int creators = 0;
     g->default_cls = -1;
     for (size_t i = 0; i < p->n_reqs; i++) {
-        if (!creating(p, i) && p->reqs[i].kind != PLAN_LIST)
+        if (!may_create(p, i) && p->reqs[i].kind != PLAN_LIST)
             continue;
         if (pool_new(&g->pools[i]))
             return SQ_ENOMEM;
+        g->creates |= may_create(p, i);
         if (creating(p, i))
             g->default_cls = creators++ ? -2 : (int)i;
     }
-    g->creates = creators > 0;
     if (g->default_cls == -2)
         g->default_cls = -1;
     return 0;
@@ -383,6 +399,19 @@ static void list_done(ledger_t *g, int cls, const eng_result_t *res)
     json_decref(doc);
 }
 
+/* Any other write: a 201 made an object of this run's (no line was written ahead, since the
+ * class did not say it creates: the created line is the record). */
+static void write_done(ledger_t *g, int cls, const char *path, const eng_result_t *res)
+{
+    if (res->status != 201)
+        return;
+    if (pool_add(g->pools[cls], path, answer_version(res)) == 0) {
+        g->created++;
+        g->incidental++;
+    }
+    journal_add(g->journal, JOURNAL_CREATED, path, g->plan->reqs[cls].name, 0);
+}
+
 static void ledger_done(void *self, const obs_done_t *d)
 {
     ledger_t *g = self;
@@ -395,8 +424,10 @@ static void ledger_done(void *self, const obs_done_t *d)
         return;
     if (pr->write.creates)
         create_done(g, d->cls, d->path, d->res);
-    else if (pr->write.deletes)
+    else if (pr->write.deletes || !strcmp(pr->write.method, "DELETE"))
         delete_done(g, d->cls, d->path, d->res);
+    else
+        write_done(g, d->cls, d->path, d->res);
 }
 
 static void ledger_second(void *self, const obs_second_t *s)
@@ -422,7 +453,7 @@ size_t ledger_gather(ledger_t *g, const char ***paths, const int **cls)
 {
     size_t n = pool_count(g->held) + pool_count(g->uncertain);
     for (size_t i = 0; i < g->plan->n_reqs; i++)
-        n += creating(g->plan, i) ? pool_count(g->pools[i]) : 0;
+        n += torn_down(g->plan, i) ? pool_count(g->pools[i]) : 0;
     free(g->gathered);
     free(g->gathered_cls);
     g->gathered = calloc(n ? n : 1, sizeof(*g->gathered));
@@ -431,7 +462,7 @@ size_t ledger_gather(ledger_t *g, const char ***paths, const int **cls)
         return 0;
     size_t k = 0;
     for (size_t i = 0; i < g->plan->n_reqs; i++) {
-        for (size_t s = 0; creating(g->plan, i) && s < pool_count(g->pools[i]); s++) {
+        for (size_t s = 0; torn_down(g->plan, i) && s < pool_count(g->pools[i]); s++) {
             g->gathered_cls[k] = (int)i;
             g->gathered[k++] = pool_path(g->pools[i], s);
         }
@@ -470,7 +501,29 @@ void ledger_churn_band(ledger_t *g, size_t phase, bool reached, int64_t min, int
     g->churn_max = max;
 }
 
-/* The "lifecycle" section: only when some class creates (or a churn phase ran). */
+/* The classes that keep their objects: how many each left on the target, and the plan's why. */
+static json_t *kept_json(const ledger_t *g)
+{
+    json_t *k = json_object();
+    for (size_t i = 0; k && i < g->plan->n_reqs; i++) {
+        const plan_req_t *pr = &g->plan->reqs[i];
+        if (!may_create(g->plan, i) || !pr->write.keep)
+            continue;
+        json_object_set_new(k, pr->name,
+                            json_pack("{s:I, s:s?}", "objects", (json_int_t)pool_count(g->pools[i]),
+                                      "why", pr->write.keep_why));
+    }
+    return k;
+}
+
+size_t ledger_kept(const ledger_t *g, int cls)
+{
+    return may_create(g->plan, (size_t)cls) && g->plan->reqs[cls].write.keep
+               ? pool_count(g->pools[cls])
+               : 0;
+}
+
+/* The "lifecycle" section: only when some class may create (or a churn phase ran). */
 static int ledger_finish(void *self, results_t *res, const char *dir)
 {
     (void)dir;
@@ -478,11 +531,13 @@ static int ledger_finish(void *self, results_t *res, const char *dir)
     journal_flush(g->journal);
     if (!g->creates)
         return 0;
-    json_t *s = json_pack("{s:s, s:I, s:I, s:I, s:I, s:I, s:O}", "journal", JOURNAL_FILE, "created",
-                          (json_int_t)g->created, "existed", (json_int_t)g->existed,
+    json_t *s = json_pack("{s:s, s:I, s:I, s:I, s:I, s:I, s:I, s:O, s:o}", "journal", JOURNAL_FILE,
+                          "created", (json_int_t)g->created, "created_by_other_writes",
+                          (json_int_t)g->incidental, "existed", (json_int_t)g->existed,
                           "create_failed", (json_int_t)g->create_failed, "deleted",
                           (json_int_t)g->deleted, "skipped_empty_pool", (json_int_t)g->skipped,
-                          "teardown", g->teardown ? g->teardown : json_null());
+                          "teardown", g->teardown ? g->teardown : json_null(), "kept",
+                          kept_json(g));
     if (s && g->churn) {
         /* The band is watched from the first time the population is reached; a run that never
          * reached it has no band to show. */

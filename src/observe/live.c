@@ -51,13 +51,18 @@ static void live_second(void *self, const obs_second_t *s)
     char planned[32] = "-";
     if (!isnan(s->planned))
         snprintf(planned, sizeof planned, "%.0f/s", s->planned / s->secs);
-    char limited[200] = "";
-    if (s->limited)
-        snprintf(limited, sizeof limited, "  GENERATOR-LIMITED: %s", s->limited_why);
+    char limited[300] = "";
+    if (s->bound != OBS_BOUND_NONE)
+        snprintf(limited, sizeof limited, "  %s: %s",
+                 s->bound == OBS_BOUND_GENERATOR ? "GENERATOR-BOUND" : "CONNECTION-BOUND",
+                 s->bound_why);
+    char when[48]; /* the run's time against the plan's; draining and teardown come after it */
+    snprintf(when, sizeof when, s->loading ? "%5.1fs/%.0fs" : "%5.1fs, after the plan's %.0fs",
+             elapsed, v->planned_s);
     out_live(v->o,
-             "[%s] %5.1fs/%.0fs  rate %.0f/s of %s  in flight %d  queued %d  errors %lld  "
+             "[%s] %s  rate %.0f/s of %s  in flight %d  queued %d  errors %lld  "
              "p50 %.1fms  p99 %.1fms%s",
-             obs_phase_name(v->plan, s->phase), elapsed, v->planned_s, (double)s->started / s->secs,
+             obs_phase_name(v->plan, s->phase), when, (double)s->started / s->secs,
              planned, s->eng->max_in_flight, s->eng->max_queued, (long long)s->errors,
              ms(hist_value_at(s->response, 50)), ms(hist_value_at(s->response, 99)), limited);
 }

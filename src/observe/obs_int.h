@@ -17,6 +17,37 @@ extern const obs_entry_t obs_ledger_entry, obs_storm_entry, obs_brakes_entry, ob
 /* The brakes in force (brakes.c), for obs_brakes_json. */
 json_t *obs_brakes_section(const void *brakes);
 
+/* health.c: could squall offer the planned load, second by second. */
+typedef struct {
+    int64_t second;        /* its index */
+    bool loading;          /* the plan's phases were sending (only then does it count) */
+    int64_t lag_p99_ns;    /* schedule lag p99 of the second */
+    int64_t svc_sum_ns, svc_n; /* service times of the second's completions */
+    double planned_per_s;  /* the sources' plan (NAN: none, e.g. a closed loop) */
+    double completed_per_s;
+} obs_health_in_t;
+
+typedef struct {
+    int64_t seconds;
+    char why[240]; /* the last reason */
+    int64_t *list; /* which seconds (at most 10,000 kept) */
+    size_t n, cap;
+} obs_bound_list_t;
+
+typedef struct {
+    obs_bound_list_t generator, connections;
+    int64_t max_queue_wait_ns, max_loop_busy_ns;
+    int max_queued, max_in_flight;
+    double max_busy_fraction;
+} obs_health_t;
+
+enum obs_bound obs_health_second(obs_health_t *h, const eng_stats_t *st, const obs_health_in_t *in,
+                                 char *why, size_t cap);
+void obs_health_close(obs_health_t *h);
+json_t *obs_health_json(const obs_health_t *h);
+/* Which seconds, as "4, 5, 9" (", ..." when more than fit or were kept). */
+void obs_bound_seconds(const obs_bound_list_t *b, char *buf, size_t cap);
+
 /* The name series, live line and cells use for a phase and a class (teardown included). */
 const char *obs_phase_name(const plan_t *p, size_t phase);
 const char *obs_class_name(const plan_t *p, int cls);

@@ -9,27 +9,11 @@
 #include "squall/clock.h"
 #include "squall/err.h"
 
-/* A second is generator-limited when any of these holds; the figures are ours, chosen so that
- * a healthy run on a 2-core machine (lag p99 ~1.7 ms at 10k/s, measured in tools/bench) stays
- * clear of them. */
-#define LIMIT_LAG_P99_NS    (10 * INT64_C(1000000)) /* schedule lag p99 in the second */
-#define LIMIT_QUEUE_WAIT_NS (10 * INT64_C(1000000)) /* a request waited for a free connection */
-#define LIMIT_BUSY_FRACTION 0.90                    /* the loop spent this much in callbacks */
-
 static const obs_entry_t *const entries[] = {
     &obs_ledger_entry, &obs_storm_entry, &obs_brakes_entry, &obs_series_entry, &obs_live_entry,
 };
 #define N_ENTRIES (sizeof entries / sizeof entries[0])
 #define BRAKES    2 /* entries[BRAKES] */
-
-/* Generator health over the whole run. */
-typedef struct {
-    int64_t limited_seconds;
-    char limited_why[160];
-    int64_t max_queue_wait_ns, max_loop_busy_ns;
-    int max_queued, max_in_flight;
-    double max_busy_fraction;
-} health_t;
 
 struct obs {
     obs_cfg_t cfg;
@@ -53,7 +37,8 @@ struct obs {
     int64_t total_started, total_completed, total_errors;
     int in_flight;
     int64_t busy_since_ns, last_answer_ns;
-    health_t health;
+    obs_health_t health;
+    int64_t svc_sum_ns, svc_n; /* the open second's service times */
 };
 
 bool obs_is_error(enum eng_outcome oc)
@@ -134,6 +119,7 @@ void obs_free(obs_t *l)
     hist_free(l->all);
     hist_free(l->sec_lag);
     hist_free(l->sched_lag);
+    obs_health_close(&l->health);
     free(l);
 }
 
@@ -250,6 +236,10 @@ static void tally(obs_t *l, const obs_done_t *d)
     l->errors += err;
     l->total_completed++;
     l->total_errors += err;
+    if (r->sent_ns && r->done_ns >= r->sent_ns) {
+        l->svc_sum_ns += r->done_ns - r->sent_ns;
+        l->svc_n++;
+    }
     if (d->first && r->submitted_ns) {
         hist_record(l->sched_lag, r->submitted_ns - d->intended_ns);
         hist_record(l->sec_lag, r->submitted_ns - d->intended_ns);
@@ -304,32 +294,6 @@ int obs_in_flight(const obs_t *l)
     return l->in_flight;
 }
 
-/* The generator-limited rule over one second; why is filled when it holds. */
-static bool limited(obs_t *l, const eng_stats_t *st, int64_t lag_p99, char *why, size_t cap)
-{
-    health_t *h = &l->health;
-    double busy = st->window_ns > 0 ? (double)st->loop_busy_ns / (double)st->window_ns : 0;
-    h->max_queue_wait_ns =
-        st->max_queue_wait_ns > h->max_queue_wait_ns ? st->max_queue_wait_ns : h->max_queue_wait_ns;
-    h->max_loop_busy_ns =
-        st->max_loop_busy_ns > h->max_loop_busy_ns ? st->max_loop_busy_ns : h->max_loop_busy_ns;
-    h->max_queued = st->max_queued > h->max_queued ? st->max_queued : h->max_queued;
-    h->max_in_flight = st->max_in_flight > h->max_in_flight ? st->max_in_flight : h->max_in_flight;
-    h->max_busy_fraction = busy > h->max_busy_fraction ? busy : h->max_busy_fraction;
-    if (st->max_queue_wait_ns > LIMIT_QUEUE_WAIT_NS)
-        snprintf(why, cap, "requests waited up to %.1f ms for a free connection",
-                 (double)st->max_queue_wait_ns / 1e6);
-    else if (lag_p99 > LIMIT_LAG_P99_NS)
-        snprintf(why, cap, "schedule lag p99 %.1f ms", (double)lag_p99 / 1e6);
-    else if (busy > LIMIT_BUSY_FRACTION)
-        snprintf(why, cap, "event loop %.0f%% busy", busy * 100);
-    else
-        return false;
-    h->limited_seconds++;
-    snprintf(h->limited_why, sizeof h->limited_why, "%s", why);
-    return true;
-}
-
 /* The second's cells with figures, in (phase, class) order. */
 static void collect(obs_t *l)
 {
@@ -357,6 +321,7 @@ static void window_reset(obs_t *l, int64_t now)
     hist_reset(l->all);
     hist_reset(l->sec_lag);
     l->started = l->completed = l->errors = 0;
+    l->svc_sum_ns = l->svc_n = 0;
     l->planned = 0;
     l->unplanned = false;
     l->sec_index++;
@@ -368,7 +333,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
     int64_t now = clock_mono_ns();
     if (!l->sec_start_ns)
         l->sec_start_ns = now - st->window_ns;
-    char why[160] = "";
+    char why[240] = "";
     collect(l);
     obs_second_t s = {
         .index = l->sec_index,
@@ -391,9 +356,18 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .in_flight = l->in_flight,
         .busy_since_ns = l->busy_since_ns,
         .last_answer_ns = l->last_answer_ns,
-        .limited_why = why,
+        .bound_why = why,
     };
-    s.limited = limited(l, st, hist_value_at(l->sec_lag, 99), why, sizeof why);
+    obs_health_in_t in = {
+        .second = l->sec_index,
+        .loading = loading,
+        .lag_p99_ns = hist_value_at(l->sec_lag, 99),
+        .svc_sum_ns = l->svc_sum_ns,
+        .svc_n = l->svc_n,
+        .planned_per_s = l->unplanned ? NAN : l->planned / s.secs,
+        .completed_per_s = (double)l->completed / s.secs,
+    };
+    s.bound = obs_health_second(&l->health, st, &in, why, sizeof why);
     for (size_t i = 0; i < N_ENTRIES; i++)
         if (entries[i]->ops->second)
             entries[i]->ops->second(l->self[i], &s);
@@ -402,26 +376,12 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
 
 static json_t *generator_json(const obs_t *l)
 {
-    const health_t *h = &l->health;
-    json_t *lim =
-        json_pack("{s:f, s:f, s:f}", "lag_p99_ms", (double)LIMIT_LAG_P99_NS / 1e6, "queue_wait_ms",
-                  (double)LIMIT_QUEUE_WAIT_NS / 1e6, "loop_busy_fraction", LIMIT_BUSY_FRACTION);
-    json_t *g = json_object();
-    json_object_set_new(g, "generator_limited", json_boolean(h->limited_seconds > 0));
-    json_object_set_new(g, "limited_seconds", json_integer(h->limited_seconds));
-    json_object_set_new(g, "last_reason",
-                        h->limited_seconds ? json_string(h->limited_why) : json_null());
+    json_t *g = obs_health_json(&l->health);
     json_object_set_new(g, "schedule_lag_p50_ms",
                         json_real((double)hist_value_at(l->sched_lag, 50) / 1e6));
     json_object_set_new(g, "schedule_lag_p99_ms",
                         json_real((double)hist_value_at(l->sched_lag, 99) / 1e6));
     json_object_set_new(g, "schedule_lag_max_ms", json_real((double)hist_max(l->sched_lag) / 1e6));
-    json_object_set_new(g, "max_queue_wait_ms", json_real((double)h->max_queue_wait_ns / 1e6));
-    json_object_set_new(g, "max_queued", json_integer(h->max_queued));
-    json_object_set_new(g, "max_in_flight", json_integer(h->max_in_flight));
-    json_object_set_new(g, "max_loop_pass_ms", json_real((double)h->max_loop_busy_ns / 1e6));
-    json_object_set_new(g, "max_loop_busy_fraction", json_real(h->max_busy_fraction));
-    json_object_set_new(g, "thresholds", lim);
     json_object_set_new(g, "started", json_integer(l->total_started));
     json_object_set_new(g, "completed", json_integer(l->total_completed));
     json_object_set_new(g, "errors", json_integer(l->total_errors));
@@ -450,8 +410,13 @@ void obs_totals(const obs_t *l, obs_totals_t *t)
         .started = l->total_started,
         .completed = l->total_completed,
         .errors = l->total_errors,
-        .limited_seconds = l->health.limited_seconds,
-        .limited_why = l->health.limited_why,
+        .generator_bound_s = l->health.generator.seconds,
+        .connection_bound_s = l->health.connections.seconds,
+        .generator_why = l->health.generator.why,
+        .connection_why = l->health.connections.why,
         .sched_lag = l->sched_lag,
     };
+    obs_bound_seconds(&l->health.generator, t->generator_seconds, sizeof t->generator_seconds);
+    obs_bound_seconds(&l->health.connections, t->connection_seconds,
+                      sizeof t->connection_seconds);
 }

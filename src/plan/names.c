@@ -6,6 +6,7 @@
 #include "plan_int.h"
 
 const char *const plan_kind_names[] = {"get", "list", "write", "watch", NULL};
+const char *const plan_accept_names[] = {"generator-bound", "few-samples", "stopped-early", NULL};
 const char *const plan_backoff_names[] = {
     "immediate", "fixed", "exponential", "full-jitter", "equal-jitter", "decorrelated", NULL};
 

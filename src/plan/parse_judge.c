@@ -6,6 +6,7 @@
 
 #include "plan_int.h"
 #include "squall/err.h"
+#include "squall/suggest.h"
 
 /* "p99" -> 99, "p99.9" -> 99.9, "max" -> 100; false for anything else. */
 static bool percentile_key(const char *k, double *pct)
@@ -176,4 +177,31 @@ void plan_parse_objectives(pctx_t *c, yaml_node_t *n)
 void plan_parse_brakes(pctx_t *c, yaml_node_t *n)
 {
     parse_list(c, n, "brakes", false);
+}
+
+/* `accept: [generator-bound, few-samples, stopped-early]`: reasons for INCONCLUSIVE the plan
+ * accepts as not standing in the way of a PASS. */
+void plan_parse_accept(pctx_t *c, yaml_node_t *n)
+{
+    if (!pc_expect_seq(c, n, "accept"))
+        return;
+    for (yaml_node_item_t *it = n->data.sequence.items.start; it < n->data.sequence.items.top;
+         it++) {
+        yaml_node_t *v = pc_node(c, *it);
+        const char *t = pc_text(v);
+        int k = -1;
+        for (int i = 0; t && plan_accept_names[i]; i++)
+            if (strcmp(plan_accept_names[i], t) == 0)
+                k = i;
+        if (k < 0) {
+            const char *near = t ? suggest_closest(t, plan_accept_names) : NULL;
+            pc_error(c, v,
+                     "accept: unknown reason (expected one of generator-bound, few-samples, "
+                     "stopped-early, got '%s')%s%s%s",
+                     t ? t : "a non-scalar", near ? " (did you mean '" : "", near ? near : "",
+                     near ? "'?)" : "");
+            continue;
+        }
+        c->p->accept |= 1u << k;
+    }
 }

@@ -16,6 +16,7 @@ static const struct {
     {"token-key", PK_LIST},  {"token-param", PK_LIST},
     {"method", PK_WRITE},    {"body", PK_WRITE},
     {"creates", PK_WRITE},   {"deletes", PK_WRITE},
+    {"keep", PK_WRITE},
     {"framing", PK_WATCH},   {"version-key", PK_WATCH},
     {"stamp-key", PK_WATCH}, {"too-old-status", PK_WATCH},
     {"relist", PK_WATCH},    {"reconnect", PK_WATCH},
@@ -52,6 +53,20 @@ static void parse_list_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_r
     pc_str(c, n, "token-param", where, &r->list.token_param);
 }
 
+/* `keep: true` or `keep: "why"`: the objects this class creates stay on the target after the
+ * run (its 201s are still journaled); the summary lists them with the reason. */
+static void parse_keep(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+{
+    const char *t = pc_text(pc_get(c, n, "keep"));
+    if (!t)
+        return;
+    if (strcmp(t, "true") == 0 || strcmp(t, "false") == 0) {
+        pc_bool(c, n, "keep", where, &r->write.keep);
+    } else if (pc_str(c, n, "keep", where, &r->write.keep_why)) {
+        r->write.keep = true;
+    }
+}
+
 static void parse_write_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
 {
     static const char *const methods[] = {"POST", "PUT", "PATCH", "DELETE", NULL};
@@ -62,6 +77,7 @@ static void parse_write_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_
         r->write.body_pos = pc_pos(c, pc_get(c, n, "body"));
     pc_bool(c, n, "creates", where, &r->write.creates);
     pc_bool(c, n, "deletes", where, &r->write.deletes);
+    parse_keep(c, n, where, r);
     if (r->write.creates && r->write.deletes)
         pc_error(c, pc_get_key(c, n, "deletes"),
                  "%s: a class either creates or deletes (expected one of creates, deletes, got "

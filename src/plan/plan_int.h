@@ -101,6 +101,7 @@ void plan_parse_requests(pctx_t *c, yaml_node_t *n);
 void plan_parse_phases(pctx_t *c, yaml_node_t *n);
 void plan_parse_objectives(pctx_t *c, yaml_node_t *n);
 void plan_parse_brakes(pctx_t *c, yaml_node_t *n);
+void plan_parse_accept(pctx_t *c, yaml_node_t *n);
 /* Resolves every reference and runs the checks that need the whole plan. */
 void plan_check_whole(pctx_t *c);
 

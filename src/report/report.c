@@ -73,7 +73,61 @@ static void header(FILE *f, const results_t *res)
     kv(f, "host", m->host);
     kv(f, "squall", m->squall_version);
     kv(f, "ended early", m->interrupted ? (m->stop_reason ? m->stop_reason : "yes") : "no");
+    json_t *run = results_section(res, "run");
+    if (run) { /* how to run it again, and how it ended */
+        json_t *seed = json_object_get(run, "seed"), *v;
+        size_t i;
+        if (json_is_integer(seed)) {
+            snprintf(buf, sizeof buf, "%llu", (unsigned long long)json_integer_value(seed));
+            kv(f, "seed", buf);
+        }
+        kv(f, "command line", jstr(run, "command_line"));
+        fputs("<tr><th>overrides</th><td>", f);
+        json_array_foreach(json_object_get(run, "overrides"), i, v)
+        {
+            fputs(i ? "<br>" : "", f);
+            html_esc(f, json_string_value(v));
+        }
+        fputs(json_array_size(json_object_get(run, "overrides")) ? "</td></tr>\n"
+                                                                   : "none</td></tr>\n",
+              f);
+        snprintf(buf, sizeof buf, "%s (exit %lld)", jstr(run, "verdict") ? jstr(run, "verdict") : "?",
+                 (long long)json_integer_value(json_object_get(run, "exit_code")));
+        kv(f, "verdict", buf);
+    }
     fputs("</table>\n", f);
+}
+
+/* The run's verdict and its reasons (the "run" section), before any figure. */
+static void verdict(FILE *f, const results_t *res)
+{
+    json_t *run = results_section(res, "run"), *r;
+    const char *v = run ? jstr(run, "verdict") : NULL;
+    size_t i;
+    if (!v) {
+        fputs("<div class=\"banner bad\">No verdict: results.json has no \"run\" section "
+              "(merged or written by an older squall).</div>\n",
+              f);
+        return;
+    }
+    bool pass = !strcmp(v, "pass");
+    fprintf(f, "<div class=\"banner %s\" id=\"verdict\">%s</div>\n", pass ? "good" : "bad",
+            pass                   ? "PASS: the planned load was offered and every objective held."
+            : !strcmp(v, "fail")   ? "FAIL: at least one objective did not hold."
+                                   : "INCONCLUSIVE: the evidence cannot support a pass.");
+    static const char *const lists[] = {"reasons", "accepted"};
+    for (size_t l = 0; l < 2; l++) {
+        if (json_array_size(json_object_get(run, lists[l])) == 0)
+            continue;
+        fprintf(f, "<ul class=\"%s\">\n", lists[l]);
+        json_array_foreach(json_object_get(run, lists[l]), i, r)
+        {
+            fputs(l ? "<li>accepted by the plan: " : "<li>", f);
+            html_esc(f, json_string_value(r));
+            fputs("</li>\n", f);
+        }
+        fputs("</ul>\n", f);
+    }
 }
 
 /* The brakes in force (the "brakes" section), one line each. */
@@ -98,7 +152,8 @@ static void brakes(FILE *f, const results_t *res)
         else if (!strcmp(kind, "unreachable"))
             snprintf(what, sizeof what, "no answer for %.0f s", jnum(k, "after_s"));
         else
-            snprintf(what, sizeof what, "generator limited for %.0f s", jnum(k, "for_s"));
+            snprintf(what, sizeof what, "squall could not offer the planned load for %.0f s",
+                     jnum(k, "for_s"));
         fprintf(f, "<li>%s (%s, class ", what, jstr(k, "source") ? jstr(k, "source") : "?");
         html_esc(f, jstr(k, "class"));
         fputs(")</li>\n", f);
@@ -114,17 +169,45 @@ static void generator(FILE *f, const results_t *res)
         fputs("<p class=\"note\">No generator section in results.json.</p></section>\n", f);
         return;
     }
-    bool limited = json_is_true(json_object_get(g, "generator_limited"));
-    fprintf(f, "<div class=\"banner %s\">%s</div>\n", limited ? "bad" : "good",
-            limited ? "GENERATOR-LIMITED: the target was not offered the planned load; the "
-                      "figures below are not a verdict on it."
-                    : "The generator kept its schedule.");
+    json_t *gb = json_object_get(g, "generator_bound"), *cb = json_object_get(g, "connection_bound");
+    double gs = jnum(gb, "seconds"), cs = jnum(cb, "seconds");
+    if (gs > 0)
+        fputs("<div class=\"banner bad\">GENERATOR-BOUND: squall itself fell behind its schedule "
+              "in the seconds below; the target's figures for them are not evidence.</div>\n",
+              f);
+    if (cs > 0)
+        fputs("<div class=\"banner bad\">CONNECTION-BOUND: the target answered so slowly that "
+              "every connection of the plan was busy; times measured from each request's "
+              "intended start remain a correct verdict on the target. Raise target.connections "
+              "to offer more load.</div>\n",
+              f);
+    if (gs == 0 && cs == 0)
+        fputs("<div class=\"banner good\">squall offered the planned load: it kept its schedule "
+              "and never waited for a connection.</div>\n",
+              f);
     fputs("<table class=\"meta\">\n", f);
     char buf[160];
-    if (limited) {
-        snprintf(buf, sizeof buf, "%.0f s", jnum(g, "limited_seconds"));
-        kv(f, "limited for", buf);
-        kv(f, "last reason", jstr(g, "last_reason"));
+    static const char *const kinds[] = {"generator-bound", "connection-bound"};
+    json_t *bound[] = {gb, cb};
+    for (size_t b = 0; b < 2; b++) {
+        if (jnum(bound[b], "seconds") == 0)
+            continue;
+        int n = snprintf(buf, sizeof buf, "%.0f s:", jnum(bound[b], "seconds"));
+        size_t i;
+        json_t *sec;
+        json_array_foreach(json_object_get(bound[b], "list"), i, sec)
+        {
+            if (n < 0 || (size_t)n >= sizeof buf - 16) {
+                snprintf(buf + sizeof buf - 16, 16, " ...");
+                break;
+            }
+            n += snprintf(buf + n, sizeof buf - (size_t)n, " %lld", (long long)json_integer_value(sec));
+        }
+        char key[64];
+        snprintf(key, sizeof key, "%s seconds", kinds[b]);
+        kv(f, key, buf);
+        snprintf(key, sizeof key, "%s: last reason", kinds[b]);
+        kv(f, key, jstr(bound[b], "last_reason"));
     }
     snprintf(buf, sizeof buf, "%.2f / %.2f / %.2f ms", jnum(g, "schedule_lag_p50_ms"),
              jnum(g, "schedule_lag_p99_ms"), jnum(g, "schedule_lag_max_ms"));
@@ -157,11 +240,10 @@ static void objectives(FILE *f, const results_t *res)
         fputs("<p class=\"note\">The plan sets no objectives.</p></section>\n", f);
         return;
     }
-    bool passed = json_is_true(json_object_get(o, "passed"));
-    fprintf(f, "<div class=\"banner %s\">%s</div>\n", passed ? "good" : "bad",
-            passed ? "&#10004; PASS: every objective held."
-                   : "&#10008; FAIL: at least one "
-                     "objective did not hold.");
+    fputs("<p class=\"note\">Checks marked (default) are the error rate of 1 % every class is "
+          "judged on unless the plan sets its own. A percentile needs 1 / (1 - p) samples to be "
+          "resolved: 100 for p99, 1,000 for p99.9.</p>\n",
+          f);
     fputs("<table><tr><th>verdict</th><th>class</th><th>scope</th><th>objective</th>"
           "<th class=\"n\">observed</th><th class=\"n\">threshold</th><th class=\"n\">samples"
           "</th></tr>\n",
@@ -173,15 +255,22 @@ static void objectives(FILE *f, const results_t *res)
         const char *v = jstr(c, "verdict") ? jstr(c, "verdict") : "?";
         const char *unit = jstr(c, "unit") ? jstr(c, "unit") : "";
         bool ok = !strcmp(v, "pass");
-        char obs[48] = "-", thr[48];
+        char obs[48] = "-", thr[48], word[64];
         if (strcmp(v, "no-data"))
             fmt_value(jnum(c, "observed"), unit, obs, sizeof obs);
         fmt_value(jnum(c, "threshold"), unit, thr, sizeof thr);
-        fprintf(f, "<tr><td class=\"%s\">%s %s</td><td>", ok ? "pass" : "fail",
-                ok ? "&#10004;" : "&#10008;",
-                ok                   ? "pass"
-                : !strcmp(v, "fail") ? "FAIL"
-                                     : "NO DATA");
+        if (!strcmp(v, "too-few"))
+            snprintf(word, sizeof word, "TOO FEW (needs %.0f)", jnum(c, "needed"));
+        else
+            snprintf(word, sizeof word, "%s",
+                     ok                   ? "pass"
+                     : !strcmp(v, "fail") ? "FAIL"
+                                          : "NO DATA");
+        if (jstr(c, "why"))
+            snprintf(word + strlen(word), sizeof word - strlen(word), ": %s", jstr(c, "why"));
+        fprintf(f, "<tr><td class=\"%s\">%s ", ok ? "pass" : "fail", ok ? "&#10004;" : "&#10008;");
+        html_esc(f, word);
+        fputs("</td><td>", f);
         html_esc(f, jstr(c, "class"));
         fputs("</td><td>", f);
         html_esc(f, jstr(c, "scope"));
@@ -204,6 +293,7 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
     html_esc(f, results_meta(res)->plan_path);
     fprintf(f, "</title>\n<style>\n%s</style></head><body>\n", html_css);
     header(f, res);
+    verdict(f, res);
     objectives(f, res);
     generator(f, res);
     html_tables(f, res, s);

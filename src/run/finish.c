@@ -55,16 +55,22 @@ static size_t judged_phases(const run_t *r)
     return n - 1;
 }
 
-/* The sections every run has, and the objectives judged; *j is the verdict (NULL on error). */
+/* The sections every run has, and the objectives judged; *j is the verdict (NULL on error).
+ * Every class is also judged on a default error rate of 1 % unless an objective covers it. */
 static int judge(run_t *r, const judge_phase_t *ph, judge_t **j)
 {
-    int rc =
-        judge_evaluate(r->plan->objectives, r->plan->n_objectives, r->res, ph, judged_phases(r), j);
+    const char *watches[PLAN_MAX_REQS];
+    judge_opts_t jo = {.default_error_rate = RUN_DEFAULT_ERROR_RATE, .watch_classes = watches};
+    for (size_t i = 0; i < r->plan->n_reqs; i++)
+        if (r->plan->reqs[i].kind == PLAN_WATCH)
+            watches[jo.n_watch_classes++] = r->plan->reqs[i].name;
+    int rc = judge_evaluate(r->plan->objectives, r->plan->n_objectives, r->res, ph,
+                            judged_phases(r), &jo, j);
     if (rc == 0 && r->start_ns)
         rc = results_set_section(r->res, "phases", phases_json(r, ph));
     if (rc == 0)
         rc = results_set_section(r->res, "brakes", obs_brakes_json(r->obs));
-    if (rc == 0 && r->plan->n_objectives)
+    if (rc == 0)
         rc = results_set_section(r->res, JUDGE_SECTION, judge_json(*j));
     if (rc)
         out_error(r->o, "objectives could not be judged: %s", sq_strerror(rc));
@@ -87,20 +93,68 @@ static int sections(run_t *r)
     return rc ? rc : e;
 }
 
-bool run_finish(run_t *r, bool *objectives_failed)
+/* The outcome: the checks, weighed with what squall could offer and how the run ended. */
+static enum judge_outcome outcome(run_t *r, const judge_t *j, json_t *reasons, json_t *accepted)
+{
+    if (!j)
+        return JUDGE_OUTCOME_FAIL;
+    obs_totals_t t;
+    obs_totals(r->obs, &t);
+    judge_evidence_t ev = {
+        .generator_bound_s = t.generator_bound_s,
+        .generator_seconds = t.generator_seconds,
+        .generator_why = t.generator_why,
+        .stopped_early = r->end != RUN_END_DONE,
+        .stop_why = r->why,
+        .accept = r->plan->accept,
+    };
+    return judge_outcome(j, &ev, reasons, accepted);
+}
+
+/* results.json's "run" section: how to run it again, and how it ended (the exit code is the
+ * command line's, given the outcome). */
+static json_t *run_json(run_t *r, const run_result_t *res, json_t *reasons, json_t *accepted)
+{
+    json_t *sets = json_array();
+    for (size_t i = 0; sets && i < r->opts->n_overrides; i++)
+        json_array_append_new(sets, json_string(r->opts->overrides[i]));
+    json_t *s = json_pack("{s:I, s:o, s:s?, s:s, s:s, s:o, s:o}", "seed", (json_int_t)r->seed,
+                          "overrides", sets, "command_line", r->opts->command_line, "verdict",
+                          judge_outcome_name(res->outcome), "squall_version", SQUALL_VERSION,
+                          "reasons", reasons, "accepted", accepted);
+    if (s && r->opts->exit_code)
+        json_object_set_new(s, "exit_code", json_integer(r->opts->exit_code(0, res)));
+    return s;
+}
+
+bool run_finish(run_t *r, run_result_t *res)
 {
     results_set_duration(r->res, r->end_ns - r->start_ns);
     if (r->end != RUN_END_DONE)
         results_set_stopped(r->res, r->why);
+    res->end = r->end;
     bool failed = sections(r) != 0;
     judge_phase_t *ph = phase_times(r);
     judge_t *j = NULL;
     failed |= !ph || judge(r, ph, &j) != 0;
-    *objectives_failed = !j || judge_failed(j);
+    json_t *reasons = json_array(), *accepted = json_array();
+    res->outcome = outcome(r, j, reasons, accepted);
+    res->write_failed = failed;
+    failed |= results_set_section(r->res, "run",
+                                  run_json(r, res, json_incref(reasons), json_incref(accepted))) != 0;
     failed |= results_write_dir(r->res, r->dir, r->o) != 0;
-    failed |= report_html_write_dir(r->dir, r->res, r->o) != 0;
+    res->write_failed = failed;
+    if (report_html_write_dir(r->dir, r->res, r->o) != 0 && !failed) {
+        /* results.json recorded an exit code that no longer holds: record the one that does. */
+        res->write_failed = failed = true;
+        results_set_section(r->res, "run",
+                            run_json(r, res, json_incref(reasons), json_incref(accepted)));
+        results_write_dir(r->res, r->dir, r->o);
+    }
     if (!r->opts->quiet && ph)
-        run_summary(r, ph, j);
+        run_summary(r, ph, j, res, reasons, accepted);
+    json_decref(reasons);
+    json_decref(accepted);
     judge_free(j);
     free(ph);
     return failed;

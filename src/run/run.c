@@ -8,6 +8,7 @@
 #include <string.h>
 #include <sys/stat.h>
 #include <time.h>
+#include <unistd.h>
 
 #include "run_int.h"
 #include "squall/clock.h"
@@ -61,6 +62,8 @@ void run_stop(run_t *r, enum run_end why, const char *fmt, ...)
     if (r->state != RUN_LOADING && r->state != RUN_DRAINING)
         return;
     int64_t grace_ms = why == RUN_END_UNREACHABLE ? 0 : r->opts->grace_ns / 1000000;
+    if (r->state == RUN_LOADING)
+        r->load_end_ns = now;
     phase_end(r, now);
     src_issuer_paging(r->issuer, false);
     set_state(r, RUN_DRAINING);
@@ -82,6 +85,7 @@ static void phase_start(run_t *r, size_t i, int64_t base_ns)
     run_phase_t *ph = &r->phases[i];
     r->cur = i;
     ph->base_ns = base_ns;
+    ph->planned_to_ns = base_ns;
     ph->realtime0_ns = clock_real_ns() - (clock_mono_ns() - base_ns);
     ph->started = true;
     obs_phase(r->obs, i, base_ns, ph->realtime0_ns);
@@ -101,6 +105,7 @@ static void drain(run_t *r, int64_t now)
     for (size_t i = 0; i < r->plan->n_reqs; i++)
         longest = r->plan->reqs[i].timeout_ns > longest ? r->plan->reqs[i].timeout_ns : longest;
     phase_end(r, now);
+    r->load_end_ns = now;
     set_state(r, RUN_DRAINING);
     r->drain_deadline_ns = now + longest + 1000000000;
 }
@@ -234,21 +239,27 @@ static void on_prepare(uv_prepare_t *c)
 
 /* ---- seconds, signals, the target --------------------------------------------------------- */
 
-/* The starts the sources planned in [from, to), for every phase that ran in it. */
-static void planned(run_t *r, int64_t from, int64_t to)
+/* The starts the sources planned up to `to`, for every phase that ran before it, each from
+ * where its count stopped: a phase that began before the second closed but was started just
+ * after it (the second's timer ran first in that loop pass) has its first instants counted in
+ * the next second, where its first requests are also counted. */
+static void planned(run_t *r, int64_t to)
 {
     double pc[PLAN_MAX_REQS + 1];
     for (size_t i = 0; i <= r->cur && i < r->n_phases; i++) {
         run_phase_t *ph = &r->phases[i];
+        if (!ph->started)
+            continue;
         int64_t end = ph->ended_ns ? ph->ended_ns : to;
         if (ph->duration_ns && ph->base_ns + ph->duration_ns < end)
             end = ph->base_ns + ph->duration_ns;
-        int64_t a = from > ph->base_ns ? from : ph->base_ns, b = to < end ? to : end;
-        if (!ph->started || b <= a)
+        int64_t a = ph->planned_to_ns, b = to < end ? to : end;
+        if (b <= a)
             continue;
         memset(pc, 0, (r->plan->n_reqs + 1) * sizeof(*pc));
         double e = src_expected(ph->src, ph->n_src, a - ph->base_ns, b - ph->base_ns, pc);
         obs_planned(r->obs, i, pc, e);
+        ph->planned_to_ns = b;
     }
 }
 
@@ -263,8 +274,10 @@ static void second(run_t *r, bool final)
         memset(&st, 0, sizeof st);
         st.window_ns = now - r->sec_start_ns;
     }
-    planned(r, r->sec_start_ns, now);
-    obs_second(r->obs, &st, r->state == RUN_LOADING, r->cur, final);
+    planned(r, now);
+    /* A second in which the load ended still counts as one of the load's. */
+    bool loading = r->state == RUN_LOADING || r->load_end_ns > r->sec_start_ns;
+    obs_second(r->obs, &st, loading, r->cur, final);
     r->sec_start_ns = now;
 }
 
@@ -421,6 +434,15 @@ static int open_results(run_t *r)
         out_error(r->o, "cannot create results directory %s: %s", r->dir, strerror(errno));
         return SQ_EIO;
     }
+    char old[4200];
+    snprintf(old, sizeof old, "%s/%s", r->dir, RESULTS_FILE);
+    if (!o->force && access(old, F_OK) == 0) {
+        out_error(r->o,
+                  "%s already holds the results of a run: choose another -o, or --force to "
+                  "replace them",
+                  r->dir);
+        return SQ_EINVAL;
+    }
     int rc = obs_open(r->obs, r->dir);
     rc = rc ? rc : results_set_plan(r->res, r->plan->path, NULL, 0, r->o);
     rc = rc ? rc : results_set_target(r->res, r->plan->target.url);
@@ -450,8 +472,7 @@ int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o, run_result_t 
         return rc;
     }
     run_loop(&r);
-    result->write_failed = run_finish(&r, &result->objectives_failed);
-    result->end = r.end;
+    run_finish(&r, result);
     run_close(&r);
     if (uv_run(&r.loop, UV_RUN_DEFAULT), uv_loop_close(&r.loop) != 0)
         out_warn(o, "internal: event loop closed with handles still open");

@@ -33,6 +33,7 @@ typedef struct {
     bool started;
     int64_t base_ns, realtime0_ns; /* its t = 0 */
     int64_t ended_ns;              /* when it stopped starting requests; 0 while it runs */
+    int64_t planned_to_ns;         /* its planned starts are counted up to here */
 } run_phase_t;
 
 typedef struct run {
@@ -63,6 +64,7 @@ typedef struct run {
     run_phase_t *phases;
     size_t n_phases, cur; /* plan phases, plus the added teardown when there is one */
     int64_t start_ns, end_ns, drain_deadline_ns, sec_start_ns;
+    int64_t load_end_ns; /* when the plan's phases stopped sending (0 while they send) */
 } run_t;
 
 /* run.c: stops the run (the first reason is kept): no new starts, requests in flight get the
@@ -77,10 +79,14 @@ void run_close(run_t *r);
 /* The context a phase's sources are built with. */
 src_ctx_t run_src_ctx(const run_t *r, size_t phase);
 
-/* finish.c: after the loop ended. Returns the result's write_failed. */
-bool run_finish(run_t *r, bool *objectives_failed);
+#define RUN_DEFAULT_ERROR_RATE 0.01 /* every class not covered by an error-rate objective */
 
-/* summary.c: the table printed at the end of a run (ph: each plan phase as it ran). */
-void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j);
+/* finish.c: after the loop ended: fills res (outcome, write_failed). Returns write_failed. */
+bool run_finish(run_t *r, run_result_t *res);
+
+/* summary.c: the table printed at the end of a run (ph: each plan phase as it ran), the
+ * objectives, and the verdict with its reasons and the ones the plan accepted. */
+void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j, const run_result_t *res,
+                 const json_t *reasons, const json_t *accepted);
 
 #endif

@@ -102,7 +102,54 @@ static void phase_rows(run_t *r, size_t p, const judge_phase_t *ph, hist_t *h, h
         row(r, ph, "teardown", h, svc);
 }
 
-void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j)
+/* Could squall offer the planned load: the seconds it could not, by kind. */
+static void bound_lines(run_t *r, const obs_totals_t *t)
+{
+    if (t->generator_bound_s)
+        out_print(r->o,
+                  "GENERATOR-BOUND for %lld s (seconds %s; last: %s): squall could not offer the "
+                  "planned load, so the target's figures for those seconds are not evidence\n",
+                  (long long)t->generator_bound_s, t->generator_seconds, t->generator_why);
+    if (t->connection_bound_s)
+        out_print(r->o,
+                  "CONNECTION-BOUND for %lld s (seconds %s; last: %s): every connection was busy "
+                  "because the target answered slowly; response times from the intended starts "
+                  "are a verdict on the target\n",
+                  (long long)t->connection_bound_s, t->connection_seconds, t->connection_why);
+}
+
+/* The objects classes with `keep` left on the target on purpose, and why. */
+static void kept_lines(run_t *r)
+{
+    ledger_t *g = obs_ledger(r->obs);
+    for (size_t c = 0; g && c < r->plan->n_reqs; c++) {
+        size_t n = ledger_kept(g, (int)c);
+        if (n == 0)
+            continue;
+        const char *why = r->plan->reqs[c].write.keep_why;
+        out_print(r->o, "kept %zu objects of class %s on the target%s%s (`squall cleanup %s` "
+                  "deletes them)\n",
+                  n, r->plan->reqs[c].name, why ? ": " : " (the plan keeps them)",
+                  why ? why : "", r->dir);
+    }
+}
+
+/* The verdict, and why when it is not a plain pass. */
+static void verdict_lines(run_t *r, const run_result_t *res, const json_t *reasons,
+                          const json_t *accepted)
+{
+    static const char *const word[] = {"PASS", "FAIL", "INCONCLUSIVE"};
+    out_print(r->o, "\nverdict: %s\n", word[res->outcome]);
+    size_t i;
+    const json_t *why;
+    json_array_foreach(reasons, i, why)
+    out_print(r->o, "  %s\n", json_string_value(why));
+    json_array_foreach(accepted, i, why)
+    out_print(r->o, "  accepted by the plan: %s\n", json_string_value(why));
+}
+
+void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j, const run_result_t *res,
+                 const json_t *reasons, const json_t *accepted)
 {
     hist_t *h = NULL, *svc = NULL;
     if (hist_new_ns(&h) || hist_new_ns(&svc)) {
@@ -121,14 +168,12 @@ void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j)
     out_print(r->o, "\nsent %lld requests in %.1f s, %lld errors; schedule lag p99 %.2f ms\n",
               (long long)t.started, (double)(r->end_ns - r->start_ns) / 1e9, (long long)t.errors,
               ms(hist_value_at(t.sched_lag, 99)));
-    if (t.limited_seconds)
-        out_print(r->o,
-                  "GENERATOR-LIMITED for %lld s (last: %s): the target was not offered the "
-                  "planned load; the figures above are not a verdict on it\n",
-                  (long long)t.limited_seconds, t.limited_why);
+    bound_lines(r, &t);
+    kept_lines(r);
     if (j)
         judge_print(j, r->o);
     if (r->end != RUN_END_DONE)
         out_print(r->o, "stopped early: %s\n", r->why);
+    verdict_lines(r, res, reasons, accepted);
     out_print(r->o, "results: %s/\n", r->dir);
 }

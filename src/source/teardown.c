@@ -112,9 +112,10 @@ static void limits(teardown_t *s)
 static json_t *figures(const journal_reap_counts_t *c, size_t n, bool kept, const hist_t *h)
 {
     json_t *t =
-        json_pack("{s:I, s:b, s:I, s:I, s:I, s:I, s:f, s:s?}", "objects", (json_int_t)n, "kept",
-                  kept, "deleted", (json_int_t)c->done, "already_gone", (json_int_t)c->gone,
-                  "failed", (json_int_t)c->refused, "left", (json_int_t)(kept ? n : c->left),
+        json_pack("{s:I, s:b, s:I, s:I, s:I, s:I, s:I, s:f, s:s?}", "objects", (json_int_t)n,
+                  "kept", kept, "deleted", (json_int_t)c->done, "already_gone",
+                  (json_int_t)c->gone, "failed", (json_int_t)c->refused, "left",
+                  (json_int_t)(kept ? n : c->left), "not_tried", (json_int_t)c->not_tried,
                   "seconds", (double)c->elapsed_ns / 1e9, "stopped", c->why[0] ? c->why : NULL);
     if (t && h && hist_count(h)) {
         json_object_set_new(t, "response_p50_ms", json_real((double)hist_value_at(h, 50) / 1e6));
@@ -177,14 +178,15 @@ static void report(teardown_t *s)
     ledger_teardown_json(g, figures(&c, s->n, s->ctx.keep, s->ctx.keep ? NULL : s->response));
     if (s->ctx.keep || s->n == 0)
         return;
-    out_info(s->ctx.o,
-             "teardown: %zu objects: %zu deleted, %zu already gone, %zu failed, %zu left (%.1f s)",
-             s->n, c.done, c.gone, c.refused, c.left, (double)c.elapsed_ns / 1e9);
-    if (c.refused || c.left)
+    char text[200];
+    size_t still = journal_counts_text(&c, text, sizeof text);
+    out_info(s->ctx.o, "teardown: %s", text);
+    if (still)
         out_warn(s->ctx.o,
-                 "teardown left %zu objects on the target%s%s; `squall cleanup %s` deletes what "
-                 "the journal shows alive",
-                 c.refused + c.left, c.why[0] ? ": " : "", c.why, ledger_journal(g));
+                 "%zu objects are still on the target (%zu failed, %zu left, %zu not tried)%s%s; "
+                 "`squall cleanup %s` deletes what the journal shows alive",
+                 still, c.refused, c.left, c.not_tried, c.why[0] ? ": " : "", c.why,
+                 ledger_journal(g));
 }
 
 static bool teardown_idle(const void *self)

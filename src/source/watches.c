@@ -332,15 +332,23 @@ static void on_stream_done(void *user, const eng_result_t *res)
     watches_t *ws = w->ws;
     w->busy = false;
     watch_framer_end(&w->fr);
-    /* The 2xx cell counts events: a stream the server ended cleanly is counted in the section
-     * (drops), other ends under their outcome (reset, 4xx, cancelled at the phase end, ...). */
-    if (res->outcome != ENG_OUT_S2XX)
+    /* The 2xx cell counts events. Two ends are part of how watches work, not errors, and are
+     * counted in the section instead: a stream that opened and was then ended by the server,
+     * cleanly or not (a drop, answered by a resume), and the plan's too-old answer to a resume
+     * (410 by default, answered by a relist). An attempt the target refused otherwise (a status
+     * other than 2xx) or never answered (no connection, a timeout before the headers) is
+     * recorded under its outcome, and so is a stream squall cancelled at the phase end. */
+    bool opened = res->status >= 200 && res->status < 300;
+    bool dropped = opened && (res->outcome == ENG_OUT_RESET || res->outcome == ENG_OUT_TIMEOUT ||
+                              res->outcome == ENG_OUT_OTHER);
+    int too_old = src_class(ws->ctx.issuer, w->wc->cls)->pr->watch.too_old_status;
+    if (res->outcome != ENG_OUT_S2XX && !dropped && !(too_old > 0 && res->status == too_old))
         record_end(ws, w->wc->cls, res, false);
     if (w->log >= 0 && res->sent_ns) {
         ws->log[w->log].sent = res->sent_ns - ws->base_ns;
         w->log = -1;
     }
-    bool stream = res->status == 0 || (res->status >= 200 && res->status < 300);
+    bool stream = res->status == 0 || opened;
     if (!stream)
         take_back(w);
     else if (w->got_first && !w->open_recorded)

@@ -63,13 +63,13 @@ expect "cleanup exits 0 (got $C1)" test "$C1" = 0
 expect "it reported the torn last line and went on" grep -q "torn last line skipped" "$T/c1.out"
 AFTER=$(objects)
 expect "the target is back to its starting $BEFORE objects (got $AFTER)" test "$AFTER" = "$BEFORE"
-ALIVE=$(sed -n 's/.*: \([0-9]*\) alive:.*/\1/p' "$T/c1.out")
+ALIVE=$(sed -n 's/.*: \([0-9]*\) alive (.*/\1/p' "$T/c1.out")
 expect "cleanup deleted what the target held beyond its start: $((MID - BEFORE)) of $ALIVE alive" \
-    grep -q "$ALIVE alive: $((MID - BEFORE)) deleted, $((ALIVE - MID + BEFORE)) already gone" "$T/c1.out"
+    grep -q "$ALIVE objects: $((MID - BEFORE)) deleted, $((ALIVE - MID + BEFORE)) already gone" "$T/c1.out"
 
 "$SQUALL" cleanup "$T/out/journal.ndjson" >"$T/c2.out" 2>&1
 C2=$?
-expect "a second cleanup exits 0 (got $C2) with nothing alive" grep -q ": 0 alive: 0 deleted" "$T/c2.out"
+expect "a second cleanup exits 0 (got $C2) with nothing alive" grep -q ": 0 objects: 0 deleted" "$T/c2.out"
 expect "and the count stays $BEFORE (got $(objects))" test "$(objects)" = "$BEFORE"
 
 # Safety: a journal from a run against a non-loopback target (192.0.2.1, TEST-NET-1 of RFC 5737,

@@ -5,6 +5,7 @@
 # Debian python3-yaml), not copied from a run.
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/run.sh"
+source "$SRCDIR/tests/integration/lib/target.sh"
 T="$BUILDDIR/demo-test"
 PLAN="$SRCDIR/scenarios/demo.yaml"
 rm -rf "$T"
@@ -79,8 +80,21 @@ dur, every = secs(ph["rush"]["duration"]), secs(rush["every"])
 assert dur % every == 0 and rush["timing"] == "aligned"
 want_exact[("rush", rush["send"])] = rush["agents"] * dur // every
 
-# teardown deletes every gateway the run created.
-want_exact[("teardown", "teardown")] = created
+# Every object the run created is torn down: the fill's gateways (creates: true) and the leases
+# the renew classes' PUTs created (answered 201 Created; RFC 9110, 15.3.2), which the journal
+# lists: one per agent of the rush (renew-agent) and one per gateway renew picked in steady.
+leases = set()
+for line in open(sys.argv[2] + "/journal.ndjson"):
+    r = json.loads(line)
+    if r.get("op") == "created" and r["class"] in ("renew", "renew-agent"):
+        leases.add(r["path"])
+rush_leases = {p for p in leases if p.startswith("/v1/leases/agent-")}
+check("the journal holds one lease per rush agent (%d of %d) and at most one per gateway (%d of %d)"
+      % (len(rush_leases), ph["rush"]["fleet"]["agents"], len(leases - rush_leases),
+         plan["vars"]["gateway"]["to"] + 1),
+      len(rush_leases) == ph["rush"]["fleet"]["agents"]
+      and 0 < len(leases - rush_leases) <= plan["vars"]["gateway"]["to"] + 1)
+want_exact[("teardown", "teardown")] = created + len(leases)
 
 for key, n in want_exact.items():
     got = cells.get(key, {})
@@ -103,10 +117,13 @@ check("every list of %d gateways walked %d pages of %d: pages = %d x lists (%s, 
 expected_keys = set(want_exact) | set(want_poisson) | {("steady", "list-gateways")}
 check("no other cells: %s" % sorted(set(cells) - expected_keys), set(cells) == expected_keys)
 lc = d["sections"]["lifecycle"]
-check("the lifecycle section agrees: %d created, %d deleted by teardown, none left"
-      % (created, created),
-      lc["created"] == created and lc["teardown"]["deleted"] == created
-      and lc["teardown"]["left"] == 0)
+check("the lifecycle section agrees: %d created (%d by other writes), all deleted by teardown"
+      % (created + len(leases), len(leases)),
+      lc["created"] == created + len(leases) and lc["created_by_other_writes"] == len(leases)
+      and lc["teardown"]["deleted"] == created + len(leases) and lc["teardown"]["left"] == 0
+      and lc["teardown"]["not_tried"] == 0)
+check("the run's verdict is PASS with no reasons", d["sections"]["run"]["verdict"] == "pass"
+      and d["sections"]["run"]["reasons"] == [] and d["sections"]["run"]["exit_code"] == 0)
 for (phase, cls), got in sorted(cells.items()):
     if phase == "teardown":
         continue
@@ -120,20 +137,49 @@ expect "the demo named its target's pid ($TPID)" test -n "$TPID"
 expect "and stopped that target when it was done" bash -c "! kill -0 ${TPID:-0} 2>/dev/null"
 
 # demo takes run's options, as the README says: --set scales the plan (steady at 20/s is 200
-# requests in 10 s, Poisson: within 4 standard deviations, 200 +- 57) and --keep leaves the 150
-# registered gateways alive, listed by the journal for `squall cleanup`.
+# requests in 10 s, Poisson: within 4 standard deviations, 200 +- 57) and --keep leaves what the
+# run created, listed by the journal for `squall cleanup`. At 20/s the renew and list classes get
+# far fewer than the 100 samples their p99 objectives need: the run is INCONCLUSIVE (exit 7,
+# README "Exit codes") and says how many each had.
 timeout 120 "$SQUALL" demo -o "$T/kept" -q --set phases.steady.rate=20/s --keep \
     >"$T/kept.stdout" 2>"$T/kept.stderr"
 RC=$?
-expect "demo --set --keep is accepted and the run exits 0 (got $RC: $(head -2 "$T/kept.stderr"))" \
-    test "$RC" = 0
+expect "demo --set --keep is accepted and, with too few samples, exits 7 (got $RC: $(head -2 "$T/kept.stderr"))" \
+    test "$RC" = 7
+rcheck "its reasons name the class, how many samples it had and that it needs 100" \
+    "d['sections']['run']['verdict'] == 'inconclusive' and
+     any(re.match(r'renew in steady: p99 of response <= 1000 ms: too few samples to resolve it \\(had \\d+, needs 100\\)', r)
+         for r in d['sections']['run']['reasons'])" "$T/kept"
 rcheck "--set phases.steady.rate=20/s: the steady phase started 200 +- 57 (a list counts once)" \
     "143 <= sum(c['count'] for c in d['cells'] if c['phase'] == 'steady' and
                c['class'] in ('read-gateway', 'renew', 'list-gateways/all-pages')) <= 257" \
     "$T/kept"
-rcheck "--keep: the 150 gateways were kept, none deleted" \
-    "d['sections']['lifecycle']['teardown']['kept'] and
-     d['sections']['lifecycle']['teardown']['objects'] == 150" "$T/kept"
-ALIVE=$("$SQUALL" cleanup --dry-run "$T/kept" 2>/dev/null | grep -c '^/v1/gateways/')
-expect "the journal lists the 150 kept gateways for cleanup (lists $ALIVE)" test "$ALIVE" = 150
+rcheck "--keep: everything created was kept (150 gateways and the leases), none deleted" \
+    "d['sections']['lifecycle']['teardown']['kept'] and d['sections']['lifecycle']['teardown']['deleted'] == 0 and
+     d['sections']['lifecycle']['teardown']['objects'] == d['sections']['lifecycle']['created'] > 150" "$T/kept"
+CREATED=$(rget "$T/kept" "d['sections']['lifecycle']['created']")
+ALIVE=$("$SQUALL" cleanup --dry-run "$T/kept" 2>/dev/null | grep -c '^/v1/')
+expect "the journal lists all $CREATED kept objects for cleanup (lists $ALIVE)" test "$ALIVE" = "$CREATED"
+
+# The demo plan with --keep, then `squall cleanup`, against a target this test keeps running:
+# the target holds exactly the objects it held before (its own /stats count), 3 of them put
+# there first, which the run must not touch.
+serve_start || exit 1
+for g in pre-1 pre-2 pre-3; do
+    curl -s -X PUT -d '{"site":"north"}' "$SERVE_URL/v1/sites/north/gateways/$g" >/dev/null
+done
+BEFORE=$(serve_stats 's["objects"]')
+run_plan "$T/keep-run" "$PLAN" --set "target.url=$SERVE_URL" --keep
+DURING=$(serve_stats 's["objects"]')
+"$SQUALL" cleanup "$T/keep-run" >"$T/keep-cleanup.out" 2>&1
+CRC=$?
+AFTER=$(serve_stats 's["objects"]')
+serve_stop
+expect "the target held $BEFORE objects before the run ($BEFORE = 3)" test "$BEFORE" = 3
+expect "the kept run left objects on it ($DURING > $BEFORE)" test "$DURING" -gt "$BEFORE"
+expect "cleanup exits 0 (got $CRC)" test "$CRC" = 0
+expect "after cleanup the target holds exactly what it held before ($AFTER = $BEFORE objects)" \
+    test "$AFTER" = "$BEFORE"
+expect "cleanup said it deleted the $((DURING - BEFORE)) objects: $(head -c 300 "$T/keep-cleanup.out")" \
+    grep -q "$((DURING - BEFORE)) objects: $((DURING - BEFORE)) deleted" "$T/keep-cleanup.out"
 exit $FAILED

@@ -80,7 +80,7 @@ expect "with --keep the 100 PUT files stay in the root ($(files) files)" \
 "$SQUALL" cleanup "$T/keep" >"$T/cleanup.out" 2>&1
 CRC=$?
 expect "squall cleanup exits 0 (got $CRC)" test "$CRC" = 0
-expect "and deletes them" grep -q "100 alive: 100 deleted" "$T/cleanup.out"
+expect "and deletes them" grep -q "100 objects: 100 deleted" "$T/cleanup.out"
 expect "and the root is back to $BEFORE file (has $(files))" test "$(files)" = "$BEFORE"
 
 # The target's headers go with every request the run sends, teardown deletes included, and
@@ -105,9 +105,9 @@ run_plan "$T/tenant-keep" "$T/tenant.yaml" --keep
 expect "with --keep the 50 tenant files stay ($(tenant))" test "$(tenant)" = 50
 "$SQUALL" cleanup "$T/tenant-keep" >"$T/cleanup-noplan.out" 2>&1
 expect "cleanup without the plan sends no header: nginx refuses all 50 (exit $?, 6)" \
-    grep -q "50 alive: 0 deleted, 0 already gone, 50 failed" "$T/cleanup-noplan.out"
+    grep -q "50 objects: 0 deleted, 0 already gone, 50 failed" "$T/cleanup-noplan.out"
 "$SQUALL" cleanup "$T/tenant-keep" --plan "$T/tenant.yaml" >"$T/cleanup-plan.out" 2>&1
 expect "cleanup --plan sends target.headers: all 50 deleted (exit $?)" \
-    grep -q "50 alive: 50 deleted" "$T/cleanup-plan.out"
+    grep -q "50 objects: 50 deleted" "$T/cleanup-plan.out"
 expect "and the tenant's directory is empty again (has $(tenant))" test "$(tenant)" = 0
 exit $FAILED

@@ -33,8 +33,8 @@ expect "squall run wrote report.html" test -s "$T/run/report.html"
 serve_stop
 
 # The structure, parsed. Plot order (html_plots.c): rate, errors, p50/p99 over time, then the
-# response-time spectrum. Series: one per class in series.csv (read, write, list) for rate and
-# errors, two per class (p99, p50) for latency, one per class with histograms for the spectrum
+# response-time spectrum. Series: one per class in series.csv (read, write, list, and the
+# teardown of the objects write created) for rate and errors, two per class (p99, p50) for latency, one per class with histograms for the spectrum
 # (read, write, list and the whole-list sample list/all-pages).
 /usr/bin/python3 - "$T/run" <<'PY' || FAILED=1
 import html.parser, json, sys
@@ -93,8 +93,11 @@ check("no <script>, no external reference (self-contained)",
       and page.count("http://") == page.count("http://www.w3.org/2000/svg") + page.count(res["meta"]["target"]))
 check("four plots: rate, errors, latency over time, spectrum", len(p.svgs) == 4, len(p.svgs))
 if len(p.svgs) == 4:
-    want = [["read", "write", "list"], ["read", "write", "list"],
-            ["read p99", "read p50", "write p99", "write p50", "list p99", "list p50"],
+    # The teardown deletes what write's PUTs created (answered 201): its class has a rate,
+    # errors and latency over time like the others.
+    want = [["read", "write", "list", "teardown"], ["read", "write", "list", "teardown"],
+            ["read p99", "read p50", "write p99", "write p50", "list p99", "list p50",
+             "teardown p99", "teardown p50"],
             ["read", "write", "list", "list/all-pages"]]
     for i, w in enumerate(want):
         check("plot %d has series %s" % (i + 1, w), sorted(p.svgs[i]["series"]) == sorted(w),

@@ -42,9 +42,11 @@ rcheck "response p99.9 = 1.99 s within 10 %, and max below S + 10 %" \
     "abs(ms($C, 'response', 'p99.9') - 1990) <= 199 and ms($C, 'response', 'max') <= 2200" "$T/co"
 rcheck "service time does not show the stall: p99 < 50 ms" \
     "ms($C, 'service', 'p99') < 50" "$T/co"
-rcheck "the run says its requests waited for a free connection (generator_limited)" \
-    'd["sections"]["generator"]["generator_limited"] and d["sections"]["generator"]["max_queue_wait_ms"] > 1000' \
+rcheck "the run says its requests waited for a connection the stalled target held (connection-bound, not generator-bound)" \
+    'd["sections"]["generator"]["connection_bound"]["seconds"] >= 1 and d["sections"]["generator"]["generator_bound"]["seconds"] == 0 and d["sections"]["generator"]["max_queue_wait_ms"] > 1000' \
     "$T/co"
+rcheck "and its verdict stands: PASS, exit 0 (the times from the intended start judge the target)" \
+    'd["sections"]["run"]["verdict"] == "pass" and d["sections"]["run"]["exit_code"] == 0' "$T/co"
 serve_stop
 
 # --- Pagination and exact counts --------------------------------------------------------------

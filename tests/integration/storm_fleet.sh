@@ -24,6 +24,9 @@ phases:
   - {name: spread, duration: 3s, fleet: {agents: 1000, every: 1s, timing: spread, send: renew}}
   - {name: jitter, duration: 3s, rate: 50/s, mix: {read: 1},
      fleet: {agents: 300, every: 1s, timing: jitter, jitter: 10%, send: renew}}
+# 500 requests at once on 32 connections wait for one by design (the burst must fill the cap):
+# squall says the load was generator-bound for those seconds, which this plan accepts.
+accept: [generator-bound]
 YAML
 run_plan "$T/f" "$T/f.yaml"
 puts=$(serve_stats 's["requests"]["PUT"].get("200", 0) + s["requests"]["PUT"].get("201", 0)')

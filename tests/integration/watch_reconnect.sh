@@ -98,7 +98,12 @@ brakes:
 YAML
 run_plan "$T/refused" "$T/refused.yaml"
 serve_stop
-expect "every watch refused: the run still ends cleanly (exit $RUN_RC, 0)" test "$RUN_RC" = 0
+expect "every watch refused: the run ends cleanly and fails: no stream ever opened (exit $RUN_RC, 1)" \
+    test "$RUN_RC" = 1
+rcheck "its verdict names the watch class's error rate over its stream attempts (100 %)" \
+    "d['sections']['run']['verdict'] == 'fail' and
+     any(r.startswith('follow in w: error rate <= 1% (default): observed 100') for r in d['sections']['run']['reasons'])" \
+    "$T/refused"
 rcheck "its reconnect log keeps all of them: 30..41 (2 s / 50 ms), none dropped" \
     "30 <= len(d['sections']['watches']['w']['reconnect_log']['ended_ns']) <= 41 and
      d['sections']['watches']['w']['reconnect_log']['dropped'] == 0 and

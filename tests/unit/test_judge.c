@@ -97,7 +97,7 @@ static void test_percentile_against_numpy(void **state)
     results_t *r = fixture();
     plan_objective_t ob[] = {pct("read", 99, 10000000), pct("read", 50, 1000000)};
     judge_t *j;
-    assert_int_equal(judge_evaluate(ob, 2, r, phases, 2, &j), 0);
+    assert_int_equal(judge_evaluate(ob, 2, r, phases, 2, NULL, &j), 0);
     /* read ran in steady only: checks for steady and the run, none for warm. */
     assert_int_equal(judge_check_count(j), 4);
     assert_null(find(j, 0, "read", "warm"));
@@ -127,7 +127,7 @@ static void test_percentile_against_numpy(void **state)
     judge_free(j);
     /* 12.1 ms is within 20 ms: the same p99 passes in both scopes. */
     plan_objective_t ok = pct("read", 99, 20000000);
-    assert_int_equal(judge_evaluate(&ok, 1, r, phases, 2, &j), 0);
+    assert_int_equal(judge_evaluate(&ok, 1, r, phases, 2, NULL, &j), 0);
     assert_int_equal(judge_check_count(j), 2);
     assert_int_equal(find(j, 0, "read", "steady")->verdict, JUDGE_PASS);
     assert_int_equal(find(j, 0, "read", "run")->verdict, JUDGE_PASS);
@@ -149,7 +149,7 @@ static void test_error_rate_and_min_rate(void **state)
          .value = 2500},
     };
     judge_t *j;
-    assert_int_equal(judge_evaluate(ob, 3, r, phases, 2, &j), 0);
+    assert_int_equal(judge_evaluate(ob, 3, r, phases, 2, NULL, &j), 0);
     /* 60 errors of 5,000 answers = 1.2 %: above 1 %, below 1.5 %. */
     const judge_check_t *c = find(j, 0, "read", "run");
     assert_non_null(c);
@@ -180,7 +180,7 @@ static void test_no_data_and_wildcard(void **state)
          .value = 0.01}, /* write ran in warm only */
     };
     judge_t *j;
-    assert_int_equal(judge_evaluate(ob, 3, r, phases, 2, &j), 0);
+    assert_int_equal(judge_evaluate(ob, 3, r, phases, 2, NULL, &j), 0);
     assert_int_equal(find(j, 0, "renew", "run")->verdict, JUDGE_NO_DATA);
     /* "*" judges read and write (each in its phase and the run), not the teardown's class. */
     assert_non_null(find(j, 1, "read", "steady"));
@@ -214,27 +214,54 @@ static void test_no_data_and_wildcard(void **state)
  * leaves it out, as control-plane latency objectives exclude watches (common practice, from
  * memory of published control-plane objectives; no primary source). An objective naming the
  * watch class still judges it. */
-static void test_wildcard_skips_watches(void **state)
+/* A watch class's cells count events (2xx) and stream attempts that failed; its error rate is
+ * over stream attempts: the ones that opened (its open-time count) and the failed ones. "*"
+ * latency objectives leave it out; "*" error-rate objectives judge it. */
+static void test_watches_judged_on_stream_attempts(void **state)
 {
     (void)state;
     results_t *r = fixture();
     results_cell_t *ev = results_cell(r, "steady", "follow", "2xx");
-    results_cell_counters(ev)->count = 400;
+    results_cell_counters(ev)->count = 400; /* events, not requests */
     hist_record_n(results_cell_hist(ev, RESULTS_M_OPEN), 3000000, 10);
     hist_record_n(results_cell_hist(ev, RESULTS_M_PROPAGATION), 5000000, 400);
-    results_cell_counters(results_cell(r, "steady", "follow", "reset"))->count = 10;
-    plan_objective_t ob[2] = {
+    results_cell_counters(results_cell(r, "steady", "follow", "5xx"))->count = 10;
+    plan_objective_t ob[3] = {
         {.cls = {.name = "*"}, .phase = {.index = -1}, .limit = PLAN_LIMIT_ERROR_RATE,
          .value = 0.5},
         {.cls = {.name = "follow"}, .phase = {.index = -1}, .metric = PLAN_METRIC_PROPAGATION,
          .limit = PLAN_LIMIT_PERCENTILE, .percentile = 99, .max_ns = 10000000},
+        {.cls = {.name = "*"}, .phase = {.index = -1}, .limit = PLAN_LIMIT_PERCENTILE,
+         .percentile = 50, .max_ns = 1000000000},
     };
     judge_t *j;
-    assert_int_equal(judge_evaluate(ob, 2, r, phases, 2, &j), 0);
-    assert_null(find(j, 0, "follow", "run"));
+    assert_int_equal(judge_evaluate(ob, 3, r, phases, 2, NULL, &j), 0);
+    const judge_check_t *c = find(j, 0, "follow", "run");
+    assert_non_null(c);
+    assert_int_equal(c->samples, 20); /* 10 opened + 10 refused, not 400 events */
+    assert_true(fabs(c->observed - 0.5) < 1e-12);
+    assert_int_equal(c->verdict, JUDGE_PASS);
     assert_non_null(find(j, 0, "read", "run"));
     assert_int_equal(find(j, 1, "follow", "run")->verdict, JUDGE_PASS);
+    assert_null(find(j, 2, "follow", "run"));
+    assert_non_null(find(j, 2, "read", "run"));
     judge_free(j);
+
+    /* A watch class that never opened has no open times: only the plan's kinds say it is one.
+     * Every attempt refused is an error rate of 100 %, which the default objective fails. */
+    results_t *r2 = fixture();
+    results_cell_counters(results_cell(r2, "steady", "gone", "5xx"))->count = 40;
+    const char *watches[] = {"gone"};
+    judge_opts_t jo = {.default_error_rate = 0.01, .watch_classes = watches, .n_watch_classes = 1};
+    assert_int_equal(judge_evaluate(NULL, 0, r2, phases, 2, &jo, &j), 0);
+    c = find(j, 0, "gone", "run");
+    assert_non_null(c);
+    assert_true(c->implicit);
+    assert_int_equal(c->samples, 40);
+    assert_true(fabs(c->observed - 1.0) < 1e-12);
+    assert_int_equal(c->verdict, JUDGE_FAIL);
+    judge_free(j);
+    results_free(r2);
     results_free(r);
 }
 
@@ -249,7 +276,7 @@ int main(void)
         cmocka_unit_test(test_percentile_against_numpy),
         cmocka_unit_test(test_error_rate_and_min_rate),
         cmocka_unit_test(test_no_data_and_wildcard),
-        cmocka_unit_test(test_wildcard_skips_watches),
+        cmocka_unit_test(test_watches_judged_on_stream_attempts),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

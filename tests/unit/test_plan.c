@@ -170,8 +170,8 @@ static void test_demo_estimates(void **state)
     assert_double_equal(e.created, fill, 1e-9);
     assert_double_equal(e.peak_rate, 50, 1e-9);
     estimate(p, 1, &e);
-    assert_double_equal(per_class(p, &e, "read-gateway"), steady * 70 / mix, 1e-9);
-    assert_double_equal(per_class(p, &e, "list-gateways"), steady * 5 / mix, 1e-9);
+    assert_double_equal(per_class(p, &e, "read-gateway"), steady * 65 / mix, 1e-9);
+    assert_double_equal(per_class(p, &e, "list-gateways"), steady * 10 / mix, 1e-9);
     assert_double_equal(per_class(p, &e, "renew"), steady * 25 / mix, 1e-9);
     assert_double_equal(e.requests, steady, 1e-9);
     assert_double_equal(e.alive_after, fill, 1e-9);

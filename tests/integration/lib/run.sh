@@ -15,7 +15,7 @@ run_plan() {
     RUN_RC=$?
 }
 
-_rpy='import json, sys
+_rpy='import json, re, sys
 d = json.load(open(sys.argv[1] + "/results.json"))
 def cell(phase, cls, outcome):
     for c in d["cells"]:
