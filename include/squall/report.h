@@ -33,6 +33,7 @@ typedef struct {
     const char *phase, *cls;
     int64_t started, completed, errors;
     double rate_per_s, p50_ms, p90_ms, p99_ms, max_ms; /* latencies are 0 when completed = 0 */
+    double p999_ms; /* NaN in a file written before the column existed */
 } report_row_t;
 
 typedef struct report_series report_series_t;
@@ -45,6 +46,8 @@ int report_series_new(report_series_t **out);
 void report_series_free(report_series_t *s);
 size_t report_series_count(const report_series_t *s);
 const report_row_t *report_series_at(const report_series_t *s, size_t i);
+/* True when the file had the p999_ms column (an older squall wrote none). */
+bool report_series_has_p999(const report_series_t *s);
 
 /* ---- report.html ------------------------------------------------------------------------ */
 
