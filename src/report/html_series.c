@@ -181,8 +181,10 @@ static int read_lines(FILE *f, report_series_t *s, const char *path, out_t *o)
             s->cap = cap;
         }
         if (!parse_row(s, fields, nf, idx, &s->rows[s->n])) {
-            out_error(o, "%s:%zu: malformed row (expected the header's columns, each a number "
-                      "but phase and class)", path, ln);
+            out_error(o,
+                      "%s:%zu: malformed row (expected the header's columns, each a number "
+                      "but phase and class)",
+                      path, ln);
             rc = SQ_EPARSE;
         }
         s->n++;
