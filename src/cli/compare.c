@@ -15,8 +15,8 @@ static const cli_opt_t compare_opts[] = {
     [OPT_JSON] = {"json", 0, NULL, "print the comparison as JSON instead of a table"},
     [OPT_HTML] = {"html", 0, "FILE", "also write a side-by-side HTML page to FILE"},
     [OPT_FALSE_ALARM] = {"false-alarm", 0, "PERCENT",
-                         "the chance, per line, of calling two runs of one configuration "
-                         "different (default 1%)"},
+                         "chance per line of calling same-configuration runs different "
+                         "(default 1%)"},
     [OPT_MIN_MS] = {"min-change", 0, "DURATION",
                     "smallest latency change that counts (default 1ms)"},
     [OPT_MIN_TAIL] = {"min-change-tail", 0, "DURATION",
@@ -140,14 +140,15 @@ const cli_cmd_t cli_cmd_compare = {
         "and class of either, compares p50, p99, p99.9 and the error rate, each with a verdict:\n"
         "slower (more errors), faster (fewer errors), within noise, or untested. Samples are\n"
         "series.csv's seconds; in a fleet phase, the fleet's ticks; for a watch class, its open\n"
-        "and propagation latencies divided by its streams. The test (Mann-Whitney U; for watch\n"
-        "classes the quantile test with Fisher's exact test) must call the difference unlikely\n"
-        "between runs of one configuration, at the --false-alarm chance per line, and the runs\n"
-        "must differ by more than --min-change (p50; --min-change-tail for p99 and p99.9; 1\n"
-        "percentage point for error rates) and --min-change-pct of BASE. A line with too few\n"
-        "samples to ever pass the test is untested and says how many would do. A warning names\n"
-        "a different plan, target or --set overrides. The test sees the samples of one run: if\n"
-        "the machine's load changed for a whole run, repeat.\n"
+        "and propagation latencies, counted at most once per stream and per second of the\n"
+        "phase. The test (Mann-Whitney U; for watch classes the quantile test with Fisher's\n"
+        "exact test) must call the difference unlikely between runs of one configuration, at\n"
+        "the --false-alarm chance per line, and the runs must differ by more than --min-change\n"
+        "(p50; --min-change-tail for p99 and p99.9; 1 percentage point for error rates) and\n"
+        "--min-change-pct of BASE. A line with too few samples to ever pass the test is\n"
+        "untested and says how many would do. A warning names a different plan, target or --set\n"
+        "overrides. The test sees the samples of one run: if the machine's load changed for a\n"
+        "whole run, repeat.\n"
         "Exit 0: nothing slower; 1: a line is slower or has more errors; 2: usage mistake;\n"
         "6: a file could not be read or written.",
     .opts = compare_opts,

@@ -130,7 +130,7 @@ static double qt_best(size_t nb, size_t nn, double q)
 /* The first k in (lo, hi] with best(k, other) < alpha, given best(hi, other) < alpha. */
 static size_t bisect(best_fn best, size_t lo, size_t hi, size_t other, double q, double alpha)
 {
-    while (hi - lo > 1) {
+    while (hi > lo + 1) {
         size_t mid = lo + (hi - lo) / 2;
         if (best(mid, other ? other : mid, q) < alpha)
             hi = mid;
