@@ -1,5 +1,5 @@
 /* `squall compare`: BASE and NEW results directories compared per phase and class, with a
- * verdict per metric; the exit code says whether a regression was found. */
+ * verdict per metric; the exit code says whether NEW was found slower (or with more errors). */
 #include <stdlib.h>
 #include <string.h>
 
@@ -9,12 +9,14 @@
 #include "squall/results.h"
 #include "squall/value.h"
 
-enum { OPT_JSON, OPT_HTML, OPT_ALPHA, OPT_MIN_MS, OPT_MIN_TAIL, OPT_MIN_REL };
+enum { OPT_JSON, OPT_HTML, OPT_FALSE_ALARM, OPT_MIN_MS, OPT_MIN_TAIL, OPT_MIN_REL };
 
 static const cli_opt_t compare_opts[] = {
     [OPT_JSON] = {"json", 0, NULL, "print the comparison as JSON instead of a table"},
     [OPT_HTML] = {"html", 0, "FILE", "also write a side-by-side HTML page to FILE"},
-    [OPT_ALPHA] = {"alpha", 0, "P", "significance level of the test (default 0.01)"},
+    [OPT_FALSE_ALARM] = {"false-alarm", 0, "PERCENT",
+                         "chance per line of calling same-configuration runs different "
+                         "(default 1%)"},
     [OPT_MIN_MS] = {"min-change", 0, "DURATION",
                     "smallest latency change that counts (default 1ms)"},
     [OPT_MIN_TAIL] = {"min-change-tail", 0, "DURATION",
@@ -35,8 +37,10 @@ static int parse_value(const cli_cmd_t *cmd, int k, const char *v, compare_args_
     int64_t ns;
     if (k == OPT_HTML)
         ca->html = v;
-    else if (k == OPT_ALPHA && value_parse_number(v, 1e-12, 0.5, &ca->opts.alpha))
-        return cli_usage_error(cmd, o, "--alpha needs a number in (0, 0.5], got '%s'", v);
+    else if (k == OPT_FALSE_ALARM && (value_parse_percent(v, &ca->opts.false_alarm) ||
+                                      ca->opts.false_alarm <= 0 || ca->opts.false_alarm > 0.5))
+        return cli_usage_error(cmd, o, "--false-alarm needs %s above 0 and at most 50%%, got '%s'",
+                               VALUE_PERCENT_EXPECTS, v);
     else if (k == OPT_MIN_MS && value_parse_duration(v, &ns))
         return cli_usage_error(cmd, o, "--min-change needs %s, got '%s'", VALUE_DURATION_EXPECTS,
                                v);
@@ -104,6 +108,7 @@ static int compare_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     if (read_run(ca.dir[0], &res[0], &s[0], o) || read_run(ca.dir[1], &res[1], &s[1], o) ||
         report_compare(res[0], s[0], res[1], s[1], &ca.opts, &c))
         goto out;
+    report_cmp_warn(c, res[0], res[1], o);
     if (ca.json) {
         json_t *j = report_cmp_json(c, &ca.opts);
         char *text = j ? json_dumps(j, JSON_INDENT(2)) : NULL;
@@ -116,7 +121,7 @@ static int compare_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     }
     if (ca.html && report_cmp_html(c, res[0], res[1], ca.html, o))
         goto out;
-    code = report_cmp_regressed(c) ? SQ_EXIT_OBJECTIVES : SQ_EXIT_OK;
+    code = report_cmp_worse(c) ? SQ_EXIT_OBJECTIVES : SQ_EXIT_OK;
 out:
     report_cmp_free(c);
     for (int i = 0; i < 2; i++) {
@@ -128,20 +133,24 @@ out:
 
 const cli_cmd_t cli_cmd_compare = {
     .name = "compare",
-    .summary = "compare two runs: regression, improvement or no significant change",
-    .usage = "BASE NEW [--json] [--html FILE] [--alpha P] [--min-change DURATION]",
+    .summary = "compare two runs: slower, faster or within noise",
+    .usage = "BASE NEW [--json] [--html FILE] [--false-alarm PERCENT] [--min-change DURATION]",
     .description =
         "BASE and NEW are results directories (results.json and series.csv). For every phase\n"
-        "and class of BASE, compares p50, p99, p99.9 and the error rate. The verdict uses the\n"
-        "Mann-Whitney U test (two-sided, normal approximation, tie and continuity corrections)\n"
-        "over the per-second samples in series.csv (p99.9 over the per-second max): a change\n"
-        "is a regression or an improvement when p < --alpha and the per-second medians differ\n"
-        "by more than --min-change (p50; --min-change-tail for p99 and p99.9; 1 percentage\n"
-        "point for error rates) and by more than --min-change-pct of BASE. Phases and classes\n"
-        "only one run has, or with too few seconds to reach --alpha, are untested. The test\n"
-        "sees the seconds of one run: if the machine's load changed for a whole run, repeat.\n"
-        "Exit 0: no regression; 1: at least one regression; 2: usage mistake; 6: a file\n"
-        "could not be read or written.",
+        "and class of either, compares p50, p99, p99.9 and the error rate, each with a verdict:\n"
+        "slower (more errors), faster (fewer errors), within noise, or untested. Samples are\n"
+        "series.csv's seconds; in a fleet phase, the fleet's ticks; for a watch class, its open\n"
+        "and propagation latencies, counted at most once per stream and per second of the\n"
+        "phase. The test (Mann-Whitney U; for watch classes the quantile test with Fisher's\n"
+        "exact test) must call the difference unlikely between runs of one configuration, at\n"
+        "the --false-alarm chance per line, and the runs must differ by more than --min-change\n"
+        "(p50; --min-change-tail for p99 and p99.9; 1 percentage point for error rates) and\n"
+        "--min-change-pct of BASE. A line with too few samples to ever pass the test is\n"
+        "untested and says how many would do. A warning names a different plan, target or --set\n"
+        "overrides. The test sees the samples of one run: if the machine's load changed for a\n"
+        "whole run, repeat.\n"
+        "Exit 0: nothing slower; 1: a line is slower or has more errors; 2: usage mistake;\n"
+        "6: a file could not be read or written.",
     .opts = compare_opts,
     .main = compare_main,
 };

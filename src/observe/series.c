@@ -1,6 +1,6 @@
-/* series.csv: one row per phase x class x second. A second in which a phase ends has rows for
- * both phases, each holding exactly its own requests (a request belongs to the phase that
- * started it); the teardown has rows of its own. */
+/* series.csv: one row per phase x class x second, percentiles from that second's histogram. A
+ * second in which a phase ends has rows for both phases, each holding only its own requests (a
+ * request belongs to the phase that started it); the teardown has rows of its own. */
 #include <errno.h>
 #include <stdlib.h>
 #include <string.h>
@@ -43,9 +43,10 @@ static int series_open(void *self, const char *dir)
         out_error(s->o, "cannot write %s: %s", path, strerror(errno));
         return SQ_EIO;
     }
-    /* Times in milliseconds; `second` counts from the start of the run. */
+    /* Times in milliseconds; `second` counts from the start of the run. Columns are only ever
+     * added at the end (readers find them by name). */
     fputs("second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,"
-          "planned,unix_ms\n",
+          "planned,unix_ms,p999_ms\n",
           s->f);
     return 0;
 }
@@ -71,13 +72,14 @@ static void series_second(void *self, const obs_second_t *w)
         const obs_cell_t *c = &w->cells[i];
         const hist_t *h = c->response;
         bool any = h && c->completed > 0;
-        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld\n",
+        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f\n",
                 (long long)w->index, obs_phase_name(s->plan, c->phase),
                 obs_class_name(s->plan, c->cls), (long long)c->started, (long long)c->completed,
                 (double)c->completed / w->secs, (long long)c->errors,
                 any ? ms(hist_value_at(h, 50)) : 0.0, any ? ms(hist_value_at(h, 90)) : 0.0,
                 any ? ms(hist_value_at(h, 99)) : 0.0, any ? ms(hist_max(h)) : 0.0, c->planned,
-                (long long)((w->start_ns + s->real_minus_mono) / 1000000));
+                (long long)((w->start_ns + s->real_minus_mono) / 1000000),
+                any ? ms(hist_value_at(h, 99.9)) : 0.0);
     }
     fflush(s->f);
 }

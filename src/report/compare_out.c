@@ -4,17 +4,33 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "compare_int.h"
 #include "html_int.h"
 #include "squall/err.h"
 #include "squall/file.h"
 
-#define METHOD                                                                                     \
-    "Mann-Whitney U (Mann & Whitney 1947), two-sided, normal approximation with tie and "          \
-    "continuity corrections, over the per-second samples of series.csv"
+#define METHOD_MW                                                                                  \
+    "Mann-Whitney U (Mann & Whitney 1947), two-sided: the exact null distribution when a side "    \
+    "has at most 8 samples and none is tied, else the normal approximation with tie and "          \
+    "continuity corrections; over series.csv's per-second values, or a fleet phase's per-tick "    \
+    "values (the storms section)"
+#define METHOD_QT                                                                                  \
+    "the quantile test (Mood's median test at the line's percentile, with Fisher's exact test) "   \
+    "over a watch class's recorded values, counted as at most one sample per stream (a write "     \
+    "reaches every stream, streams open together) and per second of the phase (values of one "     \
+    "second share its conditions)"
 
 static bool is_err(const report_cmp_line_t *l)
 {
-    return strcmp(l->metric, "error_rate") == 0;
+    return !l->latency;
+}
+
+static void metric_text(const report_cmp_line_t *l, char *buf, size_t cap)
+{
+    if (l->latency && strcmp(l->latency, "response") != 0)
+        snprintf(buf, cap, "%s %s", l->latency, l->metric);
+    else
+        snprintf(buf, cap, "%s", l->metric);
 }
 
 static void value(const report_cmp_line_t *l, double v, char *buf, size_t cap)
@@ -40,70 +56,152 @@ static void change(const report_cmp_line_t *l, char *buf, size_t cap)
         snprintf(buf, cap, "%+.2f ms", d);
 }
 
+static void samples_text(const report_cmp_line_t *l, char *buf, size_t cap)
+{
+    snprintf(buf, cap, "%zu vs %zu %s", l->n_base, l->n_new, report_unit_name(l->unit));
+}
+
+/* The verdict, and for an untested line the sample counts that would do. */
+static void verdict_text(const report_cmp_line_t *l, char *buf, size_t cap)
+{
+    if (l->verdict != REPORT_UNTESTED)
+        snprintf(buf, cap, "%s", report_verdict_word(l));
+    else if (l->need_base || l->need_new)
+        snprintf(buf, cap, "untested: needs %zu vs %zu", l->need_base, l->need_new);
+    else
+        snprintf(buf, cap, "untested: no sample count would do");
+}
+
+static void p_text(const report_cmp_line_t *l, char *buf, size_t cap)
+{
+    if (l->verdict == REPORT_UNTESTED || l->test == REPORT_TEST_NONE)
+        snprintf(buf, cap, "-");
+    else if (l->p < 1e-300)
+        snprintf(buf, cap, "<1e-300"); /* below what a double holds */
+    else
+        snprintf(buf, cap, "%.2g", l->p);
+}
+
+#define ROW "%-12s %-16s %-17s %10s %10s %18s %8s  %-21s %s\n"
+
 void report_cmp_print(const report_cmp_t *c, out_t *o)
 {
-    size_t regressions = 0, improvements = 0;
-    out_print(o, "%-12s %-20s %-10s %11s %11s %18s %9s  %s\n", "phase", "class", "metric", "base",
-              "new", "change", "p", "verdict");
+    size_t count[4] = {0};
+    bool used[4] = {false};
+    out_print(o, ROW, "phase", "class", "metric", "base", "new", "change", "p", "samples",
+              "verdict");
     for (size_t i = 0; i < report_cmp_count(c); i++) {
         const report_cmp_line_t *l = report_cmp_at(c, i);
-        char b[32], n[32], d[48], p[16] = "-";
+        char m[48], b[32], n[32], d[48], p[16], s[64], v[64];
+        metric_text(l, m, sizeof m);
         value(l, l->base, b, sizeof b);
         value(l, l->new_value, n, sizeof n);
         change(l, d, sizeof d);
-        if (l->verdict != REPORT_UNTESTED)
-            snprintf(p, sizeof p, "%.2g", l->p);
-        const char *v =
-            l->verdict == REPORT_REGRESSION ? "REGRESSION" : report_verdict_name(l->verdict);
-        out_print(o, "%-12s %-20s %-10s %11s %11s %18s %9s  %s\n", l->phase, l->cls, l->metric, b,
-                  n, d, p, v);
-        regressions += l->verdict == REPORT_REGRESSION;
-        improvements += l->verdict == REPORT_IMPROVEMENT;
+        p_text(l, p, sizeof p);
+        samples_text(l, s, sizeof s);
+        verdict_text(l, v, sizeof v);
+        out_print(o, ROW, l->phase, l->cls, m, b, n, d, p, s, v);
+        count[l->verdict]++;
+        used[l->test] = true;
     }
-    out_print(o, "\n%zu regression(s), %zu improvement(s); test: %s\n", regressions, improvements,
-              METHOD);
+    out_print(o,
+              "\n%zu worse (slower or more errors), %zu better, %zu within noise, %zu untested; "
+              "the chance of a false alarm is the level chosen, per line\n",
+              count[REPORT_WORSE], count[REPORT_BETTER], count[REPORT_WITHIN_NOISE],
+              count[REPORT_UNTESTED]);
+    if (used[REPORT_TEST_MW_EXACT] || used[REPORT_TEST_MW_NORMAL])
+        out_print(o, "seconds, ticks: %s\n", METHOD_MW);
+    if (used[REPORT_TEST_QUANTILE])
+        out_print(o, "samples: %s\n", METHOD_QT);
 }
+
+/* ---- JSON ----------------------------------------------------------------------------------- */
 
 static json_t *num(double v)
 {
     return isnan(v) ? json_null() : json_real(v);
 }
 
+static json_t *line_json(const report_cmp_line_t *l)
+{
+    json_t *j = json_pack(
+        "{s:s, s:s, s:o, s:s, s:o, s:o, s:o, s:o, s:s, s:I, s:I}", "phase", l->phase, "class",
+        l->cls, "latency", l->latency ? json_string(l->latency) : json_null(), "metric", l->metric,
+        "base", num(l->base), "new", num(l->new_value), "base_median", num(l->base_med),
+        "new_median", num(l->new_med), "samples", report_unit_name(l->unit), "n_base",
+        (json_int_t)l->n_base, "n_new", (json_int_t)l->n_new);
+    if (!j)
+        return NULL;
+    if (l->unit == REPORT_UNIT_WATCH) {
+        json_object_set_new(j, "recorded_base", json_integer((json_int_t)l->recorded_base));
+        json_object_set_new(j, "recorded_new", json_integer((json_int_t)l->recorded_new));
+        json_object_set_new(j, "streams_base", json_integer((json_int_t)l->streams_base));
+        json_object_set_new(j, "streams_new", json_integer((json_int_t)l->streams_new));
+        json_object_set_new(j, "seconds_base", json_integer((json_int_t)l->seconds_base));
+        json_object_set_new(j, "seconds_new", json_integer((json_int_t)l->seconds_new));
+    }
+    json_object_set_new(j, "needs",
+                        l->verdict == REPORT_UNTESTED && (l->need_base || l->need_new)
+                            ? json_pack("{s:I, s:I}", "base", (json_int_t)l->need_base, "new",
+                                        (json_int_t)l->need_new)
+                            : json_null());
+    json_object_set_new(j, "test", json_string(report_test_name(l->test)));
+    json_object_set_new(j, "tested_on", json_string(l->tested_on ? l->tested_on : ""));
+    json_object_set_new(j, "statistic", json_real(l->stat));
+    json_object_set_new(j, "z", json_real(l->z));
+    json_object_set_new(j, "p", json_real(l->p));
+    json_object_set_new(j, "verdict", json_string(report_verdict_word(l)));
+    return j;
+}
+
 json_t *report_cmp_json(const report_cmp_t *c, const report_cmp_opts_t *opts)
 {
     json_t *lines = json_array();
-    for (size_t i = 0; lines && i < report_cmp_count(c); i++) {
-        const report_cmp_line_t *l = report_cmp_at(c, i);
-        json_array_append_new(
-            lines,
-            json_pack("{s:s, s:s, s:s, s:o, s:o, s:o, s:o, s:I, s:I, s:s, s:f, s:f, s:f, "
-                      "s:s}",
-                      "phase", l->phase, "class", l->cls, "metric", l->metric, "base", num(l->base),
-                      "new", num(l->new_value), "base_median", num(l->base_med), "new_median",
-                      num(l->new_med), "n_base", (json_int_t)l->n_base, "n_new",
-                      (json_int_t)l->n_new, "tested_on", l->tested_on, "u", l->u, "z", l->z, "p",
-                      l->p, "verdict", report_verdict_name(l->verdict)));
-    }
-    return json_pack("{s:s, s:i, s:s, s:f, s:f, s:f, s:f, s:f, s:b, s:o}", "format",
-                     "squall-compare", "version", 1, "method", METHOD, "alpha", opts->alpha,
-                     "min_change_ms", opts->min_abs_ms, "min_change_tail_ms", opts->min_tail_ms,
+    for (size_t i = 0; lines && i < report_cmp_count(c); i++)
+        json_array_append_new(lines, line_json(report_cmp_at(c, i)));
+    return json_pack("{s:s, s:i, s:{s:s, s:s}, s:f, s:f, s:f, s:f, s:f, s:b, s:o}", "format",
+                     "squall-compare", "version", 2, "methods", "mann-whitney", METHOD_MW,
+                     "quantile", METHOD_QT, "false_alarm", opts->false_alarm, "min_change_ms",
+                     opts->min_abs_ms, "min_change_tail_ms", opts->min_tail_ms,
                      "min_change_fraction", opts->min_rel, "min_change_error_rate",
-                     opts->min_abs_err, "regression", report_cmp_regressed(c), "lines", lines);
+                     opts->min_abs_err, "worse", report_cmp_worse(c), "lines", lines);
 }
 
 /* ---- HTML side-by-side ------------------------------------------------------------------ */
 
+static const char *overrides_of(const results_t *r, char *buf, size_t cap)
+{
+    json_t *ov = json_object_get(results_section(r, "run"), "overrides");
+    if (!json_is_array(ov))
+        return "unknown";
+    size_t i, at = 0;
+    json_t *v;
+    snprintf(buf, cap, "none");
+    json_array_foreach(ov, i, v)
+    {
+        int w = snprintf(buf + at, cap - at, "%s%s", i ? " " : "", json_string_value(v));
+        at = w < 0 || (size_t)w >= cap - at ? cap - 1 : at + (size_t)w;
+    }
+    return buf;
+}
+
 static void meta_rows(FILE *f, const results_t *b, const results_t *n)
 {
     const results_meta_t *mb = results_meta(b), *mn = results_meta(n);
-    const char *k[] = {"plan", "target", "host", "stopped early"};
-    const char *vb[] = {mb->plan_path, mb->target_url, mb->host, mb->stop_reason};
-    const char *vn[] = {mn->plan_path, mn->target_url, mn->host, mn->stop_reason};
+    char ob[512], on[512];
+    const char *k[] = {"plan", "plan sha256", "target", "overrides", "host", "stopped early"};
+    const char *vb[] = {mb->plan_path,  mb->plan_sha256,
+                        mb->target_url, overrides_of(b, ob, sizeof ob),
+                        mb->host,       mb->stop_reason};
+    const char *vn[] = {mn->plan_path,  mn->plan_sha256,
+                        mn->target_url, overrides_of(n, on, sizeof on),
+                        mn->host,       mn->stop_reason};
     fputs("<table><tr><th></th><th>BASE</th><th>NEW</th></tr>\n", f);
-    for (size_t i = 0; i < 4; i++) {
-        fprintf(f, "<tr><th>%s</th><td>", k[i]);
+    for (size_t i = 0; i < sizeof k / sizeof k[0]; i++) {
+        bool differ = vb[i] && vn[i] && strcmp(vb[i], vn[i]) && i < 4;
+        fprintf(f, "<tr><th>%s</th><td%s>", k[i], differ ? " class=\"fail\"" : "");
         html_esc(f, vb[i] ? vb[i] : "-");
-        fputs("</td><td>", f);
+        fprintf(f, "</td><td%s>", differ ? " class=\"fail\"" : "");
         html_esc(f, vn[i] ? vn[i] : "-");
         fputs("</td></tr>\n", f);
     }
@@ -111,67 +209,93 @@ static void meta_rows(FILE *f, const results_t *b, const results_t *n)
             (double)mb->duration_ns / 1e9, (double)mn->duration_ns / 1e9);
 }
 
+static void verdict_row(FILE *f, const report_cmp_line_t *l)
+{
+    char m[48], b[32], n[32], d[48], p[16], s[64], v[64];
+    metric_text(l, m, sizeof m);
+    value(l, l->base, b, sizeof b);
+    value(l, l->new_value, n, sizeof n);
+    change(l, d, sizeof d);
+    p_text(l, p, sizeof p);
+    samples_text(l, s, sizeof s);
+    verdict_text(l, v, sizeof v);
+    bool bad = l->verdict == REPORT_WORSE;
+    fputs("<tr><td>", f);
+    html_esc(f, l->phase);
+    fputs("</td><td>", f);
+    html_esc(f, l->cls);
+    fprintf(f,
+            "</td><td>%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
+            "<td class=\"n\">%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
+            "<td class=\"%s\">%s%s</td></tr>\n",
+            m, b, n, d, p, s, bad ? "fail" : "pass", bad ? "&#10008; " : "", v);
+}
+
 static void verdict_rows(FILE *f, const report_cmp_t *c)
 {
     fputs("<table><tr><th>phase</th><th>class</th><th>metric</th><th class=\"n\">BASE</th>"
           "<th class=\"n\">NEW</th><th class=\"n\">change</th><th class=\"n\">p</th>"
-          "<th>verdict</th></tr>\n",
+          "<th class=\"n\">samples</th><th>verdict</th></tr>\n",
           f);
-    for (size_t i = 0; i < report_cmp_count(c); i++) {
-        const report_cmp_line_t *l = report_cmp_at(c, i);
-        char b[32], n[32], d[48];
-        value(l, l->base, b, sizeof b);
-        value(l, l->new_value, n, sizeof n);
-        change(l, d, sizeof d);
-        bool bad = l->verdict == REPORT_REGRESSION;
-        fputs("<tr><td>", f);
-        html_esc(f, l->phase);
-        fputs("</td><td>", f);
-        html_esc(f, l->cls);
-        fprintf(f,
-                "</td><td>%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
-                "<td class=\"n\">%s</td><td class=\"n\">%.2g</td><td class=\"%s\">%s%s</td>"
-                "</tr>\n",
-                l->metric, b, n, d, l->p, bad ? "fail" : "pass", bad ? "&#10008; " : "",
-                bad ? "REGRESSION" : report_verdict_name(l->verdict));
-    }
+    for (size_t i = 0; i < report_cmp_count(c); i++)
+        verdict_row(f, report_cmp_at(c, i));
     fputs("</table>\n", f);
 }
 
-/* One spectrum per class present in both: BASE solid, NEW dashed, same colour per run. */
+/* The metric a class's spectrum shows: response time, or for a watch class propagation (else
+ * open) latency. */
+static int spectrum_metric(const results_t *r, const char *cls)
+{
+    static const int order[] = {RESULTS_M_RESPONSE, RESULTS_M_PROPAGATION, RESULTS_M_OPEN};
+    for (size_t k = 0; k < 3; k++)
+        for (size_t i = 0; i < results_cell_count(r); i++) {
+            const results_cell_t *c = results_cell_at(r, i);
+            if (!strcmp(results_cell_class(c), cls) && results_cell_hist_find(c, order[k]))
+                return order[k];
+        }
+    return RESULTS_M_RESPONSE;
+}
+
+static void spectrum(FILE *f, const results_t *b, const results_t *n, const char *cls, hist_t *h)
+{
+    static double x[2][HTML_SPECTRUM_POINTS], y[2][HTML_SPECTRUM_POINTS];
+    int m = spectrum_metric(b, cls);
+    html_line_t l[2] = {
+        {x[0], y[0], html_spectrum(b, m, cls, h, x[0], y[0]), "BASE", 0, 0},
+        {x[1], y[1], html_spectrum(n, m, cls, h, x[1], y[1]), "NEW", 1, 1},
+    };
+    char title[200], ylabel[64];
+    snprintf(title, sizeof title, "%s: %s time by percentile, BASE and NEW", cls,
+             results_metric_name(m));
+    snprintf(ylabel, sizeof ylabel, "%s time (ms, log scale)", results_metric_name(m));
+    html_plot_t p = {.title = title,
+                     .xlabel = "percentile (spaced by 1/(1 - p))",
+                     .ylabel = ylabel,
+                     .xaxis = HTML_X_SPECTRUM,
+                     .ylog = true};
+    fputs("<figure>", f);
+    html_plot(f, &p, l, 2, NULL, 0);
+    fputs("<figcaption>", f);
+    html_esc(f, title);
+    fputs("</figcaption></figure>\n", f);
+}
+
+/* One spectrum per class of BASE: BASE solid, NEW dashed, same colour per run. */
 static void spectra(FILE *f, const results_t *b, const results_t *n)
 {
-    int m = results_metric_from_name("response");
     int64_t lo, hi;
     int digits;
     hist_t *h = NULL;
     results_hist_config(b, &lo, &hi, &digits);
-    if (m < 0 || hist_new(lo, hi, digits, &h))
+    if (hist_new(lo, hi, digits, &h))
         return;
-    static double x[2][HTML_SPECTRUM_POINTS], y[2][HTML_SPECTRUM_POINTS];
     for (size_t i = 0; i < results_cell_count(b); i++) {
         const char *cls = results_cell_class(results_cell_at(b, i));
         bool first = true;
         for (size_t k = 0; k < i && first; k++)
             first = strcmp(results_cell_class(results_cell_at(b, k)), cls) != 0;
-        if (!first)
-            continue;
-        html_line_t l[2] = {
-            {x[0], y[0], html_spectrum(b, m, cls, h, x[0], y[0]), "BASE", 0, 0},
-            {x[1], y[1], html_spectrum(n, m, cls, h, x[1], y[1]), "NEW", 1, 1},
-        };
-        char title[200];
-        snprintf(title, sizeof title, "%s: response time by percentile, BASE and NEW", cls);
-        html_plot_t p = {.title = title,
-                         .xlabel = "percentile (spaced by 1/(1 - p))",
-                         .ylabel = "response time (ms, log scale)",
-                         .xaxis = HTML_X_SPECTRUM,
-                         .ylog = true};
-        fputs("<figure>", f);
-        html_plot(f, &p, l, 2, NULL, 0);
-        fputs("<figcaption>", f);
-        html_esc(f, title);
-        fputs("</figcaption></figure>\n", f);
+        if (first)
+            spectrum(f, b, n, cls, h);
     }
     hist_free(h);
 }
@@ -183,20 +307,22 @@ static int write_page(FILE *f, const report_cmp_t *c, const results_t *b, const 
           f);
     fputs(html_css, f);
     fputs("</style></head><body>\n<h1>squall comparison: BASE vs NEW</h1>\n", f);
-    bool reg = report_cmp_regressed(c);
-    fprintf(f, "<div class=\"banner %s\">%s</div>\n", reg ? "bad" : "good",
-            reg ? "&#10008; REGRESSION: NEW is significantly worse somewhere below."
-                : "No regression found.");
+    bool worse = report_cmp_worse(c);
+    fprintf(f, "<div class=\"banner %s\">%s</div>\n", worse ? "bad" : "good",
+            worse ? "&#10008; NEW is slower (or has more errors) in a line below."
+                  : "Nothing slower found: every tested line is within noise or faster.");
     fputs("<section id=\"runs\"><h2>Runs</h2>\n", f);
     meta_rows(f, b, n);
     fputs("</section><section id=\"verdicts\"><h2>Changes</h2>\n<p class=\"note\">BASE and NEW "
-          "are whole-phase values from the histograms; the verdict comes from the test named "
-          "below over the per-second samples (p99.9 over the per-second max), and needs a "
-          "significant difference of the per-second medians larger than the minimum change.</p>\n",
+          "are whole-phase values from the histograms. A verdict needs the test below to call "
+          "the difference unlikely between runs of one configuration, and a change larger than "
+          "the minimum change. An untested line had too few samples for the test to ever reach "
+          "the false-alarm level; it says how many would do.</p>\n",
           f);
     verdict_rows(f, c);
-    fputs("<p class=\"note\">Test: " METHOD ".</p></section>\n<section id=\"spectra\"><h2>"
-          "Percentile spectra</h2>\n",
+    fputs("<p class=\"note\">Seconds and ticks: " METHOD_MW
+          ".</p>\n<p class=\"note\">Samples: " METHOD_QT
+          ".</p></section>\n<section id=\"spectra\"><h2>Percentile spectra</h2>\n",
           f);
     spectra(f, b, n);
     fputs("</section></body></html>\n", f);

@@ -1,6 +1,7 @@
 /* series.csv read back for reports and comparisons: one row per class per second, columns
  * found by their header names. */
 #include <errno.h>
+#include <math.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -12,6 +13,7 @@ struct report_series {
     size_t n, cap;
     char **names; /* phase and class strings, each kept once per row */
     size_t n_names, cap_names;
+    bool has_p999; /* the file has the p999_ms column (files before it do not) */
 };
 
 enum col {
@@ -26,11 +28,13 @@ enum col {
     C_P90,
     C_P99,
     C_MAX,
+    C__REQUIRED,
+    C_P999 = C__REQUIRED, /* optional: added after the others */
     C__COUNT
 };
 static const char *const col_names[C__COUNT] = {
     "second", "phase",  "class",  "started", "completed", "rate_per_s",
-    "errors", "p50_ms", "p90_ms", "p99_ms",  "max_ms",
+    "errors", "p50_ms", "p90_ms", "p99_ms",  "max_ms",    "p999_ms",
 };
 
 int report_series_new(report_series_t **out)
@@ -58,6 +62,11 @@ size_t report_series_count(const report_series_t *s)
 const report_row_t *report_series_at(const report_series_t *s, size_t i)
 {
     return i < s->n ? &s->rows[i] : NULL;
+}
+
+bool report_series_has_p999(const report_series_t *s)
+{
+    return s->has_p999;
 }
 
 /* Splits line in place at commas into at most cap fields; returns the count. */
@@ -106,8 +115,10 @@ static bool number(const char *t, double *v)
 /* One data line into a row; false when a field is malformed. */
 static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, report_row_t *row)
 {
-    double v[C__COUNT] = {0};
+    double v[C__COUNT] = {[C_P999] = NAN};
     for (int c = 0; c < C__COUNT; c++) {
+        if (idx[c] < 0 && c >= C__REQUIRED)
+            continue;
         if ((size_t)idx[c] >= nf)
             return false;
         if (c != C_PHASE && c != C_CLASS && !number(f[idx[c]], &v[c]))
@@ -124,10 +135,11 @@ static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, r
     row->p90_ms = v[C_P90];
     row->p99_ms = v[C_P99];
     row->max_ms = v[C_MAX];
+    row->p999_ms = v[C_P999];
     return row->phase && row->cls;
 }
 
-static int header(char *line, int *idx, const char *path, out_t *o)
+static int header(report_series_t *s, char *line, int *idx, const char *path, out_t *o)
 {
     char *f[64];
     size_t nf = split(line, f, 64);
@@ -136,7 +148,9 @@ static int header(char *line, int *idx, const char *path, out_t *o)
         for (size_t k = 0; k < nf; k++)
             if (strcmp(f[k], col_names[c]) == 0)
                 idx[c] = (int)k;
-        if (idx[c] < 0) {
+        if (c == C_P999)
+            s->has_p999 = idx[c] >= 0;
+        else if (idx[c] < 0) {
             out_error(o, "%s:1: no column '%s' in the header", path, col_names[c]);
             return SQ_EPARSE;
         }
@@ -152,7 +166,7 @@ static int read_lines(FILE *f, report_series_t *s, const char *path, out_t *o)
         out_error(o, "%s: empty file (expected a header line)", path);
         return SQ_EPARSE;
     }
-    int rc = header(line, idx, path, o);
+    int rc = header(s, line, idx, path, o);
     for (size_t ln = 2; rc == 0 && fgets(line, sizeof line, f); ln++) {
         char *fields[64];
         size_t nf = split(line, fields, 64);
@@ -167,8 +181,10 @@ static int read_lines(FILE *f, report_series_t *s, const char *path, out_t *o)
             s->cap = cap;
         }
         if (!parse_row(s, fields, nf, idx, &s->rows[s->n])) {
-            out_error(o, "%s:%zu: malformed row (expected %d comma-separated fields)", path, ln,
-                      C__COUNT);
+            out_error(o,
+                      "%s:%zu: malformed row (expected the header's columns, each a number "
+                      "but phase and class)",
+                      path, ln);
             rc = SQ_EPARSE;
         }
         s->n++;
