@@ -102,8 +102,8 @@ enum judge_outcome judge_outcome(const judge_t *j, const judge_evidence_t *ev, j
 const char *judge_outcome_name(enum judge_outcome o); /* "pass", "fail", "inconclusive" */
 
 /* The results.json section: {"passed": bool, "objectives": N, "checks": [{objective, text,
- * class, scope, observed, threshold, unit, samples, verdict: "pass"|"fail"|"no-data"}]}.
- * A new reference; NULL when out of memory. */
+ * class, scope, observed, threshold, unit, samples, needed, why, default, verdict:
+ * "pass"|"fail"|"no-data"|"too-few"}]}. A new reference; NULL when out of memory. */
 json_t *judge_json(const judge_t *j);
 /* The verdict table for the end of a run (results stream); nothing when there are no checks. */
 void judge_print(const judge_t *j, out_t *o);

@@ -3,6 +3,7 @@
  * and the order in which everything shuts down. */
 #include <errno.h>
 #include <math.h>
+#include <signal.h>
 #include <stdarg.h>
 #include <stdlib.h>
 #include <string.h>
@@ -18,6 +19,7 @@
 
 static void phase_start(run_t *r, size_t i, int64_t base_ns);
 static void finish(run_t *r);
+static void signals_held(run_t *r, bool hold);
 static void on_wake(uv_timer_t *t);
 
 /* The one setter of the run's state. */
@@ -342,8 +344,30 @@ static void finish(run_t *r)
     close_handle((uv_handle_t *)&r->wake);
     close_handle((uv_handle_t *)&r->second);
     close_handle((uv_handle_t *)&r->prepare);
-    close_handle((uv_handle_t *)&r->sigint);
-    close_handle((uv_handle_t *)&r->sigterm);
+    signals_held(r, true);
+}
+
+/* While the results are written, SIGINT and SIGTERM are ignored: a signal that comes late (a
+ * supervisor such as timeout(1) sends its own to the whole process group after the one it
+ * forwards) must not kill the process half-way through results.json. The handles are closed
+ * with both signals blocked, so none arrives between libuv's default disposition and ours. */
+static void signals_held(run_t *r, bool hold)
+{
+    sigset_t set, old;
+    sigemptyset(&set);
+    sigaddset(&set, SIGINT);
+    sigaddset(&set, SIGTERM);
+    if (hold) {
+        pthread_sigmask(SIG_BLOCK, &set, &old);
+        close_handle((uv_handle_t *)&r->sigint);
+        close_handle((uv_handle_t *)&r->sigterm);
+        signal(SIGINT, SIG_IGN); /* discards one that is pending */
+        signal(SIGTERM, SIG_IGN);
+        pthread_sigmask(SIG_SETMASK, &old, NULL);
+    } else {
+        signal(SIGINT, SIG_DFL);
+        signal(SIGTERM, SIG_DFL);
+    }
 }
 
 static int handles_start(run_t *r)
@@ -473,6 +497,7 @@ int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o, run_result_t 
     }
     run_loop(&r);
     run_finish(&r, result);
+    signals_held(&r, false);
     run_close(&r);
     if (uv_run(&r.loop, UV_RUN_DEFAULT), uv_loop_close(&r.loop) != 0)
         out_warn(o, "internal: event loop closed with handles still open");

@@ -265,6 +265,69 @@ static void test_watches_judged_on_stream_attempts(void **state)
     results_free(r);
 }
 
+/* The run's outcome: FAIL wins over INCONCLUSIVE; INCONCLUSIVE names each reason (squall could
+ * not offer the load, a percentile with too few samples, an early stop); a reason the plan
+ * accepts moves to `accepted` and no longer stands in the way of a pass. */
+static void test_outcome(void **state)
+{
+    (void)state;
+    results_t *r = fixture();
+    /* write: exactly 100 samples in warm, enough for a p99, not for a p99.9 (1,000). */
+    plan_objective_t ob[3] = {pct("write", 99, 1000000000), pct("write", 99.9, 1000000000),
+                              pct("write", 50, 1000000)};
+    judge_t *j;
+    assert_int_equal(judge_evaluate(ob, 2, r, phases, 2, NULL, &j), 0);
+    assert_int_equal(find(j, 0, "write", "warm")->verdict, JUDGE_PASS);
+    assert_int_equal(find(j, 1, "write", "warm")->verdict, JUDGE_TOO_FEW);
+    assert_int_equal(find(j, 1, "write", "warm")->needed, 1000);
+    judge_evidence_t ev = {.generator_bound_s = 2,
+                           .generator_seconds = "3, 4",
+                           .generator_why = "lag",
+                           .stopped_early = true,
+                           .stop_why = "signal SIGINT"};
+    json_t *reasons = json_array(), *accepted = json_array();
+    assert_int_equal(judge_outcome(j, &ev, reasons, accepted), JUDGE_OUTCOME_INCONCLUSIVE);
+    assert_int_equal(json_array_size(reasons), 4); /* bound, too few in warm and run, stopped */
+    assert_int_equal(json_array_size(accepted), 0);
+    assert_string_equal(json_string_value(json_array_get(reasons, 0)),
+                        "squall could not offer the planned load for 2 s (seconds 3, 4; last: "
+                        "lag): the target's figures for those seconds are not evidence");
+    assert_string_equal(json_string_value(json_array_get(reasons, 1)),
+                        "write in warm: p99.9 of response <= 1000 ms: too few samples to resolve "
+                        "it (had 100, needs 1000)");
+    assert_string_equal(json_string_value(json_array_get(reasons, 3)),
+                        "the run stopped early: signal SIGINT");
+    json_array_clear(reasons);
+
+    /* Accepted, each reason is kept apart and the run passes. */
+    ev.accept = 1u << PLAN_ACCEPT_GENERATOR_BOUND | 1u << PLAN_ACCEPT_FEW_SAMPLES |
+                1u << PLAN_ACCEPT_STOPPED_EARLY;
+    assert_int_equal(judge_outcome(j, &ev, reasons, accepted), JUDGE_OUTCOME_PASS);
+    assert_int_equal(json_array_size(reasons), 0);
+    assert_int_equal(json_array_size(accepted), 4);
+    /* Only some accepted: still inconclusive, for the others. */
+    json_array_clear(accepted);
+    ev.accept = 1u << PLAN_ACCEPT_FEW_SAMPLES;
+    assert_int_equal(judge_outcome(j, &ev, reasons, accepted), JUDGE_OUTCOME_INCONCLUSIVE);
+    assert_int_equal(json_array_size(reasons), 2);
+    assert_int_equal(json_array_size(accepted), 2);
+    judge_free(j);
+
+    /* A failed objective wins over every reason for doubt, and is the only reason given. */
+    json_array_clear(reasons);
+    ev.accept = 0;
+    assert_int_equal(judge_evaluate(ob, 3, r, phases, 2, NULL, &j), 0);
+    assert_int_equal(judge_outcome(j, &ev, reasons, NULL), JUDGE_OUTCOME_FAIL);
+    for (size_t i = 0; i < json_array_size(reasons); i++)
+        assert_non_null(strstr(json_string_value(json_array_get(reasons, i)),
+                               "p50 of response <= 1 ms: observed"));
+    assert_int_equal(json_array_size(reasons), 2); /* warm and the run */
+    judge_free(j);
+    json_decref(reasons);
+    json_decref(accepted);
+    results_free(r);
+}
+
 int main(void)
 {
     if (access("/usr/bin/python3", X_OK) != 0 ||
@@ -277,6 +340,7 @@ int main(void)
         cmocka_unit_test(test_error_rate_and_min_rate),
         cmocka_unit_test(test_no_data_and_wildcard),
         cmocka_unit_test(test_watches_judged_on_stream_attempts),
+        cmocka_unit_test(test_outcome),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
