@@ -37,16 +37,16 @@ const char *sq_strerror(int code);
 
 /* Process exit codes, documented in README.md ("Exit codes"). */
 #define SQ_EXIT_MAP(X)                                                                            \
-    X(OK, 0, "run completed and every objective held")                                             \
-    X(OBJECTIVES, 1, "run completed but an objective failed")                                      \
+    X(OK, 0, "PASS: the planned load was offered and every objective held")                        \
+    X(OBJECTIVES, 1, "FAIL: an objective did not hold")                                            \
     X(USAGE, 2, "usage or plan error: nothing was sent")                                           \
     X(BRAKE, 3, "stopped early by a brake")                                                        \
     X(UNREACHABLE, 4, "target unreachable")                                                        \
     X(INTERRUPTED, 5, "interrupted by a signal")                                                   \
     X(FAILURE, 6, "internal or input/output failure (e.g. results could not be written)")          \
     X(INCONCLUSIVE, 7,                                                                             \
-      "run completed but cannot support a pass: squall could not offer the planned load, a "      \
-      "percentile had too few samples, or the run stopped early (the summary says which)")
+      "INCONCLUSIVE: the evidence cannot support a pass: squall could not offer the planned "     \
+      "load, a percentile had too few samples, or the run stopped early (the summary says which)")
 
 enum sq_exit {
 #define SQ_EXIT_ENUM(name, value, text) SQ_EXIT_##name = value,
