@@ -203,6 +203,14 @@ expect "rerun with the recorded seed: the same starts per class ($(counts "$T/re
     test "$(counts "$T/repro")" = "$(counts "$T/repro2")"
 expect "and another seed draws others ($(counts "$T/repro3"))" \
     test "$(counts "$T/repro")" != "$(counts "$T/repro3")"
+# compare reads the recorded overrides and warns when two runs differ in them.
+"$SQUALL" compare "$T/repro" "$T/repro3" >/dev/null 2>"$T/cmp-same.stderr"
+"$SQUALL" run "$T/repro.yaml" -o "$T/repro-plain" --quiet >/dev/null 2>&1
+"$SQUALL" compare "$T/repro-plain" "$T/repro2" >/dev/null 2>"$T/cmp.stderr"
+expect "compare warns that the runs had other --set overrides" \
+    grep -q "BASE and NEW ran with different overrides (BASE: none; NEW: phases.steady.rate=80/s target.connections=6)" \
+    "$T/cmp.stderr"
+expect "and not when the overrides agree" bash -c "! grep -q 'different overrides' '$T/cmp-same.stderr'"
 BEFORE=$(sha256sum "$T/repro/results.json")
 "$SQUALL" run "$T/repro.yaml" -o "$T/repro" --quiet >/dev/null 2>"$T/again.stderr"
 RC=$?
