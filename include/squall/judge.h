@@ -57,6 +57,13 @@ typedef struct {
     enum judge_verdict verdict;
 } judge_check_t;
 
+/* The error rate every class is judged on when no objective of the plan covers it. */
+#define JUDGE_DEFAULT_ERROR_RATE 0.01
+
+/* Samples a p-th percentile needs to be resolved: 1 / (1 - p/100), so 100 for p99 and 1,000
+ * for p99.9; 1 for the maximum (p100). */
+int64_t judge_samples_needed(double percentile);
+
 typedef struct {
     double default_error_rate; /* for classes no error-rate objective covers; 0 = none */
     /* The plan's watch classes: their error rate counts stream attempts (opened or refused),

@@ -287,6 +287,9 @@ int plan_find_phase(const plan_t *p, const char *name);
 
 /* Names for enum values, as written in plans. */
 const char *plan_kind_name(enum plan_kind k);
+/* Whether a 201 Created answer to class r makes an object the run must journal and tear down:
+ * any write but a DELETE or a `deletes` class, whatever `creates` says (RFC 9110, 15.3.2). */
+bool plan_req_may_create(const plan_req_t *r);
 const char *plan_backoff_name(enum plan_backoff b);
 
 #define PLAN_MAX_REQS 256 /* validation rejects plans with more classes */

@@ -196,6 +196,10 @@ typedef struct {
     int clients, watches, agents;
     double created, deleted; /* objects; a teardown deletes everything still alive */
     double alive_after;
+    /* Writes of classes without `creates` whose 201 Created would also make objects to tear
+     * down (plan_req_may_create, not kept): at most this many more in this phase; for a
+     * teardown phase, at most this many more deleted (everything before it). */
+    double may_create;
     bool replay;
 } src_estimate_t;
 

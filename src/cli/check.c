@@ -8,6 +8,7 @@
 #include "squall/cli.h"
 #include "squall/clock.h"
 #include "squall/err.h"
+#include "squall/judge.h"
 #include "squall/plan.h"
 #include "squall/run.h"
 #include "squall/source.h"
@@ -107,6 +108,9 @@ static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, ou
     if (ph->teardown.on)
         out_print(o, "    %-24s %12s requests\n", "(teardown deletes)",
                   count_str(e.deleted, a, 32));
+    if (ph->teardown.on && e.may_create > 0)
+        out_print(o, "    %-24s %12s more at most: the objects other writes create (201)\n",
+                  "(teardown deletes)", count_str(e.may_create, a, 32));
     out_print(o, "    total %s requests, peak %s/s", count_str(e.requests, a, 32),
               count_str(e.peak_rate, b, 32));
     if (e.burst > 0)
@@ -116,13 +120,54 @@ static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, ou
     out_print(o, "\n    objects: %s created, %s deleted, %s alive after\n",
               count_str(e.created, a, 32), count_str(e.deleted, b, 32),
               count_str(e.alive_after, c, 32));
+    if (!ph->teardown.on && e.may_create > 0)
+        out_print(o, "    and up to %s more created if other writes are answered 201 Created "
+                     "(journaled and torn down too)\n",
+                  count_str(e.may_create, a, 32));
 }
 
 /* One line per objective and brake, as the run will judge them. */
-static void print_judges(const plan_t *p, out_t *o)
+/* Requests of class cls the plan expects in phase `phase` (-1: every phase but a teardown). */
+static double expected_of(const plan_t *p, const src_estimate_t *est, int cls, int phase)
+{
+    double n = 0;
+    for (size_t i = 0; i < p->n_phases; i++)
+        if (phase < 0 ? !p->phases[i].teardown.on : (int)i == phase)
+            n += est[i].per_class[cls];
+    return n;
+}
+
+/* A percentile the plan's own counts cannot resolve makes the run INCONCLUSIVE: said per scope
+ * the run judges it in (each phase the class runs in, and the run). A list's count is of whole
+ * lists; each has one page or more, and each page is a sample, so for lists it "may be". */
+static void warn_few(const plan_t *p, const src_estimate_t *est, const plan_objective_t *ob,
+                     out_t *o)
+{
+    int64_t needed = judge_samples_needed(ob->percentile);
+    bool list = p->reqs[ob->cls.index].kind == PLAN_LIST;
+    char a[32];
+    for (int i = -1; i < (int)p->n_phases; i++) {
+        if (ob->phase.index >= 0 ? i != ob->phase.index
+                                 : i >= 0 && (p->phases[i].teardown.on ||
+                                              est[i].per_class[ob->cls.index] <= 0))
+            continue;
+        double n = expected_of(p, est, ob->cls.index, i);
+        if (n >= (double)needed)
+            continue;
+        out_print(o,
+                  "warning    %s%s: about %s %s expected, and a p%g needs %lld samples: the run "
+                  "%s INCONCLUSIVE (exit 7) unless the plan says accept: [few-samples]\n",
+                  i < 0 ? "the run" : "phase ", i < 0 ? "" : p->phases[i].name,
+                  count_str(n, a, 32), list ? "lists (pages count)" : "requests", ob->percentile,
+                  (long long)needed, list ? "may be" : "would be");
+    }
+}
+
+static void print_judges(const plan_t *p, const src_estimate_t *est, out_t *o)
 {
     static const char *const metric[] = {"response", "service", "open", "propagation"};
     char d[32];
+    bool all_errors = false;
     for (size_t i = 0; i < p->n_objectives; i++) {
         const plan_objective_t *ob = &p->objectives[i];
         out_print(o, "objective  %s: ", ob->cls.index < 0 ? "every class" : ob->cls.name);
@@ -135,7 +180,18 @@ static void print_judges(const plan_t *p, out_t *o)
             out_print(o, "rate >= %g/s", ob->value);
         out_print(o, "%s%s\n", ob->phase.index >= 0 ? " in phase " : "",
                   ob->phase.index >= 0 ? ob->phase.name : "");
+        all_errors |= ob->limit == PLAN_LIMIT_ERROR_RATE && ob->cls.index < 0;
+        if (ob->limit == PLAN_LIMIT_PERCENTILE && ob->cls.index >= 0 &&
+            ob->metric <= PLAN_METRIC_SERVICE && !(p->accept & 1u << PLAN_ACCEPT_FEW_SAMPLES))
+            warn_few(p, est, ob, o);
     }
+    if (!all_errors)
+        out_print(o, "objective  every class no objective above covers: error rate <= %g%% "
+                     "(default)\n",
+                  JUDGE_DEFAULT_ERROR_RATE * 100);
+    for (size_t i = 0; p->accept && plan_accept_names[i]; i++)
+        if (p->accept & 1u << i)
+            out_print(o, "accept     %s: not a reason against a pass\n", plan_accept_names[i]);
     for (size_t i = 0; i < p->n_brakes; i++) {
         const plan_brake_t *b = &p->brakes[i];
         const char *who = b->cls.index < 0 ? "any class" : b->cls.name;
@@ -173,7 +229,7 @@ static void print_summary(const plan_t *p, const src_estimate_t *est, out_t *o)
               "objectives, %zu brakes\n",
               p->n_phases, dur_str(dur, d, sizeof d), count_str(total, a, 32),
               count_str(peak, b, 32), p->n_objectives, p->n_brakes);
-    print_judges(p, o);
+    print_judges(p, est, o);
     if (!p->target.loopback)
         out_print(o,
                   "caution: %s is not loopback; `squall run` will refuse it without "

@@ -115,6 +115,11 @@ static void gather(const results_t *res, const char *cls, bool watch, const char
     }
 }
 
+int64_t judge_samples_needed(double percentile)
+{
+    return percentile >= 100 ? 1 : (int64_t)ceil(100 / (100 - percentile) - 1e-9);
+}
+
 /* The observed value of objective ob over tally t; false when nothing was measured. */
 static bool observe(const plan_objective_t *ob, const tally_t *t, judge_check_t *ck)
 {
@@ -126,7 +131,7 @@ static bool observe(const plan_objective_t *ob, const tally_t *t, judge_check_t 
         ck->observed = (double)hist_value_at(t->h, ob->percentile) / 1e6;
         /* The p-th percentile is resolved by at least 1 / (1 - p/100) samples: 100 for p99,
          * 1,000 for p99.9; the maximum by one. */
-        ck->needed = ob->percentile >= 100 ? 1 : (int64_t)ceil(100 / (100 - ob->percentile) - 1e-9);
+        ck->needed = judge_samples_needed(ob->percentile);
         return ck->samples > 0;
     case PLAN_LIMIT_ERROR_RATE:
         ck->unit = "fraction";

@@ -60,8 +60,7 @@ static bool creating(const plan_t *p, size_t i)
  * says, an object it answered 201 for is this run's: journaled, and torn down unless kept. */
 static bool may_create(const plan_t *p, size_t i)
 {
-    const plan_req_t *pr = &p->reqs[i];
-    return pr->kind == PLAN_WRITE && !pr->write.deletes && strcmp(pr->write.method, "DELETE");
+    return plan_req_may_create(&p->reqs[i]);
 }
 
 /* Objects of class i the teardown deletes: those it created, unless the class keeps them. */

@@ -15,6 +15,12 @@ const char *plan_kind_name(enum plan_kind k)
     return plan_kind_names[k];
 }
 
+bool plan_req_may_create(const plan_req_t *r)
+{
+    return r->kind == PLAN_WRITE && !r->write.deletes &&
+           (!r->write.method || strcmp(r->write.method, "DELETE"));
+}
+
 const char *plan_backoff_name(enum plan_backoff b)
 {
     return plan_backoff_names[b];

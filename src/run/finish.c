@@ -60,7 +60,7 @@ static size_t judged_phases(const run_t *r)
 static int judge(run_t *r, const judge_phase_t *ph, judge_t **j)
 {
     const char *watches[PLAN_MAX_REQS];
-    judge_opts_t jo = {.default_error_rate = RUN_DEFAULT_ERROR_RATE, .watch_classes = watches};
+    judge_opts_t jo = {.default_error_rate = JUDGE_DEFAULT_ERROR_RATE, .watch_classes = watches};
     for (size_t i = 0; i < r->plan->n_reqs; i++)
         if (r->plan->reqs[i].kind == PLAN_WATCH)
             watches[jo.n_watch_classes++] = r->plan->reqs[i].name;

@@ -79,7 +79,6 @@ void run_close(run_t *r);
 /* The context a phase's sources are built with. */
 src_ctx_t run_src_ctx(const run_t *r, size_t phase);
 
-#define RUN_DEFAULT_ERROR_RATE 0.01 /* every class not covered by an error-rate objective */
 
 /* finish.c: after the loop ended: fills res (outcome, write_failed). Returns write_failed. */
 bool run_finish(run_t *r, run_result_t *res);

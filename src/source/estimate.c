@@ -60,7 +60,7 @@ static void describe(const plan_phase_t *ph, src_estimate_t *e)
 /* Requests, objects created and deleted (deletes of objects already gone just fail, so they
  * remove nothing), and teardown: one delete per object still alive. */
 static void count_objects(const plan_t *p, const plan_phase_t *ph, double alive, double torn,
-                          src_estimate_t *e)
+                          double *maybe, src_estimate_t *e)
 {
     for (size_t i = 0; i < p->n_reqs; i++) {
         const plan_req_t *r = &p->reqs[i];
@@ -71,10 +71,15 @@ static void count_objects(const plan_t *p, const plan_phase_t *ph, double alive,
             e->created += e->per_class[i];
         if (r->kind == PLAN_WRITE && r->write.deletes)
             e->deleted += e->per_class[i];
+        if (plan_req_may_create(r) && !r->write.creates && !r->write.keep)
+            e->may_create += e->per_class[i];
     }
+    *maybe += e->may_create;
     double avail = alive + e->created;
     e->deleted = e->deleted < avail ? e->deleted : avail;
     if (ph->teardown.on) {
+        e->may_create = *maybe;
+        *maybe = 0;
         e->deleted += torn;
         e->requests += torn;
         if (ph->teardown.rate > 0 && !ph->has_duration) {
@@ -108,7 +113,7 @@ static int model(const src_ctx_t *ctx, const plan_phase_t *ph, double *torn, src
 int src_estimate(const plan_t *plan, uint64_t seed, int64_t realtime0_ns, out_t *o,
                  src_estimate_t *e)
 {
-    double alive = 0;
+    double alive = 0, maybe = 0;
     int rc = 0;
     for (size_t i = 0; i < plan->n_phases; i++) {
         const plan_phase_t *ph = &plan->phases[i];
@@ -127,7 +132,7 @@ int src_estimate(const plan_t *plan, uint64_t seed, int64_t realtime0_ns, out_t 
         int r = model(&ctx, ph, &torn, &e[i]);
         rc = rc ? rc : r;
         describe(ph, &e[i]);
-        count_objects(plan, ph, alive, torn, &e[i]);
+        count_objects(plan, ph, alive, torn, &maybe, &e[i]);
         alive = e[i].alive_after;
     }
     return rc;

@@ -81,13 +81,13 @@ total=$(((10 + 400) * 60 / 2 + steps + 4 * 10 * 1000 / 500 + churn_ops + 500))
     grep -q "^plan: 5 phases, .*, $((total / 1000)),$(printf %03d $((total % 1000))) requests expected" ||
     fail "good-shapes: the plan total is not $total"
 echo "ok: good-shapes estimates equal the arithmetic (ramp $(((10 + 400) * 60 / 2)), total $total)"
-# scenarios/demo.yaml: ramp 10/s -> 50/s over 5 s; 100/s for 10 s, mix 70 : 5 : 25; 200 agents
+# scenarios/demo.yaml: ramp 10/s -> 50/s over 5 s; 100/s for 10 s, mix 65 : 10 : 25; 200 agents
 # every 2 s, aligned, for 6 s; teardown of what the fill created.
 fill=$(((10 + 50) * 5 / 2))
 {
     echo "fill: register-gateway $fill"
-    echo "steady: read-gateway $((100 * 10 * 70 / 100))"
-    echo "steady: list-gateways $((100 * 10 * 5 / 100))"
+    echo "steady: read-gateway $((100 * 10 * 65 / 100))"
+    echo "steady: list-gateways $((100 * 10 * 10 / 100))"
     echo "steady: renew $((100 * 10 * 25 / 100))"
     echo "rush: renew-agent $((200 * 6 / 2))"
     echo "teardown: (teardown deletes) $fill"
@@ -100,6 +100,36 @@ echo "ok: demo estimates equal the arithmetic"
 out=$("$SQUALL" check "$SRCDIR/scenarios/demo.yaml" --set phases.steady.rate=20/s)
 grep -Eq '^ +renew +50 requests$' <<<"$out" || fail "--set phases.steady.rate: renew not 50"
 echo "ok: --set phases.steady.rate=20/s gives 50 renews"
+# ... which is too few for renew's p99 (1 / (1 - 0.99) = 100 samples): check says so before any
+# traffic, in each scope the run judges (the steady phase and the run).
+grep -q '^warning    phase steady: about 50 requests expected, and a p99 needs 100 samples: the run would be INCONCLUSIVE (exit 7)' <<<"$out" ||
+    fail "no too-few warning for renew at 20/s"
+[ "$(grep -c '^warning .* needs 100 samples' <<<"$out")" = 4 ] ||
+    fail "expected 4 too-few warnings (renew and list-gateways, steady and the run)"
+echo "ok: too few samples for a p99 are warned about, per scope"
+out=$("$SQUALL" check "$SRCDIR/scenarios/demo.yaml")
+! grep -q '^warning' <<<"$out" || fail "the demo as shipped has a warning: $(grep '^warning' <<<"$out")"
+# renew and renew-agent PUT without creates: true; their 201s are torn down too (at most all of
+# them: 250 in steady, 600 in the rush).
+grep -Eq '^    and up to 250 more created if other writes are answered 201 Created' <<<"$out" ||
+    fail "steady: no line for what renew may create"
+grep -Eq '^    \(teardown deletes\) +850 more at most' <<<"$out" || fail "teardown: no 'more at most' line"
+echo "ok: check says what other writes may create and the teardown may delete"
+# The demo's "*" error-rate objective covers every class; a plan without one is shown the 1 %
+# default every class is then judged on.
+grep -q '^objective  every class no objective above covers' <<<"$out" &&
+    fail "the demo covers every class with its own error-rate objective"
+cat >"$work/no-errors.yaml" <<'YAML'
+target: {url: "http://127.0.0.1:9"}
+requests:
+  read: {kind: get, path: /v1/x}
+phases:
+  - {name: p, rate: 10/s, duration: 1s, mix: {read: 1}}
+YAML
+"$SQUALL" check "$work/no-errors.yaml" |
+    grep -q '^objective  every class no objective above covers: error rate <= 1% (default)$' ||
+    fail "no default error-rate line"
+echo "ok: the default 1 % error rate is shown when no '*' error-rate objective covers every class"
 
 # A documentation address (RFC 5737 TEST-NET-1), never contacted: check sends nothing.
 out=$("$SQUALL" check "$SRCDIR/scenarios/demo.yaml" --set target.url=http://192.0.2.10:7070)
