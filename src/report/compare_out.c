@@ -84,6 +84,22 @@ static void p_text(const report_cmp_line_t *l, char *buf, size_t cap)
 
 #define ROW "%-12s %-16s %-17s %10s %10s %18s %8s  %-21s %s\n"
 
+/* A line's cells as text, the same in the table and the HTML page. */
+typedef struct {
+    char metric[48], base[32], nw[32], change[48], p[16], samples[64], verdict[64];
+} row_t;
+
+static void row_text(const report_cmp_line_t *l, row_t *r)
+{
+    metric_text(l, r->metric, sizeof r->metric);
+    value(l, l->base, r->base, sizeof r->base);
+    value(l, l->new_value, r->nw, sizeof r->nw);
+    change(l, r->change, sizeof r->change);
+    p_text(l, r->p, sizeof r->p);
+    samples_text(l, r->samples, sizeof r->samples);
+    verdict_text(l, r->verdict, sizeof r->verdict);
+}
+
 void report_cmp_print(const report_cmp_t *c, out_t *o)
 {
     size_t count[4] = {0};
@@ -92,15 +108,10 @@ void report_cmp_print(const report_cmp_t *c, out_t *o)
               "verdict");
     for (size_t i = 0; i < report_cmp_count(c); i++) {
         const report_cmp_line_t *l = report_cmp_at(c, i);
-        char m[48], b[32], n[32], d[48], p[16], s[64], v[64];
-        metric_text(l, m, sizeof m);
-        value(l, l->base, b, sizeof b);
-        value(l, l->new_value, n, sizeof n);
-        change(l, d, sizeof d);
-        p_text(l, p, sizeof p);
-        samples_text(l, s, sizeof s);
-        verdict_text(l, v, sizeof v);
-        out_print(o, ROW, l->phase, l->cls, m, b, n, d, p, s, v);
+        row_t r;
+        row_text(l, &r);
+        out_print(o, ROW, l->phase, l->cls, r.metric, r.base, r.nw, r.change, r.p, r.samples,
+                  r.verdict);
         count[l->verdict]++;
         used[l->test] = true;
     }
@@ -211,14 +222,8 @@ static void meta_rows(FILE *f, const results_t *b, const results_t *n)
 
 static void verdict_row(FILE *f, const report_cmp_line_t *l)
 {
-    char m[48], b[32], n[32], d[48], p[16], s[64], v[64];
-    metric_text(l, m, sizeof m);
-    value(l, l->base, b, sizeof b);
-    value(l, l->new_value, n, sizeof n);
-    change(l, d, sizeof d);
-    p_text(l, p, sizeof p);
-    samples_text(l, s, sizeof s);
-    verdict_text(l, v, sizeof v);
+    row_t r;
+    row_text(l, &r);
     bool bad = l->verdict == REPORT_WORSE;
     fputs("<tr><td>", f);
     html_esc(f, l->phase);
@@ -228,7 +233,8 @@ static void verdict_row(FILE *f, const report_cmp_line_t *l)
             "</td><td>%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
             "<td class=\"n\">%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
             "<td class=\"%s\">%s%s</td></tr>\n",
-            m, b, n, d, p, s, bad ? "fail" : "pass", bad ? "&#10008; " : "", v);
+            r.metric, r.base, r.nw, r.change, r.p, r.samples, bad ? "fail" : "pass",
+            bad ? "&#10008; " : "", r.verdict);
 }
 
 static void verdict_rows(FILE *f, const report_cmp_t *c)

@@ -14,6 +14,8 @@
 
 #include <cmocka.h>
 
+#include "pyref.h"
+
 #include "squall/err.h"
 #include "squall/report.h"
 #include "squall/rng.h"
@@ -29,21 +31,7 @@ static void near(double got, double want, double rel)
 /* Runs compare_ref.py on `input` (one case a line) and returns its output lines. */
 static char *reference(const char *input)
 {
-    char path[] = "/tmp/squall-cmp-ref-XXXXXX";
-    int fd = mkstemp(path);
-    assert_true(fd >= 0);
-    assert_int_equal(write(fd, input, strlen(input)), (ssize_t)strlen(input));
-    close(fd);
-    char cmd[1024];
-    snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s/tests/unit/compare_ref.py < %s", SRCDIR, path);
-    FILE *p = popen(cmd, "r");
-    assert_non_null(p);
-    static char out[1 << 16];
-    size_t n = fread(out, 1, sizeof out - 1, p);
-    out[n] = '\0';
-    assert_int_equal(pclose(p), 0);
-    unlink(path);
-    return out;
+    return pyref_run("compare_ref.py", input);
 }
 
 /* A growing text for reference() input. */

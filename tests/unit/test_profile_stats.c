@@ -15,6 +15,8 @@
 
 #include <cmocka.h>
 
+#include "pyref.h"
+
 #include "squall/profile.h"
 #include "squall/rng.h"
 
@@ -32,21 +34,7 @@ static void close_to(double got, double want, double rel, double abs_tol)
 /* Runs profile_ref.py on `input` (one case a line) and returns its output lines. */
 static char *reference(const char *input)
 {
-    char path[] = "/tmp/squall-prof-ref-XXXXXX";
-    int fd = mkstemp(path);
-    assert_true(fd >= 0);
-    assert_int_equal(write(fd, input, strlen(input)), (ssize_t)strlen(input));
-    close(fd);
-    char cmd[1024];
-    snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s/tests/unit/profile_ref.py < %s", SRCDIR, path);
-    FILE *p = popen(cmd, "r");
-    assert_non_null(p);
-    static char out[1 << 16];
-    size_t n = fread(out, 1, sizeof out - 1, p);
-    out[n] = '\0';
-    assert_int_equal(pclose(p), 0);
-    unlink(path);
-    return out;
+    return pyref_run("profile_ref.py", input);
 }
 
 /* Angle cases: uniform (300, 50), aligned within milliseconds of a 10 s period (300), a wide
