@@ -29,6 +29,7 @@
 #include "squall/out.h"
 #include "squall/plan.h"
 #include "squall/results.h"
+#include "squall/verdict.h"
 
 #define JUDGE_SECTION "objectives" /* the results.json section judge_json fills */
 
@@ -89,7 +90,6 @@ bool judge_failed(const judge_t *j);
 
 /* ---- the run's outcome ----------------------------------------------------------------------- */
 
-enum judge_outcome { JUDGE_OUTCOME_PASS, JUDGE_OUTCOME_FAIL, JUDGE_OUTCOME_INCONCLUSIVE };
 
 /* What else a verdict rests on besides the checks. */
 typedef struct {

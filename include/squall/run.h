@@ -14,7 +14,7 @@
 #include <stdbool.h>
 #include <stdint.h>
 
-#include "squall/judge.h"
+#include "squall/verdict.h"
 #include "squall/out.h"
 #include "squall/plan.h"
 

@@ -184,7 +184,7 @@ static void dispatch(struct ceiling *c, int64_t now)
     }
 }
 
-static void run(struct ceiling *c)
+static void run_clients(struct ceiling *c)
 {
     struct epoll_event evs[256];
     c->t0 = clock_mono_ns();
@@ -243,7 +243,7 @@ static double cpu_us(void)
            ru.ru_stime.tv_usec;
 }
 
-static void report(const struct ceiling *c, double cpu)
+static void print_figures(const struct ceiling *c, double cpu)
 {
     double secs = c->duration;
     printf("{\"mode\":\"%s\",\"connections\":%d,\"duration_s\":%.3f,\"requests\":%lld,"
@@ -318,8 +318,8 @@ int main(int argc, char **argv)
             return 1;
         }
     double cpu0 = cpu_us();
-    run(&c);
-    report(&c, cpu_us() - cpu0);
+    run_clients(&c);
+    print_figures(&c, cpu_us() - cpu0);
     for (int i = 0; i < c.n_conns; i++)
         if (c.conns[i].fd >= 0)
             close(c.conns[i].fd);

@@ -21,7 +21,7 @@ static double now_s(void)
 }
 
 /* One line of a day at about 1,000 requests/s of sensor gateways (our invented setting). */
-static int line(char *b, size_t len, const char *fmt, uint64_t i, rng_t *g)
+static int log_line(char *b, size_t len, const char *fmt, uint64_t i, rng_t *g)
 {
     static const char *const sites[] = {"north", "south", "harbor", "ridge"};
     static const char *const methods[] = {"GET", "GET", "GET", "PUT", "POST", "DELETE"};
@@ -62,14 +62,14 @@ static int gen(const char *fmt, uint64_t n, const char *path, bool gz)
     rng_seed(&g, 1);
     char b[512];
     for (uint64_t i = 0; i < n; i++) {
-        int k = line(b, sizeof b, fmt, i, &g);
+        int k = log_line(b, sizeof b, fmt, i, &g);
         if (z ? gzwrite(z, b, (unsigned)k) != k : fwrite(b, 1, (size_t)k, f) != (size_t)k)
             return fprintf(stderr, "%s: write failed\n", path), 1;
     }
     return (z ? gzclose(z) != Z_OK : fclose(f) != 0) ? 1 : 0;
 }
 
-static int parse(const char *path)
+static int parse_log(const char *path)
 {
     alog_config_t c;
     alog_config_init(&c);
@@ -107,7 +107,7 @@ int main(int argc, char **argv)
         return gen(argv[2], strtoull(argv[3], NULL, 10), argv[4],
                    argc > 5 && strcmp(argv[5], "gz") == 0);
     if (argc == 3 && strcmp(argv[1], "parse") == 0)
-        return parse(argv[2]);
+        return parse_log(argv[2]);
     fprintf(stderr, "usage: alog-bench gen common|combined|ndjson N FILE [gz] | parse FILE\n");
     return 2;
 }
