@@ -198,7 +198,7 @@ char *cli_command_line(const char *name, int argc, char **argv)
     for (int i = 0; i < argc; i++) {
         const char *a = argv[i];
         bool plain = a[0] && strspn(a, "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ"
-                                           "0123456789-_./=:,@%+") == strlen(a);
+                                       "0123456789-_./=:,@%+") == strlen(a);
         s[n++] = ' ';
         if (plain) {
             n += (size_t)snprintf(s + n, len - n, "%s", a);

@@ -12,7 +12,7 @@
 typedef struct {
     const plan_t *plan;
     out_t *o;
-    FILE *f, *fh; /* series.csv, series-hist.csv */
+    FILE *f, *fh;            /* series.csv, series-hist.csv */
     int64_t real_minus_mono; /* CLOCK_REALTIME - CLOCK_MONOTONIC, read at each phase's start */
 } series_t;
 

@@ -269,14 +269,14 @@ static json_t *tick_json(const saction_t *a, int64_t k, const size_t *idx, size_
         json_array_append_new(jb, json_integer(bins[b]));
     int peak = ns ? peak_in_flight(sent, done, ns) : 0; /* sorts sent and done */
     int64_t last_done = ns ? done[ns - 1] : 0;
-    return json_pack(
-        "{s:I,s:I,s:I,s:I,s:I,s:i,s:I,s:I,s:I,s:I,s:o,s:o*}", "t_ns", (json_int_t)(tick_t - a->base),
-        "requests", (json_int_t)n, "written", (json_int_t)ns, "dispatch_spread_ns",
-        (json_int_t)(ns ? sent[ns - 1] - sent[0] : 0), "first_written_ns",
-        (json_int_t)(ns ? sent[0] - tick_t : 0), "peak_in_flight", peak, "burst_ns",
-        (json_int_t)(ns ? last_done - sent[0] : 0), "p50_ns", (json_int_t)rank(resp, n, 50),
-        "p99_ns", (json_int_t)rank(resp, n, 99), "max_ns", (json_int_t)resp[n - 1], "bins", jb,
-        "hist", enc);
+    return json_pack("{s:I,s:I,s:I,s:I,s:I,s:i,s:I,s:I,s:I,s:I,s:o,s:o*}", "t_ns",
+                     (json_int_t)(tick_t - a->base), "requests", (json_int_t)n, "written",
+                     (json_int_t)ns, "dispatch_spread_ns",
+                     (json_int_t)(ns ? sent[ns - 1] - sent[0] : 0), "first_written_ns",
+                     (json_int_t)(ns ? sent[0] - tick_t : 0), "peak_in_flight", peak, "burst_ns",
+                     (json_int_t)(ns ? last_done - sent[0] : 0), "p50_ns",
+                     (json_int_t)rank(resp, n, 50), "p99_ns", (json_int_t)rank(resp, n, 99),
+                     "max_ns", (json_int_t)resp[n - 1], "bins", jb, "hist", enc);
 }
 
 /* Requests grouped by tick: order[] holds indices of a->v, start[k]..start[k+1] tick k's. */
