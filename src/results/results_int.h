@@ -43,6 +43,8 @@ typedef struct {
     json_t *sections; /* borrowed from the entry */
 } results_input_t;
 
+/* The inputs of merge r from its meta.inputs (*n of them; malloc'd, NULL when out of memory). */
+results_input_t *results_inputs_of(const results_t *r, size_t *n);
 /* The wall-clock start (ms) of phase `name` in input in, from its "phases" section; false when
  * the phase did not run there or the input has no such section. */
 bool results_input_phase_ms(const results_input_t *in, const char *name, double *ms);

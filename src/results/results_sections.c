@@ -12,21 +12,6 @@
  * objectives) and the brakes in force. */
 static const char *const must_agree[] = {"judgement", "brakes"};
 
-bool results_input_phase_ms(const results_input_t *in, const char *name, double *ms)
-{
-    const json_t *list = json_object_get(json_object_get(in->sections, "phases"), "phases"), *p;
-    size_t i;
-    json_array_foreach(list, i, p)
-    {
-        const char *n = json_string_value(json_object_get(p, "name"));
-        if (!n || strcmp(n, name) || json_number_value(json_object_get(p, "elapsed_s")) <= 0)
-            continue;
-        *ms = (double)in->start_ms + 1e3 * json_number_value(json_object_get(p, "start_s"));
-        return in->start_ms != 0;
-    }
-    return false;
-}
-
 static int agree(const results_input_t *in, size_t n, results_t *dst, out_t *o)
 {
     for (size_t k = 0; k < sizeof must_agree / sizeof must_agree[0]; k++) {
@@ -287,19 +272,6 @@ static void shift_log(json_t *log, double by_ms)
     }
 }
 
-bool results_first_phase_ms(const results_input_t *in, size_t n, const char *name, double *ms)
-{
-    bool any = false;
-    for (size_t i = 0; i < n; i++) {
-        double t;
-        if (results_input_phase_ms(&in[i], name, &t) && (!any || t < *ms)) {
-            *ms = t;
-            any = true;
-        }
-    }
-    return any;
-}
-
 static json_t *watches_json(const results_input_t *in, size_t n)
 {
     json_t *w = NULL;
@@ -359,22 +331,6 @@ static json_t *lifecycle_json(const results_input_t *in, size_t n)
 
 /* ---- the whole ------------------------------------------------------------------------------ */
 
-static results_input_t *inputs_of(const results_t *r, size_t *n)
-{
-    *n = json_array_size(r->inputs);
-    results_input_t *in = calloc(*n ? *n : 1, sizeof(*in));
-    for (size_t i = 0; in && i < *n; i++) {
-        const json_t *e = json_array_get(r->inputs, i);
-        const char *start = json_string_value(json_object_get(e, "start"));
-        in[i].name = json_string_value(json_object_get(e, "name"));
-        in[i].name = in[i].name ? in[i].name : "?";
-        in[i].sections = json_object_get(e, "sections");
-        if (!start || !results_parse_time(start, &in[i].start_ms))
-            in[i].start_ms = 0;
-    }
-    return in;
-}
-
 /* Replaces section name with value; NULL means no input had it (else: out of memory). */
 static int put(results_t *r, const char *name, json_t *value, const results_input_t *in, size_t n)
 {
@@ -390,7 +346,7 @@ static int put(results_t *r, const char *name, json_t *value, const results_inpu
 int results_merge_finish(results_t *dst, out_t *o)
 {
     size_t n;
-    results_input_t *in = inputs_of(dst, &n);
+    results_input_t *in = results_inputs_of(dst, &n);
     if (!in)
         return SQ_ENOMEM;
     int rc = n ? agree(in, n, dst, o) : 0, storms_rc = 0;
