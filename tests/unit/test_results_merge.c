@@ -48,7 +48,7 @@ static int merge(results_t **in, size_t n, results_t **out, out_t *o)
 {
     assert_int_equal(results_new(out), 0);
     for (size_t i = 0; i < n; i++) {
-        char name[16];
+        char name[32];
         snprintf(name, sizeof name, "in%zu", i);
         assert_int_equal(results_merge(*out, in[i], name, o), 0);
     }
