@@ -77,6 +77,7 @@ static json_t *phase_json(const results_input_t *in, size_t n, const char *name,
             if (pn && !strcmp(pn, name) && results_input_phase_ms(&in[i], name, &from)) {
                 s[k].from = from;
                 s[k++].to = from + 1e3 * json_number_value(json_object_get(p, "elapsed_s"));
+                break; /* one interval an input */
             }
         }
     }
@@ -108,14 +109,14 @@ static json_t *phases_json(const results_input_t *in, size_t n, int64_t start_ms
     span_t *s = calloc(n, sizeof(*s));
     bool any = false;
     for (size_t i = 0; list && s && i < n; i++) {
-        const json_t *ph = json_object_get(json_object_get(in[i].sections, "phases"), "phases"), *p;
+        const json_t *sec = json_object_get(in[i].sections, "phases"), *p;
         size_t j;
-        json_array_foreach(ph, j, p)
+        any |= sec != NULL;
+        json_array_foreach(json_object_get(sec, "phases"), j, p)
         {
             const char *name = json_string_value(json_object_get(p, "name"));
             if (name && !listed(list, name))
                 json_array_append_new(list, phase_json(in, n, name, start_ms, s));
-            any = true;
         }
     }
     free(s);
@@ -171,7 +172,8 @@ static json_t *bound_json(const results_input_t *in, size_t n, const char *kind,
             nv++;
         }
     }
-    qsort(v, nv, sizeof(*v), cmp_i64);
+    if (nv)
+        qsort(v, nv, sizeof(*v), cmp_i64);
     json_t *list = json_array();
     size_t distinct = 0;
     for (size_t i = 0; list && i < nv; i++)

@@ -355,7 +355,8 @@ int results_series_merge(const char *const *dirs, size_t n, const results_t *mer
     *written = false;
     int rc = read_all(&s, dirs, n, &complete);
     if (rc == 0 && complete) {
-        qsort(s.rows, s.n, sizeof(*s.rows), cmp_row);
+        if (s.n)
+            qsort(s.rows, s.n, sizeof(*s.rows), cmp_row);
         rc = group(&s, &s.n, &unknown);
     }
     char path[4096];

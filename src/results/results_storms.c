@@ -299,17 +299,19 @@ static json_t *phase_json(const results_input_t *in, size_t n, const char *phase
 json_t *results_merge_storms(const results_input_t *in, size_t n, int *rc)
 {
     json_t *out = json_object();
+    bool any = false;
     *rc = out ? 0 : SQ_ENOMEM;
     for (size_t i = 0; out && i < n; i++) {
         const char *phase;
-        json_t *v;
-        json_object_foreach(json_object_get(in[i].sections, "storms"), phase, v)
+        json_t *v, *storms = json_object_get(in[i].sections, "storms");
+        any |= storms != NULL;
+        json_object_foreach(storms, phase, v)
         {
             if (!json_object_get(out, phase))
                 json_object_set_new(out, phase, phase_json(in, n, phase, rc));
         }
     }
-    if (*rc || json_object_size(out) == 0) {
+    if (*rc || !any) {
         json_decref(out);
         return NULL;
     }
