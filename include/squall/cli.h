@@ -67,6 +67,10 @@ int cli_parse(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, cli_take_fn
 int cli_take_one(const cli_cmd_t *cmd, const char **slot, const char *v, const char *what,
                  out_t *o);
 
+/* "squall NAME ARGS...", each word quoted for a POSIX shell when it needs to be (malloc'd; NULL
+ * when out of memory): how to run a command again, for the results it writes. */
+char *cli_command_line(const char *name, int argc, char **argv);
+
 /* Common helper: report a usage mistake (one line) and return SQ_EXIT_USAGE. */
 int cli_usage_error(const cli_cmd_t *cmd, out_t *o, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));

@@ -42,7 +42,7 @@ typedef struct {
 
 enum judge_verdict { JUDGE_PASS, JUDGE_FAIL, JUDGE_NO_DATA, JUDGE_TOO_FEW };
 
-/* One check: a small public value. Strings point into the judge_t or the plan. */
+/* One check: a small public value. Its strings are the judge_t's own (or static). */
 typedef struct {
     size_t objective;  /* index in the objectives given */
     const char *text;  /* the objective as written: "p99 of response <= 20 ms" */
@@ -116,5 +116,42 @@ json_t *judge_json(const judge_t *j);
 void judge_print(const judge_t *j, out_t *o);
 
 const char *judge_verdict_name(enum judge_verdict v);
+
+/* ---- the judgement's inputs as data --------------------------------------------------------- */
+
+#define JUDGE_INPUTS_SECTION "judgement" /* the results.json section judge_inputs_json fills */
+
+/* Everything a verdict is judged from besides the results themselves: the plan's objectives,
+ * the reasons it accepts, the options and the phases judged (their names; elapsed_ns is filled
+ * in from the "phases" section when saved results are judged again). Written into every run's
+ * results.json, so that results judged later (a merge of shards) are judged exactly as the run
+ * judged itself, without the plan. */
+typedef struct {
+    const plan_objective_t *objectives;
+    size_t n_objectives;
+    unsigned accept; /* 1 << enum plan_accept */
+    judge_opts_t opts;
+    const judge_phase_t *phases;
+    size_t n_phases;
+    void *mem; /* owned memory of judge_inputs_init_json; NULL for inputs a caller points */
+} judge_inputs_t;
+
+/* The "judgement" section: {"objectives": [{class, phase, metric, limit, percentile, max_ms |
+ * value}], "accept": [...], "default_error_rate", "watch_classes": [...], "phases": [...]}.
+ * A new reference; NULL when out of memory. */
+json_t *judge_inputs_json(const judge_inputs_t *in);
+/* Reads a "judgement" section back into *in (release it with judge_inputs_close). SQ_EPARSE
+ * with a message in err (the key and what is wrong) when it is malformed; SQ_ENOMEM. */
+int judge_inputs_init_json(judge_inputs_t *in, const json_t *section, char *err, size_t cap);
+void judge_inputs_close(judge_inputs_t *in);
+
+/* Judges saved results from their own sections exactly as a run judges itself (judge_evaluate,
+ * then judge_outcome): the "judgement" section, each judged phase's elapsed time from "phases",
+ * the generator-bound seconds from "generator", and "stopped early" from meta (interrupted).
+ * Reasons and accepted reasons are appended as by judge_outcome. SQ_ENOTFOUND when res has no
+ * judgement section (written by an older squall); SQ_EPARSE (err says why) when it is
+ * malformed; SQ_ENOMEM. */
+int judge_results(const results_t *res, judge_t **j, enum judge_outcome *outcome, json_t *reasons,
+                  json_t *accepted, char *err, size_t cap);
 
 #endif

@@ -165,6 +165,10 @@ void obs_totals(const obs_t *l, obs_totals_t *t);
  * {"shared_target": bool, "brakes": [{kind, source, class, for_s, ...the limit}]}. */
 json_t *obs_brakes_json(const obs_t *l);
 
+/* DIR/storms.csv from a "storms" section (the storm observer's, or a merge's): one row per
+ * fleet tick; tick_s counts from the start of its phase. SQ_EIO with a line on o. */
+int obs_storms_csv(json_t *storms, const char *dir, out_t *o);
+
 /* Whether an outcome counts as an error: anything but 2xx, 3xx and cancelled. */
 bool obs_is_error(enum eng_outcome oc);
 

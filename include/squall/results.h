@@ -27,6 +27,16 @@
 #define RESULTS_FORMAT  "squall-results"
 #define RESULTS_VERSION 1
 #define RESULTS_FILE    "results.json" /* the name inside a results directory */
+/* The per-second series beside it (written by the series observer, combined by a merge): one
+ * row per phase x class x second, and each row's response-time histogram in a file of its own,
+ * so that a merge of shards gives every merged second the percentiles of all its samples.
+ * Columns are only ever added at the end; readers find them by name. */
+#define RESULTS_SERIES_FILE "series.csv"
+#define RESULTS_SERIES_HEADER                                                                      \
+    "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
+    "unix_ms,p999_ms"
+#define RESULTS_SERIES_HIST_FILE   "series-hist.csv"
+#define RESULTS_SERIES_HIST_HEADER "second,phase,class,unix_ms,response"
 
 /* Metrics, in file order. X(enum suffix, name in results.json). Add new ones at the end. */
 #define RESULTS_METRIC_MAP(X)                                                                      \
@@ -158,6 +168,30 @@ json_t *results_inputs(const results_t *r); /* borrowed array */
  * configurations differ; dst is then unchanged. SQ_ERANGE if a bucket would exceed UINT32_MAX
  * (4.3 billion samples within 0.1 % of each other): dst is then partly merged; discard it. */
 int results_merge(results_t *dst, const results_t *src, const char *name, out_t *o);
+
+/* After the last results_merge: combines the sections every input keeps in its entry, as one
+ * run with all their requests would have them (DEVELOPERS.md, "Merging"):
+ *   judgement, brakes  must be equal in every input (else SQ_EMISMATCH, a line on o naming the
+ *                      input that differs): a merged run is judged once
+ *   phases             each phase from the earliest start to the latest end; elapsed_s is the
+ *                      union of the inputs' intervals on the wall clock
+ *   generator          bound seconds by wall-clock second (bound when any input was); peaks
+ *                      the largest; counts added
+ *   watches, lifecycle counts added (the churn band: sums of the inputs' minima and maxima)
+ *   storms             ticks combined per tick instant on the wall clock
+ * and drops "objectives" and "run", which a judge writes for the merge (judge_results). Other
+ * sections stay only when equal in every input. SQ_ENOMEM. */
+int results_merge_finish(results_t *dst, out_t *o);
+
+/* The per-second series of n results directories (RESULTS_SERIES_FILE and, where present,
+ * RESULTS_SERIES_HIST_FILE) combined into dir: rows of the same wall-clock second (unix_ms,
+ * to the nearest second of merged's start) and (phase, class) add their counts, rates and
+ * planned starts; their percentiles come from the merged histograms, or are written as "nan"
+ * when a row of several inputs has no histogram. *written is false (nothing written, a warning
+ * on o) when an input has no series.csv. SQ_EIO, SQ_EPARSE (a line on o naming the file),
+ * SQ_ENOMEM. */
+int results_series_merge(const char *const *dirs, size_t n, const results_t *merged,
+                         const char *dir, bool *written, out_t *o);
 
 /* True when meta, cells (counters and every histogram, hist_equal) and sections are equal. */
 bool results_equal(const results_t *a, const results_t *b);

@@ -1,4 +1,5 @@
-/* The subcommand table's lookups, help text and option parsing (with "did you mean" answers). */
+/* The subcommand table's lookups, help text, option parsing (with "did you mean" answers) and
+ * the command line a command records in its results. */
 #include "squall/cli.h"
 
 #include <stdarg.h>
@@ -183,4 +184,31 @@ int cli_take_one(const cli_cmd_t *cmd, const char **slot, const char *v, const c
         return cli_usage_error(cmd, o, "one %s at a time, got '%s' after '%s'", what, v, *slot);
     *slot = v;
     return -1;
+}
+
+char *cli_command_line(const char *name, int argc, char **argv)
+{
+    size_t len = strlen(name) + 8;
+    for (int i = 0; i < argc; i++)
+        len += 4 * strlen(argv[i]) + 3;
+    char *s = malloc(len);
+    if (!s)
+        return NULL;
+    size_t n = (size_t)snprintf(s, len, "squall %s", name);
+    for (int i = 0; i < argc; i++) {
+        const char *a = argv[i];
+        bool plain = a[0] && strspn(a, "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ"
+                                       "0123456789-_./=:,@%+") == strlen(a);
+        s[n++] = ' ';
+        if (plain) {
+            n += (size_t)snprintf(s + n, len - n, "%s", a);
+            continue;
+        }
+        s[n++] = '\'';
+        for (; *a; a++)
+            n += (size_t)snprintf(s + n, len - n, *a == '\'' ? "'\\''" : "%c", *a);
+        s[n++] = '\'';
+        s[n] = '\0';
+    }
+    return s;
 }

@@ -110,41 +110,13 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
     return -1;
 }
 
-/* "squall NAME ARGS...", each word quoted for a POSIX shell when it needs to be. */
-static char *command_line(const char *name, int argc, char **argv)
-{
-    size_t len = strlen(name) + 8;
-    for (int i = 0; i < argc; i++)
-        len += 4 * strlen(argv[i]) + 3;
-    char *s = malloc(len);
-    if (!s)
-        return NULL;
-    size_t n = (size_t)snprintf(s, len, "squall %s", name);
-    for (int i = 0; i < argc; i++) {
-        const char *a = argv[i];
-        bool plain = a[0] && strspn(a, "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ"
-                                           "0123456789-_./=:,@%+") == strlen(a);
-        s[n++] = ' ';
-        if (plain) {
-            n += (size_t)snprintf(s + n, len - n, "%s", a);
-            continue;
-        }
-        s[n++] = '\'';
-        for (; *a; a++)
-            n += (size_t)snprintf(s + n, len - n, *a == '\'' ? "'\\''" : "%c", *a);
-        s[n++] = '\'';
-        s[n] = '\0';
-    }
-    return s;
-}
-
 int cli_run_args_init(cli_run_args_t *ra, const cli_cmd_t *cmd, int argc, char **argv)
 {
     memset(ra, 0, sizeof(*ra));
     ra->sets = calloc((size_t)argc + 1, sizeof(*ra->sets));
     ra->copies = calloc((size_t)argc + 1, sizeof(*ra->copies));
     ra->texts = calloc((size_t)argc + 1, sizeof(*ra->texts));
-    ra->line = command_line(cmd->name, argc, argv);
+    ra->line = cli_command_line(cmd->name, argc, argv);
     ra->ro.grace_ns = INT64_C(2000000000);
     ra->ro.overrides = ra->texts;
     ra->ro.command_line = ra->line;

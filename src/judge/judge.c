@@ -234,7 +234,8 @@ static int judge_class(judge_t *j, size_t oi, const plan_objective_t *ob, const 
         gather(res, cls, watch, phases[i].name, metric, phases, n_phases, t);
         if (t->answered == 0 && !ob->phase.name)
             continue;
-        rc = check_one(j, oi, ob, text, kept, phases[i].name, t);
+        const char *scope = keep(j, phases[i].name);
+        rc = scope ? check_one(j, oi, ob, text, kept, scope, t) : SQ_ENOMEM;
     }
     if (rc == 0 && !ob->phase.name) {
         gather(res, cls, watch, NULL, metric, phases, n_phases, t);

@@ -1,6 +1,7 @@
 /* series.csv: one row per phase x class x second, percentiles from that second's histogram. A
  * second in which a phase ends has rows for both phases, each holding only its own requests (a
- * request belongs to the phase that started it); the teardown has rows of its own. */
+ * request belongs to the phase that started it); the teardown has rows of its own. Each row's
+ * histogram goes to series-hist.csv, so that a merge can give merged seconds exact percentiles. */
 #include <errno.h>
 #include <stdlib.h>
 #include <string.h>
@@ -11,7 +12,7 @@
 typedef struct {
     const plan_t *plan;
     out_t *o;
-    FILE *f;
+    FILE *f, *fh;            /* series.csv, series-hist.csv */
     int64_t real_minus_mono; /* CLOCK_REALTIME - CLOCK_MONOTONIC, read at each phase's start */
 } series_t;
 
@@ -20,6 +21,8 @@ static void series_free(void *self)
     series_t *s = self;
     if (s->f)
         fclose(s->f);
+    if (s->fh)
+        fclose(s->fh);
     free(s);
 }
 
@@ -34,21 +37,25 @@ static int series_new(const obs_cfg_t *cfg, void **self)
     return 0;
 }
 
+static FILE *open_csv(series_t *s, const char *dir, const char *name, const char *header)
+{
+    char path[4096];
+    snprintf(path, sizeof path, "%s/%s", dir, name);
+    FILE *f = fopen(path, "w");
+    if (!f)
+        out_error(s->o, "cannot write %s: %s", path, strerror(errno));
+    else
+        fprintf(f, "%s\n", header);
+    return f;
+}
+
 static int series_open(void *self, const char *dir)
 {
     series_t *s = self;
-    char path[4096];
-    snprintf(path, sizeof path, "%s/series.csv", dir);
-    if (!(s->f = fopen(path, "w"))) {
-        out_error(s->o, "cannot write %s: %s", path, strerror(errno));
-        return SQ_EIO;
-    }
-    /* Times in milliseconds; `second` counts from the start of the run. Columns are only ever
-     * added at the end (readers find them by name). */
-    fputs("second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,"
-          "planned,unix_ms,p999_ms\n",
-          s->f);
-    return 0;
+    /* Times in milliseconds; `second` counts from the start of the run. */
+    s->f = open_csv(s, dir, RESULTS_SERIES_FILE, RESULTS_SERIES_HEADER);
+    s->fh = s->f ? open_csv(s, dir, RESULTS_SERIES_HIST_FILE, RESULTS_SERIES_HIST_HEADER) : NULL;
+    return s->f && s->fh ? 0 : SQ_EIO;
 }
 
 /* Wall-clock time of the rows: the monotonic clock's offset, taken as each phase starts. */
@@ -66,7 +73,7 @@ static double ms(int64_t ns)
 static void series_second(void *self, const obs_second_t *w)
 {
     series_t *s = self;
-    if (!s->f)
+    if (!s->f || !s->fh)
         return;
     for (size_t i = 0; i < w->n_cells; i++) {
         const obs_cell_t *c = &w->cells[i];
@@ -80,8 +87,16 @@ static void series_second(void *self, const obs_second_t *w)
                 any ? ms(hist_value_at(h, 99)) : 0.0, any ? ms(hist_max(h)) : 0.0, c->planned,
                 (long long)((w->start_ns + s->real_minus_mono) / 1000000),
                 any ? ms(hist_value_at(h, 99.9)) : 0.0);
+        /* Out of memory, the row has no histogram: a merge then marks its percentiles unknown. */
+        char *text = NULL;
+        if (any && hist_encode(h, &text) == 0)
+            fprintf(s->fh, "%lld,%s,%s,%lld,%s\n", (long long)w->index,
+                    obs_phase_name(s->plan, c->phase), obs_class_name(s->plan, c->cls),
+                    (long long)((w->start_ns + s->real_minus_mono) / 1000000), text);
+        free(text);
     }
     fflush(s->f);
+    fflush(s->fh);
 }
 
 static int series_finish(void *self, results_t *res, const char *dir)
@@ -90,7 +105,9 @@ static int series_finish(void *self, results_t *res, const char *dir)
     (void)dir;
     series_t *s = self;
     int rc = s->f && fclose(s->f) != 0 ? SQ_EIO : 0;
-    s->f = NULL;
+    if (s->fh && fclose(s->fh) != 0)
+        rc = SQ_EIO;
+    s->f = s->fh = NULL;
     return rc;
 }
 

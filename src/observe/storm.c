@@ -219,6 +219,31 @@ static int64_t rank(const int64_t *v, size_t n, double p)
     return v[k - 1];
 }
 
+/* A histogram's encoding as a JSON string (NULL when out of memory: the key is left out). */
+static json_t *hist_text(const hist_t *h)
+{
+    char *text;
+    if (hist_encode(h, &text) != 0)
+        return NULL;
+    json_t *s = json_string(text);
+    free(text);
+    return s;
+}
+
+/* The response times of a tick as an encoded histogram, so that a merge of shards can give a
+ * merged tick the percentiles of all its requests. */
+static json_t *encoded(const int64_t *resp, size_t n)
+{
+    hist_t *h;
+    if (hist_new_ns(&h) != 0)
+        return NULL;
+    for (size_t i = 0; i < n; i++)
+        hist_record(h, resp[i]);
+    json_t *s = hist_text(h);
+    hist_free(h);
+    return s;
+}
+
 /* One tick's figures from its requests (indices into a->v). */
 static json_t *tick_json(const saction_t *a, int64_t k, const size_t *idx, size_t n, int64_t *buf)
 {
@@ -237,19 +262,21 @@ static json_t *tick_json(const saction_t *a, int64_t k, const size_t *idx, size_
         bins[b < 0 ? 0 : b >= BINS ? BINS - 1 : b]++;
     }
     qsort(resp, n, sizeof(*resp), cmp_i64);
+    json_t *enc = encoded(resp, n);
     int64_t tick_t = a->base + a->offset + k * a->period;
     json_t *jb = json_array();
     for (int b = 0; b < BINS; b++)
         json_array_append_new(jb, json_integer(bins[b]));
     int peak = ns ? peak_in_flight(sent, done, ns) : 0; /* sorts sent and done */
     int64_t last_done = ns ? done[ns - 1] : 0;
-    return json_pack(
-        "{s:I,s:I,s:I,s:I,s:I,s:i,s:I,s:I,s:I,s:I,s:o}", "t_ns", (json_int_t)(tick_t - a->base),
-        "requests", (json_int_t)n, "written", (json_int_t)ns, "dispatch_spread_ns",
-        (json_int_t)(ns ? sent[ns - 1] - sent[0] : 0), "first_written_ns",
-        (json_int_t)(ns ? sent[0] - tick_t : 0), "peak_in_flight", peak, "burst_ns",
-        (json_int_t)(ns ? last_done - sent[0] : 0), "p50_ns", (json_int_t)rank(resp, n, 50),
-        "p99_ns", (json_int_t)rank(resp, n, 99), "max_ns", (json_int_t)resp[n - 1], "bins", jb);
+    return json_pack("{s:I,s:I,s:I,s:I,s:I,s:i,s:I,s:I,s:I,s:I,s:o,s:o*}", "t_ns",
+                     (json_int_t)(tick_t - a->base), "requests", (json_int_t)n, "written",
+                     (json_int_t)ns, "dispatch_spread_ns",
+                     (json_int_t)(ns ? sent[ns - 1] - sent[0] : 0), "first_written_ns",
+                     (json_int_t)(ns ? sent[0] - tick_t : 0), "peak_in_flight", peak, "burst_ns",
+                     (json_int_t)(ns ? last_done - sent[0] : 0), "p50_ns",
+                     (json_int_t)rank(resp, n, 50), "p99_ns", (json_int_t)rank(resp, n, 99),
+                     "max_ns", (json_int_t)resp[n - 1], "bins", jb, "hist", enc);
 }
 
 /* Requests grouped by tick: order[] holds indices of a->v, start[k]..start[k+1] tick k's. */
@@ -315,9 +342,10 @@ static json_t *action_json(const storm_t *s, const saction_t *a)
 
 static json_t *hist_json(const hist_t *h)
 {
-    return json_pack("{s:I,s:I,s:I,s:I,s:I}", "count", (json_int_t)hist_count(h), "p50_ns",
+    return json_pack("{s:I,s:I,s:I,s:I,s:I,s:o*}", "count", (json_int_t)hist_count(h), "p50_ns",
                      (json_int_t)hist_value_at(h, 50), "p90_ns", (json_int_t)hist_value_at(h, 90),
-                     "p99_ns", (json_int_t)hist_value_at(h, 99), "max_ns", (json_int_t)hist_max(h));
+                     "p99_ns", (json_int_t)hist_value_at(h, 99), "max_ns", (json_int_t)hist_max(h),
+                     "hist", hist_text(h));
 }
 
 static json_t *storms_json(const storm_t *s)
@@ -367,14 +395,13 @@ static void csv_action(FILE *f, const char *phase, json_t *a)
     }
 }
 
-/* DIR/storms.csv: one row per fleet tick; tick_s counts from the start of its phase. */
-static int storms_csv(const storm_t *s, json_t *storms, const char *dir)
+int obs_storms_csv(json_t *storms, const char *dir, out_t *o)
 {
     char path[4096];
     snprintf(path, sizeof path, "%s/storms.csv", dir);
     FILE *f = fopen(path, "w");
     if (!f) {
-        out_error(s->o, "cannot write %s: %s", path, strerror(errno));
+        out_error(o, "cannot write %s: %s", path, strerror(errno));
         return SQ_EIO;
     }
     fputs("phase,class,timing,tick_s,requests,written,dispatch_spread_ms,first_written_ms,"
@@ -401,7 +428,7 @@ static int storm_finish(void *self, results_t *res, const char *dir)
     json_t *sec = storms_json(s);
     if (!sec || results_set_section(res, "storms", sec))
         return SQ_ENOMEM;
-    return dir ? storms_csv(s, results_section(res, "storms"), dir) : 0;
+    return dir ? obs_storms_csv(results_section(res, "storms"), dir, s->o) : 0;
 }
 
 static void storm_free(void *self)

@@ -96,7 +96,9 @@ int cmp_seconds(const report_series_t *s, const char *phase, const char *cls, en
         const report_row_t *r = report_series_at(s, i);
         if (r->completed <= 0 || strcmp(r->phase, phase) || strcmp(r->cls, cls))
             continue;
-        if (push(out, column(r, col)))
+        /* A merged second without its inputs' histograms has unknown percentiles (nan). */
+        double v = column(r, col);
+        if (!isnan(v) && push(out, v))
             return SQ_ENOMEM;
     }
     return 0;

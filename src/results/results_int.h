@@ -1,4 +1,4 @@
-/* The results model's layout, shared by src/report/results*.c only. */
+/* The results model's layout, shared by the files of src/results/ only. */
 #ifndef SQUALL_REPORT_RESULTS_INT_H
 #define SQUALL_REPORT_RESULTS_INT_H
 
@@ -33,5 +33,25 @@ bool results_parse_time(const char *s, int64_t *unix_ms);
 /* The "meta" object of results.json for r (inputs included when merged); NULL when out of
  * memory. The caller owns the reference. */
 json_t *results_meta_json(const results_t *r);
+
+/* ---- merge: the inputs' sections combined once every input was added -------------------- */
+
+/* One input of a merge as its entry in meta.inputs keeps it. */
+typedef struct {
+    const char *name;
+    int64_t start_ms; /* the wall clock at its second 0 (0 unknown) */
+    json_t *sections; /* borrowed from the entry */
+} results_input_t;
+
+/* The inputs of merge r from its meta.inputs (*n of them; malloc'd, NULL when out of memory). */
+results_input_t *results_inputs_of(const results_t *r, size_t *n);
+/* The wall-clock start (ms) of phase `name` in input in, from its "phases" section; false when
+ * the phase did not run there or the input has no such section. */
+bool results_input_phase_ms(const results_input_t *in, const char *name, double *ms);
+/* The earliest wall-clock start (ms) of phase name over n inputs; false when it ran in none. */
+bool results_first_phase_ms(const results_input_t *in, size_t n, const char *name, double *ms);
+/* The "storms" sections of n inputs combined per tick instant (results_storms.c); a new
+ * reference, NULL when no input has one or out of memory (*rc says which). */
+json_t *results_merge_storms(const results_input_t *in, size_t n, int *rc);
 
 #endif

@@ -64,8 +64,15 @@ static int judge(run_t *r, const judge_phase_t *ph, judge_t **j)
     for (size_t i = 0; i < r->plan->n_reqs; i++)
         if (r->plan->reqs[i].kind == PLAN_WATCH)
             watches[jo.n_watch_classes++] = r->plan->reqs[i].name;
-    int rc = judge_evaluate(r->plan->objectives, r->plan->n_objectives, r->res, ph,
-                            judged_phases(r), &jo, j);
+    judge_inputs_t in = {.objectives = r->plan->objectives,
+                         .n_objectives = r->plan->n_objectives,
+                         .accept = r->plan->accept,
+                         .opts = jo,
+                         .phases = ph,
+                         .n_phases = judged_phases(r)};
+    int rc = judge_evaluate(in.objectives, in.n_objectives, r->res, ph, in.n_phases, &jo, j);
+    if (rc == 0) /* what the verdict rests on, so that a merge judges it the same way */
+        rc = results_set_section(r->res, JUDGE_INPUTS_SECTION, judge_inputs_json(&in));
     if (rc == 0 && r->start_ns)
         rc = results_set_section(r->res, "phases", phases_json(r, ph));
     if (rc == 0)

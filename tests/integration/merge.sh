@@ -3,7 +3,8 @@
 # (tests/unit/test_results.c --write-fixtures) from one seeded sample stream, merged by the
 # real binary, must equal the file that recorded every sample itself (same counters, and
 # byte-identical histogram encodings, i.e. the same count in every bucket). Also checks the
-# refusals and exit codes (README "Exit codes": 2 usage, 6 input/output).
+# refusals and exit codes (README "Exit codes": 2 usage, 6 input/output, 7 inconclusive: the
+# fixtures carry no judgement section, so the merge has nothing to judge them on).
 set -uo pipefail
 helper="$BUILDDIR/tests/unit/test-results"
 if [ ! -x "$helper" ]; then
@@ -18,9 +19,11 @@ fail() { echo "FAIL: $*"; exit 1; }
 
 out=$("$SQUALL" merge "$tmp/a" "$tmp/b/results.json" -o "$tmp/merged" 2>"$tmp/err")
 rc=$?
-[ $rc -eq 0 ] || fail "merge exited $rc: $(cat "$tmp/err")"
+[ $rc -eq 7 ] || fail "merge exited $rc, expected 7 (nothing to judge): $(cat "$tmp/err")"
 echo "$out" | grep -q "^merged 2 inputs: " || fail "unexpected summary: $out"
-echo "ok: merge of two shards exited 0: $out"
+echo "$out" | grep -q "^verdict: INCONCLUSIVE" || fail "no INCONCLUSIVE verdict: $out"
+echo "$out" | grep -q "the inputs carry no judgement section" || fail "no reason given: $out"
+echo "ok: merge of two shards without a judgement exited 7 (INCONCLUSIVE, not a pass)"
 
 /usr/bin/python3 - "$tmp/merged/results.json" "$tmp/all/results.json" "$tmp/a/results.json" \
     "$tmp/b/results.json" <<'PY' || fail "merged file differs from the all-samples file"
@@ -53,8 +56,8 @@ PY
 "$SQUALL" merge "$tmp/a" "$tmp/b" -o "$tmp/merged" >/dev/null 2>"$tmp/err"
 [ $? -eq 2 ] || fail "merging over an existing results.json without --force should exit 2"
 grep -q "pass --force" "$tmp/err" || fail "no hint about --force: $(cat "$tmp/err")"
-"$SQUALL" merge "$tmp/a" "$tmp/b" -o "$tmp/merged" --force >/dev/null 2>"$tmp/err" ||
-    fail "--force did not replace: $(cat "$tmp/err")"
+"$SQUALL" merge "$tmp/a" "$tmp/b" -o "$tmp/merged" --force >/dev/null 2>"$tmp/err"
+[ $? -eq 7 ] || fail "--force did not replace: $(cat "$tmp/err")"
 echo "ok: existing output refused (exit 2) unless --force"
 
 "$SQUALL" merge "$tmp/a" "$tmp/coarse" -o "$tmp/m2" >/dev/null 2>"$tmp/err"

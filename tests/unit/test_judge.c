@@ -328,6 +328,177 @@ static void test_outcome(void **state)
     results_free(r);
 }
 
+/* The plan's objectives as data: a plan written by hand (the values below are its text) is
+ * loaded by plan_load, written as the "judgement" section, parsed by Python's json module
+ * (RFC 8259) and read back; the read objectives equal the plan's field by field, write the same
+ * section again, and judge the fixture exactly as the plan's own objectives do. */
+static const char judged_plan[] =
+    "target: {url: \"http://127.0.0.1:9\"}\n"
+    "requests:\n"
+    "  read: {kind: get, path: /v1/a}\n"
+    "  write: {kind: write, method: PUT, path: /v1/b, body: '{}'}\n"
+    "  follow: {kind: watch, path: \"/v1/c?watch=1\"}\n"
+    "phases:\n"
+    "  - {name: warm, rate: 10/s, duration: 1s, mix: {write: 1}}\n"
+    "  - {name: steady, rate: 10/s, duration: 2s, mix: {read: 1}, watches: {follow: 1}}\n"
+    "objectives:\n"
+    "  - {class: read, p99: 10ms}\n"
+    "  - {class: read, phase: steady, metric: service, p99.9: 2.5s}\n"
+    "  - {class: \"*\", error-rate: 0.5%}\n"
+    "  - {class: write, phase: warm, min-rate: 90/s}\n"
+    "  - {class: follow, metric: propagation, max: 250us}\n"
+    "accept: [few-samples, stopped-early]\n";
+
+static plan_t *load_judged_plan(void)
+{
+    char path[] = "/tmp/squall-judge-plan-XXXXXX";
+    int fd = mkstemp(path);
+    assert_true(fd >= 0);
+    assert_int_equal(write(fd, judged_plan, strlen(judged_plan)), (ssize_t)strlen(judged_plan));
+    close(fd);
+    out_t *o = out_new_capture();
+    plan_t *p = NULL;
+    int rc = plan_load(path, NULL, 0, &p, o);
+    unlink(path);
+    if (rc)
+        fprintf(stderr, "%s", out_captured_diag(o));
+    out_free(o);
+    assert_int_equal(rc, 0);
+    return p;
+}
+
+static void same_objective(const plan_objective_t *a, const plan_objective_t *b)
+{
+    assert_string_equal(a->cls.name ? a->cls.name : "*", b->cls.name);
+    if (a->phase.name)
+        assert_string_equal(a->phase.name, b->phase.name);
+    else
+        assert_null(b->phase.name);
+    assert_int_equal(a->metric, b->metric);
+    assert_int_equal(a->limit, b->limit);
+    assert_true(a->percentile == b->percentile);
+    assert_int_equal(a->max_ns, b->max_ns);
+    assert_true(a->value == b->value);
+}
+
+/* Python's json module reads the section as the plan's text says. */
+static void python_reads(const json_t *sec)
+{
+    char path[] = "/tmp/squall-judgement-XXXXXX";
+    int fd = mkstemp(path);
+    assert_true(fd >= 0);
+    FILE *f = fdopen(fd, "w");
+    assert_int_equal(json_dumpf(sec, f, JSON_REAL_PRECISION(17)), 0);
+    fclose(f);
+    char cmd[1024];
+    snprintf(
+        cmd, sizeof cmd,
+        "/usr/bin/python3 -c 'import json; d = json.load(open(\"%s\")); o = d[\"objectives\"]; "
+        "assert [x[\"class\"] for x in o] == [\"read\", \"read\", \"*\", \"write\", \"follow\"]; "
+        "assert (o[0][\"percentile\"], o[0][\"max_ms\"], o[0][\"phase\"]) == (99, 10, None); "
+        "assert (o[1][\"percentile\"], o[1][\"max_ms\"], o[1][\"metric\"]) == "
+        "(99.9, 2500, \"service\"); "
+        "assert (o[2][\"limit\"], o[2][\"value\"]) == (\"error-rate\", 0.005); "
+        "assert (o[3][\"limit\"], o[3][\"value\"], o[3][\"phase\"]) == (\"min-rate\", 90, "
+        "\"warm\"); "
+        "assert (o[4][\"percentile\"], o[4][\"max_ms\"]) == (100, 0.25); "
+        "assert d[\"accept\"] == [\"few-samples\", \"stopped-early\"]; "
+        "assert d[\"watch_classes\"] == [\"follow\"] and d[\"phases\"] == [\"warm\", "
+        "\"steady\"]; assert d[\"default_error_rate\"] == 0.01'",
+        path);
+    int rc = system(cmd);
+    unlink(path);
+    assert_int_equal(rc, 0);
+}
+
+static void test_objectives_round_trip(void **state)
+{
+    (void)state;
+    plan_t *p = load_judged_plan();
+    const char *watch[] = {"follow"};
+    judge_inputs_t in = {
+        .objectives = p->objectives,
+        .n_objectives = p->n_objectives,
+        .accept = p->accept,
+        .opts = {.default_error_rate = 0.01, .watch_classes = watch, .n_watch_classes = 1},
+        .phases = phases,
+        .n_phases = 2};
+    json_t *sec = judge_inputs_json(&in);
+    assert_non_null(sec);
+    python_reads(sec);
+    judge_inputs_t back;
+    char err[200] = "";
+    assert_int_equal(judge_inputs_init_json(&back, sec, err, sizeof err), 0);
+    assert_int_equal(back.n_objectives, 5);
+    for (size_t i = 0; i < 5; i++)
+        same_objective(&p->objectives[i], &back.objectives[i]);
+    assert_int_equal(back.accept, p->accept);
+    assert_true(back.opts.default_error_rate == 0.01);
+    assert_int_equal(back.opts.n_watch_classes, 1);
+    assert_string_equal(back.opts.watch_classes[0], "follow");
+    assert_int_equal(back.n_phases, 2);
+    assert_string_equal(back.phases[1].name, "steady");
+    json_t *again = judge_inputs_json(&back);
+    assert_true(json_equal(sec, again));
+    /* Both judge the fixture alike, check by check. */
+    results_t *r = fixture();
+    judge_t *a, *b;
+    assert_int_equal(judge_evaluate(p->objectives, 5, r, phases, 2, &in.opts, &a), 0);
+    assert_int_equal(judge_evaluate(back.objectives, 5, r, phases, 2, &back.opts, &b), 0);
+    judge_inputs_close(&back);
+    assert_true(judge_check_count(a) > 5);
+    assert_int_equal(judge_check_count(a), judge_check_count(b));
+    for (size_t i = 0; i < judge_check_count(a); i++) {
+        const judge_check_t *x = judge_check_at(a, i), *y = judge_check_at(b, i);
+        assert_string_equal(x->text, y->text);
+        assert_string_equal(x->scope, y->scope);
+        assert_string_equal(x->cls, y->cls);
+        assert_true(x->observed == y->observed && x->threshold == y->threshold);
+        assert_int_equal(x->verdict, y->verdict);
+    }
+    judge_free(a);
+    judge_free(b);
+    results_free(r);
+    json_decref(again);
+    json_decref(sec);
+    plan_free(p);
+}
+
+/* A malformed section is refused with the key that is wrong. */
+static void test_inputs_refused(void **state)
+{
+    (void)state;
+    static const struct {
+        const char *json, *says;
+    } bad[] = {
+        {"{\"objectives\": [{\"class\": \"a\", \"metric\": \"speed\", \"limit\": \"percentile\"}], "
+         "\"accept\": [], \"watch_classes\": [], \"phases\": [], \"default_error_rate\": 0.01}",
+         "judgement.objectives[0]: unknown metric"},
+        {"{\"objectives\": [{\"class\": \"a\", \"metric\": \"response\", \"limit\": "
+         "\"percentile\", \"percentile\": 120, \"max_ms\": 1}], \"accept\": [], "
+         "\"watch_classes\": [], \"phases\": [], \"default_error_rate\": 0.01}",
+         "judgement.objectives[0]: expected percentile (0, 100] and max_ms >= 0"},
+        {"{\"objectives\": [], \"accept\": [\"bored\"], \"watch_classes\": [], \"phases\": [], "
+         "\"default_error_rate\": 0.01}",
+         "judgement.accept[0]: unknown reason"},
+        {"{\"objectives\": [], \"accept\": [], \"watch_classes\": [], \"phases\": [3], "
+         "\"default_error_rate\": 0.01}",
+         "judgement: watch_classes and phases must be lists of names"},
+        {"{\"objectives\": [], \"accept\": [], \"watch_classes\": [], \"phases\": []}",
+         "judgement.default_error_rate: expected a fraction in [0, 1]"},
+    };
+    for (size_t i = 0; i < sizeof bad / sizeof bad[0]; i++) {
+        json_t *sec = json_loads(bad[i].json, 0, NULL);
+        assert_non_null(sec);
+        judge_inputs_t in;
+        char err[200] = "";
+        assert_int_equal(judge_inputs_init_json(&in, sec, err, sizeof err), SQ_EPARSE);
+        assert_string_equal(err, bad[i].says);
+        assert_null(in.mem);
+        json_decref(sec);
+    }
+}
+
 int main(void)
 {
     if (access("/usr/bin/python3", X_OK) != 0 ||
@@ -341,6 +512,8 @@ int main(void)
         cmocka_unit_test(test_no_data_and_wildcard),
         cmocka_unit_test(test_watches_judged_on_stream_attempts),
         cmocka_unit_test(test_outcome),
+        cmocka_unit_test(test_objectives_round_trip),
+        cmocka_unit_test(test_inputs_refused),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
