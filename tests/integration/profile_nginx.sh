@@ -85,6 +85,9 @@ phases:
     mix: {read-gateway: 250, list-site: 1}
     fleet: {agents: 300, every: 10s, timing: aligned, send: renew}
     watches: {follow-site: 20}
+# This test is about the log nginx writes, not a verdict: 300 renewals at once on 64
+# connections may wait over 10 ms for one in a tick (generator-bound, exit 7), which it accepts.
+accept: [generator-bound]
 YAML
 run_plan "$T/run" "$T/known.yaml" --no-brakes
 expect "the known plan ran against nginx (exit $RUN_RC)" test "$RUN_RC" = 0
