@@ -12,8 +12,12 @@
 #include "squall/err.h"
 
 /* The figures are ours, chosen so that a healthy run on a 2-core machine (schedule lag p99
- * ~1.7 ms at 10k/s, measured in tools/bench) stays clear of them. */
-#define LAG_P99_NS    (10 * INT64_C(1000000)) /* schedule lag p99 in the second */
+ * ~1.7 ms at 10k/s, measured in tools/bench) stays clear of them. Falling behind is judged on
+ * the lag's p90, not its tail: a pause of the machine delays the few requests due during it
+ * and squall catches up, so the target is still offered the second's load (at 100/s a 10 ms
+ * pause moves p99, not p90); a tenth of a second's requests late by over 10 ms is a
+ * generator that cannot keep up (CPU starvation, a burst it takes too long to write). */
+#define LAG_P90_NS    (10 * INT64_C(1000000)) /* schedule lag p90 in the second */
 #define QUEUE_WAIT_NS (10 * INT64_C(1000000)) /* a request waited for a free connection */
 #define BUSY_FRACTION 0.90                    /* the loop spent this much in callbacks */
 /* Connection-bound when the plan's rate times the target's service time (Little's law,
@@ -89,9 +93,11 @@ enum obs_bound obs_health_second(obs_health_t *h, const eng_stats_t *st,
     double busy = st->window_ns > 0 ? (double)st->loop_busy_ns / (double)st->window_ns : 0;
     peaks(h, st, busy);
     enum obs_bound b = OBS_BOUND_NONE;
-    if (in->lag_p99_ns > LAG_P99_NS) {
-        snprintf(why, cap, "schedule lag p99 %.1f ms: squall fell behind its schedule",
-                 (double)in->lag_p99_ns / 1e6);
+    if (in->lag_p90_ns > LAG_P90_NS) {
+        snprintf(why, cap,
+                 "schedule lag p90 %.1f ms: squall fell behind its schedule (a tenth of the "
+                 "second's requests started over 10 ms late)",
+                 (double)in->lag_p90_ns / 1e6);
         b = OBS_BOUND_GENERATOR;
     } else if (busy > BUSY_FRACTION) {
         snprintf(why, cap, "event loop %.0f%% busy: squall is short of CPU", busy * 100);
@@ -131,7 +137,7 @@ static json_t *bound_json(const obs_bound_list_t *b)
 
 json_t *obs_health_json(const obs_health_t *h)
 {
-    json_t *lim = json_pack("{s:f, s:f, s:f, s:f}", "lag_p99_ms", (double)LAG_P99_NS / 1e6,
+    json_t *lim = json_pack("{s:f, s:f, s:f, s:f}", "lag_p90_ms", (double)LAG_P90_NS / 1e6,
                             "queue_wait_ms", (double)QUEUE_WAIT_NS / 1e6, "loop_busy_fraction",
                             BUSY_FRACTION, "busy_share", BUSY_SHARE);
     json_t *g = json_object();

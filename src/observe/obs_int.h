@@ -21,7 +21,7 @@ json_t *obs_brakes_section(const void *brakes);
 typedef struct {
     int64_t second;        /* its index */
     bool loading;          /* the plan's phases were sending (only then does it count) */
-    int64_t lag_p99_ns;    /* schedule lag p99 of the second */
+    int64_t lag_p90_ns;    /* schedule lag p90 of the second */
     int64_t svc_sum_ns, svc_n; /* service times of the second's completions */
     double planned_per_s;  /* the sources' plan (NAN: none, e.g. a closed loop) */
     double completed_per_s;

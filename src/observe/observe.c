@@ -361,7 +361,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
     obs_health_in_t in = {
         .second = l->sec_index,
         .loading = loading,
-        .lag_p99_ns = hist_value_at(l->sec_lag, 99),
+        .lag_p90_ns = hist_value_at(l->sec_lag, 90),
         .svc_sum_ns = l->svc_sum_ns,
         .svc_n = l->svc_n,
         .planned_per_s = l->unplanned ? NAN : l->planned / s.secs,
