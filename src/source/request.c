@@ -20,6 +20,8 @@ typedef struct req {
     int64_t first_intended_ns; /* of page 1, for the whole-list sample */
     int64_t bytes_in, bytes_out;
     char *base_path; /* lists: page 1's path for the following pages; writes: the object */
+    const char *method; /* a replayed request's own method (NULL: the class's) */
+    bool one_page;      /* a replayed list: the log holds its further pages */
     struct req *next_free;
 } req_t;
 
@@ -239,7 +241,7 @@ static int submit(src_issuer_t *is, req_t *q, const char *path, int64_t intended
 {
     const src_class_t *c = &is->classes[q->cls];
     eng_req_t er = {
-        .method = c->pr->kind == PLAN_WRITE ? c->pr->write.method : "GET",
+        .method = q->method ? q->method : c->pr->kind == PLAN_WRITE ? c->pr->write.method : "GET",
         .path = path,
         .headers = c->headers,
         .n_headers = c->n_headers,
@@ -317,7 +319,7 @@ static void on_done(void *user, const eng_result_t *res)
     q->pages++;
     q->bytes_in += res->bytes_in;
     q->bytes_out += res->bytes_out;
-    if (is->classes[q->cls].paginate) {
+    if (is->classes[q->cls].paginate && !q->one_page) {
         if (res->outcome == ENG_OUT_S2XX && next_page(is, q, res))
             return;
         d.whole = true;
@@ -373,6 +375,42 @@ int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req)
                  .first_intended_ns = req->intended_ns};
     bool track = c->paginate || c->pr->kind == PLAN_WRITE;
     if (track && !(q->base_path = strdup(is->path_buf.data))) {
+        req_give(is, q);
+        return SQ_ENOMEM;
+    }
+    rc = submit(is, q, path, req->intended_ns);
+    if (rc)
+        req_give(is, q);
+    return rc;
+}
+
+int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
+                 const char *path)
+{
+    src_class_t *c = &is->classes[req->cls];
+    if (c->pr->kind == PLAN_WRITE && !c->body)
+        return SQ_EINVAL;
+    tmpl_ctx_t ctx = {
+        .agent = req->agent,
+        .seq = c->seq++,
+        .phase = is->plan->phases[from->phase].name,
+        .rng = &is->rng,
+    };
+    int rc = c->body ? tmpl_render(c->body, &ctx, &is->body_buf) : 0;
+    if (rc)
+        return rc;
+    req_t *q = req_take(is);
+    if (!q)
+        return SQ_ENOMEM;
+    *q = (req_t){.is = is,
+                 .from = from,
+                 .cls = req->cls,
+                 .client = req->client,
+                 .agent = req->agent,
+                 .first_intended_ns = req->intended_ns,
+                 .method = method,
+                 .one_page = true};
+    if (c->pr->kind == PLAN_WRITE && !(q->base_path = strdup(path))) {
         req_give(is, q);
         return SQ_ENOMEM;
     }
