@@ -16,6 +16,7 @@
 #include <microhttpd.h>
 #include <stddef.h>
 #include <stdint.h>
+#include <stdio.h>
 
 #include "squall/hist.h"
 #include "squall/rng.h"
@@ -177,11 +178,22 @@ struct srv_server {
     srv_req_t *held; /* suspended requests (stalled, delayed, queued), for shutdown */
     srv_req_t *queue_head, *queue_tail; /* waiting for an in-flight slot, FIFO */
     srv_stream_t *all_streams;
+    FILE *access_log; /* --access-log, or NULL */
 };
 
 struct server {
     srv_server_t sv;
 };
+
+/* access.c: the access log (the connection's request target and status, kept per connection). */
+typedef struct srv_conn_log srv_conn_log_t;
+void srv_access_conn(void *cls, struct MHD_Connection *conn, void **socket_context,
+                     enum MHD_ConnectionNotificationCode code);
+void *srv_access_uri(void *cls, const char *uri, struct MHD_Connection *conn);
+void srv_access_status(struct MHD_Connection *conn, unsigned status);
+/* One line for a request that ended: received at wall_ns (CLOCK_REALTIME), dur_ns long. */
+void srv_access_write(srv_server_t *sv, struct MHD_Connection *conn, const char *method,
+                      int64_t wall_ns, int64_t dur_ns);
 
 /* http.c */
 enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const char *url,
