@@ -1,6 +1,6 @@
 /* Internals of the embedded server ("the embedded target" to users), shared by the files of
  * src/server/ only. Its layers, each file calling only files to its right (tools/layers checks):
- * server.c -> http.c -> api.c -> stream.c -> reply.c -> report.c -> fault.c -> store.c -> buf.c
+ * server.c -> http.c -> api.c -> stream.c -> reply.c -> report.c -> fault.c -> store.c -> buf.c -> access.c
  *
  * server.c: lifecycle on the libuv loop. http.c: libmicrohttpd's handlers, the request
  * lifecycle, fault steps, admin and report routes. api.c: the /v1/ routes. stream.c: watch

@@ -160,7 +160,7 @@ phases:
 refused missing-log "$base
   read: {kind: get, path: /v1/gateways}
 phases:
-  - {name: yesterday, replay: {log: no-such-access.log}}" "phase 'yesterday' uses replay"
+  - {name: yesterday, replay: {log: no-such-access.log}}" "phase 'yesterday': replay: .*no-such-access.log"
 refused token-unset "target: {url: \"http://127.0.0.1:9\", token: {env: SQUALL_TEST_NO_SUCH_TOKEN}}
 requests:
   read: {kind: get, path: /v1/gateways}
