@@ -298,7 +298,10 @@ static int take(replay_t *s, const alog_record_t *rec)
             continue;
         }
         rp_ent_t e = {.t = t + c * s->pp->replay.offset_ns, .seq = s->seq++, .cls = cls, .copy = c};
-        snprintf(e.method, sizeof e.method, "%s", rec->method);
+        const plan_req_t *pr = &s->ctx.plan->reqs[cls];
+        bool read = !strcmp(rec->method, "GET") || !strcmp(rec->method, "HEAD");
+        snprintf(e.method, sizeof e.method, "%s",
+                 pr->kind == PLAN_WRITE && read ? pr->write.method : rec->method);
         if (!(e.path = strdup(path)))
             return SQ_ENOMEM;
         heap_push(s, e);

@@ -157,7 +157,7 @@ enum rp_verdict rp_rules_judge(const rp_rules_t *r, const alog_record_t *rec, in
     const plan_req_t *pr = &r->plan->reqs[*cls];
     if (pr->kind == PLAN_WATCH)
         return RP_SKIP_WATCH;
-    if ((pr->kind == PLAN_WRITE) == read)
+    if (pr->kind != PLAN_WRITE && !read)
         return RP_SKIP_KIND;
     if (pr->kind == PLAN_WRITE && !pr->write.body)
         return RP_SKIP_WRITE;
