@@ -57,7 +57,9 @@ static void parse_rules(pctx_t *c, yaml_node_t *n, const char *where, const char
         for (int k = 0; k < 2; k++)
             if (!pc_get(c, r, keys[k]))
                 pc_error(c, r, "%s: missing key '%s' (expected %s, got nothing)", wi, keys[k],
-                         k == 0 ? "a regular expression" : key[0] == 'r' ? "a path" : "a class");
+                         k == 0          ? "a regular expression"
+                         : key[0] == 'r' ? "a path"
+                                         : "a class");
         if (pc_str(c, r, "match", wi, &rule.match))
             rule.pos = pc_pos(c, pc_get(c, r, "match"));
         if (key[0] == 'r')
@@ -83,8 +85,8 @@ static void parse_methods(pctx_t *c, yaml_node_t *n, const char *where, plan_pha
             pc_error(c, pc_node(c, *it), "%s: wrong type (expected a method like GET)", w);
             continue;
         }
-        ph->replay.methods = pc_grow(c, ph->replay.methods, &ph->replay.n_methods, 1,
-                                     sizeof(*ph->replay.methods));
+        ph->replay.methods =
+            pc_grow(c, ph->replay.methods, &ph->replay.n_methods, 1, sizeof(*ph->replay.methods));
         if (!c->nomem)
             ph->replay.methods[ph->replay.n_methods - 1] = pmem_strdup(c, t);
     }
@@ -108,10 +110,10 @@ static int implicit_class(pctx_t *c, const char *name, enum plan_kind kind, plan
 
 void plan_parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
-    static const char *const keys[] = {"log",      "speed",   "format",   "fields",  "time-unit",
-                                       "duration-unit", "time-at", "from", "to",      "methods",
-                                       "match",    "rewrite", "classify", "copies",  "offset",
-                                       "spread",   NULL};
+    static const char *const keys[] = {
+        "log",      "speed",  "format", "fields",  "time-unit", "duration-unit",
+        "time-at",  "from",   "to",     "methods", "match",     "rewrite",
+        "classify", "copies", "offset", "spread",  NULL};
     static const char *const spreads[] = {"even", "poisson", NULL};
     char w[200];
     snprintf(w, sizeof w, "%s.replay", where);
@@ -133,16 +135,24 @@ void plan_parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_
         ph->replay.log_opts =
             pc_grow(c, ph->replay.log_opts, &ph->replay.n_log_opts, 1, sizeof(plan_kv_t));
         if (!c->nomem)
-            ph->replay.log_opts[ph->replay.n_log_opts - 1] =
-                (plan_kv_t){.name = log_opts[i], .value = v, .pos = pc_pos(c, pc_get(c, n, log_opts[i]))};
+            ph->replay.log_opts[ph->replay.n_log_opts - 1] = (plan_kv_t){
+                .name = log_opts[i], .value = v, .pos = pc_pos(c, pc_get(c, n, log_opts[i]))};
     }
     if (pc_get(c, n, "fields"))
         parse_fields(c, pc_get(c, n, "fields"), w, ph);
     pc_dur(c, n, "from", w, 0, &ph->replay.from_ns);
     ph->replay.has_to = pc_dur(c, n, "to", w, 1, &ph->replay.to_ns);
+    for (int k = 0; k < 2; k++) {
+        int64_t v = k ? ph->replay.to_ns : ph->replay.from_ns;
+        if (v % 1000000000)
+            pc_error(c, pc_get(c, n, k ? "to" : "from"),
+                     "%s.%s: not whole seconds (expected a time like 10m or 90s, got %.6gs)", w,
+                     k ? "to" : "from", v / 1e9);
+    }
     if (ph->replay.has_to && ph->replay.to_ns <= ph->replay.from_ns)
-        pc_error(c, pc_get(c, n, "to"), "%s.to: not after 'from' (expected more than %.6gs)", w,
-                 ph->replay.from_ns / 1e9);
+        pc_error(c, pc_get(c, n, "to"),
+                 "%s.to: not after 'from' (expected more than %.6gs, got %.6gs)", w,
+                 ph->replay.from_ns / 1e9, ph->replay.to_ns / 1e9);
     if (pc_get(c, n, "methods"))
         parse_methods(c, pc_get(c, n, "methods"), w, ph);
     if (pc_str(c, n, "match", w, &ph->replay.match))

@@ -36,7 +36,8 @@ void srv_access_conn(void *cls, struct MHD_Connection *conn, void **socket_conte
         return;
     const struct sockaddr *sa = ci->client_addr;
     if (sa->sa_family == AF_INET)
-        inet_ntop(AF_INET, &((const struct sockaddr_in *)sa)->sin_addr, c->client, sizeof c->client);
+        inet_ntop(AF_INET, &((const struct sockaddr_in *)sa)->sin_addr, c->client,
+                  sizeof c->client);
     else if (sa->sa_family == AF_INET6)
         inet_ntop(AF_INET6, &((const struct sockaddr_in6 *)sa)->sin6_addr, c->client,
                   sizeof c->client);
@@ -91,8 +92,9 @@ void srv_access_write(srv_server_t *sv, struct MHD_Connection *conn, const char 
         return;
     const char *who = c->client[0] ? c->client : "-";
     if (sv->opts.access_log_ndjson) {
-        fprintf(f, "{\"time\":%lld.%06lld,\"method\":\"%s\",\"path\":\"", (long long)(wall_ns / 1000000000),
-                (long long)(wall_ns % 1000000000 / 1000), method);
+        fprintf(f, "{\"time\":%lld.%06lld,\"method\":\"%s\",\"path\":\"",
+                (long long)(wall_ns / 1000000000), (long long)(wall_ns % 1000000000 / 1000),
+                method);
         put_escaped(f, c->uri, true);
         fprintf(f, "\",\"status\":%u,\"duration\":%.6f,\"client\":\"%s\"}\n", c->status,
                 (double)dur_ns / 1e9, who);

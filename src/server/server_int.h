@@ -4,7 +4,7 @@
  *
  * server.c: lifecycle on the libuv loop. http.c: libmicrohttpd's handlers, the request
  * lifecycle, fault steps, admin and report routes. api.c: the /v1/ routes. stream.c: watch
- * streams. reply.c: answers and their counts. report.c: /stats, /metrics, fault counts.
+ * streams. reply.c: answers and their counts. access.c: the access log (--access-log). report.c: /stats, /metrics, fault counts.
  * fault.c: fault settings and draws. store.c: objects, collections, versions, history. buf.c: a
  * growable byte buffer. Where a lower file must reach up it calls a hook installed from above:
  * sv->kick (run libmicrohttpd again soon) and store.on_event (publish a write to watchers).

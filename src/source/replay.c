@@ -12,7 +12,7 @@
 #include "src_int.h"
 #include "squall/err.h"
 
-#define RP_READ_AHEAD 16384             /* requests held ahead of their start at most */
+#define RP_READ_AHEAD 16384               /* requests held ahead of their start at most */
 #define RP_HORIZON_NS INT64_C(1000000000) /* read at most this far past the earliest held */
 #define RP_SEC        INT64_C(1000000000)
 
@@ -102,8 +102,8 @@ static int config(replay_t *s)
         const plan_kv_t *kv = &s->pp->replay.log_opts[i];
         char err[256];
         if (alog_config_set(&s->cfg, kv->name, kv->value, err, sizeof err)) {
-            out_raw(s->ctx.o, OUT_ERROR, "%s:%d:%d: error: replay: %s", kv->pos.file,
-                    kv->pos.line, kv->pos.col, err);
+            out_raw(s->ctx.o, OUT_ERROR, "%s:%d:%d: error: replay: %s", kv->pos.file, kv->pos.line,
+                    kv->pos.col, err);
             return SQ_EINVAL;
         }
     }
@@ -173,8 +173,8 @@ static int first_pass(replay_t *s)
         }
     }
     if (rc < 0)
-        out_raw(s->ctx.o, OUT_ERROR, "%s:%d:%d: error: phase '%s': replay: %s: %s",
-                s->pp->pos.file, s->pp->pos.line, s->pp->pos.col, s->pp->name, s->pp->replay.log,
+        out_raw(s->ctx.o, OUT_ERROR, "%s:%d:%d: error: phase '%s': replay: %s: %s", s->pp->pos.file,
+                s->pp->pos.line, s->pp->pos.col, s->pp->name, s->pp->replay.log,
                 rc == SQ_EIO ? alog_error(log) : sq_strerror(rc));
     const alog_stats_t *st = alog_stats(log);
     s->format = alog_format_name(st->format);
@@ -363,8 +363,8 @@ static int rp_due(void *self, int64_t now_ns)
     int rc = 0;
     while (rc == 0 && s->n_heap > 0 && s->ctx.base_ns + s->heap[0].t <= now_ns) {
         rp_ent_t e = heap_pop(s);
-        src_req_t req = {.cls = e.cls, .intended_ns = s->ctx.base_ns + e.t, .agent = e.copy,
-                         .client = -1};
+        src_req_t req = {
+            .cls = e.cls, .intended_ns = s->ctx.base_ns + e.t, .agent = e.copy, .client = -1};
         rc = src_issue_as(s->ctx.issuer, s->me, &req, e.method, e.path);
         free(e.path);
         s->issued += rc == 0;
@@ -448,8 +448,8 @@ static int rp_finish(void *self, results_t *res)
         "malformed", (json_int_t)s->malformed, "malformed_samples", s->samples, "sent",
         (json_int_t)s->issued, "skipped_writes", (json_int_t)s->verdicts[RP_SKIP_WRITE],
         "skipped_watches", (json_int_t)s->verdicts[RP_SKIP_WATCH], "skipped_kind",
-        (json_int_t)s->verdicts[RP_SKIP_KIND], "filtered", (json_int_t)s->verdicts[RP_FILTERED], "bad_rewrites", (json_int_t)s->bad_path,
-        "not_sent", (json_int_t)s->unsent);
+        (json_int_t)s->verdicts[RP_SKIP_KIND], "filtered", (json_int_t)s->verdicts[RP_FILTERED],
+        "bad_rewrites", (json_int_t)s->bad_path, "not_sent", (json_int_t)s->unsent);
     return ph ? json_object_set_new(sec, s->ctx.name, ph) : SQ_ENOMEM;
 }
 

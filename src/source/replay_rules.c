@@ -80,7 +80,8 @@ int rp_rules_init(rp_rules_t *r, const plan_t *plan, const plan_phase_t *pp, out
     }
     for (size_t i = 0; i < nr; i++) {
         const plan_replay_rule_t *rule = &pp->replay.rewrite[i];
-        if (check_template(rule->to, rule->pos, o) || compile(&r->rewrite[i], rule->match, rule->pos, o))
+        if (check_template(rule->to, rule->pos, o) ||
+            compile(&r->rewrite[i], rule->match, rule->pos, o))
             return SQ_EINVAL;
         r->n_rewrite++;
     }

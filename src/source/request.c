@@ -19,7 +19,7 @@ typedef struct req {
     int cls, client, agent, pages;
     int64_t first_intended_ns; /* of page 1, for the whole-list sample */
     int64_t bytes_in, bytes_out;
-    char *base_path; /* lists: page 1's path for the following pages; writes: the object */
+    char *base_path;    /* lists: page 1's path for the following pages; writes: the object */
     const char *method; /* a replayed request's own method (NULL: the class's) */
     bool one_page;      /* a replayed list: the log holds its further pages */
     struct req *next_free;
@@ -241,7 +241,9 @@ static int submit(src_issuer_t *is, req_t *q, const char *path, int64_t intended
 {
     const src_class_t *c = &is->classes[q->cls];
     eng_req_t er = {
-        .method = q->method ? q->method : c->pr->kind == PLAN_WRITE ? c->pr->write.method : "GET",
+        .method = q->method                   ? q->method
+                  : c->pr->kind == PLAN_WRITE ? c->pr->write.method
+                                              : "GET",
         .path = path,
         .headers = c->headers,
         .n_headers = c->n_headers,

@@ -362,8 +362,7 @@ static void test_planned_in_series(void **state)
     case_close(&c);
 }
 
-
-/* Writes a log file next to nowhere in particular; returns its path (static). */
+/* Writes a log to a fresh temporary file; returns its path (static). */
 static const char *write_log(const char *text)
 {
     static char path[64];

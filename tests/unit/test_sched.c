@@ -482,7 +482,6 @@ static void test_closed_exp(void **state)
     sched_closed_free(c);
 }
 
-
 static double unit_cdf(double x, double unused)
 {
     (void)unused;
