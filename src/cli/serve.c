@@ -283,7 +283,7 @@ static int serve_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 
 const cli_cmd_t cli_cmd_serve = {
     .name = "serve",
-    .summary = "run the embedded control-plane-like target (store, watches, fault injection)",
+    .summary = "run the embedded control-plane-like target (store, watches, faults, access log)",
     .usage = "[--listen ADDR:PORT] [fault options]...",
     .description =
         "Serves a versioned JSON object store under /v1/ (GET, list with ?limit= and\n"
