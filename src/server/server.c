@@ -64,9 +64,13 @@ static void kick(srv_server_t *sv)
         uv_idle_start(&sv->idle, on_idle);
 }
 
+/* Every 2 s: parked streams whose client left, and the access log's buffer to its file. */
 static void on_sweep(uv_timer_t *h)
 {
-    srv_stream_sweep(h->data);
+    srv_server_t *sv = h->data;
+    srv_stream_sweep(sv);
+    if (sv->access_log)
+        fflush(sv->access_log);
 }
 
 static void mhd_log(void *cls, const char *fmt, va_list ap)
