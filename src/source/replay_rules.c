@@ -22,11 +22,12 @@ static int compile(regex_t *re, const char *pattern, plan_pos_t pos, out_t *o)
     return SQ_EINVAL;
 }
 
-/* A rewrite template: text with {{0}}..{{9}} and {{copy}}, starting with '/'. */
+/* A rewrite template: text with {{0}}..{{9}} and {{copy}} and no other {{. It replaces only the
+ * matched text, so it need not start with '/': the rewritten path is checked as a whole. */
 static int check_template(const char *t, plan_pos_t pos, out_t *o)
 {
     const char *p = t;
-    bool ok = t[0] == '/' || t[0] == '{';
+    bool ok = true;
     while (ok && (p = strstr(p, "{{"))) {
         ok = (p[2] >= '0' && p[2] <= '9' && !strncmp(p + 3, "}}", 2)) ||
              !strncmp(p + 2, "copy}}", 6);
@@ -35,7 +36,7 @@ static int check_template(const char *t, plan_pos_t pos, out_t *o)
     if (ok)
         return 0;
     out_raw(o, OUT_ERROR,
-            "%s:%d:%d: error: replay rewrite: bad template (expected a path with {{0}}..{{9}} "
+            "%s:%d:%d: error: replay rewrite: bad template (expected text with {{0}}..{{9}} "
             "or {{copy}}, got '%s')",
             pos.file, pos.line, pos.col, t);
     return SQ_EINVAL;

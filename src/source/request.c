@@ -346,61 +346,12 @@ static const char *first_path(const src_class_t *c, const char *path, char *buf,
     return n > 0 && (size_t)n < cap ? buf : NULL;
 }
 
-int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req)
+/* A request context for `req` of `from`, submitted at path; `base` (copied, may be NULL) is
+ * what a list's later pages or a write's object are built from; `method` overrides the class's
+ * (a replayed request, sent as one page). */
+static int send_new(src_issuer_t *is, src_t *from, const src_req_t *req, const char *path,
+                    const char *base, const char *method)
 {
-    src_class_t *c = &is->classes[req->cls];
-    if (!ledger_ready(obs_ledger(is->obs), req->cls))
-        return 0; /* a {{pick}} pool is empty: nothing to send */
-    tmpl_ctx_t ctx = {
-        .agent = req->agent,
-        .seq = c->seq++,
-        .phase = from->phase < is->plan->n_phases ? is->plan->phases[from->phase].name : "teardown",
-        .rng = &is->rng,
-    };
-    int rc = tmpl_render(c->path, &ctx, &is->path_buf);
-    if (rc == 0 && c->body)
-        rc = tmpl_render(c->body, &ctx, &is->body_buf);
-    if (rc)
-        return rc;
-    char paged[4096];
-    const char *path = first_path(c, is->path_buf.data, paged, sizeof paged);
-    if (!path)
-        return SQ_ELIMIT;
-    req_t *q = req_take(is);
-    if (!q)
-        return SQ_ENOMEM;
-    *q = (req_t){.is = is,
-                 .from = from,
-                 .cls = req->cls,
-                 .client = req->client,
-                 .agent = req->agent,
-                 .first_intended_ns = req->intended_ns};
-    bool track = c->paginate || c->pr->kind == PLAN_WRITE;
-    if (track && !(q->base_path = strdup(is->path_buf.data))) {
-        req_give(is, q);
-        return SQ_ENOMEM;
-    }
-    rc = submit(is, q, path, req->intended_ns);
-    if (rc)
-        req_give(is, q);
-    return rc;
-}
-
-int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
-                 const char *path)
-{
-    src_class_t *c = &is->classes[req->cls];
-    if (c->pr->kind == PLAN_WRITE && !c->body)
-        return SQ_EINVAL;
-    tmpl_ctx_t ctx = {
-        .agent = req->agent,
-        .seq = c->seq++,
-        .phase = is->plan->phases[from->phase].name,
-        .rng = &is->rng,
-    };
-    int rc = c->body ? tmpl_render(c->body, &ctx, &is->body_buf) : 0;
-    if (rc)
-        return rc;
     req_t *q = req_take(is);
     if (!q)
         return SQ_ENOMEM;
@@ -411,13 +362,56 @@ int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char
                  .agent = req->agent,
                  .first_intended_ns = req->intended_ns,
                  .method = method,
-                 .one_page = true};
-    if (c->pr->kind == PLAN_WRITE && !(q->base_path = strdup(path))) {
+                 .one_page = method != NULL};
+    if (base && !(q->base_path = strdup(base))) {
         req_give(is, q);
         return SQ_ENOMEM;
     }
-    rc = submit(is, q, path, req->intended_ns);
+    int rc = submit(is, q, path, req->intended_ns);
     if (rc)
         req_give(is, q);
     return rc;
+}
+
+/* Renders the class's templates for one request: the path (unless path is false) and the body
+ * of a write. */
+static int render(src_issuer_t *is, src_t *from, const src_req_t *req, bool path)
+{
+    src_class_t *c = &is->classes[req->cls];
+    tmpl_ctx_t ctx = {
+        .agent = req->agent,
+        .seq = c->seq++,
+        .phase = from->phase < is->plan->n_phases ? is->plan->phases[from->phase].name : "teardown",
+        .rng = &is->rng,
+    };
+    int rc = path ? tmpl_render(c->path, &ctx, &is->path_buf) : 0;
+    if (rc == 0 && c->body)
+        rc = tmpl_render(c->body, &ctx, &is->body_buf);
+    return rc;
+}
+
+int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req)
+{
+    src_class_t *c = &is->classes[req->cls];
+    if (!ledger_ready(obs_ledger(is->obs), req->cls))
+        return 0; /* a {{pick}} pool is empty: nothing to send */
+    int rc = render(is, from, req, true);
+    if (rc)
+        return rc;
+    char paged[4096];
+    const char *path = first_path(c, is->path_buf.data, paged, sizeof paged);
+    if (!path)
+        return SQ_ELIMIT;
+    bool track = c->paginate || c->pr->kind == PLAN_WRITE;
+    return send_new(is, from, req, path, track ? is->path_buf.data : NULL, NULL);
+}
+
+int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
+                 const char *path)
+{
+    src_class_t *c = &is->classes[req->cls];
+    if (c->pr->kind == PLAN_WRITE && !c->body)
+        return SQ_EINVAL;
+    int rc = render(is, from, req, false);
+    return rc ? rc : send_new(is, from, req, path, c->pr->kind == PLAN_WRITE ? path : NULL, method);
 }

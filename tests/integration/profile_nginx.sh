@@ -65,31 +65,8 @@ nginx -p "$T" -e "$T/error.log" -c "$T/nginx.conf" &
 NGX_PID=$!
 wait_port "$PORT" || { echo "FAIL: nginx did not listen on $PORT"; cat "$T/error.log"; exit 1; }
 
-cat >"$T/known.yaml" <<YAML
-seed: 13
-target: {url: "http://127.0.0.1:$PORT", http: "1.1", connections: 64, timeout: 10s}
-vars:
-  site: [north, south, harbor, ridge]
-requests:
-  read-gateway: {kind: get, path: "/v1/sites/{{site}}/gateways/gw-{{pick:0..99}}"}
-  list-site: {kind: list, path: "/v1/sites/{{site}}/gateways", page: 500}
-  renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}",
-          body: '{"holder":"gw-{{agent}}","stamp":{{now_ns}}}'}
-  follow-site: {kind: watch, path: "/v1/sites/{{site}}/gateways?watch=1",
-                reconnect: {policy: immediate}}
-phases:
-  - name: steady
-    duration: 60s
-    rate: 50.2/s
-    arrivals: poisson
-    mix: {read-gateway: 250, list-site: 1}
-    fleet: {agents: 300, every: 10s, timing: aligned, send: renew}
-    watches: {follow-site: 20}
-# This test is about the log nginx writes, not a verdict: 300 renewals at once on 64
-# connections may wait over 10 ms for one in a tick (generator-bound, exit 7), which it accepts.
-accept: [generator-bound]
-YAML
-run_plan "$T/run" "$T/known.yaml" --no-brakes
+run_plan "$T/run" "$SRCDIR/tests/data/plans/profile-known.yaml" --no-brakes \
+    --set target.url="http://127.0.0.1:$PORT"
 expect "the known plan ran against nginx (exit $RUN_RC)" test "$RUN_RC" = 0
 sleep 6 # the last watches end (echo_sleep) and are logged
 stop_nginx

@@ -15,30 +15,8 @@ rm -rf "$T"
 mkdir -p "$T"
 
 serve_start --access-log "$T/access.ndjson" --access-log-format ndjson || exit 1
-cat >"$T/known.yaml" <<YAML
-seed: 13
-target: {url: "$SERVE_URL", http: "1.1", connections: 64, timeout: 10s}
-vars:
-  site: [north, south, harbor, ridge]
-requests:
-  read-gateway: {kind: get, path: "/v1/sites/{{site}}/gateways/gw-{{pick:0..99}}"}
-  list-site: {kind: list, path: "/v1/sites/{{site}}/gateways", page: 500}
-  renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}",
-          body: '{"holder":"gw-{{agent}}","stamp":{{now_ns}}}',
-          keep: "the leases stay so the log holds only the known plan's requests"}
-  follow-site: {kind: watch, path: "/v1/sites/{{site}}/gateways?watch=1",
-                reconnect: {policy: immediate}}
-phases:
-  - name: steady
-    duration: 60s
-    rate: 50.2/s
-    arrivals: poisson
-    mix: {read-gateway: 250, list-site: 1}
-    fleet: {agents: 300, every: 10s, timing: aligned, send: renew}
-    watches: {follow-site: 20}
-accept: [generator-bound]
-YAML
-run_plan "$T/run" "$T/known.yaml" --no-brakes
+run_plan "$T/run" "$SRCDIR/tests/data/plans/profile-known.yaml" --no-brakes \
+    --set target.url="$SERVE_URL"
 # Exit 1 (FAIL) is expected too: the reads name gateways the store does not hold (404s), which
 # the default error-rate objective fails; the test is about the log, not the verdict.
 expect "the known plan ran against squall serve (exit $RUN_RC: $(tail -1 "$T/run.stderr"))" \
