@@ -460,6 +460,22 @@ static void test_replay_clf(void **state)
     unlink(log);
 }
 
+/* A replayed write the target answers 201 Created made an object of the run's: it is journaled
+ * and deleted after the last phase, like any other write's. */
+static void test_replay_teardown(void **state)
+{
+    (void)state;
+    const char *log = write_log(clf_log);
+    fake.answer = answer_created;
+    run_case_t c = {0};
+    replay_case(&c, log, "");
+    assert_int_equal(logged("PUT", "/c0/leases/5"), 1);
+    assert_int_equal(logged("DELETE", "/c0/leases/5"), 1);
+    assert_int_equal(logged("DELETE", "/"), 1); /* nothing else was deleted */
+    case_close(&c);
+    unlink(log);
+}
+
 /* The window counts whole seconds from the log's first: from 1s to 3s keeps the second one
  * (its GET; the PUT too), and `methods` keeps only what it names. The model `check` prints
  * (the source's expected counts) agrees with what was sent. */
@@ -492,6 +508,7 @@ int main(void)
         cmocka_unit_test(test_planned_in_series),
         cmocka_unit_test(test_replay_clf),
         cmocka_unit_test(test_replay_window),
+        cmocka_unit_test(test_replay_teardown),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
