@@ -33,7 +33,7 @@ typedef struct {
     alog_config_t cfg;
     int n_cls;
     /* First pass: requests to send per second of the log (absolute second sec0 + i) and class. */
-    int64_t t_min, origin, win_lo, win_hi;
+    int64_t t_min, t_max, origin, win_lo, win_hi;
     int64_t sec0;
     size_t n_secs;
     uint32_t *counts; /* [n_secs][n_cls] */
@@ -157,10 +157,12 @@ static int first_pass(replay_t *s)
         return rc;
     alog_record_t rec;
     s->t_min = INT64_MAX;
+    s->t_max = INT64_MIN;
     s->coarse = true;
     while (rc == 0 && (rc = alog_next(log, &rec)) == 1) {
         rc = 0;
         s->t_min = rec.t_ns < s->t_min ? rec.t_ns : s->t_min;
+        s->t_max = rec.t_ns > s->t_max ? rec.t_ns : s->t_max;
         s->coarse &= rec.resolution_ns >= RP_SEC;
         int cls;
         if (rp_rules_judge(&s->rules, &rec, &cls) != RP_SEND)
@@ -264,8 +266,9 @@ static rp_ent_t heap_pop(replay_t *s)
 static int64_t rel_time(replay_t *s, const alog_record_t *rec)
 {
     int64_t t = rec->t_ns;
-    if (s->coarse) {
-        int64_t sec = floor_sec(t);
+    int64_t sec = floor_sec(t);
+    /* A second the first pass did not count (the file grew in between) is sent as recorded. */
+    if (s->coarse && sec >= s->sec0 && sec < s->sec0 + (int64_t)s->n_secs) {
         size_t at = (size_t)(sec - s->sec0);
         if (sec != s->spread_sec) {
             sched_spread_tick(&s->spread, RP_SEC, s->tick[at]);
@@ -377,29 +380,53 @@ static int rp_due(void *self, int64_t now_ns)
 /* Second i of the log (its part inside the window) as an interval of the phase, for copy c. */
 static void sec_span(const replay_t *s, size_t i, int c, double *a, double *b)
 {
-    int64_t lo = (s->sec0 + (int64_t)i) * RP_SEC;
+    int64_t lo = (s->sec0 + (int64_t)i) * RP_SEC, hi = lo + RP_SEC;
     lo = lo > s->origin ? lo : s->origin;
+    /* A finer log's last second ends at its last request, where the phase ends. */
+    hi = s->coarse || hi <= s->t_max ? hi : s->t_max + 1;
     double off = (double)c * (double)s->pp->replay.offset_ns;
     *a = (double)(lo - s->origin) / s->pp->replay.speed + off;
-    *b = (double)((s->sec0 + (int64_t)i + 1) * RP_SEC - s->origin) / s->pp->replay.speed + off;
+    *b = (double)(hi - s->origin) / s->pp->replay.speed + off;
 }
 
-/* The log's requests per second, spread evenly over each second (exact for 1 s logs spread
- * evenly; the planned counts of finer logs within a second are a mean). */
+/* The share of second i's n requests that copy c starts in [t0, t1): evenly spread 1 s times
+ * are the instants a + k (b - a) / n, counted exactly; otherwise the overlap's fraction. */
+static double sec_share(const replay_t *s, size_t i, int c, int64_t t0, int64_t t1)
+{
+    double a, b, n = s->tick[i];
+    sec_span(s, i, c, &a, &b);
+    if (s->coarse && s->pp->replay.spread == PLAN_ARRIVALS_EVEN) {
+        double k0 = ceil(((double)t0 - a) * n / (b - a) - 1e-9);
+        double k1 = ceil(((double)t1 - a) * n / (b - a) - 1e-9);
+        k0 = k0 < 0 ? 0 : k0 > n ? n : k0;
+        k1 = k1 < 0 ? 0 : k1 > n ? n : k1;
+        return (k1 - k0) / n;
+    }
+    double lo = a > (double)t0 ? a : (double)t0, hi = b < (double)t1 ? b : (double)t1;
+    return hi <= lo ? 0 : b > a ? (hi - lo) / (b - a) : 1;
+}
+
+/* The log's requests per second at their instants (1 s logs spread evenly), else spread evenly
+ * over each second (a mean within a second; totals exact). */
 static double rp_expected(const void *self, int64_t t0, int64_t t1, double *per_class)
 {
     const replay_t *s = self;
     double sum = 0;
     for (int c = 0; c < s->pp->replay.copies; c++) {
-        for (size_t i = 0; i < s->n_secs; i++) {
+        /* Only the seconds of the log that copy c maps into [t0, t1), and one either side. */
+        double off = (double)c * (double)s->pp->replay.offset_ns, speed = s->pp->replay.speed;
+        double a0 = ((double)t0 - off) * speed + (double)s->origin;
+        double a1 = ((double)t1 - off) * speed + (double)s->origin;
+        double first = floor(a0 / 1e9) - (double)s->sec0 - 1,
+               last = ceil(a1 / 1e9) - (double)s->sec0 + 1;
+        size_t lo = first > 0 ? (size_t)first : 0;
+        size_t hi = last < (double)s->n_secs ? (size_t)(last > 0 ? last : 0) : s->n_secs;
+        for (size_t i = lo; i < hi; i++) {
             if (!s->tick[i])
                 continue;
-            double a, b;
-            sec_span(s, i, c, &a, &b);
-            double lo = a > (double)t0 ? a : (double)t0, hi = b < (double)t1 ? b : (double)t1;
-            if (hi <= lo)
+            double f = sec_share(s, i, c, t0, t1);
+            if (f <= 0)
                 continue;
-            double f = b > a ? (hi - lo) / (b - a) : 1;
             sum += f * s->tick[i];
             for (int k = 0; per_class && k < s->n_cls; k++)
                 per_class[k] += f * s->counts[i * (size_t)s->n_cls + (size_t)k];

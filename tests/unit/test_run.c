@@ -326,6 +326,31 @@ static void test_closed_loop_think(void **state)
     case_close(&c);
 }
 
+/* Sums series.csv's started and planned columns over every row. */
+static void series_totals(const run_case_t *c, double *planned, long *started)
+{
+    char path[200], line[512];
+    snprintf(path, sizeof path, "%s/out/series.csv", c->dir);
+    FILE *f = fopen(path, "r");
+    assert_non_null(f);
+    *planned = 0;
+    *started = 0;
+    assert_non_null(fgets(line, sizeof line, f)); /* header */
+    while (fgets(line, sizeof line, f)) {
+        char *fld[13] = {0};
+        int n = 0;
+        for (char *t = strtok(line, ",\n"); t && n < 13; t = strtok(NULL, ",\n"))
+            fld[n++] = t;
+        assert_int_equal(n, 13);
+        /* unix_ms: the second's wall-clock start, within the run (results.json's start). */
+        int64_t unix_ms = atoll(fld[12]), start = results_meta(c->results)->start_unix_ms;
+        assert_true(unix_ms >= start - 1000 && unix_ms <= start + 10000);
+        *started += atol(fld[3]);
+        *planned += atof(fld[11]);
+    }
+    fclose(f);
+}
+
 /* series.csv's planned column: the sources' own model, second by second, adds up to what the
  * plan sends (even 40/s over 1.5 s = 60) and to what was started. */
 static void test_planned_in_series(void **state)
@@ -337,26 +362,9 @@ static void test_planned_in_series(void **state)
              "requests:\n  a: {kind: get, path: /a}\n"
              "phases:\n  - {name: p, rate: 40/s, duration: 1500ms, mix: {a: 1}}\n",
              NULL);
-    char path[200], line[512];
-    snprintf(path, sizeof path, "%s/out/series.csv", c.dir);
-    FILE *f = fopen(path, "r");
-    assert_non_null(f);
-    double planned = 0;
-    long started = 0;
-    assert_non_null(fgets(line, sizeof line, f)); /* header */
-    while (fgets(line, sizeof line, f)) {
-        char *fld[13] = {0};
-        int n = 0;
-        for (char *t = strtok(line, ",\n"); t && n < 13; t = strtok(NULL, ",\n"))
-            fld[n++] = t;
-        assert_int_equal(n, 13);
-        /* unix_ms: the second's wall-clock start, within the run (results.json's start). */
-        int64_t unix_ms = atoll(fld[12]), start = results_meta(c.results)->start_unix_ms;
-        assert_true(unix_ms >= start - 1000 && unix_ms <= start + 10000);
-        started += atol(fld[3]);
-        planned += atof(fld[11]);
-    }
-    fclose(f);
+    double planned;
+    long started;
+    series_totals(&c, &planned, &started);
     assert_int_equal(started, 60);
     assert_true(planned > 59.999 && planned < 60.001);
     case_close(&c);
@@ -444,6 +452,11 @@ static void test_replay_clf(void **state)
         assert_int_equal(json_integer_value(json_object_get(r, "skipped_writes")), 1);
         assert_int_equal(json_integer_value(json_object_get(r, "skipped_watches")), 1);
         assert_string_equal(json_string_value(json_object_get(r, "spread")), "even");
+        double planned;
+        long started;
+        series_totals(&c, &planned, &started); /* the model second by second, as sent */
+        assert_int_equal(started, 7);
+        assert_true(fabs(planned - 7) < 1e-6);
         case_close(&c);
     }
     run_case_t c = {0};
