@@ -360,6 +360,8 @@ static void test_paths_and_open_counts(void **state)
     /* logs/access.log: the Apache docs' example line and two more (a list, a HEAD). */
     assert_double_equal(e.requests, 3, 1e-9);
     assert_double_equal(per_class(p, &e, "replay-list"), 1, 1e-9);
+    /* At speed 2 the first second's two requests start at 0 and 0.25 s, the third at 1 s. */
+    assert_double_equal(e.peak_rate, 2, 1e-9);
     plan_free(p);
 }
 
