@@ -16,14 +16,20 @@
  * Families: a sample belongs to the family its TYPE line names when its name is the family's
  * name plus a suffix that family's type allows (`_bucket`, `_count`, `_sum` for histograms;
  * `_count`, `_sum` for summaries; `_total`, `_created` for OpenMetrics counters, ...); otherwise
- * its name is its family. A histogram's `_bucket` sample must carry `le`, a summary's quantile
- * sample `quantile`, and either label's value must be a number.
+ * its name is its family.
  *
  * What is refused, with "line L: what" in the caller's buffer (SQ_EPARSE): anything outside the
- * grammar, a second HELP or TYPE line for a family, a TYPE line after the family's samples,
- * `__name__` or a label name twice in one sample, more than EXPO_MAX_LABELS labels; for
- * OpenMetrics also a family that resumes after another began, a counter sample without its
- * suffix, anything after `# EOF` and a missing `# EOF`. The buffer is never modified.
+ * grammar, `__name__` or a label name twice in one sample, more than EXPO_MAX_LABELS labels,
+ * a label value that is not UTF-8; for Prometheus also a second HELP or TYPE line for a family,
+ * a TYPE line after its samples, an `le` or `quantile` that is not a number, a last line
+ * without its line feed; for OpenMetrics also an exemplar on a family that has none, a UNIT that
+ * is not the end of the family's name, text after `# EOF` and a missing `# EOF`.
+ * A scraper reads what the server it stands beside reads: where Prometheus 2.42's own readers
+ * take more than the documents allow, squall takes it too, and says so here. OpenMetrics: an
+ * unknown escape is kept as written, a family may resume after another, a counter sample may
+ * lack its suffix, HELP and TYPE may repeat or follow samples, a bucket may lack `le`.
+ * Both: a bucket without `le` is taken. The corpus in tests/data/expo/ holds each of these
+ * cases; promtool and a prometheus server judge it in the tests. The buffer is never modified.
  *
  * Glossary: "family" = the metric a HELP/TYPE line describes, with all its samples; "sample" =
  * one line of name, labels and value. */

@@ -18,7 +18,7 @@ typedef struct {
     const char *name;
     size_t len;
     enum expo_type type;
-    bool help, typed, unit, sampled, closed;
+    bool help, typed, unit, sampled;
 } fam_t;
 
 typedef struct {
@@ -32,6 +32,7 @@ typedef struct {
     fam_t *fams; /* open addressing, a power of two */
     size_t n_fams, fam_cap;
     fam_t *current; /* OpenMetrics: the family the last line belonged to */
+    bool exemplar;  /* the current sample carries one */
     char *err;
     size_t errcap;
 } ps_t;
@@ -90,9 +91,9 @@ static fam_t *fam_add(ps_t *ps, const char *name, size_t len)
                 j = (j + 1) & (cap - 1);
             fresh[j] = old[i];
         }
-        free(old);
-        if (ps->current != NULL)
+        if (ps->current != NULL) /* before old goes: current points into it */
             ps->current = fam_find(ps, ps->current->name, ps->current->len);
+        free(old);
     }
     size_t j = fam_hash(name, len) & (ps->fam_cap - 1);
     while (ps->fams[j].name != NULL)
@@ -271,7 +272,10 @@ static const char *unescape(ps_t *ps, char stop, bool quote, int *rc)
             *d++ = e;
         else if (e == 'n')
             *d++ = '\n';
-        else {
+        else if (ps->fmt == EXPO_OPENMETRICS && e != '\0') {
+            *d++ = '\\'; /* kept as written, as Prometheus's OpenMetrics reader keeps it */
+            *d++ = e;
+        } else {
             *rc = fail(ps, "invalid escape sequence '\\%c'", e ? e : ' ');
             return NULL;
         }
@@ -423,6 +427,7 @@ static int exemplar(ps_t *ps)
     expo_label_t labels[EXPO_MAX_LABELS];
     size_t n;
     double v;
+    ps->exemplar = true;
     if (ps->eol - ps->p < 3 || memcmp(ps->p, "# {", 3) != 0)
         return fail(ps, "expected an exemplar ' # {...} value' or the end of the line");
     ps->p += 2;
@@ -490,23 +495,20 @@ static int check_bound_label(ps_t *ps, const expo_sample_t *s)
         return 0;
     const char *v = expo_label(s, want);
     double d;
-    if (v == NULL)
-        /* Prometheus's own parser takes a bucket without `le`; OpenMetrics requires it. */
-        return ps->fmt == EXPO_OPENMETRICS ? fail(ps, "%s needs a '%s' label", s->name, want) : 0;
+    /* Both of Prometheus's readers take a bucket without `le`; only its 0.0.4 reader checks the
+     * value (its OpenMetrics reader stores any). */
+    if (v == NULL || ps->fmt == EXPO_OPENMETRICS)
+        return 0;
     if (!number(ps, v, strlen(v), &d))
         return fail(ps, "expected a number as the value of '%s', got \"%s\"", want, v);
     return 0;
 }
 
-/* OpenMetrics: a family's lines are together; moving to another family closes this one. */
+/* OpenMetrics: the family the following lines belong to. The specification keeps a family's
+ * lines together; Prometheus 2.42 reads a family that resumes, and so does squall. */
 static int om_enter(ps_t *ps, fam_t *f)
 {
-    if (f == ps->current)
-        return 0;
-    if (f->closed)
-        return fail(ps, "family %.*s resumes after another family began", (int)f->len, f->name);
-    if (ps->current != NULL)
-        ps->current->closed = true;
+    (void)ps;
     ps->current = f;
     return 0;
 }
@@ -533,6 +535,7 @@ static int sample_line(ps_t *ps, expo_sample_fn fn, void *ud)
             return fail(ps, "expected a space and the value after %s", s.name);
     }
     size_t vn = token(ps);
+    ps->exemplar = false;
     if (!number(ps, ps->p, vn, &s.value))
         return fail(ps, "expected a number as the value, got \"%.*s\"", (int)vn, ps->p);
     ps->p += vn;
@@ -544,9 +547,9 @@ static int sample_line(ps_t *ps, expo_sample_fn fn, void *ud)
     if (ps->fmt == EXPO_OPENMETRICS) {
         if ((rc = om_enter(ps, f)) != 0)
             return rc;
-        if (f->len == n && type_suffixes(f->type, ps->fmt)[0][0] != '\0')
-            return fail(ps, "%s: a %s's samples carry a suffix (%s, ...)", s.name,
-                        expo_type_name(f->type), type_suffixes(f->type, ps->fmt)[0]);
+        if (ps->exemplar && f->type != EXPO_COUNTER && f->type != EXPO_HISTOGRAM &&
+            f->type != EXPO_GAUGEHISTOGRAM)
+            return fail(ps, "%s: a %s has no exemplars", s.name, expo_type_name(f->type));
     }
     f->sampled = true;
     s.family = scratch_copy(ps, f->name, f->len);
@@ -630,10 +633,8 @@ static int comment_line(ps_t *ps, bool *eof)
     int rc = om ? om_enter(ps, f) : 0;
     if (rc != 0)
         return rc;
-    if (om && f->sampled)
-        return fail(ps, "%.4s for %.*s after its samples", kw, (int)n, name);
     if (help) {
-        if (f->help)
+        if (f->help && !om)
             return fail(ps, "second HELP line for %.*s", (int)n, name);
         f->help = true;
         return unescape(ps, '\n', om, &rc) != NULL ? 0 : rc;
@@ -650,7 +651,7 @@ static int comment_line(ps_t *ps, bool *eof)
             return fail(ps, "unit %.*s is not the suffix of %.*s", (int)un, ps->p, (int)n, name);
         return 0;
     }
-    if (f->typed || f->sampled)
+    if ((f->typed || f->sampled) && !om)
         return fail(ps, "second TYPE line for %.*s, or TYPE after its samples", (int)n, name);
     bool ok;
     f->type = type_named(ps->p, (size_t)(ps->eol - ps->p), ps->fmt, &ok);
