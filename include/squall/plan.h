@@ -241,6 +241,21 @@ typedef struct {
 enum plan_accept { PLAN_ACCEPT_GENERATOR_BOUND, PLAN_ACCEPT_FEW_SAMPLES, PLAN_ACCEPT_STOPPED_EARLY };
 extern const char *const plan_accept_names[]; /* "generator-bound", "few-samples", ... */
 
+/* observe.metrics[i]: an endpoint in a metrics text format (Prometheus 0.0.4 or OpenMetrics
+ * 1.0) scraped while the run goes. */
+typedef struct {
+    const char *url;    /* as written, absolute http:// or https:// */
+    bool https;
+    const char *host;   /* without brackets */
+    int port;
+    const char *path;   /* path and query, at least "/" */
+    bool loopback;
+    int64_t every_ns;   /* default 5 s */
+    const char **keep;  /* metric name patterns ('*' matches any run); none: every series */
+    size_t n_keep;
+    plan_pos_t pos;
+} plan_scrape_t;
+
 struct plan_mem; /* private: owns every string and array below */
 
 typedef struct {
@@ -259,6 +274,8 @@ typedef struct {
     plan_brake_t *brakes;
     size_t n_brakes;
     unsigned accept; /* 1 << enum plan_accept: reasons for INCONCLUSIVE the plan accepts */
+    plan_scrape_t *scrapes; /* observe.metrics */
+    size_t n_scrapes;
     struct plan_mem *mem;
 } plan_t;
 

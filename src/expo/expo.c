@@ -281,7 +281,8 @@ static const char *unescape(ps_t *ps, char stop, bool quote, int *rc)
         }
     }
     *d = '\0';
-    if ((quote || ps->fmt == EXPO_OPENMETRICS) && !utf8_ok((unsigned char *)start, (size_t)(d - start))) {
+    if ((quote || ps->fmt == EXPO_OPENMETRICS) &&
+        !utf8_ok((unsigned char *)start, (size_t)(d - start))) {
         *rc = fail(ps, "string is not valid UTF-8");
         return NULL;
     }
@@ -713,9 +714,8 @@ int expo_parse(const char *buf, size_t len, enum expo_format fmt, expo_sample_fn
 enum expo_format expo_format_of(const char *content_type)
 {
     const char *om = "application/openmetrics-text";
-    return content_type != NULL && strncasecmp(content_type, om, strlen(om)) == 0
-               ? EXPO_OPENMETRICS
-               : EXPO_PROMETHEUS;
+    return content_type != NULL && strncasecmp(content_type, om, strlen(om)) == 0 ? EXPO_OPENMETRICS
+                                                                                  : EXPO_PROMETHEUS;
 }
 
 const char *expo_label(const expo_sample_t *s, const char *name)

@@ -26,8 +26,8 @@ static size_t distinct(const report_series_t *s, bool phase, const char **out, s
 
 /* Phase boundaries: the "phases" section's starts when the run wrote one, else the first
  * second each phase appears in series.csv. */
-static size_t phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m,
-                          size_t cap)
+size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m,
+                        size_t cap)
 {
     json_t *list = json_object_get(results_section(res, "phases"), "phases"), *p;
     size_t i, n = 0;
@@ -145,7 +145,7 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
     per_second_t ps[MAX_LINES] = {0};
     html_line_t rate[MAX_LINES], errs[MAX_LINES], lat[2 * MAX_LINES];
     html_mark_t marks[MAX_LINES * 4];
-    size_t nm = phase_marks(res, s, marks, MAX_LINES * 4);
+    size_t nm = html_phase_marks(res, s, marks, MAX_LINES * 4);
     char labels[2 * MAX_LINES][160];
     size_t ok = 0;
     for (size_t c = 0; c < nc && fill(s, cls[c], secs, &ps[c]) == 0; c++, ok++) {

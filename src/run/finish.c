@@ -97,7 +97,10 @@ static int sections(run_t *r)
         }
     }
     int e = obs_finish(r->obs, r->dir);
-    return rc ? rc : e;
+    rc = rc ? rc : e;
+    if (rc == 0 && r->scrape)
+        rc = results_set_section(r->res, "metrics", scrape_section(r->scrape));
+    return rc;
 }
 
 /* The outcome: the checks, weighed with what squall could offer and how the run ended. */

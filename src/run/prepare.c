@@ -104,6 +104,15 @@ int run_prepare(run_t *r)
                   p->target.url);
         return SQ_EINVAL;
     }
+    for (size_t i = 0; i < p->n_scrapes; i++)
+        if (!p->scrapes[i].loopback && !r->opts->confirm_target) {
+            out_error(r->o,
+                      "%s:%d:%d: observe.metrics[%zu].url %s is not a loopback address: pass "
+                      "--confirm-target to scrape it",
+                      p->scrapes[i].pos.file, p->scrapes[i].pos.line, p->scrapes[i].pos.col, i,
+                      p->scrapes[i].url);
+            return SQ_EINVAL;
+        }
     r->seed = run_seed(p, r->opts);
     int rc = src_target_init(&r->target, p, r->opts->insecure, r->o);
     if (rc == 0)
@@ -134,6 +143,8 @@ void run_close(run_t *r)
     free(r->phases);
     r->phases = NULL;
     src_issuer_free(r->issuer);
+    scrape_free(r->scrape);
+    r->scrape = NULL;
     obs_free(r->obs);
     results_free(r->res);
     src_target_close(&r->target);

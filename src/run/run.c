@@ -338,6 +338,7 @@ static void finish(run_t *r)
                 r->phases[i].src[k].ops->stop(r->phases[i].src[k].self);
     eng_free(r->eng);
     r->eng = NULL;
+    scrape_stop(r->scrape);
     uv_timer_stop(&r->wake);
     uv_timer_stop(&r->second);
     uv_prepare_stop(&r->prepare);
@@ -397,6 +398,10 @@ static void run_loop(run_t *r)
         src_issuer_attach(r->issuer, r->eng);
         rc = handles_start(r);
     }
+    if (rc == 0)
+        rc = scrape_new(&r->loop, r->plan, &r->target.eng, r->o, &r->scrape);
+    if (rc == 0)
+        rc = scrape_start(r->scrape, r->dir);
     if (rc == 0) {
         r->start_ns = r->sec_start_ns = clock_mono_ns();
         results_set_start(r->res, clock_real_ns() / 1000000);

@@ -11,6 +11,7 @@
 #include "squall/observe.h"
 #include "squall/results.h"
 #include "squall/run.h"
+#include "squall/scrape.h"
 #include "squall/source.h"
 
 #define RUN_MAX_SOURCES 8 /* sources one phase may use: one of each kind */
@@ -49,6 +50,7 @@ typedef struct run {
     src_issuer_t *issuer;
     results_t *res;
     eng_t *eng;
+    scrape_t *scrape; /* the target's metrics (observe.metrics), NULL without */
 
     uv_loop_t loop;
     uv_timer_t wake, second;

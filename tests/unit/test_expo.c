@@ -173,8 +173,7 @@ static void corpus(const char *dir, enum expo_format fmt, bool with_promtool)
         int rc = expo_parse(buf, len, fmt, NULL, NULL, err, sizeof err);
         free(buf);
         if ((rc == 0) != ok)
-            fail_msg("%s/%s: squall %s (%s)", dir, e->d_name, rc == 0 ? "parsed" : "refused",
-                     err);
+            fail_msg("%s/%s: squall %s (%s)", dir, e->d_name, rc == 0 ? "parsed" : "refused", err);
         if (!ok)
             assert_true(strncmp(err, "line ", 5) == 0); /* says where */
         if (with_promtool && promtool_parses(file) != ok)
