@@ -51,6 +51,12 @@ void scrape_stop(scrape_t *s);
 json_t *scrape_section(const scrape_t *s);
 void scrape_free(scrape_t *s);
 
+/* The engine settings for a fetch of u beside the load: the target's own (TLS, token, headers,
+ * HTTP version) when u is a path on the target or on the target's origin (scheme, host, port),
+ * plain HTTP/1.1 otherwise; one connection; base_url is u's origin, written into origin. */
+void scrape_engine_config(const plan_url_t *u, const plan_target_t *t, const eng_config_t *target,
+                          char *origin, size_t cap, eng_config_t *out);
+
 /* ---- derived series: pure arithmetic, exposed for the tests -------------------------------- */
 
 /* A counter's rate from t[i-1] to t[i] (ms) for i = 1..n-1 into rate[i-1]; resets as above. */

@@ -18,7 +18,8 @@ enum {
     OPT_GRACE,
     OPT_SHARD,
     OPT_KEEP,
-    OPT_FORCE
+    OPT_FORCE,
+    OPT_ALLOW_EXEC
 };
 
 const cli_opt_t cli_run_opts[] = {
@@ -36,6 +37,8 @@ const cli_opt_t cli_run_opts[] = {
     [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (recorded in the results)"},
     [OPT_KEEP] = {"keep", 0, NULL, "no teardown: leave the objects this run created"},
     [OPT_FORCE] = {"force", 0, NULL, "write into a results directory that already holds results"},
+    [OPT_ALLOW_EXEC] = {"allow-exec", 0, NULL,
+                        "let the plan's exec actions run programs on this machine"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -105,6 +108,9 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
         break;
     case OPT_FORCE:
         ra->ro.force = true;
+        break;
+    case OPT_ALLOW_EXEC:
+        ra->ro.allow_exec = true;
         break;
     }
     return -1;

@@ -39,6 +39,7 @@ struct obs {
     int64_t busy_since_ns, last_answer_ns;
     obs_health_t health;
     int64_t svc_sum_ns, svc_n; /* the open second's service times */
+    char marks[512];           /* the open second's marked instants, ';'-separated */
 };
 
 bool obs_is_error(enum eng_outcome oc)
@@ -168,6 +169,14 @@ void obs_sent(obs_t *l, const obs_sent_t *s)
     for (size_t i = 0; i < N_ENTRIES; i++)
         if (entries[i]->ops->sent)
             entries[i]->ops->sent(l->self[i], s);
+}
+
+void obs_mark(obs_t *l, const char *name)
+{
+    size_t used = strlen(l->marks);
+    /* A name that does not fit is left out of series.csv; results.json has every instant. */
+    if (used + strlen(name) + 2 < sizeof l->marks)
+        snprintf(l->marks + used, sizeof l->marks - used, "%s%s", used ? ";" : "", name);
 }
 
 void obs_answered(obs_t *l, int64_t at_ns)
@@ -357,6 +366,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .busy_since_ns = l->busy_since_ns,
         .last_answer_ns = l->last_answer_ns,
         .bound_why = why,
+        .marks = l->marks,
     };
     obs_health_in_t in = {
         .second = l->sec_index,
@@ -372,6 +382,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         if (entries[i]->ops->second)
             entries[i]->ops->second(l->self[i], &s);
     window_reset(l, now);
+    l->marks[0] = '\0';
 }
 
 static json_t *generator_json(const obs_t *l)
@@ -417,6 +428,5 @@ void obs_totals(const obs_t *l, obs_totals_t *t)
         .sched_lag = l->sched_lag,
     };
     obs_bound_seconds(&l->health.generator, t->generator_seconds, sizeof t->generator_seconds);
-    obs_bound_seconds(&l->health.connections, t->connection_seconds,
-                      sizeof t->connection_seconds);
+    obs_bound_seconds(&l->health.connections, t->connection_seconds, sizeof t->connection_seconds);
 }

@@ -344,7 +344,7 @@ static void on_tick(uv_timer_t *t)
     static const char *const headers[] = {ACCEPT};
     int64_t every_ms = ep->ps->every_ns / 1000000;
     eng_req_t rq = {.method = "GET",
-                    .path = ep->ps->path,
+                    .path = ep->ps->at.path,
                     .headers = headers,
                     .n_headers = 1,
                     .timeout_ms = every_ms < 10000 ? every_ms : 10000,
@@ -471,12 +471,12 @@ json_t *scrape_section(const scrape_t *s)
     json_t *eps = json_array(), *series = json_array();
     for (size_t i = 0; i < s->n_ep; i++) {
         const endpoint_t *ep = &s->ep[i];
-        json_array_append_new(eps,
-                              json_pack("{s:s, s:f, s:s, s:I, s:I, s:I, s:s?}", "url", ep->ps->url,
-                                        "every_s", (double)ep->ps->every_ns / 1e9, "format",
-                                        ep->format, "scrapes", (json_int_t)ep->ok, "failed",
-                                        (json_int_t)ep->failed, "skipped", (json_int_t)ep->skipped,
-                                        "last_error", ep->failed ? ep->last_error : NULL));
+        json_array_append_new(
+            eps,
+            json_pack("{s:s, s:f, s:s, s:I, s:I, s:I, s:s?}", "url", ep->ps->at.url, "every_s",
+                      (double)ep->ps->every_ns / 1e9, "format", ep->format, "scrapes",
+                      (json_int_t)ep->ok, "failed", (json_int_t)ep->failed, "skipped",
+                      (json_int_t)ep->skipped, "last_error", ep->failed ? ep->last_error : NULL));
     }
     json_t *all = json_array();
     derive(s, all);
@@ -492,10 +492,22 @@ json_t *scrape_section(const scrape_t *s)
 
 /* ---- lifecycle ---------------------------------------------------------------------------- */
 
-static bool same_origin(const plan_scrape_t *ps, const plan_target_t *t)
+void scrape_engine_config(const plan_url_t *u, const plan_target_t *t, const eng_config_t *target,
+                          char *origin, size_t cap, eng_config_t *out)
 {
-    return t->host && ps->https == t->https && ps->port == t->port &&
-           strcasecmp(ps->host, t->host) == 0;
+    bool https = u->relative ? t->https : u->https;
+    const char *host = u->relative ? t->host : u->host;
+    int port = u->relative ? t->port : u->port;
+    snprintf(origin, cap, strchr(host ? host : "", ':') ? "%s://[%s]:%d" : "%s://%s:%d",
+             https ? "https" : "http", host ? host : "", port);
+    bool target_origin = u->relative || (t->host && u->https == t->https && u->port == t->port &&
+                                         strcasecmp(u->host, t->host) == 0);
+    *out = target_origin ? *target : (eng_config_t){.http = ENG_HTTP_1_1};
+    out->base_url = origin;
+    out->connections = 1;
+    out->streams = 1;
+    out->on_unreachable = NULL;
+    out->unreachable_after = 0;
 }
 
 static int endpoint_init(struct scrape *s, uv_loop_t *loop, size_t i, const eng_config_t *target)
@@ -504,16 +516,8 @@ static int endpoint_init(struct scrape *s, uv_loop_t *loop, size_t i, const eng_
     const plan_scrape_t *ps = &s->plan->scrapes[i];
     *ep = (endpoint_t){.s = s, .index = (int)i, .ps = ps, .format = "none"};
     char origin[300];
-    snprintf(origin, sizeof origin, strchr(ps->host, ':') ? "%s://[%s]:%d" : "%s://%s:%d",
-             ps->https ? "https" : "http", ps->host, ps->port);
-    eng_config_t cfg = {.http = ENG_HTTP_1_1};
-    if (same_origin(ps, &s->plan->target))
-        cfg = *target; /* TLS, token and headers of the target */
-    cfg.base_url = origin;
-    cfg.connections = 1;
-    cfg.streams = 1;
-    cfg.on_unreachable = NULL;
-    cfg.unreachable_after = 0;
+    eng_config_t cfg;
+    scrape_engine_config(&ps->at, &s->plan->target, target, origin, sizeof origin, &cfg);
     int rc = eng_new(loop, &cfg, s->o, &ep->eng);
     if (rc != 0)
         return rc;
