@@ -33,6 +33,9 @@ typedef struct {
     bool keep;                    /* no teardown; the journal lists what was left */
     bool force;                   /* write into a results directory that already holds results */
     bool allow_exec;              /* let the plan's exec actions run programs (refused otherwise) */
+    const char *metrics_host; /* serve squall's own metrics there while the run goes (NULL:
+                                 no); the command line checks that it is loopback */
+    int metrics_port;
     /* For the record (results.json's "run" section and the report): the --set overrides as
      * given, and the command line. */
     const char *const *overrides;

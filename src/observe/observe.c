@@ -10,10 +10,12 @@
 #include "squall/err.h"
 
 static const obs_entry_t *const entries[] = {
-    &obs_ledger_entry, &obs_storm_entry, &obs_brakes_entry, &obs_series_entry, &obs_live_entry,
+    &obs_ledger_entry, &obs_storm_entry, &obs_brakes_entry,
+    &obs_series_entry, &obs_live_entry,  &obs_export_entry,
 };
 #define N_ENTRIES (sizeof entries / sizeof entries[0])
 #define BRAKES    2 /* entries[BRAKES] */
+#define EXPORT    5 /* entries[EXPORT] */
 
 struct obs {
     obs_cfg_t cfg;
@@ -40,6 +42,7 @@ struct obs {
     obs_health_t health;
     int64_t svc_sum_ns, svc_n; /* the open second's service times */
     char marks[512];           /* the open second's marked instants, ';'-separated */
+    char brake_why[256];       /* the brake that fired, "" until one does */
 };
 
 bool obs_is_error(enum eng_outcome oc)
@@ -81,6 +84,13 @@ static int window_init(obs_t *l)
     return 0;
 }
 
+static void list_brake(void *user, const char *why)
+{
+    obs_t *l = user;
+    snprintf(l->brake_why, sizeof l->brake_why, "%s", why);
+    l->cfg.brake(l->cfg.user, why);
+}
+
 int obs_new(const obs_cfg_t *cfg, obs_t **out)
 {
     *out = NULL;
@@ -92,8 +102,11 @@ int obs_new(const obs_cfg_t *cfg, obs_t **out)
     l->n_classes = cfg->plan->n_reqs + 1;
     l->cells = calloc(l->n_phases * 2 * l->n_classes * ENG_OUT_COUNT, sizeof(*l->cells));
     int rc = l->cells ? window_init(l) : SQ_ENOMEM;
+    obs_cfg_t inner = *cfg; /* a brake that fires is seen by the list, then the conductor */
+    inner.brake = cfg->brake ? list_brake : NULL;
+    inner.user = l;
     for (size_t i = 0; rc == 0 && i < N_ENTRIES; i++)
-        rc = entries[i]->new (cfg, &l->self[i]);
+        rc = entries[i]->new (&inner, &l->self[i]);
     if (rc) {
         obs_free(l);
         return rc;
@@ -169,6 +182,11 @@ void obs_sent(obs_t *l, const obs_sent_t *s)
     for (size_t i = 0; i < N_ENTRIES; i++)
         if (entries[i]->ops->sent)
             entries[i]->ops->sent(l->self[i], s);
+}
+
+void obs_watch(obs_t *l, size_t phase, int cls, enum obs_watch_ev ev)
+{
+    obs_export_watch(l->self[EXPORT], phase, cls, ev);
 }
 
 void obs_mark(obs_t *l, const char *name)
@@ -367,6 +385,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .last_answer_ns = l->last_answer_ns,
         .bound_why = why,
         .marks = l->marks,
+        .brake_fired = l->brake_why,
     };
     obs_health_in_t in = {
         .second = l->sec_index,

@@ -155,6 +155,8 @@ int run_prepare(run_t *r)
                     .o = r->o,
                     .quiet = r->opts->quiet,
                     .no_brakes = r->opts->no_brakes,
+                    .metrics_host = r->opts->metrics_host,
+                    .metrics_port = r->opts->metrics_port,
                     .brake = r->on_brake,
                     .user = r};
     if (rc == 0)
