@@ -60,6 +60,8 @@ size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mar
                         size_t cap);
 /* html_metrics.c: the target's scraped metrics ("metrics" section), when the plan observed any. */
 void html_metrics(FILE *f, const results_t *res, const report_series_t *s);
+/* html_metrics.c: the actions and collects ("actions" section), each saved file linked. */
+void html_actions(FILE *f, const results_t *res);
 /* html_storms.c: the "storms" section's ticks, when a fleet phase ran. */
 void html_storms(FILE *f, const results_t *res);
 void html_plots_time(FILE *f, const results_t *res, const report_series_t *s);

@@ -150,3 +150,66 @@ void html_metrics(FILE *f, const results_t *res, const report_series_t *s)
                 (long long)more);
     fputs("</section>\n", f);
 }
+
+/* What an item did, in a few words: its status, exit code, or why it did not run. */
+static void item_result(FILE *f, json_t *it)
+{
+    const char *err = json_string_value(json_object_get(it, "error"));
+    json_t *code = json_object_get(it, "exit_code"), *status = json_object_get(it, "status");
+    if (json_is_true(json_object_get(it, "timed_out")))
+        fputs("killed at its timeout", f);
+    else if (code)
+        fprintf(f, "exit %lld", (long long)json_integer_value(code));
+    else if (status)
+        fprintf(f, "%lld %s%s", (long long)json_integer_value(status),
+                json_string_value(json_object_get(it, "outcome")),
+                json_is_true(json_object_get(it, "truncated")) ? ", cut at its max" : "");
+    if (err) {
+        fputs(code || status ? "; " : "", f);
+        html_esc(f, err);
+    }
+}
+
+void html_actions(FILE *f, const results_t *res)
+{
+    json_t *items = json_object_get(results_section(res, "actions"), "items"), *it;
+    if (json_array_size(items) == 0)
+        return;
+    int64_t t0 = results_meta(res)->start_unix_ms;
+    fputs("<section id=\"actions\"><h2>Actions and collected artifacts</h2>\n<table><tr>"
+          "<th>name</th><th>kind</th><th>when</th><th class=\"n\">fired (s)</th><th>result</th>"
+          "<th>saved</th></tr>\n",
+          f);
+    size_t i;
+    json_array_foreach(items, i, it)
+    {
+        const char *saved = json_string_value(json_object_get(it, "saved"));
+        json_t *at = json_object_get(it, "fired_unix_ms");
+        fputs("<tr><td>", f);
+        html_esc(f, json_string_value(json_object_get(it, "name")));
+        fputs("</td><td>", f);
+        html_esc(f, json_string_value(json_object_get(it, "kind")));
+        fputs("</td><td>", f);
+        html_esc(f, json_string_value(json_object_get(it, "phase")));
+        fputs(json_object_get(it, "phase") && !json_is_null(json_object_get(it, "phase")) ? " at "
+                                                                                          : "",
+              f);
+        html_esc(f, json_string_value(json_object_get(it, "at")));
+        if (at && t0 > 0)
+            fprintf(f, "</td><td class=\"n\">%.3f</td><td>",
+                    (double)(json_integer_value(at) - t0) / 1000.0);
+        else
+            fputs("</td><td class=\"n\">&#8211;</td><td>", f);
+        item_result(f, it);
+        fputs("</td><td>", f);
+        if (saved) { /* relative to report.html, which sits in the same directory */
+            fputs("<a href=\"", f);
+            html_esc(f, saved);
+            fputs("\">", f);
+            html_esc(f, saved);
+            fputs("</a>", f);
+        }
+        fputs("</td></tr>\n", f);
+    }
+    fputs("</table></section>\n", f);
+}

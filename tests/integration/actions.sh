@@ -107,6 +107,8 @@ ok(f"series.csv marks {sorted(names)}", {"drop-watches", "say", "slow", "stats-e
 sys.exit(1 if bad else 0)
 PY
 check "report.html draws the marks" grep -q '<text[^>]*>drop-watches</text>' "$T/out/report.html"
+check "report.html links the collected artifact" \
+    grep -q '<a href="collected/stats-end.json">' "$T/out/report.html"
 
 # A run stopped by SIGINT 1.5 s into its phase: the action due at 5 s does not fire.
 sed -e '/name: say/d' -e '/name: slow/d' "$T/plan.yaml" >"$T/short.yaml"
