@@ -143,6 +143,15 @@ typedef struct {
     int count;
 } plan_watch_set_t;
 
+/* A replay rule: a POSIX extended regular expression on the recorded path (query included) and
+ * what a match gives: the rewritten path (`{{1}}`..`{{9}}` groups, `{{copy}}`) or a class. */
+typedef struct {
+    const char *match;
+    plan_pos_t pos;
+    const char *to; /* rewrite: the template */
+    plan_ref_t cls; /* classify: the class (resolved by the replay source) */
+} plan_replay_rule_t;
+
 /* A URL squall fetches beside the load: absolute (http:// or https://), or a path ("/...")
  * on the target's origin. */
 typedef struct {
@@ -244,7 +253,24 @@ typedef struct {
     struct {
         bool on;
         const char *log;
-        double speed; /* 1.0 */
+        double speed;        /* 1.0 */
+        plan_kv_t *log_opts; /* format, time-unit, duration-unit, time-at and
+                              * field=NAME=KEY, as alog_config_set takes them */
+        size_t n_log_opts;
+        int64_t from_ns, to_ns; /* window from the log's first record; to 0 = end */
+        bool has_to;
+        const char **methods; /* only these methods (NULL: all) */
+        size_t n_methods;
+        const char *match; /* only paths matching this POSIX ERE (or NULL) */
+        plan_pos_t match_pos;
+        plan_replay_rule_t *rewrite; /* {match, to}: first match rewrites the path */
+        size_t n_rewrite;
+        plan_replay_rule_t *classify; /* {match, class}: first match names the class */
+        size_t n_classify;
+        int copies;                /* 1 */
+        int64_t offset_ns;         /* copy k starts k x offset later (default 1 ms) */
+        enum plan_arrivals spread; /* within a 1 s record's second: even (default) */
+        int get_cls, list_cls;     /* unmatched GET/HEAD: object or collection class */
     } replay;
     plan_action_t *actions; /* in the order of their `at` */
     size_t n_actions;

@@ -28,6 +28,8 @@
 #include <stddef.h>
 #include <stdint.h>
 
+#include "squall/rng.h"
+
 /* ---- Open loop ---------------------------------------------------------------------------- */
 
 enum sched_shape { SCHED_CONSTANT, SCHED_RAMP, SCHED_STEPS };
@@ -188,5 +190,28 @@ double sched_fleet_expected(const sched_fleet_t *f, int64_t t0_ns, int64_t t1_ns
 /* The CLOCK_REALTIME-to-phase offset helper for aligned fleets: the first t >= 0 such that
  * realtime0 + t is a multiple of period. */
 int64_t sched_align_offset(int64_t realtime0_ns, int64_t period_ns);
+
+/* ---- replay: requests recorded within one tick of a coarse log clock ------------------------ */
+
+/* A log with 1 s times (Common Log Format) says only which second a request came in. The n
+ * requests of one such tick are spread over it in their recorded order (so each client's order
+ * is kept): evenly, the k-th at k * width / n, or as a Poisson process conditioned on n arrivals
+ * in the tick, i.e. n sorted uniform points, drawn in increasing order one at a time by
+ * u(k+1) = 1 - (1 - u(k)) * V^(1/(n-k)) (Bentley and Saxe, "Generating sorted lists of random
+ * numbers", ACM TOMS 6(3), 1980). A small value struct; no allocation. */
+typedef struct {
+    bool poisson;
+    rng_t rng;
+    int64_t width_ns;
+    uint64_t n, k;
+    double u; /* the last point, in [0, 1) */
+} sched_spread_t;
+
+void sched_spread_init(sched_spread_t *s, bool poisson, uint64_t seed);
+/* A new tick of width_ns holding n requests. */
+void sched_spread_tick(sched_spread_t *s, int64_t width_ns, uint64_t n);
+/* The next request's offset into the tick, in [0, width) and non-decreasing; after n calls the
+ * tick is used up and further calls return the last offset. */
+int64_t sched_spread_next(sched_spread_t *s);
 
 #endif

@@ -52,6 +52,8 @@ typedef struct {
     int history;             /* events kept for watch resumption */
     long long stream_buffer; /* bytes queued per watch stream before it is closed */
     uint64_t seed;           /* for the random faults */
+    const char *access_log;  /* a file the target appends one line per request to, or NULL */
+    bool access_log_ndjson;  /* NDJSON lines (profile's default fields); else Common Log Format */
     server_faults_t faults;
 } server_opts_t;
 

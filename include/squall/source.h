@@ -128,7 +128,7 @@ typedef struct src_ops {
 extern const src_ops_t *const src_table[];
 
 extern const src_ops_t src_open_ops, src_closed_ops, src_fleet_ops, src_watches_ops, src_churn_ops,
-    src_teardown_ops;
+    src_teardown_ops, src_replay_ops;
 
 /* A built source: its ops, its state, its phase. */
 struct src {
@@ -168,6 +168,12 @@ void src_issuer_attach(src_issuer_t *is, eng_t *eng);
 /* Renders and submits one request for `from`; its done() is called when it finished. Returns
  * 0 (also when a {{pick}} pool is empty and nothing is sent), or a template or engine error. */
 int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req);
+/* Submits one recorded request (replay) as class req->cls: the given method and path (already
+ * validated: an RFC 9110 token, an origin-form path), the class's body template rendered for a
+ * write (a write class without a body is refused: SQ_EINVAL), a list sent as one page (the log
+ * holds the pages that followed). The engine copies method and path. */
+int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
+                 const char *path);
 /* Whether lists may fetch further pages (false once the run stops starting requests). */
 void src_issuer_paging(src_issuer_t *is, bool on);
 const src_class_t *src_class(const src_issuer_t *is, int cls);

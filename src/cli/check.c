@@ -88,9 +88,14 @@ static void print_shape(const plan_phase_t *ph, const src_estimate_t *e, out_t *
     if (ph->churn.on)
         out_print(o, "    churn: %g/s around a population of %d\n", ph->churn.rate,
                   ph->churn.population);
-    if (ph->replay.on)
-        out_print(o, "    replay: %s at x%g (counts come from the log)\n", ph->replay.log,
-                  ph->replay.speed);
+    if (ph->replay.on) {
+        char off[32];
+        out_print(o, "    replay: %s at x%g, %d cop%s%s%s (counts come from the log)\n",
+                  ph->replay.log, ph->replay.speed, ph->replay.copies,
+                  ph->replay.copies > 1 ? "ies " : "y",
+                  ph->replay.copies > 1 ? dur_str(ph->replay.offset_ns, off, sizeof off) : "",
+                  ph->replay.copies > 1 ? " apart" : "");
+    }
 }
 
 static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, out_t *o)

@@ -27,7 +27,9 @@ enum {
     O_BODY_LIMIT,
     O_HISTORY,
     O_STREAM_BUFFER,
-    O_SEED
+    O_SEED,
+    O_ACCESS_LOG,
+    O_ACCESS_LOG_FORMAT
 };
 
 static const cli_opt_t serve_opts[] = {
@@ -48,6 +50,8 @@ static const cli_opt_t serve_opts[] = {
     {"history", 0, "N", "events kept for watch resumption (default 10000)"},
     {"stream-buffer", 0, "BYTES", "bytes queued per watch before it is closed (default 1048576)"},
     {"seed", 0, "N", "seed for the random faults (default 1)"},
+    {"access-log", 0, "FILE", "append one line per request to FILE (as nginx logs: at its end)"},
+    {"access-log-format", 0, "FMT", "common (Common Log Format, default) or ndjson"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -160,6 +164,15 @@ static int read_opt(int k, const char *v, server_opts_t *t, char *host, const ch
     case O_STALL_FOR:
     case O_DROP_AT:
         return read_duration(k, v, f, need);
+    case O_ACCESS_LOG:
+        t->access_log = v;
+        return 0;
+    case O_ACCESS_LOG_FORMAT:
+        *need = "common or ndjson";
+        if (strcmp(v, "common") != 0 && strcmp(v, "ndjson") != 0)
+            return SQ_EPARSE;
+        t->access_log_ndjson = strcmp(v, "ndjson") == 0;
+        return 0;
     case O_OVER_LIMIT:
         *need = "queue or reject";
         if (strcmp(v, "reject") != 0 && strcmp(v, "queue") != 0)
@@ -244,15 +257,16 @@ static int serve_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 
 const cli_cmd_t cli_cmd_serve = {
     .name = "serve",
-    .summary = "run the embedded control-plane-like target (store, watches, fault injection)",
+    .summary = "run the embedded control-plane-like target (store, watches, faults, access log)",
     .usage = "[--listen ADDR:PORT] [fault options]...",
     .description =
         "Serves a versioned JSON object store under /v1/ (GET, list with ?limit= and\n"
         "?continue=, PUT/POST, PATCH as JSON merge patch, DELETE, ?version=V for\n"
         "compare-and-swap), watch streams (?watch=1&since=V, NDJSON), GET /stats and\n"
         "GET /metrics, and fault injection set by the options below or at run time with\n"
-        "POST /admin/faults (a JSON body) and POST /admin/drop-watches. Stops on SIGINT or\n"
-        "SIGTERM.",
+        "POST /admin/faults (a JSON body) and POST /admin/drop-watches. With --access-log\n"
+        "it writes its own access log (Common Log Format, or NDJSON with the fields\n"
+        "`squall profile` reads by default). Stops on SIGINT or SIGTERM.",
     .opts = serve_opts,
     .main = serve_main,
 };

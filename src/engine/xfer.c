@@ -206,6 +206,12 @@ static void set_method(struct eng_xfer *x)
     CURL *c = x->easy;
     const char *m = x->req.method;
     bool has_body = x->req.body != NULL;
+    /* HEAD is answered without a body: libcurl must not wait for one (CURLOPT_NOBODY). */
+    curl_easy_setopt(c, CURLOPT_NOBODY, (long)(!has_body && strcmp(m, "HEAD") == 0));
+    if (!has_body && strcmp(m, "HEAD") == 0) {
+        curl_easy_setopt(c, CURLOPT_CUSTOMREQUEST, NULL);
+        return;
+    }
     if (!has_body && strcmp(m, "GET") == 0) {
         curl_easy_setopt(c, CURLOPT_HTTPGET, 1L);
         curl_easy_setopt(c, CURLOPT_CUSTOMREQUEST, NULL);

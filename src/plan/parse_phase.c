@@ -283,22 +283,6 @@ static void parse_teardown(pctx_t *c, yaml_node_t *phase, const char *where, pla
     pc_bool(c, phase, "teardown", where, &ph->teardown.on);
 }
 
-static void parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
-{
-    static const char *const keys[] = {"log", "speed", NULL};
-    char w[200];
-    snprintf(w, sizeof w, "%s.replay", where);
-    if (!pc_expect_map(c, n, w))
-        return;
-    pc_check_keys(c, n, w, keys);
-    ph->replay.on = true;
-    ph->replay.speed = 1.0;
-    if (!pc_get(c, n, "log"))
-        pc_error(c, n, "%s: missing key 'log' (expected an access log path, got nothing)", w);
-    pc_path(c, n, "log", w, &ph->replay.log);
-    pc_num(c, n, "speed", w, 0.001, 1000, &ph->replay.speed);
-}
-
 static void parse_shape(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
     static const char *const shapes[] = {"rate", "ramp", "steps"};
@@ -425,7 +409,7 @@ static void parse_one(pctx_t *c, yaml_node_t *n, size_t index)
     if (pc_get(c, n, "teardown"))
         parse_teardown(c, n, where, &ph);
     if (pc_get(c, n, "replay"))
-        parse_replay(c, pc_get(c, n, "replay"), where, &ph);
+        plan_parse_replay(c, pc_get(c, n, "replay"), where, &ph);
     check_sources(c, n, where, &ph);
     if (pc_get(c, n, "actions"))
         plan_parse_actions(c, pc_get(c, n, "actions"), where, &ph);

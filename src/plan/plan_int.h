@@ -99,6 +99,8 @@ void plan_parse_target(pctx_t *c, yaml_node_t *n);
 void plan_parse_vars(pctx_t *c, yaml_node_t *n);
 void plan_parse_requests(pctx_t *c, yaml_node_t *n);
 void plan_parse_phases(pctx_t *c, yaml_node_t *n);
+/* A phase's replay: key (parse_replay.c); adds the replay-get and replay-list classes. */
+void plan_parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph);
 void plan_parse_objectives(pctx_t *c, yaml_node_t *n);
 void plan_parse_brakes(pctx_t *c, yaml_node_t *n);
 void plan_parse_accept(pctx_t *c, yaml_node_t *n);

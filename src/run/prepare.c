@@ -55,29 +55,12 @@ int run_phases_init(run_t *r)
     return 0;
 }
 
-/* A phase this build has no source for (the table has no replay yet) is refused, by `check`
- * as by `run`, naming its position. */
-static int unsupported(const run_t *r, size_t i)
-{
-    const plan_phase_t *pp = i < r->plan->n_phases ? &r->plan->phases[i] : NULL;
-    if (!pp || !pp->replay.on)
-        return 0;
-    out_raw(r->o, OUT_ERROR,
-            "%s:%d:%d: error: phase '%s' uses replay, which this build of squall cannot run yet",
-            pp->pos.file, pp->pos.line, pp->pos.col, pp->name);
-    return SQ_EINVAL;
-}
-
 /* Every phase's sources, built as they will be at the phase's start and freed again: their
  * own validation (shapes, open files, the teardown's position). */
 static int validate_sources(run_t *r)
 {
     int bad = 0;
     for (size_t i = 0; i < r->n_phases; i++) {
-        if (unsupported(r, i)) {
-            bad = 1;
-            continue;
-        }
         src_ctx_t ctx = run_src_ctx(r, i);
         ctx.loop = NULL;
         ctx.realtime0_ns = clock_real_ns();

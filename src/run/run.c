@@ -251,6 +251,12 @@ static void on_prepare(uv_prepare_t *c)
         drained(r, now);
     if ((r->state == RUN_TEARDOWN && sources_idle(current(r))) || r->state == RUN_ENDING)
         ending(r);
+    /* An open-ended phase that is not a teardown (a replay) ends when its log is used up. */
+    if (r->state == RUN_LOADING && !current(r)->duration_ns && !current(r)->teardown &&
+        sources_idle(current(r))) {
+        current(r)->duration_ns = now - current(r)->base_ns;
+        next_phase(r, now);
+    }
     if (r->state != RUN_DONE)
         rearm(r, now);
 }

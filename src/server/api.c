@@ -42,6 +42,7 @@ static enum MHD_Result reply_obj(srv_server_t *sv, struct MHD_Connection *conn, 
     if (status == 201)
         MHD_add_response_header(r, "Location", o->path);
     srv_reply_count(sv, method, status);
+    srv_access_status(conn, status);
     enum MHD_Result rc = MHD_queue_response(conn, status, r);
     MHD_destroy_response(r);
     return rc;

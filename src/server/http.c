@@ -5,6 +5,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "server_int.h"
 
@@ -12,6 +13,8 @@ struct srv_req {
     srv_server_t *sv;
     struct MHD_Connection *conn;
     uint64_t t0, due;
+    int64_t wall0; /* CLOCK_REALTIME at receipt, for the access log */
+    char method_text[16];
     int method;
     bool v1, watch, answered, admitted, delayed, stall_counted, too_large;
     srv_buf_t body;
@@ -330,6 +333,8 @@ static srv_req_t *req_new(srv_server_t *sv, struct MHD_Connection *conn, const c
     q->sv = sv;
     q->conn = conn;
     q->t0 = uv_hrtime();
+    q->wall0 = clock_real_ns();
+    snprintf(q->method_text, sizeof q->method_text, "%s", method);
     q->method = method_index(method);
     q->v1 = strncmp(url, "/v1/", 4) == 0 || strcmp(url, "/v1") == 0;
     return q;
@@ -392,7 +397,6 @@ void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
 {
     srv_server_t *sv = cls;
     srv_req_t *q = *con_cls;
-    (void)conn;
     if (!q)
         return;
     if (code == MHD_REQUEST_TERMINATED_COMPLETED_OK && q->v1 && !q->watch && q->answered) {
@@ -400,6 +404,8 @@ void srv_http_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
         hist_record(sv->latency, ns);
         sv->latency_sum_s += (double)ns / 1e9;
     }
+    if (sv->access_log)
+        srv_access_write(sv, conn, q->method_text, q->wall0, (int64_t)(uv_hrtime() - q->t0));
     drop_timer(q);
     slot_free(q);
     srv_buf_free(&q->body);

@@ -18,6 +18,7 @@ static enum MHD_Result queue(srv_server_t *sv, struct MHD_Connection *conn, int 
     if (!r)
         return MHD_NO;
     srv_reply_count(sv, method, status);
+    srv_access_status(conn, status);
     enum MHD_Result rc = MHD_queue_response(conn, status, r);
     MHD_destroy_response(r);
     return rc;

@@ -64,9 +64,13 @@ static void kick(srv_server_t *sv)
         uv_idle_start(&sv->idle, on_idle);
 }
 
+/* Every 2 s: parked streams whose client left, and the access log's buffer to its file. */
 static void on_sweep(uv_timer_t *h)
 {
-    srv_stream_sweep(h->data);
+    srv_server_t *sv = h->data;
+    srv_stream_sweep(sv);
+    if (sv->access_log)
+        fflush(sv->access_log);
 }
 
 static void mhd_log(void *cls, const char *fmt, va_list ap)
@@ -105,10 +109,11 @@ static int start_mhd(srv_server_t *sv, struct sockaddr_storage *ss, int family)
         flags |= MHD_USE_IPv6;
     sv->mhd = MHD_start_daemon(
         flags, 0, NULL, NULL, srv_http_access, sv, MHD_OPTION_SOCK_ADDR, (struct sockaddr *)ss,
-        MHD_OPTION_NOTIFY_COMPLETED, srv_http_completed, sv, MHD_OPTION_EXTERNAL_LOGGER, mhd_log,
-        sv, MHD_OPTION_CONNECTION_LIMIT, (unsigned)30000, MHD_OPTION_CONNECTION_TIMEOUT,
-        (unsigned)0, MHD_OPTION_CONNECTION_MEMORY_LIMIT, (size_t)8192,
-        MHD_OPTION_LISTEN_BACKLOG_SIZE, (unsigned)4096, MHD_OPTION_END);
+        MHD_OPTION_NOTIFY_COMPLETED, srv_http_completed, sv, MHD_OPTION_NOTIFY_CONNECTION,
+        srv_access_conn, sv, MHD_OPTION_URI_LOG_CALLBACK, srv_access_uri, sv,
+        MHD_OPTION_EXTERNAL_LOGGER, mhd_log, sv, MHD_OPTION_CONNECTION_LIMIT, (unsigned)30000,
+        MHD_OPTION_CONNECTION_TIMEOUT, (unsigned)0, MHD_OPTION_CONNECTION_MEMORY_LIMIT,
+        (size_t)8192, MHD_OPTION_LISTEN_BACKLOG_SIZE, (unsigned)4096, MHD_OPTION_END);
     if (!sv->mhd)
         return SQ_EIO;
     const union MHD_DaemonInfo *ep = MHD_get_daemon_info(sv->mhd, MHD_DAEMON_INFO_EPOLL_FD);
@@ -145,6 +150,11 @@ int server_start(uv_loop_t *loop, const server_opts_t *opts, out_t *o, server_t 
     sv->store.on_event_arg = sv;
     if (hist_new_ns(&sv->latency) < 0)
         goto fail_store;
+    if (opts->access_log && !(sv->access_log = fopen(opts->access_log, "a"))) {
+        out_error(o, "serve: cannot open the access log %s", opts->access_log);
+        rc = SQ_EIO;
+        goto fail_hist;
+    }
     rc = start_mhd(sv, &ss, family);
     if (rc < 0) {
         out_error(o, "serve: cannot listen on %s port %d (in use, or not an address here?)",
@@ -164,6 +174,8 @@ int server_start(uv_loop_t *loop, const server_opts_t *opts, out_t *o, server_t 
     *out = t;
     return 0;
 fail_hist:
+    if (sv->access_log)
+        fclose(sv->access_log);
     hist_free(sv->latency);
 fail_store:
     srv_store_close(&sv->store);
@@ -187,6 +199,8 @@ static void on_closed(uv_handle_t *h)
     void *arg = sv->on_stopped_arg;
     hist_free(sv->latency);
     srv_store_close(&sv->store);
+    if (sv->access_log)
+        fclose(sv->access_log);
     free((server_t *)sv); /* sv is the first member of server_t */
     if (cb)
         cb(arg);

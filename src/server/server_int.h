@@ -1,10 +1,10 @@
 /* Internals of the embedded server ("the embedded target" to users), shared by the files of
  * src/server/ only. Its layers, each file calling only files to its right (tools/layers checks):
- * server.c -> http.c -> api.c -> stream.c -> reply.c -> report.c -> fault.c -> store.c -> buf.c
+ * server.c -> http.c -> api.c -> stream.c -> reply.c -> report.c -> fault.c -> store.c -> buf.c -> access.c
  *
  * server.c: lifecycle on the libuv loop. http.c: libmicrohttpd's handlers, the request
  * lifecycle, fault steps, admin and report routes. api.c: the /v1/ routes. stream.c: watch
- * streams. reply.c: answers and their counts. report.c: /stats, /metrics, fault counts.
+ * streams. reply.c: answers and their counts. access.c: the access log (--access-log). report.c: /stats, /metrics, fault counts.
  * fault.c: fault settings and draws. store.c: objects, collections, versions, history. buf.c: a
  * growable byte buffer. Where a lower file must reach up it calls a hook installed from above:
  * sv->kick (run libmicrohttpd again soon) and store.on_event (publish a write to watchers).
@@ -16,6 +16,7 @@
 #include <microhttpd.h>
 #include <stddef.h>
 #include <stdint.h>
+#include <stdio.h>
 
 #include "squall/hist.h"
 #include "squall/rng.h"
@@ -177,11 +178,22 @@ struct srv_server {
     srv_req_t *held; /* suspended requests (stalled, delayed, queued), for shutdown */
     srv_req_t *queue_head, *queue_tail; /* waiting for an in-flight slot, FIFO */
     srv_stream_t *all_streams;
+    FILE *access_log; /* --access-log, or NULL */
 };
 
 struct server {
     srv_server_t sv;
 };
+
+/* access.c: the access log (the connection's request target and status, kept per connection). */
+typedef struct srv_conn_log srv_conn_log_t;
+void srv_access_conn(void *cls, struct MHD_Connection *conn, void **socket_context,
+                     enum MHD_ConnectionNotificationCode code);
+void *srv_access_uri(void *cls, const char *uri, struct MHD_Connection *conn);
+void srv_access_status(struct MHD_Connection *conn, unsigned status);
+/* One line for a request that ended: received at wall_ns (CLOCK_REALTIME), dur_ns long. */
+void srv_access_write(srv_server_t *sv, struct MHD_Connection *conn, const char *method,
+                      int64_t wall_ns, int64_t dur_ns);
 
 /* http.c */
 enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const char *url,

@@ -165,6 +165,7 @@ enum MHD_Result srv_stream_open(srv_server_t *sv, struct MHD_Connection *conn, c
     char v[32];
     snprintf(v, sizeof(v), "%llu", (unsigned long long)s->version);
     MHD_add_response_header(r, "X-Squall-Version", v);
+    srv_access_status(conn, 200);
     enum MHD_Result rc = MHD_queue_response(conn, 200, r);
     MHD_destroy_response(r);
     srv_reply_count(sv, SRV_M_GET, 200);

@@ -32,7 +32,7 @@ static double open_peak(const plan_phase_t *ph)
 /* Rates, bursts and counts of the phase as the plan writes them. */
 static void describe(const plan_phase_t *ph, src_estimate_t *e)
 {
-    e->peak_rate = open_peak(ph);
+    e->peak_rate += open_peak(ph); /* after model(): a replay added its own */
     if (ph->clients.on) {
         e->closed_loop = true;
         e->clients = ph->clients.count;
@@ -90,6 +90,19 @@ static void count_objects(const plan_t *p, const plan_phase_t *ph, double alive,
     e->alive_after = avail - e->deleted > 0 ? avail - e->deleted : 0;
 }
 
+/* A replay's peak: its starts second by second until all of them are counted (at most a
+ * year of seconds). */
+static double replay_peak(const src_t *s, double total)
+{
+    double peak = 0, sum = 0;
+    for (int64_t k = 0; sum < total - 0.5 && k < INT64_C(366) * 86400; k++) {
+        double n = s->ops->expected(s->self, k * 1000000000, (k + 1) * 1000000000, NULL);
+        peak = n > peak ? n : peak;
+        sum += n;
+    }
+    return peak;
+}
+
 /* The phase's sources, built as a run would build them, asked for [0, duration). */
 static int model(const src_ctx_t *ctx, const plan_phase_t *ph, double *torn, src_estimate_t *e)
 {
@@ -105,6 +118,8 @@ static int model(const src_ctx_t *ctx, const plan_phase_t *ph, double *torn, src
         double got = s[k].ops->expected ? s[k].ops->expected(s[k].self, 0, end, e->per_class) : 0;
         if (s[k].ops == &src_teardown_ops)
             *torn = got;
+        if (s[k].ops == &src_replay_ops)
+            e->peak_rate += replay_peak(&s[k], got);
         s[k].ops->free(s[k].self);
     }
     return 0;

@@ -19,7 +19,9 @@ typedef struct req {
     int cls, client, agent, pages;
     int64_t first_intended_ns; /* of page 1, for the whole-list sample */
     int64_t bytes_in, bytes_out;
-    char *base_path; /* lists: page 1's path for the following pages; writes: the object */
+    char *base_path;    /* lists: page 1's path for the following pages; writes: the object */
+    const char *method; /* a replayed request's own method (NULL: the class's) */
+    bool one_page;      /* a replayed list: the log holds its further pages */
     struct req *next_free;
 } req_t;
 
@@ -239,7 +241,9 @@ static int submit(src_issuer_t *is, req_t *q, const char *path, int64_t intended
 {
     const src_class_t *c = &is->classes[q->cls];
     eng_req_t er = {
-        .method = c->pr->kind == PLAN_WRITE ? c->pr->write.method : "GET",
+        .method = q->method                   ? q->method
+                  : c->pr->kind == PLAN_WRITE ? c->pr->write.method
+                                              : "GET",
         .path = path,
         .headers = c->headers,
         .n_headers = c->n_headers,
@@ -317,7 +321,7 @@ static void on_done(void *user, const eng_result_t *res)
     q->pages++;
     q->bytes_in += res->bytes_in;
     q->bytes_out += res->bytes_out;
-    if (is->classes[q->cls].paginate) {
+    if (is->classes[q->cls].paginate && !q->one_page) {
         if (res->outcome == ENG_OUT_S2XX && next_page(is, q, res))
             return;
         d.whole = true;
@@ -342,26 +346,12 @@ static const char *first_path(const src_class_t *c, const char *path, char *buf,
     return n > 0 && (size_t)n < cap ? buf : NULL;
 }
 
-int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req)
+/* A request context for `req` of `from`, submitted at path; `base` (copied, may be NULL) is
+ * what a list's later pages or a write's object are built from; `method` overrides the class's
+ * (a replayed request, sent as one page). */
+static int send_new(src_issuer_t *is, src_t *from, const src_req_t *req, const char *path,
+                    const char *base, const char *method)
 {
-    src_class_t *c = &is->classes[req->cls];
-    if (!ledger_ready(obs_ledger(is->obs), req->cls))
-        return 0; /* a {{pick}} pool is empty: nothing to send */
-    tmpl_ctx_t ctx = {
-        .agent = req->agent,
-        .seq = c->seq++,
-        .phase = from->phase < is->plan->n_phases ? is->plan->phases[from->phase].name : "teardown",
-        .rng = &is->rng,
-    };
-    int rc = tmpl_render(c->path, &ctx, &is->path_buf);
-    if (rc == 0 && c->body)
-        rc = tmpl_render(c->body, &ctx, &is->body_buf);
-    if (rc)
-        return rc;
-    char paged[4096];
-    const char *path = first_path(c, is->path_buf.data, paged, sizeof paged);
-    if (!path)
-        return SQ_ELIMIT;
     req_t *q = req_take(is);
     if (!q)
         return SQ_ENOMEM;
@@ -370,14 +360,58 @@ int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req)
                  .cls = req->cls,
                  .client = req->client,
                  .agent = req->agent,
-                 .first_intended_ns = req->intended_ns};
-    bool track = c->paginate || c->pr->kind == PLAN_WRITE;
-    if (track && !(q->base_path = strdup(is->path_buf.data))) {
+                 .first_intended_ns = req->intended_ns,
+                 .method = method,
+                 .one_page = method != NULL};
+    if (base && !(q->base_path = strdup(base))) {
         req_give(is, q);
         return SQ_ENOMEM;
     }
-    rc = submit(is, q, path, req->intended_ns);
+    int rc = submit(is, q, path, req->intended_ns);
     if (rc)
         req_give(is, q);
     return rc;
+}
+
+/* Renders the class's templates for one request: the path (unless path is false) and the body
+ * of a write. */
+static int render(src_issuer_t *is, src_t *from, const src_req_t *req, bool path)
+{
+    src_class_t *c = &is->classes[req->cls];
+    tmpl_ctx_t ctx = {
+        .agent = req->agent,
+        .seq = c->seq++,
+        .phase = from->phase < is->plan->n_phases ? is->plan->phases[from->phase].name : "teardown",
+        .rng = &is->rng,
+    };
+    int rc = path ? tmpl_render(c->path, &ctx, &is->path_buf) : 0;
+    if (rc == 0 && c->body)
+        rc = tmpl_render(c->body, &ctx, &is->body_buf);
+    return rc;
+}
+
+int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req)
+{
+    src_class_t *c = &is->classes[req->cls];
+    if (!ledger_ready(obs_ledger(is->obs), req->cls))
+        return 0; /* a {{pick}} pool is empty: nothing to send */
+    int rc = render(is, from, req, true);
+    if (rc)
+        return rc;
+    char paged[4096];
+    const char *path = first_path(c, is->path_buf.data, paged, sizeof paged);
+    if (!path)
+        return SQ_ELIMIT;
+    bool track = c->paginate || c->pr->kind == PLAN_WRITE;
+    return send_new(is, from, req, path, track ? is->path_buf.data : NULL, NULL);
+}
+
+int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
+                 const char *path)
+{
+    src_class_t *c = &is->classes[req->cls];
+    if (c->pr->kind == PLAN_WRITE && !c->body)
+        return SQ_EINVAL;
+    int rc = render(is, from, req, false);
+    return rc ? rc : send_new(is, from, req, path, c->pr->kind == PLAN_WRITE ? path : NULL, method);
 }

@@ -7,7 +7,7 @@
 
 const src_ops_t *const src_table[] = {
     &src_open_ops,  &src_closed_ops,   &src_fleet_ops, &src_watches_ops,
-    &src_churn_ops, &src_teardown_ops, NULL,
+    &src_churn_ops, &src_teardown_ops, &src_replay_ops, NULL,
 };
 
 int src_phase_new(const src_ctx_t *ctx, src_t *out, size_t *n_out)

@@ -160,7 +160,13 @@ phases:
 refused missing-log "$base
   read: {kind: get, path: /v1/gateways}
 phases:
-  - {name: yesterday, replay: {log: no-such-access.log}}" "phase 'yesterday' uses replay"
+  - {name: yesterday, replay: {log: no-such-access.log}}" "phase 'yesterday': replay: .*no-such-access.log"
+# The garbage corpus (tests/data/logs/README.md) is refused before any traffic, naming the
+# format it expected.
+refused garbage-log "$base
+  read: {kind: get, path: /v1/gateways}
+phases:
+  - {name: yesterday, replay: {log: $SRCDIR/tests/data/logs/garbage.log}}" "not a log squall reads: no format parses half.*Common Log Format"
 refused token-unset "target: {url: \"http://127.0.0.1:9\", token: {env: SQUALL_TEST_NO_SUCH_TOKEN}}
 requests:
   read: {kind: get, path: /v1/gateways}

@@ -327,7 +327,7 @@ static void test_overrides(void **state)
 
 /* Paths are joined with the plan's directory; the URL's trailing slash is dropped and
  * "localhost" counts as loopback. A closed loop without think time has no upper bound, so
- * its estimate counts nothing; a replay phase's counts come from its log. */
+ * its estimate counts nothing; a replay phase's counts come from its log (read by its source). */
 static void test_paths_and_open_counts(void **state)
 {
     (void)state;
@@ -357,6 +357,11 @@ static void test_paths_and_open_counts(void **state)
     assert_int_equal(e.watches, 20);
     estimate(p, 1, &e);
     assert_true(e.replay && e.open_ended);
+    /* logs/access.log: the Apache docs' example line and two more (a list, a HEAD). */
+    assert_double_equal(e.requests, 3, 1e-9);
+    assert_double_equal(per_class(p, &e, "replay-list"), 1, 1e-9);
+    /* At speed 2 the first second's two requests start at 0 and 0.25 s, the third at 1 s. */
+    assert_double_equal(e.peak_rate, 2, 1e-9);
     plan_free(p);
 }
 

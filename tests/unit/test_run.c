@@ -22,6 +22,9 @@
 #include "squall/err.h"
 #include "squall/results.h"
 #include "squall/run.h"
+#include "squall/source.h"
+#include <jansson.h>
+#include <math.h>
 
 typedef struct {
     char dir[64];
@@ -79,6 +82,12 @@ static int64_t count(const run_case_t *c, const char *phase, const char *cls, co
 {
     results_cell_t *cell = results_cell_find(c->results, phase, cls, oc);
     return cell ? results_cell_counters(cell)->count : 0;
+}
+
+static int cmp_ms(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
 }
 
 static int logged(const char *method, const char *prefix)
@@ -317,6 +326,31 @@ static void test_closed_loop_think(void **state)
     case_close(&c);
 }
 
+/* Sums series.csv's started and planned columns over every row. */
+static void series_totals(const run_case_t *c, double *planned, long *started)
+{
+    char path[200], line[512];
+    snprintf(path, sizeof path, "%s/out/series.csv", c->dir);
+    FILE *f = fopen(path, "r");
+    assert_non_null(f);
+    *planned = 0;
+    *started = 0;
+    assert_non_null(fgets(line, sizeof line, f)); /* header */
+    while (fgets(line, sizeof line, f)) {
+        char *fld[13] = {0};
+        int n = 0;
+        for (char *t = strtok(line, ",\n"); t && n < 13; t = strtok(NULL, ",\n"))
+            fld[n++] = t;
+        assert_int_equal(n, 13);
+        /* unix_ms: the second's wall-clock start, within the run (results.json's start). */
+        int64_t unix_ms = atoll(fld[12]), start = results_meta(c->results)->start_unix_ms;
+        assert_true(unix_ms >= start - 1000 && unix_ms <= start + 10000);
+        *started += atol(fld[3]);
+        *planned += atof(fld[11]);
+    }
+    fclose(f);
+}
+
 /* series.csv's planned column: the sources' own model, second by second, adds up to what the
  * plan sends (even 40/s over 1.5 s = 60) and to what was started. */
 static void test_planned_in_series(void **state)
@@ -328,29 +362,149 @@ static void test_planned_in_series(void **state)
              "requests:\n  a: {kind: get, path: /a}\n"
              "phases:\n  - {name: p, rate: 40/s, duration: 1500ms, mix: {a: 1}}\n",
              NULL);
-    char path[200], line[512];
-    snprintf(path, sizeof path, "%s/out/series.csv", c.dir);
-    FILE *f = fopen(path, "r");
-    assert_non_null(f);
-    double planned = 0;
-    long started = 0;
-    assert_non_null(fgets(line, sizeof line, f)); /* header */
-    while (fgets(line, sizeof line, f)) {
-        char *fld[13] = {0};
-        int n = 0;
-        for (char *t = strtok(line, ",\n"); t && n < 13; t = strtok(NULL, ",\n"))
-            fld[n++] = t;
-        assert_int_equal(n, 13);
-        /* unix_ms: the second's wall-clock start, within the run (results.json's start). */
-        int64_t unix_ms = atoll(fld[12]), start = results_meta(c.results)->start_unix_ms;
-        assert_true(unix_ms >= start - 1000 && unix_ms <= start + 10000);
-        started += atol(fld[3]);
-        planned += atof(fld[11]);
-    }
-    fclose(f);
+    double planned;
+    long started;
+    series_totals(&c, &planned, &started);
     assert_int_equal(started, 60);
     assert_true(planned > 59.999 && planned < 60.001);
     case_close(&c);
+}
+
+/* Writes a log to a fresh temporary file; returns its path (static). */
+static const char *write_log(const char *text)
+{
+    static char path[64];
+    snprintf(path, sizeof path, "/tmp/squall-replay-XXXXXX");
+    int fd = mkstemp(path);
+    assert_true(fd >= 0);
+    assert_int_equal(write(fd, text, strlen(text)), (ssize_t)strlen(text));
+    close(fd);
+    return path;
+}
+
+/* The intended starts (ms after the first) of the logged requests whose path starts with
+ * prefix, in log order, into ms; returns how many. */
+static int starts_ms(const char *prefix, double *ms, int cap)
+{
+    int n = 0;
+    int64_t first = INT64_MAX;
+    for (int i = 0; i < fake.n_log; i++)
+        if (!strncmp(fake.log[i].path, prefix, strlen(prefix)) && fake.log[i].intended_ns < first)
+            first = fake.log[i].intended_ns;
+    for (int i = 0; i < fake.n_log && n < cap; i++)
+        if (!strncmp(fake.log[i].path, prefix, strlen(prefix)))
+            ms[n++] = (double)(fake.log[i].intended_ns - first) / 1e6;
+    qsort(ms, (size_t)n, sizeof(*ms), cmp_ms);
+    return n;
+}
+
+/* A Common Log Format log (1 s times: Apache httpd docs, "Log Files") of 4 requests in its
+ * first second, 2 in the next and 1 two seconds later: spread evenly over each second (the k-th
+ * of n at k/n s), at speed 2 every instant halves; a write without a body rule and a watch are
+ * skipped and counted; HEAD goes out as HEAD; `copies: 2` with `offset: 5ms` sends each twice,
+ * the second copy 5 ms later with its own {{copy}}. */
+static const char clf_log[] =
+    "10.0.0.1 - gw-1 [10/Oct/2000:13:55:36 -0700] \"GET /api/gw/1 HTTP/1.1\" 200 10\n"
+    "10.0.0.2 - gw-2 [10/Oct/2000:13:55:36 -0700] \"GET /api/gw/2 HTTP/1.1\" 200 10\n"
+    "10.0.0.3 - gw-3 [10/Oct/2000:13:55:36 -0700] \"HEAD /api/gw/3 HTTP/1.1\" 200 -\n"
+    "10.0.0.4 - gw-4 [10/Oct/2000:13:55:36 -0700] \"GET /api/gateways HTTP/1.1\" 200 10\n"
+    "10.0.0.5 - gw-5 [10/Oct/2000:13:55:37 -0700] \"PUT /api/leases/5 HTTP/1.1\" 200 10\n"
+    "10.0.0.6 - gw-6 [10/Oct/2000:13:55:37 -0700] \"GET /api/gw/6 HTTP/1.1\" 200 10\n"
+    "10.0.0.7 - gw-7 [10/Oct/2000:13:55:37 -0700] \"POST /api/events HTTP/1.1\" 201 10\n"
+    "10.0.0.8 - gw-8 [10/Oct/2000:13:55:37 -0700] \"GET /api/gateways?watch=1 HTTP/1.1\" 200 10\n"
+    "10.0.0.9 - gw-9 [10/Oct/2000:13:55:39 -0700] \"GET /api/gw/9 HTTP/1.1\" 200 10\n";
+
+static void replay_case(run_case_t *c, const char *log, const char *extra)
+{
+    char yaml[1024];
+    snprintf(yaml, sizeof yaml,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n"
+             "  renew: {kind: write, method: PUT, path: /, body: '{\"a\":{{agent}}}'}\n"
+             "phases:\n  - name: r\n    replay:\n      log: %s\n"
+             "      rewrite: [{match: \"^/api/\", to: \"/c{{copy}}/\"}]\n"
+             "      classify: [{match: \"^/api/leases/\", class: renew}]\n%s",
+             log, extra);
+    run_yaml(c, yaml, NULL);
+    assert_int_equal(c->rc, 0);
+    assert_int_equal(c->res.end, RUN_END_DONE);
+}
+
+static void test_replay_clf(void **state)
+{
+    (void)state;
+    const char *log = write_log(clf_log);
+    static const double want[] = {0, 250, 500, 750, 1000, 1500, 3000};
+    double ms[16];
+    for (int speed = 1; speed <= 2; speed++) {
+        run_case_t c = {0};
+        replay_case(&c, log, speed == 1 ? "" : "      speed: 2\n");
+        assert_int_equal(starts_ms("/c0/", ms, 16), 7);
+        for (int i = 0; i < 7; i++)
+            assert_true(fabs(ms[i] - want[i] / speed) < 1e-6);
+        assert_int_equal(count(&c, "r", "renew", "2xx"), 1);
+        assert_int_equal(count(&c, "r", "replay-get", "2xx"), 5);
+        assert_int_equal(count(&c, "r", "replay-list", "2xx"), 1);
+        assert_int_equal(logged("HEAD", "/c0/gw/3"), 1);
+        assert_int_equal(logged("PUT", "/c0/leases/5"), 1);
+        json_t *r = json_object_get(results_section(c.results, "replay"), "r");
+        assert_int_equal(json_integer_value(json_object_get(r, "sent")), 7);
+        assert_int_equal(json_integer_value(json_object_get(r, "skipped_writes")), 1);
+        assert_int_equal(json_integer_value(json_object_get(r, "skipped_watches")), 1);
+        assert_string_equal(json_string_value(json_object_get(r, "spread")), "even");
+        double planned;
+        long started;
+        series_totals(&c, &planned, &started); /* the model second by second, as sent */
+        assert_int_equal(started, 7);
+        assert_true(fabs(planned - 7) < 1e-6);
+        case_close(&c);
+    }
+    run_case_t c = {0};
+    replay_case(&c, log, "      copies: 2\n      offset: 5ms\n");
+    assert_int_equal(fake.n_log, 14);
+    assert_int_equal(starts_ms("/c1/", ms, 16), 7);
+    int64_t a = 0, b = 0;
+    for (int i = 0; i < fake.n_log; i++) {
+        a = !strcmp(fake.log[i].path, "/c0/gw/9") ? fake.log[i].intended_ns : a;
+        b = !strcmp(fake.log[i].path, "/c1/gw/9") ? fake.log[i].intended_ns : b;
+    }
+    assert_int_equal(b - a, 5000000);
+    case_close(&c);
+    unlink(log);
+}
+
+/* A replayed write the target answers 201 Created made an object of the run's: it is journaled
+ * and deleted after the last phase, like any other write's. */
+static void test_replay_teardown(void **state)
+{
+    (void)state;
+    const char *log = write_log(clf_log);
+    fake.answer = answer_created;
+    run_case_t c = {0};
+    replay_case(&c, log, "");
+    assert_int_equal(logged("PUT", "/c0/leases/5"), 1);
+    assert_int_equal(logged("DELETE", "/c0/leases/5"), 1);
+    assert_int_equal(logged("DELETE", "/"), 1); /* nothing else was deleted */
+    case_close(&c);
+    unlink(log);
+}
+
+/* The window counts whole seconds from the log's first: from 1s to 3s keeps the second one
+ * (its GET; the PUT too), and `methods` keeps only what it names. The model `check` prints
+ * (the source's expected counts) agrees with what was sent. */
+static void test_replay_window(void **state)
+{
+    (void)state;
+    const char *log = write_log(clf_log);
+    run_case_t c = {0};
+    replay_case(&c, log, "      from: 1s\n      to: 3s\n      methods: [GET]\n");
+    assert_int_equal(fake.n_log, 1);
+    assert_int_equal(logged("GET", "/c0/gw/6"), 1);
+    src_estimate_t e[1];
+    assert_int_equal(src_estimate(c.plan, 1, 0, c.o, e), 0);
+    assert_true(fabs(e[0].requests - 1) < 1e-9);
+    case_close(&c);
+    unlink(log);
 }
 
 int main(void)
@@ -365,6 +519,9 @@ int main(void)
         cmocka_unit_test(test_closed_loop),
         cmocka_unit_test(test_closed_loop_think),
         cmocka_unit_test(test_planned_in_series),
+        cmocka_unit_test(test_replay_clf),
+        cmocka_unit_test(test_replay_window),
+        cmocka_unit_test(test_replay_teardown),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

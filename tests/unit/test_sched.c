@@ -482,6 +482,42 @@ static void test_closed_exp(void **state)
     sched_closed_free(c);
 }
 
+static double unit_cdf(double x, double unused)
+{
+    (void)unused;
+    return x < 0 ? 0 : x > 1 ? 1 : x;
+}
+
+/* A log tick of n requests spread as a Poisson process given n: n sorted uniform points. Every
+ * tick's offsets are non-decreasing and in [0, width); pooled over 2,000 ticks of 1..9 points
+ * they are uniform on the tick (one-sample KS at the 1 % level: Marsaglia, Tsang & Wang 2003).
+ * Even spreading puts the k-th of n at exactly k/n of the tick. */
+static void test_spread(void **state)
+{
+    (void)state;
+    static double x[20000];
+    size_t m = 0;
+    sched_spread_t s;
+    sched_spread_init(&s, true, 42);
+    for (int tick = 0; tick < 2000; tick++) {
+        uint64_t n = 1 + (uint64_t)tick % 9;
+        sched_spread_tick(&s, 1000000000, n);
+        int64_t last = 0;
+        for (uint64_t k = 0; k < n; k++) {
+            int64_t off = sched_spread_next(&s);
+            assert_true(off >= last && off < 1000000000);
+            last = off;
+            x[m++] = (double)off / 1e9;
+        }
+    }
+    double d = ks_distance(x, m, unit_cdf, 0);
+    assert_true(d * sqrt((double)m) < KS_C_01);
+    sched_spread_init(&s, false, 42);
+    sched_spread_tick(&s, 1000000000, 8);
+    for (int k = 0; k < 8; k++)
+        assert_int_equal(sched_spread_next(&s), k * 125000000);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -496,6 +532,7 @@ int main(void)
         cmocka_unit_test(test_seeds),
         cmocka_unit_test(test_due_and_peek),
         cmocka_unit_test(test_invalid),
+        cmocka_unit_test(test_spread),
         cmocka_unit_test(test_mix),
         cmocka_unit_test(test_closed_fixed),
         cmocka_unit_test(test_closed_exp),

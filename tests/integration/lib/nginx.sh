@@ -59,6 +59,19 @@ _ngx_delays() {
     done
 }
 
+# With NGX_ACCESS_LOG=1 before nginx_start, nginx writes its own NDJSON access log to
+# $NGX_DIR/access.ndjson: $msec (when the line is written, ms resolution), the method, the
+# request URI with its query, the status (nginx docs, ngx_http_log_module).
+_ngx_access_log() {
+    if [ "${NGX_ACCESS_LOG:-0}" = 1 ]; then
+        printf '%s\n' "    log_format sqjson escape=json '{\"msec\":\$msec,\"method\":\"\$request_method\",'" \
+            "        '\"uri\":\"\$request_uri\",\"status\":\$status}';" \
+            "    access_log $1/access.ndjson sqjson;"
+    else
+        echo "    access_log off;"
+    fi
+}
+
 _ngx_conf() {
     local d=$1 user=""
     [ "$(id -u)" = 0 ] && user="user root root;"
@@ -71,7 +84,7 @@ error_log $d/error.log warn;
 load_module $NGX_MODULE;
 events { worker_connections 8192; }
 http {
-    access_log off;
+$(_ngx_access_log "$d")
     client_body_temp_path $d/tmp/body;
     proxy_temp_path $d/tmp/proxy;
     fastcgi_temp_path $d/tmp/fastcgi;
