@@ -158,6 +158,13 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
  * succeeds calls it exactly once, never from inside eng_submit. */
 int eng_submit(eng_t *e, const eng_req_t *req);
 
+/* Drives the requests eng_submit handed to libcurl since it last acted, so they are written now
+ * instead of on the loop's next pass (libcurl starts a new transfer on a 0 ms timeout). Call it
+ * after submitting what is due at an instant, outside the engine's callbacks (there it does
+ * nothing: the engine drives what those submit itself). It may finish transfers, so on_done
+ * callbacks may run inside it. */
+void eng_flush(eng_t *e);
+
 /* Stops admitting: later eng_submit calls fail. Queued requests finish at once as "cancelled".
  * In-flight ones are cancelled after `grace_ms` (0 = at once, < 0 = let them finish on their
  * own timeouts). on_done callbacks may run from inside this call. */

@@ -25,15 +25,31 @@ static void drain(eng_t *e)
     }
 }
 
+/* Transfers admitted while libcurl acted (a closed-loop answer's next request, a queued one
+ * that found a free connection) are driven at once with a timeout action, so their requests are
+ * written in this same wake-up rather than on the next loop pass's 0 ms timer. Bounded: each
+ * round can only admit what the previous one freed. */
+#define FLUSH_ROUNDS 8
+
 void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask)
 {
     int running;
-    e->in_curl++;
-    curl_multi_socket_action(e->multi, fd, ev_bitmask, &running);
-    e->in_curl--;
-    drain(e);
-    if (!e->closing)
+    e->acting++;
+    for (int round = 0;; round++) {
+        e->admitted = 0;
+        e->in_curl++;
+        curl_multi_socket_action(e->multi, fd, ev_bitmask, &running);
+        e->in_curl--;
+        drain(e);
+        if (e->closing)
+            break;
         e->glue->after_action(e);
+        if (!e->admitted || round + 1 >= FLUSH_ROUNDS)
+            break;
+        fd = CURL_SOCKET_TIMEOUT;
+        ev_bitmask = 0;
+    }
+    e->acting--;
 }
 
 static void sock_stop(struct eng_sock *s)

@@ -69,6 +69,8 @@ struct eng {
     int open_handles; /* engine handles not yet closed; memory is freed at 0 */
     bool closing, stopped;
     int in_curl; /* > 0 while inside a libcurl call (no multi calls allowed then) */
+    int acting;  /* > 0 while inside eng_glue_action (it flushes what is admitted meanwhile) */
+    int admitted; /* transfers handed to libcurl since the last socket action */
 
     struct eng_sock **socks; /* indexed by fd */
     size_t n_socks_cap;
@@ -94,7 +96,8 @@ struct eng {
 /* curl_uv.c: the libcurl <-> libuv glue (reports back through eng_glue_ops_t). */
 int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops);
 void eng_glue_close(eng_t *e);
-/* Runs curl_multi_socket_action and then drains finished transfers and admits queued ones. */
+/* Runs curl_multi_socket_action, drains finished transfers, admits queued ones, and drives the
+ * transfers admitted meanwhile so their requests are written before it returns. */
 void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask);
 /* Easy-handle callbacks installed by xfer.c. */
 curl_socket_t eng_glue_opensocket(void *clientp, curlsocktype purpose, struct curl_sockaddr *a);

@@ -281,6 +281,7 @@ static bool admit_one(eng_t *e)
     if (wait > e->max_queue_wait_ns)
         e->max_queue_wait_ns = wait;
     flight_link(e, x);
+    e->admitted++;
     if (curl_multi_add_handle(e->multi, x->easy) != CURLM_OK) {
         /* Finish it through the normal path so on_done still runs exactly once. */
         flight_unlink(e, x);
@@ -297,6 +298,12 @@ static void admit(eng_t *e)
     while (e->queue_head && e->in_flight < capacity(e))
         if (!admit_one(e))
             break;
+}
+
+void eng_flush(eng_t *e)
+{
+    if (e && !e->in_curl && !e->acting && !e->closing && e->admitted)
+        eng_glue_action(e, CURL_SOCKET_TIMEOUT, 0);
 }
 
 static void set_unreachable(eng_t *e, const char *why)

@@ -633,6 +633,7 @@ static int watches_due(void *self, int64_t now_ns)
         }
     }
     ws->next_due_ns = next;
+    eng_flush(ws->eng); /* the streams open now, not on the loop's next pass */
     return 0;
 }
 
