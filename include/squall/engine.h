@@ -88,6 +88,11 @@ typedef struct {
      * which. */
     int unreachable_after;
     void (*on_unreachable)(void *user);
+    /* Called before the engine handles a socket's readiness (an answer arriving), with no
+     * libcurl call in progress; it may call eng_submit and eng_flush. The conductor sends what
+     * is due first, so a request planned for this instant does not wait behind the answers
+     * that became ready with it. NULL: none. */
+    void (*on_io)(void *user);
     void *user;
 } eng_config_t;
 

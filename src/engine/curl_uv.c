@@ -79,7 +79,13 @@ static void on_poll(uv_poll_t *p, int status, int events)
         flags |= CURL_CSELECT_IN;
     if (events & UV_WRITABLE)
         flags |= CURL_CSELECT_OUT;
-    eng_glue_action(s->eng, s->fd, flags);
+    eng_t *e = s->eng;
+    if (e->cfg.on_io && !e->acting)
+        e->cfg.on_io(e->cfg.user);
+    /* The hook may have made libcurl close this socket (it drove other transfers). */
+    if (e->socks[s->fd] != s || (!s->events && status >= 0))
+        return;
+    eng_glue_action(e, s->fd, flags);
 }
 
 static struct eng_sock *sock_get(eng_t *e, curl_socket_t fd, bool create)

@@ -189,7 +189,7 @@ static int64_t next_event(run_t *r)
  * pass up to on_wake take some microseconds; on_wake spins the rest, so a request is handed to
  * the engine at its own instant. Measured on loopback with tools/bench/wire.sh (RESULTS.md,
  * "wire"): 50 µs covers the wake-up latency of this 2-core shared machine at its p90. */
-#define WAKE_EARLY_NS INT64_C(50000)
+#define WAKE_EARLY_NS INT64_C(100000)
 /* Spinning for the next start only when it is this close; later ones get their own wake-up. */
 #define WAKE_SPIN_NS (WAKE_EARLY_NS + INT64_C(20000))
 /* One wake-up hands out at most this many instants before the loop polls again. */
@@ -255,6 +255,17 @@ static void on_wake(void *data)
         drained(r, now);
     if (r->state != RUN_DONE)
         rearm(r, now); /* the loop polls next: the wake-up must be armed before it blocks */
+}
+
+/* Before the engine handles an answer: what is due goes first (the engine's on_io). One poll
+ * returns every ready socket at once and handling each answer takes some microseconds, so a
+ * start that fell due meanwhile would otherwise wait behind all of them. */
+static void on_io(void *data)
+{
+    run_t *r = data;
+    if (r->state == RUN_LOADING && r->wake_at_ns != INT64_MAX &&
+        next_event(r) <= clock_mono_ns())
+        on_wake(r);
 }
 
 /* Just before the loop polls (and computes how long it may sleep): the end of draining or of
@@ -426,6 +437,7 @@ static void run_loop(run_t *r)
 {
     eng_config_t cfg = r->target.eng;
     cfg.on_unreachable = on_unreachable;
+    cfg.on_io = on_io;
     cfg.user = r;
     int rc = eng_new(&r->loop, &cfg, r->o, &r->eng);
     if (rc == 0) {
