@@ -189,7 +189,7 @@ static int64_t next_event(run_t *r)
  * pass up to on_wake take some microseconds; on_wake spins the rest, so a request is handed to
  * the engine at its own instant. Measured on loopback with tools/bench/wire.sh (RESULTS.md,
  * "wire"): 50 µs covers the wake-up latency of this 2-core shared machine at its p90. */
-#define WAKE_EARLY_NS INT64_C(100000)
+#define WAKE_EARLY_NS INT64_C(50000)
 /* Spinning for the next start only when it is this close; later ones get their own wake-up. */
 #define WAKE_SPIN_NS (WAKE_EARLY_NS + INT64_C(20000))
 /* One wake-up hands out at most this many instants before the loop polls again. */
