@@ -93,6 +93,10 @@ typedef struct {
      * is due first, so a request planned for this instant does not wait behind the answers
      * that became ready with it. NULL: none. */
     void (*on_io)(void *user);
+    /* libcurl's receive buffer of each transfer in bytes (CURLOPT_BUFFERSIZE, 1024..; 0 = its
+     * default of 16 KiB). Watch streams use a small one: their events are small and each open
+     * stream holds its buffer. */
+    long recv_buffer;
     void *user;
 } eng_config_t;
 

@@ -513,6 +513,11 @@ static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, ui
     return 0;
 }
 
+/* libcurl's receive buffer per stream (its default is 16 KiB, held by every open stream): events
+ * are a few hundred bytes, and a larger answer (a relist page) is only read in more pieces.
+ * Measured per stream by tools/bench/watch.sh (RESULTS.md). */
+#define WATCH_RECV_BUFFER 2048L
+
 /* The plan's target, with one connection per stream over HTTP/1.1 and ceil(n / streams)
  * connections over HTTP/2, no timeout (relists carry their class's). */
 static int engine_new(watches_t *ws, int watchers)
@@ -524,6 +529,7 @@ static int engine_new(watches_t *ws, int watchers)
     cfg.connections = conns > 0 ? conns : 1;
     cfg.streams = per;
     cfg.timeout_ms = 0;
+    cfg.recv_buffer = WATCH_RECV_BUFFER;
     return eng_new(ws->ctx.loop, &cfg, ws->ctx.o, &ws->eng);
 }
 
