@@ -185,17 +185,35 @@ static int64_t next_event(run_t *r)
     return next;
 }
 
-/* The wake-up is armed this long before the instant: the kernel's wake-up of the loop and the
- * pass up to on_wake take some microseconds; on_wake spins the rest, so a request is handed to
- * the engine at its own instant. Measured on loopback with tools/bench/wire.sh (RESULTS.md,
- * "wire"): 50 µs covers the wake-up latency of this 2-core shared machine at its p90. */
-#define WAKE_EARLY_NS INT64_C(50000)
-/* Spinning for the next start only when it is this close; later ones get their own wake-up. */
-#define WAKE_SPIN_NS (WAKE_EARLY_NS + INT64_C(20000))
-/* One wake-up hands out at most this many instants before the loop polls again. */
+/* The wake-up is armed early by the loop's measured wake-up latency: the kernel's wake-up of the
+ * loop and the pass up to on_wake take some microseconds; on_wake spins the rest, so a request
+ * is handed to the engine at its own instant. The margin is the smoothed latency plus four
+ * times its smoothed deviation (the estimator of TCP's retransmission timer, RFC 6298 section
+ * 2, with gains 1/8 and 1/4), kept within WAKE_EARLY_MIN_NS..WAKE_EARLY_MAX_NS: a quiet
+ * machine spins a few microseconds per request, a busy one up to 100 µs. Measured on loopback
+ * with tools/bench/wire.sh (RESULTS.md, "wire"). */
+#define WAKE_EARLY_MIN_NS INT64_C(10000)
+#define WAKE_EARLY_MAX_NS INT64_C(100000)
+
+static int64_t wake_early(const run_t *r)
+{
+    int64_t e = r->late_avg_ns + 4 * r->late_dev_ns;
+    return e < WAKE_EARLY_MIN_NS ? WAKE_EARLY_MIN_NS : e > WAKE_EARLY_MAX_NS ? WAKE_EARLY_MAX_NS : e;
+}
+
+/* One measured wake-up latency into the estimate. */
+static void wake_learn(run_t *r, int64_t late)
+{
+    if (late < 0)
+        return;
+    int64_t d = late > r->late_avg_ns ? late - r->late_avg_ns : r->late_avg_ns - late;
+    r->late_dev_ns += (d - r->late_dev_ns) / 4;
+    r->late_avg_ns += (late - r->late_avg_ns) / 8;
+}
+/* One wake-up hands out at most this many due instants before the loop polls again. */
 #define WAKE_MAX_STEPS 256
 
-/* Arms the wake-up for the next event, early by WAKE_EARLY_NS (a timerfd: nanosecond expiry,
+/* Arms the wake-up for the next event, early by wake_early() (a timerfd: nanosecond expiry,
  * wake.c); a wake-up that comes early just spins or rearms. */
 static void rearm(run_t *r, int64_t now)
 {
@@ -206,7 +224,7 @@ static void rearm(run_t *r, int64_t now)
         return;
     }
     /* Deadlines of draining and the teardown need no spin. */
-    int64_t at = r->state == RUN_LOADING ? next - WAKE_EARLY_NS : next;
+    int64_t at = r->state == RUN_LOADING ? next - wake_early(r) : next;
     if (at < r->wake_floor_ns && r->wake_floor_ns > now)
         at = r->wake_floor_ns;
     r->wake_at_ns = at;
@@ -224,16 +242,21 @@ static int64_t spin_until(int64_t at)
     return now;
 }
 
-/* Hands out every start that is due, each at its own instant: a start at most WAKE_SPIN_NS
- * ahead is waited for here, spinning, instead of through another wake-up. */
+/* Spins to the start the wake-up was armed for (at most WAKE_EARLY_MAX_NS ahead) and hands it out
+ * with every start that is due by then. Later starts, however close, get their own wake-up (a
+ * timerfd armed in the past fires at once): the loop polls in between, so answers are handled
+ * and connections freed. Spinning from one start to the next instead starved the answers at
+ * 20,000/s (every connection busy, send lag of seconds; tools/bench/run.sh). */
 static void on_wake(void *data)
 {
     run_t *r = data;
     int64_t now = clock_mono_ns();
     r->wake_at_ns = INT64_MAX;
+    wake_learn(r, r->wake.late_ns);
+    r->wake.late_ns = -1;
     for (int step = 0; step < WAKE_MAX_STEPS && r->state == RUN_LOADING; step++) {
         int64_t next = next_event(r);
-        if (next > now + WAKE_SPIN_NS)
+        if (next > now && (step > 0 || next > now + WAKE_EARLY_MAX_NS))
             break;
         if (next > now)
             now = spin_until(next);
@@ -425,6 +448,7 @@ static int handles_start(run_t *r)
     uv_signal_init(&r->loop, &r->sigterm);
     r->second.data = r->prepare.data = r->sigint.data = r->sigterm.data = r;
     r->wake_at_ns = INT64_MAX;
+    r->late_avg_ns = r->late_dev_ns = 10000; /* a first margin of 50 µs, learnt from there */
     rc = uv_signal_start(&r->sigint, on_signal, SIGINT);
     rc = rc ? rc : uv_signal_start(&r->sigterm, on_signal, SIGTERM);
     rc = rc ? rc : uv_prepare_start(&r->prepare, on_prepare);

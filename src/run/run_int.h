@@ -42,6 +42,8 @@ typedef struct {
     int fd;
     bool started;
     int64_t armed_ns; /* the expiry set, INT64_MAX when none */
+    bool future;      /* it was in the future when set */
+    int64_t late_ns;  /* in the callback: how late after a future expiry it runs, else -1 */
     void (*cb)(void *data);
     void *data;
 } run_wake_t;
@@ -73,6 +75,7 @@ typedef struct run {
     uv_signal_t sigint, sigterm;
     int64_t wake_at_ns;  /* the instant the wake-up is armed for (INT64_MAX: not armed) */
     int64_t wake_floor_ns; /* no wake-up before this: a source was due but did not move on */
+    int64_t late_avg_ns, late_dev_ns; /* smoothed wake-up latency and its deviation (run.c) */
 
     enum run_state state;
     enum run_end end;

@@ -14,6 +14,7 @@
 #include <unistd.h>
 
 #include "run_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
 
 static void on_ready(uv_poll_t *p, int status, int events)
@@ -26,6 +27,10 @@ static void on_ready(uv_poll_t *p, int status, int events)
     }
     if (status < 0)
         return;
+    /* How late the loop got here after the expiry, when it was armed for a future instant. */
+    w->late_ns = -1;
+    if (w->future)
+        w->late_ns = clock_mono_ns() - w->armed_ns;
     w->armed_ns = INT64_MAX;
     w->cb(w->data);
 }
@@ -35,6 +40,7 @@ int run_wake_init(uv_loop_t *loop, run_wake_t *w, void (*cb)(void *), void *data
     w->cb = cb;
     w->data = data;
     w->armed_ns = INT64_MAX;
+    w->late_ns = -1;
     w->fd = timerfd_create(CLOCK_MONOTONIC, TFD_NONBLOCK | TFD_CLOEXEC);
     if (w->fd < 0)
         return SQ_EIO;
@@ -61,6 +67,7 @@ void run_wake_at(run_wake_t *w, int64_t at_ns)
     if (timerfd_settime(w->fd, TFD_TIMER_ABSTIME, &its, NULL) != 0)
         return;
     w->armed_ns = at_ns;
+    w->future = at_ns > clock_mono_ns();
     if (!w->started) {
         uv_poll_start(&w->poll, UV_READABLE, on_ready);
         w->started = true;

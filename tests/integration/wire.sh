@@ -27,14 +27,7 @@ fi
 # wire_run NAME RATE SECONDS: one Poisson run under capture; figures in $T/NAME.json.
 wire_run() {
     local name=$1 rate=$2 secs=$3
-    cat >"$T/$name.yaml" <<YAML
-seed: 7
-target: {url: "http://127.0.0.1:$NGX_PORT", connections: 64, timeout: 5s}
-requests:
-  small: {kind: get, path: /small.json}
-phases:
-  - {name: p, rate: $rate/s, arrivals: poisson, duration: ${secs}s, mix: {small: 1}}
-YAML
+    wire_plan "$T/$name.yaml" "$NGX_PORT" "$rate" poisson "$secs"
     capture_start "$NGX_PORT" "$T/$name.pcap" || return 1
     rm -rf "${T:?}/$name"
     timeout 120 "${PRIO[@]}" "$SQUALL" run "$T/$name.yaml" -o "$T/$name" --quiet \

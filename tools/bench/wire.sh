@@ -33,14 +33,7 @@ LOAD_BEFORE=$(cut -d' ' -f1-3 /proc/loadavg)
 # point BIN NAME RATE ARRIVALS SECONDS: one captured run; results in $OUT/NAME, CPU in .cpu.
 point() {
     local bin=$1 name=$2 rate=$3 arr=$4 secs=$5
-    cat >"$OUT/$name.yaml" <<YAML
-seed: 7
-target: {url: "http://127.0.0.1:$NGX_PORT", connections: 64, timeout: 5s}
-requests:
-  small: {kind: get, path: /small.json}
-phases:
-  - {name: p, rate: $rate/s, arrivals: $arr, duration: ${secs}s, mix: {small: 1}}
-YAML
+    wire_plan "$OUT/$name.yaml" "$NGX_PORT" "$rate" "$arr" "$secs"
     rm -rf "${OUT:?}/$name"
     capture_start "$NGX_PORT" "$OUT/$name.pcap" || return 1
     /usr/bin/time -f "%U %S" -o "$OUT/$name.cpu" taskset -c 0 chrt -f 20 \

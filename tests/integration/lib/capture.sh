@@ -6,6 +6,8 @@
 #                               sets CAP_PID; returns 1 if tcpdump does not start listening
 #     capture_stop              ends it by pid (SIGINT: it flushes the file) and prints the
 #                               kernel's drop count from tcpdump's own report (CAP_DROPPED)
+#     wire_plan FILE PORT RATE ARRIVALS SECONDS   writes the plan both the wire test and
+#                               tools/bench/wire.sh run: GET /small.json on 64 connections
 # The filter's payload offset is the TCP header length, tcp[12] >> 4 in 32-bit words (RFC 9293,
 # section 3.1, "Data Offset"); 0x47455420 is "GET " in ASCII.
 
@@ -37,4 +39,15 @@ capture_stop() {
     CAP_PID=
     CAP_DROPPED=$(sed -n 's/^\([0-9]*\) packets dropped by kernel.*/\1/p' "$CAP_LOG")
     CAP_DROPPED=${CAP_DROPPED:-unknown}
+}
+
+wire_plan() {
+    cat >"$1" <<YAML
+seed: 7
+target: {url: "http://127.0.0.1:$2", connections: 64, timeout: 5s}
+requests:
+  small: {kind: get, path: /small.json}
+phases:
+  - {name: p, rate: $3/s, arrivals: $4, duration: ${5}s, mix: {small: 1}}
+YAML
 }
