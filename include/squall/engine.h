@@ -97,6 +97,12 @@ typedef struct {
      * default of 16 KiB). Watch streams use a small one: their events are small and each open
      * stream holds its buffer. */
     long recv_buffer;
+    /* HTTP/1.1: split the connections over several libcurl multi handles (at most 16, of at
+     * least 16 connections each), which costs less per request (libcurl 7.88 looks through a
+     * multi handle's whole connection cache for every request) but two descriptors per extra
+     * multi handle (its wake-up socket pair). For many short requests; watch streams, which
+     * hold their connections, use one. */
+    bool split;
     void *user;
 } eng_config_t;
 

@@ -322,18 +322,20 @@ static int multi_init(eng_t *e, struct eng_multi *mh, int conns)
 int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops)
 {
     e->glue = ops;
-    int conns = e->cfg.connections;
-    int n = e->cfg.http == ENG_HTTP_2 ? 1 : (conns + ENG_MULTI_CONNS - 1) / ENG_MULTI_CONNS;
+    int conns = e->cfg.connections, per = conns;
+    if (e->cfg.split && e->cfg.http == ENG_HTTP_1_1) {
+        per = (conns + ENG_MAX_MULTIS - 1) / ENG_MAX_MULTIS;
+        per = per < ENG_MULTI_CONNS ? ENG_MULTI_CONNS : per;
+    }
+    int n = (conns + per - 1) / per;
     e->multis = calloc((size_t)n, sizeof(*e->multis));
     e->dirty = calloc((size_t)n, sizeof(*e->dirty));
     if (!e->multis || !e->dirty)
         return SQ_ENOMEM;
     /* libcurl first: on failure no loop handle exists yet, and the caller frees plain memory. */
     for (int i = 0; i < n; i++) {
-        int left = conns - i * ENG_MULTI_CONNS;
-        if (multi_init(e, &e->multis[i],
-                       e->cfg.http == ENG_HTTP_2 || left < ENG_MULTI_CONNS ? left
-                                                                           : ENG_MULTI_CONNS)) {
+        int left = conns - i * per;
+        if (multi_init(e, &e->multis[i], left < per ? left : per)) {
             for (int j = 0; j < i; j++)
                 curl_multi_cleanup(e->multis[j].m);
             return SQ_ELIBCURL;

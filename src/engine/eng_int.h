@@ -12,10 +12,13 @@ struct eng_buf {
     size_t len, cap;
 };
 
-/* Connections per multi handle over HTTP/1.1: libcurl 7.88 looks through its whole connection
- * cache for every request (conncache.c), so a multi handle of a few connections costs less per
- * request than one of them all (issue 12; callgrind figures in tools/bench/RESULTS.md). */
+/* With cfg.split, HTTP/1.1 connections go to multi handles of at least ENG_MULTI_CONNS each,
+ * at most ENG_MAX_MULTIS of them: libcurl 7.88 looks through its whole connection cache for
+ * every request (conncache.c), so a multi handle of a few connections costs less per request
+ * than one of them all (issue 12; callgrind figures in tools/bench/RESULTS.md), and each multi
+ * handle holds a socket pair (libcurl's wake-up), so their number is bounded. */
 #define ENG_MULTI_CONNS 16
+#define ENG_MAX_MULTIS 16
 
 /* One libcurl multi handle with its own timer and connections; HTTP/2 uses one. */
 struct eng_multi {

@@ -462,6 +462,7 @@ static void run_loop(run_t *r)
     eng_config_t cfg = r->target.eng;
     cfg.on_unreachable = on_unreachable;
     cfg.on_io = on_io;
+    cfg.split = true; /* many short requests: cheaper on several multi handles */
     cfg.user = r;
     int rc = eng_new(&r->loop, &cfg, r->o, &r->eng);
     if (rc == 0) {

@@ -14,7 +14,8 @@
 
 #define RESUME_PARAM  "since" /* the embedded target's query parameter for a resume point */
 #define LOG_MAX       20000   /* reconnects kept per phase in the results' reconnect log */
-#define FD_RESERVE    64      /* open files kept aside for the main engine, results, stdio */
+#define FD_RESERVE    64      /* open files kept aside for the main engine (its multi handles' socket
+                                 pairs: at most 30), results, stdio */
 #define H2_STREAMS    100     /* libcurl's assumption until the server's SETTINGS arrive */
 #define MAX_LIST_PAGE 100000
 
