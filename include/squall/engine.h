@@ -88,6 +88,21 @@ typedef struct {
      * which. */
     int unreachable_after;
     void (*on_unreachable)(void *user);
+    /* Called before the engine handles a socket's readiness (an answer arriving), with no
+     * libcurl call in progress; it may call eng_submit and eng_flush. The conductor sends what
+     * is due first, so a request planned for this instant does not wait behind the answers
+     * that became ready with it. NULL: none. */
+    void (*on_io)(void *user);
+    /* libcurl's receive buffer of each transfer in bytes (CURLOPT_BUFFERSIZE, 1024..; 0 = its
+     * default of 16 KiB). Watch streams use a small one: their events are small and each open
+     * stream holds its buffer. */
+    long recv_buffer;
+    /* HTTP/1.1: split the connections over several libcurl multi handles (at most 16, of at
+     * least 16 connections each), which costs less per request (libcurl 7.88 looks through a
+     * multi handle's whole connection cache for every request) but two descriptors per extra
+     * multi handle (its wake-up socket pair). For many short requests; watch streams, which
+     * hold their connections, use one. */
+    bool split;
     void *user;
 } eng_config_t;
 
@@ -159,6 +174,13 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
  * SQ_ESTOPPED (after eng_stop), SQ_ENOMEM. A call that fails never calls on_done; a call that
  * succeeds calls it exactly once, never from inside eng_submit. */
 int eng_submit(eng_t *e, const eng_req_t *req);
+
+/* Drives the requests eng_submit handed to libcurl since it last acted, so they are written now
+ * instead of on the loop's next pass (libcurl starts a new transfer on a 0 ms timeout). Call it
+ * after submitting what is due at an instant, outside the engine's callbacks (there it does
+ * nothing: the engine drives what those submit itself). It may finish transfers, so on_done
+ * callbacks may run inside it. */
+void eng_flush(eng_t *e);
 
 /* Stops admitting: later eng_submit calls fail. Queued requests finish at once as "cancelled".
  * In-flight ones are cancelled after `grace_ms` (0 = at once, < 0 = let them finish on their

@@ -85,6 +85,7 @@ typedef struct {
     int64_t started, completed, errors; /* every class */
     const hist_t *response;             /* every class */
     const hist_t *sched_lag;            /* submitted - intended of first pages */
+    const hist_t *send_lag;             /* sent (on the wire) - intended of first pages */
     const obs_cell_t *cells;            /* phase x class with a start or completion */
     size_t n_cells;
     const obs_cell_t *per_class;           /* per class over every phase: [n_classes]; response
@@ -171,6 +172,7 @@ typedef struct {
     char generator_seconds[160];                   /* which, e.g. "4, 5, 9" */
     char connection_seconds[160];
     const hist_t *sched_lag; /* the whole run's */
+    const hist_t *send_lag;  /* the whole run's: sent (on the wire) - intended */
 } obs_totals_t;
 void obs_totals(const obs_t *l, obs_totals_t *t);
 /* The brakes in force as the "brakes" section of results.json (a new reference):

@@ -10,30 +10,84 @@
 #include "squall/err.h"
 
 /* Drains finished transfers; each is removed from libcurl here, never inside a callback. */
-static void drain(eng_t *e)
+static void drain(struct eng_multi *mh)
 {
+    eng_t *e = mh->eng;
     CURLMsg *m;
     int left;
-    while ((m = curl_multi_info_read(e->multi, &left))) {
+    while ((m = curl_multi_info_read(mh->m, &left))) {
         if (m->msg != CURLMSG_DONE)
             continue;
         struct eng_xfer *x = NULL;
         curl_easy_getinfo(m->easy_handle, CURLINFO_PRIVATE, (char **)&x);
         CURLcode rc = m->data.result;
-        curl_multi_remove_handle(e->multi, m->easy_handle);
+        curl_multi_remove_handle(mh->m, m->easy_handle);
         e->glue->done(e, x, rc);
     }
 }
 
-void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask)
+/* One socket action on one multi (it also starts the transfers added to it: libcurl runs every
+ * expired timer, and a new transfer expires at once), then its finished transfers. */
+static void act(struct eng_multi *mh, curl_socket_t fd, int ev_bitmask)
 {
+    eng_t *e = mh->eng;
     int running;
+    mh->dirty = false;
     e->in_curl++;
-    curl_multi_socket_action(e->multi, fd, ev_bitmask, &running);
+    curl_multi_socket_action(mh->m, fd, ev_bitmask, &running);
     e->in_curl--;
-    drain(e);
-    if (!e->closing)
+    drain(mh);
+}
+
+void eng_glue_added(struct eng_multi *mh)
+{
+    if (mh->dirty)
+        return;
+    mh->dirty = true;
+    mh->eng->dirty[mh->eng->n_dirty++] = mh;
+}
+
+/* Transfers admitted while libcurl acted (a closed-loop answer's next request, a queued one
+ * that found a free connection) are driven at once with a timeout action, so their requests are
+ * written in this same wake-up rather than on the next loop pass's 0 ms timer. Bounded: each
+ * round can only admit what the previous one freed. */
+#define FLUSH_ROUNDS 8
+
+static void flush_rounds(eng_t *e)
+{
+    for (int round = 0; round < FLUSH_ROUNDS && !e->closing; round++) {
         e->glue->after_action(e);
+        if (!e->n_dirty)
+            break;
+        while (e->n_dirty && !e->closing) {
+            struct eng_multi *mh = e->dirty[--e->n_dirty];
+            if (mh->dirty)
+                act(mh, CURL_SOCKET_TIMEOUT, 0);
+        }
+    }
+}
+
+void eng_glue_action(struct eng_multi *mh, curl_socket_t fd, int ev_bitmask)
+{
+    eng_t *e = mh->eng;
+    e->acting++;
+    act(mh, fd, ev_bitmask);
+    flush_rounds(e);
+    e->acting--;
+}
+
+void eng_glue_flush(eng_t *e)
+{
+    if (e->in_curl || e->acting || e->closing || !e->n_dirty)
+        return;
+    e->acting++;
+    while (e->n_dirty && !e->closing) {
+        struct eng_multi *mh = e->dirty[--e->n_dirty];
+        if (mh->dirty)
+            act(mh, CURL_SOCKET_TIMEOUT, 0);
+    }
+    flush_rounds(e);
+    e->acting--;
 }
 
 static void sock_stop(struct eng_sock *s)
@@ -63,7 +117,13 @@ static void on_poll(uv_poll_t *p, int status, int events)
         flags |= CURL_CSELECT_IN;
     if (events & UV_WRITABLE)
         flags |= CURL_CSELECT_OUT;
-    eng_glue_action(s->eng, s->fd, flags);
+    eng_t *e = s->eng;
+    if (e->cfg.on_io && !e->acting)
+        e->cfg.on_io(e->cfg.user);
+    /* The hook may have made libcurl close this socket (it drove other transfers). */
+    if (e->socks[s->fd] != s || (!s->events && status >= 0))
+        return;
+    eng_glue_action(s->mh, s->fd, flags);
 }
 
 static struct eng_sock *sock_get(eng_t *e, curl_socket_t fd, bool create)
@@ -117,7 +177,8 @@ static int on_socket(CURL *easy, curl_socket_t fd, int what, void *userp, void *
 {
     (void)easy;
     (void)socketp;
-    eng_t *e = userp;
+    struct eng_multi *mh = userp;
+    eng_t *e = mh->eng;
     if (what == CURL_POLL_REMOVE) {
         struct eng_sock *s = sock_get(e, fd, false);
         if (!s)
@@ -137,6 +198,7 @@ static int on_socket(CURL *easy, curl_socket_t fd, int what, void *userp, void *
         out_error(e->out, "engine: cannot watch socket %d", (int)fd);
         return -1;
     }
+    s->mh = mh;
     int ev = 0;
     if (what & CURL_POLL_IN)
         ev |= UV_READABLE;
@@ -168,6 +230,7 @@ curl_socket_t eng_glue_opensocket(void *clientp, curlsocktype purpose, struct cu
         return CURL_SOCKET_BAD;
     }
     s->ours = true;
+    s->mh = x->mh;
     e->n_socks++;
     if (x->opener) {
         x->opener = false;
@@ -201,16 +264,16 @@ static void on_zero(uv_idle_t *i)
 static int on_curl_timer(CURLM *multi, long timeout_ms, void *userp)
 {
     (void)multi;
-    eng_t *e = userp;
+    struct eng_multi *mh = userp;
     if (timeout_ms < 0) {
-        uv_timer_stop(&e->timer);
-        uv_idle_stop(&e->zero);
+        uv_timer_stop(&mh->timer);
+        uv_idle_stop(&mh->zero);
     } else if (timeout_ms == 0) {
-        uv_timer_stop(&e->timer);
-        uv_idle_start(&e->zero, on_zero);
+        uv_timer_stop(&mh->timer);
+        uv_idle_start(&mh->zero, on_zero);
     } else {
-        uv_idle_stop(&e->zero);
-        uv_timer_start(&e->timer, on_timer, (uint64_t)timeout_ms, 0);
+        uv_idle_stop(&mh->zero);
+        uv_timer_start(&mh->timer, on_timer, (uint64_t)timeout_ms, 0);
     }
     return 0;
 }
@@ -234,33 +297,62 @@ static void on_prepare(uv_prepare_t *p)
         e->max_busy_ns = busy;
 }
 
+static int multi_init(eng_t *e, struct eng_multi *mh, int conns)
+{
+    mh->eng = e;
+    mh->cap = e->cfg.http == ENG_HTTP_2 ? conns * e->streams : conns;
+    if (!(mh->m = curl_multi_init()))
+        return SQ_ELIBCURL;
+    curl_multi_setopt(mh->m, CURLMOPT_SOCKETFUNCTION, on_socket);
+    curl_multi_setopt(mh->m, CURLMOPT_SOCKETDATA, mh);
+    curl_multi_setopt(mh->m, CURLMOPT_TIMERFUNCTION, on_curl_timer);
+    curl_multi_setopt(mh->m, CURLMOPT_TIMERDATA, mh);
+    curl_multi_setopt(mh->m, CURLMOPT_MAX_HOST_CONNECTIONS, (long)conns);
+    curl_multi_setopt(mh->m, CURLMOPT_MAX_TOTAL_CONNECTIONS, (long)conns);
+    curl_multi_setopt(mh->m, CURLMOPT_MAXCONNECTS, (long)conns);
+    if (e->cfg.http == ENG_HTTP_2) {
+        curl_multi_setopt(mh->m, CURLMOPT_PIPELINING, CURLPIPE_MULTIPLEX);
+        curl_multi_setopt(mh->m, CURLMOPT_MAX_CONCURRENT_STREAMS, (long)e->streams);
+    } else {
+        curl_multi_setopt(mh->m, CURLMOPT_PIPELINING, CURLPIPE_NOTHING);
+    }
+    return 0;
+}
+
 int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops)
 {
     e->glue = ops;
-    e->multi = curl_multi_init();
-    if (!e->multi)
-        return SQ_ELIBCURL;
-    curl_multi_setopt(e->multi, CURLMOPT_SOCKETFUNCTION, on_socket);
-    curl_multi_setopt(e->multi, CURLMOPT_SOCKETDATA, e);
-    curl_multi_setopt(e->multi, CURLMOPT_TIMERFUNCTION, on_curl_timer);
-    curl_multi_setopt(e->multi, CURLMOPT_TIMERDATA, e);
-    long conns = e->cfg.connections;
-    curl_multi_setopt(e->multi, CURLMOPT_MAX_HOST_CONNECTIONS, conns);
-    curl_multi_setopt(e->multi, CURLMOPT_MAX_TOTAL_CONNECTIONS, conns);
-    curl_multi_setopt(e->multi, CURLMOPT_MAXCONNECTS, conns);
-    if (e->cfg.http == ENG_HTTP_2) {
-        curl_multi_setopt(e->multi, CURLMOPT_PIPELINING, CURLPIPE_MULTIPLEX);
-        curl_multi_setopt(e->multi, CURLMOPT_MAX_CONCURRENT_STREAMS, (long)e->streams);
-    } else {
-        curl_multi_setopt(e->multi, CURLMOPT_PIPELINING, CURLPIPE_NOTHING);
+    int conns = e->cfg.connections, per = conns;
+    if (e->cfg.split && e->cfg.http == ENG_HTTP_1_1) {
+        per = (conns + ENG_MAX_MULTIS - 1) / ENG_MAX_MULTIS;
+        per = per < ENG_MULTI_CONNS ? ENG_MULTI_CONNS : per;
     }
-    uv_timer_init(e->loop, &e->timer);
-    uv_idle_init(e->loop, &e->zero);
+    int n = (conns + per - 1) / per;
+    e->multis = calloc((size_t)n, sizeof(*e->multis));
+    e->dirty = calloc((size_t)n, sizeof(*e->dirty));
+    if (!e->multis || !e->dirty)
+        return SQ_ENOMEM;
+    /* libcurl first: on failure no loop handle exists yet, and the caller frees plain memory. */
+    for (int i = 0; i < n; i++) {
+        int left = conns - i * per;
+        if (multi_init(e, &e->multis[i], left < per ? left : per)) {
+            for (int j = 0; j < i; j++)
+                curl_multi_cleanup(e->multis[j].m);
+            return SQ_ELIBCURL;
+        }
+    }
+    e->n_multis = n;
+    for (int i = 0; i < n; i++) {
+        struct eng_multi *mh = &e->multis[i];
+        uv_timer_init(e->loop, &mh->timer);
+        uv_idle_init(e->loop, &mh->zero);
+        mh->timer.data = mh->zero.data = mh;
+    }
     uv_prepare_init(e->loop, &e->prepare);
     uv_check_init(e->loop, &e->check);
     uv_timer_init(e->loop, &e->grace);
-    e->timer.data = e->zero.data = e->prepare.data = e->check.data = e->grace.data = e;
-    e->open_handles = 5;
+    e->prepare.data = e->check.data = e->grace.data = e;
+    e->open_handles = 3 + 2 * n;
     uv_prepare_start(&e->prepare, on_prepare);
     uv_check_start(&e->check, on_check);
     /* The lag probe alone must not keep the loop alive. */
@@ -269,7 +361,7 @@ int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops)
     return 0;
 }
 
-/* Shutdown order: transfers are already removed; cleaning up the multi closes its connections
+/* Shutdown order: transfers are already removed; cleaning up a multi closes its connections
  * through our closesocket (closing their polls), and the socket callback may run during it
  * (libcurl docs, CURLMOPT_SOCKETFUNCTION: "likely to happen during a call to curl_multi_cleanup
  * when cached connections are closed"); then our own handles close with uv_close and the last
@@ -277,17 +369,24 @@ int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops)
  * callback). */
 void eng_glue_close(eng_t *e)
 {
-    if (e->multi) {
-        e->in_curl++;
-        curl_multi_cleanup(e->multi);
-        e->in_curl--;
-        e->multi = NULL;
+    for (int i = 0; i < e->n_multis; i++) {
+        struct eng_multi *mh = &e->multis[i];
+        if (mh->m) {
+            e->in_curl++;
+            curl_multi_cleanup(mh->m);
+            e->in_curl--;
+            mh->m = NULL;
+        }
     }
     for (size_t fd = 0; fd < e->n_socks_cap; fd++)
         if (e->socks[fd])
             sock_drop(e, e->socks[fd]);
-    uv_close((uv_handle_t *)&e->timer, e->glue->closed);
-    uv_close((uv_handle_t *)&e->zero, e->glue->closed);
+    for (int i = 0; i < e->n_multis; i++) {
+        struct eng_multi *mh = &e->multis[i];
+        mh->timer.data = mh->zero.data = e; /* the close callback frees through the engine */
+        uv_close((uv_handle_t *)&mh->timer, e->glue->closed);
+        uv_close((uv_handle_t *)&mh->zero, e->glue->closed);
+    }
     uv_close((uv_handle_t *)&e->prepare, e->glue->closed);
     uv_close((uv_handle_t *)&e->check, e->glue->closed);
     uv_close((uv_handle_t *)&e->grace, e->glue->closed);

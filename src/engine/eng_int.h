@@ -12,11 +12,31 @@ struct eng_buf {
     size_t len, cap;
 };
 
+/* With cfg.split, HTTP/1.1 connections go to multi handles of at least ENG_MULTI_CONNS each,
+ * at most ENG_MAX_MULTIS of them: libcurl 7.88 looks through its whole connection cache for
+ * every request (conncache.c), so a multi handle of a few connections costs less per request
+ * than one of them all (issue 12; callgrind figures in tools/bench/RESULTS.md), and each multi
+ * handle holds a socket pair (libcurl's wake-up), so their number is bounded. */
+#define ENG_MULTI_CONNS 16
+#define ENG_MAX_MULTIS 16
+
+/* One libcurl multi handle with its own timer and connections; HTTP/2 uses one. */
+struct eng_multi {
+    CURLM *m;
+    eng_t *eng;
+    uv_timer_t timer; /* libcurl's one timer */
+    uv_idle_t zero;   /* libcurl asked for a 0 ms timeout */
+    int cap;          /* transfers it may run at once (its connections; x streams for h2) */
+    int in_flight;
+    bool dirty; /* transfers were added since it last acted */
+};
+
 /* One request from submit to on_done. Transfers and their buffers are pooled and reused. */
 struct eng_xfer {
     struct eng_xfer *next, *prev; /* queue, in-flight list (doubly linked) or free list */
     eng_t *eng;
     CURL *easy;    /* attached at admission, returned to the pool when done */
+    struct eng_multi *mh; /* the multi handle it was added to */
     eng_req_t req; /* copy; strings point into the buffers below */
     struct eng_buf url, method, body, resp;
     CURLU *uh; /* the base URL parsed once; path and query set per request (xfer.c) */
@@ -32,6 +52,7 @@ struct eng_xfer {
 struct eng_sock {
     uv_poll_t poll;
     eng_t *eng;
+    struct eng_multi *mh; /* whose socket it is */
     curl_socket_t fd;
     int events;  /* UV_READABLE/UV_WRITABLE the poll is started with, 0 when stopped */
     bool ours;   /* opened through our OPENSOCKETFUNCTION, so we see its close */
@@ -59,16 +80,18 @@ struct eng {
     size_t origin_len;          /* length of base_url's "scheme://authority" */
     int streams;
 
-    CURLM *multi;
+    struct eng_multi *multis; /* ENG_MULTI_CONNS connections each over HTTP/1.1, one for h2 */
+    int n_multis, next_multi;  /* next_multi: where admission looks for room first */
+    struct eng_multi **dirty;  /* multis with transfers added since they last acted */
+    int n_dirty;
     const eng_glue_ops_t *glue; /* how the glue reports to engine.c */
-    uv_timer_t timer;           /* libcurl's one timer */
-    uv_idle_t zero;             /* libcurl asked for a 0 ms timeout */
     uv_prepare_t prepare;       /* loop lag: a pass's callbacks run between check and prepare */
     uv_check_t check;
     uv_timer_t grace; /* eng_stop's grace period */
     int open_handles; /* engine handles not yet closed; memory is freed at 0 */
     bool closing, stopped;
     int in_curl; /* > 0 while inside a libcurl call (no multi calls allowed then) */
+    int acting; /* > 0 while inside eng_glue_action (it flushes what is admitted meanwhile) */
 
     struct eng_sock **socks; /* indexed by fd */
     size_t n_socks_cap;
@@ -94,8 +117,14 @@ struct eng {
 /* curl_uv.c: the libcurl <-> libuv glue (reports back through eng_glue_ops_t). */
 int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops);
 void eng_glue_close(eng_t *e);
-/* Runs curl_multi_socket_action and then drains finished transfers and admits queued ones. */
-void eng_glue_action(eng_t *e, curl_socket_t fd, int ev_bitmask);
+/* Runs curl_multi_socket_action on one multi, drains finished transfers, admits queued ones,
+ * and drives the multis that got transfers meanwhile so their requests are written before it
+ * returns. */
+void eng_glue_action(struct eng_multi *mh, curl_socket_t fd, int ev_bitmask);
+/* Drives every multi handle that got transfers since it last acted (outside callbacks). */
+void eng_glue_flush(eng_t *e);
+/* Marks a multi as having new transfers to drive. */
+void eng_glue_added(struct eng_multi *mh);
 /* Easy-handle callbacks installed by xfer.c. */
 curl_socket_t eng_glue_opensocket(void *clientp, curlsocktype purpose, struct curl_sockaddr *a);
 int eng_glue_closesocket(void *clientp, curl_socket_t fd);

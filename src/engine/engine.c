@@ -76,6 +76,8 @@ static void eng_release_memory(eng_t *e)
         free(x);
     }
     curl_slist_free_all(e->headers);
+    free(e->multis);
+    free(e->dirty);
     free(e->socks);
     free(e->base_url);
     free(e->ca_file);
@@ -262,12 +264,28 @@ static void flight_unlink(eng_t *e, struct eng_xfer *x)
     e->in_flight--;
 }
 
-/* Hands one queued transfer to libcurl; false when it cannot (no easy handle). */
+/* A multi handle with room for one more transfer, looking round-robin from the last one used so
+ * that connections are spread (and kept warm) over all of them. */
+static struct eng_multi *multi_with_room(eng_t *e)
+{
+    for (int k = 0; k < e->n_multis; k++) {
+        int i = (e->next_multi + k) % e->n_multis;
+        if (e->multis[i].in_flight < e->multis[i].cap) {
+            e->next_multi = (i + 1) % e->n_multis;
+            return &e->multis[i];
+        }
+    }
+    return NULL;
+}
+
+/* Hands one queued transfer to libcurl; false when it cannot (no easy handle, no room). */
 static bool admit_one(eng_t *e)
 {
     struct eng_xfer *x = e->queue_head;
-    if (!(x->easy = easy_get(e)))
+    struct eng_multi *mh = multi_with_room(e);
+    if (!mh || !(x->easy = easy_get(e)))
         return false;
+    x->mh = mh;
     e->queue_head = x->next;
     if (!e->queue_head)
         e->queue_tail = NULL;
@@ -281,10 +299,11 @@ static bool admit_one(eng_t *e)
     if (wait > e->max_queue_wait_ns)
         e->max_queue_wait_ns = wait;
     flight_link(e, x);
-    if (curl_multi_add_handle(e->multi, x->easy) != CURLM_OK) {
-        /* Finish it through the normal path so on_done still runs exactly once. */
-        flight_unlink(e, x);
-        e->in_flight++;
+    mh->in_flight++;
+    eng_glue_added(mh);
+    if (curl_multi_add_handle(mh->m, x->easy) != CURLM_OK) {
+        /* Finish it through the normal path so on_done still runs exactly once (finish unlinks
+         * it from the in-flight list, once). */
         finish(e, x, CURLE_FAILED_INIT);
     }
     return true;
@@ -297,6 +316,12 @@ static void admit(eng_t *e)
     while (e->queue_head && e->in_flight < capacity(e))
         if (!admit_one(e))
             break;
+}
+
+void eng_flush(eng_t *e)
+{
+    if (e)
+        eng_glue_flush(e);
 }
 
 static void set_unreachable(eng_t *e, const char *why)
@@ -347,6 +372,10 @@ static void count_outcome(eng_t *e, const struct eng_xfer *x)
 static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc)
 {
     flight_unlink(e, x);
+    if (x->mh) {
+        x->mh->in_flight--;
+        x->mh = NULL;
+    }
     if (x->opener) {
         x->opener = false;
         e->openers_pending--;
@@ -380,7 +409,7 @@ static void cancel_all(eng_t *e)
     while (e->flight) {
         struct eng_xfer *x = e->flight;
         x->cancelled = true;
-        curl_multi_remove_handle(e->multi, x->easy);
+        curl_multi_remove_handle(x->mh->m, x->easy);
         finish(e, x, CURLE_ABORTED_BY_CALLBACK);
     }
 }

@@ -188,6 +188,8 @@ CURL *eng_easy_new(eng_t *e)
      * (getenv per transfer, ~2 % of the instructions per request under callgrind), and a stray
      * proxy variable must never re-route load meant for the plan's target. */
     curl_easy_setopt(c, CURLOPT_PROXY, "");
+    if (e->cfg.recv_buffer)
+        curl_easy_setopt(c, CURLOPT_BUFFERSIZE, e->cfg.recv_buffer);
     if (e->ca_file)
         curl_easy_setopt(c, CURLOPT_CAINFO, e->ca_file);
     if (e->cert_file)

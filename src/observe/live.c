@@ -61,10 +61,11 @@ static void live_second(void *self, const obs_second_t *s)
              elapsed, v->planned_s);
     out_live(v->o,
              "[%s] %s  rate %.0f/s of %s  in flight %d  queued %d  errors %lld  "
-             "p50 %.1fms  p99 %.1fms%s",
+             "p50 %.1fms  p99 %.1fms  send lag p99 %.2fms%s",
              obs_phase_name(v->plan, s->phase), when, (double)s->started / s->secs,
              planned, s->eng->max_in_flight, s->eng->max_queued, (long long)s->errors,
-             ms(hist_value_at(s->response, 50)), ms(hist_value_at(s->response, 99)), limited);
+             ms(hist_value_at(s->response, 50)), ms(hist_value_at(s->response, 99)),
+             ms(hist_value_at(s->send_lag, 99)), limited);
 }
 
 static const obs_ops_t ops = {

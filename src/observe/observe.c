@@ -31,11 +31,12 @@ struct obs {
     obs_cell_t *per_class; /* [class] */
     obs_cell_t *active;    /* the second's wcells with figures, copied out at its end */
     size_t n_active;
-    hist_t *all, *sec_lag;
+    hist_t *all, *sec_lag, *sec_send;
     int64_t started, completed, errors;
 
     /* The run. */
     hist_t *sched_lag;
+    hist_t *send_lag; /* sent - intended of first pages that were sent */
     int64_t total_started, total_completed, total_errors;
     int in_flight;
     int64_t busy_since_ns, last_answer_ns;
@@ -79,7 +80,8 @@ static int window_init(obs_t *l)
         if (k && !k->response && hist_new_ns(&k->response))
             return SQ_ENOMEM;
     }
-    if (hist_new_ns(&l->all) || hist_new_ns(&l->sec_lag) || hist_new_ns(&l->sched_lag))
+    if (hist_new_ns(&l->all) || hist_new_ns(&l->sec_lag) || hist_new_ns(&l->sched_lag) ||
+        hist_new_ns(&l->sec_send) || hist_new_ns(&l->send_lag))
         return SQ_ENOMEM;
     return 0;
 }
@@ -133,6 +135,8 @@ void obs_free(obs_t *l)
     hist_free(l->all);
     hist_free(l->sec_lag);
     hist_free(l->sched_lag);
+    hist_free(l->sec_send);
+    hist_free(l->send_lag);
     obs_health_close(&l->health);
     free(l);
 }
@@ -271,6 +275,11 @@ static void tally(obs_t *l, const obs_done_t *d)
         hist_record(l->sched_lag, r->submitted_ns - d->intended_ns);
         hist_record(l->sec_lag, r->submitted_ns - d->intended_ns);
     }
+    if (d->first && r->sent_ns) {
+        int64_t v = r->sent_ns - d->intended_ns;
+        hist_record(l->send_lag, v < 0 ? 0 : v);
+        hist_record(l->sec_send, v < 0 ? 0 : v);
+    }
 }
 
 void obs_done(obs_t *l, const obs_done_t *d)
@@ -347,6 +356,7 @@ static void window_reset(obs_t *l, int64_t now)
     }
     hist_reset(l->all);
     hist_reset(l->sec_lag);
+    hist_reset(l->sec_send);
     l->started = l->completed = l->errors = 0;
     l->svc_sum_ns = l->svc_n = 0;
     l->planned = 0;
@@ -376,6 +386,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .errors = l->errors,
         .response = l->all,
         .sched_lag = l->sec_lag,
+        .send_lag = l->sec_send,
         .cells = l->active,
         .n_cells = l->n_active,
         .per_class = l->per_class,
@@ -412,6 +423,11 @@ static json_t *generator_json(const obs_t *l)
     json_object_set_new(g, "schedule_lag_p99_ms",
                         json_real((double)hist_value_at(l->sched_lag, 99) / 1e6));
     json_object_set_new(g, "schedule_lag_max_ms", json_real((double)hist_max(l->sched_lag) / 1e6));
+    json_object_set_new(g, "send_lag_p50_ms",
+                        json_real((double)hist_value_at(l->send_lag, 50) / 1e6));
+    json_object_set_new(g, "send_lag_p99_ms",
+                        json_real((double)hist_value_at(l->send_lag, 99) / 1e6));
+    json_object_set_new(g, "send_lag_max_ms", json_real((double)hist_max(l->send_lag) / 1e6));
     json_object_set_new(g, "started", json_integer(l->total_started));
     json_object_set_new(g, "completed", json_integer(l->total_completed));
     json_object_set_new(g, "errors", json_integer(l->total_errors));
@@ -445,6 +461,7 @@ void obs_totals(const obs_t *l, obs_totals_t *t)
         .generator_why = l->health.generator.why,
         .connection_why = l->health.connections.why,
         .sched_lag = l->sched_lag,
+        .send_lag = l->send_lag,
     };
     obs_bound_seconds(&l->health.generator, t->generator_seconds, sizeof t->generator_seconds);
     obs_bound_seconds(&l->health.connections, t->connection_seconds, sizeof t->connection_seconds);

@@ -212,6 +212,9 @@ static void generator(FILE *f, const results_t *res)
     snprintf(buf, sizeof buf, "%.2f / %.2f / %.2f ms", jnum(g, "schedule_lag_p50_ms"),
              jnum(g, "schedule_lag_p99_ms"), jnum(g, "schedule_lag_max_ms"));
     kv(f, "schedule lag p50 / p99 / max", buf);
+    snprintf(buf, sizeof buf, "%.2f / %.2f / %.2f ms", jnum(g, "send_lag_p50_ms"),
+             jnum(g, "send_lag_p99_ms"), jnum(g, "send_lag_max_ms"));
+    kv(f, "send lag (on the wire - intended) p50 / p99 / max", buf);
     snprintf(buf, sizeof buf, "%.2f ms", jnum(g, "max_queue_wait_ms"));
     kv(f, "longest wait for a connection", buf);
     snprintf(buf, sizeof buf, "%.0f started, %.0f completed, %.0f errors", jnum(g, "started"),

@@ -189,7 +189,8 @@ static json_t *bound_json(const results_input_t *in, size_t n, const char *kind,
 /* Keys of the generator section and how they combine. */
 static const char *const gen_max[] = {
     "max_queue_wait_ms",      "max_queued",          "max_in_flight",       "max_loop_pass_ms",
-    "max_loop_busy_fraction", "schedule_lag_max_ms", "schedule_lag_p50_ms", "schedule_lag_p99_ms"};
+    "max_loop_busy_fraction", "schedule_lag_max_ms", "schedule_lag_p50_ms", "schedule_lag_p99_ms",
+    "send_lag_max_ms",        "send_lag_p50_ms",     "send_lag_p99_ms"};
 static const char *const gen_sum[] = {"started", "completed", "errors"};
 
 static json_t *generator_json(const results_input_t *in, size_t n, int64_t start_ms)
@@ -224,8 +225,9 @@ static json_t *generator_json(const results_input_t *in, size_t n, int64_t start
     if (n > 1)
         json_object_set_new(
             g, "merged",
-            json_pack("{s:i, s:s}", "inputs", (int)n, "schedule_lag_percentiles",
-                      "the largest input's: an upper bound for all inputs together"));
+            json_pack("{s:i, s:s, s:s}", "inputs", (int)n, "schedule_lag_percentiles",
+                      "the largest input's: an upper bound for all inputs together",
+                      "send_lag_percentiles", "the same"));
     return g;
 }
 

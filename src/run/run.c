@@ -20,7 +20,7 @@
 static void phase_start(run_t *r, size_t i, int64_t base_ns);
 static void finish(run_t *r);
 static void signals_held(run_t *r, bool hold);
-static void on_wake(uv_timer_t *t);
+static void on_wake(void *data);
 
 /* The one setter of the run's state. */
 static void set_state(run_t *r, enum run_state to)
@@ -181,6 +181,7 @@ static void due(run_t *r, int64_t now)
             run_stop(r, RUN_END_FAILED, "the generator could not issue a request: %s",
                      sq_strerror(rc));
     }
+    eng_flush(r->eng); /* on the wire now, not on the loop's next pass */
 }
 
 /* The next instant something must happen: a source's start, the phase's end, a deadline. */
@@ -200,43 +201,110 @@ static int64_t next_event(run_t *r)
     return next;
 }
 
-/* Arms the wake timer for the next event (libuv timers count whole milliseconds and never
- * fire before the loop's clock reaches them; a wake-up that comes early just rearms). */
+/* The wake-up is armed early by the loop's measured wake-up latency: the kernel's wake-up of the
+ * loop and the pass up to on_wake take some microseconds; on_wake spins the rest, so a request
+ * is handed to the engine at its own instant. The margin is the smoothed latency plus four
+ * times its smoothed deviation (the estimator of TCP's retransmission timer, RFC 6298 section
+ * 2, with gains 1/8 and 1/4), kept within WAKE_EARLY_MIN_NS..WAKE_EARLY_MAX_NS: a quiet
+ * machine spins a few microseconds per request, a busy one up to 100 µs. Measured on loopback
+ * with tools/bench/wire.sh (RESULTS.md, "wire"). */
+#define WAKE_EARLY_MIN_NS INT64_C(10000)
+#define WAKE_EARLY_MAX_NS INT64_C(100000)
+
+static int64_t wake_early(const run_t *r)
+{
+    int64_t e = r->late_avg_ns + 4 * r->late_dev_ns;
+    return e < WAKE_EARLY_MIN_NS ? WAKE_EARLY_MIN_NS : e > WAKE_EARLY_MAX_NS ? WAKE_EARLY_MAX_NS : e;
+}
+
+/* One measured wake-up latency into the estimate. */
+static void wake_learn(run_t *r, int64_t late)
+{
+    if (late < 0)
+        return;
+    int64_t d = late > r->late_avg_ns ? late - r->late_avg_ns : r->late_avg_ns - late;
+    r->late_dev_ns += (d - r->late_dev_ns) / 4;
+    r->late_avg_ns += (late - r->late_avg_ns) / 8;
+}
+/* One wake-up hands out at most this many due instants before the loop polls again. */
+#define WAKE_MAX_STEPS 256
+
+/* Arms the wake-up for the next event, early by wake_early() (a timerfd: nanosecond expiry,
+ * wake.c); a wake-up that comes early just spins or rearms. */
 static void rearm(run_t *r, int64_t now)
 {
     int64_t next = next_event(r);
     if (next == INT64_MAX || r->state == RUN_DONE) {
-        uv_timer_stop(&r->wake);
+        run_wake_stop(&r->wake);
         r->wake_at_ns = INT64_MAX;
         return;
     }
-    /* Armed early enough already: a timer cannot fire sooner than 1 ms from now, and pushing an
-     * armed timer later on every pass would keep it from ever firing. */
-    if (r->wake_at_ns <= (next > now ? next : now) + 1000000)
-        return;
-    int64_t ms = next > now ? (next - now + 999999) / 1000000 : 1;
-    r->wake_at_ns = now + ms * 1000000;
-    uv_update_time(&r->loop); /* the timer counts from the loop's clock: bring it to now */
-    uv_timer_start(&r->wake, on_wake, (uint64_t)ms, 0);
+    /* Deadlines of draining and the teardown need no spin. */
+    int64_t at = r->state == RUN_LOADING ? next - wake_early(r) : next;
+    if (at < r->wake_floor_ns && r->wake_floor_ns > now)
+        at = r->wake_floor_ns;
+    r->wake_at_ns = at;
+    run_wake_at(&r->wake, at);
 }
 
-static void on_wake(uv_timer_t *t)
+static int64_t spin_until(int64_t at)
 {
-    run_t *r = t->data;
+    int64_t now;
+    while ((now = clock_mono_ns()) < at) {
+#if defined(__x86_64__) || defined(__i386__)
+        __builtin_ia32_pause();
+#endif
+    }
+    return now;
+}
+
+/* Spins to the start the wake-up was armed for (at most WAKE_EARLY_MAX_NS ahead) and hands it out
+ * with every start that is due by then. Later starts, however close, get their own wake-up (a
+ * timerfd armed in the past fires at once): the loop polls in between, so answers are handled
+ * and connections freed. Spinning from one start to the next instead starved the answers at
+ * 20,000/s (every connection busy, send lag of seconds; tools/bench/run.sh). */
+static void on_wake(void *data)
+{
+    run_t *r = data;
     int64_t now = clock_mono_ns();
     r->wake_at_ns = INT64_MAX;
-    if (r->state == RUN_LOADING) {
+    wake_learn(r, r->wake.late_ns);
+    r->wake.late_ns = -1;
+    for (int step = 0; step < WAKE_MAX_STEPS && r->state == RUN_LOADING; step++) {
+        int64_t next = next_event(r);
+        if (next > now && (step > 0 || next > now + WAKE_EARLY_MAX_NS))
+            break;
+        if (next > now)
+            now = spin_until(next);
         due(r, now);
         run_phase_t *ph = current(r);
         if (r->state == RUN_LOADING && ph->duration_ns && now >= ph->base_ns + ph->duration_ns) {
             next_phase(r, now);
             due(r, now); /* the next phase's first starts may be due already */
         }
+        if (r->state == RUN_LOADING && next_event(r) <= now) {
+            /* Due, but the source did not move on (it waits for something else): look again in
+             * a millisecond rather than spin on it. */
+            r->wake_floor_ns = now + 1000000;
+            break;
+        }
+        now = clock_mono_ns();
     }
     if (r->state == RUN_DRAINING && now >= r->drain_deadline_ns)
         drained(r, now);
     if (r->state != RUN_DONE)
-        rearm(r, now); /* the loop polls next: the timer must be armed before it blocks */
+        rearm(r, now); /* the loop polls next: the wake-up must be armed before it blocks */
+}
+
+/* Before the engine handles an answer: what is due goes first (the engine's on_io). One poll
+ * returns every ready socket at once and handling each answer takes some microseconds, so a
+ * start that fell due meanwhile would otherwise wait behind all of them. */
+static void on_io(void *data)
+{
+    run_t *r = data;
+    if (r->state == RUN_LOADING && r->wake_at_ns != INT64_MAX &&
+        next_event(r) <= clock_mono_ns())
+        on_wake(r);
 }
 
 /* Just before the loop polls (and computes how long it may sleep): the end of draining or of
@@ -364,10 +432,9 @@ static void finish(run_t *r)
     r->eng = NULL;
     scrape_stop(r->scrape);
     act_stop(r->act);
-    uv_timer_stop(&r->wake);
+    run_wake_close(&r->wake);
     uv_timer_stop(&r->second);
     uv_prepare_stop(&r->prepare);
-    close_handle((uv_handle_t *)&r->wake);
     close_handle((uv_handle_t *)&r->second);
     close_handle((uv_handle_t *)&r->prepare);
     signals_held(r, true);
@@ -398,14 +465,17 @@ static void signals_held(run_t *r, bool hold)
 
 static int handles_start(run_t *r)
 {
-    uv_timer_init(&r->loop, &r->wake);
+    int rc = run_wake_init(&r->loop, &r->wake, on_wake, r);
+    if (rc)
+        return rc;
     uv_timer_init(&r->loop, &r->second);
     uv_prepare_init(&r->loop, &r->prepare);
     uv_signal_init(&r->loop, &r->sigint);
     uv_signal_init(&r->loop, &r->sigterm);
-    r->wake.data = r->second.data = r->prepare.data = r->sigint.data = r->sigterm.data = r;
+    r->second.data = r->prepare.data = r->sigint.data = r->sigterm.data = r;
     r->wake_at_ns = INT64_MAX;
-    int rc = uv_signal_start(&r->sigint, on_signal, SIGINT);
+    r->late_avg_ns = r->late_dev_ns = 10000; /* a first margin of 50 µs, learnt from there */
+    rc = uv_signal_start(&r->sigint, on_signal, SIGINT);
     rc = rc ? rc : uv_signal_start(&r->sigterm, on_signal, SIGTERM);
     rc = rc ? rc : uv_prepare_start(&r->prepare, on_prepare);
     rc = rc ? rc : uv_timer_start(&r->second, on_second, 1000, 1000);
@@ -423,6 +493,8 @@ static void run_loop(run_t *r)
 {
     eng_config_t cfg = r->target.eng;
     cfg.on_unreachable = on_unreachable;
+    cfg.on_io = on_io;
+    cfg.split = true; /* many short requests: cheaper on several multi handles */
     cfg.user = r;
     int rc = eng_new(&r->loop, &cfg, r->o, &r->eng);
     if (rc == 0) {

@@ -39,6 +39,24 @@ typedef struct {
     int64_t planned_to_ns;         /* its planned starts are counted up to here */
 } run_phase_t;
 
+/* wake.c: a wake-up at a nanosecond instant of the monotonic clock (a timerfd on the loop). */
+typedef struct {
+    uv_poll_t poll;
+    int fd;
+    bool started;
+    int64_t armed_ns; /* the expiry set, INT64_MAX when none */
+    bool future;      /* it was in the future when set */
+    int64_t late_ns;  /* in the callback: how late after a future expiry it runs, else -1 */
+    void (*cb)(void *data);
+    void *data;
+} run_wake_t;
+
+int run_wake_init(uv_loop_t *loop, run_wake_t *w, void (*cb)(void *data), void *data);
+/* Arms the wake-up for the instant at_ns (clock_mono_ns()); one in the past fires at once. */
+void run_wake_at(run_wake_t *w, int64_t at_ns);
+void run_wake_stop(run_wake_t *w);
+void run_wake_close(run_wake_t *w);
+
 typedef struct run {
     const plan_t *plan;
     const run_opts_t *opts;
@@ -56,10 +74,13 @@ typedef struct run {
     act_t *act;       /* actions and collects, NULL without */
 
     uv_loop_t loop;
-    uv_timer_t wake, second;
+    run_wake_t wake;
+    uv_timer_t second;
     uv_prepare_t prepare; /* before every poll: rearm the wake-up, notice the end of draining */
     uv_signal_t sigint, sigterm;
-    int64_t wake_at_ns; /* what the wake timer is armed for (INT64_MAX: not armed) */
+    int64_t wake_at_ns;  /* the instant the wake-up is armed for (INT64_MAX: not armed) */
+    int64_t wake_floor_ns; /* no wake-up before this: a source was due but did not move on */
+    int64_t late_avg_ns, late_dev_ns; /* smoothed wake-up latency and its deviation (run.c) */
 
     enum run_state state;
     enum run_end end;

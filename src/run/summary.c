@@ -165,9 +165,12 @@ void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j, const run_
     hist_free(svc);
     obs_totals_t t;
     obs_totals(r->obs, &t);
-    out_print(r->o, "\nsent %lld requests in %.1f s, %lld errors; schedule lag p99 %.2f ms\n",
+    out_print(r->o,
+              "\nsent %lld requests in %.1f s, %lld errors; schedule lag p99 %.2f ms, send lag "
+              "p50 %.3f / p99 %.3f ms\n",
               (long long)t.started, (double)(r->end_ns - r->start_ns) / 1e9, (long long)t.errors,
-              ms(hist_value_at(t.sched_lag, 99)));
+              ms(hist_value_at(t.sched_lag, 99)), ms(hist_value_at(t.send_lag, 50)),
+              ms(hist_value_at(t.send_lag, 99)));
     bound_lines(r, &t);
     kept_lines(r);
     if (j)

@@ -14,7 +14,8 @@
 
 #define RESUME_PARAM  "since" /* the embedded target's query parameter for a resume point */
 #define LOG_MAX       20000   /* reconnects kept per phase in the results' reconnect log */
-#define FD_RESERVE    64      /* open files kept aside for the main engine, results, stdio */
+#define FD_RESERVE    64      /* open files kept aside for the main engine (its multi handles' socket
+                                 pairs: at most 30), results, stdio */
 #define H2_STREAMS    100     /* libcurl's assumption until the server's SETTINGS arrive */
 #define MAX_LIST_PAGE 100000
 
@@ -520,6 +521,11 @@ static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, ui
     return 0;
 }
 
+/* libcurl's receive buffer per stream (its default is 16 KiB, held by every open stream): events
+ * are a few hundred bytes, and a larger answer (a relist page) is only read in more pieces.
+ * Measured per stream by tools/bench/watch.sh (RESULTS.md). */
+#define WATCH_RECV_BUFFER 2048L
+
 /* The plan's target, with one connection per stream over HTTP/1.1 and ceil(n / streams)
  * connections over HTTP/2, no timeout (relists carry their class's). */
 static int engine_new(watches_t *ws, int watchers)
@@ -531,6 +537,7 @@ static int engine_new(watches_t *ws, int watchers)
     cfg.connections = conns > 0 ? conns : 1;
     cfg.streams = per;
     cfg.timeout_ms = 0;
+    cfg.recv_buffer = WATCH_RECV_BUFFER;
     return eng_new(ws->ctx.loop, &cfg, ws->ctx.o, &ws->eng);
 }
 
@@ -640,6 +647,7 @@ static int watches_due(void *self, int64_t now_ns)
         }
     }
     ws->next_due_ns = next;
+    eng_flush(ws->eng); /* the streams open now, not on the loop's next pass */
     return 0;
 }
 

@@ -116,6 +116,12 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     return 0;
 }
 
+/* The fake answers on its own timer; there is nothing to write early. */
+void eng_flush(eng_t *e)
+{
+    (void)e;
+}
+
 int eng_submit(eng_t *e, const eng_req_t *req)
 {
     if (e->stopped)

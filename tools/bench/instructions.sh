@@ -7,7 +7,8 @@
 #   tools/bench/instructions.sh NEW_SQUALL [BASE_SQUALL]
 # Plans (loopback nginx, /small.json, HTTP/1.1): an even open loop of 1,000/s for 4 s over 8
 # connections (4,000 requests: the schedule's path), and an aligned fleet of 1,000 agents ticking
-# every second for 3 s (3,000 requests in bursts: the fleet's path). Under callgrind squall runs
+# every second for 3 s (3,000 requests in bursts: the fleet's path), and closed loops of 64 and
+# 256 clients on as many connections for 2 s. Under callgrind squall runs
 # some 50 times slower than natively, so it falls behind these rates; every request is still
 # sent (late), and the count is what is divided by. How many loop passes a run takes depends a
 # little on timing, so each figure is the median of 3 runs (min..max beside it). Prints a
@@ -23,10 +24,10 @@ trap 'rm -rf "$BUILDDIR"' EXIT
 source tests/integration/lib/nginx.sh
 nginx_start instr 1 || exit 1
 
-plan() { # NAME BODY
+plan() { # NAME BODY [CONNECTIONS]
     cat >"$BUILDDIR/$1.yaml" <<YAML
 seed: 5
-target: {url: "http://127.0.0.1:$NGX_PORT", connections: 8, timeout: 60s}
+target: {url: "http://127.0.0.1:$NGX_PORT", connections: ${3:-8}, timeout: 60s}
 requests:
   small: {kind: get, path: /small.json}
 phases:
@@ -37,6 +38,10 @@ YAML
 }
 plan open '  - {name: open, rate: 1000/s, duration: 4s, mix: {small: 1}}'
 plan fleet '  - {name: fleet, duration: 3s, fleet: {agents: 1000, every: 1s, timing: aligned, send: small}}'
+# Closed loops on 64 and 256 connections: libcurl's per-request search of its connection cache
+# grows with the connections of one multi handle (issue 12).
+plan closed64 '  - {name: closed, duration: 2s, clients: {count: 64, think: 0s}, mix: {small: 1}}' 64
+plan closed256 '  - {name: closed, duration: 2s, clients: {count: 256, think: 0s}, mix: {small: 1}}' 256
 
 # instr BINARY PLAN: "instructions requests" of one run under callgrind.
 instr() {
@@ -53,7 +58,7 @@ print(sum(c["count"] for c in d["cells"]))' "$out")
 
 printf '| plan | build | requests | instructions per request, median of 3 (min..max) |\n'
 printf '|---|---|---|---|\n'
-for p in open fleet; do
+for p in open fleet closed64 closed256; do
     for which in base new; do
         bin=$NEW
         [ "$which" = base ] && { [ -n "$BASE" ] || continue; bin=$BASE; }

@@ -106,7 +106,7 @@ declare -A ROW
 for proto in 1.1 2; do
     base=""
     sizes="100 1000 5000 10000"
-    [ "$proto" = 2 ] && sizes="100 1000 5000 20000"
+    [ "$proto" = 2 ] && sizes="100 1000 5000 20000 50000"
     for n in $sizes; do
         r=$(hold "$proto" "$n")
         echo "watch.sh: HTTP/$proto $r"
@@ -176,6 +176,7 @@ $(row 1.1 10000 100)
 $(row 2 1000 100)
 $(row 2 5000 100)
 $(row 2 20000 100)
+$(row 2 50000 100)
 
 Over HTTP/1.1 the open-file limit stops a plan at about $(($(ulimit -Hn) - 64 - 1)) watches per
 process (squall refuses such a plan before sending anything and says so); over HTTP/2 the
