@@ -114,7 +114,7 @@ static int demo_run(const char *plan_path, const cli_run_args_t *ra, out_t *o)
     if (pid > 0) {
         out_info(o, "demo: the embedded target listens on %s (pid %d); running %s", url, (int)pid,
                  plan_path);
-        rc = cli_run_plan(p, &ra->ro, o);
+        rc = cli_run_plan(p, &ra->ro, ra->json, o);
         kill(pid, SIGTERM);
         waitpid(pid, NULL, 0);
     }
