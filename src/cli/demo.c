@@ -72,23 +72,25 @@ static pid_t spawn_server(int port, out_t *o)
     return -1;
 }
 
-/* The demo plan: next to the binary's source tree (build/squall -> scenarios/), or here. */
+/* The demo plan: in the source tree of a binary built there (build/squall -> scenarios/), in
+ * the data directory of an installed one (bin/squall -> share/squall/scenarios/, which also
+ * holds for a staged install), in the data directory it was built for, or here. */
 static const char *find_plan(char *buf, size_t cap)
 {
     char exe[4096];
     ssize_t n = readlink("/proc/self/exe", exe, sizeof exe - 1);
-    if (n > 0) {
-        exe[n] = '\0';
-        char *slash = strrchr(exe, '/');
-        if (slash) {
-            *slash = '\0';
-            snprintf(buf, cap, "%s/../scenarios/demo.yaml", exe);
-            if (access(buf, R_OK) == 0)
-                return buf;
-        }
+    char *slash = n > 0 ? (exe[n] = '\0', strrchr(exe, '/')) : NULL;
+    if (slash)
+        *slash = '\0';
+    const char *const where[] = {"%s/../scenarios/demo.yaml",
+                                 "%s/" SQUALL_BIN_TO_DATA "/scenarios/demo.yaml",
+                                 SQUALL_DATADIR "/scenarios/demo.yaml%.0s", "scenarios/demo.yaml%.0s"};
+    for (size_t i = slash ? 0 : 2; i < sizeof where / sizeof where[0]; i++) {
+        snprintf(buf, cap, where[i], exe);
+        if (access(buf, R_OK) == 0)
+            return buf;
     }
-    snprintf(buf, cap, "scenarios/demo.yaml");
-    return access(buf, R_OK) == 0 ? buf : NULL;
+    return NULL;
 }
 
 /* The plan pointed at the target's port (after the user's own --set overrides). */
@@ -131,7 +133,10 @@ static int demo_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     char buf[4200];
     const char *plan_path = ra.path;
     if (rc < 0 && !plan_path && !(plan_path = find_plan(buf, sizeof buf)))
-        rc = cli_usage_error(cmd, o, "cannot find scenarios/demo.yaml; name a plan");
+        rc = cli_usage_error(cmd, o,
+                             "cannot find scenarios/demo.yaml (looked beside the binary, in "
+                             "%s/scenarios and here); name a plan",
+                             SQUALL_DATADIR);
     if (rc < 0)
         rc = demo_run(plan_path, &ra, o);
     cli_run_args_close(&ra);

@@ -32,6 +32,7 @@ static const char *const phase[] = {"name",    "duration", "rate",  "ramp",    "
                                     "churn",   "teardown", "replay", NULL};
 static const char *const step[] = {"rate", "for", NULL};
 static const char *const clients[] = {"count", "think", NULL};
+static const char *const watches[] = {"open", NULL}; /* besides the watch class names */
 static const char *const fleet[] = {"agents", "every", "timing", "jitter", "drift",
                                     "join",   "leave", "send",   "watch",  NULL};
 static const char *const send[] = {"class", "every", NULL};
@@ -56,6 +57,7 @@ const plan_keyset_t plan_keysets[PLAN_KEYS_N] = {
     [PLAN_KEYS_RAMP] = {"phases[].ramp", from_to, NULL},
     [PLAN_KEYS_STEP] = {"phases[].steps[]", step, NULL},
     [PLAN_KEYS_CLIENTS] = {"phases[].clients", clients, NULL},
+    [PLAN_KEYS_WATCHES] = {"phases[].watches", watches, NULL},
     [PLAN_KEYS_FLEET] = {"phases[].fleet", fleet, NULL},
     [PLAN_KEYS_SEND] = {"phases[].fleet.send[]", send, NULL},
     [PLAN_KEYS_CHURN] = {"phases[].churn", churn, NULL},

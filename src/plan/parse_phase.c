@@ -211,7 +211,7 @@ static void parse_watches(pctx_t *c, yaml_node_t *n, const char *where, plan_pha
         const char *name = pc_text(k);
         if (!name)
             continue;
-        if (strcmp(name, "open") == 0) {
+        if (strcmp(name, plan_keys(PLAN_KEYS_WATCHES)[0]) == 0) { /* "open" */
             const char *t = pc_text(v);
             if (t && strncmp(t, "spread ", 7) == 0) {
                 yaml_node_t tmp = *v;
