@@ -307,6 +307,7 @@ enum plan_keyset {
     PLAN_KEYS_RAMP,
     PLAN_KEYS_STEP,
     PLAN_KEYS_CLIENTS,
+    PLAN_KEYS_WATCHES, /* besides the watch class names */
     PLAN_KEYS_FLEET,
     PLAN_KEYS_SEND,
     PLAN_KEYS_CHURN,
