@@ -101,11 +101,13 @@ static void zsh_script(out_t *o)
                  "    _describe command commands\n"
                  "    return\n"
                  "  fi\n"
-                 "  case $words[2] in\n");
+                 "  shift words\n"
+                 "  (( CURRENT-- ))\n"
+                 "  case $words[1] in\n");
     for (const cli_cmd_t *const *t = cli_table(); *t; t++) {
         out_print(o, "    %s) _arguments", (*t)->name);
         for (const cli_opt_t *op = (*t)->opts; op && op->name; op++) {
-            out_print(o, " \\\n        '*--%s%s[", op->name, op->value ? "=" : "");
+            out_print(o, " \\\n        '*--%s[", op->name);
             zsh_text(op->help, o);
             out_print(o, "]%s%s%s'", op->value ? ":" : "", op->value ? op->value : "",
                       op->value ? ":_files" : "");

@@ -42,7 +42,7 @@ expect "dpkg -i installs it (exit $rc; $(tail -2 "$T/install.log"))" test "$rc" 
 expect "squall --version from PATH is the package's" \
     bash -c "[ \"\$(squall --version)\" = \"squall \$(dpkg-query -W -f='\${Version}' squall)\" ]"
 installed_checks /usr/bin/squall /usr/share/squall \
-    /usr/share/bash-completion/completions/squall "" "$S"
+    /usr/share/bash-completion/completions/squall "" "$S" /usr/share/zsh/vendor-completions
 purge
 trap - EXIT
 expect "dpkg --purge removes it: no /usr/bin/squall, no /usr/share/squall" \

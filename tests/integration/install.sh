@@ -26,6 +26,7 @@ for f in "$bindir/squall" "$mandir/man1/squall.1" "$mandir/man5/squall-plan.5" \
 done
 expect "the installed scenarios are the tree's" diff -r "$SRCDIR/scenarios" "$R/$datadir/squall/scenarios"
 installed_checks "$R/$bindir/squall" "$R/$datadir/squall" \
-    "$R/$datadir/bash-completion/completions/squall" "$R/$mandir" "$S"
+    "$R/$datadir/bash-completion/completions/squall" "$R/$mandir" "$S" \
+    "$R/$datadir/zsh/vendor-completions"
 rm -rf "$S"
 exit $FAILED

@@ -1,8 +1,9 @@
 # Shared checks of an installed squall (meson install, the .deb): source after run.sh.
-#     installed_checks BIN DATADIR COMPLETION MANPATH SCRATCH
+#     installed_checks BIN DATADIR COMPLETION MANPATH SCRATCH ZSHDIR
 # BIN the installed binary; DATADIR where its scenarios must be (…/share/squall); COMPLETION the
 # installed bash completion file; MANPATH the man hierarchy holding squall(1) and
-# squall-plan(5) ("" = man's own search path); SCRATCH an empty directory outside the checkout.
+# squall-plan(5) ("" = man's own search path); SCRATCH an empty directory outside the checkout;
+# ZSHDIR the directory of the installed zsh completion (_squall).
 
 # complete_words COMPLETION WORD... : the candidates bash's completion function offers for the
 # last WORD, with the words before it typed (run in a clean bash without rc files).
@@ -16,8 +17,18 @@ complete_words() {
         printf "%s\n" "${COMPREPLY[@]}"' bash "$file" "$@"
 }
 
+# zsh_line ZSHCOMP_DIR BIN LINE: what zsh's completion made of LINE after a TAB.
+zsh_line() {
+    mkdir -p "$t/zbin"
+    ln -sf "$2" "$t/zbin/squall"
+    rm -f "$t/zline"
+    timeout 30 zsh -f "$SRCDIR/tests/integration/lib/zsh_complete.zsh" "$1" "$t/zbin" "$3" \
+        "$t/zline" >/dev/null 2>&1
+    cat "$t/zline" 2>/dev/null
+}
+
 installed_checks() {
-    local bin=$1 data=$2 comp=$3 manpath=$4 t=$5 want
+    local bin=$1 data=$2 comp=$3 manpath=$4 t=$5 zcomp=$6 want
     want=$("$SQUALL" version)
     expect "installed squall version prints '$want' like the built one" \
         test "$("$bin" version)" = "$want"
@@ -51,6 +62,16 @@ installed_checks() {
     got=$(complete_words "$comp" squall help comp | tr '\n' ' ')
     expect "bash completes 'squall help comp' to compare and completion (got: $got)" \
         test "$got" = "compare completion "
+
+    # The zsh completion, loaded by compinit in an interactive zsh, completes a command and an
+    # option when TAB is typed.
+    expect "the installed zsh completion is what 'squall completion zsh' prints" \
+        bash -c "'$bin' completion zsh | cmp -s - '$zcomp/_squall'"
+    got=$(zsh_line "$zcomp" "$bin" "squall chec")
+    expect "zsh completes 'squall chec' to 'squall check' (got: $got)" test "$got" = "squall check"
+    got=$(zsh_line "$zcomp" "$bin" "squall cleanup --dry")
+    expect "zsh completes 'squall cleanup --dry' to --dry-run (got: $got)" \
+        test "$got" = "squall cleanup --dry-run"
 
     # The installed demo, run from a directory outside the checkout, with a bare environment:
     # it must find the plan in the installed data directory and pass against the embedded
