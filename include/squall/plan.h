@@ -318,11 +318,11 @@ enum plan_keyset {
     PLAN_KEYS_N
 };
 typedef struct {
-    const char *where;        /* the mapping as squall-plan(5) names it, "" for the top level,
-                               * e.g. "target.tls", "requests.NAME", "phases[].fleet" */
-    const char *const *keys;  /* NULL-terminated */
-    const unsigned *kinds;    /* per key, the request kinds it applies to (bit 1 << enum
-                               * plan_kind), or NULL when every key applies everywhere */
+    const char *where;       /* the mapping as squall-plan(5) names it, "" for the top level,
+                              * e.g. "target.tls", "requests.NAME", "phases[].fleet" */
+    const char *const *keys; /* NULL-terminated */
+    const unsigned *kinds;   /* per key, the request kinds it applies to (bit 1 << enum
+                              * plan_kind), or NULL when every key applies everywhere */
 } plan_keyset_t;
 extern const plan_keyset_t plan_keysets[PLAN_KEYS_N];
 /* The NULL-terminated keys of one set. */

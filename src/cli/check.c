@@ -252,8 +252,7 @@ static json_t *target_json(const plan_t *p)
                                                  plan_kind_name(p->reqs[i].kind)));
     return json_pack("{s:s, s:s, s:i, s:f, s:b, s:o}", "url", t->url, "http",
                      t->http == PLAN_HTTP_2 ? "2" : "1.1", "connections", t->connections,
-                     "timeout_s", t->timeout_ns / 1e9, "loopback", t->loopback, "classes",
-                     classes);
+                     "timeout_s", t->timeout_ns / 1e9, "loopback", t->loopback, "classes", classes);
 }
 
 static json_t *shape_json(const plan_phase_t *ph)
@@ -264,8 +263,8 @@ static json_t *shape_json(const plan_phase_t *ph)
     if (ph->shape == PLAN_LOAD_CONSTANT)
         json_object_set_new(j, "rate", json_real(ph->rate));
     else if (ph->shape == PLAN_LOAD_RAMP)
-        json_object_set_new(j, "ramp", json_pack("{s:f, s:f}", "from", ph->ramp_from, "to",
-                                                  ph->ramp_to));
+        json_object_set_new(j, "ramp",
+                            json_pack("{s:f, s:f}", "from", ph->ramp_from, "to", ph->ramp_to));
     else if (ph->shape == PLAN_LOAD_STEPS)
         json_object_set_new(j, "steps", json_integer((json_int_t)ph->n_steps));
     return j;
@@ -289,14 +288,16 @@ static json_t *phase_json(const plan_t *p, size_t i, const src_estimate_t *e)
         e->deleted, "alive_after", e->alive_after, "may_create", e->may_create, "teardown",
         ph->teardown.on);
     if (ph->fleet.on)
-        json_object_set_new(j, "fleet", json_pack("{s:i, s:f}", "agents", ph->fleet.agents,
-                                                  "every_s", ph->fleet.every_ns / 1e9));
+        json_object_set_new(j, "fleet",
+                            json_pack("{s:i, s:f}", "agents", ph->fleet.agents, "every_s",
+                                      ph->fleet.every_ns / 1e9));
     if (ph->churn.on)
-        json_object_set_new(j, "churn", json_pack("{s:f, s:i}", "rate", ph->churn.rate,
-                                                  "population", ph->churn.population));
+        json_object_set_new(
+            j, "churn",
+            json_pack("{s:f, s:i}", "rate", ph->churn.rate, "population", ph->churn.population));
     if (ph->replay.on)
-        json_object_set_new(j, "replay", json_pack("{s:s, s:f}", "log", ph->replay.log, "speed",
-                                                   ph->replay.speed));
+        json_object_set_new(
+            j, "replay", json_pack("{s:s, s:f}", "log", ph->replay.log, "speed", ph->replay.speed));
     return j;
 }
 
@@ -309,8 +310,8 @@ static json_t *objective_json(const plan_t *p, const src_estimate_t *est,
     static const char *const limit[] = {"percentile", "error-rate", "min-rate"};
     json_t *j = json_pack("{s:o, s:o, s:s}", "class",
                           ob->cls.index < 0 ? json_null() : json_string(ob->cls.name), "phase",
-                          ob->phase.index < 0 ? json_null() : json_string(ob->phase.name),
-                          "limit", limit[ob->limit]);
+                          ob->phase.index < 0 ? json_null() : json_string(ob->phase.name), "limit",
+                          limit[ob->limit]);
     if (ob->limit == PLAN_LIMIT_PERCENTILE) {
         json_object_set_new(j, "percentile", json_real(ob->percentile));
         json_object_set_new(j, "metric", json_string(metric[ob->metric]));
@@ -322,13 +323,14 @@ static json_t *objective_json(const plan_t *p, const src_estimate_t *est,
         return j;
     json_t *scopes = json_array();
     for (int i = -1; i < (int)p->n_phases; i++) {
-        if (ob->phase.index >= 0 ? i != ob->phase.index
-                                 : i >= 0 && (p->phases[i].teardown.on ||
-                                              est[i].per_class[ob->cls.index] <= 0))
+        if (ob->phase.index >= 0
+                ? i != ob->phase.index
+                : i >= 0 && (p->phases[i].teardown.on || est[i].per_class[ob->cls.index] <= 0))
             continue;
-        json_array_append_new(scopes, json_pack("{s:o, s:f}", "phase",
-                                                i < 0 ? json_null() : json_string(p->phases[i].name),
-                                                "expected", expected_of(p, est, ob->cls.index, i)));
+        json_array_append_new(scopes,
+                              json_pack("{s:o, s:f}", "phase",
+                                        i < 0 ? json_null() : json_string(p->phases[i].name),
+                                        "expected", expected_of(p, est, ob->cls.index, i)));
     }
     json_object_set_new(j, "samples_needed",
                         json_integer((json_int_t)judge_samples_needed(ob->percentile)));
@@ -367,8 +369,8 @@ static json_t *check_json(const char *path, const plan_t *p, const src_estimate_
     bool all_errors = false;
     for (size_t i = 0; i < p->n_objectives; i++) {
         json_array_append_new(objectives, objective_json(p, est, &p->objectives[i]));
-        all_errors |= p->objectives[i].limit == PLAN_LIMIT_ERROR_RATE &&
-                      p->objectives[i].cls.index < 0;
+        all_errors |=
+            p->objectives[i].limit == PLAN_LIMIT_ERROR_RATE && p->objectives[i].cls.index < 0;
     }
     for (size_t i = 0; i < p->n_brakes; i++)
         json_array_append_new(brakes, brake_json(&p->brakes[i]));
@@ -377,9 +379,9 @@ static json_t *check_json(const char *path, const plan_t *p, const src_estimate_
             json_array_append_new(accept, json_string(plan_accept_names[i]));
     return json_pack("{s:s, s:i, s:s, s:b, s:o, s:o, s:{s:f, s:f, s:f}, s:o, s:o, s:o, s:o}",
                      "format", CHECK_JSON_FORMAT, "version", CHECK_JSON_VERSION, "plan", path,
-                     "valid", 1, "target", target_json(p), "phases", phases, "total",
-                     "duration_s", dur / 1e9, "requests", total, "peak_rate", peak, "objectives",
-                     objectives, "default_error_rate",
+                     "valid", 1, "target", target_json(p), "phases", phases, "total", "duration_s",
+                     dur / 1e9, "requests", total, "peak_rate", peak, "objectives", objectives,
+                     "default_error_rate",
                      all_errors ? json_null() : json_real(JUDGE_DEFAULT_ERROR_RATE), "brakes",
                      brakes, "accept", accept);
 }

@@ -203,8 +203,8 @@ static void fates_json(json_t *doc, const journal_alive_t *al, const enum journa
     json_object_set_new(doc, "counts",
                         json_pack("{s:I, s:I, s:I, s:I, s:I}", "deleted", (json_int_t)c->done,
                                   "already_gone", (json_int_t)c->gone, "failed",
-                                  (json_int_t)c->refused, "left", (json_int_t)c->left,
-                                  "not_tried", (json_int_t)c->not_tried));
+                                  (json_int_t)c->refused, "left", (json_int_t)c->left, "not_tried",
+                                  (json_int_t)c->not_tried));
     json_object_set_new(doc, "seconds", json_real(c->elapsed_ns / 1e9));
     json_object_set_new(doc, "stopped_early", c->why[0] ? json_string(c->why) : json_null());
 }
@@ -290,9 +290,8 @@ static int cleanup_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     if (ca.json) {
         alive = json_array();
         for (size_t i = 0; i < al.n; i++)
-            json_array_append_new(alive, json_pack("{s:s, s:s, s:b}", "path", al.paths[i],
-                                                   "class", al.classes[i], "confirmed",
-                                                   al.confirmed[i]));
+            json_array_append_new(alive, json_pack("{s:s, s:s, s:b}", "path", al.paths[i], "class",
+                                                   al.classes[i], "confirmed", al.confirmed[i]));
         doc = json_pack("{s:s, s:i, s:s, s:s, s:b, s:{s:I, s:I, s:I, s:I}, s:o}", "format",
                         "squall-cleanup", "version", 1, "journal", path, "target", al.target,
                         "dry_run", ca.dry_run, "journal_lines", "read", (json_int_t)al.records,

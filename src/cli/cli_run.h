@@ -31,7 +31,8 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
 int cli_run_exit(int rc, const run_result_t *res);
 /* Runs the plan with the options and returns the exit code. With json, the summary on the
  * results stream is one JSON document (format "squall-run", version 1): the results directory,
- * the exit code, and results.json's "run" section (verdict, reasons, accepted) and "objectives" (every check). */
+ * the exit code, and results.json's "run" section (verdict, reasons, accepted) and "objectives"
+ * (every check). */
 int cli_run_plan(const plan_t *p, const run_opts_t *ro, bool json, out_t *o);
 
 #endif

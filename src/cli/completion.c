@@ -25,12 +25,13 @@ static void bash_opts(const cli_cmd_t *c, bool values_only, out_t *o)
 
 static void bash_script(out_t *o)
 {
-    out_print(o, "# bash completion for squall %s, written by `squall completion bash`\n"
-                 "_squall()\n{\n"
-                 "    local cur=${COMP_WORDS[COMP_CWORD]} prev=${COMP_WORDS[COMP_CWORD-1]}\n"
-                 "    local words='' takes=''\n"
-                 "    if [ \"$COMP_CWORD\" -eq 1 ]; then\n"
-                 "        words='--help -h --version -V",
+    out_print(o,
+              "# bash completion for squall %s, written by `squall completion bash`\n"
+              "_squall()\n{\n"
+              "    local cur=${COMP_WORDS[COMP_CWORD]} prev=${COMP_WORDS[COMP_CWORD-1]}\n"
+              "    local words='' takes=''\n"
+              "    if [ \"$COMP_CWORD\" -eq 1 ]; then\n"
+              "        words='--help -h --version -V",
               SQUALL_VERSION);
     for (const cli_cmd_t *const *t = cli_table(); *t; t++)
         out_print(o, " %s", (*t)->name);
@@ -85,11 +86,12 @@ static void zsh_text(const char *s, out_t *o)
 
 static void zsh_script(out_t *o)
 {
-    out_print(o, "#compdef squall\n"
-                 "# zsh completion for squall %s, written by `squall completion zsh`\n"
-                 "_squall() {\n"
-                 "  local -a commands\n"
-                 "  commands=(\n",
+    out_print(o,
+              "#compdef squall\n"
+              "# zsh completion for squall %s, written by `squall completion zsh`\n"
+              "_squall() {\n"
+              "  local -a commands\n"
+              "  commands=(\n",
               SQUALL_VERSION);
     for (const cli_cmd_t *const *t = cli_table(); *t; t++) {
         out_print(o, "    '%s:", (*t)->name);

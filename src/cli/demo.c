@@ -77,16 +77,20 @@ static pid_t spawn_server(int port, out_t *o)
  * holds for a staged install), in the data directory it was built for, or here. */
 static const char *find_plan(char *buf, size_t cap)
 {
-    char exe[4096];
-    ssize_t n = readlink("/proc/self/exe", exe, sizeof exe - 1);
-    char *slash = n > 0 ? (exe[n] = '\0', strrchr(exe, '/')) : NULL;
+    char dir[4096] = "";
+    ssize_t n = readlink("/proc/self/exe", dir, sizeof dir - 1);
+    char *slash = n > 0 ? (dir[n] = '\0', strrchr(dir, '/')) : NULL;
     if (slash)
         *slash = '\0';
-    const char *const where[] = {"%s/../scenarios/demo.yaml",
-                                 "%s/" SQUALL_BIN_TO_DATA "/scenarios/demo.yaml",
-                                 SQUALL_DATADIR "/scenarios/demo.yaml%.0s", "scenarios/demo.yaml%.0s"};
-    for (size_t i = slash ? 0 : 2; i < sizeof where / sizeof where[0]; i++) {
-        snprintf(buf, cap, where[i], exe);
+    const char *const beside[] = {"/../scenarios", "/" SQUALL_BIN_TO_DATA "/scenarios"};
+    for (size_t i = 0; slash && i < sizeof beside / sizeof beside[0]; i++) {
+        snprintf(buf, cap, "%s%s/demo.yaml", dir, beside[i]);
+        if (access(buf, R_OK) == 0)
+            return buf;
+    }
+    const char *const fixed[] = {SQUALL_DATADIR "/scenarios/demo.yaml", "scenarios/demo.yaml"};
+    for (size_t i = 0; i < sizeof fixed / sizeof fixed[0]; i++) {
+        snprintf(buf, cap, "%s", fixed[i]);
         if (access(buf, R_OK) == 0)
             return buf;
     }

@@ -216,11 +216,11 @@ static void print_json(const results_t *r, int n, const char *dir, out_t *o)
     int64_t requests = 0;
     for (size_t i = 0; i < results_cell_count(r); i++)
         requests += results_cell_counters(results_cell_at(r, i))->count;
-    json_t *doc = json_pack("{s:s, s:i, s:s, s:i, s:I, s:I, s:O?, s:O?}", "format", "squall-merge",
-                            "version", 1, "results", dir, "inputs", n, "cells",
-                            (json_int_t)results_cell_count(r), "requests", (json_int_t)requests,
-                            "run", results_section(r, "run"), "objectives",
-                            results_section(r, "objectives"));
+    json_t *doc =
+        json_pack("{s:s, s:i, s:s, s:i, s:I, s:I, s:O?, s:O?}", "format", "squall-merge", "version",
+                  1, "results", dir, "inputs", n, "cells", (json_int_t)results_cell_count(r),
+                  "requests", (json_int_t)requests, "run", results_section(r, "run"), "objectives",
+                  results_section(r, "objectives"));
     char *text = doc ? json_dumps(doc, JSON_INDENT(2)) : NULL;
     if (text)
         out_print(o, "%s\n", text);

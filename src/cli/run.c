@@ -168,9 +168,9 @@ static void print_json(const run_result_t *res, int code, out_t *o)
     if (!res->dir[0] || results_read(res->dir, &r, o))
         return;
     json_t *run = results_section(r, "run"), *checks = results_section(r, "objectives");
-    json_t *doc = json_pack("{s:s, s:i, s:s, s:i, s:O?, s:O?}", "format", "squall-run", "version",
-                            1, "results", res->dir, "exit_code", code, "run", run, "objectives",
-                            checks);
+    json_t *doc =
+        json_pack("{s:s, s:i, s:s, s:i, s:O?, s:O?}", "format", "squall-run", "version", 1,
+                  "results", res->dir, "exit_code", code, "run", run, "objectives", checks);
     char *text = doc ? json_dumps(doc, JSON_INDENT(2)) : NULL;
     if (text)
         out_print(o, "%s\n", text);

@@ -5,8 +5,8 @@
  * the page documents what the key does, so add both together. */
 #include "plan_int.h"
 
-static const char *const root[] = {"include",  "seed",       "target", "vars",   "requests",
-                                   "phases",   "objectives", "brakes", "accept", NULL};
+static const char *const root[] = {"include", "seed",       "target", "vars",   "requests",
+                                   "phases",  "objectives", "brakes", "accept", NULL};
 static const char *const target[] = {"url",     "http", "connections", "streams", "timeout",
                                      "headers", "tls",  "token",       NULL};
 static const char *const tls[] = {"ca", "cert", "key", "insecure", NULL};
@@ -14,22 +14,23 @@ static const char *const token[] = {"file", "env", NULL};
 static const char *const from_to[] = {"from", "to", NULL};
 
 /* Request keys with the kinds of request each applies to (the rest are refused by kind). */
-static const char *const request[] = {
-    "kind",    "path",   "headers",     "timeout",   "page",           "limit-param",
-    "token-key", "token-param", "method", "body",    "creates",        "deletes",
-    "keep",    "framing", "version-key", "stamp-key", "too-old-status", "relist",
-    "reconnect", NULL};
-static const unsigned request_kinds[] = {
-    PK_ANY,   PK_ANY,   PK_ANY,   PK_ANY,   PK_LIST,  PK_LIST,  PK_LIST,
-    PK_LIST,  PK_WRITE, PK_WRITE, PK_WRITE, PK_WRITE, PK_WRITE, PK_WATCH,
-    PK_WATCH, PK_WATCH, PK_WATCH, PK_WATCH, PK_WATCH};
-_Static_assert(sizeof request / sizeof request[0] == sizeof request_kinds / sizeof request_kinds[0] + 1,
+static const char *const request[] = {"kind",           "path",        "headers",     "timeout",
+                                      "page",           "limit-param", "token-key",   "token-param",
+                                      "method",         "body",        "creates",     "deletes",
+                                      "keep",           "framing",     "version-key", "stamp-key",
+                                      "too-old-status", "relist",      "reconnect",   NULL};
+static const unsigned request_kinds[] = {PK_ANY,   PK_ANY,   PK_ANY,   PK_ANY,   PK_LIST,
+                                         PK_LIST,  PK_LIST,  PK_LIST,  PK_WRITE, PK_WRITE,
+                                         PK_WRITE, PK_WRITE, PK_WRITE, PK_WATCH, PK_WATCH,
+                                         PK_WATCH, PK_WATCH, PK_WATCH, PK_WATCH};
+_Static_assert(sizeof request / sizeof request[0] ==
+                   sizeof request_kinds / sizeof request_kinds[0] + 1,
                "one kinds entry per request key");
 
 static const char *const reconnect[] = {"policy", "base", "cap", NULL};
-static const char *const phase[] = {"name",    "duration", "rate",  "ramp",    "steps",
-                                    "arrivals", "mix",     "clients", "fleet", "watches",
-                                    "churn",   "teardown", "replay", NULL};
+static const char *const phase[] = {"name",     "duration", "rate",    "ramp",  "steps",
+                                    "arrivals", "mix",      "clients", "fleet", "watches",
+                                    "churn",    "teardown", "replay",  NULL};
 static const char *const step[] = {"rate", "for", NULL};
 static const char *const clients[] = {"count", "think", NULL};
 static const char *const watches[] = {"open", NULL}; /* besides the watch class names */

@@ -6,7 +6,6 @@
 #include "plan_int.h"
 #include "squall/err.h"
 
-
 static void parse_mix(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
     char w[200];

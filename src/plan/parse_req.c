@@ -6,7 +6,6 @@
 #include "plan_int.h"
 #include "squall/err.h"
 
-
 /* Keys that exist but belong to another kind of request. */
 static void check_kind_keys(pctx_t *c, yaml_node_t *n, const char *where, enum plan_kind kind)
 {
