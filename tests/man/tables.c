@@ -2,10 +2,12 @@
  *   command NAME
  *   option COMMAND --LONG [-S] [VALUE]
  *   key PATH          (a plan key as squall-plan(5) names it, e.g. phases[].fleet.agents)
+ *   exit CODE         (an exit code of SQ_EXIT_MAP)
  * tests/man/drift.py compares them with doc/squall.1.scd and doc/squall-plan.5.scd. */
 #include <stdio.h>
 
 #include "squall/cli.h"
+#include "squall/err.h"
 #include "squall/plan.h"
 
 int main(void)
@@ -23,5 +25,8 @@ int main(void)
     for (int s = 0; s < PLAN_KEYS_N; s++)
         for (const char *const *k = plan_keysets[s].keys; *k; k++)
             printf("key %s%s%s\n", plan_keysets[s].where, plan_keysets[s].where[0] ? "." : "", *k);
+#define SQ_EXIT_LINE(name, value, text) printf("exit %d\n", value);
+    SQ_EXIT_MAP(SQ_EXIT_LINE)
+#undef SQ_EXIT_LINE
     return 0;
 }
