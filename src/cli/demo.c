@@ -153,8 +153,10 @@ const cli_cmd_t cli_cmd_demo = {
     .usage = "[PLAN.yaml] [-o DIR] [--set KEY=VALUE]... [--keep] [run options]",
     .description =
         "Starts `squall serve` on a free 127.0.0.1 port, points the plan (default\n"
-        "scenarios/demo.yaml) at it with --set target.url, runs it like `squall run` (with\n"
-        "the same options), and stops the target. Exit codes are those of `squall run`.",
+        "scenarios/demo.yaml of the source tree the binary was built in, else the installed\n"
+        "share/squall/scenarios/demo.yaml) at it with --set target.url, runs it like\n"
+        "`squall run` (with the same options), and stops the target. Exit codes are those of\n"
+        "`squall run`.",
     .opts = cli_run_opts,
     .main = demo_main,
 };
