@@ -5,8 +5,9 @@
  * the page documents what the key does, so add both together. */
 #include "plan_int.h"
 
-static const char *const root[] = {"include", "seed",       "target", "vars",   "requests",
-                                   "phases",  "objectives", "brakes", "accept", NULL};
+static const char *const root[] = {"include",  "seed",    "target",     "vars",
+                                   "requests", "phases",  "objectives", "brakes",
+                                   "accept",   "observe", NULL};
 static const char *const target[] = {"url",     "http", "connections", "streams", "timeout",
                                      "headers", "tls",  "token",       NULL};
 static const char *const tls[] = {"ca", "cert", "key", "insecure", NULL};
@@ -28,9 +29,11 @@ _Static_assert(sizeof request / sizeof request[0] ==
                "one kinds entry per request key");
 
 static const char *const reconnect[] = {"policy", "base", "cap", NULL};
-static const char *const phase[] = {"name",     "duration", "rate",    "ramp",  "steps",
-                                    "arrivals", "mix",      "clients", "fleet", "watches",
-                                    "churn",    "teardown", "replay",  NULL};
+static const char *const phase[] = {"name",     "duration", "rate",    "ramp",    "steps",
+                                    "arrivals", "mix",      "clients", "fleet",   "watches",
+                                    "churn",    "teardown", "replay",  "actions", NULL};
+static const char *const action[] = {"name", "at", "http", "exec", "timeout", NULL};
+static const char *const action_http[] = {"method", "url", "body", NULL};
 static const char *const step[] = {"rate", "for", NULL};
 static const char *const clients[] = {"count", "think", NULL};
 static const char *const watches[] = {"open", NULL}; /* besides the watch class names */
@@ -46,6 +49,10 @@ static const char *const objective[] = {"class",    "phase", "metric", "error-ra
                                         "min-rate", "p99",   NULL};
 static const char *const brake[] = {"error-rate", "unreachable", "saturation", "for",
                                     "class",      "p99",         NULL};
+
+static const char *const observe[] = {"metrics", "collect", NULL};
+static const char *const scrape[] = {"url", "every", "keep", NULL};
+static const char *const collect[] = {"url", "at", "save", "timeout", "max", NULL};
 
 const plan_keyset_t plan_keysets[PLAN_KEYS_N] = {
     [PLAN_KEYS_ROOT] = {"", root, NULL},
@@ -65,8 +72,13 @@ const plan_keyset_t plan_keysets[PLAN_KEYS_N] = {
     [PLAN_KEYS_CHURN] = {"phases[].churn", churn, NULL},
     [PLAN_KEYS_TEARDOWN] = {"phases[].teardown", teardown, NULL},
     [PLAN_KEYS_REPLAY] = {"phases[].replay", replay, NULL},
+    [PLAN_KEYS_ACTION] = {"phases[].actions[]", action, NULL},
+    [PLAN_KEYS_ACTION_HTTP] = {"phases[].actions[].http", action_http, NULL},
     [PLAN_KEYS_OBJECTIVE] = {"objectives[]", objective, NULL},
     [PLAN_KEYS_BRAKE] = {"brakes[]", brake, NULL},
+    [PLAN_KEYS_OBSERVE] = {"observe", observe, NULL},
+    [PLAN_KEYS_SCRAPE] = {"observe.metrics[]", scrape, NULL},
+    [PLAN_KEYS_COLLECT] = {"observe.collect[]", collect, NULL},
 };
 
 const char *const *plan_keys(enum plan_keyset s)

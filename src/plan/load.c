@@ -103,7 +103,7 @@ static void parse_root(pctx_t *c, yaml_node_t *root)
     } parsers[] = {{"target", plan_parse_target},         {"vars", plan_parse_vars},
                    {"requests", plan_parse_requests},     {"phases", plan_parse_phases},
                    {"objectives", plan_parse_objectives}, {"brakes", plan_parse_brakes},
-                   {"accept", plan_parse_accept}};
+                   {"accept", plan_parse_accept},         {"observe", plan_parse_observe}};
     for (size_t i = 0; i < sizeof parsers / sizeof parsers[0]; i++) {
         yaml_node_t *n = pc_get(c, root, parsers[i].key);
         if (n)

@@ -422,6 +422,8 @@ static void parse_one(pctx_t *c, yaml_node_t *n, size_t index)
     if (pc_get(c, n, "replay"))
         parse_replay(c, pc_get(c, n, "replay"), where, &ph);
     check_sources(c, n, where, &ph);
+    if (pc_get(c, n, "actions"))
+        plan_parse_actions(c, pc_get(c, n, "actions"), where, &ph);
     c->p->phases = pc_grow(c, c->p->phases, &c->p->n_phases, 1, sizeof(ph));
     if (!c->nomem)
         c->p->phases[c->p->n_phases - 1] = ph;
