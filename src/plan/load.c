@@ -13,10 +13,6 @@
 #define MAX_INCLUDE_DEPTH 16
 #define MAX_FILES         64
 
-static const char *const root_keys[] = {"include",    "seed",   "target", "vars",
-                                        "requests",   "phases", "objectives", "brakes",
-                                        "accept",     "observe", NULL};
-
 /* Every file of a plan, read before any is parsed so overrides can reach into includes. */
 typedef struct {
     char *real[MAX_INCLUDE_DEPTH]; /* realpath of each file being read, for cycles */
@@ -99,15 +95,19 @@ static void parse_seed(pctx_t *c, yaml_node_t *root)
 /* The sections of one document, in an order that does not depend on the file's. */
 static void parse_root(pctx_t *c, yaml_node_t *root)
 {
-    pc_check_keys(c, root, "plan", root_keys);
+    pc_check_keys(c, root, "plan", plan_keys(PLAN_KEYS_ROOT));
     parse_seed(c, root);
-    void (*const parsers[])(pctx_t *, yaml_node_t *) = {
-        plan_parse_target,     plan_parse_vars,   plan_parse_requests, plan_parse_phases,
-        plan_parse_objectives, plan_parse_brakes, plan_parse_accept, plan_parse_observe};
+    static const struct {
+        const char *key;
+        void (*parse)(pctx_t *, yaml_node_t *);
+    } parsers[] = {{"target", plan_parse_target},         {"vars", plan_parse_vars},
+                   {"requests", plan_parse_requests},     {"phases", plan_parse_phases},
+                   {"objectives", plan_parse_objectives}, {"brakes", plan_parse_brakes},
+                   {"accept", plan_parse_accept},         {"observe", plan_parse_observe}};
     for (size_t i = 0; i < sizeof parsers / sizeof parsers[0]; i++) {
-        yaml_node_t *n = pc_get(c, root, root_keys[i + 2]);
+        yaml_node_t *n = pc_get(c, root, parsers[i].key);
         if (n)
-            parsers[i](c, n);
+            parsers[i].parse(c, n);
     }
 }
 

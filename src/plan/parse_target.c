@@ -130,7 +130,7 @@ static void parse_url(pctx_t *c, yaml_node_t *vn, plan_target_t *t)
 
 static void parse_tls(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 {
-    static const char *const keys[] = {"ca", "cert", "key", "insecure", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_TLS);
     if (!pc_expect_map(c, n, "target.tls"))
         return;
     pc_check_keys(c, n, "target.tls", keys);
@@ -147,7 +147,7 @@ static void parse_tls(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 
 static void parse_token(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 {
-    static const char *const keys[] = {"file", "env", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_TOKEN);
     if (n && n->type == YAML_SCALAR_NODE) {
         pc_error(c, n,
                  "target.token: a literal token is never accepted (expected {file: PATH} "
@@ -167,8 +167,7 @@ static void parse_token(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 
 void plan_parse_target(pctx_t *c, yaml_node_t *n)
 {
-    static const char *const keys[] = {"url",     "http", "connections", "streams", "timeout",
-                                       "headers", "tls",  "token",       NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_TARGET);
     static const char *const versions[] = {"1.1", "2", NULL};
     plan_target_t *t = &c->p->target;
     if (!pc_expect_map(c, n, "target"))
@@ -199,7 +198,7 @@ void plan_parse_target(pctx_t *c, yaml_node_t *n)
 
 static void parse_range(pctx_t *c, yaml_node_t *n, const char *where, plan_var_t *v)
 {
-    static const char *const keys[] = {"from", "to", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_RANGE);
     pc_check_keys(c, n, where, keys);
     int from = 0, to = 0;
     bool ok = pc_int(c, n, "from", where, -1000000000, 1000000000, &from);
