@@ -51,6 +51,7 @@ enum eng_http { ENG_HTTP_1_1 = 0, ENG_HTTP_2 = 1 };
     X(RESET, "reset")                                                                              \
     X(VERSION, "http-version")                                                                     \
     X(OTHER, "transport-other")                                                                    \
+    X(BODY, "body-too-large")                                                                      \
     X(CANCELLED, "cancelled")
 
 enum eng_outcome {
@@ -70,6 +71,9 @@ typedef struct {
     int connections;    /* connection cap, >= 1 */
     int streams;        /* HTTP/2 streams per connection, >= 1 (0 = 100); ignored for 1.1 */
     int64_t timeout_ms; /* default per-request timeout (0 = none) */
+    /* A kept body (keep_body) longer than this many bytes ends its request at once with outcome
+     * "body-too-large"; 0 = 16 MiB. Streamed bodies (on_data) are the caller's to bound. */
+    int64_t max_body;
     /* TLS: files are paths (NULL = libcurl's defaults). Verification is on unless `insecure`;
      * the caller prints the warning. */
     const char *ca_file, *cert_file, *key_file;
@@ -117,7 +121,8 @@ typedef void (*eng_done_cb)(void *user, const eng_result_t *res);
 
 typedef struct {
     const char *method; /* NULL or "GET"; "POST", "PUT", "PATCH", "DELETE", ... */
-    const char *path;   /* appended to base_url; copied */
+    const char *path;   /* appended to base_url's path, never parsed as a URL: must pass
+                           value_path_problem (squall/value.h); copied */
     const char *body;   /* copied; NULL = no body */
     size_t body_len;
     const char *const *headers; /* extra headers for this request only, "Name: value"; copied */
@@ -153,7 +158,8 @@ typedef struct {
  * SQ_ELIBCURL, SQ_ELIBUV. `o` must outlive the engine. */
 int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
 
-/* Queues one request; its fields are copied. Returns 0, or SQ_EINVAL (no on_done, no path),
+/* Queues one request; its fields are copied. Returns 0, or SQ_EINVAL (no on_done, no path, a path
+ * that is not one: a control byte, a space, '#', no leading '/'),
  * SQ_ESTOPPED (after eng_stop), SQ_ENOMEM. A call that fails never calls on_done; a call that
  * succeeds calls it exactly once, never from inside eng_submit. */
 int eng_submit(eng_t *e, const eng_req_t *req);

@@ -9,6 +9,7 @@
 #ifndef SQUALL_VALUE_H
 #define SQUALL_VALUE_H
 
+#include <stddef.h>
 #include <stdint.h>
 
 /* Durations: one or more <number><unit> parts (`250ms`, `1.5s`, `1m30s`), units ns, us (or µs),
@@ -25,6 +26,21 @@ int value_parse_int(const char *s, int64_t min, int64_t max, int64_t *v);
 /* Plain decimal numbers (`1`, `0.25`, `1e3`), finite, within [min, max]. */
 int value_parse_number(const char *s, double min, double max, double *v);
 
+/* Sizes: a plain count of bytes, or <integer><unit> with unit B, KiB, MiB or GiB (powers of
+ * 1024): `65536`, `512KiB`, `32MiB`. SQ_EPARSE / SQ_ERANGE (beyond 1 TiB) as above. */
+int value_parse_bytes(const char *s, int64_t *bytes);
+
+/* Text that came from a target or a file and is about to become part of a request: a request
+ * path is '/' first, then only visible ASCII (0x21-0x7E) except '#', or bytes >= 0x80, and at
+ * most VALUE_PATH_MAX bytes (what reaches the request line as is: never a CR, an LF, a space or
+ * another control byte; never a scheme or an authority, which would be read as another host).
+ * Returns NULL when it is one, else what is wrong with it (static text, never the input). */
+const char *value_path_problem(const char *path);
+/* A token (a resume version, an opaque continuation): 1 to max bytes, visible ASCII only. */
+int value_token_ok(const char *s, size_t len, size_t max);
+
+#define VALUE_BYTES_EXPECTS    "a size like 65536, 512KiB or 32MiB"
+#define VALUE_PATH_MAX         8192
 #define VALUE_RATE_MAX         1e9
 #define VALUE_DURATION_EXPECTS "a duration like 250ms, 1.5s, 5m or 1h"
 #define VALUE_RATE_EXPECTS     "a rate like 500/s, 30/m or 2/h"

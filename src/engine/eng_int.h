@@ -25,6 +25,7 @@ struct eng_xfer {
     bool opener;     /* HTTP/2 h2c: opens a fresh connection with prior knowledge */
     bool was_opener; /* was admitted as an opener (opener is cleared once its socket opens) */
     bool aborted;    /* the caller's on_data asked to stop */
+    bool too_big;    /* a kept body went past cfg.max_body */
     bool cancelled;  /* eng_stop/eng_free removed it */
 };
 

@@ -123,6 +123,8 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     e->h2c = cfg->http == ENG_HTTP_2 && strncmp(cfg->base_url, "http://", 7) == 0;
     if (!e->cfg.unreachable_after)
         e->cfg.unreachable_after = 3;
+    if (!e->cfg.max_body)
+        e->cfg.max_body = INT64_C(16) << 20;
     e->base_url = strdup(cfg->base_url);
     e->ca_file = dup_or_null(cfg->ca_file);
     e->cert_file = dup_or_null(cfg->cert_file);
@@ -178,9 +180,10 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     struct eng_xfer *x = xfer_get(e);
     if (!x)
         return SQ_ENOMEM;
-    if (eng_xfer_prepare(x, req)) {
+    int rc = eng_xfer_prepare(x, req);
+    if (rc) {
         xfer_put(e, x);
-        return SQ_ENOMEM;
+        return rc;
     }
     x->res.submitted_ns = clock_mono_ns();
     if (!x->res.intended_ns)

@@ -239,6 +239,7 @@ static void set_defaults(plan_t *p)
     p->target.http = PLAN_HTTP_1_1;
     p->target.connections = 16;
     p->target.timeout_ns = INT64_C(10000000000);
+    p->target.max_body = INT64_C(16) << 20;
     p->target.pos = (plan_pos_t){p->path, 1, 1};
 }
 

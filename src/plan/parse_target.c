@@ -160,7 +160,7 @@ static void parse_token(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 void plan_parse_target(pctx_t *c, yaml_node_t *n)
 {
     static const char *const keys[] = {"url",     "http", "connections", "streams", "timeout",
-                                       "headers", "tls",  "token",       NULL};
+                                       "headers", "tls",  "token",       "max_body", NULL};
     static const char *const versions[] = {"1.1", "2", NULL};
     plan_target_t *t = &c->p->target;
     if (!pc_expect_map(c, n, "target"))
@@ -180,6 +180,7 @@ void plan_parse_target(pctx_t *c, yaml_node_t *n)
      * server's SETTINGS arrive. Ignored for HTTP/1.1. */
     pc_int(c, n, "streams", "target", 1, 10000, &t->streams);
     pc_dur(c, n, "timeout", "target", 1, &t->timeout_ns);
+    pc_bytes(c, n, "max_body", "target", 1024, INT64_C(1) << 32, &t->max_body);
     if (pc_get(c, n, "headers"))
         plan_parse_headers_into(c, pc_get(c, n, "headers"), "target.headers", &t->headers,
                                 &t->n_headers);

@@ -75,6 +75,9 @@ bool pc_rate(pctx_t *c, yaml_node_t *map, const char *key, const char *where, do
 bool pc_pct(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double *out);
 bool pc_num(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double min, double max,
             double *out);
+/* A size in bytes (`512KiB`, `32MiB`) within [min, max]. */
+bool pc_bytes(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int64_t min,
+              int64_t max, int64_t *out);
 bool pc_bool(pctx_t *c, yaml_node_t *map, const char *key, const char *where, bool *out);
 /* One of `names` (NULL-terminated); *out is its index. */
 bool pc_enum(pctx_t *c, yaml_node_t *map, const char *key, const char *where,

@@ -276,10 +276,11 @@ static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
     const char *headers[c->n_headers + 1];
     size_t nh = c->n_headers;
     memcpy(headers, c->headers, nh * sizeof(*headers));
+    char esc[3 * sizeof w->st.version + 1];
     int n;
-    if (w->st.has_version && !sse)
+    if (w->st.has_version && !sse && src_url_escape(w->st.version, esc, sizeof esc))
         n = snprintf(path, sizeof path, "%s%s%s=%s", w->path, strchr(w->path, '?') ? "&" : "?",
-                     RESUME_PARAM, w->st.version);
+                     RESUME_PARAM, esc);
     else
         n = snprintf(path, sizeof path, "%s", w->path);
     if (n < 0 || (size_t)n >= sizeof path)
