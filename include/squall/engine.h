@@ -149,9 +149,13 @@ typedef struct {
     int64_t window_ns;            /* length of the window */
     int64_t submitted, completed; /* totals since eng_new */
     int64_t by_outcome[ENG_OUT_COUNT];
-    bool unreachable; /* the unreachable condition has been met */
+    bool unreachable; /* the unreachable condition has been met (once: it stays set) */
     const char *why;  /* then: what the target did, e.g. "refuses connections" (static) */
 } eng_stats_t;
+
+/* eng_stats' why when the refused or unresolved streak made the target unreachable. */
+#define ENG_WHY_REFUSED "refuses connections"
+#define ENG_WHY_RESOLVE "does not resolve"
 
 /* Creates an engine on `loop`. Ignores SIGPIPE for the process (libcurl runs with NOSIGNAL=1).
  * Returns 0 and sets *out, or SQ_EINVAL (bad config, reason through `o`), SQ_ENOMEM,

@@ -92,6 +92,8 @@ typedef struct {
     const eng_stats_t *eng;                /* the main engine's window (peaks of the second) */
     int in_flight;                         /* requests of the run not finished at the end */
     int64_t busy_since_ns, last_answer_ns; /* in_flight last went 0 -> 1; the last answer */
+    int64_t unanswered_since_ns; /* the first request that ended without an HTTP answer
+                                    (refused, reset, timeout, ...) since the last answer; 0 */
     enum obs_bound bound;                  /* could squall offer the planned load (health.c) */
     const char *bound_why;                 /* when bound: why, e.g. "schedule lag p99 12.3 ms" */
 } obs_second_t;
@@ -118,8 +120,9 @@ typedef struct {
     out_t *o;
     bool quiet;     /* no live line */
     bool no_brakes; /* drop the default brakes */
-    /* A brake fired: the conductor stops the run (called from obs_second). */
-    void (*brake)(void *user, const char *why);
+    /* A brake fired: the conductor stops the run (called from obs_second). kind is the brake's
+     * enum plan_brake_kind. */
+    void (*brake)(void *user, int kind, const char *why);
     void *user;
 } obs_cfg_t;
 

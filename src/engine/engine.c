@@ -341,8 +341,7 @@ static void count_outcome(eng_t *e, const struct eng_xfer *x)
         e->unreachable_streak = 0;
     } else if (r->outcome == ENG_OUT_REFUSED || r->outcome == ENG_OUT_RESOLVE) {
         if (++e->unreachable_streak >= e->cfg.unreachable_after)
-            set_unreachable(e, r->outcome == ENG_OUT_REFUSED ? "refuses connections"
-                                                             : "does not resolve");
+            set_unreachable(e, r->outcome == ENG_OUT_REFUSED ? ENG_WHY_REFUSED : ENG_WHY_RESOLVE);
     }
 }
 

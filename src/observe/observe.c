@@ -36,7 +36,7 @@ struct obs {
     hist_t *sched_lag;
     int64_t total_started, total_completed, total_errors;
     int in_flight;
-    int64_t busy_since_ns, last_answer_ns;
+    int64_t busy_since_ns, last_answer_ns, unanswered_since_ns;
     obs_health_t health;
     int64_t svc_sum_ns, svc_n; /* the open second's service times */
 };
@@ -174,6 +174,7 @@ void obs_answered(obs_t *l, int64_t at_ns)
 {
     if (at_ns > l->last_answer_ns)
         l->last_answer_ns = at_ns;
+    l->unanswered_since_ns = 0;
 }
 
 /* The results cell of (phase, class or its whole-list twin, outcome), looked up once. The
@@ -253,6 +254,8 @@ void obs_done(obs_t *l, const obs_done_t *d)
         l->in_flight--;
         if (d->res->status > 0)
             obs_answered(l, d->res->done_ns);
+        else if (d->res->outcome != ENG_OUT_CANCELLED && !l->unanswered_since_ns)
+            l->unanswered_since_ns = d->res->done_ns;
         tally(l, d);
     }
     for (size_t i = 0; i < N_ENTRIES; i++)
@@ -356,6 +359,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .in_flight = l->in_flight,
         .busy_since_ns = l->busy_since_ns,
         .last_answer_ns = l->last_answer_ns,
+        .unanswered_since_ns = l->unanswered_since_ns,
         .bound_why = why,
     };
     obs_health_in_t in = {

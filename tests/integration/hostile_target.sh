@@ -123,11 +123,10 @@ OTHER=$(free_port)
 /usr/bin/python3 "$HOSTILE" ok "$OTHER" "$T/other.requests" --life 30 --host 127.0.0.2 &
 HPID=$!
 sleep 0.5
-mkdir -p "$T/journal"
+mkdir -p "$T/journal" "$T/empty"
 {
     printf '{"squall_journal":1,"target":"%s","started_unix_ms":0}\n' "$SERVE_URL"
     printf '{"op":"created","path":"@127.0.0.2:%s/v1/x","class":"c","t":0}\n' "$OTHER"
-    printf '{"op":"created","path":"","class":"c","t":0}\n'
     printf '{"op":"created","path":"/v1/sites/north/gateways/gw-1\\r\\nX-Injected: yes","class":"c","t":0}\n'
     printf '{"op":"created","path":"/v1/sites/north/gateways/gw-2","class":"c","t":0}\n'
 } >"$T/journal/journal.ndjson"
@@ -135,10 +134,22 @@ mkdir -p "$T/journal"
 CRC=$?
 stop_hostile
 expect "cleanup: nothing reached the other host" test ! -s "$T/other.requests"
-expect "cleanup: the three bad lines are named (lines 2 to 4)" \
-    test "$(grep -c 'journal.ndjson:[234]: line skipped: its path is not a request path' "$T/cleanup.out")" = 3
+expect "cleanup: the two bad lines are named (lines 2 and 3)" \
+    test "$(grep -c 'journal.ndjson:[23]: line skipped: its path is not a request path' "$T/cleanup.out")" = 2
 expect "cleanup: the good record was tried (already gone: exit $CRC is 0)" \
     grep -q "1 objects: 0 deleted, 1 already gone" "$T/cleanup.out"
+# An empty path (it used to end cleanup with exit 6 and no message).
+{
+    printf '{"squall_journal":1,"target":"%s","started_unix_ms":0}\n' "$SERVE_URL"
+    printf '{"op":"created","path":"","class":"c","t":0}\n'
+    printf '{"op":"created","path":"/v1/sites/north/gateways/gw-3","class":"c","t":0}\n'
+} >"$T/empty/journal.ndjson"
+"$SQUALL" cleanup "$T/empty" >"$T/cleanup-empty.out" 2>&1
+CRC=$?
+expect "cleanup: an empty path is named and skipped, the rest deleted (exit $CRC)" \
+    grep -q "journal.ndjson:2: line skipped: its path is not a request path (an empty path)" \
+    "$T/cleanup-empty.out"
+expect "cleanup: ... and exits 0" test "$CRC" = 0
 printf '{"squall_journal":2,"target":"%s","started_unix_ms":0}\n' "$SERVE_URL" >"$T/journal/journal.ndjson"
 "$SQUALL" cleanup "$T/journal" >"$T/cleanup2.out" 2>&1
 CRC=$?
