@@ -28,18 +28,59 @@ typedef struct {
 
 static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch);
 
-static void yaml_syntax_error(pctx_t *c, yaml_parser_t *ps)
+/* libyaml's error, at its position: a reader error (invalid UTF-8, a NUL) has only a byte
+ * offset; a scanner or parser error a mark. After either, an unclosed bracket or quote is named
+ * where it started, since libyaml reports only where it gave up. */
+static void yaml_syntax_error(pctx_t *c, yaml_parser_t *ps, const char *text, size_t len)
 {
     plan_pos_t pos = {c->file, (int)ps->problem_mark.line + 1, (int)ps->problem_mark.column + 1};
+    if (ps->error == YAML_READER_ERROR)
+        pos = plan_text_pos(c->file, text, len, ps->problem_offset);
+    plan_text_scan_t sc;
+    plan_text_scan(text, len, &sc);
+    char hint[96] = "";
+    if (sc.unclosed) {
+        plan_pos_t at = plan_text_pos(c->file, text, len, sc.at);
+        snprintf(hint, sizeof hint, "; the %c opened at line %d, column %d is never closed",
+                 sc.unclosed, at.line, at.col);
+    }
     if (ps->context)
         pc_error_at(c, pos,
                     "YAML syntax: %s %s (expected valid YAML, got a syntax error at "
-                    "line %d, column %d)",
-                    ps->problem, ps->context, (int)ps->problem_mark.line + 1,
-                    (int)ps->problem_mark.column + 1);
+                    "line %d, column %d%s)",
+                    ps->problem, ps->context, pos.line, pos.col, hint);
     else
-        pc_error_at(c, pos, "YAML syntax: %s (expected valid YAML, got a syntax error)",
-                    ps->problem ? ps->problem : "unreadable");
+        pc_error_at(c, pos, "YAML syntax: %s (expected valid YAML, got a syntax error%s)",
+                    ps->problem ? ps->problem : "unreadable", hint);
+}
+
+/* The whole file, at most PLAN_MAX_BYTES; an error (reported at `from` for an include). */
+static int read_text(pctx_t *c, const char *path, plan_pos_t from, char **text, size_t *len)
+{
+    const char *what = from.file ? "include: cannot read" : "cannot read plan";
+    FILE *fp = fopen(path, "rb");
+    char *buf = fp ? malloc(PLAN_MAX_BYTES + 1) : NULL;
+    size_t n = buf ? fread(buf, 1, PLAN_MAX_BYTES + 1, fp) : 0;
+    int err = !fp ? errno : !buf ? ENOMEM : ferror(fp) ? errno : 0;
+    if (fp)
+        fclose(fp);
+    plan_pos_t at = from.file ? from : (plan_pos_t){c->file, 0, 0};
+    if (err || n > PLAN_MAX_BYTES) {
+        free(buf);
+        if (err == ENOMEM)
+            return SQ_ENOMEM;
+        if (err)
+            pc_error_at(c, at, "%s '%s' (expected a readable file, got %s)", what, path,
+                        strerror(err));
+        else
+            pc_error_at(c, at, "%s '%s' (expected a plan file of at most %d MiB, got a larger one)",
+                        what, path, PLAN_MAX_BYTES >> 20);
+        return SQ_EIO;
+    }
+    buf[n] = '\0';
+    *text = buf;
+    *len = n;
+    return 0;
 }
 
 /* include: PATH or [PATH, ...], relative to the including file's directory. */
@@ -114,25 +155,30 @@ static void parse_root(pctx_t *c, yaml_node_t *root)
 /* Reads one file: cycle check, YAML, overrides (top file only), includes, then sections. */
 static int read_doc(pctx_t *c, const char *path, plan_pos_t from, yaml_document_t *doc)
 {
-    FILE *fp = fopen(path, "rb");
-    if (!fp) {
-        if (from.file)
-            pc_error_at(c, from, "include: cannot read '%s' (expected a readable file, got %s)",
-                        path, strerror(errno));
-        else
-            pc_error_at(c, (plan_pos_t){c->file, 0, 0},
-                        "cannot read plan (expected a readable file, got %s)", strerror(errno));
-        return SQ_EIO;
+    char *text;
+    size_t len;
+    int rc = read_text(c, path, from, &text, &len);
+    if (rc)
+        return rc;
+    plan_text_scan_t sc;
+    plan_text_scan(text, len, &sc);
+    if (sc.too_deep) {
+        pc_error_at(c, plan_text_pos(c->file, text, len, sc.at),
+                    "plan: brackets nested too deep (expected at most %d levels of [ and {, got "
+                    "more here)",
+                    PLAN_MAX_NESTING);
+        free(text);
+        return SQ_EPARSE;
     }
     yaml_parser_t ps;
     if (!yaml_parser_initialize(&ps)) {
-        fclose(fp);
+        free(text);
         return SQ_ENOMEM;
     }
-    yaml_parser_set_input_file(&ps, fp);
+    yaml_parser_set_input_string(&ps, (const unsigned char *)text, len);
     int ok = yaml_parser_load(&ps, doc);
     if (!ok)
-        yaml_syntax_error(c, &ps);
+        yaml_syntax_error(c, &ps, text, len);
     yaml_document_t extra;
     if (ok && yaml_parser_load(&ps, &extra)) {
         /* libyaml loads one document per call; a second one would be silently ignored. */
@@ -146,7 +192,7 @@ static int read_doc(pctx_t *c, const char *path, plan_pos_t from, yaml_document_
         yaml_document_delete(&extra);
     }
     yaml_parser_delete(&ps);
-    fclose(fp);
+    free(text);
     return ok ? 0 : SQ_EPARSE;
 }
 
