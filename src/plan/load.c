@@ -6,6 +6,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 
 #include "plan_int.h"
 #include "squall/err.h"
@@ -52,6 +53,16 @@ static void yaml_syntax_error(pctx_t *c, yaml_parser_t *ps, const char *text, si
     else
         pc_error_at(c, pos, "YAML syntax: %s (expected valid YAML, got a syntax error%s)",
                     ps->problem ? ps->problem : "unreadable", hint);
+}
+
+/* A --set whose value may be a secret: a token, a credential header, a URL with user info. Its
+ * value is never echoed in messages (they end up in CI logs). */
+static bool secret_set(const char *key, const char *value)
+{
+    const char *last = strrchr(key, '.');
+    last = last ? last + 1 : key;
+    return strstr(key, "token") || strchr(value, '@') || !strcasecmp(last, "authorization") ||
+           !strcasecmp(last, "proxy-authorization") || !strcasecmp(last, "cookie");
 }
 
 /* The whole file, at most PLAN_MAX_BYTES; an error (reported at `from` for an include). */
@@ -301,7 +312,9 @@ int plan_load(const char *path, const plan_override_t *overrides, size_t n, plan
     c.set_names = calloc(n + 1, sizeof(*c.set_names));
     for (size_t k = 0; c.set_names && k < n; k++) {
         char buf[512];
-        snprintf(buf, sizeof buf, "--set %s=%s", overrides[k].key, overrides[k].value);
+        snprintf(buf, sizeof buf, "--set %s=%s", overrides[k].key,
+                 secret_set(overrides[k].key, overrides[k].value) ? "(not shown)"
+                                                                   : overrides[k].value);
         c.set_names[k] = pmem_strdup(&c, buf);
     }
     c.n_set = c.set_names ? n : 0;

@@ -37,6 +37,13 @@ void plan_parse_headers_into(pctx_t *c, yaml_node_t *n, const char *where, plan_
                      name);
             continue;
         }
+        if (!strcasecmp(name, "authorization") || !strcasecmp(name, "proxy-authorization")) {
+            pc_error(c, k,
+                     "%s.%s: a literal credential header is never accepted (expected "
+                     "target.token: {file: PATH} or {env: NAME}; the value is not shown)",
+                     where, name);
+            continue;
+        }
         if (!v || v->type != YAML_SCALAR_NODE ||
             strpbrk((const char *)v->data.scalar.value, "\r\n")) {
             char got[64];
@@ -97,10 +104,13 @@ static void parse_url(pctx_t *c, yaml_node_t *vn, plan_target_t *t)
     int port = https ? 443 : 80;
     if ((!https && strncmp(u, "http://", 7) != 0) ||
         !split_authority(u + (https ? 8 : 7), host, sizeof host, &port, &end)) {
+        /* User information may hold a password: the URL is shown without it. */
+        const char *at = strchr(u, '@'), *sep = strstr(u, "://");
+        int keep = at ? (sep && sep < at ? (int)(sep + 3 - u) : 0) : (int)strlen(u);
         pc_error(c, vn,
                  "target.url: bad URL (expected an http:// or https:// URL like "
-                 "http://127.0.0.1:7070, got '%s')",
-                 u);
+                 "http://127.0.0.1:7070, got '%.*s%s%s')",
+                 keep, u, at ? "(user information not shown)@" : "", at ? at + 1 : "");
         return;
     }
     unsigned char a[16];
