@@ -131,6 +131,9 @@ typedef struct {
     int64_t intended_ns; /* 0 = now */
     bool keep_body;      /* keep the body for on_done (list pagination tokens) */
     eng_data_cb on_data; /* optional */
+    /* Optional: called once when the final response's status line and headers have arrived
+     * (1xx answers skipped), with its status, before any on_data. */
+    void (*on_head)(void *user, long status);
     eng_done_cb on_done; /* required */
     void *user;
 } eng_req_t;

@@ -26,6 +26,7 @@ struct eng_xfer {
     bool was_opener; /* was admitted as an opener (opener is cleared once its socket opens) */
     bool aborted;    /* the caller's on_data asked to stop */
     bool too_big;    /* a kept body went past cfg.max_body */
+    bool head_seen;  /* on_head was called */
     bool cancelled;  /* eng_stop/eng_free removed it */
 };
 

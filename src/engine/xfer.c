@@ -149,7 +149,7 @@ int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req)
     memset(&x->res, 0, sizeof(x->res));
     x->res.intended_ns = req->intended_ns;
     x->resp.len = 0;
-    x->opener = x->was_opener = x->aborted = x->cancelled = x->too_big = false;
+    x->opener = x->was_opener = x->aborted = x->cancelled = x->too_big = x->head_seen = false;
     return 0;
 }
 
@@ -168,6 +168,23 @@ static size_t on_write(char *data, size_t size, size_t n, void *userp)
     }
     if (x->req.keep_body && buf_append(&x->resp, data, len, (size_t)x->eng->cfg.max_body + 1))
         return 0;
+    return len;
+}
+
+/* Header lines, one per call; the empty line ends a block. Only the final answer's block counts
+ * (an interim 1xx has its own). */
+static size_t on_header(char *data, size_t size, size_t n, void *userp)
+{
+    struct eng_xfer *x = userp;
+    size_t len = size * n;
+    if (x->req.on_head && !x->head_seen && (len == 2 || len == 1) && (data[0] == '\r' || data[0] == '\n')) {
+        long status = 0;
+        curl_easy_getinfo(x->easy, CURLINFO_RESPONSE_CODE, &status);
+        if (status >= 200) {
+            x->head_seen = true;
+            x->req.on_head(x->req.user, status);
+        }
+    }
     return len;
 }
 
@@ -193,6 +210,7 @@ CURL *eng_easy_new(eng_t *e)
     curl_easy_setopt(c, CURLOPT_TCP_NODELAY, 1L);
     curl_easy_setopt(c, CURLOPT_WRITEFUNCTION, on_write);
     curl_easy_setopt(c, CURLOPT_PREREQFUNCTION, on_prereq);
+    curl_easy_setopt(c, CURLOPT_HEADERFUNCTION, on_header);
     curl_easy_setopt(c, CURLOPT_OPENSOCKETFUNCTION, eng_glue_opensocket);
     curl_easy_setopt(c, CURLOPT_CLOSESOCKETFUNCTION, eng_glue_closesocket);
     curl_easy_setopt(c, CURLOPT_CLOSESOCKETDATA, e);
@@ -275,6 +293,7 @@ int eng_xfer_setup(struct eng_xfer *x)
     set_url(x);
     curl_easy_setopt(c, CURLOPT_PRIVATE, x);
     curl_easy_setopt(c, CURLOPT_WRITEDATA, x);
+    curl_easy_setopt(c, CURLOPT_HEADERDATA, x);
     curl_easy_setopt(c, CURLOPT_PREREQDATA, x);
     curl_easy_setopt(c, CURLOPT_OPENSOCKETDATA, x);
     curl_easy_setopt(c, CURLOPT_HTTPHEADER, x->headers ? x->headers : e->headers);

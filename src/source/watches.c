@@ -24,6 +24,7 @@ typedef struct {
     results_cell_t *events; /* (phase, class, "2xx"): count = events; open, propagation */
     int streams;
     int64_t events_n, bytes, unparsed, oversize, server_errors, no_stamp, stamp_ahead;
+    int open_at_end, waiting_at_end; /* streams answered / sent but unanswered at the end */
 } wclass_t;
 
 typedef struct watches watches_t;
@@ -240,6 +241,15 @@ static void on_event(void *user, const watch_event_t *ev)
     hist_add(wc->events, RESULTS_M_PROPAGATION, d);
 }
 
+/* The target answered: the stream is open (its open latency still waits for the first byte). */
+static void on_head(void *user, long status)
+{
+    watcher_t *w = user;
+    obs_answered(w->ws->ctx.obs, (int64_t)uv_hrtime()); /* the target answers (brakes) */
+    if (status >= 200 && status < 300)
+        watch_stream_set(&w->st, WATCH_OPEN);
+}
+
 static int on_data(void *user, const char *data, size_t len)
 {
     watcher_t *w = user;
@@ -296,6 +306,7 @@ static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
         .n_headers = nh,
         .intended_ns = intended,
         .on_data = on_data,
+        .on_head = on_head,
         .on_done = on_stream_done,
         .user = w,
     };
@@ -683,8 +694,9 @@ static json_t *class_json(watches_t *ws, const wclass_t *wc)
         dup += w->st.duplicates;
         over += w->fr.st.oversize;
     }
-    return json_pack("{s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}", "streams",
-                     wc->streams, "opens", (json_int_t)opens, "events", (json_int_t)wc->events_n,
+    return json_pack("{s:i,s:i,s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}",
+                     "streams", wc->streams, "open_at_end", wc->open_at_end, "waiting_at_end",
+                     wc->waiting_at_end, "opens", (json_int_t)opens, "events", (json_int_t)wc->events_n,
                      "bytes", (json_int_t)wc->bytes, "drops", (json_int_t)drops, "reconnects",
                      (json_int_t)reconnects, "relists", (json_int_t)relists, "too_old",
                      (json_int_t)too_old, "duplicates", (json_int_t)dup, "oversize",
@@ -731,8 +743,13 @@ static void watches_stop(void *self)
     if (!ws->active && !ws->eng)
         return;
     ws->active = false;
-    for (size_t i = 0; i < ws->n; i++)
+    for (size_t i = 0; i < ws->n; i++) {
+        /* A stream is open once the target answered it; one still waiting (in the server's
+         * accept backlog, say) is told apart, never counted as open. */
+        ws->w[i].wc->open_at_end += ws->w[i].st.state == WATCH_OPEN;
+        ws->w[i].wc->waiting_at_end += ws->w[i].st.state == WATCH_OPENING;
         watch_stream_set(&ws->w[i].st, WATCH_CLOSED);
+    }
     eng_free(ws->eng);
     ws->eng = NULL;
     json_t *ph = phase_json(ws);

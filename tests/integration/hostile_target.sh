@@ -94,6 +94,21 @@ hostile_case huge "['timeout', 'body-too-large', '2xx']"
 rcheck "huge (1 GiB): every list that ended on its own ended as body-too-large (16 MiB default)" \
     "total('scan', 'body-too-large') == total('scan') - total('scan', 'cancelled') > 0" "$T/huge"
 
+# --- watch streams that never get an answer are waiting, not open -----------------------------
+hostile_start silent
+cat >"$T/waiting.yaml" <<YAML
+target: {url: "http://127.0.0.1:$HPORT", connections: 2, timeout: 2s}
+requests:
+  follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1"}
+phases:
+  - {name: w, duration: 2s, watches: {follow: 50}}
+YAML
+run_sampled "$T/waiting" "$T/waiting.yaml" --no-brakes
+stop_hostile
+rcheck "50 streams the target accepted but never answered are waiting at the end, none open" \
+    "d['sections']['watches']['w']['classes']['follow']['waiting_at_end'] == 50 and \
+     d['sections']['watches']['w']['classes']['follow']['open_at_end'] == 0" "$T/waiting"
+
 # --- target-controlled list items never reach a request line or a header ---------------------
 hostile_start list-inject
 cat >"$T/inject.yaml" <<YAML

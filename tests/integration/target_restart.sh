@@ -65,8 +65,9 @@ expect "squall named the refused connections and left them to the brake" \
 rcheck "results are complete: not interrupted, refused gets counted, answers before and after" \
     "not d['meta']['interrupted'] and total('read', 'connect-refused') > 0 and \
      total('read', '2xx') > 150" "$T/out"
-rcheck "the watches section counts $N streams, each reconnected at least once" \
+rcheck "the watches section counts $N streams, all open at the end, each reconnected at least once" \
     "d['sections']['watches']['steady']['classes']['follow']['streams'] == $N and \
+     d['sections']['watches']['steady']['classes']['follow']['open_at_end'] == $N and \
      d['sections']['watches']['steady']['classes']['follow']['reconnects'] >= $N" "$T/out"
 serve_stop
 
