@@ -68,7 +68,12 @@ static bool secret_set(const char *key, const char *value)
 /* The whole file, at most PLAN_MAX_BYTES; an error (reported at `from` for an include). */
 static int read_text(pctx_t *c, const char *path, plan_pos_t from, char **text, size_t *len)
 {
-    const char *what = from.file ? "include: cannot read" : "cannot read plan";
+    /* The top file is named by the error's position already; an include by its own path. */
+    char what[PATH_MAX + 32];
+    if (from.file)
+        snprintf(what, sizeof what, "include: cannot read '%s'", path);
+    else
+        snprintf(what, sizeof what, "cannot read plan");
     FILE *fp = fopen(path, "rb");
     char *buf = fp ? malloc(PLAN_MAX_BYTES + 1) : NULL;
     size_t n = buf ? fread(buf, 1, PLAN_MAX_BYTES + 1, fp) : 0;
@@ -81,11 +86,10 @@ static int read_text(pctx_t *c, const char *path, plan_pos_t from, char **text, 
         if (err == ENOMEM)
             return SQ_ENOMEM;
         if (err)
-            pc_error_at(c, at, "%s '%s' (expected a readable file, got %s)", what, path,
-                        strerror(err));
+            pc_error_at(c, at, "%s (expected a readable file, got %s)", what, strerror(err));
         else
-            pc_error_at(c, at, "%s '%s' (expected a plan file of at most %d MiB, got a larger one)",
-                        what, path, PLAN_MAX_BYTES >> 20);
+            pc_error_at(c, at, "%s (expected a plan file of at most %d MiB, got a larger one)",
+                        what, PLAN_MAX_BYTES >> 20);
         return SQ_EIO;
     }
     buf[n] = '\0';
