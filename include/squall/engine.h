@@ -85,7 +85,9 @@ typedef struct {
     const char *const *headers;
     size_t n_headers;
     /* Unreachability: after `unreachable_after` consecutive connect-refused or resolve outcomes
-     * with no HTTP response in between (0 = 3), on_unreachable (if set) is called once. With
+     * with no HTTP response in between (0 = 3), on_unreachable (if set) is called once; so it
+     * is at the first TLS verification failure (why: "fails TLS verification: ..." with
+     * libcurl's message). With
      * HTTP/2 the target is also unusable when it answers over HTTP/1.x (at once), or when
      * `unreachable_after` prior-knowledge openers in a row fail before any HTTP/2 answer was
      * ever seen (a server without cleartext HTTP/2 closes on the preface). eng_stats' why says

@@ -330,11 +330,27 @@ static void check_h2(eng_t *e, const struct eng_xfer *x)
     }
 }
 
+/* The server's certificate could not be verified: no later request can succeed, so the target is
+ * unusable at once, named with libcurl's own reason ("SSL certificate problem: ..."). */
+static void check_tls(eng_t *e, const struct eng_xfer *x)
+{
+    int rc = x->res.curl_code;
+    if (rc != CURLE_PEER_FAILED_VERIFICATION && rc != CURLE_SSL_CACERT_BADFILE &&
+        rc != CURLE_SSL_ISSUER_ERROR && rc != CURLE_SSL_PINNEDPUBKEYNOTMATCH)
+        return;
+    snprintf(e->tls_why, sizeof e->tls_why,
+             "fails TLS verification: its certificate could not be verified (%s)",
+             x->errbuf[0] ? x->errbuf : curl_easy_strerror((CURLcode)rc));
+    set_unreachable(e, e->tls_why);
+}
+
 static void count_outcome(eng_t *e, const struct eng_xfer *x)
 {
     const eng_result_t *r = &x->res;
     e->completed++;
     e->by_outcome[r->outcome]++;
+    if (r->outcome == ENG_OUT_TLS)
+        check_tls(e, x);
     if (e->cfg.http == ENG_HTTP_2)
         check_h2(e, x);
     if (r->status > 0) {

@@ -294,6 +294,8 @@ int eng_xfer_setup(struct eng_xfer *x)
     curl_easy_setopt(c, CURLOPT_PRIVATE, x);
     curl_easy_setopt(c, CURLOPT_WRITEDATA, x);
     curl_easy_setopt(c, CURLOPT_HEADERDATA, x);
+    x->errbuf[0] = '\0';
+    curl_easy_setopt(c, CURLOPT_ERRORBUFFER, x->errbuf);
     curl_easy_setopt(c, CURLOPT_PREREQDATA, x);
     curl_easy_setopt(c, CURLOPT_OPENSOCKETDATA, x);
     curl_easy_setopt(c, CURLOPT_HTTPHEADER, x->headers ? x->headers : e->headers);

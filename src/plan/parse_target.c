@@ -1,5 +1,6 @@
 /* The plan's `target` and `vars` sections: where load goes and the word lists templates pick
  * from. A section read from an included file is overridden key by key by the including file. */
+#include <ctype.h>
 #include <arpa/inet.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -81,6 +82,10 @@ static bool split_authority(const char *h, char *host, size_t len, int *port, co
         end = h + strcspn(h, ":/?#");
         if (end == h || (size_t)(end - h) >= len || memchr(h, '@', (size_t)(end - h)))
             return false;
+        for (const char *p = h; p < end; p++) /* a DNS name or an IPv4 address (RFC 3986 reg-name
+                                                 without escapes): no space, no control byte */
+            if (!isalnum((unsigned char)*p) && *p != '-' && *p != '.' && *p != '_')
+                return false;
         snprintf(host, len, "%.*s", (int)(end - h), h);
     }
     if (*end == ':') {
