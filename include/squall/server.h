@@ -52,6 +52,8 @@ typedef struct {
     int history;             /* events kept for watch resumption */
     long long stream_buffer; /* bytes queued per watch stream before it is closed */
     uint64_t seed;           /* for the random faults */
+    int idle_timeout_s;      /* a connection idle this long is closed (suspended watch streams
+                                never time out: libmicrohttpd's rule); 0 = never */
     server_faults_t faults;
 } server_opts_t;
 

@@ -107,7 +107,7 @@ static int start_mhd(srv_server_t *sv, struct sockaddr_storage *ss, int family)
         flags, 0, NULL, NULL, srv_http_access, sv, MHD_OPTION_SOCK_ADDR, (struct sockaddr *)ss,
         MHD_OPTION_NOTIFY_COMPLETED, srv_http_completed, sv, MHD_OPTION_EXTERNAL_LOGGER, mhd_log,
         sv, MHD_OPTION_CONNECTION_LIMIT, (unsigned)30000, MHD_OPTION_CONNECTION_TIMEOUT,
-        (unsigned)0, MHD_OPTION_CONNECTION_MEMORY_LIMIT, (size_t)8192,
+        (unsigned)sv->opts.idle_timeout_s, MHD_OPTION_CONNECTION_MEMORY_LIMIT, (size_t)8192,
         MHD_OPTION_LISTEN_BACKLOG_SIZE, (unsigned)4096, MHD_OPTION_END);
     if (!sv->mhd)
         return SQ_EIO;

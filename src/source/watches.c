@@ -9,6 +9,7 @@
 
 #include "src_int.h"
 #include "squall/clock.h"
+#include "squall/file.h"
 #include "squall/err.h"
 #include "squall/watch.h"
 
@@ -99,23 +100,16 @@ static int64_t files_needed(const plan_t *p, int watchers)
 /* Raises the soft open-files limit to the hard one and refuses a phase that needs more. */
 static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp)
 {
-    struct rlimit rl;
-    if (getrlimit(RLIMIT_NOFILE, &rl) != 0)
-        return 0;
-    if (rl.rlim_cur < rl.rlim_max) {
-        rl.rlim_cur = rl.rlim_max;
-        setrlimit(RLIMIT_NOFILE, &rl);
-        getrlimit(RLIMIT_NOFILE, &rl);
-    }
+    uint64_t limit = file_raise_limit();
     int64_t need = files_needed(ctx->plan, phase_watchers(pp));
-    if (rl.rlim_cur == RLIM_INFINITY || need <= (int64_t)rl.rlim_cur)
+    if (limit == 0 || (uint64_t)need <= limit)
         return 0;
     out_raw(ctx->o, OUT_ERROR,
             "%s:%d:%d: error: phase '%s' opens %d watches, which need about %lld open files "
             "over HTTP/%s, but this process may open at most %llu (RLIMIT_NOFILE hard limit); "
             "use fewer watches per process (shards), or http: \"2\" to multiplex streams",
             pp->pos.file, pp->pos.line, pp->pos.col, pp->name, phase_watchers(pp), (long long)need,
-            ctx->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1", (unsigned long long)rl.rlim_cur);
+            ctx->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1", (unsigned long long)limit);
     return SQ_ELIMIT;
 }
 

@@ -71,6 +71,39 @@ rcheck "the watches section counts $N streams, all open at the end, each reconne
      d['sections']['watches']['steady']['classes']['follow']['reconnects'] >= $N" "$T/out"
 serve_stop
 
+# --- squall serve closes idle connections, never a watch stream waiting for events -------------
+serve_start --idle-timeout 1 || exit 1
+IDLE=$(/usr/bin/python3 - "$SERVE_PORT" <<'PY'
+import socket, sys, time
+port = int(sys.argv[1])
+idle = socket.create_connection(("127.0.0.1", port))          # says nothing at all
+watch = socket.create_connection(("127.0.0.1", port))
+watch.sendall(b"GET /v1/sites/north/gateways?watch=1 HTTP/1.1\r\nHost: t\r\n\r\n")
+idle.settimeout(4)
+t0 = time.monotonic()
+try:
+    closed = idle.recv(1) == b""
+except OSError:
+    closed = True
+took = time.monotonic() - t0
+watch.settimeout(0.5)
+head = watch.recv(4096)
+time.sleep(max(0, 2.5 - took))
+watch.settimeout(0.2)
+try:
+    alive = watch.recv(1) != b""   # an event would be data; a close is b""
+except socket.timeout:
+    alive = True
+print("%d %.1f %d %d" % (closed, took, head.startswith(b"HTTP/1.1 200"), alive))
+PY
+)
+read -r closed took head alive <<<"$IDLE"
+expect "an idle connection is closed after --idle-timeout 1 (closed=$closed after ${took}s)" \
+    test "$closed" = 1
+expect "a watch stream with no events stays open past it (answered=$head, open=$alive)" \
+    test "$head" = 1 -a "$alive" = 1
+serve_stop
+
 # --- the reconnect log past 4 entries per watcher (fixed on main before; a regression test) ----
 serve_start --fail-rate 1 || exit 1
 cat >"$T/flap.yaml" <<YAML
