@@ -73,6 +73,21 @@ serve_stop
 
 # --- squall serve closes idle connections, never a watch stream waiting for events -------------
 serve_start --idle-timeout 1 || exit 1
+# The embedded target's own input checks: two different Content-Lengths are an unrecoverable
+# error (RFC 9112, 6.3: 400), a %00 in a path is refused (it used to cut the path short), a
+# watch from a version the store never reached is sent to relist (410), not left waiting.
+TWO=$(printf 'PUT /v1/sites/north/gateways/gw-1 HTTP/1.1\r\nHost: t\r\nContent-Length: 2\r\nContent-Length: 5\r\n\r\n{}' |
+    /usr/bin/python3 -c 'import socket, sys
+s = socket.create_connection(("127.0.0.1", int(sys.argv[1])))
+s.sendall(sys.stdin.buffer.read())
+s.settimeout(2)
+print(s.recv(64).split(b"\r\n")[0].decode())' "$SERVE_PORT")
+expect "two different Content-Lengths: 400 (got '$TWO')" test "$TWO" = "HTTP/1.1 400 Bad Request"
+NUL=$(curl -s -o /dev/null -w '%{http_code}' -X PUT -d '{}' "$SERVE_URL/v1/sites/north/gateways/gw-%00x")
+expect "a %00 in a path: 400 (got $NUL), and nothing stored at the cut path" \
+    test "$NUL" = 400 -a "$(curl -s -o /dev/null -w '%{http_code}' "$SERVE_URL/v1/sites/north/gateways/gw-")" = 404
+AHEAD=$(curl -s -o /dev/null -w '%{http_code}' -m 2 "$SERVE_URL/v1/sites/north/gateways?watch=1&since=999999")
+expect "a watch from a version ahead of the store: 410 (got $AHEAD)" test "$AHEAD" = 410
 IDLE=$(/usr/bin/python3 - "$SERVE_PORT" <<'PY'
 import socket, sys, time
 port = int(sys.argv[1])
