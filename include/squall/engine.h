@@ -155,7 +155,8 @@ typedef struct {
     int64_t submitted, completed; /* totals since eng_new */
     int64_t by_outcome[ENG_OUT_COUNT];
     bool unreachable; /* the unreachable condition has been met (once: it stays set) */
-    const char *why;  /* then: what the target did, e.g. "refuses connections" (static) */
+    const char *why;  /* then: what the target did, e.g. "refuses connections" (valid while the
+                         engine lives) */
 } eng_stats_t;
 
 /* eng_stats' why when the refused or unresolved streak made the target unreachable. */
