@@ -358,6 +358,8 @@ void eng_xfer_finish(struct eng_xfer *x, CURLcode rc)
         r->body = x->resp.data ? x->resp.data : "";
         r->body_len = x->resp.len;
     }
+    if (c) /* the pooled handle outlives this transfer: it must not keep pointing at its buffer */
+        curl_easy_setopt(c, CURLOPT_ERRORBUFFER, NULL);
 }
 
 /* Frees a transfer's per-request list; its buffers stay for the next request. */
