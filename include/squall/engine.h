@@ -123,8 +123,9 @@ typedef void (*eng_done_cb)(void *user, const eng_result_t *res);
 
 typedef struct {
     const char *method; /* NULL or "GET"; "POST", "PUT", "PATCH", "DELETE", ... */
-    const char *path;   /* appended to base_url's path, never parsed as a URL: must pass
-                           value_path_problem (squall/value.h); copied */
+    const char *path;   /* appended to base_url's path, never parsed as a URL: up to a '#'
+                           (a fragment is never sent) it must pass value_path_problem
+                           (squall/value.h); copied */
     const char *body;   /* copied; NULL = no body */
     size_t body_len;
     const char *const *headers; /* extra headers for this request only, "Name: value"; copied */
@@ -169,7 +170,7 @@ typedef struct {
 int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
 
 /* Queues one request; its fields are copied. Returns 0, or SQ_EINVAL (no on_done, no path, a path
- * that is not one: a control byte, a space, '#', no leading '/'),
+ * that is not one: a control byte, a space, no leading '/'),
  * SQ_ESTOPPED (after eng_stop), SQ_ENOMEM. A call that fails never calls on_done; a call that
  * succeeds calls it exactly once, never from inside eng_submit. */
 int eng_submit(eng_t *e, const eng_req_t *req);

@@ -131,10 +131,14 @@ int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req)
     eng_t *e = x->eng;
     const char *m = req->method ? req->method : "GET";
     /* The origin was checked once (eng_new); what follows it must be a path, never text that
-     * libcurl could read as another host ("@10.0.0.1/x") or a header line (CR, LF). */
-    if (value_path_problem(req->path))
+     * libcurl could read as another host ("@10.0.0.1/x") or a header line (CR, LF). A fragment
+     * is never sent (RFC 3986, 3.5): it is cut off first. */
+    size_t plen = strcspn(req->path, "#");
+    if (buf_set(&x->url, req->path, plen, NULL, 0))
+        return SQ_ENOMEM;
+    if (value_path_problem(x->url.data))
         return SQ_EINVAL;
-    if (buf_set(&x->url, e->base_url, strlen(e->base_url), req->path, strlen(req->path)) ||
+    if (buf_set(&x->url, e->base_url, strlen(e->base_url), req->path, plen) ||
         buf_set(&x->method, m, strlen(m), NULL, 0) ||
         buf_set(&x->body, req->body ? req->body : "", req->body ? req->body_len : 0, NULL, 0))
         return SQ_ENOMEM;
