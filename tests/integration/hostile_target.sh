@@ -94,6 +94,21 @@ hostile_case huge "['timeout', 'body-too-large', '2xx']"
 rcheck "huge (1 GiB): every list that ended on its own ended as body-too-large (16 MiB default)" \
     "total('scan', 'body-too-large') == total('scan') - total('scan', 'cancelled') > 0" "$T/huge"
 
+# --- --no-brakes: a target that refuses every connection does not end the run -----------------
+DEAD=$(free_port)
+cat >"$T/dead.yaml" <<YAML
+target: {url: "http://127.0.0.1:$DEAD", connections: 2, timeout: 2s}
+requests:
+  read: {kind: get, path: /v1/sites/north/gateways/gw-1}
+phases:
+  - {name: steady, rate: 10/s, duration: 2s, mix: {read: 1}}
+YAML
+run_sampled "$T/dead" "$T/dead.yaml" --no-brakes
+expect "--no-brakes against a closed port: the run goes to its planned end (exit $RUN_RC, not 4)" \
+    test "$RUN_RC" = 1 -o "$RUN_RC" = 7
+rcheck "... with all 20 requests counted as connect-refused" \
+    "total('read', 'connect-refused') == 20 and not d['meta']['interrupted']" "$T/dead"
+
 # --- watch streams that never get an answer are waiting, not open -----------------------------
 hostile_start silent
 cat >"$T/waiting.yaml" <<YAML
