@@ -114,6 +114,8 @@ typedef struct {
     int64_t bytes_out;     /* request line + headers + body */
     const char *body;      /* kept response body (keep_body), else NULL; valid in on_done */
     size_t body_len;
+    const char *content_type; /* with keep_body: the answer's Content-Type, else NULL; valid
+                                 in on_done */
 } eng_result_t;
 
 /* Streams a response body while it arrives: slices are arbitrary (never frame by them).

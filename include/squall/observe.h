@@ -94,8 +94,11 @@ typedef struct {
     int64_t busy_since_ns, last_answer_ns; /* in_flight last went 0 -> 1; the last answer */
     int64_t unanswered_since_ns; /* the first request that ended without an HTTP answer
                                     (refused, reset, timeout, ...) since the last answer; 0 */
-    enum obs_bound bound;                  /* could squall offer the planned load (health.c) */
-    const char *bound_why;                 /* when bound: why, e.g. "schedule lag p99 12.3 ms" */
+    const char *marks;       /* instants marked in the second (obs_mark), ';'-separated */
+    const char *brake_fired; /* the brake that stopped the run ("" while none has); the text
+                                fills during the brakes observer's own second() */
+    enum obs_bound bound;  /* could squall offer the planned load (health.c) */
+    const char *bound_why; /* when bound: why, e.g. "schedule lag p99 12.3 ms" */
 } obs_second_t;
 
 typedef struct obs_ops {
@@ -120,6 +123,10 @@ typedef struct {
     out_t *o;
     bool quiet;     /* no live line */
     bool no_brakes; /* drop the default brakes */
+    /* squall's own metrics served at metrics_host:metrics_port while the run goes (export.c);
+     * NULL: none. The server listens from obs_open on (a check never listens). */
+    const char *metrics_host;
+    int metrics_port;
     /* A brake fired: the conductor stops the run (called from obs_second). kind is the brake's
      * enum plan_brake_kind. */
     void (*brake)(void *user, int kind, const char *why);
@@ -137,6 +144,11 @@ void obs_phase(obs_t *l, size_t phase, int64_t base_ns, int64_t realtime0_ns);
 void obs_sent(obs_t *l, const obs_sent_t *s);
 void obs_done(obs_t *l, const obs_done_t *d);
 void obs_answered(obs_t *l, int64_t at_ns);
+/* A watch stream's change, for squall's own metrics. */
+enum obs_watch_ev { OBS_WATCH_OPENED, OBS_WATCH_ENDED, OBS_WATCH_DROPPED, OBS_WATCH_RECONNECT };
+void obs_watch(obs_t *l, size_t phase, int cls, enum obs_watch_ev ev);
+/* Marks an instant of the open second (an action or a collect fired): series.csv's `marks`. */
+void obs_mark(obs_t *l, const char *name);
 /* The results cell of (phase, class, outcome) for figures that are not finished requests
  * (a watch's events, open and propagation times); NULL when out of memory. */
 results_cell_t *obs_cell(obs_t *l, size_t phase, int cls, const char *outcome);

@@ -144,6 +144,53 @@ typedef struct {
     int count;
 } plan_watch_set_t;
 
+/* A URL squall fetches beside the load: absolute (http:// or https://), or a path ("/...")
+ * on the target's origin. */
+typedef struct {
+    const char *url; /* as written */
+    bool relative;   /* a path on the target: https, host, port and loopback are the target's */
+    bool https;
+    const char *host; /* without brackets */
+    int port;
+    const char *path; /* path and query, at least "/" */
+    bool loopback;
+} plan_url_t;
+
+/* observe.metrics[i]: an endpoint in a metrics text format (Prometheus 0.0.4 or OpenMetrics
+ * 1.0) scraped while the run goes. */
+typedef struct {
+    plan_url_t at;
+    int64_t every_ns;  /* default 5 s */
+    const char **keep; /* metric name patterns ('*' matches any run); none: every series */
+    size_t n_keep;
+    plan_pos_t pos;
+} plan_scrape_t;
+
+/* observe.collect[i]: a URL fetched into the results directory at one moment of the run. */
+enum plan_moment { PLAN_AT_RUN_START, PLAN_AT_RUN_END, PLAN_AT_PHASE_START, PLAN_AT_PHASE_END };
+typedef struct {
+    plan_url_t at;
+    enum plan_moment when;
+    int phase;          /* PHASE_START/END: the phase's index */
+    const char *save;   /* file name under DIR/collected/ */
+    int64_t timeout_ns; /* default 10 s */
+    int64_t max_bytes;  /* default 16 MiB: a longer answer is cut there and says so */
+    plan_pos_t pos;
+} plan_collect_t;
+
+/* phases[i].actions[k]: a request sent or a program run at an offset into the phase. */
+typedef struct {
+    const char *name;   /* default "NAME-K" from the phase's name */
+    int64_t at_ns;      /* from the phase's start */
+    bool exec;          /* a program (needs --allow-exec), else an HTTP request */
+    const char *method; /* http: default POST */
+    plan_url_t url;
+    const char *body;        /* http: NULL = none */
+    const char *const *argv; /* exec: program and arguments, NULL-terminated; no shell */
+    int64_t timeout_ns;      /* default 30 s */
+    plan_pos_t pos;
+} plan_action_t;
+
 typedef struct {
     const char *name;
     plan_pos_t pos;
@@ -200,6 +247,8 @@ typedef struct {
         const char *log;
         double speed; /* 1.0 */
     } replay;
+    plan_action_t *actions; /* in the order of their `at` */
+    size_t n_actions;
 } plan_phase_t;
 
 enum plan_metric {
@@ -239,7 +288,11 @@ typedef struct {
 } plan_brake_t;
 
 /* Reasons a run is INCONCLUSIVE that a plan may accept (`accept:`), in plan_accept_names order. */
-enum plan_accept { PLAN_ACCEPT_GENERATOR_BOUND, PLAN_ACCEPT_FEW_SAMPLES, PLAN_ACCEPT_STOPPED_EARLY };
+enum plan_accept {
+    PLAN_ACCEPT_GENERATOR_BOUND,
+    PLAN_ACCEPT_FEW_SAMPLES,
+    PLAN_ACCEPT_STOPPED_EARLY
+};
 extern const char *const plan_accept_names[]; /* "generator-bound", "few-samples", ... */
 
 struct plan_mem; /* private: owns every string and array below */
@@ -259,7 +312,11 @@ typedef struct {
     size_t n_objectives;
     plan_brake_t *brakes;
     size_t n_brakes;
-    unsigned accept; /* 1 << enum plan_accept: reasons for INCONCLUSIVE the plan accepts */
+    unsigned accept;        /* 1 << enum plan_accept: reasons for INCONCLUSIVE the plan accepts */
+    plan_scrape_t *scrapes; /* observe.metrics */
+    size_t n_scrapes;
+    plan_collect_t *collects; /* observe.collect */
+    size_t n_collects;
     struct plan_mem *mem;
 } plan_t;
 

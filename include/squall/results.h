@@ -34,7 +34,7 @@
 #define RESULTS_SERIES_FILE "series.csv"
 #define RESULTS_SERIES_HEADER                                                                      \
     "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
-    "unix_ms,p999_ms"
+    "unix_ms,p999_ms,marks"
 #define RESULTS_SERIES_HIST_FILE   "series-hist.csv"
 #define RESULTS_SERIES_HIST_HEADER "second,phase,class,unix_ms,response"
 

@@ -31,7 +31,11 @@ typedef struct {
     int64_t grace_ns; /* after a signal or a brake: how long in-flight requests may take */
     int shard_index, shard_count; /* 1/1 unless given */
     bool keep;                    /* no teardown; the journal lists what was left */
-    bool force; /* write into a results directory that already holds results */
+    bool force;                   /* write into a results directory that already holds results */
+    bool allow_exec;              /* let the plan's exec actions run programs (refused otherwise) */
+    const char *metrics_host; /* serve squall's own metrics there while the run goes (NULL:
+                                 no); the command line checks that it is loopback */
+    int metrics_port;
     /* For the record (results.json's "run" section and the report): the --set overrides as
      * given, and the command line. */
     const char *const *overrides;
@@ -55,7 +59,7 @@ typedef struct run_result {
     enum run_end end;
     enum judge_outcome outcome; /* pass; fail (an objective failed or had no data); inconclusive
                                    (the evidence cannot support a pass) */
-    bool write_failed; /* results.json, series.csv or report.html could not be written */
+    bool write_failed;          /* results.json, series.csv or report.html could not be written */
 } run_result_t;
 
 /* Everything a run checks before it sends anything, and nothing more: the target's safety

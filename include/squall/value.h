@@ -9,6 +9,7 @@
 #ifndef SQUALL_VALUE_H
 #define SQUALL_VALUE_H
 
+#include <stdbool.h>
 #include <stddef.h>
 #include <stdint.h>
 
@@ -25,6 +26,11 @@ int value_parse_percent(const char *s, double *fraction);
 int value_parse_int(const char *s, int64_t min, int64_t max, int64_t *v);
 /* Plain decimal numbers (`1`, `0.25`, `1e3`), finite, within [min, max]. */
 int value_parse_number(const char *s, double min, double max, double *v);
+/* A listen address: "127.0.0.1:7070", "[::1]:7070" or ":7070" (loopback IPv4) into host (without
+ * brackets) and *port (0 to 65535). SQ_EPARSE when malformed. */
+int value_parse_listen(const char *s, char *host, size_t cap, int *port);
+/* Whether host is an IPv4 address in 127.0.0.0/8 or IPv6 ::1. */
+bool value_is_loopback(const char *host);
 
 /* Sizes: a plain count of bytes, or <integer><unit> with unit B, KiB, MiB or GiB (powers of
  * 1024): `65536`, `512KiB`, `32MiB`. SQ_EPARSE / SQ_ERANGE (beyond 1 TiB) as above. */

@@ -235,13 +235,21 @@ static void print_summary(const plan_t *p, const src_estimate_t *est, out_t *o)
                   "caution: %s is not loopback; `squall run` will refuse it without "
                   "--confirm-target. Make sure its owners know.\n",
                   p->target.host);
+    for (size_t i = 0; i < p->n_phases; i++)
+        for (size_t k = 0; k < p->phases[i].n_actions; k++)
+            if (p->phases[i].actions[k].exec)
+                out_print(o,
+                          "caution: action '%s' of phase %s runs %s on this machine; `squall "
+                          "run` will refuse it without --allow-exec.\n",
+                          p->phases[i].actions[k].name, p->phases[i].name,
+                          p->phases[i].actions[k].argv[0]);
 }
 
 /* What `run` checks before it sends (the target's safety aside: check warns about that), then
  * the estimates. The plan is freed. */
 static int validate_and_print(const char *path, plan_t *p, out_t *o)
 {
-    run_opts_t ro = {.confirm_target = true};
+    run_opts_t ro = {.confirm_target = true, .allow_exec = true};
     src_estimate_t *est = calloc(p->n_phases ? p->n_phases : 1, sizeof(*est));
     int rc = est ? run_check(p, &ro, o) : SQ_ENOMEM;
     if (rc == 0)

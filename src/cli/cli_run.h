@@ -15,6 +15,8 @@ typedef struct {
     const char **texts; /* the --set arguments as given, for the record */
     char *line;         /* the command line, for the record */
     run_opts_t ro;
+    char metrics_host[64]; /* --metrics ADDR:PORT */
+    bool metrics_public;
 } cli_run_args_t;
 
 /* The options of `run` (and `demo`), terminated by an entry with name == NULL. */
@@ -26,6 +28,9 @@ int cli_run_args_init(cli_run_args_t *ra, const cli_cmd_t *cmd, int argc, char *
 void cli_run_args_close(cli_run_args_t *ra);
 /* A cli_take_fn over cli_run_opts into a cli_run_args_t (the positional word is the plan). */
 int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx);
+/* After parsing: the checks across options (--metrics off loopback needs --metrics-public).
+ * Returns -1 when all is well, else the exit code of a usage error. */
+int cli_run_args_check(const cli_cmd_t *cmd, cli_run_args_t *ra, out_t *o);
 /* The exit code of run_plan's return code and result (enum sq_exit). */
 int cli_run_exit(int rc, const run_result_t *res);
 /* Runs the plan with the options and returns the exit code. */

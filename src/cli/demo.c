@@ -128,6 +128,8 @@ static int demo_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     int rc = cli_run_args_init(&ra, cmd, argc, argv) ? SQ_EXIT_FAILURE : -1;
     if (rc < 0)
         rc = cli_parse(cmd, argc, argv, o, cli_run_take, &ra);
+    if (rc < 0)
+        rc = cli_run_args_check(cmd, &ra, o);
     char buf[4200];
     const char *plan_path = ra.path;
     if (rc < 0 && !plan_path && !(plan_path = find_plan(buf, sizeof buf)))

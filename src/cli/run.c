@@ -18,7 +18,10 @@ enum {
     OPT_GRACE,
     OPT_SHARD,
     OPT_KEEP,
-    OPT_FORCE
+    OPT_FORCE,
+    OPT_ALLOW_EXEC,
+    OPT_METRICS,
+    OPT_METRICS_PUBLIC
 };
 
 const cli_opt_t cli_run_opts[] = {
@@ -36,6 +39,12 @@ const cli_opt_t cli_run_opts[] = {
     [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (recorded in the results)"},
     [OPT_KEEP] = {"keep", 0, NULL, "no teardown: leave the objects this run created"},
     [OPT_FORCE] = {"force", 0, NULL, "write into a results directory that already holds results"},
+    [OPT_ALLOW_EXEC] = {"allow-exec", 0, NULL,
+                        "let the plan's exec actions run programs on this machine"},
+    [OPT_METRICS] = {"metrics", 0, "ADDR:PORT",
+                     "serve squall's own metrics (OpenMetrics) at http://ADDR:PORT/metrics"},
+    [OPT_METRICS_PUBLIC] = {"metrics-public", 0, NULL,
+                            "allow --metrics on an address that is not loopback"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -106,6 +115,33 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
     case OPT_FORCE:
         ra->ro.force = true;
         break;
+    case OPT_ALLOW_EXEC:
+        ra->ro.allow_exec = true;
+        break;
+    case OPT_METRICS:
+        if (value_parse_listen(v, ra->metrics_host, sizeof ra->metrics_host, &ra->ro.metrics_port))
+            return cli_usage_error(cmd, o,
+                                   "--metrics needs ADDR:PORT like 127.0.0.1:9464, got '%s'", v);
+        ra->ro.metrics_host = ra->metrics_host;
+        break;
+    case OPT_METRICS_PUBLIC:
+        ra->metrics_public = true;
+        break;
+    }
+    return -1;
+}
+
+int cli_run_args_check(const cli_cmd_t *cmd, cli_run_args_t *ra, out_t *o)
+{
+    if (ra->ro.metrics_host && !value_is_loopback(ra->ro.metrics_host)) {
+        if (!ra->metrics_public)
+            return cli_usage_error(
+                cmd, o,
+                "--metrics: '%s' is not a loopback address; add --metrics-public to "
+                "serve squall's metrics there",
+                ra->ro.metrics_host);
+        out_warn(o, "--metrics on %s: anyone who can reach it can read the run's figures",
+                 ra->ro.metrics_host);
     }
     return -1;
 }
@@ -171,6 +207,8 @@ static int run_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         return SQ_EXIT_FAILURE;
     }
     int rc = cli_parse(cmd, argc, argv, o, cli_run_take, &ra);
+    if (rc < 0)
+        rc = cli_run_args_check(cmd, &ra, o);
     if (rc < 0 && !ra.path)
         rc = cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
     if (rc < 0) {

@@ -75,36 +75,10 @@ static void on_signal(uv_signal_t *h, int signum)
 /* "127.0.0.1:7070", "[::1]:7070" or ":7070" (loopback IPv4). */
 static int parse_listen(const char *s, server_opts_t *o, char *host, size_t hostlen)
 {
-    const char *colon = strrchr(s, ':');
-    char *end;
-    if (!colon)
-        return SQ_EPARSE;
-    long port = strtol(colon + 1, &end, 10);
-    if (*end || end == colon + 1 || port < 0 || port > 65535)
-        return SQ_EPARSE;
-    size_t n = (size_t)(colon - s);
-    if (n >= 2 && s[0] == '[' && s[n - 1] == ']') {
-        s++;
-        n -= 2;
-    }
-    if (n == 0)
-        snprintf(host, hostlen, "127.0.0.1");
-    else if (n < hostlen)
-        snprintf(host, hostlen, "%.*s", (int)n, s);
-    else
-        return SQ_EPARSE;
-    o->host = host;
-    o->port = (int)port;
-    return 0;
-}
-
-static bool is_loopback(const char *host)
-{
-    struct in_addr a4;
-    struct in6_addr a6;
-    if (inet_pton(AF_INET, host, &a4) == 1)
-        return (ntohl(a4.s_addr) >> 24) == 127;
-    return inet_pton(AF_INET6, host, &a6) == 1 && IN6_IS_ADDR_LOOPBACK(&a6);
+    int rc = value_parse_listen(s, host, hostlen, &o->port);
+    if (rc == 0)
+        o->host = host;
+    return rc;
 }
 
 /* --stall-at, --stall-for, --drop-watches-at: durations as plans write them (squall/value.h). */
@@ -265,7 +239,7 @@ static int serve_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     const server_opts_t *so = &sa.opts;
     if (so->faults.stall_at_ns >= 0 && so->faults.stall_for_ns <= 0)
         return cli_usage_error(cmd, o, "--stall-at needs --stall-for (its length)");
-    if (!is_loopback(so->host)) {
+    if (!value_is_loopback(so->host)) {
         if (!sa.pub)
             return cli_usage_error(
                 cmd, o, "'%s' is not a loopback address; add --public to listen there", so->host);

@@ -361,6 +361,9 @@ void eng_xfer_finish(struct eng_xfer *x, CURLcode rc)
     if (x->req.keep_body) {
         r->body = x->resp.data ? x->resp.data : "";
         r->body_len = x->resp.len;
+        char *ct = NULL;
+        if (c && curl_easy_getinfo(c, CURLINFO_CONTENT_TYPE, &ct) == CURLE_OK)
+            r->content_type = ct; /* owned by the easy handle, alive through on_done */
     }
     if (c) /* the pooled handle outlives this transfer: it must not keep pointing at its buffer */
         curl_easy_setopt(c, CURLOPT_ERRORBUFFER, NULL);

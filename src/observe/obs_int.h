@@ -12,7 +12,10 @@ typedef struct {
 } obs_entry_t;
 
 extern const obs_entry_t obs_ledger_entry, obs_storm_entry, obs_brakes_entry, obs_series_entry,
-    obs_live_entry;
+    obs_live_entry, obs_export_entry;
+
+/* export.c: a watch stream's change, for squall's own metrics (self NULL: not exporting). */
+void obs_export_watch(void *self, size_t phase, int cls, enum obs_watch_ev ev);
 
 /* The brakes in force (brakes.c), for obs_brakes_json. */
 json_t *obs_brakes_section(const void *brakes);

@@ -10,10 +10,12 @@
 #include "squall/err.h"
 
 static const obs_entry_t *const entries[] = {
-    &obs_ledger_entry, &obs_storm_entry, &obs_brakes_entry, &obs_series_entry, &obs_live_entry,
+    &obs_ledger_entry, &obs_storm_entry, &obs_brakes_entry,
+    &obs_series_entry, &obs_live_entry,  &obs_export_entry,
 };
 #define N_ENTRIES (sizeof entries / sizeof entries[0])
 #define BRAKES    2 /* entries[BRAKES] */
+#define EXPORT    5 /* entries[EXPORT] */
 
 struct obs {
     obs_cfg_t cfg;
@@ -39,6 +41,8 @@ struct obs {
     int64_t busy_since_ns, last_answer_ns, unanswered_since_ns;
     obs_health_t health;
     int64_t svc_sum_ns, svc_n; /* the open second's service times */
+    char marks[512];           /* the open second's marked instants, ';'-separated */
+    char brake_why[256];       /* the brake that fired, "" until one does */
 };
 
 bool obs_is_error(enum eng_outcome oc)
@@ -80,6 +84,13 @@ static int window_init(obs_t *l)
     return 0;
 }
 
+static void list_brake(void *user, int kind, const char *why)
+{
+    obs_t *l = user;
+    snprintf(l->brake_why, sizeof l->brake_why, "%s", why);
+    l->cfg.brake(l->cfg.user, kind, why);
+}
+
 int obs_new(const obs_cfg_t *cfg, obs_t **out)
 {
     *out = NULL;
@@ -91,8 +102,11 @@ int obs_new(const obs_cfg_t *cfg, obs_t **out)
     l->n_classes = cfg->plan->n_reqs + 1;
     l->cells = calloc(l->n_phases * 2 * l->n_classes * ENG_OUT_COUNT, sizeof(*l->cells));
     int rc = l->cells ? window_init(l) : SQ_ENOMEM;
+    obs_cfg_t inner = *cfg; /* a brake that fires is seen by the list, then the conductor */
+    inner.brake = cfg->brake ? list_brake : NULL;
+    inner.user = l;
     for (size_t i = 0; rc == 0 && i < N_ENTRIES; i++)
-        rc = entries[i]->new (cfg, &l->self[i]);
+        rc = entries[i]->new (&inner, &l->self[i]);
     if (rc) {
         obs_free(l);
         return rc;
@@ -168,6 +182,19 @@ void obs_sent(obs_t *l, const obs_sent_t *s)
     for (size_t i = 0; i < N_ENTRIES; i++)
         if (entries[i]->ops->sent)
             entries[i]->ops->sent(l->self[i], s);
+}
+
+void obs_watch(obs_t *l, size_t phase, int cls, enum obs_watch_ev ev)
+{
+    obs_export_watch(l->self[EXPORT], phase, cls, ev);
+}
+
+void obs_mark(obs_t *l, const char *name)
+{
+    size_t used = strlen(l->marks);
+    /* A name that does not fit is left out of series.csv; results.json has every instant. */
+    if (used + strlen(name) + 2 < sizeof l->marks)
+        snprintf(l->marks + used, sizeof l->marks - used, "%s%s", used ? ";" : "", name);
 }
 
 void obs_answered(obs_t *l, int64_t at_ns)
@@ -361,6 +388,8 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .last_answer_ns = l->last_answer_ns,
         .unanswered_since_ns = l->unanswered_since_ns,
         .bound_why = why,
+        .marks = l->marks,
+        .brake_fired = l->brake_why,
     };
     obs_health_in_t in = {
         .second = l->sec_index,
@@ -376,6 +405,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         if (entries[i]->ops->second)
             entries[i]->ops->second(l->self[i], &s);
     window_reset(l, now);
+    l->marks[0] = '\0';
 }
 
 static json_t *generator_json(const obs_t *l)
@@ -421,6 +451,5 @@ void obs_totals(const obs_t *l, obs_totals_t *t)
         .sched_lag = l->sched_lag,
     };
     obs_bound_seconds(&l->health.generator, t->generator_seconds, sizeof t->generator_seconds);
-    obs_bound_seconds(&l->health.connections, t->connection_seconds,
-                      sizeof t->connection_seconds);
+    obs_bound_seconds(&l->health.connections, t->connection_seconds, sizeof t->connection_seconds);
 }

@@ -79,14 +79,14 @@ static void series_second(void *self, const obs_second_t *w)
         const obs_cell_t *c = &w->cells[i];
         const hist_t *h = c->response;
         bool any = h && c->completed > 0;
-        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f\n",
+        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,%s\n",
                 (long long)w->index, obs_phase_name(s->plan, c->phase),
                 obs_class_name(s->plan, c->cls), (long long)c->started, (long long)c->completed,
                 (double)c->completed / w->secs, (long long)c->errors,
                 any ? ms(hist_value_at(h, 50)) : 0.0, any ? ms(hist_value_at(h, 90)) : 0.0,
                 any ? ms(hist_value_at(h, 99)) : 0.0, any ? ms(hist_max(h)) : 0.0, c->planned,
                 (long long)((w->start_ns + s->real_minus_mono) / 1000000),
-                any ? ms(hist_value_at(h, 99.9)) : 0.0);
+                any ? ms(hist_value_at(h, 99.9)) : 0.0, w->marks ? w->marks : "");
         /* Out of memory, the row has no histogram: a merge then marks its percentiles unknown. */
         char *text = NULL;
         if (any && hist_encode(h, &text) == 0)

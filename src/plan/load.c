@@ -16,7 +16,7 @@
 
 static const char *const root_keys[] = {"include",    "seed",   "target", "vars",
                                         "requests",   "phases", "objectives", "brakes",
-                                        "accept",     NULL};
+                                        "accept",     "observe", NULL};
 
 /* Every file of a plan, read before any is parsed so overrides can reach into includes. */
 typedef struct {
@@ -159,7 +159,7 @@ static void parse_root(pctx_t *c, yaml_node_t *root)
     parse_seed(c, root);
     void (*const parsers[])(pctx_t *, yaml_node_t *) = {
         plan_parse_target,     plan_parse_vars,   plan_parse_requests, plan_parse_phases,
-        plan_parse_objectives, plan_parse_brakes, plan_parse_accept};
+        plan_parse_objectives, plan_parse_brakes, plan_parse_accept, plan_parse_observe};
     for (size_t i = 0; i < sizeof parsers / sizeof parsers[0]; i++) {
         yaml_node_t *n = pc_get(c, root, root_keys[i + 2]);
         if (n)

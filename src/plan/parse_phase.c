@@ -6,9 +6,9 @@
 #include "plan_int.h"
 #include "squall/err.h"
 
-static const char *const phase_keys[] = {"name",     "duration", "rate",    "ramp",  "steps",
-                                         "arrivals", "mix",      "clients", "fleet", "watches",
-                                         "churn",    "teardown", "replay",  NULL};
+static const char *const phase_keys[] = {"name",     "duration", "rate",    "ramp",    "steps",
+                                         "arrivals", "mix",      "clients", "fleet",   "watches",
+                                         "churn",    "teardown", "replay",  "actions", NULL};
 
 static void parse_mix(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
@@ -427,6 +427,8 @@ static void parse_one(pctx_t *c, yaml_node_t *n, size_t index)
     if (pc_get(c, n, "replay"))
         parse_replay(c, pc_get(c, n, "replay"), where, &ph);
     check_sources(c, n, where, &ph);
+    if (pc_get(c, n, "actions"))
+        plan_parse_actions(c, pc_get(c, n, "actions"), where, &ph);
     c->p->phases = pc_grow(c, c->p->phases, &c->p->n_phases, 1, sizeof(ph));
     if (!c->nomem)
         c->p->phases[c->p->n_phases - 1] = ph;

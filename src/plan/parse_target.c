@@ -100,31 +100,40 @@ static bool split_authority(const char *h, char *host, size_t len, int *port, co
     return *end == '\0' || *end == '/';
 }
 
+bool plan_split_url(pctx_t *c, yaml_node_t *vn, const char *where, bool *https, char *host,
+                    size_t cap, int *port, const char **path, bool *loopback)
+{
+    const char *u = pc_text(vn);
+    *https = u && strncmp(u, "https://", 8) == 0;
+    *port = *https ? 443 : 80;
+    if (!u || (!*https && strncmp(u, "http://", 7) != 0) ||
+        !split_authority(u + (*https ? 8 : 7), host, cap, port, path)) {
+        /* User information may hold a password: the URL is shown without it. */
+        const char *at = u ? strchr(u, '@') : NULL, *sep = u ? strstr(u, "://") : NULL;
+        int keep = !u ? 0 : at ? (sep && sep < at ? (int)(sep + 3 - u) : 0) : (int)strlen(u);
+        pc_error(c, vn,
+                 "%s: bad URL (expected an http:// or https:// URL like "
+                 "http://127.0.0.1:7070, got '%s%.*s%s%s')",
+                 where, u ? "" : "not text", keep, u ? u : "",
+                 at ? "(user information not shown)@" : "", at ? at + 1 : "");
+        return false;
+    }
+    unsigned char a[16];
+    *loopback = strcmp(host, "localhost") == 0 ||
+                (inet_pton(AF_INET, host, a) == 1 && a[0] == 127) ||
+                (inet_pton(AF_INET6, host, a) == 1 && memcmp(a, &in6addr_loopback, 16) == 0);
+    return true;
+}
+
 /* Splits http[s]://host[:port][/base] and decides whether host is loopback. */
 static void parse_url(pctx_t *c, yaml_node_t *vn, plan_target_t *t)
 {
     const char *u = pc_text(vn), *end;
-    bool https = strncmp(u, "https://", 8) == 0;
     char host[256];
-    int port = https ? 443 : 80;
-    if ((!https && strncmp(u, "http://", 7) != 0) ||
-        !split_authority(u + (https ? 8 : 7), host, sizeof host, &port, &end)) {
-        /* User information may hold a password: the URL is shown without it. */
-        const char *at = strchr(u, '@'), *sep = strstr(u, "://");
-        int keep = at ? (sep && sep < at ? (int)(sep + 3 - u) : 0) : (int)strlen(u);
-        pc_error(c, vn,
-                 "target.url: bad URL (expected an http:// or https:// URL like "
-                 "http://127.0.0.1:7070, got '%.*s%s%s')",
-                 keep, u, at ? "(user information not shown)@" : "", at ? at + 1 : "");
+    if (!plan_split_url(c, vn, "target.url", &t->https, host, sizeof host, &t->port, &end,
+                        &t->loopback))
         return;
-    }
-    unsigned char a[16];
-    t->loopback = strcmp(host, "localhost") == 0 ||
-                  (inet_pton(AF_INET, host, a) == 1 && a[0] == 127) ||
-                  (inet_pton(AF_INET6, host, a) == 1 && memcmp(a, &in6addr_loopback, 16) == 0);
-    t->https = https;
     t->host = pmem_strdup(c, host);
-    t->port = port;
     size_t len = strlen(u);
     while (len > 0 && u[len - 1] == '/' && u + len > end)
         len--; /* "http://h:1/" and "http://h:1" name the same base */

@@ -105,6 +105,12 @@ void plan_parse_phases(pctx_t *c, yaml_node_t *n);
 void plan_parse_objectives(pctx_t *c, yaml_node_t *n);
 void plan_parse_brakes(pctx_t *c, yaml_node_t *n);
 void plan_parse_accept(pctx_t *c, yaml_node_t *n);
+void plan_parse_observe(pctx_t *c, yaml_node_t *n);
+/* A phase's `actions` list (parse_observe.c, beside the other things done beside the load). */
+void plan_parse_actions(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph);
+/* Splits http[s]://host[:port][/path] at vn (where names it in errors): false after an error. */
+bool plan_split_url(pctx_t *c, yaml_node_t *vn, const char *where, bool *https, char *host,
+                    size_t cap, int *port, const char **path, bool *loopback);
 /* Resolves every reference and runs the checks that need the whole plan. */
 void plan_check_whole(pctx_t *c);
 

@@ -53,6 +53,15 @@ int html_class_style(const results_t *res, const char *cls);
  * percentile the sample count resolves; returns the number of points. h is scratch. */
 #define HTML_SPECTRUM_POINTS 61
 size_t html_spectrum(const results_t *res, int m, const char *cls, hist_t *h, double *x, double *y);
+/* Marks on the run's time axis (s): phase boundaries (the "phases" section's starts when the run
+ * wrote one, else the first second each phase appears in s), then the instants of actions and
+ * collects. */
+size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m,
+                        size_t cap);
+/* html_metrics.c: the target's scraped metrics ("metrics" section), when the plan observed any. */
+void html_metrics(FILE *f, const results_t *res, const report_series_t *s);
+/* html_metrics.c: the actions and collects ("actions" section), each saved file linked. */
+void html_actions(FILE *f, const results_t *res);
 /* html_storms.c: the "storms" section's ticks, when a fleet phase ran. */
 void html_storms(FILE *f, const results_t *res);
 void html_plots_time(FILE *f, const results_t *res, const report_series_t *s);

@@ -24,10 +24,35 @@ static size_t distinct(const report_series_t *s, bool phase, const char **out, s
     return n;
 }
 
+static size_t phase_starts(const results_t *res, const report_series_t *s, html_mark_t *m,
+                           size_t cap);
+
+/* The instants actions and collects fired at ("actions" section), after n marks already in m. */
+static size_t action_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap)
+{
+    json_t *items = json_object_get(results_section(res, "actions"), "items"), *it;
+    int64_t t0 = results_meta(res)->start_unix_ms;
+    size_t i;
+    json_array_foreach(items, i, it)
+    {
+        json_t *at = json_object_get(it, "fired_unix_ms");
+        if (n < cap && at && t0 > 0)
+            m[n++] = (html_mark_t){(double)(json_integer_value(at) - t0) / 1000.0,
+                                   json_string_value(json_object_get(it, "name"))};
+    }
+    return n;
+}
+
+size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m, size_t cap)
+{
+    size_t n = phase_starts(res, s, m, cap);
+    return action_marks(res, m, n, cap);
+}
+
 /* Phase boundaries: the "phases" section's starts when the run wrote one, else the first
  * second each phase appears in series.csv. */
-static size_t phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m,
-                          size_t cap)
+static size_t phase_starts(const results_t *res, const report_series_t *s, html_mark_t *m,
+                           size_t cap)
 {
     json_t *list = json_object_get(results_section(res, "phases"), "phases"), *p;
     size_t i, n = 0;
@@ -145,7 +170,7 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
     per_second_t ps[MAX_LINES] = {0};
     html_line_t rate[MAX_LINES], errs[MAX_LINES], lat[2 * MAX_LINES];
     html_mark_t marks[MAX_LINES * 4];
-    size_t nm = phase_marks(res, s, marks, MAX_LINES * 4);
+    size_t nm = html_phase_marks(res, s, marks, MAX_LINES * 4);
     char labels[2 * MAX_LINES][160];
     size_t ok = 0;
     for (size_t c = 0; c < nc && fill(s, cls[c], secs, &ps[c]) == 0; c++, ok++) {

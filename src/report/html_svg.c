@@ -253,12 +253,21 @@ void html_plot(FILE *f, const html_plot_t *p, const html_line_t *lines, size_t n
             "</text></g>\n<rect class=\"frame\" x=\"%.1f\" y=\"%.1f\" width=\"%.1f\" "
             "height=\"%.1f\"/>\n",
             LEFT, TOP, W - LEFT - RIGHT, H - BOTTOM - TOP);
+    /* Labels that would run into the one before them go one row lower (three rows; about 6.5 px
+     * per character at the style sheet's size); marks outside the x range are left out. */
+    double row_end[3] = {-1e9, -1e9, -1e9};
     for (size_t i = 0; i < n_marks; i++) {
         double px = ax_map(&x, xval(p, marks[i].x));
+        if (!(px >= LEFT - 0.5 && px <= W - RIGHT + 0.5))
+            continue;
+        int row = 0;
+        while (row < 2 && px < row_end[row])
+            row++;
+        row_end[row] = px + 8 + 6.5 * (double)strlen(marks[i].label ? marks[i].label : "");
         fprintf(f,
                 "<g class=\"mark\"><line x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\"/>"
                 "<text x=\"%.1f\" y=\"%.1f\">",
-                px, px, TOP, H - BOTTOM, px + 3, TOP - 6);
+                px, px, TOP, H - BOTTOM, px + 3, TOP - 6 + 14.0 * row);
         html_esc(f, marks[i].label);
         fputs("</text></g>\n", f);
     }

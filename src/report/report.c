@@ -300,6 +300,8 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
     html_plots_time(f, res, s);
     html_plots_spectrum(f, res);
     html_storms(f, res);
+    html_metrics(f, res, s);
+    html_actions(f, res);
     fputs("<p class=\"note\">Colours: Okabe&#8211;Ito palette; each class also has its own "
           "marker shape. Response time is measured from each request's intended start.</p>\n"
           "</body></html>\n",

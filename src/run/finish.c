@@ -97,7 +97,12 @@ static int sections(run_t *r)
         }
     }
     int e = obs_finish(r->obs, r->dir);
-    return rc ? rc : e;
+    rc = rc ? rc : e;
+    if (rc == 0 && r->scrape)
+        rc = results_set_section(r->res, "metrics", scrape_section(r->scrape));
+    if (rc == 0 && r->act)
+        rc = results_set_section(r->res, "actions", act_section(r->act));
+    return rc;
 }
 
 /* The outcome: the checks, weighed with what squall could offer and how the run ended. */
@@ -147,8 +152,9 @@ bool run_finish(run_t *r, run_result_t *res)
     json_t *reasons = json_array(), *accepted = json_array();
     res->outcome = outcome(r, j, reasons, accepted);
     res->write_failed = failed;
-    failed |= results_set_section(r->res, "run",
-                                  run_json(r, res, json_incref(reasons), json_incref(accepted))) != 0;
+    failed |=
+        results_set_section(r->res, "run",
+                            run_json(r, res, json_incref(reasons), json_incref(accepted))) != 0;
     failed |= results_write_dir(r->res, r->dir, r->o) != 0;
     res->write_failed = failed;
     if (report_html_write_dir(r->dir, r->res, r->o) != 0 && !failed) {

@@ -93,6 +93,45 @@ static int validate_sources(run_t *r)
     return bad ? SQ_EINVAL : 0;
 }
 
+/* A URL fetched beside the load that is not on loopback needs --confirm-target, as the
+ * target does. */
+static int url_safe(const run_t *r, const plan_url_t *u, plan_pos_t pos, const char *what)
+{
+    if (u->relative || u->loopback || r->opts->confirm_target)
+        return 0;
+    out_raw(r->o, OUT_ERROR,
+            "%s:%d:%d: error: %s %s is not a loopback address: pass --confirm-target to reach it",
+            pos.file, pos.line, pos.col, what, u->url);
+    return SQ_EINVAL;
+}
+
+/* What the plan does beside its load (observe.metrics, observe.collect, actions): off-loopback
+ * URLs need --confirm-target, programs need --allow-exec (a plan written by someone else must
+ * not run programs on this machine unless its user says so). */
+static int beside_safe(const run_t *r)
+{
+    const plan_t *p = r->plan;
+    int bad = 0;
+    for (size_t i = 0; i < p->n_scrapes; i++)
+        bad |= url_safe(r, &p->scrapes[i].at, p->scrapes[i].pos, "observe.metrics url");
+    for (size_t i = 0; i < p->n_collects; i++)
+        bad |= url_safe(r, &p->collects[i].at, p->collects[i].pos, "observe.collect url");
+    for (size_t i = 0; i < p->n_phases; i++)
+        for (size_t k = 0; k < p->phases[i].n_actions; k++) {
+            const plan_action_t *a = &p->phases[i].actions[k];
+            if (!a->exec) {
+                bad |= url_safe(r, &a->url, a->pos, "action url");
+            } else if (!r->opts->allow_exec) {
+                out_raw(r->o, OUT_ERROR,
+                        "%s:%d:%d: error: action '%s' runs a program (%s): refused without "
+                        "--allow-exec (read the plan first: it runs on this machine)",
+                        a->pos.file, a->pos.line, a->pos.col, a->name, a->argv[0]);
+                bad = 1;
+            }
+        }
+    return bad ? SQ_EINVAL : 0;
+}
+
 int run_prepare(run_t *r)
 {
     const plan_t *p = r->plan;
@@ -104,8 +143,11 @@ int run_prepare(run_t *r)
                   p->target.url);
         return SQ_EINVAL;
     }
+    int rc = beside_safe(r);
+    if (rc != 0)
+        return rc;
     r->seed = run_seed(p, r->opts);
-    int rc = src_target_init(&r->target, p, r->opts->insecure, r->o);
+    rc = src_target_init(&r->target, p, r->opts->insecure, r->o);
     if (rc == 0)
         rc = results_new(&r->res);
     obs_cfg_t oc = {.plan = p,
@@ -113,6 +155,8 @@ int run_prepare(run_t *r)
                     .o = r->o,
                     .quiet = r->opts->quiet,
                     .no_brakes = r->opts->no_brakes,
+                    .metrics_host = r->opts->metrics_host,
+                    .metrics_port = r->opts->metrics_port,
                     .brake = r->on_brake,
                     .user = r};
     if (rc == 0)
@@ -134,6 +178,10 @@ void run_close(run_t *r)
     free(r->phases);
     r->phases = NULL;
     src_issuer_free(r->issuer);
+    scrape_free(r->scrape);
+    r->scrape = NULL;
+    act_free(r->act);
+    r->act = NULL;
     obs_free(r->obs);
     results_free(r->res);
     src_target_close(&r->target);

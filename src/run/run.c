@@ -43,6 +43,8 @@ static void phase_end(run_t *r, int64_t now)
     for (size_t k = 0; k < ph->n_src; k++)
         if (ph->src[k].ops->stop)
             ph->src[k].ops->stop(ph->src[k].self);
+    if (r->cur < r->plan->n_phases)
+        act_moment(r->act, ACT_PHASE_END, r->cur, now);
 }
 
 void run_stop(run_t *r, enum run_end why, const char *fmt, ...)
@@ -91,6 +93,8 @@ static void phase_start(run_t *r, size_t i, int64_t base_ns)
     ph->realtime0_ns = clock_real_ns() - (clock_mono_ns() - base_ns);
     ph->started = true;
     obs_phase(r->obs, i, base_ns, ph->realtime0_ns);
+    if (i < r->plan->n_phases)
+        act_moment(r->act, ACT_PHASE_START, i, base_ns);
     src_ctx_t ctx = run_src_ctx(r, i);
     ctx.alive = 0; /* the models of a running phase count what its sources see */
     int rc = src_phase_new(&ctx, ph->src, &ph->n_src);
@@ -127,14 +131,26 @@ static void next_phase(run_t *r, int64_t now)
     phase_start(r, next, end);
 }
 
-/* Draining is over: the teardown phase (if any) starts, else the run finishes. */
+/* The load and the teardown are over: the run-end collects are fetched (each bounded by its
+ * timeout), then everything finishes. */
+static void ending(run_t *r)
+{
+    if (r->state != RUN_ENDING) {
+        set_state(r, RUN_ENDING);
+        act_moment(r->act, ACT_RUN_END, 0, clock_mono_ns());
+    }
+    if (!act_busy(r->act))
+        finish(r);
+}
+
+/* Draining is over: the teardown phase (if any) starts, else the run ends. */
 static void drained(run_t *r, int64_t now)
 {
     size_t next = r->cur + 1;
     while (next < r->n_phases && !r->phases[next].teardown)
         next++;
     if (next >= r->n_phases) {
-        finish(r);
+        ending(r);
         return;
     }
     set_state(r, RUN_TEARDOWN);
@@ -233,8 +249,8 @@ static void on_prepare(uv_prepare_t *c)
     int64_t now = clock_mono_ns();
     if (r->state == RUN_DRAINING && obs_in_flight(r->obs) == 0)
         drained(r, now);
-    if (r->state == RUN_TEARDOWN && sources_idle(current(r)))
-        finish(r);
+    if ((r->state == RUN_TEARDOWN && sources_idle(current(r))) || r->state == RUN_ENDING)
+        ending(r);
     if (r->state != RUN_DONE)
         rearm(r, now);
 }
@@ -302,6 +318,8 @@ static void on_signal(uv_signal_t *s, int signum)
         r->drain_deadline_ns = 0;
     } else if (r->state == RUN_TEARDOWN) {
         phase_end(r, clock_mono_ns());
+    } else if (r->state == RUN_ENDING) {
+        finish(r); /* the run-end collects still running are cancelled */
     }
 }
 
@@ -352,6 +370,8 @@ static void finish(run_t *r)
                 r->phases[i].src[k].ops->stop(r->phases[i].src[k].self);
     eng_free(r->eng);
     r->eng = NULL;
+    scrape_stop(r->scrape);
+    act_stop(r->act);
     uv_timer_stop(&r->wake);
     uv_timer_stop(&r->second);
     uv_prepare_stop(&r->prepare);
@@ -400,6 +420,12 @@ static int handles_start(run_t *r)
     return rc ? SQ_ELIBUV : 0;
 }
 
+/* An action or a collect fired: its second is marked in series.csv. */
+static void on_mark(void *user, const char *name)
+{
+    obs_mark(((run_t *)user)->obs, name);
+}
+
 /* The main engine, the handles, the first phase: the loop then runs to the end. */
 static void run_loop(run_t *r)
 {
@@ -411,10 +437,24 @@ static void run_loop(run_t *r)
         src_issuer_attach(r->issuer, r->eng);
         rc = handles_start(r);
     }
+    if (rc == 0)
+        rc = scrape_new(&r->loop, r->plan, &r->target.eng, r->o, &r->scrape);
+    if (rc == 0)
+        rc = scrape_start(r->scrape, r->dir);
+    act_cfg_t ac = {.loop = &r->loop,
+                    .plan = r->plan,
+                    .target = &r->target.eng,
+                    .dir = r->dir,
+                    .o = r->o,
+                    .mark = on_mark,
+                    .user = r};
+    if (rc == 0)
+        rc = act_new(&ac, &r->act);
     if (rc == 0) {
         r->start_ns = r->sec_start_ns = clock_mono_ns();
         results_set_start(r->res, clock_real_ns() / 1000000);
         set_state(r, RUN_LOADING);
+        act_moment(r->act, ACT_RUN_START, 0, r->start_ns);
         if (r->n_phases == 0 || r->phases[0].teardown)
             drain(r, r->start_ns);
         else

@@ -6,11 +6,13 @@
 
 #include <uv.h>
 
+#include "squall/act.h"
 #include "squall/engine.h"
 #include "squall/judge.h"
 #include "squall/observe.h"
 #include "squall/results.h"
 #include "squall/run.h"
+#include "squall/scrape.h"
 #include "squall/source.h"
 
 #define RUN_MAX_SOURCES 8 /* sources one phase may use: one of each kind */
@@ -20,6 +22,7 @@ enum run_state {
     RUN_LOADING,  /* the plan's phases are sending */
     RUN_DRAINING, /* no new starts; requests in flight finish */
     RUN_TEARDOWN, /* deleting what the run created */
+    RUN_ENDING,   /* the run-end collects are fetched; then everything finishes */
     RUN_DONE,     /* everything finished; handles are closing */
 };
 
@@ -49,6 +52,8 @@ typedef struct run {
     src_issuer_t *issuer;
     results_t *res;
     eng_t *eng;
+    scrape_t *scrape; /* the target's metrics (observe.metrics), NULL without */
+    act_t *act;       /* actions and collects, NULL without */
 
     uv_loop_t loop;
     uv_timer_t wake, second;
@@ -78,7 +83,6 @@ int run_phases_init(run_t *r);
 void run_close(run_t *r);
 /* The context a phase's sources are built with. */
 src_ctx_t run_src_ctx(const run_t *r, size_t phase);
-
 
 /* finish.c: after the loop ended: fills res (outcome, write_failed). Returns write_failed. */
 bool run_finish(run_t *r, run_result_t *res);

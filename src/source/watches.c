@@ -173,6 +173,7 @@ static void record_open(watcher_t *w)
 {
     w->open_recorded = true;
     hist_add(w->wc->events, RESULTS_M_OPEN, w->first_byte_ns - w->intended_ns);
+    obs_watch(w->ws->ctx.obs, w->ws->ctx.phase, w->wc->cls, OBS_WATCH_OPENED);
 }
 
 /* The answer was an error (its status arrives with the end): its body was no events. */
@@ -327,8 +328,10 @@ static void next_step(watches_t *ws, watcher_t *w, const watch_end_t *end, int64
     if (a == WATCH_DO_NOTHING)
         return;
     w->due_relist = a == WATCH_DO_RELIST;
-    if (!was_relist && a != WATCH_DO_RELIST)
+    if (!was_relist && a != WATCH_DO_RELIST) {
         log_reconnect(ws, w, now, delay);
+        obs_watch(ws->ctx.obs, ws->ctx.phase, w->wc->cls, OBS_WATCH_RECONNECT);
+    }
     set_due(ws, w, now + delay);
 }
 
@@ -359,6 +362,10 @@ static void on_stream_done(void *user, const eng_result_t *res)
         take_back(w);
     else if (w->got_first && !w->open_recorded)
         record_open(w);
+    if (w->open_recorded)
+        obs_watch(ws->ctx.obs, ws->ctx.phase, w->wc->cls, OBS_WATCH_ENDED);
+    if (dropped)
+        obs_watch(ws->ctx.obs, ws->ctx.phase, w->wc->cls, OBS_WATCH_DROPPED);
     if (!ws->active)
         return;
     watch_end_t end = {

@@ -3,9 +3,11 @@
  * so `1.1s` is 1100000000, not a float. */
 #include "squall/value.h"
 
+#include <arpa/inet.h>
 #include <ctype.h>
 #include <errno.h>
 #include <math.h>
+#include <stdio.h>
 #include <stdbool.h>
 #include <stdlib.h>
 #include <string.h>
@@ -277,4 +279,37 @@ int value_parse_bytes(const char *s, int64_t *bytes)
         }
     }
     return SQ_EPARSE;
+}
+
+int value_parse_listen(const char *s, char *host, size_t cap, int *port)
+{
+    const char *colon = strrchr(s, ':');
+    char *end;
+    if (!colon)
+        return SQ_EPARSE;
+    long p = strtol(colon + 1, &end, 10);
+    if (*end || end == colon + 1 || p < 0 || p > 65535)
+        return SQ_EPARSE;
+    size_t n = (size_t)(colon - s);
+    if (n >= 2 && s[0] == '[' && s[n - 1] == ']') {
+        s++;
+        n -= 2;
+    }
+    if (n == 0)
+        snprintf(host, cap, "127.0.0.1");
+    else if (n < cap)
+        snprintf(host, cap, "%.*s", (int)n, s);
+    else
+        return SQ_EPARSE;
+    *port = (int)p;
+    return 0;
+}
+
+bool value_is_loopback(const char *host)
+{
+    struct in_addr a4;
+    struct in6_addr a6;
+    if (inet_pton(AF_INET, host, &a4) == 1)
+        return (ntohl(a4.s_addr) >> 24) == 127;
+    return inet_pton(AF_INET6, host, &a6) == 1 && IN6_IS_ADDR_LOOPBACK(&a6);
 }
