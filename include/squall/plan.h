@@ -54,6 +54,7 @@ typedef struct {
     int connections;    /* default 16 */
     int streams;        /* HTTP/2 streams per connection, 1..10000; 0 = not given (100) */
     int64_t timeout_ns; /* default 10 s; per-request classes may override */
+    int64_t max_body;   /* bytes of a response body squall keeps at most; default 16 MiB */
     plan_kv_t *headers;
     size_t n_headers;
     struct {

@@ -8,8 +8,8 @@
 static const char *const root[] = {"include",  "seed",    "target",     "vars",
                                    "requests", "phases",  "objectives", "brakes",
                                    "accept",   "observe", NULL};
-static const char *const target[] = {"url",     "http", "connections", "streams", "timeout",
-                                     "headers", "tls",  "token",       NULL};
+static const char *const target[] = {"url",     "http", "connections", "streams",  "timeout",
+                                     "headers", "tls",  "token",       "max_body", NULL};
 static const char *const tls[] = {"ca", "cert", "key", "insecure", NULL};
 static const char *const token[] = {"file", "env", NULL};
 static const char *const from_to[] = {"from", "to", NULL};

@@ -9,6 +9,7 @@
 
 #include "src_int.h"
 #include "squall/clock.h"
+#include "squall/file.h"
 #include "squall/err.h"
 #include "squall/watch.h"
 
@@ -25,6 +26,7 @@ typedef struct {
     results_cell_t *events; /* (phase, class, "2xx"): count = events; open, propagation */
     int streams;
     int64_t events_n, bytes, unparsed, oversize, server_errors, no_stamp, stamp_ahead;
+    int open_at_end, waiting_at_end; /* streams answered / sent but unanswered at the end */
 } wclass_t;
 
 typedef struct watches watches_t;
@@ -99,23 +101,16 @@ static int64_t files_needed(const plan_t *p, int watchers)
 /* Raises the soft open-files limit to the hard one and refuses a phase that needs more. */
 static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp)
 {
-    struct rlimit rl;
-    if (getrlimit(RLIMIT_NOFILE, &rl) != 0)
-        return 0;
-    if (rl.rlim_cur < rl.rlim_max) {
-        rl.rlim_cur = rl.rlim_max;
-        setrlimit(RLIMIT_NOFILE, &rl);
-        getrlimit(RLIMIT_NOFILE, &rl);
-    }
+    uint64_t limit = file_raise_limit();
     int64_t need = files_needed(ctx->plan, phase_watchers(pp));
-    if (rl.rlim_cur == RLIM_INFINITY || need <= (int64_t)rl.rlim_cur)
+    if (limit == 0 || (uint64_t)need <= limit)
         return 0;
     out_raw(ctx->o, OUT_ERROR,
             "%s:%d:%d: error: phase '%s' opens %d watches, which need about %lld open files "
             "over HTTP/%s, but this process may open at most %llu (RLIMIT_NOFILE hard limit); "
             "use fewer watches per process (shards), or http: \"2\" to multiplex streams",
             pp->pos.file, pp->pos.line, pp->pos.col, pp->name, phase_watchers(pp), (long long)need,
-            ctx->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1", (unsigned long long)rl.rlim_cur);
+            ctx->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1", (unsigned long long)limit);
     return SQ_ELIMIT;
 }
 
@@ -242,6 +237,15 @@ static void on_event(void *user, const watch_event_t *ev)
     hist_add(wc->events, RESULTS_M_PROPAGATION, d);
 }
 
+/* The target answered: the stream is open (its open latency still waits for the first byte). */
+static void on_head(void *user, long status)
+{
+    watcher_t *w = user;
+    obs_answered(w->ws->ctx.obs, (int64_t)uv_hrtime()); /* the target answers (brakes) */
+    if (status >= 200 && status < 300)
+        watch_stream_set(&w->st, WATCH_OPEN);
+}
+
 static int on_data(void *user, const char *data, size_t len)
 {
     watcher_t *w = user;
@@ -278,10 +282,11 @@ static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
     const char *headers[c->n_headers + 1];
     size_t nh = c->n_headers;
     memcpy(headers, c->headers, nh * sizeof(*headers));
+    char esc[3 * sizeof w->st.version + 1];
     int n;
-    if (w->st.has_version && !sse)
+    if (w->st.has_version && !sse && src_url_escape(w->st.version, esc, sizeof esc))
         n = snprintf(path, sizeof path, "%s%s%s=%s", w->path, strchr(w->path, '?') ? "&" : "?",
-                     RESUME_PARAM, w->st.version);
+                     RESUME_PARAM, esc);
     else
         n = snprintf(path, sizeof path, "%s", w->path);
     if (n < 0 || (size_t)n >= sizeof path)
@@ -297,6 +302,7 @@ static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
         .n_headers = nh,
         .intended_ns = intended,
         .on_data = on_data,
+        .on_head = on_head,
         .on_done = on_stream_done,
         .user = w,
     };
@@ -697,8 +703,9 @@ static json_t *class_json(watches_t *ws, const wclass_t *wc)
         dup += w->st.duplicates;
         over += w->fr.st.oversize;
     }
-    return json_pack("{s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}", "streams",
-                     wc->streams, "opens", (json_int_t)opens, "events", (json_int_t)wc->events_n,
+    return json_pack("{s:i,s:i,s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}",
+                     "streams", wc->streams, "open_at_end", wc->open_at_end, "waiting_at_end",
+                     wc->waiting_at_end, "opens", (json_int_t)opens, "events", (json_int_t)wc->events_n,
                      "bytes", (json_int_t)wc->bytes, "drops", (json_int_t)drops, "reconnects",
                      (json_int_t)reconnects, "relists", (json_int_t)relists, "too_old",
                      (json_int_t)too_old, "duplicates", (json_int_t)dup, "oversize",
@@ -745,8 +752,13 @@ static void watches_stop(void *self)
     if (!ws->active && !ws->eng)
         return;
     ws->active = false;
-    for (size_t i = 0; i < ws->n; i++)
+    for (size_t i = 0; i < ws->n; i++) {
+        /* A stream is open once the target answered it; one still waiting (in the server's
+         * accept backlog, say) is told apart, never counted as open. */
+        ws->w[i].wc->open_at_end += ws->w[i].st.state == WATCH_OPEN;
+        ws->w[i].wc->waiting_at_end += ws->w[i].st.state == WATCH_OPENING;
         watch_stream_set(&ws->w[i].st, WATCH_CLOSED);
+    }
     eng_free(ws->eng);
     ws->eng = NULL;
     json_t *ph = phase_json(ws);
