@@ -12,6 +12,7 @@ extern const cli_cmd_t cli_cmd_report;
 extern const cli_cmd_t cli_cmd_compare;
 extern const cli_cmd_t cli_cmd_profile;
 extern const cli_cmd_t cli_cmd_trend;
+extern const cli_cmd_t cli_cmd_envelope;
 
 const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_help,
@@ -25,5 +26,6 @@ const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_compare,
     &cli_cmd_profile,
     &cli_cmd_trend,
+    &cli_cmd_envelope,
     NULL,
 };
