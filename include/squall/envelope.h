@@ -56,9 +56,9 @@ typedef struct {
     int repeat; /* 1.. */
     enum envelope_verdict verdict;
     int exit_code;
-    char dir[1024];     /* its results directory */
-    char broke[256];    /* the first objective that failed, with its observed value; "" */
-    char limited[512];  /* INCONCLUSIVE: the first reason; ERROR: what went wrong; "" */
+    char dir[1024];    /* its results directory */
+    char broke[256];   /* the first objective that failed, with its observed value; "" */
+    char limited[512]; /* INCONCLUSIVE: the first reason; ERROR: what went wrong; "" */
 } envelope_run_t;
 
 /* Makes one run at values v (repeat 1..repeats) and fills *r (v, repeat are set already).
@@ -66,13 +66,13 @@ typedef struct {
 typedef int (*envelope_run_fn)(void *ctx, envelope_run_t *r);
 
 typedef struct {
-    double value;        /* the first dimension's value (2-D); NaN in a 1-D search */
-    double holds_up_to;  /* the largest holding value of the searched dimension; NaN none */
-    double fails_at;     /* the smallest non-holding value above it; NaN none found */
-    bool resolved;       /* fails_at - holds_up_to <= resolution, or holds at its TO */
-    bool searched;       /* false when skipped (a smaller column held nowhere) or stopped */
+    double value;       /* the first dimension's value (2-D); NaN in a 1-D search */
+    double holds_up_to; /* the largest holding value of the searched dimension; NaN none */
+    double fails_at;    /* the smallest non-holding value above it; NaN none found */
+    bool resolved;      /* fails_at - holds_up_to <= resolution, or holds at its TO */
+    bool searched;      /* false when skipped (a smaller column held nowhere) or stopped */
     enum envelope_verdict fails_how; /* the verdict of the point at fails_at */
-    char limited[512];   /* why the point at fails_at did not hold when not a FAIL */
+    char limited[512];               /* why the point at fails_at did not hold when not a FAIL */
 } envelope_column_t;
 
 typedef struct envelope envelope_t;

@@ -44,7 +44,8 @@ static const cli_opt_t envelope_opts[] = {
     [OPT_REPEATS] = {"repeats", 0, "N", "runs per point; it holds only if all pass (default 3)"},
     [OPT_STEPS] = {"steps", 0, "N", "values of the first of two dimensions (default 4)"},
     [OPT_COOL] = {"cool-down", 0, "DURATION", "pause between runs (default 5s)"},
-    [OPT_OUT] = {"out", 'o', "DIR", "where the search and its runs go (default results/envelope-<UTC time>)"},
+    [OPT_OUT] = {"out", 'o', "DIR",
+                 "where the search and its runs go (default results/envelope-<UTC time>)"},
     [OPT_SET] = {"set", 0, "KEY=VALUE", "override a plan value in every run"},
     [OPT_CONFIRM] = {"confirm-target", 0, NULL, "allow a target that is not loopback"},
     {NULL, 0, NULL, NULL},
@@ -109,8 +110,8 @@ static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void 
         return -1;
     case OPT_COOL:
         if (value_parse_duration(v, &ea->cool_ns))
-            return cli_usage_error(cmd, o, "--cool-down needs %s, got '%s'",
-                                   VALUE_DURATION_EXPECTS, v);
+            return cli_usage_error(cmd, o, "--cool-down needs %s, got '%s'", VALUE_DURATION_EXPECTS,
+                                   v);
         return -1;
     case OPT_OUT:
         ea->out = v;
@@ -141,8 +142,9 @@ static int check_args(const cli_cmd_t *cmd, env_args_t *ea, out_t *o)
         char *end;
         double r = strtod(ea->resolution, &end);
         if (end == ea->resolution || !(r > 0) || (*end && strcmp(end, d->suffix)))
-            return cli_usage_error(cmd, o, "--resolution needs a number above 0 (unit '%s'), "
-                                           "got '%s'",
+            return cli_usage_error(cmd, o,
+                                   "--resolution needs a number above 0 (unit '%s'), "
+                                   "got '%s'",
                                    d->suffix, ea->resolution);
         d->resolution = r;
     }
@@ -284,10 +286,11 @@ static int run_point(void *ctx, envelope_run_t *r)
     read_point(r, ea->o);
     out_info(ea->o, "envelope: run %d: %s %s%s%s -> %s", made, sets[0],
              ea->cfg.n_dims == 2 ? sets[1] : "", r->broke[0] ? ": " : "", r->broke,
-             r->verdict == ENVELOPE_PASS ? "pass" : r->verdict == ENVELOPE_FAIL ? "fail"
-             : r->verdict == ENVELOPE_INCONCLUSIVE                                ? "inconclusive"
-             : r->verdict == ENVELOPE_BRAKE                                       ? "brake"
-                                                                                  : "error");
+             r->verdict == ENVELOPE_PASS           ? "pass"
+             : r->verdict == ENVELOPE_FAIL         ? "fail"
+             : r->verdict == ENVELOPE_INCONCLUSIVE ? "inconclusive"
+             : r->verdict == ENVELOPE_BRAKE        ? "brake"
+                                                   : "error");
     return 0;
 }
 

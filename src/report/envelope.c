@@ -132,10 +132,10 @@ static bool search_column(envelope_t *e, envelope_column_t *col, double to, enve
     snprintf(col->limited, sizeof col->limited, "%s", hi_why);
     /* A boundary decided by an INCONCLUSIVE point is not known: it was squall (or too few
      * samples), not the target, that stopped the search there. */
-    col->resolved = isnan(hi) ? !isnan(lo)
-                              : hi_how != ENVELOPE_INCONCLUSIVE &&
-                                    (isnan(lo) || hi - lo <= d->resolution ||
-                                     rounded(d, (lo + hi) / 2) <= lo);
+    col->resolved =
+        isnan(hi) ? !isnan(lo)
+                  : hi_how != ENVELOPE_INCONCLUSIVE &&
+                        (isnan(lo) || hi - lo <= d->resolution || rounded(d, (lo + hi) / 2) <= lo);
     return true;
 stop:
     col->holds_up_to = lo;
@@ -248,8 +248,8 @@ int envelope_dim_parse(const char *text, envelope_dim_t *d, char *err, size_t ca
     copy[eq - text] = '\0';
     copy[dots - text] = '\0';
     const char *from = copy + (eq - text) + 1, *to = copy + (dots - text) + 2, *u1, *u2;
-    if (!number_unit(from, &d->from, &u1) || !number_unit(to, &d->to, &u2) ||
-        strcmp(u1, u2) != 0 || strlen(u1) > 16 || d->from <= 0 || d->to <= d->from) {
+    if (!number_unit(from, &d->from, &u1) || !number_unit(to, &d->to, &u2) || strcmp(u1, u2) != 0 ||
+        strlen(u1) > 16 || d->from <= 0 || d->to <= d->from) {
         snprintf(err, cap,
                  "expected FROM..TO with 0 < FROM < TO, both numbers with the same unit "
                  "(e.g. 50/s..800/s), got '%s'",

@@ -116,11 +116,10 @@ json_t *envelope_json(const envelope_t *e, const char *plan)
     const envelope_cfg_t *cfg = envelope_cfg(e);
     json_t *dims = json_array(), *cols = json_array();
     for (int d = 0; d < cfg->n_dims; d++)
-        json_array_append_new(dims, json_pack("{s:s, s:f, s:f, s:f, s:s}", "path",
-                                              cfg->dims[d].path, "from", cfg->dims[d].from, "to",
-                                              cfg->dims[d].to, "resolution",
-                                              cfg->dims[d].resolution, "unit",
-                                              cfg->dims[d].suffix));
+        json_array_append_new(
+            dims, json_pack("{s:s, s:f, s:f, s:f, s:s}", "path", cfg->dims[d].path, "from",
+                            cfg->dims[d].from, "to", cfg->dims[d].to, "resolution",
+                            cfg->dims[d].resolution, "unit", cfg->dims[d].suffix));
     for (size_t i = 0; i < envelope_column_count(e); i++) {
         const envelope_column_t *c = envelope_column_at(e, i);
         char text[1024];
@@ -135,8 +134,8 @@ json_t *envelope_json(const envelope_t *e, const char *plan)
     return json_pack("{s:s, s:i, s:s, s:o, s:i, s:i, s:I, s:b, s:s?, s:o, s:o}", "format",
                      "squall-envelope", "version", 1, "plan", plan, "dimensions", dims, "repeats",
                      cfg->repeats, "max_runs", cfg->max_runs, "runs_used",
-                     (json_int_t)envelope_run_count(e), "complete", envelope_complete(e),
-                     "stopped", envelope_stopped(e), "columns", cols, "runs", runs_json(e));
+                     (json_int_t)envelope_run_count(e), "complete", envelope_complete(e), "stopped",
+                     envelope_stopped(e), "columns", cols, "runs", runs_json(e));
 }
 
 /* CSV fields are quoted when they hold a comma, a quote or a newline (RFC 4180). */
@@ -184,8 +183,8 @@ static int fill_csv(FILE *f, void *ctx)
 /* ---- the page: x = the first dimension (2-D) or the run's value (1-D), y = the searched one
  * (2-D) or nothing; the safe zone is the area under each column's holding value. */
 
-#define W 720.0
-#define H 420.0
+#define W  720.0
+#define H  420.0
 #define ML 80.0
 #define MB 50.0
 #define MT 20.0
@@ -205,13 +204,13 @@ static double py(const frame_t *fr, double y)
     return H - MB - (y - fr->y0) / (fr->y1 - fr->y0) * (H - MB - MT);
 }
 
-static const char *const verdict_colour[] = {"#009E73", "#D55E00", "#E69F00", "#CC79A7",
-                                             "#000000"};
+static const char *const verdict_colour[] = {"#009E73", "#D55E00", "#E69F00", "#CC79A7", "#000000"};
 
 static void axes(FILE *f, const frame_t *fr, const envelope_cfg_t *cfg)
 {
-    fprintf(f, "<rect x=\"%g\" y=\"%g\" width=\"%g\" height=\"%g\" fill=\"none\" "
-               "stroke=\"#444\"/>\n",
+    fprintf(f,
+            "<rect x=\"%g\" y=\"%g\" width=\"%g\" height=\"%g\" fill=\"none\" "
+            "stroke=\"#444\"/>\n",
             ML, MT, W - ML - MR, H - MB - MT);
     for (int k = 0; k <= 4; k++) {
         double xv = fr->x0 + (fr->x1 - fr->x0) * k / 4, yv = fr->y0 + (fr->y1 - fr->y0) * k / 4;
@@ -254,8 +253,9 @@ static void zone(FILE *f, const envelope_t *e, const frame_t *fr)
             b = px(fr, fmin(fr->x1, c->value + half));
             top = py(fr, c->holds_up_to);
         }
-        fprintf(f, "<rect class=\"safe\" x=\"%.1f\" y=\"%.1f\" width=\"%.1f\" height=\"%.1f\" "
-                   "fill=\"#009E73\" fill-opacity=\"0.18\"/>\n",
+        fprintf(f,
+                "<rect class=\"safe\" x=\"%.1f\" y=\"%.1f\" width=\"%.1f\" height=\"%.1f\" "
+                "fill=\"#009E73\" fill-opacity=\"0.18\"/>\n",
                 a, top, b - a, bottom - top);
     }
 }
@@ -272,8 +272,9 @@ static void points(FILE *f, const envelope_t *e, const frame_t *fr, const char *
                               : r->dir;
         fputs("<a href=\"", f);
         html_esc(f, rel);
-        fprintf(f, "/report.html\"><circle class=\"point %s\" cx=\"%.1f\" cy=\"%.1f\" r=\"5\" "
-                   "fill=\"%s\"><title>run %zu: %s",
+        fprintf(f,
+                "/report.html\"><circle class=\"point %s\" cx=\"%.1f\" cy=\"%.1f\" r=\"5\" "
+                "fill=\"%s\"><title>run %zu: %s",
                 verdict_words[r->verdict], x, y, verdict_colour[r->verdict], i + 1,
                 verdict_words[r->verdict]);
         if (r->broke[0] || r->limited[0]) {

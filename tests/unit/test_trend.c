@@ -155,8 +155,9 @@ static void test_pelt_against_numpy(void **state)
                     ok = st[i] + 1 >= s[c].true_at[i] && st[i] <= s[c].true_at[i] + 1;
                 found_all += ok;
                 if (!ok)
-                    fprintf(stderr, "case %zu: n %zu, %zu known changes (first at %zu), %zu found\n",
-                            c, s[c].n, s[c].n_true, s[c].true_at[0], ns);
+                    fprintf(stderr,
+                            "case %zu: n %zu, %zu known changes (first at %zu), %zu found\n", c,
+                            s[c].n, s[c].n_true, s[c].true_at[0], ns);
             }
             if (k == 2 && s[c].n_true == 0)
                 assert_int_equal(ns, 0);
