@@ -44,7 +44,7 @@ static double rounded(const envelope_dim_t *d, double v)
 
 /* One point: up to `repeats` runs, stopping at the first that does not pass. */
 static enum point_result point(envelope_t *e, const double *v, envelope_column_t *col,
-                               envelope_run_fn run, void *ctx, int *err)
+                               envelope_run_fn make_run, void *ctx, int *err)
 {
     for (int k = 1; k <= e->cfg.repeats; k++) {
         if ((int)e->n_runs >= e->cfg.max_runs) {
@@ -63,7 +63,7 @@ static enum point_result point(envelope_t *e, const double *v, envelope_column_t
         memset(r, 0, sizeof(*r));
         memcpy(r->v, v, sizeof(r->v));
         r->repeat = k;
-        if ((*err = run(ctx, r)))
+        if ((*err = make_run(ctx, r)))
             return STOP;
         e->n_runs++;
         if (r->verdict == ENVELOPE_ERROR) {
@@ -85,8 +85,8 @@ static enum point_result point(envelope_t *e, const double *v, envelope_column_t
 
 /* Searches the last dimension in column col (the first dimension fixed at col->value in 2-D),
  * never above `to`. Returns false when the search must stop. */
-static bool search_column(envelope_t *e, envelope_column_t *col, double to, envelope_run_fn run,
-                          void *ctx, int *err)
+static bool search_column(envelope_t *e, envelope_column_t *col, double to,
+                          envelope_run_fn make_run, void *ctx, int *err)
 {
     const envelope_dim_t *d = &e->cfg.dims[e->cfg.n_dims - 1];
     double v[ENVELOPE_MAX_DIMS] = {col->value, 0}, lo = NAN, hi = NAN;
@@ -96,7 +96,7 @@ static bool search_column(envelope_t *e, envelope_column_t *col, double to, enve
     col->searched = true;
     *x = d->from;
     for (;;) { /* doubling */
-        enum point_result pr = point(e, v, col, run, ctx, err);
+        enum point_result pr = point(e, v, col, make_run, ctx, err);
         if (pr == STOP)
             goto stop;
         if (pr == NOT_HOLDS) {
@@ -115,7 +115,7 @@ static bool search_column(envelope_t *e, envelope_column_t *col, double to, enve
         if (mid <= lo || mid >= hi)
             break;
         *x = mid;
-        enum point_result pr = point(e, v, col, run, ctx, err);
+        enum point_result pr = point(e, v, col, make_run, ctx, err);
         if (pr == STOP)
             goto stop;
         if (pr == HOLDS) {
@@ -146,14 +146,14 @@ stop:
     return false;
 }
 
-int envelope_search(envelope_t *e, envelope_run_fn run, void *ctx)
+int envelope_search(envelope_t *e, envelope_run_fn make_run, void *ctx)
 {
     int err = 0;
     const envelope_dim_t *last = &e->cfg.dims[e->cfg.n_dims - 1];
     if (e->cfg.n_dims == 1) {
         e->n_cols = 1;
         e->cols[0] = (envelope_column_t){.value = NAN, .holds_up_to = NAN, .fails_at = NAN};
-        search_column(e, &e->cols[0], last->to, run, ctx, &err);
+        search_column(e, &e->cols[0], last->to, make_run, ctx, &err);
         return err;
     }
     const envelope_dim_t *first = &e->cfg.dims[0];
@@ -169,7 +169,7 @@ int envelope_search(envelope_t *e, envelope_run_fn run, void *ctx)
         *col = (envelope_column_t){.value = v, .holds_up_to = NAN, .fails_at = NAN};
         if (!go || none)
             continue;
-        go = search_column(e, col, to, run, ctx, &err);
+        go = search_column(e, col, to, make_run, ctx, &err);
         if (!isnan(col->fails_at))
             to = col->fails_at; /* a larger first value leaves no more room */
         none = isnan(col->holds_up_to) && go;
