@@ -180,8 +180,9 @@ const cli_cmd_t cli_cmd_trend = {
         "confidence (1 - p of the Mann-Whitney U test between the segments before and after).\n"
         "It is significant when p is below --false-alarm and the size passes compare's floors\n"
         "(1 ms at p50, 3 ms at p99 and p99.9, 1 point of error rate, and 10% of the value\n"
-        "before), also when no objective broke. Five runs on each side of a change are enough\n"
-        "for the default 1%; watch classes are left out.\n"
+        "before), also when no objective broke. Six runs on each side of a change are enough\n"
+        "for the default 1% (values tied at the histograms' resolution need the normal\n"
+        "approximation); watch classes are left out.\n"
         "Exit 0: no series ends in a significant change for the worse; 1: the newest segment of\n"
         "a series is one (slower or more errors); 2: usage mistake (or --strict and several\n"
         "groups); 6: a file could not be read or written.",

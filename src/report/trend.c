@@ -5,6 +5,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "compare_int.h"
 #include "squall/err.h"
 #include "squall/hist.h"
 #include "squall/trend.h"
@@ -73,23 +74,8 @@ static bool same_group(const results_t *a, const results_t *b)
     return same;
 }
 
-/* An error outcome as the judge counts it: anything but 2xx, 3xx and cancelled. */
-static bool is_error(const char *oc)
-{
-    return strcmp(oc, "2xx") && strcmp(oc, "3xx") && strcmp(oc, "cancelled");
-}
-
-static bool is_watch_class(const results_t *r, const char *cls)
-{
-    const json_t *list = json_object_get(results_section(r, "judgement"), "watch_classes"), *v;
-    size_t i;
-    json_array_foreach(list, i, v) if (json_string_value(v) &&
-                                       strcmp(json_string_value(v), cls) == 0) return true;
-    return false;
-}
-
-/* One run's four figures for (phase, cls): response p50, p99, p99.9 in ms over every outcome
- * but cancelled, and the error rate. NaN when the run has no such request. */
+/* One run's four figures for (phase, cls): response p50, p99, p99.9 in ms and the error rate,
+ * the whole-phase values `squall compare` reports (cmp_whole); NaN when the run has none. */
 static int run_figures(const results_t *r, const char *phase, const char *cls, double *v)
 {
     int64_t lo, hi;
@@ -98,23 +84,9 @@ static int run_figures(const results_t *r, const char *phase, const char *cls, d
     hist_t *h;
     if (hist_new(lo, hi, digits, &h))
         return SQ_ENOMEM;
-    int64_t errors = 0, all = 0;
-    for (size_t i = 0; i < results_cell_count(r); i++) {
-        results_cell_t *c = results_cell_at(r, i);
-        const char *oc = results_cell_outcome(c);
-        if (strcmp(results_cell_phase(c), phase) || strcmp(results_cell_class(c), cls) ||
-            !strcmp(oc, "cancelled"))
-            continue;
-        int64_t n = results_cell_counters(c)->count;
-        all += n;
-        errors += is_error(oc) ? n : 0;
-        const hist_t *rh = results_cell_hist_find(c, RESULTS_M_RESPONSE);
-        if (rh)
-            hist_merge(h, rh);
-    }
-    for (int m = 0; m < 3; m++)
-        v[m] = hist_count(h) ? (double)hist_value_at(h, metric_pct[m]) / 1e6 : NAN;
-    v[3] = all ? (double)errors / (double)all : NAN;
+    for (int m = 0; m < N_METRICS; m++)
+        if (!cmp_whole(r, phase, cls, RESULTS_M_RESPONSE, metric_pct[m], h, &v[m]))
+            v[m] = NAN;
     hist_free(h);
     return 0;
 }
@@ -241,7 +213,7 @@ static int fill_group(trend_t *t, trend_group_t *g, results_t *const *res)
     for (size_t r = 0; r < g->n_runs; r++)
         for (size_t i = 0; i < results_cell_count(res[r]); i++) {
             results_cell_t *c = results_cell_at(res[r], i);
-            if (is_watch_class(res[r], results_cell_class(c)))
+            if (cmp_is_watch(res[r], results_cell_phase(c), results_cell_class(c)))
                 continue;
             int rc = add_key(t, g, results_cell_phase(c), results_cell_class(c));
             if (rc)

@@ -4,6 +4,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "compare_int.h"
 #include "html_int.h"
 #include "squall/err.h"
 #include "squall/file.h"
@@ -22,24 +23,12 @@ static bool is_rate(const trend_series_t *s)
 
 static void value_text(const trend_series_t *s, double v, char *buf, size_t cap)
 {
-    if (isnan(v))
-        snprintf(buf, cap, "-");
-    else if (is_rate(s))
-        snprintf(buf, cap, "%.2f%%", v * 100);
-    else
-        snprintf(buf, cap, "%.2f ms", v);
+    cmp_value_text(is_rate(s), v, buf, cap);
 }
 
-/* "+5.10 ms (+85%)" or "+2.00 pt". */
 static void size_text(const trend_series_t *s, const trend_change_t *c, char *buf, size_t cap)
 {
-    double d = c->after - c->before;
-    if (is_rate(s))
-        snprintf(buf, cap, "%+.2f pt", d * 100);
-    else if (c->before > 0)
-        snprintf(buf, cap, "%+.2f ms (%+.0f%%)", d, 100 * d / c->before);
-    else
-        snprintf(buf, cap, "%+.2f ms", d);
+    cmp_change_text(is_rate(s), c->before, c->after - c->before, buf, cap);
 }
 
 static const char *change_word(const trend_series_t *s, const trend_change_t *c)
