@@ -89,10 +89,9 @@ static void header(FILE *f, const results_t *res)
             html_esc(f, json_string_value(v));
         }
         fputs(json_array_size(json_object_get(run, "overrides")) ? "</td></tr>\n"
-                                                                 : "none</td></tr>\n",
+                                                                   : "none</td></tr>\n",
               f);
-        snprintf(buf, sizeof buf, "%s (exit %lld)",
-                 jstr(run, "verdict") ? jstr(run, "verdict") : "?",
+        snprintf(buf, sizeof buf, "%s (exit %lld)", jstr(run, "verdict") ? jstr(run, "verdict") : "?",
                  (long long)json_integer_value(json_object_get(run, "exit_code")));
         kv(f, "verdict", buf);
     }
@@ -113,9 +112,9 @@ static void verdict(FILE *f, const results_t *res)
     }
     bool pass = !strcmp(v, "pass");
     fprintf(f, "<div class=\"banner %s\" id=\"verdict\">%s</div>\n", pass ? "good" : "bad",
-            pass                 ? "PASS: the planned load was offered and every objective held."
-            : !strcmp(v, "fail") ? "FAIL: at least one objective did not hold."
-                                 : "INCONCLUSIVE: the evidence cannot support a pass.");
+            pass                   ? "PASS: the planned load was offered and every objective held."
+            : !strcmp(v, "fail")   ? "FAIL: at least one objective did not hold."
+                                   : "INCONCLUSIVE: the evidence cannot support a pass.");
     static const char *const lists[] = {"reasons", "accepted"};
     for (size_t l = 0; l < 2; l++) {
         if (json_array_size(json_object_get(run, lists[l])) == 0)
@@ -170,8 +169,7 @@ static void generator(FILE *f, const results_t *res)
         fputs("<p class=\"note\">No generator section in results.json.</p></section>\n", f);
         return;
     }
-    json_t *gb = json_object_get(g, "generator_bound"),
-           *cb = json_object_get(g, "connection_bound");
+    json_t *gb = json_object_get(g, "generator_bound"), *cb = json_object_get(g, "connection_bound");
     double gs = jnum(gb, "seconds"), cs = jnum(cb, "seconds");
     if (gs > 0)
         fputs("<div class=\"banner bad\">GENERATOR-BOUND: squall itself fell behind its schedule "
@@ -203,8 +201,7 @@ static void generator(FILE *f, const results_t *res)
                 snprintf(buf + sizeof buf - 16, 16, " ...");
                 break;
             }
-            n += snprintf(buf + n, sizeof buf - (size_t)n, " %lld",
-                          (long long)json_integer_value(sec));
+            n += snprintf(buf + n, sizeof buf - (size_t)n, " %lld", (long long)json_integer_value(sec));
         }
         char key[64];
         snprintf(key, sizeof key, "%s seconds", kinds[b]);
