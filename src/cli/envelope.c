@@ -17,6 +17,7 @@
 #include "squall/cli.h"
 #include "squall/envelope.h"
 #include "squall/err.h"
+#include "squall/plan.h"
 #include "squall/results.h"
 #include "squall/value.h"
 
@@ -294,6 +295,41 @@ static int run_point(void *ctx, envelope_run_t *r)
     return 0;
 }
 
+/* Loads the plan with every --set and each dimension at `at` (FROM, then TO), exactly as each
+ * run will: a plan error stops the search before anything is sent. */
+static int check_plan(const env_args_t *ea, out_t *o)
+{
+    size_t n = ea->n_sets + (size_t)ea->cfg.n_dims;
+    plan_override_t *ov = calloc(n, sizeof(*ov));
+    char **copies = calloc(n, sizeof(*copies)), text[ENVELOPE_MAX_DIMS][600];
+    int rc = ov && copies ? 0 : SQ_ENOMEM;
+    for (int at = 0; rc == 0 && at < 2; at++) {
+        size_t k = 0;
+        for (int d = 0; d < ea->cfg.n_dims; d++) {
+            const envelope_dim_t *dim = &ea->cfg.dims[d];
+            char v[64];
+            envelope_value_text(dim, at ? dim->to : dim->from, v, sizeof v);
+            snprintf(text[d], sizeof text[d], "%s=%s", dim->path, v);
+            if (!rc)
+                rc = plan_override_split(text[d], &ov[k], &copies[k]);
+            k++;
+        }
+        for (size_t i = 0; i < ea->n_sets && !rc; i++, k++)
+            rc = plan_override_split(ea->sets[i], &ov[k], &copies[k]);
+        plan_t *p = NULL;
+        if (!rc)
+            rc = plan_load(ea->plan, ov, n, &p, o);
+        plan_free(p);
+        for (size_t i = 0; i < n; i++) {
+            free(copies[i]);
+            copies[i] = NULL;
+        }
+    }
+    free(ov);
+    free(copies);
+    return rc;
+}
+
 /* 0 when every column was resolved; 3 stopped by brakes; a failed run's own exit code (2, 4,
  * 5, 6); 7 when the budget or an INCONCLUSIVE point left the answer unresolved. */
 static int exit_code(const envelope_t *e, int rc)
@@ -325,6 +361,10 @@ static int envelope_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     if (code < 0)
         code = check_args(cmd, &ea, o);
     if (code >= 0)
+        goto out;
+    int err = check_plan(&ea, o);
+    code = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+    if (err)
         goto out;
     code = SQ_EXIT_FAILURE;
     if (make_dirs(&ea, o) || envelope_new(&ea.cfg, &e))

@@ -144,7 +144,7 @@ static void plot_key(FILE *f, const trend_group_t *g, const trend_series_t *s)
     double *x = calloc(n, sizeof(*x)), ox[2] = {1, (double)n}, oy[3][2];
     html_line_t lines[6];
     html_mark_t marks[64];
-    char labels[64][48], olab[3][48];
+    char labels[64][96], olab[3][48];
     size_t nl = 0, nm = 0;
     if (!x)
         return;
@@ -154,11 +154,20 @@ static void plot_key(FILE *f, const trend_group_t *g, const trend_series_t *s)
         if (m < 3)
             lines[nl++] =
                 (html_line_t){.x = x, .y = s[m].values, .n = n, .label = s[m].metric, .style = m};
-        for (size_t c = 0; c < s[m].n_changes && nm < 64; c++, nm++) {
-            snprintf(labels[nm], sizeof labels[nm], "%s%s", m == 3 ? "errors" : s[m].metric,
+        for (size_t c = 0; c < s[m].n_changes; c++) {
+            /* Changes of several metrics between the same two runs share one mark. */
+            double at = (double)s[m].changes[c].first + 0.5;
+            size_t k = 0;
+            while (k < nm && marks[k].x != at)
+                k++;
+            if (k == nm && nm == 64)
+                continue;
+            size_t used = k < nm ? strlen(labels[k]) : 0;
+            snprintf(labels[k] + used, sizeof labels[k] - used, "%s%s%s", used ? ", " : "",
+                     m == 3 ? "errors" : s[m].metric,
                      s[m].changes[c].significant ? (s[m].changes[c].worse ? " up" : " down") : "?");
-            marks[nm] =
-                (html_mark_t){.x = (double)s[m].changes[c].first + 0.5, .label = labels[nm]};
+            marks[k] = (html_mark_t){.x = at, .label = labels[k]};
+            nm += k == nm;
         }
     }
     for (int m = 0; m < 3; m++)
