@@ -66,12 +66,13 @@ typedef struct {
 static volatile sig_atomic_t stop_signal;
 static volatile pid_t child_pid;
 
-/* A signal stops the search after the current run; the run itself gets it too (a terminal's
- * SIGINT reaches the whole process group; anything else is passed on). */
+/* A signal stops the search after the current run. A terminal's SIGINT reaches the run too (one
+ * process group), so it is not passed on: a second SIGINT would stop the run at once, without
+ * its grace. SIGTERM is passed on. */
 static void on_signal(int sig)
 {
     stop_signal = sig;
-    if (child_pid > 0)
+    if (child_pid > 0 && sig == SIGTERM)
         kill(child_pid, sig);
 }
 

@@ -132,10 +132,11 @@ static bool search_column(envelope_t *e, envelope_column_t *col, double to,
     snprintf(col->limited, sizeof col->limited, "%s", hi_why);
     /* A boundary decided by an INCONCLUSIVE point is not known: it was squall (or too few
      * samples), not the target, that stopped the search there. */
-    col->resolved =
-        isnan(hi) ? !isnan(lo)
-                  : hi_how != ENVELOPE_INCONCLUSIVE &&
-                        (isnan(lo) || hi - lo <= d->resolution || rounded(d, (lo + hi) / 2) <= lo);
+    col->resolved = isnan(hi)
+                        ? !isnan(lo)
+                        : hi_how != ENVELOPE_INCONCLUSIVE &&
+                              (isnan(lo) || hi - lo <= d->resolution ||
+                               rounded(d, (lo + hi) / 2) <= lo || rounded(d, (lo + hi) / 2) >= hi);
     return true;
 stop:
     col->holds_up_to = lo;

@@ -183,6 +183,19 @@ static void test_staircase(void **state)
     envelope_free(e);
 }
 
+/* Whole values one apart cannot be bisected further: resolved even below a resolution of 1. */
+static void test_integer_step(void **state)
+{
+    (void)state;
+    envelope_cfg_t c = cfg1(1, 100, 0.5, 1, 100);
+    fake_t f = {.limit = 37, .dims = 1, .over = ENVELOPE_FAIL};
+    envelope_t *e = search(&c, &f);
+    const envelope_column_t *col = envelope_column_at(e, 0);
+    assert_true(col->holds_up_to == 37 && col->fails_at == 38 && col->resolved);
+    assert_true(envelope_complete(e));
+    envelope_free(e);
+}
+
 static void test_dim_parse(void **state)
 {
     (void)state;
@@ -213,6 +226,7 @@ int main(void)
         cmocka_unit_test(test_inconclusive),
         cmocka_unit_test(test_brakes_and_budget),
         cmocka_unit_test(test_staircase),
+        cmocka_unit_test(test_integer_step),
         cmocka_unit_test(test_dim_parse),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
