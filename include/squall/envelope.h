@@ -11,8 +11,8 @@
  * the second is searched as above, never above the previous column's first non-holding value
  * (more of the first dimension is assumed to leave no more room for the second), and once a
  * column does not hold at the second's FROM the larger columns are not searched: the safe zone
- * is a staircase. The search stops when `max_runs` runs were made, or at the run whose brakes
- * fired for the second time in the search.
+ * is a staircase. The search stops when `max_runs` runs were made, at the run whose brakes
+ * fired for the second time in the search, or at a run that left objects on the target.
  * How a run is made is the caller's (envelope_run_fn): this file only decides where to look. */
 #ifndef SQUALL_ENVELOPE_H
 #define SQUALL_ENVELOPE_H
@@ -56,6 +56,7 @@ typedef struct {
     int repeat; /* 1.. */
     enum envelope_verdict verdict;
     int exit_code;
+    long long left;    /* objects its teardown did not delete (lifecycle.teardown): stops it */
     char dir[1024];    /* its results directory */
     char broke[256];   /* the first objective that failed, with its observed value; "" */
     char limited[512]; /* INCONCLUSIVE: the first reason; ERROR: what went wrong; "" */

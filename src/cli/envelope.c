@@ -207,6 +207,11 @@ static void read_point(envelope_run_t *r, out_t *o)
                  json_number_value(json_object_get(c, "observed")),
                  json_string_value(json_object_get(c, "unit")));
     }
+    const json_t *td = json_object_get(results_section(res, "lifecycle"), "teardown");
+    if (json_is_object(td) && !json_is_true(json_object_get(td, "kept")))
+        r->left = (long long)(json_integer_value(json_object_get(td, "left")) +
+                              json_integer_value(json_object_get(td, "failed")) +
+                              json_integer_value(json_object_get(td, "not_tried")));
     why = json_array_get(json_object_get(results_section(res, "run"), "reasons"), 0);
     if (r->verdict == ENVELOPE_INCONCLUSIVE && json_string_value(why))
         snprintf(r->limited, sizeof r->limited, "%s", json_string_value(why));
@@ -404,8 +409,9 @@ const cli_cmd_t cli_cmd_envelope = {
         "are --resolution apart. Two --vary: the first takes --steps values from FROM to TO; for\n"
         "each, the second is searched as above, never above the first non-holding value of the\n"
         "column before (more of the first is taken to leave no more room for the second): the\n"
-        "safe zone is a staircase. The search stops after --max-runs runs, or at the run whose\n"
-        "brakes fired for the second time in the search.\n"
+        "safe zone is a staircase. The search stops after --max-runs runs, at the run whose\n"
+        "brakes fired for the second time in the search, or at a run that left objects on the\n"
+        "target (`squall cleanup` its directory).\n"
         "Writes DIR/envelope.json (format squall-envelope, version 1: every run with its verdict,\n"
         "the first objective that broke and its observed value, and its results directory),\n"
         "DIR/envelope.csv, DIR/envelope.html (the safe zone drawn, every run linked to its\n"

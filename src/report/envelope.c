@@ -70,6 +70,10 @@ static enum point_result point(envelope_t *e, const double *v, envelope_column_t
             e->stopped = "a run ended in error (see its exit code)";
             return STOP;
         }
+        if (r->left > 0) {
+            e->stopped = "a run left objects on the target (squall cleanup its directory)";
+            return STOP;
+        }
         if (r->verdict == ENVELOPE_PASS)
             continue;
         col->fails_how = r->verdict;

@@ -101,12 +101,12 @@ static json_t *runs_json(const envelope_t *e)
         json_t *vals = json_array();
         for (int d = 0; d < cfg->n_dims; d++)
             json_array_append_new(vals, json_real(r->v[d]));
-        json_array_append_new(a, json_pack("{s:I, s:o, s:i, s:s, s:i, s:s, s:s?, s:s?}", "run",
+        json_array_append_new(a, json_pack("{s:I, s:o, s:i, s:s, s:i, s:I, s:s, s:s?, s:s?}", "run",
                                            (json_int_t)i + 1, "values", vals, "repeat", r->repeat,
                                            "verdict", verdict_words[r->verdict], "exit_code",
-                                           r->exit_code, "dir", r->dir, "broke",
-                                           r->broke[0] ? r->broke : NULL, "limited",
-                                           r->limited[0] ? r->limited : NULL));
+                                           r->exit_code, "objects_left", (json_int_t)r->left, "dir",
+                                           r->dir, "broke", r->broke[0] ? r->broke : NULL,
+                                           "limited", r->limited[0] ? r->limited : NULL));
     }
     return a;
 }

@@ -22,6 +22,7 @@ typedef struct {
     int dims;
     enum envelope_verdict over; /* the verdict above the limit */
     double flaky_at;            /* this value fails on its second repeat */
+    double leaves_at;           /* a run at this value leaves objects behind */
     int calls;
 } fake_t;
 
@@ -35,6 +36,7 @@ static int fake_run(void *ctx, envelope_run_t *r)
         r->verdict = ENVELOPE_FAIL;
     if (r->verdict == ENVELOPE_INCONCLUSIVE)
         snprintf(r->limited, sizeof r->limited, "squall could not offer the planned load");
+    r->left = r->v[0] == f->leaves_at ? 3 : 0;
     snprintf(r->dir, sizeof r->dir, "points/%03d", f->calls);
     return 0;
 }
@@ -136,6 +138,13 @@ static void test_brakes_and_budget(void **state)
     assert_string_equal(envelope_stopped(e), "brakes fired twice");
     assert_true(envelope_run_at(e, envelope_run_count(e) - 1)->verdict == ENVELOPE_BRAKE);
     assert_int_equal(envelope_run_count(e), 7);
+    envelope_free(e);
+
+    /* A run that left objects behind stops the search at once. */
+    f = (fake_t){.limit = 137, .dims = 1, .over = ENVELOPE_FAIL, .leaves_at = 40};
+    e = search(&c, &f);
+    assert_non_null(strstr(envelope_stopped(e), "left objects"));
+    assert_int_equal(envelope_run_count(e), 3);
     envelope_free(e);
 
     c = cfg1(10, 1000, 5, 1, 4);
