@@ -9,6 +9,7 @@
 # with serving (measured: 50.5-51 ms on these machines), so the boundary is computed for a service
 # time of 50 ms and of 51.5 ms, and the found one must lie within the resolution of that band:
 #   1-D: rate, L = 70 ms, 2 s phases;
+#   teardown: a creating plan's runs each delete what they made (the target's /stats);
 #   2-D: phase duration x rate, L = 450 ms: a short phase tolerates a short overload, so the
 #        largest holding rate falls as the duration grows (a staircase).
 set -uo pipefail
@@ -94,6 +95,34 @@ p = P(); p.feed(open('$T/one/envelope.html').read())
 print(p.safe == 1 and len(p.links) == $(got "len(d['runs'])") and
       all(os.path.exists(os.path.join('$T/one', l)) for l in p.links))")" = True
 expect "the target served everything: no request left queued" test "$(serve_stats "s['inflight']")" = 0
+
+# --- Teardown between points: a plan that creates objects --------------------------------
+# Each point's run deletes what it created before the next starts: the target's own object
+# count (/stats, an outside view) is back to the one object it held, and every run's
+# lifecycle.teardown deleted all it created.
+cat >"$T/make.yaml" <<YAML
+target: {url: "$SERVE_URL", connections: 200, timeout: 10s}
+requests:
+  make: {kind: write, method: PUT, path: "/v1/sites/north/made/gw-{{seq}}", body: '{"m":1}',
+         creates: true}
+phases:
+  - {name: steady, rate: 100/s, duration: 1s, mix: {make: 1}}
+objectives:
+  - {class: make, p99: 70ms}
+YAML
+timeout 120 "$SQUALL" envelope "$T/make.yaml" --vary phases.steady.rate=100/s..400/s \
+    --resolution 100/s --repeats 1 --max-runs 3 --cool-down 0s -o "$T/make" \
+    >"$T/make.out" 2>"$T/make.err"
+J="$T/make/envelope.json"
+expect "creating plan: three runs, no objects left in any" \
+    test "$(got "[r['objects_left'] for r in d['runs']]")" = "[0, 0, 0]"
+expect "each run deleted every object it created (its results.json)" \
+    test "$(run_py "ok = True
+for r in d['runs']:
+    lc = json.load(open(r['dir'] + '/results.json'))['sections']['lifecycle']
+    ok &= lc['created'] > 0 and lc['teardown']['deleted'] == lc['created']
+print(ok)")" = True
+expect "the target holds only its one object again (its /stats)" test "$(serve_stats "s['objects']")" = 1
 
 # --- 2-D: duration x rate ------------------------------------------------------------------
 plan "$T/two.yaml" 450
