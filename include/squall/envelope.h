@@ -3,13 +3,15 @@
  *
  * Concepts. A *dimension* is a plan value --set can address (phases.steady.rate) searched from
  * FROM to TO, never beyond TO. A *point* is one value per dimension; it *holds* only when every
- * one of its runs (up to `repeats`, stopping at the first that does not pass) passed. A run that
- * is INCONCLUSIVE never holds: the answer says what limited it. One dimension: doubling from
+ * one of its runs (up to `repeats`, stopping at the first that does not pass) passed. A point's
+ * first INCONCLUSIVE run is run again once; a point that stays INCONCLUSIVE never holds: the
+ * answer says what limited it. One dimension: doubling from
  * FROM until a point does not hold (or TO holds), then bisection between the last holding and
  * the first non-holding value until they are at most `resolution` apart. Two dimensions: the
  * first takes `steps` evenly spaced values from its FROM to TO (a *column* each); in each column
- * the second is searched as above, never above the previous column's first non-holding value
- * (more of the first dimension is assumed to leave no more room for the second), and once a
+ * the second is searched as above, first up to the previous column's first non-holding value
+ * (more of the first dimension is assumed to leave no more room for the second; a column that
+ * holds there goes on towards TO), and once a
  * column does not hold at the second's FROM the larger columns are not searched: the safe zone
  * is a staircase. The search stops when `max_runs` runs were made, at the run whose brakes
  * fired for the second time in the search, or at a run that left objects on the target.

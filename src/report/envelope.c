@@ -42,10 +42,13 @@ static double rounded(const envelope_dim_t *d, double v)
     return d->integer ? floor(v + 0.5) : v;
 }
 
-/* One point: up to `repeats` runs, stopping at the first that does not pass. */
+/* One point: up to `repeats` runs, stopping at the first that does not pass. An INCONCLUSIVE
+ * run says nothing about the target (squall fell behind, or too few samples), so the point's
+ * first one is run again once; a second makes the point INCONCLUSIVE. */
 static enum point_result point(envelope_t *e, const double *v, envelope_column_t *col,
                                envelope_run_fn make_run, void *ctx, int *err)
 {
+    bool retried = false;
     for (int k = 1; k <= e->cfg.repeats; k++) {
         if ((int)e->n_runs >= e->cfg.max_runs) {
             e->stopped = "max-runs reached";
@@ -76,6 +79,11 @@ static enum point_result point(envelope_t *e, const double *v, envelope_column_t
         }
         if (r->verdict == ENVELOPE_PASS)
             continue;
+        if (r->verdict == ENVELOPE_INCONCLUSIVE && !retried) {
+            retried = true;
+            k--;
+            continue;
+        }
         col->fails_how = r->verdict;
         snprintf(col->limited, sizeof col->limited, "%s", r->limited);
         if (r->verdict == ENVELOPE_BRAKE && ++e->brakes >= 2) {
@@ -110,7 +118,11 @@ static bool search_column(envelope_t *e, envelope_column_t *col, double to,
             break;
         }
         lo = *x;
-        if (*x >= to)
+        /* Holding at the cap a smaller column set (below TO) means that column's limit does
+         * not bound this one: go on towards TO. */
+        if (*x >= to && to < d->to)
+            to = d->to;
+        else if (*x >= to)
             break;
         *x = fmin(rounded(d, 2 * *x), to);
     }

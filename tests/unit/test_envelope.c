@@ -18,11 +18,12 @@
 #include "squall/err.h"
 
 typedef struct {
-    double limit; /* 1-D: holds while v <= limit; 2-D: while x + y <= limit */
-    int dims;
+    double limit;               /* holds while the load (dims) <= limit */
+    int dims;                   /* 1: v; 2: x + y; 3: y - x */
     enum envelope_verdict over; /* the verdict above the limit */
     double flaky_at;            /* this value fails on its second repeat */
     double leaves_at;           /* a run at this value leaves objects behind */
+    double once_at;             /* the first run at this value is INCONCLUSIVE */
     int calls;
 } fake_t;
 
@@ -30,13 +31,17 @@ static int fake_run(void *ctx, envelope_run_t *r)
 {
     fake_t *f = ctx;
     f->calls++;
-    double load = f->dims == 1 ? r->v[0] : r->v[0] + r->v[1];
+    double load = f->dims == 1 ? r->v[0] : f->dims == 2 ? r->v[0] + r->v[1] : r->v[1] - r->v[0];
     r->verdict = load <= f->limit ? ENVELOPE_PASS : f->over;
     if (f->dims == 1 && r->v[0] == f->flaky_at && r->repeat == 2)
         r->verdict = ENVELOPE_FAIL;
     if (r->verdict == ENVELOPE_INCONCLUSIVE)
         snprintf(r->limited, sizeof r->limited, "squall could not offer the planned load");
     r->left = r->v[0] == f->leaves_at ? 3 : 0;
+    if (r->v[0] == f->once_at && r->verdict == ENVELOPE_PASS) {
+        r->verdict = ENVELOPE_INCONCLUSIVE;
+        f->once_at = -1;
+    }
     snprintf(r->dir, sizeof r->dir, "points/%03d", f->calls);
     return 0;
 }
@@ -124,6 +129,28 @@ static void test_inconclusive(void **state)
     assert_false(col->resolved);
     assert_false(envelope_complete(e));
     assert_non_null(strstr(col->limited, "could not offer"));
+    /* Each INCONCLUSIVE point was run twice in a row. */
+    size_t n = envelope_run_count(e), pairs = 0;
+    for (size_t i = 0; i + 1 < n; i++) {
+        const envelope_run_t *a = envelope_run_at(e, i), *b = envelope_run_at(e, i + 1);
+        if (a->verdict == ENVELOPE_INCONCLUSIVE) {
+            assert_true(b->verdict == ENVELOPE_INCONCLUSIVE && b->v[0] == a->v[0]);
+            pairs++;
+            i++;
+        }
+    }
+    assert_true(pairs >= 2);
+    envelope_free(e);
+
+    /* Once INCONCLUSIVE, then a pass: the point holds; the search resolves as without it. */
+    c = cfg1(10, 1000, 5, 1, 100);
+    f = (fake_t){.limit = 137, .dims = 1, .over = ENVELOPE_FAIL, .once_at = 40};
+    e = search(&c, &f);
+    col = envelope_column_at(e, 0);
+    assert_true(envelope_run_at(e, 2)->verdict == ENVELOPE_INCONCLUSIVE &&
+                envelope_run_at(e, 3)->v[0] == 40 &&
+                envelope_run_at(e, 3)->verdict == ENVELOPE_PASS);
+    assert_true(col->resolved && col->holds_up_to > 132 && col->holds_up_to <= 137);
     envelope_free(e);
 }
 
@@ -183,6 +210,18 @@ static void test_staircase(void **state)
             assert_true(r->v[1] <= envelope_column_at(e, r->v[0] == 150 ? 0 : 1)->fails_at);
     }
     assert_true(envelope_complete(e));
+    envelope_free(e);
+
+    /* A column that holds at the cap the one before set goes on towards TO: the limit here
+     * does not fall with the first value (x - y <= 0 holds more as x grows), so each column's
+     * boundary is still found. */
+    f = (fake_t){.limit = 0, .dims = 3, .over = ENVELOPE_FAIL};
+    e = search(&c, &f);
+    for (size_t i = 0; i < 3; i++) {
+        const envelope_column_t *col = envelope_column_at(e, i);
+        assert_true(col->resolved && col->holds_up_to <= col->value &&
+                    col->holds_up_to > col->value - 5);
+    }
     envelope_free(e);
 
     /* Once a column holds nowhere, larger ones are not searched. */
