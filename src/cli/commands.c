@@ -13,6 +13,8 @@ extern const cli_cmd_t cli_cmd_compare;
 extern const cli_cmd_t cli_cmd_profile;
 extern const cli_cmd_t cli_cmd_completion;
 extern const cli_cmd_t cli_cmd_version;
+extern const cli_cmd_t cli_cmd_trend;
+extern const cli_cmd_t cli_cmd_envelope;
 
 const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_help,
@@ -27,5 +29,7 @@ const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_profile,
     &cli_cmd_completion,
     &cli_cmd_version,
+    &cli_cmd_trend,
+    &cli_cmd_envelope,
     NULL,
 };

@@ -47,6 +47,10 @@ bool cmp_is_watch(const results_t *r, const char *phase, const char *cls);
 size_t cmp_streams(const results_t *r, const char *phase, const char *cls);
 /* The seconds phase ran (the "phases" section, else its seconds in series.csv); 0 unknown. */
 size_t cmp_phase_seconds(const results_t *r, const report_series_t *s, const char *phase);
+/* compare_out.c, also for trend's outputs: a value as "-", "1.23%" (a rate) or "4.56 ms", and
+ * a change d from base as "+1.00 pt", "+5.10 ms (+85%)" or "+5.10 ms". */
+void cmp_value_text(bool rate, double v, char *buf, size_t cap);
+void cmp_change_text(bool rate, double base, double d, char *buf, size_t cap);
 /* The merged histogram of metric m of (phase, cls) into h; false when none was recorded. */
 bool cmp_hist(const results_t *r, const char *phase, const char *cls, int m, hist_t *h);
 

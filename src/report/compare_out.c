@@ -33,27 +33,36 @@ static void metric_text(const report_cmp_line_t *l, char *buf, size_t cap)
         snprintf(buf, cap, "%s", l->metric);
 }
 
-static void value(const report_cmp_line_t *l, double v, char *buf, size_t cap)
+void cmp_value_text(bool rate, double v, char *buf, size_t cap)
 {
     if (isnan(v))
         snprintf(buf, cap, "-");
-    else if (is_err(l))
+    else if (rate)
         snprintf(buf, cap, "%.2f%%", v * 100);
     else
         snprintf(buf, cap, "%.2f ms", v);
 }
 
-static void change(const report_cmp_line_t *l, char *buf, size_t cap)
+void cmp_change_text(bool rate, double base, double d, char *buf, size_t cap)
 {
-    double d = l->new_value - l->base;
     if (isnan(d))
         snprintf(buf, cap, "-");
-    else if (is_err(l))
+    else if (rate)
         snprintf(buf, cap, "%+.2f pt", d * 100);
-    else if (l->base > 0)
-        snprintf(buf, cap, "%+.2f ms (%+.0f%%)", d, 100 * d / l->base);
+    else if (base > 0)
+        snprintf(buf, cap, "%+.2f ms (%+.0f%%)", d, 100 * d / base);
     else
         snprintf(buf, cap, "%+.2f ms", d);
+}
+
+static void value(const report_cmp_line_t *l, double v, char *buf, size_t cap)
+{
+    cmp_value_text(is_err(l), v, buf, cap);
+}
+
+static void change(const report_cmp_line_t *l, char *buf, size_t cap)
+{
+    cmp_change_text(is_err(l), l->base, l->new_value - l->base, buf, cap);
 }
 
 static void samples_text(const report_cmp_line_t *l, char *buf, size_t cap)

@@ -1,0 +1,357 @@
+/* `squall trend`'s model: runs grouped by plan, overrides and version, ordered by start time,
+ * one series per (phase, class) and metric, and each series' change points (trend_pelt.c)
+ * with their size and confidence. */
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "compare_int.h"
+#include "squall/err.h"
+#include "squall/hist.h"
+#include "squall/trend.h"
+
+#define N_METRICS 4
+static const char *const metric_names[N_METRICS] = {"p50", "p99", "p99.9", "error_rate"};
+static const double metric_pct[N_METRICS] = {50, 99, 99.9, -1};
+
+struct trend {
+    trend_group_t *groups;
+    size_t n_groups;
+    char **strings; /* every string the groups point at */
+    size_t n_strings, cap_strings;
+    report_cmp_opts_t opts;
+};
+
+static const char *keep(trend_t *t, const char *s)
+{
+    if (!s)
+        s = "";
+    if (t->n_strings == t->cap_strings) {
+        size_t cap = t->cap_strings ? 2 * t->cap_strings : 64;
+        char **v = realloc(t->strings, cap * sizeof(*v));
+        if (!v)
+            return NULL;
+        t->strings = v;
+        t->cap_strings = cap;
+    }
+    char *c = strdup(s);
+    if (c)
+        t->strings[t->n_strings++] = c;
+    return c;
+}
+
+/* The --set overrides of a run ("" when none or unknown), space-separated. */
+static char *overrides_text(const results_t *r)
+{
+    const json_t *list = json_object_get(results_section(r, "run"), "overrides"), *v;
+    size_t i, len = 1;
+    json_array_foreach(list, i, v) len +=
+        strlen(json_string_value(v) ? json_string_value(v) : "") + 1;
+    char *s = calloc(1, len);
+    json_array_foreach(list, i, v)
+    {
+        if (!s)
+            break;
+        if (i)
+            strcat(s, " ");
+        strcat(s, json_string_value(v) ? json_string_value(v) : "");
+    }
+    return s;
+}
+
+/* The grouping key of a run: plan bytes, overrides, version. */
+static bool same_group(const results_t *a, const results_t *b)
+{
+    const results_meta_t *ma = results_meta(a), *mb = results_meta(b);
+    char *oa = overrides_text(a), *ob = overrides_text(b);
+    bool same = oa && ob && strcmp(oa, ob) == 0 &&
+                strcmp(ma->plan_sha256 ? ma->plan_sha256 : "",
+                       mb->plan_sha256 ? mb->plan_sha256 : "") == 0 &&
+                strcmp(ma->squall_version ? ma->squall_version : "",
+                       mb->squall_version ? mb->squall_version : "") == 0;
+    free(oa);
+    free(ob);
+    return same;
+}
+
+/* One run's four figures for (phase, cls): response p50, p99, p99.9 in ms and the error rate,
+ * the whole-phase values `squall compare` reports (cmp_whole); NaN when the run has none. */
+static int run_figures(const results_t *r, const char *phase, const char *cls, double *v)
+{
+    int64_t lo, hi;
+    int digits;
+    results_hist_config(r, &lo, &hi, &digits);
+    hist_t *h;
+    if (hist_new(lo, hi, digits, &h))
+        return SQ_ENOMEM;
+    for (int m = 0; m < N_METRICS; m++)
+        if (!cmp_whole(r, phase, cls, RESULTS_M_RESPONSE, metric_pct[m], h, &v[m]))
+            v[m] = NAN;
+    hist_free(h);
+    return 0;
+}
+
+/* The plan's tightest limit on metric m of (phase, cls), from the judgement section; NaN none. */
+static double objective_of(const results_t *r, const char *phase, const char *cls, int m)
+{
+    const json_t *j = results_section(r, "judgement"), *o;
+    double best = NAN;
+    size_t i;
+    json_array_foreach(json_object_get(j, "objectives"), i, o)
+    {
+        const char *oc = json_string_value(json_object_get(o, "class"));
+        const char *op = json_string_value(json_object_get(o, "phase"));
+        const char *metric = json_string_value(json_object_get(o, "metric"));
+        const char *limit = json_string_value(json_object_get(o, "limit"));
+        if (!oc || !limit || (strcmp(oc, "*") && strcmp(oc, cls)) || (op && strcmp(op, phase)))
+            continue;
+        double v = NAN;
+        if (m < 3 && !strcmp(limit, "percentile") && metric && !strcmp(metric, "response") &&
+            fabs(json_number_value(json_object_get(o, "percentile")) - metric_pct[m]) < 1e-9)
+            v = json_number_value(json_object_get(o, "max_ms"));
+        else if (m == 3 && !strcmp(limit, "error-rate"))
+            v = json_number_value(json_object_get(o, "value"));
+        if (!isnan(v) && (isnan(best) || v < best))
+            best = v;
+    }
+    if (m == 3 && isnan(best) && json_is_number(json_object_get(j, "default_error_rate")))
+        best = json_number_value(json_object_get(j, "default_error_rate"));
+    return best;
+}
+
+/* The absolute floor a change of metric m must pass (compare's floors). */
+static double abs_floor(const report_cmp_opts_t *o, int m)
+{
+    return m == 0 ? o->min_abs_ms : m < 3 ? o->min_tail_ms : o->min_abs_err;
+}
+
+static double mean_of(const double *x, size_t a, size_t b)
+{
+    double s = 0;
+    for (size_t i = a; i < b; i++)
+        s += x[i];
+    return s / (double)(b - a);
+}
+
+/* The change points of one series and their size, confidence and significance. The noise is
+ * at least half the floor, so that a series steadier than the machine's resolution is not
+ * split on differences too small to ever count. */
+static int find_changes(trend_series_t *s, size_t n, int m, const report_cmp_opts_t *o)
+{
+    double *x = malloc((n + 1) * sizeof(*x));
+    size_t *idx = malloc((n + 1) * sizeof(*idx)), *st = malloc((n + 1) * sizeof(*st));
+    size_t k = 0, ns = 0;
+    int rc = SQ_ENOMEM;
+    if (!x || !idx || !st)
+        goto out;
+    for (size_t i = 0; i < n; i++)
+        if (!isnan(s->values[i])) {
+            idx[k] = i;
+            x[k++] = s->values[i];
+        }
+    s->sigma = trend_sigma(x, k, abs_floor(o, m) / 2);
+    if ((rc = trend_pelt(x, k, s->sigma, trend_penalty(k), TREND_MIN_SEGMENT, st, &ns)) || ns == 0)
+        goto out;
+    rc = SQ_ENOMEM;
+    if (!(s->changes = calloc(ns, sizeof(*s->changes))))
+        goto out;
+    for (size_t c = 0; c < ns; c++) {
+        size_t a = c ? st[c - 1] : 0, b = st[c], e = c + 1 < ns ? st[c + 1] : k;
+        trend_change_t *ch = &s->changes[c];
+        report_mw_t mw;
+        if ((rc = report_mann_whitney(x + b, e - b, x + a, b - a, &mw)))
+            goto out;
+        ch->first = idx[b];
+        ch->before = mean_of(x, a, b);
+        ch->after = mean_of(x, b, e);
+        ch->p = mw.p;
+        double d = fabs(ch->after - ch->before);
+        ch->worse = ch->after > ch->before;
+        ch->significant =
+            mw.p < o->false_alarm && d > abs_floor(o, m) && d > o->min_rel * fabs(ch->before);
+    }
+    s->n_changes = ns;
+    rc = 0;
+out:
+    free(x);
+    free(idx);
+    free(st);
+    return rc;
+}
+
+/* Adds one series per metric for (phase, cls) to g, unless it is there already. */
+static int add_key(trend_t *t, trend_group_t *g, const char *phase, const char *cls)
+{
+    for (size_t i = 0; i < g->n_series; i += N_METRICS)
+        if (!strcmp(g->series[i].phase, phase) && !strcmp(g->series[i].cls, cls))
+            return 0;
+    trend_series_t *v = realloc(g->series, (g->n_series + N_METRICS) * sizeof(*v));
+    if (!v)
+        return SQ_ENOMEM;
+    g->series = v;
+    for (int m = 0; m < N_METRICS; m++) {
+        trend_series_t *s = &g->series[g->n_series + (size_t)m];
+        *s = (trend_series_t){.phase = keep(t, phase),
+                              .cls = keep(t, cls),
+                              .metric = metric_names[m],
+                              .objective = NAN};
+        s->values = malloc(g->n_runs * sizeof(double));
+        for (size_t r = 0; s->values && r < g->n_runs; r++)
+            s->values[r] = NAN;
+        if (!s->values || !s->phase || !s->cls) {
+            g->n_series += (size_t)m + 1;
+            return SQ_ENOMEM;
+        }
+    }
+    g->n_series += N_METRICS;
+    return 0;
+}
+
+/* Fills a group's series from its runs (res in start order). */
+static int fill_group(trend_t *t, trend_group_t *g, results_t *const *res)
+{
+    for (size_t r = 0; r < g->n_runs; r++)
+        for (size_t i = 0; i < results_cell_count(res[r]); i++) {
+            results_cell_t *c = results_cell_at(res[r], i);
+            if (cmp_is_watch(res[r], results_cell_phase(c), results_cell_class(c)))
+                continue;
+            int rc = add_key(t, g, results_cell_phase(c), results_cell_class(c));
+            if (rc)
+                return rc;
+        }
+    for (size_t i = 0; i < g->n_series; i += N_METRICS) {
+        trend_series_t *s = &g->series[i];
+        for (size_t r = 0; r < g->n_runs; r++) {
+            double v[N_METRICS];
+            if (run_figures(res[r], s->phase, s->cls, v))
+                return SQ_ENOMEM;
+            for (int m = 0; m < N_METRICS; m++)
+                s[m].values[r] = v[m];
+        }
+        for (int m = 0; m < N_METRICS; m++) {
+            s[m].objective = objective_of(res[g->n_runs - 1], s->phase, s->cls, m);
+            int rc = find_changes(&s[m], g->n_runs, m, &t->opts);
+            if (rc)
+                return rc;
+        }
+    }
+    return 0;
+}
+
+typedef struct {
+    size_t i;
+    int64_t start;
+    const char *dir;
+} order_t;
+
+static int by_start(const void *a, const void *b)
+{
+    const order_t *x = a, *y = b;
+    if (x->start != y->start)
+        return (x->start > y->start) - (x->start < y->start);
+    return strcmp(x->dir, y->dir);
+}
+
+/* Starts group g with the runs of ord (in start order) that belong with ord[first]. */
+static int make_group(trend_t *t, results_t *const *res, const order_t *ord, size_t n, size_t first,
+                      bool *taken)
+{
+    trend_group_t *g = &t->groups[t->n_groups++];
+    results_t **mine = calloc(n, sizeof(*mine));
+    g->dirs = calloc(n, sizeof(*g->dirs));
+    g->start_ms = calloc(n, sizeof(*g->start_ms));
+    if (!mine || !g->dirs || !g->start_ms) {
+        free(mine);
+        return SQ_ENOMEM;
+    }
+    const results_t *lead = res[ord[first].i];
+    for (size_t k = first; k < n; k++) {
+        if (taken[k] || !same_group(lead, res[ord[k].i]))
+            continue;
+        taken[k] = true;
+        mine[g->n_runs] = res[ord[k].i];
+        g->start_ms[g->n_runs] = ord[k].start;
+        g->dirs[g->n_runs++] = keep(t, ord[k].dir);
+    }
+    const results_meta_t *m = results_meta(lead);
+    char *ov = overrides_text(lead);
+    g->plan = keep(t, m->plan_path);
+    g->plan_sha256 = keep(t, m->plan_sha256);
+    g->version = keep(t, m->squall_version);
+    g->overrides = ov ? keep(t, ov) : NULL;
+    free(ov);
+    int rc = g->plan && g->plan_sha256 && g->version && g->overrides ? fill_group(t, g, mine)
+                                                                     : SQ_ENOMEM;
+    free(mine);
+    return rc;
+}
+
+int trend_new(results_t *const *res, const char *const *dirs, size_t n,
+              const report_cmp_opts_t *opts, trend_t **out)
+{
+    trend_t *t = calloc(1, sizeof(*t));
+    order_t *ord = calloc(n + 1, sizeof(*ord));
+    bool *taken = calloc(n + 1, sizeof(*taken));
+    int rc = SQ_ENOMEM;
+    if (!t || !ord || !taken || !(t->groups = calloc(n + 1, sizeof(*t->groups))))
+        goto fail;
+    t->opts = *opts;
+    for (size_t i = 0; i < n; i++)
+        ord[i] = (order_t){.i = i, .start = results_meta(res[i])->start_unix_ms, .dir = dirs[i]};
+    qsort(ord, n, sizeof(*ord), by_start);
+    for (size_t k = 0; k < n; k++)
+        if (!taken[k] && (rc = make_group(t, res, ord, n, k, taken)))
+            goto fail;
+    free(ord);
+    free(taken);
+    *out = t;
+    return 0;
+fail:
+    free(ord);
+    free(taken);
+    trend_free(t);
+    *out = NULL;
+    return rc;
+}
+
+void trend_free(trend_t *t)
+{
+    if (!t)
+        return;
+    for (size_t g = 0; t->groups && g < t->n_groups; g++) {
+        for (size_t i = 0; i < t->groups[g].n_series; i++) {
+            free(t->groups[g].series[i].values);
+            free(t->groups[g].series[i].changes);
+        }
+        free(t->groups[g].series);
+        free(t->groups[g].dirs);
+        free(t->groups[g].start_ms);
+    }
+    free(t->groups);
+    for (size_t i = 0; i < t->n_strings; i++)
+        free(t->strings[i]);
+    free(t->strings);
+    free(t);
+}
+
+size_t trend_group_count(const trend_t *t)
+{
+    return t->n_groups;
+}
+
+const trend_group_t *trend_group_at(const trend_t *t, size_t i)
+{
+    return i < t->n_groups ? &t->groups[i] : NULL;
+}
+
+bool trend_newest_worse(const trend_t *t)
+{
+    for (size_t g = 0; g < t->n_groups; g++)
+        for (size_t i = 0; i < t->groups[g].n_series; i++) {
+            const trend_series_t *s = &t->groups[g].series[i];
+            if (s->n_changes && s->changes[s->n_changes - 1].significant &&
+                s->changes[s->n_changes - 1].worse)
+                return true;
+        }
+    return false;
+}

@@ -1,0 +1,145 @@
+#!/usr/bin/env bash
+# squall envelope against the embedded target with a known capacity: --max-inflight 10 with a
+# fixed 50 ms service time (--delay fixed:50ms; queued requests wait for a slot, FIFO), so at
+# most 10 / 50 ms = 200 requests/s are served and an even arrival rate above that builds a queue
+# that grows for the whole phase. The boundary where "p99 <= L" still holds is computed by
+# simulating that queue (even arrivals, 10 servers, 50 ms each; p99 by nearest rank, as HDR's
+# percentile) in Python, independently of squall, and the search must land within its
+# resolution of it. The target's 50 ms is a libuv timer of whole milliseconds on a loop shared
+# with serving (measured: 50.5-51 ms on these machines), so the boundary is computed for a service
+# time of 50 ms and of 51.5 ms, and the found one must lie within the resolution of that band:
+#   1-D: rate, L = 70 ms, 2 s phases;
+#   teardown: a creating plan's runs each delete what they made (the target's /stats);
+#   2-D: phase duration x rate, L = 450 ms: a short phase tolerates a short overload, so the
+#        largest holding rate falls as the duration grows (a staircase).
+set -uo pipefail
+source "$SRCDIR/tests/integration/lib/target.sh"
+source "$SRCDIR/tests/integration/lib/run.sh"
+T="$BUILDDIR/envelope"
+rm -rf "$T"
+mkdir -p "$T"
+
+# boundary L_MS T_S [SERVICE_MS]: the largest rate (0.1/s steps) whose simulated p99 is <= L_MS.
+boundary() {
+    /usr/bin/python3 - "$1" "$2" "${3:-50}" <<'PY'
+import heapq, math, sys
+L, T, D = float(sys.argv[1]) / 1000, float(sys.argv[2]), float(sys.argv[3]) / 1000
+def p99(rate, slots=10, service=D):
+    n = math.ceil(rate * T)                  # even arrivals at k / rate, k = 0..n-1
+    free = [0.0] * slots
+    resp = []
+    for k in range(n):
+        a = k / rate
+        s = max(a, heapq.heappop(free))      # FIFO: the earliest free slot
+        heapq.heappush(free, s + service)
+        resp.append(s + service - a)
+    resp.sort()
+    return resp[max(1, int(0.99 * n + 0.5)) - 1]
+r = 100.0
+while p99(r + 0.1) <= L + 1e-12:
+    r += 0.1
+print("%.1f" % r)
+PY
+}
+
+serve_start --max-inflight 10 --delay fixed:50ms || exit 1
+curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
+plan() { # plan FILE P99_MS
+    cat >"$1" <<YAML
+target: {url: "$SERVE_URL", connections: 200, timeout: 10s}
+requests:
+  read: {kind: get, path: /v1/sites/north/gateways/gw-1}
+phases:
+  - {name: steady, rate: 100/s, duration: 2s, mix: {read: 1}}
+objectives:
+  - {class: read, p99: $2ms}
+YAML
+}
+
+# --- 1-D: the rate ------------------------------------------------------------------------
+plan "$T/one.yaml" 70
+WANT=$(boundary 70 2)
+SLOW=$(boundary 70 2 51.5)
+timeout 300 "$SQUALL" envelope "$T/one.yaml" --vary phases.steady.rate=50/s..800/s \
+    --resolution 16/s --repeats 1 --max-runs 14 --cool-down 200ms -o "$T/one" \
+    >"$T/one.out" 2>"$T/one.err"
+RC=$?
+expect "1-D search resolved: exit 0 (got $RC)" test "$RC" = 0
+J="$T/one/envelope.json"
+got() { /usr/bin/python3 -c "import json; d = json.load(open('$J')); print($1)"; }
+run_py() { /usr/bin/python3 -c "import json; d = json.load(open('$J')); $1"; }
+echo "   computed boundary ${SLOW}..${WANT}/s (capacity 10 / 50 ms = 200/s), found: $(got "d['columns'][0]['answer']")"
+expect "format squall-envelope v1, complete" test "$(got "d['format'], d['version'], d['complete']")" = "squall-envelope 1 True"
+expect "the largest holding rate is within 16/s of the computed ${SLOW}..${WANT}/s, the first failing one within 16/s above it" \
+    test "$(run_py "c = d['columns'][0]; print($SLOW - 16 <= c['holds_up_to'] <= $WANT + 16 and c['fails_at'] - c['holds_up_to'] <= 16 and c['fails_how'] == 'fail')")" = True
+expect "doubling from 50/s: the first runs are 50, 100, 200/s; no run beyond TO" \
+    test "$(got "[r['values'][0] for r in d['runs'][:3]] == [50, 100, 200] and max(r['values'][0] for r in d['runs']) <= 800")" = True
+expect "every failed run names the objective that broke and its observed value above 70 ms" \
+    test "$(got "all(r['broke'] and 'p99' in r['broke'] and float(r['broke'].split('observed ')[1].split()[0]) > 70 for r in d['runs'] if r['verdict'] == 'fail')")" = True
+expect "each run's verdict matches its own results.json" \
+    test "$(got "all(json.load(open(r['dir'] + '/results.json'))['sections']['run']['verdict'] == r['verdict'] for r in d['runs'])")" = True
+expect "envelope.csv: a header and one line per run" \
+    test "$(($(wc -l <"$T/one/envelope.csv") - 1))" = "$(got "len(d['runs'])")"
+expect "envelope.html links every run to its report.html, which exists" \
+    test "$(/usr/bin/python3 -c "
+import os
+from html.parser import HTMLParser
+class P(HTMLParser):
+    def __init__(s):
+        super().__init__(); s.links = []; s.safe = 0
+    def handle_starttag(s, tag, a):
+        a = dict(a)
+        if tag == 'a': s.links.append(a['href'])
+        if tag == 'rect' and a.get('class') == 'safe': s.safe += 1
+p = P(); p.feed(open('$T/one/envelope.html').read())
+print(p.safe == 1 and len(p.links) == $(got "len(d['runs'])") and
+      all(os.path.exists(os.path.join('$T/one', l)) for l in p.links))")" = True
+expect "the target served everything: no request left queued" test "$(serve_stats "s['inflight']")" = 0
+
+# --- Teardown between points: a plan that creates objects --------------------------------
+# Each point's run deletes what it created before the next starts: the target's own object
+# count (/stats, an outside view) is back to the one object it held, and every run's
+# lifecycle.teardown deleted all it created.
+cat >"$T/make.yaml" <<YAML
+target: {url: "$SERVE_URL", connections: 200, timeout: 10s}
+requests:
+  make: {kind: write, method: PUT, path: "/v1/sites/north/made/gw-{{seq}}", body: '{"m":1}',
+         creates: true}
+phases:
+  - {name: steady, rate: 100/s, duration: 1s, mix: {make: 1}}
+objectives:
+  - {class: make, p99: 70ms}
+YAML
+timeout 120 "$SQUALL" envelope "$T/make.yaml" --vary phases.steady.rate=100/s..400/s \
+    --resolution 100/s --repeats 1 --max-runs 3 --cool-down 0s -o "$T/make" \
+    >"$T/make.out" 2>"$T/make.err"
+J="$T/make/envelope.json"
+expect "creating plan: three runs, no objects left in any" \
+    test "$(got "[r['objects_left'] for r in d['runs']]")" = "[0, 0, 0]"
+expect "each run deleted every object it created (its results.json)" \
+    test "$(run_py "ok = True
+for r in d['runs']:
+    lc = json.load(open(r['dir'] + '/results.json'))['sections']['lifecycle']
+    ok &= lc['created'] > 0 and lc['teardown']['deleted'] == lc['created']
+print(ok)")" = True
+expect "the target holds only its one object again (its /stats)" test "$(serve_stats "s['objects']")" = 1
+
+# --- 2-D: duration x rate ------------------------------------------------------------------
+plan "$T/two.yaml" 450
+timeout 300 "$SQUALL" envelope "$T/two.yaml" --vary phases.steady.duration=1s..3s \
+    --vary phases.steady.rate=150/s..400/s --steps 3 --resolution 12/s --repeats 1 \
+    --max-runs 40 --cool-down 200ms -o "$T/two" >"$T/two.out" 2>"$T/two.err"
+RC=$?
+expect "2-D search resolved: exit 0 (got $RC)" test "$RC" = 0
+J="$T/two/envelope.json"
+for col in 0 1 2; do
+    S=$((col + 1))
+    WANT=$(boundary 450 $S)
+    SLOW=$(boundary 450 $S 51.5)
+    echo "   ${S}s: computed ${SLOW}..${WANT}/s, found: $(got "d['columns'][$col]['answer']")"
+    expect "duration ${S}s: the largest holding rate within 12/s of the computed ${SLOW}..${WANT}/s" \
+        test "$(run_py "c = d['columns'][$col]; print(c['value'] == $S and $SLOW - 12 <= c['holds_up_to'] <= $WANT + 12 and c['fails_at'] - c['holds_up_to'] <= 12)")" = True
+done
+expect "a staircase: the holding rate falls as the duration grows" \
+    test "$(run_py "h = [c['holds_up_to'] for c in d['columns']]; print(h[0] > h[1] > h[2])")" = True
+exit $FAILED
