@@ -17,15 +17,14 @@ source "$SRCDIR/tests/integration/lib/target.sh"
 T="$BUILDDIR/actions"
 rm -rf "$T"
 mkdir -p "$T"
-fails=0
-check() { # check "what" COMMAND...
-    local what=$1
-    shift
-    if "$@"; then echo "ok   $what"; else echo "FAIL $what"; fails=$((fails + 1)); fi
-}
+source "$SRCDIR/tests/integration/lib/run.sh"
+FAILED=0
 serve_start || exit 1
 cat >"$T/plan.yaml" <<PLAN
 seed: 5
+# This test is about what squall does beside the load, not the verdict: a second in which this
+# shared machine held squall back (generator-bound) must not turn the run INCONCLUSIVE here.
+accept: [generator-bound]
 target: {url: "$SERVE_URL", connections: 8}
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{seq}}", body: '{"holder":"gw","stamp":{{now_ns}}}'}
@@ -50,19 +49,19 @@ observe:
 PLAN
 
 "$SQUALL" check "$T/plan.yaml" >"$T/check.out" 2>&1
-check "check names the programs" bash -c "grep -q \"action 'say' of phase steady runs /bin/sh\" '$T/check.out'"
+expect "check names the programs" bash -c "grep -q \"action 'say' of phase steady runs /bin/sh\" '$T/check.out'"
 "$SQUALL" run "$T/plan.yaml" -o "$T/refused" -q >"$T/refused.out" 2>&1
 rc=$?
 sent=$(serve_stats "sum(sum(v.values()) for v in s['requests'].values())")
-check "without --allow-exec: exit $rc, nothing sent ($sent requests)" \
+expect "without --allow-exec: exit $rc, nothing sent ($sent requests)" \
     bash -c "[ $rc = 2 ] && [ '$sent' = 0 ] && grep -q 'refused without --allow-exec' '$T/refused.out'"
 
 "$SQUALL" run "$T/plan.yaml" -o "$T/out" -q --allow-exec >"$T/run.out" 2>&1
 rc=$?
-check "with --allow-exec the run passes (exit $rc)" test "$rc" = 0
-check "the timed-out program is gone" bash -c "! pgrep -f 'slee[p] 31.7' >/dev/null"
+expect "with --allow-exec the run passes (exit $rc)" test "$rc" = 0
+expect "the timed-out program is gone" bash -c "! pgrep -f 'slee[p] 31.7' >/dev/null"
 
-/usr/bin/python3 - "$T/out" <<'PY' || fails=$((fails + 1))
+/usr/bin/python3 - "$T/out" <<'PY' || FAILED=1
 import csv, json, sys
 d = sys.argv[1]
 res = json.load(open(f"{d}/results.json"))
@@ -106,8 +105,8 @@ names = {n for m in marks for n in m.split(";")}
 ok(f"series.csv marks {sorted(names)}", {"drop-watches", "say", "slow", "stats-end.json"} <= names)
 sys.exit(1 if bad else 0)
 PY
-check "report.html draws the marks" grep -q '<text[^>]*>drop-watches</text>' "$T/out/report.html"
-check "report.html links the collected artifact" \
+expect "report.html draws the marks" grep -q '<text[^>]*>drop-watches</text>' "$T/out/report.html"
+expect "report.html links the collected artifact" \
     grep -q '<a href="collected/stats-end.json">' "$T/out/report.html"
 
 # A run stopped by SIGINT 1.5 s into its phase: the action due at 5 s does not fire.
@@ -117,13 +116,12 @@ pid=$!
 sleep 1.5
 kill -INT "$pid"
 wait "$pid"
-check "stopped early: the action due later did not fire" \
+expect "stopped early: the action due later did not fire" \
     bash -c "jq -e '.sections.actions.items[] | select(.name == \"drop-watches\") | .state == \"skipped\" and (.error | test(\"phase ended\"))' '$T/short/results.json' >/dev/null"
 
 sed 's/at: 7.9s/at: 9s/' "$T/plan.yaml" >"$T/late.yaml"
 "$SQUALL" check "$T/late.yaml" >"$T/late.out" 2>&1
-check "an action after its phase ends is refused by check (exit $?)" \
+expect "an action after its phase ends is refused by check (exit $?)" \
     grep -q 'late.yaml:[0-9]*:[0-9]*: error: phases.steady.actions\[3\].at: after the phase ends' "$T/late.out"
 
-echo "actions: $fails failed"
-[ "$fails" = 0 ]
+[ "$FAILED" = 0 ] && echo "actions: all passed"

@@ -12,12 +12,8 @@ source "$SRCDIR/tests/integration/lib/target.sh"
 T="$BUILDDIR/metrics-endpoint"
 rm -rf "$T"
 mkdir -p "$T/data"
-fails=0
-check() { # check "what" COMMAND...
-    local what=$1
-    shift
-    if "$@"; then echo "ok   $what"; else echo "FAIL $what"; fails=$((fails + 1)); fi
-}
+source "$SRCDIR/tests/integration/lib/run.sh"
+FAILED=0
 serve_start || exit 1
 MPORT=$(free_port)
 PPORT=$(free_port)
@@ -35,6 +31,9 @@ wait_port "$PPORT" 100 || { echo "prometheus did not start"; cat "$T/prometheus.
 
 cat >"$T/plan.yaml" <<PLAN
 seed: 3
+# This test is about what squall does beside the load, not the verdict: a second in which this
+# shared machine held squall back (generator-bound) must not turn the run INCONCLUSIVE here.
+accept: [generator-bound]
 target: {url: "$SERVE_URL", connections: 8}
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{seq}}", body: '{"holder":"gw","stamp":{{now_ns}}}'}
@@ -49,22 +48,22 @@ sleep 3
 curl -s "http://127.0.0.1:$MPORT/metrics" >"$T/m004.txt"
 promtool check metrics <"$T/m004.txt" >"$T/promtool.out" 2>&1
 prc=$?
-check "promtool accepts the 0.0.4 rendering without a remark (exit $prc)" test "$prc" = 0
+expect "promtool accepts the 0.0.4 rendering without a remark (exit $prc)" test "$prc" = 0
 curl -s -D "$T/om.headers" -H 'Accept: application/openmetrics-text;version=1.0.0' \
     "http://127.0.0.1:$MPORT/metrics" >"$T/om.txt"
-check "OpenMetrics when asked, ending in # EOF" \
+expect "OpenMetrics when asked, ending in # EOF" \
     bash -c "grep -qi 'content-type: application/openmetrics-text' '$T/om.headers' && tail -1 '$T/om.txt' | grep -qx '# EOF'"
 wait "$RUN_PID"
 rc=$?
-check "the run passes (exit $rc)" test "$rc" = 0
-check "squall stopped serving at its end" bash -c "! curl -s -m 2 http://127.0.0.1:$MPORT/metrics >/dev/null"
+expect "the run passes (exit $rc)" test "$rc" = 0
+expect "squall stopped serving at its end" bash -c "! curl -s -m 2 http://127.0.0.1:$MPORT/metrics >/dev/null"
 
 q() { # q PROMQL: prints the first value, or "none"
     curl -s --get "http://127.0.0.1:$PPORT/api/v1/query" --data-urlencode "query=$1" |
         jq -r '.data.result[0].value[1] // "none"'
 }
 health=$(curl -s "http://127.0.0.1:$PPORT/api/v1/targets" | jq -r '.data.activeTargets[0].health')
-check "prometheus found squall healthy ($health)" test "$health" = up
+expect "prometheus found squall healthy ($health)" test "$health" = up
 want_done=$(jq '[.cells[] | select(.phase=="load" and .class=="renew" and .outcome=="2xx") | .count] | add' "$T/out/results.json")
 want_events=$(jq '[.cells[] | select(.phase=="load" and .class=="follow" and .outcome=="2xx") | .count] | add' "$T/out/results.json")
 got_done=$(q 'last_over_time(squall_requests_total{phase="load",class="renew",outcome="2xx"}[5m])')
@@ -73,18 +72,17 @@ got_started=$(q 'last_over_time(squall_requests_started_total{phase="load",class
 got_events=$(q 'last_over_time(squall_watch_events_total{phase="load",class="follow"}[5m])')
 got_sendlag=$(q 'last_over_time(squall_send_lag_seconds_count[5m])')
 got_schedlag=$(q 'last_over_time(squall_schedule_lag_seconds_count[5m])')
-check "finished renewals: prometheus $got_done, results.json $want_done" test "$got_done" = "$want_done"
-check "response histogram count: prometheus $got_count" test "$got_count" = "$want_done"
-check "started renewals: prometheus $got_started" test "$got_started" = "$want_done"
-check "load-phase watch events: prometheus $got_events, results.json $want_events" \
+expect "finished renewals: prometheus $got_done, results.json $want_done" test "$got_done" = "$want_done"
+expect "response histogram count: prometheus $got_count" test "$got_count" = "$want_done"
+expect "started renewals: prometheus $got_started" test "$got_started" = "$want_done"
+expect "load-phase watch events: prometheus $got_events, results.json $want_events" \
     test "$got_events" = "$want_events"
-check "send lag counted for every request sent: $got_sendlag, as schedule lag $got_schedlag (>= $want_done)" \
+expect "send lag counted for every request sent: $got_sendlag, as schedule lag $got_schedlag (>= $want_done)" \
     bash -c "[ '$got_sendlag' = '$got_schedlag' ] && [ '$got_sendlag' -ge '$want_done' ]"
-check "at least 600 renewals (100/s for 6 s)" test "${want_done:-0}" -ge 600
+expect "at least 600 renewals (100/s for 6 s)" test "${want_done:-0}" -ge 600
 
 "$SQUALL" run "$T/plan.yaml" -o "$T/far" -q --metrics "10.255.255.1:9464" >"$T/far.out" 2>&1
 frc=$?
-check "--metrics off loopback refused without --metrics-public (exit $frc)" \
+expect "--metrics off loopback refused without --metrics-public (exit $frc)" \
     bash -c "[ $frc = 2 ] && grep -q 'metrics-public' '$T/far.out' && [ ! -e '$T/far/results.json' ]"
-echo "metrics-endpoint: $fails failed"
-[ "$fails" = 0 ]
+[ "$FAILED" = 0 ] && echo "metrics-endpoint: all passed"

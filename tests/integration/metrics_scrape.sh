@@ -16,17 +16,16 @@ source "$SRCDIR/tests/integration/lib/target.sh"
 T="$BUILDDIR/metrics-scrape"
 rm -rf "$T"
 mkdir -p "$T"
-fails=0
-check() { # check "what" COMMAND...
-    local what=$1
-    shift
-    if "$@"; then echo "ok   $what"; else echo "FAIL $what"; fails=$((fails + 1)); fi
-}
+source "$SRCDIR/tests/integration/lib/run.sh"
+FAILED=0
 
 serve_start || exit 1
 CLOSED=$(free_port) # nothing listens there
 cat >"$T/plan.yaml" <<PLAN
 seed: 11
+# This test is about what squall does beside the load, not the verdict: a second in which this
+# shared machine held squall back (generator-bound) must not turn the run INCONCLUSIVE here.
+accept: [generator-bound]
 target: {url: "$SERVE_URL", connections: 8}
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{seq}}", body: '{"holder":"gw"}'}
@@ -43,10 +42,10 @@ observe:
 PLAN
 "$SQUALL" run "$T/plan.yaml" -o "$T/out" -q >"$T/run.out" 2>"$T/run.err"
 rc=$?
-check "the run passes although two endpoints fail (exit $rc)" test "$rc" = 0
-check "metrics.csv written" test -s "$T/out/metrics.csv"
+expect "the run passes although two endpoints fail (exit $rc)" test "$rc" = 0
+expect "metrics.csv written" test -s "$T/out/metrics.csv"
 
-/usr/bin/python3 - "$T/out" <<'PY' || fails=$((fails + 1))
+/usr/bin/python3 - "$T/out" <<'PY' || FAILED=1
 import csv, json, math, sys
 from datetime import datetime
 d = sys.argv[1]
@@ -118,18 +117,17 @@ for a, b in zip(times, times[1:]):
 ok(f"p99 of {checked} intervals equal to histogram_quantile's", checked >= 5)
 sys.exit(1 if bad else 0)
 PY
-check "report.html shows the target's metrics with plots" \
+expect "report.html shows the target's metrics with plots" \
     bash -c "grep -q 'id=\"target-metrics\"' '$T/out/report.html' && [ \$(sed -n '/id=\"target-metrics\"/,/<\/section>/p' '$T/out/report.html' | grep -c '<svg') -ge 2 ]"
 
 # check: refused before anything is sent.
 sed 's/every: 1s/every: 100ms/' "$T/plan.yaml" >"$T/fast.yaml"
 "$SQUALL" check "$T/fast.yaml" >"$T/fast.out" 2>&1
-check "every: 100ms refused (exit $?)" grep -q "observe.metrics\[0\].every" "$T/fast.out"
+expect "every: 100ms refused (exit $?)" grep -q "observe.metrics\[0\].every" "$T/fast.out"
 sed "s#url: $SERVE_URL/metrics#url: http://10.255.255.1:9100/metrics#" "$T/plan.yaml" >"$T/far.yaml"
 "$SQUALL" run "$T/far.yaml" -o "$T/far" -q >"$T/far.out" 2>&1
 frc=$?
-check "a scrape off loopback needs --confirm-target (exit $frc)" \
+expect "a scrape off loopback needs --confirm-target (exit $frc)" \
     bash -c "[ $frc = 2 ] && grep -q 'confirm-target' '$T/far.out' && [ ! -e '$T/far/results.json' ]"
 
-echo "metrics-scrape: $fails failed"
-[ "$fails" = 0 ]
+[ "$FAILED" = 0 ] && echo "metrics-scrape: all passed"
