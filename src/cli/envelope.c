@@ -510,7 +510,11 @@ const cli_cmd_t cli_cmd_envelope = {
     .description =
         "Each point is a whole `squall run` of the plan (this binary, as a child process) with\n"
         "--set PATH=VALUE, brakes on, its teardown done before it ends, and --cool-down between\n"
-        "runs. A point holds only if every one of its --repeats runs passes (a run that does not\n"
+        "runs: a fixed pause, or `idle[:MAX]` (the plan needs observe.metrics): every kept gauge\n"
+        "series is scraped once before the first run (its idle value) and every second after\n"
+        "each run until |now - idle| <= max(10% of |idle|, 0.5) for all, for MAX at most\n"
+        "(default 60s); the next run then starts anyway (envelope.json: each run's cool_down).\n"
+        "A point holds only if every one of its --repeats runs passes (a run that does not\n"
         "pass ends the point's repeats); an INCONCLUSIVE run is run again once, and a point that\n"
         "stays INCONCLUSIVE never holds: the answer says what limited it. One --vary: doubling "
         "from FROM until a point does not hold (never beyond\n"
