@@ -17,7 +17,7 @@
  * within the bucket as Prometheus's histogram_quantile() does (prometheus.io, "Query
  * functions"); a gauge's (or untyped metric's) values as they are.
  *
- * Threading: none; everything runs on the run's loop. */
+ * Threading: none; everything runs on the run's loop (scrape_once: on a loop of its own). */
 #ifndef SQUALL_SCRAPE_H
 #define SQUALL_SCRAPE_H
 

@@ -165,18 +165,19 @@ idle_search() { # idle_search NAME HOLD_S COOL
         --repeats 1 --max-runs 2 --cool-down "$3" -o "$T/$1" >"$T/$1.out" 2>"$T/$1.err"
     echo $? >"$T/$1.rc"
     wait $h
-}
-idle_search idle 4 idle:20s
-J="$T/idle/envelope.json"
-START2=$(stat -c %.9Y "$T/idle/points/002.log")
-BACK=$(/usr/bin/python3 -c "
+    # J, START2 (run 2's start: its log's creation) and BACK (the stream closed, by /stats)
+    J="$T/$1/envelope.json"
+    START2=$(stat -c %.9Y "$T/$1/points/002.log")
+    BACK=$(/usr/bin/python3 -c "
 seen = False
-for l in open('$T/idle.stats'):
+for l in open('$T/$1.stats'):
     t, n = l.split()
     seen |= n == '1'
     if seen and n == '0':
         print(t); break")
-echo "   stream closed (/stats) at ${BACK:-never}, run 2 started at $START2: $(got "d['runs'][1]['cool_down']")"
+    echo "   stream closed (/stats) at ${BACK:-never}, run 2 started at $START2: $(got "d['runs'][1]['cool_down']")"
+}
+idle_search idle 4 idle:20s
 expect "idle: two runs, exit 0 (got $(cat "$T/idle.rc"))" test "$(cat "$T/idle.rc") $(got "len(d['runs'])")" = "0 2"
 expect "idle: the target's /stats saw the stream open, then closed" test -n "$BACK"
 expect "idle: run 2 started after the gauge was back at 0 (/stats), within 3 s of it" \
@@ -184,16 +185,6 @@ expect "idle: run 2 started after the gauge was back at 0 (/stats), within 3 s o
 expect "idle: the cool-down is recorded as back to idle after waiting over 1 s; none before run 1" \
     test "$(run_py "c = d['runs'][1]['cool_down']; print(d['runs'][0]['cool_down'] is None and c['mode'] == 'idle' and c['back_to_idle'] and c['seconds'] > 1 and c['not_idle'] == [])")" = True
 idle_search bound 8 idle:2s
-J="$T/bound/envelope.json"
-START2=$(stat -c %.9Y "$T/bound/points/002.log")
-BACK=$(/usr/bin/python3 -c "
-seen = False
-for l in open('$T/bound.stats'):
-    t, n = l.split()
-    seen |= n == '1'
-    if seen and n == '0':
-        print(t); break")
-echo "   stream closed (/stats) at ${BACK:-never}, run 2 started at $START2: $(got "d['runs'][1]['cool_down']")"
 expect "bound: both runs made (exit $(cat "$T/bound.rc"))" test "$(got "len(d['runs'])")" = 2
 expect "bound: run 2 started while the stream was still open (/stats)" \
     test "$(/usr/bin/python3 -c "print($START2 < ${BACK:-1e12})")" = True
