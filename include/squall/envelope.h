@@ -62,6 +62,14 @@ typedef struct {
     char dir[1024];    /* its results directory */
     char broke[256];   /* the first objective that failed, with its observed value; "" */
     char limited[512]; /* INCONCLUSIVE: the first reason; ERROR: what went wrong; "" */
+    /* The cool-down before this run (none before the first): cool_mode 0 none, 1 a fixed pause,
+     * 2 until idle; cool_s how long it took; cool_idle whether every kept gauge was back
+     * (envelope_back_to_idle) when it ended; not_idle the series that were not, one a line
+     * ("name{labels}: now 3 (idle 0)"), or why the target could not be read. */
+    int cool_mode;
+    double cool_s;
+    bool cool_idle;
+    char not_idle[512];
 } envelope_run_t;
 
 /* Makes one run at values v (repeat 1..repeats) and fills *r (v, repeat are set already).
@@ -101,6 +109,13 @@ void envelope_value_text(const envelope_dim_t *d, double v, char *buf, size_t ca
  * TO > FROM) into *d (path and suffix point into a copy the caller frees with free(d->path)).
  * SQ_EINVAL with the reason in err. */
 int envelope_dim_parse(const char *text, envelope_dim_t *d, char *err, size_t cap);
+
+/* The cool-down's rule: a gauge is back to its idle value when |now - idle| is at most
+ * ENVELOPE_IDLE_SHARE of |idle| or ENVELOPE_IDLE_FLOOR, whichever is larger (so a count that was
+ * 0 or a few must be back exactly, a large one within 10 %). */
+#define ENVELOPE_IDLE_SHARE 0.10
+#define ENVELOPE_IDLE_FLOOR 0.5
+bool envelope_back_to_idle(double idle, double now);
 
 /* ---- outputs (envelope_out.c) -------------------------------------------------------------- */
 

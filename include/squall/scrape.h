@@ -17,11 +17,12 @@
  * within the bucket as Prometheus's histogram_quantile() does (prometheus.io, "Query
  * functions"); a gauge's (or untyped metric's) values as they are.
  *
- * Threading: none; everything runs on the run's loop. */
+ * Threading: none; everything runs on the run's loop (scrape_once: on a loop of its own). */
 #ifndef SQUALL_SCRAPE_H
 #define SQUALL_SCRAPE_H
 
 #include <jansson.h>
+#include <stdbool.h>
 #include <stddef.h>
 #include <stdint.h>
 #include <uv.h>
@@ -56,6 +57,31 @@ void scrape_free(scrape_t *s);
  * plain HTTP/1.1 otherwise; one connection; base_url is u's origin, written into origin. */
 void scrape_engine_config(const plan_url_t *u, const plan_target_t *t, const eng_config_t *target,
                           char *origin, size_t cap, eng_config_t *out);
+
+/* ---- once, outside a run: the target's gauges now ------------------------------------------ */
+
+typedef struct {
+    int endpoint;  /* index in plan->scrapes */
+    char *series;  /* metric{labels}, or the metric alone without labels */
+    double value;
+} scrape_gauge_t;
+
+typedef struct {
+    scrape_gauge_t *g; /* every kept gauge series (TYPE gauge) of the endpoints that answered */
+    size_t n;
+    bool *failed;      /* per endpoint: its scrape failed (no answer, not 2xx, malformed...) */
+    size_t n_ep;
+    char error[600];   /* the first failure's reason, "" none */
+} scrape_gauges_t;
+
+/* Scrapes every endpoint of plan->scrapes once, on a short-lived loop of its own, exactly as a
+ * run's scrapes (engine settings, `keep`, formats, SCRAPE_MAX_BYTES; timeout the endpoint's
+ * `every`, at most 10 s), and returns in *out each kept gauge series' value (counters,
+ * histograms, summaries and untyped metrics are left out). A failed endpoint is marked in
+ * out->failed, not an error. SQ_ENOMEM, SQ_ELIBUV, SQ_EINVAL (on o). Free with
+ * scrape_gauges_free. */
+int scrape_once(const plan_t *plan, const eng_config_t *target, out_t *o, scrape_gauges_t *out);
+void scrape_gauges_free(scrape_gauges_t *g);
 
 /* ---- derived series: pure arithmetic, exposed for the tests -------------------------------- */
 

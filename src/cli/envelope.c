@@ -19,6 +19,8 @@
 #include "squall/err.h"
 #include "squall/plan.h"
 #include "squall/results.h"
+#include "squall/scrape.h"
+#include "squall/source.h"
 #include "squall/value.h"
 
 extern char **environ;
@@ -44,7 +46,9 @@ static const cli_opt_t envelope_opts[] = {
                         "(TO - FROM) / 32)"},
     [OPT_REPEATS] = {"repeats", 0, "N", "runs per point; it holds only if all pass (default 3)"},
     [OPT_STEPS] = {"steps", 0, "N", "values of the first of two dimensions (default 4)"},
-    [OPT_COOL] = {"cool-down", 0, "DURATION", "pause between runs (default 5s)"},
+    [OPT_COOL] = {"cool-down", 0, "DURATION|idle[:MAX]",
+                  "pause between runs (default 5s), or until the plan's observe.metrics gauges "
+                  "are back to idle, for MAX at most (default 60s)"},
     [OPT_OUT] = {"out", 'o', "DIR",
                  "where the search and its runs go (default results/envelope-<UTC time>)"},
     [OPT_SET] = {"set", 0, "KEY=VALUE", "override a plan value in every run"},
@@ -58,6 +62,10 @@ typedef struct {
     size_t n_sets;
     bool confirm;
     int64_t cool_ns;
+    bool idle;              /* --cool-down idle[:MAX]: cool_ns is MAX */
+    plan_t *loaded;         /* the plan at FROM, for its observe.metrics (idle only) */
+    src_target_t target;    /* its target's engine settings (idle only) */
+    scrape_gauges_t before; /* the idle baseline, scraped before the first run */
     envelope_cfg_t cfg;
     char dir[960];
     out_t *o;
@@ -111,9 +119,15 @@ static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void 
         ea->resolution = v;
         return -1;
     case OPT_COOL:
-        if (value_parse_duration(v, &ea->cool_ns))
-            return cli_usage_error(cmd, o, "--cool-down needs %s, got '%s'", VALUE_DURATION_EXPECTS,
-                                   v);
+        ea->idle = strncmp(v, "idle", 4) == 0 && (v[4] == '\0' || v[4] == ':');
+        if (ea->idle && v[4] == '\0')
+            ea->cool_ns = INT64_C(60000000000);
+        else if (value_parse_duration(ea->idle ? v + 5 : v, &ea->cool_ns) ||
+                 (ea->idle && ea->cool_ns < INT64_C(1000000000)))
+            return cli_usage_error(cmd, o,
+                                   "--cool-down needs %s, or idle[:MAX] with MAX at least 1s, got "
+                                   "'%s'",
+                                   VALUE_DURATION_EXPECTS, v);
         return -1;
     case OPT_OUT:
         ea->out = v;
@@ -218,9 +232,8 @@ static void read_point(envelope_run_t *r, out_t *o)
     results_free(res);
 }
 
-static void cool_down(const env_args_t *ea)
+static void pause_ns(int64_t left)
 {
-    int64_t left = ea->cool_ns;
     while (left > 0 && !stop_signal) {
         int64_t step = left < 100000000 ? left : 100000000;
         nanosleep(&(struct timespec){.tv_sec = step / 1000000000, .tv_nsec = step % 1000000000},
@@ -229,13 +242,78 @@ static void cool_down(const env_args_t *ea)
     }
 }
 
+static int64_t now_ns(void)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_MONOTONIC, &ts);
+    return (int64_t)ts.tv_sec * 1000000000 + ts.tv_nsec;
+}
+
+/* Which baseline gauges are not back to idle in `now`, one a line into r->not_idle; true when
+ * none. A series gone since the baseline counts as back; an endpoint that failed, as not. */
+static bool idle_check(const env_args_t *ea, const scrape_gauges_t *now, envelope_run_t *r)
+{
+    size_t len = 0;
+    bool back = true;
+    r->not_idle[0] = '\0';
+    for (size_t e = 0; e < now->n_ep; e++)
+        if (now->failed[e]) {
+            back = false;
+            len += (size_t)snprintf(r->not_idle + len, sizeof r->not_idle - len, "%s\n",
+                                    now->error);
+            break;
+        }
+    for (size_t i = 0; i < ea->before.n && len < sizeof r->not_idle; i++) {
+        const scrape_gauge_t *b = &ea->before.g[i];
+        for (size_t k = 0; k < now->n; k++) {
+            const scrape_gauge_t *g = &now->g[k];
+            if (g->endpoint != b->endpoint || strcmp(g->series, b->series) ||
+                envelope_back_to_idle(b->value, g->value))
+                continue;
+            back = false;
+            len += (size_t)snprintf(r->not_idle + len, sizeof r->not_idle - len,
+                                    "%s: now %g (idle %g)\n", b->series, g->value, b->value);
+        }
+    }
+    return back;
+}
+
+/* The cool-down before run r: a fixed pause, or a scrape every second until every baseline
+ * gauge is back to idle, for ea->cool_ns at most (then r says which were not). */
+static int cool_down(env_args_t *ea, envelope_run_t *r)
+{
+    int64_t t0 = now_ns();
+    r->cool_mode = ea->idle ? 2 : 1;
+    if (!ea->idle) {
+        pause_ns(ea->cool_ns);
+        r->cool_s = (double)(now_ns() - t0) / 1e9;
+        return 0;
+    }
+    for (int64_t tick = t0;; tick += 1000000000) {
+        scrape_gauges_t now;
+        int rc = scrape_once(ea->loaded, &ea->target.eng, ea->o, &now);
+        if (rc)
+            return rc;
+        r->cool_idle = idle_check(ea, &now, r);
+        scrape_gauges_free(&now);
+        if (r->cool_idle || stop_signal || tick + 1000000000 - t0 > ea->cool_ns)
+            break;
+        pause_ns(tick + 1000000000 - now_ns());
+    }
+    r->cool_s = (double)(now_ns() - t0) / 1e9;
+    if (!r->cool_idle)
+        out_info(ea->o, "envelope: not back to idle after %.1f s, running on: %s", r->cool_s,
+                 r->not_idle);
+    return 0;
+}
+
 /* envelope_run_fn: `squall run PLAN -o DIR/points/NNN -q --set PATH=V... [user --set]`. */
 static int run_point(void *ctx, envelope_run_t *r)
 {
     env_args_t *ea = ctx;
     static int made;
-    if (made++)
-        cool_down(ea);
+    if (made++ && cool_down(ea, r))
+        return SQ_EIO;
     if (stop_signal)
         return SQ_ESTOPPED;
     char sets[ENVELOPE_MAX_DIMS][512], log[1200];
@@ -303,7 +381,7 @@ static int run_point(void *ctx, envelope_run_t *r)
 
 /* Loads the plan with every --set and each dimension at `at` (FROM, then TO), exactly as each
  * run will: a plan error stops the search before anything is sent. */
-static int check_plan(const env_args_t *ea, out_t *o)
+static int check_plan(env_args_t *ea, out_t *o)
 {
     size_t n = ea->n_sets + (size_t)ea->cfg.n_dims;
     plan_override_t *ov = calloc(n, sizeof(*ov));
@@ -325,7 +403,10 @@ static int check_plan(const env_args_t *ea, out_t *o)
         plan_t *p = NULL;
         if (!rc)
             rc = plan_load(ea->plan, ov, n, &p, o);
-        plan_free(p);
+        if (at == 0 && ea->idle && !rc)
+            ea->loaded = p;
+        else
+            plan_free(p);
         for (size_t i = 0; i < n; i++) {
             free(copies[i]);
             copies[i] = NULL;
@@ -333,6 +414,25 @@ static int check_plan(const env_args_t *ea, out_t *o)
     }
     free(ov);
     free(copies);
+    return rc;
+}
+
+/* --cool-down idle: the target's engine settings and the baseline of every kept gauge, every
+ * endpoint answering (without one, "idle" means nothing). */
+static int idle_baseline(env_args_t *ea, out_t *o)
+{
+    if (!ea->idle)
+        return 0;
+    int rc = src_target_init(&ea->target, ea->loaded, false, o);
+    if (rc == 0)
+        rc = scrape_once(ea->loaded, &ea->target.eng, o, &ea->before);
+    for (size_t i = 0; rc == 0 && i < ea->before.n_ep; i++)
+        if (ea->before.failed[i]) {
+            out_error(o, "--cool-down idle: cannot read the idle values: %s", ea->before.error);
+            rc = SQ_EIO;
+        }
+    if (rc == 0)
+        out_info(o, "envelope: idle baseline of %zu gauge series", ea->before.n);
     return rc;
 }
 
@@ -372,8 +472,12 @@ static int envelope_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     code = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
     if (err)
         goto out;
+    if (ea.idle && ea.loaded->n_scrapes == 0) {
+        code = cli_usage_error(cmd, o, "--cool-down idle needs observe.metrics in the plan");
+        goto out;
+    }
     code = SQ_EXIT_FAILURE;
-    if (make_dirs(&ea, o) || envelope_new(&ea.cfg, &e))
+    if (make_dirs(&ea, o) || envelope_new(&ea.cfg, &e) || idle_baseline(&ea, o))
         goto out;
     struct sigaction sa = {.sa_handler = on_signal}, old_int, old_term;
     sigemptyset(&sa.sa_mask);
@@ -389,6 +493,10 @@ static int envelope_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     code = exit_code(e, rc);
 out:
     envelope_free(e);
+    scrape_gauges_free(&ea.before);
+    if (ea.loaded)
+        src_target_close(&ea.target);
+    plan_free(ea.loaded);
     for (int d = 0; d < ea.cfg.n_dims; d++)
         free((char *)ea.cfg.dims[d].path);
     free(ea.sets);
@@ -402,7 +510,11 @@ const cli_cmd_t cli_cmd_envelope = {
     .description =
         "Each point is a whole `squall run` of the plan (this binary, as a child process) with\n"
         "--set PATH=VALUE, brakes on, its teardown done before it ends, and --cool-down between\n"
-        "runs. A point holds only if every one of its --repeats runs passes (a run that does not\n"
+        "runs: a fixed pause, or `idle[:MAX]` (the plan needs observe.metrics): every kept gauge\n"
+        "series is scraped once before the first run (its idle value) and every second after\n"
+        "each run until |now - idle| <= max(10% of |idle|, 0.5) for all, for MAX at most\n"
+        "(default 60s); the next run then starts anyway (envelope.json: each run's cool_down).\n"
+        "A point holds only if every one of its --repeats runs passes (a run that does not\n"
         "pass ends the point's repeats); an INCONCLUSIVE run is run again once, and a point that\n"
         "stays INCONCLUSIVE never holds: the answer says what limited it. One --vary: doubling "
         "from FROM until a point does not hold (never beyond\n"

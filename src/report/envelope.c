@@ -280,3 +280,9 @@ int envelope_dim_parse(const char *text, envelope_dim_t *d, char *err, size_t ca
     d->resolution = d->integer ? fmax(1, floor((d->to - d->from) / 32)) : (d->to - d->from) / 32;
     return 0;
 }
+
+bool envelope_back_to_idle(double idle, double now)
+{
+    double d = fabs(now - idle), share = ENVELOPE_IDLE_SHARE * fabs(idle);
+    return d <= (share > ENVELOPE_IDLE_FLOOR ? share : ENVELOPE_IDLE_FLOOR);
+}

@@ -92,6 +92,25 @@ static json_t *num(double v)
     return isnan(v) ? json_null() : json_real(v);
 }
 
+/* The cool-down before a run: null before the first (or with none). */
+static json_t *cool_json(const envelope_run_t *r)
+{
+    if (r->cool_mode == 0)
+        return json_null();
+    json_t *c = json_pack("{s:s, s:f}", "mode", r->cool_mode == 1 ? "fixed" : "idle", "seconds",
+                          r->cool_s);
+    if (c && r->cool_mode == 2) {
+        json_t *bad = json_array();
+        char copy[sizeof r->not_idle], *save = NULL;
+        snprintf(copy, sizeof copy, "%s", r->not_idle);
+        for (char *t = strtok_r(copy, "\n", &save); bad && t; t = strtok_r(NULL, "\n", &save))
+            json_array_append_new(bad, json_string(t));
+        json_object_set_new(c, "back_to_idle", json_boolean(r->cool_idle));
+        json_object_set_new(c, "not_idle", bad ? bad : json_array());
+    }
+    return c ? c : json_null();
+}
+
 static json_t *runs_json(const envelope_t *e)
 {
     json_t *a = json_array();
@@ -101,12 +120,14 @@ static json_t *runs_json(const envelope_t *e)
         json_t *vals = json_array();
         for (int d = 0; d < cfg->n_dims; d++)
             json_array_append_new(vals, json_real(r->v[d]));
-        json_array_append_new(a, json_pack("{s:I, s:o, s:i, s:s, s:i, s:I, s:s, s:s?, s:s?}", "run",
+        json_array_append_new(a, json_pack("{s:I, s:o, s:i, s:s, s:i, s:I, s:s, s:s?, s:s?, s:o}",
+                                           "run",
                                            (json_int_t)i + 1, "values", vals, "repeat", r->repeat,
                                            "verdict", verdict_words[r->verdict], "exit_code",
                                            r->exit_code, "objects_left", (json_int_t)r->left, "dir",
                                            r->dir, "broke", r->broke[0] ? r->broke : NULL,
-                                           "limited", r->limited[0] ? r->limited : NULL));
+                                           "limited", r->limited[0] ? r->limited : NULL,
+                                           "cool_down", cool_json(r)));
     }
     return a;
 }
@@ -163,7 +184,7 @@ static int fill_csv(FILE *f, void *ctx)
         csv_field(f, cfg->dims[d].path);
         fputc(',', f);
     }
-    fputs("repeat,verdict,exit_code,broke,limited,dir\n", f);
+    fputs("repeat,verdict,exit_code,broke,limited,dir,cool_down_s,back_to_idle\n", f);
     for (size_t i = 0; i < envelope_run_count(e); i++) {
         const envelope_run_t *r = envelope_run_at(e, i);
         fprintf(f, "%zu,", i + 1);
@@ -175,7 +196,11 @@ static int fill_csv(FILE *f, void *ctx)
         csv_field(f, r->limited);
         fputc(',', f);
         csv_field(f, r->dir);
-        fputc('\n', f);
+        if (r->cool_mode)
+            fprintf(f, ",%.3f,", r->cool_s);
+        else
+            fputs(",,", f);
+        fputs(r->cool_mode == 2 ? (r->cool_idle ? "yes\n" : "no\n") : "\n", f);
     }
     return ferror(f) ? SQ_EIO : 0;
 }

@@ -601,3 +601,73 @@ void scrape_free(scrape_t *s)
     free(s->ep);
     free(s);
 }
+
+/* ---- once --------------------------------------------------------------------------------- */
+
+static int gauges_collect(const struct scrape *s, scrape_gauges_t *out)
+{
+    out->g = calloc(s->n_series ? s->n_series : 1, sizeof *out->g);
+    if (out->g == NULL)
+        return SQ_ENOMEM;
+    for (size_t i = 0; i < s->n_series; i++) {
+        const series_t *r = &s->series[i];
+        if (r->type != EXPO_GAUGE || r->n == 0)
+            continue;
+        size_t len = strlen(r->name) + strlen(r->labels) + 3;
+        char *name = malloc(len);
+        if (name == NULL)
+            return SQ_ENOMEM;
+        snprintf(name, len, r->labels[0] ? "%s{%s}" : "%s", r->name, r->labels);
+        out->g[out->n++] = (scrape_gauge_t){r->endpoint, name, r->v[r->n - 1]};
+    }
+    return 0;
+}
+
+int scrape_once(const plan_t *plan, const eng_config_t *target, out_t *o, scrape_gauges_t *out)
+{
+    *out = (scrape_gauges_t){0};
+    uv_loop_t loop;
+    if (uv_loop_init(&loop) != 0)
+        return SQ_ELIBUV;
+    scrape_t *s = NULL;
+    int rc = scrape_new(&loop, plan, target, o, &s);
+    for (size_t i = 0; rc == 0 && s && i < s->n_ep; i++)
+        on_tick(&s->ep[i].timer); /* what the run's first tick does, without the timer */
+    for (bool busy = true; rc == 0 && busy;) {
+        busy = false;
+        for (size_t i = 0; s && i < s->n_ep; i++)
+            busy |= s->ep[i].busy;
+        if (busy)
+            uv_run(&loop, UV_RUN_ONCE); /* each scrape ends by its own timeout at the latest */
+    }
+    if (rc == 0 && s) {
+        out->n_ep = s->n_ep;
+        out->failed = calloc(s->n_ep, sizeof *out->failed);
+        rc = out->failed ? gauges_collect(s, out) : SQ_ENOMEM;
+        for (size_t i = 0; out->failed && i < s->n_ep; i++) {
+            out->failed[i] = s->ep[i].ok == 0;
+            if (out->failed[i] && !out->error[0])
+                snprintf(out->error, sizeof out->error, "%.280s: %s", s->ep[i].ps->at.url,
+                         s->ep[i].last_error);
+        }
+    }
+    scrape_stop(s);
+    uv_run(&loop, UV_RUN_DEFAULT); /* the closes */
+    scrape_free(s);
+    if (uv_loop_close(&loop) != 0 && rc == 0)
+        rc = SQ_ELIBUV;
+    if (rc != 0)
+        scrape_gauges_free(out);
+    return rc;
+}
+
+void scrape_gauges_free(scrape_gauges_t *g)
+{
+    for (size_t i = 0; g && i < g->n; i++)
+        free(g->g[i].series);
+    if (g) {
+        free(g->g);
+        free(g->failed);
+        *g = (scrape_gauges_t){0};
+    }
+}

@@ -99,19 +99,20 @@ expect "the target served everything: no request left queued" test "$(serve_stat
 # --- Teardown between points: a plan that creates objects --------------------------------
 # Each point's run deletes what it created before the next starts: the target's own object
 # count (/stats, an outside view) is back to the one object it held, and every run's
-# lifecycle.teardown deleted all it created.
+# lifecycle.teardown deleted all it created. Rates 50, 100 and 150/s stay below the target's
+# 200/s (at 200/s a run on a loaded machine failed its p99 and the search made two runs only).
 cat >"$T/make.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 200, timeout: 10s}
 requests:
   make: {kind: write, method: PUT, path: "/v1/sites/north/made/gw-{{seq}}", body: '{"m":1}',
          creates: true}
 phases:
-  - {name: steady, rate: 100/s, duration: 1s, mix: {make: 1}}
+  - {name: steady, rate: 100/s, duration: 2s, mix: {make: 1}}
 objectives:
   - {class: make, p99: 70ms}
 YAML
-timeout 120 "$SQUALL" envelope "$T/make.yaml" --vary phases.steady.rate=100/s..400/s \
-    --resolution 100/s --repeats 1 --max-runs 3 --cool-down 0s -o "$T/make" \
+timeout 120 "$SQUALL" envelope "$T/make.yaml" --vary phases.steady.rate=50/s..150/s \
+    --resolution 50/s --repeats 1 --max-runs 3 --cool-down 0s -o "$T/make" \
     >"$T/make.out" 2>"$T/make.err"
 J="$T/make/envelope.json"
 expect "creating plan: three runs, no objects left in any" \
@@ -123,6 +124,76 @@ for r in d['runs']:
     ok &= lc['created'] > 0 and lc['teardown']['deleted'] == lc['created']
 print(ok)")" = True
 expect "the target holds only its one object again (its /stats)" test "$(serve_stats "s['objects']")" = 1
+
+# --- Cool-down until idle (--cool-down idle[:MAX]) ------------------------------------------
+# The plan observes the target's /metrics; a watch stream held open by curl (outside squall)
+# from 0.3 s into run 1 keeps the gauge squall_target_open_streams at 1 past the run's end.
+# The outside view of when it is back to 0 is the target's /stats, polled every 0.1 s by this
+# script: run 2 must start at or after that moment and within a few seconds of it (scrapes every
+# 1 s), with the cool-down recorded as back to idle. Held longer than MAX (idle:2s), the bound
+# passes first: run 2 starts anyway, before the stream ends, and the run records the series
+# that was not back.
+cat >"$T/idle.yaml" <<YAML
+target: {url: "$SERVE_URL", connections: 20, timeout: 10s}
+requests:
+  read: {kind: get, path: /v1/sites/north/gateways/gw-1}
+phases:
+  - {name: steady, rate: 60/s, duration: 2s, mix: {read: 1}}
+objectives:
+  - {class: read, p99: 2s}
+observe:
+  metrics:
+    - {url: /metrics, every: 1s, keep: [squall_target_open_streams, squall_target_objects]}
+YAML
+hold_watch() { # hold_watch DIR SECONDS: a watch from 0.3 s into run 1; /stats polled into DIR.stats
+    for _ in $(seq 200); do [ -e "$1/points/001.log" ] && break; sleep 0.05; done
+    sleep 0.3
+    curl -s -N --max-time "$2" "$SERVE_URL/v1/sites/north/gateways?watch=1" >/dev/null &
+    local n seen=
+    for _ in $(seq 150); do
+        n=$(serve_stats "s['streams']['open']")
+        echo "$(date +%s.%N) $n" >>"$1.stats"
+        [ "$n" = 1 ] && seen=1
+        [ -n "$seen" ] && [ "$n" = 0 ] && break
+        sleep 0.1
+    done
+}
+idle_search() { # idle_search NAME HOLD_S COOL
+    hold_watch "$T/$1" "$2" &
+    local h=$!
+    timeout 120 "$SQUALL" envelope "$T/idle.yaml" --vary phases.steady.rate=60/s..120/s \
+        --repeats 1 --max-runs 2 --cool-down "$3" -o "$T/$1" >"$T/$1.out" 2>"$T/$1.err"
+    echo $? >"$T/$1.rc"
+    wait $h
+    # J, START2 (run 2's start: its log's creation) and BACK (the stream closed, by /stats)
+    J="$T/$1/envelope.json"
+    START2=$(stat -c %.9Y "$T/$1/points/002.log")
+    BACK=$(/usr/bin/python3 -c "
+seen = False
+for l in open('$T/$1.stats'):
+    t, n = l.split()
+    seen |= n == '1'
+    if seen and n == '0':
+        print(t); break")
+    echo "   stream closed (/stats) at ${BACK:-never}, run 2 started at $START2: $(got "d['runs'][1]['cool_down']")"
+}
+idle_search idle 4 idle:20s
+expect "idle: two runs, exit 0 (got $(cat "$T/idle.rc"))" test "$(cat "$T/idle.rc") $(got "len(d['runs'])")" = "0 2"
+expect "idle: the target's /stats saw the stream open, then closed" test -n "$BACK"
+expect "idle: run 2 started after the gauge was back at 0 (/stats), within 3 s of it" \
+    test "$(/usr/bin/python3 -c "print(${BACK:-0} - 0.2 <= $START2 <= ${BACK:-0} + 3)")" = True
+expect "idle: the cool-down is recorded as back to idle after waiting over 1 s; none before run 1" \
+    test "$(run_py "c = d['runs'][1]['cool_down']; print(d['runs'][0]['cool_down'] is None and c['mode'] == 'idle' and c['back_to_idle'] and c['seconds'] > 1 and c['not_idle'] == [])")" = True
+idle_search bound 8 idle:2s
+expect "bound: both runs made (exit $(cat "$T/bound.rc"))" test "$(got "len(d['runs'])")" = 2
+expect "bound: run 2 started while the stream was still open (/stats)" \
+    test "$(/usr/bin/python3 -c "print($START2 < ${BACK:-1e12})")" = True
+expect "bound: the cool-down hit its 2 s bound and names the gauge that was not back" \
+    test "$(run_py "c = d['runs'][1]['cool_down']; print(not c['back_to_idle'] and 2 <= c['seconds'] < 5 and c['not_idle'] == ['squall_target_open_streams: now 1 (idle 0)'])")" = True
+grep -v observe "$T/idle.yaml" | grep -v metrics: | grep -v squall_target >"$T/noobs.yaml"
+"$SQUALL" envelope "$T/noobs.yaml" --vary phases.steady.rate=60/s..120/s --max-runs 1 \
+    --cool-down idle -o "$T/noobs" >/dev/null 2>&1
+expect "--cool-down idle without observe.metrics: a usage error (exit 2)" test $? = 2
 
 # --- 2-D: duration x rate ------------------------------------------------------------------
 plan "$T/two.yaml" 450

@@ -266,6 +266,22 @@ static void test_dim_parse(void **state)
     assert_non_null(strstr(err, "PATH=FROM..TO"));
 }
 
+/* The cool-down's rule as envelope.h states it: within max(10 % of |idle|, 0.5). */
+static void test_back_to_idle(void **state)
+{
+    (void)state;
+    assert_true(envelope_back_to_idle(0, 0));
+    assert_true(envelope_back_to_idle(0, 0.5));
+    assert_false(envelope_back_to_idle(0, 1)); /* a count that was 0 must be 0 again */
+    assert_false(envelope_back_to_idle(3, 4));
+    assert_true(envelope_back_to_idle(1000, 1100));
+    assert_true(envelope_back_to_idle(1000, 900));
+    assert_false(envelope_back_to_idle(1000, 1101));
+    assert_true(envelope_back_to_idle(-20, -22));
+    assert_false(envelope_back_to_idle(-20, -23));
+    assert_false(envelope_back_to_idle(5, NAN));
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -276,6 +292,7 @@ int main(void)
         cmocka_unit_test(test_staircase),
         cmocka_unit_test(test_integer_step),
         cmocka_unit_test(test_dim_parse),
+        cmocka_unit_test(test_back_to_idle),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
