@@ -353,11 +353,14 @@ static void figs_add(figs_t *f, const watcher_t *w)
     f->over += w->fr.st.oversize;
 }
 
-/* A one-shot stream ended: its figures join its class's and the watcher is freed. */
-static void once_end(watches_t *ws, watcher_t *w, const watch_end_t *end)
+/* A one-shot stream ended: its figures join its class's and the watcher is freed. One that
+ * squall closed at its hold time ended as planned; any other end is counted by the stream (a
+ * drop, a too-old answer), which is never reopened. */
+static void once_end(watches_t *ws, watcher_t *w, const watch_end_t *end, bool held)
 {
     int64_t delay;
-    watch_stream_ended(&w->st, end, &ws->rng, &delay); /* counts the end; never reopened */
+    if (!held)
+        watch_stream_ended(&w->st, end, &ws->rng, &delay);
     figs_add(&w->wc->ended, w);
     watch_framer_close(&w->fr);
     free(w->path);
@@ -406,7 +409,7 @@ static void on_stream_done(void *user, const eng_result_t *res)
         .got_events = stream && w->got_events,
     };
     if (ws->once) {
-        once_end(ws, w, &end);
+        once_end(ws, w, &end, held);
         return;
     }
     if (!ws->active)
