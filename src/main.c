@@ -14,12 +14,19 @@ int main(int argc, char **argv)
     }
     cli_use_table(cli_commands);
     int rc;
-    if (argc < 2 || strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0) {
+    if (argc < 2) {
+        /* A usage mistake: the overview is talk then, on stderr, and stdout stays empty. */
+        out_t *e = out_new_file(stderr, stderr);
+        if (e)
+            cli_print_overview(e);
+        out_free(e);
+        rc = SQ_EXIT_USAGE;
+    } else if (strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0) {
         cli_print_overview(o);
-        rc = argc < 2 ? SQ_EXIT_USAGE : SQ_EXIT_OK;
-    } else if (strcmp(argv[1], "--version") == 0) {
-        out_print(o, "squall %s\n", SQUALL_VERSION);
         rc = SQ_EXIT_OK;
+    } else if (strcmp(argv[1], "--version") == 0 || strcmp(argv[1], "-V") == 0) {
+        /* The same words as `squall version`: one command answers all three. */
+        rc = cli_find("version")->main(cli_find("version"), 0, argv + 2, o);
     } else {
         const cli_cmd_t *cmd = cli_find(argv[1]);
         if (cmd) {

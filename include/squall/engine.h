@@ -51,6 +51,7 @@ enum eng_http { ENG_HTTP_1_1 = 0, ENG_HTTP_2 = 1 };
     X(RESET, "reset")                                                                              \
     X(VERSION, "http-version")                                                                     \
     X(OTHER, "transport-other")                                                                    \
+    X(BODY, "body-too-large")                                                                      \
     X(CANCELLED, "cancelled")
 
 enum eng_outcome {
@@ -70,6 +71,9 @@ typedef struct {
     int connections;    /* connection cap, >= 1 */
     int streams;        /* HTTP/2 streams per connection, >= 1 (0 = 100); ignored for 1.1 */
     int64_t timeout_ms; /* default per-request timeout (0 = none) */
+    /* A kept body (keep_body) longer than this many bytes ends its request at once with outcome
+     * "body-too-large"; 0 = 16 MiB. Streamed bodies (on_data) are the caller's to bound. */
+    int64_t max_body;
     /* TLS: files are paths (NULL = libcurl's defaults). Verification is on unless `insecure`;
      * the caller prints the warning. */
     const char *ca_file, *cert_file, *key_file;
@@ -81,7 +85,9 @@ typedef struct {
     const char *const *headers;
     size_t n_headers;
     /* Unreachability: after `unreachable_after` consecutive connect-refused or resolve outcomes
-     * with no HTTP response in between (0 = 3), on_unreachable (if set) is called once. With
+     * with no HTTP response in between (0 = 3), on_unreachable (if set) is called once; so it
+     * is at the first TLS verification failure (why: "fails TLS verification: ..." with
+     * libcurl's message). With
      * HTTP/2 the target is also unusable when it answers over HTTP/1.x (at once), or when
      * `unreachable_after` prior-knowledge openers in a row fail before any HTTP/2 answer was
      * ever seen (a server without cleartext HTTP/2 closes on the preface). eng_stats' why says
@@ -134,7 +140,9 @@ typedef void (*eng_done_cb)(void *user, const eng_result_t *res);
 
 typedef struct {
     const char *method; /* NULL or "GET"; "POST", "PUT", "PATCH", "DELETE", ... */
-    const char *path;   /* appended to base_url; copied */
+    const char *path;   /* appended to base_url's path, never parsed as a URL: up to a '#'
+                           (a fragment is never sent) it must pass value_path_problem
+                           (squall/value.h); copied */
     const char *body;   /* copied; NULL = no body */
     size_t body_len;
     const char *const *headers; /* extra headers for this request only, "Name: value"; copied */
@@ -143,6 +151,9 @@ typedef struct {
     int64_t intended_ns; /* 0 = now */
     bool keep_body;      /* keep the body for on_done (list pagination tokens) */
     eng_data_cb on_data; /* optional */
+    /* Optional: called once when the final response's status line and headers have arrived
+     * (1xx answers skipped), with its status, before any on_data. */
+    void (*on_head)(void *user, long status);
     eng_done_cb on_done; /* required */
     void *user;
 } eng_req_t;
@@ -161,16 +172,22 @@ typedef struct {
     int64_t window_ns;            /* length of the window */
     int64_t submitted, completed; /* totals since eng_new */
     int64_t by_outcome[ENG_OUT_COUNT];
-    bool unreachable; /* the unreachable condition has been met */
-    const char *why;  /* then: what the target did, e.g. "refuses connections" (static) */
+    bool unreachable; /* the unreachable condition has been met (once: it stays set) */
+    const char *why;  /* then: what the target did, e.g. "refuses connections" (valid while the
+                         engine lives) */
 } eng_stats_t;
+
+/* eng_stats' why when the refused or unresolved streak made the target unreachable. */
+#define ENG_WHY_REFUSED "refuses connections"
+#define ENG_WHY_RESOLVE "does not resolve"
 
 /* Creates an engine on `loop`. Ignores SIGPIPE for the process (libcurl runs with NOSIGNAL=1).
  * Returns 0 and sets *out, or SQ_EINVAL (bad config, reason through `o`), SQ_ENOMEM,
  * SQ_ELIBCURL, SQ_ELIBUV. `o` must outlive the engine. */
 int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
 
-/* Queues one request; its fields are copied. Returns 0, or SQ_EINVAL (no on_done, no path),
+/* Queues one request; its fields are copied. Returns 0, or SQ_EINVAL (no on_done, no path, a path
+ * that is not one: a control byte, a space, no leading '/'),
  * SQ_ESTOPPED (after eng_stop), SQ_ENOMEM. A call that fails never calls on_done; a call that
  * succeeds calls it exactly once, never from inside eng_submit. */
 int eng_submit(eng_t *e, const eng_req_t *req);

@@ -3,6 +3,7 @@
 #ifndef SQUALL_FILE_H
 #define SQUALL_FILE_H
 
+#include <stdint.h>
 #include <stdio.h>
 
 #include "squall/out.h"
@@ -14,5 +15,10 @@
  * the temporary file is removed, `path` is left as it was, one line naming the file and the
  * reason goes to `o` ("cannot write PATH: REASON"), and SQ_EIO is returned. */
 int file_write_atomic(const char *path, int (*fill)(FILE *f, void *ctx), void *ctx, out_t *o);
+
+/* Raises this process's soft open-files limit (RLIMIT_NOFILE) to its hard limit, as `run` and
+ * `serve` do at start (a server holding thousands of streams, a run opening thousands of
+ * watches). Returns the soft limit now, UINT64_MAX when unlimited, 0 when it cannot be read. */
+uint64_t file_raise_limit(void);
 
 #endif

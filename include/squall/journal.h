@@ -29,7 +29,8 @@
 #include "squall/engine.h"
 #include "squall/out.h"
 
-#define JOURNAL_FILE "journal.ndjson" /* its name inside a results directory */
+#define JOURNAL_FILE    "journal.ndjson" /* its name inside a results directory */
+#define JOURNAL_VERSION 1                /* the header's "squall_journal" */
 
 typedef struct journal journal_t;
 
@@ -58,8 +59,10 @@ typedef struct {
     size_t created, deleted;
 } journal_alive_t;
 
-/* Reads a journal. Torn or malformed lines are reported (a warning naming the line) and skipped;
- * a missing or unreadable file, or one without a header, is SQ_EIO / SQ_EPARSE (reported). */
+/* Reads a journal. Torn or malformed lines, and records whose path is not a request path
+ * (value_path_problem), are reported (a warning naming the line) and skipped; a missing or
+ * unreadable file, or one without a header or of another version than JOURNAL_VERSION, is
+ * SQ_EIO / SQ_EPARSE (reported). */
 int journal_read(const char *path, journal_alive_t *a, out_t *o);
 void journal_alive_close(journal_alive_t *a);
 

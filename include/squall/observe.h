@@ -93,6 +93,8 @@ typedef struct {
     const eng_stats_t *eng;                /* the main engine's window (peaks of the second) */
     int in_flight;                         /* requests of the run not finished at the end */
     int64_t busy_since_ns, last_answer_ns; /* in_flight last went 0 -> 1; the last answer */
+    int64_t unanswered_since_ns; /* the first request that ended without an HTTP answer
+                                    (refused, reset, timeout, ...) since the last answer; 0 */
     const char *marks;       /* instants marked in the second (obs_mark), ';'-separated */
     const char *brake_fired; /* the brake that stopped the run ("" while none has); the text
                                 fills during the brakes observer's own second() */
@@ -126,8 +128,9 @@ typedef struct {
      * NULL: none. The server listens from obs_open on (a check never listens). */
     const char *metrics_host;
     int metrics_port;
-    /* A brake fired: the conductor stops the run (called from obs_second). */
-    void (*brake)(void *user, const char *why);
+    /* A brake fired: the conductor stops the run (called from obs_second). kind is the brake's
+     * enum plan_brake_kind. */
+    void (*brake)(void *user, int kind, const char *why);
     void *user;
 } obs_cfg_t;
 

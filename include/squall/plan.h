@@ -54,6 +54,7 @@ typedef struct {
     int connections;    /* default 16 */
     int streams;        /* HTTP/2 streams per connection, 1..10000; 0 = not given (100) */
     int64_t timeout_ns; /* default 10 s; per-request classes may override */
+    int64_t max_body;   /* bytes of a response body squall keeps at most; default 16 MiB */
     plan_kv_t *headers;
     size_t n_headers;
     struct {
@@ -377,6 +378,49 @@ const char *plan_kind_name(enum plan_kind k);
  * any write but a DELETE or a `deletes` class, whatever `creates` says (RFC 9110, 15.3.2). */
 bool plan_req_may_create(const plan_req_t *r);
 const char *plan_backoff_name(enum plan_backoff b);
+
+/* Every key the loader accepts, per mapping of a plan (src/plan/keys.c): the loader checks each
+ * mapping against its set, so this table is the plan format's list of keys, and squall-plan(5)
+ * is tested against it. To add a key, add it to its set here and read it in its parser. */
+enum plan_keyset {
+    PLAN_KEYS_ROOT,
+    PLAN_KEYS_TARGET,
+    PLAN_KEYS_TLS,
+    PLAN_KEYS_TOKEN,
+    PLAN_KEYS_RANGE,
+    PLAN_KEYS_REQUEST,
+    PLAN_KEYS_RECONNECT,
+    PLAN_KEYS_PHASE,
+    PLAN_KEYS_RAMP,
+    PLAN_KEYS_STEP,
+    PLAN_KEYS_CLIENTS,
+    PLAN_KEYS_WATCHES, /* besides the watch class names */
+    PLAN_KEYS_FLEET,
+    PLAN_KEYS_SEND,
+    PLAN_KEYS_CHURN,
+    PLAN_KEYS_TEARDOWN,
+    PLAN_KEYS_REPLAY,
+    PLAN_KEYS_REWRITE,
+    PLAN_KEYS_CLASSIFY,
+    PLAN_KEYS_ACTION,
+    PLAN_KEYS_ACTION_HTTP,
+    PLAN_KEYS_OBJECTIVE,
+    PLAN_KEYS_BRAKE,
+    PLAN_KEYS_OBSERVE,
+    PLAN_KEYS_SCRAPE,
+    PLAN_KEYS_COLLECT,
+    PLAN_KEYS_N
+};
+typedef struct {
+    const char *where;       /* the mapping as squall-plan(5) names it, "" for the top level,
+                              * e.g. "target.tls", "requests.NAME", "phases[].fleet" */
+    const char *const *keys; /* NULL-terminated */
+    const unsigned *kinds;   /* per key, the request kinds it applies to (bit 1 << enum
+                              * plan_kind), or NULL when every key applies everywhere */
+} plan_keyset_t;
+extern const plan_keyset_t plan_keysets[PLAN_KEYS_N];
+/* The NULL-terminated keys of one set. */
+const char *const *plan_keys(enum plan_keyset s);
 
 #define PLAN_MAX_REQS 256 /* validation rejects plans with more classes */
 

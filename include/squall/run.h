@@ -26,6 +26,7 @@ typedef struct {
     bool insecure;           /* skip TLS verification (also target.tls.insecure); warns */
     bool no_brakes;          /* turn the default brakes off (plan brakes still apply) */
     bool quiet;              /* no live line, no summary table */
+    bool no_summary;         /* no summary table (the command line prints its own: --json) */
     bool has_seed;
     uint64_t seed;    /* overrides the plan's seed */
     int64_t grace_ns; /* after a signal or a brake: how long in-flight requests may take */
@@ -60,6 +61,7 @@ typedef struct run_result {
     enum judge_outcome outcome; /* pass; fail (an objective failed or had no data); inconclusive
                                    (the evidence cannot support a pass) */
     bool write_failed;          /* results.json, series.csv or report.html could not be written */
+    char dir[4096];             /* the results directory written ("" when none was made) */
 } run_result_t;
 
 /* Everything a run checks before it sends anything, and nothing more: the target's safety

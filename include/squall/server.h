@@ -54,6 +54,8 @@ typedef struct {
     uint64_t seed;           /* for the random faults */
     const char *access_log;  /* a file the target appends one line per request to, or NULL */
     bool access_log_ndjson;  /* NDJSON lines (profile's default fields); else Common Log Format */
+    int idle_timeout_s;      /* a connection idle this long is closed (suspended watch streams
+                                never time out: libmicrohttpd's rule); 0 = never */
     server_faults_t faults;
 } server_opts_t;
 

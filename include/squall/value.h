@@ -32,6 +32,21 @@ int value_parse_listen(const char *s, char *host, size_t cap, int *port);
 /* Whether host is an IPv4 address in 127.0.0.0/8 or IPv6 ::1. */
 bool value_is_loopback(const char *host);
 
+/* Sizes: a plain count of bytes, or <integer><unit> with unit B, KiB, MiB or GiB (powers of
+ * 1024): `65536`, `512KiB`, `32MiB`. SQ_EPARSE / SQ_ERANGE (beyond 1 TiB) as above. */
+int value_parse_bytes(const char *s, int64_t *bytes);
+
+/* Text that came from a target or a file and is about to become part of a request: a request
+ * path is '/' first, then only visible ASCII (0x21-0x7E) except '#', or bytes >= 0x80, and at
+ * most VALUE_PATH_MAX bytes (what reaches the request line as is: never a CR, an LF, a space or
+ * another control byte; never a scheme or an authority, which would be read as another host).
+ * Returns NULL when it is one, else what is wrong with it (static text, never the input). */
+const char *value_path_problem(const char *path);
+/* A token (a resume version, an opaque continuation): 1 to max bytes, visible ASCII only. */
+int value_token_ok(const char *s, size_t len, size_t max);
+
+#define VALUE_BYTES_EXPECTS    "a size like 65536, 512KiB or 32MiB"
+#define VALUE_PATH_MAX         8192
 #define VALUE_RATE_MAX         1e9
 #define VALUE_DURATION_EXPECTS "a duration like 250ms, 1.5s, 5m or 1h"
 #define VALUE_RATE_EXPECTS     "a rate like 500/s, 30/m or 2/h"

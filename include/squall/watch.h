@@ -102,6 +102,8 @@ void watch_framer_close(watch_framer_t *f);
 
 /* ---- fields of an event -------------------------------------------------------------------- */
 
+#define WATCH_VERSION_MAX 63 /* bytes of a version kept as a resume point */
+
 typedef struct {
     bool has_version;
     char version[64]; /* as text, for the resume query; numbers printed in decimal */
@@ -184,6 +186,7 @@ typedef struct {
     uint64_t version_num; /* for duplicate detection when numeric */
     bool version_numeric;
     int64_t opens, drops, reconnects, relists, too_old, duplicates;
+    int64_t bad_versions; /* versions refused: not 1..63 visible ASCII bytes (never sent back) */
     void (*on_state)(void *user, enum watch_state from, enum watch_state to); /* may be NULL */
     void *user;
 } watch_stream_t;

@@ -1,6 +1,7 @@
 /* `squall check PLAN [--set K=V]...`: validate a plan exactly as `run` does before it sends
  * (run_check) and print what it would do, from the sources' own models (src_estimate), without
  * sending anything. */
+#include <jansson.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -250,19 +251,175 @@ static void print_summary(const plan_t *p, const src_estimate_t *est, out_t *o)
                           p->phases[i].actions[k].argv[0]);
 }
 
+/* ---- --json: the same figures as data ------------------------------------------------- */
+
+#define CHECK_JSON_FORMAT  "squall-check"
+#define CHECK_JSON_VERSION 1
+
+static json_t *target_json(const plan_t *p)
+{
+    const plan_target_t *t = &p->target;
+    json_t *classes = json_array();
+    for (size_t i = 0; i < p->n_reqs; i++)
+        json_array_append_new(classes, json_pack("{s:s, s:s}", "name", p->reqs[i].name, "kind",
+                                                 plan_kind_name(p->reqs[i].kind)));
+    return json_pack("{s:s, s:s, s:i, s:f, s:b, s:o}", "url", t->url, "http",
+                     t->http == PLAN_HTTP_2 ? "2" : "1.1", "connections", t->connections,
+                     "timeout_s", t->timeout_ns / 1e9, "loopback", t->loopback, "classes", classes);
+}
+
+static json_t *shape_json(const plan_phase_t *ph)
+{
+    static const char *const shape[] = {"none", "constant", "ramp", "steps"};
+    json_t *j = json_pack("{s:s, s:s}", "shape", shape[ph->shape], "arrivals",
+                          ph->arrivals == PLAN_ARRIVALS_POISSON ? "poisson" : "even");
+    if (ph->shape == PLAN_LOAD_CONSTANT)
+        json_object_set_new(j, "rate", json_real(ph->rate));
+    else if (ph->shape == PLAN_LOAD_RAMP)
+        json_object_set_new(j, "ramp",
+                            json_pack("{s:f, s:f}", "from", ph->ramp_from, "to", ph->ramp_to));
+    else if (ph->shape == PLAN_LOAD_STEPS)
+        json_object_set_new(j, "steps", json_integer((json_int_t)ph->n_steps));
+    return j;
+}
+
+/* One phase: its shape and every expected figure of src_estimate. */
+static json_t *phase_json(const plan_t *p, size_t i, const src_estimate_t *e)
+{
+    const plan_phase_t *ph = &p->phases[i];
+    json_t *per = json_object();
+    for (size_t k = 0; k < p->n_reqs; k++)
+        if (e->per_class[k] > 0)
+            json_object_set_new(per, p->reqs[k].name, json_real(e->per_class[k]));
+    json_t *j = json_pack(
+        "{s:s, s:o, s:o, s:o, s:f, s:f, s:f, s:b, s:b, s:i, s:i, s:i, s:f, s:f, s:f, s:f, s:b}",
+        "name", ph->name, "duration_s",
+        e->open_ended ? json_null() : json_real(e->duration_ns / 1e9), "load", shape_json(ph),
+        "expected", per, "requests", e->requests, "peak_rate", e->peak_rate, "burst", e->burst,
+        "closed_loop", e->closed_loop, "upper_bound", e->closed_loop && e->bounded, "clients",
+        e->clients, "watches", e->watches, "agents", e->agents, "created", e->created, "deleted",
+        e->deleted, "alive_after", e->alive_after, "may_create", e->may_create, "teardown",
+        ph->teardown.on);
+    if (ph->fleet.on)
+        json_object_set_new(j, "fleet",
+                            json_pack("{s:i, s:f}", "agents", ph->fleet.agents, "every_s",
+                                      ph->fleet.every_ns / 1e9));
+    if (ph->churn.on)
+        json_object_set_new(
+            j, "churn",
+            json_pack("{s:f, s:i}", "rate", ph->churn.rate, "population", ph->churn.population));
+    if (ph->replay.on)
+        json_object_set_new(
+            j, "replay", json_pack("{s:s, s:f}", "log", ph->replay.log, "speed", ph->replay.speed));
+    return j;
+}
+
+/* An objective as the run will judge it; a percentile of one class carries the samples the
+ * plan expects per scope (each phase it runs in, and the run) and how many the judge needs. */
+static json_t *objective_json(const plan_t *p, const src_estimate_t *est,
+                              const plan_objective_t *ob)
+{
+    static const char *const metric[] = {"response", "service", "open", "propagation"};
+    static const char *const limit[] = {"percentile", "error-rate", "min-rate"};
+    json_t *j = json_pack("{s:o, s:o, s:s}", "class",
+                          ob->cls.index < 0 ? json_null() : json_string(ob->cls.name), "phase",
+                          ob->phase.index < 0 ? json_null() : json_string(ob->phase.name), "limit",
+                          limit[ob->limit]);
+    if (ob->limit == PLAN_LIMIT_PERCENTILE) {
+        json_object_set_new(j, "percentile", json_real(ob->percentile));
+        json_object_set_new(j, "metric", json_string(metric[ob->metric]));
+        json_object_set_new(j, "max_s", json_real(ob->max_ns / 1e9));
+    } else {
+        json_object_set_new(j, "value", json_real(ob->value));
+    }
+    if (ob->limit != PLAN_LIMIT_PERCENTILE || ob->cls.index < 0)
+        return j;
+    json_t *scopes = json_array();
+    for (int i = -1; i < (int)p->n_phases; i++) {
+        if (ob->phase.index >= 0
+                ? i != ob->phase.index
+                : i >= 0 && (p->phases[i].teardown.on || est[i].per_class[ob->cls.index] <= 0))
+            continue;
+        json_array_append_new(scopes,
+                              json_pack("{s:o, s:f}", "phase",
+                                        i < 0 ? json_null() : json_string(p->phases[i].name),
+                                        "expected", expected_of(p, est, ob->cls.index, i)));
+    }
+    json_object_set_new(j, "samples_needed",
+                        json_integer((json_int_t)judge_samples_needed(ob->percentile)));
+    json_object_set_new(j, "expected_samples", scopes);
+    return j;
+}
+
+static json_t *brake_json(const plan_brake_t *b)
+{
+    static const char *const kind[] = {"error-rate", "percentile", "unreachable", "saturation"};
+    json_t *j = json_pack("{s:s, s:o, s:f}", "kind", kind[b->kind], "class",
+                          b->cls.index < 0 ? json_null() : json_string(b->cls.name), "for_s",
+                          b->for_ns / 1e9);
+    if (b->kind == PLAN_BRAKE_ERROR_RATE)
+        json_object_set_new(j, "value", json_real(b->value));
+    else if (b->kind == PLAN_BRAKE_PERCENTILE)
+        json_object_set_new(j, "percentile", json_real(b->percentile));
+    if (b->kind == PLAN_BRAKE_PERCENTILE || b->kind == PLAN_BRAKE_UNREACHABLE)
+        json_object_set_new(j, "max_s", json_real(b->max_ns / 1e9));
+    return j;
+}
+
+/* The plan as understood, with every expected figure: what the text summary says, as data. */
+static json_t *check_json(const char *path, const plan_t *p, const src_estimate_t *est)
+{
+    json_t *phases = json_array(), *objectives = json_array(), *brakes = json_array(),
+           *accept = json_array();
+    double total = 0, peak = 0;
+    int64_t dur = 0;
+    for (size_t i = 0; i < p->n_phases; i++) {
+        json_array_append_new(phases, phase_json(p, i, &est[i]));
+        total += est[i].requests;
+        peak = est[i].peak_rate > peak ? est[i].peak_rate : peak;
+        dur += est[i].duration_ns;
+    }
+    bool all_errors = false;
+    for (size_t i = 0; i < p->n_objectives; i++) {
+        json_array_append_new(objectives, objective_json(p, est, &p->objectives[i]));
+        all_errors |=
+            p->objectives[i].limit == PLAN_LIMIT_ERROR_RATE && p->objectives[i].cls.index < 0;
+    }
+    for (size_t i = 0; i < p->n_brakes; i++)
+        json_array_append_new(brakes, brake_json(&p->brakes[i]));
+    for (size_t i = 0; p->accept && plan_accept_names[i]; i++)
+        if (p->accept & 1u << i)
+            json_array_append_new(accept, json_string(plan_accept_names[i]));
+    return json_pack("{s:s, s:i, s:s, s:b, s:o, s:o, s:{s:f, s:f, s:f}, s:o, s:o, s:o, s:o}",
+                     "format", CHECK_JSON_FORMAT, "version", CHECK_JSON_VERSION, "plan", path,
+                     "valid", 1, "target", target_json(p), "phases", phases, "total", "duration_s",
+                     dur / 1e9, "requests", total, "peak_rate", peak, "objectives", objectives,
+                     "default_error_rate",
+                     all_errors ? json_null() : json_real(JUDGE_DEFAULT_ERROR_RATE), "brakes",
+                     brakes, "accept", accept);
+}
+
 /* What `run` checks before it sends (the target's safety aside: check warns about that), then
- * the estimates. The plan is freed. */
-static int validate_and_print(const char *path, plan_t *p, out_t *o)
+ * the estimates, as text or JSON. The plan is freed. */
+static int validate_and_print(const char *path, plan_t *p, bool as_json, out_t *o)
 {
     run_opts_t ro = {.confirm_target = true, .allow_exec = true};
     src_estimate_t *est = calloc(p->n_phases ? p->n_phases : 1, sizeof(*est));
     int rc = est ? run_check(p, &ro, o) : SQ_ENOMEM;
     if (rc == 0)
         rc = src_estimate(p, run_seed(p, &ro), clock_real_ns(), o, est);
-    if (rc == 0) {
+    json_t *j = rc == 0 && as_json ? check_json(path, p, est) : NULL;
+    char *text = j ? json_dumps(j, JSON_INDENT(2)) : NULL;
+    if (rc == 0 && as_json && !text)
+        rc = SQ_ENOMEM;
+    else if (text)
+        out_print(o, "%s\n", text);
+    if (rc == 0 && !as_json) {
         out_print(o, "plan     %s: valid\n", path);
         print_summary(p, est, o);
     }
+    free(text);
+    json_decref(j);
     free(est);
     plan_free(p);
     return rc;
@@ -270,6 +427,7 @@ static int validate_and_print(const char *path, plan_t *p, out_t *o)
 
 static const cli_opt_t check_opts[] = {
     {"set", 0, "KEY=VALUE", "override a plan value, e.g. phases.steady.rate=100/s (repeatable)"},
+    {"json", 0, NULL, "print the plan as understood, with every expected figure, as JSON"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -278,6 +436,7 @@ typedef struct {
     plan_override_t *sets;
     char **copies; /* KEY=VALUE copies split at '=' */
     size_t n;
+    bool json;
 } check_args_t;
 
 /* One word of argv into *ca (cli_take_fn): the plan, or a --set. */
@@ -286,6 +445,10 @@ static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void 
     check_args_t *ca = ctx;
     if (k == CLI_POSITIONAL)
         return cli_take_one(cmd, &ca->path, v, "plan", o);
+    if (k == 1) {
+        ca->json = true;
+        return -1;
+    }
     if (plan_override_split(v, &ca->sets[ca->n], &ca->copies[ca->n]))
         return cli_usage_error(cmd, o, "--set needs KEY=VALUE, got '%s'", v);
     ca->n++;
@@ -313,7 +476,7 @@ static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         plan_t *p;
         int err = plan_load(ca.path, ca.sets, ca.n, &p, o);
         if (err == 0)
-            err = validate_and_print(ca.path, p, o);
+            err = validate_and_print(ca.path, p, ca.json, o);
         rc = err == 0 ? SQ_EXIT_OK : err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
     }
     for (size_t i = 0; ca.copies && i < ca.n; i++)
@@ -326,13 +489,14 @@ static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 const cli_cmd_t cli_cmd_check = {
     .name = "check",
     .summary = "validate a plan and print what it would send, without sending anything",
-    .usage = "PLAN.yaml [--set KEY=VALUE]...",
+    .usage = "PLAN.yaml [--set KEY=VALUE]... [--json]",
     .description = "Reads the plan (and its includes) and validates it exactly as `run` does\n"
                    "before sending (templates, sources, token, open files), reports every\n"
                    "problem as FILE:LINE:COL: error: ..., and exits 2 if there is any.\n"
                    "Otherwise prints, per phase, the expected requests per class (the same model\n"
                    "the run plans with), peak rate, watches, agents and objects created and\n"
-                   "deleted.",
+                   "deleted. With --json the same figures are printed as one JSON document\n"
+                   "(format \"squall-check\", version 1) instead of the text.",
     .opts = check_opts,
     .main = check_main,
 };

@@ -1,6 +1,7 @@
 /* `squall cleanup RESULTS_DIR|JOURNAL`: delete whatever a run's journal shows still alive (after a
  * crash, a kill -9, --keep, or a run on another machine), idempotently, and report counts. */
 #include <arpa/inet.h>
+#include <jansson.h>
 #include <stdlib.h>
 #include <string.h>
 #include <sys/stat.h>
@@ -21,7 +22,8 @@ enum {
     OPT_CA,
     OPT_TOKEN_ENV,
     OPT_PLAN,
-    OPT_SET
+    OPT_SET,
+    OPT_JSON
 };
 
 static const cli_opt_t cleanup_opts[] = {
@@ -37,12 +39,13 @@ static const cli_opt_t cleanup_opts[] = {
     [OPT_PLAN] = {"plan", 0, "PLAN.yaml",
                   "the run's plan: its target's headers, TLS and token go with every delete"},
     [OPT_SET] = {"set", 0, "KEY=VALUE", "override a value of --plan (repeatable)"},
+    [OPT_JSON] = {"json", 0, NULL, "print what was deleted, left and not tried as JSON"},
     {NULL, 0, NULL, NULL},
 };
 
 typedef struct {
     const char *input, *ca, *token_env, *plan;
-    bool confirm, dry_run, insecure;
+    bool confirm, dry_run, insecure, json;
     double rate;
     int connections;
     plan_override_t sets[64];
@@ -91,6 +94,9 @@ static int take_opt(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *
         break;
     case OPT_DRY_RUN:
         ca->dry_run = true;
+        break;
+    case OPT_JSON:
+        ca->json = true;
         break;
     case OPT_INSECURE:
         ca->insecure = true;
@@ -179,9 +185,34 @@ static void on_result(void *user, size_t i, const eng_result_t *res, enum journa
         journal_add(x->j, JOURNAL_DELETED, x->alive->paths[i], x->alive->classes[i], 0);
 }
 
-/* Deletes every alive object; returns the exit code. */
+/* --json: every object by its fate, and the counts, into doc. */
+static void fates_json(json_t *doc, const journal_alive_t *al, const enum journal_fate *fates,
+                       const journal_reap_counts_t *c)
+{
+    static const char *const names[] = {[JOURNAL_LEFT] = "left",
+                                        [JOURNAL_DONE] = "deleted",
+                                        [JOURNAL_GONE] = "already_gone",
+                                        [JOURNAL_REFUSED] = "failed",
+                                        [JOURNAL_NOT_TRIED] = "not_tried"};
+    json_t *by = json_object();
+    for (size_t f = 0; f < sizeof names / sizeof names[0]; f++)
+        json_object_set_new(by, names[f], json_array());
+    for (size_t i = 0; i < al->n; i++)
+        json_array_append_new(json_object_get(by, names[fates[i]]), json_string(al->paths[i]));
+    json_object_set_new(doc, "objects", by);
+    json_object_set_new(doc, "counts",
+                        json_pack("{s:I, s:I, s:I, s:I, s:I}", "deleted", (json_int_t)c->done,
+                                  "already_gone", (json_int_t)c->gone, "failed",
+                                  (json_int_t)c->refused, "left", (json_int_t)c->left, "not_tried",
+                                  (json_int_t)c->not_tried));
+    json_object_set_new(doc, "seconds", json_real(c->elapsed_ns / 1e9));
+    json_object_set_new(doc, "stopped_early", c->why[0] ? json_string(c->why) : json_null());
+}
+
+/* Deletes every alive object; returns the exit code. With doc (--json) the outcome goes there
+ * instead of the results stream. */
 static int reap_alive(const cleanup_args_t *ca, const char *path, const journal_alive_t *al,
-                      out_t *o)
+                      json_t *doc, out_t *o)
 {
     cleanup_ctx_t x = {.alive = al};
     if (journal_open(path, al->target, o, &x.j))
@@ -211,6 +242,8 @@ static int reap_alive(const cleanup_args_t *ca, const char *path, const journal_
         if (uv_loop_close(&loop))
             out_warn(o, "internal: event loop closed with handles still open");
     }
+    if (rc == 0 && doc)
+        fates_json(doc, al, fates, &c);
     free(fates);
     src_target_close(&tgt);
     plan_free(plan);
@@ -222,7 +255,10 @@ static int reap_alive(const cleanup_args_t *ca, const char *path, const journal_
     }
     char text[200];
     size_t still = journal_counts_text(&c, text, sizeof text);
-    out_print(o, "cleanup %s: %s\n", al->target, text);
+    if (doc)
+        out_info(o, "cleanup %s: %s", al->target, text);
+    else
+        out_print(o, "cleanup %s: %s\n", al->target, text);
     if (c.why[0])
         out_warn(o, "stopped early: %s", c.why);
     if (still == 0)
@@ -250,12 +286,30 @@ static int cleanup_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     if ((rc = journal_read(path, &al, o)))
         return rc == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
     size_t unconfirmed = 0;
+    json_t *doc = NULL, *alive = NULL;
+    if (ca.json) {
+        alive = json_array();
+        for (size_t i = 0; i < al.n; i++)
+            json_array_append_new(alive, json_pack("{s:s, s:s, s:b}", "path", al.paths[i], "class",
+                                                   al.classes[i], "confirmed", al.confirmed[i]));
+        doc = json_pack("{s:s, s:i, s:s, s:s, s:b, s:{s:I, s:I, s:I, s:I}, s:o}", "format",
+                        "squall-cleanup", "version", 1, "journal", path, "target", al.target,
+                        "dry_run", ca.dry_run, "journal_lines", "read", (json_int_t)al.records,
+                        "skipped", (json_int_t)al.torn, "created", (json_int_t)al.created,
+                        "deleted", (json_int_t)al.deleted, "alive", alive);
+    }
     for (size_t i = 0; i < al.n; i++)
         unconfirmed += !al.confirmed[i];
-    out_print(o,
-              "journal %s: %zu lines (%zu skipped), %zu created, %zu deleted: %zu alive (%zu "
-              "never confirmed: their create got no clear answer)\n",
-              path, al.records, al.torn, al.created, al.deleted, al.n, unconfirmed);
+    if (doc)
+        out_info(o,
+                 "journal %s: %zu lines (%zu skipped), %zu created, %zu deleted: %zu alive (%zu "
+                 "never confirmed: their create got no clear answer)",
+                 path, al.records, al.torn, al.created, al.deleted, al.n, unconfirmed);
+    else
+        out_print(o,
+                  "journal %s: %zu lines (%zu skipped), %zu created, %zu deleted: %zu alive (%zu "
+                  "never confirmed: their create got no clear answer)\n",
+                  path, al.records, al.torn, al.created, al.deleted, al.n, unconfirmed);
     if (!url_is_loopback(al.target) && !ca.confirm) {
         out_error(o,
                   "target %s is not a loopback address: deleting on a shared system needs "
@@ -263,12 +317,21 @@ static int cleanup_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
                   al.target);
         rc = SQ_EXIT_USAGE;
     } else if (ca.dry_run) {
-        for (size_t i = 0; i < al.n; i++)
+        for (size_t i = 0; i < al.n && !doc; i++)
             out_print(o, "%s%s\n", al.paths[i], al.confirmed[i] ? "" : " (unconfirmed)");
         rc = SQ_EXIT_OK;
     } else {
-        rc = reap_alive(&ca, path, &al, o);
+        rc = reap_alive(&ca, path, &al, doc, o);
     }
+    /* The document is printed whenever the deletes were tried (or listed), whatever the
+     * outcome; a refused target or a failed start prints none. */
+    char *text = doc && (ca.dry_run || json_object_get(doc, "counts")) && rc != SQ_EXIT_USAGE
+                     ? json_dumps(doc, JSON_INDENT(2))
+                     : NULL;
+    if (text)
+        out_print(o, "%s\n", text);
+    free(text);
+    json_decref(doc);
     journal_alive_close(&al);
     for (size_t i = 0; i < ca.n_sets; i++)
         free(ca.copies[i]);
@@ -278,7 +341,7 @@ static int cleanup_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 const cli_cmd_t cli_cmd_cleanup = {
     .name = "cleanup",
     .summary = "delete the objects a run's journal shows still alive",
-    .usage = "RESULTS_DIR|JOURNAL [--dry-run] [--rate RATE] [--confirm-target] [options]",
+    .usage = "RESULTS_DIR|JOURNAL [--dry-run] [--rate RATE] [--confirm-target] [--json] [options]",
     .description =
         "Reads RESULTS_DIR/journal.ndjson (or the journal file given) and sends DELETE for\n"
         "every object it shows created and not yet deleted, to the target the journal names:\n"
@@ -294,7 +357,12 @@ const cli_cmd_t cli_cmd_cleanup = {
         "\n"
         "Give the run's plan with --plan (and its --set overrides) when the target needs\n"
         "headers, TLS files or a token: the deletes then carry target.headers, target.tls and\n"
-        "target.token exactly as the run's requests did.",
+        "target.token exactly as the run's requests did.\n"
+        "\n"
+        "With --json, stdout carries one JSON document (format \"squall-cleanup\", version 1):\n"
+        "the journal's counts, every alive object, and after the deletes each object under its\n"
+        "fate (deleted, already_gone, failed, left, not_tried) with the counts; the text lines\n"
+        "go to stderr.",
     .opts = cleanup_opts,
     .main = cleanup_main,
 };

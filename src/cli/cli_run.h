@@ -17,6 +17,7 @@ typedef struct {
     run_opts_t ro;
     char metrics_host[64]; /* --metrics ADDR:PORT */
     bool metrics_public;
+    bool json; /* --json: the summary as JSON on stdout instead of the table */
 } cli_run_args_t;
 
 /* The options of `run` (and `demo`), terminated by an entry with name == NULL. */
@@ -33,7 +34,10 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
 int cli_run_args_check(const cli_cmd_t *cmd, cli_run_args_t *ra, out_t *o);
 /* The exit code of run_plan's return code and result (enum sq_exit). */
 int cli_run_exit(int rc, const run_result_t *res);
-/* Runs the plan with the options and returns the exit code. */
-int cli_run_plan(const plan_t *p, const run_opts_t *ro, out_t *o);
+/* Runs the plan with the options and returns the exit code. With json, the summary on the
+ * results stream is one JSON document (format "squall-run", version 1): the results directory,
+ * the exit code, and results.json's "run" section (verdict, reasons, accepted) and "objectives"
+ * (every check). */
+int cli_run_plan(const plan_t *p, const run_opts_t *ro, bool json, out_t *o);
 
 #endif

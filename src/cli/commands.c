@@ -11,6 +11,8 @@ extern const cli_cmd_t cli_cmd_cleanup;
 extern const cli_cmd_t cli_cmd_report;
 extern const cli_cmd_t cli_cmd_compare;
 extern const cli_cmd_t cli_cmd_profile;
+extern const cli_cmd_t cli_cmd_completion;
+extern const cli_cmd_t cli_cmd_version;
 
 const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_help,
@@ -23,5 +25,7 @@ const cli_cmd_t *const cli_commands[] = {
     &cli_cmd_report,
     &cli_cmd_compare,
     &cli_cmd_profile,
+    &cli_cmd_completion,
+    &cli_cmd_version,
     NULL,
 };

@@ -72,23 +72,29 @@ static pid_t spawn_server(int port, out_t *o)
     return -1;
 }
 
-/* The demo plan: next to the binary's source tree (build/squall -> scenarios/), or here. */
+/* The demo plan: in the source tree of a binary built there (build/squall -> scenarios/), in
+ * the data directory of an installed one (bin/squall -> share/squall/scenarios/, which also
+ * holds for a staged install), in the data directory it was built for, or here. */
 static const char *find_plan(char *buf, size_t cap)
 {
-    char exe[4096];
-    ssize_t n = readlink("/proc/self/exe", exe, sizeof exe - 1);
-    if (n > 0) {
-        exe[n] = '\0';
-        char *slash = strrchr(exe, '/');
-        if (slash) {
-            *slash = '\0';
-            snprintf(buf, cap, "%s/../scenarios/demo.yaml", exe);
-            if (access(buf, R_OK) == 0)
-                return buf;
-        }
+    char dir[4096] = "";
+    ssize_t n = readlink("/proc/self/exe", dir, sizeof dir - 1);
+    char *slash = n > 0 ? (dir[n] = '\0', strrchr(dir, '/')) : NULL;
+    if (slash)
+        *slash = '\0';
+    const char *const beside[] = {"/../scenarios", "/" SQUALL_BIN_TO_DATA "/scenarios"};
+    for (size_t i = 0; slash && i < sizeof beside / sizeof beside[0]; i++) {
+        snprintf(buf, cap, "%s%s/demo.yaml", dir, beside[i]);
+        if (access(buf, R_OK) == 0)
+            return buf;
     }
-    snprintf(buf, cap, "scenarios/demo.yaml");
-    return access(buf, R_OK) == 0 ? buf : NULL;
+    const char *const fixed[] = {SQUALL_DATADIR "/scenarios/demo.yaml", "scenarios/demo.yaml"};
+    for (size_t i = 0; i < sizeof fixed / sizeof fixed[0]; i++) {
+        snprintf(buf, cap, "%s", fixed[i]);
+        if (access(buf, R_OK) == 0)
+            return buf;
+    }
+    return NULL;
 }
 
 /* The plan pointed at the target's port (after the user's own --set overrides). */
@@ -114,7 +120,7 @@ static int demo_run(const char *plan_path, const cli_run_args_t *ra, out_t *o)
     if (pid > 0) {
         out_info(o, "demo: the embedded target listens on %s (pid %d); running %s", url, (int)pid,
                  plan_path);
-        rc = cli_run_plan(p, &ra->ro, o);
+        rc = cli_run_plan(p, &ra->ro, ra->json, o);
         kill(pid, SIGTERM);
         waitpid(pid, NULL, 0);
     }
@@ -133,7 +139,10 @@ static int demo_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     char buf[4200];
     const char *plan_path = ra.path;
     if (rc < 0 && !plan_path && !(plan_path = find_plan(buf, sizeof buf)))
-        rc = cli_usage_error(cmd, o, "cannot find scenarios/demo.yaml; name a plan");
+        rc = cli_usage_error(cmd, o,
+                             "cannot find scenarios/demo.yaml (looked beside the binary, in "
+                             "%s/scenarios and here); name a plan",
+                             SQUALL_DATADIR);
     if (rc < 0)
         rc = demo_run(plan_path, &ra, o);
     cli_run_args_close(&ra);
@@ -146,8 +155,10 @@ const cli_cmd_t cli_cmd_demo = {
     .usage = "[PLAN.yaml] [-o DIR] [--set KEY=VALUE]... [--keep] [run options]",
     .description =
         "Starts `squall serve` on a free 127.0.0.1 port, points the plan (default\n"
-        "scenarios/demo.yaml) at it with --set target.url, runs it like `squall run` (with\n"
-        "the same options), and stops the target. Exit codes are those of `squall run`.",
+        "scenarios/demo.yaml of the source tree the binary was built in, else the installed\n"
+        "share/squall/scenarios/demo.yaml) at it with --set target.url, runs it like\n"
+        "`squall run` (with the same options), and stops the target. Exit codes are those of\n"
+        "`squall run`.",
     .opts = cli_run_opts,
     .main = demo_main,
 };

@@ -15,6 +15,7 @@
 static const cli_opt_t merge_opts[] = {
     {"output", 'o', "DIR", "results directory to create (required)"},
     {"force", 0, NULL, "replace DIR/results.json if it exists"},
+    {"json", 0, NULL, "print the merged run's summary and verdict as JSON"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -208,6 +209,25 @@ static void print_summary(const results_t *r, int n, const char *dir, const verd
         out_print(o, "  accepted by the plan: %s\n", json_string_value(why));
 }
 
+/* --json: the figures of print_summary and results.json's "run" section (verdict, reasons,
+ * accepted, inputs) and "objectives" section (every check) as written. */
+static void print_json(const results_t *r, int n, const char *dir, out_t *o)
+{
+    int64_t requests = 0;
+    for (size_t i = 0; i < results_cell_count(r); i++)
+        requests += results_cell_counters(results_cell_at(r, i))->count;
+    json_t *doc =
+        json_pack("{s:s, s:i, s:s, s:i, s:I, s:I, s:O?, s:O?}", "format", "squall-merge", "version",
+                  1, "results", dir, "inputs", n, "cells", (json_int_t)results_cell_count(r),
+                  "requests", (json_int_t)requests, "run", results_section(r, "run"), "objectives",
+                  results_section(r, "objectives"));
+    char *text = doc ? json_dumps(doc, JSON_INDENT(2)) : NULL;
+    if (text)
+        out_print(o, "%s\n", text);
+    free(text);
+    json_decref(doc);
+}
+
 /* Refuses an existing DIR/results.json unless --force. */
 static int check_output(const cli_cmd_t *cmd, const char *dir, bool force, out_t *o)
 {
@@ -220,7 +240,7 @@ static int check_output(const cli_cmd_t *cmd, const char *dir, bool force, out_t
 }
 
 static int merge_run(const cli_cmd_t *cmd, char **inputs, int n, const char *dir, bool force,
-                     const char *line, out_t *o)
+                     bool json, const char *line, out_t *o)
 {
     results_t *merged = NULL;
     verdict_t v = {0};
@@ -232,7 +252,10 @@ static int merge_run(const cli_cmd_t *cmd, char **inputs, int n, const char *dir
     if (exit_code == SQ_EXIT_OK && write_all(inputs, n, merged, dir, &v, line, o) != 0)
         exit_code = SQ_EXIT_FAILURE;
     if (exit_code == SQ_EXIT_OK) {
-        print_summary(merged, n, dir, &v, o);
+        if (json)
+            print_json(merged, n, dir, o);
+        else
+            print_summary(merged, n, dir, &v, o);
         exit_code = v.exit_code;
     }
     judge_free(v.j);
@@ -246,7 +269,7 @@ static int merge_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
     cli_args_t a;
     const char *v, *dir = NULL;
-    bool force = false;
+    bool force = false, json = false;
     char **inputs = calloc((size_t)argc + 1, sizeof(*inputs));
     int n = 0, k;
     if (!inputs)
@@ -263,8 +286,10 @@ static int merge_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
             inputs[n++] = (char *)v;
         else if (k == 0)
             dir = v;
-        else
+        else if (k == 1)
             force = true;
+        else
+            json = true;
     }
     int exit_code;
     char *line = cli_command_line(cmd->name, argc, argv);
@@ -272,7 +297,7 @@ static int merge_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         exit_code = cli_usage_error(
             cmd, o, "%s", !dir ? "missing -o DIR (where to write)" : "no inputs to merge");
     else
-        exit_code = line ? merge_run(cmd, inputs, n, dir, force, line, o) : SQ_EXIT_FAILURE;
+        exit_code = line ? merge_run(cmd, inputs, n, dir, force, json, line, o) : SQ_EXIT_FAILURE;
     free(line);
     free(inputs);
     return exit_code;
@@ -281,7 +306,7 @@ static int merge_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 const cli_cmd_t cli_cmd_merge = {
     .name = "merge",
     .summary = "merge results of shards or runs into one results directory, judged as one run",
-    .usage = "RESULTS... -o DIR [--force]",
+    .usage = "RESULTS... -o DIR [--force] [--json]",
     .description =
         "Each RESULTS is a results directory or a results.json file. Counters and histograms\n"
         "add up exactly: the merged percentiles are those of all samples recorded together.\n"

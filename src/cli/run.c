@@ -5,6 +5,7 @@
 
 #include "cli_run.h"
 #include "squall/err.h"
+#include "squall/results.h"
 #include "squall/value.h"
 
 enum {
@@ -21,7 +22,8 @@ enum {
     OPT_FORCE,
     OPT_ALLOW_EXEC,
     OPT_METRICS,
-    OPT_METRICS_PUBLIC
+    OPT_METRICS_PUBLIC,
+    OPT_JSON
 };
 
 const cli_opt_t cli_run_opts[] = {
@@ -45,6 +47,7 @@ const cli_opt_t cli_run_opts[] = {
                      "serve squall's own metrics (OpenMetrics) at http://ADDR:PORT/metrics"},
     [OPT_METRICS_PUBLIC] = {"metrics-public", 0, NULL,
                             "allow --metrics on an address that is not loopback"},
+    [OPT_JSON] = {"json", 0, NULL, "print the summary (verdict, judgement) as JSON, not a table"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -127,6 +130,10 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
     case OPT_METRICS_PUBLIC:
         ra->metrics_public = true;
         break;
+    case OPT_JSON:
+        ra->json = true;
+        ra->ro.no_summary = true;
+        break;
     }
     return -1;
 }
@@ -190,13 +197,34 @@ int cli_run_exit(int rc, const run_result_t *res)
     }
 }
 
-int cli_run_plan(const plan_t *p, const run_opts_t *ro, out_t *o)
+/* --json: what results.json says of the run's outcome, read back from the file written. */
+static void print_json(const run_result_t *res, int code, out_t *o)
 {
-    run_result_t res;
+    results_t *r = NULL;
+    if (!res->dir[0] || results_read(res->dir, &r, o))
+        return;
+    json_t *run = results_section(r, "run"), *checks = results_section(r, "objectives");
+    json_t *doc =
+        json_pack("{s:s, s:i, s:s, s:i, s:O?, s:O?}", "format", "squall-run", "version", 1,
+                  "results", res->dir, "exit_code", code, "run", run, "objectives", checks);
+    char *text = doc ? json_dumps(doc, JSON_INDENT(2)) : NULL;
+    if (text)
+        out_print(o, "%s\n", text);
+    free(text);
+    json_decref(doc);
+    results_free(r);
+}
+
+int cli_run_plan(const plan_t *p, const run_opts_t *ro, bool json, out_t *o)
+{
+    run_result_t res = {0};
     if (ro->quiet)
         out_set_level(o, OUT_WARN);
     int rc = run_plan(p, ro, o, &res);
-    return cli_run_exit(rc, &res);
+    int code = cli_run_exit(rc, &res);
+    if (json && rc == 0)
+        print_json(&res, code, o);
+    return code;
 }
 
 static int run_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
@@ -217,7 +245,7 @@ static int run_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         if (err) {
             rc = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
         } else {
-            rc = cli_run_plan(p, &ra.ro, o);
+            rc = cli_run_plan(p, &ra.ro, ra.json, o);
             plan_free(p);
         }
     }
@@ -241,8 +269,10 @@ const cli_cmd_t cli_cmd_run = {
         "planned rate, the second's peaks of requests in flight and queued, errors, and\n"
         "p50/p99 of the last second. series.csv has one row per phase, class and second, with\n"
         "the starts the plan meant for that second (planned).\n"
-        "GENERATOR-LIMITED in it (and generator_limited in results.json) means squall itself\n"
-        "could not keep the schedule: the target was not offered the planned load.\n"
+        "GENERATOR-BOUND on the live line (generator_bound in results.json) means squall\n"
+        "itself could not keep the schedule: the target was not offered the planned load, and\n"
+        "the run is INCONCLUSIVE (exit 7). CONNECTION-BOUND means every connection was busy\n"
+        "with slow answers: a fair verdict on the target; raise target.connections to offer more.\n"
         "\n"
         "SIGINT or SIGTERM stops new requests and lets in-flight ones finish within --grace;\n"
         "a second signal stops at once. Results are written either way.\n"

@@ -9,6 +9,7 @@
 
 #include "squall/cli.h"
 #include "squall/err.h"
+#include "squall/file.h"
 #include "squall/server.h"
 #include "squall/value.h"
 
@@ -27,6 +28,7 @@ enum {
     O_BODY_LIMIT,
     O_HISTORY,
     O_STREAM_BUFFER,
+    O_IDLE_TIMEOUT,
     O_SEED,
     O_ACCESS_LOG,
     O_ACCESS_LOG_FORMAT
@@ -49,6 +51,8 @@ static const cli_opt_t serve_opts[] = {
     {"body-limit", 0, "BYTES", "largest request body accepted (default 1048576)"},
     {"history", 0, "N", "events kept for watch resumption (default 10000)"},
     {"stream-buffer", 0, "BYTES", "bytes queued per watch before it is closed (default 1048576)"},
+    {"idle-timeout", 0, "S", "close a connection idle this many seconds (default 60; watch streams "
+                             "waiting for events are not idle)"},
     {"seed", 0, "N", "seed for the random faults (default 1)"},
     {"access-log", 0, "FILE", "append one line per request to FILE (as nginx logs: at its end)"},
     {"access-log-format", 0, "FMT", "common (Common Log Format, default) or ndjson"},
@@ -104,6 +108,7 @@ static const struct {
     {O_BODY_LIMIT, 0, INT64_C(10000000000), "a number of bytes in 0..10000000000"},
     {O_HISTORY, 1, 10000000, "a whole number in 1..10000000"},
     {O_STREAM_BUFFER, 256, INT64_C(10000000000), "a number of bytes in 256..10000000000"},
+    {O_IDLE_TIMEOUT, 1, 86400, "whole seconds in 1..86400"},
     {O_SEED, 0, INT64_MAX, "a whole number in 0..9223372036854775807"},
 };
 
@@ -138,6 +143,9 @@ static int read_count(int k, const char *v, server_opts_t *t, const char **need)
         break;
     case O_STREAM_BUFFER:
         t->stream_buffer = n;
+        break;
+    case O_IDLE_TIMEOUT:
+        t->idle_timeout_s = (int)n;
         break;
     default:
         t->seed = (uint64_t)n;
@@ -191,6 +199,7 @@ static int run(server_opts_t *sopts, out_t *o)
     if (uv_loop_init(&loop) < 0)
         return SQ_EXIT_FAILURE;
     signal(SIGPIPE, SIG_IGN);
+    file_raise_limit(); /* thousands of watch streams need as many descriptors */
     if (server_start(&loop, sopts, o, &c.server) < 0) {
         uv_loop_close(&loop);
         return SQ_EXIT_FAILURE;

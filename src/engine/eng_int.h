@@ -45,7 +45,10 @@ struct eng_xfer {
     bool opener;     /* HTTP/2 h2c: opens a fresh connection with prior knowledge */
     bool was_opener; /* was admitted as an opener (opener is cleared once its socket opens) */
     bool aborted;    /* the caller's on_data asked to stop */
+    bool too_big;    /* a kept body went past cfg.max_body */
+    bool head_seen;  /* on_head was called */
     bool cancelled;  /* eng_stop/eng_free removed it */
+    char errbuf[CURL_ERROR_SIZE]; /* libcurl's own message for a failed transfer */
 };
 
 /* A socket libcurl uses; kept (with its uv_poll) until the socket really closes. */
@@ -112,6 +115,7 @@ struct eng {
     bool h2_seen;        /* some answer came over HTTP/2 */
     bool unreachable;
     const char *unreachable_why;
+    char tls_why[CURL_ERROR_SIZE + 64]; /* the why of a TLS verification failure */
 };
 
 /* curl_uv.c: the libcurl <-> libuv glue (reports back through eng_glue_ops_t). */

@@ -125,6 +125,8 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     e->h2c = cfg->http == ENG_HTTP_2 && strncmp(cfg->base_url, "http://", 7) == 0;
     if (!e->cfg.unreachable_after)
         e->cfg.unreachable_after = 3;
+    if (!e->cfg.max_body)
+        e->cfg.max_body = INT64_C(16) << 20;
     e->base_url = strdup(cfg->base_url);
     e->ca_file = dup_or_null(cfg->ca_file);
     e->cert_file = dup_or_null(cfg->cert_file);
@@ -180,9 +182,10 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     struct eng_xfer *x = xfer_get(e);
     if (!x)
         return SQ_ENOMEM;
-    if (eng_xfer_prepare(x, req)) {
+    int rc = eng_xfer_prepare(x, req);
+    if (rc) {
         xfer_put(e, x);
-        return SQ_ENOMEM;
+        return rc;
     }
     x->res.submitted_ns = clock_mono_ns();
     if (!x->res.intended_ns)
@@ -352,19 +355,34 @@ static void check_h2(eng_t *e, const struct eng_xfer *x)
     }
 }
 
+/* The server's certificate could not be verified: no later request can succeed, so the target is
+ * unusable at once, named with libcurl's own reason ("SSL certificate problem: ..."). */
+static void check_tls(eng_t *e, const struct eng_xfer *x)
+{
+    int rc = x->res.curl_code;
+    if (rc != CURLE_PEER_FAILED_VERIFICATION && rc != CURLE_SSL_CACERT_BADFILE &&
+        rc != CURLE_SSL_ISSUER_ERROR && rc != CURLE_SSL_PINNEDPUBKEYNOTMATCH)
+        return;
+    snprintf(e->tls_why, sizeof e->tls_why,
+             "fails TLS verification: its certificate could not be verified (%s)",
+             x->errbuf[0] ? x->errbuf : curl_easy_strerror((CURLcode)rc));
+    set_unreachable(e, e->tls_why);
+}
+
 static void count_outcome(eng_t *e, const struct eng_xfer *x)
 {
     const eng_result_t *r = &x->res;
     e->completed++;
     e->by_outcome[r->outcome]++;
+    if (r->outcome == ENG_OUT_TLS)
+        check_tls(e, x);
     if (e->cfg.http == ENG_HTTP_2)
         check_h2(e, x);
     if (r->status > 0) {
         e->unreachable_streak = 0;
     } else if (r->outcome == ENG_OUT_REFUSED || r->outcome == ENG_OUT_RESOLVE) {
         if (++e->unreachable_streak >= e->cfg.unreachable_after)
-            set_unreachable(e, r->outcome == ENG_OUT_REFUSED ? "refuses connections"
-                                                             : "does not resolve");
+            set_unreachable(e, r->outcome == ENG_OUT_REFUSED ? ENG_WHY_REFUSED : ENG_WHY_RESOLVE);
     }
 }
 

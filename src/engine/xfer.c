@@ -5,6 +5,9 @@
 
 #include "eng_int.h"
 #include "squall/err.h"
+#include "squall/value.h"
+
+#define RESP_KEEP (1u << 20) /* a pooled transfer keeps a response buffer up to this size */
 
 static const char *const outcome_names[] = {
 #define ENG_OUTCOME_NAME(name, text) text,
@@ -83,12 +86,14 @@ static int buf_set(struct eng_buf *b, const char *a, size_t alen, const char *c,
     return 0;
 }
 
-static int buf_append(struct eng_buf *b, const char *d, size_t n)
+/* Grows by doubling, never past `max` bytes of capacity (max >= len + n + 1). */
+static int buf_append(struct eng_buf *b, const char *d, size_t n, size_t max)
 {
     if (b->len + n + 1 > b->cap) {
         size_t cap = b->cap ? b->cap : 4096;
         while (cap < b->len + n + 1)
             cap *= 2;
+        cap = cap < max ? cap : max;
         char *nd = realloc(b->data, cap);
         if (!nd)
             return SQ_ENOMEM;
@@ -125,7 +130,15 @@ int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req)
 {
     eng_t *e = x->eng;
     const char *m = req->method ? req->method : "GET";
-    if (buf_set(&x->url, e->base_url, strlen(e->base_url), req->path, strlen(req->path)) ||
+    /* The origin was checked once (eng_new); what follows it must be a path, never text that
+     * libcurl could read as another host ("@10.0.0.1/x") or a header line (CR, LF). A fragment
+     * is never sent (RFC 3986, 3.5): it is cut off first. */
+    size_t plen = strcspn(req->path, "#");
+    if (buf_set(&x->url, req->path, plen, NULL, 0))
+        return SQ_ENOMEM;
+    if (value_path_problem(x->url.data))
+        return SQ_EINVAL;
+    if (buf_set(&x->url, e->base_url, strlen(e->base_url), req->path, plen) ||
         buf_set(&x->method, m, strlen(m), NULL, 0) ||
         buf_set(&x->body, req->body ? req->body : "", req->body ? req->body_len : 0, NULL, 0))
         return SQ_ENOMEM;
@@ -140,7 +153,7 @@ int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req)
     memset(&x->res, 0, sizeof(x->res));
     x->res.intended_ns = req->intended_ns;
     x->resp.len = 0;
-    x->opener = x->was_opener = x->aborted = x->cancelled = false;
+    x->opener = x->was_opener = x->aborted = x->cancelled = x->too_big = x->head_seen = false;
     return 0;
 }
 
@@ -153,8 +166,29 @@ static size_t on_write(char *data, size_t size, size_t n, void *userp)
         x->aborted = true;
         return 0;
     }
-    if (x->req.keep_body && buf_append(&x->resp, data, len))
+    if (x->req.keep_body && x->resp.len + len > (size_t)x->eng->cfg.max_body) {
+        x->too_big = true; /* a hostile or broken target must not take all our memory */
         return 0;
+    }
+    if (x->req.keep_body && buf_append(&x->resp, data, len, (size_t)x->eng->cfg.max_body + 1))
+        return 0;
+    return len;
+}
+
+/* Header lines, one per call; the empty line ends a block. Only the final answer's block counts
+ * (an interim 1xx has its own). */
+static size_t on_header(char *data, size_t size, size_t n, void *userp)
+{
+    struct eng_xfer *x = userp;
+    size_t len = size * n;
+    if (x->req.on_head && !x->head_seen && (len == 2 || len == 1) && (data[0] == '\r' || data[0] == '\n')) {
+        long status = 0;
+        curl_easy_getinfo(x->easy, CURLINFO_RESPONSE_CODE, &status);
+        if (status >= 200) {
+            x->head_seen = true;
+            x->req.on_head(x->req.user, status);
+        }
+    }
     return len;
 }
 
@@ -180,6 +214,7 @@ CURL *eng_easy_new(eng_t *e)
     curl_easy_setopt(c, CURLOPT_TCP_NODELAY, 1L);
     curl_easy_setopt(c, CURLOPT_WRITEFUNCTION, on_write);
     curl_easy_setopt(c, CURLOPT_PREREQFUNCTION, on_prereq);
+    curl_easy_setopt(c, CURLOPT_HEADERFUNCTION, on_header);
     curl_easy_setopt(c, CURLOPT_OPENSOCKETFUNCTION, eng_glue_opensocket);
     curl_easy_setopt(c, CURLOPT_CLOSESOCKETFUNCTION, eng_glue_closesocket);
     curl_easy_setopt(c, CURLOPT_CLOSESOCKETDATA, e);
@@ -232,25 +267,24 @@ static void set_method(struct eng_xfer *x)
  * with prior knowledge and every other transfer asks for 2.0 and waits to multiplex: prior
  * knowledge on a reused connection fails in 7.88.1 (curl issue #10634). */
 /* Hands libcurl the URL as a parsed handle: the transfer's own CURLU keeps the base URL parsed
- * once and gets only its path and query per request. With CURLOPT_URL libcurl 7.88.1 parses the
- * whole URL and prints it back for every transfer (curl_url_set + curl_url_get + aprintf, ~10 %
- * of the instructions per request under callgrind). Anything unusual (no path, a fragment, a
- * path libcurl refuses) goes through CURLOPT_URL, so libcurl judges it exactly as before. */
+ * once and gets only its path and query per request, so a request's path is never parsed as a
+ * URL (eng_xfer_prepare checked it is a path). With CURLOPT_URL libcurl 7.88.1 would also parse
+ * and print back the whole URL for every transfer (~10 % of the instructions per request under
+ * callgrind). A path libcurl refuses fails the transfer (no URL: CURLE_URL_MALFORMAT). */
 static void set_url(struct eng_xfer *x)
 {
     eng_t *e = x->eng;
     char *path = x->url.data + e->origin_len;
     char *query = strchr(path, '?');
-    bool plain = path[0] == '/' && !strchr(path, '#');
-    if (plain && !x->uh && (x->uh = curl_url()) &&
+    if (!x->uh && (x->uh = curl_url()) &&
         curl_url_set(x->uh, CURLUPART_URL, e->base_url, 0) != CURLUE_OK) {
         curl_url_cleanup(x->uh);
         x->uh = NULL;
     }
-    if (plain && x->uh) {
+    if (x->uh) {
         if (query)
             *query = '\0';
-        CURLUcode uc = curl_url_set(x->uh, CURLUPART_PATH, path, 0);
+        CURLUcode uc = curl_url_set(x->uh, CURLUPART_PATH, path[0] ? path : "/", 0);
         if (query)
             *query = '?';
         if (uc == CURLUE_OK)
@@ -261,7 +295,7 @@ static void set_url(struct eng_xfer *x)
         }
     }
     curl_easy_setopt(x->easy, CURLOPT_CURLU, NULL);
-    curl_easy_setopt(x->easy, CURLOPT_URL, x->url.data);
+    curl_easy_setopt(x->easy, CURLOPT_URL, NULL);
 }
 
 int eng_xfer_setup(struct eng_xfer *x)
@@ -271,6 +305,9 @@ int eng_xfer_setup(struct eng_xfer *x)
     set_url(x);
     curl_easy_setopt(c, CURLOPT_PRIVATE, x);
     curl_easy_setopt(c, CURLOPT_WRITEDATA, x);
+    curl_easy_setopt(c, CURLOPT_HEADERDATA, x);
+    x->errbuf[0] = '\0';
+    curl_easy_setopt(c, CURLOPT_ERRORBUFFER, x->errbuf);
     curl_easy_setopt(c, CURLOPT_PREREQDATA, x);
     curl_easy_setopt(c, CURLOPT_OPENSOCKETDATA, x);
     curl_easy_setopt(c, CURLOPT_HTTPHEADER, x->headers ? x->headers : e->headers);
@@ -318,7 +355,9 @@ void eng_xfer_finish(struct eng_xfer *x, CURLcode rc)
             curl_easy_getinfo(c, CURLINFO_RETRY_AFTER, &v) == CURLE_OK && v > 0)
             r->retry_after_s = v; /* life: teardown retries wait this long */
     }
-    if (x->aborted || x->cancelled)
+    if (x->too_big)
+        r->outcome = ENG_OUT_BODY;
+    else if (x->aborted || x->cancelled)
         r->outcome = ENG_OUT_CANCELLED;
     else
         r->outcome = eng_outcome_of(rc, r->status);
@@ -334,6 +373,8 @@ void eng_xfer_finish(struct eng_xfer *x, CURLcode rc)
         if (c && curl_easy_getinfo(c, CURLINFO_CONTENT_TYPE, &ct) == CURLE_OK)
             r->content_type = ct; /* owned by the easy handle, alive through on_done */
     }
+    if (c) /* the pooled handle outlives this transfer: it must not keep pointing at its buffer */
+        curl_easy_setopt(c, CURLOPT_ERRORBUFFER, NULL);
 }
 
 /* Frees a transfer's per-request list; its buffers stay for the next request. */
@@ -341,4 +382,9 @@ void eng_xfer_release(struct eng_xfer *x)
 {
     curl_slist_free_all(x->headers);
     x->headers = NULL;
+    if (x->resp.cap > RESP_KEEP) { /* a big list page's buffer is not kept for every transfer */
+        free(x->resp.data);
+        x->resp.data = NULL;
+        x->resp.cap = x->resp.len = 0;
+    }
 }

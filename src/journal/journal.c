@@ -12,6 +12,7 @@
 #include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/journal.h"
+#include "squall/value.h"
 #include "squall/pool.h"
 
 #define BUF_CAP 65536
@@ -110,7 +111,7 @@ int journal_open(const char *path, const char *target_url, out_t *o, journal_t *
     if (ends_torn(j->fd, st.st_size))
         rc = write_all(j, "\n", 1);
     if (rc == 0 && st.st_size == 0) {
-        rc = append_line(j, json_pack("{s:i, s:s, s:I}", "squall_journal", 1, "target", target_url,
+        rc = append_line(j, json_pack("{s:i, s:s, s:I}", "squall_journal", JOURNAL_VERSION, "target", target_url,
                                       "started_unix_ms", (json_int_t)(clock_real_ns() / 1000000)));
         if (rc == 0)
             rc = journal_flush(j);
@@ -162,6 +163,7 @@ typedef struct {
     char **paths, **classes;
     int *state; /* the last op of each entry */
     size_t n, cap;
+    const char *bad_path; /* why the current line's path was refused, else NULL */
 } reader_t;
 
 static int entry_for(reader_t *rd, const char *path, const char *cls, size_t *i)
@@ -210,6 +212,12 @@ static int read_record(reader_t *rd, json_t *rec, bool *ok)
         *ok = false;
         return 0;
     }
+    /* A journal is a file anyone may have edited: its paths are checked like anything else
+     * that becomes part of a request (an "@host/x" would name another host). */
+    if ((rd->bad_path = value_path_problem(path)) != NULL) {
+        *ok = false;
+        return 0;
+    }
     size_t e;
     int rc = entry_for(rd, path, cls, &e);
     if (rc)
@@ -227,9 +235,17 @@ static int read_line(reader_t *rd, const char *file, const char *s, size_t len, 
     json_t *rec = len ? json_loadb(s, len, 0, &jerr) : NULL;
     bool ok = false;
     int rc = 0;
+    rd->bad_path = NULL;
     if (rec && lineno == 1) {
         const char *t = NULL;
-        ok = json_unpack(rec, "{s:i, s:s}", "squall_journal", &(int){0}, "target", &t) == 0;
+        int version = 0;
+        ok = json_unpack(rec, "{s:i, s:s}", "squall_journal", &version, "target", &t) == 0;
+        if (ok && version != JOURNAL_VERSION) {
+            out_error(o, "%s:1: journal version %d, this squall reads version %d", file, version,
+                      JOURNAL_VERSION);
+            json_decref(rec);
+            return SQ_EPARSE;
+        }
         if (ok && !(rd->a->target = strdup(t)))
             rc = SQ_ENOMEM;
     } else if (rec) {
@@ -243,8 +259,12 @@ static int read_line(reader_t *rd, const char *file, const char *s, size_t len, 
         return SQ_EPARSE;
     }
     rd->a->torn++;
-    out_warn(o, "%s:%zu: %s line skipped%s", file, lineno, last ? "torn last" : "malformed",
-             last ? " (the writer stopped mid-line, e.g. killed)" : "");
+    if (rd->bad_path)
+        out_warn(o, "%s:%zu: line skipped: its path is not a request path (%s)", file, lineno,
+                 rd->bad_path);
+    else
+        out_warn(o, "%s:%zu: %s line skipped%s", file, lineno, last ? "torn last" : "malformed",
+                 last ? " (the writer stopped mid-line, e.g. killed)" : "");
     return 0;
 }
 

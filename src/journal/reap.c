@@ -7,6 +7,7 @@
 
 #include "squall/err.h"
 #include "squall/journal.h"
+#include "squall/value.h"
 
 #define BACKOFF_BASE_NS (200 * INT64_C(1000000))
 #define BACKOFF_CAP_NS  (2000 * INT64_C(1000000))
@@ -112,6 +113,12 @@ static int submit(reaper_t *rp, size_t i, int64_t intended)
         .user = &rp->slots[i],
     };
     int rc = eng_submit(rp->eng, &req);
+    if (rc == SQ_EINVAL) { /* not a request path: this object fails, the others go on */
+        out_warn(rp->o, "not deleted: its path is not a request path (%s)",
+                 value_path_problem(rp->paths[i]) ? value_path_problem(rp->paths[i]) : "?");
+        set_final(rp, i, JOURNAL_REFUSED);
+        return 0;
+    }
     if (rc == 0) {
         rp->in_flight++;
         rp->attempts[i]++;

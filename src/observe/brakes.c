@@ -37,7 +37,7 @@ typedef struct {
 
 typedef struct {
     const plan_t *plan;
-    void (*fire)(void *user, const char *why);
+    void (*fire)(void *user, int kind, const char *why);
     void *user;
     brake_t *brakes;
     size_t n;
@@ -140,13 +140,20 @@ static bool percentile(brake_t *k, const obs_second_t *s, char *why, size_t cap)
     return true;
 }
 
-/* Only time spent waiting counts: the silence between a fleet's ticks, with nothing in
- * flight, is the plan's own, not the target's. */
+/* Only time spent waiting or failing counts: the silence between a fleet's ticks, with nothing
+ * in flight and nothing refused, is the plan's own, not the target's. A target that refuses
+ * connections (restarting) fails requests at once, so in_flight may be 0 at every check: the
+ * first unanswered end since the last answer starts the clock too. The engine's own "refuses
+ * connections" is only a hint to the run (run.c); this brake decides, over its window. */
 static bool unreachable(brake_t *k, const obs_second_t *s, char *why, size_t cap)
 {
     int64_t now = clock_mono_ns();
-    int64_t since = s->last_answer_ns > s->busy_since_ns ? s->last_answer_ns : s->busy_since_ns;
-    if (s->in_flight == 0 || now - since < k->b.max_ns)
+    int64_t since = 0;
+    if (s->in_flight > 0)
+        since = s->last_answer_ns > s->busy_since_ns ? s->last_answer_ns : s->busy_since_ns;
+    if (s->unanswered_since_ns && (!since || s->unanswered_since_ns < since))
+        since = s->unanswered_since_ns;
+    if (!since || now - since < k->b.max_ns)
         return false;
     snprintf(why, cap, "no answer from the target for %.0fs", (double)(now - since) / 1e9);
     return true;
@@ -183,7 +190,7 @@ static void brakes_second(void *self, const obs_second_t *s)
             char text[220];
             snprintf(text, sizeof text, "brake: %s", why);
             if (h->fire)
-                h->fire(h->user, text);
+                h->fire(h->user, (int)h->brakes[i].b.kind, text);
             return;
         }
     }

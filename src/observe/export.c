@@ -8,9 +8,9 @@
  * Families (every one documented in README.md, "squall's own metrics"):
  *   squall_requests_started_total{phase,class}            counter
  *   squall_requests_total{phase,class,outcome}            counter (finished requests)
- *   squall_response_seconds{phase,class}                  histogram, EXPORT_BOUNDS
- *   squall_service_seconds{phase,class}                   histogram, EXPORT_BOUNDS
- *   squall_schedule_lag_seconds                           histogram, EXPORT_BOUNDS
+ *   squall_response_seconds{phase,class}                  histogram, the bounds below
+ *   squall_service_seconds{phase,class}                   histogram, the bounds below
+ *   squall_schedule_lag_seconds, squall_send_lag_seconds  histograms, the bounds below
  *   squall_in_flight, squall_queued                       gauges (peaks of the last second)
  *   squall_generator_bound_seconds_total,
  *   squall_connection_bound_seconds_total                 counters
@@ -55,7 +55,7 @@ typedef struct {
     out_t *o;
     size_t n_phases, n_classes; /* with the teardown's */
     pc_t *pc;
-    buckets_t lag;
+    buckets_t lag, send_lag;
     int in_flight, queued;
     int64_t generator_s, connection_s, brakes;
     size_t phase;
@@ -238,6 +238,9 @@ static void render_run(export_t *x, bool om)
     family(x, om, "squall_schedule_lag_seconds", "histogram",
            "Time from a request's intended start to its being handed to the engine.");
     histogram(x, "squall_schedule_lag_seconds", &x->lag, 0, 0, false);
+    family(x, om, "squall_send_lag_seconds", "histogram",
+           "Time from a request's intended start to its being written on the wire.");
+    histogram(x, "squall_send_lag_seconds", &x->send_lag, 0, 0, false);
     family(x, om, "squall_in_flight", "gauge", "Requests in flight, peak of the last second.");
     put(x, "squall_in_flight %d\n", x->in_flight);
     family(x, om, "squall_queued", "gauge",
@@ -422,6 +425,8 @@ static void export_done(void *self, const obs_done_t *d)
         bucket_add(&p->service, d->res->done_ns - d->res->sent_ns);
     if (d->first && d->res->submitted_ns)
         bucket_add(&x->lag, d->res->submitted_ns - d->intended_ns);
+    if (d->first && d->res->sent_ns)
+        bucket_add(&x->send_lag, d->res->sent_ns - d->intended_ns);
 }
 
 static void export_second(void *self, const obs_second_t *s)

@@ -42,6 +42,7 @@ struct ledger {
     char *journal_path;
     int64_t created, existed, create_failed, deleted, skipped;
     int64_t incidental; /* of created: by writes whose class did not say it creates */
+    int64_t refused_items; /* list items whose path was not a plain request path */
     json_t *teardown; /* the teardown's figures, or NULL */
     bool churn;       /* a churn phase reported its band */
     bool churn_reached;
@@ -390,8 +391,16 @@ static void list_done(ledger_t *g, int cls, const eng_result_t *res)
     json_array_foreach(items, i, it)
     {
         json_t *path = json_object_get(it, "path"), *ver = json_object_get(it, "version");
-        if (json_is_string(path) && json_string_value(path)[0] == '/' &&
-            !pool_contains(g->held, json_string_value(path)))
+        const char *ps = json_is_string(path) ? json_string_value(path) : NULL;
+        /* The target's text becomes a request path when picked: only a plain path is taken (no
+         * control byte, space, query or fragment; NUL inside a JSON string ends it early, so the
+         * lengths must agree). Others are counted, never sent. */
+        if (ps && (value_path_problem(ps) || strchr(ps, '?') ||
+                   strlen(ps) != json_string_length(path))) {
+            g->refused_items++;
+            continue;
+        }
+        if (ps && !pool_contains(g->held, ps))
             pool_add(g->pools[cls], json_string_value(path),
                      json_is_integer(ver) ? (uint64_t)json_integer_value(ver) : 0);
     }
@@ -528,6 +537,11 @@ static int ledger_finish(void *self, results_t *res, const char *dir)
     (void)dir;
     ledger_t *g = self;
     journal_flush(g->journal);
+    if (g->refused_items)
+        out_warn(g->o,
+                 "%lld list items were never picked: their path is not a plain request path "
+                 "(a control byte, a space, a query or a fragment)",
+                 (long long)g->refused_items);
     if (!g->creates)
         return 0;
     json_t *s = json_pack("{s:s, s:I, s:I, s:I, s:I, s:I, s:I, s:O, s:o}", "journal", JOURNAL_FILE,

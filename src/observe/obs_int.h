@@ -1,4 +1,4 @@
-/* Internals of the observer list: each observer's ops, and the rule for a generator-limited
+/* Internals of the observer list: each observer's ops, and the rule for a generator-bound
  * second that the list applies and the brakes read. */
 #ifndef SQUALL_OBS_INT_H
 #define SQUALL_OBS_INT_H

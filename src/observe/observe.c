@@ -39,7 +39,7 @@ struct obs {
     hist_t *send_lag; /* sent - intended of first pages that were sent */
     int64_t total_started, total_completed, total_errors;
     int in_flight;
-    int64_t busy_since_ns, last_answer_ns;
+    int64_t busy_since_ns, last_answer_ns, unanswered_since_ns;
     obs_health_t health;
     int64_t svc_sum_ns, svc_n; /* the open second's service times */
     char marks[512];           /* the open second's marked instants, ';'-separated */
@@ -86,11 +86,11 @@ static int window_init(obs_t *l)
     return 0;
 }
 
-static void list_brake(void *user, const char *why)
+static void list_brake(void *user, int kind, const char *why)
 {
     obs_t *l = user;
     snprintf(l->brake_why, sizeof l->brake_why, "%s", why);
-    l->cfg.brake(l->cfg.user, why);
+    l->cfg.brake(l->cfg.user, kind, why);
 }
 
 int obs_new(const obs_cfg_t *cfg, obs_t **out)
@@ -205,6 +205,7 @@ void obs_answered(obs_t *l, int64_t at_ns)
 {
     if (at_ns > l->last_answer_ns)
         l->last_answer_ns = at_ns;
+    l->unanswered_since_ns = 0;
 }
 
 /* The results cell of (phase, class or its whole-list twin, outcome), looked up once. The
@@ -289,6 +290,8 @@ void obs_done(obs_t *l, const obs_done_t *d)
         l->in_flight--;
         if (d->res->status > 0)
             obs_answered(l, d->res->done_ns);
+        else if (d->res->outcome != ENG_OUT_CANCELLED && !l->unanswered_since_ns)
+            l->unanswered_since_ns = d->res->done_ns;
         tally(l, d);
     }
     for (size_t i = 0; i < N_ENTRIES; i++)
@@ -394,6 +397,7 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .in_flight = l->in_flight,
         .busy_since_ns = l->busy_since_ns,
         .last_answer_ns = l->last_answer_ns,
+        .unanswered_since_ns = l->unanswered_since_ns,
         .bound_why = why,
         .marks = l->marks,
         .brake_fired = l->brake_why,

@@ -6,16 +6,13 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 
 #include "plan_int.h"
 #include "squall/err.h"
 
 #define MAX_INCLUDE_DEPTH 16
 #define MAX_FILES         64
-
-static const char *const root_keys[] = {"include",    "seed",   "target", "vars",
-                                        "requests",   "phases", "objectives", "brakes",
-                                        "accept",     "observe", NULL};
 
 /* Every file of a plan, read before any is parsed so overrides can reach into includes. */
 typedef struct {
@@ -28,18 +25,73 @@ typedef struct {
 
 static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch);
 
-static void yaml_syntax_error(pctx_t *c, yaml_parser_t *ps)
+/* libyaml's error, at its position: a reader error (invalid UTF-8, a NUL) has only a byte
+ * offset; a scanner or parser error a mark. After either, an unclosed bracket or quote is named
+ * where it started, since libyaml reports only where it gave up. */
+static void yaml_syntax_error(pctx_t *c, yaml_parser_t *ps, const char *text, size_t len)
 {
     plan_pos_t pos = {c->file, (int)ps->problem_mark.line + 1, (int)ps->problem_mark.column + 1};
+    if (ps->error == YAML_READER_ERROR)
+        pos = plan_text_pos(c->file, text, len, ps->problem_offset);
+    plan_text_scan_t sc;
+    plan_text_scan(text, len, &sc);
+    char hint[96] = "";
+    if (sc.unclosed) {
+        plan_pos_t at = plan_text_pos(c->file, text, len, sc.at);
+        snprintf(hint, sizeof hint, "; the %c opened at line %d, column %d is never closed",
+                 sc.unclosed, at.line, at.col);
+    }
     if (ps->context)
         pc_error_at(c, pos,
                     "YAML syntax: %s %s (expected valid YAML, got a syntax error at "
-                    "line %d, column %d)",
-                    ps->problem, ps->context, (int)ps->problem_mark.line + 1,
-                    (int)ps->problem_mark.column + 1);
+                    "line %d, column %d%s)",
+                    ps->problem, ps->context, pos.line, pos.col, hint);
     else
-        pc_error_at(c, pos, "YAML syntax: %s (expected valid YAML, got a syntax error)",
-                    ps->problem ? ps->problem : "unreadable");
+        pc_error_at(c, pos, "YAML syntax: %s (expected valid YAML, got a syntax error%s)",
+                    ps->problem ? ps->problem : "unreadable", hint);
+}
+
+/* A --set whose value may be a secret: a token, a credential header, a URL with user info. Its
+ * value is never echoed in messages (they end up in CI logs). */
+static bool secret_set(const char *key, const char *value)
+{
+    const char *last = strrchr(key, '.');
+    last = last ? last + 1 : key;
+    return strstr(key, "token") || strchr(value, '@') || !strcasecmp(last, "authorization") ||
+           !strcasecmp(last, "proxy-authorization") || !strcasecmp(last, "cookie");
+}
+
+/* The whole file, at most PLAN_MAX_BYTES; an error (reported at `from` for an include). */
+static int read_text(pctx_t *c, const char *path, plan_pos_t from, char **text, size_t *len)
+{
+    /* The top file is named by the error's position already; an include by its own path. */
+    char what[PATH_MAX + 32];
+    if (from.file)
+        snprintf(what, sizeof what, "include: cannot read '%s'", path);
+    else
+        snprintf(what, sizeof what, "cannot read plan");
+    FILE *fp = fopen(path, "rb");
+    char *buf = fp ? malloc(PLAN_MAX_BYTES + 1) : NULL;
+    size_t n = buf ? fread(buf, 1, PLAN_MAX_BYTES + 1, fp) : 0;
+    int err = !fp ? errno : !buf ? ENOMEM : ferror(fp) ? errno : 0;
+    if (fp)
+        fclose(fp);
+    plan_pos_t at = from.file ? from : (plan_pos_t){c->file, 0, 0};
+    if (err || n > PLAN_MAX_BYTES) {
+        free(buf);
+        if (err == ENOMEM)
+            return SQ_ENOMEM;
+        if (err)
+            pc_error_at(c, at, "%s (expected a readable file, got %s)", what, strerror(err));
+        else
+            pc_error_at(c, at, "%s (expected a plan file of at most %d MiB, got a larger one)",
+                        what, PLAN_MAX_BYTES >> 20);
+        return SQ_EIO;
+    }
+    buf[n] = '\0';
+    *text = buf;
+    *len = n;
+    return 0;
 }
 
 /* include: PATH or [PATH, ...], relative to the including file's directory. */
@@ -99,40 +151,49 @@ static void parse_seed(pctx_t *c, yaml_node_t *root)
 /* The sections of one document, in an order that does not depend on the file's. */
 static void parse_root(pctx_t *c, yaml_node_t *root)
 {
-    pc_check_keys(c, root, "plan", root_keys);
+    pc_check_keys(c, root, "plan", plan_keys(PLAN_KEYS_ROOT));
     parse_seed(c, root);
-    void (*const parsers[])(pctx_t *, yaml_node_t *) = {
-        plan_parse_target,     plan_parse_vars,   plan_parse_requests, plan_parse_phases,
-        plan_parse_objectives, plan_parse_brakes, plan_parse_accept, plan_parse_observe};
+    static const struct {
+        const char *key;
+        void (*parse)(pctx_t *, yaml_node_t *);
+    } parsers[] = {{"target", plan_parse_target},         {"vars", plan_parse_vars},
+                   {"requests", plan_parse_requests},     {"phases", plan_parse_phases},
+                   {"objectives", plan_parse_objectives}, {"brakes", plan_parse_brakes},
+                   {"accept", plan_parse_accept},         {"observe", plan_parse_observe}};
     for (size_t i = 0; i < sizeof parsers / sizeof parsers[0]; i++) {
-        yaml_node_t *n = pc_get(c, root, root_keys[i + 2]);
+        yaml_node_t *n = pc_get(c, root, parsers[i].key);
         if (n)
-            parsers[i](c, n);
+            parsers[i].parse(c, n);
     }
 }
 
 /* Reads one file: cycle check, YAML, overrides (top file only), includes, then sections. */
 static int read_doc(pctx_t *c, const char *path, plan_pos_t from, yaml_document_t *doc)
 {
-    FILE *fp = fopen(path, "rb");
-    if (!fp) {
-        if (from.file)
-            pc_error_at(c, from, "include: cannot read '%s' (expected a readable file, got %s)",
-                        path, strerror(errno));
-        else
-            pc_error_at(c, (plan_pos_t){c->file, 0, 0},
-                        "cannot read plan (expected a readable file, got %s)", strerror(errno));
-        return SQ_EIO;
+    char *text;
+    size_t len;
+    int rc = read_text(c, path, from, &text, &len);
+    if (rc)
+        return rc;
+    plan_text_scan_t sc;
+    plan_text_scan(text, len, &sc);
+    if (sc.too_deep) {
+        pc_error_at(c, plan_text_pos(c->file, text, len, sc.at),
+                    "plan: brackets nested too deep (expected at most %d levels of [ and {, got "
+                    "more here)",
+                    PLAN_MAX_NESTING);
+        free(text);
+        return SQ_EPARSE;
     }
     yaml_parser_t ps;
     if (!yaml_parser_initialize(&ps)) {
-        fclose(fp);
+        free(text);
         return SQ_ENOMEM;
     }
-    yaml_parser_set_input_file(&ps, fp);
+    yaml_parser_set_input_string(&ps, (const unsigned char *)text, len);
     int ok = yaml_parser_load(&ps, doc);
     if (!ok)
-        yaml_syntax_error(c, &ps);
+        yaml_syntax_error(c, &ps, text, len);
     yaml_document_t extra;
     if (ok && yaml_parser_load(&ps, &extra)) {
         /* libyaml loads one document per call; a second one would be silently ignored. */
@@ -146,7 +207,7 @@ static int read_doc(pctx_t *c, const char *path, plan_pos_t from, yaml_document_
         yaml_document_delete(&extra);
     }
     yaml_parser_delete(&ps);
-    fclose(fp);
+    free(text);
     return ok ? 0 : SQ_EPARSE;
 }
 
@@ -239,6 +300,7 @@ static void set_defaults(plan_t *p)
     p->target.http = PLAN_HTTP_1_1;
     p->target.connections = 16;
     p->target.timeout_ns = INT64_C(10000000000);
+    p->target.max_body = INT64_C(16) << 20;
     p->target.pos = (plan_pos_t){p->path, 1, 1};
 }
 
@@ -254,7 +316,9 @@ int plan_load(const char *path, const plan_override_t *overrides, size_t n, plan
     c.set_names = calloc(n + 1, sizeof(*c.set_names));
     for (size_t k = 0; c.set_names && k < n; k++) {
         char buf[512];
-        snprintf(buf, sizeof buf, "--set %s=%s", overrides[k].key, overrides[k].value);
+        snprintf(buf, sizeof buf, "--set %s=%s", overrides[k].key,
+                 secret_set(overrides[k].key, overrides[k].value) ? "(not shown)"
+                                                                   : overrides[k].value);
         c.set_names[k] = pmem_strdup(&c, buf);
     }
     c.n_set = c.set_names ? n : 0;

@@ -353,6 +353,22 @@ bool pc_num(pctx_t *c, yaml_node_t *map, const char *key, const char *where, dou
     return rc ? bad_value(c, vn, where, key, rc, exp) : true;
 }
 
+bool pc_bytes(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int64_t min,
+              int64_t max, int64_t *out)
+{
+    yaml_node_t *vn;
+    const char *t = scalar_of(c, map, key, where, VALUE_BYTES_EXPECTS, &vn);
+    if (!t)
+        return false;
+    int64_t v;
+    int rc = value_parse_bytes(t, &v);
+    if (rc == 0 && (v < min || v > max))
+        rc = SQ_ERANGE;
+    if (rc == 0)
+        *out = v;
+    return rc ? bad_value(c, vn, where, key, rc, VALUE_BYTES_EXPECTS) : true;
+}
+
 bool pc_bool(pctx_t *c, yaml_node_t *map, const char *key, const char *where, bool *out)
 {
     static const char *const names[] = {"false", "true", NULL};

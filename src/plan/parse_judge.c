@@ -75,8 +75,7 @@ static int one_limit(pctx_t *c, yaml_node_t *n, const char *where, const char *c
 
 static void parse_objective(pctx_t *c, yaml_node_t *n, const char *where, plan_objective_t *ob)
 {
-    static const char *const keys[] = {"class",    "phase", "metric", "error-rate",
-                                       "min-rate", "p99",   NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_OBJECTIVE);
     static const char *const limits[] = {"error-rate", "min-rate", NULL};
     static const char *const metrics[] = {"response", "service", "open", "propagation", NULL};
     ob->pos = pc_pos(c, n);
@@ -110,8 +109,7 @@ static void parse_objective(pctx_t *c, yaml_node_t *n, const char *where, plan_o
 
 static void parse_brake(pctx_t *c, yaml_node_t *n, const char *where, plan_brake_t *b)
 {
-    static const char *const keys[] = {"error-rate", "unreachable", "saturation", "for",
-                                       "class",      "p99",         NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_BRAKE);
     static const char *const limits[] = {"error-rate", "unreachable", "saturation", NULL};
     b->pos = pc_pos(c, n);
     b->cls.index = -1;

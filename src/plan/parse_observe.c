@@ -92,7 +92,7 @@ static void parse_keep(pctx_t *c, yaml_node_t *n, const char *where, plan_scrape
 
 static void parse_scrape(pctx_t *c, yaml_node_t *n, const char *where, plan_scrape_t *s)
 {
-    static const char *const keys[] = {"url", "every", "keep", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_SCRAPE);
     s->pos = pc_pos(c, n);
     s->every_ns = INT64_C(5000000000);
     pc_check_keys(c, n, where, keys);
@@ -136,7 +136,7 @@ static void parse_moment(pctx_t *c, yaml_node_t *n, const char *where, plan_coll
 
 static void parse_collect(pctx_t *c, yaml_node_t *n, const char *where, plan_collect_t *k)
 {
-    static const char *const keys[] = {"url", "at", "save", "timeout", "max", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_COLLECT);
     k->pos = pc_pos(c, n);
     k->timeout_ns = COLLECT_TIMEOUT_NS;
     k->max_bytes = COLLECT_MAX_BYTES;
@@ -168,7 +168,7 @@ static void parse_collect(pctx_t *c, yaml_node_t *n, const char *where, plan_col
 
 void plan_parse_observe(pctx_t *c, yaml_node_t *n)
 {
-    static const char *const keys[] = {"metrics", "collect", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_OBSERVE);
     if (!pc_expect_map(c, n, "observe"))
         return;
     pc_check_keys(c, n, "observe", keys);
@@ -202,7 +202,7 @@ void plan_parse_observe(pctx_t *c, yaml_node_t *n)
 /* http: {method, url, body} */
 static void parse_http(pctx_t *c, yaml_node_t *n, const char *where, plan_action_t *a)
 {
-    static const char *const keys[] = {"method", "url", "body", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_ACTION_HTTP);
     if (!pc_expect_map(c, n, where))
         return;
     pc_check_keys(c, n, where, keys);
@@ -247,7 +247,7 @@ static void parse_exec(pctx_t *c, yaml_node_t *n, const char *where, plan_action
 static void parse_action(pctx_t *c, yaml_node_t *n, const char *where, const plan_phase_t *ph,
                          size_t k, plan_action_t *a)
 {
-    static const char *const keys[] = {"name", "at", "http", "exec", "timeout", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_ACTION);
     a->pos = pc_pos(c, n);
     a->timeout_ns = ACTION_TIMEOUT_NS;
     pc_check_keys(c, n, where, keys);

@@ -6,10 +6,6 @@
 #include "plan_int.h"
 #include "squall/err.h"
 
-static const char *const phase_keys[] = {"name",     "duration", "rate",    "ramp",    "steps",
-                                         "arrivals", "mix",      "clients", "fleet",   "watches",
-                                         "churn",    "teardown", "replay",  "actions", NULL};
-
 static void parse_mix(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
     char w[200];
@@ -37,7 +33,7 @@ static void parse_mix(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t
 
 static void parse_ramp(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
-    static const char *const keys[] = {"from", "to", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_RAMP);
     char w[200];
     snprintf(w, sizeof w, "%s.ramp", where);
     if (!pc_expect_map(c, n, w))
@@ -54,7 +50,7 @@ static void parse_ramp(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_
 
 static void parse_steps(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
-    static const char *const keys[] = {"rate", "for", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_STEP);
     char w[200];
     snprintf(w, sizeof w, "%s.steps", where);
     if (!pc_expect_seq(c, n, w))
@@ -90,7 +86,7 @@ static void parse_steps(pctx_t *c, yaml_node_t *n, const char *where, plan_phase
 
 static void parse_clients(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
-    static const char *const keys[] = {"count", "think", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_CLIENTS);
     char w[200];
     snprintf(w, sizeof w, "%s.clients", where);
     if (!pc_expect_map(c, n, w))
@@ -106,7 +102,7 @@ static void parse_clients(pctx_t *c, yaml_node_t *n, const char *where, plan_pha
 /* send: CLASS, or a list whose items are CLASS or {class, every}. */
 static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *ph)
 {
-    static const char *const keys[] = {"class", "every", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_SEND);
     char ws[240];
     snprintf(ws, sizeof ws, "%s.send", w);
     bool seq = n->type == YAML_SEQUENCE_NODE;
@@ -142,8 +138,7 @@ static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *p
 
 static void parse_fleet(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
-    static const char *const keys[] = {"agents", "every", "timing", "jitter", "drift",
-                                       "join",   "leave", "send",   "watch",  NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_FLEET);
     static const char *const timings[] = {"spread", "jitter", "aligned", NULL};
     char w[200];
     snprintf(w, sizeof w, "%s.fleet", where);
@@ -215,7 +210,7 @@ static void parse_watches(pctx_t *c, yaml_node_t *n, const char *where, plan_pha
         const char *name = pc_text(k);
         if (!name)
             continue;
-        if (strcmp(name, "open") == 0) {
+        if (strcmp(name, plan_keys(PLAN_KEYS_WATCHES)[0]) == 0) { /* "open" */
             const char *t = pc_text(v);
             if (t && strncmp(t, "spread ", 7) == 0) {
                 yaml_node_t tmp = *v;
@@ -244,7 +239,7 @@ static void parse_watches(pctx_t *c, yaml_node_t *n, const char *where, plan_pha
 
 static void parse_churn(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
-    static const char *const keys[] = {"create", "delete", "rate", "population", "tolerance", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_CHURN);
     char w[200];
     snprintf(w, sizeof w, "%s.churn", where);
     if (!pc_expect_map(c, n, w))
@@ -272,7 +267,7 @@ static void parse_teardown(pctx_t *c, yaml_node_t *phase, const char *where, pla
 {
     yaml_node_t *n = pc_get(c, phase, "teardown");
     if (n->type == YAML_MAPPING_NODE) {
-        static const char *const keys[] = {"rate", NULL};
+        const char *const *keys = plan_keys(PLAN_KEYS_TEARDOWN);
         char w[200];
         snprintf(w, sizeof w, "%s.teardown", where);
         pc_check_keys(c, n, w, keys);
@@ -391,7 +386,7 @@ static void parse_one(pctx_t *c, yaml_node_t *n, size_t index)
                      c->p->phases[prev].pos.file, c->p->phases[prev].pos.line,
                      c->p->phases[prev].pos.col);
     }
-    pc_check_keys(c, n, where, phase_keys);
+    pc_check_keys(c, n, where, plan_keys(PLAN_KEYS_PHASE));
     ph.has_duration = pc_dur(c, n, "duration", where, 1, &ph.duration_ns);
     parse_shape(c, n, where, &ph);
     if (pc_get(c, n, "mix"))

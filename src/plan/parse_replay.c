@@ -43,7 +43,7 @@ static void parse_rules(pctx_t *c, yaml_node_t *n, const char *where, const char
     snprintf(w, sizeof w, "%s.%s", where, key);
     if (!pc_expect_seq(c, n, w))
         return;
-    const char *const keys[] = {"match", key[0] == 'r' ? "to" : "class", NULL};
+    const char *const *keys = plan_keys(key[0] == 'r' ? PLAN_KEYS_REWRITE : PLAN_KEYS_CLASSIFY);
     size_t i = 0;
     for (yaml_node_item_t *it = n->data.sequence.items.start; it < n->data.sequence.items.top;
          it++, i++) {
@@ -113,10 +113,7 @@ static int implicit_class(pctx_t *c, const char *name, enum plan_kind kind, plan
 
 void plan_parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
 {
-    static const char *const keys[] = {
-        "log",      "speed",  "format", "fields",  "time-unit", "duration-unit",
-        "time-at",  "from",   "to",     "methods", "match",     "rewrite",
-        "classify", "copies", "offset", "spread",  "watch-param", "watch-min", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_REPLAY);
     static const char *const spreads[] = {"even", "poisson", NULL};
     char w[200];
     snprintf(w, sizeof w, "%s.replay", where);

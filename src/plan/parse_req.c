@@ -6,39 +6,23 @@
 #include "plan_int.h"
 #include "squall/err.h"
 
-static const struct {
-    const char *key;
-    unsigned kinds;
-} req_keys[] = {
-    {"kind", PK_ANY},        {"path", PK_ANY},
-    {"headers", PK_ANY},     {"timeout", PK_ANY},
-    {"page", PK_LIST},       {"limit-param", PK_LIST},
-    {"token-key", PK_LIST},  {"token-param", PK_LIST},
-    {"method", PK_WRITE},    {"body", PK_WRITE},
-    {"creates", PK_WRITE},   {"deletes", PK_WRITE},
-    {"keep", PK_WRITE},
-    {"framing", PK_WATCH},   {"version-key", PK_WATCH},
-    {"stamp-key", PK_WATCH}, {"too-old-status", PK_WATCH},
-    {"relist", PK_WATCH},    {"reconnect", PK_WATCH},
-};
-#define N_REQ_KEYS (sizeof req_keys / sizeof req_keys[0])
-
 /* Keys that exist but belong to another kind of request. */
 static void check_kind_keys(pctx_t *c, yaml_node_t *n, const char *where, enum plan_kind kind)
 {
-    for (size_t i = 0; i < N_REQ_KEYS; i++) {
-        if (req_keys[i].kinds & (1u << kind))
+    const plan_keyset_t *ks = &plan_keysets[PLAN_KEYS_REQUEST];
+    for (size_t i = 0; ks->keys[i]; i++) {
+        if (ks->kinds[i] & (1u << kind))
             continue;
-        yaml_node_t *k = pc_get_key(c, n, req_keys[i].key);
+        yaml_node_t *k = pc_get_key(c, n, ks->keys[i]);
         if (!k)
             continue;
         char kinds[64] = "";
         for (int j = 0; plan_kind_names[j]; j++)
-            if (req_keys[i].kinds & (1u << j))
+            if (ks->kinds[i] & (1u << j))
                 snprintf(kinds + strlen(kinds), sizeof kinds - strlen(kinds), "%s%s",
                          kinds[0] ? " or " : "", plan_kind_names[j]);
         pc_error(c, k, "%s: key '%s' does not apply to this kind (expected kind %s, got %s)", where,
-                 req_keys[i].key, kinds, plan_kind_names[kind]);
+                 ks->keys[i], kinds, plan_kind_names[kind]);
     }
 }
 
@@ -91,7 +75,7 @@ static void parse_write_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_
 
 static void parse_reconnect(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
 {
-    static const char *const keys[] = {"policy", "base", "cap", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_RECONNECT);
     char w[200];
     snprintf(w, sizeof w, "%s.reconnect", where);
     if (!pc_expect_map(c, n, w))
@@ -167,16 +151,13 @@ static void parse_common(pctx_t *c, yaml_node_t *n, const char *where, plan_req_
 
 static void parse_one(pctx_t *c, yaml_node_t *k, yaml_node_t *n, plan_req_t *r)
 {
-    static const char *keys[N_REQ_KEYS + 1];
-    for (size_t i = 0; i < N_REQ_KEYS; i++)
-        keys[i] = req_keys[i].key;
     char where[128];
     snprintf(where, sizeof where, "requests.%s", pc_text(k));
     r->name = pmem_strdup(c, pc_text(k));
     r->pos = pc_pos(c, k);
     if (!pc_expect_map(c, n, where))
         return;
-    pc_check_keys(c, n, where, keys);
+    pc_check_keys(c, n, where, plan_keys(PLAN_KEYS_REQUEST));
     int kind = -1;
     if (!pc_get(c, n, "kind")) {
         pc_error(c, n,

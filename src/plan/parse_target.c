@@ -1,5 +1,6 @@
 /* The plan's `target` and `vars` sections: where load goes and the word lists templates pick
  * from. A section read from an included file is overridden key by key by the including file. */
+#include <ctype.h>
 #include <arpa/inet.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -35,6 +36,13 @@ void plan_parse_headers_into(pctx_t *c, yaml_node_t *n, const char *where, plan_
         if (!header_name_ok(name)) {
             pc_error(c, k, "%s: bad header name (expected an RFC 9110 token, got '%s')", where,
                      name);
+            continue;
+        }
+        if (!strcasecmp(name, "authorization") || !strcasecmp(name, "proxy-authorization")) {
+            pc_error(c, k,
+                     "%s.%s: a literal credential header is never accepted (expected "
+                     "target.token: {file: PATH} or {env: NAME}; the value is not shown)",
+                     where, name);
             continue;
         }
         if (!v || v->type != YAML_SCALAR_NODE ||
@@ -74,6 +82,10 @@ static bool split_authority(const char *h, char *host, size_t len, int *port, co
         end = h + strcspn(h, ":/?#");
         if (end == h || (size_t)(end - h) >= len || memchr(h, '@', (size_t)(end - h)))
             return false;
+        for (const char *p = h; p < end; p++) /* a DNS name or an IPv4 address (RFC 3986 reg-name
+                                                 without escapes): no space, no control byte */
+            if (!isalnum((unsigned char)*p) && *p != '-' && *p != '.' && *p != '_')
+                return false;
         snprintf(host, len, "%.*s", (int)(end - h), h);
     }
     if (*end == ':') {
@@ -96,10 +108,14 @@ bool plan_split_url(pctx_t *c, yaml_node_t *vn, const char *where, bool *https, 
     *port = *https ? 443 : 80;
     if (!u || (!*https && strncmp(u, "http://", 7) != 0) ||
         !split_authority(u + (*https ? 8 : 7), host, cap, port, path)) {
+        /* User information may hold a password: the URL is shown without it. */
+        const char *at = u ? strchr(u, '@') : NULL, *sep = u ? strstr(u, "://") : NULL;
+        int keep = !u ? 0 : at ? (sep && sep < at ? (int)(sep + 3 - u) : 0) : (int)strlen(u);
         pc_error(c, vn,
                  "%s: bad URL (expected an http:// or https:// URL like "
-                 "http://127.0.0.1:7070, got '%s')",
-                 where, u ? u : "not text");
+                 "http://127.0.0.1:7070, got '%s%.*s%s%s')",
+                 where, u ? "" : "not text", keep, u ? u : "",
+                 at ? "(user information not shown)@" : "", at ? at + 1 : "");
         return false;
     }
     unsigned char a[16];
@@ -130,7 +146,7 @@ static void parse_url(pctx_t *c, yaml_node_t *vn, plan_target_t *t)
 
 static void parse_tls(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 {
-    static const char *const keys[] = {"ca", "cert", "key", "insecure", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_TLS);
     if (!pc_expect_map(c, n, "target.tls"))
         return;
     pc_check_keys(c, n, "target.tls", keys);
@@ -147,7 +163,7 @@ static void parse_tls(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 
 static void parse_token(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 {
-    static const char *const keys[] = {"file", "env", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_TOKEN);
     if (n && n->type == YAML_SCALAR_NODE) {
         pc_error(c, n,
                  "target.token: a literal token is never accepted (expected {file: PATH} "
@@ -167,8 +183,7 @@ static void parse_token(pctx_t *c, yaml_node_t *n, plan_target_t *t)
 
 void plan_parse_target(pctx_t *c, yaml_node_t *n)
 {
-    static const char *const keys[] = {"url",     "http", "connections", "streams", "timeout",
-                                       "headers", "tls",  "token",       NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_TARGET);
     static const char *const versions[] = {"1.1", "2", NULL};
     plan_target_t *t = &c->p->target;
     if (!pc_expect_map(c, n, "target"))
@@ -188,6 +203,7 @@ void plan_parse_target(pctx_t *c, yaml_node_t *n)
      * server's SETTINGS arrive. Ignored for HTTP/1.1. */
     pc_int(c, n, "streams", "target", 1, 10000, &t->streams);
     pc_dur(c, n, "timeout", "target", 1, &t->timeout_ns);
+    pc_bytes(c, n, "max_body", "target", 1024, INT64_C(1) << 32, &t->max_body);
     if (pc_get(c, n, "headers"))
         plan_parse_headers_into(c, pc_get(c, n, "headers"), "target.headers", &t->headers,
                                 &t->n_headers);
@@ -199,7 +215,7 @@ void plan_parse_target(pctx_t *c, yaml_node_t *n)
 
 static void parse_range(pctx_t *c, yaml_node_t *n, const char *where, plan_var_t *v)
 {
-    static const char *const keys[] = {"from", "to", NULL};
+    const char *const *keys = plan_keys(PLAN_KEYS_RANGE);
     pc_check_keys(c, n, where, keys);
     int from = 0, to = 0;
     bool ok = pc_int(c, n, "from", where, -1000000000, 1000000000, &from);

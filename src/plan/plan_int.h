@@ -75,6 +75,9 @@ bool pc_rate(pctx_t *c, yaml_node_t *map, const char *key, const char *where, do
 bool pc_pct(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double *out);
 bool pc_num(pctx_t *c, yaml_node_t *map, const char *key, const char *where, double min, double max,
             double *out);
+/* A size in bytes (`512KiB`, `32MiB`) within [min, max]. */
+bool pc_bytes(pctx_t *c, yaml_node_t *map, const char *key, const char *where, int64_t min,
+              int64_t max, int64_t *out);
 bool pc_bool(pctx_t *c, yaml_node_t *map, const char *key, const char *where, bool *out);
 /* One of `names` (NULL-terminated); *out is its index. */
 bool pc_enum(pctx_t *c, yaml_node_t *map, const char *key, const char *where,
@@ -128,5 +131,21 @@ extern const char *const plan_backoff_names[];
 
 /* Appends n zeroed elements to a plan array (copying, since arrays live in plan memory). */
 void *pc_grow(pctx_t *c, void *arr, size_t *count, size_t add, size_t elem);
+
+/* ---- text.c: a plan file's bytes before YAML ------------------------------------------- */
+
+#define PLAN_MAX_BYTES   (4 << 20) /* a plan file larger than this is refused */
+#define PLAN_MAX_NESTING 64        /* flow collections ([ and {) nested deeper are refused */
+
+typedef struct {
+    bool too_deep; /* nesting passed PLAN_MAX_NESTING at byte `at` */
+    char unclosed; /* else: the '[', '{', '"' or '\'' opened at byte `at` never closed, or 0 */
+    size_t at;
+} plan_text_scan_t;
+
+/* Scans the text: brackets outside quotes and comments, quotes. */
+void plan_text_scan(const char *s, size_t len, plan_text_scan_t *r);
+/* The line and column of byte `at` of the text (columns count UTF-8 characters). */
+plan_pos_t plan_text_pos(const char *file, const char *s, size_t len, size_t at);
 
 #endif

@@ -155,6 +155,9 @@ static int opt_str(reader_t *rd, json_t *obj, const char *key, const char *where
     return results_meta_str(slot, json_string_value(v));
 }
 
+#define MAX_START_MS    INT64_C(4102444800000)       /* 2100-01-01T00:00:00Z */
+#define MAX_DURATION_NS INT64_C(4000000000000000000) /* 126 years */
+
 static int req_int(reader_t *rd, json_t *obj, const char *key, const char *where, int64_t min,
                    int64_t *v)
 {
@@ -181,6 +184,9 @@ static int read_plan_and_start(reader_t *rd, json_t *meta, results_t *r)
         (!json_is_string(start) ||
          !results_parse_time(json_string_value(start), &r->meta.start_unix_ms)))
         return bad(rd, SQ_EPARSE, "meta.start: expected a time like \"2026-01-31T12:00:00.000Z\"");
+    /* Start and end are added in ns (merge): both stay far from int64's end (fuzz-results). */
+    if (r->meta.start_unix_ms < 0 || r->meta.start_unix_ms > MAX_START_MS)
+        return bad(rd, SQ_EPARSE, "meta.start: expected a time from 1970 to 2099");
     return 0;
 }
 
@@ -213,6 +219,9 @@ static int read_meta(reader_t *rd, json_t *meta, results_t *r)
     int rc;
     if ((rc = read_plan_and_start(rd, meta, r)) || (rc = read_shard(rd, meta, r)) ||
         (rc = req_int(rd, meta, "duration_ns", "meta", 0, &r->meta.duration_ns)) ||
+        (r->meta.duration_ns > MAX_DURATION_NS &&
+         (rc = bad(rd, SQ_EPARSE, "meta.duration_ns: expected at most %lld",
+                   (long long)MAX_DURATION_NS))) ||
         (rc = opt_str(rd, meta, "squall_version", "meta", &r->meta.squall_version)) ||
         (rc = opt_str(rd, meta, "host", "meta", &r->meta.host)) ||
         (rc = opt_str(rd, meta, "stop_reason", "meta", &r->meta.stop_reason)) ||

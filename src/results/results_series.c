@@ -106,11 +106,13 @@ static bool parse_row(char **f, size_t nf, const int *idx, row_t *r)
 {
     for (int c = 0; c < C__COUNT; c++) {
         r->v[c] = NAN;
+        /* Every column the header names must be in the row, phase and class too (a short row
+         * read them past the fields: found by fuzz-results). */
+        if (idx[c] >= 0 && (size_t)idx[c] >= nf)
+            return false;
         if (c == C_PHASE || c == C_CLASS || idx[c] < 0)
             continue;
         char *end;
-        if ((size_t)idx[c] >= nf)
-            return false;
         r->v[c] = strtod(f[idx[c]], &end);
         if (end == f[idx[c]] || *end)
             return false;

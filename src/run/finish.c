@@ -164,7 +164,8 @@ bool run_finish(run_t *r, run_result_t *res)
                             run_json(r, res, json_incref(reasons), json_incref(accepted)));
         results_write_dir(r->res, r->dir, r->o);
     }
-    if (!r->opts->quiet && ph)
+    snprintf(res->dir, sizeof res->dir, "%s", r->dir);
+    if (!r->opts->quiet && !r->opts->no_summary && ph)
         run_summary(r, ph, j, res, reasons, accepted);
     json_decref(reasons);
     json_decref(accepted);

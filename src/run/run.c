@@ -397,11 +397,25 @@ static void on_signal(uv_signal_t *s, int signum)
     }
 }
 
+/* The engine saw connections refused (or a name not resolve) several times in a row. A target
+ * that never answered is a wrong URL or a server not started: the run stops at once, unless
+ * --no-brakes. One that answered before is restarting, perhaps on purpose: the unreachable
+ * brake (brakes.c, with its window) decides, and watches reconnect by their policy. Any other
+ * reason (HTTP/2 not spoken) cannot heal: the run stops. */
 static void on_unreachable(void *user)
 {
     run_t *r = user;
     eng_stats_t st;
     eng_stats(r->eng, &st, false);
+    int64_t answered = st.by_outcome[ENG_OUT_S2XX] + st.by_outcome[ENG_OUT_S3XX] +
+                       st.by_outcome[ENG_OUT_S4XX] + st.by_outcome[ENG_OUT_S5XX];
+    bool transient = st.why && (!strcmp(st.why, ENG_WHY_REFUSED) || !strcmp(st.why, ENG_WHY_RESOLVE));
+    if (transient && (answered > 0 || r->opts->no_brakes)) {
+        out_warn(r->o, "the target %s %s: %s", r->plan->target.url, st.why,
+                 r->opts->no_brakes ? "--no-brakes, the run goes on"
+                                    : "the unreachable brake decides (brakes in results.json)");
+        return;
+    }
     run_stop(r, RUN_END_UNREACHABLE, "target unreachable: %s %s", r->plan->target.url,
              st.why ? st.why : "refuses connections or does not resolve");
 }
@@ -595,9 +609,9 @@ static int open_results(run_t *r)
 }
 
 /* A brake fired (from the observers, once a second). */
-static void on_brake(void *user, const char *why)
+static void on_brake(void *user, int kind, const char *why)
 {
-    run_stop(user, RUN_END_BRAKE, "%s", why);
+    run_stop(user, kind == PLAN_BRAKE_UNREACHABLE ? RUN_END_UNREACHABLE : RUN_END_BRAKE, "%s", why);
 }
 
 int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o, run_result_t *result)

@@ -64,7 +64,7 @@ typedef struct run {
     uint64_t seed;
     char dir[4096];
 
-    void (*on_brake)(void *run, const char *why); /* set before run_prepare; NULL to check */
+    void (*on_brake)(void *run, int kind, const char *why); /* set before run_prepare; NULL to check */
     src_target_t target;
     obs_t *obs;
     src_issuer_t *issuer;

@@ -93,6 +93,17 @@ static enum MHD_Result watch(srv_server_t *sv, struct MHD_Connection *conn, int 
     if (ss && !parse_u64(ss, &since))
         return srv_reply_error(sv, conn, method, 400, "bad-since",
                                "since must be a version (a non-negative integer)");
+    if (since > s->version) {
+        /* A resume point this store never reached: a client of a store that restarted empty.
+         * Waiting silently would hide every change made since; 410 sends it to relist. */
+        char msg[200];
+        s->expired++;
+        snprintf(msg, sizeof(msg),
+                 "version %llu is ahead of this store (now at %llu; it may have restarted); list "
+                 "the collection again and watch from its version",
+                 (unsigned long long)since, (unsigned long long)s->version);
+        return srv_reply_error(sv, conn, method, 410, "ahead", msg);
+    }
     int first = srv_store_history_after(s, since);
     if (first < 0) {
         char msg[256];

@@ -28,6 +28,7 @@ void server_opts_init(server_opts_t *o)
     o->history = 10000;
     o->stream_buffer = 1 << 20;
     o->seed = 1;
+    o->idle_timeout_s = 60;
     server_faults_init(&o->faults);
 }
 

@@ -4,6 +4,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 
 #include "squall/clock.h"
 #include "squall/err.h"
@@ -349,6 +350,25 @@ static enum MHD_Result too_large(srv_req_t *q)
     return srv_reply_error(sv, q->conn, q->v1 ? q->method : -1, 413, "too-large", msg);
 }
 
+static enum MHD_Result other_length(void *cls, enum MHD_ValueKind kind, const char *key,
+                                   const char *value)
+{
+    (void)kind;
+    const char **first = cls;
+    if (strcasecmp(key, "Content-Length") == 0 && value && strcmp(value, *first) != 0) {
+        *first = NULL; /* found one that differs */
+        return MHD_NO;
+    }
+    return MHD_YES;
+}
+
+/* Whether the request carries Content-Length headers with different values (first is one). */
+static bool lengths_differ(struct MHD_Connection *conn, const char *first)
+{
+    MHD_get_connection_values(conn, MHD_HEADER_KIND, other_length, &first);
+    return first == NULL;
+}
+
 enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const char *url,
                                 const char *method, const char *version, const char *upload,
                                 size_t *upload_size, void **con_cls)
@@ -360,6 +380,12 @@ enum MHD_Result srv_http_access(void *cls, struct MHD_Connection *conn, const ch
         if (!(*con_cls = q = req_new(sv, conn, url, method)))
             return MHD_NO;
         const char *cl = MHD_lookup_connection_value(conn, MHD_HEADER_KIND, "Content-Length");
+        if (cl && lengths_differ(conn, cl)) {
+            q->answered = true;
+            return srv_reply_error(sv, conn, q->method, 400, "bad-length",
+                                   "two different Content-Length headers (RFC 9112, 6.3: an "
+                                   "unrecoverable error)");
+        }
         if (cl && strtoll(cl, NULL, 10) > sv->opts.body_limit) {
             q->answered = true;
             return too_large(q);

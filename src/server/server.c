@@ -102,6 +102,30 @@ static int parse_addr(const server_opts_t *o, struct sockaddr_storage *ss)
     return SQ_EINVAL;
 }
 
+/* Percent-decoding of the URL and its arguments in place, as libmicrohttpd's own does, except
+ * that %00 stays as it is: decoded, a NUL would cut the path short ("/v1/a/gw-%00x" would be
+ * served as "/v1/a/gw-"); kept, the path fails srv_path_valid and is answered 400. */
+static size_t unescape(void *cls, struct MHD_Connection *conn, char *s)
+{
+    (void)cls;
+    (void)conn;
+    static const char hex[] = "0123456789abcdef";
+    char *w = s;
+    for (const char *r = s; *r; r++) {
+        const char *a = r[0] == '%' && r[1] ? strchr(hex, r[1] | 0x20) : NULL;
+        const char *b = a && r[2] ? strchr(hex, r[2] | 0x20) : NULL;
+        int v = a && b ? (int)(a - hex) * 16 + (int)(b - hex) : -1;
+        if (v > 0) {
+            *w++ = (char)v;
+            r += 2;
+        } else {
+            *w++ = *r;
+        }
+    }
+    *w = '\0';
+    return (size_t)(w - s);
+}
+
 static int start_mhd(srv_server_t *sv, struct sockaddr_storage *ss, int family)
 {
     unsigned flags = MHD_USE_EPOLL | MHD_ALLOW_SUSPEND_RESUME | MHD_USE_TURBO | MHD_USE_ERROR_LOG;
@@ -112,8 +136,9 @@ static int start_mhd(srv_server_t *sv, struct sockaddr_storage *ss, int family)
         MHD_OPTION_NOTIFY_COMPLETED, srv_http_completed, sv, MHD_OPTION_NOTIFY_CONNECTION,
         srv_access_conn, sv, MHD_OPTION_URI_LOG_CALLBACK, srv_access_uri, sv,
         MHD_OPTION_EXTERNAL_LOGGER, mhd_log, sv, MHD_OPTION_CONNECTION_LIMIT, (unsigned)30000,
-        MHD_OPTION_CONNECTION_TIMEOUT, (unsigned)0, MHD_OPTION_CONNECTION_MEMORY_LIMIT,
-        (size_t)8192, MHD_OPTION_LISTEN_BACKLOG_SIZE, (unsigned)4096, MHD_OPTION_END);
+        MHD_OPTION_CONNECTION_TIMEOUT, (unsigned)sv->opts.idle_timeout_s,
+        MHD_OPTION_CONNECTION_MEMORY_LIMIT, (size_t)8192, MHD_OPTION_LISTEN_BACKLOG_SIZE,
+        (unsigned)4096, MHD_OPTION_UNESCAPE_CALLBACK, unescape, NULL, MHD_OPTION_END);
     if (!sv->mhd)
         return SQ_EIO;
     const union MHD_DaemonInfo *ep = MHD_get_daemon_info(sv->mhd, MHD_DAEMON_INFO_EPOLL_FD);

@@ -80,6 +80,7 @@ int src_target_init(src_target_t *t, const plan_t *plan, bool insecure, out_t *o
         .connections = pt->connections,
         .streams = pt->streams,
         .timeout_ms = pt->timeout_ns / 1000000,
+        .max_body = pt->max_body,
         .ca_file = pt->tls.ca,
         .cert_file = pt->tls.cert,
         .key_file = pt->tls.key,

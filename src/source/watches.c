@@ -10,6 +10,7 @@
 #include "watches.h"
 #include "src_int.h"
 #include "squall/clock.h"
+#include "squall/file.h"
 #include "squall/err.h"
 #include "squall/watch.h"
 
@@ -33,6 +34,7 @@ typedef struct {
     int streams;
     figs_t ended; /* one-shot streams already ended and freed */
     int64_t events_n, bytes, unparsed, oversize, server_errors, no_stamp, stamp_ahead;
+    int open_at_end, waiting_at_end; /* streams answered / sent but unanswered at the end */
 } wclass_t;
 
 typedef struct watches watches_t;
@@ -110,23 +112,16 @@ static int64_t files_needed(const plan_t *p, int watchers)
 /* Raises the soft open-files limit to the hard one and refuses a phase that needs more. */
 static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp, int watchers)
 {
-    struct rlimit rl;
-    if (getrlimit(RLIMIT_NOFILE, &rl) != 0)
-        return 0;
-    if (rl.rlim_cur < rl.rlim_max) {
-        rl.rlim_cur = rl.rlim_max;
-        setrlimit(RLIMIT_NOFILE, &rl);
-        getrlimit(RLIMIT_NOFILE, &rl);
-    }
+    uint64_t limit = file_raise_limit();
     int64_t need = files_needed(ctx->plan, watchers);
-    if (rl.rlim_cur == RLIM_INFINITY || need <= (int64_t)rl.rlim_cur)
+    if (limit == 0 || (uint64_t)need <= limit)
         return 0;
     out_raw(ctx->o, OUT_ERROR,
             "%s:%d:%d: error: phase '%s' opens %d watches, which need about %lld open files "
             "over HTTP/%s, but this process may open at most %llu (RLIMIT_NOFILE hard limit); "
             "use fewer watches per process (shards), or http: \"2\" to multiplex streams",
             pp->pos.file, pp->pos.line, pp->pos.col, pp->name, watchers, (long long)need,
-            ctx->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1", (unsigned long long)rl.rlim_cur);
+            ctx->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1", (unsigned long long)limit);
     return SQ_ELIMIT;
 }
 
@@ -253,6 +248,15 @@ static void on_event(void *user, const watch_event_t *ev)
     hist_add(wc->events, RESULTS_M_PROPAGATION, d);
 }
 
+/* The target answered: the stream is open (its open latency still waits for the first byte). */
+static void on_head(void *user, long status)
+{
+    watcher_t *w = user;
+    obs_answered(w->ws->ctx.obs, (int64_t)uv_hrtime()); /* the target answers (brakes) */
+    if (status >= 200 && status < 300)
+        watch_stream_set(&w->st, WATCH_OPEN);
+}
+
 static int on_data(void *user, const char *data, size_t len)
 {
     watcher_t *w = user;
@@ -289,10 +293,11 @@ static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
     const char *headers[c->n_headers + 1];
     size_t nh = c->n_headers;
     memcpy(headers, c->headers, nh * sizeof(*headers));
+    char esc[3 * sizeof w->st.version + 1];
     int n;
-    if (w->st.has_version && !sse)
+    if (w->st.has_version && !sse && src_url_escape(w->st.version, esc, sizeof esc))
         n = snprintf(path, sizeof path, "%s%s%s=%s", w->path, strchr(w->path, '?') ? "&" : "?",
-                     RESUME_PARAM, w->st.version);
+                     RESUME_PARAM, esc);
     else
         n = snprintf(path, sizeof path, "%s", w->path);
     if (n < 0 || (size_t)n >= sizeof path)
@@ -309,6 +314,7 @@ static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
         .timeout_ms = w->hold_ms,
         .intended_ns = intended,
         .on_data = on_data,
+        .on_head = on_head,
         .on_done = on_stream_done,
         .user = w,
     };
@@ -359,6 +365,10 @@ static void figs_add(figs_t *f, const watcher_t *w)
 static void once_end(watches_t *ws, watcher_t *w, const watch_end_t *end, bool held)
 {
     int64_t delay;
+    if (!ws->active) { /* closed at the phase's end, as watches_stop counts its own */
+        w->wc->open_at_end += w->st.state == WATCH_OPEN;
+        w->wc->waiting_at_end += w->st.state == WATCH_OPENING;
+    }
     if (!held)
         watch_stream_ended(&w->st, end, &ws->rng, &delay);
     figs_add(&w->wc->ended, w);
@@ -734,12 +744,14 @@ static json_t *class_json(watches_t *ws, const wclass_t *wc)
     for (size_t i = 0; i < ws->n; i++)
         if (ws->w[i].wc == wc)
             figs_add(&f, &ws->w[i]);
-    return json_pack("{s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}", "streams",
-                     wc->streams, "opens", (json_int_t)f.opens, "events", (json_int_t)wc->events_n,
-                     "bytes", (json_int_t)wc->bytes, "drops", (json_int_t)f.drops, "reconnects",
-                     (json_int_t)f.reconnects, "relists", (json_int_t)f.relists, "too_old",
-                     (json_int_t)f.too_old, "duplicates", (json_int_t)f.dup, "oversize",
-                     (json_int_t)f.over, "unparsed", (json_int_t)wc->unparsed, "server_errors",
+    return json_pack("{s:i,s:i,s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}",
+                     "streams", wc->streams, "open_at_end", wc->open_at_end, "waiting_at_end",
+                     wc->waiting_at_end, "opens", (json_int_t)f.opens, "events",
+                     (json_int_t)wc->events_n, "bytes", (json_int_t)wc->bytes, "drops",
+                     (json_int_t)f.drops, "reconnects", (json_int_t)f.reconnects, "relists",
+                     (json_int_t)f.relists, "too_old", (json_int_t)f.too_old, "duplicates",
+                     (json_int_t)f.dup, "oversize", (json_int_t)f.over, "unparsed",
+                     (json_int_t)wc->unparsed, "server_errors",
                      (json_int_t)wc->server_errors, "no_stamp", (json_int_t)wc->no_stamp, "policy",
                      plan_backoff_name(src_class(ws->ctx.issuer, wc->cls)->pr->watch.policy));
 }
@@ -782,8 +794,13 @@ static void watches_stop(void *self)
     if (!ws->active && !ws->eng)
         return;
     ws->active = false;
-    for (size_t i = 0; i < ws->n; i++)
+    for (size_t i = 0; i < ws->n; i++) {
+        /* A stream is open once the target answered it; one still waiting (in the server's
+         * accept backlog, say) is told apart, never counted as open. */
+        ws->w[i].wc->open_at_end += ws->w[i].st.state == WATCH_OPEN;
+        ws->w[i].wc->waiting_at_end += ws->w[i].st.state == WATCH_OPENING;
         watch_stream_set(&ws->w[i].st, WATCH_CLOSED);
+    }
     eng_free(ws->eng);
     ws->eng = NULL;
     json_t *ph = phase_json(ws);

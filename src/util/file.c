@@ -1,6 +1,7 @@
 /* The one atomic write-then-rename of squall's output files (see squall/file.h). */
 #include "squall/file.h"
 
+#include <sys/resource.h>
 #include <errno.h>
 #include <stdlib.h>
 #include <string.h>
@@ -65,4 +66,17 @@ int file_write_atomic(const char *path, int (*fill)(FILE *f, void *ctx), void *c
     }
     free(tmp);
     return rc;
+}
+
+uint64_t file_raise_limit(void)
+{
+    struct rlimit rl;
+    if (getrlimit(RLIMIT_NOFILE, &rl) != 0)
+        return 0;
+    if (rl.rlim_cur < rl.rlim_max) {
+        rl.rlim_cur = rl.rlim_max;
+        setrlimit(RLIMIT_NOFILE, &rl);
+        getrlimit(RLIMIT_NOFILE, &rl);
+    }
+    return rl.rlim_cur == RLIM_INFINITY ? UINT64_MAX : (uint64_t)rl.rlim_cur;
 }

@@ -227,6 +227,60 @@ int value_parse_int(const char *s, int64_t min, int64_t max, int64_t *v)
     return 0;
 }
 
+const char *value_path_problem(const char *path)
+{
+    if (!path || !path[0])
+        return "an empty path";
+    if (path[0] != '/')
+        return "a path that does not start with '/'";
+    size_t n = 0;
+    for (const unsigned char *p = (const unsigned char *)path; *p; p++, n++) {
+        if (*p < 0x20 || *p == 0x7f)
+            return "a control byte (CR, LF, NUL, ...) in the path";
+        if (*p == ' ')
+            return "a space in the path";
+        if (*p == '#')
+            return "a '#' in the path";
+    }
+    return n > VALUE_PATH_MAX ? "a path longer than 8192 bytes" : NULL;
+}
+
+int value_token_ok(const char *s, size_t len, size_t max)
+{
+    if (!s || len == 0 || len > max)
+        return 0;
+    for (size_t i = 0; i < len; i++)
+        if ((unsigned char)s[i] < 0x21 || (unsigned char)s[i] > 0x7e)
+            return 0;
+    return 1;
+}
+
+int value_parse_bytes(const char *s, int64_t *bytes)
+{
+    static const struct {
+        const char *unit;
+        int shift;
+    } units[] = {{"", 0}, {"B", 0}, {"KiB", 10}, {"MiB", 20}, {"GiB", 30}};
+    const char *p = s;
+    uint64_t v = 0;
+    if (!isdigit((unsigned char)*p))
+        return SQ_EPARSE;
+    for (; isdigit((unsigned char)*p); p++) {
+        if (v > (UINT64_C(1) << 40))
+            return SQ_ERANGE;
+        v = v * 10 + (uint64_t)(*p - '0');
+    }
+    for (size_t i = 0; i < sizeof units / sizeof units[0]; i++) {
+        if (strcmp(p, units[i].unit) == 0) {
+            if (v > (UINT64_C(1) << 40) >> units[i].shift)
+                return SQ_ERANGE;
+            *bytes = (int64_t)(v << units[i].shift);
+            return 0;
+        }
+    }
+    return SQ_EPARSE;
+}
+
 int value_parse_listen(const char *s, char *host, size_t cap, int *port)
 {
     const char *colon = strrchr(s, ':');

@@ -4,6 +4,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "squall/value.h"
 #include "squall/watch.h"
 
 static const char *const state_names[WATCH__STATES] = {
@@ -37,10 +38,21 @@ void watch_stream_set(watch_stream_t *s, enum watch_state to)
         s->on_state(s->user, from, to);
 }
 
+/* A version is the target's text that goes back to it in a query or a header: visible ASCII
+ * only (a CR or LF would start a header line of the target's choosing). */
+static bool version_ok(const char *v)
+{
+    return value_token_ok(v, strlen(v), WATCH_VERSION_MAX);
+}
+
 bool watch_stream_event(watch_stream_t *s, const watch_fields_t *f)
 {
     if (!f->has_version)
         return false;
+    if (!version_ok(f->version)) {
+        s->bad_versions++;
+        return false;
+    }
     if (f->version_numeric && s->version_numeric && s->has_version &&
         f->version_num <= s->version_num) {
         s->duplicates++;
@@ -55,7 +67,8 @@ bool watch_stream_event(watch_stream_t *s, const watch_fields_t *f)
 
 void watch_stream_relisted(watch_stream_t *s, const char *version)
 {
-    s->has_version = version && version[0];
+    s->has_version = version && version[0] && version_ok(version);
+    s->bad_versions += version && version[0] && !s->has_version;
     snprintf(s->version, sizeof(s->version), "%s", s->has_version ? version : "");
     char *end = NULL;
     unsigned long long n = s->has_version ? strtoull(s->version, &end, 10) : 0;

@@ -4,7 +4,7 @@
 # fuzz` in a build configured with -Dfuzz=true (see tests/fuzz/README.md).
 # Usage: run.sh TARGET SEED_DIR [SECONDS]
 set -uo pipefail
-target=$1 seeds=$2 seconds=${3:-${FUZZ_SECONDS:-20}}
+target=$1 seeds=$2 seconds=${3:-${FUZZ_SECONDS:-10}}
 scratch=$(mktemp -d)
 trap 'rm -rf "$scratch"' EXIT
 export ASAN_OPTIONS=${ASAN_OPTIONS:-detect_leaks=1:abort_on_error=1}

@@ -12,6 +12,11 @@ expect "squall --help exits 0 and lists every command" \
 expect "and lists the exit codes 0..6" bash -c "for c in 0 1 2 3 4 5 6; do grep -q \"^  \$c  \" '$T/help' || exit 1; done"
 expect "and the cautions" grep -q "staging first" "$T/help"
 expect "squall --version prints the version" bash -c "'$SQUALL' --version | grep -Eq '^squall [0-9]+\.[0-9]+\.[0-9]+$'"
+expect "squall version, --version and -V print the same line" \
+    bash -c "v=\$('$SQUALL' version) && [ \"\$('$SQUALL' --version)\" = \"\$v\" ] && [ \"\$('$SQUALL' -V)\" = \"\$v\" ]"
+"$SQUALL" >"$T/bare.out" 2>"$T/bare.err"
+expect "squall without a command exits 2 with the overview on stderr, nothing on stdout" \
+    bash -c "[ $? = 2 ] && [ ! -s '$T/bare.out' ] && grep -q '^commands:' '$T/bare.err'"
 for c in $(sed -n 's/^  \([a-z]*\)  .*/\1/p' "$T/help" | sort -u); do
     [ "$c" = "" ] && continue
     "$SQUALL" help "$c" >"$T/help-$c" 2>&1
@@ -71,6 +76,10 @@ mistake "a misspelt option with a value too" \
     check plan.yaml --sett=a=b
 mistake "an option missing its value" \
     "squall: error: run: option '--out' needs a value (DIR) (see 'squall help run')" run plan.yaml --out
+mistake "completion for a shell it does not write" \
+    "squall: error: completion: unknown shell 'fish' (expected bash or zsh) (see 'squall help completion')" completion fish
+mistake "version takes no arguments" \
+    "squall: error: version: takes no arguments, got 'x' (see 'squall help version')" version x
 mistake "a command without its plan" \
     "squall: error: run: which plan? (expected PLAN.yaml) (see 'squall help run')" run
 mistake "help for an unknown command" \

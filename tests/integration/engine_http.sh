@@ -33,7 +33,7 @@ check "a base URL with a path prefix: /echo + /body reaches /echo/body and echoe
     'd["outcomes"]["2xx"] == 50 and d["first_body"] == "{\"n\":1}"' "$T/prefix.json"
 probe "$T/frag.json" --url "$BASE" --path '/small.json#part' --requests 20 --concurrency 1 \
     --connections 1
-check "a fragment is not sent (the unusual-URL path through CURLOPT_URL): 20 x 2xx" \
+check "a fragment is not sent (the engine cuts it off before the path is set): 20 x 2xx" \
     'd["outcomes"]["2xx"] == 20' "$T/frag.json"
 
 # Source: the file on disk (stat). Every response carries exactly the file's bytes as its body;

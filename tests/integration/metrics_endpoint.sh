@@ -71,11 +71,15 @@ got_done=$(q 'last_over_time(squall_requests_total{phase="load",class="renew",ou
 got_count=$(q 'last_over_time(squall_response_seconds_count{phase="load",class="renew"}[5m])')
 got_started=$(q 'last_over_time(squall_requests_started_total{phase="load",class="renew"}[5m])')
 got_events=$(q 'last_over_time(squall_watch_events_total{phase="load",class="follow"}[5m])')
+got_sendlag=$(q 'last_over_time(squall_send_lag_seconds_count[5m])')
+got_schedlag=$(q 'last_over_time(squall_schedule_lag_seconds_count[5m])')
 check "finished renewals: prometheus $got_done, results.json $want_done" test "$got_done" = "$want_done"
 check "response histogram count: prometheus $got_count" test "$got_count" = "$want_done"
 check "started renewals: prometheus $got_started" test "$got_started" = "$want_done"
 check "load-phase watch events: prometheus $got_events, results.json $want_events" \
     test "$got_events" = "$want_events"
+check "send lag counted for every request sent: $got_sendlag, as schedule lag $got_schedlag (>= $want_done)" \
+    bash -c "[ '$got_sendlag' = '$got_schedlag' ] && [ '$got_sendlag' -ge '$want_done' ]"
 check "at least 600 renewals (100/s for 6 s)" test "${want_done:-0}" -ge 600
 
 "$SQUALL" run "$T/plan.yaml" -o "$T/far" -q --metrics "10.255.255.1:9464" >"$T/far.out" 2>&1

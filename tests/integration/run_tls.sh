@@ -45,6 +45,11 @@ tls_plan badca /small.json "ca: $NGX_OTHER_CA"
 run_plan "$T/badca" "$T/badca.yaml" --no-brakes
 rcheck "an unknown CA is a TLS error, nothing answered" \
     'total("probe", "tls") > 0 and total("probe", "2xx") == 0' "$T/badca"
+# It is named once, with libcurl's reason, and ends the run like an unreachable target (exit 4;
+# it used to run to its end and exit 0 with every request a tls error).
+expect "a verification failure ends the run as unreachable (exit $RUN_RC, 4)" test "$RUN_RC" = 4
+expect "naming it once with libcurl's reason" \
+    test "$(grep -c "fails TLS verification: its certificate could not be verified (SSL certificate problem" "$T/badca.stderr")" = 1
 run_plan "$T/insecure" "$T/badca.yaml" --insecure
 rcheck "--insecure skips verification: all 2xx" 'total("probe", "2xx") == 20' "$T/insecure"
 expect "--insecure prints a warning" grep -q "TLS certificate verification is OFF" "$T/insecure.stderr"

@@ -32,7 +32,7 @@ struct eng {
 
 static const char *const names[] = {
     "2xx",     "3xx", "4xx",   "5xx",          "timeout",         "connect-refused",
-    "resolve", "tls", "reset", "http-version", "transport-other", "cancelled"};
+    "resolve", "tls", "reset", "http-version", "transport-other", "body-too-large", "cancelled"};
 
 const char *eng_outcome_name(enum eng_outcome o)
 {
