@@ -58,7 +58,8 @@ static int kind_of(const prof_t *p, const alog_record_t *rec, uint32_t node, enu
         size_t n;
         if (is_watch(p, q ? q + 1 : NULL))
             *k = PLAN_WATCH;
-        else if ((q && (alog_query_param(q + 1, "limit", &v, &n) || alog_query_param(q + 1, "continue", &v, &n))) ||
+        else if ((q && (alog_query_param(q + 1, "limit", &v, &n) ||
+                        alog_query_param(q + 1, "continue", &v, &n))) ||
                  prof_trie_collection(&p->trie, node))
             *k = PLAN_LIST;
         else
@@ -141,7 +142,8 @@ static void note_query(prof_class_t *c, const char *q, const prof_t *p)
     }
     if (alog_query_param(q, "continue", &v, &n) && n > 0)
         c->with_token++;
-    if (c->kind == PLAN_WATCH && !c->watch_value[0] && alog_query_param(q, p->cfg.watch_param, &v, &n))
+    if (c->kind == PLAN_WATCH && !c->watch_value[0] &&
+        alog_query_param(q, p->cfg.watch_param, &v, &n))
         snprintf(c->watch_value, sizeof c->watch_value, "%.*s", (int)(n < 15 ? n : 15), v);
     /* Other parameters are named in a comment (at most 8). */
     for (const char *s = q; s && *s && c->n_q < 8;) {

@@ -1,10 +1,10 @@
 /* Replay: the requests of a recorded access log sent again at their recorded instants (scaled by
  * `speed`), in `copies` copies. Recorded watches (a marker in the query and a duration of at
  * least watch-min) are opened at their instants as watch streams and closed after their
- * recorded duration, also scaled (src/source/watches.h). The log is read twice: once when the source is built (counts
- * per second and class: the model that check, the estimate and the live line ask), then
- * streamed while the phase runs, through a read-ahead bounded in entries, so memory does not
- * grow with the log. Each request's intended start is its recorded time, so response time
+ * recorded duration, also scaled (src/source/watches.h). The log is read twice: once when the
+ * source is built (counts per second and class: the model that check, the estimate and the live
+ * line ask), then streamed while the phase runs, through a read-ahead bounded in entries, so memory
+ * does not grow with the log. Each request's intended start is its recorded time, so response time
  * counts from it (no coordinated omission). */
 #include <math.h>
 #include <stdlib.h>
@@ -306,7 +306,11 @@ static int take(replay_t *s, const alog_record_t *rec)
     if (v != RP_SEND && v != RP_WATCH)
         return 0;
     int64_t t = rel_time(s, rec, v == RP_SEND);
-    int64_t hold = v == RP_WATCH ? (int64_t)((double)rec->duration_ns / s->pp->replay.speed) : 0;
+    int64_t hold = 0; /* a watch's, at least 1 ns: an entry with a hold opens a stream */
+    if (v == RP_WATCH) {
+        hold = (int64_t)((double)rec->duration_ns / s->pp->replay.speed);
+        hold = hold > 0 ? hold : 1;
+    }
     s->last_t = t;
     for (int c = 0; c < s->pp->replay.copies; c++) {
         char path[8192];

@@ -130,9 +130,8 @@ static bool collection_shape(const char *path)
  * or an answer that was not a stream) skipped. */
 static enum rp_verdict watch_verdict(const rp_rules_t *r, const alog_record_t *rec)
 {
-    return rec->duration_ns >= 0 && rec->duration_ns >= r->pp->replay.watch_min_ns
-               ? RP_WATCH
-               : RP_SKIP_WATCH;
+    return rec->duration_ns >= 0 && rec->duration_ns >= r->pp->replay.watch_min_ns ? RP_WATCH
+                                                                                   : RP_SKIP_WATCH;
 }
 
 enum rp_verdict rp_rules_judge(const rp_rules_t *r, const alog_record_t *rec, int *cls)

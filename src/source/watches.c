@@ -744,16 +744,15 @@ static json_t *class_json(watches_t *ws, const wclass_t *wc)
     for (size_t i = 0; i < ws->n; i++)
         if (ws->w[i].wc == wc)
             figs_add(&f, &ws->w[i]);
-    return json_pack("{s:i,s:i,s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}",
-                     "streams", wc->streams, "open_at_end", wc->open_at_end, "waiting_at_end",
-                     wc->waiting_at_end, "opens", (json_int_t)f.opens, "events",
-                     (json_int_t)wc->events_n, "bytes", (json_int_t)wc->bytes, "drops",
-                     (json_int_t)f.drops, "reconnects", (json_int_t)f.reconnects, "relists",
-                     (json_int_t)f.relists, "too_old", (json_int_t)f.too_old, "duplicates",
-                     (json_int_t)f.dup, "oversize", (json_int_t)f.over, "unparsed",
-                     (json_int_t)wc->unparsed, "server_errors",
-                     (json_int_t)wc->server_errors, "no_stamp", (json_int_t)wc->no_stamp, "policy",
-                     plan_backoff_name(src_class(ws->ctx.issuer, wc->cls)->pr->watch.policy));
+    return json_pack(
+        "{s:i,s:i,s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}", "streams", wc->streams,
+        "open_at_end", wc->open_at_end, "waiting_at_end", wc->waiting_at_end, "opens",
+        (json_int_t)f.opens, "events", (json_int_t)wc->events_n, "bytes", (json_int_t)wc->bytes,
+        "drops", (json_int_t)f.drops, "reconnects", (json_int_t)f.reconnects, "relists",
+        (json_int_t)f.relists, "too_old", (json_int_t)f.too_old, "duplicates", (json_int_t)f.dup,
+        "oversize", (json_int_t)f.over, "unparsed", (json_int_t)wc->unparsed, "server_errors",
+        (json_int_t)wc->server_errors, "no_stamp", (json_int_t)wc->no_stamp, "policy",
+        plan_backoff_name(src_class(ws->ctx.issuer, wc->cls)->pr->watch.policy));
 }
 
 static json_t *phase_json(watches_t *ws)

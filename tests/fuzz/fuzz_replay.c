@@ -1,7 +1,7 @@
 /* libFuzzer target for what the replay source does with a recorded path (src/source/
  * replay_rules.c): the input is a log (format detected), each record is judged by a phase's
- * rules (method filter, classify, path shape, watch marker) and rewritten for three copies by rules with
- * groups and {{copy}}. Every path that comes out must be an origin-form path with no control
+ * rules (method filter, classify, path shape, watch marker) and rewritten for three copies by rules
+ * with groups and {{copy}}. Every path that comes out must be an origin-form path with no control
  * byte, space or DEL, as the engine will put it in a request line; a class must be one the plan
  * has. A broken promise aborts, which libFuzzer reports with the input. */
 #include <stdint.h>

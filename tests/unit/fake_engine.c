@@ -170,11 +170,10 @@ int eng_submit(eng_t *e, const eng_req_t *req)
         e->max_in_flight = e->in_flight;
     arm(e);
     if (fake.n_log < FAKE_LOG)
-        fake.log[fake.n_log++] = (fake_req_t){
-            .intended_ns = x->res.intended_ns,
-            .submitted_ns = now,
-            .timeout_ms = req->timeout_ms,
-            .engine = fake.engines};
+        fake.log[fake.n_log++] = (fake_req_t){.intended_ns = x->res.intended_ns,
+                                              .submitted_ns = now,
+                                              .timeout_ms = req->timeout_ms,
+                                              .engine = fake.engines};
     if (fake.n_log <= FAKE_LOG) {
         fake_req_t *l = &fake.log[fake.n_log - 1];
         snprintf(l->method, sizeof l->method, "%s", x->method);

@@ -507,7 +507,6 @@ static void test_replay_window(void **state)
     unlink(log);
 }
 
-
 /* Recorded watches (NDJSON with ms times and durations in seconds): a request marked watch=1 or
  * watch=true that lasted at least watch-min opens as a stream at its recorded instant, held for
  * its recorded duration divided by the speed (the engine's timeout of the request, as the fake
@@ -583,8 +582,7 @@ static void test_replay_watches(void **state)
         assert_int_equal(json_integer_value(json_object_get(r, "watches")), 2);
         assert_int_equal(json_integer_value(json_object_get(r, "skipped_watches")), 2);
         json_t *wc = json_object_get(
-            json_object_get(json_object_get(results_section(c.results, "watches"), "r"),
-                            "classes"),
+            json_object_get(json_object_get(results_section(c.results, "watches"), "r"), "classes"),
             "replay-watch");
         assert_int_equal(json_integer_value(json_object_get(wc, "streams")), 1);
         assert_int_equal(json_integer_value(json_object_get(wc, "events")), 2);
