@@ -142,5 +142,11 @@ void alog_close(alog_t *r);
 
 /* Validators, also for callers that take paths and methods from elsewhere. */
 bool alog_method_ok(const char *s, size_t n);
+/* The value of query parameter `name` in the query q (the text after '?', or NULL): 1 and
+ * [*v, *v + *vn) (empty for a bare name), or 0 when absent. */
+int alog_query_param(const char *q, const char *name, const char **v, size_t *vn);
+/* Whether the query q marks a request with parameter `name`: present, and not "0" or "false"
+ * (a watch marker such as watch=1 or watch=true). */
+bool alog_query_marks(const char *q, const char *name);
 
 #endif

@@ -272,6 +272,9 @@ typedef struct {
         int64_t offset_ns;         /* copy k starts k x offset later (default 1 ms) */
         enum plan_arrivals spread; /* within a 1 s record's second: even (default) */
         int get_cls, list_cls;     /* unmatched GET/HEAD: object or collection class */
+        const char *watch_param;   /* query parameter marking a watch ("watch") */
+        int64_t watch_min_ns;      /* a marked request lasting this long is a stream (1 s) */
+        int watch_cls;             /* unmatched watches: `replay-watch` */
     } replay;
     plan_action_t *actions; /* in the order of their `at` */
     size_t n_actions;

@@ -164,3 +164,29 @@ const char *alog_put_client(alog_parse_t *p, const char *s, size_t n)
 {
     return put_encoded(p, 0, s, n > ALOG_CLIENT_MAX ? ALOG_CLIENT_MAX : n, unsafe);
 }
+
+int alog_query_param(const char *q, const char *name, const char **v, size_t *vn)
+{
+    size_t n = strlen(name);
+    for (const char *s = q; s && *s;) {
+        const char *amp = strchr(s, '&'), *e = amp ? amp : s + strlen(s);
+        const char *eq = memchr(s, '=', (size_t)(e - s));
+        const char *ke = eq ? eq : e;
+        if ((size_t)(ke - s) == n && memcmp(s, name, n) == 0) {
+            *v = eq ? eq + 1 : e;
+            *vn = (size_t)(e - *v);
+            return 1;
+        }
+        s = amp ? amp + 1 : NULL;
+    }
+    return 0;
+}
+
+bool alog_query_marks(const char *q, const char *name)
+{
+    const char *v;
+    size_t n;
+    if (!q || !alog_query_param(q, name, &v, &n))
+        return false;
+    return !((n == 1 && v[0] == '0') || (n == 5 && memcmp(v, "false", 5) == 0));
+}

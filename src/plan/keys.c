@@ -44,9 +44,9 @@ static const char *const send[] = {"class", "every", NULL};
 static const char *const churn[] = {"create", "delete", "rate", "population", "tolerance", NULL};
 static const char *const teardown[] = {"rate", NULL};
 static const char *const replay[] = {
-    "log",      "speed",  "format", "fields",  "time-unit", "duration-unit",
-    "time-at",  "from",   "to",     "methods", "match",     "rewrite",
-    "classify", "copies", "offset", "spread",  NULL};
+    "log",    "speed",  "format",      "fields",    "time-unit", "duration-unit", "time-at",
+    "from",   "to",     "methods",     "match",     "rewrite",   "classify",      "copies",
+    "offset", "spread", "watch-param", "watch-min", NULL};
 static const char *const rewrite[] = {"match", "to", NULL};
 static const char *const classify[] = {"match", "class", NULL};
 /* p99 stands for every percentile key pN (0 < N <= 100), which the judge's parser accepts. */

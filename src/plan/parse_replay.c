@@ -93,7 +93,8 @@ static void parse_methods(pctx_t *c, yaml_node_t *n, const char *where, plan_pha
 }
 
 /* The classes unmatched GET and HEAD requests fall into, by path shape: `replay-get` for an
- * object, `replay-list` for a collection. Added unless the plan defines them itself. */
+ * object, `replay-list` for a collection, `replay-watch` for a recorded watch stream. Added
+ * unless the plan defines them itself. */
 static int implicit_class(pctx_t *c, const char *name, enum plan_kind kind, plan_pos_t pos)
 {
     int i = plan_find_req(c->p, name);
@@ -101,6 +102,8 @@ static int implicit_class(pctx_t *c, const char *name, enum plan_kind kind, plan
         return i;
     plan_req_t r = {.name = name, .pos = pos, .kind = kind, .path = "/", .path_pos = pos};
     r.list.limit_param = "limit";
+    if (kind == PLAN_WATCH)
+        plan_watch_defaults(&r);
     c->p->reqs = pc_grow(c, c->p->reqs, &c->p->n_reqs, 1, sizeof(r));
     if (c->nomem)
         return -1;
@@ -121,6 +124,8 @@ void plan_parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_
     ph->replay.speed = 1.0;
     ph->replay.copies = 1;
     ph->replay.offset_ns = 1000000;
+    ph->replay.watch_param = "watch";
+    ph->replay.watch_min_ns = 1000000000;
     if (!pc_get(c, n, "log"))
         pc_error(c, n, "%s: missing key 'log' (expected an access log path, got nothing)", w);
     pc_path(c, n, "log", w, &ph->replay.log);
@@ -165,6 +170,9 @@ void plan_parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_
     int sp = 0;
     if (pc_enum(c, n, "spread", w, spreads, &sp))
         ph->replay.spread = (enum plan_arrivals)sp;
+    pc_str(c, n, "watch-param", w, &ph->replay.watch_param);
+    pc_dur(c, n, "watch-min", w, 0, &ph->replay.watch_min_ns);
     ph->replay.get_cls = implicit_class(c, "replay-get", PLAN_GET, pc_pos(c, n));
     ph->replay.list_cls = implicit_class(c, "replay-list", PLAN_LIST, pc_pos(c, n));
+    ph->replay.watch_cls = implicit_class(c, "replay-watch", PLAN_WATCH, pc_pos(c, n));
 }

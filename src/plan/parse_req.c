@@ -92,9 +92,9 @@ static void parse_reconnect(pctx_t *c, yaml_node_t *n, const char *where, plan_r
                  r->watch.base_ns / 1e9, r->watch.cap_ns / 1e9);
 }
 
-static void parse_watch_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+void plan_watch_defaults(plan_req_t *r)
 {
-    static const char *const framings[] = {"ndjson", "sse", "raw", NULL};
+    r->watch.framing = PLAN_FRAME_NDJSON;
     r->watch.version_key = "version";
     r->watch.stamp_key = "stamp";
     r->watch.too_old_status = 410;
@@ -102,6 +102,12 @@ static void parse_watch_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_
     r->watch.policy = PLAN_BACKOFF_FULL_JITTER;
     r->watch.base_ns = INT64_C(200000000);
     r->watch.cap_ns = INT64_C(10000000000);
+}
+
+static void parse_watch_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+{
+    static const char *const framings[] = {"ndjson", "sse", "raw", NULL};
+    plan_watch_defaults(r);
     int f = 0;
     pc_enum(c, n, "framing", where, framings, &f);
     r->watch.framing = (enum plan_framing)f;

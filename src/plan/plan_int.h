@@ -103,6 +103,9 @@ void plan_parse_vars(pctx_t *c, yaml_node_t *n);
 void plan_parse_requests(pctx_t *c, yaml_node_t *n);
 void plan_parse_phases(pctx_t *c, yaml_node_t *n);
 /* A phase's replay: key (parse_replay.c); adds the replay-get and replay-list classes. */
+/* A watch class's defaults (ndjson framing, keys "version" and "stamp", 410, no relist,
+ * full-jitter backoff from 200 ms to 10 s). */
+void plan_watch_defaults(plan_req_t *r);
 void plan_parse_replay(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph);
 void plan_parse_objectives(pctx_t *c, yaml_node_t *n);
 void plan_parse_brakes(pctx_t *c, yaml_node_t *n);

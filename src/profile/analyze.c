@@ -44,31 +44,9 @@ int64_t prof_class_quantile(const prof_class_t *c, double q)
 
 /* ---- one request: its class ------------------------------------------------------------ */
 
-/* The value of query parameter `name` in `q` (after '?'): 1 and [*v, *vn), or 0. */
-static int param(const char *q, const char *name, const char **v, size_t *vn)
-{
-    size_t n = strlen(name);
-    for (const char *s = q; s && *s;) {
-        const char *amp = strchr(s, '&'), *e = amp ? amp : s + strlen(s);
-        const char *eq = memchr(s, '=', (size_t)(e - s));
-        const char *ke = eq ? eq : e;
-        if ((size_t)(ke - s) == n && memcmp(s, name, n) == 0) {
-            *v = eq ? eq + 1 : e;
-            *vn = (size_t)(e - *v);
-            return 1;
-        }
-        s = amp ? amp + 1 : NULL;
-    }
-    return 0;
-}
-
 static bool is_watch(const prof_t *p, const char *q)
 {
-    const char *v;
-    size_t n;
-    if (!q || !param(q, p->cfg.watch_param, &v, &n))
-        return false;
-    return !((n == 1 && v[0] == '0') || (n == 5 && memcmp(v, "false", 5) == 0));
+    return alog_query_marks(q, p->cfg.watch_param);
 }
 
 /* GET and HEAD read, POST / PUT / PATCH / DELETE write; anything else: -1 (left out). */
@@ -80,7 +58,8 @@ static int kind_of(const prof_t *p, const alog_record_t *rec, uint32_t node, enu
         size_t n;
         if (is_watch(p, q ? q + 1 : NULL))
             *k = PLAN_WATCH;
-        else if ((q && (param(q + 1, "limit", &v, &n) || param(q + 1, "continue", &v, &n))) ||
+        else if ((q && (alog_query_param(q + 1, "limit", &v, &n) ||
+                        alog_query_param(q + 1, "continue", &v, &n))) ||
                  prof_trie_collection(&p->trie, node))
             *k = PLAN_LIST;
         else
@@ -148,7 +127,7 @@ static void note_query(prof_class_t *c, const char *q, const prof_t *p)
 {
     const char *v;
     size_t n;
-    if (c->kind == PLAN_LIST && param(q, "limit", &v, &n)) {
+    if (c->kind == PLAN_LIST && alog_query_param(q, "limit", &v, &n)) {
         int64_t lim = 0;
         for (size_t i = 0; i < n && i < 9 && v[i] >= '0' && v[i] <= '9'; i++)
             lim = lim * 10 + (v[i] - '0');
@@ -161,9 +140,10 @@ static void note_query(prof_class_t *c, const char *q, const prof_t *p)
             c->n_limits += i == c->n_limits;
         }
     }
-    if (param(q, "continue", &v, &n) && n > 0)
+    if (alog_query_param(q, "continue", &v, &n) && n > 0)
         c->with_token++;
-    if (c->kind == PLAN_WATCH && !c->watch_value[0] && param(q, p->cfg.watch_param, &v, &n))
+    if (c->kind == PLAN_WATCH && !c->watch_value[0] &&
+        alog_query_param(q, p->cfg.watch_param, &v, &n))
         snprintf(c->watch_value, sizeof c->watch_value, "%.*s", (int)(n < 15 ? n : 15), v);
     /* Other parameters are named in a comment (at most 8). */
     for (const char *s = q; s && *s && c->n_q < 8;) {

@@ -1,8 +1,10 @@
 /* Replay: the requests of a recorded access log sent again at their recorded instants (scaled by
- * `speed`), in `copies` copies. The log is read twice: once when the source is built (counts
- * per second and class: the model that check, the estimate and the live line ask), then
- * streamed while the phase runs, through a read-ahead bounded in entries, so memory does not
- * grow with the log. Each request's intended start is its recorded time, so response time
+ * `speed`), in `copies` copies. Recorded watches (a marker in the query and a duration of at
+ * least watch-min) are opened at their instants as watch streams and closed after their
+ * recorded duration, also scaled (src/source/watches.h). The log is read twice: once when the
+ * source is built (counts per second and class: the model that check, the estimate and the live
+ * line ask), then streamed while the phase runs, through a read-ahead bounded in entries, so memory
+ * does not grow with the log. Each request's intended start is its recorded time, so response time
  * counts from it (no coordinated omission). */
 #include <math.h>
 #include <stdlib.h>
@@ -10,6 +12,7 @@
 
 #include "replay_int.h"
 #include "src_int.h"
+#include "watches.h"
 #include "squall/err.h"
 
 #define RP_READ_AHEAD 16384               /* requests held ahead of their start at most */
@@ -21,6 +24,7 @@ typedef struct {
     int64_t t;    /* intended, ns from the phase's t = 0 */
     uint64_t seq; /* read order: equal times keep the log's order */
     int cls, copy;
+    int64_t hold; /* a watch stream's scaled duration, else 0 */
     char method[33];
     char *path;
 } rp_ent_t;
@@ -40,6 +44,8 @@ typedef struct {
     uint32_t *tick;   /* [n_secs]: sum over classes */
     bool coarse;      /* times of 1 s resolution: spread over their second */
     uint64_t verdicts[RP_N_VERDICTS], records, lines, malformed;
+    uint64_t n_watches; /* watch streams in the log (any window), for the engine's size */
+    watches_t *watches; /* the recorded watches' streams (NULL when the log has none) */
     const char *format;
     json_t *samples;
     /* Second pass. */
@@ -52,7 +58,7 @@ typedef struct {
     uint32_t *seen; /* [n_secs]: requests of the second placed so far */
     sched_spread_t spread;
     int64_t spread_sec;
-    uint64_t issued, bad_path, unsent;
+    uint64_t issued, bad_path, unsent, watched, watch_failed;
 } replay_t;
 
 static bool rp_used_by(const plan_t *plan, const plan_phase_t *pp)
@@ -74,6 +80,7 @@ static void rp_free(void *self)
     replay_t *s = self;
     heap_clear(s);
     alog_close(s->log);
+    watches_once_free(s->watches);
     rp_rules_close(&s->rules);
     json_decref(s->samples);
     free(s->heap);
@@ -165,7 +172,9 @@ static int first_pass(replay_t *s)
         s->t_max = rec.t_ns > s->t_max ? rec.t_ns : s->t_max;
         s->coarse &= rec.resolution_ns >= RP_SEC;
         int cls;
-        if (rp_rules_judge(&s->rules, &rec, &cls) != RP_SEND)
+        enum rp_verdict v = rp_rules_judge(&s->rules, &rec, &cls);
+        s->n_watches += v == RP_WATCH;
+        if (v != RP_SEND)
             continue;
         size_t at;
         rc = count_slot(s, floor_sec(rec.t_ns), &at);
@@ -222,6 +231,10 @@ static int rp_new(const src_ctx_t *ctx, void **self)
         rc = first_pass(s);
     if (rc == 0)
         window(s);
+    if (rc == 0 && s->n_watches) {
+        uint64_t n = s->n_watches * (uint64_t)s->pp->replay.copies;
+        rc = watches_once_new(ctx, n > INT32_MAX ? INT32_MAX : (int)n, &s->watches);
+    }
     return rc;
 }
 
@@ -262,13 +275,14 @@ static rp_ent_t heap_pop(replay_t *s)
     return top;
 }
 
-/* A record's time from the phase's t = 0: a 1 s time spread over its second. */
-static int64_t rel_time(replay_t *s, const alog_record_t *rec)
+/* A record's time from the phase's t = 0: a 1 s time spread over its second (not a watch's,
+ * which the first pass did not count). */
+static int64_t rel_time(replay_t *s, const alog_record_t *rec, bool spread)
 {
     int64_t t = rec->t_ns;
     int64_t sec = floor_sec(t);
     /* A second the first pass did not count (the file grew in between) is sent as recorded. */
-    if (s->coarse && sec >= s->sec0 && sec < s->sec0 + (int64_t)s->n_secs) {
+    if (spread && s->coarse && sec >= s->sec0 && sec < s->sec0 + (int64_t)s->n_secs) {
         size_t at = (size_t)(sec - s->sec0);
         if (sec != s->spread_sec) {
             sched_spread_tick(&s->spread, RP_SEC, s->tick[at]);
@@ -289,9 +303,14 @@ static int take(replay_t *s, const alog_record_t *rec)
                             ? RP_FILTERED
                             : rp_rules_judge(&s->rules, rec, &cls);
     s->verdicts[v]++;
-    if (v != RP_SEND)
+    if (v != RP_SEND && v != RP_WATCH)
         return 0;
-    int64_t t = rel_time(s, rec);
+    int64_t t = rel_time(s, rec, v == RP_SEND);
+    int64_t hold = 0; /* a watch's, at least 1 ns: an entry with a hold opens a stream */
+    if (v == RP_WATCH) {
+        hold = (int64_t)((double)rec->duration_ns / s->pp->replay.speed);
+        hold = hold > 0 ? hold : 1;
+    }
     s->last_t = t;
     for (int c = 0; c < s->pp->replay.copies; c++) {
         char path[8192];
@@ -300,7 +319,11 @@ static int take(replay_t *s, const alog_record_t *rec)
             s->bad_path++;
             continue;
         }
-        rp_ent_t e = {.t = t + c * s->pp->replay.offset_ns, .seq = s->seq++, .cls = cls, .copy = c};
+        rp_ent_t e = {.t = t + c * s->pp->replay.offset_ns,
+                      .seq = s->seq++,
+                      .cls = cls,
+                      .copy = c,
+                      .hold = hold};
         const plan_req_t *pr = &s->ctx.plan->reqs[cls];
         bool read = !strcmp(rec->method, "GET") || !strcmp(rec->method, "HEAD");
         snprintf(e.method, sizeof e.method, "%s",
@@ -347,7 +370,9 @@ static int rp_start(void *self, src_t *me)
     s->seen = calloc(s->n_secs ? s->n_secs : 1, sizeof(*s->seen));
     if (!s->heap || !s->seen)
         return SQ_ENOMEM;
-    int rc = open_log(s, &s->log);
+    int rc = s->watches ? watches_once_start(s->watches) : 0;
+    if (rc == 0)
+        rc = open_log(s, &s->log);
     return rc ? rc : fill(s);
 }
 
@@ -368,9 +393,16 @@ static int rp_due(void *self, int64_t now_ns)
         rp_ent_t e = heap_pop(s);
         src_req_t req = {
             .cls = e.cls, .intended_ns = s->ctx.base_ns + e.t, .agent = e.copy, .client = -1};
-        rc = src_issue_as(s->ctx.issuer, s->me, &req, e.method, e.path);
+        if (e.hold) {
+            rc = watches_once_open(s->watches, e.cls, e.path, req.intended_ns, e.hold);
+            s->watched += rc == 0;
+            s->watch_failed += rc != 0 && rc != SQ_ESTOPPED;
+            rc = rc == SQ_ENOMEM ? rc : 0; /* a stream that cannot open is counted, not fatal */
+        } else {
+            rc = src_issue_as(s->ctx.issuer, s->me, &req, e.method, e.path);
+            s->issued += rc == 0;
+        }
         free(e.path);
-        s->issued += rc == 0;
         if (s->n_heap < RP_READ_AHEAD / 2 && rc == 0)
             rc = fill(s);
     }
@@ -446,12 +478,13 @@ static void rp_stop(void *self)
     heap_clear(s);
     alog_close(s->log);
     s->log = NULL;
+    watches_once_stop(s->watches);
 }
 
 static bool rp_idle(const void *self)
 {
     const replay_t *s = self;
-    return s->eof && s->n_heap == 0;
+    return s->eof && s->n_heap == 0 && watches_once_open_now(s->watches) == 0;
 }
 
 static const char *spread_name(const replay_t *s)
@@ -468,12 +501,13 @@ static int rp_finish(void *self, results_t *res)
     if (!sec && results_set_section(res, "replay", sec = json_object()))
         return SQ_ENOMEM;
     json_t *ph = json_pack(
-        "{s:s,s:s,s:f,s:i,s:I,s:s,s:I,s:I,s:I,s:O,s:I,s:I,s:I,s:I,s:I,s:I,s:I}", "log",
+        "{s:s,s:s,s:f,s:i,s:I,s:s,s:I,s:I,s:I,s:O,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I}", "log",
         s->pp->replay.log, "format", s->format, "speed", s->pp->replay.speed, "copies",
         s->pp->replay.copies, "offset_ns", (json_int_t)s->pp->replay.offset_ns, "spread",
         spread_name(s), "lines", (json_int_t)s->lines, "records", (json_int_t)s->records,
         "malformed", (json_int_t)s->malformed, "malformed_samples", s->samples, "sent",
-        (json_int_t)s->issued, "skipped_writes", (json_int_t)s->verdicts[RP_SKIP_WRITE],
+        (json_int_t)s->issued, "watches", (json_int_t)s->watched, "watches_failed",
+        (json_int_t)s->watch_failed, "skipped_writes", (json_int_t)s->verdicts[RP_SKIP_WRITE],
         "skipped_watches", (json_int_t)s->verdicts[RP_SKIP_WATCH], "skipped_kind",
         (json_int_t)s->verdicts[RP_SKIP_KIND], "filtered", (json_int_t)s->verdicts[RP_FILTERED],
         "bad_rewrites", (json_int_t)s->bad_path, "not_sent", (json_int_t)s->unsent);

@@ -13,7 +13,8 @@ enum rp_verdict {
     RP_SEND,
     RP_FILTERED,   /* outside the window, the methods or the path pattern: not part of the replay */
     RP_SKIP_WRITE, /* a write with no body template for it (a log holds no bodies) */
-    RP_SKIP_WATCH, /* a watch request (`watch=1` or `watch=true` in the query) */
+    RP_WATCH,      /* a watch stream: marked (watch-param) or classified so, lasting watch-min */
+    RP_SKIP_WATCH, /* a watch with no duration in the log, or shorter than watch-min */
     RP_SKIP_KIND,  /* a write classified as a get or list */
     RP_N_VERDICTS
 };
@@ -33,8 +34,10 @@ typedef struct {
 int rp_rules_init(rp_rules_t *r, const plan_t *plan, const plan_phase_t *pp, out_t *o);
 void rp_rules_close(rp_rules_t *r);
 /* The method and path filters and the class (*cls) of one recorded request (the window is the
- * caller's). A GET or HEAD classified as a write class is sent as that class's write (so the
- * objects a log reads can be made first); a recorded write keeps its own method. */
+ * caller's). A GET or HEAD marked by the watch parameter is a watch of the classify rule's class
+ * when that is a watch class, else of `replay-watch`. A GET or HEAD classified as a write class is
+ * sent as that class's write (so the objects a log reads can be made first); a recorded write keeps
+ * its own method. */
 enum rp_verdict rp_rules_judge(const rp_rules_t *r, const alog_record_t *rec, int *cls);
 /* The path to send for copy `copy`: the first rewrite rule whose pattern matches replaces the
  * matched text by its template ({{0}}..{{9}} groups, {{copy}}). Returns the length, or 0 when

@@ -126,10 +126,12 @@ static bool collection_shape(const char *path)
     return true;
 }
 
-static bool is_watch(const char *path)
+/* A recorded watch: a stream when it lasted at least watch-min, else (no duration in the log,
+ * or an answer that was not a stream) skipped. */
+static enum rp_verdict watch_verdict(const rp_rules_t *r, const alog_record_t *rec)
 {
-    const char *q = strchr(path, '?');
-    return q && (strstr(q, "watch=1") || strstr(q, "watch=true"));
+    return rec->duration_ns >= 0 && rec->duration_ns >= r->pp->replay.watch_min_ns ? RP_WATCH
+                                                                                   : RP_SKIP_WATCH;
 }
 
 enum rp_verdict rp_rules_judge(const rp_rules_t *r, const alog_record_t *rec, int *cls)
@@ -144,13 +146,17 @@ enum rp_verdict rp_rules_judge(const rp_rules_t *r, const alog_record_t *rec, in
     }
     if (r->has_match && regexec(&r->match, rec->path, 0, NULL, 0) != 0)
         return RP_FILTERED;
-    if (is_watch(rec->path))
-        return RP_SKIP_WATCH;
     bool read = !strcmp(rec->method, "GET") || !strcmp(rec->method, "HEAD");
     *cls = -1;
     for (size_t i = 0; i < r->n_classify && *cls < 0; i++)
         if (regexec(&r->classify[i], rec->path, 0, NULL, 0) == 0)
             *cls = r->classify_cls[i];
+    const char *q = strchr(rec->path, '?');
+    if (read && alog_query_marks(q ? q + 1 : NULL, pp->replay.watch_param)) {
+        if (*cls < 0 || r->plan->reqs[*cls].kind != PLAN_WATCH)
+            *cls = pp->replay.watch_cls;
+        return watch_verdict(r, rec);
+    }
     if (*cls < 0) {
         if (!read)
             return RP_SKIP_WRITE;
@@ -158,7 +164,7 @@ enum rp_verdict rp_rules_judge(const rp_rules_t *r, const alog_record_t *rec, in
     }
     const plan_req_t *pr = &r->plan->reqs[*cls];
     if (pr->kind == PLAN_WATCH)
-        return RP_SKIP_WATCH;
+        return read ? watch_verdict(r, rec) : RP_SKIP_KIND;
     if (pr->kind != PLAN_WRITE && !read)
         return RP_SKIP_KIND;
     if (pr->kind == PLAN_WRITE && !pr->write.body)

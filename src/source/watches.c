@@ -7,6 +7,7 @@
 #include <string.h>
 #include <sys/resource.h>
 
+#include "watches.h"
 #include "src_int.h"
 #include "squall/clock.h"
 #include "squall/file.h"
@@ -19,12 +20,19 @@
                                  pairs: at most 30), results, stdio */
 #define H2_STREAMS    100     /* libcurl's assumption until the server's SETTINGS arrive */
 #define MAX_LIST_PAGE 100000
+#define ONCE_CONNS    1024 /* one-shot streams (a replay's) open at once at most; more queue */
+
+/* A stream's lifetime figures, summed per class. */
+typedef struct {
+    int64_t opens, drops, reconnects, relists, too_old, dup, over;
+} figs_t;
 
 /* Per watch class of the phase. */
 typedef struct {
     int cls;
     results_cell_t *events; /* (phase, class, "2xx"): count = events; open, propagation */
     int streams;
+    figs_t ended; /* one-shot streams already ended and freed */
     int64_t events_n, bytes, unparsed, oversize, server_errors, no_stamp, stamp_ahead;
     int open_at_end, waiting_at_end; /* streams answered / sent but unanswered at the end */
 } wclass_t;
@@ -48,6 +56,7 @@ typedef struct watcher {
     char *path;  /* the rendered watch path, without a resume point */
     int64_t due_ns;
     bool due_relist, busy, got_first, got_events, open_recorded;
+    int64_t hold_ms; /* one-shot: squall closes the stream after this long (libcurl's timeout) */
     int64_t intended_ns, first_byte_ns;
     /* This attempt's share of the class figures, taken back when the answer is not a stream
      * (the engine streams every body, also a 410's: its status is known only at the end). */
@@ -76,6 +85,8 @@ struct watches {
     recon_t *log;      /* reconnects, grown as they come, at most LOG_MAX */
     size_t n_log, cap_log;
     int64_t log_dropped; /* reconnects past LOG_MAX: counted, not kept */
+    bool once;           /* one-shot streams (watches_once_*): no reconnects */
+    int once_max, once_open;
 };
 
 static int phase_watchers(const plan_phase_t *pp)
@@ -99,17 +110,17 @@ static int64_t files_needed(const plan_t *p, int watchers)
 }
 
 /* Raises the soft open-files limit to the hard one and refuses a phase that needs more. */
-static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp)
+static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp, int watchers)
 {
     uint64_t limit = file_raise_limit();
-    int64_t need = files_needed(ctx->plan, phase_watchers(pp));
+    int64_t need = files_needed(ctx->plan, watchers);
     if (limit == 0 || (uint64_t)need <= limit)
         return 0;
     out_raw(ctx->o, OUT_ERROR,
             "%s:%d:%d: error: phase '%s' opens %d watches, which need about %lld open files "
             "over HTTP/%s, but this process may open at most %llu (RLIMIT_NOFILE hard limit); "
             "use fewer watches per process (shards), or http: \"2\" to multiplex streams",
-            pp->pos.file, pp->pos.line, pp->pos.col, pp->name, phase_watchers(pp), (long long)need,
+            pp->pos.file, pp->pos.line, pp->pos.col, pp->name, watchers, (long long)need,
             ctx->plan->target.http == PLAN_HTTP_2 ? "2" : "1.1", (unsigned long long)limit);
     return SQ_ELIMIT;
 }
@@ -300,6 +311,7 @@ static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
         .path = path,
         .headers = headers,
         .n_headers = nh,
+        .timeout_ms = w->hold_ms,
         .intended_ns = intended,
         .on_data = on_data,
         .on_head = on_head,
@@ -336,6 +348,36 @@ static void next_step(watches_t *ws, watcher_t *w, const watch_end_t *end, int64
     set_due(ws, w, now + delay);
 }
 
+static void figs_add(figs_t *f, const watcher_t *w)
+{
+    f->opens += w->st.opens;
+    f->drops += w->st.drops;
+    f->reconnects += w->st.reconnects;
+    f->relists += w->st.relists;
+    f->too_old += w->st.too_old;
+    f->dup += w->st.duplicates;
+    f->over += w->fr.st.oversize;
+}
+
+/* A one-shot stream ended: its figures join its class's and the watcher is freed. One that
+ * squall closed at its hold time ended as planned; any other end is counted by the stream (a
+ * drop, a too-old answer), which is never reopened. */
+static void once_end(watches_t *ws, watcher_t *w, const watch_end_t *end, bool held)
+{
+    int64_t delay;
+    if (!ws->active) { /* closed at the phase's end, as watches_stop counts its own */
+        w->wc->open_at_end += w->st.state == WATCH_OPEN;
+        w->wc->waiting_at_end += w->st.state == WATCH_OPENING;
+    }
+    if (!held)
+        watch_stream_ended(&w->st, end, &ws->rng, &delay);
+    figs_add(&w->wc->ended, w);
+    watch_framer_close(&w->fr);
+    free(w->path);
+    free(w);
+    ws->once_open--;
+}
+
 static void on_stream_done(void *user, const eng_result_t *res)
 {
     watcher_t *w = user;
@@ -349,10 +391,14 @@ static void on_stream_done(void *user, const eng_result_t *res)
      * other than 2xx) or never answered (no connection, a timeout before the headers) is
      * recorded under its outcome, and so is a stream squall cancelled at the phase end. */
     bool opened = res->status >= 200 && res->status < 300;
-    bool dropped = opened && (res->outcome == ENG_OUT_RESET || res->outcome == ENG_OUT_TIMEOUT ||
-                              res->outcome == ENG_OUT_OTHER);
+    /* A one-shot stream that squall closed at its hold time ended as planned. */
+    bool held = w->hold_ms > 0 && res->outcome == ENG_OUT_TIMEOUT && (opened || w->got_first);
+    bool dropped = !held && opened &&
+                   (res->outcome == ENG_OUT_RESET || res->outcome == ENG_OUT_TIMEOUT ||
+                    res->outcome == ENG_OUT_OTHER);
     int too_old = src_class(ws->ctx.issuer, w->wc->cls)->pr->watch.too_old_status;
-    if (res->outcome != ENG_OUT_S2XX && !dropped && !(too_old > 0 && res->status == too_old))
+    if (res->outcome != ENG_OUT_S2XX && !held && !dropped &&
+        !(too_old > 0 && res->status == too_old))
         record_end(ws, w->wc->cls, res, false);
     if (w->log >= 0 && res->sent_ns) {
         ws->log[w->log].sent = res->sent_ns - ws->base_ns;
@@ -367,13 +413,17 @@ static void on_stream_done(void *user, const eng_result_t *res)
         obs_watch(ws->ctx.obs, ws->ctx.phase, w->wc->cls, OBS_WATCH_ENDED);
     if (dropped)
         obs_watch(ws->ctx.obs, ws->ctx.phase, w->wc->cls, OBS_WATCH_DROPPED);
-    if (!ws->active)
-        return;
     watch_end_t end = {
         .status = res->status,
-        .transport = res->outcome != ENG_OUT_S2XX,
+        .transport = res->outcome != ENG_OUT_S2XX && !held,
         .got_events = stream && w->got_events,
     };
+    if (ws->once) {
+        once_end(ws, w, &end, held);
+        return;
+    }
+    if (!ws->active)
+        return;
     next_step(ws, w, &end, res->done_ns);
 }
 
@@ -574,7 +624,7 @@ static int watches_new(const src_ctx_t *ctx, void **self)
     ws->pp = src_phase(ctx);
     tmpl_buf_init(&ws->buf);
     rng_seed(&ws->rng, src_seed(ctx, SRC_STREAM_BACKOFF));
-    return check_files(ctx, ws->pp);
+    return check_files(ctx, ws->pp, phase_watchers(ws->pp));
 }
 
 static int watchers_init(watches_t *ws)
@@ -690,28 +740,19 @@ static json_t *log_json(const watches_t *ws)
 /* The phase's figures per class, summed over its watchers. */
 static json_t *class_json(watches_t *ws, const wclass_t *wc)
 {
-    int64_t opens = 0, drops = 0, reconnects = 0, relists = 0, too_old = 0, dup = 0, over = 0;
-    for (size_t i = 0; i < ws->n; i++) {
-        const watcher_t *w = &ws->w[i];
-        if (w->wc != wc)
-            continue;
-        opens += w->st.opens;
-        drops += w->st.drops;
-        reconnects += w->st.reconnects;
-        relists += w->st.relists;
-        too_old += w->st.too_old;
-        dup += w->st.duplicates;
-        over += w->fr.st.oversize;
-    }
-    return json_pack("{s:i,s:i,s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}",
-                     "streams", wc->streams, "open_at_end", wc->open_at_end, "waiting_at_end",
-                     wc->waiting_at_end, "opens", (json_int_t)opens, "events", (json_int_t)wc->events_n,
-                     "bytes", (json_int_t)wc->bytes, "drops", (json_int_t)drops, "reconnects",
-                     (json_int_t)reconnects, "relists", (json_int_t)relists, "too_old",
-                     (json_int_t)too_old, "duplicates", (json_int_t)dup, "oversize",
-                     (json_int_t)over, "unparsed", (json_int_t)wc->unparsed, "server_errors",
-                     (json_int_t)wc->server_errors, "no_stamp", (json_int_t)wc->no_stamp, "policy",
-                     plan_backoff_name(src_class(ws->ctx.issuer, wc->cls)->pr->watch.policy));
+    figs_t f = wc->ended;
+    for (size_t i = 0; i < ws->n; i++)
+        if (ws->w[i].wc == wc)
+            figs_add(&f, &ws->w[i]);
+    return json_pack(
+        "{s:i,s:i,s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}", "streams", wc->streams,
+        "open_at_end", wc->open_at_end, "waiting_at_end", wc->waiting_at_end, "opens",
+        (json_int_t)f.opens, "events", (json_int_t)wc->events_n, "bytes", (json_int_t)wc->bytes,
+        "drops", (json_int_t)f.drops, "reconnects", (json_int_t)f.reconnects, "relists",
+        (json_int_t)f.relists, "too_old", (json_int_t)f.too_old, "duplicates", (json_int_t)f.dup,
+        "oversize", (json_int_t)f.over, "unparsed", (json_int_t)wc->unparsed, "server_errors",
+        (json_int_t)wc->server_errors, "no_stamp", (json_int_t)wc->no_stamp, "policy",
+        plan_backoff_name(src_class(ws->ctx.issuer, wc->cls)->pr->watch.policy));
 }
 
 static json_t *phase_json(watches_t *ws)
@@ -786,3 +827,90 @@ const src_ops_t src_watches_ops = {
     .stop = watches_stop,
     .free = watches_free,
 };
+
+/* ---- one-shot streams, for another source -------------------------------------------------- */
+
+int watches_once_new(const src_ctx_t *ctx, int streams, watches_t **out)
+{
+    int rc = watches_new(ctx, (void **)out);
+    if (rc)
+        return rc;
+    watches_t *ws = *out;
+    ws->once = true;
+    ws->once_max = streams < ONCE_CONNS ? streams : ONCE_CONNS;
+    return check_files(ctx, ws->pp, ws->once_max);
+}
+
+int watches_once_start(watches_t *ws)
+{
+    ws->base_ns = ws->ctx.base_ns;
+    ws->next_due_ns = INT64_MAX;
+    ws->wcs = calloc(ws->ctx.plan->n_reqs ? ws->ctx.plan->n_reqs : 1, sizeof(*ws->wcs));
+    int rc = ws->wcs ? engine_new(ws, ws->once_max) : SQ_ENOMEM;
+    ws->active = rc == 0;
+    if (rc)
+        out_error(ws->ctx.o, "phase '%s': cannot set up its watches: %s", ws->pp->name,
+                  sq_strerror(rc));
+    return rc;
+}
+
+/* The class's figures, added the first time one of its streams opens. */
+static wclass_t *once_class(watches_t *ws, int cls)
+{
+    for (size_t k = 0; k < ws->n_wc; k++)
+        if (ws->wcs[k].cls == cls)
+            return &ws->wcs[k];
+    wclass_t *wc = &ws->wcs[ws->n_wc++];
+    wc->cls = cls;
+    wc->events = cell(ws, cls, "2xx");
+    return wc;
+}
+
+int watches_once_open(watches_t *ws, int cls, const char *path, int64_t intended_ns,
+                      int64_t hold_ns)
+{
+    if (!ws->active)
+        return SQ_ESTOPPED;
+    watcher_t *w = calloc(1, sizeof(*w));
+    if (!w || !(w->path = strdup(path))) {
+        free(w);
+        return SQ_ENOMEM;
+    }
+    wclass_t *wc = once_class(ws, cls);
+    const plan_req_t *pr = src_class(ws->ctx.issuer, cls)->pr;
+    w->ws = ws;
+    w->wc = wc;
+    w->log = -1;
+    w->hold_ms = hold_ns / 1000000 > 0 ? hold_ns / 1000000 : 1;
+    watch_stream_cfg_t cfg = stream_cfg(pr);
+    watch_stream_init(&w->st, &cfg);
+    watch_framer_init(&w->fr, framing[pr->watch.framing], 0, on_event, w);
+    int rc = open_stream(ws, w, intended_ns);
+    if (rc) {
+        watch_framer_close(&w->fr);
+        free(w->path);
+        free(w);
+        return rc;
+    }
+    wc->streams++;
+    ws->once_open++;
+    eng_flush(ws->eng); /* the stream opens now, not on the loop's next pass */
+    return 0;
+}
+
+int watches_once_open_now(const watches_t *ws)
+{
+    return ws ? ws->once_open : 0;
+}
+
+void watches_once_stop(watches_t *ws)
+{
+    if (ws)
+        watches_stop(ws);
+}
+
+void watches_once_free(watches_t *ws)
+{
+    if (ws)
+        watches_free(ws);
+}

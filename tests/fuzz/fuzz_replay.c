@@ -1,7 +1,7 @@
 /* libFuzzer target for what the replay source does with a recorded path (src/source/
  * replay_rules.c): the input is a log (format detected), each record is judged by a phase's
- * rules (method filter, classify, path shape) and rewritten for three copies by rules with
- * groups and {{copy}}. Every path that comes out must be an origin-form path with no control
+ * rules (method filter, classify, path shape, watch marker) and rewritten for three copies by rules
+ * with groups and {{copy}}. Every path that comes out must be an origin-form path with no control
  * byte, space or DEL, as the engine will put it in a request line; a class must be one the plan
  * has. A broken promise aborts, which libFuzzer reports with the input. */
 #include <stdint.h>
@@ -18,6 +18,7 @@ static plan_req_t reqs[] = {
     {.name = "renew", .kind = PLAN_WRITE, .write = {.method = "PUT", .body = "{}"}},
     {.name = "replay-get", .kind = PLAN_GET},
     {.name = "replay-list", .kind = PLAN_LIST},
+    {.name = "replay-watch", .kind = PLAN_WATCH},
 };
 static plan_replay_rule_t rewrite[] = {
     {.match = "^/v1/sites/([^/]*)/(gateways)?", .to = "/v2/{{2}}/{{copy}}-{{1}}{{9}}/"},
@@ -30,7 +31,7 @@ static plan_replay_rule_t classify[] = {
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 {
-    plan_t plan = {.reqs = reqs, .n_reqs = 3};
+    plan_t plan = {.reqs = reqs, .n_reqs = 4};
     plan_phase_t ph = {.name = "p"};
     ph.replay.rewrite = rewrite;
     ph.replay.n_rewrite = 2;
@@ -38,6 +39,9 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
     ph.replay.n_classify = 2;
     ph.replay.get_cls = 1;
     ph.replay.list_cls = 2;
+    ph.replay.watch_cls = 3;
+    ph.replay.watch_param = "watch";
+    ph.replay.watch_min_ns = 1000000000;
     out_t *o = out_new_capture();
     rp_rules_t rules;
     if (rp_rules_init(&rules, &plan, &ph, o))
@@ -53,7 +57,10 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
         alog_record_t rec;
         while (alog_next(r, &rec) == 1) {
             int cls = -1;
-            if (rp_rules_judge(&rules, &rec, &cls) == RP_SEND && (cls < 0 || cls > 2))
+            enum rp_verdict v = rp_rules_judge(&rules, &rec, &cls);
+            if (v == RP_SEND && (cls < 0 || cls > 2))
+                abort();
+            if (v == RP_WATCH && (cls != 3 || rec.duration_ns < ph.replay.watch_min_ns))
                 abort();
             for (int c = 0; c < 3; c++) {
                 char path[512];

@@ -1,27 +1,38 @@
 #!/usr/bin/env bash
 # The replay source against a writer squall did not write: Debian's nginx serves the replayed
-# requests and logs each in an NDJSON log_format with $msec (nginx docs, ngx_http_log_module:
-# the time the log line is written, in seconds with millisecond resolution). The input is an
-# NDJSON log of ms-resolution times generated here (Poisson gaps, gets, lists, HEADs, PUTs with
-# a body rule, POSTs without one, watches). Checked against nginx's own log: the count equals
-# the requests the replay can send (writes without a body template and watches skipped, as
-# results.json says), at speed 1 and 2 the inter-arrival times nginx saw are within 1 ms at
-# p90 and 3 ms at p99 of the input's (scaled; the goal is 1 ms at p99, see below), every class has its results, and `copies: 3` triples the count
-# with {{copy}} in the rewritten paths. Replayed paths are rewritten onto the shared nginx
-# fixture's /echo/body (any method, 200) with the recorded path in the query. About 30 s.
+# requests and logs each in its own NDJSON log_format (lib/nginx.sh: $msec, the URI, the status,
+# $request_time; nginx docs, ngx_http_log_module). The input is an NDJSON log of ms-resolution
+# times generated here (Poisson gaps, gets, lists, HEADs, PUTs with a body rule, POSTs without
+# one, and watches marked watch=1 with a recorded duration of 1-2.5 s), every line carrying a
+# unique r=N in its query. Checked:
+# - counts, against nginx's own log: every request the replay can send (POSTs without a body
+#   template skipped, as results.json says) and every watch reached nginx, at speed 1, 2 and
+#   with `copies: 3` (three times, {{copy}} in the rewritten paths); every class has results;
+# - watches: each was held open (nginx's /stream/ticks, an event every 100 ms) for its recorded
+#   duration divided by the speed, as nginx's own $request_time says (it notices the client's
+#   close at its next write: up to about 0.1 s late), and its events were counted;
+# - fidelity, the issue's goal: achieved inter-arrival times within 1 ms at p99 of the log's,
+#   at speed 1 and 2. nginx's $msec has only ms resolution, so the achieved times are the
+#   capture stamps of squall's request packets on loopback (tcpdump, ns precision;
+#   lib/capture.sh), each matched to its log line by r=N (lib/replay_gaps.py says how the gaps
+#   are compared). About 40 s.
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/nginx.sh"
 source "$SRCDIR/tests/integration/lib/run.sh"
+source "$SRCDIR/tests/integration/lib/capture.sh"
+command -v tcpdump >/dev/null || { echo "FAIL: tcpdump missing (tools/setup installs it)"; exit 1; }
 T="$BUILDDIR/replay-nginx"
 rm -rf "$T"
 mkdir -p "$T"
 NGX_ACCESS_LOG=1
 nginx_start replay || exit 1
+trap 'capture_stop; nginx_stop' EXIT
 PORT=$NGX_PORT
 NGX_LOG="$NGX_DIR/access.ndjson"
 
 # The recorded log: 8 s at about 40/s, gaps of whole even milliseconds (so speed 2 keeps them
-# whole), written out of order in places as a proxy logging at completion would.
+# whole), written out of order in places as a proxy logging at completion would; watches last
+# 1-2.5 s (whole even ms).
 /usr/bin/python3 - "$T/recorded.ndjson" <<'PY'
 import json, random, sys
 random.seed(13)
@@ -36,7 +47,11 @@ while len(lines) < 320:
             "put": ("PUT", f"/api/leases/gw-{gw}"),
             "post": ("POST", f"/api/sites/{site}/events"),
             "watch": ("GET", f"/api/sites/{site}/gateways?watch=1")}[k]
-    lines.append({"ts": t, "verb": m, "uri": p, "status": 200, "client": f"gw-{gw}"})
+    p += ("&" if "?" in p else "?") + f"r={len(lines)}"
+    l = {"ts": t, "verb": m, "uri": p, "status": 200, "client": f"gw-{gw}"}
+    if k == "watch":
+        l["dur"] = 2 * random.randrange(500, 1250) / 1000
+    lines.append(l)
 out = lines[:]
 for i in range(5, len(out) - 1, 40):   # a few neighbours swapped: the reader must reorder
     out[i], out[i + 1] = out[i + 1], out[i]
@@ -57,12 +72,13 @@ phases:
   - name: replay
     replay:
       log: recorded.ndjson
-      fields: {time: ts, method: verb, path: uri}
+      fields: {time: ts, method: verb, path: uri, duration: dur}
       time-unit: ms
       speed: $2
       copies: $3
       offset: 2ms
       rewrite:
+        - {match: "^/api/(.*[?&]watch=1.*)$", to: "/stream/ticks?c{{copy}}=/{{1}}"}
         - {match: "^/api/", to: "/echo/body?c{{copy}}=/"}
       classify:
         - {match: "^/api/leases/", class: renew}
@@ -72,25 +88,44 @@ accept: [generator-bound]
 YAML
 }
 
-# What the replay can send: everything but POSTs (no body rule) and watches.
-WANT=$(/usr/bin/python3 -c '
+# What the replay can send: everything but POSTs (no body rule); WATCHES of them are watches,
+# recorded as held HOLD s in all.
+read -r WANT WATCHES HOLD < <(/usr/bin/python3 -c '
 import json, sys
-n = 0
+n = w = hold = 0
 for l in open(sys.argv[1]):
     try: r = json.loads(l)
     except ValueError: continue
     n += r["verb"] != "POST" and "watch=1" not in r["uri"]
-print(n)' "$T/recorded.ndjson")
+    w += "watch=1" in r["uri"]
+    hold += r.get("dur", 0)
+print(n, w, hold)' "$T/recorded.ndjson")
 
 lines_now() { wc -l <"$NGX_LOG"; }
 
-# run_one NAME SPEED COPIES: the replay, and what nginx logged for it in $T/NAME.seen.
+# squall's and nginx's timing must not be taken over by the machine's other work in the middle
+# of a gap; as in wire.sh, when the test may (root), both run at a real-time priority
+# (SCHED_FIFO, sched(7)). Bounded: the replay ends with its log, and squall sleeps between
+# requests (it spins at most 100 µs before each).
+PRIO=()
+if [ "$(id -u)" = 0 ] && [ "${REPLAY_FIFO:-1}" = 1 ]; then
+    PRIO=(chrt -f 20)
+    for pid in "$NGX_PID" $(pgrep -P "$NGX_PID"); do chrt -f -p 10 "$pid" >/dev/null; done
+fi
+
+# run_one NAME SPEED COPIES: the replay under capture ($T/NAME.pcap), and what nginx logged for
+# it in $T/NAME.seen.
 run_one() {
     plan "$1" "$2" "$3"
     local before
     before=$(lines_now)
-    run_plan "$T/$1" "$T/$1.yaml" --no-brakes
-    sleep 1
+    capture_start "$PORT" "$T/$1.pcap" "GET HEAD PUT" || return 1
+    rm -rf "${T:?}/$1"
+    timeout 120 "${PRIO[@]}" "$SQUALL" run "$T/$1.yaml" -o "$T/$1" --quiet --no-brakes \
+        >"$T/$1.stdout" 2>"$T/$1.stderr"
+    RUN_RC=$?
+    capture_stop
+    sleep 0.5 # the last streams' lines (nginx logs at its next write)
     tail -n +$((before + 1)) "$NGX_LOG" >"$T/$1.seen"
 }
 
@@ -100,30 +135,36 @@ for run in "s1 1 1" "s2 2 1" "c3 4 3"; do
     expect "$1: replay at speed $2, copies $3 ran (exit $RUN_RC: $(tail -1 "$T/$1.stderr"))" \
         test "$RUN_RC" = 0
     seen=$(wc -l <"$T/$1.seen")
-    expect "$1: nginx logged $seen requests, $3 x $WANT expected" test "$seen" = $(($3 * WANT))
-    rcheck "$1: results.json counts $3 x $WANT sent" \
-        "d['sections']['replay']['replay']['sent'] == $3 * $WANT" "$T/$1"
-    rcheck "$1: writes without a body rule and watches are counted as skipped" \
-        "d['sections']['replay']['replay']['skipped_writes'] > 0 and d['sections']['replay']['replay']['skipped_watches'] > 0" "$T/$1"
+    expect "$1: nginx logged $seen requests, $3 x ($WANT + $WATCHES watches) expected" \
+        test "$seen" = $(($3 * (WANT + WATCHES)))
+    rcheck "$1: results.json counts $3 x $WANT sent and $3 x $WATCHES watches" \
+        "d['sections']['replay']['replay']['sent'] == $3 * $WANT and d['sections']['replay']['replay']['watches'] == $3 * $WATCHES" "$T/$1"
+    rcheck "$1: writes without a body rule are counted as skipped, no watch is" \
+        "d['sections']['replay']['replay']['skipped_writes'] > 0 and d['sections']['replay']['replay']['skipped_watches'] == 0" "$T/$1"
     rcheck "$1: the malformed line is counted with its line number" \
         "d['sections']['replay']['replay']['malformed'] == 1 and 'line 321' in d['sections']['replay']['replay']['malformed_samples'][0]" "$T/$1"
     # HEAD included: libcurl must not wait for a body nginx does not send (CURLOPT_NOBODY).
-    rcheck "$1: every replayed request was answered 2xx" \
+    rcheck "$1: every replayed request was answered 2xx, and no watch ended otherwise" \
         "sum(c['count'] for c in d['cells'] if c['outcome'] != '2xx') == 0" "$T/$1"
-    for cls in renew replay-get replay-list; do
+    for cls in renew replay-get replay-list replay-watch; do
         rcheck "$1: class $cls has 2xx results" "cell('replay', '$cls', '2xx').get('count', 0) > 0" "$T/$1"
     done
+    # nginx's /stream/ticks sends an event at once, then every 100 ms: a stream held h s
+    # carries 1 + 10 h of them; 80 % of that at least.
+    rcheck "$1: the watches section counts $3 x $WATCHES streams with their events, no drop" \
+        "(lambda w: w['streams'] == $3 * $WATCHES and w['drops'] == 0 and w['events'] >= 0.8 * $3 * 10 * $HOLD / $2)(d['sections']['watches']['replay']['classes']['replay-watch'])" "$T/$1"
 done
 
-# Each copy's requests and the HEADs, from nginx's own log.
+# Each copy's requests, the HEADs and the watches' durations, from nginx's own log.
 /usr/bin/python3 - "$T" <<'PY' || FAILED=1
-import json, sys
+import json, re, sys
 T = sys.argv[1]
 bad = 0
 rec = [json.loads(l) for l in open(f"{T}/recorded.ndjson") if l.startswith("{\"")]
 n = sum(1 for r in rec if r["verb"] != "POST" and "watch=1" not in r["uri"])
 heads = sum(1 for r in rec if r["verb"] == "HEAD")
-for name, copies in (("s1", 1), ("s2", 1), ("c3", 3)):
+dur = {re.search(r"r=(\d+)", r["uri"]).group(1): r["dur"] for r in rec if "dur" in r}
+for name, speed, copies in (("s1", 1, 1), ("s2", 2, 1), ("c3", 4, 3)):
     seen = [json.loads(l) for l in open(f"{T}/{name}.seen")]
     for c in range(copies):
         mine = sum(1 for s in seen if s["uri"].startswith(f"/echo/body?c{c}=/"))
@@ -134,34 +175,35 @@ for name, copies in (("s1", 1), ("s2", 1), ("c3", 3)):
     ok = got == copies * heads
     print(("ok: " if ok else "FAIL: ") + f"{name}: {got} HEAD requests, {copies} x {heads} recorded")
     bad += not ok
+    # Source: nginx's $request_time, from its first byte of the request to its log line; nginx
+    # notices the close at its next write, every 100 ms. So a hold of h s shows as h to h + 0.1
+    # s; 50 ms below and 250 ms above allow the ms rounding and a busy machine.
+    watches = [s for s in seen if s["uri"].startswith("/stream/ticks?")]
+    off = [s["rt"] - dur[re.search(r"r=(\d+)", s["uri"]).group(1)] / speed for s in watches]
+    ok = len(watches) == copies * len(dur) and all(-0.05 <= o <= 0.25 for o in off)
+    print(("ok: " if ok else "FAIL: ") + f"{name}: {len(watches)} watches reached nginx "
+          f"({copies} x {len(dur)} recorded), held their recorded duration / {speed}: nginx's "
+          f"$request_time minus it from {min(off, default=0):+.3f} to {max(off, default=0):+.3f} s")
+    bad += not ok
 sys.exit(1 if bad else 0)
 PY
 
-# Fidelity against nginx's own clock: the inter-arrival times of what it logged vs the
-# recorded ones divided by the speed. The issue's goal is 1 ms at p99. nginx's $msec is
-# truncated to the millisecond, so a measured error of 2 ms means over 1 ms of true error; on
-# these shared 2-core machines the run loop's 1 ms wake-up timer (src/run/run.c, not the replay
-# source) and the other work on the machine give 1-5 % of gaps such an error today (measured
-# p99 1-3 ms, and up to 10 ms while other builds run), so the bounds asserted are 1 ms at p90
-# and 3 ms at p99, the figures are printed, and a run that misses them is run again, up to 3
-# attempts: a replay that is systematically off fails all three.
+# Fidelity as the wire saw it (lib/replay_gaps.py): the issue's goal, 1 ms at p99. A machine
+# busy with other work can still take a core for over a millisecond now and then; a run that
+# misses is run again, up to 3 attempts: a replay that is systematically off fails all three.
 fidelity() { # NAME SPEED ATTEMPT
-    /usr/bin/python3 - "$T" "$1" "$2" "$3" <<'PY'
+    /usr/bin/python3 "$SRCDIR/tests/integration/lib/replay_gaps.py" "$T/$1.pcap" \
+        "$T/recorded.ndjson" "$2" >"$T/$1.gaps.json" || return 1
+    /usr/bin/python3 - "$T/$1.gaps.json" "$1" "$3" "$CAP_DROPPED" <<'PY'
 import json, sys
-T, name, speed, attempt = sys.argv[1], sys.argv[2], float(sys.argv[3]), sys.argv[4]
-rec = [json.loads(l) for l in open(f"{T}/recorded.ndjson") if l.startswith("{\"")]
-rec = sorted(r["ts"] for r in rec if r["verb"] != "POST" and "watch=1" not in r["uri"])
-got = sorted(json.loads(l)["msec"] * 1000 for l in open(f"{T}/{name}.seen"))
-if len(got) != len(rec):
-    print(f"FAIL: {name}: {len(got)} requests logged, {len(rec)} recorded")
-    sys.exit(1)
-want = [(b - a) / speed for a, b in zip(rec, rec[1:])]
-err = sorted(abs((b - a) - w) for a, b, w in zip(got, got[1:], want))
-p90, p99 = (err[int(q * (len(err) - 1) + 0.5)] for q in (0.90, 0.99))
-ok = p90 <= 1 + 1e-9 and p99 <= 3 + 1e-9
-print(("ok: " if ok else "(attempt " + attempt + ") FAIL: ") +
-      f"{name}: inter-arrival error p90 {p90:.2f} ms <= 1 ms, p99 {p99:.2f} ms <= 3 ms "
-      f"(nginx $msec, ms resolution; goal p99 1 ms)")
+g, name, attempt, dropped = json.load(open(sys.argv[1])), sys.argv[2], sys.argv[3], sys.argv[4]
+ok = g["missing"] == 0 and dropped == "0" and g["error_ms_p99"] is not None \
+    and g["error_ms_p99"] <= 1.0
+print(("ok: " if ok else f"(attempt {attempt}) FAIL: ") +
+      f"{name}: achieved inter-arrival error p50 {g['error_ms_p50']:.3f} ms, p90 "
+      f"{g['error_ms_p90']:.3f} ms, p99 {g['error_ms_p99']:.3f} ms <= 1 ms, max "
+      f"{g['error_ms_max']:.3f} ms over {g['gaps']} gaps (tcpdump stamps; {g['missing']} "
+      f"requests not captured, {dropped} packets dropped)")
 sys.exit(0 if ok else 1)
 PY
 }

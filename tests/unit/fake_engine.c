@@ -15,6 +15,7 @@ typedef struct fx {
     eng_req_t req;
     char *path, *method;
     int64_t due_ns;
+    bool stream;
     eng_result_t res;
 } fx_t;
 
@@ -49,6 +50,10 @@ static void finish(eng_t *e, fx_t *x, bool cancelled)
     }
     e->in_flight--;
     fake.completed++;
+    if (x->stream && !cancelled && x->req.on_data)
+        x->req.on_data(x->req.user, x->res.body, x->res.body_len);
+    if (x->stream)
+        x->res.body = NULL;
     x->req.on_done(x->req.user, &x->res);
     free(x->path);
     free(x->method);
@@ -149,6 +154,13 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     x->res.body = req->keep_body ? a.body : NULL;
     x->res.body_len = req->keep_body ? strlen(a.body) : 0;
     x->due_ns = now + fake.delay_ns;
+    if (a.stream && req->timeout_ms > 0) {
+        x->stream = true;
+        x->res.outcome = ENG_OUT_TIMEOUT;
+        x->res.body = a.body;
+        x->res.body_len = strlen(a.body);
+        x->due_ns = now + req->timeout_ms * 1000000;
+    }
     x->next = NULL;
     fx_t **pp = &e->pending;
     while (*pp)
@@ -158,8 +170,10 @@ int eng_submit(eng_t *e, const eng_req_t *req)
         e->max_in_flight = e->in_flight;
     arm(e);
     if (fake.n_log < FAKE_LOG)
-        fake.log[fake.n_log++] = (fake_req_t){
-            .intended_ns = x->res.intended_ns, .submitted_ns = now, .engine = fake.engines};
+        fake.log[fake.n_log++] = (fake_req_t){.intended_ns = x->res.intended_ns,
+                                              .submitted_ns = now,
+                                              .timeout_ms = req->timeout_ms,
+                                              .engine = fake.engines};
     if (fake.n_log <= FAKE_LOG) {
         fake_req_t *l = &fake.log[fake.n_log - 1];
         snprintf(l->method, sizeof l->method, "%s", x->method);

@@ -14,12 +14,16 @@ typedef struct {
     long status;      /* 200 unless set */
     bool refused;     /* no answer: connect-refused (three in a row: unreachable) */
     const char *body; /* kept when the request asks for its body ("" unless set) */
+    /* A stream that never ends by itself: body is fed to on_data, then the request times out
+     * after its timeout_ms (status 200, outcome timeout), as libcurl ends a held stream. */
+    bool stream;
 } fake_answer_t;
 
 typedef struct {
     char method[8];
     char path[160];
     int64_t intended_ns, submitted_ns;
+    int64_t timeout_ms; /* the request's own timeout (0 = the engine's) */
     int engine; /* which engine (1 = the first made) */
 } fake_req_t;
 

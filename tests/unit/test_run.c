@@ -507,6 +507,92 @@ static void test_replay_window(void **state)
     unlink(log);
 }
 
+/* Recorded watches (NDJSON with ms times and durations in seconds): a request marked watch=1 or
+ * watch=true that lasted at least watch-min opens as a stream at its recorded instant, held for
+ * its recorded duration divided by the speed (the engine's timeout of the request, as the fake
+ * logs it), of `replay-watch` or of the watch class a classify rule names; watch=0 is a plain
+ * read; a marked request with no duration or a shorter one is skipped and counted. The
+ * streams' events are counted per class as any watch's, and a stream squall closed at its
+ * hold time is not an error. */
+static const char watch_log[] =
+    "{\"time\":1764672000000,\"method\":\"GET\",\"path\":\"/api/gw/1\"}\n"
+    "{\"time\":1764672000100,\"method\":\"GET\",\"path\":\"/api/gateways?watch=1\","
+    "\"duration\":0.4}\n"
+    "{\"time\":1764672000200,\"method\":\"GET\",\"path\":\"/api/gateways?watch=true\","
+    "\"duration\":0.05}\n"
+    "{\"time\":1764672000300,\"method\":\"GET\",\"path\":\"/api/gw/2?watch=0\",\"duration\":2}\n"
+    "{\"time\":1764672000300,\"method\":\"GET\",\"path\":\"/api/gateways?watch=1\"}\n"
+    "{\"time\":1764672000400,\"method\":\"GET\",\"path\":\"/api/sites/n?watch=1\","
+    "\"duration\":0.3}\n";
+
+static void answer_stream(const char *method, const char *path, fake_answer_t *a)
+{
+    (void)method;
+    if (strstr(path, "watch=") && !strstr(path, "watch=0")) {
+        a->stream = true;
+        a->body = "{\"type\":\"create\",\"version\":1}\n{\"type\":\"update\",\"version\":2}\n";
+    }
+}
+
+static const fake_req_t *logged_req(const char *path)
+{
+    for (int i = 0; i < fake.n_log; i++)
+        if (!strcmp(fake.log[i].path, path))
+            return &fake.log[i];
+    return NULL;
+}
+
+static void test_replay_watches(void **state)
+{
+    (void)state;
+    const char *log = write_log(watch_log);
+    for (int speed = 1; speed <= 2; speed++) {
+        char yaml[1024];
+        snprintf(yaml, sizeof yaml,
+                 "target: {url: \"http://127.0.0.1:9\"}\n"
+                 "requests:\n  site-watch: {kind: watch, path: /}\n"
+                 "phases:\n  - name: r\n    replay:\n      log: %s\n      time-unit: ms\n"
+                 "      speed: %d\n      watch-min: 100ms\n"
+                 "      rewrite: [{match: \"^/api/\", to: \"/c{{copy}}/\"}]\n"
+                 "      classify: [{match: \"^/api/sites/\", class: site-watch}]\n",
+                 log, speed);
+        fake.answer = answer_stream;
+        run_case_t c = {0};
+        run_yaml(&c, yaml, NULL);
+        assert_int_equal(c.rc, 0);
+        assert_int_equal(c.res.end, RUN_END_DONE);
+        assert_int_equal(fake.n_log, 4);
+        const fake_req_t *get = logged_req("/c0/gw/1"), *w1 = logged_req("/c0/gateways?watch=1"),
+                         *w2 = logged_req("/c0/sites/n?watch=1");
+        assert_non_null(get);
+        assert_non_null(logged_req("/c0/gw/2?watch=0"));
+        assert_non_null(w1);
+        assert_non_null(w2);
+        /* Opened at their recorded instants and held for their recorded durations, scaled. */
+        assert_int_equal(w1->intended_ns - get->intended_ns, 100000000 / speed);
+        assert_int_equal(w2->intended_ns - get->intended_ns, 400000000 / speed);
+        assert_int_equal(w1->timeout_ms, 400 / speed);
+        assert_int_equal(w2->timeout_ms, 300 / speed);
+        assert_int_equal(count(&c, "r", "replay-watch", "2xx"), 2); /* events */
+        assert_int_equal(count(&c, "r", "site-watch", "2xx"), 2);
+        assert_int_equal(count(&c, "r", "replay-watch", "timeout"), 0);
+        assert_int_equal(count(&c, "r", "replay-get", "2xx"), 2);
+        json_t *r = json_object_get(results_section(c.results, "replay"), "r");
+        assert_int_equal(json_integer_value(json_object_get(r, "sent")), 2);
+        assert_int_equal(json_integer_value(json_object_get(r, "watches")), 2);
+        assert_int_equal(json_integer_value(json_object_get(r, "skipped_watches")), 2);
+        json_t *wc = json_object_get(
+            json_object_get(json_object_get(results_section(c.results, "watches"), "r"), "classes"),
+            "replay-watch");
+        assert_int_equal(json_integer_value(json_object_get(wc, "streams")), 1);
+        assert_int_equal(json_integer_value(json_object_get(wc, "events")), 2);
+        assert_int_equal(json_integer_value(json_object_get(wc, "drops")), 0);
+        assert_int_equal(json_integer_value(json_object_get(wc, "reconnects")), 0);
+        case_close(&c);
+    }
+    unlink(log);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -522,6 +608,7 @@ int main(void)
         cmocka_unit_test(test_replay_clf),
         cmocka_unit_test(test_replay_window),
         cmocka_unit_test(test_replay_teardown),
+        cmocka_unit_test(test_replay_watches),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -1,21 +1,29 @@
 # Shared helper: squall's HTTP/1.1 requests as the wire sees them, captured on loopback with
 # Debian's tcpdump (needs root or CAP_NET_RAW). Source it (after port.sh), then:
-#     capture_start PORT FILE   captures the client's packets to 127.0.0.1:PORT whose TCP payload
-#                               starts with "GET " (one per request: libcurl writes a small
-#                               request in one send with TCP_NODELAY), nanosecond stamps;
-#                               sets CAP_PID; returns 1 if tcpdump does not start listening
+#     capture_start PORT FILE [METHODS]
+#                               captures the client's packets to 127.0.0.1:PORT whose TCP payload
+#                               starts with "GET " (or any of METHODS, e.g. "GET HEAD PUT": one
+#                               packet per request, as libcurl writes a small request's line and
+#                               headers in one send with TCP_NODELAY), nanosecond stamps, the
+#                               first 256 bytes of each; sets CAP_PID; returns 1 if tcpdump does
+#                               not start listening
 #     capture_stop              ends it by pid (SIGINT: it flushes the file) and prints the
 #                               kernel's drop count from tcpdump's own report (CAP_DROPPED)
 #     wire_plan FILE PORT RATE ARRIVALS SECONDS   writes the plan both the wire test and
 #                               tools/bench/wire.sh run: GET /small.json on 64 connections
 # The filter's payload offset is the TCP header length, tcp[12] >> 4 in 32-bit words (RFC 9293,
-# section 3.1, "Data Offset"); 0x47455420 is "GET " in ASCII.
+# section 3.1, "Data Offset"); 0x47455420 is "GET " in ASCII, and so on for each method's
+# first four bytes (RFC 9110 method names).
 
 capture_start() {
-    local port=$1 file=$2 i
+    local port=$1 file=$2 methods=${3:-GET} i m hex first=""
     CAP_LOG="$file.log"
-    tcpdump -i lo -n -s 128 -B 32768 --immediate-mode --time-stamp-precision=nano -w "$file" \
-        "tcp dst port $port and tcp[((tcp[12:1] & 0xf0) >> 2):4] = 0x47455420" \
+    for m in $methods; do
+        hex=$(printf '%-4.4s' "$m" | od -An -tx1 | tr -d ' \n')
+        first+="${first:+ or }tcp[((tcp[12:1] & 0xf0) >> 2):4] = 0x$hex"
+    done
+    tcpdump -i lo -n -s 256 -B 32768 --immediate-mode --time-stamp-precision=nano -w "$file" \
+        "tcp dst port $port and ($first)" \
         >"$CAP_LOG" 2>&1 &
     CAP_PID=$!
     for ((i = 0; i < 100; i++)); do

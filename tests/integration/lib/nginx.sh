@@ -14,6 +14,9 @@
 #     /auth/bearer          200 only with "Authorization: Bearer $NGX_TOKEN", 401 otherwise
 #     /mtls/ok              200 only when a client certificate signed by our CA was presented,
 #                           403 otherwise (TLS port; the server asks for it as optional)
+#     /stream/ticks         a watch stream held open: an NDJSON event every 100 ms for up to
+#                           10 s; nginx notices a client that closed at its next write, so its
+#                           $request_time says how long the client held it, to about 0.2 s
 # Certificates (generated with openssl per test): $NGX_CA (CA), $NGX_CLIENT_CERT/$NGX_CLIENT_KEY
 # (signed by that CA), $NGX_OTHER_CA (an unrelated CA, for verification failures). The server
 # certificate is for IP 127.0.0.1.
@@ -59,13 +62,23 @@ _ngx_delays() {
     done
 }
 
+_ngx_ticks() {
+    local i
+    printf '        location = /stream/ticks {\n'
+    for ((i = 1; i <= 100; i++)); do
+        printf '            echo '"'"'{"type":"update","version":%d}'"'"'; echo_flush; echo_sleep 0.1;\n' "$i"
+    done
+    printf '        }\n'
+}
+
 # With NGX_ACCESS_LOG=1 before nginx_start, nginx writes its own NDJSON access log to
 # $NGX_DIR/access.ndjson: $msec (when the line is written, ms resolution), the method, the
-# request URI with its query, the status (nginx docs, ngx_http_log_module).
+# request URI with its query, the status, $request_time (from the request's first byte to the
+# log line, s with ms resolution) (nginx docs, ngx_http_log_module).
 _ngx_access_log() {
     if [ "${NGX_ACCESS_LOG:-0}" = 1 ]; then
         printf '%s\n' "    log_format sqjson escape=json '{\"msec\":\$msec,\"method\":\"\$request_method\",'" \
-            "        '\"uri\":\"\$request_uri\",\"status\":\$status}';" \
+            "        '\"uri\":\"\$request_uri\",\"status\":\$status,\"rt\":\$request_time}';" \
             "    access_log $1/access.ndjson sqjson;"
     else
         echo "    access_log off;"
@@ -105,6 +118,7 @@ $(_ngx_access_log "$d")
         root $d/www;
         location = /small.json { }
 $(_ngx_delays)
+$(_ngx_ticks)
         location = /fail/503 { return 503 '{"error":"busy"}\n'; }
         location = /echo/body { echo_read_request_body; echo_request_body; }
         location = /auth/bearer {
