@@ -48,7 +48,7 @@ phases:
   - {name: soak, rate: $RATE/s, duration: ${SECS}s,
      mix: {read: 70, scan: 2, renew: 26, update: 2}, watches: {follow: $WATCHES}}
 YAML
-taskset -c 0 "$SQUALL" run "$OUT/soak.yaml" -o "$OUT/results" --quiet --keep --no-brakes \
+taskset -c 0 ${SOAK_WRAP:-} "$SQUALL" run "$OUT/soak.yaml" -o "$OUT/results" --quiet --keep --no-brakes \
     >"$OUT/run.out" 2>"$OUT/run.err" &
 RPID=$!
 
