@@ -7,7 +7,11 @@
 #include "squall/err.h"
 #include "squall/value.h"
 
-#define RESP_KEEP (1u << 20) /* a pooled transfer keeps a response buffer up to this size */
+/* A pooled transfer keeps a response buffer up to this size (buf_append's first capacity). A
+ * larger one (a list page) is freed when the transfer ends: kept, it ratcheted up the pool as
+ * list pages landed on ever more of its hundreds of pooled transfers, and `squall run`'s RSS
+ * grew for the whole soak (tools/bench/RESULTS.md, "Soak"). */
+#define RESP_KEEP 4096u
 
 static const char *const outcome_names[] = {
 #define ENG_OUTCOME_NAME(name, text) text,
@@ -90,7 +94,7 @@ static int buf_set(struct eng_buf *b, const char *a, size_t alen, const char *c,
 static int buf_append(struct eng_buf *b, const char *d, size_t n, size_t max)
 {
     if (b->len + n + 1 > b->cap) {
-        size_t cap = b->cap ? b->cap : 4096;
+        size_t cap = b->cap ? b->cap : RESP_KEEP;
         while (cap < b->len + n + 1)
             cap *= 2;
         cap = cap < max ? cap : max;
@@ -382,7 +386,7 @@ void eng_xfer_release(struct eng_xfer *x)
 {
     curl_slist_free_all(x->headers);
     x->headers = NULL;
-    if (x->resp.cap > RESP_KEEP) { /* a big list page's buffer is not kept for every transfer */
+    if (x->resp.cap > RESP_KEEP) {
         free(x->resp.data);
         x->resp.data = NULL;
         x->resp.cap = x->resp.len = 0;

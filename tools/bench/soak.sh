@@ -8,6 +8,9 @@
 # Prints the samples and a markdown summary for tools/bench/RESULTS.md.
 # Usage: tools/bench/soak.sh [BUILDDIR] [SECONDS] [RATE] [WATCHES] [SAMPLE]
 #        (defaults build, 600, 2000, 500, 10)
+# SOAK_WRAP (environment) runs `squall run` under a profiler, e.g.
+#   SOAK_WRAP="heaptrack -o /tmp/soak-ht" tools/bench/soak.sh build 180 1000 500 10
+# (the samples then are the profiler's, not squall's; read its own output).
 set -uo pipefail
 cd "$(dirname "$0")/../.."
 SRCDIR=$PWD
@@ -48,7 +51,7 @@ phases:
   - {name: soak, rate: $RATE/s, duration: ${SECS}s,
      mix: {read: 70, scan: 2, renew: 26, update: 2}, watches: {follow: $WATCHES}}
 YAML
-taskset -c 0 "$SQUALL" run "$OUT/soak.yaml" -o "$OUT/results" --quiet --keep --no-brakes \
+taskset -c 0 ${SOAK_WRAP:-} "$SQUALL" run "$OUT/soak.yaml" -o "$OUT/results" --quiet --keep --no-brakes \
     >"$OUT/run.out" 2>"$OUT/run.err" &
 RPID=$!
 
