@@ -20,6 +20,7 @@
 #define LAG_P90_NS    (10 * INT64_C(1000000)) /* schedule lag p90 in the second */
 #define QUEUE_WAIT_NS (10 * INT64_C(1000000)) /* a request waited for a free connection */
 #define BUSY_FRACTION 0.90                    /* the loop spent this much in callbacks */
+#define BUSY_MIN_WINDOW_NS (100 * INT64_C(1000000)) /* ... of a window at least this long */
 /* Connection-bound when the plan's rate times the target's service time (Little's law,
  * L = λW: Little, Operations Research 9(3), 1961) keeps at least half the connections busy on
  * average; below that, waits for a connection come from bursts squall could not send at once. */
@@ -90,7 +91,12 @@ static enum obs_bound waiting(const obs_health_in_t *in, const eng_stats_t *st, 
 enum obs_bound obs_health_second(obs_health_t *h, const eng_stats_t *st,
                                  const obs_health_in_t *in, char *why, size_t cap)
 {
-    double busy = st->window_ns > 0 ? (double)st->loop_busy_ns / (double)st->window_ns : 0;
+    /* The loop's load is judged over at least a tenth of a second: the run's last, partial
+     * second can be a few milliseconds spent in one callback (measured: a 2 s run's final window
+     * read "100 % busy" and made a healthy run INCONCLUSIVE). */
+    double busy = st->window_ns >= BUSY_MIN_WINDOW_NS
+                      ? (double)st->loop_busy_ns / (double)st->window_ns
+                      : 0;
     peaks(h, st, busy);
     enum obs_bound b = OBS_BOUND_NONE;
     if (in->lag_p90_ns > LAG_P90_NS) {
