@@ -149,4 +149,8 @@ int alog_query_param(const char *q, const char *name, const char **v, size_t *vn
  * (a watch marker such as watch=1 or watch=true). */
 bool alog_query_marks(const char *q, const char *name);
 
+/* An RFC 3339 date-time (section 5.6: offset or Z required, fraction allowed) of n bytes as ns
+ * since the Unix epoch; 0, or -1 when it is not one. The parser the logs' times use. */
+int alog_rfc3339_ns(const char *s, size_t n, int64_t *ns);
+
 #endif

@@ -121,6 +121,12 @@ int alog_time_rfc3339(const char *s, size_t n, int64_t *ns, int64_t *res)
     return 0;
 }
 
+int alog_rfc3339_ns(const char *s, size_t n, int64_t *ns)
+{
+    int64_t res;
+    return alog_time_rfc3339(s, n, ns, &res);
+}
+
 int64_t alog_auto_unit(const char *s, size_t n)
 {
     size_t i = 0;
