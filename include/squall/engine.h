@@ -181,6 +181,20 @@ typedef struct {
 #define ENG_WHY_REFUSED "refuses connections"
 #define ENG_WHY_RESOLVE "does not resolve"
 
+/* This machine's wall clock against the target's, from the Date header of its answers (RFC 9110
+ * section 6.6.1: the origin's clock, whole seconds). An answer stamped D (its Date, in s) was
+ * stamped between the request's send and the answer's arrival on our wall clock, so our clock
+ * minus the target's lies in (sent - (D + 1 s), arrived - D]; the engine keeps the intersection
+ * of those intervals over the first ENG_CLOCK_SAMPLES answers that carry a Date (answers that
+ * straddle a change of the target's second narrow it toward their round-trip time). */
+#define ENG_CLOCK_SAMPLES 20000
+typedef struct {
+    int64_t samples;     /* answers with a readable Date header */
+    int64_t lo_ns, hi_ns; /* the offset lies in (lo, hi]; lo > hi: the bounds crossed (the
+                             target's clock stepped during the run) */
+} eng_clock_t;
+void eng_clock(const eng_t *e, eng_clock_t *out);
+
 /* Creates an engine on `loop`. Ignores SIGPIPE for the process (libcurl runs with NOSIGNAL=1).
  * Returns 0 and sets *out, or SQ_EINVAL (bad config, reason through `o`), SQ_ENOMEM,
  * SQ_ELIBCURL, SQ_ELIBUV. `o` must outlive the engine. */

@@ -176,8 +176,12 @@ typedef struct {
     char connection_seconds[160];
     const hist_t *sched_lag; /* the whole run's */
     const hist_t *send_lag;  /* the whole run's: sent (on the wire) - intended */
+    int64_t first_sent_real_ns; /* wall clock when the first request went to an engine; 0 none */
 } obs_totals_t;
 void obs_totals(const obs_t *l, obs_totals_t *t);
+/* The run began late_ns after its start instant (--start-at): its first seconds (late_ns rounded
+ * up to whole seconds) count as generator-bound, for `why`. */
+void obs_late_start(obs_t *l, int64_t late_ns, const char *why);
 /* The brakes in force as the "brakes" section of results.json (a new reference):
  * {"shared_target": bool, "brakes": [{kind, source, class, for_s, ...the limit}]}. */
 json_t *obs_brakes_json(const obs_t *l);

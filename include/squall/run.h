@@ -31,6 +31,13 @@ typedef struct {
     uint64_t seed;    /* overrides the plan's seed */
     int64_t grace_ns; /* after a signal or a brake: how long in-flight requests may take */
     int shard_index, shard_count; /* 1/1 unless given */
+    const char *shard_from; /* who said which shard this is: "flag" (--shard), a launcher's name
+                               (squall/launch.h); NULL: nobody */
+    const char *shard_vars; /* the launcher variables read, "NAME=VALUE ..."; NULL when none */
+    int64_t start_at_ns;    /* the wall-clock instant (ns since the epoch) the first phase begins
+                               at; 0: at once. The run sleeps until it, then starts its phase
+                               clock at that instant, also when it wakes late (recorded, and the
+                               late seconds count as generator-bound). */
     bool keep;                    /* no teardown; the journal lists what was left */
     bool force;                   /* write into a results directory that already holds results */
     bool allow_exec;              /* let the plan's exec actions run programs (refused otherwise) */

@@ -4,6 +4,7 @@
 #define SQUALL_CLI_RUN_H
 
 #include "squall/cli.h"
+#include "squall/launch.h"
 #include "squall/plan.h"
 #include "squall/run.h"
 
@@ -18,6 +19,12 @@ typedef struct {
     char metrics_host[64]; /* --metrics ADDR:PORT */
     bool metrics_public;
     bool json; /* --json: the summary as JSON on stdout instead of the table */
+    launch_in_t launch;     /* --shard, --shard-count, --launcher */
+    launch_shard_t shard;   /* what they and the environment decided (cli_run_args_check) */
+    const char *start_at;   /* --start-at as given */
+    int procs;              /* --procs N (-1: auto, one per online core; 0: not given) */
+    int argc;               /* the words after the command name, for --procs' children */
+    char **argv;
 } cli_run_args_t;
 
 /* The options of `run` (and `demo`), terminated by an entry with name == NULL. */
@@ -29,7 +36,8 @@ int cli_run_args_init(cli_run_args_t *ra, const cli_cmd_t *cmd, int argc, char *
 void cli_run_args_close(cli_run_args_t *ra);
 /* A cli_take_fn over cli_run_opts into a cli_run_args_t (the positional word is the plan). */
 int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx);
-/* After parsing: the checks across options (--metrics off loopback needs --metrics-public).
+/* After parsing: the checks across options (--metrics off loopback needs --metrics-public), the
+ * shard from --shard and the launcher's environment (squall/launch.h), --start-at's instant.
  * Returns -1 when all is well, else the exit code of a usage error. */
 int cli_run_args_check(const cli_cmd_t *cmd, cli_run_args_t *ra, out_t *o);
 /* The exit code of run_plan's return code and result (enum sq_exit). */

@@ -4,6 +4,7 @@
 #include <string.h>
 
 #include "cli_run.h"
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/results.h"
 #include "squall/value.h"
@@ -18,6 +19,10 @@ enum {
     OPT_SEED,
     OPT_GRACE,
     OPT_SHARD,
+    OPT_SHARD_COUNT,
+    OPT_LAUNCHER,
+    OPT_START_AT,
+    OPT_PROCS,
     OPT_KEEP,
     OPT_FORCE,
     OPT_ALLOW_EXEC,
@@ -38,7 +43,16 @@ const cli_opt_t cli_run_opts[] = {
     [OPT_SEED] = {"seed", 0, "N", "seed for every random choice (default: the plan's, else time)"},
     [OPT_GRACE] = {"grace", 0, "DURATION",
                    "after a signal or brake, how long in-flight requests may take (2s)"},
-    [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (recorded in the results)"},
+    [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (default: from the launcher)"},
+    [OPT_SHARD_COUNT] = {"shard-count", 0, "N",
+                         "how many shards, when the launcher gives only the index (indexed jobs)"},
+    [OPT_LAUNCHER] = {"launcher", 0, "NAME",
+                      "read the shard from: auto (default), none, open-mpi, pmix, pmi, slurm, "
+                      "indexed-job"},
+    [OPT_START_AT] = {"start-at", 0, "TIME",
+                      "begin the first phase at an RFC 3339 instant, or +DURATION from now"},
+    [OPT_PROCS] = {"procs", 0, "N|auto",
+                   "run N shards of the plan on this machine and merge them (auto: one per core)"},
     [OPT_KEEP] = {"keep", 0, NULL, "no teardown: leave the objects this run created"},
     [OPT_FORCE] = {"force", 0, NULL, "write into a results directory that already holds results"},
     [OPT_ALLOW_EXEC] = {"allow-exec", 0, NULL,
@@ -51,7 +65,7 @@ const cli_opt_t cli_run_opts[] = {
     {NULL, 0, NULL, NULL},
 };
 
-static int parse_shard(const char *v, run_opts_t *ro)
+static int parse_shard(const char *v, launch_in_t *ro)
 {
     int64_t i, n;
     char a[32], b[32];
@@ -62,8 +76,8 @@ static int parse_shard(const char *v, run_opts_t *ro)
     snprintf(b, sizeof b, "%s", slash + 1);
     if (value_parse_int(b, 1, 100000, &n) || value_parse_int(a, 1, n, &i))
         return SQ_EINVAL;
-    ro->shard_index = (int)i;
-    ro->shard_count = (int)n;
+    ro->flag_index = (int)i;
+    ro->flag_count = (int)n;
     return 0;
 }
 
@@ -109,9 +123,32 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
         ra->ro.grace_ns = ns;
         break;
     case OPT_SHARD:
-        if (parse_shard(v, &ra->ro))
+        if (parse_shard(v, &ra->launch))
             return cli_usage_error(cmd, o, "--shard needs I/N with 1 <= I <= N, got '%s'", v);
         break;
+    case OPT_SHARD_COUNT: {
+        int64_t n;
+        if (value_parse_int(v, 1, 100000, &n))
+            return cli_usage_error(cmd, o, "--shard-count needs an integer 1..100000, got '%s'", v);
+        ra->launch.count = (int)n;
+        break;
+    }
+    case OPT_LAUNCHER:
+        ra->launch.launcher = v;
+        break;
+    case OPT_START_AT:
+        ra->start_at = v;
+        break;
+    case OPT_PROCS: {
+        int64_t n;
+        if (!strcmp(v, "auto"))
+            ra->procs = -1;
+        else if (value_parse_int(v, 1, 1024, &n))
+            return cli_usage_error(cmd, o, "--procs needs N (1..1024) or auto, got '%s'", v);
+        else
+            ra->procs = (int)n;
+        break;
+    }
     case OPT_KEEP:
         ra->ro.keep = true;
         break;
@@ -138,8 +175,39 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
     return -1;
 }
 
+/* The shard: with --procs this process is the parent of every shard, so neither --shard nor a
+ * launcher may also make it one of them. */
+static int check_shard(const cli_cmd_t *cmd, cli_run_args_t *ra, out_t *o)
+{
+    char err[512];
+    if (ra->procs && (ra->launch.flag_count || ra->launch.count))
+        return cli_usage_error(cmd, o,
+                               "--procs runs every shard of the plan here; it does not go with "
+                               "--shard or --shard-count");
+    if (launch_shard(&ra->launch, launch_getenv, NULL, &ra->shard, err, sizeof err))
+        return cli_usage_error(cmd, o, "%s", err);
+    if (ra->procs && ra->shard.from[0])
+        return cli_usage_error(cmd, o,
+                               "--procs runs every shard of the plan here, but this process is "
+                               "already shard %d/%d of %s (%s); drop --procs, or --launcher none",
+                               ra->shard.index, ra->shard.count, ra->shard.from, ra->shard.vars);
+    ra->ro.shard_index = ra->shard.index;
+    ra->ro.shard_count = ra->shard.count;
+    ra->ro.shard_from = ra->shard.from[0] ? ra->shard.from : NULL;
+    ra->ro.shard_vars = ra->shard.vars[0] ? ra->shard.vars : NULL;
+    return -1;
+}
+
 int cli_run_args_check(const cli_cmd_t *cmd, cli_run_args_t *ra, out_t *o)
 {
+    int rc = check_shard(cmd, ra, o);
+    if (rc >= 0)
+        return rc;
+    if (ra->start_at) {
+        char err[512];
+        if (launch_start_at(ra->start_at, clock_real_ns(), &ra->ro.start_at_ns, err, sizeof err))
+            return cli_usage_error(cmd, o, "%s", err);
+    }
     if (ra->ro.metrics_host && !value_is_loopback(ra->ro.metrics_host)) {
         if (!ra->metrics_public)
             return cli_usage_error(
@@ -160,6 +228,8 @@ int cli_run_args_init(cli_run_args_t *ra, const cli_cmd_t *cmd, int argc, char *
     ra->copies = calloc((size_t)argc + 1, sizeof(*ra->copies));
     ra->texts = calloc((size_t)argc + 1, sizeof(*ra->texts));
     ra->line = cli_command_line(cmd->name, argc, argv);
+    ra->argc = argc;
+    ra->argv = argv;
     ra->ro.grace_ns = INT64_C(2000000000);
     ra->ro.overrides = ra->texts;
     ra->ro.command_line = ra->line;

@@ -107,6 +107,8 @@ struct eng {
     CURL **easy_pool;
     int n_easy_pool, easy_pool_cap;
 
+    eng_clock_t clock; /* our wall clock against the target's Date headers (xfer.c) */
+
     /* Statistics. */
     int64_t submitted, completed, by_outcome[ENG_OUT_COUNT];
     int64_t window_start_ns, max_queue_wait_ns, max_busy_ns, busy_ns, pass_start_ns;

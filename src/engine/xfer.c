@@ -2,8 +2,10 @@
  * and reading back its timings, bytes and outcome. */
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 
 #include "eng_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/value.h"
 
@@ -179,12 +181,47 @@ static size_t on_write(char *data, size_t size, size_t n, void *userp)
     return len;
 }
 
+/* A Date header line: narrows the clock offset's bounds (engine.h, eng_clock_t). */
+static void clock_sample(eng_t *e, const struct eng_xfer *x, const char *data, size_t len)
+{
+    char v[64];
+    size_t skip = 5;
+    while (skip < len && (data[skip] == ' ' || data[skip] == '\t'))
+        skip++;
+    size_t n = len - skip;
+    while (n && (data[skip + n - 1] == '\r' || data[skip + n - 1] == '\n'))
+        n--;
+    if (n == 0 || n >= sizeof v || !x->res.sent_ns)
+        return;
+    memcpy(v, data + skip, n);
+    v[n] = '\0';
+    time_t d = curl_getdate(v, NULL); /* RFC 9110's three date forms, whole seconds */
+    if (d < 0)
+        return;
+    int64_t mono = (int64_t)uv_hrtime(), real = clock_real_ns();
+    int64_t sent = real - (mono - x->res.sent_ns), date = (int64_t)d * 1000000000;
+    int64_t lo = sent - date - 1000000000, hi = real - date;
+    eng_clock_t *c = &e->clock;
+    if (c->samples == 0 || lo > c->lo_ns)
+        c->lo_ns = lo;
+    if (c->samples == 0 || hi < c->hi_ns)
+        c->hi_ns = hi;
+    c->samples++;
+}
+
+void eng_clock(const eng_t *e, eng_clock_t *out)
+{
+    *out = e->clock;
+}
+
 /* Header lines, one per call; the empty line ends a block. Only the final answer's block counts
  * (an interim 1xx has its own). */
 static size_t on_header(char *data, size_t size, size_t n, void *userp)
 {
     struct eng_xfer *x = userp;
     size_t len = size * n;
+    if (len > 5 && x->eng->clock.samples < ENG_CLOCK_SAMPLES && !strncasecmp(data, "Date:", 5))
+        clock_sample(x->eng, x, data, len);
     if (x->req.on_head && !x->head_seen && (len == 2 || len == 1) && (data[0] == '\r' || data[0] == '\n')) {
         long status = 0;
         curl_easy_getinfo(x->easy, CURLINFO_RESPONSE_CODE, &status);

@@ -111,9 +111,17 @@ enum obs_bound obs_health_second(obs_health_t *h, const eng_stats_t *st,
     } else if (st->max_queue_wait_ns > QUEUE_WAIT_NS) {
         b = waiting(in, st, why, cap);
     }
-    if (b != OBS_BOUND_NONE && in->loading)
+    if (b != OBS_BOUND_NONE && in->loading && in->second >= h->late_seconds)
         note(b == OBS_BOUND_GENERATOR ? &h->generator : &h->connections, in->second, why);
     return b;
+}
+
+void obs_health_late(obs_health_t *h, int64_t seconds, const char *why)
+{
+    for (int64_t s = h->late_seconds; s < seconds; s++)
+        note(&h->generator, s, why);
+    if (seconds > h->late_seconds)
+        h->late_seconds = seconds;
 }
 
 void obs_health_close(obs_health_t *h)

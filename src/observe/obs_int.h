@@ -42,11 +42,16 @@ typedef struct {
     int64_t max_queue_wait_ns, max_loop_busy_ns;
     int max_queued, max_in_flight;
     double max_busy_fraction;
+    int64_t late_seconds; /* the run's first seconds (0..late_seconds - 1), counted bound by
+                             obs_health_late */
 } obs_health_t;
 
 enum obs_bound obs_health_second(obs_health_t *h, const eng_stats_t *st, const obs_health_in_t *in,
                                  char *why, size_t cap);
 void obs_health_close(obs_health_t *h);
+/* The run's first `seconds` (0..seconds - 1) are generator-bound: it began late (--start-at). The
+ * seconds' own judgement does not count them again. */
+void obs_health_late(obs_health_t *h, int64_t seconds, const char *why);
 json_t *obs_health_json(const obs_health_t *h);
 /* Which seconds, as "4, 5, 9" (", ..." when more than fit or were kept). */
 void obs_bound_seconds(const obs_bound_list_t *b, char *buf, size_t cap);

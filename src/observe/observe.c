@@ -25,6 +25,7 @@ struct obs {
 
     /* The open second. */
     int64_t sec_index, sec_start_ns;
+    int64_t first_sent_real_ns; /* the first request handed to an engine, wall clock */
     double planned;
     bool unplanned;        /* a source of the second plans no count */
     obs_cell_t *wcells;    /* [phase][class] */
@@ -177,6 +178,8 @@ void obs_sent(obs_t *l, const obs_sent_t *s)
 {
     if (l->in_flight++ == 0)
         l->busy_since_ns = clock_mono_ns();
+    if (!l->first_sent_real_ns)
+        l->first_sent_real_ns = clock_real_ns();
     if (!s->page) {
         wcell(l, s->phase, s->cls)->started++;
         l->per_class[cls_slot(l, s->cls)].started++;
@@ -466,7 +469,13 @@ void obs_totals(const obs_t *l, obs_totals_t *t)
         .connection_why = l->health.connections.why,
         .sched_lag = l->sched_lag,
         .send_lag = l->send_lag,
+        .first_sent_real_ns = l->first_sent_real_ns,
     };
     obs_bound_seconds(&l->health.generator, t->generator_seconds, sizeof t->generator_seconds);
     obs_bound_seconds(&l->health.connections, t->connection_seconds, sizeof t->connection_seconds);
+}
+
+void obs_late_start(obs_t *l, int64_t late_ns, const char *why)
+{
+    obs_health_late(&l->health, (late_ns + INT64_C(999999999)) / INT64_C(1000000000), why);
 }

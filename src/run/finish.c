@@ -4,8 +4,10 @@
 #include <string.h>
 
 #include "run_int.h"
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/judge.h"
+#include "squall/launch.h"
 #include "squall/report.h"
 
 /* Each plan phase's elapsed time: from its start to when it stopped starting requests (its
@@ -139,6 +141,43 @@ static json_t *run_json(run_t *r, const run_result_t *res, json_t *reasons, json
     return s;
 }
 
+static json_t *instant_json(int64_t real_ns)
+{
+    char buf[64];
+    if (!real_ns)
+        return json_null();
+    launch_format_instant(real_ns, buf, sizeof buf);
+    return json_string(buf);
+}
+
+/* results.json's "launch" section: which shard this is and who said so, the start instant and
+ * how close to it the run began, and this machine's clock against the target's. */
+static json_t *launch_json(const run_t *r)
+{
+    const run_opts_t *o = r->opts;
+    obs_totals_t t;
+    obs_totals(r->obs, &t);
+    json_t *shard = json_pack("{s:i, s:i, s:s?, s:s?}", "index", o->shard_index ? o->shard_index : 1,
+                              "count", o->shard_count ? o->shard_count : 1, "from", o->shard_from,
+                              "variables", o->shard_vars);
+    json_t *clock = json_null();
+    if (r->clock.samples)
+        clock = json_pack("{s:f, s:f, s:I, s:b, s:s}", "offset_ms",
+                          (double)(r->clock.lo_ns + r->clock.hi_ns) / 2e6, "within_ms",
+                          (double)(r->clock.hi_ns - r->clock.lo_ns) / 2e6, "samples",
+                          (json_int_t)r->clock.samples, "consistent",
+                          r->clock.lo_ns <= r->clock.hi_ns, "from",
+                          "the target's Date headers (whole seconds; bounds narrowed by answers "
+                          "that straddle its second)");
+    int64_t real_start = o->start_at_ns;
+    return json_pack("{s:o, s:o, s:o, s:f, s:o, s:o}", "shard", shard, "start_at",
+                     instant_json(real_start), "began",
+                     r->start_ns ? instant_json(clock_real_ns() - (clock_mono_ns() - r->start_ns))
+                                 : json_null(),
+                     "late_ms", o->start_at_ns ? (double)r->late_ns / 1e6 : 0.0,
+                     "first_request", instant_json(t.first_sent_real_ns), "clock_offset", clock);
+}
+
 bool run_finish(run_t *r, run_result_t *res)
 {
     results_set_duration(r->res, r->end_ns - r->start_ns);
@@ -146,6 +185,7 @@ bool run_finish(run_t *r, run_result_t *res)
         results_set_stopped(r->res, r->why);
     res->end = r->end;
     bool failed = sections(r) != 0;
+    failed |= results_set_section(r->res, "launch", launch_json(r)) != 0;
     judge_phase_t *ph = phase_times(r);
     judge_t *j = NULL;
     failed |= !ph || judge(r, ph, &j) != 0;

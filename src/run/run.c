@@ -21,6 +21,7 @@ static void phase_start(run_t *r, size_t i, int64_t base_ns);
 static void finish(run_t *r);
 static void signals_held(run_t *r, bool hold);
 static void on_wake(void *data);
+static void on_second(uv_timer_t *t);
 
 /* The one setter of the run's state. */
 static void set_state(run_t *r, enum run_state to)
@@ -188,7 +189,9 @@ static void due(run_t *r, int64_t now)
 static int64_t next_event(run_t *r)
 {
     int64_t next = INT64_MAX, at;
-    if (r->state == RUN_LOADING) {
+    if (r->state == RUN_IDLE && r->start_at_mono) {
+        next = r->start_at_mono;
+    } else if (r->state == RUN_LOADING) {
         run_phase_t *ph = current(r);
         if (ph->duration_ns)
             next = ph->base_ns + ph->duration_ns;
@@ -240,7 +243,7 @@ static void rearm(run_t *r, int64_t now)
         return;
     }
     /* Deadlines of draining and the teardown need no spin. */
-    int64_t at = r->state == RUN_LOADING ? next - wake_early(r) : next;
+    int64_t at = r->state == RUN_LOADING || r->state == RUN_IDLE ? next - wake_early(r) : next;
     if (at < r->wake_floor_ns && r->wake_floor_ns > now)
         at = r->wake_floor_ns;
     r->wake_at_ns = at;
@@ -258,6 +261,51 @@ static int64_t spin_until(int64_t at)
     return now;
 }
 
+/* The first phase begins at `at` (monotonic): the run's phase clock starts there. */
+static void begin(run_t *r, int64_t at)
+{
+    r->start_ns = r->sec_start_ns = at;
+    results_set_start(r->res, (clock_real_ns() - (clock_mono_ns() - at)) / 1000000);
+    uv_timer_start(&r->second, on_second, 1000, 1000); /* seconds from the start */
+    set_state(r, RUN_LOADING);
+    act_moment(r->act, ACT_RUN_START, 0, at);
+    if (r->n_phases == 0 || r->phases[0].teardown)
+        drain(r, at);
+    else
+        phase_start(r, 0, at);
+}
+
+/* A run that begins later than this after --start-at says so and counts the late seconds as
+ * generator-bound: the schedule lag threshold of the generator's health (health.c), so a start
+ * the seconds' own judgement would pass is not counted twice as bad. */
+#define LATE_NS INT64_C(10000000)
+
+/* Waiting for --start-at: the wall clock's instant is taken to the monotonic clock again at each
+ * wake-up (the wall clock may be slewed while we wait); far from it, the wake-up is rearmed, else
+ * the run spins to it and begins. Returns true when the run began. */
+static bool start_instant(run_t *r, int64_t now)
+{
+    int64_t at = now + (r->opts->start_at_ns - clock_real_ns());
+    r->start_at_mono = at;
+    if (at > now + WAKE_EARLY_MAX_NS) {
+        rearm(r, now);
+        return false;
+    }
+    now = spin_until(at);
+    r->start_at_mono = 0;
+    r->late_ns = now - at;
+    begin(r, at);
+    if (r->late_ns > LATE_NS) {
+        char why[160];
+        snprintf(why, sizeof why, "began %.3f s after --start-at (the process was not ready)",
+                 (double)r->late_ns / 1e9);
+        out_warn(r->o, "%s: its first %lld s count as generator-bound", why,
+                 (long long)((r->late_ns + 999999999) / 1000000000));
+        obs_late_start(r->obs, r->late_ns, why);
+    }
+    return true;
+}
+
 /* Spins to the start the wake-up was armed for (at most WAKE_EARLY_MAX_NS ahead) and hands it out
  * with every start that is due by then. Later starts, however close, get their own wake-up (a
  * timerfd armed in the past fires at once): the loop polls in between, so answers are handled
@@ -270,6 +318,11 @@ static void on_wake(void *data)
     r->wake_at_ns = INT64_MAX;
     wake_learn(r, r->wake.late_ns);
     r->wake.late_ns = -1;
+    if (r->state == RUN_IDLE && r->start_at_mono) {
+        if (!start_instant(r, now))
+            return;
+        now = clock_mono_ns();
+    }
     for (int step = 0; step < WAKE_MAX_STEPS && r->state == RUN_LOADING; step++) {
         int64_t next = next_event(r);
         if (next > now && (step > 0 || next > now + WAKE_EARLY_MAX_NS))
@@ -383,7 +436,13 @@ static void on_second(uv_timer_t *t)
 static void on_signal(uv_signal_t *s, int signum)
 {
     run_t *r = s->data;
-    if (++r->signals == 1) {
+    if (r->state == RUN_IDLE) { /* waiting for --start-at: nothing was sent */
+        run_stop(r, RUN_END_SIGNAL, "signal %s before --start-at: nothing was sent",
+                 signum == SIGINT ? "SIGINT" : "SIGTERM");
+        r->start_ns = r->sec_start_ns = clock_mono_ns();
+        results_set_start(r->res, clock_real_ns() / 1000000);
+        finish(r);
+    } else if (++r->signals == 1) {
         run_stop(r, RUN_END_SIGNAL,
                  "signal %s: letting in-flight requests finish (send it again to stop at once)",
                  signum == SIGINT ? "SIGINT" : "SIGTERM");
@@ -442,6 +501,8 @@ static void finish(run_t *r)
         for (size_t k = 0; r->phases[i].started && k < r->phases[i].n_src; k++)
             if (r->phases[i].src[k].ops->stop)
                 r->phases[i].src[k].ops->stop(r->phases[i].src[k].self);
+    if (r->eng)
+        eng_clock(r->eng, &r->clock);
     eng_free(r->eng);
     r->eng = NULL;
     scrape_stop(r->scrape);
@@ -528,15 +589,12 @@ static void run_loop(run_t *r)
                     .user = r};
     if (rc == 0)
         rc = act_new(&ac, &r->act);
-    if (rc == 0) {
-        r->start_ns = r->sec_start_ns = clock_mono_ns();
-        results_set_start(r->res, clock_real_ns() / 1000000);
-        set_state(r, RUN_LOADING);
-        act_moment(r->act, ACT_RUN_START, 0, r->start_ns);
-        if (r->n_phases == 0 || r->phases[0].teardown)
-            drain(r, r->start_ns);
-        else
-            phase_start(r, 0, r->start_ns);
+    if (rc == 0 && r->opts->start_at_ns) {
+        int64_t now = clock_mono_ns();
+        r->start_at_mono = now + (r->opts->start_at_ns - clock_real_ns());
+        rearm(r, now); /* on_wake begins the run (start_instant) */
+    } else if (rc == 0) {
+        begin(r, clock_mono_ns());
         if (r->state != RUN_DONE)
             rearm(r, r->start_ns);
     } else {

@@ -91,6 +91,9 @@ typedef struct run {
     size_t n_phases, cur; /* plan phases, plus the added teardown when there is one */
     int64_t start_ns, end_ns, drain_deadline_ns, sec_start_ns;
     int64_t load_end_ns; /* when the plan's phases stopped sending (0 while they send) */
+    int64_t start_at_mono; /* --start-at on the monotonic clock while waiting for it; 0 none */
+    int64_t late_ns;       /* how late the run began after --start-at (< 0: early) */
+    eng_clock_t clock;     /* the main engine's clock offset against the target, kept at its end */
 } run_t;
 
 /* run.c: stops the run (the first reason is kept): no new starts, requests in flight get the
