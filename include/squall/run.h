@@ -84,6 +84,9 @@ int run_check(const plan_t *plan, const run_opts_t *opts, out_t *o);
  * run_check's codes when nothing was sent, SQ_EIO when the results directory cannot be made. */
 int run_plan(const plan_t *plan, const run_opts_t *opts, out_t *o, run_result_t *result);
 
+/* The results directory a run writes without results_dir: results/<UTC time>-<plan name>. */
+void run_default_dir(const plan_t *plan, char *dir, size_t cap);
+
 /* The run's seed: the option's, else the plan's, else the clock's. */
 uint64_t run_seed(const plan_t *plan, const run_opts_t *opts);
 

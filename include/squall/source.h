@@ -140,6 +140,10 @@ struct src {
 /* Builds every source phase ctx->phase uses into *out (n_out of them, at most as many as the
  * table has). On failure those built are freed. */
 int src_phase_new(const src_ctx_t *ctx, src_t *out, size_t *n_out);
+/* Open files one process of `shards` needs at most for the plan: the target's connections, its
+ * share of the busiest phase's watch streams (one connection each over HTTP/1.1, multiplexed
+ * over HTTP/2) and a reserve for the engine; the figure each phase checks against RLIMIT_NOFILE. */
+int64_t src_files_needed(const plan_t *p, int shards);
 /* Sums `expected` over the given sources; NAN if any plans no count. */
 double src_expected(const src_t *s, size_t n, int64_t t0, int64_t t1, double *per_class);
 

@@ -47,5 +47,11 @@ int cli_run_exit(int rc, const run_result_t *res);
  * the exit code, and results.json's "run" section (verdict, reasons, accepted) and "objectives"
  * (every check). */
 int cli_run_plan(const plan_t *p, const run_opts_t *ro, bool json, out_t *o);
+/* procs.c, `run --procs`: runs the plan's shards as children of this binary (each `run --shard
+ * i/N` into DIR/shard-i from one --start-at), waits for them, merges their results into DIR and
+ * returns the exit code (a failed shard's, else how the run ended early, else the merged
+ * verdict's). Refuses, sending nothing, a plan `check` refuses and more processes than the open
+ * files allow. */
+int cli_procs_run(const cli_cmd_t *cmd, cli_run_args_t *ra, const plan_t *p, out_t *o);
 
 #endif

@@ -5,6 +5,7 @@
 #include <string.h>
 #include <sys/stat.h>
 
+#include "cli_merge.h"
 #include "squall/cli.h"
 #include "squall/err.h"
 #include "squall/judge.h"
@@ -239,8 +240,8 @@ static int check_output(const cli_cmd_t *cmd, const char *dir, bool force, out_t
     return SQ_EXIT_OK;
 }
 
-static int merge_run(const cli_cmd_t *cmd, char **inputs, int n, const char *dir, bool force,
-                     bool json, const char *line, out_t *o)
+int cli_merge_run(const cli_cmd_t *cmd, char **inputs, int n, const char *dir, bool force,
+                  bool json, const char *line, out_t *o)
 {
     results_t *merged = NULL;
     verdict_t v = {0};
@@ -297,7 +298,7 @@ static int merge_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         exit_code = cli_usage_error(
             cmd, o, "%s", !dir ? "missing -o DIR (where to write)" : "no inputs to merge");
     else
-        exit_code = line ? merge_run(cmd, inputs, n, dir, force, json, line, o) : SQ_EXIT_FAILURE;
+        exit_code = line ? cli_merge_run(cmd, inputs, n, dir, force, json, line, o) : SQ_EXIT_FAILURE;
     free(line);
     free(inputs);
     return exit_code;

@@ -315,7 +315,7 @@ static int run_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         if (err) {
             rc = err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
         } else {
-            rc = cli_run_plan(p, &ra.ro, ra.json, o);
+            rc = ra.procs ? cli_procs_run(cmd, &ra, p, o) : cli_run_plan(p, &ra.ro, ra.json, o);
             plan_free(p);
         }
     }

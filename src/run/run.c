@@ -623,10 +623,10 @@ static int make_dirs(const char *dir)
 }
 
 /* results/<UTC time>-<plan name> */
-static void default_dir(const run_t *r, char *dir, size_t cap)
+void run_default_dir(const plan_t *plan, char *dir, size_t cap)
 {
-    const char *base = strrchr(r->plan->path, '/');
-    base = base ? base + 1 : r->plan->path;
+    const char *base = strrchr(plan->path, '/');
+    base = base ? base + 1 : plan->path;
     size_t n = strcspn(base, ".");
     time_t now = time(NULL);
     struct tm tm;
@@ -643,7 +643,7 @@ static int open_results(run_t *r)
     if (o->results_dir)
         snprintf(r->dir, sizeof r->dir, "%s", o->results_dir);
     else
-        default_dir(r, r->dir, sizeof r->dir);
+        run_default_dir(r->plan, r->dir, sizeof r->dir);
     if (make_dirs(r->dir)) {
         out_error(r->o, "cannot create results directory %s: %s", r->dir, strerror(errno));
         return SQ_EIO;

@@ -109,6 +109,17 @@ static int64_t files_needed(const plan_t *p, int watchers)
     return conns + p->target.connections + FD_RESERVE;
 }
 
+int64_t src_files_needed(const plan_t *p, int shards)
+{
+    int64_t most = files_needed(p, 0);
+    for (size_t i = 0; i < p->n_phases; i++) {
+        int w = phase_watchers(&p->phases[i]);
+        int64_t need = files_needed(p, (int)((w + shards - 1) / (shards > 0 ? shards : 1)));
+        most = need > most ? need : most;
+    }
+    return most;
+}
+
 /* Raises the soft open-files limit to the hard one and refuses a phase that needs more. */
 static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp, int watchers)
 {
