@@ -136,6 +136,8 @@ static int demo_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         rc = cli_parse(cmd, argc, argv, o, cli_run_take, &ra);
     if (rc < 0)
         rc = cli_run_args_check(cmd, &ra, o);
+    if (rc < 0 && ra.procs)
+        rc = cli_usage_error(cmd, o, "--procs is for `squall run PLAN`, not the demo");
     char buf[4200];
     const char *plan_path = ra.path;
     if (rc < 0 && !plan_path && !(plan_path = find_plan(buf, sizeof buf)))
