@@ -102,8 +102,14 @@ expect "the target received no load before --start-at and the first within 50 ms
 
 "$SQUALL" merge "$T"/shard-0 "$T"/shard-1 "$T"/shard-2 "$T"/shard-3 -o "$T/merged" >"$T/merge.out" 2>&1
 MRC=$?
-expect "the merge of the four judges the objectives: PASS, exit 0 (got $MRC)" test "$MRC" = 0
-rcheck "merged counts = the target's answers during the run ($((after - before)))" \
-    "total('read', '2xx') + total('beat', '2xx') == $((after - before)) and
-     d['sections']['run']['verdict'] == 'pass' and len(d['meta']['inputs']) == 4" "$T/merged"
+# PASS, or INCONCLUSIVE only for generator-bound seconds of this shared machine (listed, not
+# fatal, as in the other tests that count): every objective check itself must pass.
+expect "the merge of the four judges the objectives: exit 0 (or 7 when generator-bound; got $MRC)" \
+    test "$MRC" = 0 -o "$MRC" = 7
+rcheck "merged: every objective check passes on all 320 renewals; counts = the target's answers ($((after - before)))" \
+    "total('read', '2xx') + total('beat', '2xx') == $((after - before)) and total('beat', '2xx') == 320 and
+     all(c['verdict'] == 'pass' for c in d['sections']['objectives']['checks']) and
+     len(d['meta']['inputs']) == 4 and
+     (d['sections']['run']['verdict'] == 'pass' or (d['sections']['run']['verdict'] == 'inconclusive' and
+          all('could not offer' in r for r in d['sections']['run']['reasons'])))" "$T/merged"
 exit "$FAILED"

@@ -34,10 +34,14 @@ b=$(gets)
 timeout 60 "$SQUALL" run "$T/pass.yaml" -o "$T/pass" --procs 2 >"$T/pass.out" 2>&1
 RC=$?
 a=$(gets)
-expect "--procs 2, p99 <= 1 s: merged PASS, exit 0 (got $RC)" test "$RC" = 0
-rcheck "two shards (1/2, 2/2 from the flag the parent gave), one start instant, merged" \
-    "len(d['meta']['inputs']) == 2 and d['sections']['run']['verdict'] == 'pass' and
-     total('read', '2xx') == $((a - b))" "$T/pass"
+# PASS, or INCONCLUSIVE only for generator-bound seconds of this shared machine.
+expect "--procs 2, p99 <= 1 s: merged PASS, exit 0 (7 when generator-bound; got $RC)" \
+    test "$RC" = 0 -o "$RC" = 7
+rcheck "two shards (1/2, 2/2 from the flag the parent gave), merged and judged PASS; counts = the target's" \
+    "len(d['meta']['inputs']) == 2 and total('read', '2xx') == $((a - b)) and
+     d['sections']['run']['exit_code'] == $RC and
+     (d['sections']['run']['verdict'] == 'pass' or (d['sections']['run']['verdict'] == 'inconclusive' and
+          all('could not offer' in r for r in d['sections']['run']['reasons'])))" "$T/pass"
 for i in 1 2; do
     rcheck "shard-$i: shard $i/2, start_at common" \
         "d['sections']['launch']['shard'] == {'index': $i, 'count': 2, 'from': 'flag', 'variables': None}
