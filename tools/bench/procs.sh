@@ -137,14 +137,5 @@ until the target's cores are the limit (run the target on other cores or another
 <!-- procs:end -->
 MD
 )
-RES=tools/bench/RESULTS.md
-/usr/bin/python3 - "$RES" "$SECTION" <<'PY'
-import os, re, sys
-path, section = sys.argv[1], sys.argv[2]
-text = open(path).read() if os.path.exists(path) else "# Benchmark results\n"
-pat = re.compile(r"<!-- procs:begin.*?<!-- procs:end -->", re.S)
-text = pat.sub(lambda m: section, text) if pat.search(text) else text.rstrip("\n") + "\n\n" + section + "\n"
-open(path, "w").write(text)
-PY
-echo "procs.sh: wrote the procs section of $RES"
-sed -n '/procs:begin/,/procs:end/p' "$RES"
+echo "procs.sh: writing the procs section of tools/bench/RESULTS.md"
+printf '%s\n' "$SECTION" | /usr/bin/python3 tools/bench/write_section.py procs tools/bench/RESULTS.md
