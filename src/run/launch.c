@@ -23,9 +23,9 @@
  *                --shard-count.
  *   pmi          PMI_RANK / PMI_SIZE: set by MPICH's Hydra mpiexec (seen in public launch
  *                scripts and in Flux's Hydra tests; not run here).
- *   slurm        SLURM_PROCID / SLURM_STEP_NUM_TASKS, else SLURM_NTASKS: srun's task environment
- *                (srun(1), "OUTPUT ENVIRONMENT VARIABLES", from memory and public job scripts;
- *                no slurmd was run here).
+ *   slurm        SLURM_PROCID / SLURM_STEP_NUM_TASKS, else SLURM_NTASKS: srun's task environment,
+ *                read from Debian 12's `srun -n 2 env` (Slurm 22.05, one node here:
+ *                tests/integration/launch_slurm.sh).
  *   indexed-job  JOB_COMPLETION_INDEX: an indexed Job's completion index, 0-based (the
  *                Kubernetes documentation, "Indexed Job for Parallel Processing with Static Work
  *                Assignment"); the count (the Job's completions) is not in the environment and

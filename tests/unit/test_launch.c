@@ -110,7 +110,8 @@ static void test_pmi(void **state)
 }
 
 /* Slurm's srun: SLURM_PROCID with the step's task count (SLURM_STEP_NUM_TASKS) before the job's
- * (SLURM_NTASKS). */
+ * (SLURM_NTASKS). Debian 12's `srun -n 2 env` (Slurm 22.05) here set SLURM_PROCID=0/1,
+ * SLURM_NTASKS=2 and SLURM_STEP_NUM_TASKS=2. */
 static void test_slurm(void **state)
 {
     (void)state;
