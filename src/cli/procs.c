@@ -28,7 +28,7 @@
 #define LEAD_NS      (2 * INT64_C(1000000000))
 #define LEAD_EACH_NS (20 * INT64_C(1000000))
 #define PARENT_FILES 64 /* the parent's own files besides each child's series.csv */
-#define MAX_ARGS     16
+#define FIXED_ARGS   24 /* the child's words besides the --set pairs, with room to spare */
 
 typedef struct {
     pid_t pid;   /* 0 once reaped */
@@ -89,18 +89,20 @@ static int budget(const cli_cmd_t *cmd, const plan_t *p, int n, out_t *o)
 /* The child's words: the plan and the options that shape its traffic, then its shard, the
  * common start, its directory; no live line or summary of its own. */
 typedef struct {
-    char *argv[MAX_ARGS + 64];
-    char buf[8][4200];
+    char **argv; /* FIXED_ARGS + 2 per --set */
+    char buf[5][4200];
 } args_t;
 
-static void child_args(const cli_run_args_t *ra, int i, int n, const char *start, const char *dir,
-                       uint64_t seed, args_t *a)
+static int child_args(const cli_run_args_t *ra, int i, int n, const char *start, const char *dir,
+                      uint64_t seed, args_t *a)
 {
     int k = 0;
+    if (!(a->argv = calloc(FIXED_ARGS + 2 * ra->n, sizeof(*a->argv))))
+        return SQ_ENOMEM;
     a->argv[k++] = "squall";
     a->argv[k++] = "run";
     a->argv[k++] = (char *)ra->path;
-    for (size_t s = 0; s < ra->n && k < MAX_ARGS + 40; s++) {
+    for (size_t s = 0; s < ra->n; s++) {
         a->argv[k++] = "--set";
         a->argv[k++] = (char *)ra->texts[s];
     }
@@ -129,6 +131,7 @@ static void child_args(const cli_run_args_t *ra, int i, int n, const char *start
     for (size_t r = 0; r < sizeof rest / sizeof rest[0]; r++)
         a->argv[k++] = (char *)rest[r];
     a->argv[k] = NULL;
+    return 0;
 }
 
 static pid_t spawn(char **argv, pid_t parent)
@@ -321,13 +324,18 @@ static int run_children(const cli_cmd_t *cmd, cli_run_args_t *ra, int n, const c
     for (int i = 0; i < n && !signalled; i++) {
         args_t a;
         snprintf(c[i].dir, sizeof c[i].dir, "%s/shard-%d", dir, i + 1);
-        child_args(ra, i + 1, n, start, c[i].dir, seed, &a);
+        if (child_args(ra, i + 1, n, start, c[i].dir, seed, &a)) {
+            out_error(o, "--procs: out of memory");
+            forward(SIGTERM);
+            break;
+        }
         sigset_t set, old;
         sigemptyset(&set);
         sigaddset(&set, SIGINT);
         sigaddset(&set, SIGTERM);
         sigprocmask(SIG_BLOCK, &set, &old); /* n_kids and the pid change together */
         c[i].pid = spawn(a.argv, self);
+        free(a.argv);
         if (c[i].pid > 0)
             n_kids = ++started;
         sigprocmask(SIG_SETMASK, &old, NULL);
