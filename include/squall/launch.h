@@ -28,9 +28,9 @@ typedef struct {
 } launch_in_t;
 
 typedef struct {
-    int index, count;  /* 1 <= index <= count; 1/1 when nothing says otherwise */
-    char from[16];     /* "" (nothing said), "flag" (--shard), or the launcher's name */
-    char vars[256];    /* the variables read, "NAME=VALUE ..." ("" when none) */
+    int index, count; /* 1 <= index <= count; 1/1 when nothing says otherwise */
+    char from[16];    /* "" (nothing said), "flag" (--shard), or the launcher's name */
+    char vars[256];   /* the variables read, "NAME=VALUE ..." ("" when none) */
 } launch_shard_t;
 
 /* The launcher names --launcher accepts besides auto and none, NULL-terminated:

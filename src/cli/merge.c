@@ -241,7 +241,7 @@ static int check_output(const cli_cmd_t *cmd, const char *dir, bool force, out_t
 }
 
 int cli_merge_run(const cli_cmd_t *cmd, char **inputs, int n, const char *dir, bool force,
-                  bool json, const char *line, out_t *o)
+                  bool json, bool quiet, const char *line, out_t *o)
 {
     results_t *merged = NULL;
     verdict_t v = {0};
@@ -255,7 +255,7 @@ int cli_merge_run(const cli_cmd_t *cmd, char **inputs, int n, const char *dir, b
     if (exit_code == SQ_EXIT_OK) {
         if (json)
             print_json(merged, n, dir, o);
-        else
+        else if (!quiet)
             print_summary(merged, n, dir, &v, o);
         exit_code = v.exit_code;
     }
@@ -298,7 +298,8 @@ static int merge_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
         exit_code = cli_usage_error(
             cmd, o, "%s", !dir ? "missing -o DIR (where to write)" : "no inputs to merge");
     else
-        exit_code = line ? cli_merge_run(cmd, inputs, n, dir, force, json, line, o) : SQ_EXIT_FAILURE;
+        exit_code = line ? cli_merge_run(cmd, inputs, n, dir, force, json, false, line, o)
+                         : SQ_EXIT_FAILURE;
     free(line);
     free(inputs);
     return exit_code;

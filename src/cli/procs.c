@@ -31,11 +31,11 @@
 #define FIXED_ARGS   24 /* the child's words besides the --set pairs, with room to spare */
 
 typedef struct {
-    pid_t pid;   /* 0 once reaped */
-    int status;  /* waitpid's */
+    pid_t pid;  /* 0 once reaped */
+    int status; /* waitpid's */
     char dir[4200];
-    FILE *series;     /* its series.csv, read as it grows (NULL until it exists) */
-    int64_t sec;      /* the wall-clock second (unix s) of the rows being summed */
+    FILE *series; /* its series.csv, read as it grows (NULL until it exists) */
+    int64_t sec;  /* the wall-clock second (unix s) of the rows being summed */
     int64_t done, errors;
     double planned;
     int64_t last_sec; /* the last complete second, and its figures */
@@ -125,9 +125,9 @@ static int child_args(const cli_run_args_t *ra, int i, int n, const char *start,
     snprintf(a->buf[2], sizeof a->buf[2], "%d/%d", i, n);
     snprintf(a->buf[3], sizeof a->buf[3], "%s", start);
     snprintf(a->buf[4], sizeof a->buf[4], "%s", dir);
-    const char *rest[] = {"--seed",     a->buf[0], "--grace",    a->buf[1], "--shard",
-                          a->buf[2],    "--launcher", "none",    "--start-at", a->buf[3],
-                          "-o",         a->buf[4], "--quiet"};
+    const char *rest[] = {"--seed",  a->buf[0],    "--grace", a->buf[1],    "--shard",
+                          a->buf[2], "--launcher", "none",    "--start-at", a->buf[3],
+                          "-o",      a->buf[4],    "--quiet"};
     for (size_t r = 0; r < sizeof rest / sizeof rest[0]; r++)
         a->argv[k++] = (char *)rest[r];
     a->argv[k] = NULL;
@@ -227,8 +227,9 @@ static void live(child_t *c, int n, int running, out_t *o)
             errors += c[i].last_errors;
             planned += c[i].last_planned;
         }
-    out_live(o, "--procs %d: %d running | %d shards' second: %" PRId64 " done (planned %.0f), %" PRId64
-                " errors",
+    out_live(o,
+             "--procs %d: %d running | %d shards' second: %" PRId64 " done (planned %.0f), %" PRId64
+             " errors",
              n, running, reported, done, planned, errors);
 }
 
@@ -281,8 +282,9 @@ static int child_exit(const child_t *c, int i, int n, out_t *o)
     }
     int code = WIFEXITED(c->status) ? WEXITSTATUS(c->status) : SQ_EXIT_FAILURE;
     if (code == SQ_EXIT_FAILURE || code == SQ_EXIT_USAGE)
-        out_error(o, "shard %d/%d failed (exit %d): its lines above say why; its results, if any, "
-                     "are in %s",
+        out_error(o,
+                  "shard %d/%d failed (exit %d): its lines above say why; its results, if any, "
+                  "are in %s",
                   i + 1, n, code, c->dir);
     return code;
 }
@@ -358,7 +360,7 @@ static int run_children(const cli_cmd_t *cmd, cli_run_args_t *ra, int n, const c
     bool merge;
     int code = outcome(codes, n, &merge);
     if (merge) {
-        int m = cli_merge_run(cmd, inputs, n, dir, true, ra->json, ra->line, o);
+        int m = cli_merge_run(cmd, inputs, n, dir, true, ra->json, ra->ro.quiet, ra->line, o);
         code = code >= 0 ? code : m;
         if (m == SQ_EXIT_FAILURE || m == SQ_EXIT_USAGE)
             code = m;
@@ -377,6 +379,8 @@ static int run_children(const cli_cmd_t *cmd, cli_run_args_t *ra, int n, const c
 int cli_procs_run(const cli_cmd_t *cmd, cli_run_args_t *ra, const plan_t *p, out_t *o)
 {
     int n = count_procs(ra->procs);
+    if (ra->ro.quiet)
+        out_set_level(o, OUT_WARN); /* as a run: no live line, no summary */
     if (ra->ro.metrics_host)
         return cli_usage_error(cmd, o,
                                "--metrics serves one process's figures: not with --procs (each "
@@ -400,8 +404,8 @@ int cli_procs_run(const cli_cmd_t *cmd, cli_run_args_t *ra, const plan_t *p, out
                                "%s already holds the results of a run: choose another -o, or "
                                "--force to replace them",
                                dir);
-    int64_t at = ra->ro.start_at_ns ? ra->ro.start_at_ns
-                                    : clock_real_ns() + LEAD_NS + n * LEAD_EACH_NS;
+    int64_t at =
+        ra->ro.start_at_ns ? ra->ro.start_at_ns : clock_real_ns() + LEAD_NS + n * LEAD_EACH_NS;
     char start[64];
     launch_format_instant(at, start, sizeof start);
     out_info(o, "--procs %d: shards start at %s; results in %s/shard-1..%d, merged into %s", n,

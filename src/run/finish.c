@@ -157,9 +157,9 @@ static json_t *launch_json(const run_t *r)
     const run_opts_t *o = r->opts;
     obs_totals_t t;
     obs_totals(r->obs, &t);
-    json_t *shard = json_pack("{s:i, s:i, s:s?, s:s?}", "index", o->shard_index ? o->shard_index : 1,
-                              "count", o->shard_count ? o->shard_count : 1, "from", o->shard_from,
-                              "variables", o->shard_vars);
+    json_t *shard = json_pack(
+        "{s:i, s:i, s:s?, s:s?}", "index", o->shard_index ? o->shard_index : 1, "count",
+        o->shard_count ? o->shard_count : 1, "from", o->shard_from, "variables", o->shard_vars);
     json_t *clock = json_null();
     if (r->clock.samples)
         clock = json_pack("{s:f, s:f, s:I, s:b, s:s}", "offset_ms",
@@ -174,8 +174,8 @@ static json_t *launch_json(const run_t *r)
                      instant_json(real_start), "began",
                      r->start_ns ? instant_json(clock_real_ns() - (clock_mono_ns() - r->start_ns))
                                  : json_null(),
-                     "late_ms", o->start_at_ns ? (double)r->late_ns / 1e6 : 0.0,
-                     "first_request", instant_json(t.first_sent_real_ns), "clock_offset", clock);
+                     "late_ms", o->start_at_ns ? (double)r->late_ns / 1e6 : 0.0, "first_request",
+                     instant_json(t.first_sent_real_ns), "clock_offset", clock);
 }
 
 bool run_finish(run_t *r, run_result_t *res)

@@ -65,9 +65,12 @@ static void test_none(void **state)
 static void test_open_mpi(void **state)
 {
     (void)state;
-    const char *env[] = {"OMPI_COMM_WORLD_LOCAL_RANK=1", "OMPI_COMM_WORLD_LOCAL_SIZE=2",
-                         "OMPI_COMM_WORLD_NODE_RANK=1",  "OMPI_COMM_WORLD_RANK=1",
-                         "OMPI_COMM_WORLD_SIZE=2",       "PMIX_RANK=1",
+    const char *env[] = {"OMPI_COMM_WORLD_LOCAL_RANK=1",
+                         "OMPI_COMM_WORLD_LOCAL_SIZE=2",
+                         "OMPI_COMM_WORLD_NODE_RANK=1",
+                         "OMPI_COMM_WORLD_RANK=1",
+                         "OMPI_COMM_WORLD_SIZE=2",
+                         "PMIX_RANK=1",
                          NULL};
     launch_shard_t s;
     assert_int_equal(shard(&(launch_in_t){0}, env, &s), 0);
@@ -80,8 +83,7 @@ static void test_open_mpi(void **state)
     expect(&(launch_in_t){.flag_index = 2, .flag_count = 2}, env, 2, 2, "open-mpi");
     refuse(&(launch_in_t){.flag_index = 1, .flag_count = 2}, env, "--shard 1/2 disagrees");
     /* --launcher none ignores the environment; --launcher pmix reads only PMIX_RANK. */
-    expect(&(launch_in_t){.flag_index = 1, .flag_count = 2, .launcher = "none"}, env, 1, 2,
-           "flag");
+    expect(&(launch_in_t){.flag_index = 1, .flag_count = 2, .launcher = "none"}, env, 1, 2, "flag");
     refuse(&(launch_in_t){.launcher = "pmix"}, env, "--shard-count");
     expect(&(launch_in_t){.launcher = "pmix", .count = 2}, env, 2, 2, "pmix");
 }
@@ -151,8 +153,8 @@ static void test_indexed_job(void **state)
 static void test_start_at(void **state)
 {
     (void)state;
-    struct tm tm = {.tm_year = 96, .tm_mon = 11, .tm_mday = 20, .tm_hour = 0, .tm_min = 39,
-                    .tm_sec = 57};
+    struct tm tm = {
+        .tm_year = 96, .tm_mon = 11, .tm_mday = 20, .tm_hour = 0, .tm_min = 39, .tm_sec = 57};
     int64_t t = (int64_t)timegm(&tm) * 1000000000, at;
     assert_int_equal(launch_start_at("1996-12-20T00:39:57Z", t, &at, err, sizeof err), 0);
     assert_int_equal(at, t);
@@ -164,8 +166,7 @@ static void test_start_at(void **state)
     assert_int_equal(at, t + INT64_C(30000000000));
     /* Past: within the 1 s tolerance runs, beyond it is refused; more than a day ahead too. */
     assert_int_equal(launch_start_at("1996-12-20T00:39:56.5Z", t, &at, err, sizeof err), 0);
-    assert_int_equal(launch_start_at("1996-12-20T00:39:55.9Z", t, &at, err, sizeof err),
-                     SQ_EINVAL);
+    assert_int_equal(launch_start_at("1996-12-20T00:39:55.9Z", t, &at, err, sizeof err), SQ_EINVAL);
     assert_non_null(strstr(err, "in the past"));
     assert_int_equal(launch_start_at("+24h", t, &at, err, sizeof err), 0);
     assert_int_equal(launch_start_at("+25h", t, &at, err, sizeof err), SQ_EINVAL);
@@ -184,9 +185,9 @@ static void test_start_at(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_none),        cmocka_unit_test(test_open_mpi),
-        cmocka_unit_test(test_pmix),        cmocka_unit_test(test_pmi),
-        cmocka_unit_test(test_slurm),       cmocka_unit_test(test_indexed_job),
+        cmocka_unit_test(test_none),     cmocka_unit_test(test_open_mpi),
+        cmocka_unit_test(test_pmix),     cmocka_unit_test(test_pmi),
+        cmocka_unit_test(test_slurm),    cmocka_unit_test(test_indexed_job),
         cmocka_unit_test(test_start_at),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
