@@ -52,6 +52,15 @@ timeout 60 "$SQUALL" run "$T/fail.yaml" -o "$T/fail" --procs 2 --quiet >"$T/fail
 RC=$?
 expect "--procs 2, p99 <= 5 ms against a 20 ms delay: merged FAIL, exit 1 (got $RC)" test "$RC" = 1
 
+# A child that fails is named, and nothing is merged: shard 2's directory already holds results
+# (from the run above), so that child refuses to write over them (exit 2) while shard 1 runs.
+mkdir -p "$T/cf/shard-2"
+cp "$T/pass/shard-2/results.json" "$T/cf/shard-2/"
+timeout 60 "$SQUALL" run "$T/pass.yaml" -o "$T/cf" --procs 2 --quiet >"$T/cf.out" 2>&1
+RC=$?
+expect "a failed shard: exit 2 (got $RC), named, not merged" \
+    test "$RC $(grep -c 'shard 2/2 failed (exit 2)' "$T/cf.out") $([ -e "$T/cf/results.json" ] && echo merged)" = "2 1 "
+
 # 2. SIGINT to the parent only (the children are in their own process group): every child ends,
 #    each shard and the merge are written as interrupted, exit 5.
 plan "$T/long.yaml" 1s 30s
