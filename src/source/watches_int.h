@@ -4,9 +4,11 @@
 #ifndef SQUALL_WATCHES_INT_H
 #define SQUALL_WATCHES_INT_H
 
-#include "watches.h"
 #include "squall/source.h"
 #include "squall/watch.h"
+
+/* A phase's watches, or one-shot streams (the same type as in watches_once.h). */
+typedef struct watches_set watches_t;
 
 #define WATCHES_LOG_MAX 20000 /* reconnects kept per phase in the results' reconnect log */
 
@@ -59,7 +61,7 @@ typedef struct watches_watcher {
  * one-shot streams (held: squall closed it at its hold time). The callee frees w. */
 typedef void watches_end_fn(watches_t *ws, watches_watcher_t *w, const watch_end_t *end, bool held);
 
-struct watches {
+struct watches_set {
     src_ctx_t ctx;
     const plan_phase_t *pp;
     rng_t rng;      /* reconnect delays */

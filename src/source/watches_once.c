@@ -1,8 +1,9 @@
 /* One-shot watch streams for another source (a replay's recorded watches): opened when asked,
- * closed by squall after their hold time, never reopened; see watches.h. */
+ * closed by squall after their hold time, never reopened; see watches_once.h. */
 #include <stdlib.h>
 #include <string.h>
 
+#include "watches_once.h"
 #include "watches_int.h"
 #include "squall/err.h"
 
