@@ -163,17 +163,21 @@ static void on_event(void *user, const watch_event_t *ev)
     results_counters_t *k = wc->events ? results_cell_counters(wc->events) : NULL;
     if (k)
         k->count++;
-    if (!pr->watch.stamp_key || pr->watch.framing == PLAN_FRAME_RAW)
+    if (!pr->watch.stamp_key || pr->watch.framing == PLAN_FRAME_RAW) {
+        obs_watch_event(w->ws->ctx.obs, -1);
         return;
+    }
     if (!f.has_stamp) {
         wc->no_stamp++;
         w->attempt_no_stamp++;
+        obs_watch_event(w->ws->ctx.obs, -1);
         return;
     }
     int64_t d = clock_real_ns() - f.stamp_ns;
     if (d < 0)
         wc->stamp_ahead++; /* the writer's clock is ahead of ours: recorded as 0 */
     hist_add(wc->events, RESULTS_M_PROPAGATION, d);
+    obs_watch_event(w->ws->ctx.obs, d < 0 ? 0 : d);
 }
 
 /* The target answered: the stream is open (its open latency still waits for the first byte). */
