@@ -72,6 +72,13 @@ typedef struct {
     hist_t *response; /* response times of the completions */
 } obs_cell_t;
 
+/* Watch streams in the second the list just closed, over every watch class. */
+typedef struct {
+    int64_t open;                                /* streams open at the end of the second */
+    int64_t opened, dropped, reconnects, events; /* in the second */
+    const hist_t *propagation;                   /* of the second's stamped events */
+} obs_watch_second_t;
+
 /* The second the list just closed: what every observer's second() reads. */
 typedef struct {
     int64_t index; /* seconds since the run's start: 0, 1, ... */
@@ -98,6 +105,8 @@ typedef struct {
     const char *marks;       /* instants marked in the second (obs_mark), ';'-separated */
     const char *brake_fired; /* the brake that stopped the run ("" while none has); the text
                                 fills during the brakes observer's own second() */
+    const obs_watch_second_t *watch; /* NULL while no watch stream has opened in the run */
+    int64_t teardown_total;          /* objects the teardown set out to delete (0: none yet) */
     enum obs_bound bound;  /* could squall offer the planned load (health.c) */
     const char *bound_why; /* when bound: why, e.g. "schedule lag p99 12.3 ms" */
 } obs_second_t;
@@ -148,6 +157,10 @@ void obs_answered(obs_t *l, int64_t at_ns);
 /* A watch stream's change, for squall's own metrics. */
 enum obs_watch_ev { OBS_WATCH_OPENED, OBS_WATCH_ENDED, OBS_WATCH_DROPPED, OBS_WATCH_RECONNECT };
 void obs_watch(obs_t *l, size_t phase, int cls, enum obs_watch_ev ev);
+/* A watch event arrived; propagation_ns is its stamp's age (negative: not stamped). */
+void obs_watch_event(obs_t *l, int64_t propagation_ns);
+/* The teardown starts: n objects to delete (the live line's progress). */
+void obs_teardown_total(obs_t *l, int64_t n);
 /* Marks an instant of the open second (an action or a collect fired): series.csv's `marks`. */
 void obs_mark(obs_t *l, const char *name);
 /* The results cell of (phase, class, outcome) for figures that are not finished requests

@@ -320,14 +320,51 @@ void journal_reaper_free(journal_reaper_t *rp)
         reaper_release(rp);
 }
 
+/* The progress line of a reaper run to its end, once a second. */
+typedef struct {
+    journal_reaper_t *rp;
+    out_t *o;
+    size_t n, last;
+} progress_t;
+
+static void on_progress(uv_timer_t *t)
+{
+    progress_t *p = t->data;
+    journal_reap_counts_t c;
+    journal_reaper_counts(p->rp, &c);
+    size_t deleted = c.done + c.gone;
+    double secs = (double)c.elapsed_ns / 1e9, pace = secs > 0 ? (double)deleted / secs : 0;
+    char left[32] = "\xe2\x80\x93"; /* "–" until something was deleted */
+    if (pace > 0)
+        snprintf(left, sizeof left, "%.1fs", (double)(p->n - deleted) / pace);
+    out_live(p->o, "cleanup: deleted %zu of %zu, %zu/s, %s left", deleted, p->n, deleted - p->last,
+             left);
+    p->last = deleted;
+}
+
 int journal_reap(uv_loop_t *loop, const eng_config_t *ecfg, out_t *o, const journal_reap_cfg_t *cfg,
                  const char *const *paths, size_t n, enum journal_fate *fates,
                  journal_reap_counts_t *counts)
 {
     journal_reaper_t *rp;
     int rc = journal_reaper_start(loop, ecfg, o, cfg, paths, n, fates, &rp);
-    if (rp && (rc == 0 || rp->finished))
+    if (rp && (rc == 0 || rp->finished)) {
+        /* The progress timer does not keep the loop alive: uv_run returns with the reaper. */
+        progress_t p = {.rp = rp, .o = o, .n = n};
+        uv_timer_t tick;
+        bool ticking = uv_timer_init(loop, &tick) == 0;
+        if (ticking) {
+            tick.data = &p;
+            uv_unref((uv_handle_t *)&tick);
+            uv_timer_start(&tick, on_progress, 1000, 1000);
+        }
         uv_run(loop, UV_RUN_DEFAULT);
+        if (ticking) {
+            uv_close((uv_handle_t *)&tick, NULL);
+            uv_run(loop, UV_RUN_DEFAULT);
+        }
+        out_live_end(o);
+    }
     journal_reaper_counts(rp, counts);
     journal_reaper_free(rp);
     if (rp)

@@ -56,6 +56,13 @@ json_t *obs_health_json(const obs_health_t *h);
 /* Which seconds, as "4, 5, 9" (", ..." when more than fit or were kept). */
 void obs_bound_seconds(const obs_bound_list_t *b, char *buf, size_t cap);
 
+/* storm.c: the tick of a fleet action an intended start belongs to (-1: before the first).
+ * Aligned and jittered ticks are windows centred on base + offset + k * period (a jittered agent
+ * fires on either side of it); spread ticks are the periods. offset: for aligned ticks the
+ * phase's sched_align_offset, else 0. */
+int64_t obs_tick_of(enum plan_timing timing, int64_t base, int64_t offset, int64_t period,
+                    int64_t intended);
+
 /* The name series, live line and cells use for a phase and a class (teardown included). */
 const char *obs_phase_name(const plan_t *p, size_t phase);
 const char *obs_class_name(const plan_t *p, int cls);

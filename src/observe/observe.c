@@ -45,6 +45,10 @@ struct obs {
     int64_t svc_sum_ns, svc_n; /* the open second's service times */
     char marks[512];           /* the open second's marked instants, ';'-separated */
     char brake_why[256];       /* the brake that fired, "" until one does */
+    obs_watch_second_t watch;  /* open is a gauge; the rest counts the open second */
+    hist_t *sec_propagation;
+    bool watched; /* a watch stream has opened */
+    int64_t teardown_total;
 };
 
 bool obs_is_error(enum eng_outcome oc)
@@ -138,6 +142,7 @@ void obs_free(obs_t *l)
     hist_free(l->sched_lag);
     hist_free(l->sec_send);
     hist_free(l->send_lag);
+    hist_free(l->sec_propagation);
     obs_health_close(&l->health);
     free(l);
 }
@@ -194,6 +199,30 @@ void obs_sent(obs_t *l, const obs_sent_t *s)
 void obs_watch(obs_t *l, size_t phase, int cls, enum obs_watch_ev ev)
 {
     obs_export_watch(l->self[EXPORT], phase, cls, ev);
+    obs_watch_second_t *w = &l->watch;
+    if (ev == OBS_WATCH_OPENED) {
+        l->watched = true;
+        w->open++;
+        w->opened++;
+    } else if (ev == OBS_WATCH_ENDED && w->open > 0) {
+        w->open--;
+    } else if (ev == OBS_WATCH_DROPPED) {
+        w->dropped++;
+    } else if (ev == OBS_WATCH_RECONNECT) {
+        w->reconnects++;
+    }
+}
+
+void obs_watch_event(obs_t *l, int64_t propagation_ns)
+{
+    l->watch.events++;
+    if (propagation_ns >= 0 && (l->sec_propagation || !hist_new_ns(&l->sec_propagation)))
+        hist_record(l->sec_propagation, propagation_ns);
+}
+
+void obs_teardown_total(obs_t *l, int64_t n)
+{
+    l->teardown_total = n;
 }
 
 void obs_mark(obs_t *l, const char *name)
@@ -364,6 +393,9 @@ static void window_reset(obs_t *l, int64_t now)
     hist_reset(l->sec_lag);
     hist_reset(l->sec_send);
     l->started = l->completed = l->errors = 0;
+    l->watch.opened = l->watch.dropped = l->watch.reconnects = l->watch.events = 0;
+    if (l->sec_propagation)
+        hist_reset(l->sec_propagation);
     l->svc_sum_ns = l->svc_n = 0;
     l->planned = 0;
     l->unplanned = false;
@@ -404,7 +436,10 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .bound_why = why,
         .marks = l->marks,
         .brake_fired = l->brake_why,
+        .watch = l->watched ? &l->watch : NULL,
+        .teardown_total = l->teardown_total,
     };
+    l->watch.propagation = l->sec_propagation;
     obs_health_in_t in = {
         .second = l->sec_index,
         .loading = loading,

@@ -103,14 +103,18 @@ static void storm_phase(void *self, size_t phase, int64_t base_ns, int64_t realt
     }
 }
 
-/* The tick a start belongs to: aligned and jittered ticks are windows centred on base + offset
- * + k * period (a jittered agent fires on either side of it); spread ticks are the periods. */
+int64_t obs_tick_of(enum plan_timing timing, int64_t base, int64_t offset, int64_t period,
+                    int64_t intended)
+{
+    int64_t rel = intended - base - offset;
+    if (timing != PLAN_TIMING_SPREAD)
+        rel += period / 2;
+    return rel < 0 ? -1 : rel / period;
+}
+
 static int64_t tick_of(const saction_t *a, int64_t intended)
 {
-    int64_t rel = intended - a->base - a->offset;
-    if (a->timing != PLAN_TIMING_SPREAD)
-        rel += a->period / 2;
-    return rel < 0 ? -1 : rel / a->period;
+    return obs_tick_of(a->timing, a->base, a->offset, a->period, intended);
 }
 
 static int64_t window_start(const saction_t *a, int64_t k)

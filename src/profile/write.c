@@ -7,22 +7,13 @@
 
 #include "prof_int.h"
 #include "squall/err.h"
+#include "squall/value.h"
 
 #define NS INT64_C(1000000000)
 
-/* 12300 -> "12,300". */
 static const char *num(uint64_t v, char *buf, size_t len)
 {
-    char raw[32];
-    snprintf(raw, sizeof raw, "%llu", (unsigned long long)v);
-    size_t n = strlen(raw), o = 0;
-    for (size_t i = 0; i < n && o + 2 < len; i++) {
-        if (i > 0 && (n - i) % 3 == 0)
-            buf[o++] = ',';
-        buf[o++] = raw[i];
-    }
-    buf[o] = '\0';
-    return buf;
+    return value_fmt_count((int64_t)v, buf, len);
 }
 
 /* A duration in plan syntax: whole seconds, minutes or hours when exact, else milliseconds. */

@@ -443,9 +443,12 @@ static void on_signal(uv_signal_t *s, int signum)
         results_set_start(r->res, clock_real_ns() / 1000000);
         finish(r);
     } else if (++r->signals == 1) {
-        run_stop(r, RUN_END_SIGNAL,
-                 "signal %s: letting in-flight requests finish (send it again to stop at once)",
-                 signum == SIGINT ? "SIGINT" : "SIGTERM");
+        /* The reason kept for the summary and results names the signal only: the hint to send
+         * it again is for this moment, not for the run's last line. */
+        run_stop(r, RUN_END_SIGNAL, "signal %s", signum == SIGINT ? "SIGINT" : "SIGTERM");
+        if (r->state == RUN_DRAINING)
+            out_warn(r->o, "letting in-flight requests finish: send the signal again to stop at "
+                           "once");
     } else if (r->state == RUN_DRAINING) {
         eng_stop(r->eng, 0);
         r->drain_deadline_ns = 0;

@@ -143,6 +143,7 @@ static int teardown_start(void *self, src_t *me)
     if (!(s->fates = calloc(s->n ? s->n : 1, sizeof(*s->fates))) || hist_new_ns(&s->response))
         return SQ_ENOMEM;
     limits(s);
+    obs_teardown_total(s->ctx.obs, (int64_t)s->n);
     int rc = journal_reaper_start(s->ctx.loop, &s->ctx.target->eng, s->ctx.o, &s->cfg, s->paths,
                                   s->n, s->fates, &s->reaper);
     if (rc)
