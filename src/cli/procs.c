@@ -289,9 +289,9 @@ static int child_exit(const child_t *c, int i, int n, out_t *o)
     return code;
 }
 
-/* The exit code: a failed shard (6, or 2: it sent nothing while others did) first; then how the
- * run ended early (a brake 3, an unreachable target 4, a signal 5) as the shards' own codes
- * say; else the merged verdict. */
+/* The exit code as the shards' codes say: a failed shard (6, or 2: it sent nothing while others
+ * did) first; then how the run ended early (a brake 3, an unreachable target 4, a signal 5);
+ * else -1: the merged verdict's. (A signal to the parent makes it 5 unless a shard failed.) */
 static int outcome(const int *codes, int n, bool *merge)
 {
     static const int order[] = {SQ_EXIT_FAILURE, SQ_EXIT_USAGE, SQ_EXIT_BRAKE, SQ_EXIT_UNREACHABLE,
