@@ -17,6 +17,11 @@
  * ms, s, m, h; a bare `0` is zero. Exact in integer nanoseconds. Returns 0, SQ_EPARSE when
  * malformed, SQ_ERANGE when negative, finer than 1 ns or beyond INT64_MAX ns. */
 int value_parse_duration(const char *s, int64_t *ns);
+/* A duration as a plan writes it, shortest first: whole hours or minutes (`2h`, `5m`), else
+ * seconds, milliseconds or microseconds with at most three decimals and a value of at least 1
+ * (`1s`, `1.5s`, `250ms`, `12.5us`), else nanoseconds; `0` for zero. value_parse_duration reads
+ * every result back to the same ns. Returns buf. */
+const char *value_format_duration(int64_t ns, char *buf, size_t cap);
 /* Rates: <number>/<unit>, unit s, m (or min) or h: `500/s`, `30/m`, `2/h`; a bare `0` is zero.
  * Returns requests per second; SQ_EPARSE when malformed, SQ_ERANGE above VALUE_RATE_MAX. */
 int value_parse_rate(const char *s, double *per_s);

@@ -56,11 +56,17 @@ static size_t judged_phases(const run_t *r)
 }
 
 /* The sections every run has, and the objectives judged; *j is the verdict (NULL on error).
- * Every class is also judged on a default error rate of 1 % unless an objective covers it. */
+ * Every plan class is also judged on a default error rate of 1 % unless an objective covers it. */
 static int judge(run_t *r, const judge_phase_t *ph, judge_t **j)
 {
     const char *watches[PLAN_MAX_REQS];
-    judge_opts_t jo = {.default_error_rate = JUDGE_DEFAULT_ERROR_RATE, .watch_classes = watches};
+    /* The teardown's deletes are class "teardown" (src/observe/names.c): the run's own, so they
+     * are judged only by an objective naming them, unless the plan has a class of that name. */
+    static const char *const internal[] = {"teardown"};
+    judge_opts_t jo = {.default_error_rate = JUDGE_DEFAULT_ERROR_RATE,
+                       .watch_classes = watches,
+                       .internal_classes = internal,
+                       .n_internal_classes = plan_find_req(r->plan, internal[0]) < 0};
     for (size_t i = 0; i < r->plan->n_reqs; i++)
         if (r->plan->reqs[i].kind == PLAN_WATCH)
             watches[jo.n_watch_classes++] = r->plan->reqs[i].name;
