@@ -8,6 +8,7 @@
 #include "html_int.h"
 #include "squall/err.h"
 #include "squall/file.h"
+#include "squall/table.h"
 
 #define METHOD_MW                                                                                  \
     "Mann-Whitney U (Mann & Whitney 1947), two-sided: the exact null distribution when a side "    \
@@ -91,8 +92,6 @@ static void p_text(const report_cmp_line_t *l, char *buf, size_t cap)
         snprintf(buf, cap, "%.2g", l->p);
 }
 
-#define ROW "%-12s %-16s %-17s %10s %10s %18s %8s  %-21s %s\n"
-
 /* A line's cells as text, the same in the table and the HTML page. */
 typedef struct {
     char metric[48], base[32], nw[32], change[48], p[16], samples[64], verdict[64];
@@ -113,17 +112,27 @@ void report_cmp_print(const report_cmp_t *c, out_t *o)
 {
     size_t count[4] = {0};
     bool used[4] = {false};
-    out_print(o, ROW, "phase", "class", "metric", "base", "new", "change", "p", "samples",
-              "verdict");
-    for (size_t i = 0; i < report_cmp_count(c); i++) {
+    static const table_col_t cols[] = {
+        {"phase", TABLE_LEFT}, {"class", TABLE_LEFT},   {"metric", TABLE_LEFT},
+        {"base", TABLE_RIGHT}, {"new", TABLE_RIGHT},    {"change", TABLE_RIGHT},
+        {"p", TABLE_RIGHT},    {"samples", TABLE_LEFT}, {"verdict", TABLE_LEFT}};
+    table_t *t = table_new(cols, sizeof cols / sizeof cols[0]);
+    int rc = t ? 0 : SQ_ENOMEM;
+    for (size_t i = 0; rc == 0 && i < report_cmp_count(c); i++) {
         const report_cmp_line_t *l = report_cmp_at(c, i);
         row_t r;
         row_text(l, &r);
-        out_print(o, ROW, l->phase, l->cls, r.metric, r.base, r.nw, r.change, r.p, r.samples,
-                  r.verdict);
+        const char *cells[] = {l->phase, l->cls, r.metric,  r.base,   r.nw,
+                               r.change, r.p,    r.samples, r.verdict};
+        rc = table_add(t, cells);
         count[l->verdict]++;
         used[l->test] = true;
     }
+    if (rc == 0)
+        table_print(t, o);
+    else
+        out_print(o, "(out of memory while laying out the comparison)\n");
+    table_free(t);
     out_print(o,
               "\n%zu worse (slower or more errors), %zu better, %zu within noise, %zu untested; "
               "the chance of a false alarm is the level chosen, per line\n",
