@@ -23,8 +23,8 @@ typedef struct {
 
 typedef struct table table_t;
 
-/* A table of n columns (cols is copied, its header strings must outlive the table); NULL on
- * allocation failure. */
+/* A table of n columns (cols is copied, its header strings must outlive the table; all NULL
+ * for a table without a header line); NULL on allocation failure. */
 table_t *table_new(const table_col_t *cols, size_t n);
 void table_free(table_t *t);
 
@@ -39,7 +39,11 @@ size_t table_width(const table_t *t, size_t col);
 /* At least `width` characters for column `col`, e.g. to line up two tables. */
 void table_min_width(table_t *t, size_t col, size_t width);
 
-/* Prints the header and every row and note to o's results stream. */
+/* Every printed line starts with `indent` blanks (0 by default). */
+void table_set_indent(table_t *t, size_t indent);
+
+/* Prints the header (none when the first column's header is NULL) and every row and note to o's
+ * results stream. */
 void table_print(const table_t *t, out_t *o);
 
 #endif

@@ -15,7 +15,7 @@ typedef struct {
 struct table {
     table_col_t *cols;
     size_t *width;
-    size_t n;
+    size_t n, indent;
     line_t *lines;
     size_t n_lines, cap;
 };
@@ -43,7 +43,7 @@ table_t *table_new(const table_col_t *cols, size_t n)
     t->n = n;
     for (size_t i = 0; i < n; i++) {
         t->cols[i] = cols[i];
-        t->width[i] = text_width(cols[i].header);
+        t->width[i] = cols[i].header ? text_width(cols[i].header) : 0;
     }
     return t;
 }
@@ -133,11 +133,18 @@ void table_min_width(table_t *t, size_t col, size_t width)
         t->width[col] = width;
 }
 
+void table_set_indent(table_t *t, size_t indent)
+{
+    t->indent = indent;
+}
+
 /* One cell padded to its column; the last column is not padded on the right. */
 static void cell(const table_t *t, size_t c, const char *s, out_t *o)
 {
     size_t pad = t->width[c] - text_width(s);
     bool last = c + 1 == t->n;
+    if (c == 0)
+        out_print(o, "%*s", (int)t->indent, "");
     if (t->cols[c].align == TABLE_RIGHT)
         out_print(o, "%*s%s", (int)pad, "", s);
     else
@@ -147,8 +154,8 @@ static void cell(const table_t *t, size_t c, const char *s, out_t *o)
 
 void table_print(const table_t *t, out_t *o)
 {
-    for (size_t c = 0; c < t->n; c++)
-        cell(t, c, t->cols[c].header, o);
+    for (size_t c = 0; t->cols[0].header && c < t->n; c++)
+        cell(t, c, t->cols[c].header ? t->cols[c].header : "", o);
     for (size_t i = 0; i < t->n_lines; i++) {
         const line_t *l = &t->lines[i];
         if (l->cells) {
@@ -156,7 +163,7 @@ void table_print(const table_t *t, out_t *o)
                 cell(t, c, l->cells[c], o);
             continue;
         }
-        size_t indent = 0;
+        size_t indent = t->indent;
         for (size_t c = 0; c < l->note_col; c++)
             indent += t->width[c] + 2;
         out_print(o, "%*s%s\n", (int)indent, "", l->note);
