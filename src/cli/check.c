@@ -85,8 +85,25 @@ static void print_shape(const plan_phase_t *ph, const src_estimate_t *e, out_t *
     }
 }
 
+/* The widest name print_counts may print, measured as a table measures it. */
+static size_t name_width(const plan_t *p)
+{
+    static const table_col_t col[] = {{NULL, TABLE_LEFT}};
+    static const char *const teardown[] = {"(teardown deletes)"};
+    table_t *t = table_new(col, 1);
+    for (size_t k = 0; t && k < p->n_reqs; k++)
+        table_add(t, &p->reqs[k].name);
+    for (size_t i = 0; t && i < p->n_phases; i++)
+        if (p->phases[i].teardown.on)
+            table_add(t, teardown);
+    size_t w = t ? table_width(t, 0) : 0;
+    table_free(t);
+    return w;
+}
+
 /* The expected count per class, the names' column as wide as the longest name. */
-static void print_counts(const plan_t *p, const plan_phase_t *ph, const src_estimate_t *e, out_t *o)
+static void print_counts(const plan_t *p, const plan_phase_t *ph, const src_estimate_t *e,
+                         size_t name_width, out_t *o)
 {
     static const table_col_t cols[] = {{NULL, TABLE_LEFT}, {NULL, TABLE_RIGHT}, {NULL, TABLE_LEFT}};
     table_t *t = table_new(cols, 3);
@@ -108,6 +125,7 @@ static void print_counts(const plan_t *p, const plan_phase_t *ph, const src_esti
         rc = table_add(t, cells);
     }
     if (rc == 0) {
+        table_min_width(t, 0, name_width); /* every phase's names in one column */
         table_set_indent(t, 4);
         table_print(t, o);
     } else {
@@ -116,7 +134,8 @@ static void print_counts(const plan_t *p, const plan_phase_t *ph, const src_esti
     table_free(t);
 }
 
-static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, out_t *o)
+static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, size_t name_width,
+                        out_t *o)
 {
     const plan_phase_t *ph = &p->phases[i];
     src_estimate_t e = est[i];
@@ -124,7 +143,7 @@ static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, ou
     out_print(o, "\nphase %zu/%zu %s: %s\n", i + 1, p->n_phases, ph->name,
               e.open_ended ? "until done" : dur_str(e.duration_ns, d, sizeof d));
     print_shape(ph, &e, o);
-    print_counts(p, ph, &e, o);
+    print_counts(p, ph, &e, name_width, o);
     out_print(o, "    total %s requests, peak %s/s", count_str(e.requests, a, 32),
               count_str(e.peak_rate, b, 32));
     if (e.burst > 0)
@@ -233,7 +252,7 @@ static void print_summary(const plan_t *p, const src_estimate_t *est, out_t *o)
     double total = 0, peak = 0;
     int64_t dur = 0;
     for (size_t i = 0; i < p->n_phases; i++) {
-        print_phase(p, i, est, o);
+        print_phase(p, i, est, name_width(p), o);
         src_estimate_t e = est[i];
         total += e.requests;
         peak = e.peak_rate > peak ? e.peak_rate : peak;
