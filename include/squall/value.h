@@ -37,10 +37,6 @@ int value_parse_listen(const char *s, char *host, size_t cap, int *port);
 /* Whether host is an IPv4 address in 127.0.0.0/8 or IPv6 ::1. */
 bool value_is_loopback(const char *host);
 
-/* A count as people read it, with thousands separators: 12300 -> "12,300", -4500 -> "-4,500".
- * Returns buf. */
-const char *value_fmt_count(int64_t v, char *buf, size_t len);
-
 /* Sizes: a plain count of bytes, or <integer><unit> with unit B, KiB, MiB or GiB (powers of
  * 1024): `65536`, `512KiB`, `32MiB`. SQ_EPARSE / SQ_ERANGE (beyond 1 TiB) as above. */
 int value_parse_bytes(const char *s, int64_t *bytes);

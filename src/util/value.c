@@ -314,21 +314,6 @@ bool value_is_loopback(const char *host)
     return inet_pton(AF_INET6, host, &a6) == 1 && IN6_IS_ADDR_LOOPBACK(&a6);
 }
 
-const char *value_fmt_count(int64_t v, char *buf, size_t len)
-{
-    char raw[32];
-    snprintf(raw, sizeof raw, "%lld", (long long)v);
-    size_t n = strlen(raw), o = 0, sign = raw[0] == '-';
-    for (size_t i = 0; i < n && o + 2 < len; i++) {
-        if (i > sign && (n - i) % 3 == 0)
-            buf[o++] = ',';
-        buf[o++] = raw[i];
-    }
-    if (len)
-        buf[o < len ? o : len - 1] = '\0';
-    return buf;
-}
-
 const char *value_format_duration(int64_t ns, char *buf, size_t cap)
 {
     static const struct {
