@@ -156,8 +156,8 @@ static const char *count(int64_t n, char *buf, size_t cap)
 /* A count right-aligned in width columns. */
 static const char *count_col(char *buf, size_t cap, int width, int64_t n)
 {
-    char text[32];
-    return col(buf, cap, width, count(n, text, sizeof text));
+    snprintf(buf, cap, "%*lld", width, (long long)n);
+    return buf;
 }
 
 /* What the newest tick did: "tick 4 of 6: 2000 done, written over 96.0ms, p99 12.3ms". */
