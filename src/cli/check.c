@@ -545,7 +545,7 @@ static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 
 const cli_cmd_t cli_cmd_check = {
     .name = "check",
-    .summary = "validate a plan and print what it would send, without sending anything",
+    .summary = "validate plans and print what each would send, without sending anything",
     .usage = "PLAN.yaml... [--set KEY=VALUE]... [--json]",
     .description = "Reads each plan (and its includes) and validates it exactly as `run` does\n"
                    "before sending (templates, sources, token, open files), reports every\n"
