@@ -271,28 +271,35 @@ static int spectrum_metric(const results_t *r, const char *cls)
     return RESULTS_M_RESPONSE;
 }
 
-static void spectrum(FILE *f, const results_t *b, const results_t *n, const char *cls, hist_t *h)
+#define TAIL_POINTS 400
+
+/* The share of a class's requests slower than x, BASE and NEW on one plot (every phase). False,
+ * with nothing written, when neither run has a histogram of the class. */
+static bool spectrum(FILE *f, const results_t *b, const results_t *n, const char *cls, hist_t *h)
 {
-    static double x[2][HTML_SPECTRUM_POINTS], y[2][HTML_SPECTRUM_POINTS];
+    static double x[2][TAIL_POINTS], y[2][TAIL_POINTS];
     int m = spectrum_metric(b, cls);
     html_line_t l[2] = {
-        {x[0], y[0], html_spectrum(b, m, cls, h, x[0], y[0]), "BASE", 0, 0},
-        {x[1], y[1], html_spectrum(n, m, cls, h, x[1], y[1]), "NEW", 1, 1},
+        {x[0], y[0], html_exceed(b, m, NULL, cls, h, x[0], y[0], TAIL_POINTS), "BASE", 0, 0},
+        {x[1], y[1], html_exceed(n, m, NULL, cls, h, x[1], y[1], TAIL_POINTS), "NEW", 1, 1},
     };
-    char title[200], ylabel[64];
-    snprintf(title, sizeof title, "%s: %s time by percentile, BASE and NEW", cls,
+    if (l[0].n == 0 && l[1].n == 0)
+        return false;
+    char title[200], xlabel[64];
+    snprintf(title, sizeof title, "%s: share of %s times slower than x, BASE and NEW", cls,
              results_metric_name(m));
-    snprintf(ylabel, sizeof ylabel, "%s time (ms, log scale)", results_metric_name(m));
+    snprintf(xlabel, sizeof xlabel, "%s time x (ms, log scale)", results_metric_name(m));
     html_plot_t p = {.title = title,
-                     .xlabel = "percentile (spaced by 1/(1 - p))",
-                     .ylabel = ylabel,
-                     .xaxis = HTML_X_SPECTRUM,
+                     .xlabel = xlabel,
+                     .ylabel = "slower than x (%, log scale)",
+                     .xaxis = HTML_X_LOG,
                      .ylog = true};
     fputs("<figure>", f);
     html_plot(f, &p, l, 2, NULL, 0);
     fputs("<figcaption>", f);
     html_esc(f, title);
     fputs("</figcaption></figure>\n", f);
+    return true;
 }
 
 /* One spectrum per class of BASE: BASE solid, NEW dashed, same colour per run. */
