@@ -39,6 +39,7 @@ typedef struct {
     const char *band_label; /* the legend's name for the bands ("generator-bound") */
     const html_level_t *levels;
     size_t n_levels;
+    double xmin, xmax; /* a fixed linear x range when xmax > xmin (the run's seconds) */
     const char *xnote; /* written under the x axis label's right end ("0 s = 15:04:05 UTC") */
 } html_plot_t;
 
@@ -55,6 +56,7 @@ typedef struct {
 typedef struct {
     double x;
     const char *label;
+    bool alert; /* drawn in the alert colour (a moment streams were dropped) */
 } html_mark_t;
 
 /* A heat map: nx columns from x0 in steps of dx, ny rows between the ny + 1 edges yedge (in y's
@@ -102,10 +104,14 @@ size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap);
 /* "0 s = 2026-12-02 15:04:05 UTC": the time axis's wall-clock start ("" when unknown). */
 void html_time_note(const results_t *res, char *buf, size_t cap);
 /* Marks on the run's time axis (s): phase boundaries (the "phases" section's starts when the run
- * wrote one, else the first second each phase appears in s), then the instants of actions and
- * collects. */
+ * wrote one, else the first second each phase appears in s, which may be NULL), then the
+ * instants of actions and collects, then the seconds watch streams were dropped. */
 size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m,
                         size_t cap);
+/* html_watches.c: marks at the seconds watch streams were dropped, after n marks in m; the
+ * "watches" section's drops and reconnects per second. */
+size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap);
+void html_watches(FILE *f, const results_t *res);
 /* html_metrics.c: the target's scraped metrics ("metrics" section), when the plan observed any. */
 void html_metrics(FILE *f, const results_t *res, const report_series_t *s);
 /* html_metrics.c: the actions and collects ("actions" section), each saved file linked. */

@@ -39,8 +39,8 @@ static size_t action_marks(const results_t *res, html_mark_t *m, size_t n, size_
     {
         json_t *at = json_object_get(it, "fired_unix_ms");
         if (n < cap && at && t0 > 0)
-            m[n++] = (html_mark_t){(double)(json_integer_value(at) - t0) / 1000.0,
-                                   json_string_value(json_object_get(it, "name"))};
+            m[n++] = (html_mark_t){.x = (double)(json_integer_value(at) - t0) / 1000.0,
+                                   .label = json_string_value(json_object_get(it, "name"))};
     }
     return n;
 }
@@ -48,7 +48,8 @@ static size_t action_marks(const results_t *res, html_mark_t *m, size_t n, size_
 size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m, size_t cap)
 {
     size_t n = phase_starts(res, s, m, cap);
-    return action_marks(res, m, n, cap);
+    n = action_marks(res, m, n, cap);
+    return html_drop_marks(res, m, n, cap);
 }
 
 /* Phase boundaries: the "phases" section's starts when the run wrote one, else the first
@@ -62,15 +63,16 @@ static size_t phase_starts(const results_t *res, const report_series_t *s, html_
     {
         const char *name = json_string_value(json_object_get(p, "name"));
         if (n < cap && name && json_number_value(json_object_get(p, "elapsed_s")) > 0)
-            m[n++] = (html_mark_t){json_number_value(json_object_get(p, "start_s")), name};
+            m[n++] = (html_mark_t){.x = json_number_value(json_object_get(p, "start_s")), .label = name};
     }
-    if (n > 0)
+    if (n > 0 || !s)
         return n;
     const char *names[MAX_LINES * 4];
     n = distinct(s, true, names, cap < MAX_LINES * 4 ? cap : MAX_LINES * 4);
     for (size_t k = 0; k < n; k++) {
         m[k].label = names[k];
         m[k].x = INFINITY;
+        m[k].alert = false;
         for (i = 0; i < report_series_count(s); i++) {
             const report_row_t *r = report_series_at(s, i);
             if (strcmp(r->phase, names[k]) == 0 && (double)r->second < m[k].x)
@@ -259,6 +261,8 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
                      .bands = bands,
                      .n_bands = html_bound_bands(res, bands, 256),
                      .band_label = "generator-bound second",
+                     .xmin = 0,
+                     .xmax = (double)secs,
                      .xnote = note};
     offered(f, s, secs, &p, marks, nm);
     size_t ok = 0;
@@ -270,6 +274,11 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
     figure(f, &p, errs, ok, marks, nm, NULL);
     /* Response time per class, its objectives' thresholds drawn as levels. */
     for (size_t c = 0; c < ok; c++) {
+        bool any = false; /* a watch class completes no request: its own section shows it */
+        for (size_t k = 0; k < secs; k++)
+            any |= !isnan(ps[c].p50[k]);
+        if (!any)
+            continue;
         int st = html_class_style(res, cls[c]);
         html_line_t lat[] = {{ps[c].x, ps[c].p99, secs, "p99", st, 0},
                              {ps[c].x, ps[c].p50, secs, "p50", st, 1},

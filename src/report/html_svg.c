@@ -93,6 +93,8 @@ static void ranges(const html_plot_t *p, const html_line_t *l, size_t n, axis_t 
         y->lo = 0, y->hi = 1;
     if (p->xaxis == HTML_X_LOG)
         x->lo = floor(x->lo), x->hi = fmax(ceil(x->hi), x->lo + 1);
+    else if (p->xmax > p->xmin)
+        x->lo = p->xmin, x->hi = p->xmax;
     else
         x->lo = fmin(0, x->lo);
     for (size_t i = 0; i < p->n_levels; i++) { /* thresholds stay in view */
@@ -333,9 +335,9 @@ static void frame(FILE *f, const html_plot_t *p, const char *cls, const axis_t *
             row++;
         row_end[row] = px + 8 + 6.5 * (double)strlen(marks[i].label ? marks[i].label : "");
         fprintf(f,
-                "<g class=\"mark\"><line x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\"/>"
+                "<g class=\"mark%s\"><line x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\"/>"
                 "<text x=\"%.1f\" y=\"%.1f\">",
-                px, px, TOP, H - BOTTOM, px + 3, TOP - 6 + 14.0 * row);
+                marks[i].alert ? " drop" : "", px, px, TOP, H - BOTTOM, px + 3, TOP - 6 + 14.0 * row);
         html_esc(f, marks[i].label);
         fputs("</text></g>\n", f);
     }

@@ -106,7 +106,7 @@ static void tail_plot(FILE *f, const results_t *res, int m, const char *phase, h
         size_t k0 = nt;
         nt += html_thresholds(res, metric, cls[c], thr + nt, 2 * MAX_CLASSES - nt);
         for (size_t k = k0; k < nt; k++) { /* p99 <= 1000 ms: at most 1 % slower than 1000 ms */
-            marks[k] = (html_mark_t){thr[k].ms, thr[k].label};
+            marks[k] = (html_mark_t){.x = thr[k].ms, .label = thr[k].label};
             lv[k] = (html_level_t){100 - thr[k].pct, NULL, st};
         }
     }

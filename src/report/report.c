@@ -30,6 +30,7 @@ const char html_css[] =
     "svg .grid{stroke:#e6e6e6}svg .tick{stroke:#888;fill:#333}svg text.tick{stroke:none}\n"
     "svg .frame{fill:none;stroke:#999}svg .axis-label{font-size:13px;fill:#222}\n"
     "svg .mark line{stroke:#666;stroke-dasharray:3 3}svg .mark text{font-size:11px;fill:#444}\n"
+    "svg .mark.drop line{stroke:#D55E00;stroke-dasharray:none}svg .mark.drop text{fill:#D55E00}"
     "svg .band{fill:#D55E00;fill-opacity:.16}svg .level line{stroke-dasharray:8 3 2 3;"
     "stroke-width:1.4}svg .level text{font-size:11px}svg .axis-note{font-size:11px;fill:#555}\n"
     "svg .legend text{font-size:12px;fill:#222}pre{background:#f6f6f6;padding:8px;"
@@ -321,6 +322,7 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
     html_plots_time(f, res, s);
     html_plots_heat(f, res, s);
     html_plots_tails(f, res);
+    html_watches(f, res);
     html_storms(f, res);
     html_metrics(f, res, s);
     html_actions(f, res);
