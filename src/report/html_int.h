@@ -108,9 +108,15 @@ void html_time_note(const results_t *res, char *buf, size_t cap);
  * instants of actions and collects, then the seconds watch streams were dropped. */
 size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m,
                         size_t cap);
-/* html_watches.c: marks at the seconds watch streams were dropped, after n marks in m; the
- * "watches" section's drops and reconnects per second. */
+/* Marks at the seconds watch streams were dropped, after n marks in m. */
 size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap);
+/* Adds each entry of the "watches" section's reconnect-log column key ("ended_ns", "sent_ns":
+ * ns since the phase's start; 0 = not sent) to per[run second] over secs seconds; returns how
+ * many it added. */
+size_t html_reconnect_count(const results_t *res, const char *key, double *per, size_t secs);
+/* The run's whole seconds (at least 1). */
+size_t html_run_seconds(const results_t *res);
+/* html_watches.c: the "watches" section's drops and reconnects per second. */
 void html_watches(FILE *f, const results_t *res);
 /* html_metrics.c: the target's scraped metrics ("metrics" section), when the plan observed any. */
 void html_metrics(FILE *f, const results_t *res, const report_series_t *s);

@@ -82,6 +82,63 @@ static size_t phase_starts(const results_t *res, const report_series_t *s, html_
     return n;
 }
 
+/* The run second a phase started at ("phases" section); NAN when unknown. */
+static double phase_start(const results_t *res, const char *phase)
+{
+    json_t *list = json_object_get(results_section(res, "phases"), "phases"), *p;
+    size_t i;
+    json_array_foreach(list, i, p)
+    {
+        const char *name = json_string_value(json_object_get(p, "name"));
+        if (name && !strcmp(name, phase))
+            return json_number_value(json_object_get(p, "start_s"));
+    }
+    return NAN;
+}
+
+size_t html_reconnect_count(const results_t *res, const char *key, double *per, size_t secs)
+{
+    json_t *w = results_section(res, "watches"), *ph, *v;
+    const char *name;
+    size_t n = 0, i;
+    json_object_foreach(w, name, ph)
+    {
+        double t0 = phase_start(res, name);
+        json_array_foreach(json_object_get(json_object_get(ph, "reconnect_log"), key), i, v)
+        {
+            double t = t0 + (double)json_integer_value(v) / 1e9;
+            if (isnan(t) || json_integer_value(v) <= 0 || t < 0 || t >= (double)secs)
+                continue;
+            per[(size_t)t]++;
+            n++;
+        }
+    }
+    return n;
+}
+
+size_t html_run_seconds(const results_t *res)
+{
+    double d = ceil((double)results_meta(res)->duration_ns / 1e9 - 1e-6);
+    return d >= 1 ? (size_t)d : 1;
+}
+
+size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap)
+{
+    static char labels[64][32]; /* the page is written by one thread */
+    size_t secs = html_run_seconds(res);
+    double *per = calloc(secs, sizeof(double));
+    if (!per)
+        return n;
+    html_reconnect_count(res, "ended_ns", per, secs);
+    for (size_t k = 0, used = 0; k < secs && n < cap && used < 64; k++)
+        if (per[k] > 0) {
+            snprintf(labels[used], sizeof labels[0], "%.0f dropped", per[k]);
+            m[n++] = (html_mark_t){(double)k, labels[used++], true};
+        }
+    free(per);
+    return n;
+}
+
 int html_class_style(const results_t *res, const char *cls)
 {
     const char *seen[64];

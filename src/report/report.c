@@ -22,8 +22,9 @@ const char html_css[] =
     ".banner{padding:10px 14px;margin:12px 0;border-left:6px solid;font-weight:600}\n"
     ".banner.good{border-color:#0072B2;background:#eaf3fa}.banner.bad{border-color:#D55E00;"
     "background:#fbeee6}.banner.unsure{border-color:#E69F00;background:#fdf5e1}\n"
-    ".banner .word{font-size:22px;letter-spacing:1px;margin-right:8px}.banner .limit,"
+    ".banner .word{font-size:20px;margin:0}.banner .limit,"
     ".banner ul{font-weight:400;margin:6px 0 0}\n"
+    "td.codes .c4,td.codes .c5{color:#b34700;font-weight:600}\n"
     ".note{color:#555;font-size:13px}figure{margin:12px 0 24px}figcaption{font-size:13px;"
     "color:#444}\n"
     "svg.plot{width:100%;height:auto;font:12px system-ui,sans-serif}\n"
@@ -96,9 +97,9 @@ static void header(FILE *f, const results_t *res)
         fputs(json_array_size(json_object_get(run, "overrides")) ? "</td></tr>\n"
                                                                    : "none</td></tr>\n",
               f);
-        snprintf(buf, sizeof buf, "%s (exit %lld)", jstr(run, "verdict") ? jstr(run, "verdict") : "?",
-                 (long long)json_integer_value(json_object_get(run, "exit_code")));
-        kv(f, "verdict", buf);
+        kv(f, "verdict", jstr(run, "verdict"));
+        snprintf(buf, sizeof buf, "%lld", (long long)json_integer_value(json_object_get(run, "exit_code")));
+        kv(f, "exit code", buf);
     }
     fputs("</table>\n", f);
 }
@@ -118,28 +119,28 @@ static void verdict(FILE *f, const results_t *res)
     const char *v = run ? jstr(run, "verdict") : NULL;
     size_t i;
     if (!v) {
-        fputs("<div class=\"banner bad\" id=\"verdict\"><span class=\"word\">NO VERDICT"
-              "</span> results.json has no \"run\" section (merged or written by an older "
-              "squall).</div>\n",
+        fputs("<div class=\"banner bad\" id=\"verdict\"><p class=\"word\">NO VERDICT: "
+              "results.json has no \"run\" section (merged or written by an older "
+              "squall).</p></div>\n",
               f);
         return;
     }
     bool pass = !strcmp(v, "pass"), fail = !strcmp(v, "fail");
     double gs = bound_seconds(res, "generator_bound"), cs = bound_seconds(res, "connection_bound");
     const char *tone = fail ? "bad" : !pass ? "unsure" : gs > 0 || cs > 0 ? "unsure" : "good";
-    fprintf(f, "<div class=\"banner %s\" id=\"verdict\"><span class=\"word\">%s</span> %s",
-            tone, pass ? "PASS" : fail ? "FAIL" : "INCONCLUSIVE",
-            pass   ? "every objective held."
-            : fail ? "at least one objective did not hold."
-                   : "the evidence cannot support a pass.");
+    fprintf(f, "<div class=\"banner %s\" id=\"verdict\" data-verdict=\"%s\"><p class=\"word\">%s</p>",
+            tone, v,
+            pass   ? "PASS: every objective held."
+            : fail ? "FAIL: at least one objective did not hold."
+                   : "INCONCLUSIVE: the evidence cannot support a pass.");
     if (gs > 0)
-        fprintf(f, "<div class=\"limit\" id=\"limit-generator\">Generator-bound for %.0f s: "
+        fprintf(f, "<div class=\"limit\" id=\"limit-generator\">GENERATOR-BOUND for %.0f s: "
                    "squall itself fell behind its schedule (shaded on the plots over time); "
                    "the target's figures for those seconds are not evidence.%s</div>",
                 gs, pass ? " The plan accepts them, so the pass rests on the other seconds." : "");
     if (cs > 0)
-        fprintf(f, "<div class=\"limit\" id=\"limit-connection\">Connection-bound for %.0f s: "
-                   "every connection of the plan was busy; times measured from each request's "
+        fprintf(f, "<div class=\"limit\" id=\"limit-connection\">CONNECTION-BOUND for %.0f s: "
+                   "the target answered so slowly that every connection of the plan was busy; times measured from each request's "
                    "intended start remain a correct verdict on the target, but less load was "
                    "offered than planned (raise target.connections).</div>",
                 cs);
