@@ -3,6 +3,7 @@
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 
 #include "compare_int.h"
 #include "html_int.h"
@@ -205,20 +206,55 @@ static const char *overrides_of(const results_t *r, char *buf, size_t cap)
     return buf;
 }
 
+static const char *started_of(const results_t *r, char *buf, size_t cap)
+{
+    int64_t ms = results_meta(r)->start_unix_ms;
+    if (ms <= 0)
+        return NULL;
+    time_t t = (time_t)(ms / 1000);
+    struct tm tm;
+    gmtime_r(&t, &tm);
+    strftime(buf, cap, "%Y-%m-%d %H:%M:%S UTC", &tm);
+    return buf;
+}
+
+static const char *seed_of(const results_t *r, char *buf, size_t cap)
+{
+    json_t *seed = json_object_get(results_section(r, "run"), "seed");
+    if (!json_is_integer(seed))
+        return NULL;
+    snprintf(buf, cap, "%llu", (unsigned long long)json_integer_value(seed));
+    return buf;
+}
+
 static void meta_rows(FILE *f, const results_t *b, const results_t *n)
 {
     const results_meta_t *mb = results_meta(b), *mn = results_meta(n);
-    char ob[512], on[512];
-    const char *k[] = {"plan", "plan sha256", "target", "overrides", "host", "stopped early"};
-    const char *vb[] = {mb->plan_path,  mb->plan_sha256,
-                        mb->target_url, overrides_of(b, ob, sizeof ob),
-                        mb->host,       mb->stop_reason};
-    const char *vn[] = {mn->plan_path,  mn->plan_sha256,
-                        mn->target_url, overrides_of(n, on, sizeof on),
-                        mn->host,       mn->stop_reason};
-    fputs("<table><tr><th></th><th>BASE</th><th>NEW</th></tr>\n", f);
+    char ob[512], on[512], tb[40], tn[40], sb[32], sn[32];
+    /* The first five differing are marked: a different plan, target or inputs. */
+    const char *k[] = {"plan",          "plan sha256", "target", "overrides", "seed",
+                       "started",       "host",        "squall", "stopped early"};
+    const char *vb[] = {mb->plan_path,
+                        mb->plan_sha256,
+                        mb->target_url,
+                        overrides_of(b, ob, sizeof ob),
+                        seed_of(b, sb, sizeof sb),
+                        started_of(b, tb, sizeof tb),
+                        mb->host,
+                        mb->squall_version,
+                        mb->stop_reason};
+    const char *vn[] = {mn->plan_path,
+                        mn->plan_sha256,
+                        mn->target_url,
+                        overrides_of(n, on, sizeof on),
+                        seed_of(n, sn, sizeof sn),
+                        started_of(n, tn, sizeof tn),
+                        mn->host,
+                        mn->squall_version,
+                        mn->stop_reason};
+    fputs("<table class=\"runs\"><tr><th></th><th>BASE</th><th>NEW</th></tr>\n", f);
     for (size_t i = 0; i < sizeof k / sizeof k[0]; i++) {
-        bool differ = vb[i] && vn[i] && strcmp(vb[i], vn[i]) && i < 4;
+        bool differ = vb[i] && vn[i] && strcmp(vb[i], vn[i]) && i < 5;
         fprintf(f, "<tr><th>%s</th><td%s>", k[i], differ ? " class=\"fail\"" : "");
         html_esc(f, vb[i] ? vb[i] : "-");
         fprintf(f, "</td><td%s>", differ ? " class=\"fail\"" : "");
@@ -234,16 +270,18 @@ static void verdict_row(FILE *f, const report_cmp_line_t *l)
     row_t r;
     row_text(l, &r);
     bool bad = l->verdict == REPORT_WORSE;
-    fputs("<tr><td>", f);
+    static const char *const style[] = {[REPORT_WITHIN_NOISE] = "same", [REPORT_WORSE] = "fail",
+                                        [REPORT_BETTER] = "pass", [REPORT_UNTESTED] = "untested"};
+    fprintf(f, "<tr class=\"%s\"><td>", style[l->verdict]);
     html_esc(f, l->phase);
     fputs("</td><td>", f);
     html_esc(f, l->cls);
     fprintf(f,
             "</td><td>%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
             "<td class=\"n\">%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
-            "<td class=\"%s\">%s%s</td></tr>\n",
-            r.metric, r.base, r.nw, r.change, r.p, r.samples, bad ? "fail" : "pass",
-            bad ? "&#10008; " : "", r.verdict);
+            "<td class=\"v %s\">%s%s</td></tr>\n",
+            r.metric, r.base, r.nw, r.change, r.p, r.samples, style[l->verdict],
+            bad ? "&#10008; " : l->verdict == REPORT_UNTESTED ? "? " : "", r.verdict);
 }
 
 static void verdict_rows(FILE *f, const report_cmp_t *c)
@@ -302,8 +340,43 @@ static bool spectrum(FILE *f, const results_t *b, const results_t *n, const char
     return true;
 }
 
-/* One spectrum per class of BASE: BASE solid, NEW dashed, same colour per run. */
-static void spectra(FILE *f, const results_t *b, const results_t *n)
+/* A class's p99 in each second of BASE and of NEW, each from its own start, on one plot;
+ * nothing when neither run completed a request of the class (a watch class). */
+static void over_time(FILE *f, const report_cmp_t *c, const char *cls)
+{
+    size_t cap = 0;
+    for (int k = 0; k < 2; k++)
+        for (size_t i = 0; c->series[k] && i < report_series_count(c->series[k]); i++)
+            cap = fmax(cap, (double)report_series_at(c->series[k], i)->second + 1);
+    double *buf = cap ? calloc(4 * cap, sizeof(double)) : NULL;
+    if (!buf)
+        return;
+    bool any[2] = {false, false};
+    double *x[2] = {buf, buf + 2 * cap}, *y[2] = {buf + cap, buf + 3 * cap};
+    size_t n[2] = {0, 0};
+    for (int k = 0; k < 2; k++)
+        if (c->series[k])
+            n[k] = html_class_p99(c->series[k], cls, x[k], y[k], cap, &any[k]);
+    html_line_t l[2] = {{x[0], y[0], n[0], "BASE p99", 0, 0}, {x[1], y[1], n[1], "NEW p99", 1, 1}};
+    if (any[0] || any[1]) {
+        char title[200];
+        snprintf(title, sizeof title, "%s: response time p99 in each second, BASE and NEW", cls);
+        html_plot_t p = {.title = title,
+                         .xlabel = "time since each run started (s)",
+                         .ylabel = "response time p99 (ms, log scale)",
+                         .ylog = true};
+        fputs("<figure class=\"over-time\">", f);
+        html_plot(f, &p, l, 2, NULL, 0);
+        fputs("<figcaption>", f);
+        html_esc(f, title);
+        fputs("</figcaption></figure>\n", f);
+    }
+    free(buf);
+}
+
+/* Per class of BASE: its p99 over time, then the share slower than x; BASE solid, NEW dashed,
+ * same colour per run. */
+static void spectra(FILE *f, const report_cmp_t *c, const results_t *b, const results_t *n)
 {
     int64_t lo, hi;
     int digits;
@@ -316,8 +389,10 @@ static void spectra(FILE *f, const results_t *b, const results_t *n)
         bool first = true;
         for (size_t k = 0; k < i && first; k++)
             first = strcmp(results_cell_class(results_cell_at(b, k)), cls) != 0;
-        if (first)
+        if (first) {
+            over_time(f, c, cls);
             spectrum(f, b, n, cls, h);
+        }
     }
     hist_free(h);
 }
@@ -344,9 +419,10 @@ static int write_page(FILE *f, const report_cmp_t *c, const results_t *b, const 
     verdict_rows(f, c);
     fputs("<p class=\"note\">Seconds and ticks: " METHOD_MW
           ".</p>\n<p class=\"note\">Samples: " METHOD_QT
-          ".</p></section>\n<section id=\"spectra\"><h2>Percentile spectra</h2>\n",
+          ".</p></section>\n<section id=\"spectra\"><h2>Per class: over time and slower than "
+          "x</h2>\n",
           f);
-    spectra(f, b, n);
+    spectra(f, c, b, n);
     fputs("</section></body></html>\n", f);
     return ferror(f) ? SQ_EIO : 0;
 }

@@ -99,6 +99,11 @@ typedef struct {
 } html_threshold_t;
 size_t html_thresholds(const results_t *res, const char *metric, const char *cls,
                        html_threshold_t *out, size_t cap);
+/* The p99 of class cls in each second of s (the slower row when two phases share a second):
+ * x = second + 0.5, y = NaN where nothing completed; returns the seconds written (at most cap)
+ * and sets *any when some second has a value. */
+size_t html_class_p99(const report_series_t *s, const char *cls, double *x, double *y, size_t cap,
+                      bool *any);
 /* The generator-bound seconds as bands [s, s + 1) of the time axis. */
 size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap);
 /* "0 s = 2026-12-02 15:04:05 UTC": the time axis's wall-clock start ("" when unknown). */

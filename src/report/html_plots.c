@@ -189,6 +189,25 @@ static int fill(const report_series_t *s, const char *cls, size_t secs, per_seco
     return 0;
 }
 
+size_t html_class_p99(const report_series_t *s, const char *cls, double *x, double *y, size_t cap,
+                      bool *any)
+{
+    size_t n = 0;
+    *any = false;
+    for (size_t i = 0; i < report_series_count(s); i++) {
+        const report_row_t *r = report_series_at(s, i);
+        if (strcmp(r->cls, cls) || r->second < 0 || (size_t)r->second >= cap)
+            continue;
+        for (; n <= (size_t)r->second; n++)
+            x[n] = (double)n + 0.5, y[n] = NAN;
+        if (r->completed > 0) {
+            y[r->second] = isnan(y[r->second]) ? r->p99_ms : fmax(y[r->second], r->p99_ms);
+            *any = true;
+        }
+    }
+    return n;
+}
+
 /* The generator-bound seconds ("generator" section) as bands [s, s + 1). */
 size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap)
 {
