@@ -39,7 +39,8 @@ typedef struct {
     const char *band_label; /* the legend's name for the bands ("generator-bound") */
     const html_level_t *levels;
     size_t n_levels;
-    double xmin, xmax; /* a fixed linear x range when xmax > xmin (the run's seconds) */
+    double xmin, xmax; /* when xmax > xmin: the linear x range (the run's seconds), or what a
+                        * log x axis must at least show (the objectives' thresholds) */
     const char *xnote; /* written under the x axis label's right end ("0 s = 15:04:05 UTC") */
 } html_plot_t;
 

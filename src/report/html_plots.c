@@ -304,7 +304,7 @@ static void offered(FILE *f, const report_series_t *s, size_t secs, html_plot_t 
         {x, planned, secs, "planned starts", 6, 1},
     };
     p->title = "Offered vs achieved: planned starts, starts and completions in each second "
-               "(every class)";
+               "(every class; each list page completes on its own)";
     p->ylabel = "requests per second";
     figure(f, p, l, any_planned ? 3 : 2, m, nm, "offered");
     free(all);

@@ -91,6 +91,8 @@ static void ranges(const html_plot_t *p, const html_line_t *l, size_t n, axis_t 
         x->lo = 0, x->hi = 1;
     if (y->lo > y->hi)
         y->lo = 0, y->hi = 1;
+    if (p->xaxis == HTML_X_LOG && p->xmax > p->xmin && p->xmin > 0) /* thresholds stay in view */
+        x->lo = fmin(x->lo, log10(p->xmin)), x->hi = fmax(x->hi, log10(p->xmax));
     if (p->xaxis == HTML_X_LOG)
         x->lo = floor(x->lo), x->hi = fmax(ceil(x->hi), x->lo + 1);
     else if (p->xmax > p->xmin)
@@ -317,7 +319,7 @@ static void frame(FILE *f, const html_plot_t *p, const char *cls, const axis_t *
         fprintf(f,
                 "<g class=\"level\"><line x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\" "
                 "stroke=\"%s\"/><text x=\"%.1f\" y=\"%.1f\" text-anchor=\"end\" fill=\"%s\">",
-                LEFT, W - RIGHT, py, py, c, W - RIGHT - 4, py - 4, c);
+                LEFT, W - RIGHT, py, py, c, W - RIGHT - 4, py - 4 < TOP + 12 ? py + 14 : py - 4, c);
         html_esc(f, p->levels[i].label);
         fputs("</text></g>\n", f);
     }
@@ -359,7 +361,7 @@ void html_plot(FILE *f, const html_plot_t *p, const html_line_t *lines, size_t n
         double lx = LEFT + (double)(n_lines % LEGEND_COLS) * colw;
         double ly = H + 4 + (double)(n_lines / LEGEND_COLS) * LEGEND_ROW;
         fprintf(f,
-                "<g class=\"legend\"><rect class=\"band\" x=\"%.1f\" y=\"%.1f\" width=\"30\" "
+                "<g class=\"legend\"><rect class=\"band key\" x=\"%.1f\" y=\"%.1f\" width=\"30\" "
                 "height=\"12\"/><text x=\"%.1f\" y=\"%.1f\">",
                 lx, ly - 6, lx + 38, ly + 4);
         html_esc(f, p->band_label ? p->band_label : "shaded");

@@ -121,15 +121,19 @@ static void tail_plot(FILE *f, const results_t *res, int m, const char *phase, h
                      .ylog = true,
                      .levels = lv,
                      .n_levels = nt};
+    for (size_t k = 0; k < nt; k++) { /* the thresholds stay in view */
+        p.xmin = k == 0 ? thr[k].ms / 1.5 : fmin(p.xmin, thr[k].ms / 1.5);
+        p.xmax = fmax(p.xmax, thr[k].ms * 1.5);
+    }
     fprintf(f, "<figure class=\"tail\" data-phase=\"");
     html_esc(f, phase);
     fprintf(f, "\" data-metric=\"%s\">\n", metric);
     html_plot(f, &p, l, nc, marks, nt);
     fputs("<figcaption>", f);
     html_esc(f, title);
-    fputs(nt ? ". Each objective is a corner: its line must pass under the level where its "
-               "dashed threshold crosses it."
-             : ".",
+    fputs(nt ? ". Each line ends at its slowest request. An objective is a corner: its dashed "
+               "threshold (x) and share (level); the line must pass below the corner."
+             : ". Each line ends at its slowest request.",
           f);
     fputs("</figcaption></figure>\n", f);
 }
