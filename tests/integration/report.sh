@@ -173,7 +173,9 @@ expect "squall report with no directory exits 2 (got $RC)" test "$RC" = 2
 # vermillion #D55E00: the markers are filled with them exactly) and the heat map's darkest shade
 # (#08306B, the busiest cell) drawn; the storm page also the drop marks' vermillion lines. The
 # PNG is decoded with zlib (PNG spec, W3C REC-png 2003: IHDR, IDAT, filters 0-4), so no imaging
-# package is needed. Kept under 30 s: three pages at 1200 px wide.
+# package is needed; plot frames (their grey edges one plot height apart) are located and each
+# must hold coloured ink. Kept under 30 s: three whole pages laid out 1200 CSS px wide, shot at
+# device scale 0.5 (a quarter of the pixels to decode in pure Python).
 if ! command -v chromium >/dev/null; then
     echo "FAIL: chromium is not installed (tools/setup installs it)"
     FAILED=1
@@ -183,12 +185,12 @@ else
         timeout 90 chromium --headless --no-sandbox --disable-gpu --disable-dev-shm-usage \
             --disable-background-networking --disable-component-update --disable-sync \
             --no-first-run --user-data-dir="$PROFILE" --screenshot="$T/shot-$page.png" \
-            --window-size=1200,9000 "file://$T/$page/report.html" >"$T/chromium-$page.log" 2>&1
+            --force-device-scale-factor=0.5 --window-size=1200,13000 "file://$T/$page/report.html" >"$T/chromium-$page.log" 2>&1
         rm -rf "$PROFILE"
         expect "chromium wrote a screenshot of $page" test -s "$T/shot-$page.png"
     done
     /usr/bin/python3 - "$T" <<'PY' || FAILED=1
-import struct, sys, zlib
+import collections, struct, sys, zlib
 def pixels(path):
     data = open(path, "rb").read()
     assert data[:8] == b"\x89PNG\r\n\x1a\n", "not a PNG"
@@ -204,7 +206,7 @@ def pixels(path):
     assert depth == 8 and ctype in (2, 6) and interlace == 0, (depth, ctype, interlace)
     bpp = 4 if ctype == 6 else 3
     raw, stride = zlib.decompress(idat), w * bpp
-    prev, colours = bytearray(stride), {}
+    prev, colours, frame, hue = bytearray(stride), {}, [], []
     for y in range(h):
         f, line = raw[y * (stride + 1)], bytearray(raw[y * (stride + 1) + 1:(y + 1) * (stride + 1)])
         if f == 2:
@@ -218,24 +220,44 @@ def pixels(path):
                 elif f == 4:
                     pa, pb, pc = abs(b - c), abs(a - c), abs(a + b - 2 * c)
                     line[i] = (line[i] + (a if pa <= pb and pa <= pc else b if pb <= pc else c)) & 255
+        greys = coloured = 0
         if bytes(line).count(255) != stride:
-            for x in range(0, stride, bpp):
-                px = bytes(line[x:x + 3])
-                colours[px] = colours.get(px, 0) + 1
+            for px, n in collections.Counter(zip(line[0::bpp], line[1::bpp], line[2::bpp])).items():
+                if px != (255, 255, 255):
+                    colours[px] = colours.get(px, 0) + n
+                if px[0] == px[1] == px[2] and 0x80 <= px[0] <= 0xD0:
+                    greys += n
+                elif max(px) - min(px) > 40:
+                    coloured += n
+        frame.append(greys > w // 2)  # a plot frame's top or bottom edge (#999 stroke)
+        hue.append(coloured)
         prev = line
-    return w, h, colours
+    # Plot regions: pairs of frame edges one plot height apart (the height most pairs share).
+    edges = [y for y in range(h) if frame[y]]
+    gaps = {}
+    for a in edges:
+        for b in edges:
+            if 150 < b - a < 450:
+                gaps[b - a] = gaps.get(b - a, 0) + 1
+    height = max(gaps, key=gaps.get) if gaps else 0
+    plots = [(a, a + height) for a in edges if height and any(abs(b - a - height) <= 1 for b in edges)]
+    return w, h, colours, plots, hue
 bad = 0
 want = {(0x00, 0x72, 0xB2): "blue", (0xD5, 0x5E, 0x00): "vermillion",
         (0x08, 0x30, 0x6B): "the heat map's darkest shade"}
 for page in ("run", "storm-1", "storm-m"):
-    w, h, colours = pixels("%s/shot-%s.png" % (sys.argv[1], page))
+    w, h, colours, plots, hue = pixels("%s/shot-%s.png" % (sys.argv[1], page))
     ink = sum(colours.values())
+    empty = [(a, b) for a, b in plots if sum(hue[a + 2:b - 1]) < 50]
+    print(("ok" if len(plots) >= 6 and not empty else "FAIL") + ": %s: %d plot frames located, "
+          "each with coloured ink inside (lines, cells or shading); empty: %s" % (page, len(plots), empty))
+    bad |= len(plots) < 6 or bool(empty)
     print(("ok" if len(colours) >= 50 else "FAIL") + ": %s: screenshot %dx%d has %d distinct "
           "colours (non-blank needs >= 50); %.0f %% of pixels not white"
           % (page, w, h, len(colours), 100 * ink / (w * h)))
     bad |= len(colours) < 50 or ink < 0.02 * w * h
     for rgb, name in want.items():
-        n = colours.get(bytes(rgb), 0)
+        n = colours.get(rgb, 0)
         print(("ok" if n >= 20 else "FAIL") + ": %s: %s #%02X%02X%02X drawn in %d pixels (>= 20)"
               % ((page, name) + rgb + (n,)))
         bad |= n < 20
