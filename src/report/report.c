@@ -24,7 +24,7 @@ const char html_css[] =
     "background:#fbeee6}.banner.unsure{border-color:#E69F00;background:#fdf5e1}\n"
     ".banner .word{font-size:20px;margin:0}.banner .limit,"
     ".banner ul{font-weight:400;margin:6px 0 0}\n"
-    "tr.same td.v{color:#555}tr.untested td{color:#777;font-style:italic}"
+    "table.runs td{word-break:break-all}tr.same td.v{color:#555}tr.untested td{color:#777;font-style:italic}"
     "tr.untested td.v{background:#f2f2f2}\n"
     "td.codes .c4,td.codes .c5{color:#b34700;font-weight:600}\n"
     ".note{color:#555;font-size:13px}figure{margin:12px 0 24px}figcaption{font-size:13px;"
