@@ -227,31 +227,38 @@ static const char *seed_of(const results_t *r, char *buf, size_t cap)
     return buf;
 }
 
+#define META_ROWS 9
+
+/* A run's values for the rows of meta_rows, some written into the buffers of t. */
+typedef struct {
+    char overrides[512], started[40], seed[32];
+} meta_text_t;
+
+static void meta_values(const results_t *r, meta_text_t *t, const char **v)
+{
+    const results_meta_t *m = results_meta(r);
+    const char *all[META_ROWS] = {m->plan_path,
+                                  m->plan_sha256,
+                                  m->target_url,
+                                  overrides_of(r, t->overrides, sizeof t->overrides),
+                                  seed_of(r, t->seed, sizeof t->seed),
+                                  started_of(r, t->started, sizeof t->started),
+                                  m->host,
+                                  m->squall_version,
+                                  m->stop_reason};
+    memcpy(v, all, sizeof all);
+}
+
 static void meta_rows(FILE *f, const results_t *b, const results_t *n)
 {
     const results_meta_t *mb = results_meta(b), *mn = results_meta(n);
-    char ob[512], on[512], tb[40], tn[40], sb[32], sn[32];
     /* The first five differing are marked: a different plan, target or inputs. */
-    const char *k[] = {"plan",          "plan sha256", "target", "overrides", "seed",
-                       "started",       "host",        "squall", "stopped early"};
-    const char *vb[] = {mb->plan_path,
-                        mb->plan_sha256,
-                        mb->target_url,
-                        overrides_of(b, ob, sizeof ob),
-                        seed_of(b, sb, sizeof sb),
-                        started_of(b, tb, sizeof tb),
-                        mb->host,
-                        mb->squall_version,
-                        mb->stop_reason};
-    const char *vn[] = {mn->plan_path,
-                        mn->plan_sha256,
-                        mn->target_url,
-                        overrides_of(n, on, sizeof on),
-                        seed_of(n, sn, sizeof sn),
-                        started_of(n, tn, sizeof tn),
-                        mn->host,
-                        mn->squall_version,
-                        mn->stop_reason};
+    const char *k[META_ROWS] = {"plan",    "plan sha256", "target", "overrides",    "seed",
+                                "started", "host",        "squall", "stopped early"};
+    const char *vb[META_ROWS], *vn[META_ROWS];
+    meta_text_t tb, tn;
+    meta_values(b, &tb, vb);
+    meta_values(n, &tn, vn);
     fputs("<table class=\"runs\"><tr><th></th><th>BASE</th><th>NEW</th></tr>\n", f);
     for (size_t i = 0; i < sizeof k / sizeof k[0]; i++) {
         bool differ = vb[i] && vn[i] && strcmp(vb[i], vn[i]) && i < 5;
@@ -332,11 +339,7 @@ static bool spectrum(FILE *f, const results_t *b, const results_t *n, const char
                      .ylabel = "slower than x (%, log scale)",
                      .xaxis = HTML_X_LOG,
                      .ylog = true};
-    fputs("<figure>", f);
-    html_plot(f, &p, l, 2, NULL, 0);
-    fputs("<figcaption>", f);
-    html_esc(f, title);
-    fputs("</figcaption></figure>\n", f);
+    html_figure(f, NULL, &p, l, 2, NULL, 0);
     return true;
 }
 
@@ -365,11 +368,7 @@ static void over_time(FILE *f, const report_cmp_t *c, const char *cls)
                          .xlabel = "time since each run started (s)",
                          .ylabel = "response time p99 (ms, log scale)",
                          .ylog = true};
-        fputs("<figure class=\"over-time\">", f);
-        html_plot(f, &p, l, 2, NULL, 0);
-        fputs("<figcaption>", f);
-        html_esc(f, title);
-        fputs("</figcaption></figure>\n", f);
+        html_figure(f, "over-time", &p, l, 2, NULL, 0);
     }
     free(buf);
 }

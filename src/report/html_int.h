@@ -60,6 +60,10 @@ typedef struct {
     bool alert; /* drawn in the alert colour (a moment streams were dropped) */
 } html_mark_t;
 
+/* html_plot inside <figure class="cls"> (no class when NULL) captioned with the plot's title. */
+void html_figure(FILE *f, const char *cls, const html_plot_t *p, const html_line_t *lines,
+                 size_t n_lines, const html_mark_t *marks, size_t n_marks);
+
 /* A heat map: nx columns from x0 in steps of dx, ny rows between the ny + 1 edges yedge (in y's
  * units, increasing; a log axis when the plot's ylog), count[ix * ny + iy] per cell; the shade of
  * a cell grows with log(count), empty cells are left blank. */
@@ -107,6 +111,10 @@ size_t html_class_p99(const report_series_t *s, const char *cls, double *x, doub
                       bool *any);
 /* The generator-bound seconds as bands [s, s + 1) of the time axis. */
 size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap);
+/* A plot over the run's secs seconds: x in seconds since the start with the wall-clock start
+ * written into note, the generator-bound seconds shaded (into bands, at most cap). */
+html_plot_t html_time_plot(const results_t *res, size_t secs, html_band_t *bands, size_t cap,
+                           char *note, size_t note_cap);
 /* "0 s = 2026-12-02 15:04:05 UTC": the time axis's wall-clock start ("" when unknown). */
 void html_time_note(const results_t *res, char *buf, size_t cap);
 /* Marks on the run's time axis (s): phase boundaries (the "phases" section's starts when the run

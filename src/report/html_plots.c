@@ -223,6 +223,20 @@ size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap)
     return n;
 }
 
+html_plot_t html_time_plot(const results_t *res, size_t secs, html_band_t *bands, size_t cap,
+                           char *note, size_t note_cap)
+{
+    html_time_note(res, note, note_cap);
+    return (html_plot_t){.xlabel = "time since the run started (s)",
+                         .yzero = true,
+                         .bands = bands,
+                         .n_bands = html_bound_bands(res, bands, cap),
+                         .band_label = "generator-bound second",
+                         .xmin = 0,
+                         .xmax = (double)secs,
+                         .xnote = note};
+}
+
 void html_time_note(const results_t *res, char *buf, size_t cap)
 {
     int64_t ms = results_meta(res)->start_unix_ms;
@@ -265,19 +279,6 @@ size_t html_thresholds(const results_t *res, const char *metric, const char *cls
     return n;
 }
 
-static void figure(FILE *f, const html_plot_t *p, html_line_t *l, size_t n, const html_mark_t *m,
-                   size_t nm, const char *id)
-{
-    if (id)
-        fprintf(f, "<figure id=\"%s\">\n", id);
-    else
-        fputs("<figure>\n", f);
-    html_plot(f, p, l, n, m, nm);
-    fprintf(f, "<figcaption>");
-    html_esc(f, p->title);
-    fputs("</figcaption></figure>\n", f);
-}
-
 /* Planned starts, achieved starts and completions per second, every class added up. */
 static void offered(FILE *f, const report_series_t *s, size_t secs, html_plot_t *p,
                     const html_mark_t *m, size_t nm)
@@ -306,7 +307,7 @@ static void offered(FILE *f, const report_series_t *s, size_t secs, html_plot_t 
     p->title = "Offered vs achieved: planned starts, starts and completions in each second "
                "(every class; each list page completes on its own)";
     p->ylabel = "requests per second";
-    figure(f, p, l, any_planned ? 3 : 2, m, nm, "offered");
+    html_figure(f, "offered", p, l, any_planned ? 3 : 2, m, nm);
     free(all);
 }
 
@@ -331,15 +332,7 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
     html_band_t bands[256];
     size_t nm = html_phase_marks(res, s, marks, MAX_LINES * 4);
     char note[80];
-    html_time_note(res, note, sizeof note);
-    html_plot_t p = {.xlabel = "time since the run started (s)",
-                     .yzero = true,
-                     .bands = bands,
-                     .n_bands = html_bound_bands(res, bands, 256),
-                     .band_label = "generator-bound second",
-                     .xmin = 0,
-                     .xmax = (double)secs,
-                     .xnote = note};
+    html_plot_t p = html_time_plot(res, secs, bands, 256, note, sizeof note);
     offered(f, s, secs, &p, marks, nm);
     size_t ok = 0;
     for (size_t c = 0; c < nc && fill(s, cls[c], secs, &ps[c]) == 0; c++, ok++)
@@ -347,7 +340,7 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
                                 html_class_style(res, cls[c]), 0};
     p.title = "Errors in each second, per class (every outcome but 2xx and 3xx)";
     p.ylabel = "errors per second";
-    figure(f, &p, errs, ok, marks, nm, NULL);
+    html_figure(f, "errors", &p, errs, ok, marks, nm);
     /* Response time per class, its objectives' thresholds drawn as levels. */
     for (size_t c = 0; c < ok; c++) {
         bool any = false; /* a watch class completes no request: its own section shows it */

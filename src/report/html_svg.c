@@ -434,3 +434,16 @@ void html_heat(FILE *f, const html_plot_t *p, const html_heat_t *h, const html_m
     }
     fputs("</g>\n</svg>\n", f);
 }
+
+void html_figure(FILE *f, const char *cls, const html_plot_t *p, const html_line_t *lines,
+                 size_t n_lines, const html_mark_t *marks, size_t n_marks)
+{
+    if (cls)
+        fprintf(f, "<figure class=\"%s\">\n", cls);
+    else
+        fputs("<figure>\n", f);
+    html_plot(f, p, lines, n_lines, marks, n_marks);
+    fputs("<figcaption>", f);
+    html_esc(f, p->title);
+    fputs("</figcaption></figure>\n", f);
+}

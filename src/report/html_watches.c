@@ -28,20 +28,12 @@ void html_watches(FILE *f, const results_t *res)
     html_mark_t marks[128];
     html_band_t bands[256];
     char note[80];
-    html_time_note(res, note, sizeof note);
     size_t nm = html_phase_marks(res, NULL, marks, 128);
     html_line_t l[] = {{x, drops, secs, "streams dropped", 1, 0},
                        {x, recon, secs, "reconnects sent", 0, 1}};
-    html_plot_t p = {.title = "Watch streams dropped and reconnects sent in each second",
-                     .xlabel = "time since the run started (s)",
-                     .ylabel = "streams per second",
-                     .yzero = true,
-                     .bands = bands,
-                     .n_bands = html_bound_bands(res, bands, 256),
-                     .band_label = "generator-bound second",
-                     .xmin = 0,
-                     .xmax = (double)secs,
-                     .xnote = note};
+    html_plot_t p = html_time_plot(res, secs, bands, 256, note, sizeof note);
+    p.title = "Watch streams dropped and reconnects sent in each second";
+    p.ylabel = "streams per second";
     fputs("<figure id=\"watch-drops\">\n", f);
     html_plot(f, &p, l, 2, marks, nm);
     fprintf(f, "<figcaption>Watch streams dropped (%zu) and reconnects sent (%zu), every watch "

