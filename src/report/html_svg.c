@@ -335,11 +335,14 @@ static void frame(FILE *f, const html_plot_t *p, const char *cls, const axis_t *
         int row = 0;
         while (row < 2 && px < row_end[row])
             row++;
-        row_end[row] = px + 8 + 6.5 * (double)strlen(marks[i].label ? marks[i].label : "");
+        double width = 6.5 * (double)strlen(marks[i].label ? marks[i].label : "");
+        bool left = px + 3 + width > W; /* a label that would run off the right: left of its line */
+        row_end[row] = left ? px + 8 : px + 8 + width;
         fprintf(f,
                 "<g class=\"mark%s\"><line x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\"/>"
-                "<text x=\"%.1f\" y=\"%.1f\">",
-                marks[i].alert ? " drop" : "", px, px, TOP, H - BOTTOM, px + 3, TOP - 6 + 14.0 * row);
+                "<text x=\"%.1f\" y=\"%.1f\"%s>",
+                marks[i].alert ? " drop" : "", px, px, TOP, H - BOTTOM, left ? px - 3 : px + 3,
+                TOP - 6 + 14.0 * row, left ? " text-anchor=\"end\"" : "");
         html_esc(f, marks[i].label);
         fputs("</text></g>\n", f);
     }
