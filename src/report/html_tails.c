@@ -150,15 +150,16 @@ void html_plots_tails(FILE *f, const results_t *res)
     size_t np = phases(res, ph, 64);
     static const char *const metrics[] = {"response", "propagation", "open"};
     static const char *const heads[] = {
-        "<section id=\"tails\"><h2>Slower than x, per phase</h2>\n<p class=\"note\">From each "
-        "phase's full histograms (HDR, 3 significant digits): the share of requests whose "
-        "response time (from the intended start) exceeded x. Reading across at 1 % gives the "
-        "p99, at 0.1 % the p99.9.</p>\n",
-        "<section id=\"propagation\"><h2>Propagation latency, per phase</h2>\n<p class="
-        "\"note\">A write's send stamp to the moment a watcher saw its event (wall clocks of "
-        "writer and watcher).</p>\n",
-        "<section id=\"watch-open\"><h2>Watch open latency, per phase</h2>\n<p class=\"note\">"
-        "From a stream's intended open to its first body byte, reconnects included.</p>\n"};
+        ("<section id=\"tails\"><h2>Slower than x, per phase</h2>\n<p class=\"note\">From "
+         "each phase's full histograms (HDR, 3 significant digits): the share of requests whose "
+         "response time (from the intended start) exceeded x. Reading across at 1 % gives the "
+         "p99, at 0.1 % the p99.9.</p>\n"),
+        ("<section id=\"propagation\"><h2>Propagation latency, per phase</h2>\n<p class="
+         "\"note\">A write's send stamp to the moment a watcher saw its event (wall clocks of "
+         "writer and watcher).</p>\n"),
+        ("<section id=\"watch-open\"><h2>Watch open latency, per phase</h2>\n<p class="
+         "\"note\">From a stream's intended open to its first body byte, reconnects "
+         "included.</p>\n")};
     for (size_t k = 0; k < 3; k++) {
         int m = results_metric_from_name(metrics[k]);
         bool any = false;
