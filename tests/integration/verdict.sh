@@ -91,7 +91,7 @@ rcheck "the verdict is fail, its reasons the p99 checks, nothing about evidence"
     "$T/stall"
 expect "the summary says CONNECTION-BOUND and to raise target.connections" \
     grep -q "^CONNECTION-BOUND for [0-9]* s (seconds .*raise target.connections" "$T/stall.stdout"
-expect "report.html says so too" grep -q "CONNECTION-BOUND: the target answered so slowly" \
+expect "report.html says so too" grep -q "CONNECTION-BOUND for [0-9]* s: the target answered so slowly" \
     "$T/stall/report.html"
 
 # --- 3. Latency objectives only, against a path that answers 404 ------------------------------
