@@ -52,8 +52,7 @@ YAML
 
 counts() { serve_stats 's["requests"].get("GET", {}).get("200", 0) + s["requests"].get("PUT", {}).get("200", 0)'; }
 before=$(counts)
-START=$(/usr/bin/python3 -c 'import datetime as d
-print((d.datetime.now(d.timezone.utc) + d.timedelta(seconds=4)).isoformat(timespec="milliseconds"))')
+START=$(instant_in 4)
 ROOT=()
 [ "$(id -u)" = 0 ] && ROOT=(--allow-run-as-root)
 export SQUALL T START

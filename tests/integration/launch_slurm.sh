@@ -89,8 +89,7 @@ objectives:
 YAML
 gets() { serve_stats 's["requests"].get("GET", {}).get("200", 0)'; }
 before=$(gets)
-START=$(/usr/bin/python3 -c 'import datetime as d
-print((d.datetime.now(d.timezone.utc) + d.timedelta(seconds=4)).isoformat(timespec="milliseconds"))')
+START=$(instant_in 4)
 export SQUALL T START
 timeout 90 srun -n 2 -t 1 sh -c 'echo "$SLURM_PROCID $SLURM_STEP_NUM_TASKS" >"$T/task-$SLURM_PROCID" &&
     "$SQUALL" run "$T/plan.yaml" -o "$T/shard-$SLURM_PROCID" --quiet --start-at "$START"' \

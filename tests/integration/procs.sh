@@ -112,8 +112,7 @@ expect "the refusals sent nothing ($b -> $(gets) answers)" test "$(gets)" = "$b"
 
 # 4. A start already 0.5 s past (within the 1 s tolerance): runs at once, says how late, and
 #    counts that second as generator-bound: INCONCLUSIVE, exit 7.
-LATE=$(/usr/bin/python3 -c 'import datetime as d
-print((d.datetime.now(d.timezone.utc) - d.timedelta(seconds=0.5)).isoformat())')
+LATE=$(instant_in -0.5)
 run_plan "$T/late" "$T/pass.yaml" --start-at "$LATE"
 expect "a start 0.5 s late: exit 7 (got $RUN_RC) and a line saying so" \
     grep -q "after --start-at" "$T/late.stderr"

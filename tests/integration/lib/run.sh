@@ -87,3 +87,10 @@ except (OSError, KeyError, ValueError) as e:
     tail -3 "$out.stderr" 2>/dev/null | sed 's/^/      stderr: /'
     FAILED=1
 }
+
+# instant_in SECONDS: the wall-clock instant SECONDS from now (negative: ago) as RFC 3339 UTC
+# with microseconds, for --start-at.
+instant_in() {
+    /usr/bin/python3 -c 'import datetime as d, sys
+print((d.datetime.now(d.timezone.utc) + d.timedelta(seconds=float(sys.argv[1]))).isoformat())' "$1"
+}
