@@ -54,7 +54,7 @@ MpiDefault=none
 ReturnToService=2
 SlurmctldPort=$CPORT
 SlurmdPort=$DPORT
-NodeName=$H NodeAddr=127.0.0.1 CPUs=2 State=UNKNOWN
+NodeName=$H NodeAddr=127.0.0.1 CPUs=$(nproc) State=UNKNOWN
 PartitionName=squall Nodes=ALL Default=YES MaxTime=10 State=UP
 EOF
 stop_slurm() {
