@@ -38,7 +38,8 @@ const cli_opt_t cli_run_opts[] = {
     [OPT_SEED] = {"seed", 0, "N", "seed for every random choice (default: the plan's, else time)"},
     [OPT_GRACE] = {"grace", 0, "DURATION",
                    "after a signal or brake, how long in-flight requests may take (2s)"},
-    [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (recorded in the results)"},
+    [OPT_SHARD] = {"shard", 0, "I/N",
+                   "send only shard I's share of the plan (of N processes that together send it)"},
     [OPT_KEEP] = {"keep", 0, NULL, "no teardown: leave the objects this run created"},
     [OPT_FORCE] = {"force", 0, NULL, "write into a results directory that already holds results"},
     [OPT_ALLOW_EXEC] = {"allow-exec", 0, NULL,
@@ -51,19 +52,26 @@ const cli_opt_t cli_run_opts[] = {
     {NULL, 0, NULL, NULL},
 };
 
-static int parse_shard(const char *v, run_opts_t *ro)
+int cli_shard_parse(const char *v, int *index, int *count, const char **why)
 {
     int64_t i, n;
     char a[32], b[32];
     const char *slash = strchr(v, '/');
+    *why = "I/N is two whole numbers, e.g. 2/4";
     if (!slash || slash - v >= 32 || strlen(slash + 1) >= 32)
         return SQ_EINVAL;
     snprintf(a, sizeof a, "%.*s", (int)(slash - v), v);
     snprintf(b, sizeof b, "%s", slash + 1);
-    if (value_parse_int(b, 1, 100000, &n) || value_parse_int(a, 1, n, &i))
+    if (value_parse_int(b, INT64_MIN, INT64_MAX, &n) || value_parse_int(a, INT64_MIN, INT64_MAX, &i))
         return SQ_EINVAL;
-    ro->shard_index = (int)i;
-    ro->shard_count = (int)n;
+    *why = "N (the number of shards) must be within 1..100000";
+    if (n < 1 || n > 100000)
+        return SQ_EINVAL;
+    *why = "I must be within 1..N (shards count from 1)";
+    if (i < 1 || i > n)
+        return SQ_EINVAL;
+    *index = (int)i;
+    *count = (int)n;
     return 0;
 }
 
@@ -71,6 +79,7 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
 {
     cli_run_args_t *ra = ctx;
     int64_t ns;
+    const char *why;
     switch (k) {
     case CLI_POSITIONAL:
         return cli_take_one(cmd, &ra->path, v, "plan", o);
@@ -109,8 +118,8 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
         ra->ro.grace_ns = ns;
         break;
     case OPT_SHARD:
-        if (parse_shard(v, &ra->ro))
-            return cli_usage_error(cmd, o, "--shard needs I/N with 1 <= I <= N, got '%s'", v);
+        if (cli_shard_parse(v, &ra->ro.shard_index, &ra->ro.shard_count, &why))
+            return cli_usage_error(cmd, o, "--shard %s: %s", v, why);
         break;
     case OPT_KEEP:
         ra->ro.keep = true;
