@@ -175,6 +175,23 @@ created = {k[1] for k, v in four.items() if k[2] == "201" and "/made/" in k[1] o
            k[2] == "201" and ("/turn/" in k[1] or "/leases/" in k[1])}
 check(union == created, f"... and together every object the target created ({len(created)})")
 
+# The one model of "how many starts": series.csv's planned column, summed over the run per phase
+# and class, is the shards' share (their four add up to the single run's).
+import csv
+def planned(path):
+    out = collections.Counter()
+    for row in csv.DictReader(open(path)):
+        if row["planned"] not in ("", "nan"):
+            out[(row["phase"], row["class"])] += float(row["planned"])
+    return out
+p1 = planned(f"{T}/single/series.csv")
+p4 = collections.Counter()
+for i in range(1, 5):
+    p4.update(planned(f"{T}/shard-{i}/series.csv"))
+check(set(p1) == set(p4) and all(abs(p1[k] - p4[k]) < 0.01 for k in p1),
+      "series.csv planned: the shards' shares add up to the single run's per phase and class ("
+      + ", ".join(f"{k[1]} {p4[k]:.0f}" for k in sorted(p1)) + ")")
+
 # Everything torn down; the target's own counters agree.
 for n in ("single", "shards"):
     s = stats[n]
@@ -246,6 +263,62 @@ expect "... naming what is wrong (5/4: I within 1..N)" \
 SENT=$(serve_stats 'sum(sum(v.values()) for v in s["requests"].values())')
 expect "the target received nothing from the refused runs (got $SENT)" test "$SENT" = 0
 serve_stop
+
+# --- replay by client identity: 2 shards, one after the other, against one process -------------
+# A Common Log Format log (user field = client identity) of six gateways, four requests each over
+# two seconds; each request names its client and its place in the client's order.
+for sec in 0 1; do
+    for n in 0 1; do
+        for g in a b c d e f; do
+            k=$((2 * sec + n))
+            echo "127.0.0.1 - gw-$g [02/Dec/2026:10:00:0$sec +0000] \"GET /v1/sites/south/gateways/gw-2?who=gw-$g&n=$k HTTP/1.1\" 200 12"
+        done
+    done
+done >"$T/day.log"
+cat >"$T/replay.yaml" <<YAML
+seed: 11
+target: {url: "http://127.0.0.1:9", connections: 8, timeout: 5s} # --set per run
+phases:
+  - {name: again, replay: {log: day.log, speed: 4}}
+YAML
+# Each run against a fresh target with its own access log (the target writes a line at each
+# request's end and flushes on exit).
+for who in single 1/2 2/2; do
+    name=replay-${who/\//-}
+    serve_start --access-log "$T/$name.access" || exit 1
+    seed_store
+    if [ "$who" = single ]; then extra=(); else extra=(--shard "$who"); fi
+    run_plan "$T/$name" "$T/replay.yaml" --set "target.url=$SERVE_URL" "${extra[@]}"
+    expect "replay ($who) exits 0 (got $RUN_RC; $(tail -1 "$T/$name.stderr"))" test "$RUN_RC" = 0
+    after_run "$name"
+done
+/usr/bin/python3 - "$T" <<'PY'
+import functools, re, sys
+T = sys.argv[1]
+def sent(name):
+    return [re.search(r"who=(gw-\w)&n=(\d)", l).groups()
+            for l in open(f"{T}/{name}.access.done") if "who=" in l]
+one, s1, s2 = sent("replay-single"), sent("replay-1-2"), sent("replay-2-2")
+# FNV-1a 64 written out again here (the published algorithm), not squall's.
+fnv = lambda s: functools.reduce(lambda h, b: ((h ^ b) * 0x100000001b3) % (1 << 64), s.encode(),
+                                 0xcbf29ce484222325)
+ok = sorted(one) == sorted(s1 + s2) and len(one) == 24
+print(("ok: " if ok else "FAIL: ") + f"replay: the two shards sent the single run's 24 requests "
+      f"({len(s1)} + {len(s2)} = {len(one)})")
+bad = not ok
+for i, part in ((1, s1), (2, s2)):
+    clients = {c for c, _ in part}
+    want = {c for c, _ in one if fnv(c) % 2 == i - 1}
+    order = all([int(n) for c2, n in part if c2 == c] == [0, 1, 2, 3] for c in clients)
+    good = bool(clients) and clients == want and order
+    print(("ok: " if good else "FAIL: ") + f"replay shard {i}/2 sent all of, and only, the clients "
+          f"with FNV-1a mod 2 = {i - 1} ({', '.join(sorted(clients))}), each in recorded order")
+    bad |= not good
+sys.exit(1 if bad else 0)
+PY
+[ $? -eq 0 ] || FAILED=1
+rcheck "shard 2/2's replay section counts the other shard's requests (other_shards 12)" \
+    "d['sections']['replay']['again']['other_shards'] == 12" "$T/replay-2-2"
 
 [ "$FAILED" = 0 ] && echo "shards-split: all checks passed"
 exit "$FAILED"
