@@ -31,14 +31,14 @@ curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/
 plan
 for k in 1 2 3; do
     run_plan "$T/same-$k" "$T/plan.yaml"
-    expect "baseline run $k completes (exit $RUN_RC)" test "$RUN_RC" = 0
+    expect_rc "baseline run $k completes (exit $RUN_RC)" "$T/same-$k" 0
 done
 serve_stop
 serve_start --delay fixed:5ms || exit 1
 curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 plan
 run_plan "$T/slow" "$T/plan.yaml"
-expect "the 5 ms delay run completes (exit $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the 5 ms delay run completes (exit $RUN_RC)" "$T/slow" 0
 serve_stop
 
 "$SQUALL" compare "$T/same-1" "$T/slow" >"$T/reg.txt" 2>"$T/reg.err"
@@ -130,13 +130,13 @@ accept: [generator-bound]
 YAML
 for k in 1 2; do
     run_plan "$T/storm-$k" "$T/storm.yaml"
-    expect "storm run $k completes (exit $RUN_RC)" test "$RUN_RC" = 0
+    expect_rc "storm run $k completes (exit $RUN_RC)" "$T/storm-$k" 0
 done
 FAULT=$(curl -s -o /dev/null -w '%{http_code}' -X POST --data '{"delay":"fixed:5ms"}' \
     "$SERVE_URL/admin/faults")
 expect "the target takes a 5 ms delay (POST /admin/faults: $FAULT)" test "$FAULT" = 200
 run_plan "$T/storm-slow" "$T/storm.yaml"
-expect "the storm run with the delay completes (exit $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the storm run with the delay completes (exit $RUN_RC)" "$T/storm-slow" 0
 serve_stop
 
 "$SQUALL" compare "$T/storm-1" "$T/storm-2" >"$T/storm-same.txt" 2>"$T/storm-same.err"

@@ -12,7 +12,7 @@ rm -rf "$T"
 mkdir -p "$T"
 timeout 120 "$SQUALL" demo -o "$T/out" >"$T/out.stdout" 2>"$T/out.stderr"
 RUN_RC=$?
-expect "squall demo exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "squall demo exits 0 (got $RUN_RC)" "$T/out" 0
 
 /usr/bin/python3 - "$PLAN" "$T/out" "$T/out.stdout" <<'PY' || FAILED=1
 import json, math, re, sys

@@ -19,6 +19,7 @@ serve_start || exit 1
 cat >"$T/life.yaml" <<YAML
 seed: 5
 target: {url: "$SERVE_URL", connections: 16, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   renew: {kind: write, method: PUT, path: "/v1/agents/a-{{agent}}/lease/l", body: '{"stamp":{{now_ns}}}'}
   follow-own: {kind: watch, path: "/v1/agents/a-{{agent}}/lease?watch=1", stamp-key: stamp}
@@ -26,7 +27,7 @@ phases:
   - {name: life, duration: 5s, fleet: {agents: 6, every: 1s, leave: 2s, send: renew, watch: follow-own}}
 YAML
 run_plan "$T/life" "$T/life.yaml"
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/life" 0
 N=$(rget "$T/life" 'total("renew", "2xx")')
 read -r LO HI < <(/usr/bin/python3 -c 'from fractions import Fraction as F
 import math

@@ -53,6 +53,7 @@ BEFORE=$(files)
 
 cat >"$T/dav.yaml" <<YAML
 target: {url: "http://127.0.0.1:$PORT", connections: 4, timeout: 2s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   put-file: {kind: write, method: PUT, path: "/gw/north/gw-{{seq}}.json",
              body: '{"site":"north","stamp":{{now_ns}}}', creates: true}
@@ -62,7 +63,7 @@ phases:
   - {name: read, rate: 50/s, duration: 1s, mix: {read-file: 1}}
 YAML
 run_plan "$T/run" "$T/dav.yaml"
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/run" 0
 rcheck "nginx answered 201 Created to all 100 PUTs" \
     "cell('fill', 'put-file', '2xx')['count'] == 100 and d['sections']['lifecycle']['created'] == 100" \
     "$T/run"
@@ -74,7 +75,7 @@ expect "the root holds only its $BEFORE file again (has $(files))" test "$(files
 expect "and the file that was there before is untouched" test -s "$T/www/gw/keep-me.json"
 
 run_plan "$T/keep" "$T/dav.yaml" --keep
-expect "the --keep run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the --keep run exits 0 (got $RUN_RC)" "$T/keep" 0
 expect "with --keep the 100 PUT files stay in the root ($(files) files)" \
     test "$(files)" = $((BEFORE + 100))
 "$SQUALL" cleanup "$T/keep" >"$T/cleanup.out" 2>&1
@@ -88,6 +89,7 @@ expect "and the root is back to $BEFORE file (has $(files))" test "$(files)" = "
 tenant() { find "$T/www/tenant" -type f | wc -l; }
 cat >"$T/tenant.yaml" <<YAML
 target: {url: "http://127.0.0.1:$PORT", connections: 4, timeout: 2s, headers: {X-Tenant: north}}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   put-file: {kind: write, method: PUT, path: "/tenant/gw-{{seq}}.json",
              body: '{"site":"north"}', creates: true}

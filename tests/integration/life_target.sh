@@ -25,6 +25,7 @@ plan() { # plan FILE CHURN_SECONDS TEARDOWN
     cat >"$1" <<YAML
 seed: 11
 target: {url: "$SERVE_URL", connections: 8, timeout: 2s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   add-gateway:
     {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"m":1}',
@@ -47,7 +48,7 @@ YAML
 # teardown deletes the 60 left.
 plan "$T/churn.yaml" 3s "  - {name: clean, teardown: {rate: 200/s}}"
 run_plan "$T/churn" "$T/churn.yaml"
-expect "the churn run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the churn run exits 0 (got $RUN_RC)" "$T/churn" 0
 AFTER=$(objects)
 expect "after churn and teardown the target holds exactly its $BEFORE objects (got $AFTER)" \
     test "$AFTER" = "$BEFORE"
@@ -72,6 +73,7 @@ expect "cleanup after a clean run finds nothing alive" grep -q ": 0 alive" "$T/c
 # --- objects that existed before are not ours ---------------------------------------------------
 cat >"$T/pre.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 4}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   touch: {kind: write, method: PUT, path: "/v1/sites/south/gateways/pre-{{seq}}", body: '{"m":2}',
           creates: true}
@@ -91,6 +93,7 @@ expect "implicit teardown removed only the 5 it created (count $(objects), expec
 cat >"$T/disc.yaml" <<YAML
 seed: 3
 target: {url: "$SERVE_URL", connections: 4}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   list-south: {kind: list, path: /v1/sites/south/gateways, page: 2}
   read-found: {kind: get, path: "/{{pick:list-south,path}}"}
@@ -111,7 +114,7 @@ expect "and no journal was written: the plan creates nothing" test ! -e "$T/disc
 # while the population is above 60 (100 - 40 = 60 reaches it exactly): 60 objects stay.
 plan "$T/keep.yaml" 1s ""
 run_plan "$T/keep" "$T/keep.yaml" --keep
-expect "the --keep run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the --keep run exits 0 (got $RUN_RC)" "$T/keep" 0
 KEPT=$(lc "$T/keep" "['teardown']['left']")
 expect "--keep leaves the population of 100 - 40 = 60 objects (results say $KEPT)" \
     test "$KEPT" = 60

@@ -67,7 +67,7 @@ wait_port "$PORT" || { echo "FAIL: nginx did not listen on $PORT"; cat "$T/error
 
 run_plan "$T/run" "$SRCDIR/tests/data/plans/profile-known.yaml" --no-brakes \
     --set target.url="http://127.0.0.1:$PORT"
-expect "the known plan ran against nginx (exit $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the known plan ran against nginx (exit $RUN_RC)" "$T/run" 0
 sleep 6 # the last watches end (echo_sleep) and are logged
 stop_nginx
 SENT=$(rget "$T/run" "total('read-gateway', '2xx') + total('list-site', '2xx')")

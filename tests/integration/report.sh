@@ -15,6 +15,7 @@ serve_start --delay uniform:1ms..20ms --fail-rate 0.1 || exit 1
 curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 cat >"$T/plan.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
   write: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"n":{{seq}}}'}
@@ -143,6 +144,7 @@ PY
 serve_start || exit 1
 cat >"$T/watch.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 16, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   write: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"n":{{seq}},"stamp":{{now_ns}}}'}
   follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1"}
@@ -152,7 +154,7 @@ phases:
   - {name: rush, duration: 3s, fleet: {agents: 20, every: 1s, timing: aligned, send: renew}}
 YAML
 run_plan "$T/watch" "$T/watch.yaml"
-expect "the watch and fleet run completes (exit $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the watch and fleet run completes (exit $RUN_RC)" "$T/watch" 0
 serve_stop
 /usr/bin/python3 - "$T/watch/report.html" "$T/run/report.html" "$T/watch/results.json" <<'PY' || FAILED=1
 import html.parser, json, sys

@@ -22,6 +22,7 @@ stop_all() { serve_stop; nginx_stop; }
 plan() {
     cat <<YAML
 target: {url: "$1", http: "2", connections: $2, streams: $3, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   put: {kind: write, method: PUT, path: "$4", body: '{"model":"t-{{seq}}","site":"harbor"}'}
   get: {kind: get, path: "$5"}
@@ -36,7 +37,7 @@ for conf in "1 64" "4 16"; do
     set -- $conf
     plan "http://127.0.0.1:$NGX_H2_PORT" "$1" "$2" /echo/body /small.json >"$T/ngx-$1.yaml"
     run_plan "$T/ngx-$1" "$T/ngx-$1.yaml"
-    expect "nginx h2c, $1 x $2: exit code 0" [ "$RUN_RC" = 0 ]
+    expect_rc "nginx h2c, $1 x $2: exit code 0" "$T/ngx-$1" 0
     rcheck "nginx h2c, $1 connection(s) x $2 streams: 4,000 requests, all 2xx, PUTs and GETs" \
         'total("put", "2xx") + total("get", "2xx") == 4000 and total("put", "2xx") > 1500 and total("get", "2xx") > 1500 and total("put") + total("get") == 4000' \
         "$T/ngx-$1"
@@ -57,7 +58,7 @@ curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/harbor/gateways/gw-1" >
 if curl -s -o /dev/null --max-time 2 --http2-prior-knowledge "$SERVE_URL/v1/sites/harbor/gateways/gw-1"; then
     echo "note: squall serve speaks cleartext HTTP/2 (prior knowledge)"
     run_plan "$T/tgt" "$T/tgt.yaml"
-    expect "squall serve h2c: exit code 0" [ "$RUN_RC" = 0 ]
+    expect_rc "squall serve h2c: exit code 0" "$T/tgt" 0
     rcheck "squall serve h2c, 4 x 16: 4,000 requests, all 2xx (zero resets)" \
         'total("put", "2xx") + total("get", "2xx") == 4000' "$T/tgt"
     puts=$(serve_stats 's["requests"]["by_method"]["PUT"]' 2>/dev/null || echo "?")

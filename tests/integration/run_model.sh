@@ -16,6 +16,7 @@ serve_start || exit 1
 cat >"$T/m.yaml" <<YAML
 seed: 11
 target: {url: "$SERVE_URL", connections: 64, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   read: {kind: get, path: "/v1/sites/north"}
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}", body: '{"n":1}'}
@@ -39,7 +40,7 @@ YAML
     /^phase [0-9]+\/[0-9]+ / { ph = $3; sub(/:$/, "", ph) }
     /^    [a-z-]+ +[0-9,]+ requests$/ { c = $2; gsub(",", "", c); print ph, $1, c }' >"$T/check"
 run_plan "$T/r" "$T/m.yaml"
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/r" 0
 PUTS=$(serve_stats 's["requests"]["PUT"].get("200", 0) + s["requests"]["PUT"].get("201", 0)')
 
 /usr/bin/python3 - "$T/check" "$T/r" "$PUTS" <<'PY' || FAILED=1

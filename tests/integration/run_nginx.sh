@@ -13,6 +13,7 @@ plan() { # plan NAME PORT HTTP REQUESTS-YAML PHASES-YAML [EXTRA-YAML]
     cat >"$T/$1.yaml" <<YAML
 seed: 11
 target: {url: "http://127.0.0.1:$2", http: "$3", connections: 8, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
 $4
 phases:
@@ -26,7 +27,7 @@ YAML
 plan delay "$NGX_PORT" 1.1 '  slow: {kind: get, path: /delay/50ms}' \
     '  - {name: steady, rate: 40/s, duration: 3s, mix: {slow: 1}}'
 run_plan "$T/delay" "$T/delay.yaml"
-expect "the delay run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the delay run exits 0 (got $RUN_RC)" "$T/delay" 0
 rcheck "it sent all 40/s x 3 s = 120 requests (even arrivals), all 2xx" \
     'total("slow") == 120 and total("slow", "2xx") == 120' "$T/delay"
 rcheck "p50 service time with a 50 ms server delay is 50 ms within 2 ms" \
@@ -40,7 +41,7 @@ rcheck "response time (from the intended start) is at least the service time at 
 plan rate "$NGX_PORT" 1.1 '  small: {kind: get, path: /small.json}' \
     '  - {name: steady, rate: 400/s, duration: 5s, mix: {small: 1}}'
 run_plan "$T/rate" "$T/rate.yaml"
-expect "the rate run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the rate run exits 0 (got $RUN_RC)" "$T/rate" 0
 N=$(rget "$T/rate" 'total("small")')
 expect "400/s for 5 s sends 2,000 requests within 1 % (sent $N)" \
     test "$N" -ge 1980 -a "$N" -le 2020

@@ -20,6 +20,7 @@ serve_start || exit 1
 # middle of second 1. The run then tears down the 150 objects (100/s, its default).
 cat >"$T/split.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 16, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   make: {kind: write, method: PUT, path: "/v1/gw/g-{{seq}}", body: '{"n":1}', creates: true}
   read: {kind: get, path: "/v1/gw/{{pick}}"}
@@ -28,7 +29,7 @@ phases:
   - {name: two, rate: 100/s, duration: 1500ms, mix: {read: 1}}
 YAML
 run_plan "$T/split" "$T/split.yaml"
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/split" 0
 /usr/bin/python3 - "$T/split/series.csv" <<'PY' || FAILED=1
 import csv, sys
 rows = list(csv.DictReader(open(sys.argv[1])))
@@ -56,6 +57,7 @@ expect "the target saw the 150 deletes the rows count ($GONE)" test "$GONE" = 15
 # not 50 x 3 / 20 = 7.5/s.
 cat >"$T/long.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   read: {kind: write, method: PUT, path: "/v1/leases/gw-1", body: '{"n":1}'}
 phases:
@@ -78,6 +80,7 @@ expect "the summary's rate is over the time the phase ran: $RATE/s, within 40..6
 # and results.json says so instead of a band of 0..0.
 cat >"$T/churn.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   make: {kind: write, method: PUT, path: "/v1/gw/c-{{seq}}", body: '{"n":1}', creates: true}
   drop: {kind: write, method: DELETE, path: "/v1/gw/{{pick:make}}", deletes: true}
@@ -95,6 +98,7 @@ serve_stop
 serve_start --delay fixed:5ms || exit 1
 cat >"$T/peak.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 1, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}", body: '{"n":1}'}
 phases:

@@ -24,6 +24,7 @@ serve_start --stall-at 1s --stall-for 2s || exit 1
 curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 cat >"$T/co.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 8, timeout: 10s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
 phases:
@@ -56,6 +57,7 @@ serve_stop
 serve_start || exit 1
 cat >"$T/pages.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 4, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   create: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}", body: '{"n":{{seq}}}'}
   list: {kind: list, path: /v1/sites/north/gateways, page: 30}
@@ -79,6 +81,7 @@ serve_stop
 serve_start || exit 1
 cat >"$T/quiet.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 4, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}", body: '{"n":1}'}
 phases:
@@ -100,6 +103,7 @@ serve_start --delay fixed:200ms || exit 1
 curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 cat >"$T/sig.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 16, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
 phases:

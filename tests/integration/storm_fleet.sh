@@ -31,7 +31,7 @@ YAML
 run_plan "$T/f" "$T/f.yaml"
 puts=$(serve_stats 's["requests"]["PUT"].get("200", 0) + s["requests"]["PUT"].get("201", 0)')
 serve_stop
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/f" 0
 A='d["sections"]["storms"]["aligned"]["actions"][0]'
 S='d["sections"]["storms"]["spread"]["actions"][0]'
 J='d["sections"]["storms"]["jitter"]'

@@ -55,7 +55,7 @@ expect "report.html shows the verdict and the generator-bound banner" \
 # The plan may accept it: then a pass, which still lists what it accepted.
 gen_plan "$T/gen-ok.yaml" "accept: [generator-bound]"
 run_plan "$T/gen-ok" "$T/gen-ok.yaml"
-expect "with accept: [generator-bound] the run passes: exit 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "with accept: [generator-bound] the run passes: exit 0 (got $RUN_RC)" "$T/gen-ok" 0
 rcheck "its run section lists the accepted reason" \
     "$R['verdict'] == 'pass' and $R['reasons'] == [] and
      $R['accepted'][0].startswith('squall could not offer the planned load')" "$T/gen-ok"
@@ -150,7 +150,7 @@ rcheck "the checks carry verdict too-few and needed 100 / 1,000" \
      == [('read', 'too-few', 100), ('scan', 'too-few', 1000)]" "$T/few"
 few_plan "$T/few-ok.yaml" "accept: [few-samples]"
 run_plan "$T/few-ok" "$T/few-ok.yaml" --seed 3
-expect "with accept: [few-samples]: PASS, exit 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "with accept: [few-samples]: PASS, exit 0 (got $RUN_RC)" "$T/few-ok" 0
 
 # --- 5. A run that stopped early cannot pass ---------------------------------------------------
 cat >"$T/long.yaml" <<YAML

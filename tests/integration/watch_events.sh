@@ -15,6 +15,7 @@ plan() { # plan FILE POLICY BASE
     cat >"$1" <<YAML
 seed: 5
 target: {url: "$SERVE_URL", connections: 4, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   put: {kind: write, method: PUT, path: "/v1/sites/north/gateways/gw-{{seq}}",
         body: '{"model":"t-a","stamp":{{now_ns}}}',
@@ -35,7 +36,7 @@ run_plan "$T/calm" "$T/calm.yaml"
 sent=$(serve_stats 's["streams"]["events_sent"]')
 writes=$(serve_stats 's["store"]["creates"]')
 serve_stop
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/calm" 0
 expect "the target stored 200 writes (got $writes)" test "$writes" = 200
 rcheck "events seen = events the target sent ($sent), from its /stats" \
     "$F['events'] == $sent" "$T/calm"
@@ -55,7 +56,7 @@ writes=$(serve_stats 's["store"]["creates"]')
 dropped=$(serve_stats 's["faults"]["dropped_streams"]')
 expired=$(serve_stats 's["store"]["expired"]')
 serve_stop
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/drop" 0
 expect "the target dropped $W streams (got $dropped) and answered no 410 (got $expired)" \
     test "$dropped" = "$W" -a "$expired" = 0
 rcheck "across the resume each watcher saw each of the $writes writes exactly once" \
@@ -71,7 +72,7 @@ run_plan "$T/gone" "$T/gone.yaml"
 expired=$(serve_stats 's["store"]["expired"]')
 lists=$(serve_stats 's["requests"]["GET"]["200"]')
 serve_stop
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/gone" 0
 expect "the target answered $W resumes with 410 (got $expired)" test "$expired" = "$W"
 rcheck "too_old = relists = the target's 410 count ($expired)" \
     "$F['too_old'] == $expired and $F['relists'] == $expired" "$T/gone"

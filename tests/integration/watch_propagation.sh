@@ -13,6 +13,7 @@ serve_start --delay fixed:50ms || exit 1
 cat >"$T/p.yaml" <<YAML
 seed: 3
 target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   put: {kind: write, method: PUT, path: "/v1/sites/harbor/gateways/gw-{{seq}}",
         body: '{"model":"t-b","stamp":{{now_ns}}}',
@@ -29,7 +30,7 @@ run_plan "$T/p" "$T/p.yaml"
 sent=$(serve_stats 's["streams"]["events_sent"]')
 serve_stop
 C='cell("w", "follow", "2xx")'
-expect "the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+expect_rc "the run exits 0 (got $RUN_RC)" "$T/p" 0
 rcheck "every event the target sent ($sent) was seen" \
     "$C['count'] + cell('w', 'follow-other', '2xx')['count'] == $sent" "$T/p"
 rcheck "one propagation sample per event seen" \

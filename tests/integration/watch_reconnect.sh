@@ -16,6 +16,7 @@ plan() { # plan FILE POLICY
     cat >"$1" <<YAML
 seed: 9
 target: {url: "$SERVE_URL", connections: 2, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 vars: {site: [north, south, harbor, ridge]}
 requests:
   follow: {kind: watch, path: "/v1/sites/{{site}}/gateways?watch=1",
@@ -77,7 +78,7 @@ for policy in full-jitter immediate; do
     dropped=$(serve_stats 's["faults"]["dropped_streams"]')
     opened=$(serve_stats 's["streams"]["opened"]')
     serve_stop
-    expect "$policy: the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+    expect_rc "$policy: the run exits 0 (got $RUN_RC)" "$T/$policy" 0
     expect "$policy: the target dropped $N streams (got $dropped) and saw 2 x $N opens (got $opened)" \
         test "$dropped" = "$N" -a "$opened" = $((2 * N))
     ks_check "$T/$policy" "$([ $policy = immediate ] && echo immediate || echo jitter)" || FAILED=1
@@ -88,6 +89,7 @@ done
 serve_start --fail-rate 1 || exit 1
 cat >"$T/refused.yaml" <<YAML
 target: {url: "$SERVE_URL", connections: 2, timeout: 5s}
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 requests:
   follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1",
            reconnect: {policy: fixed, base: 50ms}}

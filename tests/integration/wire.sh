@@ -60,7 +60,7 @@ sys.exit(0 if eval(sys.argv[2]) else 1)" "$T/$name.json" "$expr"; then
 for spec in "p700 700 16"; do
     read -r name rate secs <<<"$spec"
     wire_run "$name" "$rate" "$secs" || { FAILED=1; continue; }
-    expect "$name: the run exits 0 (got $RUN_RC)" test "$RUN_RC" = 0
+    expect_rc "$name: the run exits 0 (got $RUN_RC)" "$T/$name" 0
     expect "$name: tcpdump dropped no packet (got $CAP_DROPPED)" test "$CAP_DROPPED" = 0
     n=$(rget "$T/$name" 'total("small", "2xx")')
     # Source: the capture itself; one "GET " packet per answered request.

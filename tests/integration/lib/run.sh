@@ -62,3 +62,28 @@ expect() {
         FAILED=1
     fi
 }
+
+# expect_rc DESC OUT CODE...: the last run's exit code ($RUN_RC) is one of CODE...; on a mismatch
+# it prints the verdict's reasons from OUT/results.json and the end of OUT.stderr, so that a
+# failure read from a CI log says why the run ended as it did.
+expect_rc() {
+    local desc=$1 out=$2 c
+    shift 2
+    for c in "$@"; do
+        if [ "${RUN_RC:-}" = "$c" ]; then
+            echo "ok: $desc"
+            return
+        fi
+    done
+    echo "FAIL: $desc (exit ${RUN_RC:-?}, wanted $*)"
+    /usr/bin/python3 -c '
+import json, sys
+try:
+    r = json.load(open(sys.argv[1] + "/results.json"))["sections"]["run"]
+    for why in r.get("reasons") or []:
+        print("      why:", why)
+except (OSError, KeyError, ValueError) as e:
+    print("      no results.json to say why:", e)' "$out" 2>&1 | head -8
+    tail -3 "$out.stderr" 2>/dev/null | sed 's/^/      stderr: /'
+    FAILED=1
+}
