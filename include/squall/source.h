@@ -88,10 +88,10 @@ typedef struct {
      * `seed`, what is the shard's own (Poisson arrivals, think times, jitter) from shard_seed. */
     sched_shard_t shard;
     uint64_t shard_seed;
-    double alive;         /* objects of the run alive when the phase starts (churn's model) */
-    bool stopped;         /* the run was stopped early (teardown then has a time limit) */
-    bool keep;            /* --keep: the teardown deletes nothing */
-    uv_loop_t *loop;      /* NULL when only modelling (check, estimates) */
+    double alive;    /* objects of the run alive when the phase starts (churn's model) */
+    bool stopped;    /* the run was stopped early (teardown then has a time limit) */
+    bool keep;       /* --keep: the teardown deletes nothing */
+    uv_loop_t *loop; /* NULL when only modelling (check, estimates) */
     const src_target_t *target;
     src_issuer_t *issuer; /* the main engine's request path (NULL when modelling) */
     obs_t *obs;           /* the recorder */

@@ -62,7 +62,8 @@ int cli_shard_parse(const char *v, int *index, int *count, const char **why)
         return SQ_EINVAL;
     snprintf(a, sizeof a, "%.*s", (int)(slash - v), v);
     snprintf(b, sizeof b, "%s", slash + 1);
-    if (value_parse_int(b, INT64_MIN, INT64_MAX, &n) || value_parse_int(a, INT64_MIN, INT64_MAX, &i))
+    if (value_parse_int(b, INT64_MIN, INT64_MAX, &n) ||
+        value_parse_int(a, INT64_MIN, INT64_MAX, &i))
         return SQ_EINVAL;
     *why = "N (the number of shards) must be within 1..100000";
     if (n < 1 || n > 100000)

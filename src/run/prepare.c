@@ -142,8 +142,9 @@ int run_prepare(run_t *r)
     r->shard = run_shard(r->opts);
     r->shard_seed = sched_shard_seed(r->seed, r->shard);
     if (sched_shard_split(r->shard) && !r->opts->has_seed && !p->has_seed)
-        out_warn(r->o, "shard %d/%d with no seed (--seed or the plan's seed): the shards' fleet "
-                       "phases and class mixes will not add up to one run's",
+        out_warn(r->o,
+                 "shard %d/%d with no seed (--seed or the plan's seed): the shards' fleet "
+                 "phases and class mixes will not add up to one run's",
                  r->shard.index, r->shard.count);
     rc = src_target_init(&r->target, p, r->opts->insecure, r->o);
     if (rc == 0)

@@ -47,8 +47,9 @@ static bool schedule(sched_closed_t *c, int i, int64_t t)
 
 static int validate(const sched_closed_cfg_t *cfg)
 {
-    if (!cfg || cfg->clients < 1 || !sched_shard_valid(cfg->shard) || cfg->think_ns < 0 || cfg->spread_ns < 0 ||
-        cfg->duration_ns <= 0 || (cfg->think != SCHED_THINK_FIXED && cfg->think != SCHED_THINK_EXP))
+    if (!cfg || cfg->clients < 1 || !sched_shard_valid(cfg->shard) || cfg->think_ns < 0 ||
+        cfg->spread_ns < 0 || cfg->duration_ns <= 0 ||
+        (cfg->think != SCHED_THINK_FIXED && cfg->think != SCHED_THINK_EXP))
         return SQ_EINVAL;
     return 0;
 }

@@ -37,8 +37,8 @@ int64_t sched_align_offset(int64_t realtime0_ns, int64_t period_ns)
 
 static int validate(const sched_fleet_cfg_t *c)
 {
-    if (!c || c->agents < 1 || !sched_shard_valid(c->shard) || c->period_ns <= 0 || c->duration_ns <= 0 || c->join_ns < 0 ||
-        c->leave_ns < 0 || c->leave_ns > c->duration_ns)
+    if (!c || c->agents < 1 || !sched_shard_valid(c->shard) || c->period_ns <= 0 ||
+        c->duration_ns <= 0 || c->join_ns < 0 || c->leave_ns < 0 || c->leave_ns > c->duration_ns)
         return SQ_EINVAL;
     if (!(c->jitter >= 0 && c->jitter < 1) || !(c->drift >= 0 && c->drift < 0.5))
         return SQ_EINVAL;

@@ -107,7 +107,8 @@ static double closed_expected(const void *self, int64_t t0, int64_t t1, double *
     t1 = t1 < end ? t1 : end;
     double k =
         ceil((double)t1 / (double)s->cfg.think_ns) - ceil((double)t0 / (double)s->cfg.think_ns);
-    double n = (double)sched_shard_share(s->cfg.shard, 0, (uint64_t)s->cfg.clients) * (k > 0 ? k : 0);
+    double n =
+        (double)sched_shard_share(s->cfg.shard, 0, (uint64_t)s->cfg.clients) * (k > 0 ? k : 0);
     src_mix_spread(&s->mix, n, per_class);
     return n;
 }

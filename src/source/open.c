@@ -71,7 +71,8 @@ static int open_new(const src_ctx_t *ctx, void **self)
     bool even = s->cfg.arrivals == SCHED_EVEN, split = sched_shard_split(ctx->shard);
     if (rc == 0)
         rc = src_mix_init(&s->mix, pp,
-                          even ? src_seed(ctx, SRC_STREAM_MIX) : src_shard_seed(ctx, SRC_STREAM_MIX));
+                          even ? src_seed(ctx, SRC_STREAM_MIX)
+                               : src_shard_seed(ctx, SRC_STREAM_MIX));
     if (rc == 0 && even && split)
         src_mix_deal(&s->mix, (uint64_t)ctx->shard.index - 1, (uint64_t)ctx->shard.count - 1);
     if (rc == 0)

@@ -526,8 +526,8 @@ static int rp_finish(void *self, results_t *res)
         (json_int_t)s->watch_failed, "skipped_writes", (json_int_t)s->verdicts[RP_SKIP_WRITE],
         "skipped_watches", (json_int_t)s->verdicts[RP_SKIP_WATCH], "skipped_kind",
         (json_int_t)s->verdicts[RP_SKIP_KIND], "filtered", (json_int_t)s->verdicts[RP_FILTERED],
-        "bad_rewrites", (json_int_t)s->bad_path, "not_sent", (json_int_t)s->unsent,
-        "other_shards", (json_int_t)s->verdicts[RP_OTHER_SHARD]);
+        "bad_rewrites", (json_int_t)s->bad_path, "not_sent", (json_int_t)s->unsent, "other_shards",
+        (json_int_t)s->verdicts[RP_OTHER_SHARD]);
     return ph ? json_object_set_new(sec, s->ctx.name, ph) : SQ_ENOMEM;
 }
 

@@ -60,8 +60,7 @@ static void test_share_brute_force(void **state)
     assert_false(sched_shard_valid((sched_shard_t){0, 4}));
     assert_false(sched_shard_valid((sched_shard_t){5, 4}));
     assert_false(sched_shard_valid((sched_shard_t){1, 0}));
-    sched_open_cfg_t bad = {.shape = SCHED_CONSTANT, .rate = 10, .duration_ns = S,
-                            .shard = {3, 2}};
+    sched_open_cfg_t bad = {.shape = SCHED_CONSTANT, .rate = 10, .duration_ns = S, .shard = {3, 2}};
     sched_open_t *s;
     assert_int_equal(sched_open_new(&bad, &s), SQ_EINVAL);
 }
@@ -103,8 +102,7 @@ static void check_union(sched_open_cfg_t cfg, const char *what)
         }
         free(all);
     }
-    printf("even %s: %zu starts; the union of N = 1..6 shards is the single schedule\n", what,
-           n1);
+    printf("even %s: %zu starts; the union of N = 1..6 shards is the single schedule\n", what, n1);
     free(one);
 }
 
@@ -115,11 +113,12 @@ static void test_even_union(void **state)
                 "constant 333.3/s x 7 s");
     check_union((sched_open_cfg_t){.shape = SCHED_RAMP, .from = 5, .to = 400, .duration_ns = 9 * S},
                 "ramp 5 -> 400/s x 9 s");
-    sched_step_t steps[] = {{.rate = 50, .for_ns = 2 * S}, {.rate = 0, .for_ns = S},
-                            {.rate = 210.5, .for_ns = S}};
-    check_union((sched_open_cfg_t){.shape = SCHED_STEPS, .steps = steps, .n_steps = 3,
-                                   .duration_ns = 6 * S},
-                "steps 50, 0, 210.5/s");
+    sched_step_t steps[] = {
+        {.rate = 50, .for_ns = 2 * S}, {.rate = 0, .for_ns = S}, {.rate = 210.5, .for_ns = S}};
+    check_union(
+        (sched_open_cfg_t){
+            .shape = SCHED_STEPS, .steps = steps, .n_steps = 3, .duration_ns = 6 * S},
+        "steps 50, 0, 210.5/s");
 }
 
 /* Four Poisson shards of 1000/s (each its own seed, as the run derives them) superposed: the
@@ -132,8 +131,8 @@ static void test_poisson_superposition(void **state)
     (void)state;
     double rate = 1000;
     int64_t dur = 20 * S;
-    sched_open_cfg_t cfg = {.shape = SCHED_CONSTANT, .rate = rate, .duration_ns = dur,
-                            .arrivals = SCHED_POISSON};
+    sched_open_cfg_t cfg = {
+        .shape = SCHED_CONSTANT, .rate = rate, .duration_ns = dur, .arrivals = SCHED_POISSON};
     int64_t *t = NULL;
     size_t n = 0, cap = 0, first = 0;
     for (int i = 1; i <= 4; i++) {
@@ -188,8 +187,8 @@ static void test_closed_clients(void **state)
     (void)state;
     int seen[10] = {0};
     double sum = 0;
-    sched_closed_cfg_t cfg = {.clients = 10, .think_ns = S, .spread_ns = 10 * S,
-                              .duration_ns = 30 * S, .seed = 1};
+    sched_closed_cfg_t cfg = {
+        .clients = 10, .think_ns = S, .spread_ns = 10 * S, .duration_ns = 30 * S, .seed = 1};
     for (int i = 1; i <= 3; i++) {
         cfg.shard = (sched_shard_t){i, 3};
         sched_closed_t *c;
@@ -222,9 +221,14 @@ static void test_fleet_agents(void **state)
     (void)state;
     enum sched_timing timing[] = {SCHED_SPREAD, SCHED_ALIGNED};
     for (size_t w = 0; w < 2; w++) {
-        sched_fleet_cfg_t cfg = {.agents = 37, .period_ns = 2 * S, .timing = timing[w],
-                                 .drift = 0.1, .join_ns = 3 * S, .duration_ns = 20 * S,
-                                 .realtime0_ns = 1700000000123456789, .seed = 9};
+        sched_fleet_cfg_t cfg = {.agents = 37,
+                                 .period_ns = 2 * S,
+                                 .timing = timing[w],
+                                 .drift = 0.1,
+                                 .join_ns = 3 * S,
+                                 .duration_ns = 20 * S,
+                                 .realtime0_ns = 1700000000123456789,
+                                 .seed = 9};
         sched_fleet_t *f;
         assert_int_equal(sched_fleet_new(&cfg, &f), 0);
         int64_t t, *one = malloc(4096 * sizeof(int64_t));
@@ -286,12 +290,9 @@ static void test_hash_vectors(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_share_brute_force),
-        cmocka_unit_test(test_even_union),
-        cmocka_unit_test(test_poisson_superposition),
-        cmocka_unit_test(test_closed_clients),
-        cmocka_unit_test(test_fleet_agents),
-        cmocka_unit_test(test_hash_vectors),
+        cmocka_unit_test(test_share_brute_force),     cmocka_unit_test(test_even_union),
+        cmocka_unit_test(test_poisson_superposition), cmocka_unit_test(test_closed_clients),
+        cmocka_unit_test(test_fleet_agents),          cmocka_unit_test(test_hash_vectors),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
