@@ -61,7 +61,7 @@ static void describe(const plan_phase_t *ph, sched_shard_t sh, src_estimate_t *e
     if (ph->teardown.on)
         e->peak_rate += ph->teardown.rate / n;
     for (size_t i = 0; i < ph->watches.n_sets; i++)
-        e->watches += ph->watches.sets[i].count;
+        e->watches += share(sh, ph->watches.sets[i].count);
     e->replay = ph->replay.on;
 }
 
