@@ -1,7 +1,7 @@
 /* Long-lived watch streams: framing of a streamed body into events, the fields squall reads from
  * an event, reconnect delays, and a stream's lifecycle as a state machine.
  *
- * Nothing here does I/O, reads a clock or touches libuv: the run glue (src/run/watches.c) feeds
+ * Nothing here does I/O, reads a clock or touches libuv: the run glue (src/source/watches.c) feeds
  * bytes in, asks what to do when a stream ends, and does it. That keeps every rule here testable
  * with plain byte strings.
  *

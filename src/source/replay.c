@@ -1,7 +1,7 @@
 /* Replay: the requests of a recorded access log sent again at their recorded instants (scaled by
  * `speed`), in `copies` copies. Recorded watches (a marker in the query and a duration of at
  * least watch-min) are opened at their instants as watch streams and closed after their
- * recorded duration, also scaled (src/source/watches.h). The log is read twice: once when the
+ * recorded duration, also scaled (src/source/watches_once.h). The log is read twice: once when the
  * source is built (counts per second and class: the model that check, the estimate and the live
  * line ask), then streamed while the phase runs, through a read-ahead bounded in entries, so memory
  * does not grow with the log. Each request's intended start is its recorded time, so response time
@@ -12,7 +12,7 @@
 
 #include "replay_int.h"
 #include "src_int.h"
-#include "watches.h"
+#include "watches_once.h"
 #include "squall/err.h"
 
 #define RP_READ_AHEAD 16384               /* requests held ahead of their start at most */

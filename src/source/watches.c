@@ -7,7 +7,7 @@
 #include <string.h>
 #include <sys/resource.h>
 
-#include "watches.h"
+#include "watches_int.h"
 #include "src_int.h"
 #include "squall/clock.h"
 #include "squall/file.h"
@@ -15,79 +15,10 @@
 #include "squall/watch.h"
 
 #define RESUME_PARAM  "since" /* the embedded target's query parameter for a resume point */
-#define LOG_MAX       20000   /* reconnects kept per phase in the results' reconnect log */
 #define FD_RESERVE    64      /* open files kept aside for the main engine (its multi handles' socket
                                  pairs: at most 30), results, stdio */
 #define H2_STREAMS    100     /* libcurl's assumption until the server's SETTINGS arrive */
 #define MAX_LIST_PAGE 100000
-#define ONCE_CONNS    1024 /* one-shot streams (a replay's) open at once at most; more queue */
-
-/* A stream's lifetime figures, summed per class. */
-typedef struct {
-    int64_t opens, drops, reconnects, relists, too_old, dup, over;
-} figs_t;
-
-/* Per watch class of the phase. */
-typedef struct {
-    int cls;
-    results_cell_t *events; /* (phase, class, "2xx"): count = events; open, propagation */
-    int streams;
-    figs_t ended; /* one-shot streams already ended and freed */
-    int64_t events_n, bytes, unparsed, oversize, server_errors, no_stamp, stamp_ahead;
-    int open_at_end, waiting_at_end; /* streams answered / sent but unanswered at the end */
-} wclass_t;
-
-typedef struct watches watches_t;
-
-/* One reconnect: when the stream ended, the delay drawn, when the next attempt was sent (ns
- * from the phase start; -1 until it is) and the backoff attempt it was. */
-typedef struct {
-    int64_t end, delay, sent;
-    int attempt;
-} recon_t;
-
-typedef struct watcher {
-    watches_t *ws;
-    int index;
-    wclass_t *wc;
-    watch_stream_t st;
-    watch_framer_t fr;
-    rng_t draws; /* the template draws of this watcher: its watch and relist paths agree */
-    char *path;  /* the rendered watch path, without a resume point */
-    int64_t due_ns;
-    bool due_relist, busy, got_first, got_events, open_recorded;
-    int64_t hold_ms; /* one-shot: squall closes the stream after this long (libcurl's timeout) */
-    int64_t intended_ns, first_byte_ns;
-    /* This attempt's share of the class figures, taken back when the answer is not a stream
-     * (the engine streams every body, also a 410's: its status is known only at the end). */
-    int64_t attempt_events, attempt_bytes, attempt_no_stamp;
-    int log; /* reconnect log entry waiting for its send time, or -1 */
-    /* A relist in flight: its pages. */
-    char *list_base;
-    int pages;
-    int64_t list_intended_ns;
-    char list_version[64];
-} watcher_t;
-
-struct watches {
-    src_ctx_t ctx;
-    const plan_phase_t *pp;
-    rng_t rng;      /* reconnect delays */
-    tmpl_buf_t buf; /* rendered paths */
-    bool active;
-    int64_t base_ns;
-    eng_t *eng;
-    watcher_t *w;
-    size_t n;
-    wclass_t *wcs;
-    size_t n_wc;
-    int64_t next_due_ns;
-    recon_t *log;      /* reconnects, grown as they come, at most LOG_MAX */
-    size_t n_log, cap_log;
-    int64_t log_dropped; /* reconnects past LOG_MAX: counted, not kept */
-    bool once;           /* one-shot streams (watches_once_*): no reconnects */
-    int once_max, once_open;
-};
 
 static int phase_watchers(const plan_phase_t *pp)
 {
@@ -109,8 +40,7 @@ static int64_t files_needed(const plan_t *p, int watchers)
     return conns + p->target.connections + FD_RESERVE;
 }
 
-/* Raises the soft open-files limit to the hard one and refuses a phase that needs more. */
-static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp, int watchers)
+int watches_check_files(const src_ctx_t *ctx, const plan_phase_t *pp, int watchers)
 {
     uint64_t limit = file_raise_limit();
     int64_t need = files_needed(ctx->plan, watchers);
@@ -127,7 +57,7 @@ static int check_files(const src_ctx_t *ctx, const plan_phase_t *pp, int watcher
 
 /* ---- recording ------------------------------------------------------------------------- */
 
-static results_cell_t *cell(watches_t *ws, int cls, const char *outcome)
+results_cell_t *watches_cell(watches_t *ws, int cls, const char *outcome)
 {
     return obs_cell(ws->ctx.obs, ws->ctx.phase, cls, outcome);
 }
@@ -149,19 +79,19 @@ static void record_end(watches_t *ws, int cls, const eng_result_t *res, bool tim
         .bytes_in = res->bytes_in,
         .bytes_out = res->bytes_out,
     };
-    results_record(cell(ws, cls, eng_outcome_name(res->outcome)), &smp);
+    results_record(watches_cell(ws, cls, eng_outcome_name(res->outcome)), &smp);
     if (res->status > 0)
         obs_answered(ws->ctx.obs, res->done_ns);
 }
 
-/* Keeps a reconnect in the log, which grows as needed up to LOG_MAX entries; past that (or
+/* Keeps a reconnect in the log, which grows as needed up to WATCHES_LOG_MAX entries; past that (or
  * out of memory) it is counted as dropped, and the section says so. */
-static void log_reconnect(watches_t *ws, watcher_t *w, int64_t now, int64_t delay)
+static void log_reconnect(watches_t *ws, watches_watcher_t *w, int64_t now, int64_t delay)
 {
     if (ws->n_log == ws->cap_log) {
         size_t cap = ws->cap_log ? ws->cap_log * 2 : 256;
-        cap = cap < LOG_MAX ? cap : LOG_MAX;
-        recon_t *l = cap > ws->cap_log ? realloc(ws->log, cap * sizeof(*l)) : NULL;
+        cap = cap < WATCHES_LOG_MAX ? cap : WATCHES_LOG_MAX;
+        watches_recon_t *l = cap > ws->cap_log ? realloc(ws->log, cap * sizeof(*l)) : NULL;
         if (!l) {
             ws->log_dropped++;
             return;
@@ -170,10 +100,8 @@ static void log_reconnect(watches_t *ws, watcher_t *w, int64_t now, int64_t dela
         ws->cap_log = cap;
     }
     size_t i = ws->n_log++;
-    ws->log[i] = (recon_t){.end = now - ws->base_ns,
-                           .delay = delay,
-                           .sent = -1,
-                           .attempt = w->st.backoff.attempt - 1};
+    ws->log[i] = (watches_recon_t){
+        .end = now - ws->base_ns, .delay = delay, .sent = -1, .attempt = w->st.backoff.attempt - 1};
     w->log = (int)i;
 }
 
@@ -181,7 +109,7 @@ static void log_reconnect(watches_t *ws, watcher_t *w, int64_t now, int64_t dela
 
 /* Open latency: the intended open to the first body byte, recorded once the answer proves to be
  * a stream (its first versioned event, or a 2xx end), so a 410's body never counts. */
-static void record_open(watcher_t *w)
+static void record_open(watches_watcher_t *w)
 {
     w->open_recorded = true;
     hist_add(w->wc->events, RESULTS_M_OPEN, w->first_byte_ns - w->intended_ns);
@@ -189,9 +117,9 @@ static void record_open(watcher_t *w)
 }
 
 /* The answer was an error (its status arrives with the end): its body was no events. */
-static void take_back(watcher_t *w)
+static void take_back(watches_watcher_t *w)
 {
-    wclass_t *wc = w->wc;
+    watches_class_t *wc = w->wc;
     results_counters_t *k = wc->events ? results_cell_counters(wc->events) : NULL;
     wc->events_n -= w->attempt_events;
     wc->bytes -= w->attempt_bytes;
@@ -205,8 +133,8 @@ static void take_back(watcher_t *w)
 
 static void on_event(void *user, const watch_event_t *ev)
 {
-    watcher_t *w = user;
-    wclass_t *wc = w->wc;
+    watches_watcher_t *w = user;
+    watches_class_t *wc = w->wc;
     const plan_req_t *pr = src_class(w->ws->ctx.issuer, wc->cls)->pr;
     watch_fields_t f = {0};
     if (pr->watch.framing != PLAN_FRAME_RAW &&
@@ -251,7 +179,7 @@ static void on_event(void *user, const watch_event_t *ev)
 /* The target answered: the stream is open (its open latency still waits for the first byte). */
 static void on_head(void *user, long status)
 {
-    watcher_t *w = user;
+    watches_watcher_t *w = user;
     obs_answered(w->ws->ctx.obs, (int64_t)uv_hrtime()); /* the target answers (brakes) */
     if (status >= 200 && status < 300)
         watch_stream_set(&w->st, WATCH_OPEN);
@@ -259,7 +187,7 @@ static void on_head(void *user, long status)
 
 static int on_data(void *user, const char *data, size_t len)
 {
-    watcher_t *w = user;
+    watches_watcher_t *w = user;
     if (!w->got_first) {
         w->got_first = true;
         w->first_byte_ns = (int64_t)uv_hrtime();
@@ -276,7 +204,7 @@ static int on_data(void *user, const char *data, size_t len)
 
 /* ---- opening and ending streams -------------------------------------------------------------- */
 
-static void set_due(watches_t *ws, watcher_t *w, int64_t due)
+static void set_due(watches_t *ws, watches_watcher_t *w, int64_t due)
 {
     w->due_ns = due;
     if (due < ws->next_due_ns)
@@ -285,7 +213,7 @@ static void set_due(watches_t *ws, watcher_t *w, int64_t due)
 
 static void on_stream_done(void *user, const eng_result_t *res);
 
-static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
+int watches_stream_open(watches_t *ws, watches_watcher_t *w, int64_t intended)
 {
     const src_class_t *c = src_class(ws->ctx.issuer, w->wc->cls);
     bool sse = c->pr->watch.framing == PLAN_FRAME_SSE;
@@ -330,10 +258,10 @@ static int open_stream(watches_t *ws, watcher_t *w, int64_t intended)
     return 0;
 }
 
-static int relist_page(watches_t *ws, watcher_t *w, const char *token, int64_t intended);
+static int relist_page(watches_t *ws, watches_watcher_t *w, const char *token, int64_t intended);
 
 /* What a finished stream or relist leads to: a due time for the next request. */
-static void next_step(watches_t *ws, watcher_t *w, const watch_end_t *end, int64_t now)
+static void next_step(watches_t *ws, watches_watcher_t *w, const watch_end_t *end, int64_t now)
 {
     int64_t delay = 0;
     bool was_relist = w->st.state == WATCH_RELISTING;
@@ -348,39 +276,9 @@ static void next_step(watches_t *ws, watcher_t *w, const watch_end_t *end, int64
     set_due(ws, w, now + delay);
 }
 
-static void figs_add(figs_t *f, const watcher_t *w)
-{
-    f->opens += w->st.opens;
-    f->drops += w->st.drops;
-    f->reconnects += w->st.reconnects;
-    f->relists += w->st.relists;
-    f->too_old += w->st.too_old;
-    f->dup += w->st.duplicates;
-    f->over += w->fr.st.oversize;
-}
-
-/* A one-shot stream ended: its figures join its class's and the watcher is freed. One that
- * squall closed at its hold time ended as planned; any other end is counted by the stream (a
- * drop, a too-old answer), which is never reopened. */
-static void once_end(watches_t *ws, watcher_t *w, const watch_end_t *end, bool held)
-{
-    int64_t delay;
-    if (!ws->active) { /* closed at the phase's end, as watches_stop counts its own */
-        w->wc->open_at_end += w->st.state == WATCH_OPEN;
-        w->wc->waiting_at_end += w->st.state == WATCH_OPENING;
-    }
-    if (!held)
-        watch_stream_ended(&w->st, end, &ws->rng, &delay);
-    figs_add(&w->wc->ended, w);
-    watch_framer_close(&w->fr);
-    free(w->path);
-    free(w);
-    ws->once_open--;
-}
-
 static void on_stream_done(void *user, const eng_result_t *res)
 {
-    watcher_t *w = user;
+    watches_watcher_t *w = user;
     watches_t *ws = w->ws;
     w->busy = false;
     watch_framer_end(&w->fr);
@@ -418,8 +316,8 @@ static void on_stream_done(void *user, const eng_result_t *res)
         .transport = res->outcome != ENG_OUT_S2XX && !held,
         .got_events = stream && w->got_events,
     };
-    if (ws->once) {
-        once_end(ws, w, &end, held);
+    if (ws->once_end) {
+        ws->once_end(ws, w, &end, held);
         return;
     }
     if (!ws->active)
@@ -448,7 +346,7 @@ static void page_fields(const src_class_t *lc, const char *vkey, const eng_resul
 
 static void on_relist_done(void *user, const eng_result_t *res)
 {
-    watcher_t *w = user;
+    watches_watcher_t *w = user;
     watches_t *ws = w->ws;
     const src_class_t *wcl = src_class(ws->ctx.issuer, w->wc->cls);
     const src_class_t *lc = src_class(ws->ctx.issuer, wcl->pr->watch.relist.index);
@@ -474,7 +372,7 @@ static void on_relist_done(void *user, const eng_result_t *res)
 }
 
 /* Sends one page of the relist (token NULL for the first). */
-static int relist_page(watches_t *ws, watcher_t *w, const char *token, int64_t intended)
+static int relist_page(watches_t *ws, watches_watcher_t *w, const char *token, int64_t intended)
 {
     const src_class_t *lc =
         src_class(ws->ctx.issuer, src_class(ws->ctx.issuer, w->wc->cls)->pr->watch.relist.index);
@@ -510,7 +408,7 @@ static int relist_page(watches_t *ws, watcher_t *w, const char *token, int64_t i
 }
 
 /* Starts a relist: the list class's path rendered with the watcher's own draws. */
-static int relist_start(watches_t *ws, watcher_t *w, int64_t intended)
+static int relist_start(watches_t *ws, watches_watcher_t *w, int64_t intended)
 {
     int list = src_class(ws->ctx.issuer, w->wc->cls)->pr->watch.relist.index;
     rng_t draws = w->draws;
@@ -556,7 +454,15 @@ static watch_stream_cfg_t stream_cfg(const plan_req_t *pr)
     };
 }
 
-static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, uint64_t seed)
+void watches_stream_init(watches_watcher_t *w, const plan_req_t *pr)
+{
+    watch_stream_cfg_t cfg = stream_cfg(pr);
+    watch_stream_init(&w->st, &cfg);
+    watch_framer_init(&w->fr, framing[pr->watch.framing], 0, on_event, w);
+}
+
+static int watcher_init(watches_t *ws, watches_watcher_t *w, watches_class_t *wc, int index,
+                        uint64_t seed)
 {
     const src_class_t *c = src_class(ws->ctx.issuer, wc->cls);
     w->ws = ws;
@@ -571,9 +477,7 @@ static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, ui
         return rc;
     if (!(w->path = strdup(ws->buf.data)))
         return SQ_ENOMEM;
-    watch_stream_cfg_t cfg = stream_cfg(c->pr);
-    watch_stream_init(&w->st, &cfg);
-    watch_framer_init(&w->fr, framing[c->pr->watch.framing], 0, on_event, w);
+    watches_stream_init(w, c->pr);
     return 0;
 }
 
@@ -584,7 +488,7 @@ static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, ui
 
 /* The plan's target, with one connection per stream over HTTP/1.1 and ceil(n / streams)
  * connections over HTTP/2, no timeout (relists carry their class's). */
-static int engine_new(watches_t *ws, int watchers)
+int watches_engine_new(watches_t *ws, int watchers)
 {
     const plan_target_t *t = &ws->ctx.plan->target;
     int per = t->streams ? t->streams : H2_STREAMS;
@@ -614,7 +518,7 @@ static bool watches_used_by(const plan_t *plan, const plan_phase_t *pp)
     return pp->watches.n_sets > 0;
 }
 
-static int watches_new(const src_ctx_t *ctx, void **self)
+int watches_new(const src_ctx_t *ctx, void **self)
 {
     watches_t *ws = calloc(1, sizeof(*ws));
     if (!ws)
@@ -624,7 +528,7 @@ static int watches_new(const src_ctx_t *ctx, void **self)
     ws->pp = src_phase(ctx);
     tmpl_buf_init(&ws->buf);
     rng_seed(&ws->rng, src_seed(ctx, SRC_STREAM_BACKOFF));
-    return check_files(ctx, ws->pp, phase_watchers(ws->pp));
+    return watches_check_files(ctx, ws->pp, phase_watchers(ws->pp));
 }
 
 static int watchers_init(watches_t *ws)
@@ -632,10 +536,10 @@ static int watchers_init(watches_t *ws)
     const plan_phase_t *pp = ws->pp;
     int n = phase_watchers(pp), index = 0, rc = 0;
     for (size_t k = 0; rc == 0 && k < pp->watches.n_sets; k++) {
-        wclass_t *wc = &ws->wcs[ws->n_wc++];
+        watches_class_t *wc = &ws->wcs[ws->n_wc++];
         wc->cls = pp->watches.sets[k].cls.index;
         wc->streams = pp->watches.sets[k].count;
-        wc->events = cell(ws, wc->cls, "2xx"); /* a watch class's 2xx cell counts events */
+        wc->events = watches_cell(ws, wc->cls, "2xx"); /* a watch class's 2xx cell counts events */
         for (int j = 0; rc == 0 && j < wc->streams; j++, index++) {
             rc = watcher_init(ws, &ws->w[index], wc, index,
                               src_seed(&ws->ctx, SRC_STREAM_WATCH + (uint32_t)index));
@@ -656,7 +560,7 @@ static int watches_start(void *self, src_t *me)
     ws->base_ns = ws->ctx.base_ns;
     int rc = phase_alloc(ws, ws->pp, n);
     if (rc == 0)
-        rc = engine_new(ws, n);
+        rc = watches_engine_new(ws, n);
     if (rc == 0)
         rc = watchers_init(ws);
     ws->next_due_ns = ws->base_ns;
@@ -684,7 +588,7 @@ static int watches_due(void *self, int64_t now_ns)
         return 0;
     int64_t next = INT64_MAX;
     for (size_t i = 0; i < ws->n; i++) {
-        watcher_t *w = &ws->w[i];
+        watches_watcher_t *w = &ws->w[i];
         enum watch_state s = w->st.state;
         if (w->busy || (s != WATCH_IDLE && s != WATCH_WAITING && s != WATCH_RELISTING))
             continue;
@@ -692,7 +596,8 @@ static int watches_due(void *self, int64_t now_ns)
             next = w->due_ns < next ? w->due_ns : next;
             continue;
         }
-        int rc = w->due_relist ? relist_start(ws, w, w->due_ns) : open_stream(ws, w, w->due_ns);
+        int rc =
+            w->due_relist ? relist_start(ws, w, w->due_ns) : watches_stream_open(ws, w, w->due_ns);
         if (rc == SQ_ESTOPPED)
             return 0;
         if (rc) {
@@ -721,54 +626,6 @@ static double watches_expected(const void *self, int64_t t0, int64_t t1, double 
 
 /* ---- the end of a phase ------------------------------------------------------------------ */
 
-/* The reconnect log as columns: {ended_ns, delay_ns, sent_ns, attempt: [...], truncated,
- * dropped}; truncated when reconnects were dropped (more than LOG_MAX in the phase). */
-static json_t *log_json(const watches_t *ws)
-{
-    json_t *end = json_array(), *delay = json_array(), *sent = json_array(), *att = json_array();
-    for (size_t i = 0; i < ws->n_log; i++) {
-        json_array_append_new(end, json_integer(ws->log[i].end));
-        json_array_append_new(delay, json_integer(ws->log[i].delay));
-        json_array_append_new(sent, json_integer(ws->log[i].sent));
-        json_array_append_new(att, json_integer(ws->log[i].attempt));
-    }
-    return json_pack("{s:o,s:o,s:o,s:o,s:b,s:I}", "ended_ns", end, "delay_ns", delay, "sent_ns",
-                     sent, "attempt", att, "truncated", ws->log_dropped > 0, "dropped",
-                     (json_int_t)ws->log_dropped);
-}
-
-/* The phase's figures per class, summed over its watchers. */
-static json_t *class_json(watches_t *ws, const wclass_t *wc)
-{
-    figs_t f = wc->ended;
-    for (size_t i = 0; i < ws->n; i++)
-        if (ws->w[i].wc == wc)
-            figs_add(&f, &ws->w[i]);
-    return json_pack(
-        "{s:i,s:i,s:i,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:s}", "streams", wc->streams,
-        "open_at_end", wc->open_at_end, "waiting_at_end", wc->waiting_at_end, "opens",
-        (json_int_t)f.opens, "events", (json_int_t)wc->events_n, "bytes", (json_int_t)wc->bytes,
-        "drops", (json_int_t)f.drops, "reconnects", (json_int_t)f.reconnects, "relists",
-        (json_int_t)f.relists, "too_old", (json_int_t)f.too_old, "duplicates", (json_int_t)f.dup,
-        "oversize", (json_int_t)f.over, "unparsed", (json_int_t)wc->unparsed, "server_errors",
-        (json_int_t)wc->server_errors, "no_stamp", (json_int_t)wc->no_stamp, "policy",
-        plan_backoff_name(src_class(ws->ctx.issuer, wc->cls)->pr->watch.policy));
-}
-
-static json_t *phase_json(watches_t *ws)
-{
-    json_t *ph = json_object();
-    json_t *classes = json_object();
-    for (size_t k = 0; k < ws->n_wc; k++) {
-        json_t *cj = class_json(ws, &ws->wcs[k]);
-        if (cj)
-            json_object_set_new(classes, ws->ctx.plan->reqs[ws->wcs[k].cls].name, cj);
-    }
-    json_object_set_new(ph, "classes", classes);
-    json_object_set_new(ph, "reconnect_log", log_json(ws));
-    return ph;
-}
-
 static void phase_free(watches_t *ws)
 {
     for (size_t i = 0; i < ws->n; i++) {
@@ -787,7 +644,7 @@ static void phase_free(watches_t *ws)
 
 /* The phase's end: every stream closes (as "cancelled", a watch's natural end), and the
  * phase's figures join the "watches" section. */
-static void watches_stop(void *self)
+void watches_stop(void *self)
 {
     watches_t *ws = self;
     if (!ws->active && !ws->eng)
@@ -802,12 +659,10 @@ static void watches_stop(void *self)
     }
     eng_free(ws->eng);
     ws->eng = NULL;
-    json_t *ph = phase_json(ws);
-    if (ph)
-        obs_section_put(ws->ctx.obs, "watches", ws->ctx.name, ph);
+    watches_section_put(ws);
 }
 
-static void watches_free(void *self)
+void watches_free(void *self)
 {
     watches_t *ws = self;
     eng_free(ws->eng);
@@ -827,90 +682,3 @@ const src_ops_t src_watches_ops = {
     .stop = watches_stop,
     .free = watches_free,
 };
-
-/* ---- one-shot streams, for another source -------------------------------------------------- */
-
-int watches_once_new(const src_ctx_t *ctx, int streams, watches_t **out)
-{
-    int rc = watches_new(ctx, (void **)out);
-    if (rc)
-        return rc;
-    watches_t *ws = *out;
-    ws->once = true;
-    ws->once_max = streams < ONCE_CONNS ? streams : ONCE_CONNS;
-    return check_files(ctx, ws->pp, ws->once_max);
-}
-
-int watches_once_start(watches_t *ws)
-{
-    ws->base_ns = ws->ctx.base_ns;
-    ws->next_due_ns = INT64_MAX;
-    ws->wcs = calloc(ws->ctx.plan->n_reqs ? ws->ctx.plan->n_reqs : 1, sizeof(*ws->wcs));
-    int rc = ws->wcs ? engine_new(ws, ws->once_max) : SQ_ENOMEM;
-    ws->active = rc == 0;
-    if (rc)
-        out_error(ws->ctx.o, "phase '%s': cannot set up its watches: %s", ws->pp->name,
-                  sq_strerror(rc));
-    return rc;
-}
-
-/* The class's figures, added the first time one of its streams opens. */
-static wclass_t *once_class(watches_t *ws, int cls)
-{
-    for (size_t k = 0; k < ws->n_wc; k++)
-        if (ws->wcs[k].cls == cls)
-            return &ws->wcs[k];
-    wclass_t *wc = &ws->wcs[ws->n_wc++];
-    wc->cls = cls;
-    wc->events = cell(ws, cls, "2xx");
-    return wc;
-}
-
-int watches_once_open(watches_t *ws, int cls, const char *path, int64_t intended_ns,
-                      int64_t hold_ns)
-{
-    if (!ws->active)
-        return SQ_ESTOPPED;
-    watcher_t *w = calloc(1, sizeof(*w));
-    if (!w || !(w->path = strdup(path))) {
-        free(w);
-        return SQ_ENOMEM;
-    }
-    wclass_t *wc = once_class(ws, cls);
-    const plan_req_t *pr = src_class(ws->ctx.issuer, cls)->pr;
-    w->ws = ws;
-    w->wc = wc;
-    w->log = -1;
-    w->hold_ms = hold_ns / 1000000 > 0 ? hold_ns / 1000000 : 1;
-    watch_stream_cfg_t cfg = stream_cfg(pr);
-    watch_stream_init(&w->st, &cfg);
-    watch_framer_init(&w->fr, framing[pr->watch.framing], 0, on_event, w);
-    int rc = open_stream(ws, w, intended_ns);
-    if (rc) {
-        watch_framer_close(&w->fr);
-        free(w->path);
-        free(w);
-        return rc;
-    }
-    wc->streams++;
-    ws->once_open++;
-    eng_flush(ws->eng); /* the stream opens now, not on the loop's next pass */
-    return 0;
-}
-
-int watches_once_open_now(const watches_t *ws)
-{
-    return ws ? ws->once_open : 0;
-}
-
-void watches_once_stop(watches_t *ws)
-{
-    if (ws)
-        watches_stop(ws);
-}
-
-void watches_once_free(watches_t *ws)
-{
-    if (ws)
-        watches_free(ws);
-}

@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # Objectives and brakes against real runs of the embedded target, whose --delay option adds a
-# known server-side latency: an objective p99 <= 20 ms fails with a 50 ms delay (exit 1) and holds
-# with none (exit 0); a percentile brake and a saturation brake stop a run (exit 3) and results
+# known server-side latency: an objective p99 <= 40 ms fails with a 50 ms delay (exit 1) and holds
+# with none (exit 0; 40 ms leaves room for a noisy second of this shared machine); a percentile brake and a saturation brake stop a run (exit 3) and results
 # say why. Exit codes: README, "Exit codes" (include/squall/err.h SQ_EXIT_MAP).
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/target.sh"
@@ -21,7 +21,7 @@ phases:
   - {name: warm, rate: 50/s, duration: 2s, mix: {read: 1}}
   - {name: steady, rate: 100/s, duration: 2s, mix: {read: 1}}
 objectives:
-  - {class: read, p99: 20ms}
+  - {class: read, p99: 40ms}
   - {class: "*", error-rate: 1%}
   - {class: read, phase: steady, min-rate: 90/s}
 YAML
@@ -34,7 +34,7 @@ serve_start --delay fixed:50ms || exit 1
 curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 plan "$T/slow.yaml" "$SERVE_URL"
 run_plan "$T/slow" "$T/slow.yaml"
-expect "a 50 ms delay breaks p99 <= 20 ms: exit 1 (got $RUN_RC)" test "$RUN_RC" = 1
+expect "a 50 ms delay breaks p99 <= 40 ms: exit 1 (got $RUN_RC)" test "$RUN_RC" = 1
 rcheck "results.json says the run failed its objectives" "$O['passed'] is False" "$T/slow"
 rcheck "the p99 check fails in warm, steady and the run, observing >= 50 ms (the known delay)" \
     "sorted(c['scope'] for c in $K if c['objective'] == 0 and c['verdict'] == 'fail'

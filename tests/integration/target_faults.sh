@@ -48,12 +48,14 @@ awk -v m="$med" -v n="$min" 'BEGIN{exit !(m >= 0.050 && m <= 0.065 && n >= 0.050
 [ "$(curl -s "$U/admin/faults" | jq .counts.delayed)" = 20 ] || fail "delayed count != 20"
 echo "ok: fixed 50 ms delay seen by the client: median ${med}s, min ${min}s; delayed count 20"
 
-# Uniform delay 20..40 ms: every client time inside [20 ms, 40 ms + 15 ms slack].
+# Uniform delay 20..40 ms: every client time at least 20 ms, and the 18th of 20 sorted (the 90th
+# percentile) at most 40 ms + 15 ms slack: one scheduling hiccup of this shared machine does not
+# fail it, a delay drawn too long (say 40..80 ms: about 15 of 20 above 55 ms) does.
 faults '{"delay":"uniform:20ms..40ms"}' >/dev/null
 for i in $(seq 20); do
     curl -s -o /dev/null -w '%{time_total}\n' "$U/v1/sites/north/gateways/gw-1"
 done >"$tmp/lat"
-awk '$1 < 0.020 || $1 > 0.055 {bad=1} END{exit bad}' "$tmp/lat" ||
+sort -n "$tmp/lat" | awk '$1 < 0.020 {bad=1} NR == 18 && $1 > 0.055 {bad=1} END{exit bad}' ||
     fail "uniform 20..40 ms: times $(tr '\n' ' ' <"$tmp/lat")"
 echo "ok: uniform 20..40 ms delay: client times $(sort -n "$tmp/lat" | head -1)..$(sort -n "$tmp/lat" | tail -1) s"
 

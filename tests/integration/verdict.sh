@@ -148,7 +148,9 @@ rcheck "the reasons say how many each had and how many it needs" \
 rcheck "the checks carry verdict too-few and needed 100 / 1,000" \
     "sorted({(c['class'], c['verdict'], c['needed']) for c in d['sections']['objectives']['checks'] if not c['default']})
      == [('read', 'too-few', 100), ('scan', 'too-few', 1000)]" "$T/few"
-few_plan "$T/few-ok.yaml" "accept: [few-samples]"
+# (generator-bound too: a lagging second of this shared machine is not what this case is about;
+# without few-samples the run is still INCONCLUSIVE, exit 7)
+few_plan "$T/few-ok.yaml" "accept: [few-samples, generator-bound]"
 run_plan "$T/few-ok" "$T/few-ok.yaml" --seed 3
 expect_rc "with accept: [few-samples]: PASS, exit 0 (got $RUN_RC)" "$T/few-ok" 0
 

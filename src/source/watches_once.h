@@ -3,12 +3,12 @@
  * (events, bytes, open latency; the phase's "watches" section), and closed by squall after its
  * hold time (libcurl's timeout of the request). It is never reopened: an early end by the
  * server is counted as a drop, a refusal under its outcome. */
-#ifndef SQUALL_SRC_WATCHES_H
-#define SQUALL_SRC_WATCHES_H
+#ifndef SQUALL_SRC_WATCHES_ONCE_H
+#define SQUALL_SRC_WATCHES_ONCE_H
 
 #include "squall/source.h"
 
-typedef struct watches watches_t;
+typedef struct watches_set watches_t;
 
 /* For phase ctx->phase, at most `streams` open at once (capped at 1,024 connections; more wait in
  * the engine's queue, which their open latency shows); checks the open-files limit as a watch
