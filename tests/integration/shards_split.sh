@@ -30,6 +30,7 @@ POISSON_S=3
 plan() {
     cat >"$1" <<YAML
 seed: 11
+accept: [generator-bound] # this test counts: a second of lag of this shared machine is listed, not fatal
 target: {url: "$2", connections: 32, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
@@ -277,6 +278,7 @@ for sec in 0 1; do
 done >"$T/day.log"
 cat >"$T/replay.yaml" <<YAML
 seed: 11
+accept: [generator-bound] # as above
 target: {url: "http://127.0.0.1:9", connections: 8, timeout: 5s} # --set per run
 phases:
   - {name: again, replay: {log: day.log, speed: 4}}
