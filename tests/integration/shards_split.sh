@@ -5,9 +5,10 @@
 # shards in parallel (`--shard i/4`, the same plan and seed) against another fresh one. Checked
 # against what the targets themselves saw (their /stats and their own access logs,
 # `squall serve --access-log`, Common Log Format), not against squall's own figures:
-#   - deterministic sources (even arrivals and their class picks, fleet renewals, closed-loop
-#     requests, churn creates and deletes, teardown deletes, watch streams opened): the four
-#     shards' requests equal the single run's exactly, method by method and path by path;
+#   - deterministic sources (even arrivals and their class picks, fleet renewals and the agents'
+#     own watches, closed-loop requests, churn creates and deletes, teardown deletes, watch
+#     streams opened): the four shards' requests equal the single run's exactly, method by
+#     method and path by path;
 #   - the Poisson class: a Poisson count has variance equal to its mean, and a superposition of
 #     independent Poisson processes is Poisson with the summed rate (common practice): the
 #     shards' total within 4 standard deviations of the planned mean rate x duration;
@@ -38,12 +39,13 @@ requests:
   roam: {kind: get, path: /v1/sites/south/gateways/gw-2}
   beat: {kind: write, method: PUT, path: "/v1/sites/north/leases/gw-{{agent}}", body: '{"stamp":{{now_ns}}}'}
   follow: {kind: watch, path: "/v1/sites/north/leases?watch=1"}
+  mine: {kind: watch, path: "/v1/sites/north/own/o-{{agent}}?watch=1"}
   add: {kind: write, method: PUT, path: "/v1/sites/west/turn/t-{{seq}}", body: '{"n":1}', creates: true}
   drop: {kind: write, method: DELETE, path: "/{{pick:add,path}}", deletes: true}
   ask: {kind: get, path: "/v1/sites/east/clients/c-{{agent}}"}
 phases:
   - {name: steady, duration: 4s, rate: 40/s, mix: {read: 3, make: 1},
-     fleet: {agents: 9, every: 1s, timing: aligned, send: beat}, watches: {follow: 6}}
+     fleet: {agents: 9, every: 1s, timing: aligned, send: beat, watch: mine}, watches: {follow: 6}}
   - {name: wander, duration: ${POISSON_S}s, rate: ${POISSON_RATE}/s, arrivals: poisson, mix: {roam: 1},
      churn: {create: add, delete: drop, rate: 20/s, population: 8}}
   - {name: askers, duration: 2500ms, clients: {count: 7, think: 1s}, mix: {ask: 1}}
@@ -125,6 +127,7 @@ det = [
     ("fleet renewals, per agent path", lambda k: k[1].startswith("/v1/sites/north/leases/gw-")),
     ("closed-loop requests, per client path", lambda k: k[1].startswith("/v1/sites/east/clients/")),
     ("watch streams opened", lambda k: k[1] == "/v1/sites/north/leases"),
+    ("fleet agents' own watches, per agent path", lambda k: k[1].startswith("/v1/sites/north/own/")),
 ]
 for what, pred in det:
     a, b = by(one, pred), by(four, pred)
@@ -202,7 +205,7 @@ for n in ("single", "shards"):
 check(stats["single"]["store"]["creates"] == stats["shards"]["store"]["creates"]
       and stats["single"]["store"]["creates"] == stats["shards"]["store"]["deletes"] + seeded
       and stats["single"]["store"]["deletes"] == stats["shards"]["store"]["deletes"]
-      and stats["single"]["streams"]["opened"] == stats["shards"]["streams"]["opened"] == 6,
+      and stats["single"]["streams"]["opened"] == stats["shards"]["streams"]["opened"] == 6 + 9,
       "target /stats: creates, deletes and watch streams opened equal "
       f"({stats['shards']['store']['creates']}, {stats['shards']['store']['deletes']}, "
       f"{stats['shards']['streams']['opened']})")
