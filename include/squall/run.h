@@ -17,6 +17,7 @@
 #include "squall/verdict.h"
 #include "squall/out.h"
 #include "squall/plan.h"
+#include "squall/sched.h"
 
 struct run_result;
 
@@ -30,7 +31,10 @@ typedef struct {
     bool has_seed;
     uint64_t seed;    /* overrides the plan's seed */
     int64_t grace_ns; /* after a signal or a brake: how long in-flight requests may take */
-    int shard_index, shard_count; /* 1/1 unless given */
+    /* This process's share: shard_index of shard_count (1-based; 0/0 or 1/1 is the whole run).
+     * The one place the share is set (`--shard I/N`, or whatever a launcher read); every
+     * source sends only its share of the plan (run_shard). */
+    int shard_index, shard_count;
     const char *shard_from; /* who said which shard this is: "flag" (--shard), a launcher's name
                                (squall/launch.h); NULL: nobody */
     const char *shard_vars; /* the launcher variables read, "NAME=VALUE ..."; NULL when none */
@@ -89,5 +93,7 @@ void run_default_dir(const plan_t *plan, char *dir, size_t cap);
 
 /* The run's seed: the option's, else the plan's, else the clock's. */
 uint64_t run_seed(const plan_t *plan, const run_opts_t *opts);
+/* The share opts set, as the schedulers take it ({0, 0}: the whole run). */
+sched_shard_t run_shard(const run_opts_t *opts);
 
 #endif

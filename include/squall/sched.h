@@ -20,6 +20,10 @@
  *                 start is completion + think; results must be marked closed-loop.
  *   fleet         N periodic agents (spread, jitter or aligned timing), yielding (t, agent).
  *
+ *   shard         one process's share when N processes split a run (`run --shard I/N`, I in
+ *                 1..N): every count of starts, clients and agents is dealt so that the N
+ *                 shards together make exactly what one process would (see sched_shard_t).
+ *
  * Starts lie in [0, duration): a start exactly at the end belongs to the next phase. */
 #ifndef SQUALL_SCHED_H
 #define SQUALL_SCHED_H
@@ -29,6 +33,31 @@
 #include <stdint.h>
 
 #include "squall/rng.h"
+
+/* ---- Shards ------------------------------------------------------------------------------ */
+
+/* Shard `index` (1-based) of `count`; {0, 0} and {1, 1} are the whole run. Everything numbered
+ * from 0 (an even schedule's k-th start, closed-loop client k, fleet agent k, churn op k) is
+ * dealt round robin: shard i owns the k with k mod N = i - 1, so the shards' parts are disjoint
+ * and their union is the whole. */
+typedef struct {
+    int index, count;
+} sched_shard_t;
+
+/* {0, 0}, or 1 <= index <= count (the schedulers refuse anything else: SQ_EINVAL). */
+bool sched_shard_valid(sched_shard_t sh);
+/* True for a shard of more than one (count > 1). */
+bool sched_shard_split(sched_shard_t sh);
+/* Whether shard sh owns item k (always for the whole run). */
+bool sched_shard_owns(sched_shard_t sh, uint64_t k);
+/* How many of the items k in [lo, hi) shard sh owns. */
+uint64_t sched_shard_share(sched_shard_t sh, uint64_t lo, uint64_t hi);
+/* The shard's seed: the run's own for the whole run, else
+ * sched_seed(run_seed, 0xffffffff, index) (the phase number no plan reaches). */
+uint64_t sched_shard_seed(uint64_t run_seed, sched_shard_t sh);
+/* A stable 64-bit hash of a string (FNV-1a, the same on every machine): replay deals clients
+ * to shards by it. */
+uint64_t sched_shard_hash(const char *s);
 
 /* ---- Open loop ---------------------------------------------------------------------------- */
 
@@ -50,6 +79,10 @@ typedef struct {
     int64_t duration_ns; /* > 0 */
     enum sched_arrivals arrivals;
     uint64_t seed; /* poisson only; the same seed gives the same starts */
+    /* Even: the shard's starts are the single schedule's k-th with k mod N = index - 1 (their
+     * union is the single schedule exactly). Poisson: the shard's own process of rate r(t)/N
+     * (Λ/N), which with independent seeds superpose to the planned process. */
+    sched_shard_t shard;
 } sched_open_cfg_t;
 
 typedef struct sched_open sched_open_t;
@@ -73,8 +106,12 @@ uint64_t sched_open_count(const sched_open_t *s);
 
 /* Λ(t) for the config, t clamped to [0, duration]: expected starts in [0, t). Poisson's mean. */
 double sched_open_lambda(const sched_open_cfg_t *cfg, int64_t t_ns);
-/* Exactly how many starts an even schedule makes over the phase: ceil(Λ(duration)). */
+/* Exactly how many starts an even schedule makes over the phase: ceil(Λ(duration)) (the
+ * shard's share of them when cfg->shard splits). */
 uint64_t sched_open_even_count(const sched_open_cfg_t *cfg);
+/* Starts of cfg's schedule in [t0, t1) (rel ns): for even arrivals exactly the shard's share of
+ * the integers in [Λ(t0), Λ(t1)), for Poisson the mean (Λ(t1) - Λ(t0)) / N. */
+double sched_open_expected(const sched_open_cfg_t *cfg, int64_t t0_ns, int64_t t1_ns);
 /* The intended rate r(t) in starts per second at t (the live line's target rate); 0 outside
  * [0, duration) or for an invalid config. */
 double sched_open_rate(const sched_open_cfg_t *cfg, int64_t t_ns);
@@ -106,6 +143,7 @@ typedef struct {
     int64_t spread_ns;   /* client i's first start at i * spread / clients; 0 = all at t = 0 */
     int64_t duration_ns; /* > 0: no start at or after it */
     uint64_t seed;
+    sched_shard_t shard; /* only the clients k (0-based) the shard owns; ids stay global */
 } sched_closed_cfg_t;
 
 /* A client's lifecycle; it changes only through one setter inside closed.c. */
@@ -165,6 +203,10 @@ typedef struct {
      * multiple of P on every tick; separate processes with synced clocks line up. */
     int64_t realtime0_ns;
     uint64_t seed;
+    /* Only the agents k (0-based) the shard owns act; every agent's drift and spread phase are
+     * drawn as for the whole fleet (the shards' agents are the single fleet's), jitter draws
+     * then come from sched_seed(seed, index, count). */
+    sched_shard_t shard;
 } sched_fleet_cfg_t;
 
 typedef struct sched_fleet sched_fleet_t;

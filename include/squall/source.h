@@ -27,6 +27,7 @@
 #include "squall/observe.h"
 #include "squall/out.h"
 #include "squall/plan.h"
+#include "squall/sched.h"
 #include "squall/tmpl.h"
 
 typedef struct src_issuer src_issuer_t;
@@ -81,10 +82,16 @@ typedef struct {
     int64_t base_ns;      /* uv_hrtime() at the phase's t = 0 (0 when only modelling) */
     int64_t realtime0_ns; /* CLOCK_REALTIME at t = 0 (aligned fleets line up on it) */
     uint64_t seed;        /* the run's seed; streams come from sched_seed(seed, phase, k) */
-    double alive;         /* objects of the run alive when the phase starts (churn's model) */
-    bool stopped;         /* the run was stopped early (teardown then has a time limit) */
-    bool keep;            /* --keep: the teardown deletes nothing */
-    uv_loop_t *loop;      /* NULL when only modelling (check, estimates) */
+    /* This process's share of the run (`run --shard I/N`; {0, 0} or {1, 1} = all of it) and
+     * its own seed (sched_shard_seed): each source sends only its share (see DEVELOPERS.md,
+     * "Shards"); what must match the single run (even schedules' mix, fleet phases) draws from
+     * `seed`, what is the shard's own (Poisson arrivals, think times, jitter) from shard_seed. */
+    sched_shard_t shard;
+    uint64_t shard_seed;
+    double alive;    /* objects of the run alive when the phase starts (churn's model) */
+    bool stopped;    /* the run was stopped early (teardown then has a time limit) */
+    bool keep;       /* --keep: the teardown deletes nothing */
+    uv_loop_t *loop; /* NULL when only modelling (check, estimates) */
     const src_target_t *target;
     src_issuer_t *issuer; /* the main engine's request path (NULL when modelling) */
     obs_t *obs;           /* the recorder */
@@ -167,6 +174,9 @@ typedef struct {
  * renderer's draws. */
 int src_issuer_new(const plan_t *plan, uint64_t seed, obs_t *obs, out_t *o, src_issuer_t **out);
 void src_issuer_free(src_issuer_t *is);
+/* Deals {{seq}} to a shard: every class's numbers are index - 1, index - 1 + N, ... so shards
+ * name their objects in disjoint sets whose union is 0, 1, 2, ... (the whole run: from 0). */
+void src_issuer_shard(src_issuer_t *is, sched_shard_t sh);
 /* The engine requests go to (set when the run starts). */
 void src_issuer_attach(src_issuer_t *is, eng_t *eng);
 /* Renders and submits one request for `from`; its done() is called when it finished. Returns
@@ -218,5 +228,8 @@ typedef struct {
  * Returns 0 or a source's own error (reported on o). */
 int src_estimate(const plan_t *plan, uint64_t seed, int64_t realtime0_ns, out_t *o,
                  src_estimate_t *e);
+/* The same for one shard's share (sh {0, 0} or {1, 1}: the whole run, as src_estimate). */
+int src_estimate_shard(const plan_t *plan, uint64_t seed, sched_shard_t sh, int64_t realtime0_ns,
+                       out_t *o, src_estimate_t *e);
 
 #endif

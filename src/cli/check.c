@@ -6,6 +6,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "cli_run.h"
 #include "squall/cli.h"
 #include "squall/clock.h"
 #include "squall/err.h"
@@ -430,13 +431,17 @@ static json_t *check_json(const char *path, const plan_t *p, const src_estimate_
 
 /* What `run` checks before it sends (the target's safety aside: check warns about that), then
  * the estimates, as text or JSON. The plan is freed. */
-static int validate_and_print(const char *path, plan_t *p, bool as_json, out_t *o)
+static int validate_and_print(const char *path, plan_t *p, bool as_json, sched_shard_t sh,
+                              out_t *o)
 {
-    run_opts_t ro = {.confirm_target = true, .allow_exec = true};
+    run_opts_t ro = {.confirm_target = true,
+                     .allow_exec = true,
+                     .shard_index = sh.index,
+                     .shard_count = sh.count};
     src_estimate_t *est = calloc(p->n_phases ? p->n_phases : 1, sizeof(*est));
     int rc = est ? run_check(p, &ro, o) : SQ_ENOMEM;
     if (rc == 0)
-        rc = src_estimate(p, run_seed(p, &ro), clock_real_ns(), o, est);
+        rc = src_estimate_shard(p, run_seed(p, &ro), run_shard(&ro), clock_real_ns(), o, est);
     json_t *j = rc == 0 && as_json ? check_json(path, p, est) : NULL;
     char *text = j ? json_dumps(j, JSON_INDENT(2)) : NULL;
     if (rc == 0 && as_json && !text)
@@ -445,6 +450,9 @@ static int validate_and_print(const char *path, plan_t *p, bool as_json, out_t *
         out_print(o, "%s\n", text);
     if (rc == 0 && !as_json) {
         out_print(o, "plan     %s: valid\n", path);
+        if (sched_shard_split(sh))
+            out_print(o, "shard    %d of %d: the figures below are this shard's share\n", sh.index,
+                      sh.count);
         print_summary(p, est, o);
     }
     free(text);
@@ -457,6 +465,7 @@ static int validate_and_print(const char *path, plan_t *p, bool as_json, out_t *
 static const cli_opt_t check_opts[] = {
     {"set", 0, "KEY=VALUE", "override a plan value, e.g. phases.steady.rate=100/s (repeatable)"},
     {"json", 0, NULL, "print the plan as understood, with every expected figure, as JSON"},
+    {"shard", 0, "I/N", "print shard I of N's share of the figures (what `run --shard I/N` sends)"},
     {NULL, 0, NULL, NULL},
 };
 
@@ -467,6 +476,7 @@ typedef struct {
     char **copies; /* KEY=VALUE copies split at '=' */
     size_t n;
     bool json;
+    sched_shard_t shard;
 } check_args_t;
 
 /* One word of argv into *ca (cli_take_fn): the plan, or a --set. */
@@ -481,6 +491,12 @@ static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void 
     }
     if (k == 1) {
         ca->json = true;
+        return -1;
+    }
+    if (k == 2) {
+        const char *why;
+        if (cli_shard_parse(v, &ca->shard.index, &ca->shard.count, &why))
+            return cli_usage_error(cmd, o, "--shard %s: %s", v, why);
         return -1;
     }
     if (plan_override_split(v, &ca->sets[ca->n], &ca->copies[ca->n]))
@@ -509,7 +525,7 @@ static int check_one(const check_args_t *ca, const char *path, out_t *o)
     plan_t *p;
     int err = plan_load(path, ca->sets, ca->n, &p, o);
     if (err == 0)
-        err = validate_and_print(path, p, ca->json, o);
+        err = validate_and_print(path, p, ca->json, ca->shard, o);
     return err == 0 ? SQ_EXIT_OK : err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
 }
 
@@ -546,7 +562,7 @@ static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 const cli_cmd_t cli_cmd_check = {
     .name = "check",
     .summary = "validate plans and print what each would send, without sending anything",
-    .usage = "PLAN.yaml... [--set KEY=VALUE]... [--json]",
+    .usage = "PLAN.yaml... [--set KEY=VALUE]... [--json] [--shard I/N]",
     .description = "Reads each plan (and its includes) and validates it exactly as `run` does\n"
                    "before sending (templates, sources, token, open files), reports every\n"
                    "problem as FILE:LINE:COL: error: ... sorted by position (a --set's as\n"
@@ -558,7 +574,8 @@ const cli_cmd_t cli_cmd_check = {
                    "the run plans with), peak rate, watches, agents and objects created and\n"
                    "deleted. With --json the same figures are printed as one JSON document per\n"
                    "plan (format \"squall-check\", version 1; several follow one another, as jq\n"
-                   "reads them) instead of the text.",
+                   "reads them) instead of the text. With --shard I/N the figures are shard I's\n"
+                   "share (they add up over the N shards).",
     .opts = check_opts,
     .main = check_main,
 };

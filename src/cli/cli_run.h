@@ -27,6 +27,10 @@ typedef struct {
     char **argv;
 } cli_run_args_t;
 
+/* Reads --shard's I/N (1 <= I <= N <= 100000): 0, or SQ_EINVAL with *why saying what is wrong
+ * (malformed, N out of range, I outside 1..N) in one phrase. */
+int cli_shard_parse(const char *v, int *index, int *count, const char **why);
+
 /* The options of `run` (and `demo`), terminated by an entry with name == NULL. */
 extern const cli_opt_t cli_run_opts[];
 

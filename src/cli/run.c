@@ -43,7 +43,9 @@ const cli_opt_t cli_run_opts[] = {
     [OPT_SEED] = {"seed", 0, "N", "seed for every random choice (default: the plan's, else time)"},
     [OPT_GRACE] = {"grace", 0, "DURATION",
                    "after a signal or brake, how long in-flight requests may take (2s)"},
-    [OPT_SHARD] = {"shard", 0, "I/N", "this process is shard I of N (default: from the launcher)"},
+    [OPT_SHARD] = {"shard", 0, "I/N",
+                   "send only shard I's share of the plan, of N processes that together send it "
+                   "(default: from the launcher)"},
     [OPT_SHARD_COUNT] = {"shard-count", 0, "N",
                          "how many shards, when the launcher gives only the index (indexed jobs)"},
     [OPT_LAUNCHER] = {"launcher", 0, "NAME",
@@ -65,19 +67,27 @@ const cli_opt_t cli_run_opts[] = {
     {NULL, 0, NULL, NULL},
 };
 
-static int parse_shard(const char *v, launch_in_t *ro)
+int cli_shard_parse(const char *v, int *index, int *count, const char **why)
 {
     int64_t i, n;
     char a[32], b[32];
     const char *slash = strchr(v, '/');
+    *why = "I/N is two whole numbers, e.g. 2/4";
     if (!slash || slash - v >= 32 || strlen(slash + 1) >= 32)
         return SQ_EINVAL;
     snprintf(a, sizeof a, "%.*s", (int)(slash - v), v);
     snprintf(b, sizeof b, "%s", slash + 1);
-    if (value_parse_int(b, 1, 100000, &n) || value_parse_int(a, 1, n, &i))
+    if (value_parse_int(b, INT64_MIN, INT64_MAX, &n) ||
+        value_parse_int(a, INT64_MIN, INT64_MAX, &i))
         return SQ_EINVAL;
-    ro->flag_index = (int)i;
-    ro->flag_count = (int)n;
+    *why = "N (the number of shards) must be within 1..100000";
+    if (n < 1 || n > 100000)
+        return SQ_EINVAL;
+    *why = "I must be within 1..N (shards count from 1)";
+    if (i < 1 || i > n)
+        return SQ_EINVAL;
+    *index = (int)i;
+    *count = (int)n;
     return 0;
 }
 
@@ -85,6 +95,7 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
 {
     cli_run_args_t *ra = ctx;
     int64_t ns;
+    const char *why;
     switch (k) {
     case CLI_POSITIONAL:
         return cli_take_one(cmd, &ra->path, v, "plan", o);
@@ -123,8 +134,8 @@ int cli_run_take(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx
         ra->ro.grace_ns = ns;
         break;
     case OPT_SHARD:
-        if (parse_shard(v, &ra->launch))
-            return cli_usage_error(cmd, o, "--shard needs I/N with 1 <= I <= N, got '%s'", v);
+        if (cli_shard_parse(v, &ra->launch.flag_index, &ra->launch.flag_count, &why))
+            return cli_usage_error(cmd, o, "--shard %s: %s", v, why);
         break;
     case OPT_SHARD_COUNT: {
         int64_t n;
@@ -346,6 +357,12 @@ const cli_cmd_t cli_cmd_run = {
         "\n"
         "SIGINT or SIGTERM stops new requests and lets in-flight ones finish within --grace;\n"
         "a second signal stops at once. Results are written either way.\n"
+        "\n"
+        "--shard I/N sends only shard I's share (every N-th even start from the (I-1)-th, a\n"
+        "Poisson process of rate/N, clients, agents and watchers k with k mod N = I-1,\n"
+        "{{seq}} values I-1, I-1+N, ..., replayed clients by a hash of their identity): N\n"
+        "shards with the same plan and seed send what one process would; `squall merge`\n"
+        "pools their results. `squall check --shard I/N` shows the share.\n"
         "\n"
         "Objects answered 201 by a class with creates: true are recorded in DIR/journal.ndjson\n"
         "and deleted after the last phase (also after a signal, a brake or an unreachable\n"

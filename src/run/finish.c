@@ -146,6 +146,8 @@ static json_t *run_json(run_t *r, const run_result_t *res, json_t *reasons, json
                           "overrides", sets, "command_line", r->opts->command_line, "verdict",
                           judge_outcome_name(res->outcome), "squall_version", SQUALL_VERSION,
                           "reasons", reasons, "accepted", accepted);
+    if (s && sched_shard_split(r->shard))
+        json_object_set_new(s, "shard_seed", json_integer((json_int_t)r->shard_seed));
     if (s && r->opts->exit_code)
         json_object_set_new(s, "exit_code", json_integer(r->opts->exit_code(0, res)));
     return s;

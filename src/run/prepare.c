@@ -14,6 +14,13 @@ uint64_t run_seed(const plan_t *plan, const run_opts_t *opts)
     return plan->has_seed ? plan->seed : (uint64_t)clock_real_ns();
 }
 
+sched_shard_t run_shard(const run_opts_t *opts)
+{
+    if (opts->shard_count < 1)
+        return (sched_shard_t){0, 0};
+    return (sched_shard_t){opts->shard_index, opts->shard_count};
+}
+
 src_ctx_t run_src_ctx(const run_t *r, size_t phase)
 {
     const run_phase_t *ph = &r->phases[phase];
@@ -25,6 +32,8 @@ src_ctx_t run_src_ctx(const run_t *r, size_t phase)
         .base_ns = ph->base_ns,
         .realtime0_ns = ph->realtime0_ns,
         .seed = r->seed,
+        .shard = r->shard,
+        .shard_seed = r->shard_seed,
         .stopped = r->end != RUN_END_DONE,
         .keep = r->opts->keep,
         .loop = (uv_loop_t *)&r->loop,
@@ -130,6 +139,13 @@ int run_prepare(run_t *r)
     if (rc != 0)
         return rc;
     r->seed = run_seed(p, r->opts);
+    r->shard = run_shard(r->opts);
+    r->shard_seed = sched_shard_seed(r->seed, r->shard);
+    if (sched_shard_split(r->shard) && !r->opts->has_seed && !p->has_seed)
+        out_warn(r->o,
+                 "shard %d/%d with no seed (--seed or the plan's seed): the shards' fleet "
+                 "phases and class mixes will not add up to one run's",
+                 r->shard.index, r->shard.count);
     rc = src_target_init(&r->target, p, r->opts->insecure, r->o);
     if (rc == 0)
         rc = results_new(&r->res);
@@ -145,7 +161,9 @@ int run_prepare(run_t *r)
     if (rc == 0)
         rc = obs_new(&oc, &r->obs);
     if (rc == 0)
-        rc = src_issuer_new(p, r->seed, r->obs, r->o, &r->issuer);
+        rc = src_issuer_new(p, r->shard_seed, r->obs, r->o, &r->issuer);
+    if (rc == 0)
+        src_issuer_shard(r->issuer, r->shard);
     if (rc == 0)
         rc = run_phases_init(r);
     if (rc == 0)

@@ -62,6 +62,8 @@ typedef struct run {
     const run_opts_t *opts;
     out_t *o;
     uint64_t seed;
+    sched_shard_t shard; /* run_shard(opts) */
+    uint64_t shard_seed; /* sched_shard_seed(seed, shard) */
     char dir[4096];
 
     void (*on_brake)(void *run, int kind, const char *why); /* set before run_prepare; NULL to check */

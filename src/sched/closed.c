@@ -21,7 +21,7 @@ struct sched_closed {
     sched_heap_t waiting; /* WAITING clients by intended start */
     rng_t rng;
     uint64_t total;
-    int done;
+    int done, owned; /* clients DONE, and clients this shard owns */
 };
 
 /* The one place a client changes state. */
@@ -47,8 +47,9 @@ static bool schedule(sched_closed_t *c, int i, int64_t t)
 
 static int validate(const sched_closed_cfg_t *cfg)
 {
-    if (!cfg || cfg->clients < 1 || cfg->think_ns < 0 || cfg->spread_ns < 0 ||
-        cfg->duration_ns <= 0 || (cfg->think != SCHED_THINK_FIXED && cfg->think != SCHED_THINK_EXP))
+    if (!cfg || cfg->clients < 1 || !sched_shard_valid(cfg->shard) || cfg->think_ns < 0 ||
+        cfg->spread_ns < 0 || cfg->duration_ns <= 0 ||
+        (cfg->think != SCHED_THINK_FIXED && cfg->think != SCHED_THINK_EXP))
         return SQ_EINVAL;
     return 0;
 }
@@ -71,8 +72,14 @@ int sched_closed_new(const sched_closed_cfg_t *cfg, sched_closed_t **out)
     }
     c->cfg = *cfg;
     rng_seed(&c->rng, cfg->seed);
-    for (int i = 0; i < cfg->clients; i++)
+    /* Every client keeps its global id; only the shard's own are ever scheduled (the others
+     * stay as calloc left them and are never due). */
+    for (int i = 0; i < cfg->clients; i++) {
+        if (!sched_shard_owns(cfg->shard, (uint64_t)i))
+            continue;
+        c->owned++;
         schedule(c, i, first_start(cfg, i));
+    }
     *out = c;
     return 0;
 }
@@ -139,7 +146,7 @@ uint64_t sched_closed_total(const sched_closed_t *c)
 
 bool sched_closed_finished(const sched_closed_t *c)
 {
-    return c->done == c->cfg.clients;
+    return c->done == c->owned;
 }
 
 double sched_closed_expected(const sched_closed_cfg_t *cfg, int64_t response_ns)
@@ -150,7 +157,7 @@ double sched_closed_expected(const sched_closed_cfg_t *cfg, int64_t response_ns)
     double sum = 0;
     for (int i = 0; i < cfg->clients; i++) {
         int64_t first = first_start(cfg, i);
-        if (first >= cfg->duration_ns)
+        if (first >= cfg->duration_ns || !sched_shard_owns(cfg->shard, (uint64_t)i))
             continue;
         /* Starts first + k·cycle < duration: k = 0 .. ceil((duration − first) / cycle) − 1. */
         sum += cycle > 0 ? (double)((cfg->duration_ns - first + cycle - 1) / cycle) : INFINITY;

@@ -37,8 +37,8 @@ int64_t sched_align_offset(int64_t realtime0_ns, int64_t period_ns)
 
 static int validate(const sched_fleet_cfg_t *c)
 {
-    if (!c || c->agents < 1 || c->period_ns <= 0 || c->duration_ns <= 0 || c->join_ns < 0 ||
-        c->leave_ns < 0 || c->leave_ns > c->duration_ns)
+    if (!c || c->agents < 1 || !sched_shard_valid(c->shard) || c->period_ns <= 0 ||
+        c->duration_ns <= 0 || c->join_ns < 0 || c->leave_ns < 0 || c->leave_ns > c->duration_ns)
         return SQ_EINVAL;
     if (!(c->jitter >= 0 && c->jitter < 1) || !(c->drift >= 0 && c->drift < 0.5))
         return SQ_EINVAL;
@@ -90,9 +90,13 @@ static void setup_agents(sched_fleet_t *f)
         /* Agents leave in the order they joined, evenly over the last `leave` of the phase. */
         a->end = c->duration_ns - c->leave_ns + (int64_t)((double)c->leave_ns * i / c->agents);
         a->first = a->prev = first_action(f, i, join);
-        if (a->first < a->end)
+        if (a->first < a->end && sched_shard_owns(c->shard, (uint64_t)i))
             sched_heap_push(&f->heap, a->first, i);
     }
+    /* A shard's jitter draws are its own stream (the whole fleet's would be the same in every
+     * shard, drawn for different agents). */
+    if (sched_shard_split(c->shard))
+        rng_seed(&f->rng, sched_seed(c->seed, (uint32_t)c->shard.index, (uint32_t)c->shard.count));
 }
 
 int sched_fleet_new(const sched_fleet_cfg_t *cfg, sched_fleet_t **out)
@@ -186,7 +190,8 @@ int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg)
             n++;
     } else {
         for (int i = 0; i < cfg->agents; i++)
-            n += agent_count(&f->agents[i], f->agents[i].end);
+            if (sched_shard_owns(cfg->shard, (uint64_t)i))
+                n += agent_count(&f->agents[i], f->agents[i].end);
     }
     sched_fleet_free(f);
     return n;
@@ -240,6 +245,7 @@ double sched_fleet_expected(const sched_fleet_t *f, int64_t t0_ns, int64_t t1_ns
     if (t1_ns <= t0_ns)
         return 0;
     for (int i = 0; i < f->cfg.agents; i++)
-        n += agent_before(f, &f->agents[i], t1_ns) - agent_before(f, &f->agents[i], t0_ns);
+        if (sched_shard_owns(f->cfg.shard, (uint64_t)i))
+            n += agent_before(f, &f->agents[i], t1_ns) - agent_before(f, &f->agents[i], t0_ns);
     return n;
 }

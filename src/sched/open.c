@@ -18,6 +18,7 @@ struct sched_open {
     size_t n_segs, seg; /* seg only moves forward: starts come out in time order */
     int64_t duration_ns;
     enum sched_arrivals arrivals;
+    double step; /* Λ between two of this shard's starts: N (1 for the whole run) */
     rng_t rng;
     double y;        /* the Λ value of the pending start */
     int64_t next_ns; /* the pending start, or -1 when the phase has none left */
@@ -31,7 +32,7 @@ static bool rate_ok(double r)
 
 static int validate(const sched_open_cfg_t *cfg)
 {
-    if (!cfg || cfg->duration_ns <= 0)
+    if (!cfg || cfg->duration_ns <= 0 || !sched_shard_valid(cfg->shard))
         return SQ_EINVAL;
     switch (cfg->shape) {
     case SCHED_CONSTANT:
@@ -113,8 +114,9 @@ static void settle(sched_open_t *s)
 
 static void advance(sched_open_t *s)
 {
-    /* Even: the next integer of Λ. Poisson: a unit-rate exponential gap in Λ's time scale. */
-    s->y += s->arrivals == SCHED_EVEN ? 1.0 : rng_exp(&s->rng, 1.0);
+    /* Even: the shard's next integer of Λ (every N-th). Poisson: an exponential gap of mean N
+     * in Λ's time scale, i.e. a process of rate r(t)/N. */
+    s->y += s->arrivals == SCHED_EVEN ? s->step : s->step * rng_exp(&s->rng, 1.0);
     settle(s);
 }
 
@@ -132,9 +134,11 @@ int sched_open_new(const sched_open_cfg_t *cfg, sched_open_t **out)
     s->n_segs = build_segs(cfg, s->segs);
     s->duration_ns = cfg->duration_ns;
     s->arrivals = cfg->arrivals;
+    s->step = sched_shard_split(cfg->shard) ? cfg->shard.count : 1;
     rng_seed(&s->rng, cfg->seed);
     if (s->arrivals == SCHED_EVEN) {
-        s->y = 0; /* the first even start is at Λ⁻¹(0) */
+        /* The first even start is at Λ⁻¹(0); a shard's at Λ⁻¹(index - 1). */
+        s->y = sched_shard_split(cfg->shard) ? cfg->shard.index - 1 : 0;
         settle(s);
     } else {
         s->y = 0;
@@ -213,6 +217,7 @@ uint64_t sched_open_even_count(const sched_open_cfg_t *cfg)
      * the count agrees with the iterator exactly, in O(steps). */
     sched_open_cfg_t c = *cfg;
     c.arrivals = SCHED_EVEN;
+    c.shard = (sched_shard_t){0, 0};
     sched_open_t *s;
     if (sched_open_new(&c, &s) < 0)
         return 0;
@@ -226,7 +231,21 @@ uint64_t sched_open_even_count(const sched_open_cfg_t *cfg)
             n = (uint64_t)k;
     }
     sched_open_free(s);
-    return n;
+    return sched_shard_share(cfg->shard, 0, n);
+}
+
+double sched_open_expected(const sched_open_cfg_t *cfg, int64_t t0_ns, int64_t t1_ns)
+{
+    double a = sched_open_lambda(cfg, t0_ns), b = sched_open_lambda(cfg, t1_ns);
+    if (b <= a)
+        return 0;
+    if (cfg->arrivals == SCHED_POISSON)
+        return (b - a) / (sched_shard_split(cfg->shard) ? cfg->shard.count : 1);
+    /* Even starts are at Λ⁻¹(k): the integers k in [ceil(a), ceil(b)). Λ in floating point can
+     * land a hair above an integer it should equal. */
+    double ka = ceil(a - 1e-9), kb = ceil(b - 1e-9);
+    ka = ka > 0 ? ka : 0;
+    return kb > ka ? (double)sched_shard_share(cfg->shard, (uint64_t)ka, (uint64_t)kb) : 0;
 }
 
 double sched_open_rate(const sched_open_cfg_t *cfg, int64_t t_ns)

@@ -43,9 +43,10 @@ static int closed_new(const src_ctx_t *ctx, void **self)
         .think_ns = pp->clients.think_ns,
         .think = SCHED_THINK_FIXED,
         .duration_ns = pp->duration_ns,
-        .seed = src_seed(ctx, SRC_STREAM_CLOSED),
+        .seed = src_shard_seed(ctx, SRC_STREAM_CLOSED),
+        .shard = ctx->shard,
     };
-    int rc = src_mix_init(&s->mix, pp, src_seed(ctx, SRC_STREAM_MIX));
+    int rc = src_mix_init(&s->mix, pp, src_shard_seed(ctx, SRC_STREAM_MIX));
     return rc ? rc : sched_closed_new(&s->cfg, &s->sched);
 }
 
@@ -94,8 +95,8 @@ static void closed_done(void *self, const src_done_t *d)
         s->failed = closed_due(s, res->done_ns);
 }
 
-/* An upper bound: each client starts at most once per think time, at 0, think, 2·think, ...;
- * without think time the count depends on the target alone. */
+/* An upper bound: each of the shard's clients starts at most once per think time, at 0, think,
+ * 2·think, ...; without think time the count depends on the target alone. */
 static double closed_expected(const void *self, int64_t t0, int64_t t1, double *per_class)
 {
     const closed_t *s = self;
@@ -106,7 +107,8 @@ static double closed_expected(const void *self, int64_t t0, int64_t t1, double *
     t1 = t1 < end ? t1 : end;
     double k =
         ceil((double)t1 / (double)s->cfg.think_ns) - ceil((double)t0 / (double)s->cfg.think_ns);
-    double n = (double)s->cfg.clients * (k > 0 ? k : 0);
+    double n =
+        (double)sched_shard_share(s->cfg.shard, 0, (uint64_t)s->cfg.clients) * (k > 0 ? k : 0);
     src_mix_spread(&s->mix, n, per_class);
     return n;
 }

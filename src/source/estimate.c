@@ -29,31 +29,39 @@ static double open_peak(const plan_phase_t *ph)
     }
 }
 
-/* Rates, bursts and counts of the phase as the plan writes them. */
-static void describe(const plan_phase_t *ph, src_estimate_t *e)
+/* The shard's share of n numbered things (clients, agents, watches). */
+static int share(sched_shard_t sh, int n)
 {
-    e->peak_rate += open_peak(ph); /* after model(): a replay added its own */
+    return (int)sched_shard_share(sh, 0, n > 0 ? (uint64_t)n : 0);
+}
+
+/* Rates, bursts and counts of the phase as the plan writes them (a shard's share of them: the
+ * rates of open loops, churn and teardown divided by N, clients, agents and watches dealt). */
+static void describe(const plan_phase_t *ph, sched_shard_t sh, src_estimate_t *e)
+{
+    double n = sched_shard_split(sh) ? sh.count : 1, open = open_peak(ph) / n;
+    e->peak_rate += open; /* after model(): a replay added its own */
     if (ph->clients.on) {
         e->closed_loop = true;
-        e->clients = ph->clients.count;
+        e->clients = share(sh, ph->clients.count);
         e->bounded = ph->clients.think_ns > 0;
         if (e->bounded)
-            e->peak_rate = ph->clients.count / (ph->clients.think_ns / 1e9);
+            e->peak_rate = e->clients / (ph->clients.think_ns / 1e9);
     }
     if (ph->fleet.on) {
-        e->agents = ph->fleet.agents;
+        e->agents = share(sh, ph->fleet.agents);
         for (size_t i = 0; i < ph->fleet.n_send; i++) {
-            e->peak_rate += ph->fleet.agents / (ph->fleet.send[i].every_ns / 1e9);
+            e->peak_rate += e->agents / (ph->fleet.send[i].every_ns / 1e9);
             if (ph->fleet.timing == PLAN_TIMING_ALIGNED)
-                e->burst += ph->fleet.agents;
+                e->burst += e->agents;
         }
     }
     if (ph->churn.on)
-        e->peak_rate += ph->churn.rate;
+        e->peak_rate += ph->churn.rate / n;
     if (ph->teardown.on)
-        e->peak_rate += ph->teardown.rate;
+        e->peak_rate += ph->teardown.rate / n;
     for (size_t i = 0; i < ph->watches.n_sets; i++)
-        e->watches += ph->watches.sets[i].count;
+        e->watches += share(sh, ph->watches.sets[i].count);
     e->replay = ph->replay.on;
 }
 
@@ -128,6 +136,12 @@ static int model(const src_ctx_t *ctx, const plan_phase_t *ph, double *torn, src
 int src_estimate(const plan_t *plan, uint64_t seed, int64_t realtime0_ns, out_t *o,
                  src_estimate_t *e)
 {
+    return src_estimate_shard(plan, seed, (sched_shard_t){0, 0}, realtime0_ns, o, e);
+}
+
+int src_estimate_shard(const plan_t *plan, uint64_t seed, sched_shard_t sh, int64_t realtime0_ns,
+                       out_t *o, src_estimate_t *e)
+{
     double alive = 0, maybe = 0;
     int rc = 0;
     for (size_t i = 0; i < plan->n_phases; i++) {
@@ -141,12 +155,14 @@ int src_estimate(const plan_t *plan, uint64_t seed, int64_t realtime0_ns, out_t 
                          .duration_ns = ph->duration_ns,
                          .realtime0_ns = realtime0_ns,
                          .seed = seed,
+                         .shard = sh,
+                         .shard_seed = sched_shard_seed(seed, sh),
                          .alive = alive,
                          .o = o};
         double torn = 0;
         int r = model(&ctx, ph, &torn, &e[i]);
         rc = rc ? rc : r;
-        describe(ph, &e[i]);
+        describe(ph, sh, &e[i]);
         count_objects(plan, ph, alive, torn, &maybe, &e[i]);
         alive = e[i].alive_after;
     }

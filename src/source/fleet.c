@@ -61,6 +61,7 @@ static int fleet_new(const src_ctx_t *ctx, void **self)
             .duration_ns = pp->duration_ns,
             .realtime0_ns = ctx->realtime0_ns,
             .seed = src_seed(ctx, SRC_STREAM_FLEET + (uint32_t)k),
+            .shard = ctx->shard,
         };
         s->a[k].cls = pp->fleet.send[k].cls.index;
         int rc = sched_fleet_new(&cfg, &s->a[k].sched);

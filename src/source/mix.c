@@ -22,6 +22,7 @@ int src_mix_init(src_mix_t *m, const plan_phase_t *pp, uint64_t seed)
     for (size_t k = 0; k < pp->n_mix; k++)
         m->weight[k] = sum > 0 ? w[k] / sum : 0;
     m->n = pp->n_mix;
+    m->skip_next = m->skip = 0;
     int rc = sched_mix_new(w, pp->n_mix, seed, &m->mix);
     free(w);
     return rc;
@@ -37,8 +38,17 @@ void src_mix_close(src_mix_t *m)
     m->weight = NULL;
 }
 
+void src_mix_deal(src_mix_t *m, uint64_t first, uint64_t skip)
+{
+    m->skip_next = first;
+    m->skip = skip;
+}
+
 int src_mix_pick(src_mix_t *m)
 {
+    for (; m->skip_next > 0; m->skip_next--)
+        sched_mix_pick(m->mix);
+    m->skip_next = m->skip;
     return m->cls[sched_mix_pick(m->mix)];
 }
 

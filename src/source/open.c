@@ -36,7 +36,8 @@ static int shape_cfg(open_t *s, const plan_phase_t *pp)
     sched_open_cfg_t *cfg = &s->cfg;
     cfg->duration_ns = pp->duration_ns;
     cfg->arrivals = pp->arrivals == PLAN_ARRIVALS_POISSON ? SCHED_POISSON : SCHED_EVEN;
-    cfg->seed = src_seed(&s->ctx, SRC_STREAM_ARRIVALS);
+    cfg->seed = src_shard_seed(&s->ctx, SRC_STREAM_ARRIVALS);
+    cfg->shard = s->ctx.shard;
     if (pp->shape == PLAN_LOAD_CONSTANT) {
         cfg->shape = SCHED_CONSTANT;
         cfg->rate = pp->rate;
@@ -65,8 +66,15 @@ static int open_new(const src_ctx_t *ctx, void **self)
     s->ctx = *ctx;
     const plan_phase_t *pp = src_phase(ctx);
     int rc = shape_cfg(s, pp);
+    /* A shard of an even schedule has the single run's k-th starts: it takes the single run's
+     * k-th class picks too (its own stream for Poisson, whose starts are its own). */
+    bool even = s->cfg.arrivals == SCHED_EVEN, split = sched_shard_split(ctx->shard);
     if (rc == 0)
-        rc = src_mix_init(&s->mix, pp, src_seed(ctx, SRC_STREAM_MIX));
+        rc = src_mix_init(&s->mix, pp,
+                          even ? src_seed(ctx, SRC_STREAM_MIX)
+                               : src_shard_seed(ctx, SRC_STREAM_MIX));
+    if (rc == 0 && even && split)
+        src_mix_deal(&s->mix, (uint64_t)ctx->shard.index - 1, (uint64_t)ctx->shard.count - 1);
     if (rc == 0)
         rc = sched_open_new(&s->cfg, &s->sched);
     if (rc == SQ_EINVAL)
@@ -102,15 +110,12 @@ static int open_due(void *self, int64_t now_ns)
     return rc;
 }
 
-/* Even arrivals are at Λ⁻¹(k): exactly ceil(Λ(t1)) - ceil(Λ(t0)) of them in [t0, t1). Poisson
- * arrivals have mean Λ(t1) - Λ(t0). */
+/* The scheduler's own count: even arrivals exactly (the shard's share of the Λ⁻¹(k) in
+ * [t0, t1)), Poisson arrivals their mean. */
 static double open_expected(const void *self, int64_t t0, int64_t t1, double *per_class)
 {
     const open_t *s = self;
-    double a = sched_open_lambda(&s->cfg, t0), b = sched_open_lambda(&s->cfg, t1);
-    /* Λ in floating point can land a hair above an integer it should equal. */
-    double n = s->cfg.arrivals == SCHED_EVEN ? ceil(b - 1e-9) - ceil(a - 1e-9) : b - a;
-    n = n < 0 ? 0 : n;
+    double n = sched_open_expected(&s->cfg, t0, t1);
     src_mix_spread(&s->mix, n, per_class);
     return n;
 }

@@ -155,6 +155,16 @@ static int count_slot(replay_t *s, int64_t sec, size_t *at)
     return 0;
 }
 
+/* Whether a record's client is this shard's: a client's requests all go to one shard, in their
+ * recorded order (records without a client identity all go to the shard of ""). */
+static bool mine(const replay_t *s, const alog_record_t *rec)
+{
+    sched_shard_t sh = s->ctx.shard;
+    return !sched_shard_split(sh) ||
+           sched_shard_hash(rec->client ? rec->client : "") % (uint64_t)sh.count ==
+               (uint64_t)(sh.index - 1);
+}
+
 /* The whole log once: counts per second and class of what will be sent, before the window. */
 static int first_pass(replay_t *s)
 {
@@ -173,13 +183,16 @@ static int first_pass(replay_t *s)
         s->coarse &= rec.resolution_ns >= RP_SEC;
         int cls;
         enum rp_verdict v = rp_rules_judge(&s->rules, &rec, &cls);
-        s->n_watches += v == RP_WATCH;
+        bool own = mine(s, &rec);
+        s->n_watches += v == RP_WATCH && own;
         if (v != RP_SEND)
             continue;
         size_t at;
         rc = count_slot(s, floor_sec(rec.t_ns), &at);
+        /* A second's requests are spread over it by their place among all of them (as the
+         * single run places them); the counts the model gives are the shard's own. */
         if (rc == 0) {
-            s->counts[at * (size_t)s->n_cls + (size_t)cls]++;
+            s->counts[at * (size_t)s->n_cls + (size_t)cls] += own;
             s->tick[at]++;
         }
     }
@@ -302,10 +315,13 @@ static int take(replay_t *s, const alog_record_t *rec)
     enum rp_verdict v = rec->t_ns < s->win_lo || rec->t_ns >= s->win_hi
                             ? RP_FILTERED
                             : rp_rules_judge(&s->rules, rec, &cls);
-    s->verdicts[v]++;
+    bool own = mine(s, rec);
+    s->verdicts[(v == RP_SEND || v == RP_WATCH) && !own ? RP_OTHER_SHARD : v]++;
     if (v != RP_SEND && v != RP_WATCH)
         return 0;
     int64_t t = rel_time(s, rec, v == RP_SEND);
+    if (!own)
+        return 0;
     int64_t hold = 0; /* a watch's, at least 1 ns: an entry with a hold opens a stream */
     if (v == RP_WATCH) {
         hold = (int64_t)((double)rec->duration_ns / s->pp->replay.speed);
@@ -501,7 +517,7 @@ static int rp_finish(void *self, results_t *res)
     if (!sec && results_set_section(res, "replay", sec = json_object()))
         return SQ_ENOMEM;
     json_t *ph = json_pack(
-        "{s:s,s:s,s:f,s:i,s:I,s:s,s:I,s:I,s:I,s:O,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I}", "log",
+        "{s:s,s:s,s:f,s:i,s:I,s:s,s:I,s:I,s:I,s:O,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I,s:I}", "log",
         s->pp->replay.log, "format", s->format, "speed", s->pp->replay.speed, "copies",
         s->pp->replay.copies, "offset_ns", (json_int_t)s->pp->replay.offset_ns, "spread",
         spread_name(s), "lines", (json_int_t)s->lines, "records", (json_int_t)s->records,
@@ -510,7 +526,8 @@ static int rp_finish(void *self, results_t *res)
         (json_int_t)s->watch_failed, "skipped_writes", (json_int_t)s->verdicts[RP_SKIP_WRITE],
         "skipped_watches", (json_int_t)s->verdicts[RP_SKIP_WATCH], "skipped_kind",
         (json_int_t)s->verdicts[RP_SKIP_KIND], "filtered", (json_int_t)s->verdicts[RP_FILTERED],
-        "bad_rewrites", (json_int_t)s->bad_path, "not_sent", (json_int_t)s->unsent);
+        "bad_rewrites", (json_int_t)s->bad_path, "not_sent", (json_int_t)s->unsent, "other_shards",
+        (json_int_t)s->verdicts[RP_OTHER_SHARD]);
     return ph ? json_object_set_new(sec, s->ctx.name, ph) : SQ_ENOMEM;
 }
 

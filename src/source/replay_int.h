@@ -16,6 +16,7 @@ enum rp_verdict {
     RP_WATCH,      /* a watch stream: marked (watch-param) or classified so, lasting watch-min */
     RP_SKIP_WATCH, /* a watch with no duration in the log, or shorter than watch-min */
     RP_SKIP_KIND,  /* a write classified as a get or list */
+    RP_OTHER_SHARD, /* its client belongs to another shard (sched_shard_hash(client) mod N) */
     RP_N_VERDICTS
 };
 

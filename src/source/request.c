@@ -39,6 +39,7 @@ struct src_issuer {
     void **chunks;
     size_t n_chunks;
     bool paging;
+    uint64_t seq_step; /* {{seq}} advances by the shard count (1 for the whole run) */
 };
 
 /* ---- classes ------------------------------------------------------------------------------ */
@@ -106,7 +107,7 @@ int src_issuer_new(const plan_t *plan, uint64_t seed, obs_t *obs, out_t *o, src_
     *out = is;
     if (!is)
         return SQ_ENOMEM;
-    *is = (src_issuer_t){.plan = plan, .obs = obs, .o = o, .paging = true};
+    *is = (src_issuer_t){.plan = plan, .obs = obs, .o = o, .paging = true, .seq_step = 1};
     rng_seed(&is->rng, seed);
     tmpl_buf_init(&is->path_buf);
     tmpl_buf_init(&is->body_buf);
@@ -122,6 +123,14 @@ int src_issuer_new(const plan_t *plan, uint64_t seed, obs_t *obs, out_t *o, src_
         bad |= e != 0;
     }
     return rc ? rc : bad ? SQ_EPARSE : 0;
+}
+
+void src_issuer_shard(src_issuer_t *is, sched_shard_t sh)
+{
+    bool split = sched_shard_split(sh);
+    is->seq_step = split ? (uint64_t)sh.count : 1;
+    for (size_t i = 0; i < is->n_classes; i++)
+        is->classes[i].seq = split ? (uint64_t)(sh.index - 1) : 0;
 }
 
 void src_issuer_free(src_issuer_t *is)
@@ -380,10 +389,11 @@ static int render(src_issuer_t *is, src_t *from, const src_req_t *req, bool path
     src_class_t *c = &is->classes[req->cls];
     tmpl_ctx_t ctx = {
         .agent = req->agent,
-        .seq = c->seq++,
+        .seq = c->seq,
         .phase = from->phase < is->plan->n_phases ? is->plan->phases[from->phase].name : "teardown",
         .rng = &is->rng,
     };
+    c->seq += is->seq_step;
     int rc = path ? tmpl_render(c->path, &ctx, &is->path_buf) : 0;
     if (rc == 0 && c->body)
         rc = tmpl_render(c->body, &ctx, &is->body_buf);

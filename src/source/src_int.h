@@ -27,15 +27,28 @@ static inline uint64_t src_seed(const src_ctx_t *ctx, uint32_t stream)
     return sched_seed(ctx->seed, (uint32_t)ctx->phase, stream);
 }
 
+/* A stream of the shard's own (Poisson arrivals, think times): the run's seed for the whole
+ * run, so that a 1/1 shard is the unsharded run. */
+static inline uint64_t src_shard_seed(const src_ctx_t *ctx, uint32_t stream)
+{
+    return sched_seed(sched_shard_split(ctx->shard) ? ctx->shard_seed : ctx->seed,
+                      (uint32_t)ctx->phase, stream);
+}
+
 /* A phase's mix: pick a class by weight; spread an expected total over the classes. */
 typedef struct {
     sched_mix_t *mix;
     int *cls;       /* mix index -> class index */
     double *weight; /* normalised */
     size_t n;
+    uint64_t skip_next, skip; /* picks to skip before the next one, and after each */
 } src_mix_t;
 
 int src_mix_init(src_mix_t *m, const plan_phase_t *pp, uint64_t seed);
+/* Every pick after this skips `skip` picks of the stream first (after `first` before the first
+ * pick): a shard of an even schedule picks exactly the classes the single run picks for its
+ * starts. */
+void src_mix_deal(src_mix_t *m, uint64_t first, uint64_t skip);
 void src_mix_close(src_mix_t *m);
 int src_mix_pick(src_mix_t *m);
 void src_mix_spread(const src_mix_t *m, double total, double *per_class);

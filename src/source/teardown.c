@@ -55,6 +55,10 @@ static int teardown_new(const src_ctx_t *ctx, void **self)
     s->ctx = *ctx;
     const plan_phase_t *pp = src_phase(ctx);
     s->rate = pp ? pp->teardown.rate : DEFAULT_RATE;
+    /* Each shard deletes only what it created (its own ledger and journal), at its share of
+     * the rate, so the shards together delete at the planned rate. */
+    if (sched_shard_split(ctx->shard))
+        s->rate /= ctx->shard.count;
     if (pp && ctx->phase + 1 != ctx->plan->n_phases) {
         out_raw(ctx->o, OUT_ERROR,
                 "%s:%d:%d: error: phase '%s': teardown must be the last phase (it deletes what "

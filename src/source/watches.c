@@ -20,11 +20,13 @@
 #define H2_STREAMS    100     /* libcurl's assumption until the server's SETTINGS arrive */
 #define MAX_LIST_PAGE 100000
 
-static int phase_watchers(const plan_phase_t *pp)
+/* The phase's watchers this shard opens: in each watch set, watcher j (0-based) belongs to shard
+ * j mod N + 1 (as fleet agent j does: an agent's own watch goes with it). sh {0, 0}: all. */
+static int phase_watchers(const plan_phase_t *pp, sched_shard_t sh)
 {
     int n = 0;
     for (size_t k = 0; k < pp->watches.n_sets; k++)
-        n += pp->watches.sets[k].count;
+        n += (int)sched_shard_share(sh, 0, (uint64_t)pp->watches.sets[k].count);
     return n;
 }
 
@@ -44,8 +46,10 @@ int64_t src_files_needed(const plan_t *p, int shards)
 {
     int64_t most = files_needed(p, 0);
     for (size_t i = 0; i < p->n_phases; i++) {
-        int w = phase_watchers(&p->phases[i]);
-        int64_t need = files_needed(p, (int)((w + shards - 1) / (shards > 0 ? shards : 1)));
+        /* Shard 1 has the most: the ceiling of each set's count / N. */
+        sched_shard_t first = shards > 1 ? (sched_shard_t){.index = 1, .count = shards}
+                                         : (sched_shard_t){0, 0};
+        int64_t need = files_needed(p, phase_watchers(&p->phases[i], first));
         most = need > most ? need : most;
     }
     return most;
@@ -543,25 +547,30 @@ int watches_new(const src_ctx_t *ctx, void **self)
     ws->pp = src_phase(ctx);
     tmpl_buf_init(&ws->buf);
     rng_seed(&ws->rng, src_seed(ctx, SRC_STREAM_BACKOFF));
-    return watches_check_files(ctx, ws->pp, phase_watchers(ws->pp));
+    return watches_check_files(ctx, ws->pp, phase_watchers(ws->pp, ctx->shard));
 }
 
 static int watchers_init(watches_t *ws)
 {
     const plan_phase_t *pp = ws->pp;
-    int n = phase_watchers(pp), index = 0, rc = 0;
+    /* Watchers keep their index in the whole phase ({{agent}}, seed, opening time); a shard
+     * builds only its own (phase_watchers). */
+    int n = phase_watchers(pp, (sched_shard_t){0, 0}), index = 0, rc = 0;
+    sched_shard_t sh = ws->ctx.shard;
     for (size_t k = 0; rc == 0 && k < pp->watches.n_sets; k++) {
         watches_class_t *wc = &ws->wcs[ws->n_wc++];
+        int count = pp->watches.sets[k].count;
         wc->cls = pp->watches.sets[k].cls.index;
-        wc->streams = pp->watches.sets[k].count;
+        wc->streams = (int)sched_shard_share(sh, 0, (uint64_t)count);
         wc->events = watches_cell(ws, wc->cls, "2xx"); /* a watch class's 2xx cell counts events */
-        for (int j = 0; rc == 0 && j < wc->streams; j++, index++) {
-            rc = watcher_init(ws, &ws->w[index], wc, index,
+        for (int j = 0; rc == 0 && j < count; j++, index++) {
+            if (!sched_shard_owns(sh, (uint64_t)j))
+                continue;
+            watches_watcher_t *w = &ws->w[ws->n++];
+            rc = watcher_init(ws, w, wc, index,
                               src_seed(&ws->ctx, SRC_STREAM_WATCH + (uint32_t)index));
-            ws->n = (size_t)index + 1;
             /* Spread: watcher i opens at i * spread / n, evenly over the window. */
-            ws->w[index].due_ns =
-                ws->base_ns + (int64_t)((double)pp->watches.spread_ns * index / n);
+            w->due_ns = ws->base_ns + (int64_t)((double)pp->watches.spread_ns * index / n);
         }
     }
     return rc;
@@ -571,7 +580,7 @@ static int watches_start(void *self, src_t *me)
 {
     (void)me;
     watches_t *ws = self;
-    int n = phase_watchers(ws->pp);
+    int n = phase_watchers(ws->pp, ws->ctx.shard);
     ws->base_ns = ws->ctx.base_ns;
     int rc = phase_alloc(ws, ws->pp, n);
     if (rc == 0)
@@ -627,7 +636,8 @@ static int watches_due(void *self, int64_t now_ns)
     return 0;
 }
 
-/* Streams opened: each watch set's count (streams, not requests; the estimate says so). */
+/* Streams opened: each watch set's count, this shard's share of it (streams, not requests; the
+ * estimate says so). */
 static double watches_expected(const void *self, int64_t t0, int64_t t1, double *per_class)
 {
     const watches_t *ws = self;
@@ -635,7 +645,8 @@ static double watches_expected(const void *self, int64_t t0, int64_t t1, double 
         return 0;
     for (size_t k = 0; k < ws->pp->watches.n_sets; k++)
         if (ws->pp->watches.sets[k].cls.index >= 0)
-            per_class[ws->pp->watches.sets[k].cls.index] += ws->pp->watches.sets[k].count;
+            per_class[ws->pp->watches.sets[k].cls.index] += (double)sched_shard_share(
+                ws->ctx.shard, 0, (uint64_t)ws->pp->watches.sets[k].count);
     return 0;
 }
 

@@ -2,9 +2,10 @@
 # A merged two-shard run with objectives, judged as one run. The same plan (reads at a rate, then
 # an aligned fleet storm) runs as two real shards in parallel (`run --shard 1/2` and `2/2`)
 # against one embedded target whose `--delay fixed:50ms` adds a known server-side latency
-# (README, "The embedded target"); `squall merge` combines them. Each shard runs the whole plan
-# (--shard only records the shard today), so the single run "of the same load" runs the plan at
-# twice the rate and agents. Checked against sources outside the generator:
+# (README, "The embedded target"); `squall merge` combines them. Each shard sends its half of the
+# plan (README, "Shards": every second even start, agents k mod 2), so the merged two shards are
+# one run of the SAME plan, which runs beside them for comparison. Checked against sources
+# outside the generator:
 #   - the target's own /stats counts (GET and PUT answers) = the merged counts (cells,
 #     series.csv, storm ticks);
 #   - the known delay: a p99 <= 20 ms objective must FAIL merged (exit 1) as in a single run of
@@ -22,7 +23,7 @@ source "$SRCDIR/tests/integration/lib/run.sh"
 T="$BUILDDIR/merge-shards"
 rm -rf "$T"
 mkdir -p "$T"
-AGENTS=10
+AGENTS=10 # per shard: the plan's fleet has 2 x AGENTS agents
 
 plan() { # plan FILE P99 RATE AGENTS: 3 s of reads, then 3 s of an aligned storm of lease renewals
     cat >"$1" <<YAML
@@ -40,10 +41,10 @@ YAML
 
 counts() { serve_stats 's["requests"].get("GET", {}).get("200", 0), s["requests"].get("PUT", {}).get("200", 0)'; }
 
-# shards NAME P99 RATE: both shards at once; SH_RC1, SH_RC2 their exit codes; GOT the target's
-# GET and PUT answers during them
+# shards NAME P99 RATE: both shards of the plan at once; SH_RC1, SH_RC2 their exit codes; GOT the
+# target's GET and PUT answers during them
 shards() {
-    plan "$T/$1.yaml" "$2" "$3" "$AGENTS"
+    plan "$T/$1.yaml" "$2" "$3" $((2 * AGENTS))
     local before after p1 p2
     before=$(counts)
     timeout 120 "$SQUALL" run "$T/$1.yaml" -o "$T/$1-1" --shard 1/2 --quiet >"$T/$1-1.out" 2>&1 &
@@ -64,11 +65,15 @@ merged() {
     MRC=$?
 }
 
-# single NAME P99 RATE: one run with the shards' load together; SRC its exit code
+# single NAME: one process running the shards' plan; SRC its exit code, SGOT the target's GET
+# and PUT answers during it
 single() {
-    plan "$T/$1-single.yaml" "$2" "$3" $((2 * AGENTS))
-    run_plan "$T/$1-s" "$T/$1-single.yaml"
+    local before after
+    before=$(counts)
+    run_plan "$T/$1-s" "$T/$1.yaml"
     SRC=$RUN_RC
+    after=$(counts)
+    SGOT=$(/usr/bin/python3 -c "b, a = $before, $after; print(a[0] - b[0], a[1] - b[1])")
 }
 
 verdict() { rget "$1" 'd["sections"]["run"]["verdict"]'; }
@@ -80,10 +85,12 @@ for a in $(seq 0 $((2 * AGENTS - 1))); do # the leases exist: renewals answer 20
 done
 
 # --- p99 <= 20 ms under a 50 ms delay: FAIL merged, as in one run of the same load -------------
-shards fail 20ms 50/s
+shards fail 20ms 100/s
 merged fail
-single fail 20ms 100/s
+single fail
 read -r GETS PUTS <<<"$GOT"
+expect "the two shards sent what one process sends with the same plan: $GOT = $SGOT (GET, PUT)" \
+    test "$GOT" = "$SGOT"
 expect "both shards FAIL on their own (exit 1; got $SH_RC1 and $SH_RC2)" \
     test "$SH_RC1$SH_RC2" = 11
 expect "the merge FAILs: exit 1 (got $MRC)" test "$MRC" = 1
@@ -94,8 +101,10 @@ rcheck "the merged p99 check fails in steady and the run at >= 50 ms (the target
     "sorted(c['scope'] for c in d['sections']['objectives']['checks'] if c['objective'] == 0
             and c['verdict'] == 'fail' and c['observed'] >= 50) == ['run', 'steady']" "$T/fail-m"
 # The target's own counts: GET 200s and PUT 200s it answered while the shards ran.
-rcheck "merged reads = the target's GET answers during the shards ($GETS = 2 x 150)" \
+rcheck "merged reads = the target's GET answers during the shards ($GETS = 100/s x 3 s)" \
     "total('read', '2xx') == $GETS == 300" "$T/fail-m"
+rcheck "each shard sent half of them (every second start: 150)" \
+    "total('read', '2xx') == 150" "$T/fail-1"
 rcheck "merged renewals = the target's PUT answers during the shards ($PUTS)" \
     "total('beat', '2xx') == $PUTS" "$T/fail-m"
 SERIES=$(awk -F, 'NR > 1 && $3 == "read" { s += $5 } END { print s + 0 }' "$T/fail-m/series.csv")
@@ -119,9 +128,9 @@ expect "the merged report.html says FAIL" grep -q "FAIL: at least one objective 
     "$T/fail-m/report.html"
 
 # --- p99 <= 1 s holds under the same delay: PASS merged, as in one run ---------------------------
-shards pass 1s 50/s
+shards pass 1s 100/s
 merged pass
-single pass 1s 100/s
+single pass
 expect "both shards PASS on their own (got $SH_RC1 and $SH_RC2)" test "$SH_RC1$SH_RC2" = 00
 expect "the merge PASSes: exit 0 (got $MRC; $(tail -3 "$T/pass-m.out" | tr '\n' ' '))" \
     test "$MRC" = 0
@@ -132,11 +141,12 @@ rcheck "every merged check passes and the merged p99 observes the delay (>= 50 m
           if c['objective'] == 0 and c['scope'] == 'run'] == [True]" "$T/pass-m"
 
 # --- too few samples in each shard, enough merged ------------------------------------------------
-# 20/s for 3 s: 60 reads a shard, fewer than the 100 a p99 needs: INCONCLUSIVE alone. Merged,
-# the 120 reads resolve it: the merge is judged on all its samples, as the single run of 40/s is.
-shards few 1s 20/s
+# 40/s for 3 s split in two: 60 reads a shard, fewer than the 100 a p99 needs: INCONCLUSIVE
+# alone. Merged, the 120 reads resolve it: the merge is judged on all its samples, as the single
+# run of the same plan is.
+shards few 1s 40/s
 merged few
-single few 1s 40/s
+single few
 expect "each shard alone is INCONCLUSIVE: exit 7 (got $SH_RC1 and $SH_RC2)" test "$SH_RC1$SH_RC2" = 77
 rcheck "a shard's p99 check: too-few, 60 samples of the 100 needed" \
     "[(c['verdict'], c['samples'], c['needed']) for c in d['sections']['objectives']['checks']
