@@ -14,13 +14,14 @@
 #     10 ms late for HZ >= 100; from memory). So the interval measured from the Date headers must
 #     meet [0, 10 ms] (1 ms either side for rounding); measured here: 6.7 +- 2.5 ms;
 #   - `squall merge` of the four judges the objectives as one run (exit 0, PASS: each shard's 80
-#     renewals are too few to resolve a p99 alone, exit 7, and the merged 320 are enough; a
-#     percentile needs 1 / (1 - p) samples, judge.h) and its counts
-#     equal what the target's /stats says it answered during the run.
+#     renewals (40 of the 160 agents, 2 ticks) are too few to resolve a p99 alone, exit 7, and the
+#     merged 320 are enough; a percentile needs 1 / (1 - p) samples, judge.h) and its counts
+#     equal what the target's /stats says it answered during the run;
+#   - the shards split the plan: the target's /stats counts for the four equal those of one
+#     process running the same plan afterwards, and its access log shows every agent's lease
+#     renewed exactly once per tick (agent k in shard k mod 4 only: no path sent by two).
 # A shard's verdict is its exit code (7 here): Open MPI aborts the other ranks when one exits
 # non-zero unless orte_abort_on_non_zero_status is 0 (ompi_info --param orte all --level 9).
-# Exact equality with a single-process run's /stats needs the shards to split the plan (issue
-# 14's other half); this test does not assert it.
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/target.sh"
 source "$SRCDIR/tests/integration/lib/run.sh"
@@ -34,7 +35,7 @@ fi
 
 serve_start --access-log "$T/access.ndjson" --access-log-format ndjson || exit 1
 curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
-for a in $(seq 0 39); do
+for a in $(seq 0 159); do
     curl -s -X PUT -d '{"n":0}' "$SERVE_URL/v1/sites/north/leases/gw-$a" >/dev/null
 done
 cat >"$T/plan.yaml" <<YAML
@@ -44,7 +45,7 @@ requests:
   beat: {kind: write, method: PUT, path: "/v1/sites/north/leases/gw-{{agent}}", body: '{"n":1}'}
 phases:
   - {name: steady, rate: 200/s, duration: 2s, mix: {read: 1}}
-  - {name: storm, duration: 2s, fleet: {agents: 40, every: 1s, timing: aligned, send: beat}}
+  - {name: storm, duration: 2s, fleet: {agents: 160, every: 1s, timing: aligned, send: beat}}
 objectives:
   - {class: read, p99: 1s}
   - {class: beat, p99: 1s}
@@ -106,9 +107,31 @@ MRC=$?
 expect "the merge of the four judges the objectives: exit 0 (or 7 when generator-bound; got $MRC)" \
     test "$MRC" = 0 -o "$MRC" = 7
 rcheck "merged: every objective check passes on all 320 renewals; counts = the target's answers ($((after - before)))" \
-    "total('read', '2xx') + total('beat', '2xx') == $((after - before)) and total('beat', '2xx') == 320 and
+    "total('read', '2xx') + total('beat', '2xx') == $((after - before)) and total('beat', '2xx') == 320 and total('read', '2xx') == 400 and
      all(c['verdict'] == 'pass' for c in d['sections']['objectives']['checks']) and
      len(d['meta']['inputs']) == 4 and
      (d['sections']['run']['verdict'] == 'pass' or (d['sections']['run']['verdict'] == 'inconclusive' and
           all('could not offer' in r for r in d['sections']['run']['reasons'])))" "$T/merged"
+
+# The split against one process: the same plan, run once without shards, asks the same of the
+# target; and no lease path was renewed by two shards (each exactly twice: two ticks).
+before1=$(counts)
+SINGLE_AT=$(date +%s.%N)
+run_plan "$T/single" "$T/plan.yaml"
+after1=$(counts)
+expect "4 shards asked of the target what one process does: $((after - before)) = $((after1 - before1)) answers" \
+    test "$((after - before))" = "$((after1 - before1))"
+serve_stop # the target writes out its access log as it stops
+expect "each of the 160 agents' leases was renewed exactly twice by the shards (2 ticks)" \
+    /usr/bin/python3 - "$T/access.ndjson" "$START" "$SINGLE_AT" <<'PY'
+import collections, datetime, json, sys
+start = datetime.datetime.fromisoformat(sys.argv[2]).timestamp()
+end = float(sys.argv[3])  # the single-process run began here
+rows = [json.loads(l) for l in open(sys.argv[1])]
+shards = [r for r in rows if start <= r["time"] < end and r["method"] == "PUT"]
+n = collections.Counter(r["path"] for r in shards if "/leases/" in r["path"])
+ok = len(n) == 160 and set(n.values()) == {2}
+print("      leases renewed:", len(n), "paths, counts", sorted(set(n.values())))
+sys.exit(0 if ok else 1)
+PY
 exit "$FAILED"
