@@ -61,6 +61,11 @@ typedef struct {
     int64_t intended_ns;
     int agent;  /* {{agent}}: fleet agent, closed-loop client, else 0 */
     int client; /* handed back in done: a closed-loop client, else -1 */
+    /* Issued ahead of intended_ns (a storm tick rendered before its instant): rendered, with
+     * {{now_ns}} at intended_ns, and handed to the engine now, but held there until src_release
+     * at or after intended_ns; only then is it counted as started. One cancelled while held
+     * (the run stopped) was never started: its source's done() is not called for it. */
+    bool ahead;
 } src_req_t;
 
 /* What a source's done() receives for each of its requests (a list once, when its last page
@@ -174,6 +179,11 @@ int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req);
  * holds the pages that followed). The engine copies method and path. */
 int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
                  const char *path);
+/* Sends the requests issued ahead whose intended start is at or before now_ns (eng_release);
+ * returns how many. */
+int src_release(src_issuer_t *is, int64_t now_ns);
+/* The earliest intended start of a request issued ahead and not yet released; false if none. */
+bool src_held_next(const src_issuer_t *is, int64_t *at_ns);
 /* Whether lists may fetch further pages (false once the run stops starting requests). */
 void src_issuer_paging(src_issuer_t *is, bool on);
 const src_class_t *src_class(const src_issuer_t *is, int cls);

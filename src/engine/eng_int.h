@@ -48,6 +48,7 @@ struct eng_xfer {
     bool too_big;    /* a kept body went past cfg.max_body */
     bool head_seen;  /* on_head was called */
     bool cancelled;  /* eng_stop/eng_free removed it */
+    bool set_up;     /* its easy handle was set up while it was held (eng_submit) */
     char errbuf[CURL_ERROR_SIZE]; /* libcurl's own message for a failed transfer */
 };
 
@@ -102,7 +103,8 @@ struct eng {
     int openers_pending; /* openers admitted that have not opened their socket yet */
 
     struct eng_xfer *queue_head, *queue_tail, *flight, *free_xfers;
-    int queued, in_flight;
+    struct eng_xfer *held_head, *held_tail; /* hold_until_ns order (doubly linked) */
+    int queued, in_flight, held;
     int max_queued, max_in_flight; /* peaks in the stats window */
     CURL **easy_pool;
     int n_easy_pool, easy_pool_cap;
@@ -137,6 +139,8 @@ int eng_glue_closesocket(void *clientp, curl_socket_t fd);
 CURL *eng_easy_new(eng_t *e);
 int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req);
 int eng_xfer_setup(struct eng_xfer *x);
+/* The HTTP version options, which depend on x->opener (set by eng_xfer_setup too). */
+void eng_xfer_set_version(struct eng_xfer *x);
 void eng_xfer_finish(struct eng_xfer *x, CURLcode rc);
 void eng_xfer_release(struct eng_xfer *x);
 enum eng_outcome eng_outcome_of(CURLcode rc, long status);

@@ -96,6 +96,8 @@ static void handle_closed(uv_handle_t *h)
 
 static void admit(eng_t *e);
 static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc);
+static CURL *easy_get(eng_t *e);
+static void easy_put(eng_t *e, CURL *c);
 
 /* How the glue (curl_uv.c, below this file) reports back without calling into it. */
 static const eng_glue_ops_t glue_ops = {
@@ -173,6 +175,78 @@ static void xfer_put(eng_t *e, struct eng_xfer *x)
     e->free_xfers = x;
 }
 
+/* Sets a held transfer's easy handle up now (all but what depends on its admission: whether an
+ * h2c transfer opens a connection) and keeps it in hold order; the tail is the usual place. */
+static int hold(eng_t *e, struct eng_xfer *x)
+{
+    if ((x->easy = easy_get(e))) {
+        eng_xfer_setup(x);
+        x->set_up = true;
+    }
+    struct eng_xfer *after = e->held_tail;
+    while (after && after->req.hold_until_ns > x->req.hold_until_ns)
+        after = after->prev;
+    x->prev = after;
+    x->next = after ? after->next : e->held_head;
+    if (x->next)
+        x->next->prev = x;
+    else
+        e->held_tail = x;
+    if (after)
+        after->next = x;
+    else
+        e->held_head = x;
+    e->held++;
+    e->submitted++;
+    return 0;
+}
+
+static struct eng_xfer *held_pop(eng_t *e)
+{
+    struct eng_xfer *x = e->held_head;
+    e->held_head = x->next;
+    if (e->held_head)
+        e->held_head->prev = NULL;
+    else
+        e->held_tail = NULL;
+    x->next = x->prev = NULL;
+    e->held--;
+    return x;
+}
+
+bool eng_held_next(const eng_t *e, int64_t *at_ns)
+{
+    if (!e || !e->held_head)
+        return false;
+    *at_ns = e->held_head->req.hold_until_ns;
+    return true;
+}
+
+int eng_release(eng_t *e, int64_t now_ns)
+{
+    int n = 0;
+    int64_t now = clock_mono_ns();
+    while (e->held_head && e->held_head->req.hold_until_ns <= now_ns) {
+        struct eng_xfer *x = held_pop(e);
+        x->res.submitted_ns = now; /* queue waits count from the release */
+        if (e->queue_tail)
+            e->queue_tail->next = x;
+        else
+            e->queue_head = x;
+        e->queue_tail = x;
+        if (++e->queued > e->max_queued)
+            e->max_queued = e->queued;
+        n++;
+        if (x->req.on_release)
+            x->req.on_release(x->req.user);
+    }
+    if (n && !e->in_curl) {
+        admit(e);
+        eng_glue_flush(e);
+    }
+    return n;
+}
+
 int eng_submit(eng_t *e, const eng_req_t *req)
 {
     if (!req || !req->on_done || !req->path)
@@ -190,6 +264,8 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     x->res.submitted_ns = clock_mono_ns();
     if (!x->res.intended_ns)
         x->res.intended_ns = x->res.submitted_ns;
+    if (req->hold_until_ns > 0)
+        return hold(e, x);
     x->next = NULL;
     if (e->queue_tail)
         e->queue_tail->next = x;
@@ -286,7 +362,7 @@ static bool admit_one(eng_t *e)
 {
     struct eng_xfer *x = e->queue_head;
     struct eng_multi *mh = multi_with_room(e);
-    if (!mh || !(x->easy = easy_get(e)))
+    if (!mh || (!x->easy && !(x->easy = easy_get(e))))
         return false;
     x->mh = mh;
     e->queue_head = x->next;
@@ -296,7 +372,10 @@ static bool admit_one(eng_t *e)
     x->opener = x->was_opener = needs_opener(e);
     if (x->opener)
         e->openers_pending++;
-    eng_xfer_setup(x);
+    if (!x->set_up)
+        eng_xfer_setup(x);
+    else if (x->opener)
+        eng_xfer_set_version(x);
     x->res.admitted_ns = clock_mono_ns();
     int64_t wait = x->res.admitted_ns - x->res.submitted_ns;
     if (wait > e->max_queue_wait_ns)
@@ -406,17 +485,28 @@ static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc)
     xfer_put(e, x);
 }
 
+/* Finishes a transfer that never reached libcurl (held or queued) as cancelled. */
+static void cancel_waiting(eng_t *e, struct eng_xfer *x)
+{
+    x->cancelled = true;
+    eng_xfer_finish(x, CURLE_ABORTED_BY_CALLBACK);
+    if (x->easy) /* set up while it was held */
+        easy_put(e, x->easy);
+    x->easy = NULL;
+    count_outcome(e, x);
+    x->req.on_done(x->req.user, &x->res);
+    xfer_put(e, x);
+}
+
 static void cancel_queued(eng_t *e)
 {
+    while (e->held_head)
+        cancel_waiting(e, held_pop(e));
     while (e->queue_head) {
         struct eng_xfer *x = e->queue_head;
         e->queue_head = x->next;
         e->queued--;
-        x->cancelled = true;
-        eng_xfer_finish(x, CURLE_ABORTED_BY_CALLBACK);
-        count_outcome(e, x);
-        x->req.on_done(x->req.user, &x->res);
-        xfer_put(e, x);
+        cancel_waiting(e, x);
     }
     e->queue_tail = NULL;
 }
