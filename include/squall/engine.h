@@ -199,6 +199,10 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
  * succeeds calls it exactly once, never from inside eng_submit. */
 int eng_submit(eng_t *e, const eng_req_t *req);
 
+/* Caps the transfers in flight at n connections' worth (at most cfg.connections): a phase that
+ * shares fewer connections than the engine holds keeps the others open and idle. */
+void eng_set_connections(eng_t *e, int n);
+
 /* Hands the held requests due at or before now_ns to admission (in their hold order), then
  * drives them as eng_flush does. Returns how many were released. */
 int eng_release(eng_t *e, int64_t now_ns);

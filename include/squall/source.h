@@ -179,6 +179,19 @@ int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req);
  * holds the pages that followed). The engine copies method and path. */
 int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
                  const char *path);
+/* Whether phase pp's fleet has a connection of its own per agent (fleet.connections:
+ * per-agent; by default an aligned fleet over HTTP/1.1 with more agents than
+ * target.connections, when its connections fit the open-file limit, which this raises to the
+ * hard one). */
+bool src_fleet_per_agent(const plan_t *plan, const plan_phase_t *pp);
+/* The main engine's connections: target.connections, or the most agents of a fleet that has a
+ * connection per agent. The engine keeps them open across ticks (libcurl closes a connection
+ * idle for more than 118 s, CURLOPT_MAXAGE_CONN's default). */
+int src_fleet_connections(const plan_t *plan);
+/* The connections phase `phase` may use (eng_set_connections): its fleet's agents when it has
+ * a connection per agent, else target.connections (also for the teardown, phase n_phases). */
+int src_phase_connections(const plan_t *plan, size_t phase);
+
 /* Sends the requests issued ahead whose intended start is at or before now_ns (eng_release);
  * returns how many. */
 int src_release(src_issuer_t *is, int64_t now_ns);

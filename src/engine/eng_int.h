@@ -83,6 +83,7 @@ struct eng {
     bool h2c;                   /* HTTP/2 over http:// (prior knowledge) */
     size_t origin_len;          /* length of base_url's "scheme://authority" */
     int streams;
+    int conns; /* eng_set_connections' cap, <= cfg.connections */
 
     struct eng_multi *multis; /* ENG_MULTI_CONNS connections each over HTTP/1.1, one for h2 */
     int n_multis, next_multi;  /* next_multi: where admission looks for room first */

@@ -98,6 +98,8 @@ static void admit(eng_t *e);
 static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc);
 static CURL *easy_get(eng_t *e);
 static void easy_put(eng_t *e, CURL *c);
+static int capacity(const eng_t *e);
+static bool admit_one(eng_t *e);
 
 /* How the glue (curl_uv.c, below this file) reports back without calling into it. */
 static const eng_glue_ops_t glue_ops = {
@@ -124,6 +126,7 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     e->out = o;
     e->cfg = *cfg;
     e->streams = cfg->streams ? cfg->streams : 100;
+    e->conns = cfg->connections;
     e->h2c = cfg->http == ENG_HTTP_2 && strncmp(cfg->base_url, "http://", 7) == 0;
     if (!e->cfg.unreachable_after)
         e->cfg.unreachable_after = 3;
@@ -240,9 +243,15 @@ int eng_release(eng_t *e, int64_t now_ns)
         if (x->req.on_release)
             x->req.on_release(x->req.user);
     }
-    if (n && !e->in_curl) {
-        admit(e);
+    /* A multi handle's share at a time, each written before the next is added: the tick's
+     * first requests leave while the rest are still being handed to libcurl. */
+    bool more = n && !e->in_curl && !e->closing;
+    while (more) {
+        int k = 0;
+        while (k < ENG_MULTI_CONNS && e->queue_head && e->in_flight < capacity(e) && admit_one(e))
+            k++;
         eng_glue_flush(e);
+        more = k == ENG_MULTI_CONNS;
     }
     return n;
 }
@@ -284,18 +293,24 @@ int eng_submit(eng_t *e, const eng_req_t *req)
 static int capacity(const eng_t *e)
 {
     if (e->cfg.http == ENG_HTTP_1_1)
-        return e->cfg.connections;
+        return e->conns;
     if (!e->h2c)
-        return e->cfg.connections * e->streams;
+        return e->conns * e->streams;
     int conns = e->n_socks + e->openers_pending;
-    return (conns < e->cfg.connections ? conns + 1 : conns) * e->streams;
+    return (conns < e->conns ? conns + 1 : conns) * e->streams;
+}
+
+void eng_set_connections(eng_t *e, int n)
+{
+    e->conns = n < 1 ? 1 : n > e->cfg.connections ? e->cfg.connections : n;
+    admit(e);
 }
 
 /* Whether the next h2c transfer must open a connection: fewer are open (or opening) than the
  * cap. Only openers may open one, so later transfers always find an h2 connection to share. */
 static bool needs_opener(const eng_t *e)
 {
-    return e->h2c && e->n_socks + e->openers_pending < e->cfg.connections;
+    return e->h2c && e->n_socks + e->openers_pending < e->conns;
 }
 
 static CURL *easy_get(eng_t *e)

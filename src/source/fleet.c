@@ -5,6 +5,7 @@
 
 #include "src_int.h"
 #include "squall/err.h"
+#include "squall/file.h"
 
 /* One periodic action: the agents sending one class every period. */
 typedef struct {
@@ -18,6 +19,13 @@ typedef struct {
  * tools/bench/RESULTS.md ("Aligned ticks"). */
 #define FLEET_AHEAD_NS INT64_C(250000000)
 
+/* Whether an aligned fleet over HTTP/1.1 gets a connection per agent unless its plan says
+ * (tools/bench/RESULTS.md, "Aligned ticks": which serves the tick's fidelity best). */
+#define FLEET_PER_AGENT_DEFAULT 1
+#define FLEET_FD_RESERVE 64 /* results, stdio, the other engines */
+/* Connections one engine may hold (engine.c's check). */
+#define FLEET_MAX_CONNS 100000
+
 typedef struct {
     src_ctx_t ctx;
     action_t *a;
@@ -25,6 +33,9 @@ typedef struct {
     src_t *me;
     int64_t ahead_ns; /* how early a start is issued: 0 unless aligned */
 } fleet_t;
+
+static int64_t files_beside(const plan_t *plan);
+static int64_t files_for(int64_t conns);
 
 static bool fleet_used_by(const plan_t *plan, const plan_phase_t *pp)
 {
@@ -56,6 +67,20 @@ static int fleet_new(const src_ctx_t *ctx, void **self)
     const plan_phase_t *pp = src_phase(ctx);
     if (!(s->a = calloc(pp->fleet.n_send, sizeof(*s->a))))
         return SQ_ENOMEM;
+    if (pp->fleet.conns == PLAN_CONNS_PER_AGENT) {
+        uint64_t limit = file_raise_limit();
+        int64_t need = files_for(pp->fleet.agents) + files_beside(ctx->plan);
+        if (pp->fleet.agents > FLEET_MAX_CONNS || (limit && (uint64_t)need > limit)) {
+            out_raw(ctx->o, OUT_ERROR,
+                    "%s:%d:%d: error: phase '%s': fleet.connections: per-agent opens %d "
+                    "connections, which need about %lld open files, but this process may open "
+                    "at most %llu (RLIMIT_NOFILE hard limit) and one engine %d connections; use "
+                    "fewer agents per process (shards) or connections: shared",
+                    pp->pos.file, pp->pos.line, pp->pos.col, pp->name, pp->fleet.agents,
+                    (long long)need, (unsigned long long)limit, FLEET_MAX_CONNS);
+            return SQ_ELIMIT;
+        }
+    }
     for (size_t k = 0; k < pp->fleet.n_send; k++) {
         sched_fleet_cfg_t cfg = {
             .agents = pp->fleet.agents,
@@ -156,3 +181,54 @@ const src_ops_t src_fleet_ops = {
     .expected = fleet_expected,
     .free = fleet_free,
 };
+
+/* Open files a process needs beside the main engine's connections: watch streams over
+ * HTTP/1.1 (one connection each; the largest phase), results, stdio, libcurl's wake-up pairs. */
+static int64_t files_beside(const plan_t *plan)
+{
+    int64_t most = 0;
+    for (size_t i = 0; plan->target.http != PLAN_HTTP_2 && i < plan->n_phases; i++) {
+        int64_t n = 0;
+        for (size_t k = 0; k < plan->phases[i].watches.n_sets; k++)
+            n += plan->phases[i].watches.sets[k].count;
+        most = n > most ? n : most;
+    }
+    return most + FLEET_FD_RESERVE;
+}
+
+/* Open files `conns` connections of the main engine take: one each, and the socket pairs of
+ * its libcurl multi handles (at most 16: engine/eng_int.h's ENG_MAX_MULTIS). */
+static int64_t files_for(int64_t conns)
+{
+    return conns + 2 * 16;
+}
+
+bool src_fleet_per_agent(const plan_t *plan, const plan_phase_t *pp)
+{
+    if (!pp->fleet.on || pp->fleet.conns == PLAN_CONNS_SHARED)
+        return false;
+    if (pp->fleet.conns == PLAN_CONNS_PER_AGENT)
+        return true;
+    if (!FLEET_PER_AGENT_DEFAULT || pp->fleet.timing != PLAN_TIMING_ALIGNED ||
+        plan->target.http == PLAN_HTTP_2 || pp->fleet.agents <= plan->target.connections)
+        return false;
+    uint64_t limit = file_raise_limit();
+    return limit == 0 || (uint64_t)(files_for(pp->fleet.agents) + files_beside(plan)) <= limit;
+}
+
+int src_phase_connections(const plan_t *plan, size_t phase)
+{
+    const plan_phase_t *pp = phase < plan->n_phases ? &plan->phases[phase] : NULL;
+    int conns = plan->target.connections;
+    return pp && src_fleet_per_agent(plan, pp) && pp->fleet.agents > conns ? pp->fleet.agents
+                                                                           : conns;
+}
+
+int src_fleet_connections(const plan_t *plan)
+{
+    int conns = plan->target.connections;
+    for (size_t i = 0; i < plan->n_phases; i++)
+        if (src_fleet_per_agent(plan, &plan->phases[i]) && plan->phases[i].fleet.agents > conns)
+            conns = plan->phases[i].fleet.agents;
+    return conns;
+}

@@ -106,7 +106,7 @@ static int64_t files_needed(const plan_t *p, int watchers)
         int per = p->target.streams ? p->target.streams : H2_STREAMS;
         conns = (watchers + per - 1) / per;
     }
-    return conns + p->target.connections + FD_RESERVE;
+    return conns + src_fleet_connections(p) + FD_RESERVE;
 }
 
 /* Raises the soft open-files limit to the hard one and refuses a phase that needs more. */
