@@ -579,8 +579,9 @@ static int watcher_init(watches_t *ws, watcher_t *w, wclass_t *wc, int index, ui
 
 /* libcurl's receive buffer per stream (its default is 16 KiB, held by every open stream): events
  * are a few hundred bytes, and a larger answer (a relist page) is only read in more pieces.
- * Measured per stream by tools/bench/watch.sh (RESULTS.md). */
-#define WATCH_RECV_BUFFER 2048L
+ * 1 KiB is libcurl's least (CURLOPT_BUFFERSIZE). Measured per stream by tools/bench/watch.sh
+ * and, by allocation site, watchheap.sh (RESULTS.md, issue 12). */
+#define WATCH_RECV_BUFFER 1024L
 
 /* The plan's target, with one connection per stream over HTTP/1.1 and ceil(n / streams)
  * connections over HTTP/2, no timeout (relists carry their class's). */
