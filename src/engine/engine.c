@@ -178,6 +178,19 @@ static void xfer_put(eng_t *e, struct eng_xfer *x)
     e->free_xfers = x;
 }
 
+/* Appends a transfer to the admission queue. */
+static void enqueue(eng_t *e, struct eng_xfer *x)
+{
+    x->next = NULL;
+    if (e->queue_tail)
+        e->queue_tail->next = x;
+    else
+        e->queue_head = x;
+    e->queue_tail = x;
+    if (++e->queued > e->max_queued)
+        e->max_queued = e->queued;
+}
+
 /* Sets a held transfer's easy handle up now (all but what depends on its admission: whether an
  * h2c transfer opens a connection) and keeps it in hold order; the tail is the usual place. */
 static int hold(eng_t *e, struct eng_xfer *x)
@@ -232,13 +245,7 @@ int eng_release(eng_t *e, int64_t now_ns)
     while (e->held_head && e->held_head->req.hold_until_ns <= now_ns) {
         struct eng_xfer *x = held_pop(e);
         x->res.submitted_ns = now; /* queue waits count from the release */
-        if (e->queue_tail)
-            e->queue_tail->next = x;
-        else
-            e->queue_head = x;
-        e->queue_tail = x;
-        if (++e->queued > e->max_queued)
-            e->max_queued = e->queued;
+        enqueue(e, x);
         n++;
         if (x->req.on_release)
             x->req.on_release(x->req.user);
@@ -275,14 +282,7 @@ int eng_submit(eng_t *e, const eng_req_t *req)
         x->res.intended_ns = x->res.submitted_ns;
     if (req->hold_until_ns > 0)
         return hold(e, x);
-    x->next = NULL;
-    if (e->queue_tail)
-        e->queue_tail->next = x;
-    else
-        e->queue_head = x;
-    e->queue_tail = x;
-    if (++e->queued > e->max_queued)
-        e->max_queued = e->queued;
+    enqueue(e, x);
     e->submitted++;
     /* Admitting may not run inside a libcurl callback; the glue admits after it returns. */
     if (!e->in_curl)
