@@ -443,10 +443,10 @@ int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char
 
 int src_release(src_issuer_t *is, int64_t now_ns)
 {
-    return eng_release(is->eng, now_ns);
+    return is && is->eng ? eng_release(is->eng, now_ns) : 0;
 }
 
 bool src_held_next(const src_issuer_t *is, int64_t *at_ns)
 {
-    return eng_held_next(is->eng, at_ns);
+    return is && eng_held_next(is->eng, at_ns);
 }
