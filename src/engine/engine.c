@@ -98,8 +98,6 @@ static void admit(eng_t *e);
 static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc);
 static CURL *easy_get(eng_t *e);
 static void easy_put(eng_t *e, CURL *c);
-static int capacity(const eng_t *e);
-static bool admit_one(eng_t *e);
 
 /* How the glue (curl_uv.c, below this file) reports back without calling into it. */
 static const eng_glue_ops_t glue_ops = {
@@ -241,24 +239,25 @@ bool eng_held_next(const eng_t *e, int64_t *at_ns)
 int eng_release(eng_t *e, int64_t now_ns)
 {
     int n = 0;
-    int64_t now = clock_mono_ns();
+    bool write = !e->in_curl && !e->closing;
+    /* One multi handle's share at a time, written before the next is handed over: the tick's
+     * first requests leave while the rest are still held, and a queue wait counts only the
+     * time a request waited for a connection, not for its neighbours' writes. */
     while (e->held_head && e->held_head->req.hold_until_ns <= now_ns) {
-        struct eng_xfer *x = held_pop(e);
-        x->res.submitted_ns = now; /* queue waits count from the release */
-        enqueue(e, x);
-        n++;
-        if (x->req.on_release)
-            x->req.on_release(x->req.user);
-    }
-    /* A multi handle's share at a time, each written before the next is added: the tick's
-     * first requests leave while the rest are still being handed to libcurl. */
-    bool more = n && !e->in_curl && !e->closing;
-    while (more) {
-        int k = 0;
-        while (k < ENG_MULTI_CONNS && e->queue_head && e->in_flight < capacity(e) && admit_one(e))
-            k++;
-        eng_glue_flush(e);
-        more = k == ENG_MULTI_CONNS;
+        int64_t now = clock_mono_ns();
+        for (int k = 0; k < ENG_MULTI_CONNS && e->held_head &&
+                        e->held_head->req.hold_until_ns <= now_ns;
+             k++, n++) {
+            struct eng_xfer *x = held_pop(e);
+            x->res.submitted_ns = now; /* queue waits count from the release */
+            enqueue(e, x);
+            if (x->req.on_release)
+                x->req.on_release(x->req.user);
+        }
+        if (write) {
+            admit(e);
+            eng_glue_flush(e);
+        }
     }
     return n;
 }
