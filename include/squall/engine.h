@@ -173,7 +173,7 @@ typedef struct {
     int capacity;                 /* how many may be in flight at once now */
     int connections;              /* sockets libcurl has open */
     int max_in_flight, max_queued; /* peaks of in_flight and queued in the window */
-    int64_t max_queue_wait_ns;    /* longest admitted - submitted in the window */
+    int64_t max_queue_wait_ns;    /* longest wait in the admission queue in the window */
     int64_t max_loop_busy_ns;     /* longest single loop pass spent in callbacks (loop lag) */
     int64_t loop_busy_ns;         /* total time spent in callbacks in the window */
     int64_t window_ns;            /* length of the window */

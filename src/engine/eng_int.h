@@ -42,6 +42,7 @@ struct eng_xfer {
     CURLU *uh; /* the base URL parsed once; path and query set per request (xfer.c) */
     struct curl_slist *headers; /* per-request list, or NULL to use the engine's */
     eng_result_t res;
+    int64_t queued_ns; /* when it joined the admission queue: queue waits count from it */
     bool opener;     /* HTTP/2 h2c: opens a fresh connection with prior knowledge */
     bool was_opener; /* was admitted as an opener (opener is cleared once its socket opens) */
     bool aborted;    /* the caller's on_data asked to stop */

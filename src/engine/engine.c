@@ -240,6 +240,7 @@ int eng_release(eng_t *e, int64_t now_ns)
 {
     int n = 0;
     bool write = !e->in_curl && !e->closing;
+    int64_t start = clock_mono_ns();
     /* One multi handle's share at a time, written before the next is handed over: the tick's
      * first requests leave while the rest are still held, and a queue wait counts only the
      * time a request waited for a connection, not for its neighbours' writes. */
@@ -249,7 +250,8 @@ int eng_release(eng_t *e, int64_t now_ns)
                         e->held_head->req.hold_until_ns <= now_ns;
              k++, n++) {
             struct eng_xfer *x = held_pop(e);
-            x->res.submitted_ns = now; /* queue waits count from the release */
+            x->res.submitted_ns = start; /* handed over at its instant (schedule lag) */
+            x->queued_ns = now;          /* waits for a connection from here */
             enqueue(e, x);
             if (x->req.on_release)
                 x->req.on_release(x->req.user);
@@ -281,6 +283,7 @@ int eng_submit(eng_t *e, const eng_req_t *req)
         x->res.intended_ns = x->res.submitted_ns;
     if (req->hold_until_ns > 0)
         return hold(e, x);
+    x->queued_ns = x->res.submitted_ns;
     enqueue(e, x);
     e->submitted++;
     /* Admitting may not run inside a libcurl callback; the glue admits after it returns. */
@@ -391,7 +394,7 @@ static bool admit_one(eng_t *e)
     else if (x->opener)
         eng_xfer_set_version(x);
     x->res.admitted_ns = clock_mono_ns();
-    int64_t wait = x->res.admitted_ns - x->res.submitted_ns;
+    int64_t wait = x->res.admitted_ns - x->queued_ns;
     if (wait > e->max_queue_wait_ns)
         e->max_queue_wait_ns = wait;
     flight_link(e, x);
