@@ -149,6 +149,13 @@ typedef struct {
     size_t n_headers;
     int64_t timeout_ms;  /* 0 = the config's */
     int64_t intended_ns; /* 0 = now */
+    /* Prepared now, sent later: with hold_until_ns > 0 the request is copied and its easy handle
+     * set up at once, then held until eng_release is called at or after that instant (a storm
+     * tick rendered ahead, so that at the tick only the writes remain). on_release, if set, is
+     * called as it is released; a held request cancelled by eng_stop or eng_free gets on_done
+     * (outcome "cancelled", admitted_ns = 0) without on_release. */
+    int64_t hold_until_ns;
+    void (*on_release)(void *user);
     bool keep_body;      /* keep the body for on_done (list pagination tokens) */
     eng_data_cb on_data; /* optional */
     /* Optional: called once when the final response's status line and headers have arrived
@@ -166,7 +173,7 @@ typedef struct {
     int capacity;                 /* how many may be in flight at once now */
     int connections;              /* sockets libcurl has open */
     int max_in_flight, max_queued; /* peaks of in_flight and queued in the window */
-    int64_t max_queue_wait_ns;    /* longest admitted - submitted in the window */
+    int64_t max_queue_wait_ns;    /* longest wait in the admission queue in the window */
     int64_t max_loop_busy_ns;     /* longest single loop pass spent in callbacks (loop lag) */
     int64_t loop_busy_ns;         /* total time spent in callbacks in the window */
     int64_t window_ns;            /* length of the window */
@@ -205,6 +212,17 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
  * SQ_ESTOPPED (after eng_stop), SQ_ENOMEM. A call that fails never calls on_done; a call that
  * succeeds calls it exactly once, never from inside eng_submit. */
 int eng_submit(eng_t *e, const eng_req_t *req);
+
+/* Caps the transfers in flight at n connections' worth (at most cfg.connections): a phase that
+ * shares fewer connections than the engine holds keeps the others open and idle. */
+void eng_set_connections(eng_t *e, int n);
+
+/* Hands the held requests due at or before now_ns to admission (in their hold order), then
+ * drives them as eng_flush does. Returns how many were released. */
+int eng_release(eng_t *e, int64_t now_ns);
+
+/* The earliest hold_until_ns of a held request; false when none is held. */
+bool eng_held_next(const eng_t *e, int64_t *at_ns);
 
 /* Drives the requests eng_submit handed to libcurl since it last acted, so they are written now
  * instead of on the loop's next pass (libcurl starts a new transfer on a 0 ms timeout). Call it

@@ -121,6 +121,9 @@ typedef struct {
 
 enum plan_load_shape { PLAN_LOAD_NONE, PLAN_LOAD_CONSTANT, PLAN_LOAD_RAMP, PLAN_LOAD_STEPS };
 enum plan_arrivals { PLAN_ARRIVALS_EVEN, PLAN_ARRIVALS_POISSON };
+/* phases[].fleet.connections. */
+enum plan_fleet_conns { PLAN_CONNS_DEFAULT, PLAN_CONNS_SHARED, PLAN_CONNS_PER_AGENT };
+
 enum plan_timing { PLAN_TIMING_SPREAD, PLAN_TIMING_JITTER, PLAN_TIMING_ALIGNED };
 
 typedef struct {
@@ -234,6 +237,9 @@ typedef struct {
                                   * {{agent}} is the agent's index */
         plan_send_t *send;
         size_t n_send;
+        enum plan_fleet_conns conns; /* connections: shared | per-agent (default: per-agent
+                                      * for aligned fleets over HTTP/1.1 that fit the
+                                      * open-file limit; see src_fleet_connections) */
     } fleet;
     struct {
         plan_watch_set_t *sets;

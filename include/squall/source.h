@@ -62,6 +62,11 @@ typedef struct {
     int64_t intended_ns;
     int agent;  /* {{agent}}: fleet agent, closed-loop client, else 0 */
     int client; /* handed back in done: a closed-loop client, else -1 */
+    /* Issued ahead of intended_ns (a storm tick rendered before its instant): rendered, with
+     * {{now_ns}} at intended_ns, and handed to the engine now, but held there until src_release
+     * at or after intended_ns; only then is it counted as started. One cancelled while held
+     * (the run stopped) was never started: its source's done() is not called for it. */
+    bool ahead;
 } src_req_t;
 
 /* What a source's done() receives for each of its requests (a list once, when its last page
@@ -188,6 +193,24 @@ int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req);
  * holds the pages that followed). The engine copies method and path. */
 int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
                  const char *path);
+/* Whether phase pp's fleet has a connection of its own per agent (fleet.connections:
+ * per-agent; by default an aligned fleet over HTTP/1.1 with more agents than
+ * target.connections, when its connections fit the open-file limit, which this raises to the
+ * hard one). */
+bool src_fleet_per_agent(const plan_t *plan, const plan_phase_t *pp);
+/* The main engine's connections: target.connections, or the most agents of a fleet that has a
+ * connection per agent. The engine keeps them open across ticks (libcurl closes a connection
+ * idle for more than 118 s, CURLOPT_MAXAGE_CONN's default). */
+int src_fleet_connections(const plan_t *plan);
+/* The connections phase `phase` may use (eng_set_connections): its fleet's agents when it has
+ * a connection per agent, else target.connections (also for the teardown, phase n_phases). */
+int src_phase_connections(const plan_t *plan, size_t phase);
+
+/* Sends the requests issued ahead whose intended start is at or before now_ns (eng_release);
+ * returns how many. */
+int src_release(src_issuer_t *is, int64_t now_ns);
+/* The earliest intended start of a request issued ahead and not yet released; false if none. */
+bool src_held_next(const src_issuer_t *is, int64_t *at_ns);
 /* Whether lists may fetch further pages (false once the run stops starting requests). */
 void src_issuer_paging(src_issuer_t *is, bool on);
 const src_class_t *src_class(const src_issuer_t *is, int cls);

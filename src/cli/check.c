@@ -144,6 +144,9 @@ static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, si
     out_print(o, "\nphase %zu/%zu %s: %s\n", i + 1, p->n_phases, ph->name,
               e.open_ended ? "until done" : dur_str(e.duration_ns, d, sizeof d));
     print_shape(ph, &e, o);
+    if (src_fleet_per_agent(p, ph))
+        out_print(o, "    connections: one per agent, up to %d, kept open across ticks\n",
+                  src_phase_connections(p, i));
     print_counts(p, ph, &e, name_width, o);
     out_print(o, "    total %s requests, peak %s/s", count_str(e.requests, a, 32),
               count_str(e.peak_rate, b, 32));
@@ -332,8 +335,9 @@ static json_t *phase_json(const plan_t *p, size_t i, const src_estimate_t *e)
         ph->teardown.on);
     if (ph->fleet.on)
         json_object_set_new(j, "fleet",
-                            json_pack("{s:i, s:f}", "agents", ph->fleet.agents, "every_s",
-                                      ph->fleet.every_ns / 1e9));
+                            json_pack("{s:i, s:f, s:s}", "agents", ph->fleet.agents, "every_s",
+                                      ph->fleet.every_ns / 1e9, "connections",
+                                      src_fleet_per_agent(p, ph) ? "per-agent" : "shared"));
     if (ph->churn.on)
         json_object_set_new(
             j, "churn",

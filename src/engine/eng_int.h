@@ -42,12 +42,14 @@ struct eng_xfer {
     CURLU *uh; /* the base URL parsed once; path and query set per request (xfer.c) */
     struct curl_slist *headers; /* per-request list, or NULL to use the engine's */
     eng_result_t res;
+    int64_t queued_ns; /* when it joined the admission queue: queue waits count from it */
     bool opener;     /* HTTP/2 h2c: opens a fresh connection with prior knowledge */
     bool was_opener; /* was admitted as an opener (opener is cleared once its socket opens) */
     bool aborted;    /* the caller's on_data asked to stop */
     bool too_big;    /* a kept body went past cfg.max_body */
     bool head_seen;  /* on_head was called */
     bool cancelled;  /* eng_stop/eng_free removed it */
+    bool set_up;     /* its easy handle was set up while it was held (eng_submit) */
     char errbuf[CURL_ERROR_SIZE]; /* libcurl's own message for a failed transfer */
 };
 
@@ -82,6 +84,7 @@ struct eng {
     bool h2c;                   /* HTTP/2 over http:// (prior knowledge) */
     size_t origin_len;          /* length of base_url's "scheme://authority" */
     int streams;
+    int conns; /* eng_set_connections' cap, <= cfg.connections */
 
     struct eng_multi *multis; /* ENG_MULTI_CONNS connections each over HTTP/1.1, one for h2 */
     int n_multis, next_multi;  /* next_multi: where admission looks for room first */
@@ -102,7 +105,8 @@ struct eng {
     int openers_pending; /* openers admitted that have not opened their socket yet */
 
     struct eng_xfer *queue_head, *queue_tail, *flight, *free_xfers;
-    int queued, in_flight;
+    struct eng_xfer *held_head, *held_tail; /* hold_until_ns order (doubly linked) */
+    int queued, in_flight, held;
     int max_queued, max_in_flight; /* peaks in the stats window */
     CURL **easy_pool;
     int n_easy_pool, easy_pool_cap;
@@ -139,6 +143,8 @@ int eng_glue_closesocket(void *clientp, curl_socket_t fd);
 CURL *eng_easy_new(eng_t *e);
 int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req);
 int eng_xfer_setup(struct eng_xfer *x);
+/* The HTTP version options, which depend on x->opener (set by eng_xfer_setup too). */
+void eng_xfer_set_version(struct eng_xfer *x);
 void eng_xfer_finish(struct eng_xfer *x, CURLcode rc);
 void eng_xfer_release(struct eng_xfer *x);
 enum eng_outcome eng_outcome_of(CURLcode rc, long status);

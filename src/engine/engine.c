@@ -96,6 +96,8 @@ static void handle_closed(uv_handle_t *h)
 
 static void admit(eng_t *e);
 static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc);
+static CURL *easy_get(eng_t *e);
+static void easy_put(eng_t *e, CURL *c);
 
 /* How the glue (curl_uv.c, below this file) reports back without calling into it. */
 static const eng_glue_ops_t glue_ops = {
@@ -122,6 +124,7 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     e->out = o;
     e->cfg = *cfg;
     e->streams = cfg->streams ? cfg->streams : 100;
+    e->conns = cfg->connections;
     e->h2c = cfg->http == ENG_HTTP_2 && strncmp(cfg->base_url, "http://", 7) == 0;
     if (!e->cfg.unreachable_after)
         e->cfg.unreachable_after = 3;
@@ -173,6 +176,94 @@ static void xfer_put(eng_t *e, struct eng_xfer *x)
     e->free_xfers = x;
 }
 
+/* Appends a transfer to the admission queue. */
+static void enqueue(eng_t *e, struct eng_xfer *x)
+{
+    x->next = NULL;
+    if (e->queue_tail)
+        e->queue_tail->next = x;
+    else
+        e->queue_head = x;
+    e->queue_tail = x;
+    if (++e->queued > e->max_queued)
+        e->max_queued = e->queued;
+}
+
+/* Sets a held transfer's easy handle up now (all but what depends on its admission: whether an
+ * h2c transfer opens a connection) and keeps it in hold order; the tail is the usual place. */
+static int hold(eng_t *e, struct eng_xfer *x)
+{
+    if ((x->easy = easy_get(e))) {
+        eng_xfer_setup(x);
+        x->set_up = true;
+    }
+    struct eng_xfer *after = e->held_tail;
+    while (after && after->req.hold_until_ns > x->req.hold_until_ns)
+        after = after->prev;
+    x->prev = after;
+    x->next = after ? after->next : e->held_head;
+    if (x->next)
+        x->next->prev = x;
+    else
+        e->held_tail = x;
+    if (after)
+        after->next = x;
+    else
+        e->held_head = x;
+    e->held++;
+    e->submitted++;
+    return 0;
+}
+
+static struct eng_xfer *held_pop(eng_t *e)
+{
+    struct eng_xfer *x = e->held_head;
+    e->held_head = x->next;
+    if (e->held_head)
+        e->held_head->prev = NULL;
+    else
+        e->held_tail = NULL;
+    x->next = x->prev = NULL;
+    e->held--;
+    return x;
+}
+
+bool eng_held_next(const eng_t *e, int64_t *at_ns)
+{
+    if (!e || !e->held_head)
+        return false;
+    *at_ns = e->held_head->req.hold_until_ns;
+    return true;
+}
+
+int eng_release(eng_t *e, int64_t now_ns)
+{
+    int n = 0;
+    bool write = !e->in_curl && !e->closing;
+    int64_t start = clock_mono_ns();
+    /* One multi handle's share at a time, written before the next is handed over: the tick's
+     * first requests leave while the rest are still held, and a queue wait counts only the
+     * time a request waited for a connection, not for its neighbours' writes. */
+    while (e->held_head && e->held_head->req.hold_until_ns <= now_ns) {
+        int64_t now = clock_mono_ns();
+        for (int k = 0; k < ENG_MULTI_CONNS && e->held_head &&
+                        e->held_head->req.hold_until_ns <= now_ns;
+             k++, n++) {
+            struct eng_xfer *x = held_pop(e);
+            x->res.submitted_ns = start; /* handed over at its instant (schedule lag) */
+            x->queued_ns = now;          /* waits for a connection from here */
+            enqueue(e, x);
+            if (x->req.on_release)
+                x->req.on_release(x->req.user);
+        }
+        if (write) {
+            admit(e);
+            eng_glue_flush(e);
+        }
+    }
+    return n;
+}
+
 int eng_submit(eng_t *e, const eng_req_t *req)
 {
     if (!req || !req->on_done || !req->path)
@@ -190,14 +281,10 @@ int eng_submit(eng_t *e, const eng_req_t *req)
     x->res.submitted_ns = clock_mono_ns();
     if (!x->res.intended_ns)
         x->res.intended_ns = x->res.submitted_ns;
-    x->next = NULL;
-    if (e->queue_tail)
-        e->queue_tail->next = x;
-    else
-        e->queue_head = x;
-    e->queue_tail = x;
-    if (++e->queued > e->max_queued)
-        e->max_queued = e->queued;
+    if (req->hold_until_ns > 0)
+        return hold(e, x);
+    x->queued_ns = x->res.submitted_ns;
+    enqueue(e, x);
     e->submitted++;
     /* Admitting may not run inside a libcurl callback; the glue admits after it returns. */
     if (!e->in_curl)
@@ -208,18 +295,24 @@ int eng_submit(eng_t *e, const eng_req_t *req)
 static int capacity(const eng_t *e)
 {
     if (e->cfg.http == ENG_HTTP_1_1)
-        return e->cfg.connections;
+        return e->conns;
     if (!e->h2c)
-        return e->cfg.connections * e->streams;
+        return e->conns * e->streams;
     int conns = e->n_socks + e->openers_pending;
-    return (conns < e->cfg.connections ? conns + 1 : conns) * e->streams;
+    return (conns < e->conns ? conns + 1 : conns) * e->streams;
+}
+
+void eng_set_connections(eng_t *e, int n)
+{
+    e->conns = n < 1 ? 1 : n > e->cfg.connections ? e->cfg.connections : n;
+    admit(e);
 }
 
 /* Whether the next h2c transfer must open a connection: fewer are open (or opening) than the
  * cap. Only openers may open one, so later transfers always find an h2 connection to share. */
 static bool needs_opener(const eng_t *e)
 {
-    return e->h2c && e->n_socks + e->openers_pending < e->cfg.connections;
+    return e->h2c && e->n_socks + e->openers_pending < e->conns;
 }
 
 static CURL *easy_get(eng_t *e)
@@ -286,7 +379,7 @@ static bool admit_one(eng_t *e)
 {
     struct eng_xfer *x = e->queue_head;
     struct eng_multi *mh = multi_with_room(e);
-    if (!mh || !(x->easy = easy_get(e)))
+    if (!mh || (!x->easy && !(x->easy = easy_get(e))))
         return false;
     x->mh = mh;
     e->queue_head = x->next;
@@ -296,9 +389,12 @@ static bool admit_one(eng_t *e)
     x->opener = x->was_opener = needs_opener(e);
     if (x->opener)
         e->openers_pending++;
-    eng_xfer_setup(x);
+    if (!x->set_up)
+        eng_xfer_setup(x);
+    else if (x->opener)
+        eng_xfer_set_version(x);
     x->res.admitted_ns = clock_mono_ns();
-    int64_t wait = x->res.admitted_ns - x->res.submitted_ns;
+    int64_t wait = x->res.admitted_ns - x->queued_ns;
     if (wait > e->max_queue_wait_ns)
         e->max_queue_wait_ns = wait;
     flight_link(e, x);
@@ -406,17 +502,28 @@ static void finish(eng_t *e, struct eng_xfer *x, CURLcode rc)
     xfer_put(e, x);
 }
 
+/* Finishes a transfer that never reached libcurl (held or queued) as cancelled. */
+static void cancel_waiting(eng_t *e, struct eng_xfer *x)
+{
+    x->cancelled = true;
+    eng_xfer_finish(x, CURLE_ABORTED_BY_CALLBACK);
+    if (x->easy) /* set up while it was held */
+        easy_put(e, x->easy);
+    x->easy = NULL;
+    count_outcome(e, x);
+    x->req.on_done(x->req.user, &x->res);
+    xfer_put(e, x);
+}
+
 static void cancel_queued(eng_t *e)
 {
+    while (e->held_head)
+        cancel_waiting(e, held_pop(e));
     while (e->queue_head) {
         struct eng_xfer *x = e->queue_head;
         e->queue_head = x->next;
         e->queued--;
-        x->cancelled = true;
-        eng_xfer_finish(x, CURLE_ABORTED_BY_CALLBACK);
-        count_outcome(e, x);
-        x->req.on_done(x->req.user, &x->res);
-        xfer_put(e, x);
+        cancel_waiting(e, x);
     }
     e->queue_tail = NULL;
 }

@@ -160,6 +160,7 @@ int eng_xfer_prepare(struct eng_xfer *x, const eng_req_t *req)
     x->res.intended_ns = req->intended_ns;
     x->resp.len = 0;
     x->opener = x->was_opener = x->aborted = x->cancelled = x->too_big = x->head_seen = false;
+    x->set_up = false;
     return 0;
 }
 
@@ -355,6 +356,14 @@ int eng_xfer_setup(struct eng_xfer *x)
     int64_t t = x->req.timeout_ms ? x->req.timeout_ms : e->cfg.timeout_ms;
     curl_easy_setopt(c, CURLOPT_TIMEOUT_MS, (long)(t > 0 ? t : 0));
     set_method(x);
+    eng_xfer_set_version(x);
+    return 0;
+}
+
+void eng_xfer_set_version(struct eng_xfer *x)
+{
+    eng_t *e = x->eng;
+    CURL *c = x->easy;
     if (e->cfg.http == ENG_HTTP_1_1) {
         curl_easy_setopt(c, CURLOPT_HTTP_VERSION, (long)CURL_HTTP_VERSION_1_1);
     } else if (e->h2c && x->opener) {
@@ -366,7 +375,6 @@ int eng_xfer_setup(struct eng_xfer *x)
         curl_easy_setopt(c, CURLOPT_FRESH_CONNECT, 0L);
         curl_easy_setopt(c, CURLOPT_PIPEWAIT, 1L);
     }
-    return 0;
 }
 
 /* Reads libcurl's view of a finished transfer into x->res. */

@@ -37,8 +37,8 @@ static const char *const action_http[] = {"method", "url", "body", NULL};
 static const char *const step[] = {"rate", "for", NULL};
 static const char *const clients[] = {"count", "think", NULL};
 static const char *const watches[] = {"open", NULL}; /* besides the watch class names */
-static const char *const fleet[] = {"agents", "every", "timing", "jitter", "drift",
-                                    "join",   "leave", "send",   "watch",  NULL};
+static const char *const fleet[] = {"agents", "every", "timing", "jitter",      "drift", "join",
+                                    "leave",  "send",  "watch",  "connections", NULL};
 static const char *const send[] = {"class", "every", NULL};
 /* The first four are churn's required keys: parse_phase.c reports a missing one by index. */
 static const char *const churn[] = {"create", "delete", "rate", "population", "tolerance", NULL};

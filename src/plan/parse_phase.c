@@ -161,6 +161,10 @@ static void parse_fleet(pctx_t *c, yaml_node_t *n, const char *where, plan_phase
     pc_pct(c, n, "drift", w, &ph->fleet.drift);
     pc_dur(c, n, "join", w, 0, &ph->fleet.join_ns);
     pc_dur(c, n, "leave", w, 0, &ph->fleet.leave_ns);
+    static const char *const conns[] = {"default", "shared", "per-agent", NULL};
+    int cn = PLAN_CONNS_DEFAULT;
+    pc_enum(c, n, "connections", w, conns, &cn);
+    ph->fleet.conns = (enum plan_fleet_conns)cn;
     ph->fleet.watch.index = -1;
     if (pc_get(c, n, "watch")) {
         char ww[240];

@@ -5,6 +5,7 @@
 
 #include "src_int.h"
 #include "squall/err.h"
+#include "squall/file.h"
 
 /* One periodic action: the agents sending one class every period. */
 typedef struct {
@@ -12,12 +13,29 @@ typedef struct {
     sched_fleet_t *sched;
 } action_t;
 
+/* Aligned ticks are rendered this long before their instant (at most half the period), so at
+ * the tick only the writes remain: the requests wait in the engine, set up, until then
+ * (src_req_t.ahead). Rendering and setting up 5,000 requests takes ~45 ms on the 2-CPU VM of
+ * tools/bench/RESULTS.md ("Aligned ticks"). */
+#define FLEET_AHEAD_NS INT64_C(250000000)
+
+/* Whether an aligned fleet over HTTP/1.1 gets a connection per agent unless its plan says
+ * (tools/bench/RESULTS.md, "Aligned ticks": which serves the tick's fidelity best). */
+#define FLEET_PER_AGENT_DEFAULT 1
+#define FLEET_FD_RESERVE 64 /* results, stdio, the other engines */
+/* Connections one engine may hold (engine.c's check). */
+#define FLEET_MAX_CONNS 100000
+
 typedef struct {
     src_ctx_t ctx;
     action_t *a;
     size_t n;
     src_t *me;
+    int64_t ahead_ns; /* how early a start is issued: 0 unless aligned */
 } fleet_t;
+
+static int64_t files_beside(const plan_t *plan);
+static int64_t files_for(int64_t conns);
 
 static bool fleet_used_by(const plan_t *plan, const plan_phase_t *pp)
 {
@@ -49,6 +67,20 @@ static int fleet_new(const src_ctx_t *ctx, void **self)
     const plan_phase_t *pp = src_phase(ctx);
     if (!(s->a = calloc(pp->fleet.n_send, sizeof(*s->a))))
         return SQ_ENOMEM;
+    if (pp->fleet.conns == PLAN_CONNS_PER_AGENT) {
+        uint64_t limit = file_raise_limit();
+        int64_t need = files_for(pp->fleet.agents) + files_beside(ctx->plan);
+        if (pp->fleet.agents > FLEET_MAX_CONNS || (limit && (uint64_t)need > limit)) {
+            out_raw(ctx->o, OUT_ERROR,
+                    "%s:%d:%d: error: phase '%s': fleet.connections: per-agent opens %d "
+                    "connections, which need about %lld open files, but this process may open "
+                    "at most %llu (RLIMIT_NOFILE hard limit) and one engine %d connections; use "
+                    "fewer agents per process (shards) or connections: shared",
+                    pp->pos.file, pp->pos.line, pp->pos.col, pp->name, pp->fleet.agents,
+                    (long long)need, (unsigned long long)limit, FLEET_MAX_CONNS);
+            return SQ_ELIMIT;
+        }
+    }
     for (size_t k = 0; k < pp->fleet.n_send; k++) {
         sched_fleet_cfg_t cfg = {
             .agents = pp->fleet.agents,
@@ -64,6 +96,11 @@ static int fleet_new(const src_ctx_t *ctx, void **self)
             .shard = ctx->shard,
         };
         s->a[k].cls = pp->fleet.send[k].cls.index;
+        if (pp->fleet.timing == PLAN_TIMING_ALIGNED) {
+            int64_t half = cfg.period_ns / 2;
+            int64_t ahead = half < FLEET_AHEAD_NS ? half : FLEET_AHEAD_NS;
+            s->ahead_ns = k == 0 || ahead < s->ahead_ns ? ahead : s->ahead_ns;
+        }
         int rc = sched_fleet_new(&cfg, &s->a[k].sched);
         if (rc)
             return rc;
@@ -81,12 +118,13 @@ static int fleet_start(void *self, src_t *me)
 static bool fleet_next(const void *self, int64_t *at_ns)
 {
     const fleet_t *s = self;
-    bool any = false;
+    bool any = s->ahead_ns && src_held_next(s->ctx.issuer, at_ns);
     for (size_t k = 0; k < s->n; k++) {
         int64_t t;
         int agent;
-        if (sched_fleet_peek(s->a[k].sched, &t, &agent) && (!any || s->ctx.base_ns + t < *at_ns)) {
-            *at_ns = s->ctx.base_ns + t;
+        if (sched_fleet_peek(s->a[k].sched, &t, &agent) &&
+            (!any || s->ctx.base_ns + t - s->ahead_ns < *at_ns)) {
+            *at_ns = s->ctx.base_ns + t - s->ahead_ns;
             any = true;
         }
     }
@@ -99,15 +137,19 @@ static int fleet_due(void *self, int64_t now_ns)
     int64_t t[SRC_DUE_BATCH];
     int agent[SRC_DUE_BATCH];
     int rc = 0;
+    if (s->ahead_ns)
+        src_release(s->ctx.issuer, now_ns);
     for (size_t k = 0; k < s->n && rc == 0; k++) {
         size_t n;
         do {
-            n = sched_fleet_due(s->a[k].sched, now_ns - s->ctx.base_ns, t, agent, SRC_DUE_BATCH);
+            n = sched_fleet_due(s->a[k].sched, now_ns + s->ahead_ns - s->ctx.base_ns, t, agent,
+                                SRC_DUE_BATCH);
             for (size_t i = 0; i < n && rc == 0; i++) {
                 src_req_t req = {.cls = s->a[k].cls,
                                  .intended_ns = s->ctx.base_ns + t[i],
                                  .agent = agent[i],
-                                 .client = -1};
+                                 .client = -1,
+                                 .ahead = s->ctx.base_ns + t[i] > now_ns};
                 rc = src_issue(s->ctx.issuer, s->me, &req);
             }
         } while (n == SRC_DUE_BATCH && rc == 0);
@@ -140,3 +182,54 @@ const src_ops_t src_fleet_ops = {
     .expected = fleet_expected,
     .free = fleet_free,
 };
+
+/* Open files a process needs beside the main engine's connections: watch streams over
+ * HTTP/1.1 (one connection each; the largest phase), results, stdio, libcurl's wake-up pairs. */
+static int64_t files_beside(const plan_t *plan)
+{
+    int64_t most = 0;
+    for (size_t i = 0; plan->target.http != PLAN_HTTP_2 && i < plan->n_phases; i++) {
+        int64_t n = 0;
+        for (size_t k = 0; k < plan->phases[i].watches.n_sets; k++)
+            n += plan->phases[i].watches.sets[k].count;
+        most = n > most ? n : most;
+    }
+    return most + FLEET_FD_RESERVE;
+}
+
+/* Open files `conns` connections of the main engine take: one each, and the socket pairs of
+ * its libcurl multi handles (at most 16: engine/eng_int.h's ENG_MAX_MULTIS). */
+static int64_t files_for(int64_t conns)
+{
+    return conns + 2 * 16;
+}
+
+bool src_fleet_per_agent(const plan_t *plan, const plan_phase_t *pp)
+{
+    if (!pp->fleet.on || pp->fleet.conns == PLAN_CONNS_SHARED)
+        return false;
+    if (pp->fleet.conns == PLAN_CONNS_PER_AGENT)
+        return true;
+    if (!FLEET_PER_AGENT_DEFAULT || pp->fleet.timing != PLAN_TIMING_ALIGNED ||
+        plan->target.http == PLAN_HTTP_2 || pp->fleet.agents <= plan->target.connections)
+        return false;
+    uint64_t limit = file_raise_limit();
+    return limit == 0 || (uint64_t)(files_for(pp->fleet.agents) + files_beside(plan)) <= limit;
+}
+
+int src_phase_connections(const plan_t *plan, size_t phase)
+{
+    const plan_phase_t *pp = phase < plan->n_phases ? &plan->phases[phase] : NULL;
+    int conns = plan->target.connections;
+    return pp && src_fleet_per_agent(plan, pp) && pp->fleet.agents > conns ? pp->fleet.agents
+                                                                           : conns;
+}
+
+int src_fleet_connections(const plan_t *plan)
+{
+    int conns = plan->target.connections;
+    for (size_t i = 0; i < plan->n_phases; i++)
+        if (src_fleet_per_agent(plan, &plan->phases[i]) && plan->phases[i].fleet.agents > conns)
+            conns = plan->phases[i].fleet.agents;
+    return conns;
+}

@@ -6,6 +6,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "squall/clock.h"
 #include "squall/err.h"
 #include "squall/source.h"
 
@@ -22,6 +23,7 @@ typedef struct req {
     char *base_path;    /* lists: page 1's path for the following pages; writes: the object */
     const char *method; /* a replayed request's own method (NULL: the class's) */
     bool one_page;      /* a replayed list: the log holds its further pages */
+    bool held;          /* issued ahead and not yet released (src_req_t.ahead) */
     struct req *next_free;
 } req_t;
 
@@ -246,7 +248,25 @@ static const char *object_path(const req_t *q, char *buf, size_t cap)
 
 static void on_done(void *user, const eng_result_t *res);
 
-static int submit(src_issuer_t *is, req_t *q, const char *path, int64_t intended)
+/* The observers see a request start (held ones: when released). */
+static void started(req_t *q)
+{
+    char obj[4096];
+    obs_sent_t s = {.phase = q->from->phase,
+                    .cls = q->cls,
+                    .path = object_path(q, obj, sizeof obj),
+                    .page = q->pages > 0};
+    obs_sent(q->is->obs, &s);
+}
+
+static void on_release(void *user)
+{
+    req_t *q = user;
+    q->held = false;
+    started(q);
+}
+
+static int submit(src_issuer_t *is, req_t *q, const char *path, int64_t intended, bool hold)
 {
     const src_class_t *c = &is->classes[q->cls];
     eng_req_t er = {
@@ -258,6 +278,8 @@ static int submit(src_issuer_t *is, req_t *q, const char *path, int64_t intended
         .n_headers = c->n_headers,
         .timeout_ms = c->timeout_ms,
         .intended_ns = intended,
+        .hold_until_ns = hold ? intended : 0,
+        .on_release = hold ? on_release : NULL,
         .keep_body = c->paginate || c->pr->write.creates, /* tokens; a create's version */
         .on_done = on_done,
         .user = q,
@@ -266,14 +288,11 @@ static int submit(src_issuer_t *is, req_t *q, const char *path, int64_t intended
         er.body = is->body_buf.data;
         er.body_len = is->body_buf.len;
     }
-    char obj[4096];
-    obs_sent_t s = {.phase = q->from->phase,
-                    .cls = q->cls,
-                    .path = object_path(q, obj, sizeof obj),
-                    .page = q->pages > 0};
     int rc = eng_submit(is->eng, &er);
-    if (rc == 0)
-        obs_sent(is->obs, &s);
+    if (rc == 0 && hold)
+        q->held = true;
+    else if (rc == 0)
+        started(q);
     return rc;
 }
 
@@ -304,7 +323,7 @@ static bool next_page(src_issuer_t *is, req_t *q, const eng_result_t *res)
             n = snprintf(path, sizeof path, "%s%s%s=%s", q->base_path, sep, c->pr->list.token_param,
                          esc);
         if (n > 0 && (size_t)n < sizeof path)
-            sent = submit(is, q, path, (int64_t)uv_hrtime()) == 0;
+            sent = submit(is, q, path, (int64_t)uv_hrtime(), false) == 0;
     }
     json_decref(doc);
     return sent;
@@ -314,6 +333,10 @@ static void on_done(void *user, const eng_result_t *res)
 {
     req_t *q = user;
     src_issuer_t *is = q->is;
+    if (q->held) { /* cancelled before its instant: never started */
+        req_give(is, q);
+        return;
+    }
     char obj[4096];
     obs_done_t d = {
         .phase = q->from->phase,
@@ -376,7 +399,7 @@ static int send_new(src_issuer_t *is, src_t *from, const src_req_t *req, const c
         req_give(is, q);
         return SQ_ENOMEM;
     }
-    int rc = submit(is, q, path, req->intended_ns);
+    int rc = submit(is, q, path, req->intended_ns, req->ahead);
     if (rc)
         req_give(is, q);
     return rc;
@@ -394,6 +417,8 @@ static int render(src_issuer_t *is, src_t *from, const src_req_t *req, bool path
         .rng = &is->rng,
     };
     c->seq += is->seq_step;
+    if (req->ahead) /* {{now_ns}} reads as at the intended instant */
+        ctx.now_ns = clock_real_ns() + (req->intended_ns - clock_mono_ns());
     int rc = path ? tmpl_render(c->path, &ctx, &is->path_buf) : 0;
     if (rc == 0 && c->body)
         rc = tmpl_render(c->body, &ctx, &is->body_buf);
@@ -424,4 +449,14 @@ int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char
         return SQ_EINVAL;
     int rc = render(is, from, req, false);
     return rc ? rc : send_new(is, from, req, path, c->pr->kind == PLAN_WRITE ? path : NULL, method);
+}
+
+int src_release(src_issuer_t *is, int64_t now_ns)
+{
+    return is && is->eng ? eng_release(is->eng, now_ns) : 0;
+}
+
+bool src_held_next(const src_issuer_t *is, int64_t *at_ns)
+{
+    return is && eng_held_next(is->eng, at_ns);
 }

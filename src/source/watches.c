@@ -39,7 +39,7 @@ static int64_t files_needed(const plan_t *p, int watchers)
         int per = p->target.streams ? p->target.streams : H2_STREAMS;
         conns = (watchers + per - 1) / per;
     }
-    return conns + p->target.connections + FD_RESERVE;
+    return conns + src_fleet_connections(p) + FD_RESERVE;
 }
 
 int64_t src_files_needed(const plan_t *p, int shards)
@@ -502,8 +502,9 @@ static int watcher_init(watches_t *ws, watches_watcher_t *w, watches_class_t *wc
 
 /* libcurl's receive buffer per stream (its default is 16 KiB, held by every open stream): events
  * are a few hundred bytes, and a larger answer (a relist page) is only read in more pieces.
- * Measured per stream by tools/bench/watch.sh (RESULTS.md). */
-#define WATCH_RECV_BUFFER 2048L
+ * 1 KiB is libcurl's least (CURLOPT_BUFFERSIZE). Measured per stream by tools/bench/watch.sh
+ * and, by allocation site, watchheap.sh (RESULTS.md, issue 12). */
+#define WATCH_RECV_BUFFER 1024L
 
 /* The plan's target, with one connection per stream over HTTP/1.1 and ceil(n / streams)
  * connections over HTTP/2, no timeout (relists carry their class's). */

@@ -102,7 +102,8 @@ accept: [generator-bound] # this test counts: a second of lag of this shared mac
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}", body: '{"n":1}'}
 phases:
-  - {name: tick, duration: 3s, fleet: {agents: 100, every: 1s, timing: aligned, send: renew}}
+  - {name: tick, duration: 3s,
+     fleet: {agents: 100, every: 1s, timing: aligned, send: renew, connections: shared}}
 YAML
 timeout 60 "$SQUALL" run "$T/peak.yaml" -o "$T/peak" >"$T/peak.out" 2>"$T/peak.err"
 RC=$?

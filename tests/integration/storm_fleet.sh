@@ -1,7 +1,9 @@
 #!/usr/bin/env bash
 # Storm reporting for fleets in `squall run` against the embedded target: aligned ticks carry
 # every agent at once (counts agree with what the target stored), the burst fills exactly the
-# plan's connection cap, its first request is written right at the tick, and its dispatch
+# plan's connection cap (connections: shared) or, with a connection per agent (the default for
+# aligned fleets), goes past it on connections of its own, which the target sees (ss), its first
+# request is written right at the tick, and its dispatch
 # spread is reported; spread agents' sends are uniform over each period (Pearson chi-square,
 # df 9, critical value 21.666 at alpha .01, NIST/SEMATECH e-Handbook table, recomputed below with
 # scipy.stats.chi2); jittered ticks split the phase's latency into burst and quiet time.
@@ -20,23 +22,44 @@ requests:
           body: '{"holder":"gw-{{agent}}","stamp":{{now_ns}}}'}
   read: {kind: get, path: "/v1/leases/gw-1"}
 phases:
-  - {name: aligned, duration: 4s, fleet: {agents: 500, every: 1s, timing: aligned, send: renew}}
+  - {name: aligned, duration: 4s,
+     fleet: {agents: 500, every: 1s, timing: aligned, send: renew, connections: shared}}
   - {name: spread, duration: 3s, fleet: {agents: 1000, every: 1s, timing: spread, send: renew}}
   - {name: jitter, duration: 3s, rate: 50/s, mix: {read: 1},
      fleet: {agents: 300, every: 1s, timing: jitter, jitter: 10%, send: renew}}
+  - {name: own, duration: 4s, fleet: {agents: 400, every: 1s, timing: aligned, send: renew}}
 # 500 requests at once on 32 connections wait for one by design (the burst must fill the cap):
 # squall says the load was generator-bound for those seconds, which this plan accepts.
 accept: [generator-bound]
 YAML
+# The last phase's aligned fleet has a connection per agent by default (fleet.connections):
+# counted from outside by ss (iproute2) as the target's established connections from squall,
+# sampled every 250 ms through the run.
+( for _ in $(seq 1 80); do
+    ss -Htn state established "( sport = :${SERVE_URL##*:} )" | wc -l
+    sleep 0.25
+  done >"$T/conns" ) &
+SSPID=$!
 run_plan "$T/f" "$T/f.yaml"
+kill "$SSPID" 2>/dev/null
+wait "$SSPID" 2>/dev/null
 puts=$(serve_stats 's["requests"]["PUT"].get("200", 0) + s["requests"]["PUT"].get("201", 0)')
 serve_stop
 expect_rc "the run exits 0 (got $RUN_RC)" "$T/f" 0
 A='d["sections"]["storms"]["aligned"]["actions"][0]'
 S='d["sections"]["storms"]["spread"]["actions"][0]'
 J='d["sections"]["storms"]["jitter"]'
-rcheck "the storm report's requests of all three fleets = the PUTs the target answered ($puts)" \
-    "$A['requests'] + $S['requests'] + $J['actions'][0]['requests'] == $puts" "$T/f"
+rcheck "the storm report's requests of all four fleets = the PUTs the target answered ($puts)" \
+    "$A['requests'] + $S['requests'] + $J['actions'][0]['requests'] + d['sections']['storms']['own']['actions'][0]['requests'] == $puts" "$T/f"
+O='d["sections"]["storms"]["own"]["actions"][0]'
+rcheck "own connections: every tick has more in flight at once than 32 shared connections allow ($(rget "$T/f" "[t['peak_in_flight'] for t in $O['ticks']]" 2>/dev/null))" \
+    "len($O['ticks']) == 4 and all(t['peak_in_flight'] > 32 for t in $O['ticks'])" "$T/f"
+MOST=$(sort -n "$T/conns" | tail -1)
+PEAK=$(rget "$T/f" "max(t['peak_in_flight'] for t in $O['ticks'])" 2>/dev/null)
+expect "own connections: the target held more of squall's connections than 32 shared ones, at least one per request in flight at the peak ($PEAK) and at most one per agent plus the 32 (ss: ${MOST:-none})" \
+    test "${MOST:-0}" -gt 32 -a "${MOST:-0}" -ge "${PEAK:-1000}" -a "${MOST:-0}" -le 432
+rcheck "own connections: the first request of each tick is written within 20 ms of the tick" \
+    "all(0 <= t['first_written_ns'] < 20e6 for t in $O['ticks'])" "$T/f"
 rcheck "aligned: 4 ticks of exactly 500 requests, all written" \
     "[t['requests'] for t in $A['ticks']] == [500] * 4 and all(t['written'] == 500 for t in $A['ticks'])" "$T/f"
 rcheck "aligned: ticks 1 s apart on the wall-clock grid (offset < 1 s)" \

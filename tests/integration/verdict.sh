@@ -25,7 +25,8 @@ target: {url: "$SERVE_URL", connections: 2, timeout: 5s}
 requests:
   renew: {kind: write, method: PUT, path: "/v1/leases/gw-{{agent}}", body: '{"n":1}'}
 phases:
-  - {name: storm, duration: 3s, fleet: {agents: 1000, every: 1s, timing: aligned, send: renew}}
+  - {name: storm, duration: 3s,
+     fleet: {agents: 1000, every: 1s, timing: aligned, send: renew, connections: shared}}
   - {name: clean, teardown: {rate: 5000/s}}
 $2
 YAML

@@ -24,6 +24,7 @@ struct eng {
     eng_config_t cfg;
     uv_timer_t tick;
     fx_t *pending;
+    fx_t *held; /* held requests (hold_until_ns), in hold order; path and method copied */
     int in_flight, max_in_flight, refused;
     uv_timer_cb on_tick;
     bool stopped, unreachable;
@@ -121,16 +122,75 @@ int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out)
     return 0;
 }
 
+void eng_set_connections(eng_t *e, int n)
+{
+    (void)e;
+    fake.connections = n;
+}
+
 /* The fake answers on its own timer; there is nothing to write early. */
 void eng_flush(eng_t *e)
 {
     (void)e;
 }
 
+/* A held request: kept with its own copies of path and method (the body is not looked at). */
+static int hold(eng_t *e, const eng_req_t *req)
+{
+    fx_t *x = calloc(1, sizeof(*x));
+    if (!x || !(x->path = strdup(req->path)) ||
+        !(x->method = strdup(req->method ? req->method : "GET"))) {
+        if (x)
+            free(x->path);
+        free(x);
+        return SQ_ENOMEM;
+    }
+    x->req = *req;
+    x->req.path = x->path;
+    x->req.method = x->method;
+    x->req.body = NULL;
+    x->due_ns = req->hold_until_ns;
+    fx_t **pp = &e->held;
+    while (*pp && (*pp)->due_ns <= x->due_ns)
+        pp = &(*pp)->next;
+    x->next = *pp;
+    *pp = x;
+    fake.held++;
+    return 0;
+}
+
+int eng_release(eng_t *e, int64_t now_ns)
+{
+    int n = 0;
+    while (e->held && e->held->due_ns <= now_ns) {
+        fx_t *h = e->held;
+        e->held = h->next;
+        eng_req_t r = h->req;
+        r.hold_until_ns = 0;
+        if (eng_submit(e, &r) == 0 && r.on_release)
+            r.on_release(r.user);
+        free(h->path);
+        free(h->method);
+        free(h);
+        n++;
+    }
+    return n;
+}
+
+bool eng_held_next(const eng_t *e, int64_t *at_ns)
+{
+    if (!e->held)
+        return false;
+    *at_ns = e->held->due_ns;
+    return true;
+}
+
 int eng_submit(eng_t *e, const eng_req_t *req)
 {
     if (e->stopped)
         return SQ_ESTOPPED;
+    if (req->hold_until_ns > 0)
+        return hold(e, req);
     fx_t *x = calloc(1, sizeof(*x));
     if (!x)
         return SQ_ENOMEM;
@@ -184,6 +244,13 @@ int eng_submit(eng_t *e, const eng_req_t *req)
 
 static void cancel_all(eng_t *e)
 {
+    while (e->held) {
+        fx_t *x = e->held;
+        e->held = x->next;
+        e->in_flight++; /* finish counts it out */
+        x->res.intended_ns = x->req.intended_ns;
+        finish(e, x, true);
+    }
     while (e->pending) {
         fx_t *x = e->pending;
         e->pending = x->next;

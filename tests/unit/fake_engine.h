@@ -32,6 +32,8 @@ typedef struct {
     int64_t delay_ns; /* every answer comes this long after its submission */
     fake_req_t log[FAKE_LOG];
     int n_log, completed, engines;
+    int connections; /* the last eng_set_connections */
+    int held; /* requests submitted to be held (eng_req_t.hold_until_ns) */
     char headers[256]; /* the first header an engine was made with */
 } fake_t;
 

@@ -593,6 +593,71 @@ static void test_replay_watches(void **state)
     unlink(log);
 }
 
+/* An aligned tick is rendered ahead (src/source/fleet.c) and held in the engine until its
+ * instant: every fleet request was handed over held, none was sent before its intended start,
+ * and each was counted once (40 agents x 3 ticks of a 400 ms period in 1.2 s, give or take
+ * the tick that lands on the phase's edges). */
+static void test_fleet_ahead(void **state)
+{
+    (void)state;
+    fake.held = 0;
+    run_case_t c = {0};
+    run_yaml(&c,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  renew: {kind: get, path: \"/l/{{agent}}\"}\n"
+             "phases:\n  - {name: p, duration: 1200ms,"
+             " fleet: {agents: 40, every: 400ms, timing: aligned, send: renew}}\n",
+             NULL);
+    assert_int_equal(c.res.end, RUN_END_DONE);
+    int n = logged("GET", "/l/");
+    assert_true(n >= 80 && n <= 120 && n % 40 == 0);
+    assert_int_equal(count(&c, "p", "renew", "2xx"), n);
+    assert_true(fake.held >= n - 40); /* a tick at the phase's very start cannot be ahead */
+    for (int i = 0; i < fake.n_log; i++)
+        assert_true(fake.log[i].submitted_ns >= fake.log[i].intended_ns);
+    case_close(&c);
+}
+
+/* fleet.connections: one connection per agent for the main engine when asked, or by default
+ * for an aligned fleet over HTTP/1.1 that fits the open-file limit; shared keeps
+ * target.connections; spread and HTTP/2 fleets share by default. */
+static void test_fleet_connections(void **state)
+{
+    (void)state;
+    static const struct {
+        const char *target, *fleet;
+        int want;
+    } cases[] = {
+        {"", "timing: aligned, connections: per-agent", 300},
+        {"", "timing: aligned, connections: shared", 16},
+        {"", "timing: aligned", 300},
+        {"", "timing: spread", 16},
+        {"", "timing: spread, connections: per-agent", 300},
+        {", http: \"2\"", "timing: aligned", 16},
+    };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        char yaml[512];
+        snprintf(yaml, sizeof yaml,
+                 "target: {url: \"http://127.0.0.1:9\", connections: 16%s}\n"
+                 "requests:\n  renew: {kind: get, path: \"/l/{{agent}}\"}\n"
+                 "phases:\n  - {name: p, duration: 1s,"
+                 " fleet: {agents: 300, every: 1s, %s, send: renew}}\n",
+                 cases[i].target, cases[i].fleet);
+        char path[] = "/tmp/squall-fleet-XXXXXX";
+        int fd = mkstemp(path);
+        assert_true(fd >= 0 && write(fd, yaml, strlen(yaml)) == (ssize_t)strlen(yaml));
+        close(fd);
+        out_t *o = out_new_capture();
+        plan_t *plan = NULL;
+        if (plan_load(path, NULL, 0, &plan, o))
+            fail_msg("plan: %s", out_captured_diag(o));
+        unlink(path);
+        assert_int_equal(src_fleet_connections(plan), cases[i].want);
+        plan_free(plan);
+        out_free(o);
+    }
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -609,6 +674,8 @@ int main(void)
         cmocka_unit_test(test_replay_window),
         cmocka_unit_test(test_replay_teardown),
         cmocka_unit_test(test_replay_watches),
+        cmocka_unit_test(test_fleet_ahead),
+        cmocka_unit_test(test_fleet_connections),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -49,10 +49,14 @@ def main():
         while trace and len(out) < depth:
             ip, trace = traces[trace]
             p = ips[ip]
-            if len(p) >= 4 and int(p[1], 16):
+            if len(p) >= 2 and int(p[1], 16):
                 fn = strings[int(p[1], 16)]
-                if not fn.startswith(('malloc', 'calloc', 'realloc', '__GI___strdup')):
+                if fn.startswith(('malloc', 'calloc', 'realloc', '__GI___strdup', 'strdup')):
+                    continue
+                if len(p) >= 4:
                     out.append(f"{fn}@{strings[int(p[2], 16)].split('/')[-1]}:{int(p[3], 16)}")
+                else:  # a library without debug information: its exported symbol and file
+                    out.append(f"{fn}@{strings[int(p[0], 16)].split('/')[-1]}")
         return ' <- '.join(out) or '(no symbols)'
 
     def by_site(snap):

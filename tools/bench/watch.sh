@@ -185,9 +185,12 @@ same process holds more streams than it has files.
 ### Aligned fleet ticks, warm connections (nginx, a 43-byte file; ticks 2-4 of 4, every 2 s)
 
 Dispatch spread = first to last request of the tick written on its connection (libcurl's
-PREREQFUNCTION); first written = the tick's first request after the tick instant.
+PREREQFUNCTION); first written = the tick's first request after the tick instant. The plan's
+fleets have no \`connections\` key: over HTTP/1.1 an aligned fleet then has a connection per
+agent (the default where the open-file limit allows; peak in flight shows it), over HTTP/2 the
+agents share the target's connections. tools/bench/storm.sh compares the two.
 
-| agents | protocol | connections | ticks | dispatch spread median / max (ms) | first written max (ms) | peak in flight | response p99 max (ms) |
+| agents | protocol | target.connections | ticks | dispatch spread median / max (ms) | first written max (ms) | peak in flight | response p99 max (ms) |
 |---|---|---|---|---|---|---|---|
 ${STORM%$'\n'}
 <!-- watch:end -->

@@ -1,0 +1,99 @@
+#!/usr/bin/env bash
+# Aligned-tick storm benchmark (not a test; issue 12): one squall process, a fleet of AGENTS
+# agents all due on the same wall-clock tick every 2 s for 6 ticks, against `squall serve` on
+# loopback (one PUT per agent per tick). For each variant (a fleet `connections` setting and
+# the target's connection count) and each repeat it reads the results' "storms" section and
+# prints the dispatch spread (first to last request of a tick written on its connection,
+# libcurl's pre-request stamp) of ticks 2-6 (the first tick opens the connections), then the
+# distribution over all repeats' ticks. Usage:
+#   tools/bench/storm.sh [BUILDDIR] [REPEATS] [AGENTS] [VARIANT...]
+# VARIANT is SHARING:CONNECTIONS, e.g. shared:256 per-agent:256 (the default: both of those):
+# SHARING is the fleet's `connections` key, or plain for none (a build without the key).
+# Set STORM_WRAP to run squall under a wrapper (e.g. "chrt -f 50"). With STORM_CG=1 each run
+# is under callgrind instead (some 50 times slower: the ticks then spread over seconds) and the
+# table gives the instructions per request of the whole process, the figure that is stable on
+# this shared machine (median of the repeats, min..max).
+set -uo pipefail
+cd "$(dirname "$0")/../.."
+BUILDDIR=$(realpath "${1:-build}")
+REPEATS=${2:-3}
+AGENTS=${3:-5000}
+shift 3 2>/dev/null || shift $#
+VARIANTS=("$@")
+[ ${#VARIANTS[@]} -gt 0 ] || VARIANTS=(shared:256 per-agent:256)
+SQUALL="$BUILDDIR/squall"
+[ -x "$SQUALL" ] || { echo "storm.sh: $SQUALL not built"; exit 1; }
+source tests/integration/lib/port.sh
+W=$(mktemp -d /tmp/squall-storm.XXXXXX)
+TPID=
+cleanup() {
+    [ -n "$TPID" ] && kill -TERM "$TPID" 2>/dev/null && wait "$TPID" 2>/dev/null
+    TPID=
+    rm -rf "$W"
+}
+trap cleanup EXIT
+PORT=$(free_port)
+"$SQUALL" serve --listen "127.0.0.1:$PORT" >"$W/serve.log" 2>&1 &
+TPID=$!
+wait_port "$PORT" || { echo "storm.sh: squall serve did not start"; exit 1; }
+
+echo "storm.sh: $(date -u '+%F %H:%M') UTC, $(nproc) CPUs, load $(cut -d' ' -f1-3 /proc/loadavg), $AGENTS agents, $REPEATS repeats"
+for v in "${VARIANTS[@]}"; do
+    sharing=${v%%:*}
+    conns=${v##*:}
+    key=""
+    [ "$sharing" = plain ] || key=", connections: $sharing"
+    cat >"$W/plan.yaml" <<YAML
+target: {url: "http://127.0.0.1:$PORT", http: "1.1", connections: $conns, timeout: 10s}
+requests:
+  renew:
+    kind: write
+    method: PUT
+    path: "/v1/sites/north/leases/{{agent}}"
+    body: '{"holder":"{{agent}}","stamp":{{now_ns}}}'
+phases:
+  - {name: storm, duration: 12s, fleet: {agents: $AGENTS, every: 2s, timing: aligned, send: renew$key}}
+YAML
+    for r in $(seq 1 "$REPEATS"); do
+        rm -rf "$W/out"
+        wrap=${STORM_WRAP:-}
+        [ -n "${STORM_CG:-}" ] && wrap="valgrind --tool=callgrind --callgrind-out-file=$W/cg"
+        # Exit 1 is a FAIL verdict (the results are there); no results.json is a failed run.
+        timeout 600 $wrap "$SQUALL" run "$W/plan.yaml" -o "$W/out" --quiet --no-brakes --keep 2>"$W/err"
+        [ -f "$W/out/results.json" ] || { echo "storm.sh: $v run $r failed: $(tail -3 "$W/err")" >&2; continue; }
+        if [ -n "${STORM_CG:-}" ]; then
+            ir=$(sed -n 's/^summary: //p' "$W/cg" | awk '{ print $1 }')
+            /usr/bin/python3 -c 'import json, sys
+d = json.load(open(sys.argv[1]))
+print(int(sys.argv[2]) / sum(c["count"] for c in d["cells"]))' "$W/out/results.json" "$ir" >>"$W/cg-$v"
+            continue
+        fi
+        /usr/bin/python3 - "$W/out/results.json" "$v" "$AGENTS" >>"$W/ticks-$v" <<'PY'
+import json, sys
+d = json.load(open(sys.argv[1]))
+a = d["sections"]["storms"]["storm"]["actions"][0]
+t = [x for x in a["ticks"] if x["requests"] == int(sys.argv[3])][1:]
+for x in t:
+    print(x["dispatch_spread_ns"] / 1e6, x["first_written_ns"] / 1e6, x["peak_in_flight"], x["p99_ns"] / 1e6)
+PY
+    done
+    if [ -n "${STORM_CG:-}" ]; then
+        sort -n "$W/cg-$v" | awk -v v="$v" '{ a[NR] = $1 } END { printf "| %s | %d | %.1fk (%.1fk..%.1fk) |\n", v, NR, a[int((NR + 1) / 2)] / 1000, a[1] / 1000, a[NR] / 1000 }'
+        continue
+    fi
+    /usr/bin/python3 - "$W/ticks-$v" "$v" <<'PY'
+import statistics, sys
+rows = [list(map(float, l.split())) for l in open(sys.argv[1]) if l.strip()]
+if not rows:
+    print("| %s | 0 ticks |" % sys.argv[2]); sys.exit()
+sp = sorted(r[0] for r in rows)
+q = lambda p: sp[min(len(sp) - 1, int(p * len(sp)))]
+print("| %s | %d | %.1f | %.1f / %.1f | %.1f | %.1f | %d | %.1f |" % (
+    sys.argv[2], len(rows), statistics.median(sp), sp[0], q(0.9), sp[-1],
+    max(r[1] for r in rows), max(int(r[2]) for r in rows), statistics.median(r[3] for r in rows)))
+PY
+done | if [ -n "${STORM_CG:-}" ]; then
+    echo "| variant (fleet connections : target connections) | runs | instructions per request, median (min..max) |"
+    echo "|---|---|---|"
+    cat
+else { echo "| variant (fleet connections : target connections) | ticks | spread median (ms) | min / p90 (ms) | max (ms) | first written max (ms) | peak in flight | response p99 median (ms) |"; echo "|---|---|---|---|---|---|---|---|"; cat; }; fi
