@@ -65,6 +65,11 @@ typedef struct {
  * SQ_EIO / SQ_EPARSE (reported). */
 int journal_read(const char *path, journal_alive_t *a, out_t *o);
 void journal_alive_close(journal_alive_t *a);
+/* The journals ins[0..n) as one at out (a merge of shards, which create disjoint objects): the
+ * first header, then every record of each in turn, as written. An input without a journal is
+ * skipped; none at all writes nothing (0). Headers naming different targets are SQ_EINVAL, an
+ * unreadable input or a failed write SQ_EIO (each reported on o, nothing left at out). */
+int journal_merge(const char *const *ins, size_t n, const char *out, out_t *o);
 
 /* ---- the reaper ------------------------------------------------------------------------- */
 

@@ -8,6 +8,7 @@
 #include "cli_merge.h"
 #include "squall/cli.h"
 #include "squall/err.h"
+#include "squall/journal.h"
 #include "squall/judge.h"
 #include "squall/observe.h"
 #include "squall/report.h"
@@ -15,7 +16,8 @@
 
 static const cli_opt_t merge_opts[] = {
     {"output", 'o', "DIR", "results directory to create (required)"},
-    {"force", 0, NULL, "replace DIR/results.json if it exists"},
+    {"force", 0, NULL,
+     "replace DIR/results.json if it exists; merge inputs of different plans, seeds or overrides"},
     {"json", 0, NULL, "print the merged run's summary and verdict as JSON"},
     {NULL, 0, NULL, NULL},
 };
@@ -153,7 +155,25 @@ static char *input_dir(const char *path)
     return slash ? strndup(path, (size_t)(slash - path) + (slash == path)) : strdup(".");
 }
 
-/* series.csv and series-hist.csv, storms.csv: the files beside results.json. */
+/* The inputs' journals as DIR/journal.ndjson, so that `squall cleanup DIR` finds every object
+ * the shards created (their names are disjoint). */
+static int merge_journals(char **dirs, int n, const char *dir, out_t *o)
+{
+    char **paths = calloc((size_t)n, sizeof(*paths)), out[4096];
+    int rc = paths ? 0 : SQ_ENOMEM;
+    for (int i = 0; rc == 0 && i < n; i++)
+        rc = asprintf(&paths[i], "%s/%s", dirs[i], JOURNAL_FILE) < 0 ? (paths[i] = NULL, SQ_ENOMEM)
+                                                                     : 0;
+    snprintf(out, sizeof out, "%s/%s", dir, JOURNAL_FILE);
+    if (rc == 0)
+        rc = journal_merge((const char *const *)paths, (size_t)n, out, o);
+    for (int i = 0; paths && i < n; i++)
+        free(paths[i]);
+    free(paths);
+    return rc;
+}
+
+/* series.csv and series-hist.csv, storms.csv, journal.ndjson: the files beside results.json. */
 static int write_files(char **inputs, int n, results_t *r, const char *dir, out_t *o)
 {
     char **dirs = calloc((size_t)n, sizeof(*dirs));
@@ -163,6 +183,8 @@ static int write_files(char **inputs, int n, results_t *r, const char *dir, out_
     bool series;
     if (rc == 0)
         rc = results_series_merge((const char *const *)dirs, (size_t)n, r, dir, &series, o);
+    if (rc == 0)
+        rc = merge_journals(dirs, n, dir, o);
     for (int i = 0; dirs && i < n; i++)
         free(dirs[i]);
     free(dirs);
@@ -266,12 +288,52 @@ static int check_output(const cli_cmd_t *cmd, const char *dir, bool force, out_t
     return SQ_EXIT_OK;
 }
 
+/* A value of input in: a section's key (section NULL: the input's meta), or its sub-key. */
+static json_t *input_value(json_t *in, const char *section, const char *key, const char *sub)
+{
+    json_t *from = section ? json_object_get(json_object_get(in, "sections"), section) : in;
+    json_t *v = json_object_get(from, key);
+    return sub ? json_object_get(v, sub) : v;
+}
+
+/* Shards of one run ran one plan with one seed and the same overrides; inputs that differ in
+ * any are refused unless --force (what differs, between which two, in one line). A value an
+ * input does not record (an older squall's) is not compared. */
+static int check_same_run(const cli_cmd_t *cmd, const results_t *r, bool force, out_t *o)
+{
+    static const struct {
+        const char *what, *section, *key, *sub;
+    } k[] = {
+        {"plans (SHA-256)", NULL, "plan", "sha256"},
+        {"seeds", "run", "seed", NULL},
+        {"overrides (--set)", "run", "overrides", NULL},
+    };
+    json_t *inputs = results_inputs(r), *first = json_array_get(inputs, 0), *in;
+    size_t i;
+    json_array_foreach(inputs, i, in)
+    {
+        for (size_t j = 0; !force && i > 0 && j < sizeof k / sizeof k[0]; j++) {
+            json_t *a = input_value(first, k[j].section, k[j].key, k[j].sub),
+                   *b = input_value(in, k[j].section, k[j].key, k[j].sub);
+            if (a && b && !json_equal(a, b))
+                return cli_usage_error(cmd, o,
+                                       "%s and %s ran with different %s: not shards of one run; "
+                                       "pass --force to merge them anyway",
+                                       json_string_value(json_object_get(first, "name")),
+                                       json_string_value(json_object_get(in, "name")), k[j].what);
+        }
+    }
+    return SQ_EXIT_OK;
+}
+
 int cli_merge_run(const cli_cmd_t *cmd, char **inputs, int n, const char *dir, bool force,
                   bool json, bool quiet, const char *line, out_t *o)
 {
     results_t *merged = NULL;
     verdict_t v = {0};
     int exit_code = results_new(&merged) ? SQ_EXIT_FAILURE : merge_inputs(inputs, n, merged, o);
+    if (exit_code == SQ_EXIT_OK)
+        exit_code = check_same_run(cmd, merged, force, o);
     if (exit_code == SQ_EXIT_OK)
         exit_code = check_output(cmd, dir, force, o);
     if (exit_code == SQ_EXIT_OK && judge_merged(merged, &v, o) != 0)
@@ -341,7 +403,10 @@ const cli_cmd_t cli_cmd_merge = {
         "series.csv is merged by wall-clock second (unix_ms) and phase and class: counts and\n"
         "planned starts add, each second's percentiles come from its rows' histograms\n"
         "(series-hist.csv). Storm ticks are combined per tick instant. The merged meta lists\n"
-        "every input (shard, host, start, sections, and each one's own verdict).\n"
+        "every input (shard, host, start, sections, and each one's own verdict). The inputs'\n"
+        "journals become one (DIR/journal.ndjson), so `squall cleanup DIR` finds every object\n"
+        "the shards created. Inputs that ran different plans, seeds or overrides are not\n"
+        "shards of one run: refused (exit 2) unless --force.\n"
         "\n"
         "The merge is then judged as one run with all the inputs' requests, on the objectives\n"
         "the inputs recorded (their \"judgement\" section, which must be the same in every\n"

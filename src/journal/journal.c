@@ -4,6 +4,7 @@
 #include <errno.h>
 #include <fcntl.h>
 #include <jansson.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <sys/stat.h>
@@ -111,8 +112,9 @@ int journal_open(const char *path, const char *target_url, out_t *o, journal_t *
     if (ends_torn(j->fd, st.st_size))
         rc = write_all(j, "\n", 1);
     if (rc == 0 && st.st_size == 0) {
-        rc = append_line(j, json_pack("{s:i, s:s, s:I}", "squall_journal", JOURNAL_VERSION, "target", target_url,
-                                      "started_unix_ms", (json_int_t)(clock_real_ns() / 1000000)));
+        rc = append_line(j, json_pack("{s:i, s:s, s:I}", "squall_journal", JOURNAL_VERSION,
+                                      "target", target_url, "started_unix_ms",
+                                      (json_int_t)(clock_real_ns() / 1000000)));
         if (rc == 0)
             rc = journal_flush(j);
     }
@@ -368,4 +370,62 @@ void journal_alive_close(journal_alive_t *a)
     free(a->confirmed);
     free(a->target);
     memset(a, 0, sizeof(*a));
+}
+
+/* One input of journal_merge: its header checked against the first's target, its records
+ * appended to f. */
+static int merge_one(const char *in, FILE *f, char **target, out_t *o)
+{
+    FILE *g = fopen(in, "r");
+    if (!g)
+        return errno == ENOENT ? 0 : (out_error(o, "%s: %s", in, strerror(errno)), SQ_EIO);
+    char *line = NULL;
+    size_t cap = 0;
+    int rc = 0;
+    ssize_t len = getline(&line, &cap, g);
+    json_t *h = len > 0 ? json_loads(line, 0, NULL) : NULL;
+    const char *t = json_string_value(json_object_get(h, "target"));
+    if (!t || json_integer_value(json_object_get(h, "squall_journal")) != JOURNAL_VERSION) {
+        out_error(o, "%s: not a squall journal of version %d", in, JOURNAL_VERSION);
+        rc = SQ_EIO;
+    } else if (*target && strcmp(*target, t) != 0) {
+        out_error(o, "%s: its journal's target %s is not %s: not one run's", in, t, *target);
+        rc = SQ_EINVAL;
+    } else if (!*target) {
+        rc = (*target = strdup(t)) && fputs(line, f) >= 0 ? 0 : SQ_EIO;
+    }
+    while (rc == 0 && (len = getline(&line, &cap, g)) > 0)
+        if (fwrite(line, 1, (size_t)len, f) != (size_t)len)
+            rc = SQ_EIO;
+    if (rc == 0 && ferror(g))
+        rc = SQ_EIO;
+    json_decref(h);
+    free(line);
+    fclose(g);
+    return rc;
+}
+
+int journal_merge(const char *const *ins, size_t n, const char *out, out_t *o)
+{
+    char tmp[4096];
+    snprintf(tmp, sizeof tmp, "%s.part", out);
+    FILE *f = fopen(tmp, "w");
+    if (!f) {
+        out_error(o, "%s: %s", tmp, strerror(errno));
+        return SQ_EIO;
+    }
+    char *target = NULL;
+    int rc = 0;
+    for (size_t i = 0; rc == 0 && i < n; i++)
+        rc = ins[i] ? merge_one(ins[i], f, &target, o) : 0;
+    if (fclose(f) != 0 && rc == 0)
+        rc = SQ_EIO;
+    if (rc == 0 && target && rename(tmp, out) != 0)
+        rc = SQ_EIO;
+    if (rc != 0 || !target)
+        unlink(tmp);
+    if (rc == SQ_EIO)
+        out_error(o, "%s: the merged journal could not be written", out);
+    free(target);
+    return rc;
 }

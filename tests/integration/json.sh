@@ -119,7 +119,8 @@ for i in 1 2; do # the second run creates its own objects, at another site
     rcheck "run --json $i: verdict, reasons, exit code and checks are results.json's" \
         "(lambda j: j['run'] == d['sections']['run'] and j['objectives'] == d['sections']['objectives'] and j['exit_code'] == 0 and j['run']['verdict'] == 'pass')(json.load(open('$T/run$i.json')))" "$T/run$i"
 done
-"$SQUALL" merge "$T/run1" "$T/run2" -o "$T/merged" --json >"$T/merge.json" 2>"$T/merge.err"
+# (two runs with different --set, not shards of one run: merged with --force)
+"$SQUALL" merge "$T/run1" "$T/run2" -o "$T/merged" --json --force >"$T/merge.json" 2>"$T/merge.err"
 rc=$?
 expect "merge --json exits 0 (got $rc; $(tail -1 "$T/merge.err"))" test "$rc" = 0
 expect "merge --json: stdout is one squall-merge v1 document" json_doc "$T/merge.json" squall-merge

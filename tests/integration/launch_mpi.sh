@@ -39,6 +39,7 @@ for a in $(seq 0 159); do
     curl -s -X PUT -d '{"n":0}' "$SERVE_URL/v1/sites/north/leases/gw-$a" >/dev/null
 done
 cat >"$T/plan.yaml" <<YAML
+seed: 5 # shards of one run share a seed (merge refuses others)
 target: {url: "$SERVE_URL", connections: 48, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}

@@ -27,6 +27,7 @@ AGENTS=10 # per shard: the plan's fleet has 2 x AGENTS agents
 
 plan() { # plan FILE P99 RATE AGENTS: 3 s of reads, then 3 s of an aligned storm of lease renewals
     cat >"$1" <<YAML
+seed: 7 # shards of one run share a seed (merge refuses others)
 target: {url: "$SERVE_URL", connections: 32, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
@@ -195,6 +196,45 @@ print(f"ok: compare reads the merged series ({read['n_new']} seconds of read) an
       f"({beat['n_new']} ticks of beat)")
 PY
 [ $? -eq 0 ] || FAILED=1
+
+# --- only shards of one run merge; their journals become one -----------------------------------
+# Two shards that kept (--keep) the 40 objects they created, with different seeds: not one run's
+# shards, refused unless --force; the forced merge's journal holds both shards' creates, and
+# `squall cleanup` of the merged directory deletes all 40 (the target answers 404 for each after).
+cat >"$T/mk.yaml" <<YAML
+target: {url: "$SERVE_URL", connections: 8, timeout: 5s}
+requests:
+  make: {kind: write, method: PUT, path: "/v1/sites/north/made/k-{{seq}}", body: '{"n":1}', creates: true}
+phases:
+  - {name: fill, rate: 40/s, duration: 1s, mix: {make: 1}}
+YAML
+run_plan "$T/mk-1" "$T/mk.yaml" --shard 1/2 --seed 5 --keep
+run_plan "$T/mk-2" "$T/mk.yaml" --shard 2/2 --seed 6 --keep
+"$SQUALL" merge "$T/mk-1" "$T/mk-2" -o "$T/mk-x" >/dev/null 2>"$T/mk-x.err"
+XRC=$?
+expect "shards with different seeds are refused: exit 2 (got $XRC), naming the seeds" \
+    bash -c "[ $XRC = 2 ] && grep -q 'ran with different seeds' '$T/mk-x.err' && [ ! -e '$T/mk-x/results.json' ]"
+"$SQUALL" merge "$T/mk-1" "$T/mk-2" -o "$T/mk-m" --force >/dev/null 2>"$T/mk-m.err"
+XRC=$?
+expect "--force merges them (exit $XRC)" test "$XRC" = 0 -o "$XRC" = 7
+expect "the merged journal holds both shards' 40 creates" \
+    test "$(grep -c '"op":"created"' "$T/mk-m/journal.ndjson" 2>/dev/null)" = 40
+"$SQUALL" cleanup "$T/mk-m" >"$T/mk-c.out" 2>&1
+expect "cleanup of the merged run deletes all 40 ($(tail -1 "$T/mk-c.out"))" \
+    grep -q "40 objects: 40 deleted" "$T/mk-c.out"
+LEFT=$(/usr/bin/python3 - "$SERVE_URL" <<'PY'
+import sys, urllib.error, urllib.request
+left = 0
+for k in range(40):
+    try:
+        urllib.request.urlopen(f"{sys.argv[1]}/v1/sites/north/made/k-{k}", timeout=5)
+        left += 1
+    except urllib.error.HTTPError as e:
+        left += e.code != 404
+print(left)
+PY
+)
+expect "the target has none of them left (404 for k-0..k-39; left: $LEFT)" test "$LEFT" = 0
 serve_stop
 
 [ "$FAILED" = 0 ] && echo "merge-shards: all checks passed"

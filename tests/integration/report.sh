@@ -59,11 +59,12 @@ requests:
 phases:
   - name: spread
     duration: 3s
-    fleet: {agents: 60, every: 1s, timing: spread, send: renew}
+    fleet: {agents: 80, every: 1s, timing: spread, send: renew}  # 40 a shard: 120 renewals, a p99
     watches: {follow: 3}
   - name: reconnect-storm
     duration: 4s
-    fleet: {agents: 300, every: 1s, timing: aligned, send: renew}
+    # shared: the 2 connections, not one per agent, so that squall is the limit (generator-bound)
+    fleet: {agents: 300, every: 1s, timing: aligned, send: renew, connections: shared}
     watches: {follow: 3, open: at-once}
     actions:
       - {name: drop-watches, at: 2s, http: {method: POST, url: /admin/drop-watches}}
