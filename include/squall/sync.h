@@ -4,9 +4,9 @@
  * Concepts. An instant t (int64 ns, on any clock) has the *phase* θ = 2π·((t − base) mod P)/P,
  * where base is the window grid's origin. Over the n instants of a window, the *mean resultant
  * length* R̄ = |Σ exp(iθ_k)| / n is 0 when the sends are evenly spread over the period and 1
- * when they all fall at one instant (Mardia & Jupp, "Directional Statistics", Wiley 2000,
- * §6.3, the Rayleigh test; section number from memory). The *Rayleigh test* asks whether the phases could
- * be uniform; its p-value uses Zar's approximation (see sync_rayleigh_p). The *peak-to-mean
+ * when they all fall at one instant (Mardia & Jupp, "Directional Statistics", Wiley 2000, §6.3,
+ * the Rayleigh test; section number from memory). The *Rayleigh test* asks whether the phases
+ * could be uniform; its p-value uses Zar's approximation (see sync_rayleigh_p). The *peak-to-mean
  * ratio* is the largest count of sends in one tenth of the period over the mean count per tenth
  * (n / 10): 1 for an even spread, 10 when every send falls in one tenth.
  * A *window* w is [base + w·P, base + (w + 1)·P): the gauge of a window is computed from the
