@@ -46,6 +46,25 @@ static void text_add(text_t *t, const char *fmt, ...)
     }
 }
 
+/* Appends one case line "NAME BASE P T1 T2 ..." of the reference script's input. */
+static void add_case(text_t *in, const char *name, int64_t base, int64_t period, const int64_t *t,
+                     size_t n)
+{
+    text_add(in, "%s %lld %lld", name, (long long)base, (long long)period);
+    for (size_t i = 0; i < n; i++)
+        text_add(in, " %lld", (long long)t[i]);
+    text_add(in, "\n");
+}
+
+/* Runs the reference on the cases and frees them; returns its answer (pyref_run's buffer). */
+static char *run_cases(text_t *in)
+{
+    char *ref = pyref_run("sync_ref.py", in->s);
+    free(in->s);
+    *in = (text_t){0};
+    return ref;
+}
+
 /* Relative closeness, with an absolute floor for values near 0. */
 static void assert_close(double got, double want, double tol, const char *what)
 {
@@ -157,19 +176,14 @@ static void test_spread_and_aligned(void **state)
     enum { N = 1000 };
     const int64_t period = 2 * NS_PER_S, base = 123456789;
     static int64_t spread[N], aligned[N];
-    text_t in = {0};
-    text_add(&in, "gauge %lld %lld", (long long)base, (long long)period);
     for (int k = 0; k < N; k++) {
         spread[k] = base + 7 * period + k * (period / N);
         aligned[k] = base + 3 * period + period / 3;
-        text_add(&in, " %lld", (long long)spread[k]);
     }
-    text_add(&in, "\ngauge %lld %lld", (long long)base, (long long)period);
-    for (int k = 0; k < N; k++)
-        text_add(&in, " %lld", (long long)aligned[k]);
-    text_add(&in, "\n");
-    char *ref = pyref_run("sync_ref.py", in.s);
-    free(in.s);
+    text_t in = {0};
+    add_case(&in, "gauge", base, period, spread, N);
+    add_case(&in, "gauge", base, period, aligned, N);
+    char *ref = run_cases(&in);
 
     sync_gauge_t s = gauge_of(base, period, spread, N), a = gauge_of(base, period, aligned, N);
     printf("spread: R-bar %.3g p %.6f peak/mean %.3f; aligned: R-bar %.17g p %.3g peak/mean %.3f\n",
@@ -248,12 +262,8 @@ static void test_windows_against_numpy(void **state)
             t[i] = now;
         }
         text_t in = {0};
-        text_add(&in, "windows %lld %lld", (long long)base, (long long)period);
-        for (int i = 0; i < N; i++)
-            text_add(&in, " %lld", (long long)t[i]);
-        text_add(&in, "\n");
-        char *ref = pyref_run("sync_ref.py", in.s);
-        free(in.s);
+        add_case(&in, "windows", base, period, t, N);
+        char *ref = run_cases(&in);
 
         sync_win_t w;
         sync_window_t closed;
