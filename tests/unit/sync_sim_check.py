@@ -68,38 +68,62 @@ r = rbar(sync_sim.run(STALL))
 check(f"after-answer without jitter: R-bar 1 in every window after the stall "
       f"({min(r[FIRST_AFTER:]):.12f})", min(r[FIRST_AFTER:]) > 1 - 1e-9)
 
-# Retries: one agent against a long error window sees the backoff sequence itself.
-res = sync_sim.model(["--agents", "1", "--errors", "0:100", "--duration", "60", "--backoff",
-                      "fixed", "--service", "0"])
-sends = sync_sim.simulate(res)
-gaps = [round(b - a, 9) for a, b in zip(sends, sends[1:])][:9]
-check(f"fixed backoff gaps {gaps} = 0.2 doubling, capped at 7",
-      gaps == [0.2, 0.4, 0.8, 1.6, 3.2, 6.4, 7.0, 7.0, 7.0])
-res.backoff = "full-jitter"
-sends = sync_sim.simulate(res)
-gaps = [b - a for a, b in zip(sends, sends[1:])][:30]
-caps = [min(7.0, 0.2 * 2 ** k) for k in range(30)]
-check("full-jitter gaps lie in [0, min(7, 0.2 * 2^k)] and are not all at the cap",
-      all(0 <= g <= c + 1e-12 for g, c in zip(gaps, caps)) and
-      sum(g < 0.9 * c for g, c in zip(gaps, caps)) >= 10)
+# Retries: one agent against a long error window shows each policy's waits (service time 0, so
+# the gaps between its sends are the waits; cap 7 s, base 0.2 s).
+def gaps(policy):
+    m = sync_sim.model(["--agents", "1", "--errors", "0:1000", "--duration", "300", "--backoff",
+                        policy, "--service", "0"])
+    sends = sync_sim.simulate(m)
+    return [b - a for a, b in zip(sends, sends[1:])][:40]
 
-# A stall released into a 100 % error window: fixed retries keep the fleet at one instant, full
-# jitter spreads it.
+
+def expo(n):
+    return min(7.0, 0.2 * 2 ** n)
+
+
+g = gaps("exponential")
+check(f"exponential waits {fmt(g[:9])}: 0.2 doubling, capped at 7",
+      [round(x, 9) for x in g[:9]] == [0.2, 0.4, 0.8, 1.6, 3.2, 6.4, 7.0, 7.0, 7.0])
+g = gaps("fixed")
+check(f"fixed waits all 0.2 ({len(g)} gaps)", all(abs(x - 0.2) < 1e-9 for x in g))
+g = gaps("full-jitter")
+check("full-jitter waits in [0, expo(n)], not all at the top",
+      all(0 <= x <= expo(n) + 1e-9 for n, x in enumerate(g))
+      and sum(x < 0.9 * expo(n) for n, x in enumerate(g)) >= 10)
+g = gaps("equal-jitter")
+check("equal-jitter waits in [expo(n)/2, expo(n)], not all at one end",
+      all(expo(n) / 2 - 1e-9 <= x <= expo(n) + 1e-9 for n, x in enumerate(g))
+      and len({round(x / expo(n), 3) for n, x in enumerate(g)}) > 10)
+g = gaps("decorrelated")
+check("decorrelated waits in [0.2, min(7, 3 * previous)]",
+      all(0.2 - 1e-9 <= x <= min(7.0, 3 * p) + 1e-9 for p, x in zip([0.2] + g, g)))
+m = sync_sim.model(["--agents", "1", "--errors", "0:1", "--duration", "2", "--backoff",
+                    "immediate", "--service", "0.01"])
+g = [round(b - a, 9) for a, b in zip(sync_sim.simulate(m), sync_sim.simulate(m)[1:])]
+check(f"immediate retries every service time through a 1 s error window ({len(g)} gaps)",
+      g[:99] == [0.01] * 99)
+
+# A stall released into a 100 % error window: exponential retries without jitter keep the fleet
+# at one instant, full jitter spreads it.
 ERR = STALL + ["--jitter", "0.1", "--errors", "13:25"]
-fx = rbar(sync_sim.run(ERR + ["--backoff", "fixed"]))
+fx = rbar(sync_sim.run(ERR + ["--backoff", "exponential"]))
 fj = rbar(sync_sim.run(ERR + ["--backoff", "full-jitter"]))
-check(f"stall then errors: fixed retries R-bar > 0.9 in windows 7-9 ({fmt(fx[7:10])}), "
+check(f"stall then errors: exponential retries R-bar > 0.9 in windows 7-9 ({fmt(fx[7:10])}), "
       f"full jitter < 0.3 ({fmt(fj[7:10])})",
       min(fx[7:10]) > 0.9 and max(fj[7:10]) < 0.3)
-# A 100 % error window alone: the mean R-bar over the windows it covers is higher with fixed
-# retries than with full jitter.
+# A 100 % error window [10, 25) alone. In the first whole period after it ([26, 28)), fixed
+# retries (every 0.2 s) have gathered the fleet into the 0.2 s after the recovery; full jitter
+# has not. While it lasts, exponential retries without jitter bunch more than full jitter.
 OWN = ["--agents", "1000", "--period", "2", "--jitter", "0.1", "--errors", "10:25",
        "--duration", "40"]
 fx = rbar(sync_sim.run(OWN + ["--backoff", "fixed"]))
 fj = rbar(sync_sim.run(OWN + ["--backoff", "full-jitter"]))
-mx, mj = sum(fx[5:13]) / 8, sum(fj[5:13]) / 8
-check(f"error window alone: mean R-bar over windows 5-12, fixed {mx:.3f} > full jitter {mj:.3f}",
-      mx > mj + 0.1)
+check(f"after an error window: fixed retries R-bar {fx[13]:.3f} > 0.8, full jitter "
+      f"{fj[13]:.3f} < 0.3", fx[13] > 0.8 and fj[13] < 0.3)
+fe = rbar(sync_sim.run(OWN + ["--backoff", "exponential"]))
+mx, mj = sum(fe[5:13]) / 8, sum(fj[5:13]) / 8
+check(f"during an error window: mean R-bar over windows 5-12, exponential {mx:.3f} > full "
+      f"jitter {mj:.3f}", mx > mj + 0.1)
 
 # The command line prints the same windows as JSON.
 cli = subprocess.run(["/usr/bin/python3", sync_sim.__file__, "--jitter", "0.1", "--stall", "10:13",

@@ -6,10 +6,13 @@ The model
 - N agents with period P. Agent i sends first at i*P/N ("spread").
 - `--next after-answer`: after a successful answer at time u the agent's next send is at
   u + P*(1 + U(-j, j)), j the jitter fraction, U uniform and independent per send. After an
-  error or a timeout at time u it retries at u + d_k, k = failures in a row so far (0 for the
-  first), with the exponential backoff d = min(cap, base * 2^k): `--backoff fixed` waits d,
-  `--backoff full-jitter` waits U(0, d) ("full jitter": Brooker, "Exponential Backoff And
-  Jitter", AWS Architecture Blog, 2015; common practice). A success resets k to 0.
+  error or a timeout at time u it retries at u + d, with n = failures in a row before this one
+  (0 at the first failure) and expo(n) = min(cap, base * 2^n), by the policies of "Exponential
+  Backoff And Jitter" (Brooker, AWS Architecture Blog, 2015), as squall's README lists them for
+  watch reconnects: immediate d = 0; fixed d = base; exponential d = expo(n); full-jitter
+  d = U(0, expo(n)); equal-jitter d = expo(n)/2 + U(0, expo(n)/2); decorrelated
+  d = min(cap, U(base, 3 * previous d)), previous starting at base. A success resets n (and
+  decorrelated's previous d).
 - `--next fixed`: the agent's intended instants are i*P/N + m*P (each moved by U(-j, j)*P when
   j > 0, not accumulating). With `--in-flight one` (default) an agent has at most one request
   outstanding: grid instants that pass while it waits are missed, and if any was missed it sends
@@ -30,7 +33,7 @@ The model
 
 Usage: sync_sim.py [--agents N] [--period S] [--jitter J] [--next after-answer|fixed]
          [--in-flight one|any] [--service S] [--stall A:B]... [--errors A:B]... [--timeout S]
-         [--backoff full-jitter|fixed] [--backoff-base S] [--backoff-cap S] [--duration S]
+         [--backoff POLICY] [--backoff-base S] [--backoff-cap S] [--duration S]
          [--seed N]
 Prints one JSON object: {"model": {...}, "sends": n, "windows": [{"index", "start_s", "n",
 "r_bar", "z", "p", "peak_to_mean"}, ...]}. Times in seconds."""
@@ -40,6 +43,9 @@ import math
 import sys
 
 import numpy as np
+
+
+MAX_SENDS = 1000000  # per agent: every loop here ends
 
 
 def interval(text):
@@ -64,16 +70,32 @@ def outcome(m, t):
     return not any(a <= proc < b for a, b in m.errors), answer
 
 
+def backoff(m, rng, n, prev):
+    """The wait before a retry after n earlier failures in a row; prev = the previous wait."""
+    expo = min(m.backoff_cap, m.backoff_base * 2.0 ** min(n, 60))
+    return {
+        "immediate": lambda: 0.0,
+        "fixed": lambda: m.backoff_base,
+        "exponential": lambda: expo,
+        "full-jitter": lambda: rng.uniform(0, expo),
+        "equal-jitter": lambda: expo / 2 + rng.uniform(0, expo / 2),
+        "decorrelated": lambda: min(m.backoff_cap, rng.uniform(m.backoff_base, 3 * prev)),
+    }[m.backoff]()
+
+
 def after_answer(m, rng, first):
-    sends, t, k = [], first, 0
+    sends, t, n, prev = [], first, 0, m.backoff_base
     while t < m.duration:
+        if len(sends) == MAX_SENDS:
+            sys.exit(f"sync_sim.py: an agent sent {MAX_SENDS} times (immediate retries without "
+                     "a service time?)")
         sends.append(t)
         ok, u = outcome(m, t)
         if ok:
-            t, k = u + m.period * (1 + rng.uniform(-m.jitter, m.jitter)), 0
+            t, n, prev = u + m.period * (1 + rng.uniform(-m.jitter, m.jitter)), 0, m.backoff_base
         else:
-            d = min(m.backoff_cap, m.backoff_base * 2.0 ** k)
-            t, k = u + (rng.uniform(0, d) if m.backoff == "full-jitter" else d), k + 1
+            prev = backoff(m, rng, n, prev)
+            t, n = u + prev, n + 1
     return sends
 
 
@@ -83,7 +105,7 @@ def fixed(m, rng, first):
 
     sends, t, i = [], grid(0), 1
     nxt = grid(i)  # the next grid instant not yet used or dropped
-    while t < m.duration:
+    while t < m.duration and len(sends) < MAX_SENDS:
         sends.append(t)
         _, u = outcome(m, t)
         if m.in_flight == "any" or nxt >= u:
@@ -140,7 +162,9 @@ def parser():
     ap.add_argument("--stall", type=interval, action="append", default=[])
     ap.add_argument("--errors", type=interval, action="append", default=[])
     ap.add_argument("--timeout", type=float, default=0.0)
-    ap.add_argument("--backoff", choices=["full-jitter", "fixed"], default="full-jitter")
+    ap.add_argument("--backoff", default="full-jitter",
+                    choices=["immediate", "fixed", "exponential", "full-jitter", "equal-jitter",
+                             "decorrelated"])
     ap.add_argument("--backoff-base", type=float, default=0.2)
     ap.add_argument("--backoff-cap", type=float, default=7.0)
     ap.add_argument("--duration", type=float, default=40.0)
