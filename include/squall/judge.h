@@ -72,6 +72,10 @@ typedef struct {
      * open or propagation times is taken as one. */
     const char *const *watch_classes;
     size_t n_watch_classes;
+    /* Classes the run adds on its own (the teardown's deletes, class "teardown"): neither "*"
+     * nor the default error rate judges them; only an objective naming them does. */
+    const char *const *internal_classes;
+    size_t n_internal_classes;
 } judge_opts_t;
 
 typedef struct judge judge_t;
@@ -137,7 +141,8 @@ typedef struct {
 } judge_inputs_t;
 
 /* The "judgement" section: {"objectives": [{class, phase, metric, limit, percentile, max_ms |
- * value}], "accept": [...], "default_error_rate", "watch_classes": [...], "phases": [...]}.
+ * value}], "accept": [...], "default_error_rate", "watch_classes": [...], "internal_classes": [...] (absent in
+ * results of an older squall: none), "phases": [...]}.
  * A new reference; NULL when out of memory. */
 json_t *judge_inputs_json(const judge_inputs_t *in);
 /* Reads a "judgement" section back into *in (release it with judge_inputs_close). SQ_EPARSE

@@ -35,7 +35,20 @@ typedef struct {
     int64_t started, completed, errors;
     double rate_per_s, p50_ms, p90_ms, p99_ms, max_ms; /* latencies are 0 when completed = 0 */
     double p999_ms; /* NaN in a file written before the column existed */
+    double planned; /* requests the schedule planned to start that second; NaN when not written */
+    int64_t unix_ms; /* wall-clock start of the second; 0 when not written */
 } report_row_t;
+
+/* A second's response times of one (phase, class) from series-hist.csv, counted into
+ * REPORT_HEAT_BINS latency bins with edges report_heat_edge(k) ms (log spaced, 4 per decade from
+ * 0.01 ms; the first and last bins also take what lies beyond them). */
+#define REPORT_HEAT_BINS 32
+typedef struct {
+    int64_t second;
+    const char *phase, *cls;
+    double bins[REPORT_HEAT_BINS];
+} report_heat_row_t;
+double report_heat_edge(size_t k);
 
 typedef struct report_series report_series_t;
 
@@ -47,6 +60,11 @@ int report_series_new(report_series_t **out);
 void report_series_free(report_series_t *s);
 size_t report_series_count(const report_series_t *s);
 const report_row_t *report_series_at(const report_series_t *s, size_t i);
+/* Adds series-hist.csv's rows (bin counts) to s. SQ_EIO when it cannot be opened, SQ_EPARSE on a
+ * malformed line. */
+int report_series_read_hist(report_series_t *s, const char *path, out_t *o);
+size_t report_series_heat_count(const report_series_t *s);
+const report_heat_row_t *report_series_heat_at(const report_series_t *s, size_t i);
 /* True when the file had the p999_ms column (an older squall wrote none). */
 bool report_series_has_p999(const report_series_t *s);
 

@@ -65,11 +65,20 @@ typedef struct results results_t;
 typedef struct results_cell results_cell_t;
 
 /* A cell's counters: a small public value the engine updates in place. */
+#define RESULTS_STATUS_MAX 8 /* exact status codes kept per cell; more are counted as other */
 typedef struct {
     int64_t count;     /* finished requests (or events, for watch cells) */
     int64_t bytes_in;  /* response bytes received, body and headers */
     int64_t bytes_out; /* request bytes sent */
+    struct {
+        int code; /* 0: free slot */
+        int64_t n;
+    } status[RESULTS_STATUS_MAX]; /* answers per exact HTTP status code (429 vs 503) */
+    int64_t status_other;         /* answers whose code found no free slot */
 } results_counters_t;
+
+/* Counts n answers with HTTP status code (100..999) into k. */
+void results_status_add(results_counters_t *k, int code, int64_t n);
 
 /* What ran, where and when. Strings are owned by the results_t; NULL when unknown. */
 typedef struct {
@@ -121,6 +130,7 @@ typedef struct {
     bool with_lag;       /* also record sent - intended as the lag metric */
     int64_t connect_ns, tls_ns, first_byte_ns; /* > 0 when measured (a new connection) */
     int64_t bytes_in, bytes_out;
+    int status; /* the HTTP status code answered; 0 = none */
 } results_sample_t;
 
 /* Records one completion into c (NULL: nothing): count and bytes always; then, when done_ns is

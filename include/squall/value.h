@@ -17,6 +17,11 @@
  * ms, s, m, h; a bare `0` is zero. Exact in integer nanoseconds. Returns 0, SQ_EPARSE when
  * malformed, SQ_ERANGE when negative, finer than 1 ns or beyond INT64_MAX ns. */
 int value_parse_duration(const char *s, int64_t *ns);
+/* A duration as a plan writes it, shortest first: whole hours or minutes (`2h`, `5m`), else
+ * seconds, milliseconds or microseconds with at most three decimals and a value of at least 1
+ * (`1s`, `1.5s`, `250ms`, `12.5us`), else nanoseconds; `0` for zero. value_parse_duration reads
+ * every result back to the same ns. Returns buf. */
+const char *value_format_duration(int64_t ns, char *buf, size_t cap);
 /* Rates: <number>/<unit>, unit s, m (or min) or h: `500/s`, `30/m`, `2/h`; a bare `0` is zero.
  * Returns requests per second; SQ_EPARSE when malformed, SQ_ERANGE above VALUE_RATE_MAX. */
 int value_parse_rate(const char *s, double *per_s);
@@ -31,10 +36,6 @@ int value_parse_number(const char *s, double min, double max, double *v);
 int value_parse_listen(const char *s, char *host, size_t cap, int *port);
 /* Whether host is an IPv4 address in 127.0.0.0/8 or IPv6 ::1. */
 bool value_is_loopback(const char *host);
-
-/* A count as people read it, with thousands separators: 12300 -> "12,300", -4500 -> "-4,500".
- * Returns buf. */
-const char *value_fmt_count(int64_t v, char *buf, size_t len);
 
 /* Sizes: a plain count of bytes, or <integer><unit> with unit B, KiB, MiB or GiB (powers of
  * 1024): `65536`, `512KiB`, `32MiB`. SQ_EPARSE / SQ_ERANGE (beyond 1 TiB) as above. */

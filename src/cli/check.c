@@ -1,4 +1,4 @@
-/* `squall check PLAN [--set K=V]...`: validate a plan exactly as `run` does before it sends
+/* `squall check PLAN... [--set K=V]...`: validate each plan exactly as `run` does before it sends
  * (run_check) and print what it would do, from the sources' own models (src_estimate), without
  * sending anything. */
 #include <jansson.h>
@@ -13,34 +13,20 @@
 #include "squall/plan.h"
 #include "squall/run.h"
 #include "squall/source.h"
+#include "squall/table.h"
+#include "squall/value.h"
 
-/* 12300 -> "12,300"; values are expected counts, rounded to whole requests. */
+/* An expected count, rounded to whole requests, without thousands separators (DEVELOPERS.md,
+ * "Output"). */
 static const char *count_str(double v, char *buf, size_t len)
 {
-    char raw[32];
-    snprintf(raw, sizeof raw, "%.0f", v < 0 ? 0 : v);
-    size_t n = strlen(raw), o = 0;
-    for (size_t i = 0; i < n && o + 2 < len; i++) {
-        if (i > 0 && (n - i) % 3 == 0)
-            buf[o++] = ',';
-        buf[o++] = raw[i];
-    }
-    buf[o] = '\0';
+    snprintf(buf, len, "%.0f", v < 0 ? 0 : v);
     return buf;
 }
 
 static const char *dur_str(int64_t ns, char *buf, size_t len)
 {
-    double s = ns / 1e9;
-    if (ns % INT64_C(3600000000000) == 0 && ns)
-        snprintf(buf, len, "%gh", s / 3600);
-    else if (ns % INT64_C(60000000000) == 0 && ns)
-        snprintf(buf, len, "%gm", s / 60);
-    else if (s >= 1 || ns == 0)
-        snprintf(buf, len, "%gs", s);
-    else
-        snprintf(buf, len, "%gms", s * 1e3);
-    return buf;
+    return value_format_duration(ns, buf, len);
 }
 
 static void print_target(const plan_t *p, out_t *o)
@@ -99,7 +85,57 @@ static void print_shape(const plan_phase_t *ph, const src_estimate_t *e, out_t *
     }
 }
 
-static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, out_t *o)
+/* The widest name print_counts may print, measured as a table measures it. */
+static size_t name_width(const plan_t *p)
+{
+    static const table_col_t col[] = {{NULL, TABLE_LEFT}};
+    static const char *const teardown[] = {"(teardown deletes)"};
+    table_t *t = table_new(col, 1);
+    for (size_t k = 0; t && k < p->n_reqs; k++)
+        table_add(t, &p->reqs[k].name);
+    for (size_t i = 0; t && i < p->n_phases; i++)
+        if (p->phases[i].teardown.on)
+            table_add(t, teardown);
+    size_t w = t ? table_width(t, 0) : 0;
+    table_free(t);
+    return w;
+}
+
+/* The expected count per class, the names' column as wide as the longest name. */
+static void print_counts(const plan_t *p, const plan_phase_t *ph, const src_estimate_t *e,
+                         size_t name_width, out_t *o)
+{
+    static const table_col_t cols[] = {{NULL, TABLE_LEFT}, {NULL, TABLE_RIGHT}, {NULL, TABLE_LEFT}};
+    table_t *t = table_new(cols, 3);
+    int rc = t ? 0 : SQ_ENOMEM;
+    char a[32];
+    for (size_t k = 0; rc == 0 && k < p->n_reqs; k++)
+        if (e->per_class[k] > 0) {
+            const char *cells[] = {p->reqs[k].name, count_str(e->per_class[k], a, 32),
+                                   p->reqs[k].kind == PLAN_WATCH ? "streams" : "requests"};
+            rc = table_add(t, cells);
+        }
+    if (rc == 0 && ph->teardown.on) {
+        const char *cells[] = {"(teardown deletes)", count_str(e->deleted, a, 32), "requests"};
+        rc = table_add(t, cells);
+    }
+    if (rc == 0 && ph->teardown.on && e->may_create > 0) {
+        const char *cells[] = {"(teardown deletes)", count_str(e->may_create, a, 32),
+                               "more at most: the objects other writes create (201)"};
+        rc = table_add(t, cells);
+    }
+    if (rc == 0) {
+        table_min_width(t, 0, name_width); /* every phase's names in one column */
+        table_set_indent(t, 4);
+        table_print(t, o);
+    } else {
+        out_print(o, "    (out of memory while laying out the counts)\n");
+    }
+    table_free(t);
+}
+
+static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, size_t name_width,
+                        out_t *o)
 {
     const plan_phase_t *ph = &p->phases[i];
     src_estimate_t e = est[i];
@@ -107,16 +143,7 @@ static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, ou
     out_print(o, "\nphase %zu/%zu %s: %s\n", i + 1, p->n_phases, ph->name,
               e.open_ended ? "until done" : dur_str(e.duration_ns, d, sizeof d));
     print_shape(ph, &e, o);
-    for (size_t k = 0; k < p->n_reqs; k++)
-        if (e.per_class[k] > 0)
-            out_print(o, "    %-24s %12s %s\n", p->reqs[k].name, count_str(e.per_class[k], a, 32),
-                      p->reqs[k].kind == PLAN_WATCH ? "streams" : "requests");
-    if (ph->teardown.on)
-        out_print(o, "    %-24s %12s requests\n", "(teardown deletes)",
-                  count_str(e.deleted, a, 32));
-    if (ph->teardown.on && e.may_create > 0)
-        out_print(o, "    %-24s %12s more at most: the objects other writes create (201)\n",
-                  "(teardown deletes)", count_str(e.may_create, a, 32));
+    print_counts(p, ph, &e, name_width, o);
     out_print(o, "    total %s requests, peak %s/s", count_str(e.requests, a, 32),
               count_str(e.peak_rate, b, 32));
     if (e.burst > 0)
@@ -127,8 +154,9 @@ static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, ou
               count_str(e.created, a, 32), count_str(e.deleted, b, 32),
               count_str(e.alive_after, c, 32));
     if (!ph->teardown.on && e.may_create > 0)
-        out_print(o, "    and up to %s more created if other writes are answered 201 Created "
-                     "(journaled and torn down too)\n",
+        out_print(o,
+                  "    and up to %s more created if other writes are answered 201 Created "
+                  "(journaled and torn down too)\n",
                   count_str(e.may_create, a, 32));
 }
 
@@ -153,9 +181,9 @@ static void warn_few(const plan_t *p, const src_estimate_t *est, const plan_obje
     bool list = p->reqs[ob->cls.index].kind == PLAN_LIST;
     char a[32];
     for (int i = -1; i < (int)p->n_phases; i++) {
-        if (ob->phase.index >= 0 ? i != ob->phase.index
-                                 : i >= 0 && (p->phases[i].teardown.on ||
-                                              est[i].per_class[ob->cls.index] <= 0))
+        if (ob->phase.index >= 0
+                ? i != ob->phase.index
+                : i >= 0 && (p->phases[i].teardown.on || est[i].per_class[ob->cls.index] <= 0))
             continue;
         double n = expected_of(p, est, ob->cls.index, i);
         if (n >= (double)needed)
@@ -163,9 +191,9 @@ static void warn_few(const plan_t *p, const src_estimate_t *est, const plan_obje
         out_print(o,
                   "warning    %s%s: about %s %s expected, and a p%g needs %lld samples: the run "
                   "%s INCONCLUSIVE (exit 7) unless the plan says accept: [few-samples]\n",
-                  i < 0 ? "the run" : "phase ", i < 0 ? "" : p->phases[i].name,
-                  count_str(n, a, 32), list ? "lists (pages count)" : "requests", ob->percentile,
-                  (long long)needed, list ? "may be" : "would be");
+                  i < 0 ? "the run" : "phase ", i < 0 ? "" : p->phases[i].name, count_str(n, a, 32),
+                  list ? "lists (pages count)" : "requests", ob->percentile, (long long)needed,
+                  list ? "may be" : "would be");
     }
 }
 
@@ -192,8 +220,9 @@ static void print_judges(const plan_t *p, const src_estimate_t *est, out_t *o)
             warn_few(p, est, ob, o);
     }
     if (!all_errors)
-        out_print(o, "objective  every class no objective above covers: error rate <= %g%% "
-                     "(default)\n",
+        out_print(o,
+                  "objective  every class no objective above covers: error rate <= %g%% "
+                  "(default)\n",
                   JUDGE_DEFAULT_ERROR_RATE * 100);
     for (size_t i = 0; p->accept && plan_accept_names[i]; i++)
         if (p->accept & 1u << i)
@@ -223,7 +252,7 @@ static void print_summary(const plan_t *p, const src_estimate_t *est, out_t *o)
     double total = 0, peak = 0;
     int64_t dur = 0;
     for (size_t i = 0; i < p->n_phases; i++) {
-        print_phase(p, i, est, o);
+        print_phase(p, i, est, name_width(p), o);
         src_estimate_t e = est[i];
         total += e.requests;
         peak = e.peak_rate > peak ? e.peak_rate : peak;
@@ -432,7 +461,8 @@ static const cli_opt_t check_opts[] = {
 };
 
 typedef struct {
-    const char *path;
+    const char **paths; /* the plans, in order */
+    size_t n_paths;
     plan_override_t *sets;
     char **copies; /* KEY=VALUE copies split at '=' */
     size_t n;
@@ -443,8 +473,12 @@ typedef struct {
 static int take_word(const cli_cmd_t *cmd, int k, const char *v, out_t *o, void *ctx)
 {
     check_args_t *ca = ctx;
-    if (k == CLI_POSITIONAL)
-        return cli_take_one(cmd, &ca->path, v, "plan", o);
+    (void)cmd;
+    (void)o;
+    if (k == CLI_POSITIONAL) {
+        ca->paths[ca->n_paths++] = v;
+        return -1;
+    }
     if (k == 1) {
         ca->json = true;
         return -1;
@@ -460,43 +494,71 @@ static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, chec
 {
     ca->sets = calloc((size_t)argc + 1, sizeof(*ca->sets));
     ca->copies = calloc((size_t)argc + 1, sizeof(*ca->copies));
-    if (!ca->sets || !ca->copies)
+    ca->paths = calloc((size_t)argc + 1, sizeof(*ca->paths));
+    if (!ca->sets || !ca->copies || !ca->paths)
         return SQ_EXIT_FAILURE;
     int rc = cli_parse(cmd, argc, argv, o, take_word, ca);
-    if (rc < 0 && !ca->path)
+    if (rc < 0 && !ca->n_paths)
         return cli_usage_error(cmd, o, "which plan? (expected PLAN.yaml)");
     return rc;
 }
 
+/* One plan: its exit code (OK, USAGE for a plan error, FAILURE when out of memory). */
+static int check_one(const check_args_t *ca, const char *path, out_t *o)
+{
+    plan_t *p;
+    int err = plan_load(path, ca->sets, ca->n, &p, o);
+    if (err == 0)
+        err = validate_and_print(path, p, ca->json, o);
+    return err == 0 ? SQ_EXIT_OK : err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+}
+
+/* Every plan in turn; the exit code is the worst of theirs (FAILURE, then USAGE, then OK). With
+ * several plans, each invalid one is named once more after its errors, and --json prints one
+ * document per plan, one after another. */
 static int check_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
 {
     check_args_t ca = {0};
     int rc = read_args(cmd, argc, argv, o, &ca);
     if (rc < 0) {
-        plan_t *p;
-        int err = plan_load(ca.path, ca.sets, ca.n, &p, o);
-        if (err == 0)
-            err = validate_and_print(ca.path, p, ca.json, o);
-        rc = err == 0 ? SQ_EXIT_OK : err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
+        rc = SQ_EXIT_OK;
+        size_t bad = 0;
+        for (size_t i = 0; i < ca.n_paths; i++) {
+            if (i > 0 && !ca.json)
+                out_print(o, "\n");
+            int one = check_one(&ca, ca.paths[i], o);
+            if (one != SQ_EXIT_OK && ca.n_paths > 1)
+                out_raw(o, OUT_ERROR, "%s: not valid (the errors above)", ca.paths[i]);
+            bad += one != SQ_EXIT_OK;
+            rc = one > rc ? one : rc;
+        }
+        if (ca.n_paths > 1)
+            out_info(o, "checked %zu plans: %zu valid, %zu not", ca.n_paths, ca.n_paths - bad, bad);
     }
     for (size_t i = 0; ca.copies && i < ca.n; i++)
         free(ca.copies[i]);
     free(ca.copies);
     free(ca.sets);
+    free(ca.paths);
     return rc;
 }
 
 const cli_cmd_t cli_cmd_check = {
     .name = "check",
-    .summary = "validate a plan and print what it would send, without sending anything",
-    .usage = "PLAN.yaml [--set KEY=VALUE]... [--json]",
-    .description = "Reads the plan (and its includes) and validates it exactly as `run` does\n"
+    .summary = "validate plans and print what each would send, without sending anything",
+    .usage = "PLAN.yaml... [--set KEY=VALUE]... [--json]",
+    .description = "Reads each plan (and its includes) and validates it exactly as `run` does\n"
                    "before sending (templates, sources, token, open files), reports every\n"
-                   "problem as FILE:LINE:COL: error: ..., and exits 2 if there is any.\n"
+                   "problem as FILE:LINE:COL: error: ... sorted by position (a --set's as\n"
+                   "--set #N KEY=VALUE: error: ..., N its order among the --set options), and\n"
+                   "exits 2 if there is any. With several plans (`squall check scenarios/*.yaml`)\n"
+                   "each is checked in turn with the same --set options, and the exit code is\n"
+                   "the worst of theirs.\n"
                    "Otherwise prints, per phase, the expected requests per class (the same model\n"
                    "the run plans with), peak rate, watches, agents and objects created and\n"
-                   "deleted. With --json the same figures are printed as one JSON document\n"
-                   "(format \"squall-check\", version 1) instead of the text.",
+                   "deleted. With --json the same figures are printed as one JSON document per\n"
+                   "plan (format \"squall-check\", version 1; several follow one another, as jq\n"
+                   "reads them) instead of the text.",
     .opts = check_opts,
     .main = check_main,
 };

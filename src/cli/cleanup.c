@@ -255,10 +255,7 @@ static int reap_alive(const cleanup_args_t *ca, const char *path, const journal_
     }
     char text[200];
     size_t still = journal_counts_text(&c, text, sizeof text);
-    if (doc)
-        out_info(o, "cleanup %s: %s", al->target, text);
-    else
-        out_print(o, "cleanup %s: %s\n", al->target, text);
+    out_info(o, "cleanup %s: %s", al->target, text);
     if (c.why[0])
         out_warn(o, "stopped early: %s", c.why);
     if (still == 0)
@@ -300,16 +297,10 @@ static int cleanup_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     }
     for (size_t i = 0; i < al.n; i++)
         unconfirmed += !al.confirmed[i];
-    if (doc)
-        out_info(o,
-                 "journal %s: %zu lines (%zu skipped), %zu created, %zu deleted: %zu alive (%zu "
-                 "never confirmed: their create got no clear answer)",
-                 path, al.records, al.torn, al.created, al.deleted, al.n, unconfirmed);
-    else
-        out_print(o,
-                  "journal %s: %zu lines (%zu skipped), %zu created, %zu deleted: %zu alive (%zu "
-                  "never confirmed: their create got no clear answer)\n",
-                  path, al.records, al.torn, al.created, al.deleted, al.n, unconfirmed);
+    out_info(o,
+             "journal %s: %zu lines (%zu skipped), %zu created, %zu deleted: %zu alive (%zu never "
+             "confirmed: their create got no clear answer)",
+             path, al.records, al.torn, al.created, al.deleted, al.n, unconfirmed);
     if (!url_is_loopback(al.target) && !ca.confirm) {
         out_error(o,
                   "target %s is not a loopback address: deleting on a shared system needs "
@@ -317,8 +308,13 @@ static int cleanup_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
                   al.target);
         rc = SQ_EXIT_USAGE;
     } else if (ca.dry_run) {
-        for (size_t i = 0; i < al.n && !doc; i++)
-            out_print(o, "%s%s\n", al.paths[i], al.confirmed[i] ? "" : " (unconfirmed)");
+        /* Only paths on stdout, one a line, so that the list can be piped; which ones were
+         * never confirmed is said on stderr. */
+        for (size_t i = 0; i < al.n && !doc; i++) {
+            out_print(o, "%s\n", al.paths[i]);
+            if (!al.confirmed[i])
+                out_info(o, "%s: never confirmed (its create got no clear answer)", al.paths[i]);
+        }
         rc = SQ_EXIT_OK;
     } else {
         rc = reap_alive(&ca, path, &al, doc, o);
@@ -359,10 +355,11 @@ const cli_cmd_t cli_cmd_cleanup = {
         "headers, TLS files or a token: the deletes then carry target.headers, target.tls and\n"
         "target.token exactly as the run's requests did.\n"
         "\n"
+        "Status lines (the journal's counts, the deletes' outcome) go to stderr. With\n"
+        "--dry-run, stdout carries only the alive objects' paths, one a line, for a pipe.\n"
         "With --json, stdout carries one JSON document (format \"squall-cleanup\", version 1):\n"
         "the journal's counts, every alive object, and after the deletes each object under its\n"
-        "fate (deleted, already_gone, failed, left, not_tried) with the counts; the text lines\n"
-        "go to stderr.",
+        "fate (deleted, already_gone, failed, left, not_tried) with the counts.",
     .opts = cleanup_opts,
     .main = cleanup_main,
 };

@@ -209,6 +209,32 @@ static void print_summary(const results_t *r, int n, const char *dir, const verd
         out_print(o, "  accepted by the plan: %s\n", json_string_value(why));
 }
 
+/* The summary is talk, not a result (the results are on disk): it goes to stderr, line by line
+ * at the info level, through a capture so that the objectives table is laid out once. */
+static void lines_to_diag(const char *text, enum out_level level, out_t *o)
+{
+    while (*text) {
+        const char *nl = strchr(text, '\n');
+        int len = nl ? (int)(nl - text) : (int)strlen(text);
+        out_raw(o, level, "%.*s", len, text);
+        text += len + (nl != NULL);
+    }
+}
+
+static void summary_to_diag(const results_t *r, int n, const char *dir, const verdict_t *v,
+                            out_t *o)
+{
+    out_t *cap = out_new_capture();
+    if (!cap) {
+        out_error(o, "out of memory while printing the summary");
+        return;
+    }
+    print_summary(r, n, dir, v, cap);
+    lines_to_diag(out_captured_diag(cap), OUT_WARN, o); /* its warnings, already prefixed */
+    lines_to_diag(out_captured_results(cap), OUT_INFO, o);
+    out_free(cap);
+}
+
 /* --json: the figures of print_summary and results.json's "run" section (verdict, reasons,
  * accepted, inputs) and "objectives" section (every check) as written. */
 static void print_json(const results_t *r, int n, const char *dir, out_t *o)
@@ -255,7 +281,7 @@ static int merge_run(const cli_cmd_t *cmd, char **inputs, int n, const char *dir
         if (json)
             print_json(merged, n, dir, o);
         else
-            print_summary(merged, n, dir, &v, o);
+            summary_to_diag(merged, n, dir, &v, o);
         exit_code = v.exit_code;
     }
     judge_free(v.j);
@@ -321,6 +347,9 @@ const cli_cmd_t cli_cmd_merge = {
         "on the merged samples; a second in which any input could not offer its planned load,\n"
         "and an input that stopped early, make it INCONCLUSIVE. DIR gets results.json,\n"
         "series.csv, storms.csv and report.html.\n"
+        "\n"
+        "The summary (inputs, objectives, verdict) goes to stderr; the results are in DIR.\n"
+        "With --json, stdout carries one JSON document (format \"squall-merge\").\n"
         "\n"
         "Exit codes, as for run: 0 PASS, 1 FAIL (an objective failed), 7 INCONCLUSIVE (also\n"
         "when the inputs carry no judgement); 2 when the inputs' histogram configurations,\n"

@@ -8,6 +8,7 @@
 
 #include "squall/err.h"
 #include "squall/judge.h"
+#include "squall/value.h"
 
 struct judge {
     judge_check_t *checks;
@@ -81,8 +82,8 @@ static double phase_elapsed_s(const judge_phase_t *phases, size_t n, const char 
 /* Sums the cells of class cls in phase `phase` (NULL: every phase) into t. The metric is
  * metric (-1 when this build does not record it: t->h then stays empty). A watch class's
  * 2xx cell counts events, not requests: its successes are the streams that opened. */
-static void gather(const results_t *res, const char *cls, bool watch, const char *phase,
-                   int metric, const judge_phase_t *phases, size_t n_phases, tally_t *t)
+static void gather(const results_t *res, const char *cls, bool watch, const char *phase, int metric,
+                   const judge_phase_t *phases, size_t n_phases, tally_t *t)
 {
     t->answered = t->errors = t->successes = 0;
     t->elapsed_s = 0;
@@ -154,15 +155,16 @@ static bool holds(const plan_objective_t *ob, double observed, double threshold)
     return ob->limit == PLAN_LIMIT_MIN_RATE ? observed >= threshold : observed <= threshold;
 }
 
-/* The objective as a user would say it, e.g. "p99 of response <= 20 ms". */
+/* The objective as a user would say it, its threshold as a plan writes it (the plan's own text
+ * for the usual forms), e.g. "p99 of response <= 1s". */
 static void describe(const plan_objective_t *ob, char *buf, size_t cap)
 {
+    char d[32];
+    value_format_duration(ob->max_ns, d, sizeof d);
     if (ob->limit == PLAN_LIMIT_PERCENTILE && ob->percentile >= 100)
-        snprintf(buf, cap, "max of %s <= %g ms", metric_names[ob->metric],
-                 (double)ob->max_ns / 1e6);
+        snprintf(buf, cap, "max of %s <= %s", metric_names[ob->metric], d);
     else if (ob->limit == PLAN_LIMIT_PERCENTILE)
-        snprintf(buf, cap, "p%g of %s <= %g ms", ob->percentile, metric_names[ob->metric],
-                 (double)ob->max_ns / 1e6);
+        snprintf(buf, cap, "p%g of %s <= %s", ob->percentile, metric_names[ob->metric], d);
     else if (ob->limit == PLAN_LIMIT_ERROR_RATE)
         snprintf(buf, cap, "error rate <= %g%%", ob->value * 100);
     else
@@ -207,6 +209,15 @@ static bool is_watch_class(const judge_t *j, const results_t *res, const char *c
              results_cell_hist_find(c, RESULTS_M_PROPAGATION)))
             return true;
     }
+    return false;
+}
+
+/* A class the run added on its own (opts): "*" and the default objective leave it alone. */
+static bool is_internal_class(const judge_t *j, const char *cls)
+{
+    for (size_t i = 0; j->opts && i < j->opts->n_internal_classes; i++)
+        if (strcmp(j->opts->internal_classes[i], cls) == 0)
+            return true;
     return false;
 }
 
@@ -280,7 +291,8 @@ static int judge_objective(judge_t *j, size_t oi, const plan_objective_t *ob, co
      * endings, not requests (common practice for control-plane latency objectives, which
      * exclude watches; no primary source). Their error rate is judged, over stream attempts. */
     for (size_t k = 0; rc == 0 && k < n; k++)
-        if (ob->limit == PLAN_LIMIT_ERROR_RATE || !is_watch_class(j, res, names[k]))
+        if (!is_internal_class(j, names[k]) &&
+            (ob->limit == PLAN_LIMIT_ERROR_RATE || !is_watch_class(j, res, names[k])))
             rc = judge_class(j, oi, ob, text, names[k], true, res, phases, n_phases, t);
     if (rc == 0 && j->n == before) { /* nothing ran at all */
         gather(res, "*", false, NULL, -1, phases, n_phases, t);
@@ -300,7 +312,8 @@ static bool error_rate_covered(const plan_objective_t *objs, size_t n, const cha
     return false;
 }
 
-/* The default error-rate objective for every class that ran and none of the plan's covers. */
+/* The default error-rate objective for every class that ran and none of the plan's covers,
+ * except the run's internal classes (opts). */
 static int default_error_rate(judge_t *j, const plan_objective_t *objs, size_t n_objs, double rate,
                               const results_t *res, const judge_phase_t *phases, size_t n_phases,
                               tally_t *t)
@@ -314,7 +327,7 @@ static int default_error_rate(judge_t *j, const plan_objective_t *objs, size_t n
     const char *kept = keep(j, text);
     int rc = kept ? 0 : SQ_ENOMEM;
     for (size_t k = 0; rc == 0 && k < n; k++) {
-        if (error_rate_covered(objs, n_objs, names[k]))
+        if (error_rate_covered(objs, n_objs, names[k]) || is_internal_class(j, names[k]))
             continue;
         plan_objective_t ob = {.cls = {.name = names[k], .index = -1},
                                .phase = {.index = -1},

@@ -49,10 +49,11 @@ json_t *judge_inputs_json(const judge_inputs_t *in)
             json_array_append_new(accept, json_string(plan_accept_names[k]));
     for (size_t i = 0; phases && i < in->n_phases; i++)
         json_array_append_new(phases, json_string(in->phases[i].name));
-    return json_pack("{s:o, s:o, s:f, s:o, s:o}", "objectives", objs, "accept", accept,
-                     "default_error_rate", in->opts.default_error_rate, "watch_classes",
-                     strings_json(in->opts.watch_classes, in->opts.n_watch_classes), "phases",
-                     phases);
+    return json_pack(
+        "{s:o, s:o, s:f, s:o, s:o, s:o}", "objectives", objs, "accept", accept,
+        "default_error_rate", in->opts.default_error_rate, "watch_classes",
+        strings_json(in->opts.watch_classes, in->opts.n_watch_classes), "internal_classes",
+        strings_json(in->opts.internal_classes, in->opts.n_internal_classes), "phases", phases);
 }
 
 /* ---- reading it back ------------------------------------------------------------------------ */
@@ -61,7 +62,7 @@ json_t *judge_inputs_json(const judge_inputs_t *in)
 typedef struct {
     json_t *section;
     plan_objective_t *objectives;
-    const char **watch;
+    const char **watch, **internal;
     judge_phase_t *phases;
 } mem_t;
 
@@ -160,11 +161,26 @@ static int lists_read(judge_inputs_t *in, mem_t *m, const json_t *sec, char *err
     const json_t *objs = json_object_get(sec, "objectives"),
                  *watch = json_object_get(sec, "watch_classes");
     const json_t *phases = json_object_get(sec, "phases");
-    if (!json_is_array(objs) || !json_is_array(watch) || !json_is_array(phases) ||
-        !json_is_array(json_object_get(sec, "accept")))
+    const json_t *internal = json_object_get(sec, "internal_classes");
+    if (!internal)
+        internal = json_array(); /* results of an older squall: none (a new reference) */
+    else
+        json_incref((json_t *)internal);
+    bool arrays = json_is_array(objs) && json_is_array(watch) && json_is_array(phases) &&
+                  json_is_array(internal) && json_is_array(json_object_get(sec, "accept"));
+    m->internal = arrays ? calloc(json_array_size(internal) + 1, sizeof(*m->internal)) : NULL;
+    bool internal_ok = m->internal && strings_read(internal, m->internal);
+    in->opts.internal_classes = m->internal;
+    in->opts.n_internal_classes = internal_ok ? json_array_size(internal) : 0;
+    json_decref((json_t *)internal);
+    if (arrays && !m->internal)
+        return SQ_ENOMEM;
+    if (arrays && !internal_ok)
+        return bad(err, cap, "judgement: internal_classes must be a list of names");
+    if (!arrays)
         return bad(err, cap,
-                   "judgement: expected arrays objectives, accept, watch_classes and "
-                   "phases");
+                   "judgement: expected arrays objectives, accept, watch_classes, "
+                   "internal_classes (if any) and phases");
     m->objectives = calloc(json_array_size(objs) + 1, sizeof(*m->objectives));
     m->watch = calloc(json_array_size(watch) + 1, sizeof(*m->watch));
     m->phases = calloc(json_array_size(phases) + 1, sizeof(*m->phases));
@@ -218,6 +234,7 @@ void judge_inputs_close(judge_inputs_t *in)
         json_decref(m->section);
         free(m->objectives);
         free(m->watch);
+        free(m->internal);
         free(m->phases);
         free(m);
     }

@@ -2,7 +2,9 @@
 #include <stdio.h>
 #include <string.h>
 
+#include "squall/err.h"
 #include "squall/judge.h"
+#include "squall/table.h"
 
 json_t *judge_json(const judge_t *j)
 {
@@ -38,29 +40,48 @@ static void human(double v, const char *unit, char *buf, size_t cap)
         snprintf(buf, cap, "%.1f/s", v);
 }
 
+/* One check as a row (and its note) of t. */
+static int check_row(table_t *t, const judge_check_t *c)
+{
+    static const char *const shout[] = {"pass", "FAIL", "NO-DATA", "TOO-FEW"};
+    char obs[32] = "-", note[96];
+    if (c->verdict != JUDGE_NO_DATA)
+        human(c->observed, c->unit, obs, sizeof obs);
+    const char *cells[] = {shout[c->verdict], c->scope, c->cls, c->text, obs};
+    int rc = table_add(t, cells);
+    if (rc == 0 && c->verdict == JUDGE_TOO_FEW) {
+        snprintf(note, sizeof note, "%lld samples, needs %lld to resolve it", (long long)c->samples,
+                 (long long)c->needed);
+        rc = table_note(t, 3, note);
+    } else if (rc == 0 && c->why) {
+        rc = table_note(t, 3, c->why);
+    }
+    return rc;
+}
+
 void judge_print(const judge_t *j, out_t *o)
 {
     size_t n = judge_check_count(j), failed = 0;
     if (n == 0)
         return;
-    out_print(o, "\nobjectives\n%-8s %-12s %-24s %-30s %12s %12s\n", "verdict", "scope", "class",
-              "objective", "observed", "threshold");
-    for (size_t i = 0; i < n; i++) {
+    static const table_col_t cols[] = {{"verdict", TABLE_LEFT},
+                                       {"scope", TABLE_LEFT},
+                                       {"class", TABLE_LEFT},
+                                       {"objective", TABLE_LEFT},
+                                       {"observed", TABLE_RIGHT}};
+    table_t *t = table_new(cols, 5);
+    int rc = t ? 0 : SQ_ENOMEM;
+    for (size_t i = 0; rc == 0 && i < n; i++) {
         const judge_check_t *c = judge_check_at(j, i);
-        char obs[32] = "-", thr[32];
-        if (c->verdict != JUDGE_NO_DATA)
-            human(c->observed, c->unit, obs, sizeof obs);
-        human(c->threshold, c->unit, thr, sizeof thr);
-        static const char *const shout[] = {"pass", "FAIL", "NO-DATA", "TOO-FEW"};
-        out_print(o, "%-8s %-12s %-24s %-30s %12s %12s\n", shout[c->verdict], c->scope, c->cls,
-                  c->text, obs, thr);
-        if (c->verdict == JUDGE_TOO_FEW)
-            out_print(o, "%-8s %-12s %-24s %lld samples, needs %lld to resolve it\n", "", "", "",
-                      (long long)c->samples, (long long)c->needed);
-        else if (c->why)
-            out_print(o, "%-8s %-12s %-24s %s\n", "", "", "", c->why);
+        rc = check_row(t, c);
         failed += c->verdict != JUDGE_PASS;
     }
+    out_print(o, "\nobjectives\n");
+    if (rc == 0)
+        table_print(t, o);
+    else
+        out_print(o, "(out of memory while laying out the objectives)\n");
+    table_free(t);
     if (failed)
         out_print(o,
                   "%zu of %zu objective checks did not pass (no-data counts as a failure, "

@@ -146,22 +146,28 @@ static const char *ms_col(char *buf, size_t cap, int width, const hist_t *h, dou
     return col(buf, cap, width, text);
 }
 
-/* A count right-aligned in width columns, with thousands separators. */
-static const char *count_col(char *buf, size_t cap, int width, int64_t n)
+/* A count as text, without thousands separators (DEVELOPERS.md, "Output"). */
+static const char *count(int64_t n, char *buf, size_t cap)
 {
-    char text[32];
-    return col(buf, cap, width, value_fmt_count(n, text, sizeof text));
+    snprintf(buf, cap, "%lld", (long long)n);
+    return buf;
 }
 
-/* What the newest tick did: "tick 4 of 6: 2,000 done, written over 96.0ms, p99 12.3ms". */
+/* A count right-aligned in width columns. */
+static const char *count_col(char *buf, size_t cap, int width, int64_t n)
+{
+    snprintf(buf, cap, "%*lld", width, (long long)n);
+    return buf;
+}
+
+/* What the newest tick did: "tick 4 of 6: 2000 done, written over 96.0ms, p99 12.3ms". */
 static int tick_text(const live_tick_t *t, char *buf, size_t cap)
 {
     char a[32], b[32];
     double spread = t->last_sent > t->first_sent ? (double)(t->last_sent - t->first_sent) / 1e6 : 0;
     return snprintf(buf, cap, "tick %lld of %lld: %s done, written over %.1fms, p99 %s",
-                    (long long)(t->k + 1), (long long)t->n_ticks,
-                    value_fmt_count(t->done, a, sizeof a), spread,
-                    ms_col(b, sizeof b, 0, t->response, 99, 1));
+                    (long long)(t->k + 1), (long long)t->n_ticks, count(t->done, a, sizeof a),
+                    spread, ms_col(b, sizeof b, 0, t->response, 99, 1));
 }
 
 /* What the phase's traffic did this second. */
@@ -180,9 +186,8 @@ static void traffic(live_t *v, const obs_second_t *s, char *buf, size_t cap)
             snprintf(eta, sizeof eta, "0s");
         else if (v->deleted > 0 && s->end_ns > v->phase_base_ns)
             snprintf(eta, sizeof eta, "%.1fs", (double)left / pace);
-        snprintf(buf, cap, "deleted %s of %s, %.0f/s, %s left",
-                 value_fmt_count(v->deleted, a, sizeof a),
-                 value_fmt_count(s->teardown_total, b, sizeof b), rate, eta);
+        snprintf(buf, cap, "deleted %s of %s, %.0f/s, %s left", count(v->deleted, a, sizeof a),
+                 count(s->teardown_total, b, sizeof b), rate, eta);
     } else if (t->on && s->phase == t->phase && s->loading) {
         int64_t rel = s->end_ns - t->base - t->offset;
         double next = (double)(t->period - (rel % t->period + t->period) % t->period) / 1e9;
@@ -227,8 +232,8 @@ static void watches(const obs_second_t *s, char *buf, size_t cap)
     snprintf(buf, cap,
              "  watches %s open, %lld dropped, %lld reconnects, %s events/s, "
              "propagation p99 %s",
-             value_fmt_count(w->open, a, sizeof a), (long long)w->dropped, (long long)w->reconnects,
-             value_fmt_count((int64_t)llround((double)w->events / s->secs), b, sizeof b),
+             count(w->open, a, sizeof a), (long long)w->dropped, (long long)w->reconnects,
+             count((int64_t)llround((double)w->events / s->secs), b, sizeof b),
              ms_col(c, sizeof c, 0, w->propagation, 99, 1));
 }
 

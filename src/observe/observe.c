@@ -267,6 +267,7 @@ static void record(obs_t *l, const obs_done_t *d)
         .bytes_out = d->bytes_out,
     };
     if (!d->whole) {
+        s.status = r->status > 0 && r->status < 1000 ? (int)r->status : 0;
         s.sent_ns = r->sent_ns;
         s.with_lag = true;
         s.connect_ns = r->connect_us * 1000;

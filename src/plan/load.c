@@ -234,6 +234,8 @@ static bool may_enter(pctx_t *c, const char *real, plan_pos_t from, chain_t *ch,
 static int load_file(pctx_t *c, const char *path, plan_pos_t from, chain_t *ch)
 {
     c->file = pmem_strdup(c, path);
+    if (c->file && c->n_files < PC_MAX_FILES)
+        c->files[c->n_files++] = c->file;
     char *real = realpath(path, NULL);
     yaml_document_t doc;
     int rc = may_enter(c, real, from, ch, path) ? read_doc(c, path, from, &doc) : SQ_EPARSE;
@@ -316,9 +318,9 @@ int plan_load(const char *path, const plan_override_t *overrides, size_t n, plan
     c.set_names = calloc(n + 1, sizeof(*c.set_names));
     for (size_t k = 0; c.set_names && k < n; k++) {
         char buf[512];
-        snprintf(buf, sizeof buf, "--set %s=%s", overrides[k].key,
+        snprintf(buf, sizeof buf, "--set #%zu %s=%s", k + 1, overrides[k].key,
                  secret_set(overrides[k].key, overrides[k].value) ? "(not shown)"
-                                                                   : overrides[k].value);
+                                                                  : overrides[k].value);
         c.set_names[k] = pmem_strdup(&c, buf);
     }
     c.n_set = c.set_names ? n : 0;
@@ -333,6 +335,7 @@ int plan_load(const char *path, const plan_override_t *overrides, size_t n, plan
     /* Whole-plan checks on a file that did not parse would only repeat its syntax error. */
     if (rc == 0 && !c.nomem)
         plan_check_whole(&c);
+    pc_flush_errors(&c);
     free(c.set_names);
     if (c.nomem || rc == SQ_ENOMEM) {
         out_error(o, "out of memory while reading %s", path);

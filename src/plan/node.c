@@ -71,15 +71,72 @@ plan_pos_t pc_pos(pctx_t *c, const yaml_node_t *n)
     return pos;
 }
 
+struct pc_err {
+    size_t group; /* file index, then n_files + set index; SIZE_MAX when unknown */
+    int line, col;
+    size_t seq; /* the order it was found in, for equal positions */
+    char *text; /* the whole line */
+};
+
+/* Where pos sorts: its file's reading order, or after every file, its --set's order. */
+static size_t err_group(const pctx_t *c, plan_pos_t pos)
+{
+    for (size_t k = 0; pos.file && k < c->n_set; k++)
+        if (pos.file == c->set_names[k])
+            return PC_MAX_FILES + k;
+    for (size_t i = 0; pos.file && i < c->n_files; i++)
+        if (strcmp(pos.file, c->files[i]) == 0)
+            return i;
+    return SIZE_MAX;
+}
+
 static void verror(pctx_t *c, plan_pos_t pos, const char *fmt, va_list ap)
 {
-    char msg[1024];
+    char msg[1024], line[1400];
     vsnprintf(msg, sizeof msg, fmt, ap);
     c->errors++;
     if (pos.line > 0)
-        out_raw(c->o, OUT_ERROR, "%s:%d:%d: error: %s", pos.file, pos.line, pos.col, msg);
+        snprintf(line, sizeof line, "%s:%d:%d: error: %s", pos.file, pos.line, pos.col, msg);
     else
-        out_raw(c->o, OUT_ERROR, "%s: error: %s", pos.file, msg);
+        snprintf(line, sizeof line, "%s: error: %s", pos.file, msg);
+    if (c->n_errs == c->cap_errs) {
+        size_t cap = c->cap_errs ? 2 * c->cap_errs : 16;
+        struct pc_err *e = realloc(c->errs, cap * sizeof(*e));
+        if (e)
+            c->errs = e, c->cap_errs = cap;
+    }
+    char *text = c->n_errs < c->cap_errs ? strdup(line) : NULL;
+    if (!text) { /* out of memory: print it now, unsorted, rather than lose it */
+        out_raw(c->o, OUT_ERROR, "%s", line);
+        return;
+    }
+    c->errs[c->n_errs] = (struct pc_err){err_group(c, pos), pos.line, pos.col, c->n_errs, text};
+    c->n_errs++;
+}
+
+static int err_cmp(const void *a, const void *b)
+{
+    const struct pc_err *x = a, *y = b;
+    if (x->group != y->group)
+        return x->group < y->group ? -1 : 1;
+    if (x->line != y->line)
+        return x->line < y->line ? -1 : 1;
+    if (x->col != y->col)
+        return x->col < y->col ? -1 : 1;
+    return x->seq < y->seq ? -1 : x->seq > y->seq;
+}
+
+void pc_flush_errors(pctx_t *c)
+{
+    if (c->n_errs)
+        qsort(c->errs, c->n_errs, sizeof(*c->errs), err_cmp);
+    for (size_t i = 0; i < c->n_errs; i++) {
+        out_raw(c->o, OUT_ERROR, "%s", c->errs[i].text);
+        free(c->errs[i].text);
+    }
+    free(c->errs);
+    c->errs = NULL;
+    c->n_errs = c->cap_errs = 0;
 }
 
 void pc_error(pctx_t *c, const yaml_node_t *n, const char *fmt, ...)
@@ -147,20 +204,25 @@ bool pc_expect_seq(pctx_t *c, yaml_node_t *n, const char *where)
     return expect_type(c, n, where, YAML_SEQUENCE_NODE, "a list");
 }
 
+/* An unknown key: the likely one, and every valid key when the key came from a --set (the
+ * user has no file open to look at) or nothing is close. */
 static void unknown_key(pctx_t *c, yaml_node_t *k, const char *where, const char *const *keys)
 {
     const char *near = suggest_closest((const char *)k->data.scalar.value, keys);
-    if (near) {
-        pc_error(c, k, "%s: unknown key '%s' (did you mean '%s'?)", where,
-                 (const char *)k->data.scalar.value, near);
-        return;
-    }
     char list[512];
     size_t off = 0;
     for (int i = 0; keys[i] && off < sizeof list; i++)
         off += (size_t)snprintf(list + off, sizeof list - off, "%s%s", i ? ", " : "", keys[i]);
-    pc_error(c, k, "%s: unknown key '%s' (expected one of: %s)", where,
-             (const char *)k->data.scalar.value, list);
+    bool from_set = pc_pos(c, k).line == 0;
+    if (near && !from_set)
+        pc_error(c, k, "%s: unknown key '%s' (did you mean '%s'?)", where,
+                 (const char *)k->data.scalar.value, near);
+    else if (near)
+        pc_error(c, k, "%s: unknown key '%s' (did you mean '%s'? expected one of: %s)", where,
+                 (const char *)k->data.scalar.value, near, list);
+    else
+        pc_error(c, k, "%s: unknown key '%s' (expected one of: %s)", where,
+                 (const char *)k->data.scalar.value, list);
 }
 
 void pc_check_keys(pctx_t *c, yaml_node_t *map, const char *where, const char *const *keys)

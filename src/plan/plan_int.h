@@ -19,14 +19,22 @@
 #define PK_WATCH (1u << PLAN_WATCH)
 #define PK_ANY   (PK_GET | PK_LIST | PK_WRITE | PK_WATCH)
 
+#define PC_MAX_FILES 64 /* at least load.c's include limit */
+
 typedef struct {
     plan_t *p;
     out_t *o;
     int errors;
     yaml_document_t *doc;
     const char *file;       /* owned by the plan's memory */
-    const char **set_names; /* "--set KEY=VALUE" per override, for positions */
+    const char **set_names; /* "--set #K KEY=VALUE" per override, for positions */
     size_t n_set;
+    /* Errors are held until the load ends, then printed sorted by position (pc_flush_errors):
+     * by file in the order they were read, line, column; then the --set errors in order. */
+    struct pc_err *errs;
+    size_t n_errs, cap_errs;
+    const char *files[PC_MAX_FILES]; /* the files read, in order */
+    size_t n_files;
     bool nomem;
     bool url_given, phases_given; /* so a bad value is not also reported as missing */
 } pctx_t;
@@ -45,6 +53,8 @@ void pc_error(pctx_t *c, const yaml_node_t *n, const char *fmt, ...)
 void pc_error_at(pctx_t *c, plan_pos_t pos, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));
 plan_pos_t pc_pos(pctx_t *c, const yaml_node_t *n);
+/* Prints the errors held so far, sorted by position, and forgets them. */
+void pc_flush_errors(pctx_t *c);
 
 /* Nodes. */
 yaml_node_t *pc_node(pctx_t *c, int id);

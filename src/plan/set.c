@@ -37,6 +37,22 @@ static yaml_node_item_t *find_item(pctx_t *c, yaml_node_t *seq, const char *comp
     return NULL;
 }
 
+/* The names (or, without names, the indexes) of a list's items: "fill, steady, rush". */
+static void item_names(pctx_t *c, yaml_node_t *seq, char *buf, size_t cap)
+{
+    size_t count = (size_t)(seq->data.sequence.items.top - seq->data.sequence.items.start);
+    size_t off = 0;
+    buf[0] = '\0';
+    for (size_t i = 0; i < count && off < cap; i++) {
+        yaml_node_t *it = pc_node(c, seq->data.sequence.items.start[i]);
+        const char *name =
+            it && it->type == YAML_MAPPING_NODE ? pc_text(pc_get(c, it, "name")) : NULL;
+        int w = name ? snprintf(buf + off, cap - off, "%s%s", i ? ", " : "", name)
+                     : snprintf(buf + off, cap - off, "%s%zu", i ? ", " : "", i);
+        off += w > 0 ? (size_t)w : 0;
+    }
+}
+
 /* One step of the path from node `id`: returns the next node id, or 0 after an error. */
 static int step(pctx_t *c, size_t k, int id, const char *comp, bool last, const char *value)
 {
@@ -45,10 +61,12 @@ static int step(pctx_t *c, size_t k, int id, const char *comp, bool last, const 
     if (n->type == YAML_SEQUENCE_NODE) {
         yaml_node_item_t *it = find_item(c, n, comp);
         if (!it) {
+            char names[512];
+            item_names(c, n, names, sizeof names);
             pc_error_at(c, pos,
-                        "no list item '%s' (expected a name or index of an item in the "
-                        "top plan file, got none)",
-                        comp);
+                        "no list item '%s' (expected a name or index of an item in the top "
+                        "plan file: %s)",
+                        comp, names[0] ? names : "the list is empty");
             return 0;
         }
         if (last)

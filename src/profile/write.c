@@ -11,9 +11,11 @@
 
 #define NS INT64_C(1000000000)
 
+/* A count as every squall output writes one: no thousands separators (DEVELOPERS.md). */
 static const char *num(uint64_t v, char *buf, size_t len)
 {
-    return value_fmt_count((int64_t)v, buf, len);
+    snprintf(buf, len, "%llu", (unsigned long long)v);
+    return buf;
 }
 
 /* A duration in plan syntax: whole seconds, minutes or hours when exact, else milliseconds. */

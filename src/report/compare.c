@@ -389,6 +389,7 @@ int report_compare(const results_t *base, const report_series_t *bs, const resul
     for (int k = 0; rc == 0 && k < 2; k++) {
         const report_series_t *s = x.run[k].series;
         x.c->lacks_p999[k] = report_series_count(s) > 0 && !report_series_has_p999(s);
+        x.c->series[k] = s;
         rc = scratch_hist(x.run[k].res, &x.h[k]);
     }
     if (rc == 0)

@@ -9,6 +9,7 @@ struct report_cmp {
     report_cmp_line_t *lines;
     size_t n, cap;
     bool lacks_p999[2]; /* BASE's, NEW's series.csv has rows but no p999_ms column */
+    const report_series_t *series[2]; /* borrowed from report_compare's caller, for the page */
 };
 
 /* One run as the comparison reads it. */

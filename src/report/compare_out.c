@@ -3,11 +3,13 @@
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 
 #include "compare_int.h"
 #include "html_int.h"
 #include "squall/err.h"
 #include "squall/file.h"
+#include "squall/table.h"
 
 #define METHOD_MW                                                                                  \
     "Mann-Whitney U (Mann & Whitney 1947), two-sided: the exact null distribution when a side "    \
@@ -91,8 +93,6 @@ static void p_text(const report_cmp_line_t *l, char *buf, size_t cap)
         snprintf(buf, cap, "%.2g", l->p);
 }
 
-#define ROW "%-12s %-16s %-17s %10s %10s %18s %8s  %-21s %s\n"
-
 /* A line's cells as text, the same in the table and the HTML page. */
 typedef struct {
     char metric[48], base[32], nw[32], change[48], p[16], samples[64], verdict[64];
@@ -113,17 +113,27 @@ void report_cmp_print(const report_cmp_t *c, out_t *o)
 {
     size_t count[4] = {0};
     bool used[4] = {false};
-    out_print(o, ROW, "phase", "class", "metric", "base", "new", "change", "p", "samples",
-              "verdict");
-    for (size_t i = 0; i < report_cmp_count(c); i++) {
+    static const table_col_t cols[] = {
+        {"phase", TABLE_LEFT}, {"class", TABLE_LEFT},   {"metric", TABLE_LEFT},
+        {"base", TABLE_RIGHT}, {"new", TABLE_RIGHT},    {"change", TABLE_RIGHT},
+        {"p", TABLE_RIGHT},    {"samples", TABLE_LEFT}, {"verdict", TABLE_LEFT}};
+    table_t *t = table_new(cols, sizeof cols / sizeof cols[0]);
+    int rc = t ? 0 : SQ_ENOMEM;
+    for (size_t i = 0; rc == 0 && i < report_cmp_count(c); i++) {
         const report_cmp_line_t *l = report_cmp_at(c, i);
         row_t r;
         row_text(l, &r);
-        out_print(o, ROW, l->phase, l->cls, r.metric, r.base, r.nw, r.change, r.p, r.samples,
-                  r.verdict);
+        const char *cells[] = {l->phase, l->cls, r.metric,  r.base,   r.nw,
+                               r.change, r.p,    r.samples, r.verdict};
+        rc = table_add(t, cells);
         count[l->verdict]++;
         used[l->test] = true;
     }
+    if (rc == 0)
+        table_print(t, o);
+    else
+        out_print(o, "(out of memory while laying out the comparison)\n");
+    table_free(t);
     out_print(o,
               "\n%zu worse (slower or more errors), %zu better, %zu within noise, %zu untested; "
               "the chance of a false alarm is the level chosen, per line\n",
@@ -205,20 +215,62 @@ static const char *overrides_of(const results_t *r, char *buf, size_t cap)
     return buf;
 }
 
+static const char *started_of(const results_t *r, char *buf, size_t cap)
+{
+    int64_t ms = results_meta(r)->start_unix_ms;
+    if (ms <= 0)
+        return NULL;
+    time_t t = (time_t)(ms / 1000);
+    struct tm tm;
+    gmtime_r(&t, &tm);
+    strftime(buf, cap, "%Y-%m-%d %H:%M:%S UTC", &tm);
+    return buf;
+}
+
+static const char *seed_of(const results_t *r, char *buf, size_t cap)
+{
+    json_t *seed = json_object_get(results_section(r, "run"), "seed");
+    if (!json_is_integer(seed))
+        return NULL;
+    snprintf(buf, cap, "%llu", (unsigned long long)json_integer_value(seed));
+    return buf;
+}
+
+#define META_ROWS 9
+
+/* A run's values for the rows of meta_rows, some written into the buffers of t. */
+typedef struct {
+    char overrides[512], started[40], seed[32];
+} meta_text_t;
+
+static void meta_values(const results_t *r, meta_text_t *t, const char **v)
+{
+    const results_meta_t *m = results_meta(r);
+    const char *all[META_ROWS] = {m->plan_path,
+                                  m->plan_sha256,
+                                  m->target_url,
+                                  overrides_of(r, t->overrides, sizeof t->overrides),
+                                  seed_of(r, t->seed, sizeof t->seed),
+                                  started_of(r, t->started, sizeof t->started),
+                                  m->host,
+                                  m->squall_version,
+                                  m->stop_reason};
+    memcpy(v, all, sizeof all);
+}
+
 static void meta_rows(FILE *f, const results_t *b, const results_t *n)
 {
     const results_meta_t *mb = results_meta(b), *mn = results_meta(n);
-    char ob[512], on[512];
-    const char *k[] = {"plan", "plan sha256", "target", "overrides", "host", "stopped early"};
-    const char *vb[] = {mb->plan_path,  mb->plan_sha256,
-                        mb->target_url, overrides_of(b, ob, sizeof ob),
-                        mb->host,       mb->stop_reason};
-    const char *vn[] = {mn->plan_path,  mn->plan_sha256,
-                        mn->target_url, overrides_of(n, on, sizeof on),
-                        mn->host,       mn->stop_reason};
-    fputs("<table><tr><th></th><th>BASE</th><th>NEW</th></tr>\n", f);
+    /* The first five differing are marked: a different plan, target or inputs. */
+    const char *k[META_ROWS] = {"plan",    "plan sha256", "target", "overrides",    "seed",
+                                "started", "host",        "squall", "stopped early"};
+    const char *vb[META_ROWS], *vn[META_ROWS];
+    meta_text_t tb, tn;
+    meta_values(b, &tb, vb);
+    meta_values(n, &tn, vn);
+    fputs("<table class=\"runs\"><tr><th></th><th>BASE</th><th>NEW</th></tr>\n", f);
     for (size_t i = 0; i < sizeof k / sizeof k[0]; i++) {
-        bool differ = vb[i] && vn[i] && strcmp(vb[i], vn[i]) && i < 4;
+        bool differ = vb[i] && vn[i] && strcmp(vb[i], vn[i]) && i < 5;
         fprintf(f, "<tr><th>%s</th><td%s>", k[i], differ ? " class=\"fail\"" : "");
         html_esc(f, vb[i] ? vb[i] : "-");
         fprintf(f, "</td><td%s>", differ ? " class=\"fail\"" : "");
@@ -234,16 +286,18 @@ static void verdict_row(FILE *f, const report_cmp_line_t *l)
     row_t r;
     row_text(l, &r);
     bool bad = l->verdict == REPORT_WORSE;
-    fputs("<tr><td>", f);
+    static const char *const style[] = {[REPORT_WITHIN_NOISE] = "same", [REPORT_WORSE] = "fail",
+                                        [REPORT_BETTER] = "pass", [REPORT_UNTESTED] = "untested"};
+    fprintf(f, "<tr class=\"%s\"><td>", style[l->verdict]);
     html_esc(f, l->phase);
     fputs("</td><td>", f);
     html_esc(f, l->cls);
     fprintf(f,
             "</td><td>%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
             "<td class=\"n\">%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td>"
-            "<td class=\"%s\">%s%s</td></tr>\n",
-            r.metric, r.base, r.nw, r.change, r.p, r.samples, bad ? "fail" : "pass",
-            bad ? "&#10008; " : "", r.verdict);
+            "<td class=\"v %s\">%s%s</td></tr>\n",
+            r.metric, r.base, r.nw, r.change, r.p, r.samples, style[l->verdict],
+            bad ? "&#10008; " : l->verdict == REPORT_UNTESTED ? "? " : "", r.verdict);
 }
 
 static void verdict_rows(FILE *f, const report_cmp_t *c)
@@ -271,32 +325,66 @@ static int spectrum_metric(const results_t *r, const char *cls)
     return RESULTS_M_RESPONSE;
 }
 
-static void spectrum(FILE *f, const results_t *b, const results_t *n, const char *cls, hist_t *h)
+#define TAIL_POINTS 400
+
+/* The share of a class's requests slower than x, BASE and NEW on one plot (every phase). False,
+ * with nothing written, when neither run has a histogram of the class. */
+static bool spectrum(FILE *f, const results_t *b, const results_t *n, const char *cls, hist_t *h)
 {
-    static double x[2][HTML_SPECTRUM_POINTS], y[2][HTML_SPECTRUM_POINTS];
+    static double x[2][TAIL_POINTS], y[2][TAIL_POINTS];
     int m = spectrum_metric(b, cls);
     html_line_t l[2] = {
-        {x[0], y[0], html_spectrum(b, m, cls, h, x[0], y[0]), "BASE", 0, 0},
-        {x[1], y[1], html_spectrum(n, m, cls, h, x[1], y[1]), "NEW", 1, 1},
+        {x[0], y[0], html_exceed(b, m, NULL, cls, h, x[0], y[0], TAIL_POINTS), "BASE", 0, 0},
+        {x[1], y[1], html_exceed(n, m, NULL, cls, h, x[1], y[1], TAIL_POINTS), "NEW", 1, 1},
     };
-    char title[200], ylabel[64];
-    snprintf(title, sizeof title, "%s: %s time by percentile, BASE and NEW", cls,
+    if (l[0].n == 0 && l[1].n == 0)
+        return false;
+    char title[200], xlabel[64];
+    snprintf(title, sizeof title, "%s: share of %s times slower than x, BASE and NEW", cls,
              results_metric_name(m));
-    snprintf(ylabel, sizeof ylabel, "%s time (ms, log scale)", results_metric_name(m));
+    snprintf(xlabel, sizeof xlabel, "%s time x (ms, log scale)", results_metric_name(m));
     html_plot_t p = {.title = title,
-                     .xlabel = "percentile (spaced by 1/(1 - p))",
-                     .ylabel = ylabel,
-                     .xaxis = HTML_X_SPECTRUM,
+                     .xlabel = xlabel,
+                     .ylabel = "slower than x (%, log scale)",
+                     .xaxis = HTML_X_LOG,
                      .ylog = true};
-    fputs("<figure>", f);
-    html_plot(f, &p, l, 2, NULL, 0);
-    fputs("<figcaption>", f);
-    html_esc(f, title);
-    fputs("</figcaption></figure>\n", f);
+    html_figure(f, NULL, &p, l, 2, NULL, 0);
+    return true;
 }
 
-/* One spectrum per class of BASE: BASE solid, NEW dashed, same colour per run. */
-static void spectra(FILE *f, const results_t *b, const results_t *n)
+/* A class's p99 in each second of BASE and of NEW, each from its own start, on one plot;
+ * nothing when neither run completed a request of the class (a watch class). */
+static void over_time(FILE *f, const report_cmp_t *c, const char *cls)
+{
+    size_t cap = 0;
+    for (int k = 0; k < 2; k++)
+        for (size_t i = 0; c->series[k] && i < report_series_count(c->series[k]); i++)
+            cap = fmax(cap, (double)report_series_at(c->series[k], i)->second + 1);
+    double *buf = cap ? calloc(4 * cap, sizeof(double)) : NULL;
+    if (!buf)
+        return;
+    bool any[2] = {false, false};
+    double *x[2] = {buf, buf + 2 * cap}, *y[2] = {buf + cap, buf + 3 * cap};
+    size_t n[2] = {0, 0};
+    for (int k = 0; k < 2; k++)
+        if (c->series[k])
+            n[k] = html_class_p99(c->series[k], cls, x[k], y[k], cap, &any[k]);
+    html_line_t l[2] = {{x[0], y[0], n[0], "BASE p99", 0, 0}, {x[1], y[1], n[1], "NEW p99", 1, 1}};
+    if (any[0] || any[1]) {
+        char title[200];
+        snprintf(title, sizeof title, "%s: response time p99 in each second, BASE and NEW", cls);
+        html_plot_t p = {.title = title,
+                         .xlabel = "time since each run started (s)",
+                         .ylabel = "response time p99 (ms, log scale)",
+                         .ylog = true};
+        html_figure(f, "over-time", &p, l, 2, NULL, 0);
+    }
+    free(buf);
+}
+
+/* Per class of BASE: its p99 over time, then the share slower than x; BASE solid, NEW dashed,
+ * same colour per run. */
+static void spectra(FILE *f, const report_cmp_t *c, const results_t *b, const results_t *n)
 {
     int64_t lo, hi;
     int digits;
@@ -309,8 +397,10 @@ static void spectra(FILE *f, const results_t *b, const results_t *n)
         bool first = true;
         for (size_t k = 0; k < i && first; k++)
             first = strcmp(results_cell_class(results_cell_at(b, k)), cls) != 0;
-        if (first)
+        if (first) {
+            over_time(f, c, cls);
             spectrum(f, b, n, cls, h);
+        }
     }
     hist_free(h);
 }
@@ -337,9 +427,10 @@ static int write_page(FILE *f, const report_cmp_t *c, const results_t *b, const 
     verdict_rows(f, c);
     fputs("<p class=\"note\">Seconds and ticks: " METHOD_MW
           ".</p>\n<p class=\"note\">Samples: " METHOD_QT
-          ".</p></section>\n<section id=\"spectra\"><h2>Percentile spectra</h2>\n",
+          ".</p></section>\n<section id=\"spectra\"><h2>Per class: over time and slower than "
+          "x</h2>\n",
           f);
-    spectra(f, b, n);
+    spectra(f, c, b, n);
     fputs("</section></body></html>\n", f);
     return ferror(f) ? SQ_EIO : 0;
 }

@@ -1,8 +1,10 @@
-/* The report's plots: rate, errors and p50/p99 per second from series.csv (phase boundaries
- * marked), and latency percentile spectra from the histograms of results.json. */
+/* The report's plots over time from series.csv: offered vs achieved load, errors, and per class
+ * the response time with its objectives' thresholds; generator-bound seconds shaded, phase
+ * boundaries and actions marked, the wall-clock start written on the time axis. */
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 
 #include "html_int.h"
 
@@ -37,8 +39,8 @@ static size_t action_marks(const results_t *res, html_mark_t *m, size_t n, size_
     {
         json_t *at = json_object_get(it, "fired_unix_ms");
         if (n < cap && at && t0 > 0)
-            m[n++] = (html_mark_t){(double)(json_integer_value(at) - t0) / 1000.0,
-                                   json_string_value(json_object_get(it, "name"))};
+            m[n++] = (html_mark_t){.x = (double)(json_integer_value(at) - t0) / 1000.0,
+                                   .label = json_string_value(json_object_get(it, "name"))};
     }
     return n;
 }
@@ -46,7 +48,8 @@ static size_t action_marks(const results_t *res, html_mark_t *m, size_t n, size_
 size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m, size_t cap)
 {
     size_t n = phase_starts(res, s, m, cap);
-    return action_marks(res, m, n, cap);
+    n = action_marks(res, m, n, cap);
+    return html_drop_marks(res, m, n, cap);
 }
 
 /* Phase boundaries: the "phases" section's starts when the run wrote one, else the first
@@ -60,21 +63,79 @@ static size_t phase_starts(const results_t *res, const report_series_t *s, html_
     {
         const char *name = json_string_value(json_object_get(p, "name"));
         if (n < cap && name && json_number_value(json_object_get(p, "elapsed_s")) > 0)
-            m[n++] = (html_mark_t){json_number_value(json_object_get(p, "start_s")), name};
+            m[n++] = (html_mark_t){.x = json_number_value(json_object_get(p, "start_s")), .label = name};
     }
-    if (n > 0)
+    if (n > 0 || !s)
         return n;
     const char *names[MAX_LINES * 4];
     n = distinct(s, true, names, cap < MAX_LINES * 4 ? cap : MAX_LINES * 4);
     for (size_t k = 0; k < n; k++) {
         m[k].label = names[k];
         m[k].x = INFINITY;
+        m[k].alert = false;
         for (i = 0; i < report_series_count(s); i++) {
             const report_row_t *r = report_series_at(s, i);
             if (strcmp(r->phase, names[k]) == 0 && (double)r->second < m[k].x)
                 m[k].x = (double)r->second;
         }
     }
+    return n;
+}
+
+/* The run second a phase started at ("phases" section); NAN when unknown. */
+static double phase_start(const results_t *res, const char *phase)
+{
+    json_t *list = json_object_get(results_section(res, "phases"), "phases"), *p;
+    size_t i;
+    json_array_foreach(list, i, p)
+    {
+        const char *name = json_string_value(json_object_get(p, "name"));
+        if (name && !strcmp(name, phase))
+            return json_number_value(json_object_get(p, "start_s"));
+    }
+    return NAN;
+}
+
+size_t html_reconnect_count(const results_t *res, const char *key, double *per, size_t secs)
+{
+    json_t *w = results_section(res, "watches"), *ph, *v;
+    const char *name;
+    size_t n = 0, i;
+    json_object_foreach(w, name, ph)
+    {
+        double t0 = phase_start(res, name);
+        json_array_foreach(json_object_get(json_object_get(ph, "reconnect_log"), key), i, v)
+        {
+            double t = t0 + (double)json_integer_value(v) / 1e9;
+            if (isnan(t) || json_integer_value(v) <= 0 || t < 0 || t >= (double)secs)
+                continue;
+            per[(size_t)t]++;
+            n++;
+        }
+    }
+    return n;
+}
+
+size_t html_run_seconds(const results_t *res)
+{
+    double d = ceil((double)results_meta(res)->duration_ns / 1e9 - 1e-6);
+    return d >= 1 ? (size_t)d : 1;
+}
+
+size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap)
+{
+    static char labels[64][32]; /* the page is written by one thread */
+    size_t secs = html_run_seconds(res);
+    double *per = calloc(secs, sizeof(double));
+    if (!per)
+        return n;
+    html_reconnect_count(res, "ended_ns", per, secs);
+    for (size_t k = 0, used = 0; k < secs && n < cap && used < 64; k++)
+        if (per[k] > 0) {
+            snprintf(labels[used], sizeof labels[0], "%.0f dropped", per[k]);
+            m[n++] = (html_mark_t){(double)k, labels[used++], true};
+        }
+    free(per);
     return n;
 }
 
@@ -97,59 +158,157 @@ int html_class_style(const results_t *res, const char *cls)
     return (int)n;
 }
 
+/* Per-second arrays of one class over seconds 0..secs-1; NaN latency where nothing completed. */
 typedef struct {
-    double *x, *rate, *errors, *p50, *p99;
+    double *x, *completed, *errors, *p50, *p99, *p999;
 } per_second_t;
 
-/* Per-second arrays of one class over seconds 0..secs-1; NaN latency where nothing completed. */
 static int fill(const report_series_t *s, const char *cls, size_t secs, per_second_t *ps)
 {
-    double *all = calloc(5 * secs, sizeof(double));
+    double *all = calloc(6 * secs, sizeof(double));
     if (!all)
         return -1;
-    ps->x = all, ps->rate = all + secs, ps->errors = all + 2 * secs;
-    ps->p50 = all + 3 * secs, ps->p99 = all + 4 * secs;
+    ps->x = all, ps->completed = all + secs, ps->errors = all + 2 * secs;
+    ps->p50 = all + 3 * secs, ps->p99 = all + 4 * secs, ps->p999 = all + 5 * secs;
     for (size_t k = 0; k < secs; k++) {
         ps->x[k] = (double)k + 0.5;
-        ps->p50[k] = ps->p99[k] = NAN;
+        ps->p50[k] = ps->p99[k] = ps->p999[k] = NAN;
     }
     for (size_t i = 0; i < report_series_count(s); i++) {
         const report_row_t *r = report_series_at(s, i);
         if (strcmp(r->cls, cls) || r->second < 0 || (size_t)r->second >= secs)
             continue;
         size_t k = (size_t)r->second;
-        ps->rate[k] += (double)r->completed;
+        ps->completed[k] += (double)r->completed;
         ps->errors[k] += (double)r->errors;
-        if (r->completed > 0)
-            ps->p50[k] = r->p50_ms, ps->p99[k] = r->p99_ms;
+        if (r->completed > 0) /* a second two phases share: the slower of their rows */
+            ps->p50[k] = isnan(ps->p50[k]) ? r->p50_ms : fmax(ps->p50[k], r->p50_ms),
+            ps->p99[k] = isnan(ps->p99[k]) ? r->p99_ms : fmax(ps->p99[k], r->p99_ms),
+            ps->p999[k] = isnan(ps->p999[k]) ? r->p999_ms : fmax(ps->p999[k], r->p999_ms);
     }
     return 0;
 }
 
-static void plot_time(FILE *f, const char *title, const char *ylabel, bool ylog, html_line_t *l,
-                      size_t n, const html_mark_t *m, size_t nm)
+size_t html_class_p99(const report_series_t *s, const char *cls, double *x, double *y, size_t cap,
+                      bool *any)
 {
-    html_plot_t p = {.title = title,
-                     .xlabel = "time since the run started (s)",
-                     .ylabel = ylabel,
-                     .ylog = ylog,
-                     .yzero = !ylog};
-    fputs("<figure>\n", f);
-    html_plot(f, &p, l, n, m, nm);
-    fprintf(f, "<figcaption>");
-    html_esc(f, title);
-    fputs("</figcaption></figure>\n", f);
+    size_t n = 0;
+    *any = false;
+    for (size_t i = 0; i < report_series_count(s); i++) {
+        const report_row_t *r = report_series_at(s, i);
+        if (strcmp(r->cls, cls) || r->second < 0 || (size_t)r->second >= cap)
+            continue;
+        for (; n <= (size_t)r->second; n++)
+            x[n] = (double)n + 0.5, y[n] = NAN;
+        if (r->completed > 0) {
+            y[r->second] = isnan(y[r->second]) ? r->p99_ms : fmax(y[r->second], r->p99_ms);
+            *any = true;
+        }
+    }
+    return n;
 }
 
-/* A log axis when latencies span more than a factor of 50. */
-static bool wide(const per_second_t *ps, size_t n, size_t secs)
+/* The generator-bound seconds ("generator" section) as bands [s, s + 1). */
+size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap)
 {
-    double lo = INFINITY, hi = 0;
-    for (size_t c = 0; c < n; c++)
-        for (size_t k = 0; k < secs; k++)
-            if (!isnan(ps[c].p50[k]) && ps[c].p50[k] > 0)
-                lo = fmin(lo, ps[c].p50[k]), hi = fmax(hi, ps[c].p99[k]);
-    return hi > 50 * lo;
+    json_t *list = json_object_get(
+               json_object_get(results_section(res, "generator"), "generator_bound"), "list"),
+           *v;
+    size_t i, n = 0;
+    json_array_foreach(list, i, v)
+    {
+        if (n < cap && json_is_number(v))
+            b[n++] = (html_band_t){json_number_value(v), json_number_value(v) + 1};
+    }
+    return n;
+}
+
+html_plot_t html_time_plot(const results_t *res, size_t secs, html_band_t *bands, size_t cap,
+                           char *note, size_t note_cap)
+{
+    html_time_note(res, note, note_cap);
+    return (html_plot_t){.xlabel = "time since the run started (s)",
+                         .yzero = true,
+                         .bands = bands,
+                         .n_bands = html_bound_bands(res, bands, cap),
+                         .band_label = "generator-bound second",
+                         .xmin = 0,
+                         .xmax = (double)secs,
+                         .xnote = note};
+}
+
+void html_time_note(const results_t *res, char *buf, size_t cap)
+{
+    int64_t ms = results_meta(res)->start_unix_ms;
+    buf[0] = '\0';
+    if (ms > 0) {
+        time_t t = (time_t)(ms / 1000);
+        struct tm tm;
+        gmtime_r(&t, &tm);
+        strftime(buf, cap, "0 s = %Y-%m-%d %H:%M:%S UTC", &tm);
+    }
+}
+
+size_t html_thresholds(const results_t *res, const char *metric, const char *cls,
+                       html_threshold_t *out, size_t cap)
+{
+    json_t *checks = json_object_get(results_section(res, "objectives"), "checks"), *c;
+    size_t i, n = 0;
+    json_array_foreach(checks, i, c)
+    {
+        const char *text = json_string_value(json_object_get(c, "text")),
+                   *scope = json_string_value(json_object_get(c, "scope")),
+                   *ccls = json_string_value(json_object_get(c, "class"));
+        char m[32];
+        double pct;
+        if (!text || !scope || !ccls || strcmp(scope, "run") || strcmp(ccls, cls) ||
+            sscanf(text, "p%lf of %31s <=", &pct, m) != 2 || strcmp(m, metric))
+            continue;
+        double ms = json_number_value(json_object_get(c, "threshold"));
+        bool dup = false;
+        for (size_t k = 0; k < n; k++)
+            dup |= out[k].pct == pct && out[k].ms == ms;
+        if (!dup && n < cap) {
+            out[n] = (html_threshold_t){pct, ms, ""};
+            char v[32];
+            html_num(ms, v, sizeof v);
+            snprintf(out[n].label, sizeof out[n].label, "%s p%g objective: %s ms", cls, pct, v);
+            n++;
+        }
+    }
+    return n;
+}
+
+/* Planned starts, achieved starts and completions per second, every class added up. */
+static void offered(FILE *f, const report_series_t *s, size_t secs, html_plot_t *p,
+                    const html_mark_t *m, size_t nm)
+{
+    double *all = calloc(4 * secs, sizeof(double));
+    if (!all)
+        return;
+    double *x = all, *planned = all + secs, *started = all + 2 * secs, *done = all + 3 * secs;
+    bool any_planned = false;
+    for (size_t k = 0; k < secs; k++)
+        x[k] = (double)k + 0.5;
+    for (size_t i = 0; i < report_series_count(s); i++) {
+        const report_row_t *r = report_series_at(s, i);
+        if (r->second < 0 || (size_t)r->second >= secs)
+            continue;
+        if (!isnan(r->planned))
+            planned[r->second] += r->planned, any_planned = true;
+        started[r->second] += (double)r->started;
+        done[r->second] += (double)r->completed;
+    }
+    html_line_t l[] = {
+        {x, done, secs, "completed", 2, 0},
+        {x, started, secs, "started", 1, 0},
+        {x, planned, secs, "planned starts", 6, 1},
+    };
+    p->title = "Offered vs achieved: planned starts, starts and completions in each second "
+               "(every class; each list page completes on its own)";
+    p->ylabel = "requests per second";
+    html_figure(f, "offered", p, l, any_planned ? 3 : 2, m, nm);
+    free(all);
 }
 
 void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
@@ -168,129 +327,55 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
     }
     size_t secs = (size_t)last + 1;
     per_second_t ps[MAX_LINES] = {0};
-    html_line_t rate[MAX_LINES], errs[MAX_LINES], lat[2 * MAX_LINES];
+    html_line_t errs[MAX_LINES];
     html_mark_t marks[MAX_LINES * 4];
+    html_band_t bands[256];
     size_t nm = html_phase_marks(res, s, marks, MAX_LINES * 4);
-    char labels[2 * MAX_LINES][160];
+    char note[80];
+    html_plot_t p = html_time_plot(res, secs, bands, 256, note, sizeof note);
+    offered(f, s, secs, &p, marks, nm);
     size_t ok = 0;
-    for (size_t c = 0; c < nc && fill(s, cls[c], secs, &ps[c]) == 0; c++, ok++) {
+    for (size_t c = 0; c < nc && fill(s, cls[c], secs, &ps[c]) == 0; c++, ok++)
+        errs[c] = (html_line_t){ps[c].x, ps[c].errors, secs, cls[c],
+                                html_class_style(res, cls[c]), 0};
+    p.title = "Errors in each second, per class (every outcome but 2xx and 3xx)";
+    p.ylabel = "errors per second";
+    html_figure(f, "errors", &p, errs, ok, marks, nm);
+    /* Response time per class, its objectives' thresholds drawn as levels. */
+    for (size_t c = 0; c < ok; c++) {
+        bool any = false; /* a watch class completes no request: its own section shows it */
+        for (size_t k = 0; k < secs; k++)
+            any |= !isnan(ps[c].p50[k]);
+        if (!any)
+            continue;
         int st = html_class_style(res, cls[c]);
-        rate[c] = (html_line_t){ps[c].x, ps[c].rate, secs, cls[c], st, 0};
-        errs[c] = (html_line_t){ps[c].x, ps[c].errors, secs, cls[c], st, 0};
-        snprintf(labels[2 * c], sizeof labels[0], "%s p99", cls[c]);
-        snprintf(labels[2 * c + 1], sizeof labels[0], "%s p50", cls[c]);
-        lat[2 * c] = (html_line_t){ps[c].x, ps[c].p99, secs, labels[2 * c], st, 0};
-        lat[2 * c + 1] = (html_line_t){ps[c].x, ps[c].p50, secs, labels[2 * c + 1], st, 1};
+        html_line_t lat[] = {{ps[c].x, ps[c].p99, secs, "p99", st, 0},
+                             {ps[c].x, ps[c].p50, secs, "p50", st, 1},
+                             {ps[c].x, ps[c].p999, secs, "p99.9", st, 2}};
+        html_threshold_t thr[8];
+        html_level_t lv[8];
+        size_t nt = html_thresholds(res, "response", cls[c], thr, 8);
+        for (size_t k = 0; k < nt; k++)
+            lv[k] = (html_level_t){thr[k].ms, thr[k].label, -1};
+        char title[200];
+        snprintf(title, sizeof title, "Response time of %s in each second: p50, p99, p99.9",
+                 cls[c]);
+        html_plot_t q = p;
+        q.title = title;
+        q.ylabel = "response time (ms, log scale)";
+        q.ylog = true;
+        q.yzero = false;
+        q.levels = lv;
+        q.n_levels = nt;
+        fputs("<figure class=\"latency\">\n", f);
+        html_plot(f, &q, lat, report_series_has_p999(s) ? 3 : 2,
+                  marks, nm);
+        fputs("<figcaption>", f);
+        html_esc(f, title);
+        fputs(nt ? "; grey lines: the plan's objectives" : "", f);
+        fputs("</figcaption></figure>\n", f);
     }
-    plot_time(f, "Requests completed in each second, per class", "completed (requests/s)", false,
-              rate, ok, marks, nm);
-    plot_time(f, "Errors in each second, per class (every outcome but 2xx and 3xx)",
-              "errors (requests/s)", false, errs, ok, marks, nm);
-    plot_time(f, "Response time per second: p99 (solid) and p50 (dashed), per class",
-              "response time (ms)", wide(ps, ok, secs), lat, 2 * ok, marks, nm);
     for (size_t c = 0; c < ok; c++)
         free(ps[c].x);
     fputs("</section>\n", f);
-}
-
-/* Classes with a histogram of metric m (answered outcomes, every phase pooled). */
-static size_t metric_classes(const results_t *res, int m, const char **out, size_t cap)
-{
-    size_t n = 0;
-    for (size_t i = 0; i < results_cell_count(res); i++) {
-        const results_cell_t *c = results_cell_at(res, i);
-        if (!results_cell_hist_find(c, m) || !strcmp(results_cell_outcome(c), "cancelled"))
-            continue;
-        size_t k = 0;
-        while (k < n && strcmp(out[k], results_cell_class(c)))
-            k++;
-        if (k == n && n < cap)
-            out[n++] = results_cell_class(c);
-    }
-    return n;
-}
-
-size_t html_spectrum(const results_t *res, int m, const char *cls, hist_t *h, double *x, double *y)
-{
-    hist_reset(h);
-    for (size_t i = 0; i < results_cell_count(res); i++) {
-        const results_cell_t *c = results_cell_at(res, i);
-        const hist_t *ch = results_cell_hist_find(c, m);
-        if (ch && !strcmp(results_cell_class(c), cls) &&
-            strcmp(results_cell_outcome(c), "cancelled"))
-            hist_merge(h, ch);
-    }
-    int64_t count = hist_count(h);
-    size_t n = 0;
-    for (int k = 0; k < HTML_SPECTRUM_POINTS && count > 0; k++) {
-        double tail = pow(10, -k / 10.0);
-        if (k > 0 && 1 / tail > (double)count)
-            break;
-        x[n] = 100 * (1 - tail);
-        y[n] = (double)hist_value_at(h, x[n]) / 1e6;
-        n++;
-    }
-    return n;
-}
-
-static void spectrum_plot(FILE *f, const results_t *res, const char *metric, const char *title)
-{
-    int m = results_metric_from_name(metric);
-    const char *cls[MAX_LINES];
-    size_t nc = m >= 0 ? metric_classes(res, m, cls, MAX_LINES) : 0;
-    int64_t lo, hi;
-    int digits;
-    hist_t *h = NULL;
-    results_hist_config(res, &lo, &hi, &digits);
-    if (nc == 0 || hist_new(lo, hi, digits, &h))
-        return;
-    static double xs[MAX_LINES][HTML_SPECTRUM_POINTS], ys[MAX_LINES][HTML_SPECTRUM_POINTS];
-    html_line_t l[MAX_LINES];
-    for (size_t c = 0; c < nc; c++) {
-        int st = html_class_style(res, cls[c]);
-        size_t n = html_spectrum(res, m, cls[c], h, xs[c], ys[c]);
-        l[c] = (html_line_t){xs[c], ys[c], n, cls[c], st, st % 4};
-    }
-    hist_free(h);
-    char ylabel[64];
-    snprintf(ylabel, sizeof ylabel, "%s time (ms, log scale)", metric);
-    html_plot_t p = {.title = title,
-                     .xlabel = "percentile (spaced by 1/(1 - p))",
-                     .ylabel = ylabel,
-                     .xaxis = HTML_X_SPECTRUM,
-                     .ylog = true};
-    fprintf(f, "<figure id=\"spectrum-%s\">\n", metric);
-    html_plot(f, &p, l, nc, NULL, 0);
-    fputs("<figcaption>", f);
-    html_esc(f, title);
-    fputs("</figcaption></figure>\n", f);
-}
-
-void html_plots_spectrum(FILE *f, const results_t *res)
-{
-    fputs("<section id=\"spectrum\"><h2>Latency percentile spectrum</h2>\n"
-          "<p class=\"note\">From the full histograms (HDR, 3 significant digits), every phase "
-          "pooled; each line ends at the highest percentile its sample count resolves.</p>\n",
-          f);
-    spectrum_plot(f, res, "response", "Response time by percentile, per class (whole run)");
-    fputs("</section>\n", f);
-    int m = results_metric_from_name("propagation");
-    const char *cls[1];
-    if (m >= 0 && metric_classes(res, m, cls, 1)) {
-        fputs("<section id=\"propagation\"><h2>Propagation latency</h2>\n"
-              "<p class=\"note\">A write's send stamp to the moment a watcher saw its event "
-              "(wall clocks of writer and watcher).</p>\n",
-              f);
-        spectrum_plot(f, res, "propagation", "Propagation latency by percentile, per watch class");
-        fputs("</section>\n", f);
-    }
-    m = results_metric_from_name("open");
-    if (m >= 0 && metric_classes(res, m, cls, 1)) {
-        fputs("<section id=\"watch-open\"><h2>Watch open latency</h2>\n"
-              "<p class=\"note\">From a stream's intended open to its first body byte, "
-              "reconnects included.</p>\n",
-              f);
-        spectrum_plot(f, res, "open", "Watch open latency by percentile, per watch class");
-        fputs("</section>\n", f);
-    }
 }

@@ -6,6 +6,7 @@
 #include <string.h>
 
 #include "squall/err.h"
+#include "squall/hist.h"
 #include "squall/report.h"
 
 struct report_series {
@@ -14,6 +15,8 @@ struct report_series {
     char **names; /* phase and class strings, each kept once per row */
     size_t n_names, cap_names;
     bool has_p999; /* the file has the p999_ms column (files before it do not) */
+    report_heat_row_t *heat;
+    size_t n_heat, cap_heat;
 };
 
 enum col {
@@ -30,11 +33,14 @@ enum col {
     C_MAX,
     C__REQUIRED,
     C_P999 = C__REQUIRED, /* optional: added after the others */
+    C_PLANNED,
+    C_UNIX_MS,
     C__COUNT
 };
 static const char *const col_names[C__COUNT] = {
     "second", "phase",  "class",  "started", "completed", "rate_per_s",
     "errors", "p50_ms", "p90_ms", "p99_ms",  "max_ms",    "p999_ms",
+    "planned", "unix_ms",
 };
 
 int report_series_new(report_series_t **out)
@@ -51,6 +57,7 @@ void report_series_free(report_series_t *s)
         free(s->names[i]);
     free(s->names);
     free(s->rows);
+    free(s->heat);
     free(s);
 }
 
@@ -115,7 +122,7 @@ static bool number(const char *t, double *v)
 /* One data line into a row; false when a field is malformed. */
 static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, report_row_t *row)
 {
-    double v[C__COUNT] = {[C_P999] = NAN};
+    double v[C__COUNT] = {[C_P999] = NAN, [C_PLANNED] = NAN, [C_UNIX_MS] = 0};
     for (int c = 0; c < C__COUNT; c++) {
         if (idx[c] < 0 && c >= C__REQUIRED)
             continue;
@@ -136,6 +143,8 @@ static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, r
     row->p99_ms = v[C_P99];
     row->max_ms = v[C_MAX];
     row->p999_ms = v[C_P999];
+    row->planned = v[C_PLANNED];
+    row->unix_ms = (int64_t)v[C_UNIX_MS];
     return row->phase && row->cls;
 }
 
@@ -150,7 +159,7 @@ static int header(report_series_t *s, char *line, int *idx, const char *path, ou
                 idx[c] = (int)k;
         if (c == C_P999)
             s->has_p999 = idx[c] >= 0;
-        else if (idx[c] < 0) {
+        else if (c < C__REQUIRED && idx[c] < 0) {
             out_error(o, "%s:1: no column '%s' in the header", path, col_names[c]);
             return SQ_EPARSE;
         }
@@ -211,4 +220,77 @@ int report_series_read(const char *path, report_series_t **out, out_t *o)
     }
     *out = s;
     return 0;
+}
+
+double report_heat_edge(size_t k)
+{
+    return pow(10, -2 + (double)k / 4);
+}
+
+size_t report_series_heat_count(const report_series_t *s)
+{
+    return s->n_heat;
+}
+
+const report_heat_row_t *report_series_heat_at(const report_series_t *s, size_t i)
+{
+    return i < s->n_heat ? &s->heat[i] : NULL;
+}
+
+/* One series-hist.csv line (second,phase,class,unix_ms,histogram) into a heat row. */
+static int heat_line(report_series_t *s, char *line)
+{
+    char *f[8];
+    double sec;
+    hist_t *h = NULL;
+    if (split(line, f, 8) != 5 || !number(f[0], &sec) || hist_decode(f[4], &h) != 0)
+        return SQ_EPARSE;
+    if (s->n_heat == s->cap_heat) {
+        size_t cap = s->cap_heat ? 2 * s->cap_heat : 64;
+        report_heat_row_t *nh = realloc(s->heat, cap * sizeof(*nh));
+        if (!nh) {
+            hist_free(h);
+            return SQ_ENOMEM;
+        }
+        s->heat = nh;
+        s->cap_heat = cap;
+    }
+    report_heat_row_t *r = &s->heat[s->n_heat];
+    *r = (report_heat_row_t){.second = (int64_t)sec, .phase = keep(s, f[1]), .cls = keep(s, f[2])};
+    hist_iter_t it;
+    hist_iter_init(&it, h);
+    while (hist_iter_next(&it)) {
+        double ms = ((double)it.lo + (double)it.hi) / 2e6;
+        double k = floor((log10(fmax(ms, 1e-9)) + 2) * 4);
+        r->bins[(size_t)fmin(REPORT_HEAT_BINS - 1, fmax(0, k))] += (double)it.count;
+    }
+    hist_free(h);
+    if (!r->phase || !r->cls)
+        return SQ_ENOMEM;
+    s->n_heat++;
+    return 0;
+}
+
+int report_series_read_hist(report_series_t *s, const char *path, out_t *o)
+{
+    FILE *f = fopen(path, "r");
+    if (!f) {
+        out_error(o, "cannot read %s: %s", path, strerror(errno));
+        return SQ_EIO;
+    }
+    /* Lines hold an encoded histogram: read each whole, whatever its length. */
+    char *line = NULL;
+    size_t cap = 0;
+    int rc = 0;
+    for (size_t ln = 1; rc == 0 && getline(&line, &cap, f) > 0; ln++) {
+        if (ln == 1 || line[0] == '\n')
+            continue;
+        rc = heat_line(s, line);
+        if (rc == SQ_EPARSE)
+            out_error(o, "%s:%zu: malformed row (expected second,phase,class,unix_ms,histogram)",
+                      path, ln);
+    }
+    free(line);
+    fclose(f);
+    return rc;
 }

@@ -58,28 +58,40 @@ static void action_plot(FILE *f, const char *phase, json_t *a, double *buf)
     }
     const char *cls = json_string_value(json_object_get(a, "class"));
     char title[256];
-    snprintf(title, sizeof title, "Storm ticks of %s in phase %s (%s, every %.3g s)",
+    char period[32];
+    html_num(ms_of(a, "period_ns") / 1e3, period, sizeof period);
+    snprintf(title, sizeof title, "Storm ticks of %s in phase %s (%s, every %s s)",
              cls ? cls : "?", phase, json_string_value(json_object_get(a, "timing")) ?: "?",
-             ms_of(a, "period_ns") / 1e3);
-    html_line_t l[] = {
+             period);
+    /* Two plots, each on an axis that fits its timings: with `spread` timing the dispatch
+     * spread is the whole period and would flatten the response times beside it. */
+    html_line_t spans[] = {
         {x, spread, n, "dispatch spread (first to last write)", 0, 0},
         {x, burst, n, "burst (first write to last answer)", 1, 1},
-        {x, p99, n, "tick's response p99", 2, 2},
-        {x, p50, n, "tick's response p50", 3, 3},
+    };
+    html_line_t lat[] = {
+        {x, p99, n, "tick's response p99", 2, 0},
+        {x, p50, n, "tick's response p50", 3, 1},
     };
     html_plot_t p = {.title = title,
                      .xlabel = "tick time since the phase started (s)",
                      .ylabel = "duration (ms)",
                      .yzero = true};
-    fputs("<figure>\n", f);
-    html_plot(f, &p, l, 4, NULL, 0);
+    fputs("<figure class=\"ticks\">\n", f);
+    html_plot(f, &p, spans, 2, NULL, 0);
+    char t2[300];
+    snprintf(t2, sizeof t2, "%s: response times of each tick's requests", title);
+    p.title = t2;
+    p.ylabel = "response time (ms)";
+    html_plot(f, &p, lat, 2, NULL, 0);
+    char spread_max[32];
+    html_num(ms_of(a, "max_dispatch_spread_ns"), spread_max, sizeof spread_max);
     fprintf(f, "<figcaption>");
     html_esc(f, title);
     fprintf(f,
-            ": %lld requests over %zu ticks; widest dispatch spread %.2f ms; at most %lld in "
+            ": %lld requests over %zu ticks; widest dispatch spread %s ms; at most %lld in "
             "flight at once</figcaption></figure>\n",
-            (long long)json_integer_value(json_object_get(a, "requests")), n,
-            ms_of(a, "max_dispatch_spread_ns"),
+            (long long)json_integer_value(json_object_get(a, "requests")), n, spread_max,
             (long long)json_integer_value(json_object_get(a, "max_peak_in_flight")));
 }
 

@@ -55,9 +55,14 @@ static double ax_map(const axis_t *a, double v)
     return a->px0 + (v - a->lo) / span * (a->px1 - a->px0);
 }
 
+static bool xok(const html_plot_t *p, double x)
+{
+    return !isnan(x) && (p->xaxis != HTML_X_LOG || x > 0);
+}
+
 static double xval(const html_plot_t *p, double x)
 {
-    return p->xaxis == HTML_X_SPECTRUM ? -log10(1 - fmin(x, 99.9999) / 100) : x;
+    return p->xaxis == HTML_X_LOG ? log10(x) : x;
 }
 
 static bool yval(const html_plot_t *p, double y, double *out)
@@ -76,7 +81,7 @@ static void ranges(const html_plot_t *p, const html_line_t *l, size_t n, axis_t 
     for (size_t i = 0; i < n; i++)
         for (size_t k = 0; k < l[i].n; k++) {
             double yv;
-            if (!yval(p, l[i].y[k], &yv))
+            if (!yval(p, l[i].y[k], &yv) || !xok(p, l[i].x[k]))
                 continue;
             double xv = xval(p, l[i].x[k]);
             x->lo = fmin(x->lo, xv), x->hi = fmax(x->hi, xv);
@@ -86,10 +91,19 @@ static void ranges(const html_plot_t *p, const html_line_t *l, size_t n, axis_t 
         x->lo = 0, x->hi = 1;
     if (y->lo > y->hi)
         y->lo = 0, y->hi = 1;
-    if (p->xaxis == HTML_X_SPECTRUM)
-        x->lo = 0, x->hi = fmax(2, ceil(x->hi - 1e-9));
+    if (p->xaxis == HTML_X_LOG && p->xmax > p->xmin && p->xmin > 0) /* thresholds stay in view */
+        x->lo = fmin(x->lo, log10(p->xmin)), x->hi = fmax(x->hi, log10(p->xmax));
+    if (p->xaxis == HTML_X_LOG)
+        x->lo = floor(x->lo), x->hi = fmax(ceil(x->hi), x->lo + 1);
+    else if (p->xmax > p->xmin)
+        x->lo = p->xmin, x->hi = p->xmax;
     else
         x->lo = fmin(0, x->lo);
+    for (size_t i = 0; i < p->n_levels; i++) { /* thresholds stay in view */
+        double yv;
+        if (yval(p, p->levels[i].y, &yv))
+            y->lo = fmin(y->lo, yv), y->hi = fmax(y->hi, yv);
+    }
     if (p->yzero && !p->ylog)
         y->lo = fmin(0, y->lo);
     if (p->ylog)
@@ -108,12 +122,43 @@ static double nice_step(double span)
     return (n <= 1 ? 1 : n <= 2 ? 2 : n <= 5 ? 5 : 10) * mag;
 }
 
+void html_num(double v, char *buf, size_t cap)
+{
+    if (!isfinite(v)) {
+        snprintf(buf, cap, "-");
+        return;
+    }
+    if (fabs(v) >= 1000) { /* whole, with thousands separators */
+        char digits[40];
+        int n = snprintf(digits, sizeof digits, "%.0f", fabs(v)), o = 0;
+        if (v < 0 && (size_t)o + 1 < cap)
+            buf[o++] = '-';
+        for (int i = 0; i < n && (size_t)o + 2 < cap; i++) {
+            if (i > 0 && (n - i) % 3 == 0)
+                buf[o++] = ',';
+            buf[o++] = digits[i];
+        }
+        buf[o] = '\0';
+        return;
+    }
+    if (fabs(v) < 1e-12) {
+        snprintf(buf, cap, "0");
+        return;
+    }
+    int decimals = (int)fmax(0, 2 - floor(log10(fabs(v)))); /* three significant digits */
+    snprintf(buf, cap, "%.*f", decimals, v);
+    if (strchr(buf, '.')) { /* no trailing zeros */
+        char *e = buf + strlen(buf) - 1;
+        while (*e == '0')
+            *e-- = '\0';
+        if (*e == '.')
+            *e = '\0';
+    }
+}
+
 static void tick_label(double v, char *buf, size_t cap)
 {
-    if (fabs(v) >= 1e4 || (fabs(v) < 1e-3 && v != 0))
-        snprintf(buf, cap, "%.0e", v);
-    else
-        snprintf(buf, cap, "%g", fabs(v) < 1e-12 ? 0 : v);
+    html_num(v, buf, cap);
 }
 
 static void yticks(FILE *f, const html_plot_t *p, const axis_t *y)
@@ -132,16 +177,12 @@ static void yticks(FILE *f, const html_plot_t *p, const axis_t *y)
 
 static void xticks(FILE *f, const html_plot_t *p, const axis_t *x)
 {
-    static const char *const spectrum[] = {"p0", "p90", "p99", "p99.9", "p99.99", "p99.999"};
-    bool sp = p->xaxis == HTML_X_SPECTRUM;
-    double step = sp ? 1 : nice_step(x->hi - x->lo);
+    bool lg = p->xaxis == HTML_X_LOG;
+    double step = lg ? 1 : nice_step(x->hi - x->lo);
     for (double v = ceil(x->lo / step) * step; v <= x->hi + 1e-9 * step; v += step) {
         double px = ax_map(x, v);
         char lab[32];
-        if (sp)
-            snprintf(lab, sizeof lab, "%s", spectrum[(int)fmin(v, 5)]);
-        else
-            tick_label(v, lab, sizeof lab);
+        tick_label(lg ? pow(10, v) : v, lab, sizeof lab);
         fprintf(f, "<line class=\"tick\" x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\"/>", px, px,
                 H - BOTTOM, H - BOTTOM + 5);
         fprintf(f, "<text class=\"tick\" x=\"%.1f\" y=\"%.1f\" text-anchor=\"middle\">%s</text>\n",
@@ -186,7 +227,7 @@ static void line(FILE *f, const html_plot_t *p, const html_line_t *l, const axis
     bool pen = false;
     for (size_t k = 0; k < l->n; k++) {
         double yv;
-        if (!yval(p, l->y[k], &yv)) {
+        if (!yval(p, l->y[k], &yv) || !xok(p, l->x[k])) {
             pen = false;
             continue;
         }
@@ -201,7 +242,8 @@ static void line(FILE *f, const html_plot_t *p, const html_line_t *l, const axis
         double yv, nb;
         bool alone =
             (k == 0 || !yval(p, l->y[k - 1], &nb)) && (k + 1 == l->n || !yval(p, l->y[k + 1], &nb));
-        if (yval(p, l->y[k], &yv) && (alone || k % every == (size_t)l->style % every))
+        if (yval(p, l->y[k], &yv) && xok(p, l->x[k]) &&
+            (alone || k % every == (size_t)l->style % every))
             marker(f, l->style, ax_map(x, xval(p, l->x[k])), ax_map(y, yv));
     }
     fputs("</g>\n", f);
@@ -224,55 +266,187 @@ static void legend(FILE *f, const html_line_t *l, size_t n)
     }
 }
 
-void html_plot(FILE *f, const html_plot_t *p, const html_line_t *lines, size_t n_lines,
-               const html_mark_t *marks, size_t n_marks)
+/* The svg element, its axes, frame, bands, levels and marks; lines or cells are drawn after. */
+static void frame(FILE *f, const html_plot_t *p, const char *cls, const axis_t *x,
+                  const axis_t *y, double total_h, const html_mark_t *marks, size_t n_marks)
 {
-    axis_t x = {.px0 = LEFT, .px1 = W - RIGHT}, y = {.px0 = H - BOTTOM, .px1 = TOP, .log = p->ylog};
-    ranges(p, lines, n_lines, &x, &y);
-    double total_h = H + 8 + LEGEND_ROW * (double)((n_lines + LEGEND_COLS - 1) / LEGEND_COLS);
     fprintf(f,
-            "<svg class=\"plot\" xmlns=\"http://www.w3.org/2000/svg\" viewBox=\"0 0 %.0f %.0f\" "
+            "<svg class=\"%s\" xmlns=\"http://www.w3.org/2000/svg\" viewBox=\"0 0 %.0f %.0f\" "
             "role=\"img\" aria-label=\"",
-            W, total_h);
+            cls, W, total_h);
     html_esc(f, p->title);
     fputs("\">\n<title>", f);
     html_esc(f, p->title);
-    fputs("</title>\n<g class=\"axis y\">", f);
-    yticks(f, p, &y);
+    fputs("</title>\n", f);
+    for (size_t i = 0; i < p->n_bands; i++) { /* behind everything else */
+        double a = fmax(LEFT, ax_map(x, xval(p, p->bands[i].x0)));
+        double b = fmin(W - RIGHT, ax_map(x, xval(p, p->bands[i].x1)));
+        if (b > a)
+            fprintf(f,
+                    "<rect class=\"band\" x=\"%.1f\" y=\"%.1f\" width=\"%.1f\" "
+                    "height=\"%.1f\"/>\n",
+                    a, TOP, b - a, H - BOTTOM - TOP);
+    }
+    fputs("<g class=\"axis y\">", f);
+    yticks(f, p, y);
     fprintf(f,
             "<text class=\"axis-label\" transform=\"translate(16 %.1f) rotate(-90)\" "
             "text-anchor=\"middle\">",
             (TOP + H - BOTTOM) / 2);
     html_esc(f, p->ylabel);
     fputs("</text></g>\n<g class=\"axis x\">", f);
-    xticks(f, p, &x);
+    xticks(f, p, x);
     fprintf(f, "<text class=\"axis-label\" x=\"%.1f\" y=\"%.1f\" text-anchor=\"middle\">",
             (LEFT + W - RIGHT) / 2, H - 8);
     html_esc(f, p->xlabel);
+    fputs("</text>", f);
+    if (p->xnote) {
+        fprintf(f, "<text class=\"axis-note\" x=\"%.1f\" y=\"%.1f\" text-anchor=\"end\">",
+                W - RIGHT, H - 8);
+        html_esc(f, p->xnote);
+        fputs("</text>", f);
+    }
     fprintf(f,
-            "</text></g>\n<rect class=\"frame\" x=\"%.1f\" y=\"%.1f\" width=\"%.1f\" "
+            "</g>\n<rect class=\"frame\" x=\"%.1f\" y=\"%.1f\" width=\"%.1f\" "
             "height=\"%.1f\"/>\n",
             LEFT, TOP, W - LEFT - RIGHT, H - BOTTOM - TOP);
+    for (size_t i = 0; i < p->n_levels; i++) {
+        double yv;
+        if (!yval(p, p->levels[i].y, &yv))
+            continue;
+        double py = ax_map(y, yv);
+        const char *c = p->levels[i].style < 0 ? "#555" : palette[p->levels[i].style % 8];
+        fprintf(f,
+                "<g class=\"level\"><line x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\" "
+                "stroke=\"%s\"/><text x=\"%.1f\" y=\"%.1f\" text-anchor=\"end\" fill=\"%s\">",
+                LEFT, W - RIGHT, py, py, c, W - RIGHT - 4, py - 4 < TOP + 12 ? py + 14 : py - 4, c);
+        html_esc(f, p->levels[i].label);
+        fputs("</text></g>\n", f);
+    }
     /* Labels that would run into the one before them go one row lower (three rows; about 6.5 px
      * per character at the style sheet's size); marks outside the x range are left out. */
     double row_end[3] = {-1e9, -1e9, -1e9};
     for (size_t i = 0; i < n_marks; i++) {
-        double px = ax_map(&x, xval(p, marks[i].x));
+        if (!xok(p, marks[i].x))
+            continue;
+        double px = ax_map(x, xval(p, marks[i].x));
         if (!(px >= LEFT - 0.5 && px <= W - RIGHT + 0.5))
             continue;
         int row = 0;
         while (row < 2 && px < row_end[row])
             row++;
-        row_end[row] = px + 8 + 6.5 * (double)strlen(marks[i].label ? marks[i].label : "");
+        double width = 6.5 * (double)strlen(marks[i].label ? marks[i].label : "");
+        bool left = px + 3 + width > W; /* a label that would run off the right: left of its line */
+        row_end[row] = left ? px + 8 : px + 8 + width;
         fprintf(f,
-                "<g class=\"mark\"><line x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\"/>"
-                "<text x=\"%.1f\" y=\"%.1f\">",
-                px, px, TOP, H - BOTTOM, px + 3, TOP - 6 + 14.0 * row);
+                "<g class=\"mark%s\"><line x1=\"%.1f\" x2=\"%.1f\" y1=\"%.1f\" y2=\"%.1f\"/>"
+                "<text x=\"%.1f\" y=\"%.1f\"%s>",
+                marks[i].alert ? " drop" : "", px, px, TOP, H - BOTTOM, left ? px - 3 : px + 3,
+                TOP - 6 + 14.0 * row, left ? " text-anchor=\"end\"" : "");
         html_esc(f, marks[i].label);
         fputs("</text></g>\n", f);
     }
+}
+
+void html_plot(FILE *f, const html_plot_t *p, const html_line_t *lines, size_t n_lines,
+               const html_mark_t *marks, size_t n_marks)
+{
+    axis_t x = {.px0 = LEFT, .px1 = W - RIGHT}, y = {.px0 = H - BOTTOM, .px1 = TOP, .log = p->ylog};
+    ranges(p, lines, n_lines, &x, &y);
+    size_t entries = n_lines + (p->n_bands > 0);
+    double total_h = H + 8 + LEGEND_ROW * (double)((entries + LEGEND_COLS - 1) / LEGEND_COLS);
+    frame(f, p, "plot", &x, &y, total_h, marks, n_marks);
     for (size_t i = 0; i < n_lines; i++)
         line(f, p, &lines[i], &x, &y);
     legend(f, lines, n_lines);
+    if (p->n_bands > 0) { /* the bands' legend entry, after the lines' */
+        double colw = (W - LEFT - RIGHT) / LEGEND_COLS;
+        double lx = LEFT + (double)(n_lines % LEGEND_COLS) * colw;
+        double ly = H + 4 + (double)(n_lines / LEGEND_COLS) * LEGEND_ROW;
+        fprintf(f,
+                "<g class=\"legend\"><rect class=\"band key\" x=\"%.1f\" y=\"%.1f\" width=\"30\" "
+                "height=\"12\"/><text x=\"%.1f\" y=\"%.1f\">",
+                lx, ly - 6, lx + 38, ly + 4);
+        html_esc(f, p->band_label ? p->band_label : "shaded");
+        fputs("</text></g>\n", f);
+    }
     fputs("</svg>\n", f);
+}
+
+/* A cell's shade: from a pale to a deep blue as log(count) goes from 0 to log(max). */
+static void shade(double count, double max, char *buf, size_t cap)
+{
+    double t = max > 1 ? log(count) / log(max) : 1;
+    t = 0.12 + 0.88 * fmin(1, fmax(0, t));
+    static const double lo[3] = {0xe8, 0xf1, 0xf8}, hi[3] = {0x08, 0x30, 0x6b};
+    snprintf(buf, cap, "#%02x%02x%02x", (int)(lo[0] + (hi[0] - lo[0]) * t),
+             (int)(lo[1] + (hi[1] - lo[1]) * t), (int)(lo[2] + (hi[2] - lo[2]) * t));
+}
+
+void html_heat(FILE *f, const html_plot_t *p, const html_heat_t *h, const html_mark_t *marks,
+               size_t n_marks)
+{
+    axis_t x = {.px0 = LEFT, .px1 = W - RIGHT}, y = {.px0 = H - BOTTOM, .px1 = TOP, .log = p->ylog};
+    double max = 0;
+    size_t ylo = h->ny, yhi = 0; /* the rows with any count */
+    for (size_t ix = 0; ix < h->nx; ix++)
+        for (size_t iy = 0; iy < h->ny; iy++)
+            if (h->count[ix * h->ny + iy] > 0) {
+                max = fmax(max, h->count[ix * h->ny + iy]);
+                ylo = iy < ylo ? iy : ylo;
+                yhi = iy > yhi ? iy : yhi;
+            }
+    if (ylo > yhi)
+        ylo = 0, yhi = h->ny ? h->ny - 1 : 0;
+    x.lo = fmin(0, h->x0), x.hi = h->x0 + h->dx * (double)h->nx;
+    yval(p, h->yedge[ylo], &y.lo);
+    yval(p, h->yedge[yhi + 1], &y.hi);
+    if (y.hi <= y.lo)
+        y.hi = y.lo + 1;
+    frame(f, p, "plot heat", &x, &y, H + 8 + LEGEND_ROW, marks, n_marks);
+    fputs("<g class=\"heat\">", f);
+    for (size_t ix = 0; ix < h->nx; ix++)
+        for (size_t iy = ylo; iy <= yhi; iy++) {
+            double c = h->count[ix * h->ny + iy], y0, y1;
+            if (c <= 0 || !yval(p, h->yedge[iy], &y0) || !yval(p, h->yedge[iy + 1], &y1))
+                continue;
+            double px0 = ax_map(&x, h->x0 + h->dx * (double)ix), px1 = ax_map(&x, h->x0 + h->dx * (double)(ix + 1));
+            double py0 = ax_map(&y, y1), py1 = ax_map(&y, y0);
+            char col[8];
+            shade(c, max, col, sizeof col);
+            fprintf(f, "<rect x=\"%.1f\" y=\"%.1f\" width=\"%.1f\" height=\"%.1f\" fill=\"%s\">"
+                       "<title>%.0f</title></rect>",
+                    px0, py0, fmax(0.5, px1 - px0), fmax(0.5, py1 - py0), col, c);
+        }
+    fputs("</g>\n", f);
+    /* The shade scale: 1 to the largest count, log spaced, as a row of swatches. */
+    fprintf(f, "<g class=\"legend scale\"><text x=\"%.1f\" y=\"%.1f\">requests per cell:</text>",
+            LEFT, H + 8);
+    for (int i = 0; i <= 5; i++) {
+        double c = max > 1 ? pow(max, i / 5.0) : 1;
+        char col[8], lab[32];
+        shade(c, max, col, sizeof col);
+        html_num(round(c), lab, sizeof lab);
+        double sx = LEFT + 150 + 90.0 * i;
+        fprintf(f,
+                "<rect x=\"%.1f\" y=\"%.1f\" width=\"24\" height=\"12\" fill=\"%s\"/>"
+                "<text x=\"%.1f\" y=\"%.1f\">%s</text>",
+                sx, H - 2, col, sx + 28, H + 8, lab);
+        if (max <= 1)
+            break;
+    }
+    fputs("</g>\n</svg>\n", f);
+}
+
+void html_figure(FILE *f, const char *cls, const html_plot_t *p, const html_line_t *lines,
+                 size_t n_lines, const html_mark_t *marks, size_t n_marks)
+{
+    if (cls)
+        fprintf(f, "<figure class=\"%s\">\n", cls);
+    else
+        fputs("<figure>\n", f);
+    html_plot(f, p, lines, n_lines, marks, n_marks);
+    fputs("<figcaption>", f);
+    html_esc(f, p->title);
+    fputs("</figcaption></figure>\n", f);
 }

@@ -68,11 +68,37 @@ static double ms(int64_t ns)
     return (double)ns / 1e6;
 }
 
+/* The exact status codes answered, in increasing order: "200: 812, 429: 20, 503: 31". */
+static void status_cell(FILE *f, results_counters_t *k)
+{
+    fputs("<td class=\"codes\">", f);
+    bool any = false;
+    for (int done = 0; done < RESULTS_STATUS_MAX; done++) {
+        size_t best = RESULTS_STATUS_MAX;
+        for (size_t j = 0; j < RESULTS_STATUS_MAX; j++)
+            if (k->status[j].code && (best == RESULTS_STATUS_MAX ||
+                                      k->status[j].code < k->status[best].code))
+                best = j;
+        if (best == RESULTS_STATUS_MAX)
+            break;
+        char n[32];
+        html_num((double)k->status[best].n, n, sizeof n);
+        fprintf(f, "%s<span class=\"code c%d\">%d</span>: %s", any ? ", " : "",
+                k->status[best].code / 100, k->status[best].code, n);
+        k->status[best].code = 0;
+        any = true;
+    }
+    if (k->status_other)
+        fprintf(f, "%sother codes: %lld", any ? ", " : "", (long long)k->status_other);
+    fputs(any || k->status_other ? "</td>" : "-</td>", f);
+}
+
 static void row(FILE *f, const results_t *res, const char *phase, const char *cls, double secs,
                 hist_t *h)
 {
     int64_t count = 0, errors = 0, cancelled = 0;
     char kinds[512] = "";
+    results_counters_t codes = {0}; /* every outcome's exact status codes */
     hist_reset(h);
     for (size_t i = 0; i < results_cell_count(res); i++) {
         const results_cell_t *c = results_cell_at(res, i);
@@ -85,6 +111,10 @@ static void row(FILE *f, const results_t *res, const char *phase, const char *cl
             continue;
         }
         count += n;
+        const results_counters_t *k = results_cell_counters((results_cell_t *)c);
+        for (size_t j = 0; j < RESULTS_STATUS_MAX; j++)
+            results_status_add(&codes, k->status[j].code, k->status[j].n);
+        codes.status_other += k->status_other;
         const hist_t *rh = results_cell_hist_find(c, RESULTS_M_RESPONSE);
         if (rh)
             hist_merge(h, rh);
@@ -116,6 +146,7 @@ static void row(FILE *f, const results_t *res, const char *phase, const char *cl
             fprintf(f, "<td class=\"n\">%.2f</td>", ms(hist_value_at(h, pct[k])));
         else
             fputs("<td class=\"n\">-</td>", f);
+    status_cell(f, &codes);
     fputs("</tr>\n", f);
 }
 
@@ -128,7 +159,8 @@ void html_tables(FILE *f, const results_t *res, const report_series_t *s)
     fputs("<section id=\"tables\"><h2>Per phase and class</h2>\n<p class=\"note\">Response time "
           "(ms) from each request's intended start, over every answered request (errors "
           "included); rate = answered requests per second of the phase. Watch classes count the "
-          "events they received; their latency is in the sections below.</p>\n",
+          "events they received; their latency is in the sections below. Status codes: every "
+          "answer's exact HTTP code (results.json cells' \"status\").</p>\n",
           f);
     if (hist_new(lo, hi, digits, &h)) {
         fputs("</section>\n", f);
@@ -145,7 +177,7 @@ void html_tables(FILE *f, const results_t *res, const report_series_t *s)
         fputs("</h3>\n<table class=\"cells\"><tr><th>class</th><th class=\"n\">requests</th>"
               "<th class=\"n\">per s</th><th class=\"n\">errors</th><th>errors by kind</th>"
               "<th class=\"n\">p50</th><th class=\"n\">p90</th><th class=\"n\">p99</th>"
-              "<th class=\"n\">p99.9</th><th class=\"n\">max</th></tr>\n",
+              "<th class=\"n\">p99.9</th><th class=\"n\">max</th><th>status codes</th></tr>\n",
               f);
         size_t nc = names(res, phases[p], classes, 256);
         for (size_t c = 0; c < nc; c++)

@@ -21,13 +21,21 @@ const char html_css[] =
     ".pass{color:#005a8c;font-weight:700}.fail{color:#b34700;font-weight:700}\n"
     ".banner{padding:10px 14px;margin:12px 0;border-left:6px solid;font-weight:600}\n"
     ".banner.good{border-color:#0072B2;background:#eaf3fa}.banner.bad{border-color:#D55E00;"
-    "background:#fbeee6}\n"
+    "background:#fbeee6}.banner.unsure{border-color:#E69F00;background:#fdf5e1}\n"
+    ".banner .word{font-size:20px;margin:0}.banner .limit,"
+    ".banner ul{font-weight:400;margin:6px 0 0}\n"
+    "table.runs td{word-break:break-all}tr.same td.v{color:#555}tr.untested td{color:#777;font-style:italic}"
+    "tr.untested td.v{background:#f2f2f2}\n"
+    "td.codes .c4,td.codes .c5{color:#b34700;font-weight:600}\n"
     ".note{color:#555;font-size:13px}figure{margin:12px 0 24px}figcaption{font-size:13px;"
     "color:#444}\n"
     "svg.plot{width:100%;height:auto;font:12px system-ui,sans-serif}\n"
     "svg .grid{stroke:#e6e6e6}svg .tick{stroke:#888;fill:#333}svg text.tick{stroke:none}\n"
     "svg .frame{fill:none;stroke:#999}svg .axis-label{font-size:13px;fill:#222}\n"
     "svg .mark line{stroke:#666;stroke-dasharray:3 3}svg .mark text{font-size:11px;fill:#444}\n"
+    "svg .mark.drop line{stroke:#D55E00;stroke-dasharray:none}svg .mark.drop text{fill:#D55E00}"
+    "svg .band{fill:#D55E00;fill-opacity:.16}svg .level line{stroke-dasharray:8 3 2 3;"
+    "stroke-width:1.4}svg .level text{font-size:11px}svg .axis-note{font-size:11px;fill:#555}\n"
     "svg .legend text{font-size:12px;fill:#222}pre{background:#f6f6f6;padding:8px;"
     "overflow:auto;max-height:320px}\n";
 
@@ -91,30 +99,53 @@ static void header(FILE *f, const results_t *res)
         fputs(json_array_size(json_object_get(run, "overrides")) ? "</td></tr>\n"
                                                                    : "none</td></tr>\n",
               f);
-        snprintf(buf, sizeof buf, "%s (exit %lld)", jstr(run, "verdict") ? jstr(run, "verdict") : "?",
-                 (long long)json_integer_value(json_object_get(run, "exit_code")));
-        kv(f, "verdict", buf);
+        kv(f, "verdict", jstr(run, "verdict"));
+        snprintf(buf, sizeof buf, "%lld", (long long)json_integer_value(json_object_get(run, "exit_code")));
+        kv(f, "exit code", buf);
     }
     fputs("</table>\n", f);
 }
 
-/* The run's verdict and its reasons (the "run" section), before any figure. */
+/* Seconds of a bound ("generator_bound" or "connection_bound") in the "generator" section. */
+static double bound_seconds(const results_t *res, const char *kind)
+{
+    return jnum(json_object_get(results_section(res, "generator"), kind), "seconds");
+}
+
+/* The run's verdict and its reasons (the "run" section), before any figure. The limits of the
+ * generator and of the connections are written inside it: a PASS reached with seconds the plan
+ * accepted is shown as a qualified pass, never as a clean one above a warning. */
 static void verdict(FILE *f, const results_t *res)
 {
     json_t *run = results_section(res, "run"), *r;
     const char *v = run ? jstr(run, "verdict") : NULL;
     size_t i;
     if (!v) {
-        fputs("<div class=\"banner bad\">No verdict: results.json has no \"run\" section "
-              "(merged or written by an older squall).</div>\n",
+        fputs("<div class=\"banner bad\" id=\"verdict\"><p class=\"word\">NO VERDICT: "
+              "results.json has no \"run\" section (merged or written by an older "
+              "squall).</p></div>\n",
               f);
         return;
     }
-    bool pass = !strcmp(v, "pass");
-    fprintf(f, "<div class=\"banner %s\" id=\"verdict\">%s</div>\n", pass ? "good" : "bad",
-            pass                   ? "PASS: the planned load was offered and every objective held."
-            : !strcmp(v, "fail")   ? "FAIL: at least one objective did not hold."
-                                   : "INCONCLUSIVE: the evidence cannot support a pass.");
+    bool pass = !strcmp(v, "pass"), fail = !strcmp(v, "fail");
+    double gs = bound_seconds(res, "generator_bound"), cs = bound_seconds(res, "connection_bound");
+    const char *tone = fail ? "bad" : !pass ? "unsure" : gs > 0 || cs > 0 ? "unsure" : "good";
+    fprintf(f, "<div class=\"banner %s\" id=\"verdict\" data-verdict=\"%s\"><p class=\"word\">%s</p>",
+            tone, v,
+            pass   ? "PASS: every objective held."
+            : fail ? "FAIL: at least one objective did not hold."
+                   : "INCONCLUSIVE: the evidence cannot support a pass.");
+    if (gs > 0)
+        fprintf(f, "<div class=\"limit\" id=\"limit-generator\">GENERATOR-BOUND for %.0f s: "
+                   "squall itself fell behind its schedule (shaded on the plots over time); "
+                   "the target's figures for those seconds are not evidence.%s</div>",
+                gs, pass ? " The plan accepts them, so the pass rests on the other seconds." : "");
+    if (cs > 0)
+        fprintf(f, "<div class=\"limit\" id=\"limit-connection\">CONNECTION-BOUND for %.0f s: "
+                   "the target answered so slowly that every connection of the plan was busy; times measured from each request's "
+                   "intended start remain a correct verdict on the target, but less load was "
+                   "offered than planned (raise target.connections).</div>",
+                cs);
     static const char *const lists[] = {"reasons", "accepted"};
     for (size_t l = 0; l < 2; l++) {
         if (json_array_size(json_object_get(run, lists[l])) == 0)
@@ -128,6 +159,7 @@ static void verdict(FILE *f, const results_t *res)
         }
         fputs("</ul>\n", f);
     }
+    fputs("</div>\n", f);
 }
 
 /* The brakes in force (the "brakes" section), one line each. */
@@ -171,20 +203,10 @@ static void generator(FILE *f, const results_t *res)
     }
     json_t *gb = json_object_get(g, "generator_bound"), *cb = json_object_get(g, "connection_bound");
     double gs = jnum(gb, "seconds"), cs = jnum(cb, "seconds");
-    if (gs > 0)
-        fputs("<div class=\"banner bad\">GENERATOR-BOUND: squall itself fell behind its schedule "
-              "in the seconds below; the target's figures for them are not evidence.</div>\n",
-              f);
-    if (cs > 0)
-        fputs("<div class=\"banner bad\">CONNECTION-BOUND: the target answered so slowly that "
-              "every connection of the plan was busy; times measured from each request's "
-              "intended start remain a correct verdict on the target. Raise target.connections "
-              "to offer more load.</div>\n",
-              f);
-    if (gs == 0 && cs == 0)
-        fputs("<div class=\"banner good\">squall offered the planned load: it kept its schedule "
-              "and never waited for a connection.</div>\n",
-              f);
+    fputs(gs == 0 && cs == 0 ? "<p>squall offered the planned load: it kept its schedule and never "
+                               "waited for a connection.</p>\n"
+                             : "<p>The limits below are part of the verdict above.</p>\n",
+          f);
     fputs("<table class=\"meta\">\n", f);
     char buf[160];
     static const char *const kinds[] = {"generator-bound", "connection-bound"};
@@ -301,7 +323,9 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
     generator(f, res);
     html_tables(f, res, s);
     html_plots_time(f, res, s);
-    html_plots_spectrum(f, res);
+    html_plots_heat(f, res, s);
+    html_plots_tails(f, res);
+    html_watches(f, res);
     html_storms(f, res);
     html_metrics(f, res, s);
     html_actions(f, res);
@@ -339,6 +363,14 @@ int report_html_write_dir(const char *dir, const results_t *res, out_t *o)
     out_free(quiet);
     if (read != 0 && report_series_new(&s) != 0)
         return SQ_ENOMEM;
+    snprintf(series, sizeof series, "%s/%s", dir, RESULTS_SERIES_HIST_FILE);
+    quiet = out_new_capture(); /* without series-hist.csv the heat maps are left out */
+    if (read == 0 && report_series_read_hist(s, series, quiet ? quiet : o) == SQ_EPARSE && quiet) {
+        const char *why = out_captured_diag(quiet), *e = strstr(why, "error: ");
+        why = e ? e + strlen("error: ") : why;
+        out_warn(o, "heat maps are left out: %.*s", (int)strcspn(why, "\n"), why);
+    }
+    out_free(quiet);
     int rc = file_write_atomic(path, fill_page, &(page_t){res, s}, o);
     report_series_free(s);
     return rc;

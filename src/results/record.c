@@ -17,6 +17,8 @@ void results_record(results_cell_t *c, const results_sample_t *s)
     k->count++;
     k->bytes_in += s->bytes_in;
     k->bytes_out += s->bytes_out;
+    if (s->status > 0)
+        results_status_add(k, s->status, 1);
     if (!s->done_ns)
         return; /* counted, not timed */
     add(c, RESULTS_M_RESPONSE, s->done_ns - s->intended_ns);
@@ -31,4 +33,17 @@ void results_record(results_cell_t *c, const results_sample_t *s)
         add(c, RESULTS_M_TLS, s->tls_ns);
     if (s->first_byte_ns > 0)
         add(c, RESULTS_M_FIRST_BYTE, s->first_byte_ns);
+}
+
+void results_status_add(results_counters_t *k, int code, int64_t n)
+{
+    if (code < 100 || code > 999 || n <= 0)
+        return;
+    for (size_t i = 0; i < RESULTS_STATUS_MAX; i++)
+        if (k->status[i].code == code || k->status[i].code == 0) {
+            k->status[i].code = code;
+            k->status[i].n += n;
+            return;
+        }
+    k->status_other += n;
 }

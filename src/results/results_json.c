@@ -41,10 +41,23 @@ static json_t *cell_json(const results_cell_t *c)
         json_object_set_new(summary, results_metric_name(m), summary_json(c->hists[m]));
         free(text);
     }
-    return json_pack("{s:s, s:s, s:s, s:I, s:I, s:I, s:o, s:o}", "phase", c->phase, "class",
-                     c->class_name, "outcome", c->outcome, "count", (json_int_t)c->counters.count,
-                     "bytes_in", (json_int_t)c->counters.bytes_in, "bytes_out",
-                     (json_int_t)c->counters.bytes_out, "hist", hists, "summary", summary);
+    json_t *cj = json_pack("{s:s, s:s, s:s, s:I, s:I, s:I, s:o, s:o}", "phase", c->phase, "class",
+                           c->class_name, "outcome", c->outcome, "count",
+                           (json_int_t)c->counters.count, "bytes_in",
+                           (json_int_t)c->counters.bytes_in, "bytes_out",
+                           (json_int_t)c->counters.bytes_out, "hist", hists, "summary", summary);
+    json_t *st = json_object(); /* {"429": 12, "503": 3}, when any answer had a code */
+    for (size_t k = 0; st && k < RESULTS_STATUS_MAX && c->counters.status[k].code; k++) {
+        char code[8];
+        snprintf(code, sizeof code, "%d", c->counters.status[k].code);
+        json_object_set_new(st, code, json_integer(c->counters.status[k].n));
+    }
+    if (st && c->counters.status_other)
+        json_object_set_new(st, "other", json_integer(c->counters.status_other));
+    if (cj && st && json_object_size(st))
+        json_object_set(cj, "status", st);
+    json_decref(st);
+    return cj;
 fail:
     json_decref(hists);
     json_decref(summary);
@@ -298,6 +311,23 @@ static int read_cell(reader_t *rd, json_t *jc, size_t ci, results_t *r)
         (rc = req_int(rd, jc, "bytes_in", where, 0, &c->counters.bytes_in)) ||
         (rc = req_int(rd, jc, "bytes_out", where, 0, &c->counters.bytes_out)))
         return rc;
+    json_t *st = json_object_get(jc, "status"), *n; /* optional: written since 0.1 */
+    const char *code;
+    if (st && !json_is_object(st))
+        return bad(rd, SQ_EPARSE, "%s.status: expected an object", where);
+    json_object_foreach(st, code, n)
+    {
+        char *end;
+        long v = strtol(code, &end, 10);
+        if (!json_is_integer(n) || json_integer_value(n) < 0 ||
+            (strcmp(code, "other") && (*end || v < 100 || v > 999)))
+            return bad(rd, SQ_EPARSE, "%s.status.%s: expected a count under a status code", where,
+                       code);
+        if (!strcmp(code, "other"))
+            c->counters.status_other += json_integer_value(n);
+        else
+            results_status_add(&c->counters, (int)v, json_integer_value(n));
+    }
     json_t *hists = json_object_get(jc, "hist");
     return hists ? read_hists(rd, hists, c, ci) : 0;
 }

@@ -45,6 +45,9 @@ static int merge_cells(results_t *dst, const results_t *src)
         d->counters.count += s->counters.count;
         d->counters.bytes_in += s->counters.bytes_in;
         d->counters.bytes_out += s->counters.bytes_out;
+        for (size_t k = 0; k < RESULTS_STATUS_MAX; k++)
+            results_status_add(&d->counters, s->counters.status[k].code, s->counters.status[k].n);
+        d->counters.status_other += s->counters.status_other;
         for (int m = 0; m < RESULTS_M__COUNT; m++) {
             if (!s->hists[m])
                 continue;

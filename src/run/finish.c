@@ -56,11 +56,21 @@ static size_t judged_phases(const run_t *r)
 }
 
 /* The sections every run has, and the objectives judged; *j is the verdict (NULL on error).
- * Every class is also judged on a default error rate of 1 % unless an objective covers it. */
+ * Every plan class is also judged on a default error rate of 1 % unless an objective covers it. */
 static int judge(run_t *r, const judge_phase_t *ph, judge_t **j)
 {
     const char *watches[PLAN_MAX_REQS];
-    judge_opts_t jo = {.default_error_rate = JUDGE_DEFAULT_ERROR_RATE, .watch_classes = watches};
+    /* The teardown's deletes are class "teardown" (src/observe/names.c): the run's own, judged
+     * as a plan class only when the plan names them (a class of that name, or an objective on
+     * the teardown phase, which judged_phases then keeps). */
+    static const char *const internal[] = {"teardown"};
+    size_t n = judged_phases(r);
+    bool named =
+        plan_find_req(r->plan, internal[0]) >= 0 || (n > 0 && r->plan->phases[n - 1].teardown.on);
+    judge_opts_t jo = {.default_error_rate = JUDGE_DEFAULT_ERROR_RATE,
+                       .watch_classes = watches,
+                       .internal_classes = internal,
+                       .n_internal_classes = !named};
     for (size_t i = 0; i < r->plan->n_reqs; i++)
         if (r->plan->reqs[i].kind == PLAN_WATCH)
             watches[jo.n_watch_classes++] = r->plan->reqs[i].name;
@@ -69,7 +79,7 @@ static int judge(run_t *r, const judge_phase_t *ph, judge_t **j)
                          .accept = r->plan->accept,
                          .opts = jo,
                          .phases = ph,
-                         .n_phases = judged_phases(r)};
+                         .n_phases = n};
     int rc = judge_evaluate(in.objectives, in.n_objectives, r->res, ph, in.n_phases, &jo, j);
     if (rc == 0) /* what the verdict rests on, so that a merge judges it the same way */
         rc = results_set_section(r->res, JUDGE_INPUTS_SECTION, judge_inputs_json(&in));

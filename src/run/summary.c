@@ -2,7 +2,9 @@
 #include <string.h>
 
 #include "run_int.h"
+#include "squall/err.h"
 #include "squall/judge.h"
+#include "squall/table.h"
 
 static bool outcome_is_ok(const char *oc)
 {
@@ -44,62 +46,163 @@ static bool gather(const run_t *r, const char *phase, const char *cls, hist_t *h
     return *count > 0 || *cancelled > 0;
 }
 
-/* Requests per second are over the time the phase actually ran. */
-static void row(run_t *r, const judge_phase_t *ph, const char *cls, hist_t *h, hist_t *svc)
+#define REQ_COLS 10
+
+/* "12.40" (ms, two decimals), or "-" when h holds nothing. */
+static const char *ms_text(const hist_t *h, double pct, char *buf, size_t cap)
+{
+    if (!h || hist_count(h) == 0)
+        snprintf(buf, cap, "-");
+    else
+        snprintf(buf, cap, "%.2f", ms(pct >= 100 ? hist_max(h) : hist_value_at(h, pct)));
+    return buf;
+}
+
+/* A request class's row; requests per second are over the time the phase actually ran. */
+static int row(run_t *r, table_t *t, const judge_phase_t *ph, const char *cls, hist_t *h,
+               hist_t *svc)
 {
     int64_t count, errors, cancelled;
     if (!gather(r, ph->name, cls, h, svc, &count, &errors, &cancelled))
-        return;
+        return 0;
     double secs = (double)ph->elapsed_ns / 1e9;
-    char svc99[32] = "-";
-    if (hist_count(svc))
-        snprintf(svc99, sizeof svc99, "%.2f", ms(hist_value_at(svc, 99)));
-    out_print(r->o, "%-12s %-24s %8lld %8.1f %7lld %9.2f %9.2f %9.2f %9.2f %9s\n", ph->name, cls,
-              (long long)count, secs > 0 ? (double)count / secs : 0.0, (long long)errors,
-              ms(hist_value_at(h, 50)), ms(hist_value_at(h, 90)), ms(hist_value_at(h, 99)),
-              ms(hist_max(h)), svc99);
-    if (cancelled)
-        out_print(r->o, "%-12s %-24s %8lld cancelled when the run stopped\n", "", "",
-                  (long long)cancelled);
+    char n[24], rate[24], err[24], p50[24], p90[24], p99[24], max[24], s99[24];
+    snprintf(n, sizeof n, "%lld", (long long)count);
+    snprintf(rate, sizeof rate, "%.1f", secs > 0 ? (double)count / secs : 0.0);
+    snprintf(err, sizeof err, "%lld", (long long)errors);
+    const char *cells[REQ_COLS] = {ph->name,
+                                   cls,
+                                   n,
+                                   rate,
+                                   err,
+                                   ms_text(h, 50, p50, sizeof p50),
+                                   ms_text(h, 90, p90, sizeof p90),
+                                   ms_text(h, 99, p99, sizeof p99),
+                                   ms_text(h, 100, max, sizeof max),
+                                   ms_text(svc, 99, s99, sizeof s99)};
+    int rc = table_add(t, cells);
+    if (rc == 0 && cancelled) {
+        char note[64];
+        snprintf(note, sizeof note, "%lld cancelled when the run stopped", (long long)cancelled);
+        rc = table_note(t, 2, note);
+    }
+    return rc;
 }
 
-/* A watch class counts events, not requests: one line with its events and the p99 of its open
- * and propagation times. */
-static void watch_row(run_t *r, const judge_phase_t *ph, const char *cls)
+#define WATCH_COLS 12
+
+/* A figure of the phase's "watches" section for cls, as text ("-" when absent). */
+static const char *watch_figure(const json_t *figs, const char *key, char *buf, size_t cap)
 {
+    const json_t *v = json_object_get(figs, key);
+    if (json_is_integer(v))
+        snprintf(buf, cap, "%lld", (long long)json_integer_value(v));
+    else
+        snprintf(buf, cap, "-");
+    return buf;
+}
+
+/* A watch class counts streams and events, not requests: its own row, from the phase's
+ * "watches" section (streams, drops, reconnects, relists) and its events cell (open and
+ * propagation times). */
+static int watch_row(run_t *r, table_t *t, const judge_phase_t *ph, const char *cls)
+{
+    const json_t *figs = json_object_get(
+        json_object_get(json_object_get(results_section(r->res, "watches"), ph->name), "classes"),
+        cls);
     results_cell_t *c = results_cell_find(r->res, ph->name, cls, "2xx");
-    if (!c)
-        return;
-    const hist_t *open = results_cell_hist_find(c, RESULTS_M_OPEN);
-    const hist_t *prop = results_cell_hist_find(c, RESULTS_M_PROPAGATION);
-    char o99[32] = "-", p99[32] = "-";
-    if (open && hist_count(open))
-        snprintf(o99, sizeof o99, "%.2f ms", ms(hist_value_at(open, 99)));
-    if (prop && hist_count(prop))
-        snprintf(p99, sizeof p99, "%.2f ms", ms(hist_value_at(prop, 99)));
-    out_print(r->o, "%-12s %-24s %8lld events (watch); open p99 %s, propagation p99 %s\n", ph->name,
-              cls, (long long)results_cell_counters(c)->count, o99, p99);
+    if (!c && !figs)
+        return 0;
+    const hist_t *open = c ? results_cell_hist_find(c, RESULTS_M_OPEN) : NULL;
+    const hist_t *prop = c ? results_cell_hist_find(c, RESULTS_M_PROPAGATION) : NULL;
+    char st[24], ev[24], dr[24], rc_[24], rl[24], o50[24], o99[24], p50[24], p99[24], pmax[24];
+    if (c && !json_object_get(figs, "events"))
+        snprintf(ev, sizeof ev, "%lld", (long long)results_cell_counters(c)->count);
+    else
+        watch_figure(figs, "events", ev, sizeof ev);
+    const char *cells[WATCH_COLS] = {ph->name,
+                                     cls,
+                                     watch_figure(figs, "streams", st, sizeof st),
+                                     ev,
+                                     watch_figure(figs, "drops", dr, sizeof dr),
+                                     watch_figure(figs, "reconnects", rc_, sizeof rc_),
+                                     watch_figure(figs, "relists", rl, sizeof rl),
+                                     ms_text(open, 50, o50, sizeof o50),
+                                     ms_text(open, 99, o99, sizeof o99),
+                                     ms_text(prop, 50, p50, sizeof p50),
+                                     ms_text(prop, 99, p99, sizeof p99),
+                                     ms_text(prop, 100, pmax, sizeof pmax)};
+    return table_add(t, cells);
 }
 
-static void phase_rows(run_t *r, size_t p, const judge_phase_t *ph, hist_t *h, hist_t *svc)
+static int phase_rows(run_t *r, const judge_phase_t *ph, table_t *req, table_t *watch, hist_t *h,
+                      hist_t *svc)
 {
-    const plan_phase_t *pp = &r->plan->phases[p];
-    if (pp->clients.on)
-        out_print(r->o,
-                  "%-12s closed loop: %d clients, think %.0f ms (response time is "
-                  "from each client's next intended start)\n",
-                  pp->name, pp->clients.count, ms(pp->clients.think_ns));
-    for (size_t c = 0; c < r->plan->n_reqs; c++) {
+    int rc = 0;
+    for (size_t c = 0; rc == 0 && c < r->plan->n_reqs; c++) {
         const src_class_t *k = src_class(r->issuer, (int)c);
         if (k->pr->kind == PLAN_WATCH)
-            watch_row(r, ph, k->pr->name);
+            rc = watch_row(r, watch, ph, k->pr->name);
         else
-            row(r, ph, k->pr->name, h, svc);
-        if (k->paginate)
-            row(r, ph, k->all_name, h, svc);
+            rc = row(r, req, ph, k->pr->name, h, svc);
+        if (rc == 0 && k->paginate)
+            rc = row(r, req, ph, k->all_name, h, svc);
     }
-    if (pp->teardown.on)
-        row(r, ph, "teardown", h, svc);
+    if (rc == 0)
+        rc = row(r, req, ph, "teardown", h, svc);
+    return rc;
+}
+
+/* The closed-loop phases: their response times count from each client's next intended start. */
+static void closed_lines(run_t *r)
+{
+    for (size_t p = 0; p < r->plan->n_phases; p++) {
+        const plan_phase_t *pp = &r->plan->phases[p];
+        if (pp->clients.on)
+            out_print(r->o,
+                      "phase %s is a closed loop: %d clients, think %.0f ms (response time is "
+                      "from each client's next intended start)\n",
+                      pp->name, pp->clients.count, ms(pp->clients.think_ns));
+    }
+}
+
+/* The request table, then the watch table (when the plan has watches), all columns as wide as
+ * their longest phase or class name. */
+static int tables(run_t *r, const judge_phase_t *ph, hist_t *h, hist_t *svc)
+{
+    static const table_col_t req_cols[REQ_COLS] = {
+        {"phase", TABLE_LEFT},   {"class", TABLE_LEFT},   {"requests", TABLE_RIGHT},
+        {"per s", TABLE_RIGHT},  {"errors", TABLE_RIGHT}, {"p50", TABLE_RIGHT},
+        {"p90", TABLE_RIGHT},    {"p99", TABLE_RIGHT},    {"max", TABLE_RIGHT},
+        {"svc p99", TABLE_RIGHT}};
+    static const table_col_t watch_cols[WATCH_COLS] = {
+        {"phase", TABLE_LEFT},     {"class", TABLE_LEFT},     {"streams", TABLE_RIGHT},
+        {"events", TABLE_RIGHT},   {"drops", TABLE_RIGHT},    {"reconnects", TABLE_RIGHT},
+        {"relists", TABLE_RIGHT},  {"open p50", TABLE_RIGHT}, {"open p99", TABLE_RIGHT},
+        {"prop p50", TABLE_RIGHT}, {"prop p99", TABLE_RIGHT}, {"prop max", TABLE_RIGHT}};
+    table_t *req = table_new(req_cols, REQ_COLS), *watch = table_new(watch_cols, WATCH_COLS);
+    int rc = req && watch ? 0 : SQ_ENOMEM;
+    for (size_t p = 0; rc == 0 && p < r->plan->n_phases; p++)
+        rc = phase_rows(r, &ph[p], req, watch, h, svc);
+    if (rc == 0) {
+        /* The two tables share their phase and class columns' widths, so they line up. */
+        for (size_t c = 0; c < 2; c++) {
+            size_t w = table_width(req, c) > table_width(watch, c) ? table_width(req, c)
+                                                                   : table_width(watch, c);
+            table_min_width(req, c, w);
+            table_min_width(watch, c, w);
+        }
+        out_print(r->o, "\nrequests: response time from each request's intended start (ms)\n");
+        table_print(req, r->o);
+        if (table_rows(watch)) {
+            out_print(r->o, "\nwatches: open and propagation times (ms)\n");
+            table_print(watch, r->o);
+        }
+        closed_lines(r);
+    }
+    table_free(req);
+    table_free(watch);
+    return rc;
 }
 
 /* Could squall offer the planned load: the seconds it could not, by kind. */
@@ -127,10 +230,11 @@ static void kept_lines(run_t *r)
         if (n == 0)
             continue;
         const char *why = r->plan->reqs[c].write.keep_why;
-        out_print(r->o, "kept %zu objects of class %s on the target%s%s (`squall cleanup %s` "
+        out_print(r->o,
+                  "kept %zu objects of class %s on the target%s%s (`squall cleanup %s` "
                   "deletes them)\n",
-                  n, r->plan->reqs[c].name, why ? ": " : " (the plan keeps them)",
-                  why ? why : "", r->dir);
+                  n, r->plan->reqs[c].name, why ? ": " : " (the plan keeps them)", why ? why : "",
+                  r->dir);
     }
 }
 
@@ -142,10 +246,9 @@ static void verdict_lines(run_t *r, const run_result_t *res, const json_t *reaso
     out_print(r->o, "\nverdict: %s\n", word[res->outcome]);
     size_t i;
     const json_t *why;
-    json_array_foreach(reasons, i, why)
-    out_print(r->o, "  %s\n", json_string_value(why));
+    json_array_foreach(reasons, i, why) out_print(r->o, "  %s\n", json_string_value(why));
     json_array_foreach(accepted, i, why)
-    out_print(r->o, "  accepted by the plan: %s\n", json_string_value(why));
+        out_print(r->o, "  accepted by the plan: %s\n", json_string_value(why));
 }
 
 void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j, const run_result_t *res,
@@ -156,11 +259,8 @@ void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j, const run_
         hist_free(h);
         return;
     }
-    out_print(r->o, "\nresponse time is measured from each request's intended start (ms)\n");
-    out_print(r->o, "%-12s %-24s %8s %8s %7s %9s %9s %9s %9s %9s\n", "phase", "class", "requests",
-              "per s", "errors", "p50", "p90", "p99", "max", "svc p99");
-    for (size_t p = 0; p < r->plan->n_phases; p++)
-        phase_rows(r, p, &ph[p], h, svc);
+    if (tables(r, ph, h, svc))
+        out_print(r->o, "\n(out of memory while laying out the tables)\n");
     hist_free(h);
     hist_free(svc);
     obs_totals_t t;

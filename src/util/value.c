@@ -314,17 +314,42 @@ bool value_is_loopback(const char *host)
     return inet_pton(AF_INET6, host, &a6) == 1 && IN6_IS_ADDR_LOOPBACK(&a6);
 }
 
-const char *value_fmt_count(int64_t v, char *buf, size_t len)
+const char *value_format_duration(int64_t ns, char *buf, size_t cap)
 {
-    char raw[32];
-    snprintf(raw, sizeof raw, "%lld", (long long)v);
-    size_t n = strlen(raw), o = 0, sign = raw[0] == '-';
-    for (size_t i = 0; i < n && o + 2 < len; i++) {
-        if (i > sign && (n - i) % 3 == 0)
-            buf[o++] = ',';
-        buf[o++] = raw[i];
+    static const struct {
+        int64_t ns;
+        const char *unit;
+        bool decimals;
+    } u[] = {{INT64_C(3600000000000), "h", false},
+             {INT64_C(60000000000), "m", false},
+             {INT64_C(1000000000), "s", true},
+             {INT64_C(1000000), "ms", true},
+             {INT64_C(1000), "us", true}};
+    if (ns == 0) {
+        snprintf(buf, cap, "0");
+        return buf;
     }
-    if (len)
-        buf[o < len ? o : len - 1] = '\0';
+    uint64_t a = ns < 0 ? 0 - (uint64_t)ns : (uint64_t)ns;
+    const char *sign = ns < 0 ? "-" : "";
+    for (size_t i = 0; i < sizeof u / sizeof u[0]; i++) {
+        uint64_t one = (uint64_t)u[i].ns;
+        if (a < one)
+            continue;
+        if (a % one == 0) {
+            snprintf(buf, cap, "%s%llu%s", sign, (unsigned long long)(a / one), u[i].unit);
+            return buf;
+        }
+        uint64_t milli = one / 1000;
+        if (u[i].decimals && a % milli == 0) {
+            unsigned frac = (unsigned)(a % one / milli);
+            int digits = 3;
+            while (frac % 10 == 0) /* frac > 0: a is not a multiple of one */
+                frac /= 10, digits--;
+            snprintf(buf, cap, "%s%llu.%0*u%s", sign, (unsigned long long)(a / one), digits, frac,
+                     u[i].unit);
+            return buf;
+        }
+    }
+    snprintf(buf, cap, "%s%lluns", sign, (unsigned long long)a);
     return buf;
 }

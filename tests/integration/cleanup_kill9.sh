@@ -50,10 +50,13 @@ expect "kill -9 mid-churn left objects behind ($MID on the target, $BEFORE befor
 expect "the run was killed before it could tear down (no results.json)" \
     test ! -e "$T/out/results.json"
 
-"$SQUALL" cleanup --dry-run "$T/out" >"$T/dry.out" 2>&1
+"$SQUALL" cleanup --dry-run "$T/out" >"$T/dry.out" 2>"$T/dry.err"
 DRY=$(grep -c '^/v1/sites/harbor/gateways/gw-' "$T/dry.out")
 expect "--dry-run lists the $DRY alive paths and deletes nothing (count $(objects), was $MID)" \
     test "$(objects)" = "$MID" -a "$DRY" -ge $((MID - BEFORE))
+expect "--dry-run's stdout is only paths, one a line (pipeable); its status is on stderr" \
+    test "$(grep -vc '^/v1/sites/harbor/gateways/gw-[0-9]*$' "$T/dry.out")" = 0 -a \
+    "$(grep -c '^journal .*: [0-9]* alive' "$T/dry.err")" = 1
 
 # A crash mid-write: half a record with no newline at the end of the journal.
 printf '{"op":"created","path":"/v1/sites/harbor/gatew' >>"$T/out/journal.ndjson"

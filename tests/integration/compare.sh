@@ -103,7 +103,8 @@ p = P()
 p.feed(page)
 check("HTML: sections runs, verdicts, spectra", all(s in p.ids for s in ("runs", "verdicts", "spectra")),
       p.ids)
-check("HTML: one spectrum per class, each with BASE and NEW", p.series == [2, 2], p.series)
+check("HTML: per class (read, write) p99 over time and the share slower than x, each with BASE "
+      "and NEW", p.series == [2, 2, 2, 2], p.series)
 check("HTML: says slower, no scripts", "slower" in page and "<script" not in page)
 sys.exit(bad)
 PY

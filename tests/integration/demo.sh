@@ -148,7 +148,7 @@ expect "demo --set --keep is accepted and, with too few samples, exits 7 (got $R
     test "$RC" = 7
 rcheck "its reasons name the class, how many samples it had and that it needs 100" \
     "d['sections']['run']['verdict'] == 'inconclusive' and
-     any(re.match(r'renew in steady: p99 of response <= 1000 ms: too few samples to resolve it \\(had \\d+, needs 100\\)', r)
+     any(re.match(r'renew in steady: p99 of response <= 1s: too few samples to resolve it \\(had \\d+, needs 100\\)', r)
          for r in d['sections']['run']['reasons'])" "$T/kept"
 rcheck "--set phases.steady.rate=20/s: the steady phase started 200 +- 57 (a list counts once)" \
     "143 <= sum(c['count'] for c in d['cells'] if c['phase'] == 'steady' and

@@ -17,9 +17,12 @@ fail() { echo "FAIL: $*"; exit 1; }
 
 "$helper" --write-fixtures "$tmp" || fail "fixture helper failed"
 
-out=$("$SQUALL" merge "$tmp/a" "$tmp/b/results.json" -o "$tmp/merged" 2>"$tmp/err")
+"$SQUALL" merge "$tmp/a" "$tmp/b/results.json" -o "$tmp/merged" >"$tmp/stdout" 2>"$tmp/err"
 rc=$?
-[ $rc -eq 7 ] || fail "merge exited $rc, expected 7 (nothing to judge): $(cat "$tmp/err")"
+out=$(cat "$tmp/err")
+[ $rc -eq 7 ] || fail "merge exited $rc, expected 7 (nothing to judge): $out"
+# merge talks on stderr: the results are on disk, stdout stays empty (only --json writes there).
+[ ! -s "$tmp/stdout" ] || fail "merge wrote to stdout without --json: $(cat "$tmp/stdout")"
 echo "$out" | grep -q "^merged 2 inputs: " || fail "unexpected summary: $out"
 echo "$out" | grep -q "^verdict: INCONCLUSIVE" || fail "no INCONCLUSIVE verdict: $out"
 echo "$out" | grep -q "the inputs carry no judgement section" || fail "no reason given: $out"

@@ -38,7 +38,7 @@ YAML
 # check's per-class estimates: "PHASE CLASS COUNT".
 "$SQUALL" check "$T/m.yaml" | awk '
     /^phase [0-9]+\/[0-9]+ / { ph = $3; sub(/:$/, "", ph) }
-    /^    [a-z-]+ +[0-9,]+ requests$/ { c = $2; gsub(",", "", c); print ph, $1, c }' >"$T/check"
+    /^    [a-z-]+ +[0-9]+ +requests$/ { print ph, $1, $2 }' >"$T/check"
 run_plan "$T/r" "$T/m.yaml"
 expect_rc "the run exits 0 (got $RUN_RC)" "$T/r" 0
 PUTS=$(serve_stats 's["requests"]["PUT"].get("200", 0) + s["requests"]["PUT"].get("201", 0)')

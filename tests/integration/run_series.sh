@@ -108,6 +108,6 @@ timeout 60 "$SQUALL" run "$T/peak.yaml" -o "$T/peak" >"$T/peak.out" 2>"$T/peak.e
 RC=$?
 rcheck "results.json's max_queued is the true peak, 99 (of 100 on one connection)" \
     "d['sections']['generator']['max_queued'] == 99" "$T/peak"
-LIVE=$(grep -o 'queued [0-9]*' "$T/peak.err" | awk '{ print $2 }' | sort -n | tail -1)
+LIVE=$(grep -o 'queued *[0-9]*' "$T/peak.err" | awk '{ print $2 }' | sort -n | tail -1)
 expect "the live line shows the second's peak queue, 99 (saw ${LIVE:-none})" test "${LIVE:-0}" = 99
 exit $FAILED

@@ -87,11 +87,11 @@ rcheck "results name connection-bound seconds, none generator-bound, and the rem
     "$G['connection_bound']['seconds'] >= 1 and $G['generator_bound']['seconds'] == 0 and
      'raise target.connections' in $G['connection_bound']['last_reason']" "$T/stall"
 rcheck "the verdict is fail, its reasons the p99 checks, nothing about evidence" \
-    "$R['verdict'] == 'fail' and all('p99 of response <= 100 ms: observed' in r for r in $R['reasons'])" \
+    "$R['verdict'] == 'fail' and all('p99 of response <= 100ms: observed' in r for r in $R['reasons'])" \
     "$T/stall"
 expect "the summary says CONNECTION-BOUND and to raise target.connections" \
     grep -q "^CONNECTION-BOUND for [0-9]* s (seconds .*raise target.connections" "$T/stall.stdout"
-expect "report.html says so too" grep -q "CONNECTION-BOUND: the target answered so slowly" \
+expect "report.html says so too" grep -q "CONNECTION-BOUND for [0-9]* s: the target answered so slowly" \
     "$T/stall/report.html"
 
 # --- 3. Latency objectives only, against a path that answers 404 ------------------------------
@@ -112,7 +112,7 @@ N404=$(serve_stats 's["requests"]["GET"].get("404", 0)')
 expect "the target answered 200 GETs with 404 (its /stats: $N404)" test "$N404" = 200
 expect "a latency-only plan against 404s FAILS: exit 1 (got $RUN_RC)" test "$RUN_RC" = 1
 rcheck "the p99 check fails with 'no successful answer', in the phase and the run" \
-    "sorted(c['scope'] for c in d['sections']['objectives']['checks'] if c['text'] == 'p99 of response <= 1000 ms'
+    "sorted(c['scope'] for c in d['sections']['objectives']['checks'] if c['text'] == 'p99 of response <= 1s'
             and c['verdict'] == 'fail' and c['why'] == 'no successful answer') == ['run', 'steady']" "$T/404"
 rcheck "the default error-rate check fails at 100 % over the target's 200 answers" \
     "any(c['default'] and c['verdict'] == 'fail' and c['observed'] == 1.0 and c['samples'] == $N404
@@ -141,9 +141,9 @@ run_plan "$T/few" "$T/few.yaml" --seed 3
 expect "too few samples: INCONCLUSIVE, exit 7 (got $RUN_RC)" test "$RUN_RC" = 7
 rcheck "the reasons say how many each had and how many it needs" \
     "$R['verdict'] == 'inconclusive' and
-     any(re.fullmatch(r'read in steady: p99 of response <= 1000 ms: too few samples to resolve it \\(had %d, needs 100\\)'
+     any(re.fullmatch(r'read in steady: p99 of response <= 1s: too few samples to resolve it \\(had %d, needs 100\\)'
                       % total('read'), r) for r in $R['reasons']) and
-     any(re.fullmatch(r'scan in run: p99.9 of response <= 1000 ms: too few samples to resolve it \\(had %d, needs 1000\\)'
+     any(re.fullmatch(r'scan in run: p99.9 of response <= 1s: too few samples to resolve it \\(had %d, needs 1000\\)'
                       % total('scan'), r) for r in $R['reasons'])" "$T/few"
 rcheck "the checks carry verdict too-few and needed 100 / 1,000" \
     "sorted({(c['class'], c['verdict'], c['needed']) for c in d['sections']['objectives']['checks'] if not c['default']})

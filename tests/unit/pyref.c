@@ -12,7 +12,7 @@
 
 #include "pyref.h"
 
-char *pyref_run(const char *script, const char *input)
+char *pyref_command(const char *command, const char *input)
 {
     char path[] = "/tmp/squall-pyref-XXXXXX";
     int fd = mkstemp(path);
@@ -20,7 +20,7 @@ char *pyref_run(const char *script, const char *input)
     assert_int_equal(write(fd, input, strlen(input)), (ssize_t)strlen(input));
     close(fd);
     char cmd[1024];
-    snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s/tests/unit/%s < %s", SRCDIR, script, path);
+    snprintf(cmd, sizeof cmd, "%s < %s", command, path);
     FILE *p = popen(cmd, "r");
     assert_non_null(p);
     static char out[1 << 16];
@@ -29,4 +29,11 @@ char *pyref_run(const char *script, const char *input)
     assert_int_equal(pclose(p), 0);
     unlink(path);
     return out;
+}
+
+char *pyref_run(const char *script, const char *input)
+{
+    char cmd[512];
+    snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s/tests/unit/%s", SRCDIR, script);
+    return pyref_command(cmd, input);
 }

@@ -5,5 +5,7 @@
 #define SQUALL_TEST_PYREF_H
 
 char *pyref_run(const char *script, const char *input);
+/* The same for any shell command (an outside tool such as util-linux column(1)). */
+char *pyref_command(const char *command, const char *input);
 
 #endif

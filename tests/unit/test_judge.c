@@ -198,13 +198,18 @@ static void test_no_data_and_wildcard(void **state)
     assert_int_equal(json_array_size(json_object_get(s, "checks")), judge_check_count(j));
     json_t *first = json_array_get(json_object_get(s, "checks"), 0);
     assert_string_equal(json_string_value(json_object_get(first, "verdict")), "no-data");
-    assert_string_equal(json_string_value(json_object_get(first, "text")),
-                        "p99 of response <= 1000 ms");
+    assert_string_equal(json_string_value(json_object_get(first, "text")), "p99 of response <= 1s");
     json_decref(s);
 
     out_t *o = out_new_capture();
     judge_print(j, o);
-    assert_non_null(strstr(out_captured_results(o), "NO-DATA  run          renew"));
+    /* Columns as wide as their widest cell; the threshold once, as a plan writes it. */
+    const char *text = out_captured_results(o);
+    assert_non_null(strstr(text, "\nobjectives\n"
+                                 "verdict  scope   class  objective              observed\n"
+                                 "NO-DATA  run     renew  p99 of response <= 1s         -\n"));
+    assert_non_null(strstr(text, "\npass     warm    write  p99 of response <= 1s   2.00 ms\n"));
+    assert_non_null(strstr(text, "\nNO-DATA  steady  write  error rate <= 1%              -\n"));
     out_free(o);
     judge_free(j);
     results_free(r);
@@ -227,12 +232,21 @@ static void test_watches_judged_on_stream_attempts(void **state)
     hist_record_n(results_cell_hist(ev, RESULTS_M_PROPAGATION), 5000000, 400);
     results_cell_counters(results_cell(r, "steady", "follow", "5xx"))->count = 10;
     plan_objective_t ob[3] = {
-        {.cls = {.name = "*"}, .phase = {.index = -1}, .limit = PLAN_LIMIT_ERROR_RATE,
+        {.cls = {.name = "*"},
+         .phase = {.index = -1},
+         .limit = PLAN_LIMIT_ERROR_RATE,
          .value = 0.5},
-        {.cls = {.name = "follow"}, .phase = {.index = -1}, .metric = PLAN_METRIC_PROPAGATION,
-         .limit = PLAN_LIMIT_PERCENTILE, .percentile = 99, .max_ns = 10000000},
-        {.cls = {.name = "*"}, .phase = {.index = -1}, .limit = PLAN_LIMIT_PERCENTILE,
-         .percentile = 50, .max_ns = 1000000000},
+        {.cls = {.name = "follow"},
+         .phase = {.index = -1},
+         .metric = PLAN_METRIC_PROPAGATION,
+         .limit = PLAN_LIMIT_PERCENTILE,
+         .percentile = 99,
+         .max_ns = 10000000},
+        {.cls = {.name = "*"},
+         .phase = {.index = -1},
+         .limit = PLAN_LIMIT_PERCENTILE,
+         .percentile = 50,
+         .max_ns = 1000000000},
     };
     judge_t *j;
     assert_int_equal(judge_evaluate(ob, 3, r, phases, 2, NULL, &j), 0);
@@ -265,6 +279,49 @@ static void test_watches_judged_on_stream_attempts(void **state)
     results_free(r);
 }
 
+/* The run's own classes (the teardown's deletes) are judged neither by "*" nor by the default
+ * error rate when opts lists them, only by an objective naming them; unlisted, they are. */
+static void test_internal_classes(void **state)
+{
+    (void)state;
+    results_t *r = fixture();
+    results_counters_t *td = results_cell_counters(results_cell(r, "steady", "teardown", "5xx"));
+    td->count = 5;
+    plan_objective_t ob[2] = {
+        {.cls = {.name = "*"},
+         .phase = {.index = -1},
+         .limit = PLAN_LIMIT_PERCENTILE,
+         .percentile = 50,
+         .max_ns = 1000000000},
+        {.cls = {.name = "teardown"},
+         .phase = {.index = -1},
+         .limit = PLAN_LIMIT_ERROR_RATE,
+         .value = 0.5},
+    };
+    const char *internal[] = {"teardown"};
+    judge_opts_t jo = {
+        .default_error_rate = 0.01, .internal_classes = internal, .n_internal_classes = 1};
+    judge_t *j;
+    assert_int_equal(judge_evaluate(ob, 1, r, phases, 2, &jo, &j), 0);
+    for (size_t i = 0; i < judge_check_count(j); i++)
+        assert_string_not_equal(judge_check_at(j, i)->cls, "teardown");
+    assert_non_null(find(j, 1, "read", "run")); /* the default still judges plan classes */
+    judge_free(j);
+    /* Named by an objective: judged (5 of 5 failed: 100 % > 50 %). */
+    assert_int_equal(judge_evaluate(ob, 2, r, phases, 2, &jo, &j), 0);
+    assert_int_equal(find(j, 1, "teardown", "run")->verdict, JUDGE_FAIL);
+    assert_null(find(j, 0, "teardown", "run"));
+    assert_null(find(j, 2, "teardown", "run"));
+    judge_free(j);
+    /* Not listed: "*" and the default judge it like a plan class. */
+    jo.n_internal_classes = 0;
+    assert_int_equal(judge_evaluate(ob, 1, r, phases, 2, &jo, &j), 0);
+    assert_non_null(find(j, 0, "teardown", "steady"));
+    assert_int_equal(find(j, 1, "teardown", "run")->verdict, JUDGE_FAIL);
+    judge_free(j);
+    results_free(r);
+}
+
 /* The run's outcome: FAIL wins over INCONCLUSIVE; INCONCLUSIVE names each reason (squall could
  * not offer the load, a percentile with too few samples, an early stop); a reason the plan
  * accepts moves to `accepted` and no longer stands in the way of a pass. */
@@ -293,7 +350,7 @@ static void test_outcome(void **state)
                         "squall could not offer the planned load for 2 s (seconds 3, 4; last: "
                         "lag): the target's figures for those seconds are not evidence");
     assert_string_equal(json_string_value(json_array_get(reasons, 1)),
-                        "write in warm: p99.9 of response <= 1000 ms: too few samples to resolve "
+                        "write in warm: p99.9 of response <= 1s: too few samples to resolve "
                         "it (had 100, needs 1000)");
     assert_string_equal(json_string_value(json_array_get(reasons, 3)),
                         "the run stopped early: signal SIGINT");
@@ -320,7 +377,7 @@ static void test_outcome(void **state)
     assert_int_equal(judge_outcome(j, &ev, reasons, NULL), JUDGE_OUTCOME_FAIL);
     for (size_t i = 0; i < json_array_size(reasons); i++)
         assert_non_null(strstr(json_string_value(json_array_get(reasons, i)),
-                               "p50 of response <= 1 ms: observed"));
+                               "p50 of response <= 1ms: observed"));
     assert_int_equal(json_array_size(reasons), 2); /* warm and the run */
     judge_free(j);
     json_decref(reasons);
@@ -404,7 +461,8 @@ static void python_reads(const json_t *sec)
         "assert (o[4][\"percentile\"], o[4][\"max_ms\"]) == (100, 0.25); "
         "assert d[\"accept\"] == [\"few-samples\", \"stopped-early\"]; "
         "assert d[\"watch_classes\"] == [\"follow\"] and d[\"phases\"] == [\"warm\", "
-        "\"steady\"]; assert d[\"default_error_rate\"] == 0.01'",
+        "\"steady\"]; assert d[\"default_error_rate\"] == 0.01; "
+        "assert d[\"internal_classes\"] == [\"teardown\"]'",
         path);
     int rc = system(cmd);
     unlink(path);
@@ -415,14 +473,17 @@ static void test_objectives_round_trip(void **state)
 {
     (void)state;
     plan_t *p = load_judged_plan();
-    const char *watch[] = {"follow"};
-    judge_inputs_t in = {
-        .objectives = p->objectives,
-        .n_objectives = p->n_objectives,
-        .accept = p->accept,
-        .opts = {.default_error_rate = 0.01, .watch_classes = watch, .n_watch_classes = 1},
-        .phases = phases,
-        .n_phases = 2};
+    const char *watch[] = {"follow"}, *internal[] = {"teardown"};
+    judge_inputs_t in = {.objectives = p->objectives,
+                         .n_objectives = p->n_objectives,
+                         .accept = p->accept,
+                         .opts = {.default_error_rate = 0.01,
+                                  .watch_classes = watch,
+                                  .n_watch_classes = 1,
+                                  .internal_classes = internal,
+                                  .n_internal_classes = 1},
+                         .phases = phases,
+                         .n_phases = 2};
     json_t *sec = judge_inputs_json(&in);
     assert_non_null(sec);
     python_reads(sec);
@@ -436,6 +497,8 @@ static void test_objectives_round_trip(void **state)
     assert_true(back.opts.default_error_rate == 0.01);
     assert_int_equal(back.opts.n_watch_classes, 1);
     assert_string_equal(back.opts.watch_classes[0], "follow");
+    assert_int_equal(back.opts.n_internal_classes, 1);
+    assert_string_equal(back.opts.internal_classes[0], "teardown");
     assert_int_equal(back.n_phases, 2);
     assert_string_equal(back.phases[1].name, "steady");
     json_t *again = judge_inputs_json(&back);
@@ -484,6 +547,12 @@ static void test_inputs_refused(void **state)
         {"{\"objectives\": [], \"accept\": [], \"watch_classes\": [], \"phases\": [3], "
          "\"default_error_rate\": 0.01}",
          "judgement: watch_classes and phases must be lists of names"},
+        {"{\"objectives\": [], \"accept\": [], \"watch_classes\": [], \"phases\": [], "
+         "\"internal_classes\": [7], \"default_error_rate\": 0.01}",
+         "judgement: internal_classes must be a list of names"},
+        {"{\"objectives\": [], \"accept\": [], \"watch_classes\": [], \"phases\": [], "
+         "\"internal_classes\": [7], \"default_error_rate\": 0.01}",
+         "judgement: internal_classes must be a list of names"},
         {"{\"objectives\": [], \"accept\": [], \"watch_classes\": [], \"phases\": []}",
          "judgement.default_error_rate: expected a fraction in [0, 1]"},
     };
@@ -511,6 +580,7 @@ int main(void)
         cmocka_unit_test(test_error_rate_and_min_rate),
         cmocka_unit_test(test_no_data_and_wildcard),
         cmocka_unit_test(test_watches_judged_on_stream_attempts),
+        cmocka_unit_test(test_internal_classes),
         cmocka_unit_test(test_outcome),
         cmocka_unit_test(test_objectives_round_trip),
         cmocka_unit_test(test_inputs_refused),

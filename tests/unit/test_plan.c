@@ -315,13 +315,16 @@ static void test_overrides(void **state)
     const plan_override_t bad[] = {{"phases.nope.rate", "1/s"}, {"phases.0.rate", "fast"}};
     out_t *o = out_new_capture();
     assert_int_equal(plan_load(PLANS "/good-shapes.yaml", bad, 2, &p, o), SQ_EPARSE);
+    /* Sorted by position: the file's errors by line and column, then each --set by its order,
+     * named by it; a list item that is not there is answered with the list's names. */
     assert_string_equal(out_captured_diag(o),
-                        "--set phases.nope.rate=1/s: error: no list item 'nope' (expected a "
-                        "name or index of an item in the top plan file, got none)\n"
-                        "--set phases.0.rate=fast: error: phases.ramp.rate: malformed value "
-                        "(expected a rate like 500/s, 30/m or 2/h, got 'fast')\n" PLANS
-                        "/good-shapes.yaml:5:18: error: phases.ramp: one load shape per phase "
-                        "(expected one of rate, ramp, steps, got rate and ramp)\n");
+                        PLANS "/good-shapes.yaml:5:18: error: phases.ramp: one load shape per "
+                              "phase (expected one of rate, ramp, steps, got rate and ramp)\n"
+                              "--set #1 phases.nope.rate=1/s: error: no list item 'nope' "
+                              "(expected a name or index of an item in the top plan file: ramp, "
+                              "steps, closed, churn, teardown)\n"
+                              "--set #2 phases.0.rate=fast: error: phases.ramp.rate: malformed "
+                              "value (expected a rate like 500/s, 30/m or 2/h, got 'fast')\n");
     out_free(o);
 }
 

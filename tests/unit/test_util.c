@@ -1,5 +1,6 @@
 /* Unit tests for the shared helpers in src/util/: the value parsers (durations, rates,
- * percentages, numbers), the did-you-mean suggestion, the clocks and the atomic file write. */
+ * percentages, numbers) and the duration writer, the terminal tables, the did-you-mean suggestion,
+ * the clocks and the atomic file write. */
 #include <setjmp.h>
 #include <stdarg.h>
 #include <stddef.h>
@@ -21,7 +22,10 @@
 #include "squall/file.h"
 #include "squall/out.h"
 #include "squall/suggest.h"
+#include "squall/table.h"
 #include "squall/value.h"
+
+#include "pyref.h"
 
 /* cmocka 1.1.5 has no assert_double_equal; this one names both values when it fails. */
 #define assert_double_equal(a, b, tol) assert_near((a), (b), (tol), #a, __LINE__)
@@ -449,10 +453,115 @@ static void test_file_failures(void **state)
     fixture_close(&fx);
 }
 
+/* value_format_duration writes what a plan would: the unit a person picks (the largest that
+ * gives a value >= 1 with at most three decimals), and value_parse_duration (checked above
+ * against BIPM's definitions) reads every text back to the same nanoseconds. */
+static void test_format_duration(void **state)
+{
+    (void)state;
+    static const struct {
+        int64_t ns;
+        const char *text;
+    } cases[] = {
+        {0, "0"},
+        {1, "1ns"},
+        {999, "999ns"},
+        {1000, "1us"},
+        {12500, "12.5us"},
+        {1234567, "1234.567us"},
+        {250000000, "250ms"},
+        {1000000000, "1s"},
+        {1500000000, "1.5s"},
+        {1000500000, "1000.5ms"},
+        {INT64_C(90000000000), "90s"},
+        {INT64_C(120000000000), "2m"},
+        {INT64_C(7200000000000), "2h"},
+        {INT64_C(5400000000000), "90m"},
+    };
+    char buf[40];
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        assert_string_equal(value_format_duration(cases[i].ns, buf, sizeof buf), cases[i].text);
+        int64_t back = -1;
+        assert_int_equal(value_parse_duration(buf, &back), 0);
+        assert_int_equal(back, cases[i].ns);
+    }
+    /* A bounded sweep of values that are not round: each reads back exactly. */
+    uint64_t x = 88172645463325252u; /* xorshift64 (Marsaglia 2003) */
+    for (int i = 0; i < 2000; i++) {
+        x ^= x << 13, x ^= x >> 7, x ^= x << 17;
+        int64_t ns = (int64_t)(x % INT64_C(100000000000000));
+        int64_t back = -1;
+        value_format_duration(ns, buf, sizeof buf);
+        if (value_parse_duration(buf, &back) != 0 || back != ns)
+            fail_msg("%lld ns -> '%s' -> %lld ns", (long long)ns, buf, (long long)back);
+    }
+}
+
+/* The same cells laid out by util-linux column(1) (-t, tab-separated input, two-space output
+ * separator, -R for the right-aligned columns): the reference for table_print's layout. */
+static char *column_layout(const char *tsv, const char *right)
+{
+    char cmd[128];
+    snprintf(cmd, sizeof cmd, "column -t -s '\t' -o '  ' -R %s", right);
+    return pyref_command(cmd, tsv);
+}
+
+static void test_table(void **state)
+{
+    (void)state;
+    static const table_col_t cols[] = {{"phase", TABLE_LEFT},
+                                       {"class", TABLE_LEFT},
+                                       {"requests", TABLE_RIGHT},
+                                       {"p99", TABLE_RIGHT}};
+    static const char *const rows[][4] = {
+        {"reconnect-storm", "list-gateways/all-pages", "8", "0.95"},
+        {"spread", "renew", "120000", "12.40"},
+        {"s", "r\xc3\xa9new", "1", "-"}, /* UTF-8: one column per character */
+    };
+    table_t *t = table_new(cols, 4);
+    assert_non_null(t);
+    char tsv[1024] = "phase\tclass\trequests\tp99\n";
+    for (size_t i = 0; i < 3; i++) {
+        assert_int_equal(table_add(t, rows[i]), 0);
+        size_t at = strlen(tsv);
+        snprintf(tsv + at, sizeof tsv - at, "%s\t%s\t%s\t%s\n", rows[i][0], rows[i][1], rows[i][2],
+                 rows[i][3]);
+    }
+    assert_int_equal(table_rows(t), 3);
+    assert_int_equal(table_width(t, 1), strlen("list-gateways/all-pages"));
+    out_t *o = out_new_capture();
+    table_print(t, o);
+    assert_string_equal(out_captured_results(o), column_layout(tsv, "3,4"));
+    /* The exact first row, as a person reads it. */
+    assert_non_null(strstr(out_captured_results(o),
+                           "reconnect-storm  list-gateways/all-pages         8   0.95\n"));
+    out_free(o);
+
+    /* A note starts at its column and widens nothing; a left-aligned last column has no
+     * trailing blanks. */
+    static const table_col_t two[] = {{"verdict", TABLE_LEFT}, {"objective", TABLE_LEFT}};
+    table_t *u = table_new(two, 2);
+    const char *r1[] = {"TOO-FEW", "p99 of response <= 1s"};
+    assert_int_equal(table_add(u, r1), 0);
+    assert_int_equal(table_note(u, 1, "32 samples, needs 100 to resolve it, a long note"), 0);
+    table_min_width(u, 0, 9);
+    o = out_new_capture();
+    table_print(u, o);
+    assert_string_equal(out_captured_results(o), "verdict    objective\n"
+                                                 "TOO-FEW    p99 of response <= 1s\n"
+                                                 "           32 samples, needs 100 to resolve it, "
+                                                 "a long note\n");
+    out_free(o);
+    table_free(u);
+    table_free(t);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_duration),
+        cmocka_unit_test(test_format_duration),
+        cmocka_unit_test(test_table),
         cmocka_unit_test(test_rate_percent),
         cmocka_unit_test(test_int_number),
         cmocka_unit_test(test_suggest),
