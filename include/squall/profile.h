@@ -60,7 +60,7 @@ void prof_free(prof_t *p);
  * Wiley 2000, §6.3; the p-value approximation of Zar, "Biostatistical Analysis", the Rayleigh
  * test in its chapter on circular distributions):
  * R̄ = |Σ exp(iθ)| / n, Z = nR̄², p = exp(√(1 + 4n + 4(n² − (nR̄)²)) − (1 + 2n)), clamped to
- * [0, 1]. mean is the mean direction in [0, 2π). */
+ * [0, 1] (sync_rayleigh_p; 1 for n < 2). mean is the mean direction in [0, 2π). */
 typedef struct {
     size_t n;
     double r_bar, z, p, mean;

@@ -3,6 +3,7 @@
 #include <math.h>
 
 #include "squall/profile.h"
+#include "squall/sync.h"
 
 void prof_rayleigh(const double *theta, size_t n, prof_rayleigh_t *out)
 {
@@ -19,9 +20,7 @@ void prof_rayleigh(const double *theta, size_t n, prof_rayleigh_t *out)
     double rn = hypot(c, s); /* n R̄ */
     out->r_bar = fmin(1, rn / (double)n);
     out->z = rn * rn / (double)n;
-    double nn = (double)n;
-    double p = exp(sqrt(1 + 4 * nn + 4 * (nn * nn - rn * rn)) - (1 + 2 * nn));
-    out->p = p > 1 ? 1 : p < 0 ? 0 : p;
+    out->p = sync_rayleigh_p(n, out->r_bar);
     double m = atan2(s, c);
     out->mean = m < 0 ? m + 2 * M_PI : m;
 }
