@@ -131,6 +131,11 @@ static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, r
         if (c != C_PHASE && c != C_CLASS && !number(f[idx[c]], &v[c]))
             return false;
     }
+    /* Counts and instants become integers: a value no int64_t holds makes the row malformed. */
+    static const int ints[] = {C_SECOND, C_STARTED, C_COMPLETED, C_ERRORS, C_UNIX_MS};
+    for (size_t k = 0; k < sizeof ints / sizeof ints[0]; k++)
+        if (!(fabs(v[ints[k]]) < 9.2e18))
+            return false;
     row->phase = keep(s, f[idx[C_PHASE]]);
     row->cls = keep(s, f[idx[C_CLASS]]);
     row->second = (int64_t)v[C_SECOND];
