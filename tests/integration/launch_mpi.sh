@@ -17,9 +17,11 @@
 #     renewals (40 of the 160 agents, 2 ticks) are too few to resolve a p99 alone, exit 7, and the
 #     merged 320 are enough; a percentile needs 1 / (1 - p) samples, judge.h) and its counts
 #     equal what the target's /stats says it answered during the run;
-#   - the shards split the plan: the target's /stats counts for the four equal those of one
-#     process running the same plan afterwards, and its access log shows every agent's lease
-#     renewed exactly once per tick (agent k in shard k mod 4 only: no path sent by two).
+#   - the shards split the plan: the target's /stats counts for the four (reads, renewals,
+#     creates, the teardowns' deletes) equal those of one process running the same plan
+#     afterwards; its access log shows every agent's lease renewed exactly once per tick (agent
+#     k in shard k mod 4 only: no path sent by two), and every object name created by one shard
+#     once and deleted by its teardown (nothing left).
 # A shard's verdict is its exit code (7 here): Open MPI aborts the other ranks when one exits
 # non-zero unless orte_abort_on_non_zero_status is 0 (ompi_info --param orte all --level 9).
 set -uo pipefail
@@ -44,15 +46,18 @@ target: {url: "$SERVE_URL", connections: 48, timeout: 5s}
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
   beat: {kind: write, method: PUT, path: "/v1/sites/north/leases/gw-{{agent}}", body: '{"n":1}'}
+  make: {kind: write, method: PUT, path: "/v1/sites/north/made/m-{{seq}}", body: '{"n":1}', creates: true}
 phases:
-  - {name: steady, rate: 200/s, duration: 2s, mix: {read: 1}}
+  - {name: steady, rate: 250/s, duration: 2s, mix: {read: 4, make: 1}}
   - {name: storm, duration: 2s, fleet: {agents: 160, every: 1s, timing: aligned, send: beat}}
 objectives:
   - {class: read, p99: 1s}
   - {class: beat, p99: 1s}
 YAML
 
-counts() { serve_stats 's["requests"].get("GET", {}).get("200", 0) + s["requests"].get("PUT", {}).get("200", 0)'; }
+# The target's answers of every kind the plan asks for: reads and renewals (200), creates (201)
+# and the teardown's deletes (2xx).
+counts() { serve_stats 'sum(n for m in ("GET", "PUT", "DELETE") for c, n in s["requests"].get(m, {}).items() if c.startswith("2"))'; }
 before=$(counts)
 START=$(instant_in 4)
 ROOT=()
@@ -107,15 +112,18 @@ MRC=$?
 # fatal, as in the other tests that count): every objective check itself must pass.
 expect "the merge of the four judges the objectives: exit 0 (or 7 when generator-bound; got $MRC)" \
     test "$MRC" = 0 -o "$MRC" = 7
-rcheck "merged: every objective check passes on all 320 renewals; counts = the target's answers ($((after - before)))" \
-    "total('read', '2xx') + total('beat', '2xx') == $((after - before)) and total('beat', '2xx') == 320 and total('read', '2xx') == 400 and
+rcheck "merged: every objective check passes on all 320 renewals; counts (teardowns' deletes included) = the target's answers ($((after - before)))" \
+    "sum(c['count'] for c in d['cells'] if c['outcome'] == '2xx') + d['sections']['lifecycle']['teardown']['deleted'] == $((after - before))
+     and total('beat', '2xx') == 320 and total('read', '2xx') + total('make', '2xx') == 500 and
+     d['sections']['lifecycle']['teardown']['deleted'] == total('make', '2xx') and
      all(c['verdict'] == 'pass' for c in d['sections']['objectives']['checks']) and
      len(d['meta']['inputs']) == 4 and
      (d['sections']['run']['verdict'] == 'pass' or (d['sections']['run']['verdict'] == 'inconclusive' and
           all('could not offer' in r for r in d['sections']['run']['reasons'])))" "$T/merged"
 
 # The split against one process: the same plan, run once without shards, asks the same of the
-# target; and no lease path was renewed by two shards (each exactly twice: two ticks).
+# target; no lease path was renewed by two shards (each exactly twice: two ticks); every object
+# name was created once by one shard and deleted once by the teardowns (nothing left).
 before1=$(counts)
 SINGLE_AT=$(date +%s.%N)
 run_plan "$T/single" "$T/plan.yaml"
@@ -123,16 +131,21 @@ after1=$(counts)
 expect "4 shards asked of the target what one process does: $((after - before)) = $((after1 - before1)) answers" \
     test "$((after - before))" = "$((after1 - before1))"
 serve_stop # the target writes out its access log as it stops
-expect "each of the 160 agents' leases was renewed exactly twice by the shards (2 ticks)" \
+expect "each of the 160 agents' leases renewed exactly twice by the shards; every object created once and torn down" \
     /usr/bin/python3 - "$T/access.ndjson" "$START" "$SINGLE_AT" <<'PY'
 import collections, datetime, json, sys
 start = datetime.datetime.fromisoformat(sys.argv[2]).timestamp()
 end = float(sys.argv[3])  # the single-process run began here
 rows = [json.loads(l) for l in open(sys.argv[1])]
-shards = [r for r in rows if start <= r["time"] < end and r["method"] == "PUT"]
-n = collections.Counter(r["path"] for r in shards if "/leases/" in r["path"])
+shards = [r for r in rows if start <= r["time"] < end]
+n = collections.Counter(r["path"] for r in shards if r["method"] == "PUT" and "/leases/" in r["path"])
 ok = len(n) == 160 and set(n.values()) == {2}
 print("      leases renewed:", len(n), "paths, counts", sorted(set(n.values())))
+made = collections.Counter(r["path"] for r in shards if r["method"] == "PUT" and "/made/" in r["path"])
+gone = collections.Counter(r["path"] for r in shards if r["method"] == "DELETE" and r["status"] // 100 == 2)
+ok &= len(made) >= 50 and set(made.values()) == {1} and gone == made
+print("      objects created:", len(made), "names, each once:", set(made.values()) == {1},
+      "; deleted by the teardowns:", gone == made)
 sys.exit(0 if ok else 1)
 PY
 exit "$FAILED"
