@@ -388,6 +388,11 @@ int cli_procs_run(const cli_cmd_t *cmd, cli_run_args_t *ra, const plan_t *p, out
     int rc = budget(cmd, p, n, o);
     if (rc >= 0)
         return rc;
+    /* One seed for every shard, drawn here when neither --seed nor the plan gives one (the
+     * check below then does not warn of shards without a common seed). */
+    uint64_t seed = run_seed(p, &ra->ro);
+    ra->ro.has_seed = true;
+    ra->ro.seed = seed;
     run_opts_t check = ra->ro;
     check.shard_index = 1;
     check.shard_count = n;
@@ -410,5 +415,5 @@ int cli_procs_run(const cli_cmd_t *cmd, cli_run_args_t *ra, const plan_t *p, out
     launch_format_instant(at, start, sizeof start);
     out_info(o, "--procs %d: shards start at %s; results in %s/shard-1..%d, merged into %s", n,
              start, dir, n, dir);
-    return run_children(cmd, ra, n, dir, start, run_seed(p, &ra->ro), o);
+    return run_children(cmd, ra, n, dir, start, seed, o);
 }

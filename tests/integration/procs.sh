@@ -28,7 +28,7 @@ gets() { serve_stats 's["requests"].get("GET", {}).get("200", 0)'; }
 
 # 1. Two children, merged: PASS (exit 0) with a loose objective, FAIL (exit 1) with one below the
 #    target's known 20 ms delay. The merged counts are what the target answered.
-plan "$T/pass.yaml" 1s 2s
+plan "$T/pass.yaml" 1s 4s # 4 s: the live line shows a second once a later one began
 plan "$T/fail.yaml" 5ms 2s
 b=$(gets)
 timeout 60 "$SQUALL" run "$T/pass.yaml" -o "$T/pass" --procs 2 >"$T/pass.out" 2>&1
@@ -42,6 +42,14 @@ rcheck "two shards (1/2, 2/2 from the flag the parent gave), merged and judged P
      d['sections']['run']['exit_code'] == $RC and
      (d['sections']['run']['verdict'] == 'pass' or (d['sections']['run']['verdict'] == 'inconclusive' and
           all('could not offer' in r for r in d['sections']['run']['reasons'])))" "$T/pass"
+expect "the parent draws one seed for all shards: no 'no seed' warning" bash -c "! grep -q 'with no seed' '$T/pass.out'"
+# The parent's live line sums the children's seconds: a whole second of both shards is the plan's
+# 100/s (50 + 50 planned) and about as many done.
+expect "the live line sums both shards' seconds: planned 100 of the plan's 100/s ($(grep -m1 "2 shards' second" "$T/pass.out"))" \
+    /usr/bin/python3 -c "
+import re, sys
+rows = [tuple(map(float, m.groups())) for m in re.finditer(r\"--procs 2: \\d+ running \\| 2 shards' second: (\\d+) done \\(planned (\\d+)\\)\", open('$T/pass.out').read())]
+sys.exit(not (rows and any(p == 100 and 90 <= d <= 110 for d, p in rows)))"
 for i in 1 2; do
     rcheck "shard-$i: shard $i/2, start_at common" \
         "d['sections']['launch']['shard'] == {'index': $i, 'count': 2, 'from': 'flag', 'variables': None}
