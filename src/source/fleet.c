@@ -18,11 +18,15 @@ typedef struct {
  * (src_req_t.ahead). Rendering and setting up 5,000 requests takes ~45 ms on the 2-CPU VM of
  * tools/bench/RESULTS.md ("Aligned ticks"). */
 #define FLEET_AHEAD_NS INT64_C(250000000)
+/* ... for ticks of at least this many agents: with a few hundred, rendering is no real share of
+ * the tick and holding made ticks worse (200 agents: dispatch spread median 6.8 -> 9.7 ms, first
+ * write up to 8 ms late; two same-configuration compare runs differed by 5 ms at tick p50). */
+#define FLEET_AHEAD_MIN_AGENTS 1000
 
 /* Whether an aligned fleet over HTTP/1.1 gets a connection per agent unless its plan says
  * (tools/bench/RESULTS.md, "Aligned ticks": which serves the tick's fidelity best). */
 #define FLEET_PER_AGENT_DEFAULT 1
-#define FLEET_FD_RESERVE 64 /* results, stdio, the other engines */
+#define FLEET_FD_RESERVE        64 /* results, stdio, the other engines */
 /* Connections one engine may hold (engine.c's check). */
 #define FLEET_MAX_CONNS 100000
 
@@ -96,7 +100,7 @@ static int fleet_new(const src_ctx_t *ctx, void **self)
             .shard = ctx->shard,
         };
         s->a[k].cls = pp->fleet.send[k].cls.index;
-        if (pp->fleet.timing == PLAN_TIMING_ALIGNED) {
+        if (pp->fleet.timing == PLAN_TIMING_ALIGNED && pp->fleet.agents >= FLEET_AHEAD_MIN_AGENTS) {
             int64_t half = cfg.period_ns / 2;
             int64_t ahead = half < FLEET_AHEAD_NS ? half : FLEET_AHEAD_NS;
             s->ahead_ns = k == 0 || ahead < s->ahead_ns ? ahead : s->ahead_ns;

@@ -593,10 +593,10 @@ static void test_replay_watches(void **state)
     unlink(log);
 }
 
-/* An aligned tick is rendered ahead (src/source/fleet.c) and held in the engine until its
- * instant: every fleet request was handed over held, none was sent before its intended start,
- * and each was counted once (40 agents x 3 ticks of a 400 ms period in 1.2 s, give or take
- * the tick that lands on the phase's edges). */
+/* An aligned tick of at least 1,000 agents is rendered ahead (src/source/fleet.c) and held in
+ * the engine until its instant: every fleet request was handed over held, none was sent before
+ * its intended start, and each was counted once (1,000 agents x 3 ticks of a 400 ms period in
+ * 1.2 s, give or take the tick that lands on the phase's edges); a tick of 40 is not held. */
 static void test_fleet_ahead(void **state)
 {
     (void)state;
@@ -606,16 +606,27 @@ static void test_fleet_ahead(void **state)
              "target: {url: \"http://127.0.0.1:9\"}\n"
              "requests:\n  renew: {kind: get, path: \"/l/{{agent}}\"}\n"
              "phases:\n  - {name: p, duration: 1200ms,"
-             " fleet: {agents: 40, every: 400ms, timing: aligned, send: renew}}\n",
+             " fleet: {agents: 1000, every: 400ms, timing: aligned, send: renew}}\n",
              NULL);
     assert_int_equal(c.res.end, RUN_END_DONE);
     int n = logged("GET", "/l/");
-    assert_true(n >= 80 && n <= 120 && n % 40 == 0);
+    assert_true(n >= 2000 && n <= 3000 && n % 1000 == 0);
     assert_int_equal(count(&c, "p", "renew", "2xx"), n);
-    assert_true(fake.held >= n - 40); /* a tick at the phase's very start cannot be ahead */
+    assert_true(fake.held >= n - 1000); /* a tick at the phase's very start cannot be ahead */
     for (int i = 0; i < fake.n_log; i++)
         assert_true(fake.log[i].submitted_ns >= fake.log[i].intended_ns);
     case_close(&c);
+    fake.held = 0;
+    run_case_t small = {0};
+    run_yaml(&small,
+             "target: {url: \"http://127.0.0.1:9\"}\n"
+             "requests:\n  renew: {kind: get, path: \"/l/{{agent}}\"}\n"
+             "phases:\n  - {name: p, duration: 1200ms,"
+             " fleet: {agents: 40, every: 400ms, timing: aligned, send: renew}}\n",
+             NULL);
+    assert_int_equal(small.res.end, RUN_END_DONE);
+    assert_int_equal(fake.held, 0);
+    case_close(&small);
 }
 
 /* fleet.connections: one connection per agent for the main engine when asked, or by default
