@@ -1,4 +1,4 @@
-/* Unit tests for src/run/launch.c: the shard read from fake launcher environments (the variable
+/* Unit tests for src/launch/launch.c: the shard read from fake launcher environments (the variable
  * names and values each launcher sets, with where each comes from beside it), and --start-at. */
 #include <setjmp.h>
 #include <stdarg.h>
