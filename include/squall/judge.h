@@ -111,6 +111,8 @@ typedef struct {
 enum judge_outcome judge_outcome(const judge_t *j, const judge_evidence_t *ev, json_t *reasons,
                                  json_t *accepted);
 const char *judge_outcome_name(enum judge_outcome o); /* "pass", "fail", "inconclusive" */
+/* The verdict as the terminal prints it: "PASS", "FAIL", "INCONCLUSIVE". */
+const char *judge_outcome_word(enum judge_outcome o);
 
 /* The results.json section: {"passed": bool, "objectives": N, "checks": [{objective, text,
  * class, scope, observed, threshold, unit, samples, needed, why, default, verdict:

@@ -27,6 +27,7 @@
 
 #include "squall/engine.h"
 #include "squall/hist.h"
+#include "squall/judge.h"
 #include "squall/out.h"
 #include "squall/plan.h"
 #include "squall/results.h"
@@ -192,6 +193,21 @@ typedef struct {
     int64_t first_sent_real_ns; /* wall clock when the first request went to an engine; 0 none */
 } obs_totals_t;
 void obs_totals(const obs_t *l, obs_totals_t *t);
+
+/* The summary printed on the terminal at a run's end (summary.c): the request and watch tables
+ * per phase and class, the totals, the seconds squall could not offer the load, the objects kept
+ * on purpose, the objectives and the verdict. The conductor supplies what only it knows. */
+typedef struct {
+    const judge_phase_t *phases; /* each plan phase as it ran (its elapsed time) */
+    const judge_t *judge;        /* the objectives judged; NULL when judging failed */
+    const char *verdict;         /* "PASS", "FAIL" or "INCONCLUSIVE" */
+    const json_t *reasons;       /* why, when not a plain pass (strings) */
+    const json_t *accepted;      /* reasons the plan accepted (strings) */
+    int64_t elapsed_ns;          /* the run's start to its end */
+    const char *stopped_why;     /* NULL when the run went to its planned end */
+    const char *dir;             /* the results directory */
+} obs_summary_t;
+void obs_summary(obs_t *l, const obs_summary_t *s);
 /* The run began late_ns after its start instant (--start-at): its first seconds (late_ns rounded
  * up to whole seconds) count as generator-bound, for `why`. */
 void obs_late_start(obs_t *l, int64_t late_ns, const char *why);

@@ -213,7 +213,6 @@ static int write_all(char **inputs, int n, results_t *r, const char *dir, verdic
 
 static void print_summary(const results_t *r, int n, const char *dir, const verdict_t *v, out_t *o)
 {
-    static const char *const word[] = {"PASS", "FAIL", "INCONCLUSIVE"};
     int64_t requests = 0;
     for (size_t i = 0; i < results_cell_count(r); i++)
         requests += results_cell_counters(results_cell_at(r, i))->count;
@@ -224,7 +223,7 @@ static void print_summary(const results_t *r, int n, const char *dir, const verd
                  results_meta(r)->stop_reason ? results_meta(r)->stop_reason : "no reason given");
     if (v->j)
         judge_print(v->j, o);
-    out_print(o, "\nverdict: %s\n", word[v->outcome]);
+    out_print(o, "\nverdict: %s\n", judge_outcome_word(v->outcome));
     size_t i;
     const json_t *why;
     json_array_foreach(v->reasons, i, why) out_print(o, "  %s\n", json_string_value(why));

@@ -406,6 +406,12 @@ const char *judge_outcome_name(enum judge_outcome o)
     return names[o];
 }
 
+const char *judge_outcome_word(enum judge_outcome o)
+{
+    static const char *const words[] = {"PASS", "FAIL", "INCONCLUSIVE"};
+    return words[o];
+}
+
 static void reason(json_t *reasons, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 static void reason(json_t *reasons, const char *fmt, ...)
 {

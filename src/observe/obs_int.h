@@ -66,5 +66,10 @@ int64_t obs_tick_of(enum plan_timing timing, int64_t base, int64_t offset, int64
 /* The name series, live line and cells use for a phase and a class (teardown included). */
 const char *obs_phase_name(const plan_t *p, size_t phase);
 const char *obs_class_name(const plan_t *p, int cls);
+/* A paginated list class's whole-list twin, "<class>/all-pages", written into buf. */
+const char *obs_whole_name(const char *cls, char *buf, size_t cap);
+
+/* The configuration the list was built from (summary.c reads its plan, results and output). */
+const obs_cfg_t *obs_cfg(const obs_t *l);
 
 #endif

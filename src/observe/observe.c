@@ -157,6 +157,11 @@ int obs_open(obs_t *l, const char *dir)
     return 0;
 }
 
+const obs_cfg_t *obs_cfg(const obs_t *l)
+{
+    return &l->cfg;
+}
+
 ledger_t *obs_ledger(obs_t *l)
 {
     return l->self[0];
@@ -252,10 +257,9 @@ static results_cell_t *cell_for(obs_t *l, const obs_done_t *d)
     if (!l->cells[slot]) {
         char whole[300];
         const char *name = obs_class_name(p, d->cls);
-        if (d->whole)
-            snprintf(whole, sizeof whole, "%s/all-pages", name);
         l->cells[slot] = results_cell(l->cfg.res, obs_phase_name(p, d->phase),
-                                      d->whole ? whole : name, eng_outcome_name(d->res->outcome));
+                                      d->whole ? obs_whole_name(name, whole, sizeof whole) : name,
+                                      eng_outcome_name(d->res->outcome));
     }
     return l->cells[slot];
 }

@@ -218,7 +218,14 @@ bool run_finish(run_t *r, run_result_t *res)
     }
     snprintf(res->dir, sizeof res->dir, "%s", r->dir);
     if (!r->opts->quiet && !r->opts->no_summary && ph)
-        run_summary(r, ph, j, res, reasons, accepted);
+        obs_summary(r->obs, &(obs_summary_t){.phases = ph,
+                                             .judge = j,
+                                             .verdict = judge_outcome_word(res->outcome),
+                                             .reasons = reasons,
+                                             .accepted = accepted,
+                                             .elapsed_ns = r->end_ns - r->start_ns,
+                                             .stopped_why = r->end != RUN_END_DONE ? r->why : NULL,
+                                             .dir = r->dir});
     json_decref(reasons);
     json_decref(accepted);
     judge_free(j);

@@ -205,35 +205,10 @@ static int64_t next_event(run_t *r)
     return next;
 }
 
-/* The wake-up is armed early by the loop's measured wake-up latency: the kernel's wake-up of the
- * loop and the pass up to on_wake take some microseconds; on_wake spins the rest, so a request
- * is handed to the engine at its own instant. The margin is the smoothed latency plus four
- * times its smoothed deviation (the estimator of TCP's retransmission timer, RFC 6298 section
- * 2, with gains 1/8 and 1/4), kept within WAKE_EARLY_MIN_NS..WAKE_EARLY_MAX_NS: a quiet
- * machine spins a few microseconds per request, a busy one up to 100 µs. Measured on loopback
- * with tools/bench/wire.sh (RESULTS.md, "wire"). */
-#define WAKE_EARLY_MIN_NS INT64_C(10000)
-#define WAKE_EARLY_MAX_NS INT64_C(100000)
-
-static int64_t wake_early(const run_t *r)
-{
-    int64_t e = r->late_avg_ns + 4 * r->late_dev_ns;
-    return e < WAKE_EARLY_MIN_NS ? WAKE_EARLY_MIN_NS : e > WAKE_EARLY_MAX_NS ? WAKE_EARLY_MAX_NS : e;
-}
-
-/* One measured wake-up latency into the estimate. */
-static void wake_learn(run_t *r, int64_t late)
-{
-    if (late < 0)
-        return;
-    int64_t d = late > r->late_avg_ns ? late - r->late_avg_ns : r->late_avg_ns - late;
-    r->late_dev_ns += (d - r->late_dev_ns) / 4;
-    r->late_avg_ns += (late - r->late_avg_ns) / 8;
-}
 /* One wake-up hands out at most this many due instants before the loop polls again. */
 #define WAKE_MAX_STEPS 256
 
-/* Arms the wake-up for the next event, early by wake_early() (a timerfd: nanosecond expiry,
+/* Arms the wake-up for the next event, early by run_wake_early() (a timerfd: nanosecond expiry,
  * wake.c); a wake-up that comes early just spins or rearms. */
 static void rearm(run_t *r, int64_t now)
 {
@@ -244,22 +219,11 @@ static void rearm(run_t *r, int64_t now)
         return;
     }
     /* Deadlines of draining and the teardown need no spin. */
-    int64_t at = r->state == RUN_LOADING || r->state == RUN_IDLE ? next - wake_early(r) : next;
+    int64_t at = r->state == RUN_LOADING || r->state == RUN_IDLE ? next - run_wake_early(&r->wake) : next;
     if (at < r->wake_floor_ns && r->wake_floor_ns > now)
         at = r->wake_floor_ns;
     r->wake_at_ns = at;
     run_wake_at(&r->wake, at);
-}
-
-static int64_t spin_until(int64_t at)
-{
-    int64_t now;
-    while ((now = clock_mono_ns()) < at) {
-#if defined(__x86_64__) || defined(__i386__)
-        __builtin_ia32_pause();
-#endif
-    }
-    return now;
 }
 
 /* The first phase begins at `at` (monotonic): the run's phase clock starts there. */
@@ -288,11 +252,11 @@ static bool start_instant(run_t *r, int64_t now)
 {
     int64_t at = now + (r->opts->start_at_ns - clock_real_ns());
     r->start_at_mono = at;
-    if (at > now + WAKE_EARLY_MAX_NS) {
+    if (at > now + RUN_WAKE_EARLY_MAX_NS) {
         rearm(r, now);
         return false;
     }
-    now = spin_until(at);
+    now = run_wake_spin(at);
     r->start_at_mono = 0;
     r->late_ns = now - at;
     begin(r, at);
@@ -307,7 +271,7 @@ static bool start_instant(run_t *r, int64_t now)
     return true;
 }
 
-/* Spins to the start the wake-up was armed for (at most WAKE_EARLY_MAX_NS ahead) and hands it out
+/* Spins to the start the wake-up was armed for (at most RUN_WAKE_EARLY_MAX_NS ahead) and hands it out
  * with every start that is due by then. Later starts, however close, get their own wake-up (a
  * timerfd armed in the past fires at once): the loop polls in between, so answers are handled
  * and connections freed. Spinning from one start to the next instead starved the answers at
@@ -317,8 +281,6 @@ static void on_wake(void *data)
     run_t *r = data;
     int64_t now = clock_mono_ns();
     r->wake_at_ns = INT64_MAX;
-    wake_learn(r, r->wake.late_ns);
-    r->wake.late_ns = -1;
     if (r->state == RUN_IDLE && r->start_at_mono) {
         if (!start_instant(r, now))
             return;
@@ -326,10 +288,10 @@ static void on_wake(void *data)
     }
     for (int step = 0; step < WAKE_MAX_STEPS && r->state == RUN_LOADING; step++) {
         int64_t next = next_event(r);
-        if (next > now && (step > 0 || next > now + WAKE_EARLY_MAX_NS))
+        if (next > now && (step > 0 || next > now + RUN_WAKE_EARLY_MAX_NS))
             break;
         if (next > now)
-            now = spin_until(next);
+            now = run_wake_spin(next);
         due(r, now);
         run_phase_t *ph = current(r);
         if (r->state == RUN_LOADING && ph->duration_ns && now >= ph->base_ns + ph->duration_ns) {
@@ -553,7 +515,6 @@ static int handles_start(run_t *r)
     uv_signal_init(&r->loop, &r->sigterm);
     r->second.data = r->prepare.data = r->sigint.data = r->sigterm.data = r;
     r->wake_at_ns = INT64_MAX;
-    r->late_avg_ns = r->late_dev_ns = 10000; /* a first margin of 50 µs, learnt from there */
     rc = uv_signal_start(&r->sigint, on_signal, SIGINT);
     rc = rc ? rc : uv_signal_start(&r->sigterm, on_signal, SIGTERM);
     rc = rc ? rc : uv_prepare_start(&r->prepare, on_prepare);

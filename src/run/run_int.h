@@ -1,6 +1,6 @@
 /* The conductor's private state, shared by its files: run.c (the phase sequence, signals,
  * shutdown order), prepare.c (what is checked and built before anything is sent) and
- * finish.c (results, verdict, report, summary). */
+ * finish.c (results, verdict, report; the terminal summary is the observers' obs_summary). */
 #ifndef SQUALL_RUN_INT_H
 #define SQUALL_RUN_INT_H
 
@@ -46,7 +46,7 @@ typedef struct {
     bool started;
     int64_t armed_ns; /* the expiry set, INT64_MAX when none */
     bool future;      /* it was in the future when set */
-    int64_t late_ns;  /* in the callback: how late after a future expiry it runs, else -1 */
+    int64_t late_avg_ns, late_dev_ns; /* smoothed wake-up latency and its deviation */
     void (*cb)(void *data);
     void *data;
 } run_wake_t;
@@ -55,6 +55,12 @@ int run_wake_init(uv_loop_t *loop, run_wake_t *w, void (*cb)(void *data), void *
 /* Arms the wake-up for the instant at_ns (clock_mono_ns()); one in the past fires at once. */
 void run_wake_at(run_wake_t *w, int64_t at_ns);
 void run_wake_stop(run_wake_t *w);
+/* How early to arm for an instant: the smoothed wake-up latency plus four deviations, within
+ * 10..RUN_WAKE_EARLY_MAX_NS µs; the caller spins the rest (run_wake_spin). */
+#define RUN_WAKE_EARLY_MAX_NS INT64_C(100000)
+int64_t run_wake_early(const run_wake_t *w);
+/* Spins (a pause instruction per turn) until clock_mono_ns() reaches at_ns; returns the clock. */
+int64_t run_wake_spin(int64_t at_ns);
 void run_wake_close(run_wake_t *w);
 
 typedef struct run {
@@ -82,7 +88,6 @@ typedef struct run {
     uv_signal_t sigint, sigterm;
     int64_t wake_at_ns;  /* the instant the wake-up is armed for (INT64_MAX: not armed) */
     int64_t wake_floor_ns; /* no wake-up before this: a source was due but did not move on */
-    int64_t late_avg_ns, late_dev_ns; /* smoothed wake-up latency and its deviation (run.c) */
 
     enum run_state state;
     enum run_end end;
@@ -112,10 +117,5 @@ src_ctx_t run_src_ctx(const run_t *r, size_t phase);
 
 /* finish.c: after the loop ended: fills res (outcome, write_failed). Returns write_failed. */
 bool run_finish(run_t *r, run_result_t *res);
-
-/* summary.c: the table printed at the end of a run (ph: each plan phase as it ran), the
- * objectives, and the verdict with its reasons and the ones the plan accepted. */
-void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j, const run_result_t *res,
-                 const json_t *reasons, const json_t *accepted);
 
 #endif

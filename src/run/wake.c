@@ -7,7 +7,13 @@
  * nanosecond (the hrtimer behind it has no timer slack, unlike epoll_wait's own timeout), and
  * its descriptor becomes readable, which wakes the loop's epoll_wait at once. The expiry is set
  * a little before the instant (the kernel's wake-up and the loop pass take some microseconds);
- * the caller spins the rest (run.c, on_wake). CLOCK_MONOTONIC is clock_mono_ns()'s clock. */
+ * the caller spins the rest (run.c, on_wake). CLOCK_MONOTONIC is clock_mono_ns()'s clock.
+ *
+ * How early: the smoothed latency of the wake-ups armed for a future instant plus four times its
+ * smoothed deviation (the estimator of TCP's retransmission timer, RFC 6298 section 2, with
+ * gains 1/8 and 1/4), kept within WAKE_EARLY_MIN_NS..RUN_WAKE_EARLY_MAX_NS: a quiet machine
+ * spins a few microseconds per request, a busy one up to 100 µs. Measured on loopback with
+ * tools/bench/wire.sh (RESULTS.md, "wire"). */
 #include <errno.h>
 #include <stdint.h>
 #include <sys/timerfd.h>
@@ -16,6 +22,35 @@
 #include "run_int.h"
 #include "squall/clock.h"
 #include "squall/err.h"
+
+#define WAKE_EARLY_MIN_NS INT64_C(10000)
+
+int64_t run_wake_early(const run_wake_t *w)
+{
+    int64_t e = w->late_avg_ns + 4 * w->late_dev_ns;
+    return e < WAKE_EARLY_MIN_NS       ? WAKE_EARLY_MIN_NS
+           : e > RUN_WAKE_EARLY_MAX_NS ? RUN_WAKE_EARLY_MAX_NS
+                                       : e;
+}
+
+/* One measured wake-up latency into the estimate. */
+static void learn(run_wake_t *w, int64_t late)
+{
+    int64_t d = late > w->late_avg_ns ? late - w->late_avg_ns : w->late_avg_ns - late;
+    w->late_dev_ns += (d - w->late_dev_ns) / 4;
+    w->late_avg_ns += (late - w->late_avg_ns) / 8;
+}
+
+int64_t run_wake_spin(int64_t at_ns)
+{
+    int64_t now;
+    while ((now = clock_mono_ns()) < at_ns) {
+#if defined(__x86_64__) || defined(__i386__)
+        __builtin_ia32_pause();
+#endif
+    }
+    return now;
+}
 
 static void on_ready(uv_poll_t *p, int status, int events)
 {
@@ -28,9 +63,9 @@ static void on_ready(uv_poll_t *p, int status, int events)
     if (status < 0)
         return;
     /* How late the loop got here after the expiry, when it was armed for a future instant. */
-    w->late_ns = -1;
-    if (w->future)
-        w->late_ns = clock_mono_ns() - w->armed_ns;
+    int64_t late = clock_mono_ns() - w->armed_ns;
+    if (w->future && late >= 0)
+        learn(w, late);
     w->armed_ns = INT64_MAX;
     w->cb(w->data);
 }
@@ -40,7 +75,7 @@ int run_wake_init(uv_loop_t *loop, run_wake_t *w, void (*cb)(void *), void *data
     w->cb = cb;
     w->data = data;
     w->armed_ns = INT64_MAX;
-    w->late_ns = -1;
+    w->late_avg_ns = w->late_dev_ns = 10000; /* a first margin of 50 µs, learnt from there */
     w->fd = timerfd_create(CLOCK_MONOTONIC, TFD_NONBLOCK | TFD_CLOEXEC);
     if (w->fd < 0)
         return SQ_EIO;

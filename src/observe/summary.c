@@ -1,10 +1,23 @@
-/* The table printed at the end of a run: per phase and class, counts, errors and latency. */
+/* The run's end on the terminal: per phase and class, counts, errors and latency (requests and
+ * watches in two tables whose name columns line up), the run's totals, whether squall could
+ * offer the load, the objects kept on purpose, the objectives, and the verdict with its
+ * reasons. It reads only the results, the plan and the observers' totals: the conductor hands
+ * it the phases as they ran and the verdict. */
 #include <string.h>
 
-#include "run_int.h"
+#include "obs_int.h"
 #include "squall/err.h"
 #include "squall/judge.h"
 #include "squall/table.h"
+
+/* What the summary reads: the list's plan, results and output, and the conductor's account. */
+typedef struct {
+    const plan_t *plan;
+    const results_t *res;
+    out_t *o;
+    obs_t *obs;
+    const obs_summary_t *in;
+} sum_t;
 
 static bool outcome_is_ok(const char *oc)
 {
@@ -17,7 +30,7 @@ static double ms(int64_t ns)
 }
 
 /* Sums every outcome of (phase, class) into h and the counters; false when nothing ran. */
-static bool gather(const run_t *r, const char *phase, const char *cls, hist_t *h, hist_t *svc,
+static bool gather(const sum_t *r, const char *phase, const char *cls, hist_t *h, hist_t *svc,
                    int64_t *count, int64_t *errors, int64_t *cancelled)
 {
     *count = *errors = *cancelled = 0;
@@ -59,7 +72,7 @@ static const char *ms_text(const hist_t *h, double pct, char *buf, size_t cap)
 }
 
 /* A request class's row; requests per second are over the time the phase actually ran. */
-static int row(run_t *r, table_t *t, const judge_phase_t *ph, const char *cls, hist_t *h,
+static int row(sum_t *r, table_t *t, const judge_phase_t *ph, const char *cls, hist_t *h,
                hist_t *svc)
 {
     int64_t count, errors, cancelled;
@@ -105,7 +118,7 @@ static const char *watch_figure(const json_t *figs, const char *key, char *buf, 
 /* A watch class counts streams and events, not requests: its own row, from the phase's
  * "watches" section (streams, drops, reconnects, relists) and its events cell (open and
  * propagation times). */
-static int watch_row(run_t *r, table_t *t, const judge_phase_t *ph, const char *cls)
+static int watch_row(sum_t *r, table_t *t, const judge_phase_t *ph, const char *cls)
 {
     const json_t *figs = json_object_get(
         json_object_get(json_object_get(results_section(r->res, "watches"), ph->name), "classes"),
@@ -135,18 +148,21 @@ static int watch_row(run_t *r, table_t *t, const judge_phase_t *ph, const char *
     return table_add(t, cells);
 }
 
-static int phase_rows(run_t *r, const judge_phase_t *ph, table_t *req, table_t *watch, hist_t *h,
+static int phase_rows(sum_t *r, const judge_phase_t *ph, table_t *req, table_t *watch, hist_t *h,
                       hist_t *svc)
 {
     int rc = 0;
     for (size_t c = 0; rc == 0 && c < r->plan->n_reqs; c++) {
-        const src_class_t *k = src_class(r->issuer, (int)c);
-        if (k->pr->kind == PLAN_WATCH)
-            rc = watch_row(r, watch, ph, k->pr->name);
-        else
-            rc = row(r, req, ph, k->pr->name, h, svc);
-        if (rc == 0 && k->paginate)
-            rc = row(r, req, ph, k->all_name, h, svc);
+        const plan_req_t *pr = &r->plan->reqs[c];
+        if (pr->kind == PLAN_WATCH) {
+            rc = watch_row(r, watch, ph, pr->name);
+            continue;
+        }
+        rc = row(r, req, ph, pr->name, h, svc);
+        /* A paginated list's whole-list twin has cells only when the class paginated. */
+        char whole[300];
+        if (rc == 0 && pr->kind == PLAN_LIST)
+            rc = row(r, req, ph, obs_whole_name(pr->name, whole, sizeof whole), h, svc);
     }
     if (rc == 0)
         rc = row(r, req, ph, "teardown", h, svc);
@@ -154,7 +170,7 @@ static int phase_rows(run_t *r, const judge_phase_t *ph, table_t *req, table_t *
 }
 
 /* The closed-loop phases: their response times count from each client's next intended start. */
-static void closed_lines(run_t *r)
+static void closed_lines(sum_t *r)
 {
     for (size_t p = 0; p < r->plan->n_phases; p++) {
         const plan_phase_t *pp = &r->plan->phases[p];
@@ -168,7 +184,7 @@ static void closed_lines(run_t *r)
 
 /* The request table, then the watch table (when the plan has watches), all columns as wide as
  * their longest phase or class name. */
-static int tables(run_t *r, const judge_phase_t *ph, hist_t *h, hist_t *svc)
+static int tables(sum_t *r, const judge_phase_t *ph, hist_t *h, hist_t *svc)
 {
     static const table_col_t req_cols[REQ_COLS] = {
         {"phase", TABLE_LEFT},   {"class", TABLE_LEFT},   {"requests", TABLE_RIGHT},
@@ -206,7 +222,7 @@ static int tables(run_t *r, const judge_phase_t *ph, hist_t *h, hist_t *svc)
 }
 
 /* Could squall offer the planned load: the seconds it could not, by kind. */
-static void bound_lines(run_t *r, const obs_totals_t *t)
+static void bound_lines(sum_t *r, const obs_totals_t *t)
 {
     if (t->generator_bound_s)
         out_print(r->o,
@@ -222,7 +238,7 @@ static void bound_lines(run_t *r, const obs_totals_t *t)
 }
 
 /* The objects classes with `keep` left on the target on purpose, and why. */
-static void kept_lines(run_t *r)
+static void kept_lines(sum_t *r)
 {
     ledger_t *g = obs_ledger(r->obs);
     for (size_t c = 0; g && c < r->plan->n_reqs; c++) {
@@ -234,49 +250,48 @@ static void kept_lines(run_t *r)
                   "kept %zu objects of class %s on the target%s%s (`squall cleanup %s` "
                   "deletes them)\n",
                   n, r->plan->reqs[c].name, why ? ": " : " (the plan keeps them)", why ? why : "",
-                  r->dir);
+                  r->in->dir);
     }
 }
 
 /* The verdict, and why when it is not a plain pass. */
-static void verdict_lines(run_t *r, const run_result_t *res, const json_t *reasons,
-                          const json_t *accepted)
+static void verdict_lines(sum_t *r)
 {
-    static const char *const word[] = {"PASS", "FAIL", "INCONCLUSIVE"};
-    out_print(r->o, "\nverdict: %s\n", word[res->outcome]);
+    out_print(r->o, "\nverdict: %s\n", r->in->verdict);
     size_t i;
     const json_t *why;
-    json_array_foreach(reasons, i, why) out_print(r->o, "  %s\n", json_string_value(why));
-    json_array_foreach(accepted, i, why)
+    json_array_foreach(r->in->reasons, i, why) out_print(r->o, "  %s\n", json_string_value(why));
+    json_array_foreach(r->in->accepted, i, why)
         out_print(r->o, "  accepted by the plan: %s\n", json_string_value(why));
 }
 
-void run_summary(run_t *r, const judge_phase_t *ph, const judge_t *j, const run_result_t *res,
-                 const json_t *reasons, const json_t *accepted)
+void obs_summary(obs_t *l, const obs_summary_t *in)
 {
+    const obs_cfg_t *cfg = obs_cfg(l);
+    sum_t sum = {.plan = cfg->plan, .res = cfg->res, .o = cfg->o, .obs = l, .in = in}, *r = &sum;
     hist_t *h = NULL, *svc = NULL;
     if (hist_new_ns(&h) || hist_new_ns(&svc)) {
         hist_free(h);
         return;
     }
-    if (tables(r, ph, h, svc))
+    if (tables(r, in->phases, h, svc))
         out_print(r->o, "\n(out of memory while laying out the tables)\n");
     hist_free(h);
     hist_free(svc);
     obs_totals_t t;
-    obs_totals(r->obs, &t);
+    obs_totals(l, &t);
     out_print(r->o,
               "\nsent %lld requests in %.1f s, %lld errors; schedule lag p99 %.2f ms, send lag "
               "p50 %.3f / p99 %.3f ms\n",
-              (long long)t.started, (double)(r->end_ns - r->start_ns) / 1e9, (long long)t.errors,
+              (long long)t.started, (double)in->elapsed_ns / 1e9, (long long)t.errors,
               ms(hist_value_at(t.sched_lag, 99)), ms(hist_value_at(t.send_lag, 50)),
               ms(hist_value_at(t.send_lag, 99)));
     bound_lines(r, &t);
     kept_lines(r);
-    if (j)
-        judge_print(j, r->o);
-    if (r->end != RUN_END_DONE)
-        out_print(r->o, "stopped early: %s\n", r->why);
-    verdict_lines(r, res, reasons, accepted);
-    out_print(r->o, "results: %s/\n", r->dir);
+    if (in->judge)
+        judge_print(in->judge, r->o);
+    if (in->stopped_why)
+        out_print(r->o, "stopped early: %s\n", in->stopped_why);
+    verdict_lines(r);
+    out_print(r->o, "results: %s/\n", in->dir);
 }
