@@ -27,7 +27,6 @@
 
 #include "squall/engine.h"
 #include "squall/hist.h"
-#include "squall/judge.h"
 #include "squall/out.h"
 #include "squall/plan.h"
 #include "squall/results.h"
@@ -197,13 +196,14 @@ void obs_totals(const obs_t *l, obs_totals_t *t);
 /* The summary printed on the terminal at a run's end (summary.c): the request and watch tables
  * per phase and class, the totals, the seconds squall could not offer the load, the objects kept
  * on purpose, the objectives and the verdict. The conductor supplies what only it knows. */
+struct judge;
 typedef struct {
-    const judge_phase_t *phases; /* each plan phase as it ran (its elapsed time) */
-    const judge_t *judge;        /* the objectives judged; NULL when judging failed */
+    const int64_t *elapsed_ns;   /* per plan phase: how long it ran (0: never started) */
+    const struct judge *judged;  /* the objectives judged (judge.h); NULL when judging failed */
     const char *verdict;         /* "PASS", "FAIL" or "INCONCLUSIVE" */
     const json_t *reasons;       /* why, when not a plain pass (strings) */
     const json_t *accepted;      /* reasons the plan accepted (strings) */
-    int64_t elapsed_ns;          /* the run's start to its end */
+    int64_t run_ns;              /* the run's start to its end */
     const char *stopped_why;     /* NULL when the run went to its planned end */
     const char *dir;             /* the results directory */
 } obs_summary_t;

@@ -3,6 +3,7 @@
  * offer the load, the objects kept on purpose, the objectives, and the verdict with its
  * reasons. It reads only the results, the plan and the observers' totals: the conductor hands
  * it the phases as they ran and the verdict. */
+#include <stdlib.h>
 #include <string.h>
 
 #include "obs_int.h"
@@ -274,8 +275,13 @@ void obs_summary(obs_t *l, const obs_summary_t *in)
         hist_free(h);
         return;
     }
-    if (tables(r, in->phases, h, svc))
+    size_t n = r->plan->n_phases;
+    judge_phase_t *ph = calloc(n ? n : 1, sizeof(*ph));
+    for (size_t i = 0; ph && i < n; i++)
+        ph[i] = (judge_phase_t){.name = r->plan->phases[i].name, .elapsed_ns = in->elapsed_ns[i]};
+    if (!ph || tables(r, ph, h, svc))
         out_print(r->o, "\n(out of memory while laying out the tables)\n");
+    free(ph);
     hist_free(h);
     hist_free(svc);
     obs_totals_t t;
@@ -283,13 +289,13 @@ void obs_summary(obs_t *l, const obs_summary_t *in)
     out_print(r->o,
               "\nsent %lld requests in %.1f s, %lld errors; schedule lag p99 %.2f ms, send lag "
               "p50 %.3f / p99 %.3f ms\n",
-              (long long)t.started, (double)in->elapsed_ns / 1e9, (long long)t.errors,
+              (long long)t.started, (double)in->run_ns / 1e9, (long long)t.errors,
               ms(hist_value_at(t.sched_lag, 99)), ms(hist_value_at(t.send_lag, 50)),
               ms(hist_value_at(t.send_lag, 99)));
     bound_lines(r, &t);
     kept_lines(r);
-    if (in->judge)
-        judge_print(in->judge, r->o);
+    if (in->judged)
+        judge_print(in->judged, r->o);
     if (in->stopped_why)
         out_print(r->o, "stopped early: %s\n", in->stopped_why);
     verdict_lines(r);

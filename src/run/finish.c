@@ -217,18 +217,22 @@ bool run_finish(run_t *r, run_result_t *res)
         results_write_dir(r->res, r->dir, r->o);
     }
     snprintf(res->dir, sizeof res->dir, "%s", r->dir);
-    if (!r->opts->quiet && !r->opts->no_summary && ph)
-        obs_summary(r->obs, &(obs_summary_t){.phases = ph,
-                                             .judge = j,
+    int64_t *elapsed = ph ? calloc(r->plan->n_phases + 1, sizeof(*elapsed)) : NULL;
+    for (size_t i = 0; elapsed && i < r->plan->n_phases; i++)
+        elapsed[i] = ph[i].elapsed_ns;
+    if (!r->opts->quiet && !r->opts->no_summary && elapsed)
+        obs_summary(r->obs, &(obs_summary_t){.elapsed_ns = elapsed,
+                                             .judged = j,
                                              .verdict = judge_outcome_word(res->outcome),
                                              .reasons = reasons,
                                              .accepted = accepted,
-                                             .elapsed_ns = r->end_ns - r->start_ns,
+                                             .run_ns = r->end_ns - r->start_ns,
                                              .stopped_why = r->end != RUN_END_DONE ? r->why : NULL,
                                              .dir = r->dir});
     json_decref(reasons);
     json_decref(accepted);
     judge_free(j);
+    free(elapsed);
     free(ph);
     return failed;
 }
