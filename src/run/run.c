@@ -219,7 +219,8 @@ static void rearm(run_t *r, int64_t now)
         return;
     }
     /* Deadlines of draining and the teardown need no spin. */
-    int64_t at = r->state == RUN_LOADING || r->state == RUN_IDLE ? next - run_wake_early(&r->wake) : next;
+    int64_t at =
+        r->state == RUN_LOADING || r->state == RUN_IDLE ? next - run_wake_early(&r->wake) : next;
     if (at < r->wake_floor_ns && r->wake_floor_ns > now)
         at = r->wake_floor_ns;
     r->wake_at_ns = at;
@@ -271,8 +272,8 @@ static bool start_instant(run_t *r, int64_t now)
     return true;
 }
 
-/* Spins to the start the wake-up was armed for (at most RUN_WAKE_EARLY_MAX_NS ahead) and hands it out
- * with every start that is due by then. Later starts, however close, get their own wake-up (a
+/* Spins to the start the wake-up was armed for (at most RUN_WAKE_EARLY_MAX_NS ahead) and hands it
+ * out with every start that is due by then. Later starts, however close, get their own wake-up (a
  * timerfd armed in the past fires at once): the loop polls in between, so answers are handled
  * and connections freed. Spinning from one start to the next instead starved the answers at
  * 20,000/s (every connection busy, send lag of seconds; tools/bench/run.sh). */
@@ -318,8 +319,7 @@ static void on_wake(void *data)
 static void on_io(void *data)
 {
     run_t *r = data;
-    if (r->state == RUN_LOADING && r->wake_at_ns != INT64_MAX &&
-        next_event(r) <= clock_mono_ns())
+    if (r->state == RUN_LOADING && r->wake_at_ns != INT64_MAX && next_event(r) <= clock_mono_ns())
         on_wake(r);
 }
 
@@ -434,7 +434,8 @@ static void on_unreachable(void *user)
     eng_stats(r->eng, &st, false);
     int64_t answered = st.by_outcome[ENG_OUT_S2XX] + st.by_outcome[ENG_OUT_S3XX] +
                        st.by_outcome[ENG_OUT_S4XX] + st.by_outcome[ENG_OUT_S5XX];
-    bool transient = st.why && (!strcmp(st.why, ENG_WHY_REFUSED) || !strcmp(st.why, ENG_WHY_RESOLVE));
+    bool transient =
+        st.why && (!strcmp(st.why, ENG_WHY_REFUSED) || !strcmp(st.why, ENG_WHY_RESOLVE));
     if (transient && (answered > 0 || r->opts->no_brakes)) {
         out_warn(r->o, "the target %s %s: %s", r->plan->target.url, st.why,
                  r->opts->no_brakes ? "--no-brakes, the run goes on"
