@@ -70,6 +70,9 @@ int cli_take_one(const cli_cmd_t *cmd, const char **slot, const char *v, const c
 /* "squall NAME ARGS...", each word quoted for a POSIX shell when it needs to be (malloc'd; NULL
  * when out of memory): how to run a command again, for the results it writes. */
 char *cli_command_line(const char *name, int argc, char **argv);
+/* Writes text (lines, each with or without its newline) to o's diagnostics, one out_raw line at
+ * level each: the lines of a capture, already prefixed ("squall: warning: ", "FILE:L:C: "). */
+void cli_lines_to_diag(const char *text, enum out_level level, out_t *o);
 
 /* Common helper: report a usage mistake (one line) and return SQ_EXIT_USAGE. */
 int cli_usage_error(const cli_cmd_t *cmd, out_t *o, const char *fmt, ...)

@@ -401,7 +401,15 @@ static json_t *brake_json(const plan_brake_t *b)
 }
 
 /* The plan as understood, with every expected figure: what the text summary says, as data. */
-static json_t *check_json(const char *path, const plan_t *p, const src_estimate_t *est)
+/* Which share of the plan the figures are: {"index", "count"} (1 of 1 without --shard). */
+static json_t *shard_json(sched_shard_t sh)
+{
+    bool split = sched_shard_split(sh);
+    return json_pack("{s:i, s:i}", "index", split ? sh.index : 1, "count", split ? sh.count : 1);
+}
+
+static json_t *check_json(const char *path, const plan_t *p, const src_estimate_t *est,
+                          sched_shard_t sh)
 {
     json_t *phases = json_array(), *objectives = json_array(), *brakes = json_array(),
            *accept = json_array();
@@ -424,9 +432,9 @@ static json_t *check_json(const char *path, const plan_t *p, const src_estimate_
     for (size_t i = 0; p->accept && plan_accept_names[i]; i++)
         if (p->accept & 1u << i)
             json_array_append_new(accept, json_string(plan_accept_names[i]));
-    return json_pack("{s:s, s:i, s:s, s:b, s:o, s:o, s:{s:f, s:f, s:f}, s:o, s:o, s:o, s:o}",
+    return json_pack("{s:s, s:i, s:s, s:b, s:o, s:o, s:o, s:{s:f, s:f, s:f}, s:o, s:o, s:o, s:o}",
                      "format", CHECK_JSON_FORMAT, "version", CHECK_JSON_VERSION, "plan", path,
-                     "valid", 1, "target", target_json(p), "phases", phases, "total", "duration_s",
+                     "valid", 1, "shard", shard_json(sh), "target", target_json(p), "phases", phases, "total", "duration_s",
                      dur / 1e9, "requests", total, "peak_rate", peak, "objectives", objectives,
                      "default_error_rate",
                      all_errors ? json_null() : json_real(JUDGE_DEFAULT_ERROR_RATE), "brakes",
@@ -446,7 +454,7 @@ static int validate_and_print(const char *path, plan_t *p, bool as_json, sched_s
     int rc = est ? run_check(p, &ro, o) : SQ_ENOMEM;
     if (rc == 0)
         rc = src_estimate_shard(p, run_seed(p, &ro), run_shard(&ro), clock_real_ns(), o, est);
-    json_t *j = rc == 0 && as_json ? check_json(path, p, est) : NULL;
+    json_t *j = rc == 0 && as_json ? check_json(path, p, est, sh) : NULL;
     char *text = j ? json_dumps(j, JSON_INDENT(2)) : NULL;
     if (rc == 0 && as_json && !text)
         rc = SQ_ENOMEM;
@@ -523,13 +531,82 @@ static int read_args(const cli_cmd_t *cmd, int argc, char **argv, out_t *o, chec
     return rc;
 }
 
-/* One plan: its exit code (OK, USAGE for a plan error, FAILURE when out of memory). */
+/* One error line as data: "FILE:LINE:COL: error: MESSAGE", "FILE: error: MESSAGE" or
+ * "squall: error: MESSAGE" (the forms plan errors and out_error take); NULL for other lines. */
+static json_t *error_json(const char *line, size_t len)
+{
+    static const char mark[] = ": error: ";
+    char buf[2048];
+    snprintf(buf, sizeof buf, "%.*s", (int)len, line);
+    char *m = strstr(buf, mark);
+    if (!m)
+        return NULL;
+    *m = '\0';
+    const char *msg = m + strlen(mark);
+    long ln = -1, col = -1;
+    char *c2 = strrchr(buf, ':'), *c1 = NULL;
+    if (c2) {
+        *c2 = '\0';
+        c1 = strrchr(buf, ':');
+        *c2 = ':';
+    }
+    char *end1, *end2;
+    if (c1 && c2 && (ln = strtol(c1 + 1, &end1, 10)) > 0 && end1 == c2 &&
+        (col = strtol(c2 + 1, &end2, 10)) > 0 && *end2 == '\0')
+        *c1 = '\0';
+    else
+        ln = col = -1;
+    bool squall = strcmp(buf, "squall") == 0;
+    return json_pack("{s:o, s:o, s:o, s:s}", "file", squall ? json_null() : json_string(buf),
+                     "line", ln > 0 ? json_integer(ln) : json_null(), "column",
+                     col > 0 ? json_integer(col) : json_null(), "message", msg);
+}
+
+/* --json for a plan that is not valid: the document says so, with every error as data (the
+ * same lines go to stderr as text). */
+static void invalid_json(const char *path, sched_shard_t sh, const char *diag, out_t *o)
+{
+    json_t *errs = json_array();
+    while (errs && *diag) {
+        const char *nl = strchr(diag, '\n');
+        size_t len = nl ? (size_t)(nl - diag) : strlen(diag);
+        json_t *e = error_json(diag, len);
+        if (e)
+            json_array_append_new(errs, e);
+        diag += len + (nl != NULL);
+    }
+    json_t *j = json_pack("{s:s, s:i, s:s, s:b, s:o, s:o}", "format", CHECK_JSON_FORMAT, "version",
+                          CHECK_JSON_VERSION, "plan", path, "valid", 0, "shard", shard_json(sh),
+                          "errors", errs);
+    char *text = j ? json_dumps(j, JSON_INDENT(2)) : NULL;
+    if (text)
+        out_print(o, "%s\n", text);
+    free(text);
+    json_decref(j);
+}
+
+/* One plan: its exit code (OK, USAGE for a plan error, FAILURE when out of memory). With --json
+ * the check talks into a capture, so that an invalid plan still prints one document on stdout
+ * (its errors as data); the captured lines then go to stderr as they would have. */
 static int check_one(const check_args_t *ca, const char *path, out_t *o)
 {
+    out_t *cap = ca->json ? out_new_capture() : NULL;
+    if (ca->json && !cap)
+        return SQ_EXIT_FAILURE;
+    out_t *to = cap ? cap : o;
+    if (cap)
+        out_set_level(cap, out_level(o));
     plan_t *p;
-    int err = plan_load(path, ca->sets, ca->n, &p, o);
+    int err = plan_load(path, ca->sets, ca->n, &p, to);
     if (err == 0)
-        err = validate_and_print(path, p, ca->json, ca->shard, o);
+        err = validate_and_print(path, p, ca->json, ca->shard, to);
+    if (cap) {
+        out_print(o, "%s", out_captured_results(cap));
+        if (err && err != SQ_ENOMEM)
+            invalid_json(path, ca->shard, out_captured_diag(cap), o);
+        cli_lines_to_diag(out_captured_diag(cap), OUT_WARN, o);
+        out_free(cap);
+    }
     return err == 0 ? SQ_EXIT_OK : err == SQ_ENOMEM ? SQ_EXIT_FAILURE : SQ_EXIT_USAGE;
 }
 

@@ -212,3 +212,13 @@ char *cli_command_line(const char *name, int argc, char **argv)
     }
     return s;
 }
+
+void cli_lines_to_diag(const char *text, enum out_level level, out_t *o)
+{
+    while (*text) {
+        const char *nl = strchr(text, '\n');
+        int len = nl ? (int)(nl - text) : (int)strlen(text);
+        out_raw(o, level, "%.*s", len, text);
+        text += len + (nl != NULL);
+    }
+}

@@ -233,16 +233,6 @@ static void print_summary(const results_t *r, int n, const char *dir, const verd
 
 /* The summary is talk, not a result (the results are on disk): it goes to stderr, line by line
  * at the info level, through a capture so that the objectives table is laid out once. */
-static void lines_to_diag(const char *text, enum out_level level, out_t *o)
-{
-    while (*text) {
-        const char *nl = strchr(text, '\n');
-        int len = nl ? (int)(nl - text) : (int)strlen(text);
-        out_raw(o, level, "%.*s", len, text);
-        text += len + (nl != NULL);
-    }
-}
-
 static void summary_to_diag(const results_t *r, int n, const char *dir, const verdict_t *v,
                             out_t *o)
 {
@@ -252,8 +242,8 @@ static void summary_to_diag(const results_t *r, int n, const char *dir, const ve
         return;
     }
     print_summary(r, n, dir, v, cap);
-    lines_to_diag(out_captured_diag(cap), OUT_WARN, o); /* its warnings, already prefixed */
-    lines_to_diag(out_captured_results(cap), OUT_INFO, o);
+    cli_lines_to_diag(out_captured_diag(cap), OUT_WARN, o); /* its warnings, already prefixed */
+    cli_lines_to_diag(out_captured_results(cap), OUT_INFO, o);
     out_free(cap);
 }
 

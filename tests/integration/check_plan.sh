@@ -40,7 +40,30 @@ for plan in "$dir"/bad-*.yaml; do
     /usr/bin/python3 "$SRCDIR/tests/integration/plan_positions.py" "$dir" "$dir/$name.expected" \
         >"$work/pos" 2>&1 || fail "$name.expected: positions do not match the YAML: $(cat "$work/pos")"
     echo "ok: $name exits 2 with its $(wc -l <"$work/want") expected lines, positions checked by PyYAML"
+    # --json: the same diagnostics as one document on stdout (parsed by Python's json, RFC 8259),
+    # and the same lines still on stderr.
+    "$SQUALL" check --json "$plan" >"$work/jout" 2>"$work/jerr"; rc=$?
+    [ $rc -eq 2 ] || fail "$name --json: exit $rc, expected 2"
+    diff -u "$work/want" "$work/jerr" || fail "$name --json: stderr differs from $name.expected"
+    /usr/bin/python3 - "$work/jout" "$work/want" "$plan" <<'PY' || fail "$name --json: the document does not carry the diagnostics"
+import json, re, sys
+doc = json.load(open(sys.argv[1]))
+want = [l.rstrip("\n") for l in open(sys.argv[2])]
+assert doc["format"] == "squall-check" and doc["valid"] is False and doc["plan"] == sys.argv[3], doc
+assert doc["shard"] == {"index": 1, "count": 1}, doc["shard"]
+got = []
+for e in doc["errors"]:
+    where = e["file"] if e["line"] is None else "%s:%d:%d" % (e["file"], e["line"], e["column"])
+    got.append("%s: error: %s" % (where, e["message"]))
+assert got == want, (got, want)
+PY
 done
+echo "ok: every broken plan's --json document holds exactly its expected diagnostics (valid: false)"
+"$SQUALL" check --json --shard 2/4 "$SRCDIR/scenarios/demo.yaml" >"$work/jshard" 2>/dev/null ||
+    fail "check --json --shard 2/4 of the demo plan failed"
+/usr/bin/python3 -c 'import json,sys; d=json.load(open(sys.argv[1])); assert d["valid"] is True and d["shard"]=={"index":2,"count":4}, d.get("shard")' \
+    "$work/jshard" || fail "check --json --shard 2/4: no shard {index 2, count 4} in the document"
+echo "ok: check --json --shard 2/4 names its shard"
 [ $nbad -ge 16 ] || fail "only $nbad bad-*.yaml plans found in $dir"
 for exp in "$dir"/*.expected; do
     [ -f "${exp%.expected}.yaml" ] || fail "$(basename "$exp") has no plan beside it"
