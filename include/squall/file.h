@@ -21,4 +21,12 @@ int file_write_atomic(const char *path, int (*fill)(FILE *f, void *ctx), void *c
  * watches). Returns the soft limit now, UINT64_MAX when unlimited, 0 when it cannot be read. */
 uint64_t file_raise_limit(void);
 
+/* Open files the whole system may still allocate, from the text of /proc/sys/fs/file-nr: three
+ * numbers, "allocated  free-allocated  maximum" (proc(5), "/proc/sys/fs/file-nr"); the answer is
+ * maximum − allocated + free-allocated. 0 when the text is not three numbers. */
+uint64_t file_system_free_parse(const char *text);
+/* The same, read from /proc/sys/fs/file-nr now; UINT64_MAX when it cannot be read (no limit
+ * known). */
+uint64_t file_system_free(void);
+
 #endif

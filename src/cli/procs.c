@@ -66,7 +66,8 @@ static int count_procs(int procs)
 
 /* Open files: each shard needs the plan's connections and its share of the watches
  * (src_files_needed, checked against its own RLIMIT_NOFILE, which it inherits from here); this
- * process reads one series.csv per shard. */
+ * process reads one series.csv per shard; and all of them together must fit what the whole
+ * system can still allocate (fs.file-max). */
 static int budget(const cli_cmd_t *cmd, const plan_t *p, int n, out_t *o)
 {
     uint64_t limit = file_raise_limit();
@@ -83,6 +84,15 @@ static int budget(const cli_cmd_t *cmd, const plan_t *p, int n, out_t *o)
                                "%" PRId64 " open files, but may open at most %" PRIu64
                                " (RLIMIT_NOFILE); use fewer processes",
                                n, parent, limit);
+    uint64_t left = file_system_free();
+    uint64_t all = (uint64_t)n * (uint64_t)child + (uint64_t)parent;
+    if (left != UINT64_MAX && all > left)
+        return cli_usage_error(cmd, o,
+                               "--procs %d: the shards and the parent need about %" PRIu64
+                               " open files, but the system can allocate only %" PRIu64
+                               " more (fs.file-max, /proc/sys/fs/file-nr); use fewer processes or "
+                               "fewer connections",
+                               n, all, left);
     return -1;
 }
 

@@ -80,3 +80,24 @@ uint64_t file_raise_limit(void)
     }
     return rl.rlim_cur == RLIM_INFINITY ? UINT64_MAX : (uint64_t)rl.rlim_cur;
 }
+
+uint64_t file_system_free_parse(const char *text)
+{
+    unsigned long long alloc, unused, max;
+    if (!text || sscanf(text, "%llu %llu %llu", &alloc, &unused, &max) != 3)
+        return 0;
+    uint64_t in_use = alloc > unused ? (uint64_t)(alloc - unused) : 0;
+    return max > in_use ? (uint64_t)max - in_use : 0;
+}
+
+uint64_t file_system_free(void)
+{
+    char buf[128];
+    FILE *f = fopen("/proc/sys/fs/file-nr", "re");
+    size_t n = f ? fread(buf, 1, sizeof buf - 1, f) : 0;
+    if (f)
+        fclose(f);
+    buf[n] = '\0';
+    uint64_t left = n ? file_system_free_parse(buf) : 0;
+    return left ? left : UINT64_MAX;
+}

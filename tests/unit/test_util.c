@@ -404,6 +404,21 @@ static void test_file_new_and_replace(void **state)
     fixture_close(&fx);
 }
 
+/* /proc/sys/fs/file-nr holds "allocated  free-allocated  maximum" (proc(5)); since Linux 2.6 the
+ * middle number is always 0. The first line is this machine's file as read on 2026-12-02. */
+static void test_file_system_free(void **state)
+{
+    (void)state;
+    assert_int_equal(file_system_free_parse("11890\t0\t2466116\n"), 2466116 - 11890);
+    assert_int_equal(file_system_free_parse("1000 200 5000"), 5000 - 800);
+    assert_int_equal(file_system_free_parse("9000 0 5000"), 0); /* over the maximum: none left */
+    assert_int_equal(file_system_free_parse("12 0"), 0);
+    assert_int_equal(file_system_free_parse("x y z"), 0);
+    assert_int_equal(file_system_free_parse(NULL), 0);
+    uint64_t now = file_system_free(); /* this machine's: some left, or unknown */
+    assert_true(now > 0);
+}
+
 static void test_file_failures(void **state)
 {
     (void)state;
@@ -569,6 +584,7 @@ int main(void)
         cmocka_unit_test(test_clock),
         cmocka_unit_test(test_file_new_and_replace),
         cmocka_unit_test(test_file_failures),
+        cmocka_unit_test(test_file_system_free),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
