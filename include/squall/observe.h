@@ -254,7 +254,9 @@ size_t ledger_kept(const ledger_t *g, int cls);
 const char *ledger_journal(const ledger_t *g);
 /* The teardown's outcome, for the "lifecycle" section (json: a new reference, or NULL). */
 void ledger_teardown_json(ledger_t *g, json_t *teardown);
-/* A churn phase's band: the population seen once it was first reached. */
-void ledger_churn_band(ledger_t *g, size_t phase, bool reached, int64_t min, int64_t max);
+/* A churn phase's band: the population seen once it was first reached (min, max), and the one
+ * the plan asked for: pop objects (this shard's share) within ±tolerance (a fraction). */
+void ledger_churn_band(ledger_t *g, size_t phase, bool reached, int64_t min, int64_t max,
+                       int64_t pop, double tolerance);
 
 #endif

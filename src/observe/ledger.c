@@ -2,6 +2,7 @@
  * {{pick}}, and the journal of every create and delete, kept as completions arrive; its
  * "lifecycle" section at the end. */
 #include <jansson.h>
+#include <math.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -47,6 +48,8 @@ struct ledger {
     bool churn;       /* a churn phase reported its band */
     bool churn_reached;
     int64_t churn_min, churn_max;
+    int64_t churn_pop, churn_low, churn_high; /* the population and the band the plan allows */
+    const char *churn_phase;
     const char **gathered; /* handed out by ledger_gather */
     int *gathered_cls;
 };
@@ -500,13 +503,21 @@ void ledger_teardown_json(ledger_t *g, json_t *teardown)
     journal_flush(g->journal);
 }
 
-void ledger_churn_band(ledger_t *g, size_t phase, bool reached, int64_t min, int64_t max)
+/* The band a churn population may move in: population ± tolerance, widened to ±1 (at the
+ * population deletes and creates alternate, so one object is always coming or going). */
+void ledger_churn_band(ledger_t *g, size_t phase, bool reached, int64_t min, int64_t max,
+                       int64_t pop, double tolerance)
 {
-    (void)phase;
     g->churn = true;
     g->churn_reached = reached;
     g->churn_min = min;
     g->churn_max = max;
+    int64_t lo = (int64_t)floor((double)pop * (1 - tolerance)),
+            hi = (int64_t)ceil((double)pop * (1 + tolerance));
+    g->churn_low = lo < pop - 1 ? (lo > 0 ? lo : 0) : (pop > 0 ? pop - 1 : 0);
+    g->churn_high = hi > pop + 1 ? hi : pop + 1;
+    g->churn_pop = pop;
+    g->churn_phase = obs_phase_name(g->plan, phase);
 }
 
 /* The classes that keep their objects: how many each left on the target, and the plan's why. */
@@ -559,6 +570,22 @@ static int ledger_finish(void *self, results_t *res, const char *dir)
                             g->churn_reached ? json_integer(g->churn_min) : json_null());
         json_object_set_new(s, "churn_population_max",
                             g->churn_reached ? json_integer(g->churn_max) : json_null());
+        json_object_set_new(s, "churn_population_low", json_integer(g->churn_low));
+        json_object_set_new(s, "churn_population_high", json_integer(g->churn_high));
+        bool held = g->churn_reached && g->churn_min >= g->churn_low &&
+                    g->churn_max <= g->churn_high;
+        json_object_set_new(s, "churn_population_held", json_boolean(held));
+        if (!g->churn_reached)
+            out_warn(g->o,
+                     "phase %s: the churn never reached its population (%lld objects): its "
+                     "creates failed or the phase was too short",
+                     g->churn_phase, (long long)g->churn_pop);
+        else if (!held)
+            out_warn(g->o,
+                     "phase %s: the churn's population left its band (%lld..%lld objects, "
+                     "allowed %lld..%lld by its tolerance): creates or deletes failed",
+                     g->churn_phase, (long long)g->churn_min, (long long)g->churn_max,
+                     (long long)g->churn_low, (long long)g->churn_high);
     }
     return s ? results_set_section(res, "lifecycle", s) : SQ_ENOMEM;
 }

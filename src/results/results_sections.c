@@ -323,6 +323,17 @@ static json_t *lifecycle_json(const results_input_t *in, size_t n)
             json_object_set_new(l, "churn_population_min", json_null());
             json_object_set_new(l, "churn_population_max", json_null());
         }
+        /* The allowed bands add up like the populations; held again from the sums. */
+        const json_t *lo = json_object_get(l, "churn_population_low"),
+                     *hi = json_object_get(l, "churn_population_high");
+        if (json_is_integer(lo) && json_is_integer(hi))
+            json_object_set_new(
+                l, "churn_population_held",
+                json_boolean(reached &&
+                             json_integer_value(json_object_get(l, "churn_population_min")) >=
+                                 json_integer_value(lo) &&
+                             json_integer_value(json_object_get(l, "churn_population_max")) <=
+                                 json_integer_value(hi)));
     }
     /* The teardowns' percentiles cannot be pooled from the inputs' percentiles. */
     json_t *t = json_object_get(l, "teardown");

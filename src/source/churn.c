@@ -176,7 +176,8 @@ static double churn_expected(const void *self, int64_t t0, int64_t t1, double *p
 static void churn_stop(void *self)
 {
     churn_t *s = self;
-    ledger_churn_band(obs_ledger(s->ctx.obs), s->ctx.phase, s->reached, s->min, s->max);
+    ledger_churn_band(obs_ledger(s->ctx.obs), s->ctx.phase, s->reached, s->min, s->max, s->pop,
+                      s->pp->churn.tolerance);
 }
 
 const src_ops_t src_churn_ops = {

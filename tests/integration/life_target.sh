@@ -62,6 +62,10 @@ rcheck "teardown deleted the population of 60, none left, none failed" \
 rcheck "the churn held the population at 60 once reached" \
     "d['sections']['lifecycle']['churn_population_min'] >= 59 and
      d['sections']['lifecycle']['churn_population_max'] <= 61" "$T/churn"
+rcheck "and results.json says it held within its tolerance band 54..66 (60 ± 10 %)" \
+    "d['sections']['lifecycle']['churn_population_held'] is True and
+     d['sections']['lifecycle']['churn_population_low'] == 54 and
+     d['sections']['lifecycle']['churn_population_high'] == 66" "$T/churn"
 rcheck "reads picked objects that exist: 50 answers, all 2xx (the target's 200s)" \
     "cell('read', 'read-gateway', '2xx')['count'] == 50 and total('read-gateway', '4xx') == 0" \
     "$T/churn"

@@ -92,6 +92,10 @@ rcheck "a population never reached has no band: reached false, min and max null"
     "d['sections']['lifecycle']['churn_population_reached'] is False and
      d['sections']['lifecycle']['churn_population_min'] is None and
      d['sections']['lifecycle']['churn_population_max'] is None" "$T/churn"
+rcheck "nor was it held: held false, the band the plan allows 900..1100 (1000 ± the default 10 %)" \
+    "d['sections']['lifecycle']['churn_population_held'] is False and
+     d['sections']['lifecycle']['churn_population_low'] == 900 and
+     d['sections']['lifecycle']['churn_population_high'] == 1100" "$T/churn"
 
 # One connection, 100 agents on one aligned tick, each answer 5 ms late: 99 wait at once.
 serve_stop

@@ -408,9 +408,10 @@ static void test_counts_add(void **state)
                  "\"teardown\": {\"objects\": %d, \"kept\": false, \"seconds\": %s, "
                  "\"stopped\": null, \"response_p50_ms\": 1.5}, \"kept\": {}, "
                  "\"churn_population_reached\": %s, \"churn_population_min\": %s, "
-                 "\"churn_population_max\": %s}",
+                 "\"churn_population_max\": %s, \"churn_population_low\": %d, "
+                 "\"churn_population_high\": %d, \"churn_population_held\": %s}",
                  5 + i, 4 + i, i ? "0.5" : "0.25", i ? "true" : "false", i ? "55" : "null",
-                 i ? "61" : "null");
+                 i ? "61" : "null", i ? 54 : 40, i ? 66 : 44, i ? "true" : "false");
         section(in[i], "lifecycle", w);
     }
     results_t *m;
@@ -442,6 +443,7 @@ static void test_counts_add(void **state)
     assert_null(json_object_get(td, "response_p50_ms"));
     assert_true(json_is_false(at(m, "lifecycle", "churn_population_reached")));
     assert_true(json_is_null(at(m, "lifecycle", "churn_population_min")));
+    assert_true(json_is_false(at(m, "lifecycle", "churn_population_held")));
     results_free(m);
     /* Both reached it: the band of the whole lies within the sums of minima and maxima. */
     json_object_set_new(results_section(in[0], "lifecycle"), "churn_population_reached",
@@ -454,6 +456,20 @@ static void test_counts_add(void **state)
     assert_true(json_is_true(at(m, "lifecycle", "churn_population_reached")));
     assert_int_equal(json_integer_value(at(m, "lifecycle", "churn_population_min")), 95);
     assert_int_equal(json_integer_value(at(m, "lifecycle", "churn_population_max")), 105);
+    /* The allowed bands add (40..44 and 54..66: 94..110), and 95..105 lies in the sum. */
+    assert_int_equal(json_integer_value(at(m, "lifecycle", "churn_population_low")), 94);
+    assert_int_equal(json_integer_value(at(m, "lifecycle", "churn_population_high")), 110);
+    assert_true(json_is_true(at(m, "lifecycle", "churn_population_held")));
+    results_free(m);
+    /* One shard's population rose to 60 over its band 40..44: the merged 94..121 leaves the
+     * summed band 94..110, so the whole did not hold. */
+    json_object_set_new(results_section(in[0], "lifecycle"), "churn_population_min",
+                        json_integer(39));
+    json_object_set_new(results_section(in[0], "lifecycle"), "churn_population_max",
+                        json_integer(60));
+    assert_int_equal(merge(in, 2, &m, NULL), 0);
+    assert_int_equal(json_integer_value(at(m, "lifecycle", "churn_population_max")), 121);
+    assert_true(json_is_false(at(m, "lifecycle", "churn_population_held")));
     results_free(m);
     results_free(in[0]);
     results_free(in[1]);
