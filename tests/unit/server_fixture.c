@@ -47,8 +47,9 @@ static int fixture_end(fixture_t *s)
     pthread_join(s->thread, NULL);
     int rc = s->loop_close_rc;
     out_free(s->out);
+    if (live == s)
+        live = NULL;
     free(s);
-    live = NULL;
     return rc;
 }
 
@@ -110,8 +111,8 @@ static size_t on_data(char *p, size_t sz, size_t n, void *arg)
     return sz * n;
 }
 
-long http_try(CURL *c, int port, const char *method, const char *path, const char *body,
-              char **out, long timeout_ms)
+long http_try(CURL *c, int port, const char *method, const char *path, const char *body, char **out,
+              long timeout_ms)
 {
     char url[1200];
     body_t b = {0};
@@ -150,14 +151,13 @@ long http_t(CURL *c, int port, const char *method, const char *path, const char 
     return st;
 }
 
-long http(CURL *c, int port, const char *method, const char *path, const char *body,
-                 char **out)
+long http(CURL *c, int port, const char *method, const char *path, const char *body, char **out)
 {
     return http_t(c, port, method, path, body, out, 10000);
 }
 
 json_t *http_json(CURL *c, int port, const char *method, const char *path, const char *body,
-                         long want)
+                  long want)
 {
     char *out = NULL;
     long st = http(c, port, method, path, body, &out);

@@ -39,8 +39,8 @@ void fixture_end_all(void);
 /* One request; returns the status, the body in *out (caller frees; may be NULL), or minus
  * libcurl's error code (-28: timed out, with what arrived). No assertion: safe off the test's
  * thread. */
-long http_try(CURL *c, int port, const char *method, const char *path, const char *body,
-              char **out, long timeout_ms);
+long http_try(CURL *c, int port, const char *method, const char *path, const char *body, char **out,
+              long timeout_ms);
 /* The same, failing the test on any transfer error but a timeout; timeout_ms bounds watches. */
 long http_t(CURL *c, int port, const char *method, const char *path, const char *body, char **out,
             long timeout_ms);

@@ -188,8 +188,8 @@ static void *writer_main(void *arg)
         else
             snprintf(path, sizeof(path), "/v1/sites/south/gateways/gw-%03d-tmp",
                      ((i - 2) * 7) % 200);
-        long st = http_try(c, w->port, k == 2 ? "DELETE" : "PUT", path,
-                           k == 2 ? NULL : "{\"v\":1}", NULL, 10000);
+        long st = http_try(c, w->port, k == 2 ? "DELETE" : "PUT", path, k == 2 ? NULL : "{\"v\":1}",
+                           NULL, 10000);
         if (st != 200 && st != 201 && st != 204 && st != 404)
             break;
     }

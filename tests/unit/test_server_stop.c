@@ -86,8 +86,8 @@ static void held_at_stop(server_faults_t *f, const char *key, json_int_t want)
                      "Content-Length: 2\r\n\r\n{}",
                      i);
         else
-            snprintf(req, sizeof req, "GET /v1/sites/north/gateways/gw-%d HTTP/1.1\r\nHost: t\r\n\r\n",
-                     i);
+            snprintf(req, sizeof req,
+                     "GET /v1/sites/north/gateways/gw-%d HTTP/1.1\r\nHost: t\r\n\r\n", i);
         fd[i] = raw_request(p, req);
     }
     wait_fault_count(c, p, key, want);
