@@ -203,10 +203,10 @@ static int64_t files_beside(const plan_t *plan)
 }
 
 /* Open files `conns` connections of the main engine take: one each, and the socket pairs of
- * its libcurl multi handles (at most 16: engine/eng_int.h's ENG_MAX_MULTIS). */
+ * its libcurl multi handles (eng_split_multis). */
 static int64_t files_for(int64_t conns)
 {
-    return conns + 2 * 16;
+    return conns + 2 * eng_split_multis((int)conns);
 }
 
 int src_fleet_agents(const plan_phase_t *pp, sched_shard_t sh)

@@ -4,7 +4,8 @@
 # loopback (one PUT per agent per tick). For each variant (a fleet `connections` setting and
 # the target's connection count) and each repeat it reads the results' "storms" section and
 # prints the dispatch spread (first to last request of a tick written on its connection,
-# libcurl's pre-request stamp) of ticks 2-6 (the first tick opens the connections), then the
+# libcurl's pre-request stamp) of ticks 2-6 (the first tick opens the connections), when the
+# first and the last were written after the tick's instant, then the
 # distribution over all repeats' ticks (the variants run interleaved: repeat 1 of each, then
 # repeat 2 of each...). Usage:
 #   tools/bench/storm.sh [BUILDDIR] [REPEATS] [AGENTS] [VARIANT...]
@@ -85,14 +86,14 @@ for r in $(seq 1 "$REPEATS"); do
             ir=$(sed -n 's/^summary: //p' "$W/cg" | awk '{ print $1 }')
             /usr/bin/python3 -c 'import json, sys
 d = json.load(open(sys.argv[1]))
-print(int(sys.argv[2]) / sum(c["count"] for c in d["cells"]))' "$W/out/results.json" "$ir" >>"$W/cg-$n"
+print(int(sys.argv[2]) / sum(c["count"] for c in d["cells"]))' "$W/out/results.json" "$ir" >>"$W/cg-${n//\//_}"
             continue
         fi
         if [ -n "${STORM_STRACE:-}" ]; then
-            /usr/bin/python3 tools/bench/tickcalls.py "$W/st" >>"$W/st-$n"
+            /usr/bin/python3 tools/bench/tickcalls.py "$W/st" >>"$W/st-${n//\//_}"
             continue
         fi
-        /usr/bin/python3 - "$W/out/results.json" "$v" "$AGENTS" >>"$W/ticks-$n" <<'PY'
+        /usr/bin/python3 - "$W/out/results.json" "$v" "$AGENTS" >>"$W/ticks-${n//\//_}" <<'PY'
 import json, sys
 d = json.load(open(sys.argv[1]))
 a = d["sections"]["storms"]["storm"]["actions"][0]
@@ -108,16 +109,16 @@ for v in "${VARIANTS[@]}"; do
 for b in "${BUILDS[@]}"; do
     n=$(row "$b" "$v")
     if [ -n "${STORM_CG:-}" ]; then
-        [ -s "$W/cg-$n" ] || continue
-        sort -n "$W/cg-$n" | awk -v v="$n" '{ a[NR] = $1 } END { printf "| %s | %d | %.1fk (%.1fk..%.1fk) |\n", v, NR, a[int((NR + 1) / 2)] / 1000, a[1] / 1000, a[NR] / 1000 }'
+        [ -s "$W/cg-${n//\//_}" ] || continue
+        sort -n "$W/cg-${n//\//_}" | awk -v v="$n" '{ a[NR] = $1 } END { printf "| %s | %d | %.1fk (%.1fk..%.1fk) |\n", v, NR, a[int((NR + 1) / 2)] / 1000, a[1] / 1000, a[NR] / 1000 }'
         continue
     fi
     if [ -n "${STORM_STRACE:-}" ]; then
-        [ -s "$W/st-$n" ] || continue
-        /usr/bin/python3 tools/bench/tickcalls.py --table "$n" "$W/st-$n"
+        [ -s "$W/st-${n//\//_}" ] || continue
+        /usr/bin/python3 tools/bench/tickcalls.py --table "$n" "$W/st-${n//\//_}"
         continue
     fi
-    /usr/bin/python3 - "$W/ticks-$n" "$n" <<'PY'
+    /usr/bin/python3 - "$W/ticks-${n//\//_}" "$n" <<'PY'
 import statistics, sys
 try:
     rows = [list(map(float, l.split())) for l in open(sys.argv[1]) if l.strip()]
@@ -128,10 +129,11 @@ if not rows:
 q = lambda v, p: v[min(len(v) - 1, int(p * len(v)))]
 sp = sorted(r[0] for r in rows)
 fw = sorted(r[1] for r in rows)
-print("| %s | %d | %.1f | %.1f / %.1f | %.1f | %.2f / %.2f / %.1f | %d | %.1f |" % (
+lw = sorted(r[0] + r[1] for r in rows)
+print("| %s | %d | %.1f | %.1f / %.1f | %.1f | %.2f / %.2f / %.1f | %.1f / %.1f | %d | %.1f |" % (
     sys.argv[2], len(rows), statistics.median(sp), sp[0], q(sp, 0.9), sp[-1],
-    statistics.median(fw), q(fw, 0.9), fw[-1], max(int(r[2]) for r in rows),
-    statistics.median(r[3] for r in rows)))
+    statistics.median(fw), q(fw, 0.9), fw[-1], statistics.median(lw), q(lw, 0.9),
+    max(int(r[2]) for r in rows), statistics.median(r[3] for r in rows)))
 PY
 done
 done | if [ -n "${STORM_CG:-}" ]; then
@@ -142,4 +144,4 @@ elif [ -n "${STORM_STRACE:-}" ]; then
     echo "| variant (fleet connections : target connections) | ticks | system calls from the wake-up to the first write, median (min..max) | of them poll | poll calls per request in the tick | connections opened (connect) |"
     echo "|---|---|---|---|---|---|"
     cat
-else { echo "| variant (fleet connections : target connections) | ticks | spread median (ms) | min / p90 (ms) | max (ms) | first written p50 / p90 / max (ms) | peak in flight | response p99 median (ms) |"; echo "|---|---|---|---|---|---|---|---|"; cat; }; fi
+else { echo "| variant (fleet connections : target connections) | ticks | spread median (ms) | min / p90 (ms) | max (ms) | first written p50 / p90 / max (ms) | last written p50 / p90 (ms) | peak in flight | response p99 median (ms) |"; echo "|---|---|---|---|---|---|---|---|---|"; cat; }; fi
