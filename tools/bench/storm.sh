@@ -1,6 +1,6 @@
 #!/usr/bin/env bash
 # Aligned-tick storm benchmark (not a test; issue 12): one squall process, a fleet of AGENTS
-# agents all due on the same wall-clock tick every 2 s for 6 ticks, against `squall serve` on
+# agents all due on the same wall-clock tick every 2 s (STORM_EVERY) for 6 ticks, against `squall serve` on
 # loopback (one PUT per agent per tick). For each variant (a fleet `connections` setting and
 # the target's connection count) and each repeat it reads the results' "storms" section and
 # prints the dispatch spread (first to last request of a tick written on its connection,
@@ -13,6 +13,10 @@
 # SHARING is the fleet's `connections` key, or plain for none (a build without the key).
 # Set STORM_BUILDS="DIR1 DIR2 ..." to compare builds: every variant runs with each build in turn
 # (build 1, build 2, ..., then the next repeat), and the rows are named DIR's last part/VARIANT.
+# Set STORM_EVERY to another period in seconds (default 2; the phase lasts 6 periods): under
+# strace a tick of thousands of agents lasts over a second, and libcurl 7.88 checks its idle
+# connections only at the first request a second or more after its last check, so STORM_STRACE
+# wants a period that leaves a quiet second between ticks (5 at 5,000 agents).
 # Set STORM_WRAP to run squall under a wrapper (e.g. "chrt -f 50"). With STORM_CG=1 each run
 # is under callgrind instead (some 50 times slower: the ticks then spread over seconds) and the
 # table gives the instructions per request of the whole process, the figure that is stable on
@@ -25,6 +29,7 @@ cd "$(dirname "$0")/../.."
 BUILDDIR=$(realpath "${1:-build}")
 REPEATS=${2:-3}
 AGENTS=${3:-5000}
+EVERY=${STORM_EVERY:-2}
 shift 3 2>/dev/null || shift $#
 VARIANTS=("$@")
 [ ${#VARIANTS[@]} -gt 0 ] || VARIANTS=(shared:256 per-agent:256)
@@ -63,7 +68,7 @@ requests:
     path: "/v1/sites/north/leases/{{agent}}"
     body: '{"holder":"{{agent}}","stamp":{{now_ns}}}'
 phases:
-  - {name: storm, duration: 12s, fleet: {agents: $AGENTS, every: 2s, timing: aligned, send: renew$key}}
+  - {name: storm, duration: $((6 * EVERY))s, fleet: {agents: $AGENTS, every: ${EVERY}s, timing: aligned, send: renew$key}}
 YAML
 done
 
