@@ -81,8 +81,8 @@ static int fleet_new(const src_ctx_t *ctx, void **self)
                     "connections, which need about %lld open files, but this process may open "
                     "at most %llu (RLIMIT_NOFILE hard limit) and one engine %d connections; use "
                     "fewer agents per process (shards) or connections: shared",
-                    pp->pos.file, pp->pos.line, pp->pos.col, pp->name, agents,
-                    (long long)need, (unsigned long long)limit, FLEET_MAX_CONNS);
+                    pp->pos.file, pp->pos.line, pp->pos.col, pp->name, agents, (long long)need,
+                    (unsigned long long)limit, FLEET_MAX_CONNS);
             return SQ_ELIMIT;
         }
     }
