@@ -103,11 +103,12 @@ typedef struct {
      * default of 16 KiB). Watch streams use a small one: their events are small and each open
      * stream holds its buffer. */
     long recv_buffer;
-    /* HTTP/1.1: split the connections over several libcurl multi handles (at most 16, of at
-     * least 16 connections each), which costs less per request (libcurl 7.88 looks through a
-     * multi handle's whole connection cache for every request) but two descriptors per extra
-     * multi handle (its wake-up socket pair). For many short requests; watch streams, which
-     * hold their connections, use one. */
+    /* HTTP/1.1: split the connections over several libcurl multi handles (eng_split_multis:
+     * at most 128, of at least 16 connections each), which costs less per request (libcurl
+     * 7.88 looks through a multi handle's connection cache for every request, and checks every
+     * idle connection of it at the first request after a second or more) but two descriptors
+     * per extra multi handle (its wake-up socket pair). For many short requests; watch streams,
+     * which hold their connections, use one. */
     bool split;
     void *user;
 } eng_config_t;
@@ -206,6 +207,9 @@ void eng_clock(const eng_t *e, eng_clock_t *out);
  * Returns 0 and sets *out, or SQ_EINVAL (bad config, reason through `o`), SQ_ENOMEM,
  * SQ_ELIBCURL, SQ_ELIBUV. `o` must outlive the engine. */
 int eng_new(uv_loop_t *loop, const eng_config_t *cfg, out_t *o, eng_t **out);
+/* The libcurl multi handles cfg.split makes for `connections` HTTP/1.1 connections; each holds
+ * two descriptors (its wake-up socket pair) beside the connections. */
+int eng_split_multis(int connections);
 
 /* Queues one request; its fields are copied. Returns 0, or SQ_EINVAL (no on_done, no path, a path
  * that is not one: a control byte, a space, no leading '/'),

@@ -193,18 +193,22 @@ int src_issue(src_issuer_t *is, src_t *from, const src_req_t *req);
  * holds the pages that followed). The engine copies method and path. */
 int src_issue_as(src_issuer_t *is, src_t *from, const src_req_t *req, const char *method,
                  const char *path);
+/* The agents of phase pp's fleet that shard sh runs (sched_shard_share; all of them when the
+ * run is not split): a shard keeps connections for its own agents only. */
+int src_fleet_agents(const plan_phase_t *pp, sched_shard_t sh);
 /* Whether phase pp's fleet has a connection of its own per agent (fleet.connections:
- * per-agent; by default an aligned fleet over HTTP/1.1 with more agents than
- * target.connections, when its connections fit the open-file limit, which this raises to the
+ * per-agent; by default an aligned fleet over HTTP/1.1 whose shard sh has more agents than
+ * target.connections, when their connections fit the open-file limit, which this raises to the
  * hard one). */
-bool src_fleet_per_agent(const plan_t *plan, const plan_phase_t *pp);
-/* The main engine's connections: target.connections, or the most agents of a fleet that has a
- * connection per agent. The engine keeps them open across ticks (libcurl closes a connection
- * idle for more than 118 s, CURLOPT_MAXAGE_CONN's default). */
-int src_fleet_connections(const plan_t *plan);
-/* The connections phase `phase` may use (eng_set_connections): its fleet's agents when it has
- * a connection per agent, else target.connections (also for the teardown, phase n_phases). */
-int src_phase_connections(const plan_t *plan, size_t phase);
+bool src_fleet_per_agent(const plan_t *plan, const plan_phase_t *pp, sched_shard_t sh);
+/* The main engine's connections in shard sh: target.connections, or the most agents the shard
+ * runs in a fleet that has a connection per agent. The engine keeps them open across ticks
+ * (libcurl closes a connection idle for more than 118 s, CURLOPT_MAXAGE_CONN's default). */
+int src_fleet_connections(const plan_t *plan, sched_shard_t sh);
+/* The connections phase `phase` may use in shard sh (eng_set_connections): its fleet's agents
+ * in the shard when it has a connection per agent, else target.connections (also for the
+ * teardown, phase n_phases). */
+int src_phase_connections(const plan_t *plan, size_t phase, sched_shard_t sh);
 
 /* Sends the requests issued ahead whose intended start is at or before now_ns (eng_release);
  * returns how many. */

@@ -136,7 +136,7 @@ static void print_counts(const plan_t *p, const plan_phase_t *ph, const src_esti
 }
 
 static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, size_t name_width,
-                        out_t *o)
+                        sched_shard_t sh, out_t *o)
 {
     const plan_phase_t *ph = &p->phases[i];
     src_estimate_t e = est[i];
@@ -144,9 +144,9 @@ static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, si
     out_print(o, "\nphase %zu/%zu %s: %s\n", i + 1, p->n_phases, ph->name,
               e.open_ended ? "until done" : dur_str(e.duration_ns, d, sizeof d));
     print_shape(ph, &e, o);
-    if (src_fleet_per_agent(p, ph))
+    if (src_fleet_per_agent(p, ph, sh))
         out_print(o, "    connections: one per agent, up to %d, kept open across ticks\n",
-                  src_phase_connections(p, i));
+                  src_phase_connections(p, i, sh));
     print_counts(p, ph, &e, name_width, o);
     out_print(o, "    total %s requests, peak %s/s", count_str(e.requests, a, 32),
               count_str(e.peak_rate, b, 32));
@@ -250,13 +250,13 @@ static void print_judges(const plan_t *p, const src_estimate_t *est, out_t *o)
     }
 }
 
-static void print_summary(const plan_t *p, const src_estimate_t *est, out_t *o)
+static void print_summary(const plan_t *p, const src_estimate_t *est, sched_shard_t sh, out_t *o)
 {
     print_target(p, o);
     double total = 0, peak = 0;
     int64_t dur = 0;
     for (size_t i = 0; i < p->n_phases; i++) {
-        print_phase(p, i, est, name_width(p), o);
+        print_phase(p, i, est, name_width(p), sh, o);
         src_estimate_t e = est[i];
         total += e.requests;
         peak = e.peak_rate > peak ? e.peak_rate : peak;
@@ -317,7 +317,7 @@ static json_t *shape_json(const plan_phase_t *ph)
 }
 
 /* One phase: its shape and every expected figure of src_estimate. */
-static json_t *phase_json(const plan_t *p, size_t i, const src_estimate_t *e)
+static json_t *phase_json(const plan_t *p, size_t i, const src_estimate_t *e, sched_shard_t sh)
 {
     const plan_phase_t *ph = &p->phases[i];
     json_t *per = json_object();
@@ -337,7 +337,7 @@ static json_t *phase_json(const plan_t *p, size_t i, const src_estimate_t *e)
         json_object_set_new(j, "fleet",
                             json_pack("{s:i, s:f, s:s}", "agents", ph->fleet.agents, "every_s",
                                       ph->fleet.every_ns / 1e9, "connections",
-                                      src_fleet_per_agent(p, ph) ? "per-agent" : "shared"));
+                                      src_fleet_per_agent(p, ph, sh) ? "per-agent" : "shared"));
     if (ph->churn.on)
         json_object_set_new(
             j, "churn",
@@ -416,7 +416,7 @@ static json_t *check_json(const char *path, const plan_t *p, const src_estimate_
     double total = 0, peak = 0;
     int64_t dur = 0;
     for (size_t i = 0; i < p->n_phases; i++) {
-        json_array_append_new(phases, phase_json(p, i, &est[i]));
+        json_array_append_new(phases, phase_json(p, i, &est[i], sh));
         total += est[i].requests;
         peak = est[i].peak_rate > peak ? est[i].peak_rate : peak;
         dur += est[i].duration_ns;
@@ -465,7 +465,7 @@ static int validate_and_print(const char *path, plan_t *p, bool as_json, sched_s
         if (sched_shard_split(sh))
             out_print(o, "shard    %d of %d: the figures below are this shard's share\n", sh.index,
                       sh.count);
-        print_summary(p, est, o);
+        print_summary(p, est, sh, o);
     }
     free(text);
     json_decref(j);

@@ -319,14 +319,24 @@ static int multi_init(eng_t *e, struct eng_multi *mh, int conns)
     return 0;
 }
 
+/* Connections per multi handle when split. */
+static int split_per(int conns)
+{
+    int per = (conns + ENG_MAX_MULTIS - 1) / ENG_MAX_MULTIS;
+    return per < ENG_MULTI_CONNS ? ENG_MULTI_CONNS : per;
+}
+
+int eng_split_multis(int connections)
+{
+    int per = split_per(connections);
+    return (connections + per - 1) / per;
+}
+
 int eng_glue_start(eng_t *e, const eng_glue_ops_t *ops)
 {
     e->glue = ops;
-    int conns = e->cfg.connections, per = conns;
-    if (e->cfg.split && e->cfg.http == ENG_HTTP_1_1) {
-        per = (conns + ENG_MAX_MULTIS - 1) / ENG_MAX_MULTIS;
-        per = per < ENG_MULTI_CONNS ? ENG_MULTI_CONNS : per;
-    }
+    int conns = e->cfg.connections;
+    int per = e->cfg.split && e->cfg.http == ENG_HTTP_1_1 ? split_per(conns) : conns;
     int n = (conns + per - 1) / per;
     e->multis = calloc((size_t)n, sizeof(*e->multis));
     e->dirty = calloc((size_t)n, sizeof(*e->dirty));

@@ -93,7 +93,7 @@ static void phase_start(run_t *r, size_t i, int64_t base_ns)
     ph->planned_to_ns = base_ns;
     ph->realtime0_ns = clock_real_ns() - (clock_mono_ns() - base_ns);
     ph->started = true;
-    eng_set_connections(r->eng, src_phase_connections(r->plan, i));
+    eng_set_connections(r->eng, src_phase_connections(r->plan, i, r->shard));
     obs_phase(r->obs, i, base_ns, ph->realtime0_ns);
     if (i < r->plan->n_phases)
         act_moment(r->act, ACT_PHASE_START, i, base_ns);
@@ -536,7 +536,7 @@ static void run_loop(run_t *r)
     cfg.on_unreachable = on_unreachable;
     cfg.on_io = on_io;
     cfg.split = true; /* many short requests: cheaper on several multi handles */
-    cfg.connections = src_fleet_connections(r->plan); /* or a fleet's own, one per agent */
+    cfg.connections = src_fleet_connections(r->plan, r->shard); /* or one per agent */
     cfg.user = r;
     int rc = eng_new(&r->loop, &cfg, r->o, &r->eng);
     if (rc == 0) {

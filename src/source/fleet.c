@@ -73,15 +73,16 @@ static int fleet_new(const src_ctx_t *ctx, void **self)
         return SQ_ENOMEM;
     if (pp->fleet.conns == PLAN_CONNS_PER_AGENT) {
         uint64_t limit = file_raise_limit();
-        int64_t need = files_for(pp->fleet.agents) + files_beside(ctx->plan);
-        if (pp->fleet.agents > FLEET_MAX_CONNS || (limit && (uint64_t)need > limit)) {
+        int agents = src_fleet_agents(pp, ctx->shard); /* this shard's: its own connections */
+        int64_t need = files_for(agents) + files_beside(ctx->plan);
+        if (agents > FLEET_MAX_CONNS || (limit && (uint64_t)need > limit)) {
             out_raw(ctx->o, OUT_ERROR,
                     "%s:%d:%d: error: phase '%s': fleet.connections: per-agent opens %d "
                     "connections, which need about %lld open files, but this process may open "
                     "at most %llu (RLIMIT_NOFILE hard limit) and one engine %d connections; use "
                     "fewer agents per process (shards) or connections: shared",
-                    pp->pos.file, pp->pos.line, pp->pos.col, pp->name, pp->fleet.agents,
-                    (long long)need, (unsigned long long)limit, FLEET_MAX_CONNS);
+                    pp->pos.file, pp->pos.line, pp->pos.col, pp->name, agents, (long long)need,
+                    (unsigned long long)limit, FLEET_MAX_CONNS);
             return SQ_ELIMIT;
         }
     }
@@ -202,38 +203,46 @@ static int64_t files_beside(const plan_t *plan)
 }
 
 /* Open files `conns` connections of the main engine take: one each, and the socket pairs of
- * its libcurl multi handles (at most 16: engine/eng_int.h's ENG_MAX_MULTIS). */
+ * its libcurl multi handles (eng_split_multis). */
 static int64_t files_for(int64_t conns)
 {
-    return conns + 2 * 16;
+    return conns + 2 * eng_split_multis((int)conns);
 }
 
-bool src_fleet_per_agent(const plan_t *plan, const plan_phase_t *pp)
+int src_fleet_agents(const plan_phase_t *pp, sched_shard_t sh)
+{
+    return (int)sched_shard_share(sh, 0, (uint64_t)pp->fleet.agents);
+}
+
+bool src_fleet_per_agent(const plan_t *plan, const plan_phase_t *pp, sched_shard_t sh)
 {
     if (!pp->fleet.on || pp->fleet.conns == PLAN_CONNS_SHARED)
         return false;
     if (pp->fleet.conns == PLAN_CONNS_PER_AGENT)
         return true;
+    int agents = src_fleet_agents(pp, sh);
     if (!FLEET_PER_AGENT_DEFAULT || pp->fleet.timing != PLAN_TIMING_ALIGNED ||
-        plan->target.http == PLAN_HTTP_2 || pp->fleet.agents <= plan->target.connections)
+        plan->target.http == PLAN_HTTP_2 || agents <= plan->target.connections)
         return false;
     uint64_t limit = file_raise_limit();
-    return limit == 0 || (uint64_t)(files_for(pp->fleet.agents) + files_beside(plan)) <= limit;
+    return limit == 0 || (uint64_t)(files_for(agents) + files_beside(plan)) <= limit;
 }
 
-int src_phase_connections(const plan_t *plan, size_t phase)
+int src_phase_connections(const plan_t *plan, size_t phase, sched_shard_t sh)
 {
     const plan_phase_t *pp = phase < plan->n_phases ? &plan->phases[phase] : NULL;
     int conns = plan->target.connections;
-    return pp && src_fleet_per_agent(plan, pp) && pp->fleet.agents > conns ? pp->fleet.agents
-                                                                           : conns;
+    int agents = pp ? src_fleet_agents(pp, sh) : 0;
+    return pp && src_fleet_per_agent(plan, pp, sh) && agents > conns ? agents : conns;
 }
 
-int src_fleet_connections(const plan_t *plan)
+int src_fleet_connections(const plan_t *plan, sched_shard_t sh)
 {
     int conns = plan->target.connections;
-    for (size_t i = 0; i < plan->n_phases; i++)
-        if (src_fleet_per_agent(plan, &plan->phases[i]) && plan->phases[i].fleet.agents > conns)
-            conns = plan->phases[i].fleet.agents;
+    for (size_t i = 0; i < plan->n_phases; i++) {
+        int agents = src_fleet_agents(&plan->phases[i], sh);
+        if (src_fleet_per_agent(plan, &plan->phases[i], sh) && agents > conns)
+            conns = agents;
+    }
     return conns;
 }

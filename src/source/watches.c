@@ -32,24 +32,24 @@ static int phase_watchers(const plan_phase_t *pp, sched_shard_t sh)
 
 /* Open files one process needs for a phase's watches: one connection per stream over HTTP/1.1,
  * streams / (streams per connection) over HTTP/2. */
-static int64_t files_needed(const plan_t *p, int watchers)
+static int64_t files_needed(const plan_t *p, int watchers, sched_shard_t sh)
 {
     int64_t conns = watchers;
     if (p->target.http == PLAN_HTTP_2) {
         int per = p->target.streams ? p->target.streams : H2_STREAMS;
         conns = (watchers + per - 1) / per;
     }
-    return conns + src_fleet_connections(p) + FD_RESERVE;
+    return conns + src_fleet_connections(p, sh) + FD_RESERVE;
 }
 
 int64_t src_files_needed(const plan_t *p, int shards)
 {
-    int64_t most = files_needed(p, 0);
+    /* Shard 1 has the most: the ceiling of each set's count (and fleet's agents) / N. */
+    sched_shard_t first =
+        shards > 1 ? (sched_shard_t){.index = 1, .count = shards} : (sched_shard_t){0, 0};
+    int64_t most = files_needed(p, 0, first);
     for (size_t i = 0; i < p->n_phases; i++) {
-        /* Shard 1 has the most: the ceiling of each set's count / N. */
-        sched_shard_t first = shards > 1 ? (sched_shard_t){.index = 1, .count = shards}
-                                         : (sched_shard_t){0, 0};
-        int64_t need = files_needed(p, phase_watchers(&p->phases[i], first));
+        int64_t need = files_needed(p, phase_watchers(&p->phases[i], first), first);
         most = need > most ? need : most;
     }
     return most;
@@ -58,7 +58,7 @@ int64_t src_files_needed(const plan_t *p, int shards)
 int watches_check_files(const src_ctx_t *ctx, const plan_phase_t *pp, int watchers)
 {
     uint64_t limit = file_raise_limit();
-    int64_t need = files_needed(ctx->plan, watchers);
+    int64_t need = files_needed(ctx->plan, watchers, ctx->shard);
     if (limit == 0 || (uint64_t)need <= limit)
         return 0;
     out_raw(ctx->o, OUT_ERROR,

@@ -631,20 +631,30 @@ static void test_fleet_ahead(void **state)
 
 /* fleet.connections: one connection per agent for the main engine when asked, or by default
  * for an aligned fleet over HTTP/1.1 that fits the open-file limit; shared keeps
- * target.connections; spread and HTTP/2 fleets share by default. */
+ * target.connections; spread and HTTP/2 fleets share by default. A shard (`--shard I/N`) keeps
+ * connections for its own agents only: agents k with k mod N = I - 1 (round-robin ownership,
+ * DEVELOPERS.md), so of 300 agents shard 1/4 runs 75, shard 2/7 runs 43 (k = 1, 8, ..., 295)
+ * and shard 1/32 runs 10, fewer than target.connections, so by default it shares those. */
 static void test_fleet_connections(void **state)
 {
     (void)state;
     static const struct {
         const char *target, *fleet;
+        sched_shard_t shard;
         int want;
     } cases[] = {
-        {"", "timing: aligned, connections: per-agent", 300},
-        {"", "timing: aligned, connections: shared", 16},
-        {"", "timing: aligned", 300},
-        {"", "timing: spread", 16},
-        {"", "timing: spread, connections: per-agent", 300},
-        {", http: \"2\"", "timing: aligned", 16},
+        {"", "timing: aligned, connections: per-agent", {0, 0}, 300},
+        {"", "timing: aligned, connections: shared", {0, 0}, 16},
+        {"", "timing: aligned", {0, 0}, 300},
+        {"", "timing: spread", {0, 0}, 16},
+        {"", "timing: spread, connections: per-agent", {0, 0}, 300},
+        {", http: \"2\"", "timing: aligned", {0, 0}, 16},
+        {"", "timing: aligned", {1, 1}, 300},
+        {"", "timing: aligned", {1, 4}, 75},
+        {"", "timing: aligned, connections: per-agent", {2, 7}, 43},
+        {"", "timing: aligned", {1, 32}, 16},
+        {"", "timing: aligned, connections: per-agent", {1, 32}, 16},
+        {"", "timing: aligned, connections: shared", {1, 4}, 16},
     };
     for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
         char yaml[512];
@@ -663,7 +673,8 @@ static void test_fleet_connections(void **state)
         if (plan_load(path, NULL, 0, &plan, o))
             fail_msg("plan: %s", out_captured_diag(o));
         unlink(path);
-        assert_int_equal(src_fleet_connections(plan), cases[i].want);
+        assert_int_equal(src_fleet_connections(plan, cases[i].shard), cases[i].want);
+        assert_int_equal(src_phase_connections(plan, 0, cases[i].shard), cases[i].want);
         plan_free(plan);
         out_free(o);
     }
