@@ -49,14 +49,17 @@ static void print_send(out_t *o, const plan_t *p, const plan_phase_t *ph, const 
     char d[32], b[32], c[32];
     const char *cls = p->reqs[s->cls.index].name;
     if (s->next == PLAN_NEXT_FIXED) {
-        out_print(o, "      %s every %s, next: fixed (on its schedule, whatever the answers)\n",
-                  cls, dur_str(s->every_ns, d, sizeof d));
+        char jit[32] = "";
+        if (ph->fleet.timing == PLAN_TIMING_JITTER)
+            snprintf(jit, sizeof jit, " \xc2\xb1%.0f%%", s->jitter * 100);
+        out_print(o, "      %s every %s%s, next: fixed (on its schedule, whatever the answers)\n",
+                  cls, dur_str(s->every_ns, d, sizeof d), jit);
         return;
     }
     out_print(o,
               "      %s every %s, next: after-answer (its answer + the period %s%.0f%%), retry "
               "after a failure: %s from %s capped at %s\n",
-              cls, dur_str(s->every_ns, d, sizeof d), "\xc2\xb1", ph->fleet.jitter * 100,
+              cls, dur_str(s->every_ns, d, sizeof d), "\xc2\xb1", s->jitter * 100,
               plan_backoff_name(s->retry.policy), dur_str(s->retry.base_ns, b, sizeof b),
               dur_str(s->retry.cap_ns, c, sizeof c));
 }
@@ -91,8 +94,14 @@ static void print_shape(const plan_t *p, const plan_phase_t *ph, const src_estim
                   ph->fleet.leave_ns ? dur_str(ph->fleet.leave_ns, l, sizeof l) : "",
                   ph->fleet.watch.name ? ", each watching with " : "",
                   ph->fleet.watch.name ? ph->fleet.watch.name : "");
-        for (size_t k = 0; k < ph->fleet.n_send; k++)
+        bool after = false;
+        for (size_t k = 0; k < ph->fleet.n_send; k++) {
             print_send(o, p, ph, &ph->fleet.send[k]);
+            after |= ph->fleet.send[k].next == PLAN_NEXT_AFTER_ANSWER;
+        }
+        if (after)
+            out_print(o, "      (after-answer counts below take every answer as instant: at most "
+                         "as many)\n");
     }
     if (ph->churn.on)
         out_print(o, "    churn: %g/s around a population of %d\n", ph->churn.rate,
@@ -344,8 +353,9 @@ static json_t *send_json(const plan_t *p, const plan_phase_t *ph, const plan_sen
     bool after = s->next == PLAN_NEXT_AFTER_ANSWER;
     json_t *j = json_pack("{s:s, s:f, s:s}", "class", p->reqs[s->cls.index].name, "every_s",
                           s->every_ns / 1e9, "next", plan_next_name(s->next));
+    if (j && (after || ph->fleet.timing == PLAN_TIMING_JITTER))
+        json_object_set_new(j, "jitter", json_real(s->jitter));
     if (j && after) {
-        json_object_set_new(j, "jitter", json_real(ph->fleet.jitter));
         json_object_set_new(j, "retry",
                             json_pack("{s:s, s:f, s:f}", "policy",
                                       plan_backoff_name(s->retry.policy), "base_s",

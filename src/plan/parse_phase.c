@@ -135,6 +135,7 @@ static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *p
         plan_send_t *s = &ph->fleet.send[ph->fleet.n_send];
         s->every_ns = ph->fleet.every_ns;
         s->next = ph->fleet.next;
+        s->jitter = ph->fleet.jitter;
         s->retry = ph->fleet.retry;
         char wi[280];
         snprintf(wi, sizeof wi, seq ? "%s[%zu]" : "%s", ws, i);
@@ -150,6 +151,13 @@ static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *p
             int nx = (int)s->next;
             pc_enum(c, it, "next", wi, plan_next_names, &nx);
             s->next = (enum plan_next)nx;
+            pc_pct(c, it, "jitter", wi, &s->jitter);
+            if (pc_get_key(c, it, "jitter") && ph->fleet.timing != PLAN_TIMING_JITTER &&
+                s->next != PLAN_NEXT_AFTER_ANSWER)
+                pc_error(c, pc_get_key(c, it, "jitter"),
+                         "%s: key 'jitter' needs timing jitter or next: after-answer (expected "
+                         "one of them, got next fixed)",
+                         wi);
             parse_retry(c, it, wi, PLAN_KEYS_SEND_RETRY, s->next == PLAN_NEXT_AFTER_ANSWER,
                         &s->retry);
             if (!pc_ref(c, &s->cls, cls, wi))

@@ -104,7 +104,7 @@ static int fleet_new(const src_ctx_t *ctx, void **self)
             .period_ns = ps->every_ns,
             .timing = timing[pp->fleet.timing],
             .next = after ? SCHED_NEXT_AFTER_ANSWER : SCHED_NEXT_FIXED,
-            .jitter = pp->fleet.jitter,
+            .jitter = ps->jitter,
             .drift = pp->fleet.drift,
             .join_ns = pp->fleet.join_ns,
             .leave_ns = pp->fleet.leave_ns,
@@ -239,7 +239,7 @@ static json_t *action_json(const fleet_t *s, const action_t *a)
     json_t *j = json_pack("{s:s, s:I, s:s, s:s, s:f}", "class", s->ctx.plan->reqs[a->cls].name,
                           "every_ns", (json_int_t)ps->every_ns, "timing", timing[pp->fleet.timing],
                           "next", plan_next_name(ps->next), "jitter",
-                          after || pp->fleet.timing == PLAN_TIMING_JITTER ? pp->fleet.jitter : 0.0);
+                          after || pp->fleet.timing == PLAN_TIMING_JITTER ? ps->jitter : 0.0);
     if (j && after) {
         json_object_set_new(j, "retry",
                             json_pack("{s:s, s:I, s:I}", "policy",
