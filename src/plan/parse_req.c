@@ -85,7 +85,7 @@ void pc_backoff(pctx_t *c, yaml_node_t *n, const char *w, enum plan_keyset keys,
     bool b = pc_dur(c, n, "base", w, 0, base_ns);
     bool k = pc_dur(c, n, "cap", w, 0, cap_ns);
     if ((b || k) && *cap_ns < *base_ns)
-        pc_error(c, pc_get(c, n, k ? "cap" : "base"),
+        pc_error(c, pc_get_key(c, n, k ? "cap" : "base"),
                  "%s: cap below base (expected cap >= base, got base %.3gs, cap %.3gs)", w,
                  *base_ns / 1e9, *cap_ns / 1e9);
 }
