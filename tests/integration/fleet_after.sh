@@ -54,43 +54,44 @@ classes() {
 # Connections beyond the requests that can be outstanding at once (each after-answer agent has
 # at most one; a fixed agent 1.5 over a 3 s stall), so none waits inside squall for one and the
 # target's arrival instants are the sends.
-cat >"$T/stall.yaml" <<YAML
-seed: 20
-target: {url: "http://127.0.0.1:$PORT_stall", connections: 3600, timeout: 10s}
+# plan_head NAME SEED CONNECTIONS CLASS...: a plan's target, classes and the fleet's first keys.
+plan_head() {
+    local name=$1 seed=$2 conns=$3 port
+    shift 3
+    port=PORT_$name
+    cat <<YAML
+seed: $seed
+target: {url: "http://127.0.0.1:${!port}", connections: $conns, timeout: 10s}
 requests:
-$(classes still jittered fixed)
+$(classes "$@")
+accept: [generator-bound]
 phases:
   - name: renewals
     duration: 22s
     fleet:
       agents: 1000
       every: 2s
-      timing: spread
       next: after-answer
+YAML
+}
+{
+    plan_head stall 20 3600 still jittered fixed
+    cat <<YAML
       send:
         - {class: still, jitter: 0%}
         - {class: jittered, jitter: 10%}
         - {class: fixed, next: fixed}
-accept: [generator-bound]
 YAML
-cat >"$T/errors.yaml" <<YAML
-seed: 21
-target: {url: "http://127.0.0.1:$PORT_errors", connections: 2200, timeout: 10s}
-requests:
-$(classes fixedretry fulljitter)
-phases:
-  - name: renewals
-    duration: 22s
-    fleet:
-      agents: 1000
-      every: 2s
-      next: after-answer
+} >"$T/stall.yaml"
+{
+    plan_head errors 21 2200 fixedretry fulljitter
+    cat <<YAML
       jitter: 10%
       send:
         - {class: fixedretry, retry: {policy: fixed, base: 500ms}}
         - {class: fulljitter, retry: {policy: full-jitter, base: 200ms, cap: 7s}}
-accept: [generator-bound]
 YAML
+} >"$T/errors.yaml"
 for p in stall errors; do
     "$SQUALL" check "$T/$p.yaml" >"$T/$p.check" 2>&1 || { echo "FAIL: check $p"; cat "$T/$p.check"; exit 1; }
 done

@@ -67,6 +67,16 @@ def rbar_windows(rows, t0, prefix, n_win):
     return out
 
 
+def measured(rows, t0, prefix, label, n_win, before):
+    """R-bar per window of one action's arrivals, printed, and checked spread before the fault."""
+    m = rbar_windows(rows, t0, prefix, n_win)
+    r = [x for x, _ in m]
+    print(f"  {label}: R-bar {fmt(r)}; sends {[n for _, n in m]}")
+    check(f"{label}: R-bar before the fault < 0.1 ({fmt(r[w] for w in before)})",
+          all(r[w] < 0.1 for w in before))
+    return r
+
+
 def predict(argv, n_win):
     """The model's mean R-bar per window over SEEDS and the tolerance of each (n_win of them:
     the run must have lasted its planned 22 s)."""
@@ -89,23 +99,15 @@ def stall(out, log):
     w1 = math.ceil(b / P)  # the first whole period after the stall
     before = range(0, int(a // P))
     # 1. After-answer without jitter: spread before, one instant after.
-    m = rbar_windows(rows, t0, "/v1/still/", n_win)
-    r = [x for x, _ in m]
-    print(f"  still (after-answer, no jitter): R-bar {fmt(r)}; sends {[n for _, n in m]}")
-    check(f"after-answer, no jitter: R-bar before the stall < 0.1 ({fmt(r[w] for w in before)})",
-          all(r[w] < 0.1 for w in before))
+    r = measured(rows, t0, "/v1/still/", "after-answer, no jitter", n_win, before)
     check(f"after-answer, no jitter: R-bar in the period after the stall (window {w1}) > 0.8 "
           f"({r[w1]:.3f})", r[w1] > 0.8)
     # 2. With +-10 % jitter: the decay the model predicts, window by window.
-    m = rbar_windows(rows, t0, "/v1/jittered/", n_win)
-    r = [x for x, _ in m]
-    print(f"  jittered (after-answer, +-10 %): R-bar {fmt(r)}; sends {[n for _, n in m]}")
+    r = measured(rows, t0, "/v1/jittered/", "after-answer, +-10 %", n_win, before)
     want, tol = predict(["--agents", str(AGENTS), "--period", str(P), "--jitter", "0.1",
                          "--stall", f"{a}:{b}", "--duration", str(dur)], n_win)
-    print(f"  model (mean of seeds 1-10):     R-bar {fmt(want)}")
-    print(f"  tolerance (0.03 + 3 sd):        {fmt(tol)}")
-    check(f"after-answer, +-10 %: R-bar before the stall < 0.1 ({fmt(r[w] for w in before)})",
-          all(r[w] < 0.1 for w in before))
+    print(f"  model (mean of seeds 1-10): R-bar {fmt(want)}")
+    print(f"  tolerance (0.03 + 3 sd):    {fmt(tol)}")
     check(f"after-answer, +-10 %: R-bar in the period after the stall > 0.8 ({r[w1]:.3f})",
           r[w1] > 0.8)
     ws = range(w1, min(w1 + 4, n_win))
@@ -114,11 +116,7 @@ def stall(out, log):
           f"{fmt(tol[w] for w in ws)})",
           all(abs(r[w] - want[w]) < tol[w] for w in ws) and r[ws[-1]] < r[w1])
     # 3. The fixed schedule: only the sends held during the stall bunched.
-    m = rbar_windows(rows, t0, "/v1/fixed/", n_win)
-    r = [x for x, _ in m]
-    print(f"  fixed schedule: R-bar {fmt(r)}; sends {[n for _, n in m]}")
-    check(f"fixed schedule: R-bar before the stall < 0.1 ({fmt(r[w] for w in before)})",
-          all(r[w] < 0.1 for w in before))
+    r = measured(rows, t0, "/v1/fixed/", "fixed schedule", n_win, before)
     check(f"fixed schedule: R-bar back below 0.1 in the first whole period after the stall "
           f"(window {w1}: {r[w1]:.3f})", r[w1] < 0.1)
     # Squall's own account: the stall shows in response time (counted from the intended instant)
@@ -159,10 +157,8 @@ def errors(out, log):
              ["--backoff", "fixed", "--backoff-base", "0.5"]),
             ("full-jitter retries from 0.2 s to 7 s", "/v1/fulljitter/",
              ["--backoff", "full-jitter", "--backoff-base", "0.2", "--backoff-cap", "7"])):
-        m = rbar_windows(rows, t0, prefix, n_win)
-        r = [x for x, _ in m]
+        r = measured(rows, t0, prefix, name, n_win, range(0, int(a // P)))
         want, tol = predict(base + model, n_win)
-        print(f"  {name}: R-bar {fmt(r)}; sends {[n for _, n in m]}")
         print(f"  model (mean of seeds 1-10): R-bar {fmt(want)}")
         print(f"  tolerance (0.03 + 3 sd):    {fmt(tol)}")
         check(f"{name}: windows {w1}-{ws[-1]} after the error window as the model predicts "
