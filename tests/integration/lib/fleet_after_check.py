@@ -9,8 +9,12 @@ window [w*P, (w+1)*P) of run time, theta = 2*pi*(t mod P)/P (Mardia & Jupp, "Dir
 Statistics", 2000; the Rayleigh statistic; from memory). Run time t = 0 is results.json's
 meta.start (ms).
 
-Usage: fleet_after_check.py stall|errors RESULTS_DIR ACCESS_LOG
-Prints "ok: ..." / "FAIL: ..." lines with the figures; exits 1 if any check failed."""
+A check that depends on squall sending on time (R-bar after the fault against the model) is not
+evidence when squall itself says it fell behind (results.json's generator-bound seconds) in the
+span it compares: it then prints "INCONCLUSIVE: ..." instead of failing, and the script exits 3
+unless another check failed (exit 1). Exit 0 when every check held.
+
+Usage: fleet_after_check.py stall|errors RESULTS_DIR ACCESS_LOG"""
 import datetime
 import json
 import math
@@ -34,13 +38,27 @@ SEEDS = range(1, 11)
 # sin(pi/10)/(pi/10) = 0.984 (at most 0.016), and the mean of ten seeds has its own error
 # (sd / sqrt(10)).
 SPREAD_SDS, SLACK = 3.0, 0.03
-bad = 0
+bad = inconclusive = 0
+behind = []  # squall's generator-bound seconds within the span the timing checks compare
 
 
-def check(desc, ok):
-    global bad
+def check(desc, ok, timing=False):
+    """timing: the check needs squall to have sent on time (see the module's head)."""
+    global bad, inconclusive
+    if not ok and timing and behind:
+        print(f"INCONCLUSIVE: {desc} (squall fell behind its schedule in seconds {behind})")
+        inconclusive += 1
+        return
     print(("ok: " if ok else "FAIL: ") + desc)
     bad += not ok
+
+
+def note_behind(d, lo, hi):
+    """Sets `behind` to squall's generator-bound seconds in [lo, hi) of run time."""
+    g = d["sections"]["generator"]["generator_bound"]
+    behind[:] = [x for x in g["list"] if lo <= x < hi]
+    print(f"squall's generator-bound seconds: {g['list']} ({g['last_reason']}); in the compared "
+          f"span [{lo:.0f}, {hi:.0f}) s: {behind}")
 
 
 def fmt(xs):
@@ -98,43 +116,41 @@ def stall(out, log):
     n_win = 11
     w1 = math.ceil(b / P)  # the first whole period after the stall
     before = range(0, int(a // P))
-    # 1. After-answer without jitter: spread before, one instant after.
-    r = measured(rows, t0, "/v1/still/", "after-answer, no jitter", n_win, before)
-    check(f"after-answer, no jitter: R-bar in the period after the stall (window {w1}) > 0.8 "
-          f"({r[w1]:.3f})", r[w1] > 0.8)
-    # 2. With +-10 % jitter: the decay the model predicts, window by window.
+    note_behind(d, math.floor(a), (w1 + 4) * P)
+    # 1. After-answer with +-10 % jitter: the decay the model predicts, window by window.
     r = measured(rows, t0, "/v1/jittered/", "after-answer, +-10 %", n_win, before)
     want, tol = predict(["--agents", str(AGENTS), "--period", str(P), "--jitter", "0.1",
                          "--stall", f"{a}:{b}", "--duration", str(dur)], n_win)
     print(f"  model (mean of seeds 1-10): R-bar {fmt(want)}")
     print(f"  tolerance (0.03 + 3 sd):    {fmt(tol)}")
     check(f"after-answer, +-10 %: R-bar in the period after the stall > 0.8 ({r[w1]:.3f})",
-          r[w1] > 0.8)
+          r[w1] > 0.8, timing=True)
     ws = range(w1, min(w1 + 4, n_win))
     check(f"after-answer, +-10 %: windows {w1}-{ws[-1]} decay as the model predicts (measured "
           f"{fmt(r[w] for w in ws)}, model {fmt(want[w] for w in ws)}, within "
           f"{fmt(tol[w] for w in ws)})",
-          all(abs(r[w] - want[w]) < tol[w] for w in ws) and r[ws[-1]] < r[w1])
-    # 3. The fixed schedule: only the sends held during the stall bunched.
+          all(abs(r[w] - want[w]) < tol[w] for w in ws) and r[ws[-1]] < r[w1], timing=True)
+    # 2. The fixed schedule: only the sends held during the stall bunched.
     r = measured(rows, t0, "/v1/fixed/", "fixed schedule", n_win, before)
     check(f"fixed schedule: R-bar back below 0.1 in the first whole period after the stall "
           f"(window {w1}: {r[w1]:.3f})", r[w1] < 0.1)
     # Squall's own account: the stall shows in response time (counted from the intended instant)
     # and the agents waiting for answers do not make squall "behind its schedule".
-    cells = [c for c in d["cells"] if c["class"] in ("still", "jittered") and c["outcome"] == "2xx"]
+    cells = [c for c in d["cells"] if c["class"] == "jittered" and c["outcome"] == "2xx"]
     worst = max(c["summary"]["response"]["max"] for c in cells) / 1e9
     check(f"after-answer: the stall shows in squall's response time (max {worst:.2f} s >= 2 s)",
           worst >= 2.0)
     g = d["sections"]["generator"]
     lag, gen = g["schedule_lag_p99_ms"], g["generator_bound"]["seconds"]
     check(f"agents waiting for their answers are not squall behind its schedule: schedule lag "
-          f"p99 {lag:.1f} ms < 100 ms (a 3 s wait counted as lag would be 3,000; "
-          f"generator-bound seconds: {gen})", lag < 100)
+          f"p99 {lag:.1f} ms < 1 s (generator-bound seconds: {gen}; counted from the agents' grid, "
+          f"the stall's wait of up to 3 s, one send in 11 of each after-answer agent, would make "
+          f"about 1 request in 30 over 1 s late: p99 over 1 s)", lag < 1000)
     acts = d["sections"]["fleets"]["renewals"]["actions"]
     check("results.json records each fleet action's next and retry ("
           + ", ".join(f"{x['class']}: {x['next']}" for x in acts) + ")",
-          [x["next"] for x in acts] == ["after-answer", "after-answer", "fixed"]
-          and acts[0]["retry"]["policy"] == "full-jitter" and "retry" not in acts[2])
+          [x["next"] for x in acts] == ["after-answer", "fixed"]
+          and acts[0]["retry"]["policy"] == "full-jitter" and "retry" not in acts[1])
 
 
 def errors(out, log):
@@ -149,6 +165,7 @@ def errors(out, log):
     n_win = 11
     w1 = math.ceil(b / P)
     ws = range(w1, min(w1 + 3, n_win))
+    note_behind(d, math.floor(a), (w1 + 3) * P)
     base = ["--agents", str(AGENTS), "--period", str(P), "--jitter", "0.1", "--errors",
             f"{a}:{b}", "--duration", str(dur)]
     res = {}
@@ -163,11 +180,12 @@ def errors(out, log):
         print(f"  tolerance (0.03 + 3 sd):    {fmt(tol)}")
         check(f"{name}: windows {w1}-{ws[-1]} after the error window as the model predicts "
               f"(measured {fmt(r[w] for w in ws)}, model {fmt(want[w] for w in ws)}, within "
-              f"{fmt(tol[w] for w in ws)})", all(abs(r[w] - want[w]) < tol[w] for w in ws))
+              f"{fmt(tol[w] for w in ws)})", all(abs(r[w] - want[w]) < tol[w] for w in ws),
+              timing=True)
         res[name] = r
     fx, fj = res["fixed retries every 0.5 s"], res["full-jitter retries from 0.2 s to 7 s"]
     check(f"full-jitter retries leave a lower R-bar than fixed ones in window {w1} "
-          f"({fj[w1]:.3f} < {fx[w1]:.3f} - 0.3)", fj[w1] < fx[w1] - 0.3)
+          f"({fj[w1]:.3f} < {fx[w1]:.3f} - 0.3)", fj[w1] < fx[w1] - 0.3, timing=True)
     acts = d["sections"]["fleets"]["renewals"]["actions"]
     check("results.json: both actions took failures and retried them ("
           + ", ".join(f"{x['class']}: {x['failures']} of {x['answers']}" for x in acts) + ")",
@@ -177,4 +195,4 @@ def errors(out, log):
 
 if __name__ == "__main__":
     {"stall": stall, "errors": errors}[sys.argv[1]](sys.argv[2], sys.argv[3])
-    sys.exit(1 if bad else 0)
+    sys.exit(1 if bad else 3 if inconclusive else 0)
