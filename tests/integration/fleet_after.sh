@@ -99,7 +99,7 @@ grep -q "jittered every 2s, next: after-answer (its answer + the period ±10%), 
     grep -q "fulljitter every 2s, next: after-answer (its answer + the period ±10%), retry after a failure: full-jitter from 200ms capped at 7s" "$T/errors.check"
 expect "squall check shows each action's next and retry" test $? = 0
 
-# Both runs begin 2 s from now; the faults are set at once, their times counted from the POST
+# Both runs begin 3 s from now (time to get ready on a loaded machine); the faults are set at once, their times counted from the POST
 # to land at run time 6 s (stall, 3 s) and 5 s (errors, 8 s): the POST's own latency (ms) is
 # the only error, and the checks read the windows back from the access logs anyway.
 # The errors run's error rate would trip the default error-rate brake: --no-brakes.
@@ -115,7 +115,7 @@ attempt() {
     for p in stall errors; do
         plan_$p >"$T/$p.yaml"
     done
-    START=$(instant_in 2)
+    START=$(instant_in 3)
     for p in stall errors; do
         timeout 120 "$SQUALL" run "$T/$p.yaml" -o "$T/$p" --quiet --keep --start-at "$START" \
             $([ $p = errors ] && echo --no-brakes) >"$T/$p.stdout" 2>"$T/$p.stderr" &
