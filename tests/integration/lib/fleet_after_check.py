@@ -147,7 +147,7 @@ def stall(out, log):
     check(f"agents waiting for their answers are not squall behind its schedule: schedule lag "
           f"p99 {lag:.1f} ms < 1 s (generator-bound seconds: {gen}; counted from the agents' grid, "
           f"the stall's wait of up to 3 s, one send in 11 of each after-answer agent, would make "
-          f"about 1 request in 30 over 1 s late: p99 over 1 s)", lag < 1000)
+          f"about 1 request in 30 over 1 s late: p99 over 1 s)", lag < 1000, (0, dur))
     acts = d["sections"]["fleets"]["renewals"]["actions"]
     check("results.json records each fleet action's next and retry ("
           + ", ".join(f"{x['class']}: {x['next']}" for x in acts) + ")",
