@@ -154,10 +154,10 @@ typedef struct {
 
 typedef struct {
     plan_ref_t cls;
-    int64_t every_ns;   /* the fleet's `every` unless given */
+    int64_t every_ns;    /* the fleet's `every` unless given */
     enum plan_next next; /* the fleet's `next` unless given */
     double jitter;       /* the fleet's `jitter` unless given (jitter timing, after-answer) */
-    plan_retry_t retry; /* the fleet's `retry` unless given (after-answer only) */
+    plan_retry_t retry;  /* the fleet's `retry` unless given (after-answer only) */
 } plan_send_t;
 
 typedef struct {

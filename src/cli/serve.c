@@ -47,7 +47,8 @@ static const cli_opt_t serve_opts[] = {
     {"retry-after", 0, "S", "Retry-After seconds on injected errors and 429s (default 1)"},
     {"stall-at", 0, "T", "start of a stall window, from startup (e.g. 10s)"},
     {"stall-for", 0, "S", "length of the stall window: no /v1/ answers during it"},
-    {"fail-at", 0, "T", "start of an error window, from startup: every /v1/ answer is --fail-status"},
+    {"fail-at", 0, "T",
+     "start of an error window, from startup: every /v1/ answer is --fail-status"},
     {"fail-for", 0, "S", "length of the error window"},
     {"drop-watches-at", 0, "T", "close every open watch once at T from startup"},
     {"max-inflight", 0, "N", "limit of /v1/ requests in flight (watches excluded)"},
@@ -89,7 +90,8 @@ static int parse_listen(const char *s, server_opts_t *o, char *host, size_t host
     return rc;
 }
 
-/* --stall-at, --stall-for, --fail-at, --fail-for, --drop-watches-at: durations as plans write them (squall/value.h). */
+/* --stall-at, --stall-for, --fail-at, --fail-for, --drop-watches-at: durations as plans write
+ * them (squall/value.h). */
 static int read_duration(int k, const char *v, server_faults_t *f, const char **need)
 {
     int64_t *slot = k == O_STALL_AT    ? &f->stall_at_ns

@@ -37,9 +37,9 @@ static const char *const action_http[] = {"method", "url", "body", NULL};
 static const char *const step[] = {"rate", "for", NULL};
 static const char *const clients[] = {"count", "think", NULL};
 static const char *const watches[] = {"open", NULL}; /* besides the watch class names */
-static const char *const fleet[] = {"agents", "every", "timing", "jitter",      "drift", "join",
-                                    "leave",  "send",  "watch",  "connections", "next",  "retry",
-                                    NULL};
+static const char *const fleet[] = {"agents", "every", "timing", "jitter", "drift",
+                                    "join",   "leave", "send",   "watch",  "connections",
+                                    "next",   "retry", NULL};
 static const char *const send[] = {"class", "every", "next", "jitter", "retry", NULL};
 /* The first four are churn's required keys: parse_phase.c reports a missing one by index. */
 static const char *const churn[] = {"create", "delete", "rate", "population", "tolerance", NULL};

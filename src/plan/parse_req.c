@@ -94,8 +94,7 @@ static void parse_reconnect(pctx_t *c, yaml_node_t *n, const char *where, plan_r
 {
     char w[200];
     snprintf(w, sizeof w, "%s.reconnect", where);
-    pc_backoff(c, n, w, PLAN_KEYS_RECONNECT, &r->watch.policy, &r->watch.base_ns,
-               &r->watch.cap_ns);
+    pc_backoff(c, n, w, PLAN_KEYS_RECONNECT, &r->watch.policy, &r->watch.base_ns, &r->watch.cap_ns);
 }
 
 void plan_watch_defaults(plan_req_t *r)

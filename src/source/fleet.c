@@ -18,7 +18,6 @@ typedef struct {
     const plan_send_t *ps;
     watch_backoff_t *backoff; /* after-answer: one per agent, else NULL */
     rng_t rng;                /* after-answer: retry delays */
-    uint64_t answers, failures; /* after-answer: answers taken, of them failures (retried) */
 } action_t;
 
 /* Aligned ticks are rendered this long before their instant (at most half the period), so at
@@ -220,13 +219,10 @@ static void fleet_done(void *self, const src_done_t *d)
         return;
     watch_backoff_t *b = &a->backoff[d->agent];
     int64_t retry = -1;
-    a->answers++;
-    if (d->res->outcome == ENG_OUT_S2XX) {
+    if (d->res->outcome == ENG_OUT_S2XX)
         watch_backoff_reset(b);
-    } else {
-        a->failures++;
+    else
         retry = watch_backoff_next(b, &a->rng);
-    }
     sched_fleet_answer(a->sched, d->agent, answer_at(d->res) - s->ctx.base_ns, retry, NULL);
 }
 
@@ -246,8 +242,8 @@ static double fleet_expected(const void *self, int64_t t0, int64_t t1, double *p
 }
 
 /* The phase's entry of the results' "fleets" section: each action as planned (class, period,
- * timing, next, jitter, retry) and, for after-answer actions, the answers it took and how many
- * were failures it retried. */
+ * timing, next, jitter, retry). The plan alone, so that every shard writes the same and a merge
+ * keeps it; the failures an action retried are its cells' non-2xx answers. */
 static json_t *action_json(const fleet_t *s, const action_t *a)
 {
     const plan_phase_t *pp = src_phase(&s->ctx);
@@ -259,13 +255,10 @@ static json_t *action_json(const fleet_t *s, const action_t *a)
                           "next", plan_next_name(ps->next), "jitter",
                           after || pp->fleet.timing == PLAN_TIMING_JITTER ? ps->jitter : 0.0);
     if (j && after) {
-        json_object_set_new(j, "retry",
-                            json_pack("{s:s, s:I, s:I}", "policy",
-                                      plan_backoff_name(ps->retry.policy), "base_ns",
-                                      (json_int_t)ps->retry.base_ns, "cap_ns",
-                                      (json_int_t)ps->retry.cap_ns));
-        json_object_set_new(j, "answers", json_integer((json_int_t)a->answers));
-        json_object_set_new(j, "failures", json_integer((json_int_t)a->failures));
+        json_object_set_new(
+            j, "retry",
+            json_pack("{s:s, s:I, s:I}", "policy", plan_backoff_name(ps->retry.policy), "base_ns",
+                      (json_int_t)ps->retry.base_ns, "cap_ns", (json_int_t)ps->retry.cap_ns));
     }
     return j;
 }

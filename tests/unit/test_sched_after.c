@@ -124,7 +124,8 @@ static void test_jitter_uniform(void **state)
     for (int i = 0; i < 10; i++)
         exp[i] = n / 10.0;
     double chi = chi_square(obs, exp, 10);
-    printf("after-answer jitter 10%%: gaps' X2 %.3f over 10 bins (critical %.3f)\n", chi, CHI2_9_01);
+    printf("after-answer jitter 10%%: gaps' X2 %.3f over 10 bins (critical %.3f)\n", chi,
+           CHI2_9_01);
     assert_true(chi < CHI2_9_01);
     sched_fleet_free(f);
 }
@@ -285,8 +286,8 @@ static void print_rbar(const char *what, const double *r, size_t from, size_t to
 static void test_stall_storm(void **state)
 {
     (void)state;
-    target_t tg = {.service = 5 * MS, .stall_a = 10 * S, .stall_b = 13 * S, .err_a = -1,
-                   .err_b = -1};
+    target_t tg = {
+        .service = 5 * MS, .stall_a = 10 * S, .stall_b = 13 * S, .err_a = -1, .err_b = -1};
     sched_fleet_cfg_t cfg = after_cfg(1000, 2 * S, 0, 40 * S);
     double r[WINDOWS];
     simulate(&cfg, &tg, WATCH_POLICY_FULL_JITTER, 200 * MS, r, 20);
@@ -323,8 +324,8 @@ static void test_stall_storm(void **state)
 static void test_retry_policies(void **state)
 {
     (void)state;
-    target_t tg = {.service = 5 * MS, .stall_a = -1, .stall_b = -1, .err_a = 10 * S,
-                   .err_b = 25 * S};
+    target_t tg = {
+        .service = 5 * MS, .stall_a = -1, .stall_b = -1, .err_a = 10 * S, .err_b = 25 * S};
     sched_fleet_cfg_t cfg = after_cfg(1000, 2 * S, 0.1, 40 * S);
     double fx[WINDOWS], fj[WINDOWS];
     simulate(&cfg, &tg, WATCH_POLICY_FIXED, 200 * MS, fx, 20);
@@ -339,9 +340,12 @@ static void test_retry_policies(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_waits_for_answer),    cmocka_unit_test(test_jitter_uniform),
-        cmocka_unit_test(test_first_count_join_leave), cmocka_unit_test(test_shards),
-        cmocka_unit_test(test_stall_storm),         cmocka_unit_test(test_retry_policies),
+        cmocka_unit_test(test_waits_for_answer),
+        cmocka_unit_test(test_jitter_uniform),
+        cmocka_unit_test(test_first_count_join_leave),
+        cmocka_unit_test(test_shards),
+        cmocka_unit_test(test_stall_storm),
+        cmocka_unit_test(test_retry_policies),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
