@@ -137,9 +137,27 @@ typedef struct {
     plan_pos_t pos;
 } plan_step_t;
 
+/* phases[].fleet.next: where an agent's next action comes from. */
+enum plan_next { PLAN_NEXT_FIXED, PLAN_NEXT_AFTER_ANSWER };
+
+/* phases[].fleet.retry: how an after-answer agent waits after a failed answer (an error status,
+ * a transport error, a timeout) before it tries again; the policies of watch reconnects. */
+typedef struct {
+    enum plan_backoff policy; /* full-jitter */
+    int64_t base_ns, cap_ns;  /* 200 ms, 7 s */
+} plan_retry_t;
+/* The default retry of lease renewers, common practice (from memory: client libraries of
+ * coordination services retry a failed renewal after a jittered wait from a few hundred
+ * milliseconds, capped at a few seconds, well inside the lease). */
+#define PLAN_RETRY_BASE_NS INT64_C(200000000)
+#define PLAN_RETRY_CAP_NS  INT64_C(7000000000)
+
 typedef struct {
     plan_ref_t cls;
-    int64_t every_ns; /* the fleet's `every` unless given */
+    int64_t every_ns;    /* the fleet's `every` unless given */
+    enum plan_next next; /* the fleet's `next` unless given */
+    double jitter;       /* the fleet's `jitter` unless given (jitter timing, after-answer) */
+    plan_retry_t retry;  /* the fleet's `retry` unless given (after-answer only) */
 } plan_send_t;
 
 typedef struct {
@@ -228,7 +246,10 @@ typedef struct {
         int agents;
         int64_t every_ns;
         enum plan_timing timing; /* spread */
-        double jitter, drift;    /* fractions of `every` (jitter mode; clock drift per agent) */
+        double jitter, drift;    /* fractions of `every` (jitter timing and after-answer
+                                  * periods; clock drift per agent) */
+        enum plan_next next;     /* fixed: the default of its send items */
+        plan_retry_t retry;      /* the default of its after-answer send items */
         int64_t join_ns;         /* agents join evenly over this time, 0 = all at start */
         int64_t leave_ns;        /* they leave (first in, first out) over the phase's last
                                   * `leave`, 0 = all stay to the end */
@@ -384,6 +405,8 @@ const char *plan_kind_name(enum plan_kind k);
  * any write but a DELETE or a `deletes` class, whatever `creates` says (RFC 9110, 15.3.2). */
 bool plan_req_may_create(const plan_req_t *r);
 const char *plan_backoff_name(enum plan_backoff b);
+/* "fixed", "after-answer". */
+const char *plan_next_name(enum plan_next n);
 
 /* Every key the loader accepts, per mapping of a plan (src/plan/keys.c): the loader checks each
  * mapping against its set, so this table is the plan format's list of keys, and squall-plan(5)
@@ -403,6 +426,8 @@ enum plan_keyset {
     PLAN_KEYS_WATCHES, /* besides the watch class names */
     PLAN_KEYS_FLEET,
     PLAN_KEYS_SEND,
+    PLAN_KEYS_RETRY,
+    PLAN_KEYS_SEND_RETRY,
     PLAN_KEYS_CHURN,
     PLAN_KEYS_TEARDOWN,
     PLAN_KEYS_REPLAY,

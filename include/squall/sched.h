@@ -19,6 +19,9 @@
  *   closed loop   C clients: issue, wait for the completion, think, repeat. The next intended
  *                 start is completion + think; results must be marked closed-loop.
  *   fleet         N periodic agents (spread, jitter or aligned timing), yielding (t, agent).
+ *   after-answer  a fleet agent that takes its next instant from its last answer (answer +
+ *                 period, jittered; a retry delay after a failure) instead of a fixed grid: the
+ *                 way node agents renew leases, and how a stalled server synchronises a fleet.
  *
  *   shard         one process's share when N processes split a run (`run --shard I/N`, I in
  *                 1..N): every count of starts, clients and agents is dealt so that the N
@@ -189,11 +192,21 @@ enum sched_timing {
     SCHED_ALIGNED, /* every agent fires on the wall-clock (CLOCK_REALTIME) multiples of P */
 };
 
+/* Where an agent's next action comes from. */
+enum sched_next {
+    SCHED_NEXT_FIXED,        /* its timing's grid, whatever the answers (the default) */
+    SCHED_NEXT_AFTER_ANSWER, /* its last answer: sched_fleet_answer */
+};
+
 typedef struct {
     int agents;        /* >= 1 */
     int64_t period_ns; /* P > 0 */
     enum sched_timing timing;
-    double jitter;       /* x in [0, 1): SCHED_JITTER only */
+    /* After-answer: the first action is as `timing` says; each later one waits for the answer
+     * to the last (sched_fleet_answer) and comes P_i·(1 + U(−x, +x)) after it (x = jitter, in
+     * any timing), or a retry delay after it when the caller says the answer was a failure. */
+    enum sched_next next;
+    double jitter;       /* x in [0, 1): SCHED_JITTER, and the periods of after-answer agents */
     double drift;        /* d in [0, 0.5): agent i's period is P·(1 + e_i), e_i ~ U(−d, +d) */
     int64_t join_ns;     /* agent k joins at k * join / agents; 0 = all at t = 0 */
     int64_t leave_ns;    /* agent k leaves at duration - leave + k * leave / agents (first in,
@@ -214,20 +227,34 @@ typedef struct sched_fleet sched_fleet_t;
 /* SQ_EINVAL for a bad config, SQ_ENOMEM. Memory is O(agents), allocated here only. */
 int sched_fleet_new(const sched_fleet_cfg_t *cfg, sched_fleet_t **out);
 void sched_fleet_free(sched_fleet_t *f);
-/* The next action in time order (ties by agent index): O(log agents), no allocation. */
+/* The next action in time order (ties by agent index): O(log agents), no allocation. An
+ * after-answer agent then waits (sched_fleet_waiting) and has no next action until
+ * sched_fleet_answer gives it one. */
 bool sched_fleet_next(sched_fleet_t *f, int64_t *t_ns, int *agent);
 bool sched_fleet_peek(const sched_fleet_t *f, int64_t *t_ns, int *agent);
 /* Every action due at or before now_ns, up to max, into t_out[] and agent_out[]. */
 size_t sched_fleet_due(sched_fleet_t *f, int64_t now_ns, int64_t *t_out, int *agent_out,
                        size_t max);
+/* A waiting after-answer agent's answer came at at_ns (rel): its next action is at
+ * at_ns + retry_ns when retry_ns >= 0 (a failure: the caller's backoff delay), else at
+ * at_ns + P_i·(1 + U(−x, +x)) (a success: its period, jittered). Writes that instant to
+ * *next_ns (may be NULL) and returns true if it will act again, false if the instant falls at or
+ * after the agent's end (it is then done) or on misuse (a fixed fleet, an agent out of range or
+ * not waiting: nothing changes). O(log agents), no allocation. */
+bool sched_fleet_answer(sched_fleet_t *f, int agent, int64_t at_ns, int64_t retry_ns,
+                        int64_t *next_ns);
+/* Whether an after-answer agent acted and waits for its answer. */
+bool sched_fleet_waiting(const sched_fleet_t *f, int agent);
 /* Exactly how many actions the fleet yields over its duration: O(agents) for spread and
- * aligned; for jitter a dry run of a copy (O(actions · log agents)). SQ_EINVAL or SQ_ENOMEM as
- * a negative value. */
+ * aligned; for jitter a dry run of a copy (O(actions · log agents)); for after-answer agents a
+ * dry run with every answer instant (the most they can do). SQ_EINVAL or SQ_ENOMEM as a
+ * negative value. */
 int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg);
 /* The fleet's planned actions in [t0, t1) (relative ns), from its own agents: exact for spread
  * and aligned timing (every instant is fixed when the fleet is built; an aligned tick counts
  * whole, all its agents at once), the expectation for jitter (each period is drawn as it goes;
- * see fleet.c). Joins and leaves are counted. O(agents) per call; it does not move the fleet. */
+ * see fleet.c); after-answer agents as if every answer were instant (an upper bound). Joins
+ * and leaves are counted. O(agents) per call; it does not move the fleet. */
 double sched_fleet_expected(const sched_fleet_t *f, int64_t t0_ns, int64_t t1_ns);
 /* The CLOCK_REALTIME-to-phase offset helper for aligned fleets: the first t >= 0 such that
  * realtime0 + t is a multiple of period. */

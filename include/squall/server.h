@@ -40,6 +40,8 @@ typedef struct {
     int retry_after_s;      /* Retry-After on injected errors and on over-limit 429s */
     int64_t stall_at_ns;    /* stall window start, -1 = none */
     int64_t stall_for_ns;   /* stall window length */
+    int64_t fail_at_ns;     /* error window start, -1 = none: every /v1/ request processed in */
+    int64_t fail_for_ns;    /* [fail_at, fail_at + fail_for) is answered fail_status */
     int64_t drop_at_ns;     /* drop every open watch once at this time, -1 = never */
     int max_inflight;       /* 0 = unlimited */
     bool over_limit_reject; /* above max_inflight: true = answer 429, false = queue */

@@ -61,7 +61,8 @@ typedef struct {
     int cls;
     int64_t intended_ns;
     int agent;  /* {{agent}}: fleet agent, closed-loop client, else 0 */
-    int client; /* handed back in done: a closed-loop client, else -1 */
+    int client; /* handed back in done: a closed-loop client, a fleet's after-answer action,
+                 * else -1 */
     /* Issued ahead of intended_ns (a storm tick rendered before its instant): rendered, with
      * {{now_ns}} at intended_ns, and handed to the engine now, but held there until src_release
      * at or after intended_ns; only then is it counted as started. One cancelled while held
@@ -74,6 +75,7 @@ typedef struct {
 typedef struct {
     int cls;
     int client;
+    int agent;               /* the request's src_req_t.agent */
     const eng_result_t *res; /* of the last page */
 } src_done_t;
 

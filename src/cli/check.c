@@ -43,7 +43,29 @@ static void print_target(const plan_t *p, out_t *o)
     out_print(o, "\n");
 }
 
-static void print_shape(const plan_phase_t *ph, const src_estimate_t *e, out_t *o)
+/* One fleet action: its class and period, and where its next instant comes from. */
+static void print_send(out_t *o, const plan_t *p, const plan_phase_t *ph, const plan_send_t *s)
+{
+    char d[32], b[32], c[32];
+    const char *cls = p->reqs[s->cls.index].name;
+    if (s->next == PLAN_NEXT_FIXED) {
+        char jit[32] = "";
+        if (ph->fleet.timing == PLAN_TIMING_JITTER)
+            snprintf(jit, sizeof jit, " \xc2\xb1%.0f%%", s->jitter * 100);
+        out_print(o, "      %s every %s%s, next: fixed (on its schedule, whatever the answers)\n",
+                  cls, dur_str(s->every_ns, d, sizeof d), jit);
+        return;
+    }
+    out_print(o,
+              "      %s every %s, next: after-answer (its answer + the period %s%.0f%%), retry "
+              "after a failure: %s from %s capped at %s\n",
+              cls, dur_str(s->every_ns, d, sizeof d), "\xc2\xb1", s->jitter * 100,
+              plan_backoff_name(s->retry.policy), dur_str(s->retry.base_ns, b, sizeof b),
+              dur_str(s->retry.cap_ns, c, sizeof c));
+}
+
+static void print_shape(const plan_t *p, const plan_phase_t *ph, const src_estimate_t *e,
+                        out_t *o)
 {
     const char *arr = ph->arrivals == PLAN_ARRIVALS_POISSON ? "poisson" : "even";
     if (ph->shape == PLAN_LOAD_CONSTANT)
@@ -72,6 +94,14 @@ static void print_shape(const plan_phase_t *ph, const src_estimate_t *e, out_t *
                   ph->fleet.leave_ns ? dur_str(ph->fleet.leave_ns, l, sizeof l) : "",
                   ph->fleet.watch.name ? ", each watching with " : "",
                   ph->fleet.watch.name ? ph->fleet.watch.name : "");
+        bool after = false;
+        for (size_t k = 0; k < ph->fleet.n_send; k++) {
+            print_send(o, p, ph, &ph->fleet.send[k]);
+            after |= ph->fleet.send[k].next == PLAN_NEXT_AFTER_ANSWER;
+        }
+        if (after)
+            out_print(o, "      (after-answer counts below take every answer as instant: at most "
+                         "as many)\n");
     }
     if (ph->churn.on)
         out_print(o, "    churn: %g/s around a population of %d\n", ph->churn.rate,
@@ -143,7 +173,7 @@ static void print_phase(const plan_t *p, size_t i, const src_estimate_t *est, si
     char d[32], a[32], b[32], c[32];
     out_print(o, "\nphase %zu/%zu %s: %s\n", i + 1, p->n_phases, ph->name,
               e.open_ended ? "until done" : dur_str(e.duration_ns, d, sizeof d));
-    print_shape(ph, &e, o);
+    print_shape(p, ph, &e, o);
     if (src_fleet_per_agent(p, ph, sh))
         out_print(o, "    connections: one per agent, up to %d, kept open across ticks\n",
                   src_phase_connections(p, i, sh));
@@ -317,6 +347,23 @@ static json_t *shape_json(const plan_phase_t *ph)
 }
 
 /* One phase: its shape and every expected figure of src_estimate. */
+/* A fleet action as planned: every period, its next instant and retry policy. */
+static json_t *send_json(const plan_t *p, const plan_phase_t *ph, const plan_send_t *s)
+{
+    bool after = s->next == PLAN_NEXT_AFTER_ANSWER;
+    json_t *j = json_pack("{s:s, s:f, s:s}", "class", p->reqs[s->cls.index].name, "every_s",
+                          s->every_ns / 1e9, "next", plan_next_name(s->next));
+    if (j && (after || ph->fleet.timing == PLAN_TIMING_JITTER))
+        json_object_set_new(j, "jitter", json_real(s->jitter));
+    if (j && after) {
+        json_object_set_new(j, "retry",
+                            json_pack("{s:s, s:f, s:f}", "policy",
+                                      plan_backoff_name(s->retry.policy), "base_s",
+                                      s->retry.base_ns / 1e9, "cap_s", s->retry.cap_ns / 1e9));
+    }
+    return j;
+}
+
 static json_t *phase_json(const plan_t *p, size_t i, const src_estimate_t *e, sched_shard_t sh)
 {
     const plan_phase_t *ph = &p->phases[i];
@@ -333,11 +380,16 @@ static json_t *phase_json(const plan_t *p, size_t i, const src_estimate_t *e, sc
         e->clients, "watches", e->watches, "agents", e->agents, "created", e->created, "deleted",
         e->deleted, "alive_after", e->alive_after, "may_create", e->may_create, "teardown",
         ph->teardown.on);
-    if (ph->fleet.on)
+    if (ph->fleet.on) {
+        json_t *acts = json_array();
+        for (size_t k = 0; acts && k < ph->fleet.n_send; k++)
+            json_array_append_new(acts, send_json(p, ph, &ph->fleet.send[k]));
         json_object_set_new(j, "fleet",
-                            json_pack("{s:i, s:f, s:s}", "agents", ph->fleet.agents, "every_s",
-                                      ph->fleet.every_ns / 1e9, "connections",
-                                      src_fleet_per_agent(p, ph, sh) ? "per-agent" : "shared"));
+                            json_pack("{s:i, s:f, s:s, s:o*}", "agents", ph->fleet.agents,
+                                      "every_s", ph->fleet.every_ns / 1e9, "connections",
+                                      src_fleet_per_agent(p, ph, sh) ? "per-agent" : "shared",
+                                      "actions", acts));
+    }
     if (ph->churn.on)
         json_object_set_new(
             j, "churn",

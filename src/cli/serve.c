@@ -22,6 +22,8 @@ enum {
     O_RETRY_AFTER,
     O_STALL_AT,
     O_STALL_FOR,
+    O_FAIL_AT,
+    O_FAIL_FOR,
     O_DROP_AT,
     O_MAX_INFLIGHT,
     O_OVER_LIMIT,
@@ -45,6 +47,9 @@ static const cli_opt_t serve_opts[] = {
     {"retry-after", 0, "S", "Retry-After seconds on injected errors and 429s (default 1)"},
     {"stall-at", 0, "T", "start of a stall window, from startup (e.g. 10s)"},
     {"stall-for", 0, "S", "length of the stall window: no /v1/ answers during it"},
+    {"fail-at", 0, "T",
+     "start of an error window, from startup: every /v1/ answer is --fail-status"},
+    {"fail-for", 0, "S", "length of the error window"},
     {"drop-watches-at", 0, "T", "close every open watch once at T from startup"},
     {"max-inflight", 0, "N", "limit of /v1/ requests in flight (watches excluded)"},
     {"over-limit", 0, "MODE", "above --max-inflight: queue (default) or reject (429)"},
@@ -85,11 +90,14 @@ static int parse_listen(const char *s, server_opts_t *o, char *host, size_t host
     return rc;
 }
 
-/* --stall-at, --stall-for, --drop-watches-at: durations as plans write them (squall/value.h). */
+/* --stall-at, --stall-for, --fail-at, --fail-for, --drop-watches-at: durations as plans write
+ * them (squall/value.h). */
 static int read_duration(int k, const char *v, server_faults_t *f, const char **need)
 {
     int64_t *slot = k == O_STALL_AT    ? &f->stall_at_ns
                     : k == O_STALL_FOR ? &f->stall_for_ns
+                    : k == O_FAIL_AT   ? &f->fail_at_ns
+                    : k == O_FAIL_FOR  ? &f->fail_for_ns
                                        : &f->drop_at_ns;
     int rc = server_duration_parse(v, slot);
     *need = rc == SQ_ERANGE ? SERVER_DURATION_RANGE : VALUE_DURATION_EXPECTS;
@@ -170,6 +178,8 @@ static int read_opt(int k, const char *v, server_opts_t *t, char *host, const ch
         return value_parse_number(v, 0, 1, &f->fail_rate);
     case O_STALL_AT:
     case O_STALL_FOR:
+    case O_FAIL_AT:
+    case O_FAIL_FOR:
     case O_DROP_AT:
         return read_duration(k, v, f, need);
     case O_ACCESS_LOG:
@@ -252,6 +262,8 @@ static int serve_main(const cli_cmd_t *cmd, int argc, char **argv, out_t *o)
     const server_opts_t *so = &sa.opts;
     if (so->faults.stall_at_ns >= 0 && so->faults.stall_for_ns <= 0)
         return cli_usage_error(cmd, o, "--stall-at needs --stall-for (its length)");
+    if (so->faults.fail_at_ns >= 0 && so->faults.fail_for_ns <= 0)
+        return cli_usage_error(cmd, o, "--fail-at needs --fail-for (its length)");
     if (!value_is_loopback(so->host)) {
         if (!sa.pub)
             return cli_usage_error(

@@ -37,9 +37,10 @@ static const char *const action_http[] = {"method", "url", "body", NULL};
 static const char *const step[] = {"rate", "for", NULL};
 static const char *const clients[] = {"count", "think", NULL};
 static const char *const watches[] = {"open", NULL}; /* besides the watch class names */
-static const char *const fleet[] = {"agents", "every", "timing", "jitter",      "drift", "join",
-                                    "leave",  "send",  "watch",  "connections", NULL};
-static const char *const send[] = {"class", "every", NULL};
+static const char *const fleet[] = {"agents", "every", "timing", "jitter", "drift",
+                                    "join",   "leave", "send",   "watch",  "connections",
+                                    "next",   "retry", NULL};
+static const char *const send[] = {"class", "every", "next", "jitter", "retry", NULL};
 /* The first four are churn's required keys: parse_phase.c reports a missing one by index. */
 static const char *const churn[] = {"create", "delete", "rate", "population", "tolerance", NULL};
 static const char *const teardown[] = {"rate", NULL};
@@ -74,6 +75,8 @@ const plan_keyset_t plan_keysets[PLAN_KEYS_N] = {
     [PLAN_KEYS_WATCHES] = {"phases[].watches", watches, NULL},
     [PLAN_KEYS_FLEET] = {"phases[].fleet", fleet, NULL},
     [PLAN_KEYS_SEND] = {"phases[].fleet.send[]", send, NULL},
+    [PLAN_KEYS_RETRY] = {"phases[].fleet.retry", reconnect, NULL},
+    [PLAN_KEYS_SEND_RETRY] = {"phases[].fleet.send[].retry", reconnect, NULL},
     [PLAN_KEYS_CHURN] = {"phases[].churn", churn, NULL},
     [PLAN_KEYS_TEARDOWN] = {"phases[].teardown", teardown, NULL},
     [PLAN_KEYS_REPLAY] = {"phases[].replay", replay, NULL},

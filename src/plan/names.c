@@ -10,6 +10,13 @@ const char *const plan_accept_names[] = {"generator-bound", "few-samples", "stop
 const char *const plan_backoff_names[] = {
     "immediate", "fixed", "exponential", "full-jitter", "equal-jitter", "decorrelated", NULL};
 
+const char *const plan_next_names[] = {"fixed", "after-answer", NULL};
+
+const char *plan_next_name(enum plan_next n)
+{
+    return plan_next_names[n];
+}
+
 const char *plan_kind_name(enum plan_kind k)
 {
     return plan_kind_names[k];

@@ -99,7 +99,27 @@ static void parse_clients(pctx_t *c, yaml_node_t *n, const char *where, plan_pha
     pc_dur(c, n, "think", w, 0, &ph->clients.think_ns);
 }
 
-/* send: CLASS, or a list whose items are CLASS or {class, every}. */
+/* retry: {policy, base, cap} of `n` when given; refused where no action retries (`allowed`
+ * false: a send item on the fixed schedule). */
+static void parse_retry(pctx_t *c, yaml_node_t *n, const char *w, enum plan_keyset keys,
+                        bool allowed, plan_retry_t *r)
+{
+    yaml_node_t *v = pc_get(c, n, "retry");
+    if (!v)
+        return;
+    if (!allowed) {
+        pc_error(c, pc_get_key(c, n, "retry"),
+                 "%s: key 'retry' needs next: after-answer (a fixed schedule never retries; "
+                 "expected next: after-answer, got fixed)",
+                 w);
+        return;
+    }
+    char wr[300];
+    snprintf(wr, sizeof wr, "%s.retry", w);
+    pc_backoff(c, v, wr, keys, &r->policy, &r->base_ns, &r->cap_ns);
+}
+
+/* send: CLASS, or a list whose items are CLASS or {class, every, next, retry}. */
 static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *ph)
 {
     const char *const *keys = plan_keys(PLAN_KEYS_SEND);
@@ -114,6 +134,9 @@ static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *p
         yaml_node_t *it = seq ? pc_node(c, n->data.sequence.items.start[i]) : n;
         plan_send_t *s = &ph->fleet.send[ph->fleet.n_send];
         s->every_ns = ph->fleet.every_ns;
+        s->next = ph->fleet.next;
+        s->jitter = ph->fleet.jitter;
+        s->retry = ph->fleet.retry;
         char wi[280];
         snprintf(wi, sizeof wi, seq ? "%s[%zu]" : "%s", ws, i);
         if (it->type == YAML_MAPPING_NODE) {
@@ -125,6 +148,18 @@ static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *p
                 continue;
             }
             pc_dur(c, it, "every", wi, 1, &s->every_ns);
+            int nx = (int)s->next;
+            pc_enum(c, it, "next", wi, plan_next_names, &nx);
+            s->next = (enum plan_next)nx;
+            pc_pct(c, it, "jitter", wi, &s->jitter);
+            if (pc_get_key(c, it, "jitter") && ph->fleet.timing != PLAN_TIMING_JITTER &&
+                s->next != PLAN_NEXT_AFTER_ANSWER)
+                pc_error(c, pc_get_key(c, it, "jitter"),
+                         "%s: key 'jitter' needs timing jitter or next: after-answer (expected "
+                         "one of them, got next fixed)",
+                         wi);
+            parse_retry(c, it, wi, PLAN_KEYS_SEND_RETRY, s->next == PLAN_NEXT_AFTER_ANSWER,
+                        &s->retry);
             if (!pc_ref(c, &s->cls, cls, wi))
                 continue;
         } else if (!pc_ref(c, &s->cls, it, wi)) {
@@ -134,6 +169,15 @@ static void parse_send(pctx_t *c, yaml_node_t *n, const char *w, plan_phase_t *p
     }
     if (count == 0)
         pc_error(c, n, "%s: nothing to send (expected a class or a list of them, got [])", ws);
+}
+
+/* Whether any of the fleet's send items takes its next instant from its answer. */
+static bool any_after_answer(const plan_phase_t *ph)
+{
+    for (size_t i = 0; i < ph->fleet.n_send; i++)
+        if (ph->fleet.send[i].next == PLAN_NEXT_AFTER_ANSWER)
+            return true;
+    return false;
 }
 
 static void parse_fleet(pctx_t *c, yaml_node_t *n, const char *where, plan_phase_t *ph)
@@ -171,12 +215,26 @@ static void parse_fleet(pctx_t *c, yaml_node_t *n, const char *where, plan_phase
         snprintf(ww, sizeof ww, "%s.watch", w);
         pc_ref(c, &ph->fleet.watch, pc_get(c, n, "watch"), ww);
     }
-    if (pc_get_key(c, n, "jitter") && ph->fleet.timing != PLAN_TIMING_JITTER)
-        pc_error(c, pc_get_key(c, n, "jitter"),
-                 "%s: key 'jitter' needs timing jitter (expected timing: jitter, got %s)", w,
-                 timings[t]);
+    int nx = PLAN_NEXT_FIXED;
+    pc_enum(c, n, "next", w, plan_next_names, &nx);
+    ph->fleet.next = (enum plan_next)nx;
+    ph->fleet.retry = (plan_retry_t){.policy = PLAN_BACKOFF_FULL_JITTER,
+                                     .base_ns = PLAN_RETRY_BASE_NS,
+                                     .cap_ns = PLAN_RETRY_CAP_NS};
+    parse_retry(c, n, w, PLAN_KEYS_RETRY, true, &ph->fleet.retry);
     if (pc_get(c, n, "send"))
         parse_send(c, pc_get(c, n, "send"), w, ph);
+    bool after = any_after_answer(ph);
+    if (pc_get_key(c, n, "jitter") && ph->fleet.timing != PLAN_TIMING_JITTER && !after)
+        pc_error(c, pc_get_key(c, n, "jitter"),
+                 "%s: key 'jitter' needs timing jitter or an action with next: after-answer "
+                 "(expected timing: jitter or next: after-answer, got timing %s, next fixed)",
+                 w, timings[t]);
+    if (pc_get_key(c, n, "retry") && !after && ph->fleet.n_send)
+        pc_error(c, pc_get_key(c, n, "retry"),
+                 "%s: key 'retry' needs an action with next: after-answer (a fixed schedule never "
+                 "retries; expected next: after-answer, got fixed)",
+                 w);
 }
 
 /* fleet.watch: every agent keeps its own watch, a set of `agents` streams; without an `open`

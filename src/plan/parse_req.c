@@ -73,23 +73,28 @@ static void parse_write_keys(pctx_t *c, yaml_node_t *n, const char *where, plan_
                  where);
 }
 
-static void parse_reconnect(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+void pc_backoff(pctx_t *c, yaml_node_t *n, const char *w, enum plan_keyset keys,
+                enum plan_backoff *policy, int64_t *base_ns, int64_t *cap_ns)
 {
-    const char *const *keys = plan_keys(PLAN_KEYS_RECONNECT);
-    char w[200];
-    snprintf(w, sizeof w, "%s.reconnect", where);
     if (!pc_expect_map(c, n, w))
         return;
-    pc_check_keys(c, n, w, keys);
-    int pol = r->watch.policy;
+    pc_check_keys(c, n, w, plan_keys(keys));
+    int pol = (int)*policy;
     if (pc_enum(c, n, "policy", w, plan_backoff_names, &pol))
-        r->watch.policy = (enum plan_backoff)pol;
-    bool b = pc_dur(c, n, "base", w, 0, &r->watch.base_ns);
-    bool k = pc_dur(c, n, "cap", w, 0, &r->watch.cap_ns);
-    if ((b || k) && r->watch.cap_ns < r->watch.base_ns)
-        pc_error(c, pc_get(c, n, k ? "cap" : "base"),
+        *policy = (enum plan_backoff)pol;
+    bool b = pc_dur(c, n, "base", w, 0, base_ns);
+    bool k = pc_dur(c, n, "cap", w, 0, cap_ns);
+    if ((b || k) && *cap_ns < *base_ns)
+        pc_error(c, pc_get_key(c, n, k ? "cap" : "base"),
                  "%s: cap below base (expected cap >= base, got base %.3gs, cap %.3gs)", w,
-                 r->watch.base_ns / 1e9, r->watch.cap_ns / 1e9);
+                 *base_ns / 1e9, *cap_ns / 1e9);
+}
+
+static void parse_reconnect(pctx_t *c, yaml_node_t *n, const char *where, plan_req_t *r)
+{
+    char w[200];
+    snprintf(w, sizeof w, "%s.reconnect", where);
+    pc_backoff(c, n, w, PLAN_KEYS_RECONNECT, &r->watch.policy, &r->watch.base_ns, &r->watch.cap_ns);
 }
 
 void plan_watch_defaults(plan_req_t *r)

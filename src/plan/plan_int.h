@@ -138,6 +138,13 @@ bool plan_override_fits(pctx_t *c, const plan_override_t *ov);
  * (names.c), for pc_enum. */
 extern const char *const plan_kind_names[];
 extern const char *const plan_backoff_names[];
+extern const char *const plan_next_names[];
+
+/* A backoff mapping {policy, base, cap} (a watch's reconnect, a fleet's retry) at n, its keys
+ * checked against `keys`: what it gives overwrites *policy, *base_ns, *cap_ns (the defaults
+ * the caller set); cap below base is an error at its position. */
+void pc_backoff(pctx_t *c, yaml_node_t *n, const char *w, enum plan_keyset keys,
+                enum plan_backoff *policy, int64_t *base_ns, int64_t *cap_ns);
 
 /* Appends n zeroed elements to a plan array (copying, since arrays live in plan memory). */
 void *pc_grow(pctx_t *c, void *arr, size_t *count, size_t add, size_t elem);

@@ -1,5 +1,7 @@
 /* A fleet of periodic agents: per-agent phase, period error and jitter, merged into one time
- * order by a min-heap so N agents cost O(log N) per action and nothing per action in memory. */
+ * order by a min-heap so N agents cost O(log N) per action and nothing per action in memory.
+ * After-answer agents leave the heap when they act and come back when their answer does
+ * (sched_fleet_answer): the heap holds only agents with a known next instant. */
 #include "squall/sched.h"
 
 #include <math.h>
@@ -16,6 +18,7 @@ typedef struct {
     uint64_t k;    /* actions so far */
     int64_t end;   /* no action at or after it: the phase's end, or when the agent leaves */
     int64_t join;  /* when it joins (its first action is at or after it) */
+    bool waiting;  /* after-answer: acted, its answer not yet in (it is out of the heap) */
 } agent_t;
 
 struct sched_fleet {
@@ -44,6 +47,8 @@ static int validate(const sched_fleet_cfg_t *c)
         return SQ_EINVAL;
     if (c->timing != SCHED_SPREAD && c->timing != SCHED_JITTER && c->timing != SCHED_ALIGNED)
         return SQ_EINVAL;
+    if (c->next != SCHED_NEXT_FIXED && c->next != SCHED_NEXT_AFTER_ANSWER)
+        return SQ_EINVAL;
     return 0;
 }
 
@@ -69,13 +74,19 @@ static int64_t first_action(sched_fleet_t *f, int i, int64_t join)
     return off + (join - off + c->period_ns - 1) / c->period_ns * c->period_ns;
 }
 
+/* One period of agent a stretched by 1 + U(−x, +x), x = the fleet's jitter. */
+static int64_t jittered(sched_fleet_t *f, const agent_t *a)
+{
+    return (int64_t)llround(a->period * (1 + f->cfg.jitter * sym_unit(&f->rng)));
+}
+
 /* The action after agent i's k-th. Spread and aligned count from the first action so rounding
  * never accumulates; jitter draws each period afresh. */
 static int64_t next_action(sched_fleet_t *f, int i)
 {
     agent_t *a = &f->agents[i];
     if (f->cfg.timing == SCHED_JITTER)
-        return a->prev + (int64_t)llround(a->period * (1 + f->cfg.jitter * sym_unit(&f->rng)));
+        return a->prev + jittered(f, a);
     return a->first + (int64_t)llround(a->period * (double)a->k);
 }
 
@@ -143,12 +154,39 @@ bool sched_fleet_next(sched_fleet_t *f, int64_t *t_ns, int *agent)
     agent_t *a = &f->agents[*agent];
     a->prev = *t_ns;
     a->k++;
+    if (f->cfg.next == SCHED_NEXT_AFTER_ANSWER) {
+        a->waiting = true; /* back in the heap with its answer */
+        sched_heap_pop(&f->heap);
+        return true;
+    }
     int64_t t = next_action(f, *agent);
     if (t < a->end)
         sched_heap_retime_top(&f->heap, t);
     else
         sched_heap_pop(&f->heap);
     return true;
+}
+
+bool sched_fleet_answer(sched_fleet_t *f, int agent, int64_t at_ns, int64_t retry_ns,
+                        int64_t *next_ns)
+{
+    if (!f || f->cfg.next != SCHED_NEXT_AFTER_ANSWER || agent < 0 || agent >= f->cfg.agents ||
+        !f->agents[agent].waiting)
+        return false;
+    agent_t *a = &f->agents[agent];
+    a->waiting = false;
+    int64_t t = at_ns + (retry_ns >= 0 ? retry_ns : jittered(f, a));
+    if (next_ns)
+        *next_ns = t;
+    if (t >= a->end)
+        return false;
+    sched_heap_push(&f->heap, t, agent);
+    return true;
+}
+
+bool sched_fleet_waiting(const sched_fleet_t *f, int agent)
+{
+    return f && agent >= 0 && agent < f->cfg.agents && f->agents[agent].waiting;
 }
 
 size_t sched_fleet_due(sched_fleet_t *f, int64_t now_ns, int64_t *t_out, int *agent_out, size_t max)
@@ -184,7 +222,13 @@ int64_t sched_fleet_count(const sched_fleet_cfg_t *cfg)
         return rc;
     int64_t n = 0, t;
     int agent;
-    if (cfg->timing == SCHED_JITTER) {
+    if (cfg->next == SCHED_NEXT_AFTER_ANSWER) {
+        /* Every answer taken as instant (the most a fleet can do): a dry run. */
+        while (sched_fleet_next(f, &t, &agent)) {
+            sched_fleet_answer(f, agent, t, -1, NULL);
+            n++;
+        }
+    } else if (cfg->timing == SCHED_JITTER) {
         /* Each period is drawn afresh: only a dry run knows the count. */
         while (sched_fleet_next(f, &t, &agent))
             n++;
@@ -203,18 +247,20 @@ static double phi(double z)
     return 0.5 * erfc(-z / M_SQRT2);
 }
 
-/* Expected actions of one jitter agent before x: its k-th action (k >= 1) is at join plus k
- * periods each stretched by 1 + U(-j, +j), so it has mean join + k·P and variance k·(P·j)²/3;
- * by the central limit theorem P(S_k < x) is taken as Φ((x - join - k·P) / σ_k). The first
- * action is at the join time itself. Terms beyond 8 σ of x are 0 or 1 to within 1e-15. */
+/* Expected actions of one jitter agent before x: its k-th action (k >= 1) is at its first plus
+ * k periods each stretched by 1 + U(-j, +j), so it has mean first + k·P and variance
+ * k·(P·j)²/3; by the central limit theorem P(S_k < x) is taken as Φ((x - first - k·P) / σ_k).
+ * The first action is at the join time itself (jitter timing) or as the timing says
+ * (after-answer agents, whose answers are taken as instant). Terms beyond 8 σ of x are 0 or 1
+ * to within 1e-15. */
 static double jitter_before(const agent_t *a, double jitter, int64_t x)
 {
     if (x > a->end)
         x = a->end;
-    if (a->join >= x)
+    if (a->first >= x)
         return 0;
-    double p = a->period, sd1 = p * jitter / sqrt(3.0), rel = (double)(x - a->join);
-    double n = 1; /* the action at the join time */
+    double p = a->period, sd1 = p * jitter / sqrt(3.0), rel = (double)(x - a->first);
+    double n = 1; /* the first action */
     for (int64_t k = 1;; k++) {
         double mean = (double)k * p, sd = sd1 * sqrt((double)k);
         if (sd == 0) {
@@ -231,10 +277,12 @@ static double jitter_before(const agent_t *a, double jitter, int64_t x)
 }
 
 /* Actions of one agent before x: exact for spread and aligned (their instants are fixed once
- * the fleet is built), expected for jitter. */
+ * the fleet is built), expected for jitter; after-answer agents as if every answer were
+ * instant (an upper bound: a slow answer delays every later action). */
 static double agent_before(const sched_fleet_t *f, const agent_t *a, int64_t x)
 {
-    if (f->cfg.timing == SCHED_JITTER)
+    if (f->cfg.timing == SCHED_JITTER ||
+        (f->cfg.next == SCHED_NEXT_AFTER_ANSWER && f->cfg.jitter > 0))
         return jitter_before(a, f->cfg.jitter, x);
     return (double)agent_count(a, x < a->end ? x : a->end);
 }

@@ -16,6 +16,7 @@ void server_faults_init(server_faults_t *f)
     f->fail_status = 503;
     f->retry_after_s = 1;
     f->stall_at_ns = -1;
+    f->fail_at_ns = -1;
     f->drop_at_ns = -1;
 }
 
@@ -87,6 +88,14 @@ int server_delay_parse(server_faults_t *f, const char *spec)
     return SQ_EPARSE;
 }
 
+bool srv_fault_in_error_window(const server_faults_t *f, uint64_t applied_ns, uint64_t now_ns)
+{
+    if (f->fail_at_ns < 0 || f->fail_for_ns <= 0)
+        return false;
+    uint64_t start = applied_ns + (uint64_t)f->fail_at_ns;
+    return now_ns >= start && now_ns < start + (uint64_t)f->fail_for_ns;
+}
+
 int64_t srv_fault_delay(const server_faults_t *f, rng_t *r)
 {
     switch (f->delay_kind) {
@@ -133,6 +142,8 @@ static int fault_key(server_faults_t *f, const char *k, const json_t *v, char *e
         return (i >= 0 && i <= 86400) ? (f->retry_after_s = (int)i, 0) : SQ_EPARSE;
     int64_t *t = strcmp(k, "stall_at") == 0          ? &f->stall_at_ns
                  : strcmp(k, "stall_for") == 0       ? &f->stall_for_ns
+                 : strcmp(k, "fail_at") == 0         ? &f->fail_at_ns
+                 : strcmp(k, "fail_for") == 0        ? &f->fail_for_ns
                  : strcmp(k, "drop_watches_at") == 0 ? &f->drop_at_ns
                                                      : NULL;
     if (t) {
@@ -150,7 +161,8 @@ static int fault_key(server_faults_t *f, const char *k, const json_t *v, char *e
     }
     snprintf(err, n,
              "unknown fault '%s' (known: delay, fail_rate, fail_status, retry_after, "
-             "stall_at, stall_for, drop_watches_at, max_inflight, over_limit)",
+             "stall_at, stall_for, fail_at, fail_for, drop_watches_at, max_inflight, "
+             "over_limit)",
              k);
     return SQ_EINVAL;
 }
@@ -215,6 +227,10 @@ json_t *srv_faults_to_json(const server_faults_t *f)
     if (j && f->stall_at_ns >= 0) {
         json_object_set_new(j, "stall_at", ns_json(f->stall_at_ns));
         json_object_set_new(j, "stall_for", ns_json(f->stall_for_ns));
+    }
+    if (j && f->fail_at_ns >= 0) {
+        json_object_set_new(j, "fail_at", ns_json(f->fail_at_ns));
+        json_object_set_new(j, "fail_for", ns_json(f->fail_for_ns));
     }
     if (j && f->drop_at_ns >= 0)
         json_object_set_new(j, "drop_watches_at", ns_json(f->drop_at_ns));

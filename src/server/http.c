@@ -206,7 +206,8 @@ static enum MHD_Result faults_then_serve(srv_req_t *q, const char *url)
             return hold_for(q, d);
         }
     }
-    if (f->fail_rate > 0 && rng_unit(&sv->rng) <= f->fail_rate) {
+    if (srv_fault_in_error_window(f, sv->faults_at, uv_hrtime()) ||
+        (f->fail_rate > 0 && rng_unit(&sv->rng) <= f->fail_rate)) {
         sv->fc.failed++;
         return srv_reply_error_retry(sv, q->conn, q->method, (unsigned)f->fail_status, "injected",
                                      "an error injected by the target's fault settings",

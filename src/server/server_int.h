@@ -127,6 +127,8 @@ typedef struct {
 int srv_faults_from_json(server_faults_t *f, const json_t *j, char *err, size_t errlen);
 json_t *srv_faults_to_json(const server_faults_t *f);
 /* A delay drawn from f, in ns (0 when none). */
+/* Whether now_ns (uv_hrtime) lies in the error window of faults applied at applied_ns. */
+bool srv_fault_in_error_window(const server_faults_t *f, uint64_t applied_ns, uint64_t now_ns);
 int64_t srv_fault_delay(const server_faults_t *f, rng_t *r);
 
 /* ---- server.c / http.c: the server */

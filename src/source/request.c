@@ -364,7 +364,7 @@ static void on_done(void *user, const eng_result_t *res)
         obs_done(is->obs, &d);
     }
     if (q->from->ops->done)
-        q->from->ops->done(q->from->self, &(src_done_t){q->cls, q->client, res});
+        q->from->ops->done(q->from->self, &(src_done_t){q->cls, q->client, q->agent, res});
     req_give(is, q);
 }
 

@@ -4,6 +4,7 @@
 
 #include "squall/sched.h"
 #include "squall/source.h"
+#include "squall/watch.h"
 
 /* Random streams of one phase, each its own sched_seed(run seed, phase, stream): changing one
  * never shifts another's draws. */
@@ -13,6 +14,7 @@ enum {
     SRC_STREAM_CLOSED = 3,
     SRC_STREAM_BACKOFF = 4,  /* watch reconnect delays */
     SRC_STREAM_FLEET = 100,  /* + the fleet's send index */
+    SRC_STREAM_RETRY = 500,  /* + the send index: after-answer retry delays (a shard's own) */
     SRC_STREAM_WATCH = 1000, /* + the watcher's index */
 };
 
@@ -33,6 +35,20 @@ static inline uint64_t src_shard_seed(const src_ctx_t *ctx, uint32_t stream)
 {
     return sched_seed(sched_shard_split(ctx->shard) ? ctx->shard_seed : ctx->seed,
                       (uint32_t)ctx->phase, stream);
+}
+
+/* A plan's backoff policy (a watch's reconnect, a fleet's retry) as the watch module's own. */
+static inline enum watch_policy src_watch_policy(enum plan_backoff b)
+{
+    static const enum watch_policy policy[] = {
+        [PLAN_BACKOFF_IMMEDIATE] = WATCH_POLICY_IMMEDIATE,
+        [PLAN_BACKOFF_FIXED] = WATCH_POLICY_FIXED,
+        [PLAN_BACKOFF_EXPONENTIAL] = WATCH_POLICY_EXPONENTIAL,
+        [PLAN_BACKOFF_FULL_JITTER] = WATCH_POLICY_FULL_JITTER,
+        [PLAN_BACKOFF_EQUAL_JITTER] = WATCH_POLICY_EQUAL_JITTER,
+        [PLAN_BACKOFF_DECORRELATED] = WATCH_POLICY_DECORRELATED,
+    };
+    return policy[b];
 }
 
 /* A phase's mix: pick a class by weight; spread an expected total over the classes. */

@@ -456,16 +456,8 @@ static const enum watch_framing framing[] = {
 
 static watch_stream_cfg_t stream_cfg(const plan_req_t *pr)
 {
-    static const enum watch_policy policy[] = {
-        [PLAN_BACKOFF_IMMEDIATE] = WATCH_POLICY_IMMEDIATE,
-        [PLAN_BACKOFF_FIXED] = WATCH_POLICY_FIXED,
-        [PLAN_BACKOFF_EXPONENTIAL] = WATCH_POLICY_EXPONENTIAL,
-        [PLAN_BACKOFF_FULL_JITTER] = WATCH_POLICY_FULL_JITTER,
-        [PLAN_BACKOFF_EQUAL_JITTER] = WATCH_POLICY_EQUAL_JITTER,
-        [PLAN_BACKOFF_DECORRELATED] = WATCH_POLICY_DECORRELATED,
-    };
     return (watch_stream_cfg_t){
-        .policy = policy[pr->watch.policy],
+        .policy = src_watch_policy(pr->watch.policy),
         .base_ns = pr->watch.base_ns,
         .cap_ns = pr->watch.cap_ns,
         .too_old_status = pr->watch.too_old_status,

@@ -114,6 +114,25 @@ awk -v t="$t" 'BEGIN{exit !(t >= 1.05 && t <= 1.6)}' || fail "stalled request to
 [ "$(curl -s "$U/admin/faults" | jq .counts.stalled)" = 1 ] || fail "stalled count != 1"
 echo "ok: stall 0.5s+1.5s: a request at ~0.8 s took ${t}s; /stats answered meanwhile"
 
+# Error window: every /v1/ answer is fail_status from 0.5 s to 1.5 s after the POST, none before
+# or after (curl's own status codes, sampled every 0.1 s for 2 s; the first and last 0.1 s around
+# each edge are left out, so a loaded machine's late sample cannot land on the wrong side).
+faults '{"fail_at":"0.5s","fail_for":"1s","fail_status":503}' >/dev/null
+t0=$(date +%s%N)
+: >"$tmp/errwin"
+for _ in $(seq 20); do
+    c=$(curl -s -o /dev/null -w '%{http_code}' "$U/v1/sites/north/gateways/gw-1")
+    echo "$((($(date +%s%N) - t0) / 1000000)) $c" >>"$tmp/errwin"
+    sleep 0.1
+done
+bad=$(awk '($1 < 400 && $2 != 200) || ($1 > 600 && $1 < 1400 && $2 != 503) ||
+           ($1 > 1600 && $2 != 200)' "$tmp/errwin")
+inside=$(awk '$1 > 600 && $1 < 1400 && $2 == 503' "$tmp/errwin" | wc -l)
+[ -z "$bad" ] && [ "$inside" -ge 3 ] || fail "error window: $(tr '\n' ' ' <"$tmp/errwin")"
+curl -s "$U/admin/faults" | jq -e '.faults.fail_at == "0.5s" and .faults.fail_for == "1s"' \
+    >/dev/null || fail "fail_at/fail_for not echoed: $(curl -s "$U/admin/faults")"
+echo "ok: error window 0.5s+1s: 503 inside ($inside samples), 200 before and after"
+
 # Drop every watch at T = 0.5 s (set at run time): 5 open streams all end abruptly (curl 18,
 # partial transfer), not by their own 10 s limit; counts 5 dropped streams.
 faults '{}' >/dev/null

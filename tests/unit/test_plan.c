@@ -257,6 +257,35 @@ static void test_fleet_estimates(void **state)
  *  churn:  400 alive, population 500, 10/s * 30 s = 300 operations: 100 creates to reach 500,
  *          the other 200 split evenly -> 200 creates, 100 deletes, 500 alive.
  *  teardown deletes the 500 left. */
+/* tests/data/plans/good-fleet-after.yaml: the fleet's next, jitter and retry are its send
+ * items' defaults, each overridden per item (retry key by key); a fixed item keeps the fleet's
+ * retry unused; and an after-answer fleet's estimate is its fixed count (answers taken as
+ * instant): 100 agents x 60 s / 10 s for the first and third, / 2 s for the second. */
+static void test_fleet_after_answer(void **state)
+{
+    (void)state;
+    plan_t *p = load_ok(SRCDIR "/tests/data/plans/good-fleet-after.yaml", NULL, 0);
+    const plan_phase_t *ph = &p->phases[0];
+    assert_int_equal(ph->fleet.n_send, 3);
+    assert_int_equal(ph->fleet.next, PLAN_NEXT_AFTER_ANSWER);
+    const plan_send_t *s = ph->fleet.send;
+    assert_true(s[0].next == PLAN_NEXT_AFTER_ANSWER && s[0].jitter == 0.04 &&
+                s[0].retry.policy == PLAN_BACKOFF_DECORRELATED &&
+                s[0].retry.base_ns == 500000000 && s[0].retry.cap_ns == PLAN_RETRY_CAP_NS);
+    assert_true(s[1].next == PLAN_NEXT_AFTER_ANSWER && s[1].jitter == 0 &&
+                s[1].every_ns == 2000000000 && s[1].retry.policy == PLAN_BACKOFF_FIXED &&
+                s[1].retry.base_ns == 500000000 && s[1].retry.cap_ns == 9000000000);
+    assert_true(s[2].next == PLAN_NEXT_FIXED);
+    assert_string_equal(plan_next_name(s[0].next), "after-answer");
+    src_estimate_t e;
+    estimate(p, 0, &e);
+    double renew = per_class(p, &e, "renew"), status = per_class(p, &e, "status");
+    printf("after-answer estimate: renew %.1f (600 + 3000), status %.1f (600)\n", renew, status);
+    assert_near(status, 600, 1e-9, "status", __LINE__);
+    assert_near(renew, 3600, 0.02 * 3600, "renew (jitter 4 %: an expectation)", __LINE__);
+    plan_free(p);
+}
+
 static void test_shapes_and_include(void **state)
 {
     (void)state;
@@ -416,6 +445,7 @@ int main(void)
         cmocka_unit_test(test_demo_estimates),
         cmocka_unit_test(test_fleet_leave_and_watch),
         cmocka_unit_test(test_fleet_estimates),
+        cmocka_unit_test(test_fleet_after_answer),
         cmocka_unit_test(test_shapes_and_include),
         cmocka_unit_test(test_overrides),
         cmocka_unit_test(test_paths_and_open_counts),
