@@ -189,6 +189,8 @@ int results_merge(results_t *dst, const results_t *src, const char *name, out_t 
  *                      the largest; counts added
  *   watches, lifecycle counts added (the churn band: sums of the inputs' minima and maxima)
  *   storms             ticks combined per tick instant on the wall clock
+ *   sync               each fleet action's windows combined by index: their sums added, the
+ *                      gauge recomputed from them (results_sync.c)
  * and drops "objectives" and "run", which a judge writes for the merge (judge_results). Other
  * sections stay only when equal in every input. SQ_ENOMEM. */
 int results_merge_finish(results_t *dst, out_t *o);
