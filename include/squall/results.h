@@ -34,7 +34,11 @@
 #define RESULTS_SERIES_FILE "series.csv"
 #define RESULTS_SERIES_HEADER                                                                      \
     "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
-    "unix_ms,p999_ms,marks"
+    "unix_ms,p999_ms,marks," RESULTS_SERIES_SYNC
+/* series.csv's synchronisation gauge of a fleet action's row: its last closed window (index,
+ * sends, R̄, Rayleigh p, peak-to-mean), empty in other rows and in a merge's series (the merged
+ * gauge is results.json's "sync" section). */
+#define RESULTS_SERIES_SYNC "sync_window,sync_n,sync_r_bar,sync_p,sync_peak_to_mean"
 #define RESULTS_SERIES_HIST_FILE   "series-hist.csv"
 #define RESULTS_SERIES_HIST_HEADER "second,phase,class,unix_ms,response"
 

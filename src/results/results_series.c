@@ -287,8 +287,9 @@ static int fill_series(FILE *f, void *ctx)
         const row_t *r = &s->rows[i];
         const char *phase = s->keys[r->key], *cls = phase + strlen(phase) + 1;
         const double *v = r->v;
-        /* marks: a merge does not carry them (each input's results.json has its instants). */
-        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,\n",
+        /* marks: a merge does not carry them (each input's results.json has its instants); nor
+         * the sync columns (results.json's merged "sync" section has the gauge). */
+        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,,,,,,\n",
                 (long long)r->second, phase, cls, (long long)v[C_STARTED],
                 (long long)v[C_COMPLETED], v[C_RATE], (long long)v[C_ERRORS], v[C_P50], v[C_P90],
                 v[C_P99], v[C_MAX], v[C_PLANNED], (long long)v[C_UNIX], v[C_P999]);
