@@ -6,6 +6,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "judge_int.h"
 #include "squall/err.h"
 #include "squall/judge.h"
 #include "squall/value.h"
@@ -45,7 +46,7 @@ static bool outcome_is_error(const char *oc)
     return strcmp(oc, "2xx") && strcmp(oc, "3xx") && strcmp(oc, "cancelled");
 }
 
-static char *keep(judge_t *j, const char *s)
+char *judge_keep(judge_t *j, const char *s)
 {
     char **ns = realloc(j->strings, (j->n_strings + 1) * sizeof(*ns));
     if (!ns)
@@ -57,7 +58,7 @@ static char *keep(judge_t *j, const char *s)
     return c;
 }
 
-static judge_check_t *add_check(judge_t *j)
+judge_check_t *judge_add_check(judge_t *j)
 {
     if (j->n == j->cap) {
         size_t cap = j->cap ? 2 * j->cap : 16;
@@ -140,6 +141,8 @@ static bool observe(const plan_objective_t *ob, const tally_t *t, judge_check_t 
         ck->samples = t->answered;
         ck->observed = t->answered ? (double)t->errors / (double)t->answered : 0;
         return t->answered > 0;
+    case PLAN_LIMIT_MAX_SYNC: /* judged by judge_sync */
+        return false;
     case PLAN_LIMIT_MIN_RATE:
         ck->unit = "per_s";
         ck->threshold = ob->value;
@@ -167,6 +170,8 @@ static void describe(const plan_objective_t *ob, char *buf, size_t cap)
         snprintf(buf, cap, "p%g of %s <= %s", ob->percentile, metric_names[ob->metric], d);
     else if (ob->limit == PLAN_LIMIT_ERROR_RATE)
         snprintf(buf, cap, "error rate <= %g%%", ob->value * 100);
+    else if (ob->limit == PLAN_LIMIT_MAX_SYNC)
+        snprintf(buf, cap, "sync R-bar <= %g (whole windows)", ob->value);
     else
         snprintf(buf, cap, "rate >= %g/s", ob->value);
 }
@@ -174,7 +179,7 @@ static void describe(const plan_objective_t *ob, char *buf, size_t cap)
 static int check_one(judge_t *j, size_t oi, const plan_objective_t *ob, const char *text,
                      const char *cls, const char *scope, const tally_t *t)
 {
-    judge_check_t *ck = add_check(j);
+    judge_check_t *ck = judge_add_check(j);
     if (!ck)
         return SQ_ENOMEM;
     ck->objective = oi;
@@ -228,7 +233,7 @@ static int judge_class(judge_t *j, size_t oi, const plan_objective_t *ob, const 
 {
     int metric = results_metric_from_name(metric_names[ob->metric]);
     metric = metric < 0 ? -1 : metric;
-    const char *kept = keep(j, cls);
+    const char *kept = judge_keep(j, cls);
     if (!kept)
         return SQ_ENOMEM;
     bool watch = is_watch_class(j, res, cls);
@@ -245,7 +250,7 @@ static int judge_class(judge_t *j, size_t oi, const plan_objective_t *ob, const 
         gather(res, cls, watch, phases[i].name, metric, phases, n_phases, t);
         if (t->answered == 0 && !ob->phase.name)
             continue;
-        const char *scope = keep(j, phases[i].name);
+        const char *scope = judge_keep(j, phases[i].name);
         rc = scope ? check_one(j, oi, ob, text, kept, scope, t) : SQ_ENOMEM;
     }
     if (rc == 0 && !ob->phase.name) {
@@ -277,9 +282,11 @@ static int judge_objective(judge_t *j, size_t oi, const plan_objective_t *ob, co
 {
     char buf[128];
     describe(ob, buf, sizeof buf);
-    const char *text = keep(j, buf);
+    const char *text = judge_keep(j, buf);
     if (!text)
         return SQ_ENOMEM;
+    if (ob->limit == PLAN_LIMIT_MAX_SYNC)
+        return judge_sync(j, oi, ob, text, res, phases, n_phases);
     if (ob->cls.name && strcmp(ob->cls.name, "*"))
         return judge_class(j, oi, ob, text, ob->cls.name, false, res, phases, n_phases, t);
     size_t n = 0, before = j->n;
@@ -324,7 +331,7 @@ static int default_error_rate(judge_t *j, const plan_objective_t *objs, size_t n
         return SQ_ENOMEM;
     char text[64];
     snprintf(text, sizeof text, "error rate <= %g%% (default)", rate * 100);
-    const char *kept = keep(j, text);
+    const char *kept = judge_keep(j, text);
     int rc = kept ? 0 : SQ_ENOMEM;
     for (size_t k = 0; rc == 0 && k < n; k++) {
         if (error_rate_covered(objs, n_objs, names[k]) || is_internal_class(j, names[k]))
@@ -457,7 +464,10 @@ enum judge_outcome judge_outcome(const judge_t *j, const judge_evidence_t *ev, j
                ev->generator_why ? ev->generator_why : "?");
     for (size_t i = 0; i < j->n; i++) {
         const judge_check_t *c = &j->checks[i];
-        if (c->verdict == JUDGE_TOO_FEW)
+        if (c->verdict == JUDGE_TOO_FEW && c->why)
+            reason(WEIGH(PLAN_ACCEPT_FEW_SAMPLES), "%s in %s: %s: too few samples: %s", c->cls,
+                   c->scope, c->text, c->why);
+        else if (c->verdict == JUDGE_TOO_FEW)
             reason(WEIGH(PLAN_ACCEPT_FEW_SAMPLES),
                    "%s in %s: %s: too few samples to resolve it (had %lld, needs %lld)", c->cls,
                    c->scope, c->text, (long long)c->samples, (long long)c->needed);
