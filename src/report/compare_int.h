@@ -40,6 +40,9 @@ int cmp_seconds(const report_series_t *s, const char *phase, const char *cls, en
  * in phase. SQ_ENOMEM. */
 int cmp_ticks(const results_t *r, const char *phase, const char *cls, const char *key,
               cmp_vec_t *out);
+/* R̄ of every whole window (not partial) of the fleet action cls in phase, from the "sync"
+ * section. SQ_ENOMEM. */
+int cmp_sync_windows(const results_t *r, const char *phase, const char *cls, cmp_vec_t *out);
 /* Ticks recorded for cls in phase (0 when it was no fleet action there). */
 size_t cmp_tick_count(const results_t *r, const char *phase, const char *cls);
 /* True when cls is a watch class in phase (the "watches" section, or an open histogram). */
