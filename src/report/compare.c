@@ -35,10 +35,9 @@ static const spec_t watch_specs[] = {
 #define N_SPECS(a) (sizeof(a) / sizeof((a)[0]))
 /* A fleet action's synchronisation: R̄ of its whole windows (the "sync" section), compared like a
  * latency (Mann-Whitney U over the windows). The smallest change of the median R̄ that counts is
- * 0.05: an evenly spread or jittered fleet's R̄ wanders by about 1/sqrt(n) from window to window
+ * CMP_SYNC_MIN_CHANGE, 0.05: an evenly spread or jittered fleet's R̄ wanders by about 1/sqrt(n) from window to window
  * by chance (Rayleigh: E[n R̄²] = 1 for uniform phases), under 0.06 from 300 sends on. */
 static const spec_t sync_spec = {"sync", "r_bar", 50, RESULTS_M_RESPONSE, 0, NULL, NULL};
-#define SYNC_MIN_CHANGE 0.05
 
 /* The state of one comparison while its lines are built. */
 typedef struct {
@@ -175,7 +174,7 @@ static void decide(const ctx_t *x, report_cmp_line_t *l, double pct, best_fn bes
 {
     const report_cmp_opts_t *o = x->o;
     double change = l->new_med - l->base_med;
-    double floor_abs = l->unit == REPORT_UNIT_WINDOWS ? SYNC_MIN_CHANGE
+    double floor_abs = l->unit == REPORT_UNIT_WINDOWS ? CMP_SYNC_MIN_CHANGE
                        : pct < 0                      ? o->min_abs_err
                        : pct > 50                     ? o->min_tail_ms
                                                       : o->min_abs_ms;

@@ -21,6 +21,9 @@ typedef struct {
 /* Per-second columns of series.csv the tests use. */
 enum cmp_col { CMP_P50, CMP_P99, CMP_P999, CMP_MAX, CMP_ERRORS };
 
+/* The smallest change of a fleet action's R̄ that counts (compare.c explains it). */
+#define CMP_SYNC_MIN_CHANGE 0.05
+
 /* Growable scratch for samples. */
 typedef struct {
     double *v;

@@ -21,20 +21,34 @@ static bool is_rate(const trend_series_t *s)
     return strcmp(s->metric, "error_rate") == 0;
 }
 
+/* A fleet action's largest R̄ per run: no unit. */
+static bool is_sync(const trend_series_t *s)
+{
+    return strcmp(s->metric, "sync_max") == 0;
+}
+
 static void value_text(const trend_series_t *s, double v, char *buf, size_t cap)
 {
-    cmp_value_text(is_rate(s), v, buf, cap);
+    if (is_sync(s) && !isnan(v))
+        snprintf(buf, cap, "%.3f", v);
+    else
+        cmp_value_text(is_rate(s), v, buf, cap);
 }
 
 static void size_text(const trend_series_t *s, const trend_change_t *c, char *buf, size_t cap)
 {
-    cmp_change_text(is_rate(s), c->before, c->after - c->before, buf, cap);
+    if (is_sync(s))
+        snprintf(buf, cap, "%+.3f", c->after - c->before);
+    else
+        cmp_change_text(is_rate(s), c->before, c->after - c->before, buf, cap);
 }
 
 static const char *change_word(const trend_series_t *s, const trend_change_t *c)
 {
     if (!c->significant)
         return "not significant";
+    if (is_sync(s))
+        return c->worse ? "more synchronised" : "less synchronised";
     return is_rate(s) ? (c->worse ? "more errors" : "fewer errors")
                       : (c->worse ? "slower" : "faster");
 }
@@ -57,8 +71,8 @@ static void print_group(const trend_group_t *g, size_t gi, out_t *o)
         out_print(o, "  run %zu: %s\n", r + 1, g->dirs[r]);
     out_print(o, "%-12s %-16s %-10s %10s %10s  %s\n", "phase", "class", "metric", "first", "last",
               "changes (first run after; size; confidence)");
-    for (size_t i = 0; i < g->n_series; i++) {
-        const trend_series_t *s = &g->series[i];
+    for (size_t i = 0; i < g->n_series + g->n_sync; i++) {
+        const trend_series_t *s = i < g->n_series ? &g->series[i] : &g->sync[i - g->n_series];
         char a[32], b[32];
         double first = NAN;
         for (size_t r = 0; r < g->n_runs && isnan(first); r++)
@@ -109,7 +123,8 @@ static json_t *series_json(const trend_series_t *s, size_t n)
                           1 - x->p, "significant", x->significant, "verdict", change_word(s, x)));
     }
     return json_pack("{s:s, s:s, s:s, s:s, s:o, s:o, s:o, s:o}", "phase", s->phase, "class", s->cls,
-                     "metric", s->metric, "unit", is_rate(s) ? "fraction" : "ms", "objective",
+                     "metric", s->metric, "unit",
+                     is_sync(s) ? "r_bar" : is_rate(s) ? "fraction" : "ms", "objective",
                      num(s->objective), "sigma", num(s->sigma), "values", vals, "changes", ch);
 }
 
@@ -122,6 +137,8 @@ static json_t *group_json(const trend_group_t *g)
                                         g->dirs[r], "start_unix_ms", (json_int_t)g->start_ms[r]));
     for (size_t i = 0; i < g->n_series; i++)
         json_array_append_new(series, series_json(&g->series[i], g->n_runs));
+    for (size_t i = 0; i < g->n_sync; i++)
+        json_array_append_new(series, series_json(&g->sync[i], g->n_runs));
     return json_pack("{s:s, s:s, s:s, s:s, s:f, s:o, s:o}", "plan", g->plan, "plan_sha256",
                      g->plan_sha256, "overrides", g->overrides, "squall_version", g->version,
                      "penalty", trend_penalty(g->n_runs), "runs", runs, "series", series);

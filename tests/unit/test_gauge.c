@@ -5,7 +5,10 @@
  * formulas: R̄ = |mean(exp(iθ))|, Mardia & Jupp 2000) of the same send instants: each shard's
  * windows, and the merge of two shards against numpy's R̄ of the union, within 1e-9. Traffic
  * of the same class that a fleet did not send (an open loop's), and requests never sent, do not
- * count. Fixed seeds; no clock is asserted on. */
+ * count. Downstream, `compare` and `trend` read the windows' R̄ like a latency figure: checked on
+ * runs made from given R̄ values, against the definitions (Mann-Whitney's exact p for 8 vs 8
+ * samples all apart is 2 / C(16, 8) = 1/6435, Mann & Whitney 1947; a step series' change point
+ * at the step). Fixed seeds; no clock is asserted on. */
 #include <math.h>
 #include <setjmp.h>
 #include <stdarg.h>
@@ -25,7 +28,9 @@
 #include "squall/observe.h"
 #include "squall/plan.h"
 #include "squall/results.h"
+#include "squall/report.h"
 #include "squall/rng.h"
+#include "squall/trend.h"
 
 #define NS_PER_S INT64_C(1000000000)
 #define PERIOD   (2 * NS_PER_S)
@@ -197,10 +202,106 @@ static void test_shards_and_merge(void **state)
     out_free(o);
 }
 
+/* A results object of one fleet action "renew" in phase "fleet" whose whole windows have the
+ * given R̄ (n = 300 each), plus one partial window of R̄ 1 that must not count; the plan bytes
+ * make the trend's group, start orders the runs. */
+static results_t *sync_run(const double *r_bar, size_t n, int64_t start_ms)
+{
+    results_t *r;
+    out_t *o = out_new_capture();
+    assert_int_equal(results_new(&r), 0);
+    assert_int_equal(results_set_plan(r, "fleet.yaml", "plan", 4, o), 0);
+    results_set_start(r, start_ms);
+    json_t *wins = json_array();
+    for (size_t i = 0; i <= n; i++)
+        json_array_append_new(wins, json_pack("{s:I,s:f,s:I,s:f,s:b}", "index", (json_int_t)i,
+                                              "start_s", (double)i / 2, "n", (json_int_t)300,
+                                              "r_bar", i < n ? r_bar[i] : 1.0, "partial", i == n));
+    json_t *sync = json_pack("{s:{s:[{s:s,s:I,s:o}]}}", "fleet", "actions", "class", "renew",
+                             "period_ns", (json_int_t)500000000, "windows", wins);
+    assert_int_equal(results_set_section(r, "sync", sync), 0);
+    /* The answers of the class: a comparison and a trend go through a run's cells. */
+    results_cell_t *c = results_cell(r, "fleet", "renew", "2xx");
+    assert_non_null(c);
+    for (int i = 0; i < 10; i++)
+        results_record(c, &(results_sample_t){.intended_ns = 1000, .done_ns = 2000000 + i * 1000,
+                                               .status = 200});
+    out_free(o);
+    return r;
+}
+
+static void test_compare_and_trend(void **state)
+{
+    (void)state;
+    double spread[8], bunched[8];
+    for (int i = 0; i < 8; i++) {
+        spread[i] = 0.01 + 0.002 * i;
+        bunched[i] = 0.90 + 0.01 * i;
+    }
+    results_t *a = sync_run(spread, 8, INT64_C(1796000000000));
+    results_t *b = sync_run(bunched, 8, INT64_C(1796000100000));
+    report_series_t *sa, *sb;
+    assert_int_equal(report_series_new(&sa), 0);
+    assert_int_equal(report_series_new(&sb), 0);
+    report_cmp_opts_t opts;
+    report_cmp_opts_default(&opts);
+    report_cmp_t *c;
+    assert_int_equal(report_compare(a, sa, b, sb, &opts, &c), 0);
+    const report_cmp_line_t *l = NULL;
+    for (size_t i = 0; i < report_cmp_count(c); i++)
+        if (report_cmp_at(c, i)->latency && !strcmp(report_cmp_at(c, i)->latency, "sync"))
+            l = report_cmp_at(c, i);
+    assert_non_null(l);
+    assert_int_equal(l->n_base, 8); /* the partial window left out */
+    assert_int_equal(l->n_new, 8);
+    assert_true(fabs(l->p - 1.0 / 6435) < 1e-12);
+    assert_true(fabs(l->base_med - 0.017) < 1e-12 && fabs(l->new_med - 0.935) < 1e-12);
+    assert_string_equal(report_verdict_word(l), "more synchronised");
+    assert_true(report_cmp_worse(c));
+    report_cmp_free(c);
+    assert_int_equal(report_compare(b, sb, a, sa, &opts, &c), 0);
+    for (size_t i = 0; i < report_cmp_count(c); i++)
+        if (report_cmp_at(c, i)->latency && !strcmp(report_cmp_at(c, i)->latency, "sync"))
+            assert_string_equal(report_verdict_word(report_cmp_at(c, i)), "less synchronised");
+    report_cmp_free(c);
+
+    /* Trend: ten runs of one plan, the fleet's largest whole-window R̄ 0.02.. then 0.9.. from the
+     * seventh on: one change point at run 7, significant, for the worse. */
+    results_t *runs[10];
+    const char *dirs[10];
+    for (int k = 0; k < 10; k++) {
+        double v[4];
+        for (int i = 0; i < 4; i++)
+            v[i] = (k < 6 ? 0.02 : 0.9) + 0.001 * ((k * 7 + i * 3) % 5);
+        runs[k] = sync_run(v, 4, INT64_C(1796000000000) + k * 60000);
+        dirs[k] = "run";
+    }
+    trend_t *t;
+    assert_int_equal(trend_new(runs, dirs, 10, &opts, &t), 0);
+    assert_int_equal(trend_group_count(t), 1);
+    const trend_group_t *g = trend_group_at(t, 0);
+    assert_int_equal(g->n_sync, 1);
+    const trend_series_t *s = &g->sync[0];
+    assert_string_equal(s->metric, "sync_max");
+    assert_true(fabs(s->values[0] - (0.02 + 0.001 * 4)) < 1e-12); /* max of its four windows */
+    assert_int_equal(s->n_changes, 1);
+    assert_int_equal(s->changes[0].first, 6);
+    assert_true(s->changes[0].significant && s->changes[0].worse);
+    assert_true(trend_newest_worse(t));
+    trend_free(t);
+    for (int k = 0; k < 10; k++)
+        results_free(runs[k]);
+    results_free(a);
+    results_free(b);
+    report_series_free(sa);
+    report_series_free(sb);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_shards_and_merge),
+        cmocka_unit_test(test_compare_and_trend),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
