@@ -10,8 +10,6 @@ judge_check_t *judge_add_check(judge_t *j);
 /* A copy of s that j owns (freed with it), or NULL when out of memory. */
 char *judge_keep(judge_t *j, const char *s);
 
-/* Sends a window needs to count for a max-sync bound (judge_sync.c explains why). */
-int64_t judge_sync_min_sends(double bound);
 /* The checks of a max-sync objective (PLAN_LIMIT_MAX_SYNC) over res's "sync" section, described
  * by text: one per (judged phase, fleet action of its class) and one per class for the run
  * unless the objective names a phase. SQ_ENOMEM. */

@@ -10,7 +10,9 @@
 #     Jupp, "Directional Statistics", 2000, the mean resultant length; from memory), w0 = the run's
 #     start (results.json meta.start) + the window's start_s;
 #   - {class: renew, max-sync: 0.3} FAILs the aligned run (exit 1) and PASSes the spread one
-#     (exit 0) (exit codes: README, "Exit codes");
+#     (exit 0); a fleet of 40 agents cannot fill a window with the 77 sends the bound needs
+#     (ln(1000)/0.3^2, README "Judgement"): INCONCLUSIVE (exit 7) (exit codes: README, "Exit
+#     codes");
 #   - two real shards (`run --shard 1/2` and `2/2`) of the spread plan, merged: each merged
 #     window's n is the sum of the shards' (the merge adds them), the merged sends equal a
 #     single run's of the same plan and the target's count of PUT answers, and the merged R-bar
@@ -103,6 +105,13 @@ rcheck "spread: every whole window's R-bar < 0.1 ($(rget "$T/s" "[(w['index'], w
 rcheck "spread: the sends gauged (windows and past the last) = the target's PUT answers ($SPUTS)" \
     "sum(w['n'] for w in $W['spread']['actions'][0]['windows']) + $W['spread']['actions'][0]['outside'] == $SPUTS" "$T/s"
 logcheck "$T/s" spread || FAILED=1
+
+# --- too few sends per window: INCONCLUSIVE, never a pass ------------------------------------------
+plan "$T/f.yaml" few spread 40
+run_plan "$T/f" "$T/f.yaml"
+expect_rc "few: 40 agents cannot fill a window with the 77 sends max-sync 0.3 needs: INCONCLUSIVE (exit 7, got $RUN_RC)" "$T/f" 7
+rcheck "few: the max-sync checks are too-few with no window counted, and say why" \
+    "[(c['verdict'], c['samples'], c.get('why')) for c in d['sections']['objectives']['checks'] if c['unit'] == 'r_bar'] == [('too-few', 0, 'no whole window with at least 77 sends')] * 2" "$T/f"
 
 # --- two shards of the spread plan, merged --------------------------------------------------------
 plan "$T/m.yaml" shard spread 300
