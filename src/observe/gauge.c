@@ -30,6 +30,10 @@
 #include "obs_int.h"
 #include "squall/err.h"
 
+/* Windows kept per action: 100,000 accumulators are about 14 MB (a period of 1 s for 27 hours;
+ * a phase longer than that many periods gauges its first ones, and counts the rest `outside`). */
+#define GAUGE_MAX_WINDOWS 100000
+
 typedef struct {
     obs_sync_t pub; /* what observers read: the last closed window */
     int64_t base, period, end; /* end: where the phase ended (planned, or earlier) */
@@ -101,6 +105,8 @@ void obs_gauge_phase(obs_gauge_t *g, size_t phase, int64_t base_ns)
         a->base = base_ns;
         a->end = base_ns + pp->duration_ns;
         a->n_win = (size_t)(pp->duration_ns / a->period) + 2;
+        if (a->n_win > GAUGE_MAX_WINDOWS) /* sends past the last kept window count as outside */
+            a->n_win = GAUGE_MAX_WINDOWS;
         a->w = malloc(a->n_win * sizeof(*a->w));
         if (!a->w) {
             g->failed = SQ_ENOMEM;
