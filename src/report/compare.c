@@ -232,6 +232,28 @@ static int gather(ctx_t *x, const char *tick_key, enum cmp_col col)
     return 0;
 }
 
+/* The Mann-Whitney U test of NEW's samples x->v[1] against BASE's x->v[0] into l, their medians
+ * and the line's verdict. */
+static int mw_test(ctx_t *x, report_cmp_line_t *l, double pct)
+{
+    report_mw_t mw;
+    int rc = report_mann_whitney(x->v[1].v, x->v[1].n, x->v[0].v, x->v[0].n, &mw);
+    if (rc)
+        return rc;
+    l->n_base = l->recorded_base = x->v[0].n;
+    l->n_new = l->recorded_new = x->v[1].n;
+    l->stat = mw.u;
+    l->z = mw.z;
+    l->p = mw.p;
+    l->test = !l->n_base || !l->n_new ? REPORT_TEST_NONE
+              : mw.exact              ? REPORT_TEST_MW_EXACT
+                                      : REPORT_TEST_MW_NORMAL;
+    l->base_med = median(x->v[0].v, x->v[0].n);
+    l->new_med = median(x->v[1].v, x->v[1].n);
+    decide(x, l, pct, mw_best);
+    return 0;
+}
+
 /* Per-second or per-tick samples of one metric, and the Mann-Whitney U test of NEW vs BASE. */
 static int mw_line(ctx_t *x, const spec_t *sp, enum report_unit unit)
 {
@@ -244,22 +266,8 @@ static int mw_line(ctx_t *x, const spec_t *sp, enum report_unit unit)
     enum cmp_col col = fallback ? CMP_MAX : sp->col;
     l->unit = ticks ? REPORT_UNIT_TICKS : REPORT_UNIT_SECONDS;
     l->tested_on = ticks ? sp->tick_column : cols[col];
-    report_mw_t mw;
     int rc = gather(x, ticks ? sp->tick_key : NULL, col);
-    if (rc || (rc = report_mann_whitney(x->v[1].v, x->v[1].n, x->v[0].v, x->v[0].n, &mw)))
-        return rc;
-    l->n_base = l->recorded_base = x->v[0].n;
-    l->n_new = l->recorded_new = x->v[1].n;
-    l->stat = mw.u;
-    l->z = mw.z;
-    l->p = mw.p;
-    l->test = !l->n_base || !l->n_new ? REPORT_TEST_NONE
-              : mw.exact              ? REPORT_TEST_MW_EXACT
-                                      : REPORT_TEST_MW_NORMAL;
-    l->base_med = median(x->v[0].v, x->v[0].n);
-    l->new_med = median(x->v[1].v, x->v[1].n);
-    decide(x, l, sp->pct, mw_best);
-    return 0;
+    return rc ? rc : mw_test(x, l, sp->pct);
 }
 
 /* The divisor of a watch histogram's counts: values that share one cause count once. Each write
@@ -328,22 +336,10 @@ static int sync_line(ctx_t *x)
         if (rc)
             return rc;
     }
-    report_mw_t mw;
-    int rc = report_mann_whitney(x->v[1].v, x->v[1].n, x->v[0].v, x->v[0].n, &mw);
-    if (rc)
-        return rc;
-    l->n_base = l->recorded_base = x->v[0].n;
-    l->n_new = l->recorded_new = x->v[1].n;
-    l->stat = mw.u;
-    l->z = mw.z;
-    l->p = mw.p;
-    l->test = !l->n_base || !l->n_new ? REPORT_TEST_NONE
-              : mw.exact              ? REPORT_TEST_MW_EXACT
-                                      : REPORT_TEST_MW_NORMAL;
-    l->base = l->base_med = median(x->v[0].v, x->v[0].n);
-    l->new_value = l->new_med = median(x->v[1].v, x->v[1].n);
-    decide(x, l, sync_spec.pct, mw_best);
-    return 0;
+    int rc = mw_test(x, l, sync_spec.pct);
+    l->base = l->base_med;
+    l->new_value = l->new_med;
+    return rc;
 }
 
 /* True when (phase, cls) has any answered cell in r. */
