@@ -11,14 +11,6 @@
 #include "squall/judge.h"
 #include "squall/value.h"
 
-struct judge {
-    judge_check_t *checks;
-    size_t n, cap;
-    char **strings; /* texts and class names the checks point to */
-    size_t n_strings;
-    const judge_opts_t *opts; /* while evaluating */
-};
-
 /* What one (class, scope) gathered from the cells: counts and the metric's histogram. For a
  * watch class the counts are stream attempts: opened (its open time was recorded) or refused
  * (an error outcome: a status other than 2xx, or no connection). */
@@ -44,32 +36,6 @@ const char *judge_verdict_name(enum judge_verdict v)
 static bool outcome_is_error(const char *oc)
 {
     return strcmp(oc, "2xx") && strcmp(oc, "3xx") && strcmp(oc, "cancelled");
-}
-
-char *judge_keep(judge_t *j, const char *s)
-{
-    char **ns = realloc(j->strings, (j->n_strings + 1) * sizeof(*ns));
-    if (!ns)
-        return NULL;
-    j->strings = ns;
-    char *c = strdup(s);
-    if (c)
-        j->strings[j->n_strings++] = c;
-    return c;
-}
-
-judge_check_t *judge_add_check(judge_t *j)
-{
-    if (j->n == j->cap) {
-        size_t cap = j->cap ? 2 * j->cap : 16;
-        judge_check_t *nc = realloc(j->checks, cap * sizeof(*nc));
-        if (!nc)
-            return NULL;
-        j->checks = nc;
-        j->cap = cap;
-    }
-    memset(&j->checks[j->n], 0, sizeof(j->checks[0]));
-    return &j->checks[j->n++];
 }
 
 static double phase_elapsed_s(const judge_phase_t *phases, size_t n, const char *name)
@@ -376,35 +342,6 @@ int judge_evaluate(const plan_objective_t *objs, size_t n_objs, const results_t 
     }
     *out = j;
     return 0;
-}
-
-void judge_free(judge_t *j)
-{
-    if (!j)
-        return;
-    for (size_t i = 0; i < j->n_strings; i++)
-        free(j->strings[i]);
-    free(j->strings);
-    free(j->checks);
-    free(j);
-}
-
-size_t judge_check_count(const judge_t *j)
-{
-    return j->n;
-}
-
-const judge_check_t *judge_check_at(const judge_t *j, size_t i)
-{
-    return i < j->n ? &j->checks[i] : NULL;
-}
-
-bool judge_failed(const judge_t *j)
-{
-    for (size_t i = 0; i < j->n; i++)
-        if (j->checks[i].verdict == JUDGE_FAIL || j->checks[i].verdict == JUDGE_NO_DATA)
-            return true;
-    return false;
 }
 
 const char *judge_outcome_name(enum judge_outcome o)
