@@ -172,13 +172,15 @@ static int tick_text(const live_tick_t *t, char *buf, size_t cap)
 }
 
 /* The synchronisation gauge of the phase's first action: "; sync R̄ 0.97" with R̄ of its last
- * closed window (gauge.c), always 4 columns wide ("–" before the first window closes). */
+ * closed window (gauge.c), always 4 columns wide ("–" before the first window closes, or when it
+ * had no sends). */
 static void sync_text(const live_tick_t *t, const obs_second_t *s, char *buf, size_t cap)
 {
     char v[16] = DASH, c[32];
     for (size_t k = 0; k < s->n_sync; k++)
         if (s->sync[k].phase == t->phase && s->sync[k].cls == t->cls && s->sync[k].closed) {
-            snprintf(v, sizeof v, "%.2f", s->sync[k].last.gauge.r_bar);
+            if (s->sync[k].last.gauge.n > 0) /* a window without sends has no R̄ to tell */
+                snprintf(v, sizeof v, "%.2f", s->sync[k].last.gauge.r_bar);
             break;
         }
     snprintf(buf, cap, "; sync R\xcc\x84 %s", col(c, sizeof c, 4, v));
