@@ -206,14 +206,49 @@ static void plot_key(FILE *f, const trend_group_t *g, const trend_series_t *s)
     free(x);
 }
 
+/* One plot of a fleet action's sync_max over the runs on a 0..1 axis, its max-sync bound as a
+ * dashed line, its changes marked. */
+static void plot_sync(FILE *f, const trend_group_t *g, const trend_series_t *s)
+{
+    size_t n = g->n_runs, nm = 0;
+    double *x = calloc(n, sizeof(*x)), ox[2] = {1, (double)n}, oy[2] = {s->objective, s->objective};
+    html_mark_t marks[64];
+    if (!x)
+        return;
+    for (size_t r = 0; r < n; r++)
+        x[r] = (double)r + 1;
+    for (size_t c = 0; c < s->n_changes && nm < 64; c++)
+        marks[nm++] = (html_mark_t){.x = (double)s->changes[c].first + 0.5,
+                                    .label = !s->changes[c].significant ? "sync?"
+                                             : s->changes[c].worse      ? "sync up"
+                                                                        : "sync down"};
+    html_line_t lines[2] = {
+        {.x = x, .y = s->values, .n = n, .label = "largest R\xcc\x84 of a whole window"},
+        {.x = ox, .y = oy, .n = 2, .label = "max-sync", .style = 1, .dash = 1},
+    };
+    html_level_t one = {.y = 1, .label = "all at one instant", .style = -1};
+    char title[256];
+    snprintf(title, sizeof title, "%s / %s: synchronisation", s->phase, s->cls);
+    html_plot_t p = {.title = title,
+                     .xlabel = "run (in start order)",
+                     .ylabel = "R\xcc\x84 (0 spread, 1 all at once)",
+                     .yzero = true,
+                     .levels = &one,
+                     .n_levels = 1};
+    fputs("<figure>", f);
+    html_plot(f, &p, lines, isnan(s->objective) ? 1 : 2, marks, nm);
+    fputs("</figure>\n", f);
+    free(x);
+}
+
 static void change_rows(FILE *f, const trend_group_t *g)
 {
     fputs("<table><tr><th>phase</th><th>class</th><th>metric</th><th>first run after</th>"
           "<th class=\"n\">before</th><th class=\"n\">after</th><th class=\"n\">size</th>"
           "<th class=\"n\">confidence</th><th>verdict</th></tr>\n",
           f);
-    for (size_t i = 0; i < g->n_series; i++) {
-        const trend_series_t *s = &g->series[i];
+    for (size_t i = 0; i < g->n_series + g->n_sync; i++) {
+        const trend_series_t *s = i < g->n_series ? &g->series[i] : &g->sync[i - g->n_series];
         for (size_t c = 0; c < s->n_changes; c++) {
             const trend_change_t *x = &s->changes[c];
             char a[32], b[32], sz[48];
@@ -259,6 +294,8 @@ static void group_section(FILE *f, const trend_group_t *g, size_t gi)
     change_rows(f, g);
     for (size_t i = 0; i + 4 <= g->n_series; i += 4)
         plot_key(f, g, &g->series[i]);
+    for (size_t i = 0; i < g->n_sync; i++)
+        plot_sync(f, g, &g->sync[i]);
     fputs("</section>\n", f);
 }
 
