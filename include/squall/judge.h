@@ -58,6 +58,10 @@ typedef struct {
     enum judge_verdict verdict;
 } judge_check_t;
 
+/* Sends a whole window needs for a max-sync objective with bound `bound` to judge it: with
+ * phases at random, R̄ exceeds the bound by chance at most once in 1,000 (judge_sync.c). */
+int64_t judge_sync_min_sends(double bound);
+
 /* The error rate every class is judged on when no objective of the plan covers it. */
 #define JUDGE_DEFAULT_ERROR_RATE 0.01
 

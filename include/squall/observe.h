@@ -11,6 +11,9 @@
  * NULL where a step does not apply:
  *   ledger   the objects this run created (pools behind {{pick}}, the journal): ledger.c
  *   storm    per tick of every fleet action: dispatch spread, burst, latency: storm.c
+ * Beside them the list keeps, like the generator's health (health.c), the synchronisation
+ * gauge of every fleet action (gauge.c): its last closed window reaches the observers in each
+ * second (obs_second_t.sync) and its windows become results.json's "sync" section.
  *   brakes   generator health totals and the brakes, which may stop the run: brakes.c
  *   series   series.csv, one row per phase x class x second: series.c
  *   live     the live line on stderr: live.c
@@ -30,6 +33,7 @@
 #include "squall/out.h"
 #include "squall/plan.h"
 #include "squall/results.h"
+#include "squall/sync.h"
 #include "squall/tmpl.h"
 
 #define OBS_TEARDOWN (-1) /* the class of a teardown's deletes */
@@ -51,6 +55,8 @@ typedef struct {
     bool whole;          /* the whole of a multi-page list: intended = page 1's, bytes summed */
     bool first;          /* a single request or the first page (schedule lag counts) */
     int agent;           /* fleet agent, closed-loop client, else -1 */
+    const char *source;  /* the source that sent it ("fleet", "open", ...; src_ops_t.name) or
+                            NULL */
     const char *path;    /* writes and lists: the object path (rendered, no query), else NULL */
     int64_t intended_ns; /* this sample's intended start */
     int64_t bytes_in, bytes_out; /* the whole list's when whole, else the result's */
@@ -78,6 +84,15 @@ typedef struct {
     int64_t opened, dropped, reconnects, events; /* in the second */
     const hist_t *propagation;                   /* of the second's stamped events */
 } obs_watch_second_t;
+
+/* The synchronisation gauge of one fleet action (gauge.c) as a second sees it. */
+typedef struct {
+    size_t phase;
+    int cls;
+    int64_t period_ns;
+    bool closed;        /* a window of it has closed (else `last` is empty) */
+    sync_window_t last; /* the last closed window (start_ns on the monotonic clock) */
+} obs_sync_t;
 
 /* The second the list just closed: what every observer's second() reads. */
 typedef struct {
@@ -107,6 +122,8 @@ typedef struct {
                                 fills during the brakes observer's own second() */
     const obs_watch_second_t *watch; /* NULL while no watch stream has opened in the run */
     int64_t teardown_total;          /* objects the teardown set out to delete (0: none yet) */
+    const obs_sync_t *sync; /* every fleet action that has started, in plan order */
+    size_t n_sync;
     enum obs_bound bound;  /* could squall offer the planned load (health.c) */
     const char *bound_why; /* when bound: why, e.g. "schedule lag p99 12.3 ms" */
 } obs_second_t;

@@ -313,7 +313,13 @@ enum plan_metric {
     PLAN_METRIC_OPEN,
     PLAN_METRIC_PROPAGATION
 };
-enum plan_limit { PLAN_LIMIT_PERCENTILE, PLAN_LIMIT_ERROR_RATE, PLAN_LIMIT_MIN_RATE };
+/* MAX_SYNC: the synchronisation gauge R̄ of every whole window of a fleet action (value). */
+enum plan_limit {
+    PLAN_LIMIT_PERCENTILE,
+    PLAN_LIMIT_ERROR_RATE,
+    PLAN_LIMIT_MIN_RATE,
+    PLAN_LIMIT_MAX_SYNC
+};
 
 typedef struct {
     plan_pos_t pos;
@@ -323,7 +329,7 @@ typedef struct {
     enum plan_limit limit;
     double percentile; /* 99.9 for p99.9 */
     int64_t max_ns;    /* for PERCENTILE */
-    double value;      /* fraction for ERROR_RATE, per second for MIN_RATE */
+    double value;      /* fraction for ERROR_RATE, per second for MIN_RATE, R̄ for MAX_SYNC */
 } plan_objective_t;
 
 enum plan_brake_kind {

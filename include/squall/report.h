@@ -102,7 +102,9 @@ void report_cmp_opts_default(report_cmp_opts_t *opts);
 /* What a line's samples are: series.csv's seconds, a fleet phase's ticks (the "storms"
  * section), or a watch class's recorded values (its histograms), counted as at most one per
  * stream and at most one per second of the phase (see compare.c, watch_line). */
-enum report_unit { REPORT_UNIT_SECONDS, REPORT_UNIT_TICKS, REPORT_UNIT_WATCH };
+/* REPORT_UNIT_WINDOWS: a fleet action's whole windows of one period (the "sync" section), for
+ * its synchronisation gauge R̄. */
+enum report_unit { REPORT_UNIT_SECONDS, REPORT_UNIT_TICKS, REPORT_UNIT_WATCH, REPORT_UNIT_WINDOWS };
 enum report_test {
     REPORT_TEST_NONE,
     REPORT_TEST_MW_EXACT,
@@ -113,8 +115,9 @@ enum report_test {
 /* One metric of one (phase, class) in both runs. */
 typedef struct {
     const char *phase, *cls;
-    const char *latency;      /* "response", "open", "propagation"; NULL for the error rate */
-    const char *metric;       /* "p50", "p99", "p99.9" or "error_rate" */
+    const char *latency;      /* "response", "open", "propagation", "sync" (a fleet action's
+                               * R̄ per whole window); NULL for the error rate */
+    const char *metric;       /* "p50", "p99", "p99.9", "error_rate" or "r_bar" */
     double base, new_value;   /* whole-phase values: ms from the histograms, or a fraction */
     double base_med, new_med; /* what the minimum change is measured between: the medians of
                                * the per-second or per-tick samples; for watch lines the
@@ -147,7 +150,7 @@ const report_cmp_line_t *report_cmp_at(const report_cmp_t *c, size_t i);
 /* True when a line is worse: exit 1 for `squall compare`. */
 bool report_cmp_worse(const report_cmp_t *c);
 /* The verdict in words: "slower", "faster" (latency), "more errors", "fewer errors" (error
- * rate), "within noise", "untested". */
+ * rate), "more synchronised", "less synchronised" (sync), "within noise", "untested". */
 const char *report_verdict_word(const report_cmp_line_t *l);
 const char *report_unit_name(enum report_unit u); /* "seconds", "ticks", "samples" */
 const char *report_test_name(enum report_test t);

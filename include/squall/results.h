@@ -34,7 +34,11 @@
 #define RESULTS_SERIES_FILE "series.csv"
 #define RESULTS_SERIES_HEADER                                                                      \
     "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
-    "unix_ms,p999_ms,marks"
+    "unix_ms,p999_ms,marks," RESULTS_SERIES_SYNC
+/* series.csv's synchronisation gauge of a fleet action's row: its last closed window (index,
+ * sends, R̄, Rayleigh p, peak-to-mean), empty in other rows and in a merge's series (the merged
+ * gauge is results.json's "sync" section). */
+#define RESULTS_SERIES_SYNC "sync_window,sync_n,sync_r_bar,sync_p,sync_peak_to_mean"
 #define RESULTS_SERIES_HIST_FILE   "series-hist.csv"
 #define RESULTS_SERIES_HIST_HEADER "second,phase,class,unix_ms,response"
 
@@ -189,6 +193,8 @@ int results_merge(results_t *dst, const results_t *src, const char *name, out_t 
  *                      the largest; counts added
  *   watches, lifecycle counts added (the churn band: sums of the inputs' minima and maxima)
  *   storms             ticks combined per tick instant on the wall clock
+ *   sync               each fleet action's windows combined by index: their sums added, the
+ *                      gauge recomputed from them (results_sync.c)
  * and drops "objectives" and "run", which a judge writes for the merge (judge_results). Other
  * sections stay only when equal in every input. SQ_ENOMEM. */
 int results_merge_finish(results_t *dst, out_t *o);

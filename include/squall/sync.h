@@ -47,6 +47,11 @@ int sync_acc_init(sync_acc_t *a, int64_t base_ns, int64_t period_ns);
 void sync_acc_add(sync_acc_t *a, int64_t t_ns);
 /* The gauge of the instants added so far; the accumulator is unchanged. */
 void sync_acc_gauge(const sync_acc_t *a, sync_gauge_t *out);
+/* Adds from's instants to into (counts, compensated sums and bins): the accumulator of the union
+ * of both sets, as one fed every instant would hold up to rounding. Both must measure phases on
+ * the same grid (same period; bases a whole number of periods apart, e.g. one window of the
+ * same run counted by two shards); into's base and period are kept. No allocation. */
+void sync_acc_merge(sync_acc_t *into, const sync_acc_t *from);
 
 /* Rayleigh test p-value for n phases with mean resultant length r_bar (0 <= r_bar <= 1), by
  * Zar's approximation (Zar, "Biostatistical Analysis", 4th ed. 1999, ch. 27, eq. 27.4; chapter

@@ -56,12 +56,13 @@ typedef struct {
     double before, after; /* means of the segment before and after it */
     double p;             /* two-sided Mann-Whitney p between the two segments */
     bool significant;     /* p < false_alarm and |after - before| past the floors */
-    bool worse;           /* after > before: slower, or more errors */
+    bool worse;           /* after > before: slower, more errors, more synchronised */
 } trend_change_t;
 
 typedef struct {
     const char *phase, *cls;
-    const char *metric; /* "p50", "p99", "p99.9" (ms of response time) or "error_rate" */
+    const char *metric; /* "p50", "p99", "p99.9" (ms of response time), "error_rate", or
+                         * "sync_max" (a fleet action's largest R̄ of a whole window) */
     double *values;     /* one per run of the group; NaN where the run has no such cell */
     double sigma;
     double objective; /* the plan's limit on this metric for this (phase, class); NaN none */
@@ -74,8 +75,10 @@ typedef struct {
     size_t n_runs;
     const char **dirs; /* in start order */
     int64_t *start_ms; /* unix ms */
-    trend_series_t *series;
+    trend_series_t *series; /* per (phase, class) the four metrics in order, n_series / 4 */
     size_t n_series;
+    trend_series_t *sync; /* per fleet action (phase, class) gauged: "sync_max" */
+    size_t n_sync;
 } trend_group_t;
 
 typedef struct trend trend_t;

@@ -231,6 +231,26 @@ static void warn_few(const plan_t *p, const src_estimate_t *est, const plan_obje
     }
 }
 
+/* A max-sync objective on a fleet whose agents cannot fill a window with the sends it needs:
+ * each agent sends once per period, so a window has at most `agents` sends. */
+static void warn_sync_few(const plan_t *p, const plan_objective_t *ob, out_t *o)
+{
+    int64_t needed = judge_sync_min_sends(ob->value);
+    for (size_t i = 0; i < p->n_phases; i++) {
+        const plan_phase_t *ph = &p->phases[i];
+        for (size_t k = 0; ph->fleet.on && k < ph->fleet.n_send; k++)
+            if ((ob->phase.index < 0 || (size_t)ob->phase.index == i) &&
+                (ob->cls.index < 0 || ph->fleet.send[k].cls.index == ob->cls.index) &&
+                ph->fleet.agents < needed)
+                out_print(o,
+                          "warning    phase %s: %d agents send %s at most %d times a window, and "
+                          "max-sync %g needs %lld: the run would be INCONCLUSIVE (exit 7) unless "
+                          "the plan says accept: [few-samples]\n",
+                          ph->name, ph->fleet.agents, p->reqs[ph->fleet.send[k].cls.index].name,
+                          ph->fleet.agents, ob->value, (long long)needed);
+    }
+}
+
 static void print_judges(const plan_t *p, const src_estimate_t *est, out_t *o)
 {
     static const char *const metric[] = {"response", "service", "open", "propagation"};
@@ -244,6 +264,9 @@ static void print_judges(const plan_t *p, const src_estimate_t *est, out_t *o)
                       dur_str(ob->max_ns, d, sizeof d));
         else if (ob->limit == PLAN_LIMIT_ERROR_RATE)
             out_print(o, "error rate <= %g%%", ob->value * 100);
+        else if (ob->limit == PLAN_LIMIT_MAX_SYNC)
+            out_print(o, "sync R-bar <= %g in every whole window of %lld sends or more", ob->value,
+                      (long long)judge_sync_min_sends(ob->value));
         else
             out_print(o, "rate >= %g/s", ob->value);
         out_print(o, "%s%s\n", ob->phase.index >= 0 ? " in phase " : "",
@@ -252,6 +275,8 @@ static void print_judges(const plan_t *p, const src_estimate_t *est, out_t *o)
         if (ob->limit == PLAN_LIMIT_PERCENTILE && ob->cls.index >= 0 &&
             ob->metric <= PLAN_METRIC_SERVICE && !(p->accept & 1u << PLAN_ACCEPT_FEW_SAMPLES))
             warn_few(p, est, ob, o);
+        if (ob->limit == PLAN_LIMIT_MAX_SYNC && !(p->accept & 1u << PLAN_ACCEPT_FEW_SAMPLES))
+            warn_sync_few(p, ob, o);
     }
     if (!all_errors)
         out_print(o,
@@ -406,7 +431,7 @@ static json_t *objective_json(const plan_t *p, const src_estimate_t *est,
                               const plan_objective_t *ob)
 {
     static const char *const metric[] = {"response", "service", "open", "propagation"};
-    static const char *const limit[] = {"percentile", "error-rate", "min-rate"};
+    static const char *const limit[] = {"percentile", "error-rate", "min-rate", "max-sync"};
     json_t *j = json_pack("{s:o, s:o, s:s}", "class",
                           ob->cls.index < 0 ? json_null() : json_string(ob->cls.name), "phase",
                           ob->phase.index < 0 ? json_null() : json_string(ob->phase.name), "limit",

@@ -6,17 +6,10 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "judge_int.h"
 #include "squall/err.h"
 #include "squall/judge.h"
 #include "squall/value.h"
-
-struct judge {
-    judge_check_t *checks;
-    size_t n, cap;
-    char **strings; /* texts and class names the checks point to */
-    size_t n_strings;
-    const judge_opts_t *opts; /* while evaluating */
-};
 
 /* What one (class, scope) gathered from the cells: counts and the metric's histogram. For a
  * watch class the counts are stream attempts: opened (its open time was recorded) or refused
@@ -43,32 +36,6 @@ const char *judge_verdict_name(enum judge_verdict v)
 static bool outcome_is_error(const char *oc)
 {
     return strcmp(oc, "2xx") && strcmp(oc, "3xx") && strcmp(oc, "cancelled");
-}
-
-static char *keep(judge_t *j, const char *s)
-{
-    char **ns = realloc(j->strings, (j->n_strings + 1) * sizeof(*ns));
-    if (!ns)
-        return NULL;
-    j->strings = ns;
-    char *c = strdup(s);
-    if (c)
-        j->strings[j->n_strings++] = c;
-    return c;
-}
-
-static judge_check_t *add_check(judge_t *j)
-{
-    if (j->n == j->cap) {
-        size_t cap = j->cap ? 2 * j->cap : 16;
-        judge_check_t *nc = realloc(j->checks, cap * sizeof(*nc));
-        if (!nc)
-            return NULL;
-        j->checks = nc;
-        j->cap = cap;
-    }
-    memset(&j->checks[j->n], 0, sizeof(j->checks[0]));
-    return &j->checks[j->n++];
 }
 
 static double phase_elapsed_s(const judge_phase_t *phases, size_t n, const char *name)
@@ -140,6 +107,8 @@ static bool observe(const plan_objective_t *ob, const tally_t *t, judge_check_t 
         ck->samples = t->answered;
         ck->observed = t->answered ? (double)t->errors / (double)t->answered : 0;
         return t->answered > 0;
+    case PLAN_LIMIT_MAX_SYNC: /* judged by judge_sync */
+        return false;
     case PLAN_LIMIT_MIN_RATE:
         ck->unit = "per_s";
         ck->threshold = ob->value;
@@ -167,6 +136,8 @@ static void describe(const plan_objective_t *ob, char *buf, size_t cap)
         snprintf(buf, cap, "p%g of %s <= %s", ob->percentile, metric_names[ob->metric], d);
     else if (ob->limit == PLAN_LIMIT_ERROR_RATE)
         snprintf(buf, cap, "error rate <= %g%%", ob->value * 100);
+    else if (ob->limit == PLAN_LIMIT_MAX_SYNC)
+        snprintf(buf, cap, "sync R-bar <= %g (whole windows)", ob->value);
     else
         snprintf(buf, cap, "rate >= %g/s", ob->value);
 }
@@ -174,7 +145,7 @@ static void describe(const plan_objective_t *ob, char *buf, size_t cap)
 static int check_one(judge_t *j, size_t oi, const plan_objective_t *ob, const char *text,
                      const char *cls, const char *scope, const tally_t *t)
 {
-    judge_check_t *ck = add_check(j);
+    judge_check_t *ck = judge_add_check(j);
     if (!ck)
         return SQ_ENOMEM;
     ck->objective = oi;
@@ -228,7 +199,7 @@ static int judge_class(judge_t *j, size_t oi, const plan_objective_t *ob, const 
 {
     int metric = results_metric_from_name(metric_names[ob->metric]);
     metric = metric < 0 ? -1 : metric;
-    const char *kept = keep(j, cls);
+    const char *kept = judge_keep(j, cls);
     if (!kept)
         return SQ_ENOMEM;
     bool watch = is_watch_class(j, res, cls);
@@ -245,7 +216,7 @@ static int judge_class(judge_t *j, size_t oi, const plan_objective_t *ob, const 
         gather(res, cls, watch, phases[i].name, metric, phases, n_phases, t);
         if (t->answered == 0 && !ob->phase.name)
             continue;
-        const char *scope = keep(j, phases[i].name);
+        const char *scope = judge_keep(j, phases[i].name);
         rc = scope ? check_one(j, oi, ob, text, kept, scope, t) : SQ_ENOMEM;
     }
     if (rc == 0 && !ob->phase.name) {
@@ -277,9 +248,11 @@ static int judge_objective(judge_t *j, size_t oi, const plan_objective_t *ob, co
 {
     char buf[128];
     describe(ob, buf, sizeof buf);
-    const char *text = keep(j, buf);
+    const char *text = judge_keep(j, buf);
     if (!text)
         return SQ_ENOMEM;
+    if (ob->limit == PLAN_LIMIT_MAX_SYNC)
+        return judge_sync(j, oi, ob, text, res, phases, n_phases);
     if (ob->cls.name && strcmp(ob->cls.name, "*"))
         return judge_class(j, oi, ob, text, ob->cls.name, false, res, phases, n_phases, t);
     size_t n = 0, before = j->n;
@@ -324,7 +297,7 @@ static int default_error_rate(judge_t *j, const plan_objective_t *objs, size_t n
         return SQ_ENOMEM;
     char text[64];
     snprintf(text, sizeof text, "error rate <= %g%% (default)", rate * 100);
-    const char *kept = keep(j, text);
+    const char *kept = judge_keep(j, text);
     int rc = kept ? 0 : SQ_ENOMEM;
     for (size_t k = 0; rc == 0 && k < n; k++) {
         if (error_rate_covered(objs, n_objs, names[k]) || is_internal_class(j, names[k]))
@@ -369,35 +342,6 @@ int judge_evaluate(const plan_objective_t *objs, size_t n_objs, const results_t 
     }
     *out = j;
     return 0;
-}
-
-void judge_free(judge_t *j)
-{
-    if (!j)
-        return;
-    for (size_t i = 0; i < j->n_strings; i++)
-        free(j->strings[i]);
-    free(j->strings);
-    free(j->checks);
-    free(j);
-}
-
-size_t judge_check_count(const judge_t *j)
-{
-    return j->n;
-}
-
-const judge_check_t *judge_check_at(const judge_t *j, size_t i)
-{
-    return i < j->n ? &j->checks[i] : NULL;
-}
-
-bool judge_failed(const judge_t *j)
-{
-    for (size_t i = 0; i < j->n; i++)
-        if (j->checks[i].verdict == JUDGE_FAIL || j->checks[i].verdict == JUDGE_NO_DATA)
-            return true;
-    return false;
 }
 
 const char *judge_outcome_name(enum judge_outcome o)
@@ -463,7 +407,10 @@ enum judge_outcome judge_outcome(const judge_t *j, const judge_evidence_t *ev, j
                ev->generator_why ? ev->generator_why : "?");
     for (size_t i = 0; i < j->n; i++) {
         const judge_check_t *c = &j->checks[i];
-        if (c->verdict == JUDGE_TOO_FEW)
+        if (c->verdict == JUDGE_TOO_FEW && c->why)
+            reason(WEIGH(PLAN_ACCEPT_FEW_SAMPLES), "%s in %s: %s: too few samples: %s", c->cls,
+                   c->scope, c->text, c->why);
+        else if (c->verdict == JUDGE_TOO_FEW)
             reason(WEIGH(PLAN_ACCEPT_FEW_SAMPLES),
                    "%s in %s: %s: too few samples to resolve it (had %lld, needs %lld)", c->cls,
                    c->scope, c->text, (long long)c->samples, (long long)c->needed);

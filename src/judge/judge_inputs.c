@@ -11,7 +11,8 @@
 #include "squall/judge.h"
 
 static const char *const metric_words[] = {"response", "service", "open", "propagation", NULL};
-static const char *const limit_words[] = {"percentile", "error-rate", "min-rate", NULL};
+static const char *const limit_words[] = {"percentile", "error-rate", "min-rate", "max-sync",
+                                          NULL};
 
 static json_t *objective_json(const plan_objective_t *ob)
 {

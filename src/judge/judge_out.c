@@ -36,6 +36,8 @@ static void human(double v, const char *unit, char *buf, size_t cap)
         snprintf(buf, cap, "%.2f ms", v);
     else if (strcmp(unit, "fraction") == 0)
         snprintf(buf, cap, "%.2f%%", v * 100);
+    else if (strcmp(unit, "r_bar") == 0)
+        snprintf(buf, cap, "%.3f", v);
     else
         snprintf(buf, cap, "%.1f/s", v);
 }
@@ -45,11 +47,12 @@ static int check_row(table_t *t, const judge_check_t *c)
 {
     static const char *const shout[] = {"pass", "FAIL", "NO-DATA", "TOO-FEW"};
     char obs[32] = "-", note[96];
-    if (c->verdict != JUDGE_NO_DATA)
+    bool no_window = !strcmp(c->unit, "r_bar") && c->samples == 0; /* nothing gauged */
+    if (c->verdict != JUDGE_NO_DATA && !no_window)
         human(c->observed, c->unit, obs, sizeof obs);
     const char *cells[] = {shout[c->verdict], c->scope, c->cls, c->text, obs};
     int rc = table_add(t, cells);
-    if (rc == 0 && c->verdict == JUDGE_TOO_FEW) {
+    if (rc == 0 && c->verdict == JUDGE_TOO_FEW && !c->why) {
         snprintf(note, sizeof note, "%lld samples, needs %lld to resolve it", (long long)c->samples,
                  (long long)c->needed);
         rc = table_note(t, 3, note);

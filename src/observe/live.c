@@ -1,7 +1,8 @@
 /* The live line: once a second on stderr, in fixed-width columns (the phase name padded to the
  * plan's longest, so nothing shifts when the phase changes): the time, what the phase's traffic
- * did (rate against the plan; in a fleet phase the tick we are in and what the last tick did; in
- * a teardown its progress), the second's completions and latencies ("–" when nothing completed),
+ * did (rate against the plan; in a fleet phase the tick we are in, what the last tick did and the
+ * synchronisation gauge R̄ of the last closed window of its first action; in a teardown its
+ * progress), the second's completions and latencies ("–" when nothing completed),
  * errors this second and in all, the peaks of the second in flight and queued, send lag, then
  * watch streams when the run has any, and why squall could not offer the load when it could not.
  */
@@ -170,6 +171,21 @@ static int tick_text(const live_tick_t *t, char *buf, size_t cap)
                     spread, ms_col(b, sizeof b, 0, t->response, 99, 1));
 }
 
+/* The synchronisation gauge of the phase's first action: "; sync R̄ 0.97" with R̄ of its last
+ * closed window (gauge.c), always 4 columns wide ("–" before the first window closes, or when it
+ * had no sends). */
+static void sync_text(const live_tick_t *t, const obs_second_t *s, char *buf, size_t cap)
+{
+    char v[16] = DASH, c[32];
+    for (size_t k = 0; k < s->n_sync; k++)
+        if (s->sync[k].phase == t->phase && s->sync[k].cls == t->cls && s->sync[k].closed) {
+            if (s->sync[k].last.gauge.n > 0) /* a window without sends has no R̄ to tell */
+                snprintf(v, sizeof v, "%.2f", s->sync[k].last.gauge.r_bar);
+            break;
+        }
+    snprintf(buf, cap, "; sync R\xcc\x84 %s", col(c, sizeof c, 4, v));
+}
+
 /* What the phase's traffic did this second. */
 static void traffic(live_t *v, const obs_second_t *s, char *buf, size_t cap)
 {
@@ -199,6 +215,9 @@ static void traffic(live_t *v, const obs_second_t *s, char *buf, size_t cap)
             if (n > 0 && (size_t)n < cap)
                 snprintf(buf + n, cap - (size_t)n, "; next in %.1fs", next);
         }
+        size_t n = strlen(buf);
+        if (n < cap)
+            sync_text(t, s, buf + n, cap - n);
         t->shown = t->k;
         return;
     } else {

@@ -56,6 +56,19 @@ json_t *obs_health_json(const obs_health_t *h);
 /* Which seconds, as "4, 5, 9" (", ..." when more than fit or were kept). */
 void obs_bound_seconds(const obs_bound_list_t *b, char *buf, size_t cap);
 
+/* gauge.c: the synchronisation gauge of every fleet action, owned by the list. */
+typedef struct obs_gauge obs_gauge_t;
+int obs_gauge_new(const plan_t *plan, obs_gauge_t **out);
+void obs_gauge_free(obs_gauge_t *g);
+void obs_gauge_phase(obs_gauge_t *g, size_t phase, int64_t base_ns);
+void obs_gauge_done(obs_gauge_t *g, const obs_done_t *d);
+/* Closes the windows ended by now_ns; the actions' last closed windows (*n of them). */
+const obs_sync_t *obs_gauge_second(obs_gauge_t *g, int64_t now_ns, size_t *n);
+/* The run ended at end_ns (windows it cut are partial). */
+void obs_gauge_end(obs_gauge_t *g, int64_t end_ns);
+/* The "sync" section (a new reference), NULL with *rc = 0 when no fleet phase ran. */
+json_t *obs_gauge_json(const obs_gauge_t *g, int *rc);
+
 /* storm.c: the tick of a fleet action an intended start belongs to (-1: before the first).
  * Aligned and jittered ticks are windows centred on base + offset + k * period (a jittered agent
  * fires on either side of it); spread ticks are the periods. offset: for aligned ticks the

@@ -42,6 +42,7 @@ struct obs {
     int in_flight;
     int64_t busy_since_ns, last_answer_ns, unanswered_since_ns;
     obs_health_t health;
+    obs_gauge_t *gauge;
     int64_t svc_sum_ns, svc_n; /* the open second's service times */
     char marks[512];           /* the open second's marked instants, ';'-separated */
     char brake_why[256];       /* the brake that fired, "" until one does */
@@ -109,6 +110,7 @@ int obs_new(const obs_cfg_t *cfg, obs_t **out)
     l->n_classes = cfg->plan->n_reqs + 1;
     l->cells = calloc(l->n_phases * 2 * l->n_classes * ENG_OUT_COUNT, sizeof(*l->cells));
     int rc = l->cells ? window_init(l) : SQ_ENOMEM;
+    rc = rc ? rc : obs_gauge_new(cfg->plan, &l->gauge);
     obs_cfg_t inner = *cfg; /* a brake that fires is seen by the list, then the conductor */
     inner.brake = cfg->brake ? list_brake : NULL;
     inner.user = l;
@@ -144,6 +146,7 @@ void obs_free(obs_t *l)
     hist_free(l->send_lag);
     hist_free(l->sec_propagation);
     obs_health_close(&l->health);
+    obs_gauge_free(l->gauge);
     free(l);
 }
 
@@ -174,6 +177,7 @@ json_t *obs_brakes_json(const obs_t *l)
 
 void obs_phase(obs_t *l, size_t phase, int64_t base_ns, int64_t realtime0_ns)
 {
+    obs_gauge_phase(l->gauge, phase, base_ns);
     for (size_t i = 0; i < N_ENTRIES; i++)
         if (entries[i]->ops->phase)
             entries[i]->ops->phase(l->self[i], phase, base_ns, realtime0_ns);
@@ -330,6 +334,7 @@ void obs_done(obs_t *l, const obs_done_t *d)
         else if (d->res->outcome != ENG_OUT_CANCELLED && !l->unanswered_since_ns)
             l->unanswered_since_ns = d->res->done_ns;
         tally(l, d);
+        obs_gauge_done(l->gauge, d);
     }
     for (size_t i = 0; i < N_ENTRIES; i++)
         if (entries[i]->ops->done)
@@ -445,6 +450,9 @@ void obs_second(obs_t *l, const eng_stats_t *st, bool loading, size_t phase, boo
         .teardown_total = l->teardown_total,
     };
     l->watch.propagation = l->sec_propagation;
+    if (final)
+        obs_gauge_end(l->gauge, now);
+    s.sync = obs_gauge_second(l->gauge, now, &s.n_sync);
     obs_health_in_t in = {
         .second = l->sec_index,
         .loading = loading,
@@ -488,6 +496,11 @@ static json_t *generator_json(const obs_t *l)
 int obs_finish(obs_t *l, const char *dir)
 {
     int rc = results_set_section(l->cfg.res, "generator", generator_json(l));
+    int grc;
+    json_t *sync = obs_gauge_json(l->gauge, &grc);
+    if (sync && results_set_section(l->cfg.res, "sync", sync))
+        grc = SQ_ENOMEM;
+    rc = rc ? rc : grc;
     for (size_t i = 0; i < N_ENTRIES; i++) {
         if (!entries[i]->ops->finish)
             continue;

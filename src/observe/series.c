@@ -70,6 +70,22 @@ static double ms(int64_t ns)
     return (double)ns / 1e6;
 }
 
+/* The sync columns of a row (RESULTS_SERIES_SYNC) and its end: the last closed window of the
+ * fleet action (phase, class), empty when the row is not one's or none has closed. */
+static void sync_cells(FILE *f, const obs_second_t *w, const obs_cell_t *c)
+{
+    for (size_t k = 0; k < w->n_sync; k++) {
+        const obs_sync_t *y = &w->sync[k];
+        if (y->phase != c->phase || y->cls != c->cls || !y->closed)
+            continue;
+        fprintf(f, "%lld,%llu,%.4f,%.4g,%.3f\n", (long long)y->last.index,
+                (unsigned long long)y->last.gauge.n, y->last.gauge.r_bar, y->last.gauge.p,
+                y->last.gauge.peak_to_mean);
+        return;
+    }
+    fputs(",,,,\n", f);
+}
+
 static void series_second(void *self, const obs_second_t *w)
 {
     series_t *s = self;
@@ -79,7 +95,7 @@ static void series_second(void *self, const obs_second_t *w)
         const obs_cell_t *c = &w->cells[i];
         const hist_t *h = c->response;
         bool any = h && c->completed > 0;
-        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,%s\n",
+        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,%s,",
                 (long long)w->index, obs_phase_name(s->plan, c->phase),
                 obs_class_name(s->plan, c->cls), (long long)c->started, (long long)c->completed,
                 (double)c->completed / w->secs, (long long)c->errors,
@@ -87,6 +103,7 @@ static void series_second(void *self, const obs_second_t *w)
                 any ? ms(hist_value_at(h, 99)) : 0.0, any ? ms(hist_max(h)) : 0.0, c->planned,
                 (long long)((w->start_ns + s->real_minus_mono) / 1000000),
                 any ? ms(hist_value_at(h, 99.9)) : 0.0, w->marks ? w->marks : "");
+        sync_cells(s->f, w, c);
         /* Out of memory, the row has no histogram: a merge then marks its percentiles unknown. */
         char *text = NULL;
         if (any && hist_encode(h, &text) == 0)

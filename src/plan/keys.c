@@ -51,8 +51,8 @@ static const char *const replay[] = {
 static const char *const rewrite[] = {"match", "to", NULL};
 static const char *const classify[] = {"match", "class", NULL};
 /* p99 stands for every percentile key pN (0 < N <= 100), which the judge's parser accepts. */
-static const char *const objective[] = {"class",    "phase", "metric", "error-rate",
-                                        "min-rate", "p99",   NULL};
+static const char *const objective[] = {"class",    "phase", "metric",   "error-rate",
+                                        "min-rate", "p99",   "max-sync", NULL};
 static const char *const brake[] = {"error-rate", "unreachable", "saturation", "for",
                                     "class",      "p99",         NULL};
 

@@ -76,7 +76,7 @@ static int one_limit(pctx_t *c, yaml_node_t *n, const char *where, const char *c
 static void parse_objective(pctx_t *c, yaml_node_t *n, const char *where, plan_objective_t *ob)
 {
     const char *const *keys = plan_keys(PLAN_KEYS_OBJECTIVE);
-    static const char *const limits[] = {"error-rate", "min-rate", NULL};
+    static const char *const limits[] = {"error-rate", "min-rate", "max-sync", NULL};
     static const char *const metrics[] = {"response", "service", "open", "propagation", NULL};
     ob->pos = pc_pos(c, n);
     ob->cls.index = ob->phase.index = -1;
@@ -104,6 +104,9 @@ static void parse_objective(pctx_t *c, yaml_node_t *n, const char *where, plan_o
     } else if (lim == 1) {
         ob->limit = PLAN_LIMIT_MIN_RATE;
         pc_rate(c, n, "min-rate", where, &ob->value);
+    } else if (lim == 2) {
+        ob->limit = PLAN_LIMIT_MAX_SYNC;
+        pc_num(c, n, "max-sync", where, 0, 1, &ob->value);
     }
 }
 

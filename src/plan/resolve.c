@@ -79,6 +79,34 @@ static void resolve_phase_refs(pctx_t *c, plan_phase_t *ph, const char *const *n
     resolve_class(c, &ph->churn.del, wm, NEED_DELETES, false, names);
 }
 
+/* Whether class cls (-1: any) is a fleet action (phases[].fleet.send) of phase ph (-1: any). */
+static bool fleet_sends(const plan_t *p, int cls, int ph)
+{
+    for (size_t i = 0; i < p->n_phases; i++)
+        for (size_t k = 0; p->phases[i].fleet.on && k < p->phases[i].fleet.n_send; k++)
+            if ((ph < 0 || (size_t)ph == i) &&
+                (cls < 0 || p->phases[i].fleet.send[k].cls.index == cls))
+                return true;
+    return false;
+}
+
+/* A max-sync objective gauges a fleet action: its class must be one some fleet sends (in its
+ * phase, when it names one). */
+static void check_sync_objective(pctx_t *c, size_t i)
+{
+    const plan_objective_t *ob = &c->p->objectives[i];
+    bool any = !ob->cls.name || strcmp(ob->cls.name, "*") == 0;
+    if (ob->limit != PLAN_LIMIT_MAX_SYNC || (!any && ob->cls.index < 0) ||
+        (ob->phase.name && ob->phase.index < 0))
+        return; /* not one, or an unknown name already reported */
+    if (!fleet_sends(c->p, any ? -1 : ob->cls.index, ob->phase.name ? ob->phase.index : -1))
+        pc_error_at(c, ob->pos,
+                    "objectives[%zu]: max-sync gauges a fleet action (expected a class that "
+                    "phases[].fleet.send names%s%s, got %s)",
+                    i, ob->phase.name ? " in phase " : "", ob->phase.name ? ob->phase.name : "",
+                    any ? "\"*\" in a plan without a fleet" : ob->cls.name);
+}
+
 static void resolve_judges(pctx_t *c, const char *const *names)
 {
     plan_t *p = c->p;
@@ -102,6 +130,8 @@ static void resolve_judges(pctx_t *c, const char *const *names)
                         i, ob->metric == PLAN_METRIC_OPEN ? "open" : "propagation",
                         plan_kind_name(p->reqs[ob->cls.index].kind));
     }
+    for (size_t i = 0; i < p->n_objectives; i++)
+        check_sync_objective(c, i);
     for (size_t i = 0; i < p->n_brakes; i++) {
         char w[64];
         snprintf(w, sizeof w, "brakes[%zu].class", i);

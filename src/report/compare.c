@@ -33,6 +33,11 @@ static const spec_t watch_specs[] = {
     {"propagation", "p99.9", 99.9, RESULTS_M_PROPAGATION, 0, NULL, NULL},
 };
 #define N_SPECS(a) (sizeof(a) / sizeof((a)[0]))
+/* A fleet action's synchronisation: R̄ of its whole windows (the "sync" section), compared like a
+ * latency (Mann-Whitney U over the windows). The smallest change of the median R̄ that counts is
+ * CMP_SYNC_MIN_CHANGE, 0.05: an evenly spread or jittered fleet's R̄ wanders by about 1/sqrt(n) from window to window
+ * by chance (Rayleigh: E[n R̄²] = 1 for uniform phases), under 0.06 from 300 sends on. */
+static const spec_t sync_spec = {"sync", "r_bar", 50, RESULTS_M_RESPONSE, 0, NULL, NULL};
 
 /* The state of one comparison while its lines are built. */
 typedef struct {
@@ -56,12 +61,12 @@ void report_cmp_opts_default(report_cmp_opts_t *opts)
 
 const char *report_verdict_word(const report_cmp_line_t *l)
 {
-    bool err = !l->latency;
+    bool err = !l->latency, sync = l->latency && !strcmp(l->latency, "sync");
     switch (l->verdict) {
     case REPORT_WORSE:
-        return err ? "more errors" : "slower";
+        return err ? "more errors" : sync ? "more synchronised" : "slower";
     case REPORT_BETTER:
-        return err ? "fewer errors" : "faster";
+        return err ? "fewer errors" : sync ? "less synchronised" : "faster";
     case REPORT_UNTESTED:
         return "untested";
     default:
@@ -71,7 +76,10 @@ const char *report_verdict_word(const report_cmp_line_t *l)
 
 const char *report_unit_name(enum report_unit u)
 {
-    return u == REPORT_UNIT_TICKS ? "ticks" : u == REPORT_UNIT_WATCH ? "samples" : "seconds";
+    return u == REPORT_UNIT_TICKS     ? "ticks"
+           : u == REPORT_UNIT_WATCH   ? "samples"
+           : u == REPORT_UNIT_WINDOWS ? "windows"
+                                      : "seconds";
 }
 
 const char *report_test_name(enum report_test t)
@@ -166,7 +174,10 @@ static void decide(const ctx_t *x, report_cmp_line_t *l, double pct, best_fn bes
 {
     const report_cmp_opts_t *o = x->o;
     double change = l->new_med - l->base_med;
-    double floor_abs = pct < 0 ? o->min_abs_err : pct > 50 ? o->min_tail_ms : o->min_abs_ms;
+    double floor_abs = l->unit == REPORT_UNIT_WINDOWS ? CMP_SYNC_MIN_CHANGE
+                       : pct < 0                      ? o->min_abs_err
+                       : pct > 50                     ? o->min_tail_ms
+                                                      : o->min_abs_ms;
     double q = pct < 0 ? 50 : pct;
     if (best(l->n_base, l->n_new, q) >= o->false_alarm) {
         l->verdict = REPORT_UNTESTED;
@@ -221,6 +232,28 @@ static int gather(ctx_t *x, const char *tick_key, enum cmp_col col)
     return 0;
 }
 
+/* The Mann-Whitney U test of NEW's samples x->v[1] against BASE's x->v[0] into l, their medians
+ * and the line's verdict. */
+static int mw_test(ctx_t *x, report_cmp_line_t *l, double pct)
+{
+    report_mw_t mw;
+    int rc = report_mann_whitney(x->v[1].v, x->v[1].n, x->v[0].v, x->v[0].n, &mw);
+    if (rc)
+        return rc;
+    l->n_base = l->recorded_base = x->v[0].n;
+    l->n_new = l->recorded_new = x->v[1].n;
+    l->stat = mw.u;
+    l->z = mw.z;
+    l->p = mw.p;
+    l->test = !l->n_base || !l->n_new ? REPORT_TEST_NONE
+              : mw.exact              ? REPORT_TEST_MW_EXACT
+                                      : REPORT_TEST_MW_NORMAL;
+    l->base_med = median(x->v[0].v, x->v[0].n);
+    l->new_med = median(x->v[1].v, x->v[1].n);
+    decide(x, l, pct, mw_best);
+    return 0;
+}
+
 /* Per-second or per-tick samples of one metric, and the Mann-Whitney U test of NEW vs BASE. */
 static int mw_line(ctx_t *x, const spec_t *sp, enum report_unit unit)
 {
@@ -233,22 +266,8 @@ static int mw_line(ctx_t *x, const spec_t *sp, enum report_unit unit)
     enum cmp_col col = fallback ? CMP_MAX : sp->col;
     l->unit = ticks ? REPORT_UNIT_TICKS : REPORT_UNIT_SECONDS;
     l->tested_on = ticks ? sp->tick_column : cols[col];
-    report_mw_t mw;
     int rc = gather(x, ticks ? sp->tick_key : NULL, col);
-    if (rc || (rc = report_mann_whitney(x->v[1].v, x->v[1].n, x->v[0].v, x->v[0].n, &mw)))
-        return rc;
-    l->n_base = l->recorded_base = x->v[0].n;
-    l->n_new = l->recorded_new = x->v[1].n;
-    l->stat = mw.u;
-    l->z = mw.z;
-    l->p = mw.p;
-    l->test = !l->n_base || !l->n_new ? REPORT_TEST_NONE
-              : mw.exact              ? REPORT_TEST_MW_EXACT
-                                      : REPORT_TEST_MW_NORMAL;
-    l->base_med = median(x->v[0].v, x->v[0].n);
-    l->new_med = median(x->v[1].v, x->v[1].n);
-    decide(x, l, sp->pct, mw_best);
-    return 0;
+    return rc ? rc : mw_test(x, l, sp->pct);
 }
 
 /* The divisor of a watch histogram's counts: values that share one cause count once. Each write
@@ -303,6 +322,26 @@ static int watch_line(ctx_t *x, const spec_t *sp)
     return 0;
 }
 
+/* The synchronisation line of a fleet action: the whole windows' R̄ of both runs, their medians
+ * as the line's values. */
+static int sync_line(ctx_t *x)
+{
+    report_cmp_line_t *l = new_line(x, &sync_spec, REPORT_UNIT_WINDOWS);
+    if (!l)
+        return SQ_ENOMEM;
+    l->tested_on = "sync.windows.r_bar";
+    for (int k = 0; k < 2; k++) {
+        x->v[k].n = 0;
+        int rc = x->present[k] ? cmp_sync_windows(x->run[k].res, x->phase, x->cls, &x->v[k]) : 0;
+        if (rc)
+            return rc;
+    }
+    int rc = mw_test(x, l, sync_spec.pct);
+    l->base = l->base_med;
+    l->new_value = l->new_med;
+    return rc;
+}
+
 /* True when (phase, cls) has any answered cell in r. */
 static bool present(const results_t *r, const char *phase, const char *cls)
 {
@@ -337,7 +376,14 @@ static int compare_pair(ctx_t *x, const char *phase, const char *cls)
     enum report_unit unit = per_tick ? REPORT_UNIT_TICKS : REPORT_UNIT_SECONDS;
     for (size_t i = 0; rc == 0 && i < N_SPECS(request_specs); i++)
         rc = mw_line(x, &request_specs[i], unit);
-    return rc;
+    bool gauged = false;
+    for (int k = 0; k < 2; k++) {
+        x->v[k].n = 0;
+        if (rc == 0 && x->present[k])
+            rc = cmp_sync_windows(x->run[k].res, phase, cls, &x->v[k]);
+        gauged |= x->v[k].n > 0;
+    }
+    return rc == 0 && gauged ? sync_line(x) : rc;
 }
 
 /* True when an answered cell of (phase, class) comes before index upto in r. */

@@ -21,6 +21,9 @@ typedef struct {
 /* Per-second columns of series.csv the tests use. */
 enum cmp_col { CMP_P50, CMP_P99, CMP_P999, CMP_MAX, CMP_ERRORS };
 
+/* The smallest change of a fleet action's R̄ that counts (compare.c explains it). */
+#define CMP_SYNC_MIN_CHANGE 0.05
+
 /* Growable scratch for samples. */
 typedef struct {
     double *v;
@@ -40,6 +43,9 @@ int cmp_seconds(const report_series_t *s, const char *phase, const char *cls, en
  * in phase. SQ_ENOMEM. */
 int cmp_ticks(const results_t *r, const char *phase, const char *cls, const char *key,
               cmp_vec_t *out);
+/* R̄ of every whole window (not partial) of the fleet action cls in phase, from the "sync"
+ * section. SQ_ENOMEM. */
+int cmp_sync_windows(const results_t *r, const char *phase, const char *cls, cmp_vec_t *out);
 /* Ticks recorded for cls in phase (0 when it was no fleet action there). */
 size_t cmp_tick_count(const results_t *r, const char *phase, const char *cls);
 /* True when cls is a watch class in phase (the "watches" section, or an open histogram). */

@@ -15,7 +15,8 @@
     "Mann-Whitney U (Mann & Whitney 1947), two-sided: the exact null distribution when a side "    \
     "has at most 8 samples and none is tied, else the normal approximation with tie and "          \
     "continuity corrections; over series.csv's per-second values, or a fleet phase's per-tick "    \
-    "values (the storms section)"
+    "values (the storms section), or a fleet action's R-bar per whole window of one period (the "  \
+    "sync section: more or less synchronised, a change of at least 0.05 counts)"
 #define METHOD_QT                                                                                  \
     "the quantile test (Mood's median test at the line's percentile, with Fisher's exact test) "   \
     "over a watch class's recorded values, counted as at most one sample per stream (a write "     \
@@ -57,14 +58,27 @@ void cmp_change_text(bool rate, double base, double d, char *buf, size_t cap)
         snprintf(buf, cap, "%+.2f ms", d);
 }
 
+/* A synchronisation line's values are R̄, without a unit. */
+static bool is_sync(const report_cmp_line_t *l)
+{
+    return l->unit == REPORT_UNIT_WINDOWS;
+}
+
 static void value(const report_cmp_line_t *l, double v, char *buf, size_t cap)
 {
-    cmp_value_text(is_err(l), v, buf, cap);
+    if (is_sync(l) && !isnan(v))
+        snprintf(buf, cap, "%.3f", v);
+    else
+        cmp_value_text(is_err(l), v, buf, cap);
 }
 
 static void change(const report_cmp_line_t *l, char *buf, size_t cap)
 {
-    cmp_change_text(is_err(l), l->base, l->new_value - l->base, buf, cap);
+    double d = l->new_value - l->base;
+    if (is_sync(l) && !isnan(d))
+        snprintf(buf, cap, "%+.3f", d);
+    else
+        cmp_change_text(is_err(l), l->base, d, buf, cap);
 }
 
 static void samples_text(const report_cmp_line_t *l, char *buf, size_t cap)
@@ -135,12 +149,12 @@ void report_cmp_print(const report_cmp_t *c, out_t *o)
         out_print(o, "(out of memory while laying out the comparison)\n");
     table_free(t);
     out_print(o,
-              "\n%zu worse (slower or more errors), %zu better, %zu within noise, %zu untested; "
-              "the chance of a false alarm is the level chosen, per line\n",
+              "\n%zu worse (slower, more errors or more synchronised), %zu better, %zu within "
+              "noise, %zu untested; the chance of a false alarm is the level chosen, per line\n",
               count[REPORT_WORSE], count[REPORT_BETTER], count[REPORT_WITHIN_NOISE],
               count[REPORT_UNTESTED]);
     if (used[REPORT_TEST_MW_EXACT] || used[REPORT_TEST_MW_NORMAL])
-        out_print(o, "seconds, ticks: %s\n", METHOD_MW);
+        out_print(o, "seconds, ticks, windows: %s\n", METHOD_MW);
     if (used[REPORT_TEST_QUANTILE])
         out_print(o, "samples: %s\n", METHOD_QT);
 }

@@ -72,6 +72,28 @@ static int push(cmp_vec_t *v, double x)
     return 0;
 }
 
+int cmp_sync_windows(const results_t *r, const char *phase, const char *cls, cmp_vec_t *out)
+{
+    json_t *acts = json_object_get(json_object_get(results_section(r, "sync"), phase), "actions");
+    json_t *a, *w;
+    size_t i, k;
+    json_array_foreach(acts, i, a)
+    {
+        const char *c = json_string_value(json_object_get(a, "class"));
+        if (!c || strcmp(c, cls))
+            continue;
+        json_array_foreach(json_object_get(a, "windows"), k, w)
+        {
+            if (json_is_true(json_object_get(w, "partial")))
+                continue;
+            int rc = push(out, json_number_value(json_object_get(w, "r_bar")));
+            if (rc)
+                return rc;
+        }
+    }
+    return 0;
+}
+
 static double column(const report_row_t *r, enum cmp_col col)
 {
     switch (col) {

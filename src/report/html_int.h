@@ -138,6 +138,8 @@ void html_metrics(FILE *f, const results_t *res, const report_series_t *s);
 void html_actions(FILE *f, const results_t *res);
 /* html_storms.c: the "storms" section's ticks, when a fleet phase ran. */
 void html_storms(FILE *f, const results_t *res);
+/* html_sync.c: the "sync" section's R̄ per window of each fleet action, when a fleet ran. */
+void html_sync(FILE *f, const results_t *res);
 void html_plots_time(FILE *f, const results_t *res, const report_series_t *s);
 /* html_tails.c: per phase, the share of requests slower than x; per class, the latency heat
  * map over time (series-hist.csv's bins). */

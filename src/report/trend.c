@@ -136,7 +136,7 @@ static double mean_of(const double *x, size_t a, size_t b)
 /* The change points of one series and their size, confidence and significance. The noise is
  * at least half the floor, so that a series steadier than the machine's resolution is not
  * split on differences too small to ever count. */
-static int find_changes(trend_series_t *s, size_t n, int m, const report_cmp_opts_t *o)
+static int find_changes(trend_series_t *s, size_t n, double floor, const report_cmp_opts_t *o)
 {
     double *x = malloc((n + 1) * sizeof(*x));
     size_t *idx = malloc((n + 1) * sizeof(*idx)), *st = malloc((n + 1) * sizeof(*st));
@@ -149,7 +149,7 @@ static int find_changes(trend_series_t *s, size_t n, int m, const report_cmp_opt
             idx[k] = i;
             x[k++] = s->values[i];
         }
-    s->sigma = trend_sigma(x, k, abs_floor(o, m) / 2);
+    s->sigma = trend_sigma(x, k, floor / 2);
     if ((rc = trend_pelt(x, k, s->sigma, trend_penalty(k), TREND_MIN_SEGMENT, st, &ns)) || ns == 0)
         goto out;
     rc = SQ_ENOMEM;
@@ -168,7 +168,7 @@ static int find_changes(trend_series_t *s, size_t n, int m, const report_cmp_opt
         double d = fabs(ch->after - ch->before);
         ch->worse = ch->after > ch->before;
         ch->significant =
-            mw.p < o->false_alarm && d > abs_floor(o, m) && d > o->min_rel * fabs(ch->before);
+            mw.p < o->false_alarm && d > floor && d > o->min_rel * fabs(ch->before);
     }
     s->n_changes = ns;
     rc = 0;
@@ -207,6 +207,81 @@ static int add_key(trend_t *t, trend_group_t *g, const char *phase, const char *
     return 0;
 }
 
+/* A run's largest R̄ over the whole windows of fleet action cls in phase; NaN when none. */
+static double sync_max(const results_t *r, const char *phase, const char *cls)
+{
+    cmp_vec_t v = {0};
+    double m = NAN;
+    if (cmp_sync_windows(r, phase, cls, &v) == 0)
+        for (size_t i = 0; i < v.n; i++)
+            m = isnan(m) || v.v[i] > m ? v.v[i] : m;
+    free(v.v);
+    return m;
+}
+
+/* The tightest max-sync bound on (phase, cls) in the judgement section; NaN none. */
+static double sync_bound(const results_t *r, const char *cls)
+{
+    const json_t *o;
+    double best = NAN;
+    size_t i;
+    json_array_foreach(json_object_get(results_section(r, "judgement"), "objectives"), i, o)
+    {
+        const char *oc = json_string_value(json_object_get(o, "class"));
+        const char *limit = json_string_value(json_object_get(o, "limit"));
+        double v = json_number_value(json_object_get(o, "value"));
+        if (oc && limit && !strcmp(limit, "max-sync") && (!strcmp(oc, "*") || !strcmp(oc, cls)) &&
+            (isnan(best) || v < best))
+            best = v;
+    }
+    return best;
+}
+
+/* One "sync_max" series per fleet action any run of the group gauged ("sync" section): the
+ * largest R̄ of a whole window per run, with change points like a latency's (floor
+ * CMP_SYNC_MIN_CHANGE). */
+static int fill_sync(trend_t *t, trend_group_t *g, results_t *const *res)
+{
+    for (size_t r = 0; r < g->n_runs; r++) {
+        const char *phase;
+        json_t *ph, *a;
+        json_object_foreach(results_section(res[r], "sync"), phase, ph)
+        {
+            size_t i;
+            json_array_foreach(json_object_get(ph, "actions"), i, a)
+            {
+                const char *cls = json_string_value(json_object_get(a, "class"));
+                size_t k = 0;
+                while (cls && k < g->n_sync &&
+                       (strcmp(g->sync[k].phase, phase) || strcmp(g->sync[k].cls, cls)))
+                    k++;
+                if (!cls || k < g->n_sync)
+                    continue;
+                trend_series_t *v = realloc(g->sync, (g->n_sync + 1) * sizeof(*v));
+                if (!v)
+                    return SQ_ENOMEM;
+                g->sync = v;
+                trend_series_t *s = &g->sync[g->n_sync++];
+                *s = (trend_series_t){.phase = keep(t, phase), .cls = keep(t, cls),
+                                      .metric = "sync_max", .objective = NAN};
+                s->values = malloc(g->n_runs * sizeof(double));
+                if (!s->values || !s->phase || !s->cls)
+                    return SQ_ENOMEM;
+            }
+        }
+    }
+    for (size_t k = 0; k < g->n_sync; k++) {
+        trend_series_t *s = &g->sync[k];
+        for (size_t r = 0; r < g->n_runs; r++)
+            s->values[r] = sync_max(res[r], s->phase, s->cls);
+        s->objective = sync_bound(res[g->n_runs - 1], s->cls);
+        int rc = find_changes(s, g->n_runs, CMP_SYNC_MIN_CHANGE, &t->opts);
+        if (rc)
+            return rc;
+    }
+    return 0;
+}
+
 /* Fills a group's series from its runs (res in start order). */
 static int fill_group(trend_t *t, trend_group_t *g, results_t *const *res)
 {
@@ -230,12 +305,12 @@ static int fill_group(trend_t *t, trend_group_t *g, results_t *const *res)
         }
         for (int m = 0; m < N_METRICS; m++) {
             s[m].objective = objective_of(res[g->n_runs - 1], s->phase, s->cls, m);
-            int rc = find_changes(&s[m], g->n_runs, m, &t->opts);
+            int rc = find_changes(&s[m], g->n_runs, abs_floor(&t->opts, m), &t->opts);
             if (rc)
                 return rc;
         }
     }
-    return 0;
+    return fill_sync(t, g, res);
 }
 
 typedef struct {
@@ -323,7 +398,12 @@ void trend_free(trend_t *t)
             free(t->groups[g].series[i].values);
             free(t->groups[g].series[i].changes);
         }
+        for (size_t i = 0; i < t->groups[g].n_sync; i++) {
+            free(t->groups[g].sync[i].values);
+            free(t->groups[g].sync[i].changes);
+        }
         free(t->groups[g].series);
+        free(t->groups[g].sync);
         free(t->groups[g].dirs);
         free(t->groups[g].start_ms);
     }
@@ -346,12 +426,15 @@ const trend_group_t *trend_group_at(const trend_t *t, size_t i)
 
 bool trend_newest_worse(const trend_t *t)
 {
-    for (size_t g = 0; g < t->n_groups; g++)
-        for (size_t i = 0; i < t->groups[g].n_series; i++) {
-            const trend_series_t *s = &t->groups[g].series[i];
+    for (size_t g = 0; g < t->n_groups; g++) {
+        const trend_group_t *gr = &t->groups[g];
+        for (size_t i = 0; i < gr->n_series + gr->n_sync; i++) {
+            const trend_series_t *s =
+                i < gr->n_series ? &gr->series[i] : &gr->sync[i - gr->n_series];
             if (s->n_changes && s->changes[s->n_changes - 1].significant &&
                 s->changes[s->n_changes - 1].worse)
                 return true;
         }
+    }
     return false;
 }

@@ -21,20 +21,34 @@ static bool is_rate(const trend_series_t *s)
     return strcmp(s->metric, "error_rate") == 0;
 }
 
+/* A fleet action's largest R̄ per run: no unit. */
+static bool is_sync(const trend_series_t *s)
+{
+    return strcmp(s->metric, "sync_max") == 0;
+}
+
 static void value_text(const trend_series_t *s, double v, char *buf, size_t cap)
 {
-    cmp_value_text(is_rate(s), v, buf, cap);
+    if (is_sync(s) && !isnan(v))
+        snprintf(buf, cap, "%.3f", v);
+    else
+        cmp_value_text(is_rate(s), v, buf, cap);
 }
 
 static void size_text(const trend_series_t *s, const trend_change_t *c, char *buf, size_t cap)
 {
-    cmp_change_text(is_rate(s), c->before, c->after - c->before, buf, cap);
+    if (is_sync(s))
+        snprintf(buf, cap, "%+.3f", c->after - c->before);
+    else
+        cmp_change_text(is_rate(s), c->before, c->after - c->before, buf, cap);
 }
 
 static const char *change_word(const trend_series_t *s, const trend_change_t *c)
 {
     if (!c->significant)
         return "not significant";
+    if (is_sync(s))
+        return c->worse ? "more synchronised" : "less synchronised";
     return is_rate(s) ? (c->worse ? "more errors" : "fewer errors")
                       : (c->worse ? "slower" : "faster");
 }
@@ -57,8 +71,8 @@ static void print_group(const trend_group_t *g, size_t gi, out_t *o)
         out_print(o, "  run %zu: %s\n", r + 1, g->dirs[r]);
     out_print(o, "%-12s %-16s %-10s %10s %10s  %s\n", "phase", "class", "metric", "first", "last",
               "changes (first run after; size; confidence)");
-    for (size_t i = 0; i < g->n_series; i++) {
-        const trend_series_t *s = &g->series[i];
+    for (size_t i = 0; i < g->n_series + g->n_sync; i++) {
+        const trend_series_t *s = i < g->n_series ? &g->series[i] : &g->sync[i - g->n_series];
         char a[32], b[32];
         double first = NAN;
         for (size_t r = 0; r < g->n_runs && isnan(first); r++)
@@ -109,7 +123,8 @@ static json_t *series_json(const trend_series_t *s, size_t n)
                           1 - x->p, "significant", x->significant, "verdict", change_word(s, x)));
     }
     return json_pack("{s:s, s:s, s:s, s:s, s:o, s:o, s:o, s:o}", "phase", s->phase, "class", s->cls,
-                     "metric", s->metric, "unit", is_rate(s) ? "fraction" : "ms", "objective",
+                     "metric", s->metric, "unit",
+                     is_sync(s) ? "r_bar" : is_rate(s) ? "fraction" : "ms", "objective",
                      num(s->objective), "sigma", num(s->sigma), "values", vals, "changes", ch);
 }
 
@@ -122,6 +137,8 @@ static json_t *group_json(const trend_group_t *g)
                                         g->dirs[r], "start_unix_ms", (json_int_t)g->start_ms[r]));
     for (size_t i = 0; i < g->n_series; i++)
         json_array_append_new(series, series_json(&g->series[i], g->n_runs));
+    for (size_t i = 0; i < g->n_sync; i++)
+        json_array_append_new(series, series_json(&g->sync[i], g->n_runs));
     return json_pack("{s:s, s:s, s:s, s:s, s:f, s:o, s:o}", "plan", g->plan, "plan_sha256",
                      g->plan_sha256, "overrides", g->overrides, "squall_version", g->version,
                      "penalty", trend_penalty(g->n_runs), "runs", runs, "series", series);
@@ -189,14 +206,49 @@ static void plot_key(FILE *f, const trend_group_t *g, const trend_series_t *s)
     free(x);
 }
 
+/* One plot of a fleet action's sync_max over the runs on a 0..1 axis, its max-sync bound as a
+ * dashed line, its changes marked. */
+static void plot_sync(FILE *f, const trend_group_t *g, const trend_series_t *s)
+{
+    size_t n = g->n_runs, nm = 0;
+    double *x = calloc(n, sizeof(*x)), ox[2] = {1, (double)n}, oy[2] = {s->objective, s->objective};
+    html_mark_t marks[64];
+    if (!x)
+        return;
+    for (size_t r = 0; r < n; r++)
+        x[r] = (double)r + 1;
+    for (size_t c = 0; c < s->n_changes && nm < 64; c++)
+        marks[nm++] = (html_mark_t){.x = (double)s->changes[c].first + 0.5,
+                                    .label = !s->changes[c].significant ? "sync?"
+                                             : s->changes[c].worse      ? "sync up"
+                                                                        : "sync down"};
+    html_line_t lines[2] = {
+        {.x = x, .y = s->values, .n = n, .label = "largest R\xcc\x84 of a whole window"},
+        {.x = ox, .y = oy, .n = 2, .label = "max-sync", .style = 1, .dash = 1},
+    };
+    html_level_t one = {.y = 1, .label = "all at one instant", .style = -1};
+    char title[256];
+    snprintf(title, sizeof title, "%s / %s: synchronisation", s->phase, s->cls);
+    html_plot_t p = {.title = title,
+                     .xlabel = "run (in start order)",
+                     .ylabel = "R\xcc\x84 (0 spread, 1 all at once)",
+                     .yzero = true,
+                     .levels = &one,
+                     .n_levels = 1};
+    fputs("<figure>", f);
+    html_plot(f, &p, lines, isnan(s->objective) ? 1 : 2, marks, nm);
+    fputs("</figure>\n", f);
+    free(x);
+}
+
 static void change_rows(FILE *f, const trend_group_t *g)
 {
     fputs("<table><tr><th>phase</th><th>class</th><th>metric</th><th>first run after</th>"
           "<th class=\"n\">before</th><th class=\"n\">after</th><th class=\"n\">size</th>"
           "<th class=\"n\">confidence</th><th>verdict</th></tr>\n",
           f);
-    for (size_t i = 0; i < g->n_series; i++) {
-        const trend_series_t *s = &g->series[i];
+    for (size_t i = 0; i < g->n_series + g->n_sync; i++) {
+        const trend_series_t *s = i < g->n_series ? &g->series[i] : &g->sync[i - g->n_series];
         for (size_t c = 0; c < s->n_changes; c++) {
             const trend_change_t *x = &s->changes[c];
             char a[32], b[32], sz[48];
@@ -242,6 +294,8 @@ static void group_section(FILE *f, const trend_group_t *g, size_t gi)
     change_rows(f, g);
     for (size_t i = 0; i + 4 <= g->n_series; i += 4)
         plot_key(f, g, &g->series[i]);
+    for (size_t i = 0; i < g->n_sync; i++)
+        plot_sync(f, g, &g->sync[i]);
     fputs("</section>\n", f);
 }
 

@@ -53,5 +53,9 @@ bool results_first_phase_ms(const results_input_t *in, size_t n, const char *nam
 /* The "storms" sections of n inputs combined per tick instant (results_storms.c); a new
  * reference, NULL when no input has one or out of memory (*rc says which). */
 json_t *results_merge_storms(const results_input_t *in, size_t n, int *rc);
+/* The "sync" sections of n inputs combined window by window (results_sync.c), window starts in
+ * seconds from merge_start_ms; a new reference, NULL when no input has one or on error (*rc:
+ * SQ_ENOMEM, SQ_EMISMATCH when inputs disagree on an action's period). */
+json_t *results_merge_sync(const results_input_t *in, size_t n, int64_t merge_start_ms, int *rc);
 
 #endif

@@ -373,6 +373,11 @@ int results_merge_finish(results_t *dst, out_t *o)
         rc = rc ? rc : put(dst, "lifecycle", lifecycle_json(in, n), in, n);
         json_t *storms = rc ? NULL : results_merge_storms(in, n, &storms_rc);
         rc = rc ? rc : storms_rc ? storms_rc : put(dst, "storms", storms, in, n);
+        int sync_rc = 0;
+        json_t *sync = rc ? NULL : results_merge_sync(in, n, start, &sync_rc);
+        if (sync_rc == SQ_EMISMATCH)
+            out_error(o, "the inputs' \"sync\" sections give one fleet action different periods");
+        rc = rc ? rc : sync_rc ? sync_rc : put(dst, "sync", sync, in, n);
         /* The merge is judged again from its own figures: the inputs' verdicts stay in their
          * entries. */
         json_object_del(dst->sections, "objectives");

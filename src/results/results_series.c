@@ -39,6 +39,8 @@ typedef struct {
     int64_t input_second;
     double v[C__COUNT]; /* numbers by column (phase and class unused) */
     char *hist;         /* the row's response histogram (sqh1 text), or NULL */
+    char *sync;         /* its RESULTS_SERIES_SYNC cells as written, or NULL (a merged row of
+                           several inputs has none: R̄ does not add) */
 } row_t;
 
 typedef struct {
@@ -158,16 +160,44 @@ static int add_row(series_t *s, row_t *r)
     return 0;
 }
 
+/* The column of the first sync cell ("sync_window") in a header, or -1 (an older squall's). */
+static int sync_column(const char *header_line)
+{
+    char *copy = strdup(header_line), *f[64];
+    int at = -1;
+    size_t nf = copy ? split(copy, f, 64) : 0;
+    for (size_t k = 0; k < nf && at < 0; k++)
+        if (!strcmp(f[k], "sync_window"))
+            at = (int)k;
+    free(copy);
+    return at;
+}
+
+/* A row's five sync cells joined as written, or NULL when the row has none. */
+static char *sync_text(char **f, size_t nf, int at)
+{
+    if (at < 0 || (size_t)at + 5 > nf)
+        return NULL;
+    size_t len = 5;
+    for (int k = 0; k < 5; k++)
+        len += strlen(f[at + k]);
+    char *t = malloc(len);
+    if (t)
+        snprintf(t, len, "%s,%s,%s,%s,%s", f[at], f[at + 1], f[at + 2], f[at + 3], f[at + 4]);
+    return t;
+}
+
 /* Every row of one input's series.csv (and its histograms) into s. */
 static int read_input(series_t *s, FILE *f, FILE *hf, const char *path)
 {
     char *line = NULL, *pending = NULL;
     size_t cap = 0, pcap = 0;
-    int idx[C__COUNT], rc = 0;
+    int idx[C__COUNT], rc = 0, sync_at = -1;
     if (getline(&line, &cap, f) < 0) {
         out_error(s->o, "%s: empty file (expected a header line)", path);
         rc = SQ_EPARSE;
     } else {
+        sync_at = sync_column(line);
         rc = header(line, idx, path, s->o);
     }
     if (hf && getline(&pending, &pcap, hf) >= 0)
@@ -187,9 +217,12 @@ static int read_input(series_t *s, FILE *f, FILE *hf, const char *path)
         r.second = llround((r.v[C_UNIX] - (double)s->start_ms) / 1e3);
         r.hist = hist_for(hf, &pending, &pcap, fields[idx[C_SECOND]], fields[idx[C_PHASE]],
                           fields[idx[C_CLASS]]);
+        r.sync = sync_text(fields, nf, sync_at);
         rc = r.key == SIZE_MAX ? SQ_ENOMEM : add_row(s, &r);
-        if (rc)
+        if (rc) {
             free(r.hist);
+            free(r.sync);
+        }
     }
     free(line);
     free(pending);
@@ -237,6 +270,10 @@ static int combine(row_t *g, size_t n)
         free(g[i].hist);
         g[i].hist = NULL;
     }
+    for (size_t i = 0; i < n; i++) {
+        free(g[i].sync);
+        g[i].sync = NULL;
+    }
     static const struct {
         int col;
         double p; /* 100: the maximum */
@@ -270,8 +307,8 @@ static int group(series_t *s, size_t *out, size_t *unknown)
         *unknown += (size_t)rc;
         row_t r = s->rows[i];
         for (size_t k = i + 1; k < j; k++)
-            s->rows[k].hist = NULL;
-        s->rows[i].hist = NULL;
+            s->rows[k].hist = s->rows[k].sync = NULL;
+        s->rows[i].hist = s->rows[i].sync = NULL;
         s->rows[w++] = r;
         i = j;
     }
@@ -287,11 +324,14 @@ static int fill_series(FILE *f, void *ctx)
         const row_t *r = &s->rows[i];
         const char *phase = s->keys[r->key], *cls = phase + strlen(phase) + 1;
         const double *v = r->v;
-        /* marks: a merge does not carry them (each input's results.json has its instants). */
-        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,\n",
+        /* marks: a merge does not carry them (each input's results.json has its instants); the
+         * sync cells only from a row of one input (results.json's "sync" section has the merged
+         * gauge). */
+        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,,%s\n",
                 (long long)r->second, phase, cls, (long long)v[C_STARTED],
                 (long long)v[C_COMPLETED], v[C_RATE], (long long)v[C_ERRORS], v[C_P50], v[C_P90],
-                v[C_P99], v[C_MAX], v[C_PLANNED], (long long)v[C_UNIX], v[C_P999]);
+                v[C_P99], v[C_MAX], v[C_PLANNED], (long long)v[C_UNIX], v[C_P999],
+                r->sync ? r->sync : ",,,,");
     }
     return ferror(f) ? SQ_EIO : 0;
 }
@@ -341,8 +381,10 @@ static int read_all(series_t *s, const char *const *dirs, size_t n, bool *comple
 
 static void series_close(series_t *s)
 {
-    for (size_t i = 0; i < s->n; i++)
+    for (size_t i = 0; i < s->n; i++) {
         free(s->rows[i].hist);
+        free(s->rows[i].sync);
+    }
     for (size_t i = 0; i < s->n_keys; i++)
         free(s->keys[i]);
     free(s->rows);

@@ -343,6 +343,7 @@ static void on_done(void *user, const eng_result_t *res)
         .cls = q->cls,
         .first = q->pages == 0,
         .agent = q->agent,
+        .source = q->from->ops->name,
         .path = object_path(q, obj, sizeof obj),
         .intended_ns = q->pages == 0 ? q->first_intended_ns : res->submitted_ns,
         .bytes_in = res->bytes_in,

@@ -48,6 +48,17 @@ void sync_acc_add(sync_acc_t *a, int64_t t_ns)
     a->n++;
 }
 
+void sync_acc_merge(sync_acc_t *into, const sync_acc_t *from)
+{
+    add_compensated(&into->cos_sum, &into->cos_err, from->cos_sum);
+    add_compensated(&into->cos_sum, &into->cos_err, from->cos_err);
+    add_compensated(&into->sin_sum, &into->sin_err, from->sin_sum);
+    add_compensated(&into->sin_sum, &into->sin_err, from->sin_err);
+    for (int i = 0; i < SYNC_BINS; i++)
+        into->bins[i] += from->bins[i];
+    into->n += from->n;
+}
+
 double sync_rayleigh_p(uint64_t n, double r_bar)
 {
     if (n < 2)

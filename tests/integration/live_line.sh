@@ -5,6 +5,7 @@
 #   - fixed-width columns: the first column separator sits at the same place on every line,
 #     whatever the phase's name (padded to the plan's longest, `reconnect-storm`);
 #   - a fleet phase says which tick of how many and what the last tick did (its agents' count),
+#     and the synchronisation gauge (R-bar of the last closed window of one period, 4 wide),
 #     never "sent 0/s"; a second with no completion shows "–", never 0.0 ms;
 #   - errors this second and in all: "in all" is the running sum, and ends at the target's count
 #     of 404 answers;
@@ -73,6 +74,13 @@ got = sorted({(int(m[1]), int(m[2]), int(m[3])) for m in ticks if m})
 expect(got == [(1, 2, 50), (2, 2, 50)],
        f"the fleet phase names its 2 ticks of 50 agents each (4 s / every 2 s): {got}")
 expect(not any("| sent " in l for l in storm), "no 'sent N/s of M/s' in the fleet phase")
+# The synchronisation gauge of the fleet's renewals: R-bar of the last closed 2 s window, four
+# columns ("–" until one closes). One aligned tick of 50 agents per window: R-bar near 1.
+gauge = [re.search(r"; sync R\u0304 ( {3}–|\d\.\d\d) \|", l) for l in storm if " tick " in l]
+vals = [m[1].strip() for m in gauge if m]
+expect(gauge and all(gauge) and any(v != "–" for v in vals)
+       and all(float(v) >= 0.9 for v in vals if v != "–"),
+       f"the fleet phase's lines end their traffic with the last window's R-bar, 4 wide: {vals}")
 quiet = [l for l in live if re.search(r"done +0/s", l)]
 expect(quiet and all(re.search(r"p50 +– p99 +– ", l) for l in quiet),
        f"{len(quiet)} seconds without a completion show '–' for p50 and p99")

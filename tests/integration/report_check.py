@@ -250,11 +250,11 @@ if mode == "plain":
           len(verdicts) == len(res["sections"]["objectives"]["checks"]), len(verdicts))
     check("objective table shows FAIL for error-rate checks",
           any(v[0].endswith("FAIL") and v[3].startswith("error rate") for v in verdicts))
-    for s in ("watches", "storms", "propagation", "watch-open"):
+    for s in ("watches", "storms", "propagation", "watch-open", "sync"):
         check("the plain report has no section #%s" % s, s not in p.ids, p.ids)
     check("no drop marks on a run without watches", all(s["drops"] == 0 for s in p.svgs))
 else:
-    for s in ("watches", "storms", "propagation", "watch-open"):
+    for s in ("watches", "storms", "propagation", "watch-open", "sync"):
         check("section #%s is present" % s, s in p.ids, p.ids)
     check("this run had generator-bound seconds (%d) to show" % gs, gs >= 1)
     drops = sum(len(ph["reconnect_log"]["ended_ns"]) for ph in res["sections"]["watches"].values())
@@ -272,6 +272,15 @@ else:
               s["series"] in (["dispatch spread (first to last write)", "burst (first write to last answer)"],
                               ["tick's response p99", "tick's response p50"]) for s in st),
           [s["series"] for s in st])
+    sy = [s for s in p.svgs if s["section"] == "sync"]
+    n_sync = sum(len(ph.get("actions", [])) for ph in res["sections"]["sync"].values())
+    # Marks: the two phase starts and the drop-watches action at least (html_phase_marks).
+    check("synchronisation: one R-bar plot per fleet action (%d), the 'all at one instant' line "
+          "at 1, phases and the drop-watches action marked" % n_sync,
+          len(sy) == n_sync == 2 and all(
+              s["series"][0] == "R\u0304 of a whole window" and s["levels"] >= 1
+              and len(s["marks"]) >= 3 for s in sy),
+          [(s["series"], s["levels"], len(s["marks"])) for s in sy])
     prop = [s for s in p.svgs if s["section"] == "propagation"]
     check("propagation: slower-than-x per phase with watches, the objective marked",
           prop and all(s["series"] == ["follow"] for s in prop) and any(s["levels"] for s in prop),
