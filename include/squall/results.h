@@ -34,7 +34,16 @@
 #define RESULTS_SERIES_FILE "series.csv"
 #define RESULTS_SERIES_HEADER                                                                      \
     "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
-    "unix_ms,p999_ms,marks"
+    "unix_ms,p999_ms,marks," RESULTS_SERIES_RUN_COLUMNS
+/* The whole run's figures of the second (every phase and class), the same on every row of the
+ * second (so never add them across a second's rows): watch streams open at its end, dropped,
+ * reconnects sent and events received in it, the p99 of its stamped events' propagation ("nan"
+ * when none was stamped), and the main engine's longest admission-queue wait and peaks of in
+ * flight and queued. A merge writes the p99 and the peaks under the _upper names: the largest
+ * shard's p99 and the shards' peaks added are upper bounds of the pooled figures. */
+#define RESULTS_SERIES_RUN_COLUMNS                                                                 \
+    "run_watch_open,run_watch_dropped,run_watch_reconnects,run_watch_events,"                      \
+    "run_watch_propagation_p99_ms,run_queue_wait_max_ms,run_in_flight_peak,run_queued_peak"
 #define RESULTS_SERIES_HIST_FILE   "series-hist.csv"
 #define RESULTS_SERIES_HIST_HEADER "second,phase,class,unix_ms,response"
 
@@ -197,7 +206,10 @@ int results_merge_finish(results_t *dst, out_t *o);
  * RESULTS_SERIES_HIST_FILE) combined into dir: rows of the same wall-clock second (unix_ms,
  * to the nearest second of merged's start) and (phase, class) add their counts, rates and
  * planned starts; their percentiles come from the merged histograms, or are written as "nan"
- * when a row of several inputs has no histogram. *written is false (nothing written, a warning
+ * when a row of several inputs has no histogram. The run's figures of a second
+ * (RESULTS_SERIES_RUN_COLUMNS) are combined over the inputs: counts and open streams added, the
+ * longest queue wait the largest, the propagation p99 and the peaks in flight and queued as upper
+ * bounds under their _upper names (results_series.c says how). *written is false (nothing written, a warning
  * on o) when an input has no series.csv. SQ_EIO, SQ_EPARSE (a line on o naming the file),
  * SQ_ENOMEM. */
 int results_series_merge(const char *const *dirs, size_t n, const results_t *merged,

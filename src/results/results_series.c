@@ -26,17 +26,41 @@ enum {
     C_PLANNED,
     C_UNIX,
     C_P999,
+    C__OPTIONAL = C_P999, /* from here on: columns a file may lack (an older squall wrote it) */
+    C_W_OPEN,
+    C_W_DROPPED,
+    C_W_RECONNECTS,
+    C_W_EVENTS,
+    C_W_PROP_P99,
+    C_QUEUE_WAIT,
+    C_IN_FLIGHT,
+    C_QUEUED,
     C__COUNT
 };
 static const char *const col_names[C__COUNT] = {
     "second", "phase",  "class",  "started", "completed", "rate_per_s", "errors",
-    "p50_ms", "p90_ms", "p99_ms", "max_ms",  "planned",   "unix_ms",    "p999_ms"};
+    "p50_ms", "p90_ms", "p99_ms", "max_ms",  "planned",   "unix_ms",    "p999_ms",
+    "run_watch_open", "run_watch_dropped", "run_watch_reconnects", "run_watch_events",
+    "run_watch_propagation_p99_ms", "run_queue_wait_max_ms", "run_in_flight_peak",
+    "run_queued_peak"};
+/* A merge's own names for the run columns it can only bound (a merged file read again finds
+ * them under either name). */
+static const char *const upper_names[C__COUNT] = {
+    [C_W_PROP_P99] = "run_watch_propagation_p99_upper_ms",
+    [C_IN_FLIGHT] = "run_in_flight_peak_upper",
+    [C_QUEUED] = "run_queued_peak_upper"};
+#define MERGED_HEADER                                                                              \
+    "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
+    "unix_ms,p999_ms,marks,run_watch_open,run_watch_dropped,run_watch_reconnects,"                 \
+    "run_watch_events,run_watch_propagation_p99_upper_ms,run_queue_wait_max_ms,"                  \
+    "run_in_flight_peak_upper,run_queued_peak_upper"
 
 /* One row of one input, placed in the merge. */
 typedef struct {
     int64_t second; /* of the merge */
     size_t key;     /* (phase, class) in first-seen order */
     int64_t input_second;
+    size_t input;       /* which of the merged directories */
     double v[C__COUNT]; /* numbers by column (phase and class unused) */
     char *hist;         /* the row's response histogram (sqh1 text), or NULL */
 } row_t;
@@ -47,6 +71,7 @@ typedef struct {
     char **keys; /* "phase\0class" per key, in first-seen order */
     size_t n_keys;
     int64_t start_ms;
+    size_t input; /* the directory being read */
     out_t *o;
 } series_t;
 
@@ -91,9 +116,9 @@ static int header(char *line, int *idx, const char *path, out_t *o)
     for (int c = 0; c < C__COUNT; c++) {
         idx[c] = -1;
         for (size_t k = 0; k < nf; k++)
-            if (!strcmp(f[k], col_names[c]))
+            if (!strcmp(f[k], col_names[c]) || (upper_names[c] && !strcmp(f[k], upper_names[c])))
                 idx[c] = (int)k;
-        if (idx[c] < 0 && c != C_P999) {
+        if (idx[c] < 0 && c < C__OPTIONAL) {
             out_error(o, "%s:1: no column '%s' in the header (needed to merge seconds)", path,
                       col_names[c]);
             return SQ_EPARSE;
@@ -184,6 +209,8 @@ static int read_input(series_t *s, FILE *f, FILE *hf, const char *path)
             break;
         }
         r.key = key_of(s, fields[idx[C_PHASE]], fields[idx[C_CLASS]]);
+        r.input = s->input;
+        r.input_second = (int64_t)r.v[C_SECOND];
         r.second = llround((r.v[C_UNIX] - (double)s->start_ms) / 1e3);
         r.hist = hist_for(hf, &pending, &pcap, fields[idx[C_SECOND]], fields[idx[C_PHASE]],
                           fields[idx[C_CLASS]]);
@@ -255,6 +282,58 @@ static int combine(row_t *g, size_t n)
     return rc ? rc : unknown;
 }
 
+/* The run's figures of one merged second over the rows g[0..n) of every input, into each row:
+ * counts and open streams add up over the inputs (each input's figure taken once, from its
+ * first row of the second), so do the peaks in flight and queued (an upper bound: the shards'
+ * peaks need not coincide); the longest queue wait is the largest; the propagation p99 is the
+ * largest shard's (an upper bound of the pooled p99: no more than 1 % of any shard's events, so
+ * of all of them, lie above it), "nan" when no shard stamped an event. An input without the
+ * columns (an older squall) makes them all unknown. seen has a flag per input, all false. */
+static void combine_run(row_t *g, size_t n, bool *seen)
+{
+    static const int sum[] = {C_W_OPEN, C_W_DROPPED, C_W_RECONNECTS, C_W_EVENTS, C_IN_FLIGHT,
+                              C_QUEUED};
+    static const int max[] = {C_W_PROP_P99, C_QUEUE_WAIT};
+    double v[C__COUNT];
+    bool missing = false;
+    for (size_t k = 0; k < sizeof sum / sizeof sum[0]; k++)
+        v[sum[k]] = 0;
+    for (size_t k = 0; k < sizeof max / sizeof max[0]; k++)
+        v[max[k]] = NAN;
+    for (size_t i = 0; i < n; i++) {
+        if (seen[g[i].input])
+            continue;
+        seen[g[i].input] = true;
+        missing |= isnan(g[i].v[C_W_OPEN]);
+        for (size_t k = 0; k < sizeof sum / sizeof sum[0]; k++)
+            v[sum[k]] += g[i].v[sum[k]];
+        for (size_t k = 0; k < sizeof max / sizeof max[0]; k++)
+            v[max[k]] = fmax(v[max[k]], g[i].v[max[k]]); /* fmax passes over a NaN */
+    }
+    for (size_t i = 0; i < n; i++) {
+        seen[g[i].input] = false;
+        for (int c = C__OPTIONAL + 1; c < C__COUNT; c++)
+            g[i].v[c] = missing ? NAN : v[c];
+    }
+}
+
+/* combine_run over each merged second of the sorted rows. SQ_ENOMEM. */
+static int combine_seconds(series_t *s, size_t n_inputs)
+{
+    bool *seen = calloc(n_inputs ? n_inputs : 1, sizeof(*seen));
+    if (!seen)
+        return SQ_ENOMEM;
+    for (size_t i = 0; i < s->n;) {
+        size_t j = i + 1;
+        while (j < s->n && s->rows[j].second == s->rows[i].second)
+            j++;
+        combine_run(&s->rows[i], j - i, seen);
+        i = j;
+    }
+    free(seen);
+    return 0;
+}
+
 /* Groups the sorted rows in place: s->rows[0..*n) are the merged rows. */
 static int group(series_t *s, size_t *out, size_t *unknown)
 {
@@ -282,16 +361,20 @@ static int group(series_t *s, size_t *out, size_t *unknown)
 static int fill_series(FILE *f, void *ctx)
 {
     const series_t *s = ctx;
-    fprintf(f, "%s\n", RESULTS_SERIES_HEADER);
+    fprintf(f, "%s\n", MERGED_HEADER);
     for (size_t i = 0; i < s->n; i++) {
         const row_t *r = &s->rows[i];
         const char *phase = s->keys[r->key], *cls = phase + strlen(phase) + 1;
         const double *v = r->v;
         /* marks: a merge does not carry them (each input's results.json has its instants). */
-        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,\n",
-                (long long)r->second, phase, cls, (long long)v[C_STARTED],
-                (long long)v[C_COMPLETED], v[C_RATE], (long long)v[C_ERRORS], v[C_P50], v[C_P90],
-                v[C_P99], v[C_MAX], v[C_PLANNED], (long long)v[C_UNIX], v[C_P999]);
+        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,,", (long long)r->second,
+                phase, cls, (long long)v[C_STARTED], (long long)v[C_COMPLETED], v[C_RATE],
+                (long long)v[C_ERRORS], v[C_P50], v[C_P90], v[C_P99], v[C_MAX], v[C_PLANNED],
+                (long long)v[C_UNIX], v[C_P999]);
+        /* The run's figures ("nan" when unknown: %.0f writes it for a NaN count). */
+        fprintf(f, "%.0f,%.0f,%.0f,%.0f,%.3f,%.3f,%.0f,%.0f\n", v[C_W_OPEN], v[C_W_DROPPED],
+                v[C_W_RECONNECTS], v[C_W_EVENTS], v[C_W_PROP_P99], v[C_QUEUE_WAIT], v[C_IN_FLIGHT],
+                v[C_QUEUED]);
     }
     return ferror(f) ? SQ_EIO : 0;
 }
@@ -331,6 +414,7 @@ static int read_all(series_t *s, const char *const *dirs, size_t n, bool *comple
             break;
         }
         FILE *hf = open_in(dirs[i], RESULTS_SERIES_HIST_FILE, hpath, sizeof hpath);
+        s->input = i;
         rc = read_input(s, f, hf, path);
         fclose(f);
         if (hf)
@@ -360,7 +444,9 @@ int results_series_merge(const char *const *dirs, size_t n, const results_t *mer
     if (rc == 0 && complete) {
         if (s.n)
             qsort(s.rows, s.n, sizeof(*s.rows), cmp_row);
-        rc = group(&s, &s.n, &unknown);
+        rc = combine_seconds(&s, n);
+        if (rc == 0)
+            rc = group(&s, &s.n, &unknown);
     }
     char path[4096];
     if (rc == 0 && complete) {
