@@ -78,7 +78,8 @@ typedef struct {
 void html_heat(FILE *f, const html_plot_t *p, const html_heat_t *h, const html_mark_t *marks,
                size_t n_marks);
 
-/* A number for people, never in scientific notation: 12,000 / 250 / 1.5 / 0.002. */
+/* A number for people, never in scientific notation and, as on the terminal, without thousands
+ * separators: 12000 / 250 / 1.5 / 0.002. */
 void html_num(double v, char *buf, size_t cap);
 
 /* Writes <svg class="plot"> with axes, ticks, one <g class="series"> per line, marks and a
@@ -109,6 +110,10 @@ size_t html_thresholds(const results_t *res, const char *metric, const char *cls
  * and sets *any when some second has a value. */
 size_t html_class_p99(const report_series_t *s, const char *cls, double *x, double *y, size_t cap,
                       bool *any);
+/* A run's figure of the second (a double of report_row_t at offset off, e.g.
+ * offsetof(report_row_t, watch_open)) over seconds 0..secs-1 of s into y, from each second's
+ * first row (they all carry it); NaN where no row or not written. True when some second has one. */
+bool html_run_figure(const report_series_t *s, size_t off, double *y, size_t secs);
 /* The generator-bound seconds as bands [s, s + 1) of the time axis. */
 size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap);
 /* A plot over the run's secs seconds: x in seconds since the start with the wall-clock start
@@ -130,8 +135,10 @@ size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t ca
 size_t html_reconnect_count(const results_t *res, const char *key, double *per, size_t secs);
 /* The run's whole seconds (at least 1). */
 size_t html_run_seconds(const results_t *res);
-/* html_watches.c: the "watches" section's drops and reconnects per second. */
-void html_watches(FILE *f, const results_t *res);
+/* html_watches.c: watch streams open, dropped and reconnected, events and propagation p99 per
+ * second (series.csv's run figures, else the "watches" section's reconnect log); nothing when
+ * the run opened no watch stream. */
+void html_watches(FILE *f, const results_t *res, const report_series_t *s);
 /* html_metrics.c: the target's scraped metrics ("metrics" section), when the plan observed any. */
 void html_metrics(FILE *f, const results_t *res, const report_series_t *s);
 /* html_metrics.c: the actions and collects ("actions" section), each saved file linked. */

@@ -2,6 +2,7 @@
  * the response time with its objectives' thresholds; generator-bound seconds shaded, phase
  * boundaries and actions marked, the wall-clock start written on the time axis. */
 #include <math.h>
+#include <stddef.h>
 #include <stdlib.h>
 #include <string.h>
 #include <time.h>
@@ -208,6 +209,59 @@ size_t html_class_p99(const report_series_t *s, const char *cls, double *x, doub
     return n;
 }
 
+bool html_run_figure(const report_series_t *s, size_t off, double *y, size_t secs)
+{
+    bool any = false;
+    int64_t last = -1;
+    for (size_t k = 0; k < secs; k++)
+        y[k] = NAN;
+    for (size_t i = 0; i < report_series_count(s); i++) {
+        const report_row_t *r = report_series_at(s, i);
+        if (r->second == last || r->second < 0 || (size_t)r->second >= secs)
+            continue; /* every row of a second carries the same figures: the first one's */
+        last = r->second;
+        y[last] = *(const double *)(const void *)((const char *)r + off);
+        any |= !isnan(y[last]);
+    }
+    return any;
+}
+
+/* Queue and in flight per second: the peaks in flight and queued, and the longest wait in the
+ * admission queue (the run's figures of series.csv), when the file has them. */
+static void queue(FILE *f, const report_series_t *s, size_t secs, const html_plot_t *p,
+                  const html_mark_t *m, size_t nm)
+{
+    double *all = calloc(4 * secs, sizeof(double));
+    if (!all)
+        return;
+    double *x = all, *fl = all + secs, *qd = all + 2 * secs, *wait = all + 3 * secs;
+    for (size_t k = 0; k < secs; k++)
+        x[k] = (double)k + 0.5;
+    bool any = html_run_figure(s, offsetof(report_row_t, in_flight_peak), fl, secs);
+    any &= html_run_figure(s, offsetof(report_row_t, queued_peak), qd, secs);
+    any &= html_run_figure(s, offsetof(report_row_t, queue_wait_max_ms), wait, secs);
+    if (any) {
+        bool up = report_series_upper(s);
+        html_line_t peaks[] = {
+            {x, fl, secs, up ? "in flight, peak (shards' peaks added: an upper bound)"
+                             : "in flight, peak", 0, 0},
+            {x, qd, secs, up ? "queued, peak (shards' peaks added: an upper bound)"
+                             : "queued, peak", 1, 1},
+        };
+        html_line_t w[] = {{x, wait, secs, "longest queue wait", 4, 0}};
+        html_plot_t q = *p;
+        q.title = "Queue wait and in flight over time: the peaks of requests in flight and "
+                  "waiting in squall's admission queue in each second";
+        q.ylabel = "requests";
+        html_figure(f, "in-flight", &q, peaks, 2, m, nm);
+        q.title = "Queue wait over time: the longest wait of a request in squall's admission "
+                  "queue in each second (the target's slowness or too few connections)";
+        q.ylabel = "queue wait (ms)";
+        html_figure(f, "queue-wait", &q, w, 1, m, nm);
+    }
+    free(all);
+}
+
 /* The generator-bound seconds ("generator" section) as bands [s, s + 1). */
 size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap)
 {
@@ -334,6 +388,7 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
     char note[80];
     html_plot_t p = html_time_plot(res, secs, bands, 256, note, sizeof note);
     offered(f, s, secs, &p, marks, nm);
+    queue(f, s, secs, &p, marks, nm);
     size_t ok = 0;
     for (size_t c = 0; c < nc && fill(s, cls[c], secs, &ps[c]) == 0; c++, ok++)
         errs[c] = (html_line_t){ps[c].x, ps[c].errors, secs, cls[c],

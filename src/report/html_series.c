@@ -15,6 +15,7 @@ struct report_series {
     char **names; /* phase and class strings, each kept once per row */
     size_t n_names, cap_names;
     bool has_p999; /* the file has the p999_ms column (files before it do not) */
+    bool upper;    /* the run's figures are a merge's upper bounds (their _upper names) */
     report_heat_row_t *heat;
     size_t n_heat, cap_heat;
 };
@@ -35,12 +36,28 @@ enum col {
     C_P999 = C__REQUIRED, /* optional: added after the others */
     C_PLANNED,
     C_UNIX_MS,
+    C_W_OPEN, /* the run's figures of the second (RESULTS_SERIES_RUN_COLUMNS) */
+    C_W_DROPPED,
+    C_W_RECONNECTS,
+    C_W_EVENTS,
+    C_W_P99,
+    C_QUEUE_WAIT,
+    C_IN_FLIGHT,
+    C_QUEUED,
     C__COUNT
 };
 static const char *const col_names[C__COUNT] = {
     "second", "phase",  "class",  "started", "completed", "rate_per_s",
     "errors", "p50_ms", "p90_ms", "p99_ms",  "max_ms",    "p999_ms",
-    "planned", "unix_ms",
+    "planned", "unix_ms", "run_watch_open", "run_watch_dropped", "run_watch_reconnects",
+    "run_watch_events", "run_watch_propagation_p99_ms", "run_queue_wait_max_ms",
+    "run_in_flight_peak", "run_queued_peak",
+};
+/* The names a merge gives the run's figures it can only bound. */
+static const char *const upper_names[C__COUNT] = {
+    [C_W_P99] = "run_watch_propagation_p99_upper_ms",
+    [C_IN_FLIGHT] = "run_in_flight_peak_upper",
+    [C_QUEUED] = "run_queued_peak_upper",
 };
 
 int report_series_new(report_series_t **out)
@@ -74,6 +91,11 @@ const report_row_t *report_series_at(const report_series_t *s, size_t i)
 bool report_series_has_p999(const report_series_t *s)
 {
     return s->has_p999;
+}
+
+bool report_series_upper(const report_series_t *s)
+{
+    return s->upper;
 }
 
 /* Splits line in place at commas into at most cap fields; returns the count. */
@@ -122,7 +144,9 @@ static bool number(const char *t, double *v)
 /* One data line into a row; false when a field is malformed. */
 static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, report_row_t *row)
 {
-    double v[C__COUNT] = {[C_P999] = NAN, [C_PLANNED] = NAN, [C_UNIX_MS] = 0};
+    double v[C__COUNT];
+    for (int c = 0; c < C__COUNT; c++)
+        v[c] = c == C_UNIX_MS ? 0 : NAN;
     for (int c = 0; c < C__COUNT; c++) {
         if (idx[c] < 0 && c >= C__REQUIRED)
             continue;
@@ -150,6 +174,14 @@ static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, r
     row->p999_ms = v[C_P999];
     row->planned = v[C_PLANNED];
     row->unix_ms = (int64_t)v[C_UNIX_MS];
+    row->watch_open = v[C_W_OPEN];
+    row->watch_dropped = v[C_W_DROPPED];
+    row->watch_reconnects = v[C_W_RECONNECTS];
+    row->watch_events = v[C_W_EVENTS];
+    row->watch_p99_ms = v[C_W_P99];
+    row->queue_wait_max_ms = v[C_QUEUE_WAIT];
+    row->in_flight_peak = v[C_IN_FLIGHT];
+    row->queued_peak = v[C_QUEUED];
     return row->phase && row->cls;
 }
 
@@ -162,6 +194,8 @@ static int header(report_series_t *s, char *line, int *idx, const char *path, ou
         for (size_t k = 0; k < nf; k++)
             if (strcmp(f[k], col_names[c]) == 0)
                 idx[c] = (int)k;
+            else if (upper_names[c] && strcmp(f[k], upper_names[c]) == 0)
+                idx[c] = (int)k, s->upper = true;
         if (c == C_P999)
             s->has_p999 = idx[c] >= 0;
         else if (c < C__REQUIRED && idx[c] < 0) {

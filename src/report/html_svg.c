@@ -128,17 +128,8 @@ void html_num(double v, char *buf, size_t cap)
         snprintf(buf, cap, "-");
         return;
     }
-    if (fabs(v) >= 1000) { /* whole, with thousands separators */
-        char digits[40];
-        int n = snprintf(digits, sizeof digits, "%.0f", fabs(v)), o = 0;
-        if (v < 0 && (size_t)o + 1 < cap)
-            buf[o++] = '-';
-        for (int i = 0; i < n && (size_t)o + 2 < cap; i++) {
-            if (i > 0 && (n - i) % 3 == 0)
-                buf[o++] = ',';
-            buf[o++] = digits[i];
-        }
-        buf[o] = '\0';
+    if (fabs(v) >= 1000) { /* whole, without separators: the terminal's style */
+        snprintf(buf, cap, "%.0f", v);
         return;
     }
     if (fabs(v) < 1e-12) {
