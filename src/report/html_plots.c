@@ -250,8 +250,10 @@ static void queue(FILE *f, const report_series_t *s, size_t secs, const html_plo
         };
         html_line_t w[] = {{x, wait, secs, "longest queue wait", 4, 0}};
         html_plot_t q = *p;
-        q.title = "Queue wait and in flight over time: the peaks of requests in flight and "
-                  "waiting in squall's admission queue in each second";
+        q.title = "Queue wait and in flight over time: the peaks of the plan's requests in "
+                  "flight and waiting in squall's admission queue in each second (the main "
+                  "engine: the teardown's deletes and the watch streams have engines of their "
+                  "own)";
         q.ylabel = "requests";
         html_figure(f, "in-flight", &q, peaks, 2, m, nm);
         q.title = "Queue wait over time: the longest wait of a request in squall's admission "
