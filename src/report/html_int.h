@@ -133,6 +133,8 @@ size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t ca
  * ns since the phase's start; 0 = not sent) to per[run second] over secs seconds; returns how
  * many it added. */
 size_t html_reconnect_count(const results_t *res, const char *key, double *per, size_t secs);
+/* A phase's start and end in run seconds (the "phases" section); false (NaN) when unknown. */
+bool html_phase_span(const results_t *res, const char *phase, double *t0, double *t1);
 /* The run's whole seconds (at least 1). */
 size_t html_run_seconds(const results_t *res);
 /* html_watches.c: watch streams open, dropped and reconnected, events and propagation p99 per

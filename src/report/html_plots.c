@@ -83,18 +83,29 @@ static size_t phase_starts(const results_t *res, const report_series_t *s, html_
     return n;
 }
 
-/* The run second a phase started at ("phases" section); NAN when unknown. */
-static double phase_start(const results_t *res, const char *phase)
+bool html_phase_span(const results_t *res, const char *phase, double *t0, double *t1)
 {
     json_t *list = json_object_get(results_section(res, "phases"), "phases"), *p;
     size_t i;
+    *t0 = *t1 = NAN;
     json_array_foreach(list, i, p)
     {
         const char *name = json_string_value(json_object_get(p, "name"));
-        if (name && !strcmp(name, phase))
-            return json_number_value(json_object_get(p, "start_s"));
+        if (name && !strcmp(name, phase)) {
+            *t0 = json_number_value(json_object_get(p, "start_s"));
+            *t1 = *t0 + json_number_value(json_object_get(p, "elapsed_s"));
+            return true;
+        }
     }
-    return NAN;
+    return false;
+}
+
+/* The run second a phase started at; NAN when unknown. */
+static double phase_start(const results_t *res, const char *phase)
+{
+    double t0, t1;
+    html_phase_span(res, phase, &t0, &t1);
+    return t0;
 }
 
 size_t html_reconnect_count(const results_t *res, const char *key, double *per, size_t secs)

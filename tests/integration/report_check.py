@@ -146,7 +146,7 @@ check("header exit code is results.json's (%s)" % run.get("exit_code"),
       meta_rows.get("exit code") == str(run.get("exit_code")))
 check("header target has no user info", "@" not in meta_rows.get("target", "@"))
 # Time plots: seconds since the start, the wall-clock start on the axis.
-timed = [s for s in p.svgs if s["section"] in ("over-time", "heat", "watches")]
+timed = [s for s in p.svgs if s["section"] in ("over-time", "heat", "watches", "storms")]
 check("every plot over time is in seconds since the start with the wall-clock start noted",
       timed and all(s["labels"][1] == "time since the run started (s)"
                     and s["notes"] and re.match(r"0 s = \d{4}-\d\d-\d\d \d\d:\d\d:\d\d UTC", s["notes"][0])
@@ -298,6 +298,14 @@ else:
     for s in p.svgs:
         if s["section"] in ("over-time", "heat", "watches"):
             check("drop moments marked on %r" % s["title"][:50], s["drops"] >= 1, s["drops"])
+    # Storm ticks are drawn over their phase's span of the run's time axis: the drops (all in
+    # the reconnect-storm phase, POST /admin/drop-watches 2 s into it) are marked on its plots,
+    # and not on the spread phase's, whose span ends before them.
+    for s in p.svgs:
+        if s["section"] == "storms":
+            inside = "in phase reconnect-storm" in s["title"]
+            check("storm ticks %r: %s drop mark" % (s["title"][:60], "a" if inside else "no"),
+                  (s["drops"] >= 1) == inside, s["drops"])
     w = {(s["figure"] or {}).get("id"): s for s in p.svgs if s["section"] == "watches"}
     check("watches over time: streams dropped, reconnects sent and streams open on one plot",
           "watch-drops" in w and w["watch-drops"]["series"]
