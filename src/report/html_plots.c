@@ -254,10 +254,11 @@ static void queue(FILE *f, const report_series_t *s, size_t secs, const html_plo
     if (any) {
         bool up = report_series_upper(s);
         html_line_t peaks[] = {
-            {x, fl, secs, up ? "in flight, peak (shards' peaks added: an upper bound)"
-                             : "in flight, peak", 0, 0},
-            {x, qd, secs, up ? "queued, peak (shards' peaks added: an upper bound)"
-                             : "queued, peak", 1, 1},
+            {x, fl, secs,
+             up ? "in flight, peak (shards' peaks added: an upper bound)" : "in flight, peak", 0,
+             0},
+            {x, qd, secs,
+             up ? "queued, peak (shards' peaks added: an upper bound)" : "queued, peak", 1, 1},
         };
         html_line_t w[] = {{x, wait, secs, "longest queue wait", 4, 0}};
         html_plot_t q = *p;

@@ -47,11 +47,28 @@ enum col {
     C__COUNT
 };
 static const char *const col_names[C__COUNT] = {
-    "second", "phase",  "class",  "started", "completed", "rate_per_s",
-    "errors", "p50_ms", "p90_ms", "p99_ms",  "max_ms",    "p999_ms",
-    "planned", "unix_ms", "run_watch_open", "run_watch_dropped", "run_watch_reconnects",
-    "run_watch_events", "run_watch_propagation_p99_ms", "run_queue_wait_max_ms",
-    "run_in_flight_peak", "run_queued_peak",
+    "second",
+    "phase",
+    "class",
+    "started",
+    "completed",
+    "rate_per_s",
+    "errors",
+    "p50_ms",
+    "p90_ms",
+    "p99_ms",
+    "max_ms",
+    "p999_ms",
+    "planned",
+    "unix_ms",
+    "run_watch_open",
+    "run_watch_dropped",
+    "run_watch_reconnects",
+    "run_watch_events",
+    "run_watch_propagation_p99_ms",
+    "run_queue_wait_max_ms",
+    "run_in_flight_peak",
+    "run_queued_peak",
 };
 /* The names a merge gives the run's figures it can only bound. */
 static const char *const upper_names[C__COUNT] = {

@@ -30,16 +30,17 @@ static void events(FILE *f, const report_series_t *s, const html_plot_t *p, cons
         q.ylabel = "events per second";
         fputs("<figure id=\"watch-events\">\n", f);
         html_plot(f, &q, l, 1, m, nm);
-        fprintf(f, "<figcaption>Watch events received in each second (%.0f in all)"
-                   "</figcaption></figure>\n",
+        fprintf(f,
+                "<figcaption>Watch events received in each second (%.0f in all)"
+                "</figcaption></figure>\n",
                 total(y, secs));
     }
     if (html_run_figure(s, offsetof(report_row_t, watch_p99_ms), y, secs)) {
         bool up = report_series_upper(s);
-        html_line_t l[] = {{x, y, secs,
-                            up ? "propagation p99 (the largest shard's: an upper bound)"
-                               : "propagation p99",
-                            3, 0}};
+        html_line_t l[] = {
+            {x, y, secs,
+             up ? "propagation p99 (the largest shard's: an upper bound)" : "propagation p99", 3,
+             0}};
         q.title = "Watch propagation p99 in each second: from the stamp written into an object "
                   "to its event's arrival, events that carried a stamp";
         q.ylabel = "propagation (ms, log scale)";
@@ -47,8 +48,7 @@ static void events(FILE *f, const report_series_t *s, const html_plot_t *p, cons
         q.yzero = false;
         fputs("<figure id=\"watch-propagation\">\n", f);
         html_plot(f, &q, l, 1, m, nm);
-        fputs("<figcaption>Watch propagation p99 in each second (no point: no stamped event)",
-              f);
+        fputs("<figcaption>Watch propagation p99 in each second (no point: no stamped event)", f);
         fputs(up ? "; merged: each second shows the largest shard's p99, an upper bound of the "
                    "pooled p99"
                  : "",
@@ -81,8 +81,9 @@ void html_watches(FILE *f, const results_t *res, const report_series_t *s)
         html_reconnect_count(res, "ended_ns", drops, secs);
         html_reconnect_count(res, "sent_ns", recon, secs);
     }
-    fprintf(f, "<section id=\"watches\"><h2>Watches over time</h2>\n<p class=\"note\">%s "
-               "Seconds with drops are marked on every plot over time.</p>\n",
+    fprintf(f,
+            "<section id=\"watches\"><h2>Watches over time</h2>\n<p class=\"note\">%s "
+            "Seconds with drops are marked on every plot over time.</p>\n",
             from_series ? "Every watch class, per second (series.csv's run_watch_* columns)."
                         : "From each phase's reconnect log: when a stream ended and was "
                           "reopened (its reconnect sent).");
@@ -100,8 +101,9 @@ void html_watches(FILE *f, const results_t *res, const report_series_t *s)
     p.ylabel = "streams";
     fputs("<figure id=\"watch-drops\">\n", f);
     html_plot(f, &p, l, from_series ? 3 : 2, marks, nm);
-    fprintf(f, "<figcaption>Watch streams dropped (%.0f) and reconnects sent (%.0f), every watch "
-               "class</figcaption></figure>\n",
+    fprintf(f,
+            "<figcaption>Watch streams dropped (%.0f) and reconnects sent (%.0f), every watch "
+            "class</figcaption></figure>\n",
             total(drops, secs), total(recon, secs));
     if (from_series)
         events(f, s, &p, x, secs, y, marks, nm);

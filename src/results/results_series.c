@@ -37,22 +37,38 @@ enum {
     C_QUEUED,
     C__COUNT
 };
-static const char *const col_names[C__COUNT] = {
-    "second", "phase",  "class",  "started", "completed", "rate_per_s", "errors",
-    "p50_ms", "p90_ms", "p99_ms", "max_ms",  "planned",   "unix_ms",    "p999_ms",
-    "run_watch_open", "run_watch_dropped", "run_watch_reconnects", "run_watch_events",
-    "run_watch_propagation_p99_ms", "run_queue_wait_max_ms", "run_in_flight_peak",
-    "run_queued_peak"};
+static const char *const col_names[C__COUNT] = {"second",
+                                                "phase",
+                                                "class",
+                                                "started",
+                                                "completed",
+                                                "rate_per_s",
+                                                "errors",
+                                                "p50_ms",
+                                                "p90_ms",
+                                                "p99_ms",
+                                                "max_ms",
+                                                "planned",
+                                                "unix_ms",
+                                                "p999_ms",
+                                                "run_watch_open",
+                                                "run_watch_dropped",
+                                                "run_watch_reconnects",
+                                                "run_watch_events",
+                                                "run_watch_propagation_p99_ms",
+                                                "run_queue_wait_max_ms",
+                                                "run_in_flight_peak",
+                                                "run_queued_peak"};
 /* A merge's own names for the run columns it can only bound (a merged file read again finds
  * them under either name). */
-static const char *const upper_names[C__COUNT] = {
-    [C_W_PROP_P99] = "run_watch_propagation_p99_upper_ms",
-    [C_IN_FLIGHT] = "run_in_flight_peak_upper",
-    [C_QUEUED] = "run_queued_peak_upper"};
+static const char *const upper_names[C__COUNT] = {[C_W_PROP_P99] =
+                                                      "run_watch_propagation_p99_upper_ms",
+                                                  [C_IN_FLIGHT] = "run_in_flight_peak_upper",
+                                                  [C_QUEUED] = "run_queued_peak_upper"};
 #define MERGED_HEADER                                                                              \
     "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
     "unix_ms,p999_ms,marks,run_watch_open,run_watch_dropped,run_watch_reconnects,"                 \
-    "run_watch_events,run_watch_propagation_p99_upper_ms,run_queue_wait_max_ms,"                  \
+    "run_watch_events,run_watch_propagation_p99_upper_ms,run_queue_wait_max_ms,"                   \
     "run_in_flight_peak_upper,run_queued_peak_upper"
 
 /* One row of one input, placed in the merge. */
@@ -291,8 +307,8 @@ static int combine(row_t *g, size_t n)
  * columns (an older squall) makes them all unknown. seen has a flag per input, all false. */
 static void combine_run(row_t *g, size_t n, bool *seen)
 {
-    static const int sum[] = {C_W_OPEN, C_W_DROPPED, C_W_RECONNECTS, C_W_EVENTS, C_IN_FLIGHT,
-                              C_QUEUED};
+    static const int sum[] = {C_W_OPEN,   C_W_DROPPED, C_W_RECONNECTS,
+                              C_W_EVENTS, C_IN_FLIGHT, C_QUEUED};
     static const int max[] = {C_W_PROP_P99, C_QUEUE_WAIT};
     double v[C__COUNT];
     bool missing = false;
@@ -367,10 +383,10 @@ static int fill_series(FILE *f, void *ctx)
         const char *phase = s->keys[r->key], *cls = phase + strlen(phase) + 1;
         const double *v = r->v;
         /* marks: a merge does not carry them (each input's results.json has its instants). */
-        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,,", (long long)r->second,
-                phase, cls, (long long)v[C_STARTED], (long long)v[C_COMPLETED], v[C_RATE],
-                (long long)v[C_ERRORS], v[C_P50], v[C_P90], v[C_P99], v[C_MAX], v[C_PLANNED],
-                (long long)v[C_UNIX], v[C_P999]);
+        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,,",
+                (long long)r->second, phase, cls, (long long)v[C_STARTED],
+                (long long)v[C_COMPLETED], v[C_RATE], (long long)v[C_ERRORS], v[C_P50], v[C_P90],
+                v[C_P99], v[C_MAX], v[C_PLANNED], (long long)v[C_UNIX], v[C_P999]);
         /* The run's figures ("nan" when unknown: %.0f writes it for a NaN count). */
         fprintf(f, "%.0f,%.0f,%.0f,%.0f,%.3f,%.3f,%.0f,%.0f\n", v[C_W_OPEN], v[C_W_DROPPED],
                 v[C_W_RECONNECTS], v[C_W_EVENTS], v[C_W_PROP_P99], v[C_QUEUE_WAIT], v[C_IN_FLIGHT],
