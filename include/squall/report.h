@@ -37,7 +37,7 @@ typedef struct {
     double p999_ms; /* NaN in a file written before the column existed */
     double planned; /* requests the schedule planned to start that second; NaN when not written */
     int64_t unix_ms; /* wall-clock start of the second; 0 when not written */
-    /* The whole run's figures of the second (RESULTS_SERIES_RUN_COLUMNS: every phase and class,
+    /* The whole run's figures of the second (RESULTS_SERIES_RUN_MAP: every phase and class,
      * the same on each row of the second); NaN when not written. A merge's propagation p99 and
      * peaks are upper bounds (report_series_upper). */
     double watch_open, watch_dropped, watch_reconnects, watch_events, watch_p99_ms;

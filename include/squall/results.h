@@ -32,18 +32,31 @@
  * so that a merge of shards gives every merged second the percentiles of all its samples.
  * Columns are only ever added at the end; readers find them by name. */
 #define RESULTS_SERIES_FILE "series.csv"
-#define RESULTS_SERIES_HEADER                                                                      \
+#define RESULTS_SERIES_ROW_COLUMNS                                                                 \
     "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
-    "unix_ms,p999_ms,marks," RESULTS_SERIES_RUN_COLUMNS
-/* The whole run's figures of the second (every phase and class), the same on every row of the
- * second (so never add them across a second's rows): watch streams open at its end, dropped,
- * reconnects sent and events received in it, the p99 of its stamped events' propagation ("nan"
- * when none was stamped), and the main engine's longest admission-queue wait and peaks of in
- * flight and queued. A merge writes the p99 and the peaks under the _upper names: the largest
- * shard's p99 and the shards' peaks added are upper bounds of the pooled figures. */
-#define RESULTS_SERIES_RUN_COLUMNS                                                                 \
-    "run_watch_open,run_watch_dropped,run_watch_reconnects,run_watch_events,"                      \
-    "run_watch_propagation_p99_ms,run_queue_wait_max_ms,run_in_flight_peak,run_queued_peak"
+    "unix_ms,p999_ms,marks"
+/* Then the whole run's figures of the second (every phase and class), the same on every row of
+ * the second (so never add them across a second's rows): watch streams open at its end,
+ * dropped, reconnects sent and events received in it, the p99 of its stamped events'
+ * propagation ("nan" when none was stamped), and the main engine's longest admission-queue wait
+ * and peaks of in flight and queued. X(enum suffix, name, the name a merge writes): a merge
+ * renames the figures it can only bound (the largest shard's p99 and the shards' peaks added
+ * are upper bounds of the pooled figures). */
+#define RESULTS_SERIES_RUN_MAP(X)                                                                  \
+    X(WATCH_OPEN, "run_watch_open", "run_watch_open")                                              \
+    X(WATCH_DROPPED, "run_watch_dropped", "run_watch_dropped")                                     \
+    X(WATCH_RECONNECTS, "run_watch_reconnects", "run_watch_reconnects")                            \
+    X(WATCH_EVENTS, "run_watch_events", "run_watch_events")                                        \
+    X(WATCH_P99, "run_watch_propagation_p99_ms", "run_watch_propagation_p99_upper_ms")             \
+    X(QUEUE_WAIT, "run_queue_wait_max_ms", "run_queue_wait_max_ms")                                \
+    X(IN_FLIGHT, "run_in_flight_peak", "run_in_flight_peak_upper")                                 \
+    X(QUEUED, "run_queued_peak", "run_queued_peak_upper")
+#define RESULTS_SERIES_RUN_HEADER(e, name, merged)     "," name
+#define RESULTS_SERIES_MERGED_HEADER_(e, name, merged) "," merged
+#define RESULTS_SERIES_HEADER                                                                      \
+    RESULTS_SERIES_ROW_COLUMNS RESULTS_SERIES_RUN_MAP(RESULTS_SERIES_RUN_HEADER)
+#define RESULTS_SERIES_MERGED_HEADER                                                               \
+    RESULTS_SERIES_ROW_COLUMNS RESULTS_SERIES_RUN_MAP(RESULTS_SERIES_MERGED_HEADER_)
 #define RESULTS_SERIES_HIST_FILE   "series-hist.csv"
 #define RESULTS_SERIES_HIST_HEADER "second,phase,class,unix_ms,response"
 
@@ -207,7 +220,7 @@ int results_merge_finish(results_t *dst, out_t *o);
  * to the nearest second of merged's start) and (phase, class) add their counts, rates and
  * planned starts; their percentiles come from the merged histograms, or are written as "nan"
  * when a row of several inputs has no histogram. The run's figures of a second
- * (RESULTS_SERIES_RUN_COLUMNS) are combined over the inputs: counts and open streams added, the
+ * (RESULTS_SERIES_RUN_MAP) are combined over the inputs: counts and open streams added, the
  * longest queue wait the largest, the propagation p99 and the peaks in flight and queued as upper
  * bounds under their _upper names (results_series.c says how). *written is false (nothing written,
  * a warning on o) when an input has no series.csv. SQ_EIO, SQ_EPARSE (a line on o naming the file),

@@ -72,7 +72,7 @@ static double ms(int64_t ns)
     return (double)ns / 1e6;
 }
 
-/* The run's figures of the second (RESULTS_SERIES_RUN_COLUMNS), one text for all its rows. */
+/* The run's figures of the second (RESULTS_SERIES_RUN_MAP), one text for all its rows. */
 static void run_columns(const obs_second_t *w, char *buf, size_t cap)
 {
     static const obs_watch_second_t none = {0};

@@ -8,6 +8,7 @@
 #include "squall/err.h"
 #include "squall/hist.h"
 #include "squall/report.h"
+#include "squall/results.h"
 
 struct report_series {
     report_row_t *rows;
@@ -36,46 +37,19 @@ enum col {
     C_P999 = C__REQUIRED, /* optional: added after the others */
     C_PLANNED,
     C_UNIX_MS,
-    C_W_OPEN, /* the run's figures of the second (RESULTS_SERIES_RUN_COLUMNS) */
-    C_W_DROPPED,
-    C_W_RECONNECTS,
-    C_W_EVENTS,
-    C_W_P99,
-    C_QUEUE_WAIT,
-    C_IN_FLIGHT,
-    C_QUEUED,
-    C__COUNT
+#define RUN_ENUM(e, name, merged) C_##e, /* the run's figures of the second */
+    RESULTS_SERIES_RUN_MAP(RUN_ENUM)
+#undef RUN_ENUM
+        C__COUNT
 };
+#define RUN_NAME(e, name, merged)   name,
+#define RUN_MERGED(e, name, merged) [C_##e] = merged,
 static const char *const col_names[C__COUNT] = {
-    "second",
-    "phase",
-    "class",
-    "started",
-    "completed",
-    "rate_per_s",
-    "errors",
-    "p50_ms",
-    "p90_ms",
-    "p99_ms",
-    "max_ms",
-    "p999_ms",
-    "planned",
-    "unix_ms",
-    "run_watch_open",
-    "run_watch_dropped",
-    "run_watch_reconnects",
-    "run_watch_events",
-    "run_watch_propagation_p99_ms",
-    "run_queue_wait_max_ms",
-    "run_in_flight_peak",
-    "run_queued_peak",
-};
-/* The names a merge gives the run's figures it can only bound. */
-static const char *const upper_names[C__COUNT] = {
-    [C_W_P99] = "run_watch_propagation_p99_upper_ms",
-    [C_IN_FLIGHT] = "run_in_flight_peak_upper",
-    [C_QUEUED] = "run_queued_peak_upper",
-};
+    "second",     "phase",   "class",   "started", "completed",
+    "rate_per_s", "errors",  "p50_ms",  "p90_ms",  "p99_ms",
+    "max_ms",     "p999_ms", "planned", "unix_ms", RESULTS_SERIES_RUN_MAP(RUN_NAME)};
+/* The names a merge writes them under; a name of its own is an upper bound's. */
+static const char *const merged_names[C__COUNT] = {RESULTS_SERIES_RUN_MAP(RUN_MERGED)};
 
 int report_series_new(report_series_t **out)
 {
@@ -191,11 +165,11 @@ static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, r
     row->p999_ms = v[C_P999];
     row->planned = v[C_PLANNED];
     row->unix_ms = (int64_t)v[C_UNIX_MS];
-    row->watch_open = v[C_W_OPEN];
-    row->watch_dropped = v[C_W_DROPPED];
-    row->watch_reconnects = v[C_W_RECONNECTS];
-    row->watch_events = v[C_W_EVENTS];
-    row->watch_p99_ms = v[C_W_P99];
+    row->watch_open = v[C_WATCH_OPEN];
+    row->watch_dropped = v[C_WATCH_DROPPED];
+    row->watch_reconnects = v[C_WATCH_RECONNECTS];
+    row->watch_events = v[C_WATCH_EVENTS];
+    row->watch_p99_ms = v[C_WATCH_P99];
     row->queue_wait_max_ms = v[C_QUEUE_WAIT];
     row->in_flight_peak = v[C_IN_FLIGHT];
     row->queued_peak = v[C_QUEUED];
@@ -211,7 +185,7 @@ static int header(report_series_t *s, char *line, int *idx, const char *path, ou
         for (size_t k = 0; k < nf; k++)
             if (strcmp(f[k], col_names[c]) == 0)
                 idx[c] = (int)k;
-            else if (upper_names[c] && strcmp(f[k], upper_names[c]) == 0)
+            else if (merged_names[c] && strcmp(f[k], merged_names[c]) == 0)
                 idx[c] = (int)k, s->upper = true;
         if (c == C_P999)
             s->has_p999 = idx[c] >= 0;

@@ -27,49 +27,19 @@ enum {
     C_UNIX,
     C_P999,
     C__OPTIONAL = C_P999, /* from here on: columns a file may lack (an older squall wrote it) */
-    C_W_OPEN,
-    C_W_DROPPED,
-    C_W_RECONNECTS,
-    C_W_EVENTS,
-    C_W_PROP_P99,
-    C_QUEUE_WAIT,
-    C_IN_FLIGHT,
-    C_QUEUED,
-    C__COUNT
+#define RUN_ENUM(e, name, merged) C_##e,
+    RESULTS_SERIES_RUN_MAP(RUN_ENUM)
+#undef RUN_ENUM
+        C__COUNT
 };
-static const char *const col_names[C__COUNT] = {"second",
-                                                "phase",
-                                                "class",
-                                                "started",
-                                                "completed",
-                                                "rate_per_s",
-                                                "errors",
-                                                "p50_ms",
-                                                "p90_ms",
-                                                "p99_ms",
-                                                "max_ms",
-                                                "planned",
-                                                "unix_ms",
-                                                "p999_ms",
-                                                "run_watch_open",
-                                                "run_watch_dropped",
-                                                "run_watch_reconnects",
-                                                "run_watch_events",
-                                                "run_watch_propagation_p99_ms",
-                                                "run_queue_wait_max_ms",
-                                                "run_in_flight_peak",
-                                                "run_queued_peak"};
-/* A merge's own names for the run columns it can only bound (a merged file read again finds
- * them under either name). */
-static const char *const upper_names[C__COUNT] = {[C_W_PROP_P99] =
-                                                      "run_watch_propagation_p99_upper_ms",
-                                                  [C_IN_FLIGHT] = "run_in_flight_peak_upper",
-                                                  [C_QUEUED] = "run_queued_peak_upper"};
-#define MERGED_HEADER                                                                              \
-    "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
-    "unix_ms,p999_ms,marks,run_watch_open,run_watch_dropped,run_watch_reconnects,"                 \
-    "run_watch_events,run_watch_propagation_p99_upper_ms,run_queue_wait_max_ms,"                   \
-    "run_in_flight_peak_upper,run_queued_peak_upper"
+#define RUN_NAME(e, name, merged)   name,
+#define RUN_MERGED(e, name, merged) [C_##e] = merged,
+static const char *const col_names[C__COUNT] = {
+    "second",     "phase",   "class",   "started", "completed",
+    "rate_per_s", "errors",  "p50_ms",  "p90_ms",  "p99_ms",
+    "max_ms",     "planned", "unix_ms", "p999_ms", RESULTS_SERIES_RUN_MAP(RUN_NAME)};
+/* The names a merge writes the run's figures under (a merged file read again finds them). */
+static const char *const merged_names[C__COUNT] = {RESULTS_SERIES_RUN_MAP(RUN_MERGED)};
 
 /* One row of one input, placed in the merge. */
 typedef struct {
@@ -132,7 +102,7 @@ static int header(char *line, int *idx, const char *path, out_t *o)
     for (int c = 0; c < C__COUNT; c++) {
         idx[c] = -1;
         for (size_t k = 0; k < nf; k++)
-            if (!strcmp(f[k], col_names[c]) || (upper_names[c] && !strcmp(f[k], upper_names[c])))
+            if (!strcmp(f[k], col_names[c]) || (merged_names[c] && !strcmp(f[k], merged_names[c])))
                 idx[c] = (int)k;
         if (idx[c] < 0 && c < C__OPTIONAL) {
             out_error(o, "%s:1: no column '%s' in the header (needed to merge seconds)", path,
@@ -307,9 +277,9 @@ static int combine(row_t *g, size_t n)
  * columns (an older squall) makes them all unknown. seen has a flag per input, all false. */
 static void combine_run(row_t *g, size_t n, bool *seen)
 {
-    static const int sum[] = {C_W_OPEN,   C_W_DROPPED, C_W_RECONNECTS,
-                              C_W_EVENTS, C_IN_FLIGHT, C_QUEUED};
-    static const int max[] = {C_W_PROP_P99, C_QUEUE_WAIT};
+    static const int sum[] = {C_WATCH_OPEN,   C_WATCH_DROPPED, C_WATCH_RECONNECTS,
+                              C_WATCH_EVENTS, C_IN_FLIGHT,     C_QUEUED};
+    static const int max[] = {C_WATCH_P99, C_QUEUE_WAIT};
     double v[C__COUNT];
     bool missing = false;
     for (size_t k = 0; k < sizeof sum / sizeof sum[0]; k++)
@@ -320,7 +290,7 @@ static void combine_run(row_t *g, size_t n, bool *seen)
         if (seen[g[i].input])
             continue;
         seen[g[i].input] = true;
-        missing |= isnan(g[i].v[C_W_OPEN]);
+        missing |= isnan(g[i].v[C_WATCH_OPEN]);
         for (size_t k = 0; k < sizeof sum / sizeof sum[0]; k++)
             v[sum[k]] += g[i].v[sum[k]];
         for (size_t k = 0; k < sizeof max / sizeof max[0]; k++)
@@ -377,7 +347,7 @@ static int group(series_t *s, size_t *out, size_t *unknown)
 static int fill_series(FILE *f, void *ctx)
 {
     const series_t *s = ctx;
-    fprintf(f, "%s\n", MERGED_HEADER);
+    fprintf(f, "%s\n", RESULTS_SERIES_MERGED_HEADER);
     for (size_t i = 0; i < s->n; i++) {
         const row_t *r = &s->rows[i];
         const char *phase = s->keys[r->key], *cls = phase + strlen(phase) + 1;
@@ -388,9 +358,9 @@ static int fill_series(FILE *f, void *ctx)
                 (long long)v[C_COMPLETED], v[C_RATE], (long long)v[C_ERRORS], v[C_P50], v[C_P90],
                 v[C_P99], v[C_MAX], v[C_PLANNED], (long long)v[C_UNIX], v[C_P999]);
         /* The run's figures ("nan" when unknown: %.0f writes it for a NaN count). */
-        fprintf(f, "%.0f,%.0f,%.0f,%.0f,%.3f,%.3f,%.0f,%.0f\n", v[C_W_OPEN], v[C_W_DROPPED],
-                v[C_W_RECONNECTS], v[C_W_EVENTS], v[C_W_PROP_P99], v[C_QUEUE_WAIT], v[C_IN_FLIGHT],
-                v[C_QUEUED]);
+        fprintf(f, "%.0f,%.0f,%.0f,%.0f,%.3f,%.3f,%.0f,%.0f\n", v[C_WATCH_OPEN], v[C_WATCH_DROPPED],
+                v[C_WATCH_RECONNECTS], v[C_WATCH_EVENTS], v[C_WATCH_P99], v[C_QUEUE_WAIT],
+                v[C_IN_FLIGHT], v[C_QUEUED]);
     }
     return ferror(f) ? SQ_EIO : 0;
 }

@@ -465,7 +465,7 @@ static void test_counts_add(void **state)
 
 static int64_t ssamples[2][3][PER_SECOND];
 
-/* The run's figures (RESULTS_SERIES_RUN_COLUMNS) input i writes for its second k: open streams
+/* The run's figures (RESULTS_SERIES_RUN_MAP) input i writes for its second k: open streams
  * 2 + i, k dropped and k reconnects, 10 (i + 1) events, a propagation p99 of 5 (i + 1) ms (none
  * stamped, "nan", in input 1's second 0), a queue wait of 1.5 (i + 1) + k ms, 3 in flight and
  * 4 + i queued at the peak. */
@@ -525,7 +525,7 @@ static void write_series(const char *dir, int i, int64_t start_ms, int skip, boo
 typedef struct {
     long long second, completed, errors, unix_ms;
     double rate, p50, p99, planned;
-    double run[8]; /* the run's figures, RESULTS_SERIES_RUN_COLUMNS's order (NAN: "nan") */
+    double run[8]; /* the run's figures, RESULTS_SERIES_RUN_MAP's order (NAN: "nan") */
 } srow_t;
 
 /* The merged series.csv's rows (at most cap). */
