@@ -40,8 +40,7 @@ typedef struct {
     /* The whole run's figures of the second (RESULTS_SERIES_RUN_MAP: every phase and class,
      * the same on each row of the second); NaN when not written. A merge's propagation p99 and
      * peaks are upper bounds (report_series_upper). */
-    double watch_open, watch_dropped, watch_reconnects, watch_events, watch_p99_ms;
-    double queue_wait_max_ms, in_flight_peak, queued_peak;
+    double run[RESULTS_RUN__COUNT]; /* by enum results_run_figure */
 } report_row_t;
 
 /* A second's response times of one (phase, class) from series-hist.csv, counted into

@@ -51,6 +51,9 @@
     X(QUEUE_WAIT, "run_queue_wait_max_ms", "run_queue_wait_max_ms")                                \
     X(IN_FLIGHT, "run_in_flight_peak", "run_in_flight_peak_upper")                                 \
     X(QUEUED, "run_queued_peak", "run_queued_peak_upper")
+/* The run's figures by number: RESULTS_RUN_WATCH_OPEN, ..., RESULTS_RUN__COUNT. */
+#define RESULTS_SERIES_RUN_ENUM(e, name, merged) RESULTS_RUN_##e,
+enum results_run_figure { RESULTS_SERIES_RUN_MAP(RESULTS_SERIES_RUN_ENUM) RESULTS_RUN__COUNT };
 #define RESULTS_SERIES_RUN_HEADER(e, name, merged)     "," name
 #define RESULTS_SERIES_MERGED_HEADER_(e, name, merged) "," merged
 #define RESULTS_SERIES_HEADER                                                                      \

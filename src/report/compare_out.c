@@ -1,7 +1,6 @@
 /* A comparison as output: the terminal table, the JSON document (--json) and the HTML
  * side-by-side page (--html). */
 #include <math.h>
-#include <stddef.h>
 #include <stdlib.h>
 #include <string.h>
 #include <time.h>
@@ -367,7 +366,7 @@ static void watch_over_time(FILE *f, const report_cmp_t *c, const char *cls, siz
         x[k] = (double)k + 0.5;
     for (int k = 0; k < 2; k++)
         if (c->series[k])
-            any |= html_run_figure(c->series[k], offsetof(report_row_t, watch_p99_ms), y[k], cap);
+            any |= html_run_figure(c->series[k], RESULTS_RUN_WATCH_P99, y[k], cap);
     html_line_t l[2] = {{x, y[0], cap, "BASE propagation p99", 0, 0},
                         {x, y[1], cap, "NEW propagation p99", 1, 1}};
     if (any) {

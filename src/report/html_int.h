@@ -110,10 +110,10 @@ size_t html_thresholds(const results_t *res, const char *metric, const char *cls
  * and sets *any when some second has a value. */
 size_t html_class_p99(const report_series_t *s, const char *cls, double *x, double *y, size_t cap,
                       bool *any);
-/* A run's figure of the second (a double of report_row_t at offset off, e.g.
- * offsetof(report_row_t, watch_open)) over seconds 0..secs-1 of s into y, from each second's
- * first row (they all carry it); NaN where no row or not written. True when some second has one. */
-bool html_run_figure(const report_series_t *s, size_t off, double *y, size_t secs);
+/* A run's figure of the second (report_row_t's run[fig], e.g. RESULTS_RUN_WATCH_OPEN) over
+ * seconds 0..secs-1 of s into y, from each second's first row (they all carry it); NaN where no
+ * row or not written. True when some second has one. */
+bool html_run_figure(const report_series_t *s, enum results_run_figure fig, double *y, size_t secs);
 /* The generator-bound seconds as bands [s, s + 1) of the time axis. */
 size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap);
 /* A plot over the run's secs seconds: x in seconds since the start with the wall-clock start

@@ -2,7 +2,6 @@
  * the response time with its objectives' thresholds; generator-bound seconds shaded, phase
  * boundaries and actions marked, the wall-clock start written on the time axis. */
 #include <math.h>
-#include <stddef.h>
 #include <stdlib.h>
 #include <string.h>
 #include <time.h>
@@ -220,7 +219,7 @@ size_t html_class_p99(const report_series_t *s, const char *cls, double *x, doub
     return n;
 }
 
-bool html_run_figure(const report_series_t *s, size_t off, double *y, size_t secs)
+bool html_run_figure(const report_series_t *s, enum results_run_figure fig, double *y, size_t secs)
 {
     bool any = false;
     int64_t last = -1;
@@ -231,7 +230,7 @@ bool html_run_figure(const report_series_t *s, size_t off, double *y, size_t sec
         if (r->second == last || r->second < 0 || (size_t)r->second >= secs)
             continue; /* every row of a second carries the same figures: the first one's */
         last = r->second;
-        y[last] = *(const double *)(const void *)((const char *)r + off);
+        y[last] = r->run[fig];
         any |= !isnan(y[last]);
     }
     return any;
@@ -248,9 +247,9 @@ static void queue(FILE *f, const report_series_t *s, size_t secs, const html_plo
     double *x = all, *fl = all + secs, *qd = all + 2 * secs, *wait = all + 3 * secs;
     for (size_t k = 0; k < secs; k++)
         x[k] = (double)k + 0.5;
-    bool any = html_run_figure(s, offsetof(report_row_t, in_flight_peak), fl, secs);
-    any &= html_run_figure(s, offsetof(report_row_t, queued_peak), qd, secs);
-    any &= html_run_figure(s, offsetof(report_row_t, queue_wait_max_ms), wait, secs);
+    bool any = html_run_figure(s, RESULTS_RUN_IN_FLIGHT, fl, secs);
+    any &= html_run_figure(s, RESULTS_RUN_QUEUED, qd, secs);
+    any &= html_run_figure(s, RESULTS_RUN_QUEUE_WAIT, wait, secs);
     if (any) {
         bool up = report_series_upper(s);
         html_line_t peaks[] = {

@@ -165,14 +165,8 @@ static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, r
     row->p999_ms = v[C_P999];
     row->planned = v[C_PLANNED];
     row->unix_ms = (int64_t)v[C_UNIX_MS];
-    row->watch_open = v[C_WATCH_OPEN];
-    row->watch_dropped = v[C_WATCH_DROPPED];
-    row->watch_reconnects = v[C_WATCH_RECONNECTS];
-    row->watch_events = v[C_WATCH_EVENTS];
-    row->watch_p99_ms = v[C_WATCH_P99];
-    row->queue_wait_max_ms = v[C_QUEUE_WAIT];
-    row->in_flight_peak = v[C_IN_FLIGHT];
-    row->queued_peak = v[C_QUEUED];
+    for (int k = 0; k < RESULTS_RUN__COUNT; k++) /* the run's figures, in the map's order */
+        row->run[k] = v[C_WATCH_OPEN + k];
     return row->phase && row->cls;
 }
 

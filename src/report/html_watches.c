@@ -4,7 +4,6 @@
  * section) for the drops and reconnects. On the run's time axis; html_plots.c marks the seconds
  * streams were dropped on every plot over time. */
 #include <math.h>
-#include <stddef.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -24,7 +23,7 @@ static void events(FILE *f, const report_series_t *s, const html_plot_t *p, cons
                    size_t secs, double *y, const html_mark_t *m, size_t nm)
 {
     html_plot_t q = *p;
-    if (html_run_figure(s, offsetof(report_row_t, watch_events), y, secs)) {
+    if (html_run_figure(s, RESULTS_RUN_WATCH_EVENTS, y, secs)) {
         html_line_t l[] = {{x, y, secs, "events received", 2, 0}};
         q.title = "Watch events received in each second, every watch class";
         q.ylabel = "events per second";
@@ -35,7 +34,7 @@ static void events(FILE *f, const report_series_t *s, const html_plot_t *p, cons
                 "</figcaption></figure>\n",
                 total(y, secs));
     }
-    if (html_run_figure(s, offsetof(report_row_t, watch_p99_ms), y, secs)) {
+    if (html_run_figure(s, RESULTS_RUN_WATCH_P99, y, secs)) {
         bool up = report_series_upper(s);
         html_line_t l[] = {
             {x, y, secs,
@@ -68,15 +67,15 @@ void html_watches(FILE *f, const results_t *res, const report_series_t *s)
            *y = all + 4 * secs;
     for (size_t k = 0; k < secs; k++)
         x[k] = (double)k + 0.5;
-    bool from_series = s && html_run_figure(s, offsetof(report_row_t, watch_open), open, secs) &&
-                       total(open, secs) > 0;
+    bool from_series =
+        s && html_run_figure(s, RESULTS_RUN_WATCH_OPEN, open, secs) && total(open, secs) > 0;
     if (!from_series && (!w || !json_object_size(w))) {
         free(all); /* no watch stream in the run */
         return;
     }
     if (from_series) {
-        html_run_figure(s, offsetof(report_row_t, watch_dropped), drops, secs);
-        html_run_figure(s, offsetof(report_row_t, watch_reconnects), recon, secs);
+        html_run_figure(s, RESULTS_RUN_WATCH_DROPPED, drops, secs);
+        html_run_figure(s, RESULTS_RUN_WATCH_RECONNECTS, recon, secs);
     } else {
         html_reconnect_count(res, "ended_ns", drops, secs);
         html_reconnect_count(res, "sent_ns", recon, secs);
