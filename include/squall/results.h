@@ -225,7 +225,8 @@ int results_merge_finish(results_t *dst, out_t *o);
  * when a row of several inputs has no histogram. The run's figures of a second
  * (RESULTS_SERIES_RUN_MAP) are combined over the inputs: counts and open streams added, the
  * longest queue wait the largest, the propagation p99 and the peaks in flight and queued as upper
- * bounds under their _upper names (results_series.c says how). *written is false (nothing written,
+ * bounds under their _upper names (results_series.c says how; a merge of one input that has the
+ * exact names keeps them). *written is false (nothing written,
  * a warning on o) when an input has no series.csv. SQ_EIO, SQ_EPARSE (a line on o naming the file),
  * SQ_ENOMEM. */
 int results_series_merge(const char *const *dirs, size_t n, const results_t *merged,

@@ -34,6 +34,7 @@ typedef struct {
     enum html_xaxis xaxis;
     bool ylog;  /* log10 y axis; values <= 0 are left out */
     bool yzero; /* linear y axis starts at 0 */
+    bool ywhole; /* y counts things (streams, requests): ticks on whole numbers only */
     const html_band_t *bands;
     size_t n_bands;
     const char *band_label; /* the legend's name for the bands ("generator-bound") */

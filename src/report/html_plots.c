@@ -266,10 +266,12 @@ static void queue(FILE *f, const report_series_t *s, size_t secs, const html_plo
                   "engine: the teardown's deletes and the watch streams have engines of their "
                   "own)";
         q.ylabel = "requests";
+        q.ywhole = true;
         html_figure(f, "in-flight", &q, peaks, 2, m, nm);
         q.title = "Queue wait over time: the longest wait of a request in squall's admission "
                   "queue in each second (the target's slowness or too few connections)";
         q.ylabel = "queue wait (ms)";
+        q.ywhole = false;
         html_figure(f, "queue-wait", &q, w, 1, m, nm);
     }
     free(all);

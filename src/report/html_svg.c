@@ -155,6 +155,8 @@ static void tick_label(double v, char *buf, size_t cap)
 static void yticks(FILE *f, const html_plot_t *p, const axis_t *y)
 {
     double step = p->ylog ? 1 : nice_step(y->hi - y->lo);
+    if (p->ywhole && !p->ylog)
+        step = fmax(step, 1); /* no "1.5 streams" */
     for (double v = ceil(y->lo / step) * step; v <= y->hi + 1e-9 * step; v += step) {
         double py = ax_map(y, v);
         char lab[32];

@@ -98,6 +98,7 @@ void html_watches(FILE *f, const results_t *res, const report_series_t *s)
                             "reconnects sent in it"
                           : "Watch streams dropped and reconnects sent in each second";
     p.ylabel = "streams";
+    p.ywhole = true;
     fputs("<figure id=\"watch-drops\">\n", f);
     html_plot(f, &p, l, from_series ? 3 : 2, marks, nm);
     fprintf(f,

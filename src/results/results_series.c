@@ -58,6 +58,7 @@ typedef struct {
     size_t n_keys;
     int64_t start_ms;
     size_t input; /* the directory being read */
+    bool bounds;  /* the run's figures are bounds: several inputs, or an input that had them */
     out_t *o;
 } series_t;
 
@@ -95,15 +96,17 @@ static size_t key_of(series_t *s, const char *phase, const char *cls)
     return s->n_keys++;
 }
 
-static int header(char *line, int *idx, const char *path, out_t *o)
+static int header(series_t *s, char *line, int *idx, const char *path, out_t *o)
 {
     char *f[64];
     size_t nf = split(line, f, 64);
     for (int c = 0; c < C__COUNT; c++) {
         idx[c] = -1;
         for (size_t k = 0; k < nf; k++)
-            if (!strcmp(f[k], col_names[c]) || (merged_names[c] && !strcmp(f[k], merged_names[c])))
+            if (!strcmp(f[k], col_names[c]))
                 idx[c] = (int)k;
+            else if (merged_names[c] && !strcmp(f[k], merged_names[c]))
+                idx[c] = (int)k, s->bounds = true;
         if (idx[c] < 0 && c < C__OPTIONAL) {
             out_error(o, "%s:1: no column '%s' in the header (needed to merge seconds)", path,
                       col_names[c]);
@@ -179,7 +182,7 @@ static int read_input(series_t *s, FILE *f, FILE *hf, const char *path)
         out_error(s->o, "%s: empty file (expected a header line)", path);
         rc = SQ_EPARSE;
     } else {
-        rc = header(line, idx, path, s->o);
+        rc = header(s, line, idx, path, s->o);
     }
     if (hf && getline(&pending, &pcap, hf) >= 0)
         pending[0] = '\0'; /* its header */
@@ -347,7 +350,8 @@ static int group(series_t *s, size_t *out, size_t *unknown)
 static int fill_series(FILE *f, void *ctx)
 {
     const series_t *s = ctx;
-    fprintf(f, "%s\n", RESULTS_SERIES_MERGED_HEADER);
+    /* One input's figures stay exact (a merge of one input is that input): no bound's names. */
+    fprintf(f, "%s\n", s->bounds ? RESULTS_SERIES_MERGED_HEADER : RESULTS_SERIES_HEADER);
     for (size_t i = 0; i < s->n; i++) {
         const row_t *r = &s->rows[i];
         const char *phase = s->keys[r->key], *cls = phase + strlen(phase) + 1;
@@ -425,6 +429,7 @@ int results_series_merge(const char *const *dirs, size_t n, const results_t *mer
     series_t s = {.start_ms = merged->meta.start_unix_ms, .o = o};
     bool complete;
     size_t unknown = 0;
+    s.bounds = n > 1;
     *written = false;
     int rc = read_all(&s, dirs, n, &complete);
     if (rc == 0 && complete) {
