@@ -129,7 +129,8 @@ void html_time_note(const results_t *res, char *buf, size_t cap);
 size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m,
                         size_t cap);
 /* Marks at the seconds watch streams were dropped, after n marks in m. */
-size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap);
+size_t html_drop_marks(const results_t *res, const report_series_t *s, html_mark_t *m, size_t n,
+                       size_t cap);
 /* Adds each entry of the "watches" section's reconnect-log column key ("ended_ns", "sent_ns":
  * ns since the phase's start; 0 = not sent) to per[run second] over secs seconds; returns how
  * many it added. */
@@ -147,7 +148,7 @@ void html_metrics(FILE *f, const results_t *res, const report_series_t *s);
 /* html_metrics.c: the actions and collects ("actions" section), each saved file linked. */
 void html_actions(FILE *f, const results_t *res);
 /* html_storms.c: the "storms" section's ticks, when a fleet phase ran. */
-void html_storms(FILE *f, const results_t *res);
+void html_storms(FILE *f, const results_t *res, const report_series_t *s);
 void html_plots_time(FILE *f, const results_t *res, const report_series_t *s);
 /* html_tails.c: per phase, the share of requests slower than x; per class, the latency heat
  * map over time (series-hist.csv's bins). */

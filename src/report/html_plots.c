@@ -49,7 +49,7 @@ size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mar
 {
     size_t n = phase_starts(res, s, m, cap);
     n = action_marks(res, m, n, cap);
-    return html_drop_marks(res, m, n, cap);
+    return html_drop_marks(res, s, m, n, cap);
 }
 
 /* Phase boundaries: the "phases" section's starts when the run wrote one, else the first
@@ -133,14 +133,21 @@ size_t html_run_seconds(const results_t *res)
     return d >= 1 ? (size_t)d : 1;
 }
 
-size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap)
+size_t html_drop_marks(const results_t *res, const report_series_t *s, html_mark_t *m, size_t n,
+                       size_t cap)
 {
     static char labels[64][32]; /* the page is written by one thread */
     size_t secs = html_run_seconds(res);
     double *per = calloc(secs, sizeof(double));
     if (!per)
         return n;
-    html_reconnect_count(res, "ended_ns", per, secs);
+    /* series.csv's drops per second when it has them (so that marks and the watch plot's drops
+     * fall in the same seconds, a merge's too), else the reconnect logs. */
+    if (s && html_run_figure(s, RESULTS_RUN_WATCH_DROPPED, per, secs))
+        for (size_t k = 0; k < secs; k++)
+            per[k] = isnan(per[k]) ? 0 : per[k];
+    else
+        html_reconnect_count(res, "ended_ns", per, secs);
     for (size_t k = 0, used = 0; k < secs && n < cap && used < 64; k++)
         if (per[k] > 0) {
             snprintf(labels[used], sizeof labels[0], "%.0f dropped", per[k]);
@@ -253,11 +260,8 @@ static void queue(FILE *f, const report_series_t *s, size_t secs, const html_plo
     if (any) {
         bool up = report_series_upper(s);
         html_line_t peaks[] = {
-            {x, fl, secs,
-             up ? "in flight, peak (shards' peaks added: an upper bound)" : "in flight, peak", 0,
-             0},
-            {x, qd, secs,
-             up ? "queued, peak (shards' peaks added: an upper bound)" : "queued, peak", 1, 1},
+            {x, fl, secs, up ? "in flight, peak (upper bound)" : "in flight, peak", 0, 0},
+            {x, qd, secs, up ? "queued, peak (upper bound)" : "queued, peak", 1, 1},
         };
         html_line_t w[] = {{x, wait, secs, "longest queue wait", 4, 0}};
         html_plot_t q = *p;
@@ -267,6 +271,12 @@ static void queue(FILE *f, const report_series_t *s, size_t secs, const html_plo
                   "own)";
         q.ylabel = "requests";
         q.ywhole = true;
+        char title[400];
+        snprintf(title, sizeof title, "%s%s", q.title,
+                 up ? "; merged: the shards' peaks added, an upper bound (they need not "
+                      "coincide)"
+                    : "");
+        q.title = title;
         html_figure(f, "in-flight", &q, peaks, 2, m, nm);
         q.title = "Queue wait over time: the longest wait of a request in squall's admission "
                   "queue in each second (the target's slowness or too few connections)";

@@ -51,7 +51,8 @@ typedef struct {
     char note[80];
 } span_t;
 
-static void span_init(span_t *s, const results_t *res, const char *phase)
+static void span_init(span_t *s, const results_t *res, const report_series_t *series,
+                      const char *phase)
 {
     double t1;
     s->nm = 0;
@@ -65,7 +66,7 @@ static void span_init(span_t *s, const results_t *res, const char *phase)
     s->p.xmin = s->t0;
     s->p.xmax = t1;
     html_mark_t all[128];
-    size_t n = html_phase_marks(res, NULL, all, 128);
+    size_t n = html_phase_marks(res, series, all, 128);
     for (size_t i = 0; i < n; i++)
         if (all[i].x >= s->t0 && all[i].x <= t1)
             s->marks[s->nm++] = all[i];
@@ -131,7 +132,7 @@ static void action_plot(FILE *f, const span_t *sp, const char *phase, json_t *a,
             (long long)json_integer_value(json_object_get(a, "max_peak_in_flight")));
 }
 
-void html_storms(FILE *f, const results_t *res)
+void html_storms(FILE *f, const results_t *res, const report_series_t *series)
 {
     json_t *s = results_section(res, "storms"), *ph;
     const char *phase;
@@ -155,7 +156,7 @@ void html_storms(FILE *f, const results_t *res)
         span_t *sp = malloc(sizeof(*sp));
         if (!sp)
             break;
-        span_init(sp, res, phase);
+        span_init(sp, res, series, phase);
         json_array_foreach(json_object_get(ph, "actions"), i, a) action_plot(f, sp, phase, a, buf);
         free(sp);
     }

@@ -37,9 +37,7 @@ static void events(FILE *f, const report_series_t *s, const html_plot_t *p, cons
     if (html_run_figure(s, RESULTS_RUN_WATCH_P99, y, secs)) {
         bool up = report_series_upper(s);
         html_line_t l[] = {
-            {x, y, secs,
-             up ? "propagation p99 (the largest shard's: an upper bound)" : "propagation p99", 3,
-             0}};
+            {x, y, secs, up ? "propagation p99 (upper bound)" : "propagation p99", 3, 0}};
         q.title = "Watch propagation p99 in each second: from the stamp written into an object "
                   "to its event's arrival, events that carried a stamp";
         q.ylabel = "propagation (ms, log scale)";

@@ -326,7 +326,7 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
     html_plots_heat(f, res, s);
     html_plots_tails(f, res);
     html_watches(f, res, s);
-    html_storms(f, res);
+    html_storms(f, res, s);
     html_metrics(f, res, s);
     html_actions(f, res);
     fputs("<p class=\"note\">Colours: Okabe&#8211;Ito palette; each class also has its own "

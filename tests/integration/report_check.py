@@ -163,7 +163,7 @@ qw = [s for s in p.svgs if (s["figure"] or {}).get("class") == "queue-wait"]
 merged = mode == "merged"
 peak_names = ["in flight, peak", "queued, peak"]
 if merged:  # a merge adds the shards' peaks: labelled an upper bound on the plot
-    peak_names = [n + " (shards' peaks added: an upper bound)" for n in peak_names]
+    peak_names = [n + " (upper bound)" for n in peak_names]
 check("series.csv has the run's figures %s" % ("with _upper names" if merged else ""),
       rows and all(k in rows[0] for k in (
           "run_watch_open", "run_watch_dropped", "run_watch_reconnects", "run_watch_events",
@@ -310,8 +310,7 @@ else:
     check("watches over time: streams dropped, reconnects sent and streams open on one plot",
           "watch-drops" in w and w["watch-drops"]["series"]
           == ["streams dropped", "reconnects sent", "streams open (end of the second)"], w.keys())
-    prop_name = ("propagation p99 (the largest shard's: an upper bound)" if merged
-                 else "propagation p99")
+    prop_name = "propagation p99 (upper bound)" if merged else "propagation p99"
     check("watch events per second and propagation p99 per second (%s) plots" % prop_name,
           w.get("watch-events", {}).get("series") == ["events received"]
           and w.get("watch-propagation", {}).get("series") == [prop_name]
@@ -333,6 +332,20 @@ else:
     cap = re.search(r"Watch events received in each second \((\d+) in all\)", page_text)
     check("the events plot's caption counts series.csv's events (%d)" % n_events,
           cap and int(cap.group(1)) == n_events and n_events > 0, cap and cap.group(1))
+    # The drop marks are series.csv's drops: on the offered-load plot (the whole run), each
+    # second with drops marked once with its count, at that second's start.
+    chunk = page_text[page_text.index('<figure class="offered"'):]
+    chunk = chunk[:chunk.index("</figure>")]
+    marked = {round(float(x) , 1): int(n) for x, n in re.findall(
+        r'class="mark drop"><line x1="([\d.]+)"[^>]*/><text[^>]*>(\d+) dropped</text>', chunk)}
+    want = sorted(int(float(r["run_watch_dropped"])) for r in srow if float(r["run_watch_dropped"]) > 0)
+    check("drop marks: one per second with drops, labelled with series.csv's counts %s" % want,
+          sorted(marked.values()) == want, marked)
+    if merged:
+        check("merged: the in-flight caption says the peaks are the shards' added, an upper bound",
+              "merged: the shards' peaks added, an upper bound" in page_text)
+        check("merged: the propagation caption says each second is the largest shard's p99",
+              "each second shows the largest shard's p99, an upper bound" in page_text)
     opens = [float(r["run_watch_open"]) for r in srow]
     check("streams were open (%s) and their line has a point per second" % max(opens),
           max(opens) > 0 and len(w["watch-drops"]["points"][2]) == len(per_second),
