@@ -37,6 +37,10 @@ typedef struct {
     double p999_ms; /* NaN in a file written before the column existed */
     double planned; /* requests the schedule planned to start that second; NaN when not written */
     int64_t unix_ms; /* wall-clock start of the second; 0 when not written */
+    /* The whole run's figures of the second (RESULTS_SERIES_RUN_MAP: every phase and class,
+     * the same on each row of the second); NaN when not written. A merge's propagation p99 and
+     * peaks are upper bounds (report_series_upper). */
+    double run[RESULTS_RUN__COUNT]; /* by enum results_run_figure */
 } report_row_t;
 
 /* A second's response times of one (phase, class) from series-hist.csv, counted into
@@ -67,6 +71,9 @@ size_t report_series_heat_count(const report_series_t *s);
 const report_heat_row_t *report_series_heat_at(const report_series_t *s, size_t i);
 /* True when the file had the p999_ms column (an older squall wrote none). */
 bool report_series_has_p999(const report_series_t *s);
+/* The run's figures carry a merge's _upper names: its propagation p99 is the largest shard's and
+ * its peaks the shards' added, upper bounds of the pooled figures. */
+bool report_series_upper(const report_series_t *s);
 
 /* ---- report.html ------------------------------------------------------------------------ */
 

@@ -32,13 +32,39 @@
  * so that a merge of shards gives every merged second the percentiles of all its samples.
  * Columns are only ever added at the end; readers find them by name. */
 #define RESULTS_SERIES_FILE "series.csv"
-#define RESULTS_SERIES_HEADER                                                                      \
+#define RESULTS_SERIES_ROW_COLUMNS                                                                 \
     "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,"  \
-    "unix_ms,p999_ms,marks," RESULTS_SERIES_SYNC
-/* series.csv's synchronisation gauge of a fleet action's row: its last closed window (index,
- * sends, R̄, Rayleigh p, peak-to-mean), empty in other rows and in a merge's series (the merged
- * gauge is results.json's "sync" section). */
+    "unix_ms,p999_ms,marks"
+/* Then the whole run's figures of the second (every phase and class), the same on every row of
+ * the second (so never add them across a second's rows): watch streams open at its end,
+ * dropped, reconnects sent and events received in it, the p99 of its stamped events'
+ * propagation ("nan" when none was stamped), and the main engine's longest admission-queue wait
+ * and peaks of in flight and queued. X(enum suffix, name, the name a merge writes): a merge
+ * renames the figures it can only bound (the largest shard's p99 and the shards' peaks added
+ * are upper bounds of the pooled figures). */
+#define RESULTS_SERIES_RUN_MAP(X)                                                                  \
+    X(WATCH_OPEN, "run_watch_open", "run_watch_open")                                              \
+    X(WATCH_DROPPED, "run_watch_dropped", "run_watch_dropped")                                     \
+    X(WATCH_RECONNECTS, "run_watch_reconnects", "run_watch_reconnects")                            \
+    X(WATCH_EVENTS, "run_watch_events", "run_watch_events")                                        \
+    X(WATCH_P99, "run_watch_propagation_p99_ms", "run_watch_propagation_p99_upper_ms")             \
+    X(QUEUE_WAIT, "run_queue_wait_max_ms", "run_queue_wait_max_ms")                                \
+    X(IN_FLIGHT, "run_in_flight_peak", "run_in_flight_peak_upper")                                 \
+    X(QUEUED, "run_queued_peak", "run_queued_peak_upper")
+/* The run's figures by number: RESULTS_RUN_WATCH_OPEN, ..., RESULTS_RUN__COUNT. */
+#define RESULTS_SERIES_RUN_ENUM(e, name, merged) RESULTS_RUN_##e,
+enum results_run_figure { RESULTS_SERIES_RUN_MAP(RESULTS_SERIES_RUN_ENUM) RESULTS_RUN__COUNT };
+#define RESULTS_SERIES_RUN_HEADER(e, name, merged)     "," name
+#define RESULTS_SERIES_MERGED_HEADER_(e, name, merged) "," merged
+/* Last, series.csv's synchronisation gauge of a fleet action's row: its last closed window
+ * (index, sends, R̄, Rayleigh p, peak-to-mean), empty in other rows and in a merge's series
+ * (the merged gauge is results.json's "sync" section). */
 #define RESULTS_SERIES_SYNC "sync_window,sync_n,sync_r_bar,sync_p,sync_peak_to_mean"
+#define RESULTS_SERIES_HEADER                                                                      \
+    RESULTS_SERIES_ROW_COLUMNS RESULTS_SERIES_RUN_MAP(RESULTS_SERIES_RUN_HEADER) "," RESULTS_SERIES_SYNC
+#define RESULTS_SERIES_MERGED_HEADER                                                               \
+    RESULTS_SERIES_ROW_COLUMNS RESULTS_SERIES_RUN_MAP(RESULTS_SERIES_MERGED_HEADER_)                \
+    "," RESULTS_SERIES_SYNC
 #define RESULTS_SERIES_HIST_FILE   "series-hist.csv"
 #define RESULTS_SERIES_HIST_HEADER "second,phase,class,unix_ms,response"
 
@@ -203,8 +229,12 @@ int results_merge_finish(results_t *dst, out_t *o);
  * RESULTS_SERIES_HIST_FILE) combined into dir: rows of the same wall-clock second (unix_ms,
  * to the nearest second of merged's start) and (phase, class) add their counts, rates and
  * planned starts; their percentiles come from the merged histograms, or are written as "nan"
- * when a row of several inputs has no histogram. *written is false (nothing written, a warning
- * on o) when an input has no series.csv. SQ_EIO, SQ_EPARSE (a line on o naming the file),
+ * when a row of several inputs has no histogram. The run's figures of a second
+ * (RESULTS_SERIES_RUN_MAP) are combined over the inputs: counts and open streams added, the
+ * longest queue wait the largest, the propagation p99 and the peaks in flight and queued as upper
+ * bounds under their _upper names (results_series.c says how; a merge of one input that has the
+ * exact names keeps them). *written is false (nothing written,
+ * a warning on o) when an input has no series.csv. SQ_EIO, SQ_EPARSE (a line on o naming the file),
  * SQ_ENOMEM. */
 int results_series_merge(const char *const *dirs, size_t n, const results_t *merged,
                          const char *dir, bool *written, out_t *o);

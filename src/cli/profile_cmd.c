@@ -214,7 +214,7 @@ const cli_cmd_t cli_cmd_profile = {
         "NDJSON fields (--field NAME=KEY, dotted keys reach into objects): time, method,\n"
         "path (a path or a full URI), status, duration, client, bytes, body; defaults are\n"
         "the NAMEs themselves.\n"
-        "The log is refused (exit 2) when most of its first 1,000 lines do not parse. Exit 0\n"
+        "The log is refused (exit 2) when most of its first 1000 lines do not parse. Exit 0\n"
         "plan written, 2 usage or a log it cannot use, 6 input/output failure.",
     .opts = profile_opts,
     .main = profile_main,

@@ -46,8 +46,11 @@ const cli_cmd_t cli_cmd_report = {
         "Reads RESULTS_DIR/results.json and RESULTS_DIR/series.csv and writes\n"
         "RESULTS_DIR/report.html: one self-contained page (inline SVG and CSS, no scripts,\n"
         "nothing fetched) with the run header, objective verdicts, generator health, per phase\n"
-        "and class tables, plots over time and latency percentile spectra. squall run writes\n"
-        "the same file at the end of every run. Without series.csv the plots over time are\n"
+        "and class tables, plots over time (offered vs achieved, queue wait and in flight,\n"
+        "errors, latency per class, heat maps, watches, storm ticks; in seconds since the start,\n"
+        "the wall-clock start on the axis, dropped watch streams marked) and per phase the\n"
+        "share of requests slower than x. squall run writes the same file at the end of every\n"
+        "run. Numbers have no thousands separators. Without series.csv the plots over time are\n"
         "left out. Exit 0 when written, 2 on a usage mistake, 6 when a file cannot be read or\n"
         "written.",
     .opts = report_opts,

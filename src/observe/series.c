@@ -1,7 +1,9 @@
 /* series.csv: one row per phase x class x second, percentiles from that second's histogram. A
  * second in which a phase ends has rows for both phases, each holding only its own requests (a
  * request belongs to the phase that started it); the teardown has rows of its own. Each row's
- * histogram goes to series-hist.csv, so that a merge can give merged seconds exact percentiles. */
+ * histogram goes to series-hist.csv, so that a merge can give merged seconds exact percentiles. The
+ * row ends with the run's figures of the second (watch streams, the admission queue), the same on
+ * every row of that second. */
 #include <errno.h>
 #include <stdlib.h>
 #include <string.h>
@@ -86,23 +88,40 @@ static void sync_cells(FILE *f, const obs_second_t *w, const obs_cell_t *c)
     fputs(",,,,\n", f);
 }
 
+/* The run's figures of the second (RESULTS_SERIES_RUN_MAP), one text for all its rows. */
+static void run_columns(const obs_second_t *w, char *buf, size_t cap)
+{
+    static const obs_watch_second_t none = {0};
+    const obs_watch_second_t *ws = w->watch ? w->watch : &none;
+    const hist_t *prop = ws->propagation;
+    char p99[32] = "nan";
+    if (prop && hist_count(prop) > 0)
+        snprintf(p99, sizeof p99, "%.3f", ms(hist_value_at(prop, 99)));
+    snprintf(buf, cap, "%lld,%lld,%lld,%lld,%s,%.3f,%d,%d", (long long)ws->open,
+             (long long)ws->dropped, (long long)ws->reconnects, (long long)ws->events, p99,
+             w->eng ? ms(w->eng->max_queue_wait_ns) : 0.0, w->eng ? w->eng->max_in_flight : 0,
+             w->eng ? w->eng->max_queued : 0);
+}
+
 static void series_second(void *self, const obs_second_t *w)
 {
     series_t *s = self;
     if (!s->f || !s->fh)
         return;
+    char run[256];
+    run_columns(w, run, sizeof run);
     for (size_t i = 0; i < w->n_cells; i++) {
         const obs_cell_t *c = &w->cells[i];
         const hist_t *h = c->response;
         bool any = h && c->completed > 0;
-        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,%s,",
+        fprintf(s->f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,%s,%s,",
                 (long long)w->index, obs_phase_name(s->plan, c->phase),
                 obs_class_name(s->plan, c->cls), (long long)c->started, (long long)c->completed,
                 (double)c->completed / w->secs, (long long)c->errors,
                 any ? ms(hist_value_at(h, 50)) : 0.0, any ? ms(hist_value_at(h, 90)) : 0.0,
                 any ? ms(hist_value_at(h, 99)) : 0.0, any ? ms(hist_max(h)) : 0.0, c->planned,
                 (long long)((w->start_ns + s->real_minus_mono) / 1000000),
-                any ? ms(hist_value_at(h, 99.9)) : 0.0, w->marks ? w->marks : "");
+                any ? ms(hist_value_at(h, 99.9)) : 0.0, w->marks ? w->marks : "", run);
         sync_cells(s->f, w, c);
         /* Out of memory, the row has no histogram: a merge then marks its percentiles unknown. */
         char *text = NULL;

@@ -366,9 +366,42 @@ static bool spectrum(FILE *f, const results_t *b, const results_t *n, const char
     return true;
 }
 
-/* A class's p99 in each second of BASE and of NEW, each from its own start, on one plot;
- * nothing when neither run completed a request of the class (a watch class). */
-static void over_time(FILE *f, const report_cmp_t *c, const char *cls)
+/* The watch propagation p99 of each second of BASE and NEW (series.csv's run figure: every
+ * watch class together), each from its own start, on one plot; nothing when neither run's
+ * series.csv has it. */
+static void watch_over_time(FILE *f, const report_cmp_t *c, const char *cls, size_t cap)
+{
+    double *buf = calloc(4 * cap, sizeof(double));
+    if (!buf)
+        return;
+    double *x = buf, *y[2] = {buf + cap, buf + 2 * cap};
+    bool any = false;
+    for (size_t k = 0; k < cap; k++)
+        x[k] = (double)k + 0.5;
+    for (int k = 0; k < 2; k++)
+        if (c->series[k])
+            any |= html_run_figure(c->series[k], RESULTS_RUN_WATCH_P99, y[k], cap);
+    html_line_t l[2] = {{x, y[0], cap, "BASE propagation p99", 0, 0},
+                        {x, y[1], cap, "NEW propagation p99", 1, 1}};
+    if (any) {
+        char title[240];
+        snprintf(title, sizeof title,
+                 "%s: watch propagation p99 in each second, BASE and NEW (series.csv keeps it "
+                 "over every watch class of the run)",
+                 cls);
+        html_plot_t p = {.title = title,
+                         .xlabel = "time since each run started (s)",
+                         .ylabel = "propagation p99 (ms, log scale)",
+                         .ylog = true};
+        html_figure(f, "over-time", &p, l, 2, NULL, 0);
+    }
+    free(buf);
+}
+
+/* A class's p99 in each second of BASE and of NEW, each from its own start, on one plot; for a
+ * watch class (no request completes) the propagation p99 of each second, once for the first
+ * watch class (series.csv has it for every watch class together). */
+static void over_time(FILE *f, const report_cmp_t *c, const char *cls, bool watch, bool *watched)
 {
     size_t cap = 0;
     for (int k = 0; k < 2; k++)
@@ -384,7 +417,10 @@ static void over_time(FILE *f, const report_cmp_t *c, const char *cls)
         if (c->series[k])
             n[k] = html_class_p99(c->series[k], cls, x[k], y[k], cap, &any[k]);
     html_line_t l[2] = {{x[0], y[0], n[0], "BASE p99", 0, 0}, {x[1], y[1], n[1], "NEW p99", 1, 1}};
-    if (any[0] || any[1]) {
+    if (!any[0] && !any[1] && watch && !*watched) {
+        watch_over_time(f, c, cls, cap);
+        *watched = true;
+    } else if (any[0] || any[1]) {
         char title[200];
         snprintf(title, sizeof title, "%s: response time p99 in each second, BASE and NEW", cls);
         html_plot_t p = {.title = title,
@@ -403,6 +439,7 @@ static void spectra(FILE *f, const report_cmp_t *c, const results_t *b, const re
     int64_t lo, hi;
     int digits;
     hist_t *h = NULL;
+    bool watched = false;
     results_hist_config(b, &lo, &hi, &digits);
     if (hist_new(lo, hi, digits, &h))
         return;
@@ -412,7 +449,7 @@ static void spectra(FILE *f, const report_cmp_t *c, const results_t *b, const re
         for (size_t k = 0; k < i && first; k++)
             first = strcmp(results_cell_class(results_cell_at(b, k)), cls) != 0;
         if (first) {
-            over_time(f, c, cls);
+            over_time(f, c, cls, spectrum_metric(b, cls) == RESULTS_M_PROPAGATION, &watched);
             spectrum(f, b, n, cls, h);
         }
     }

@@ -34,6 +34,7 @@ typedef struct {
     enum html_xaxis xaxis;
     bool ylog;  /* log10 y axis; values <= 0 are left out */
     bool yzero; /* linear y axis starts at 0 */
+    bool ywhole; /* y counts things (streams, requests): ticks on whole numbers only */
     const html_band_t *bands;
     size_t n_bands;
     const char *band_label; /* the legend's name for the bands ("generator-bound") */
@@ -78,7 +79,8 @@ typedef struct {
 void html_heat(FILE *f, const html_plot_t *p, const html_heat_t *h, const html_mark_t *marks,
                size_t n_marks);
 
-/* A number for people, never in scientific notation: 12,000 / 250 / 1.5 / 0.002. */
+/* A number for people, never in scientific notation and, as on the terminal, without thousands
+ * separators: 12000 / 250 / 1.5 / 0.002. */
 void html_num(double v, char *buf, size_t cap);
 
 /* Writes <svg class="plot"> with axes, ticks, one <g class="series"> per line, marks and a
@@ -109,6 +111,10 @@ size_t html_thresholds(const results_t *res, const char *metric, const char *cls
  * and sets *any when some second has a value. */
 size_t html_class_p99(const report_series_t *s, const char *cls, double *x, double *y, size_t cap,
                       bool *any);
+/* A run's figure of the second (report_row_t's run[fig], e.g. RESULTS_RUN_WATCH_OPEN) over
+ * seconds 0..secs-1 of s into y, from each second's first row (they all carry it); NaN where no
+ * row or not written. True when some second has one. */
+bool html_run_figure(const report_series_t *s, enum results_run_figure fig, double *y, size_t secs);
 /* The generator-bound seconds as bands [s, s + 1) of the time axis. */
 size_t html_bound_bands(const results_t *res, html_band_t *b, size_t cap);
 /* A plot over the run's secs seconds: x in seconds since the start with the wall-clock start
@@ -123,21 +129,26 @@ void html_time_note(const results_t *res, char *buf, size_t cap);
 size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mark_t *m,
                         size_t cap);
 /* Marks at the seconds watch streams were dropped, after n marks in m. */
-size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap);
+size_t html_drop_marks(const results_t *res, const report_series_t *s, html_mark_t *m, size_t n,
+                       size_t cap);
 /* Adds each entry of the "watches" section's reconnect-log column key ("ended_ns", "sent_ns":
  * ns since the phase's start; 0 = not sent) to per[run second] over secs seconds; returns how
  * many it added. */
 size_t html_reconnect_count(const results_t *res, const char *key, double *per, size_t secs);
+/* A phase's start and end in run seconds (the "phases" section); false (NaN) when unknown. */
+bool html_phase_span(const results_t *res, const char *phase, double *t0, double *t1);
 /* The run's whole seconds (at least 1). */
 size_t html_run_seconds(const results_t *res);
-/* html_watches.c: the "watches" section's drops and reconnects per second. */
-void html_watches(FILE *f, const results_t *res);
+/* html_watches.c: watch streams open, dropped and reconnected, events and propagation p99 per
+ * second (series.csv's run figures, else the "watches" section's reconnect log); nothing when
+ * the run opened no watch stream. */
+void html_watches(FILE *f, const results_t *res, const report_series_t *s);
 /* html_metrics.c: the target's scraped metrics ("metrics" section), when the plan observed any. */
 void html_metrics(FILE *f, const results_t *res, const report_series_t *s);
 /* html_metrics.c: the actions and collects ("actions" section), each saved file linked. */
 void html_actions(FILE *f, const results_t *res);
 /* html_storms.c: the "storms" section's ticks, when a fleet phase ran. */
-void html_storms(FILE *f, const results_t *res);
+void html_storms(FILE *f, const results_t *res, const report_series_t *s);
 /* html_sync.c: the "sync" section's R̄ per window of each fleet action, when a fleet ran. */
 void html_sync(FILE *f, const results_t *res);
 void html_plots_time(FILE *f, const results_t *res, const report_series_t *s);

@@ -53,7 +53,7 @@ typedef struct {
 
 /* One plot of the series list[from..] that belong with list[from]; marks them used. */
 static void plot_metric(FILE *f, json_t *list, size_t from, bool *used, int64_t t0_ms,
-                        const html_mark_t *marks, size_t nm)
+                        const html_mark_t *marks, size_t nm, const char *note)
 {
     json_t *first = json_array_get(list, from);
     const char *metric = json_string_value(json_object_get(first, "metric"));
@@ -110,7 +110,8 @@ static void plot_metric(FILE *f, json_t *list, size_t from, bool *used, int64_t 
     html_plot_t p = {.title = title,
                      .xlabel = "time since the run started (s)",
                      .ylabel = ylabel,
-                     .yzero = true};
+                     .yzero = true,
+                     .xnote = note};
     fputs("<figure>\n", f);
     html_plot(f, &p, lines, n, marks, nm);
     fputs("<figcaption>", f);
@@ -139,10 +140,12 @@ void html_metrics(FILE *f, const results_t *res, const report_series_t *s)
     html_mark_t marks[MAX_MARKS];
     size_t nm = s ? html_phase_marks(res, s, marks, MAX_MARKS) : 0;
     int64_t t0 = results_meta(res)->start_unix_ms;
+    char note[80]; /* the wall-clock start, on every plot's time axis */
+    html_time_note(res, note, sizeof note);
     bool *used = calloc(n ? n : 1, sizeof *used);
     for (size_t i = 0; used && i < n; i++)
         if (!used[i])
-            plot_metric(f, list, i, used, t0, marks, nm);
+            plot_metric(f, list, i, used, t0, marks, nm, note);
     free(used);
     json_int_t more = json_integer_value(json_object_get(m, "derived_not_shown"));
     if (more > 0)

@@ -49,7 +49,7 @@ size_t html_phase_marks(const results_t *res, const report_series_t *s, html_mar
 {
     size_t n = phase_starts(res, s, m, cap);
     n = action_marks(res, m, n, cap);
-    return html_drop_marks(res, m, n, cap);
+    return html_drop_marks(res, s, m, n, cap);
 }
 
 /* Phase boundaries: the "phases" section's starts when the run wrote one, else the first
@@ -82,18 +82,29 @@ static size_t phase_starts(const results_t *res, const report_series_t *s, html_
     return n;
 }
 
-/* The run second a phase started at ("phases" section); NAN when unknown. */
-static double phase_start(const results_t *res, const char *phase)
+bool html_phase_span(const results_t *res, const char *phase, double *t0, double *t1)
 {
     json_t *list = json_object_get(results_section(res, "phases"), "phases"), *p;
     size_t i;
+    *t0 = *t1 = NAN;
     json_array_foreach(list, i, p)
     {
         const char *name = json_string_value(json_object_get(p, "name"));
-        if (name && !strcmp(name, phase))
-            return json_number_value(json_object_get(p, "start_s"));
+        if (name && !strcmp(name, phase)) {
+            *t0 = json_number_value(json_object_get(p, "start_s"));
+            *t1 = *t0 + json_number_value(json_object_get(p, "elapsed_s"));
+            return true;
+        }
     }
-    return NAN;
+    return false;
+}
+
+/* The run second a phase started at; NAN when unknown. */
+static double phase_start(const results_t *res, const char *phase)
+{
+    double t0, t1;
+    html_phase_span(res, phase, &t0, &t1);
+    return t0;
 }
 
 size_t html_reconnect_count(const results_t *res, const char *key, double *per, size_t secs)
@@ -122,14 +133,21 @@ size_t html_run_seconds(const results_t *res)
     return d >= 1 ? (size_t)d : 1;
 }
 
-size_t html_drop_marks(const results_t *res, html_mark_t *m, size_t n, size_t cap)
+size_t html_drop_marks(const results_t *res, const report_series_t *s, html_mark_t *m, size_t n,
+                       size_t cap)
 {
     static char labels[64][32]; /* the page is written by one thread */
     size_t secs = html_run_seconds(res);
     double *per = calloc(secs, sizeof(double));
     if (!per)
         return n;
-    html_reconnect_count(res, "ended_ns", per, secs);
+    /* series.csv's drops per second when it has them (so that marks and the watch plot's drops
+     * fall in the same seconds, a merge's too), else the reconnect logs. */
+    if (s && html_run_figure(s, RESULTS_RUN_WATCH_DROPPED, per, secs))
+        for (size_t k = 0; k < secs; k++)
+            per[k] = isnan(per[k]) ? 0 : per[k];
+    else
+        html_reconnect_count(res, "ended_ns", per, secs);
     for (size_t k = 0, used = 0; k < secs && n < cap && used < 64; k++)
         if (per[k] > 0) {
             snprintf(labels[used], sizeof labels[0], "%.0f dropped", per[k]);
@@ -206,6 +224,67 @@ size_t html_class_p99(const report_series_t *s, const char *cls, double *x, doub
         }
     }
     return n;
+}
+
+bool html_run_figure(const report_series_t *s, enum results_run_figure fig, double *y, size_t secs)
+{
+    bool any = false;
+    int64_t last = -1;
+    for (size_t k = 0; k < secs; k++)
+        y[k] = NAN;
+    for (size_t i = 0; i < report_series_count(s); i++) {
+        const report_row_t *r = report_series_at(s, i);
+        if (r->second == last || r->second < 0 || (size_t)r->second >= secs)
+            continue; /* every row of a second carries the same figures: the first one's */
+        last = r->second;
+        y[last] = r->run[fig];
+        any |= !isnan(y[last]);
+    }
+    return any;
+}
+
+/* Queue and in flight per second: the peaks in flight and queued, and the longest wait in the
+ * admission queue (the run's figures of series.csv), when the file has them. */
+static void queue(FILE *f, const report_series_t *s, size_t secs, const html_plot_t *p,
+                  const html_mark_t *m, size_t nm)
+{
+    double *all = calloc(4 * secs, sizeof(double));
+    if (!all)
+        return;
+    double *x = all, *fl = all + secs, *qd = all + 2 * secs, *wait = all + 3 * secs;
+    for (size_t k = 0; k < secs; k++)
+        x[k] = (double)k + 0.5;
+    bool any = html_run_figure(s, RESULTS_RUN_IN_FLIGHT, fl, secs);
+    any &= html_run_figure(s, RESULTS_RUN_QUEUED, qd, secs);
+    any &= html_run_figure(s, RESULTS_RUN_QUEUE_WAIT, wait, secs);
+    if (any) {
+        bool up = report_series_upper(s);
+        html_line_t peaks[] = {
+            {x, fl, secs, up ? "in flight, peak (upper bound)" : "in flight, peak", 0, 0},
+            {x, qd, secs, up ? "queued, peak (upper bound)" : "queued, peak", 1, 1},
+        };
+        html_line_t w[] = {{x, wait, secs, "longest queue wait", 4, 0}};
+        html_plot_t q = *p;
+        q.title = "Queue wait and in flight over time: the peaks of the plan's requests in "
+                  "flight and waiting in squall's admission queue in each second (the main "
+                  "engine: the teardown's deletes and the watch streams have engines of their "
+                  "own)";
+        q.ylabel = "requests";
+        q.ywhole = true;
+        char title[400];
+        snprintf(title, sizeof title, "%s%s", q.title,
+                 up ? "; merged: the shards' peaks added, an upper bound (they need not "
+                      "coincide)"
+                    : "");
+        q.title = title;
+        html_figure(f, "in-flight", &q, peaks, 2, m, nm);
+        q.title = "Queue wait over time: the longest wait of a request in squall's admission "
+                  "queue in each second (the target's slowness or too few connections)";
+        q.ylabel = "queue wait (ms)";
+        q.ywhole = false;
+        html_figure(f, "queue-wait", &q, w, 1, m, nm);
+    }
+    free(all);
 }
 
 /* The generator-bound seconds ("generator" section) as bands [s, s + 1). */
@@ -334,6 +413,7 @@ void html_plots_time(FILE *f, const results_t *res, const report_series_t *s)
     char note[80];
     html_plot_t p = html_time_plot(res, secs, bands, 256, note, sizeof note);
     offered(f, s, secs, &p, marks, nm);
+    queue(f, s, secs, &p, marks, nm);
     size_t ok = 0;
     for (size_t c = 0; c < nc && fill(s, cls[c], secs, &ps[c]) == 0; c++, ok++)
         errs[c] = (html_line_t){ps[c].x, ps[c].errors, secs, cls[c],

@@ -8,6 +8,7 @@
 #include "squall/err.h"
 #include "squall/hist.h"
 #include "squall/report.h"
+#include "squall/results.h"
 
 struct report_series {
     report_row_t *rows;
@@ -15,6 +16,7 @@ struct report_series {
     char **names; /* phase and class strings, each kept once per row */
     size_t n_names, cap_names;
     bool has_p999; /* the file has the p999_ms column (files before it do not) */
+    bool upper;    /* the run's figures are a merge's upper bounds (their _upper names) */
     report_heat_row_t *heat;
     size_t n_heat, cap_heat;
 };
@@ -35,13 +37,19 @@ enum col {
     C_P999 = C__REQUIRED, /* optional: added after the others */
     C_PLANNED,
     C_UNIX_MS,
-    C__COUNT
+#define RUN_ENUM(e, name, merged) C_##e, /* the run's figures of the second */
+    RESULTS_SERIES_RUN_MAP(RUN_ENUM)
+#undef RUN_ENUM
+        C__COUNT
 };
+#define RUN_NAME(e, name, merged)   name,
+#define RUN_MERGED(e, name, merged) [C_##e] = merged,
 static const char *const col_names[C__COUNT] = {
-    "second", "phase",  "class",  "started", "completed", "rate_per_s",
-    "errors", "p50_ms", "p90_ms", "p99_ms",  "max_ms",    "p999_ms",
-    "planned", "unix_ms",
-};
+    "second",     "phase",   "class",   "started", "completed",
+    "rate_per_s", "errors",  "p50_ms",  "p90_ms",  "p99_ms",
+    "max_ms",     "p999_ms", "planned", "unix_ms", RESULTS_SERIES_RUN_MAP(RUN_NAME)};
+/* The names a merge writes them under; a name of its own is an upper bound's. */
+static const char *const merged_names[C__COUNT] = {RESULTS_SERIES_RUN_MAP(RUN_MERGED)};
 
 int report_series_new(report_series_t **out)
 {
@@ -74,6 +82,11 @@ const report_row_t *report_series_at(const report_series_t *s, size_t i)
 bool report_series_has_p999(const report_series_t *s)
 {
     return s->has_p999;
+}
+
+bool report_series_upper(const report_series_t *s)
+{
+    return s->upper;
 }
 
 /* Splits line in place at commas into at most cap fields; returns the count. */
@@ -122,7 +135,9 @@ static bool number(const char *t, double *v)
 /* One data line into a row; false when a field is malformed. */
 static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, report_row_t *row)
 {
-    double v[C__COUNT] = {[C_P999] = NAN, [C_PLANNED] = NAN, [C_UNIX_MS] = 0};
+    double v[C__COUNT];
+    for (int c = 0; c < C__COUNT; c++)
+        v[c] = c == C_UNIX_MS ? 0 : NAN;
     for (int c = 0; c < C__COUNT; c++) {
         if (idx[c] < 0 && c >= C__REQUIRED)
             continue;
@@ -150,6 +165,8 @@ static bool parse_row(report_series_t *s, char **f, size_t nf, const int *idx, r
     row->p999_ms = v[C_P999];
     row->planned = v[C_PLANNED];
     row->unix_ms = (int64_t)v[C_UNIX_MS];
+    for (int k = 0; k < RESULTS_RUN__COUNT; k++) /* the run's figures, in the map's order */
+        row->run[k] = v[C_WATCH_OPEN + k];
     return row->phase && row->cls;
 }
 
@@ -162,6 +179,8 @@ static int header(report_series_t *s, char *line, int *idx, const char *path, ou
         for (size_t k = 0; k < nf; k++)
             if (strcmp(f[k], col_names[c]) == 0)
                 idx[c] = (int)k;
+            else if (merged_names[c] && strcmp(f[k], merged_names[c]) == 0)
+                idx[c] = (int)k, s->upper = true;
         if (c == C_P999)
             s->has_p999 = idx[c] >= 0;
         else if (c < C__REQUIRED && idx[c] < 0) {

@@ -39,7 +39,45 @@ static void burst_table(FILE *f, json_t *ph)
     fputs("</table>\n", f);
 }
 
-static void action_plot(FILE *f, const char *phase, json_t *a, double *buf)
+/* The phase's span on the run's time axis, with the marks (phase starts, actions, drops) and
+ * generator-bound seconds that fall in it; the tick times' own phase axis when the run wrote no
+ * "phases" section (an older squall). */
+typedef struct {
+    double t0;
+    html_plot_t p;
+    html_mark_t marks[128];
+    size_t nm;
+    html_band_t bands[256];
+    char note[80];
+} span_t;
+
+static void span_init(span_t *s, const results_t *res, const report_series_t *series,
+                      const char *phase)
+{
+    double t1;
+    s->nm = 0;
+    s->p = (html_plot_t){.xlabel = "tick time since the phase started (s)", .yzero = true};
+    s->t0 = 0;
+    if (!html_phase_span(res, phase, &s->t0, &t1) || !(t1 > s->t0)) {
+        s->t0 = 0;
+        return;
+    }
+    s->p = html_time_plot(res, html_run_seconds(res), s->bands, 256, s->note, sizeof s->note);
+    s->p.xmin = s->t0;
+    s->p.xmax = t1;
+    html_mark_t all[128];
+    size_t n = html_phase_marks(res, series, all, 128);
+    for (size_t i = 0; i < n; i++)
+        if (all[i].x >= s->t0 && all[i].x <= t1)
+            s->marks[s->nm++] = all[i];
+    size_t nb = 0;
+    for (size_t i = 0; i < s->p.n_bands; i++)
+        if (s->bands[i].x1 > s->t0 && s->bands[i].x0 < t1)
+            s->bands[nb++] = s->bands[i];
+    s->p.n_bands = nb;
+}
+
+static void action_plot(FILE *f, const span_t *sp, const char *phase, json_t *a, double *buf)
 {
     json_t *ticks = json_object_get(a, "ticks"), *t;
     size_t n = json_array_size(ticks), i;
@@ -50,7 +88,7 @@ static void action_plot(FILE *f, const char *phase, json_t *a, double *buf)
     {
         if (i >= n)
             break;
-        x[i] = ms_of(t, "t_ns") / 1e3;
+        x[i] = sp->t0 + ms_of(t, "t_ns") / 1e3;
         spread[i] = ms_of(t, "dispatch_spread_ns");
         burst[i] = ms_of(t, "burst_ns");
         p99[i] = ms_of(t, "p99_ns");
@@ -73,17 +111,16 @@ static void action_plot(FILE *f, const char *phase, json_t *a, double *buf)
         {x, p99, n, "tick's response p99", 2, 0},
         {x, p50, n, "tick's response p50", 3, 1},
     };
-    html_plot_t p = {.title = title,
-                     .xlabel = "tick time since the phase started (s)",
-                     .ylabel = "duration (ms)",
-                     .yzero = true};
+    html_plot_t p = sp->p;
+    p.title = title;
+    p.ylabel = "duration (ms)";
     fputs("<figure class=\"ticks\">\n", f);
-    html_plot(f, &p, spans, 2, NULL, 0);
+    html_plot(f, &p, spans, 2, sp->marks, sp->nm);
     char t2[300];
     snprintf(t2, sizeof t2, "%s: response times of each tick's requests", title);
     p.title = t2;
     p.ylabel = "response time (ms)";
-    html_plot(f, &p, lat, 2, NULL, 0);
+    html_plot(f, &p, lat, 2, sp->marks, sp->nm);
     char spread_max[32];
     html_num(ms_of(a, "max_dispatch_spread_ns"), spread_max, sizeof spread_max);
     fprintf(f, "<figcaption>");
@@ -95,7 +132,7 @@ static void action_plot(FILE *f, const char *phase, json_t *a, double *buf)
             (long long)json_integer_value(json_object_get(a, "max_peak_in_flight")));
 }
 
-void html_storms(FILE *f, const results_t *res)
+void html_storms(FILE *f, const results_t *res, const report_series_t *series)
 {
     json_t *s = results_section(res, "storms"), *ph;
     const char *phase;
@@ -116,7 +153,12 @@ void html_storms(FILE *f, const results_t *res)
         html_esc(f, phase);
         fputs("</h3>\n", f);
         burst_table(f, ph);
-        json_array_foreach(json_object_get(ph, "actions"), i, a) action_plot(f, phase, a, buf);
+        span_t *sp = malloc(sizeof(*sp));
+        if (!sp)
+            break;
+        span_init(sp, res, series, phase);
+        json_array_foreach(json_object_get(ph, "actions"), i, a) action_plot(f, sp, phase, a, buf);
+        free(sp);
     }
     free(buf);
     fputs("</section>\n", f);

@@ -128,17 +128,8 @@ void html_num(double v, char *buf, size_t cap)
         snprintf(buf, cap, "-");
         return;
     }
-    if (fabs(v) >= 1000) { /* whole, with thousands separators */
-        char digits[40];
-        int n = snprintf(digits, sizeof digits, "%.0f", fabs(v)), o = 0;
-        if (v < 0 && (size_t)o + 1 < cap)
-            buf[o++] = '-';
-        for (int i = 0; i < n && (size_t)o + 2 < cap; i++) {
-            if (i > 0 && (n - i) % 3 == 0)
-                buf[o++] = ',';
-            buf[o++] = digits[i];
-        }
-        buf[o] = '\0';
+    if (fabs(v) >= 1000) { /* whole, without separators: the terminal's style */
+        snprintf(buf, cap, "%.0f", v);
         return;
     }
     if (fabs(v) < 1e-12) {
@@ -164,6 +155,8 @@ static void tick_label(double v, char *buf, size_t cap)
 static void yticks(FILE *f, const html_plot_t *p, const axis_t *y)
 {
     double step = p->ylog ? 1 : nice_step(y->hi - y->lo);
+    if (p->ywhole && !p->ylog)
+        step = fmax(step, 1); /* no "1.5 streams" */
     for (double v = ceil(y->lo / step) * step; v <= y->hi + 1e-9 * step; v += step) {
         double py = ax_map(y, v);
         char lab[32];

@@ -267,7 +267,7 @@ static void objectives(FILE *f, const results_t *res)
     }
     fputs("<p class=\"note\">Checks marked (default) are the error rate of 1 % every class is "
           "judged on unless the plan sets its own. A percentile needs 1 / (1 - p) samples to be "
-          "resolved: 100 for p99, 1,000 for p99.9.</p>\n",
+          "resolved: 100 for p99, 1000 for p99.9.</p>\n",
           f);
     fputs("<table><tr><th>verdict</th><th>class</th><th>scope</th><th>objective</th>"
           "<th class=\"n\">observed</th><th class=\"n\">threshold</th><th class=\"n\">samples"
@@ -325,8 +325,8 @@ int report_html_write(FILE *f, const results_t *res, const report_series_t *s)
     html_plots_time(f, res, s);
     html_plots_heat(f, res, s);
     html_plots_tails(f, res);
-    html_watches(f, res);
-    html_storms(f, res);
+    html_watches(f, res, s);
+    html_storms(f, res, s);
     html_sync(f, res);
     html_metrics(f, res, s);
     html_actions(f, res);

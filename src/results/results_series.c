@@ -26,17 +26,27 @@ enum {
     C_PLANNED,
     C_UNIX,
     C_P999,
-    C__COUNT
+    C__OPTIONAL = C_P999, /* from here on: columns a file may lack (an older squall wrote it) */
+#define RUN_ENUM(e, name, merged) C_##e,
+    RESULTS_SERIES_RUN_MAP(RUN_ENUM)
+#undef RUN_ENUM
+        C__COUNT
 };
+#define RUN_NAME(e, name, merged)   name,
+#define RUN_MERGED(e, name, merged) [C_##e] = merged,
 static const char *const col_names[C__COUNT] = {
-    "second", "phase",  "class",  "started", "completed", "rate_per_s", "errors",
-    "p50_ms", "p90_ms", "p99_ms", "max_ms",  "planned",   "unix_ms",    "p999_ms"};
+    "second",     "phase",   "class",   "started", "completed",
+    "rate_per_s", "errors",  "p50_ms",  "p90_ms",  "p99_ms",
+    "max_ms",     "planned", "unix_ms", "p999_ms", RESULTS_SERIES_RUN_MAP(RUN_NAME)};
+/* The names a merge writes the run's figures under (a merged file read again finds them). */
+static const char *const merged_names[C__COUNT] = {RESULTS_SERIES_RUN_MAP(RUN_MERGED)};
 
 /* One row of one input, placed in the merge. */
 typedef struct {
     int64_t second; /* of the merge */
     size_t key;     /* (phase, class) in first-seen order */
     int64_t input_second;
+    size_t input;       /* which of the merged directories */
     double v[C__COUNT]; /* numbers by column (phase and class unused) */
     char *hist;         /* the row's response histogram (sqh1 text), or NULL */
     char *sync;         /* its RESULTS_SERIES_SYNC cells as written, or NULL (a merged row of
@@ -49,6 +59,8 @@ typedef struct {
     char **keys; /* "phase\0class" per key, in first-seen order */
     size_t n_keys;
     int64_t start_ms;
+    size_t input; /* the directory being read */
+    bool bounds;  /* the run's figures are bounds: several inputs, or an input that had them */
     out_t *o;
 } series_t;
 
@@ -86,7 +98,7 @@ static size_t key_of(series_t *s, const char *phase, const char *cls)
     return s->n_keys++;
 }
 
-static int header(char *line, int *idx, const char *path, out_t *o)
+static int header(series_t *s, char *line, int *idx, const char *path, out_t *o)
 {
     char *f[64];
     size_t nf = split(line, f, 64);
@@ -95,7 +107,9 @@ static int header(char *line, int *idx, const char *path, out_t *o)
         for (size_t k = 0; k < nf; k++)
             if (!strcmp(f[k], col_names[c]))
                 idx[c] = (int)k;
-        if (idx[c] < 0 && c != C_P999) {
+            else if (merged_names[c] && !strcmp(f[k], merged_names[c]))
+                idx[c] = (int)k, s->bounds = true;
+        if (idx[c] < 0 && c < C__OPTIONAL) {
             out_error(o, "%s:1: no column '%s' in the header (needed to merge seconds)", path,
                       col_names[c]);
             return SQ_EPARSE;
@@ -198,7 +212,7 @@ static int read_input(series_t *s, FILE *f, FILE *hf, const char *path)
         rc = SQ_EPARSE;
     } else {
         sync_at = sync_column(line);
-        rc = header(line, idx, path, s->o);
+        rc = header(s, line, idx, path, s->o);
     }
     if (hf && getline(&pending, &pcap, hf) >= 0)
         pending[0] = '\0'; /* its header */
@@ -214,6 +228,8 @@ static int read_input(series_t *s, FILE *f, FILE *hf, const char *path)
             break;
         }
         r.key = key_of(s, fields[idx[C_PHASE]], fields[idx[C_CLASS]]);
+        r.input = s->input;
+        r.input_second = (int64_t)r.v[C_SECOND];
         r.second = llround((r.v[C_UNIX] - (double)s->start_ms) / 1e3);
         r.hist = hist_for(hf, &pending, &pcap, fields[idx[C_SECOND]], fields[idx[C_PHASE]],
                           fields[idx[C_CLASS]]);
@@ -292,6 +308,58 @@ static int combine(row_t *g, size_t n)
     return rc ? rc : unknown;
 }
 
+/* The run's figures of one merged second over the rows g[0..n) of every input, into each row:
+ * counts and open streams add up over the inputs (each input's figure taken once, from its
+ * first row of the second), so do the peaks in flight and queued (an upper bound: the shards'
+ * peaks need not coincide); the longest queue wait is the largest; the propagation p99 is the
+ * largest shard's (an upper bound of the pooled p99: no more than 1 % of any shard's events, so
+ * of all of them, lie above it), "nan" when no shard stamped an event. An input without the
+ * columns (an older squall) makes them all unknown. seen has a flag per input, all false. */
+static void combine_run(row_t *g, size_t n, bool *seen)
+{
+    static const int sum[] = {C_WATCH_OPEN,   C_WATCH_DROPPED, C_WATCH_RECONNECTS,
+                              C_WATCH_EVENTS, C_IN_FLIGHT,     C_QUEUED};
+    static const int max[] = {C_WATCH_P99, C_QUEUE_WAIT};
+    double v[C__COUNT];
+    bool missing = false;
+    for (size_t k = 0; k < sizeof sum / sizeof sum[0]; k++)
+        v[sum[k]] = 0;
+    for (size_t k = 0; k < sizeof max / sizeof max[0]; k++)
+        v[max[k]] = NAN;
+    for (size_t i = 0; i < n; i++) {
+        if (seen[g[i].input])
+            continue;
+        seen[g[i].input] = true;
+        missing |= isnan(g[i].v[C_WATCH_OPEN]);
+        for (size_t k = 0; k < sizeof sum / sizeof sum[0]; k++)
+            v[sum[k]] += g[i].v[sum[k]];
+        for (size_t k = 0; k < sizeof max / sizeof max[0]; k++)
+            v[max[k]] = fmax(v[max[k]], g[i].v[max[k]]); /* fmax passes over a NaN */
+    }
+    for (size_t i = 0; i < n; i++) {
+        seen[g[i].input] = false;
+        for (int c = C__OPTIONAL + 1; c < C__COUNT; c++)
+            g[i].v[c] = missing ? NAN : v[c];
+    }
+}
+
+/* combine_run over each merged second of the sorted rows. SQ_ENOMEM. */
+static int combine_seconds(series_t *s, size_t n_inputs)
+{
+    bool *seen = calloc(n_inputs ? n_inputs : 1, sizeof(*seen));
+    if (!seen)
+        return SQ_ENOMEM;
+    for (size_t i = 0; i < s->n;) {
+        size_t j = i + 1;
+        while (j < s->n && s->rows[j].second == s->rows[i].second)
+            j++;
+        combine_run(&s->rows[i], j - i, seen);
+        i = j;
+    }
+    free(seen);
+    return 0;
+}
+
 /* Groups the sorted rows in place: s->rows[0..*n) are the merged rows. */
 static int group(series_t *s, size_t *out, size_t *unknown)
 {
@@ -319,7 +387,8 @@ static int group(series_t *s, size_t *out, size_t *unknown)
 static int fill_series(FILE *f, void *ctx)
 {
     const series_t *s = ctx;
-    fprintf(f, "%s\n", RESULTS_SERIES_HEADER);
+    /* One input's figures stay exact (a merge of one input is that input): no bound's names. */
+    fprintf(f, "%s\n", s->bounds ? RESULTS_SERIES_MERGED_HEADER : RESULTS_SERIES_HEADER);
     for (size_t i = 0; i < s->n; i++) {
         const row_t *r = &s->rows[i];
         const char *phase = s->keys[r->key], *cls = phase + strlen(phase) + 1;
@@ -327,11 +396,14 @@ static int fill_series(FILE *f, void *ctx)
         /* marks: a merge does not carry them (each input's results.json has its instants); the
          * sync cells only from a row of one input (results.json's "sync" section has the merged
          * gauge). */
-        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,,%s\n",
+        fprintf(f, "%lld,%s,%s,%lld,%lld,%.1f,%lld,%.3f,%.3f,%.3f,%.3f,%.3f,%lld,%.3f,,",
                 (long long)r->second, phase, cls, (long long)v[C_STARTED],
                 (long long)v[C_COMPLETED], v[C_RATE], (long long)v[C_ERRORS], v[C_P50], v[C_P90],
-                v[C_P99], v[C_MAX], v[C_PLANNED], (long long)v[C_UNIX], v[C_P999],
-                r->sync ? r->sync : ",,,,");
+                v[C_P99], v[C_MAX], v[C_PLANNED], (long long)v[C_UNIX], v[C_P999]);
+        /* The run's figures ("nan" when unknown: %.0f writes it for a NaN count). */
+        fprintf(f, "%.0f,%.0f,%.0f,%.0f,%.3f,%.3f,%.0f,%.0f,%s\n", v[C_WATCH_OPEN],
+                v[C_WATCH_DROPPED], v[C_WATCH_RECONNECTS], v[C_WATCH_EVENTS], v[C_WATCH_P99],
+                v[C_QUEUE_WAIT], v[C_IN_FLIGHT], v[C_QUEUED], r->sync ? r->sync : ",,,,");
     }
     return ferror(f) ? SQ_EIO : 0;
 }
@@ -371,6 +443,7 @@ static int read_all(series_t *s, const char *const *dirs, size_t n, bool *comple
             break;
         }
         FILE *hf = open_in(dirs[i], RESULTS_SERIES_HIST_FILE, hpath, sizeof hpath);
+        s->input = i;
         rc = read_input(s, f, hf, path);
         fclose(f);
         if (hf)
@@ -397,12 +470,15 @@ int results_series_merge(const char *const *dirs, size_t n, const results_t *mer
     series_t s = {.start_ms = merged->meta.start_unix_ms, .o = o};
     bool complete;
     size_t unknown = 0;
+    s.bounds = n > 1;
     *written = false;
     int rc = read_all(&s, dirs, n, &complete);
     if (rc == 0 && complete) {
         if (s.n)
             qsort(s.rows, s.n, sizeof(*s.rows), cmp_row);
-        rc = group(&s, &s.n, &unknown);
+        rc = combine_seconds(&s, n);
+        if (rc == 0)
+            rc = group(&s, &s.n, &unknown);
     }
     char path[4096];
     if (rc == 0 && complete) {

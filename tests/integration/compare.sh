@@ -165,7 +165,88 @@ expect "open p50 is untested, with both counts and the minimum (1 vs 1, needs 5 
 expect "no watch class row of request latency (no 0.00 ms rows)" \
     test "$(grep -cE '^storm +follow +(p50|p99|p99\.9|error_rate) ' "$T/storm-reg.txt")" = 0
 expect "same plan, same target: no warning" test ! -s "$T/storm-reg.err"
-"$SQUALL" compare "$T/storm-1" "$T/storm-slow" --json >"$T/storm.json" 2>/dev/null
+"$SQUALL" compare "$T/storm-1" "$T/storm-slow" --json --html "$T/storm.html" >"$T/storm.json" 2>/dev/null
+# The comparison page of runs with a watch class (html.parser): no empty frame (every plot draws
+# a line), the watch class's propagation p99 over time and slower than x with BASE and NEW on
+# one plot each, untested and within-noise rows in styles of their own, and the runs table.
+/usr/bin/python3 - "$T/storm.html" "$T/storm.json" "$T/storm-1" <<'PY' || FAILED=1
+import html.parser, json, re, sys
+page, d = open(sys.argv[1]).read(), json.load(open(sys.argv[2]))
+bad = 0
+def check(desc, cond, detail=""):
+    global bad
+    print(("ok: " if cond else "FAIL: ") + desc + ("" if cond else "  [%s]" % (detail,)))
+    bad |= not cond
+class P(html.parser.HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.svgs, self.rows, self.runs, self.cell, self.table = [], [], {}, None, None
+        self.visible = []
+    def handle_starttag(self, tag, a):
+        a = dict(a)
+        if tag == "table":
+            self.table = a.get("class", "")
+        if tag == "svg":
+            self.svgs.append({"title": a.get("aria-label", ""), "series": [], "drawn": 0})
+        if tag == "g" and a.get("class") == "series" and self.svgs:
+            self.svgs[-1]["series"].append(a.get("data-label"))
+        if tag == "path" and self.svgs and self.svgs[-1]["series"] and a.get("fill") == "none" \
+                and len(re.findall("[ML]", a.get("d", ""))) >= 1:
+            self.svgs[-1]["drawn"] += 1
+        if tag == "tr":
+            self.rows.append([a.get("class", ""), []])
+        if tag in ("td", "th"):
+            self.cell = ""
+    def handle_data(self, data):
+        self.visible.append(data)
+        if self.cell is not None:
+            self.cell += data
+    def handle_endtag(self, tag):
+        if tag in ("td", "th") and self.cell is not None:
+            self.rows[-1][1].append(self.cell.strip())
+            self.cell = None
+            r = self.rows[-1][1]
+            if self.table == "runs" and len(r) == 3:
+                self.runs[r[0]] = r[1:]
+p = P()
+p.feed(page)
+check("every plot draws at least one line (no empty frame)",
+      p.svgs and all(s["drawn"] >= 1 for s in p.svgs),
+      [(s["title"][:40], s["drawn"]) for s in p.svgs if s["drawn"] == 0])
+follow = [s for s in p.svgs if s["title"].startswith("follow:")]
+check("the watch class follow: propagation p99 over time, BASE and NEW on one plot",
+      [s["series"] for s in follow if "in each second" in s["title"]]
+      == [["BASE propagation p99", "NEW propagation p99"]], [s["title"] for s in follow])
+check("and propagation slower than x, BASE and NEW on one plot",
+      [s["series"] for s in follow if "slower than x" in s["title"]] == [["BASE", "NEW"]]
+      and any("propagation times" in s["title"] for s in follow), [s["title"] for s in follow])
+renew = [s["series"] for s in p.svgs if s["title"].startswith("renew:")]
+check("renew: response p99 over time and slower than x, BASE and NEW on one plot each",
+      renew == [["BASE p99", "NEW p99"], ["BASE", "NEW"]], renew)
+verdicts = {l["verdict"] for l in d["lines"]}
+styled = {c for c, cells in p.rows if c in ("same", "untested", "fail", "pass")}
+check("the JSON has untested and within-noise lines %s" % sorted(verdicts),
+      {"untested", "within noise"} <= verdicts, verdicts)
+check("their rows carry classes of their own (untested, same)", {"untested", "same"} <= styled,
+      styled)
+css = {m.group(1): m.group(2) for m in re.finditer(r"(tr\.(?:untested|same)[^{]*)\{([^}]*)\}", page)}
+check("and the style sheet draws them differently %s" % css,
+      any(k.startswith("tr.untested") for k in css) and any(k.startswith("tr.same") for k in css)
+      and {v for k, v in css.items() if k.startswith("tr.untested")}
+      .isdisjoint({v for k, v in css.items() if k.startswith("tr.same")}), css)
+res = json.load(open(sys.argv[3] + "/results.json"))
+for k in ("plan sha256", "started", "seed", "overrides"):
+    check("runs table row %r for BASE and NEW %s" % (k, p.runs.get(k)),
+          k in p.runs and all(v for v in p.runs[k]), sorted(p.runs))
+check("runs table: BASE's seed is results.json's (%s)" % res["sections"]["run"]["seed"],
+      p.runs.get("seed", [""])[0] == str(res["sections"]["run"]["seed"]), p.runs.get("seed"))
+check("runs table: start time as a UTC date and time",
+      re.match(r"\d{4}-\d\d-\d\d \d\d:\d\d:\d\d", p.runs.get("started", [""])[0] or ""),
+      p.runs.get("started"))
+check("no thousands separator in the page's text",
+      not re.search(r"\d,\d{3}(?!\d)", " ".join(p.visible)))
+sys.exit(bad)
+PY
 /usr/bin/python3 - "$T/storm.json" "$T/storm-1" "$T/storm-slow" <<'PY' || FAILED=1
 import json, statistics, sys
 d = json.load(open(sys.argv[1]))

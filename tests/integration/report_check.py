@@ -24,6 +24,7 @@ class Page(html.parser.HTMLParser):
         self.svgs, self.tables, self.text = [], [], None
         self.banner, self.in_banner = "", 0
         self.cell, self.in_title = None, False
+        self.visible = []  # every text node: what a reader sees
 
     def handle_starttag(self, tag, a):
         a = dict(a)
@@ -73,6 +74,7 @@ class Page(html.parser.HTMLParser):
             self.cell = ""
 
     def handle_data(self, data):
+        self.visible.append(data)
         if self.in_banner:
             self.banner += data
         if self.text is not None:
@@ -144,7 +146,7 @@ check("header exit code is results.json's (%s)" % run.get("exit_code"),
       meta_rows.get("exit code") == str(run.get("exit_code")))
 check("header target has no user info", "@" not in meta_rows.get("target", "@"))
 # Time plots: seconds since the start, the wall-clock start on the axis.
-timed = [s for s in p.svgs if s["section"] in ("over-time", "heat", "watches")]
+timed = [s for s in p.svgs if s["section"] in ("over-time", "heat", "watches", "storms")]
 check("every plot over time is in seconds since the start with the wall-clock start noted",
       timed and all(s["labels"][1] == "time since the run started (s)"
                     and s["notes"] and re.match(r"0 s = \d{4}-\d\d-\d\d \d\d:\d\d:\d\d UTC", s["notes"][0])
@@ -155,6 +157,40 @@ off = [s for s in p.svgs if (s["figure"] or {}).get("class") == "offered"]
 check("offered vs achieved: completed, started and planned starts on one plot",
       len(off) == 1 and off[0]["series"] == ["completed", "started", "planned starts"],
       [s["series"] for s in off])
+# Queue wait and in flight over time: series.csv's run figures (the peaks, the longest wait).
+inf = [s for s in p.svgs if (s["figure"] or {}).get("class") == "in-flight"]
+qw = [s for s in p.svgs if (s["figure"] or {}).get("class") == "queue-wait"]
+merged = mode == "merged"
+peak_names = ["in flight, peak", "queued, peak"]
+if merged:  # a merge adds the shards' peaks: labelled an upper bound on the plot
+    peak_names = [n + " (upper bound)" for n in peak_names]
+check("series.csv has the run's figures %s" % ("with _upper names" if merged else ""),
+      rows and all(k in rows[0] for k in (
+          "run_watch_open", "run_watch_dropped", "run_watch_reconnects", "run_watch_events",
+          "run_queue_wait_max_ms",
+          "run_watch_propagation_p99_upper_ms" if merged else "run_watch_propagation_p99_ms",
+          "run_in_flight_peak_upper" if merged else "run_in_flight_peak",
+          "run_queued_peak_upper" if merged else "run_queued_peak")), list(rows[0]) if rows else [])
+check("queue wait and in flight over time: the peaks in flight and queued on one plot",
+      len(inf) == 1 and inf[0]["series"] == peak_names, [s["series"] for s in inf])
+check("and the longest queue wait on its own (ms)",
+      len(qw) == 1 and qw[0]["series"] == ["longest queue wait"]
+      and qw[0]["labels"][0] == "queue wait (ms)", [(s["series"], s["labels"]) for s in qw])
+# One point per second: the figure of the second's first row (every row of a second repeats it).
+per_second = {}
+for r in rows:
+    per_second.setdefault(int(r["second"]), r)
+check("every row of a second carries the same run figures",
+      all(all(r[k] == per_second[int(r["second"])][k] for k in r if k.startswith("run_"))
+          for r in rows))
+if inf:
+    check("in-flight plot: one point per second of series.csv (%d)" % len(per_second),
+          all(len(pts) == len(per_second) for pts in inf[0]["points"]),
+          [len(pts) for pts in inf[0]["points"]])
+# One number style, the terminal's: no thousands separators anywhere on the page.
+visible = " ".join(p.visible)
+check("no thousands separator in the page's text", not re.search(r"\d,\d{3}(?!\d)", visible),
+      re.findall(r".{20}\d,\d{3}(?!\d).{10}", visible)[:3])
 # Shaded generator-bound seconds on every plot over time.
 check("each plot over time shades the %d generator-bound seconds" % gs,
       all(s["bands"] == len(gen["generator_bound"]["list"]) for s in p.svgs
@@ -240,7 +276,7 @@ if mode == "plain":
                 for k, v in c.get("status", {}).items():
                     cc[k] = cc.get(k, 0) + v
             # A whole-list sample (list/all-pages) is no single answer: it has no status code.
-            text = ", ".join("%s: %s" % (k, format(v, ",")) for k, v in sorted(cc.items())) or "-"
+            text = ", ".join("%s: %d" % (k, v) for k, v in sorted(cc.items())) or "-"
             check("table row %s/%s lists the status codes %s" % (phase, cls, text),
                   any(r[-1] == text for r in table_rows.get(cls, [])), table_rows.get(cls))
     five = [r for rs in table_rows.values() for r in rs if "5xx:" in r[4]]
@@ -262,9 +298,60 @@ else:
     for s in p.svgs:
         if s["section"] in ("over-time", "heat", "watches"):
             check("drop moments marked on %r" % s["title"][:50], s["drops"] >= 1, s["drops"])
-    w = [s for s in p.svgs if s["section"] == "watches"]
-    check("watches over time: streams dropped and reconnects sent",
-          len(w) == 1 and w[0]["series"] == ["streams dropped", "reconnects sent"], w)
+    # Storm ticks are drawn over their phase's span of the run's time axis: the drops (all in
+    # the reconnect-storm phase, POST /admin/drop-watches 2 s into it) are marked on its plots,
+    # and not on the spread phase's, whose span ends before them.
+    for s in p.svgs:
+        if s["section"] == "storms":
+            inside = "in phase reconnect-storm" in s["title"]
+            check("storm ticks %r: %s drop mark" % (s["title"][:60], "a" if inside else "no"),
+                  (s["drops"] >= 1) == inside, s["drops"])
+    w = {(s["figure"] or {}).get("id"): s for s in p.svgs if s["section"] == "watches"}
+    check("watches over time: streams dropped, reconnects sent and streams open on one plot",
+          "watch-drops" in w and w["watch-drops"]["series"]
+          == ["streams dropped", "reconnects sent", "streams open (end of the second)"], w.keys())
+    prop_name = "propagation p99 (upper bound)" if merged else "propagation p99"
+    check("watch events per second and propagation p99 per second (%s) plots" % prop_name,
+          w.get("watch-events", {}).get("series") == ["events received"]
+          and w.get("watch-propagation", {}).get("series") == [prop_name]
+          and "log scale" in w["watch-propagation"]["labels"][0], list(w))
+    # The plotted figures against series.csv and results.json's reconnect log (the watch room's
+    # own record of each stream that ended): drops, reconnects and events add up.
+    srow = list(per_second.values())
+    n_drop = sum(int(float(r["run_watch_dropped"])) for r in srow)
+    n_recon = sum(int(float(r["run_watch_reconnects"])) for r in srow)
+    n_events = sum(int(float(r["run_watch_events"])) for r in srow)
+    log_drops = sum(len([v for v in ph["reconnect_log"]["ended_ns"] if v > 0])
+                    for ph in res["sections"]["watches"].values())
+    check("series.csv's dropped streams (%d) are the reconnect log's (%d), and more than 0"
+          % (n_drop, log_drops), n_drop == log_drops and n_drop > 0)
+    cap = re.search(r"Watch streams dropped \((\d+)\) and reconnects sent \((\d+)\)", page_text)
+    check("the watch plot's caption counts series.csv's drops (%d) and reconnects (%d)"
+          % (n_drop, n_recon), cap and cap.groups() == (str(n_drop), str(n_recon)),
+          cap and cap.groups())
+    cap = re.search(r"Watch events received in each second \((\d+) in all\)", page_text)
+    check("the events plot's caption counts series.csv's events (%d)" % n_events,
+          cap and int(cap.group(1)) == n_events and n_events > 0, cap and cap.group(1))
+    # The drop marks are series.csv's drops: on the offered-load plot (the whole run), each
+    # second with drops marked once with its count, at that second's start.
+    chunk = page_text[page_text.index('<figure class="offered"'):]
+    chunk = chunk[:chunk.index("</figure>")]
+    marked = {round(float(x) , 1): int(n) for x, n in re.findall(
+        r'class="mark drop"><line x1="([\d.]+)"[^>]*/><text[^>]*>(\d+) dropped</text>', chunk)}
+    want = sorted(int(float(r["run_watch_dropped"])) for r in srow if float(r["run_watch_dropped"]) > 0)
+    check("drop marks: one per second with drops, labelled with series.csv's counts %s" % want,
+          sorted(marked.values()) == want, marked)
+    if merged:
+        check("merged: the in-flight caption says the peaks are the shards' added, an upper bound",
+              "merged: the shards' peaks added, an upper bound" in page_text)
+        check("merged: the propagation caption says each second is the largest shard's p99",
+              "each second shows the largest shard's p99, an upper bound" in page_text)
+    opens = [float(r["run_watch_open"]) for r in srow]
+    check("streams were open (%s) and their line has a point per second" % max(opens),
+          max(opens) > 0 and len(w["watch-drops"]["points"][2]) == len(per_second),
+          len(w["watch-drops"]["points"][2]))
+    big = [c for t in p.tables for r in t for c in r if re.fullmatch(r"\d{4,}", c)]
+    check("figures of 1000 and more are written without separators (%s)" % big[:3], big, big)
     st = [s for s in p.svgs if s["section"] == "storms"]
     n_actions = sum(len(ph.get("actions", [])) for ph in res["sections"]["storms"].values())
     check("storm ticks: two plots per fleet action (spread and burst; tick p50/p99)",

@@ -56,7 +56,7 @@ expect "series.csv's per-second completions add up to the same $N (got $SERIES)"
     test "$SERIES" = "$N"
 expect "series.csv has the documented header" \
     test "$(head -1 "$T/rate/series.csv")" = \
-    "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,unix_ms,p999_ms,marks,sync_window,sync_n,sync_r_bar,sync_p,sync_peak_to_mean"
+    "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,max_ms,planned,unix_ms,p999_ms,marks,run_watch_open,run_watch_dropped,run_watch_reconnects,run_watch_events,run_watch_propagation_p99_ms,run_queue_wait_max_ms,run_in_flight_peak,run_queued_peak,sync_window,sync_n,sync_r_bar,sync_p,sync_peak_to_mean"
 
 # Source: nginx's config answers /fail/503 with 503.
 plan fail "$NGX_PORT" 1.1 '  busy: {kind: get, path: /fail/503}' \

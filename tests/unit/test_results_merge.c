@@ -481,9 +481,24 @@ static void test_counts_add(void **state)
 
 static int64_t ssamples[2][3][PER_SECOND];
 
+/* The run's figures (RESULTS_SERIES_RUN_MAP) input i writes for its second k: open streams
+ * 2 + i, k dropped and k reconnects, 10 (i + 1) events, a propagation p99 of 5 (i + 1) ms (none
+ * stamped, "nan", in input 1's second 0), a queue wait of 1.5 (i + 1) + k ms, 3 in flight and
+ * 4 + i queued at the peak. */
+static void run_figures(int i, int k, char *buf, size_t cap)
+{
+    char p99[16] = "nan";
+    if (i == 0 || k > 0)
+        snprintf(p99, sizeof p99, "%.3f", 5.0 * (i + 1));
+    snprintf(buf, cap, ",,%d,%d,%d,%d,%s,%.3f,3,%d", 2 + i, k, k, 10 * (i + 1), p99,
+             1.5 * (i + 1) + k, 4 + i);
+}
+
 /* An input's series.csv and series-hist.csv: rows for seconds 0..2 of (steady, read), each
- * second's wall clock start_ms + 1000 k + 3; `skip` (if >= 0) has no histogram line. */
-static void write_series(const char *dir, int i, int64_t start_ms, int skip)
+ * second's wall clock start_ms + 1000 k + 3; `skip` (if >= 0) has no histogram line. Input 0
+ * also has a row of (steady, list) in each second, with the same run figures (a second's rows
+ * all carry them). old: the header and rows of a squall before the run's figures. */
+static void write_series(const char *dir, int i, int64_t start_ms, int skip, bool old)
 {
     char path[512];
     snprintf(path, sizeof path, "%s/%s", dir, RESULTS_SERIES_FILE);
@@ -492,7 +507,10 @@ static void write_series(const char *dir, int i, int64_t start_ms, int skip)
     FILE *fh = fopen(path, "w");
     assert_non_null(f);
     assert_non_null(fh);
-    fprintf(f, "%s\n", RESULTS_SERIES_HEADER);
+    fprintf(f, "%s\n",
+            old ? "second,phase,class,started,completed,rate_per_s,errors,p50_ms,p90_ms,p99_ms,"
+                  "max_ms,planned,unix_ms,p999_ms"
+                : RESULTS_SERIES_HEADER);
     fprintf(fh, "%s\n", RESULTS_SERIES_HIST_HEADER);
     for (int k = 0; k < 3; k++) {
         hist_t *h;
@@ -500,10 +518,15 @@ static void write_series(const char *dir, int i, int64_t start_ms, int skip)
         for (int q = 0; q < PER_SECOND; q++)
             hist_record(h, ssamples[i][k][q]);
         long long unix_ms = (long long)(start_ms + 1000 * k + 3);
-        fprintf(f, "%d,steady,read,%d,%d,%.1f,1,%.3f,%.3f,%.3f,%.3f,10.000,%lld,%.3f\n", k,
+        char run[128] = "";
+        if (!old)
+            run_figures(i, k, run, sizeof run);
+        fprintf(f, "%d,steady,read,%d,%d,%.1f,1,%.3f,%.3f,%.3f,%.3f,10.000,%lld,%.3f%s\n", k,
                 PER_SECOND, PER_SECOND, (double)PER_SECOND, hist_value_at(h, 50) / 1e6,
                 hist_value_at(h, 90) / 1e6, hist_value_at(h, 99) / 1e6, hist_max(h) / 1e6, unix_ms,
-                hist_value_at(h, 99.9) / 1e6);
+                hist_value_at(h, 99.9) / 1e6, run);
+        if (i == 0)
+            fprintf(f, "%d,steady,list,0,0,0.0,0,0,0,0,0,0,%lld,0%s\n", k, unix_ms, run);
         char *text;
         assert_int_equal(hist_encode(h, &text), 0);
         if (k != skip)
@@ -518,6 +541,7 @@ static void write_series(const char *dir, int i, int64_t start_ms, int skip)
 typedef struct {
     long long second, completed, errors, unix_ms;
     double rate, p50, p99, planned;
+    double run[8]; /* the run's figures, RESULTS_SERIES_RUN_MAP's order (NAN: "nan") */
 } srow_t;
 
 /* The merged series.csv's rows (at most cap). */
@@ -528,11 +552,27 @@ static size_t read_series(const char *dir, srow_t *rows, size_t cap)
     FILE *f = fopen(path, "r");
     assert_non_null(f);
     assert_non_null(fgets(line, sizeof line, f));
-    assert_int_equal(strncmp(line, RESULTS_SERIES_HEADER, strlen(RESULTS_SERIES_HEADER)), 0);
+    /* A merge names the figures it can only bound with _upper. */
+    assert_string_equal(line, "second,phase,class,started,completed,rate_per_s,errors,p50_ms,"
+                              "p90_ms,p99_ms,max_ms,planned,unix_ms,p999_ms,marks,run_watch_open,"
+                              "run_watch_dropped,run_watch_reconnects,run_watch_events,"
+                              "run_watch_propagation_p99_upper_ms,run_queue_wait_max_ms,"
+                              "run_in_flight_peak_upper,run_queued_peak_upper\n");
     size_t n = 0;
     char p50[32], p99[32];
     while (n < cap && fgets(line, sizeof line, f)) {
+        if (strstr(line, ",steady,list,"))
+            continue;
         srow_t *r = &rows[n++];
+        const char *run = line;
+        for (int c = 0; c < 15 && run; c++)
+            run = strchr(run, ',') ? strchr(run, ',') + 1 : NULL;
+        assert_non_null(run);
+        for (int c = 0; c < 8; c++, run = strchr(run, ',') + 1) {
+            r->run[c] = strtod(run, NULL);
+            if (c < 7)
+                assert_non_null(strchr(run, ','));
+        }
         assert_int_equal(sscanf(line,
                                 "%lld,steady,read,%*d,%lld,%lf,%lld,%31[^,],%*[^,],%31[^,],%*[^,],"
                                 "%lf,%lld",
@@ -564,8 +604,8 @@ static void test_series_by_wall_second(void **state)
     snprintf(none, sizeof none, "%s/none", base);
     assert_int_equal(mkdir(a, 0700) | mkdir(b, 0700) | mkdir(out, 0700) | mkdir(none, 0700), 0);
     /* B started 1 s after A: B's second k is A's second k + 1. */
-    write_series(a, 0, T0, -1);
-    write_series(b, 1, T0 + 1000, -1);
+    write_series(a, 0, T0, -1, false);
+    write_series(b, 1, T0 + 1000, -1, false);
     results_t *m = input(T0, 1);
     const char *dirs[] = {a, b, none};
     bool written;
@@ -591,9 +631,23 @@ static void test_series_by_wall_second(void **state)
         /* Percentiles as written: three decimals of a millisecond. */
         near(rows[s].p99 + 0.0005, numpy_at(pooled, n, 99) / 1e6);
         near(rows[s].p50 + 0.0005, numpy_at(pooled, n, 50) / 1e6);
+        /* The run's figures: each input's taken once (A's list row repeats them), counts added,
+         * the largest queue wait and propagation p99 (a "nan" of one input passed over), the
+         * peaks added. From the values run_figures wrote: A's second s, B's second s - 1. */
+        bool a_in = s <= 2, b_in = s >= 1;
+        double want[8] = {2.0 * a_in + 3.0 * b_in,
+                          (a_in ? s : 0) + (b_in ? s - 1 : 0),
+                          (a_in ? s : 0) + (b_in ? s - 1 : 0),
+                          10.0 * a_in + 20.0 * b_in,
+                          b_in && s - 1 > 0 ? 10.0 : 5.0,
+                          b_in ? 3.0 + (s - 1) : 1.5 + s,
+                          3.0 * from,
+                          4.0 * a_in + 5.0 * b_in};
+        for (int c = 0; c < 8; c++)
+            assert_true(fabs(rows[s].run[c] - want[c]) < 1e-9);
     }
     /* A merged second one of whose rows has no histogram gets unknown percentiles (nan). */
-    write_series(b, 1, T0 + 1000, 1);
+    write_series(b, 1, T0 + 1000, 1, false);
     out_t *o = out_new_capture();
     assert_int_equal(results_series_merge(dirs, 2, m, out, &written, o), 0);
     assert_int_equal(read_series(out, rows, 8), 4);
@@ -601,6 +655,12 @@ static void test_series_by_wall_second(void **state)
     assert_non_null(strstr(out_captured_diag(o), "1 merged seconds have rows without a "
                                                  "per-second histogram"));
     out_free(o);
+    /* An input written before the run's figures: merged seconds it has a row in have them
+     * unknown ("nan"); the others keep them. */
+    write_series(b, 1, T0 + 1000, -1, true);
+    assert_int_equal(results_series_merge(dirs, 2, m, out, &written, NULL), 0);
+    assert_int_equal(read_series(out, rows, 8), 4);
+    assert_true(rows[0].run[0] == 2.0 && isnan(rows[1].run[0]) && isnan(rows[3].run[4]));
     /* An input without series.csv: no merged series at all, said once. */
     o = out_new_capture();
     assert_int_equal(results_series_merge(dirs, 3, m, out, &written, o), 0);
