@@ -90,8 +90,12 @@ total_text=$("$SQUALL" check "$PLAN" | sed -n 's/^plan: .*, \([0-9,]*\) requests
 total_json=$(/usr/bin/python3 -c 'import json,sys; print(round(json.load(open(sys.argv[1]))["total"]["requests"]))' "$T/check.json")
 expect "check's text total ($total_text) is the JSON's ($total_json)" test "$total_text" = "$total_json"
 "$SQUALL" check "$T/missing.yaml" --json >"$T/check-bad.out" 2>"$T/check-bad.err"
-expect "check --json of a missing plan: exit 2, nothing on stdout, the error on stderr" \
-    bash -c "[ $? = 2 ] && [ ! -s '$T/check-bad.out' ] && [ -s '$T/check-bad.err' ]"
+rc=$?
+expect "check --json of a missing plan: exit 2, the error on stderr" \
+    bash -c "[ $rc = 2 ] && [ -s '$T/check-bad.err' ]"
+expect "and a document on stdout saying valid: false, with the error stderr names" \
+    /usr/bin/python3 -c 'import json,sys; d=json.load(open(sys.argv[1])); e=open(sys.argv[2]).read(); assert d["valid"] is False and d["errors"] and d["errors"][0]["message"] in e, d' \
+    "$T/check-bad.out" "$T/check-bad.err"
 
 # --- run --json and merge --json, against results.json ---------------------------------------
 serve_start || exit 1

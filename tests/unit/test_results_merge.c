@@ -557,7 +557,8 @@ static size_t read_series(const char *dir, srow_t *rows, size_t cap)
                               "p90_ms,p99_ms,max_ms,planned,unix_ms,p999_ms,marks,run_watch_open,"
                               "run_watch_dropped,run_watch_reconnects,run_watch_events,"
                               "run_watch_propagation_p99_upper_ms,run_queue_wait_max_ms,"
-                              "run_in_flight_peak_upper,run_queued_peak_upper\n");
+                              "run_in_flight_peak_upper,run_queued_peak_upper,sync_window,sync_n,"
+                              "sync_r_bar,sync_p,sync_peak_to_mean\n");
     size_t n = 0;
     char p50[32], p99[32];
     while (n < cap && fgets(line, sizeof line, f)) {
