@@ -108,7 +108,7 @@ $(_ngx_access_log "$d")
     http2_max_concurrent_streams 512;
     default_type application/json;
     server {
-        listen 127.0.0.1:$NGX_PORT;
+        listen 127.0.0.1:$NGX_PORT backlog=4096;
         listen 127.0.0.1:$NGX_H2_PORT http2;
         listen 127.0.0.1:$NGX_TLS_PORT ssl http2;
         ssl_certificate $d/tls/server.pem;
@@ -120,6 +120,7 @@ $(_ngx_access_log "$d")
 $(_ngx_delays)
 $(_ngx_ticks)
         location = /fail/503 { return 503 '{"error":"busy"}\n'; }
+        location /v1/leases/ { echo_read_request_body; echo '{"renewed":true}'; }
         location = /echo/body { echo_read_request_body; echo_request_body; }
         location = /auth/bearer {
             if (\$http_authorization != "Bearer $NGX_TOKEN") { return 401 '{"auth":"refused"}\n'; }
