@@ -3,7 +3,7 @@
 # server-side delay (the target's --delay fixed:5ms) is slower (exit 1), the reverse faster
 # (exit 0), and three runs of one configuration compared pairwise are within noise (exit 0
 # each); a target restarted on another port is named in a warning. A fleet phase (an aligned
-# storm of 20 ticks) with watches is compared per tick and on propagation latency: a 5 ms delay
+# storm of 20 ticks) with watches is compared per tick and on propagation latency: a 10 ms delay
 # added through POST /admin/faults makes both slower, two runs without it are within noise, and
 # open latency (streams opening together count once) is untested with both counts and the
 # minimum. Overrides that differ are warned about. --json and --html are parsed. Exit codes:
@@ -110,10 +110,14 @@ sys.exit(bad)
 PY
 
 # ---- a fleet phase with watches: per tick, and on propagation latency ---------------------
-# 200 gateways renew on one aligned 1 s tick for 20 s (20 ticks) over 64 connections while 4
-# watches follow the collection (each renewal carries its send stamp). One target for all three
-# runs, so plan and target are the same; the third run's writes wait 5 ms more (POST
-# /admin/faults), so every tick's requests and every event's propagation take at least 5 ms.
+# 50 gateways renew on one aligned 1 s tick for 20 s (20 ticks), each on its own connection,
+# while 4 watches follow the collection (each renewal carries its send stamp). One target for
+# all three runs, so plan and target are the same; the third run's writes wait 10 ms more (POST
+# /admin/faults), so every tick's requests and every event's propagation take at least 10 ms.
+# The tick is small so that its latency is the target's answer, not a queue for this machine's
+# two cores: with 200 gateways a tick's p50 was 11-16 ms of CPU queue on a loaded evening
+# (2026-12-02) and a 5 ms delay hid inside it (the held answers let the rest of the tick through
+# faster: 15.7 -> 15.0 ms), which is the target's truth but not this test's subject.
 serve_start || exit 1
 cat >"$T/storm.yaml" <<YAML
 seed: 5
@@ -123,7 +127,7 @@ requests:
           body: '{"holder":"gw-{{agent}}","stamp":{{now_ns}}}'}
   follow: {kind: watch, path: "/v1/sites/north/leases?watch=1", stamp-key: stamp}
 phases:
-  - {name: storm, duration: 20s, fleet: {agents: 200, every: 1s, timing: aligned, send: renew},
+  - {name: storm, duration: 20s, fleet: {agents: 50, every: 1s, timing: aligned, send: renew},
      watches: {follow: 4}}
 # A connection per agent: no request of a tick waits for another's connection, so a tick's
 # latency is the target's, not a queue whose length follows this shared machine's load (with
@@ -134,9 +138,9 @@ for k in 1 2; do
     run_plan "$T/storm-$k" "$T/storm.yaml"
     expect_rc "storm run $k completes (exit $RUN_RC)" "$T/storm-$k" 0
 done
-FAULT=$(curl -s -o /dev/null -w '%{http_code}' -X POST --data '{"delay":"fixed:5ms"}' \
+FAULT=$(curl -s -o /dev/null -w '%{http_code}' -X POST --data '{"delay":"fixed:10ms"}' \
     "$SERVE_URL/admin/faults")
-expect "the target takes a 5 ms delay (POST /admin/faults: $FAULT)" test "$FAULT" = 200
+expect "the target takes a 10 ms delay (POST /admin/faults: $FAULT)" test "$FAULT" = 200
 run_plan "$T/storm-slow" "$T/storm.yaml"
 expect_rc "the storm run with the delay completes (exit $RUN_RC)" "$T/storm-slow" 0
 serve_stop
@@ -152,7 +156,7 @@ expect "same plan, same target: no warning" test ! -s "$T/storm-same.err"
 "$SQUALL" compare "$T/storm-1" "$T/storm-slow" >"$T/storm-reg.txt" 2>"$T/storm-reg.err"
 RC=$?
 cat "$T/storm-reg.txt"
-expect "the storm with a 5 ms delay: slower, exit 1 (got $RC)" test "$RC" = 1
+expect "the storm with a 10 ms delay: slower, exit 1 (got $RC)" test "$RC" = 1
 expect "the storm phase's fleet class is slower at p50, per tick (20 vs 20)" \
     grep -qE '^storm +renew +p50 .* 20 vs 20 ticks +slower$' "$T/storm-reg.txt"
 expect "the watch class is slower at propagation p50" \
@@ -265,17 +269,17 @@ check("renew p50: tested on the 20 ticks' p50 (storms section), Mann-Whitney p <
       r["samples"] == "ticks" and r["tested_on"] == "ticks.p50_ns" and r["n_base"] == 20
       and r["n_new"] == 20 and r["p"] < 0.01, r)
 ticks = [t for a in runs[1]["sections"]["storms"]["storm"]["actions"] for t in a["ticks"]]
-check("every tick of the delayed run has p50 >= the 5 ms delay (min %.2f ms)"
-      % (min(t["p50_ns"] for t in ticks) / 1e6), min(t["p50_ns"] for t in ticks) >= 5e6)
+check("every tick of the delayed run has p50 >= the 10 ms delay (min %.2f ms)"
+      % (min(t["p50_ns"] for t in ticks) / 1e6), min(t["p50_ns"] for t in ticks) >= 10e6)
 med = statistics.median(t["p50_ns"] / 1e6 for t in ticks)
 check("the tick p50s the test used are the storms section's own (median %.3f ms)" % med,
       abs(med - r["new_median"]) < 1e-6, r["new_median"])
 p = L[("follow", "propagation", "p50")]
 check("propagation p50: quantile test over the events, one sample per second of the 20 s "
-      "phase (%d events, 4 streams), slower by at least 4 ms of the 5 ms delay "
+      "phase (%d events, 4 streams), slower by at least 8 ms of the 10 ms delay "
       "(%.2f -> %.2f ms, p = %.2g)" % (p["recorded_base"], p["base"], p["new"], p["p"]),
       p["test"] == "quantile" and p["streams_base"] == 4 and p["seconds_base"] == 20 and
-      p["n_base"] == 20 and p["n_new"] == 20 and p["new"] - p["base"] >= 4 and
+      p["n_base"] == 20 and p["n_new"] == 20 and p["new"] - p["base"] >= 8 and
       p["verdict"] == "slower", p)
 o = L[("follow", "open", "p50")]
 check("open p50: untested, needs 5 vs 5", o["verdict"] == "untested" and o["needs"] ==
