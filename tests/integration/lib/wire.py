@@ -1,7 +1,9 @@
 """Gaps between requests as the wire saw them: a tcpdump capture on loopback, read back by
 tcpdump itself with nanosecond stamps, checked against the exponential law of a Poisson process.
 
-Usage: wire.py CAPTURE.pcap RATE_PER_S [SKIP_S] [GAPS]
+Usage: wire.py CAPTURE.pcap RATE_PER_S [SKIP_S] [GAPS] [FILTER]
+FILTER, a pcap-filter(7) expression applied as tcpdump reads the file (e.g. "src port 40001"),
+picks one sender's packets from a capture of two.
 Prints one JSON object: requests, gaps used, the share of gaps under 100 us and the law's
 1 - exp(-rate * 100 us), the KS statistic and p-value of the shifted gaps, and gap quantiles.
 
@@ -25,17 +27,29 @@ from scipy import stats
 SHIFT_NS = 100_000
 
 
-def request_stamps(pcap):
-    """Nanosecond stamps of the captured packets, from tcpdump's own reading of the file."""
+def request_stamps(pcap, flt=None):
+    """Nanosecond stamps of the captured packets, from tcpdump's own reading of the file. A
+    segment sent again (the same source and sequence range: a TCP retransmission, e.g. a tail
+    loss probe after the VM paused the peer before it could acknowledge; RFC 9293 section 3.8.1,
+    RFC 8985 section 7) is one request: only its first sending counts."""
     out = subprocess.run(
-        ["tcpdump", "-r", pcap, "-n", "-tt", "--time-stamp-precision=nano"],
+        ["tcpdump", "-r", pcap, "-n", "-tt", "--time-stamp-precision=nano", "-S"] +
+        ([flt] if flt else []),
         check=True, capture_output=True, text=True).stdout
-    stamps = []
+    stamps, seen = [], set()
     for line in out.splitlines():
-        sec, _, _ = line.partition(" ")
+        fields = line.split()
+        sec = fields[0] if fields else ""
         whole, _, frac = sec.partition(".")
-        if whole.isdigit() and len(frac) == 9 and frac.isdigit():
-            stamps.append(int(whole) * 1_000_000_000 + int(frac))
+        if not (whole.isdigit() and len(frac) == 9 and frac.isdigit()):
+            continue
+        # "... IP 127.0.0.1.PORT > 127.0.0.1.PORT: Flags [P.], seq A:B, ..."
+        key = (fields[2] if len(fields) > 2 else "",
+               fields[fields.index("seq") + 1] if "seq" in fields else line)
+        if key in seen:
+            continue
+        seen.add(key)
+        stamps.append(int(whole) * 1_000_000_000 + int(frac))
     stamps.sort()
     return stamps
 
@@ -70,7 +84,8 @@ def main():
     pcap, rate = sys.argv[1], float(sys.argv[2])
     skip = float(sys.argv[3]) if len(sys.argv) > 3 else 0.5
     n = int(sys.argv[4]) if len(sys.argv) > 4 else 10_000
-    print(json.dumps(figures(request_stamps(pcap), rate, skip, n)))
+    flt = sys.argv[5] if len(sys.argv) > 5 else None
+    print(json.dumps(figures(request_stamps(pcap, flt), rate, skip, n)))
 
 
 if __name__ == "__main__":
