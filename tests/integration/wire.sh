@@ -87,9 +87,7 @@ import wire
 from scipy import stats
 s, r = (json.load(open(p)) for p in sys.argv[1:3])
 def tail(flt):
-    st = wire.request_stamps(sys.argv[3], flt)
-    st = [t for t in st if t >= st[0] + 500_000_000]
-    gaps = [b - a for a, b in zip(st, st[1:])][:10_000]
+    gaps = wire.gaps_of(wire.request_stamps(sys.argv[3], flt))
     return [g - wire.SHIFT_NS for g in gaps if g >= wire.SHIFT_NS]
 ks2 = stats.ks_2samp(tail("not (%s)" % sys.argv[4]), tail(sys.argv[4]))
 off_s = 100 * (s["share_under_100us"] - s["law_under_100us"])

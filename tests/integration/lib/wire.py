@@ -54,11 +54,16 @@ def request_stamps(pcap, flt=None):
     return stamps
 
 
-def figures(stamps, rate, skip_s=0.5, n_gaps=10_000):
-    # The first requests open connections (handshakes delay them): skip the start.
+def gaps_of(stamps, skip_s=0.5, n_gaps=10_000):
+    """The first n_gaps gaps (ns) after skip_s: the first requests open connections (handshakes
+    delay them)."""
     t0 = stamps[0] + int(skip_s * 1e9) if stamps else 0
     s = [t for t in stamps if t >= t0]
-    gaps = [b - a for a, b in zip(s, s[1:])][:n_gaps]
+    return [b - a for a, b in zip(s, s[1:])][:n_gaps]
+
+
+def figures(stamps, rate, skip_s=0.5, n_gaps=10_000):
+    gaps = gaps_of(stamps, skip_s, n_gaps)
     law = 1 - math.exp(-rate * SHIFT_NS / 1e9)
     share = sum(g < SHIFT_NS for g in gaps) / len(gaps) if gaps else float("nan")
     tail = [(g - SHIFT_NS) / 1e9 for g in gaps if g >= SHIFT_NS]
