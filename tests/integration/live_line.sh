@@ -68,11 +68,20 @@ expect(len(cols) == 1, f"the first column separator sits at one place on every l
 expect(all(l.startswith(l.split(" ", 1)[0].ljust(len("reconnect-storm")) + " ") for l in live),
        "phase names are padded to the longest, reconnect-storm")
 storm = [l for l in live if l.startswith("reconnect-storm")]
-# (the second tick's answers may arrive after the phase ended: the next line tells them)
+# (the second tick's answers may arrive after the phase ended: the next line tells them; a line
+# printed while a tick's answers are still arriving tells the part done so far, so a tick's count
+# may grow from one line to the next, never shrink, and ends at its 50 agents)
 ticks = [re.search(r"[|;] (?:reconnect-storm )?tick (\d+) of (\d+): (\d+) done", l) for l in live]
-got = sorted({(int(m[1]), int(m[2]), int(m[3])) for m in ticks if m})
-expect(got == [(1, 2, 50), (2, 2, 50)],
-       f"the fleet phase names its 2 ticks of 50 agents each (4 s / every 2 s): {got}")
+seen = [(int(m[1]), int(m[2]), int(m[3])) for m in ticks if m]
+last = {}
+grows = True
+for k, n, done in seen:
+    grows &= done >= last.get((k, n), 0) and done <= 50
+    last[(k, n)] = done
+got = sorted((k, n, done) for (k, n), done in last.items())
+expect(grows and got == [(1, 2, 50), (2, 2, 50)],
+       f"the fleet phase names its 2 ticks of 50 agents each (4 s / every 2 s), each count "
+       f"growing to 50: {seen}")
 expect(not any("| sent " in l for l in storm), "no 'sent N/s of M/s' in the fleet phase")
 # The synchronisation gauge of the fleet's renewals: R-bar of the last closed 2 s window, four
 # columns ("–" until one closes). One aligned tick of 50 agents per window: R-bar near 1.

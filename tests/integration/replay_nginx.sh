@@ -15,7 +15,10 @@
 #   at speed 1 and 2. nginx's $msec has only ms resolution, so the achieved times are the
 #   capture stamps of squall's request packets on loopback (tcpdump, ns precision;
 #   lib/capture.sh), each matched to its log line by r=N (lib/replay_gaps.py says how the gaps
-#   are compared). About 40 s.
+#   are compared). A host that takes this VM's CPU or wakes it late misses that bar for any
+#   sender, so a bare reference sender (wire_ref.c, no squall code) sends the same schedule at
+#   the same time under the same capture: an attempt where the reference itself misses 1 ms at
+#   p99 measures the machine, not squall, and is not judged (see fidelity below). About 40 s.
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/nginx.sh"
 source "$SRCDIR/tests/integration/lib/run.sh"
@@ -103,6 +106,26 @@ print(n, w, hold)' "$T/recorded.ndjson")
 
 lines_now() { wc -l <"$NGX_LOG"; }
 
+# The reference sender's schedule at speed 1 and 2: every request the replay sends (all but the
+# POSTs, watches included), at its recorded offset from the first divided by the speed, as
+# "GET /small.json?r=N" (its lines in nginx's log are left out of the counts below).
+for speed in 1 2; do
+    /usr/bin/python3 - "$T/recorded.ndjson" "$speed" >"$T/ref-$speed.at" <<'PY'
+import json, re, sys
+rows = []
+for line in open(sys.argv[1]):
+    try:
+        r = json.loads(line)
+    except ValueError:
+        continue
+    if r["verb"] != "POST":
+        rows.append((r["ts"], re.search(r"[?&]r=(\d+)", r["uri"]).group(1)))
+rows.sort()
+for ts, n in rows:
+    print(round((ts - rows[0][0]) * 1e6 / float(sys.argv[2])), f"/small.json?r={n}")
+PY
+done
+
 # squall's and nginx's timing must not be taken over by the machine's other work in the middle
 # of a gap; as in wire.sh, when the test may (root), both run at a real-time priority
 # (SCHED_FIFO, sched(7)). Bounded: the replay ends with its log, and squall sleeps between
@@ -114,19 +137,31 @@ if [ "$(id -u)" = 0 ] && [ "${REPLAY_FIFO:-1}" = 1 ]; then
 fi
 
 # run_one NAME SPEED COPIES: the replay under capture ($T/NAME.pcap), and what nginx logged for
-# it in $T/NAME.seen.
+# it in $T/NAME.seen. With one copy at speed 1 or 2 the reference sender sends the same schedule
+# at the same time; its local ports, as a pcap-filter(7) expression, in $T/NAME.ref-filter.
 run_one() {
     plan "$1" "$2" "$3"
-    local before
+    local before ref_pid=
     before=$(lines_now)
     capture_start "$PORT" "$T/$1.pcap" "GET HEAD PUT" || return 1
-    rm -rf "${T:?}/$1"
+    rm -rf "${T:?}/$1" "$T/$1.ref-filter"
+    if [ "$3" = 1 ] && [ -f "$T/ref-$2.at" ]; then
+        timeout 60 "${PRIO[@]}" "$BUILDDIR/tests/integration/wire_ref" "$PORT" --at \
+            "$T/ref-$2.at" >"$T/$1.ref.stdout" 2>"$T/$1.ref.stderr" &
+        ref_pid=$!
+    fi
     timeout 120 "${PRIO[@]}" "$SQUALL" run "$T/$1.yaml" -o "$T/$1" --quiet --no-brakes \
         >"$T/$1.stdout" 2>"$T/$1.stderr"
     RUN_RC=$?
+    if [ -n "$ref_pid" ]; then
+        wait "$ref_pid" || echo "note: $1: the reference sender failed: $(tail -1 "$T/$1.ref.stderr")"
+        /usr/bin/python3 -c "import json, sys
+print(' or '.join('src port %d' % p for p in json.load(open(sys.argv[1]))['ports']))" \
+            "$T/$1.ref.stdout" >"$T/$1.ref-filter" 2>/dev/null
+    fi
     capture_stop
     sleep 0.5 # the last streams' lines (nginx logs at its next write)
-    tail -n +$((before + 1)) "$NGX_LOG" >"$T/$1.seen"
+    tail -n +$((before + 1)) "$NGX_LOG" | grep -v '"uri":"/small.json' >"$T/$1.seen"
 }
 
 for run in "s1 1 1" "s2 2 1" "c3 4 3"; do
@@ -189,34 +224,69 @@ sys.exit(1 if bad else 0)
 PY
 
 # Fidelity as the wire saw it (lib/replay_gaps.py): the issue's goal, 1 ms at p99. A machine
-# busy with other work can still take a core for over a millisecond now and then; a run that
-# misses is run again, up to 3 attempts: a replay that is systematically off fails all three.
+# busy with other work, or a host that takes this VM's CPU, can hold any sender for over a
+# millisecond now and then. The reference sender (wire_ref.c: clock_nanosleep to 100 µs before
+# each instant, then a spin; no squall code) sent the same schedule in the same seconds, and its
+# figures are read from the same capture by its ports. Per attempt:
+#   squall's p99 <= 1 ms, nothing missing, nothing dropped     -> met;
+#   otherwise, the reference's p99 > 1 ms too                  -> the machine could not hold the
+#                                                                 bar then: not judged;
+#   otherwise (the reference held it and squall did not)       -> missed.
+# Up to 3 attempts: met in one passes; missed in all judged ones fails; none judged skips (77),
+# saying so, when every other check passed.
 fidelity() { # NAME SPEED ATTEMPT
+    local flt
+    flt=$(cat "$T/$1.ref-filter" 2>/dev/null)
+    [ -n "$flt" ] || { echo "(attempt $3) FAIL: $1: the reference sender printed no ports"; return 1; }
     /usr/bin/python3 "$SRCDIR/tests/integration/lib/replay_gaps.py" "$T/$1.pcap" \
-        "$T/recorded.ndjson" "$2" >"$T/$1.gaps.json" || return 1
-    /usr/bin/python3 - "$T/$1.gaps.json" "$1" "$3" "$CAP_DROPPED" <<'PY'
+        "$T/recorded.ndjson" "$2" "not ($flt)" >"$T/$1.gaps.json" || return 1
+    /usr/bin/python3 "$SRCDIR/tests/integration/lib/replay_gaps.py" "$T/$1.pcap" \
+        "$T/recorded.ndjson" "$2" "$flt" >"$T/$1.ref-gaps.json" || return 1
+    /usr/bin/python3 - "$T/$1.gaps.json" "$T/$1.ref-gaps.json" "$1" "$3" "$CAP_DROPPED" <<'PY'
 import json, sys
-g, name, attempt, dropped = json.load(open(sys.argv[1])), sys.argv[2], sys.argv[3], sys.argv[4]
+g, r = json.load(open(sys.argv[1])), json.load(open(sys.argv[2]))
+name, attempt, dropped = sys.argv[3], sys.argv[4], sys.argv[5]
+def text(x):
+    return (f"p50 {x['error_ms_p50']:.3f} ms, p90 {x['error_ms_p90']:.3f} ms, p99 "
+            f"{x['error_ms_p99']:.3f} ms, max {x['error_ms_max']:.3f} ms over {x['gaps']} gaps, "
+            f"{x['missing']} not captured")
 ok = g["missing"] == 0 and dropped == "0" and g["error_ms_p99"] is not None \
     and g["error_ms_p99"] <= 1.0
-print(("ok: " if ok else f"(attempt {attempt}) FAIL: ") +
-      f"{name}: achieved inter-arrival error p50 {g['error_ms_p50']:.3f} ms, p90 "
-      f"{g['error_ms_p90']:.3f} ms, p99 {g['error_ms_p99']:.3f} ms <= 1 ms, max "
-      f"{g['error_ms_max']:.3f} ms over {g['gaps']} gaps (tcpdump stamps; {g['missing']} "
-      f"requests not captured, {dropped} packets dropped)")
-sys.exit(0 if ok else 1)
+ref_held = r["missing"] == 0 and r["error_ms_p99"] is not None and r["error_ms_p99"] <= 1.0
+verdict = "met" if ok else ("missed" if ref_held else "not judged")
+print(("ok: " if ok else f"(attempt {attempt}) {'FAIL' if ref_held else 'void'}: ") +
+      f"{name}: achieved inter-arrival error <= 1 ms at p99: squall {text(g)}; the reference "
+      f"sender {text(r)} (tcpdump stamps, {dropped} packets dropped) -> {verdict}")
+sys.exit(0 if ok else (1 if ref_held else 2))
 PY
 }
+JUDGED=0
 for run in "s1 1" "s2 2"; do
     set -- $run
+    met=0
     for attempt in 1 2 3; do
         out=$(fidelity "$1" "$2" "$attempt")
         rc=$?
         echo "$out" | sed "s/^(attempt [0-9]) //;s/^FAIL/miss/"
-        [ $rc = 0 ] && break
-        [ $attempt = 3 ] && { echo "FAIL: $1: fidelity missed in 3 attempts"; FAILED=1; break; }
+        [ $rc = 0 ] && { met=1; JUDGED=$((JUDGED + 1)); break; }
+        [ $rc = 1 ] && JUDGED=$((JUDGED + 1))
+        [ $attempt = 3 ] && break
         run_one "$1" "$2" 1
     done
+    if [ $met = 0 ]; then
+        if [ $JUDGED -gt 0 ]; then
+            echo "FAIL: $1: fidelity missed in every attempt the reference sender held the bar"
+            FAILED=1
+        else
+            echo "note: $1: the reference sender missed 1 ms at p99 in all 3 attempts: not judged"
+        fi
+    fi
+    [ $met = 1 ] || [ $JUDGED -gt 0 ] || UNJUDGED="${UNJUDGED:-} $1"
+    JUDGED=0
 done
+if [ "$FAILED" = 0 ] && [ -n "${UNJUDGED:-}" ]; then
+    echo "SKIP: replay nginx: every other check passed; fidelity of${UNJUDGED} not judged (the machine missed the bar for a bare sender too)"
+    exit 77
+fi
 [ "$FAILED" = 0 ] && echo "PASS: replay nginx" || echo "FAIL: replay nginx"
 exit "$FAILED"

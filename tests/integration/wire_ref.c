@@ -9,6 +9,10 @@
  * pause of the VM sent two requests in one packet).
  *
  * Usage: wire_ref PORT RATE_PER_S SECONDS SEED [CONNS]   (CONNS 16 unless given)
+ *        wire_ref PORT --at FILE [CONNS]
+ * The second form sends at the instants a file gives instead of a Poisson process, as the replay
+ * test's reference (tests/integration/replay_nginx.sh): one line per request, "OFFSET_NS PATH",
+ * OFFSET_NS from the sender's start in ascending order, PATH sent as "GET PATH".
  * Prints {"requests": N, "ports": [its connections' local ports]} (the last request of each
  * connection asks nginx to close, RFC 9112 section 9.6, so every answer has been read when it
  * ends) and exits 0; 1 on a connection error (printed). The ports let a capture of squall and
@@ -24,6 +28,7 @@
 #include <math.h>
 #include <netinet/in.h>
 #include <netinet/tcp.h>
+#include <stdbool.h>
 #include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -113,18 +118,55 @@ static int finish(int fd, int port)
     return 0;
 }
 
+/* Where the next request goes and when: a Poisson process of a rate until an end, or the lines of
+ * a schedule file. */
+typedef struct {
+    FILE *at; /* the schedule, or NULL for Poisson */
+    double rate;
+    uint64_t rng;
+    int64_t start, end;
+} instants_t;
+
+/* The next instant (ns, CLOCK_MONOTONIC) into *t and its path into path; false at the end. */
+static bool next_instant(instants_t *in, int64_t *t, char *path, size_t cap)
+{
+    if (!in->at) {
+        *t += (int64_t)(-log(uniform(&in->rng)) / in->rate * 1e9);
+        snprintf(path, cap, "/small.json");
+        return *t < in->end;
+    }
+    long long off;
+    char fmt[32];
+    snprintf(fmt, sizeof fmt, "%%lld %%%zus", cap - 1);
+    if (fscanf(in->at, fmt, &off, path) != 2)
+        return false;
+    *t = in->start + off;
+    return true;
+}
+
 int main(int argc, char **argv)
 {
-    if (argc != 5 && argc != 6) {
-        fprintf(stderr, "usage: wire_ref PORT RATE_PER_S SECONDS SEED [CONNS]\n");
+    bool at = argc >= 4 && strcmp(argv[2], "--at") == 0;
+    if (at ? argc != 4 && argc != 5 : argc != 5 && argc != 6) {
+        fprintf(stderr, "usage: wire_ref PORT RATE_PER_S SECONDS SEED [CONNS]\n"
+                        "       wire_ref PORT --at FILE [CONNS]\n");
         return 2;
     }
     int port = atoi(argv[1]);
-    double rate = atof(argv[2]);
-    double seconds = atof(argv[3]);
-    uint64_t rng = strtoull(argv[4], NULL, 10);
-    int conns = argc == 6 ? atoi(argv[5]) : 16;
-    if (port <= 0 || port > 65535 || !(rate > 0) || !(seconds > 0) || conns < 1 ||
+    instants_t in = {0};
+    double seconds = 1;
+    if (at) {
+        if (!(in.at = fopen(argv[3], "r"))) {
+            perror("wire_ref: the schedule");
+            return 2;
+        }
+    } else {
+        in.rate = atof(argv[2]);
+        seconds = atof(argv[3]);
+        in.rng = strtoull(argv[4], NULL, 10);
+    }
+    int conns = argc == (at ? 5 : 6) ? atoi(argv[argc - 1]) : 16;
+    if (port <= 0 || port > 65535 || (!at && !(in.rate > 0)) || !(seconds > 0) || conns < 1 ||
         conns > MAX_CONNS) {
         fprintf(stderr, "wire_ref: bad arguments\n");
         return 2;
@@ -133,16 +175,14 @@ int main(int argc, char **argv)
     for (int i = 0; i < conns; i++)
         if ((fds[i] = open_conn(port)) < 0)
             return 1;
-    char req[128];
-    int len = snprintf(req, sizeof req, "GET /small.json HTTP/1.1\r\nHost: 127.0.0.1:%d\r\n\r\n",
-                       port);
-    int64_t start = now_ns() + 1000000, end = start + (int64_t)(seconds * 1e9);
-    int64_t t = start;
+    char req[640], path[512];
+    in.start = now_ns() + 1000000;
+    in.end = in.start + (int64_t)(seconds * 1e9);
+    int64_t t = in.start;
     long sent = 0;
-    for (;;) {
-        t += (int64_t)(-log(uniform(&rng)) / rate * 1e9);
-        if (t >= end)
-            break;
+    while (next_instant(&in, &t, path, sizeof path)) {
+        int len = snprintf(req, sizeof req, "GET %s HTTP/1.1\r\nHost: 127.0.0.1:%d\r\n\r\n", path,
+                           port);
         int64_t wake = t - SPIN_NS;
         if (now_ns() < wake) {
             struct timespec ts = {.tv_sec = wake / 1000000000, .tv_nsec = wake % 1000000000};
@@ -162,6 +202,8 @@ int main(int argc, char **argv)
             return 1;
         }
     }
+    if (in.at)
+        fclose(in.at);
     printf("{\"requests\": %ld, \"ports\": [", sent + conns);
     for (int i = 0; i < conns; i++)
         printf("%s%d", i ? ", " : "", local_port(fds[i]));

@@ -1,6 +1,8 @@
 """A replay's achieved inter-arrival times against its recorded log's, as the wire saw them.
 
-Usage: replay_gaps.py CAPTURE.pcap RECORDED.ndjson SPEED
+Usage: replay_gaps.py CAPTURE.pcap RECORDED.ndjson SPEED [FILTER]
+FILTER, a pcap-filter(7) expression applied as tcpdump reads the capture, picks one sender's
+packets where two sent at once (the replay test's reference sender, wire_ref.c, by its ports).
 Prints one JSON object: requests recorded (those the replay sends), captured, missing, and the
 absolute error of each achieved gap against the recorded gap divided by the speed, in ms:
 p50, p90, p99, max.
@@ -24,10 +26,11 @@ STAMP = re.compile(r"^(\d+)\.(\d{9}) IP ")
 REQUEST = re.compile(r"(?:GET|HEAD|PUT) /\S*?[?&]r=(\d+)\S* HTTP/1\.1")
 
 
-def captured(pcap):
+def captured(pcap, flt=None):
     """r id -> the first capture stamp (ns) of its request packet."""
     out = subprocess.run(
-        ["tcpdump", "-r", pcap, "-n", "-tt", "--time-stamp-precision=nano", "-A"],
+        ["tcpdump", "-r", pcap, "-n", "-tt", "--time-stamp-precision=nano", "-A"]
+        + ([flt] if flt else []),
         check=True, capture_output=True, text=True, errors="replace").stdout
     stamps, now = {}, None
     for line in out.splitlines():
@@ -55,8 +58,8 @@ def sent(recorded):
     return sorted(rows)
 
 
-def figures(pcap, recorded, speed):
-    want, got = sent(recorded), captured(pcap)
+def figures(pcap, recorded, speed, flt=None):
+    want, got = sent(recorded), captured(pcap, flt)
     pairs = [(t, got[i]) for t, i in want if i in got]
     err = sorted(abs((b[1] - a[1]) - (b[0] - a[0]) / speed) / 1e6
                  for a, b in zip(pairs, pairs[1:]))
@@ -70,7 +73,8 @@ def figures(pcap, recorded, speed):
 
 
 def main():
-    print(json.dumps(figures(sys.argv[1], sys.argv[2], float(sys.argv[3]))))
+    print(json.dumps(figures(sys.argv[1], sys.argv[2], float(sys.argv[3]),
+                             sys.argv[4] if len(sys.argv) > 4 else None)))
 
 
 if __name__ == "__main__":
