@@ -75,7 +75,10 @@ static int validate_sources(run_t *r)
         ctx.realtime0_ns = clock_real_ns();
         src_t s[RUN_MAX_SOURCES];
         size_t n;
+        int64_t t0 = clock_mono_ns();
         int rc = src_phase_new(&ctx, s, &n);
+        if (i == 0)
+            r->build_ns = clock_mono_ns() - t0;
         if (rc == SQ_ENOMEM)
             return rc;
         bad |= rc != 0;

@@ -84,24 +84,69 @@ static void phase_failed(run_t *r, size_t i, int rc)
     run_stop(r, RUN_END_FAILED, "phase '%s' could not start", r->phases[i].name);
 }
 
-/* Builds and starts phase i's sources; its t = 0 is base_ns. */
-static void phase_start(run_t *r, size_t i, int64_t base_ns)
+/* Builds and starts phase i's sources for a t = 0 at base_ns (which may be ahead: no source
+ * sends before its first intended start). Returns 0 or the first error. */
+static int phase_build(run_t *r, size_t i, int64_t base_ns)
 {
     run_phase_t *ph = &r->phases[i];
-    r->cur = i;
     ph->base_ns = base_ns;
-    ph->planned_to_ns = base_ns;
     ph->realtime0_ns = clock_real_ns() - (clock_mono_ns() - base_ns);
-    ph->started = true;
-    eng_set_connections(r->eng, src_phase_connections(r->plan, i, r->shard));
-    obs_phase(r->obs, i, base_ns, ph->realtime0_ns);
-    if (i < r->plan->n_phases)
-        act_moment(r->act, ACT_PHASE_START, i, base_ns);
     src_ctx_t ctx = run_src_ctx(r, i);
     ctx.alive = 0; /* the models of a running phase count what its sources see */
     int rc = src_phase_new(&ctx, ph->src, &ph->n_src);
     for (size_t k = 0; rc == 0 && k < ph->n_src; k++)
         rc = ph->src[k].ops->start ? ph->src[k].ops->start(ph->src[k].self, &ph->src[k]) : 0;
+    return rc;
+}
+
+/* The first phase's sources, built ahead of its t = 0 at base_ns, so that its first request
+ * leaves at its instant: building them can take milliseconds (a replay reads its whole log
+ * once), which at the instant itself made the first request that late. A failure is told when
+ * the phase starts. */
+static void phase_ready(run_t *r, int64_t base_ns)
+{
+    run_phase_t *ph = &r->phases[0];
+    ph->ready = true;
+    ph->ready_rc = phase_build(r, 0, base_ns);
+}
+
+/* Whether the first phase's sources can be built ahead of the start: it is a timed phase (a
+ * teardown first drains instead). */
+static bool can_ready(const run_t *r)
+{
+    return r->n_phases > 0 && !r->phases[0].teardown;
+}
+
+/* How far ahead of the start they are built: three times what building them took in the
+ * validation (built again, then started: a replay opens its log and reads ahead) and 1 ms. */
+static int64_t ready_lead(const run_t *r)
+{
+    return 3 * r->build_ns + INT64_C(1000000);
+}
+
+/* Phase i begins at base_ns: its sources are built and started then, unless they were ready
+ * ahead for that instant. */
+static void phase_start(run_t *r, size_t i, int64_t base_ns)
+{
+    run_phase_t *ph = &r->phases[i];
+    r->cur = i;
+    ph->planned_to_ns = base_ns;
+    ph->started = true;
+    eng_set_connections(r->eng, src_phase_connections(r->plan, i, r->shard));
+    bool ready = ph->ready && ph->base_ns == base_ns;
+    if (ph->ready && !ready) { /* built for another instant: built again for this one */
+        for (size_t k = 0; k < ph->n_src; k++)
+            ph->src[k].ops->free(ph->src[k].self);
+        ph->n_src = 0;
+    }
+    if (!ready) {
+        ph->base_ns = base_ns;
+        ph->realtime0_ns = clock_real_ns() - (clock_mono_ns() - base_ns);
+    }
+    obs_phase(r->obs, i, base_ns, ph->realtime0_ns);
+    if (i < r->plan->n_phases)
+        act_moment(r->act, ACT_PHASE_START, i, base_ns);
+    int rc = ready ? ph->ready_rc : phase_build(r, i, base_ns);
     if (rc)
         phase_failed(r, i, rc);
 }
@@ -191,7 +236,7 @@ static int64_t next_event(run_t *r)
 {
     int64_t next = INT64_MAX, at;
     if (r->state == RUN_IDLE && r->start_at_mono) {
-        next = r->start_at_mono;
+        next = r->start_at_mono - (can_ready(r) && !r->phases[0].ready ? ready_lead(r) : 0);
     } else if (r->state == RUN_LOADING) {
         run_phase_t *ph = current(r);
         if (ph->duration_ns)
@@ -246,12 +291,21 @@ static void begin(run_t *r, int64_t at)
  * the seconds' own judgement would pass is not counted twice as bad. */
 #define LATE_NS INT64_C(10000000)
 
-/* Waiting for --start-at: the wall clock's instant is taken to the monotonic clock again at each
- * wake-up (the wall clock may be slewed while we wait); far from it, the wake-up is rearmed, else
- * the run spins to it and begins. Returns true when the run began. */
+/* Waiting for the start (--start-at, or the lead the first phase's sources are built in): the
+ * wall clock's instant of --start-at is taken to the monotonic clock again at each wake-up (the
+ * wall clock may be slewed while we wait) until the first phase's sources are built for it, a
+ * lead ahead; far from it, the wake-up is rearmed, else the run spins to it and begins. Returns
+ * true when the run began. */
 static bool start_instant(run_t *r, int64_t now)
 {
-    int64_t at = now + (r->opts->start_at_ns - clock_real_ns());
+    int64_t at = r->opts->start_at_ns ? now + (r->opts->start_at_ns - clock_real_ns())
+                                      : r->start_at_mono;
+    if (can_ready(r) && !r->phases[0].ready && at - now <= ready_lead(r)) {
+        phase_ready(r, at);
+        now = clock_mono_ns();
+    }
+    if (r->phases[0].ready)
+        at = r->phases[0].base_ns;
     r->start_at_mono = at;
     if (at > now + RUN_WAKE_EARLY_MAX_NS) {
         rearm(r, now);
@@ -263,8 +317,14 @@ static bool start_instant(run_t *r, int64_t now)
     begin(r, at);
     if (r->late_ns > LATE_NS) {
         char why[160];
-        snprintf(why, sizeof why, "began %.3f s after --start-at (the process was not ready)",
-                 (double)r->late_ns / 1e9);
+        if (r->opts->start_at_ns)
+            snprintf(why, sizeof why, "began %.3f s after --start-at (the process was not ready)",
+                     (double)r->late_ns / 1e9);
+        else
+            snprintf(why, sizeof why,
+                     "began %.3f s after its planned start (building the first phase's sources "
+                     "took longer than the lead given to it)",
+                     (double)r->late_ns / 1e9);
         out_warn(r->o, "%s: its first %lld s count as generator-bound", why,
                  (long long)((r->late_ns + 999999999) / 1000000000));
         obs_late_start(r->obs, r->late_ns, why);
@@ -560,6 +620,10 @@ static void run_loop(run_t *r)
         int64_t now = clock_mono_ns();
         r->start_at_mono = now + (r->opts->start_at_ns - clock_real_ns());
         rearm(r, now); /* on_wake begins the run (start_instant) */
+    } else if (rc == 0 && can_ready(r)) {
+        int64_t now = clock_mono_ns();
+        r->start_at_mono = now + ready_lead(r);
+        rearm(r, now); /* on_wake builds the first phase's sources, then begins (start_instant) */
     } else if (rc == 0) {
         begin(r, clock_mono_ns());
         if (r->state != RUN_DONE)

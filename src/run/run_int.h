@@ -34,6 +34,8 @@ typedef struct {
     src_t src[RUN_MAX_SOURCES];
     size_t n_src;
     bool started;
+    bool ready;                    /* its sources were built and started ahead of base_ns */
+    int ready_rc;                  /* ... and what that returned */
     int64_t base_ns, realtime0_ns; /* its t = 0 */
     int64_t ended_ns;              /* when it stopped starting requests; 0 while it runs */
     int64_t planned_to_ns;         /* its planned starts are counted up to here */
@@ -100,6 +102,7 @@ typedef struct run {
     int64_t load_end_ns; /* when the plan's phases stopped sending (0 while they send) */
     int64_t start_at_mono; /* --start-at on the monotonic clock while waiting for it; 0 none */
     int64_t late_ns;       /* how late the run began after --start-at (< 0: early) */
+    int64_t build_ns;      /* what building the first phase's sources took (validation) */
     eng_clock_t clock;     /* the main engine's clock offset against the target, kept at its end */
 } run_t;
 

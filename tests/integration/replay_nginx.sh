@@ -228,7 +228,9 @@ PY
 # millisecond now and then. The reference sender (wire_ref.c: clock_nanosleep to 100 µs before
 # each instant, then a spin; no squall code) sent the same schedule in the same seconds, and its
 # figures are read from the same capture by its ports. Per attempt:
-#   squall's p99 <= 1 ms, nothing missing, nothing dropped     -> met;
+#   squall's p99 <= 1 ms and its first gap's error too (the first request is not late by the
+#   work of starting the phase: it was by 1.3-4 ms before the run built the first phase's
+#   sources ahead of its start), nothing missing, nothing dropped -> met;
 #   otherwise, the reference's p99 > 1 ms too                  -> the machine could not hold the
 #                                                                 bar then: not judged;
 #   otherwise (the reference held it and squall did not)       -> missed.
@@ -249,9 +251,9 @@ name, attempt, dropped = sys.argv[3], sys.argv[4], sys.argv[5]
 def text(x):
     return (f"p50 {x['error_ms_p50']:.3f} ms, p90 {x['error_ms_p90']:.3f} ms, p99 "
             f"{x['error_ms_p99']:.3f} ms, max {x['error_ms_max']:.3f} ms over {x['gaps']} gaps, "
-            f"{x['missing']} not captured")
+            f"{x['missing']} not captured, the first gap {x['first_gap_error_ms']:.3f} ms")
 ok = g["missing"] == 0 and dropped == "0" and g["error_ms_p99"] is not None \
-    and g["error_ms_p99"] <= 1.0
+    and g["error_ms_p99"] <= 1.0 and g["first_gap_error_ms"] <= 1.0
 ref_held = r["missing"] == 0 and r["error_ms_p99"] is not None and r["error_ms_p99"] <= 1.0
 verdict = "met" if ok else ("missed" if ref_held else "not judged")
 print(("ok: " if ok else f"(attempt {attempt}) {'FAIL' if ref_held else 'void'}: ") +

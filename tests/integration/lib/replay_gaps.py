@@ -5,7 +5,8 @@ FILTER, a pcap-filter(7) expression applied as tcpdump reads the capture, picks 
 packets where two sent at once (the replay test's reference sender, wire_ref.c, by its ports).
 Prints one JSON object: requests recorded (those the replay sends), captured, missing, and the
 absolute error of each achieved gap against the recorded gap divided by the speed, in ms:
-p50, p90, p99, max.
+p50, p90, p99, max; and the first gap's on its own (first_gap_error_ms: the phase's first
+request leaves at its instant, not late by the work of starting the phase).
 
 Where the times come from:
 - Achieved: the kernel's capture stamps of squall's request packets on loopback, taken by
@@ -61,15 +62,16 @@ def sent(recorded):
 def figures(pcap, recorded, speed, flt=None):
     want, got = sent(recorded), captured(pcap, flt)
     pairs = [(t, got[i]) for t, i in want if i in got]
-    err = sorted(abs((b[1] - a[1]) - (b[0] - a[0]) / speed) / 1e6
-                 for a, b in zip(pairs, pairs[1:]))
+    err = [abs((b[1] - a[1]) - (b[0] - a[0]) / speed) / 1e6 for a, b in zip(pairs, pairs[1:])]
+    first = err[0] if err and pairs[0][0] == want[0][0] else None
+    err.sort()
 
     def q(p):
         return err[min(len(err) - 1, int(p * len(err)))] if err else None
     return {"recorded": len(want), "captured": len(got), "missing": len(want) - len(pairs),
             "gaps": len(err), "speed": speed, "error_ms_p50": q(0.50),
             "error_ms_p90": q(0.90), "error_ms_p99": q(0.99),
-            "error_ms_max": err[-1] if err else None}
+            "error_ms_max": err[-1] if err else None, "first_gap_error_ms": first}
 
 
 def main():
