@@ -75,16 +75,18 @@ check "DELETE on a static file is answered 405 by nginx (4xx)" \
 
 # Generator-side waiting counts in response time. Open loop at 2000/s on ONE connection to a
 # 10 ms delay: request k (from 0) is intended at k/R but, served one after another, completes
-# near (k+1)·s with s the service time, so its response time is (k+1)·s − k/R (deterministic
-# queueing arithmetic; s measured, the server's delay is its source). The HDR p50 of 100 samples
-# is the sample of rank (int64)(0.50·100 + 0.5) = 50 (HdrHistogram_c src/hdr_histogram.c,
-# hdr_value_at_percentile), the 50th smallest, k = 49: 50·s − 49/2000 s = 50·s − 24.5 ms.
-# Service time must not show it.
+# near the sum of the k + 1 service times before it, so its response time is (k+1)·s − k/R with
+# s their mean (deterministic queueing arithmetic; s measured, the server's delay is its source).
+# The HDR p50 of 100 samples is the sample of rank (int64)(0.50·100 + 0.5) = 50 (HdrHistogram_c
+# src/hdr_histogram.c, hdr_value_at_percentile), the 50th smallest, k = 49: 50·s − 49/2000 s =
+# 50·s − 24.5 ms. s is the mean service time of all 100 (a busy machine skews service times
+# upwards: a run here on 2026-12-03 had p50 10.5 ms and mean 11.7, and 50 x p50 missed by
+# 12 %). Service time must not show the waiting.
 probe "$T/queue.json" --url "$BASE" --path /delay/10ms --requests 100 --rate 2000 \
     --connections 1
-check "our queue's waiting is in response time: p50 = 50·s − 24.5 ms within 10 %, service ~10 ms" \
-    "abs(d['response_ms']['p50'] - (50 * d['service_ms']['p50'] - 24.5)) <= \
-     0.10 * (50 * d['service_ms']['p50'] - 24.5) and d['service_ms']['p50'] < 13 and \
+check "our queue's waiting is in response time: p50 = 50·s − 24.5 ms within 10 % (s the mean service time), service ~10 ms" \
+    "abs(d['response_ms']['p50'] - (50 * d['service_ms']['mean'] - 24.5)) <= \
+     0.10 * (50 * d['service_ms']['mean'] - 24.5) and d['service_ms']['p50'] < 13 and \
      d['queue_wait_max_ms'] > 500 and d['outcomes']['2xx'] == 100" "$T/queue.json"
 
 # Source: the file on disk. A kept body is byte-for-byte the file; the write hook sees every

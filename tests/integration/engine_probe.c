@@ -134,9 +134,10 @@ static void on_unreachable(void *user)
 
 static json_t *pcts(const hist_t *h)
 {
-    return json_pack("{s:f,s:f,s:f,s:f,s:I}", "p50", hist_value_at(h, 50) / 1e6, "p90",
+    return json_pack("{s:f,s:f,s:f,s:f,s:f,s:I}", "p50", hist_value_at(h, 50) / 1e6, "p90",
                      hist_value_at(h, 90) / 1e6, "p99", hist_value_at(h, 99) / 1e6, "max",
-                     hist_max(h) / 1e6, "count", (json_int_t)hist_count(h));
+                     hist_max(h) / 1e6, "mean", hist_mean(h) / 1e6, "count",
+                     (json_int_t)hist_count(h));
 }
 
 static void report(struct probe *p, int loop_close_rc)
