@@ -301,7 +301,7 @@ for run in "s1 1" "s2 2"; do
     JUDGED=0
 done
 if [ "$FAILED" = 0 ] && [ -n "${UNJUDGED:-}" ]; then
-    echo "SKIP: replay nginx: every other check passed; fidelity of${UNJUDGED} not judged (the machine paused a bare sender too in every attempt)"
+    echo "NOT JUDGED (machine): replay nginx: every other check passed; fidelity of${UNJUDGED} not judged (the machine paused a bare sender too in every attempt)"
     exit 77
 fi
 [ "$FAILED" = 0 ] && echo "PASS: replay nginx" || echo "FAIL: replay nginx"
