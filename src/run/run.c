@@ -84,13 +84,18 @@ static void phase_failed(run_t *r, size_t i, int rc)
     run_stop(r, RUN_END_FAILED, "phase '%s' could not start", r->phases[i].name);
 }
 
-/* Builds and starts phase i's sources for a t = 0 at base_ns (which may be ahead: no source
- * sends before its first intended start). Returns 0 or the first error. */
-static int phase_build(run_t *r, size_t i, int64_t base_ns)
+/* A phase's t = 0 at base_ns on the monotonic clock, and the wall clock's time then. */
+static void phase_at(run_phase_t *ph, int64_t base_ns)
 {
-    run_phase_t *ph = &r->phases[i];
     ph->base_ns = base_ns;
     ph->realtime0_ns = clock_real_ns() - (clock_mono_ns() - base_ns);
+}
+
+/* Builds and starts phase i's sources for its t = 0 (which may be ahead: no source sends before
+ * its first intended start). Returns 0 or the first error. */
+static int phase_build(run_t *r, size_t i)
+{
+    run_phase_t *ph = &r->phases[i];
     src_ctx_t ctx = run_src_ctx(r, i);
     ctx.alive = 0; /* the models of a running phase count what its sources see */
     int rc = src_phase_new(&ctx, ph->src, &ph->n_src);
@@ -107,7 +112,8 @@ static void phase_ready(run_t *r, int64_t base_ns)
 {
     run_phase_t *ph = &r->phases[0];
     ph->ready = true;
-    ph->ready_rc = phase_build(r, 0, base_ns);
+    phase_at(ph, base_ns);
+    ph->ready_rc = phase_build(r, 0);
 }
 
 /* Whether the first phase's sources can be built ahead of the start: it is a timed phase (a
@@ -125,7 +131,7 @@ static int64_t ready_lead(const run_t *r)
 }
 
 /* Phase i begins at base_ns: its sources are built and started then, unless they were ready
- * ahead for that instant. */
+ * ahead (start_instant begins the run at the instant they were built for). */
 static void phase_start(run_t *r, size_t i, int64_t base_ns)
 {
     run_phase_t *ph = &r->phases[i];
@@ -133,20 +139,12 @@ static void phase_start(run_t *r, size_t i, int64_t base_ns)
     ph->planned_to_ns = base_ns;
     ph->started = true;
     eng_set_connections(r->eng, src_phase_connections(r->plan, i, r->shard));
-    bool ready = ph->ready && ph->base_ns == base_ns;
-    if (ph->ready && !ready) { /* built for another instant: built again for this one */
-        for (size_t k = 0; k < ph->n_src; k++)
-            ph->src[k].ops->free(ph->src[k].self);
-        ph->n_src = 0;
-    }
-    if (!ready) {
-        ph->base_ns = base_ns;
-        ph->realtime0_ns = clock_real_ns() - (clock_mono_ns() - base_ns);
-    }
+    if (!ph->ready)
+        phase_at(ph, base_ns);
     obs_phase(r->obs, i, base_ns, ph->realtime0_ns);
     if (i < r->plan->n_phases)
         act_moment(r->act, ACT_PHASE_START, i, base_ns);
-    int rc = ready ? ph->ready_rc : phase_build(r, i, base_ns);
+    int rc = ph->ready ? ph->ready_rc : phase_build(r, i);
     if (rc)
         phase_failed(r, i, rc);
 }
@@ -298,8 +296,8 @@ static void begin(run_t *r, int64_t at)
  * true when the run began. */
 static bool start_instant(run_t *r, int64_t now)
 {
-    int64_t at = r->opts->start_at_ns ? now + (r->opts->start_at_ns - clock_real_ns())
-                                      : r->start_at_mono;
+    int64_t at =
+        r->opts->start_at_ns ? now + (r->opts->start_at_ns - clock_real_ns()) : r->start_at_mono;
     if (can_ready(r) && !r->phases[0].ready && at - now <= ready_lead(r)) {
         phase_ready(r, at);
         now = clock_mono_ns();

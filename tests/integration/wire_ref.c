@@ -98,9 +98,9 @@ static int local_port(int fd)
 static int finish(int fd, int port)
 {
     char req[128], buf[65536];
-    int len = snprintf(req, sizeof req,
-                       "GET /small.json HTTP/1.1\r\nHost: 127.0.0.1:%d\r\nConnection: close\r\n\r\n",
-                       port);
+    int len = snprintf(
+        req, sizeof req,
+        "GET /small.json HTTP/1.1\r\nHost: 127.0.0.1:%d\r\nConnection: close\r\n\r\n", port);
     struct timeval tv = {.tv_sec = 5};
     setsockopt(fd, SOL_SOCKET, SO_RCVTIMEO, &tv, sizeof tv);
     if (send(fd, req, (size_t)len, MSG_NOSIGNAL) != len) {
@@ -181,8 +181,8 @@ int main(int argc, char **argv)
     int64_t t = in.start;
     long sent = 0;
     while (next_instant(&in, &t, path, sizeof path)) {
-        int len = snprintf(req, sizeof req, "GET %s HTTP/1.1\r\nHost: 127.0.0.1:%d\r\n\r\n", path,
-                           port);
+        int len =
+            snprintf(req, sizeof req, "GET %s HTTP/1.1\r\nHost: 127.0.0.1:%d\r\n\r\n", path, port);
         int64_t wake = t - SPIN_NS;
         if (now_ns() < wake) {
             struct timespec ts = {.tv_sec = wake / 1000000000, .tv_nsec = wake % 1000000000};
