@@ -11,7 +11,8 @@
  * place and the new mean). Each change's *confidence* is 1 - p of the two-sided Mann-Whitney U
  * test between the segment before and the one after it; a change is *significant* when p is
  * below the false-alarm level and its size (difference of the segment means) passes the same
- * floors as `squall compare` (report_cmp_opts_t).
+ * floors as `squall compare` (report_cmp_opts_t). Candidates that are not significant are
+ * merged away weakest first and the others tested again (trend_judge); they stay listed.
  * Ownership: a trend_t owns its groups, series and copies of every string. */
 #ifndef SQUALL_TREND_H
 #define SQUALL_TREND_H
@@ -58,6 +59,17 @@ typedef struct {
     bool significant;     /* p < false_alarm and |after - before| past the floors */
     bool worse;           /* after > before: slower, more errors, more synchronised */
 } trend_change_t;
+
+/* Judges PELT's candidates starts[0..n) of y[0..k): each is tested between the segments its
+ * live neighbours bound; while some are not significant, the weakest (the largest p; on a tie
+ * the smallest size) is merged into its neighbours and the rest are tested again. Without this
+ * a split of noise beside a real change shortens the real change's segments below what the
+ * test can resolve (5 runs against 3 cannot reach p < 1 %). out[i] (room for n): the survivors
+ * with their final test, all significant; each merged candidate with the test that merged it,
+ * not significant. out[i].first is an index of y. floor: the metric's minimum change.
+ * SQ_ENOMEM. */
+int trend_judge(const double *y, size_t k, const size_t *starts, size_t n, double floor,
+                const report_cmp_opts_t *o, trend_change_t *out);
 
 typedef struct {
     const char *phase, *cls;

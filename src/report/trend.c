@@ -133,6 +133,64 @@ static double mean_of(const double *x, size_t a, size_t b)
     return s / (double)(b - a);
 }
 
+/* The test of candidate j of starts[0..n) between the segments its live neighbours bound. */
+static int test_one(const double *y, size_t k, const size_t *starts, size_t n, const bool *live,
+                    size_t j, double floor, const report_cmp_opts_t *o, trend_change_t *ch)
+{
+    size_t a = 0, e = k, b = starts[j];
+    for (size_t i = j; i-- > 0;)
+        if (live[i]) {
+            a = starts[i];
+            break;
+        }
+    for (size_t i = j + 1; i < n; i++)
+        if (live[i]) {
+            e = starts[i];
+            break;
+        }
+    report_mw_t mw;
+    int rc = report_mann_whitney(y + b, e - b, y + a, b - a, &mw);
+    if (rc)
+        return rc;
+    *ch = (trend_change_t){.first = b, .before = mean_of(y, a, b), .after = mean_of(y, b, e),
+                           .p = mw.p};
+    double d = fabs(ch->after - ch->before);
+    ch->worse = ch->after > ch->before;
+    ch->significant = mw.p < o->false_alarm && d > floor && d > o->min_rel * fabs(ch->before);
+    return 0;
+}
+
+int trend_judge(const double *y, size_t k, const size_t *starts, size_t n, double floor,
+                const report_cmp_opts_t *o, trend_change_t *out)
+{
+    bool *live = malloc((n + 1) * sizeof(*live));
+    if (!live)
+        return SQ_ENOMEM;
+    for (size_t i = 0; i < n; i++)
+        live[i] = true;
+    int rc = 0;
+    for (;;) {
+        size_t weakest = n;
+        for (size_t i = 0; i < n; i++) {
+            if (!live[i])
+                continue;
+            if ((rc = test_one(y, k, starts, n, live, i, floor, o, &out[i])))
+                goto out;
+            const trend_change_t *c = &out[i], *w = weakest < n ? &out[weakest] : NULL;
+            if (!c->significant &&
+                (!w || c->p > w->p ||
+                 (c->p == w->p && fabs(c->after - c->before) < fabs(w->after - w->before))))
+                weakest = i;
+        }
+        if (weakest == n)
+            break;
+        live[weakest] = false; /* out[weakest] keeps the test that merged it away */
+    }
+out:
+    free(live);
+    return rc;
+}
+
 /* The change points of one series and their size, confidence and significance. The noise is
  * at least half the floor, so that a series steadier than the machine's resolution is not
  * split on differences too small to ever count. */
@@ -155,23 +213,11 @@ static int find_changes(trend_series_t *s, size_t n, double floor, const report_
     rc = SQ_ENOMEM;
     if (!(s->changes = calloc(ns, sizeof(*s->changes))))
         goto out;
-    for (size_t c = 0; c < ns; c++) {
-        size_t a = c ? st[c - 1] : 0, b = st[c], e = c + 1 < ns ? st[c + 1] : k;
-        trend_change_t *ch = &s->changes[c];
-        report_mw_t mw;
-        if ((rc = report_mann_whitney(x + b, e - b, x + a, b - a, &mw)))
-            goto out;
-        ch->first = idx[b];
-        ch->before = mean_of(x, a, b);
-        ch->after = mean_of(x, b, e);
-        ch->p = mw.p;
-        double d = fabs(ch->after - ch->before);
-        ch->worse = ch->after > ch->before;
-        ch->significant =
-            mw.p < o->false_alarm && d > floor && d > o->min_rel * fabs(ch->before);
-    }
+    if ((rc = trend_judge(x, k, st, ns, floor, o, s->changes)))
+        goto out;
+    for (size_t c = 0; c < ns; c++)
+        s->changes[c].first = idx[s->changes[c].first];
     s->n_changes = ns;
-    rc = 0;
 out:
     free(x);
     free(idx);
@@ -431,8 +477,10 @@ bool trend_newest_worse(const trend_t *t)
         for (size_t i = 0; i < gr->n_series + gr->n_sync; i++) {
             const trend_series_t *s =
                 i < gr->n_series ? &gr->series[i] : &gr->sync[i - gr->n_series];
-            if (s->n_changes && s->changes[s->n_changes - 1].significant &&
-                s->changes[s->n_changes - 1].worse)
+            size_t c = s->n_changes;
+            while (c > 0 && !s->changes[c - 1].significant)
+                c--; /* merged away: not a boundary of the newest segment */
+            if (c > 0 && s->changes[c - 1].worse)
                 return true;
         }
     }

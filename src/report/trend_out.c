@@ -14,7 +14,9 @@
     TREND_METHOD ": cost sum (y - segment mean)^2 / sigma^2, sigma from the median absolute "      \
                  "deviation of first differences / (0.6745 sqrt 2), at least half the minimum "    \
                  "change; penalty 2 ln n per change; confidence 1 - p of the two-sided "           \
-                 "Mann-Whitney U test between the segments before and after the change"
+                 "Mann-Whitney U test between the segments before and after the change; a "        \
+                 "change that is not significant is merged into its neighbours, the weakest "      \
+                 "first, and the others are tested again"
 
 static bool is_rate(const trend_series_t *s)
 {

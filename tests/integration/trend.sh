@@ -4,10 +4,11 @@
 # cannot reach p < 1 %), a 10 ms server-side delay
 # (the target's --delay fault, set through POST /admin/faults) from the sixth run on. The change
 # must be found at run six, significant and slower, exit 1; the first five alone have none, exit
-# 0. The change points of the p50 series are checked against the numpy reference written from
+# 0 (a candidate that is not significant is merged away before the others are judged). The
+# change points of the p50 series are checked against the numpy reference written from
 # the paper (tests/unit/trend_ref.py: optimal partitioning, the optimum PELT reaches), the
-# values against each run's results.json; runs of one configuration have no p50 change point; runs with another --set are grouped apart and
-# --strict refuses them (exit 2); the HTML page is checked with Python's html.parser.
+# values against each run's results.json; runs of one configuration have no significant p50
+# change; runs with another --set are grouped apart and --strict refuses them (exit 2); the HTML page is checked with Python's html.parser.
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/target.sh"
 source "$SRCDIR/tests/integration/lib/run.sh"
@@ -47,9 +48,12 @@ S = {(s['phase'], s['class'], s['metric']): s for s in g['series']}
 $1"; }
 expect "format squall-trend v1, one group of twelve runs in start order" \
     test "$(py "print(d['format'], d['version'], len(d['groups']), [r['dir'][-3:] for r in g['runs']] == ['r%02d' % i for i in range(1, 13)])")" = "squall-trend 1 1 True"
-expect "p50: one change, at run 6, slower by 8 to 12 ms (the 10 ms delay), confidence >= 99%" \
-    test "$(py "c = S[('steady', 'read', 'p50')]['changes']
-print(len(c) == 1 and c[0]['first_run'] == 6 and c[0]['significant'] and c[0]['verdict'] == 'slower'
+# A loaded machine can move the delayed runs' p50 by a millisecond (CI once: 10.5 -> 11.6 ms
+# after three of them): PELT may split there too, but that split is not significant and is
+# merged away, so the delay is still tested 5 runs against 7.
+expect "p50: one significant change, at run 6, slower by 8 to 12 ms (the 10 ms delay), confidence >= 99%" \
+    test "$(py "c = [x for x in S[('steady', 'read', 'p50')]['changes'] if x['significant']]
+print(len(c) == 1 and c[0]['first_run'] == 6 and c[0]['verdict'] == 'slower'
       and 8 <= c[0]['size'] <= 12 and c[0]['confidence'] >= 0.99)")" = True
 expect "objectives drawn from the plan: p99 50 ms; default error rate 1%" \
     test "$(py "print(S[('steady', 'read', 'p99')]['objective'], S[('steady', 'read', 'error_rate')]['objective'])")" = "50.0 0.01"
@@ -77,14 +81,15 @@ print(abs(float(ref[0]) - s['sigma']) <= 1e-12 * s['sigma'] and ref[1].split('|'
 RC=$?
 expect "the first five runs alone: exit 0 (got $RC)" test "$RC" = 0
 expect "the table names the method" grep -q "^method: PELT (Killick, Fearnhead & Eckley" "$T/first5.txt"
-# Within one configuration the p50 moves by far less than the 1 ms floor: no change point at all
-# on either side of the delay (sigma floored at half the minimum change).
+# Within one configuration no significant p50 change on either side of the delay (sigma is
+# floored at half the minimum change, so sub-millisecond wobbles are not even candidates; a
+# loaded machine's millisecond drift may be a candidate, never a significant one).
 for side in "r0[1-5]" "r0[6-9] r1[0-2]"; do
     # shellcheck disable=SC2086
     (cd "$T/runs" && "$SQUALL" trend $side --json) >"$T/side.json" 2>/dev/null
-    expect "no p50 change point within the runs $side" test "$(/usr/bin/python3 -c "import json
+    expect "no significant p50 change within the runs $side" test "$(/usr/bin/python3 -c "import json
 d = json.load(open('$T/side.json'))
-print([s['changes'] for s in d['groups'][0]['series'] if s['metric'] == 'p50'])")" = "[[]]"
+print([[c for c in s['changes'] if c['significant']] for s in d['groups'][0]['series'] if s['metric'] == 'p50'])")" = "[[]]"
 done
 
 # The page: one plot for the one phase x class, marks at the change, the objective line.

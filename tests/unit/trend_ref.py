@@ -11,6 +11,14 @@ the C code. Input: one case a line on stdin; output one line each.
       Prints the starts of the segments after the first, then "|" and the minimum.
   pelt SIGMA BETA Y1 Y2 ...
       The paper's Algorithm 2 (PELT, K = 0) as printed, segments of any length. Same output.
+  judge FLOOR ALPHA MINREL S1 S2 ... | Y1 Y2 ...
+      The judgement of candidate changes (starts S of segments) as the README states it: each
+      candidate is tested by scipy.stats.mannwhitneyu(after, before, two-sided, "auto",
+      continuity) between the segments bounded by its remaining neighbours; it is significant
+      when p < ALPHA and |mean after - mean before| > FLOOR and > MINREL |mean before|; while
+      any is not, the one with the largest p (then the smallest size, then the earliest) is
+      removed and the rest tested again. A removed one keeps the test that removed it.
+      Prints "P SIG" per candidate in order (SIG 1 or 0).
   sigma FLOOR Y1 Y2 ...
       max(FLOOR, MAD(diff(y)) / (0.6745 sqrt 2)): numpy's median of absolute deviations of the
       first differences from their median, scaled to a normal sd (Hampel 1974) and divided by
@@ -73,6 +81,29 @@ def sigma_est(floor, y):
     return max(floor, mad / (0.6744897501960817 * np.sqrt(2.0)))
 
 
+def judge(floor, alpha, minrel, starts, y):
+    live = list(starts)
+    result = {}
+    while True:
+        tests = []
+        for j, b in enumerate(live):
+            a = live[j - 1] if j else 0
+            e = live[j + 1] if j + 1 < len(live) else len(y)
+            before, after = y[a:b], y[b:e]
+            p = float(stats.mannwhitneyu(after, before, alternative="two-sided", method="auto",
+                                         use_continuity=True).pvalue)
+            d = abs(after.mean() - before.mean())
+            sig = p < alpha and d > floor and d > minrel * abs(before.mean())
+            result[b] = (p, sig)
+            tests.append((b, p, d, sig))
+        weak = [t for t in tests if not t[3]]
+        if not weak:
+            break
+        worst = max(weak, key=lambda t: (t[1], -t[2], -t[0]))
+        live.remove(worst[0])
+    return [result[b] for b in starts]
+
+
 for line in sys.stdin:
     w = line.split()
     if not w:
@@ -83,6 +114,11 @@ for line in sys.stdin:
     elif w[0] == "pelt":
         cps, cost = pelt(float(w[1]), float(w[2]), np.array([float(v) for v in w[3:]]))
         print(" ".join(str(c) for c in cps), "|", repr(float(cost)))
+    elif w[0] == "judge":
+        bar = w.index("|")
+        res = judge(float(w[1]), float(w[2]), float(w[3]), [int(v) for v in w[4:bar]],
+                    np.array([float(v) for v in w[bar + 1:]]))
+        print(" ".join("%r %d" % (p, sig) for p, sig in res))
     elif w[0] == "sigma":
         print(repr(float(sigma_est(float(w[1]), [float(v) for v in w[2:]]))))
     else:
