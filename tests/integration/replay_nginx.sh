@@ -111,20 +111,8 @@ lines_now() { wc -l <"$NGX_LOG"; }
 # POSTs, watches included), at its recorded offset from the first divided by the speed, as
 # "GET /small.json?r=N" (its lines in nginx's log are left out of the counts below).
 for speed in 1 2; do
-    /usr/bin/python3 - "$T/recorded.ndjson" "$speed" >"$T/ref-$speed.at" <<'PY'
-import json, re, sys
-rows = []
-for line in open(sys.argv[1]):
-    try:
-        r = json.loads(line)
-    except ValueError:
-        continue
-    if r["verb"] != "POST":
-        rows.append((r["ts"], re.search(r"[?&]r=(\d+)", r["uri"]).group(1)))
-rows.sort()
-for ts, n in rows:
-    print(round((ts - rows[0][0]) * 1e6 / float(sys.argv[2])), f"/small.json?r={n}")
-PY
+    /usr/bin/python3 "$SRCDIR/tests/integration/lib/replay_gaps.py" --at "$T/recorded.ndjson" \
+        "$speed" >"$T/ref-$speed.at"
 done
 
 # squall's and nginx's timing must not be taken over by the machine's other work in the middle
@@ -156,9 +144,7 @@ run_one() {
     RUN_RC=$?
     if [ -n "$ref_pid" ]; then
         wait "$ref_pid" || echo "note: $1: the reference sender failed: $(tail -1 "$T/$1.ref.stderr")"
-        /usr/bin/python3 -c "import json, sys
-print(' or '.join('src port %d' % p for p in json.load(open(sys.argv[1]))['ports']))" \
-            "$T/$1.ref.stdout" >"$T/$1.ref-filter" 2>/dev/null
+        ref_filter "$T/$1.ref.stdout" >"$T/$1.ref-filter"
     fi
     capture_stop
     sleep 0.5 # the last streams' lines (nginx logs at its next write)
@@ -242,8 +228,8 @@ PY
 # pause of a sender makes two (the late request's gap before and after), so a machine that pauses
 # each sender once or twice in 8 s decides the attempt by chance; a clean clone on 2026-12-03
 # had the reference at p99 0.64 ms (one 1.4 ms pause) and squall at 1.71 ms (three pauses).
-# Up to 3 attempts: met in one passes; missed in all judged ones fails; none judged skips (77),
-# saying so, when every other check passed.
+# Up to 3 attempts: met in one passes; missed in all judged ones fails; none judged ends the test
+# "NOT JUDGED (machine)" (exit 77, counted apart by tools/test) when every other check passed.
 fidelity() { # NAME SPEED ATTEMPT
     local flt
     flt=$(cat "$T/$1.ref-filter" 2>/dev/null)
@@ -268,37 +254,35 @@ ref_held = r["missing"] == 0 and r["error_ms_max"] is not None and r["error_ms_m
 # above the reference's, on the noisiest attempts of 2026-12-03.
 far = g["error_ms_p50"] is not None and r["error_ms_p50"] is not None \
     and g["error_ms_p50"] - r["error_ms_p50"] > 0.5
-ref_held = ref_held or far
-verdict = "met" if ok else ("missed" if ref_held else "not judged")
-print(("ok: " if ok else f"(attempt {attempt}) {'FAIL' if ref_held else 'void'}: ") +
+judged = ref_held or far
+verdict = "met" if ok else ("missed" if judged else "not judged")
+print(("ok: " if ok else f"(attempt {attempt}) {'FAIL' if judged else 'void'}: ") +
       f"{name}: achieved inter-arrival error <= 1 ms at p99: squall {text(g)}; the reference "
       f"sender {text(r)} (tcpdump stamps, {dropped} packets dropped) -> {verdict}")
-sys.exit(0 if ok else (1 if ref_held else 2))
+sys.exit(0 if ok else (1 if judged else 2))
 PY
 }
-JUDGED=0
 for run in "s1 1" "s2 2"; do
     set -- $run
-    met=0
+    met=0 judged=0
     for attempt in 1 2 3; do
         out=$(fidelity "$1" "$2" "$attempt")
         rc=$?
         echo "$out" | sed "s/^(attempt [0-9]) //;s/^FAIL/miss/"
-        [ $rc = 0 ] && { met=1; JUDGED=$((JUDGED + 1)); break; }
-        [ $rc = 1 ] && JUDGED=$((JUDGED + 1))
+        [ $rc = 0 ] && { met=1; judged=$((judged + 1)); break; }
+        [ $rc = 1 ] && judged=$((judged + 1))
         [ $attempt = 3 ] && break
         run_one "$1" "$2" 1
     done
     if [ $met = 0 ]; then
-        if [ $JUDGED -gt 0 ]; then
+        if [ $judged -gt 0 ]; then
             echo "FAIL: $1: fidelity missed in every attempt that was judged"
             FAILED=1
         else
             echo "note: $1: the reference sender had a gap over 1 ms off in all 3 attempts: not judged"
         fi
     fi
-    [ $met = 1 ] || [ $JUDGED -gt 0 ] || UNJUDGED="${UNJUDGED:-} $1"
-    JUDGED=0
+    [ $met = 1 ] || [ $judged -gt 0 ] || UNJUDGED="${UNJUDGED:-} $1"
 done
 if [ "$FAILED" = 0 ] && [ -n "${UNJUDGED:-}" ]; then
     echo "NOT JUDGED (machine): replay nginx: every other check passed; fidelity of${UNJUDGED} not judged (the machine paused a bare sender too in every attempt)"

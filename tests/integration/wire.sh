@@ -45,9 +45,7 @@ wire_run() {
     wait "$ref_pid"
     REF_RC=$?
     capture_stop
-    REF_FILTER=$(/usr/bin/python3 -c "import json, sys
-print(' or '.join('src port %d' % p for p in json.load(open(sys.argv[1]))['ports']))" \
-        "$T/$name-ref.stdout" 2>/dev/null)
+    REF_FILTER=$(ref_filter "$T/$name-ref.stdout")
     [ -n "$REF_FILTER" ] || { echo "FAIL: the reference sender printed no ports"; return 1; }
     /usr/bin/python3 "$SRCDIR/tests/integration/lib/wire.py" "$T/$name.pcap" "$rate" 0.5 10000 \
         "not ($REF_FILTER)" >"$T/$name.json"

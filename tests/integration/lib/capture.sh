@@ -9,6 +9,8 @@
 #                               not start listening
 #     capture_stop              ends it by pid (SIGINT: it flushes the file) and prints the
 #                               kernel's drop count from tcpdump's own report (CAP_DROPPED)
+#     ref_filter FILE           prints the pcap filter "src port A or src port B ..." of the
+#                               client ports wire_ref listed in its JSON report FILE ("ports")
 #     wire_plan FILE PORT RATE ARRIVALS SECONDS   writes the plan both the wire test and
 #                               tools/bench/wire.sh run: GET /small.json on 64 connections
 # The filter's payload offset is the TCP header length, tcp[12] >> 4 in 32-bit words (RFC 9293,
@@ -47,6 +49,12 @@ capture_stop() {
     CAP_PID=
     CAP_DROPPED=$(sed -n 's/^\([0-9]*\) packets dropped by kernel.*/\1/p' "$CAP_LOG")
     CAP_DROPPED=${CAP_DROPPED:-unknown}
+}
+
+ref_filter() {
+    /usr/bin/python3 -c "import json, sys
+print(' or '.join('src port %d' % p for p in json.load(open(sys.argv[1]))['ports']))" "$1" \
+        2>/dev/null
 }
 
 wire_plan() {

@@ -1,6 +1,9 @@
 """A replay's achieved inter-arrival times against its recorded log's, as the wire saw them.
 
 Usage: replay_gaps.py CAPTURE.pcap RECORDED.ndjson SPEED [FILTER]
+       replay_gaps.py --at RECORDED.ndjson SPEED
+The second form prints the reference sender's schedule (wire_ref --at): one line per request
+the replay sends, "OFFSET_NS /small.json?r=N", the offset from the first divided by SPEED.
 FILTER, a pcap-filter(7) expression applied as tcpdump reads the capture, picks one sender's
 packets where two sent at once (the replay test's reference sender, wire_ref.c, by its ports).
 Prints one JSON object: requests recorded (those the replay sends), captured, missing, and the
@@ -75,6 +78,11 @@ def figures(pcap, recorded, speed, flt=None):
 
 
 def main():
+    if sys.argv[1] == "--at":
+        want, speed = sent(sys.argv[2]), float(sys.argv[3])
+        for t, n in want:
+            print(round((t - want[0][0]) / speed), f"/small.json?r={n}")
+        return
     print(json.dumps(figures(sys.argv[1], sys.argv[2], float(sys.argv[3]),
                              sys.argv[4] if len(sys.argv) > 4 else None)))
 
