@@ -10,7 +10,11 @@ T="$BUILDDIR/watch-events"
 rm -rf "$T"
 mkdir -p "$T"
 
-W=8 # watchers on one collection; 40 writes/s for 5 s = 200 writes to it
+# Watchers on one collection; 40 writes/s for 5 s = 200 writes to it, then 1 s without writes
+# before the phase ends and the streams close: the last write's events reach every watcher
+# (without it, a loaded CI machine once answered the last write as the streams were closing, and
+# 5 of its 8 events were never sent).
+W=8
 plan() { # plan FILE POLICY BASE
     cat >"$1" <<YAML
 seed: 5
@@ -24,7 +28,8 @@ requests:
   follow: {kind: watch, path: "/v1/sites/north/gateways?watch=1", stamp-key: stamp,
            relist: list-north, reconnect: {policy: $2, base: $3, cap: 2s}}
 phases:
-  - {name: w, duration: 5s, rate: 40/s, mix: {put: 1}, watches: {follow: $W}}
+  - {name: w, duration: 6s, steps: [{rate: 40/s, for: 5s}, {rate: 0/s, for: 1s}], mix: {put: 1},
+     watches: {follow: $W}}
 YAML
 }
 F='d["sections"]["watches"]["w"]["classes"]["follow"]'
