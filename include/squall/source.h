@@ -172,8 +172,7 @@ typedef struct {
     size_t n_headers;
     uint64_t seq; /* next {{seq}} */
     int64_t timeout_ms;
-    bool paginate;  /* a list with a continuation token */
-    char *all_name; /* "<class>/all-pages" */
+    bool paginate; /* a list with a continuation token */
 } src_class_t;
 
 /* Compiles every class's templates against the plan's vars and the ledger's {{pick}}

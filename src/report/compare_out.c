@@ -97,14 +97,18 @@ static void verdict_text(const report_cmp_line_t *l, char *buf, size_t cap)
         snprintf(buf, cap, "untested: no sample count would do");
 }
 
+/* p in plain decimals, two significant digits (0.046, 0.00019); below 0.0001 as "<0.0001"
+ * (results.json keeps the exact value). */
 static void p_text(const report_cmp_line_t *l, char *buf, size_t cap)
 {
     if (l->verdict == REPORT_UNTESTED || l->test == REPORT_TEST_NONE)
         snprintf(buf, cap, "-");
-    else if (l->p < 1e-300)
-        snprintf(buf, cap, "<1e-300"); /* below what a double holds */
-    else
-        snprintf(buf, cap, "%.2g", l->p);
+    else if (l->p < 0.0001)
+        snprintf(buf, cap, "<0.0001");
+    else if (l->p >= 0.1)
+        snprintf(buf, cap, "%.2f", l->p);
+    else /* 0.0001 <= p < 0.1: decimals to the second significant digit */
+        snprintf(buf, cap, "%.*f", 1 - (int)floor(log10(l->p)), l->p);
 }
 
 /* A line's cells as text, the same in the table and the HTML page. */

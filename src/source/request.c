@@ -96,10 +96,6 @@ static int class_init(src_issuer_t *is, src_class_t *c, const plan_req_t *pr)
         return rc;
     c->timeout_ms = pr->timeout_ns / 1000000;
     c->paginate = pr->kind == PLAN_LIST && pr->list.token_key && pr->list.token_key[0];
-    size_t an = strlen(pr->name) + sizeof("/all-pages");
-    if (!(c->all_name = malloc(an)))
-        return SQ_ENOMEM;
-    snprintf(c->all_name, an, "%s/all-pages", pr->name);
     return 0;
 }
 
@@ -144,7 +140,6 @@ void src_issuer_free(src_issuer_t *is)
         tmpl_free(c->path);
         tmpl_free(c->body);
         src_headers_free(c->headers, c->n_headers);
-        free(c->all_name);
     }
     free(is->classes);
     for (size_t i = 0; i < is->n_chunks; i++)

@@ -7,10 +7,13 @@
 # added through POST /admin/faults makes both slower, two runs without it are within noise, and
 # open latency (streams opening together count once) is untested with both counts and the
 # minimum. Overrides that differ are warned about. --json and --html are parsed. Exit codes:
-# README, "Exit codes".
+# README, "Exit codes". Runs of one configuration are measured beside squall for other work on
+# the machine (lib/machine.sh); a pair that differs while the machine was busy is not judged
+# (made again once; then "NOT JUDGED (machine)", exit 77, when every other check passed).
 set -uo pipefail
 source "$SRCDIR/tests/integration/lib/target.sh"
 source "$SRCDIR/tests/integration/lib/run.sh"
+source "$SRCDIR/tests/integration/lib/machine.sh"
 T="$BUILDDIR/compare"
 rm -rf "$T"
 mkdir -p "$T"
@@ -27,12 +30,58 @@ phases:
 YAML
 }
 
+# Runs of one configuration are alike only on one machine: the target runs here too, so work
+# of other programs or the hypervisor's steal during one run of a pair slows that run's tails
+# for real (a clean clone beside a build: read p99.9 per second 2.0 -> 4.8 ms). Each such run
+# is measured beside squall (lib/machine.sh: the machine's CPU not taken by this test's own
+# processes); a pair that differs while either run had 10 % of the machine or more taken is not
+# judged, and the runs are made once more; a pair that differs on a quiet machine fails.
+MACHINE_LIMIT=0.10
+declare -A BUSY
+run_same() { # NAME PLAN: a run measured beside
+    machine_mark "$SERVE_PID"
+    run_plan "$T/$1" "$2"
+    machine_other
+    BUSY[$1]=$MACHINE_SHARE
+    echo "note: $1: while it ran, $MACHINE_TEXT"
+}
+UNJUDGED=
+# same_pair A B DESC: runs A and B of one configuration: exit 0, and no tested line slower or
+# faster; 0 when so, 1 when not on a quiet machine (FAIL), 2 when not with the machine busy.
+same_pair() {
+    "$SQUALL" compare "$T/$1" "$T/$2" >"$T/$1-$2.txt" 2>"$T/$1-$2.err"
+    local rc=$? moved
+    moved=$(grep -cE ' (slower|faster|more errors|fewer errors)$' "$T/$1-$2.txt")
+    if [ "$rc" = 0 ] && [ "$moved" = 0 ]; then
+        echo "ok: $3 ($1 vs $2): exit 0, every tested line within noise"
+        return 0
+    fi
+    cat "$T/$1-$2.txt"
+    if awk -v a="${BUSY[$1]}" -v b="${BUSY[$2]}" -v l="$MACHINE_LIMIT" 'BEGIN { exit !(a >= l || b >= l) }'; then
+        echo "void: $3 ($1 vs $2): exit $rc, $moved lines moved, with other work taking ${BUSY[$1]} and ${BUSY[$2]} of the machine: not judged"
+        return 2
+    fi
+    echo "FAIL: $3 ($1 vs $2): exit $rc, $moved lines moved on a quiet machine (${BUSY[$1]}, ${BUSY[$2]} taken)"
+    FAILED=1
+    return 1
+}
+
 serve_start || exit 1
 curl -s -X PUT -d '{"model":"t-a"}' "$SERVE_URL/v1/sites/north/gateways/gw-1" >/dev/null
 plan
-for k in 1 2 3; do
-    run_plan "$T/same-$k" "$T/plan.yaml"
-    expect_rc "baseline run $k completes (exit $RUN_RC)" "$T/same-$k" 0
+for attempt in 1 2; do
+    for k in 1 2 3; do
+        run_same "same-$k" "$T/plan.yaml"
+        expect_rc "baseline run $k completes (exit $RUN_RC)" "$T/same-$k" 0
+    done
+    void=0
+    for pair in "1 2" "2 3" "1 3"; do
+        set -- $pair
+        same_pair "same-$1" "same-$2" "two runs of one configuration"
+        [ $? = 2 ] && void=1
+    done
+    [ $void = 0 ] && break
+    [ $attempt = 2 ] && UNJUDGED+=" the three runs of one configuration,"
 done
 serve_stop
 serve_start --delay fixed:5ms || exit 1
@@ -55,15 +104,6 @@ RC=$?
 expect "the reverse is faster, not slower: exit 0 (got $RC)" test "$RC" = 0
 expect "and says faster for p50 of read" \
     grep -qE '^steady +read +p50 .* faster$' "$T/imp.txt"
-
-for pair in "1 2" "2 3" "1 3"; do
-    set -- $pair
-    "$SQUALL" compare "$T/same-$1" "$T/same-$2" >"$T/same-$1-$2.txt" 2>&1
-    RC=$?
-    expect "two runs of one configuration ($1 vs $2) are nothing slower: exit 0 (got $RC)" \
-        test "$RC" = 0
-    [ "$RC" = 0 ] || cat "$T/same-$1-$2.txt"
-done
 
 # --json: the document, and the measured shift against the known delay: the p50 change of
 # read is the injected 5 ms within 2 ms (the response time is the server delay plus loopback).
@@ -134,10 +174,22 @@ phases:
 # 64 connections two runs of one configuration differed by 18 % at p50 under other builds).
 accept: [generator-bound]
 YAML
-for k in 1 2; do
-    run_plan "$T/storm-$k" "$T/storm.yaml"
-    expect_rc "storm run $k completes (exit $RUN_RC)" "$T/storm-$k" 0
+for attempt in 1 2; do
+    for k in 1 2; do
+        run_same "storm-$k" "$T/storm.yaml"
+        expect_rc "storm run $k completes (exit $RUN_RC)" "$T/storm-$k" 0
+    done
+    same_pair storm-1 storm-2 "two storm runs of one configuration"
+    rc=$?
+    cat "$T/storm-1-storm-2.txt"
+    [ $rc = 2 ] || break
+    [ $attempt = 2 ] && UNJUDGED+=" the two storm runs of one configuration,"
 done
+SAME_RC=$(
+    "$SQUALL" compare "$T/storm-1" "$T/storm-2" >/dev/null 2>&1
+    echo $?
+)
+expect "same plan, same target: no warning" test ! -s "$T/storm-1-storm-2.err"
 FAULT=$(curl -s -o /dev/null -w '%{http_code}' -X POST --data '{"delay":"fixed:10ms"}' \
     "$SERVE_URL/admin/faults")
 expect "the target takes a 10 ms delay (POST /admin/faults: $FAULT)" test "$FAULT" = 200
@@ -145,14 +197,6 @@ run_plan "$T/storm-slow" "$T/storm.yaml"
 expect_rc "the storm run with the delay completes (exit $RUN_RC)" "$T/storm-slow" 0
 serve_stop
 
-"$SQUALL" compare "$T/storm-1" "$T/storm-2" >"$T/storm-same.txt" 2>"$T/storm-same.err"
-RC=$?
-SAME_RC=$RC
-expect "two storm runs of one configuration: nothing slower, exit 0 (got $RC)" test "$RC" = 0
-expect "and every tested line of them is within noise" \
-    test "$(grep -cE ' (slower|faster|more errors|fewer errors)$' "$T/storm-same.txt")" = 0
-cat "$T/storm-same.txt"
-expect "same plan, same target: no warning" test ! -s "$T/storm-same.err"
 "$SQUALL" compare "$T/storm-1" "$T/storm-slow" >"$T/storm-reg.txt" 2>"$T/storm-reg.err"
 RC=$?
 cat "$T/storm-reg.txt"
@@ -314,7 +358,7 @@ d = json.load(open(sys.argv[1])); del d["sections"]["run"]; json.dump(d, open(sy
 expect "a run without the section: overrides unknown, no warning" test ! -s "$T/ov-unknown.err"
 "$SQUALL" compare "$T/same-1" "$T/same-2" --false-alarm 0.1% >/dev/null 2>&1
 RC=$?
-expect "--false-alarm 0.1% is accepted (exit $RC)" test "$RC" = 0
+expect "--false-alarm 0.1% is accepted (exit $RC)" test "$RC" = 0 -o "$RC" = 1
 "$SQUALL" compare "$T/same-1" "$T/same-2" --alpha 0.01 >/dev/null 2>&1
 RC=$?
 expect "--alpha is no option of ours: exit 2 (got $RC)" test "$RC" = 2
@@ -326,5 +370,9 @@ expect "one directory only is a usage mistake: exit 2 (got $RC)" test "$RC" = 2
 RC=$?
 expect "a missing directory: exit 6 (got $RC)" test "$RC" = 6
 
+if [ "$FAILED" = 0 ] && [ -n "$UNJUDGED" ]; then
+    echo "NOT JUDGED (machine): compare: every other check passed; not judged:${UNJUDGED%,} (their pairs differed in both attempts while other work took 10 % of the machine or more)"
+    exit 77
+fi
 [ "$FAILED" = 0 ] && echo "compare: all checks passed"
 exit "$FAILED"
