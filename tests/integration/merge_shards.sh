@@ -29,6 +29,7 @@ plan() { # plan FILE P99 RATE AGENTS: 3 s of reads, then 3 s of an aligned storm
     cat >"$1" <<YAML
 seed: 7 # shards of one run share a seed (merge refuses others)
 target: {url: "$SERVE_URL", connections: 32, timeout: 5s}
+accept: [generator-bound] # two shards and the target share 2 cores: a lagging second is listed
 requests:
   read: {kind: get, path: /v1/sites/north/gateways/gw-1}
   beat: {kind: write, method: PUT, path: "/v1/sites/north/leases/gw-{{agent}}", body: '{"n":1}'}

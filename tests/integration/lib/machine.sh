@@ -62,4 +62,45 @@ machine_other() {
         if (total < 1) total = 1
         printf("%.3f other programs %.1f %%, steal %.1f %% of the machine\n",
             (other + steal) / total, 100 * other / total, 100 * steal / total) }')
+    [ -z "${_MACHINE_PROBE_TEXT:-}" ] || MACHINE_TEXT+="; $_MACHINE_PROBE_TEXT"
+    _MACHINE_PROBE_TEXT=
+}
+
+# A second measure, for pauses the CPU shares above cannot show (a VM descheduled for some
+# milliseconds many times a second takes little CPU time but delays every wake-up): a sleeper
+# beside the test that asks for 1 ms sleeps and records how late each wake-up was
+# (time.sleep, CLOCK_MONOTONIC; Python, no squall code), until it is ended.
+#     machine_probe_start     starts it in the background
+#     machine_probe_stop      ends it by pid and sets MACHINE_WAKE_P99 (ms late at p99) and
+#                             adds its figures to MACHINE_TEXT (call before machine_other, which
+#                             then counts its CPU as the test's own)
+machine_probe_start() {
+    _MACHINE_PROBE_OUT="${BUILDDIR:?}/.machine-probe.$$"
+    /usr/bin/python3 -c '
+import signal, sys, time
+late = []
+stop = False
+def end(*_):
+    global stop
+    stop = True
+signal.signal(signal.SIGTERM, end)
+limit = time.monotonic() + 600  # bounded, even if never ended
+while not stop and time.monotonic() < limit:
+    t = time.monotonic_ns()
+    time.sleep(0.001)
+    late.append((time.monotonic_ns() - t) / 1e6 - 1)
+late.sort()
+q = lambda p: late[min(len(late) - 1, int(p * len(late)))] if late else float("nan")
+print("%.3f %.3f %.3f %d" % (q(0.5), q(0.99), late[-1] if late else float("nan"), len(late)))
+' >"$_MACHINE_PROBE_OUT" &
+    _MACHINE_PROBE_PID=$!
+}
+
+machine_probe_stop() {
+    local p50 p99 max n
+    kill -TERM "$_MACHINE_PROBE_PID" 2>/dev/null
+    wait "$_MACHINE_PROBE_PID" 2>/dev/null
+    read -r p50 p99 max n <"$_MACHINE_PROBE_OUT"
+    MACHINE_WAKE_P99=${p99:-nan}
+    _MACHINE_PROBE_TEXT="a 1 ms sleep woke late by p50 ${p50:-?} ms, p99 ${p99:-?} ms, max ${max:-?} ms over ${n:-0} sleeps"
 }
