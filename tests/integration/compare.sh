@@ -58,9 +58,11 @@ run_same() { # NAME PLAN: a run measured beside
 UNJUDGED=
 # same_pair A B DESC: runs A and B of one configuration: exit 0, and no tested line slower or
 # faster; 0 when so, 1 when not on a quiet machine (FAIL), 2 when not with the machine busy.
+# PAIR_RC: compare's own exit code.
 same_pair() {
     "$SQUALL" compare "$T/$1" "$T/$2" >"$T/$1-$2.txt" 2>"$T/$1-$2.err"
     local rc=$? moved
+    PAIR_RC=$rc
     moved=$(grep -cE ' (slower|faster|more errors|fewer errors)$' "$T/$1-$2.txt")
     if [ "$rc" = 0 ] && [ "$moved" = 0 ]; then
         echo "ok: $3 ($1 vs $2): exit 0, every tested line within noise"
@@ -199,10 +201,7 @@ for attempt in 1 2; do
     [ $rc = 2 ] || break
     [ $attempt = 2 ] && UNJUDGED+=" the two storm runs of one configuration,"
 done
-SAME_RC=$(
-    "$SQUALL" compare "$T/storm-1" "$T/storm-2" >/dev/null 2>&1
-    echo $?
-)
+SAME_RC=$PAIR_RC
 expect "same plan, same target: no warning" test ! -s "$T/storm-1-storm-2.err"
 FAULT=$(curl -s -o /dev/null -w '%{http_code}' -X POST --data '{"delay":"fixed:10ms"}' \
     "$SERVE_URL/admin/faults")
