@@ -23,6 +23,7 @@
 
 #include "squall/hist.h"
 #include "squall/out.h"
+#include "squall/sync.h"
 
 #define RESULTS_FORMAT  "squall-results"
 #define RESULTS_VERSION 1
@@ -224,6 +225,14 @@ int results_merge(results_t *dst, const results_t *src, const char *name, out_t 
  * and drops "objectives" and "run", which a judge writes for the merge (judge_results). Other
  * sections stay only when equal in every input. SQ_ENOMEM. */
 int results_merge_finish(results_t *dst, out_t *o);
+
+/* One window of a fleet action's "sync" section (README, "Fleets and storms"): index, start_s
+ * (seconds from the run's start), n, r_bar, z, p, peak_to_mean, partial and the sums a merge adds
+ * (cos_sum, sin_sum, bins), from the window's running sums. A window without sends has r_bar, z,
+ * p and peak_to_mean null: no gauge, never an R-bar of 0 that would read "evenly spread". Written
+ * by the run's observer (src/observe/gauge.c) and by a merge (results_sync.c). NULL: no memory. */
+json_t *results_sync_window_json(int64_t index, double start_s, const sync_acc_t *acc,
+                                 bool partial);
 
 /* The per-second series of n results directories (RESULTS_SERIES_FILE and, where present,
  * RESULTS_SERIES_HIST_FILE) combined into dir: rows of the same wall-clock second (unix_ms,

@@ -44,9 +44,10 @@ static void scan(const json_t *a, int64_t min_n, sync_max_t *m)
     json_array_foreach(json_object_get(a, "windows"), i, w)
     {
         int64_t n = json_integer_value(json_object_get(w, "n"));
-        if (json_is_true(json_object_get(w, "partial")) || n < min_n)
+        json_t *rj = json_object_get(w, "r_bar"); /* null when the window had no sends */
+        if (json_is_true(json_object_get(w, "partial")) || n < min_n || !json_is_number(rj))
             continue;
-        double r = json_number_value(json_object_get(w, "r_bar"));
+        double r = json_number_value(rj);
         if (!m->counted++ || r > m->max_r) {
             m->max_r = r;
             m->at_s = json_number_value(json_object_get(w, "start_s"));

@@ -29,6 +29,7 @@
 
 #include "obs_int.h"
 #include "squall/err.h"
+#include "squall/results.h"
 
 /* Windows kept per action: 100,000 accumulators are about 14 MB (a period of 1 s for 27 hours;
  * a phase longer than that many periods gauges its first ones, and counts the rest `outside`). */
@@ -179,16 +180,8 @@ static json_t *window_json(const gaction_t *a, int64_t w, int64_t run_base)
 {
     sync_window_t s;
     window_of(a, w, &s);
-    const sync_acc_t *acc = &a->w[w];
-    json_t *bins = json_array();
-    for (int b = 0; bins && b < SYNC_BINS; b++)
-        json_array_append_new(bins, json_integer((json_int_t)acc->bins[b]));
-    return json_pack("{s:I,s:f,s:I,s:f,s:f,s:f,s:f,s:b,s:f,s:f,s:o*}", "index", (json_int_t)w,
-                     "start_s", (double)(s.start_ns - run_base) / 1e9, "n",
-                     (json_int_t)s.gauge.n, "r_bar", s.gauge.r_bar, "z", s.gauge.z, "p",
-                     s.gauge.p, "peak_to_mean", s.gauge.peak_to_mean, "partial", s.partial,
-                     "cos_sum", acc->cos_sum + acc->cos_err, "sin_sum",
-                     acc->sin_sum + acc->sin_err, "bins", bins);
+    return results_sync_window_json(w, (double)(s.start_ns - run_base) / 1e9, &a->w[w],
+                                    s.partial);
 }
 
 static json_t *action_json(const obs_gauge_t *g, const gaction_t *a)

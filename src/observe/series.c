@@ -73,16 +73,20 @@ static double ms(int64_t ns)
 }
 
 /* The sync columns of a row (RESULTS_SERIES_SYNC) and its end: the last closed window of the
- * fleet action (phase, class), empty when the row is not one's or none has closed. */
+ * fleet action (phase, class), empty when the row is not one's or none has closed; a window
+ * without sends has its index and n = 0 but no gauge (R̄, p and peak-to-mean empty). */
 static void sync_cells(FILE *f, const obs_second_t *w, const obs_cell_t *c)
 {
     for (size_t k = 0; k < w->n_sync; k++) {
         const obs_sync_t *y = &w->sync[k];
         if (y->phase != c->phase || y->cls != c->cls || !y->closed)
             continue;
-        fprintf(f, "%lld,%llu,%.4f,%.4g,%.3f\n", (long long)y->last.index,
-                (unsigned long long)y->last.gauge.n, y->last.gauge.r_bar, y->last.gauge.p,
-                y->last.gauge.peak_to_mean);
+        if (y->last.gauge.n == 0)
+            fprintf(f, "%lld,0,,,\n", (long long)y->last.index);
+        else
+            fprintf(f, "%lld,%llu,%.4f,%.4g,%.3f\n", (long long)y->last.index,
+                    (unsigned long long)y->last.gauge.n, y->last.gauge.r_bar, y->last.gauge.p,
+                    y->last.gauge.peak_to_mean);
         return;
     }
     fputs(",,,,\n", f);

@@ -48,7 +48,8 @@ static void action_plot(FILE *f, const results_t *res, const char *phase, json_t
             break;
         /* Each window at its middle; a partial one only on its own line. */
         x[i] = json_number_value(json_object_get(w, "start_s")) + period / 2;
-        double r = json_number_value(json_object_get(w, "r_bar"));
+        json_t *rj = json_object_get(w, "r_bar"); /* null: a window without sends, no point */
+        double r = json_is_number(rj) ? json_number_value(rj) : NAN;
         bool cut = json_is_true(json_object_get(w, "partial"));
         whole[i] = cut ? NAN : r;
         partial[i] = cut ? r : NAN;

@@ -60,18 +60,27 @@ static void add_window(mwin_t *m, const json_t *w, double shift_s)
     m->seen = true;
 }
 
-static json_t *window_json(const mwin_t *m)
+json_t *results_sync_window_json(int64_t index, double start_s, const sync_acc_t *acc, bool partial)
 {
     sync_gauge_t g;
-    sync_acc_gauge(&m->acc, &g);
+    sync_acc_gauge(acc, &g);
     json_t *bins = json_array();
     for (int b = 0; bins && b < SYNC_BINS; b++)
-        json_array_append_new(bins, json_integer((json_int_t)m->acc.bins[b]));
-    return json_pack("{s:I,s:f,s:I,s:f,s:f,s:f,s:f,s:b,s:f,s:f,s:o*}", "index",
-                     (json_int_t)m->index, "start_s", m->start_s, "n", (json_int_t)g.n, "r_bar",
-                     g.r_bar, "z", g.z, "p", g.p, "peak_to_mean", g.peak_to_mean, "partial",
-                     m->partial, "cos_sum", m->acc.cos_sum + m->acc.cos_err, "sin_sum",
-                     m->acc.sin_sum + m->acc.sin_err, "bins", bins);
+        json_array_append_new(bins, json_integer((json_int_t)acc->bins[b]));
+    /* A window without sends has no gauge: null, never an R-bar of 0 that reads "spread". */
+    bool none = g.n == 0;
+    return json_pack("{s:I,s:f,s:I,s:o,s:o,s:o,s:o,s:b,s:f,s:f,s:o*}", "index", (json_int_t)index,
+                     "start_s", start_s, "n", (json_int_t)g.n, "r_bar",
+                     none ? json_null() : json_real(g.r_bar), "z",
+                     none ? json_null() : json_real(g.z), "p", none ? json_null() : json_real(g.p),
+                     "peak_to_mean", none ? json_null() : json_real(g.peak_to_mean), "partial",
+                     partial, "cos_sum", acc->cos_sum + acc->cos_err, "sin_sum",
+                     acc->sin_sum + acc->sin_err, "bins", bins);
+}
+
+static json_t *window_json(const mwin_t *m)
+{
+    return results_sync_window_json(m->index, m->start_s, &m->acc, m->partial);
 }
 
 /* Finds or appends the merged window of index k among v[0..*n). */

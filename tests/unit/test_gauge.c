@@ -297,11 +297,112 @@ static void test_compare_and_trend(void **state)
     report_series_free(sb);
 }
 
+/* A window without sends has no gauge: results.json's r_bar, z, p and peak_to_mean are null
+ * (a run's and a merge's), series.csv's row of the window has its index and n = 0 but empty
+ * gauge cells, and compare's samples leave it out. An R-bar of 0 there would read "evenly
+ * spread" (the CI run of 2026-12-03 whose first tick was held past its window wrote 0.0000). */
+static void test_window_without_sends(void **state)
+{
+    (void)state;
+    out_t *o = out_new_capture();
+    plan_t *p = load_plan(o);
+    int64_t base = clock_mono_ns() - 10 * NS_PER_S;
+    static int64_t t[200];
+    for (size_t i = 0; i < 200; i++) /* windows 0 and 1 only; window 2 gets nothing */
+        t[i] = (int64_t)(i % 2) * PERIOD + (int64_t)i * (PERIOD / 400);
+    char dir[] = "/tmp/squall-test-gauge-dir-XXXXXX";
+    assert_non_null(mkdtemp(dir));
+    results_t *r, *m;
+    assert_int_equal(results_new(&r), 0);
+    results_set_start(r, INT64_C(1796000000000));
+    obs_cfg_t cfg = {.plan = p, .res = r, .o = o, .quiet = true, .no_brakes = true};
+    obs_t *l;
+    assert_int_equal(obs_new(&cfg, &l), 0);
+    assert_int_equal(obs_open(l, dir), 0);
+    obs_phase(l, 0, base, clock_real_ns());
+    for (size_t k = 0; k < 200; k++) {
+        eng_result_t e = {.intended_ns = base + t[k], .submitted_ns = base + t[k],
+                          .sent_ns = base + t[k], .done_ns = base + t[k] + 1000000,
+                          .status = 200, .outcome = ENG_OUT_S2XX};
+        obs_sent(l, &(obs_sent_t){.phase = 0, .cls = 0});
+        obs_done(l, &(obs_done_t){.phase = 0, .cls = 0, .first = true, .agent = (int)k,
+                                  .source = "fleet", .intended_ns = e.intended_ns, .res = &e});
+    }
+    eng_stats_t st = {.window_ns = NS_PER_S};
+    obs_second(l, &st, false, 0, true);
+    assert_int_equal(obs_finish(l, dir), 0);
+    obs_free(l);
+
+    assert_int_equal(results_new(&m), 0);
+    assert_int_equal(results_merge(m, r, "a", o), 0);
+    assert_int_equal(results_merge_finish(m, o), 0);
+    const results_t *both[] = {r, m};
+    for (int k = 0; k < 2; k++) {
+        json_t *a = json_array_get(
+            json_object_get(json_object_get(results_section(both[k], "sync"), "steady"),
+                            "actions"),
+            0);
+        json_t *wins = json_object_get(a, "windows");
+        assert_int_equal(json_array_size(wins), 3);
+        for (size_t i = 0; i < 3; i++) {
+            json_t *w = json_array_get(wins, i);
+            assert_int_equal(json_integer_value(json_object_get(w, "n")), i < 2 ? 100 : 0);
+            const char *keys[] = {"r_bar", "z", "p", "peak_to_mean"};
+            for (int f = 0; f < 4; f++)
+                assert_true(i < 2 ? json_is_real(json_object_get(w, keys[f]))
+                                  : json_is_null(json_object_get(w, keys[f])));
+        }
+    }
+
+    /* series.csv: the row of renew shows window 2, closed with no sends (RESULTS_SERIES_SYNC
+     * ends the line). */
+    char path[128], line[1024];
+    snprintf(path, sizeof path, "%s/%s", dir, RESULTS_SERIES_FILE);
+    FILE *f = fopen(path, "r");
+    assert_non_null(f);
+    int rows = 0;
+    while (fgets(line, sizeof line, f))
+        if (strstr(line, ",steady,renew,")) {
+            rows++;
+            size_t len = strlen(line);
+            assert_true(len > 8 && strcmp(line + len - 8, ",2,0,,,\n") == 0);
+        }
+    fclose(f);
+    assert_int_equal(rows, 1);
+
+    /* compare: two whole windows with sends on each side, the empty one left out. */
+    report_series_t *s;
+    assert_int_equal(report_series_new(&s), 0);
+    report_cmp_opts_t opts;
+    report_cmp_opts_default(&opts);
+    report_cmp_t *c;
+    assert_int_equal(report_compare(r, s, m, s, &opts, &c), 0);
+    int seen = 0;
+    for (size_t i = 0; i < report_cmp_count(c); i++) {
+        const report_cmp_line_t *ln = report_cmp_at(c, i);
+        if (ln->latency && !strcmp(ln->latency, "sync")) {
+            assert_int_equal(ln->n_base, 2);
+            assert_int_equal(ln->n_new, 2);
+            seen++;
+        }
+    }
+    assert_int_equal(seen, 1);
+    report_cmp_free(c);
+    report_series_free(s);
+    results_free(r);
+    results_free(m);
+    plan_free(p);
+    out_free(o);
+    snprintf(line, sizeof line, "rm -rf '%s'", dir);
+    assert_int_equal(system(line), 0);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_shards_and_merge),
         cmocka_unit_test(test_compare_and_trend),
+        cmocka_unit_test(test_window_without_sends),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
