@@ -60,13 +60,16 @@ static plan_t *load_plan(out_t *o)
 }
 
 /* One shard: an observer list fed the send instants t[0..n) (offsets from base) in reverse
- * order, plus traffic that must not count; its "sync" section lands in res. */
+ * order, plus traffic that must not count; its "sync" section lands in res, its files (series.csv)
+ * in dir unless dir is NULL. */
 static void shard(const plan_t *p, out_t *o, results_t *res, int64_t base, const int64_t *t,
-                  size_t n)
+                  size_t n, const char *dir)
 {
     obs_cfg_t cfg = {.plan = p, .res = res, .o = o, .quiet = true, .no_brakes = true};
     obs_t *l;
     assert_int_equal(obs_new(&cfg, &l), 0);
+    if (dir)
+        assert_int_equal(obs_open(l, dir), 0);
     obs_phase(l, 0, base, clock_real_ns());
     for (size_t k = n; k-- > 0;) {
         eng_result_t r = {.intended_ns = base + t[k], .submitted_ns = base + t[k],
@@ -92,7 +95,7 @@ static void shard(const plan_t *p, out_t *o, results_t *res, int64_t base, const
     }
     eng_stats_t st = {.window_ns = NS_PER_S};
     obs_second(l, &st, false, 0, true);
-    assert_int_equal(obs_finish(l, NULL), 0);
+    assert_int_equal(obs_finish(l, dir), 0);
     obs_free(l);
 }
 
@@ -178,8 +181,8 @@ static void test_shards_and_merge(void **state)
     results_set_start(rb, start_ms);
     assert_int_equal(results_set_shard(ra, 1, 2), 0);
     assert_int_equal(results_set_shard(rb, 2, 2), 0);
-    shard(p, o, ra, base, a, N_SEND);
-    shard(p, o, rb, base, b, N_SEND);
+    shard(p, o, ra, base, a, N_SEND, NULL);
+    shard(p, o, rb, base, b, N_SEND, NULL);
 
     char *ref_a = reference(base, a, N_SEND, NULL, 0);
     char *ref_b = reference(base, b, N_SEND, NULL, 0);
@@ -315,23 +318,7 @@ static void test_window_without_sends(void **state)
     results_t *r, *m;
     assert_int_equal(results_new(&r), 0);
     results_set_start(r, INT64_C(1796000000000));
-    obs_cfg_t cfg = {.plan = p, .res = r, .o = o, .quiet = true, .no_brakes = true};
-    obs_t *l;
-    assert_int_equal(obs_new(&cfg, &l), 0);
-    assert_int_equal(obs_open(l, dir), 0);
-    obs_phase(l, 0, base, clock_real_ns());
-    for (size_t k = 0; k < 200; k++) {
-        eng_result_t e = {.intended_ns = base + t[k], .submitted_ns = base + t[k],
-                          .sent_ns = base + t[k], .done_ns = base + t[k] + 1000000,
-                          .status = 200, .outcome = ENG_OUT_S2XX};
-        obs_sent(l, &(obs_sent_t){.phase = 0, .cls = 0});
-        obs_done(l, &(obs_done_t){.phase = 0, .cls = 0, .first = true, .agent = (int)k,
-                                  .source = "fleet", .intended_ns = e.intended_ns, .res = &e});
-    }
-    eng_stats_t st = {.window_ns = NS_PER_S};
-    obs_second(l, &st, false, 0, true);
-    assert_int_equal(obs_finish(l, dir), 0);
-    obs_free(l);
+    shard(p, o, r, base, t, 200, dir);
 
     assert_int_equal(results_new(&m), 0);
     assert_int_equal(results_merge(m, r, "a", o), 0);
