@@ -60,6 +60,13 @@ static void add_window(mwin_t *m, const json_t *w, double shift_s)
     m->seen = true;
 }
 
+/* A gauge figure, or null for a window without sends: no gauge, never an R-bar of 0 that would
+ * read "spread". */
+static json_t *figure(const sync_gauge_t *g, double v)
+{
+    return g->n ? json_real(v) : json_null();
+}
+
 json_t *results_sync_window_json(int64_t index, double start_s, const sync_acc_t *acc, bool partial)
 {
     sync_gauge_t g;
@@ -67,15 +74,12 @@ json_t *results_sync_window_json(int64_t index, double start_s, const sync_acc_t
     json_t *bins = json_array();
     for (int b = 0; bins && b < SYNC_BINS; b++)
         json_array_append_new(bins, json_integer((json_int_t)acc->bins[b]));
-    /* A window without sends has no gauge: null, never an R-bar of 0 that reads "spread". */
-    bool none = g.n == 0;
     return json_pack("{s:I,s:f,s:I,s:o,s:o,s:o,s:o,s:b,s:f,s:f,s:o*}", "index", (json_int_t)index,
-                     "start_s", start_s, "n", (json_int_t)g.n, "r_bar",
-                     none ? json_null() : json_real(g.r_bar), "z",
-                     none ? json_null() : json_real(g.z), "p", none ? json_null() : json_real(g.p),
-                     "peak_to_mean", none ? json_null() : json_real(g.peak_to_mean), "partial",
-                     partial, "cos_sum", acc->cos_sum + acc->cos_err, "sin_sum",
-                     acc->sin_sum + acc->sin_err, "bins", bins);
+                     "start_s", start_s, "n", (json_int_t)g.n, "r_bar", figure(&g, g.r_bar), "z",
+                     figure(&g, g.z), "p", figure(&g, g.p), "peak_to_mean",
+                     figure(&g, g.peak_to_mean), "partial", partial, "cos_sum",
+                     acc->cos_sum + acc->cos_err, "sin_sum", acc->sin_sum + acc->sin_err, "bins",
+                     bins);
 }
 
 static json_t *window_json(const mwin_t *m)

@@ -75,12 +75,16 @@ PY
 }
 
 W='d["sections"]["sync"]'
+# windows OUT PHASE: (index, n, R-bar to 4 places or None) of the phase's first action, for messages.
+windows() {
+    rget "$1" "[(w['index'], w['n'], None if w['r_bar'] is None else round(w['r_bar'], 4)) for w in $W['$2']['actions'][0]['windows']]" 2>/dev/null
+}
 
 # --- aligned: bunched, max-sync fails ------------------------------------------------------------
 plan "$T/a.yaml" aligned aligned 300
 run_plan "$T/a" "$T/a.yaml"
 expect_rc "aligned: max-sync 0.3 fails the run (exit 1, got $RUN_RC)" "$T/a" 1
-rcheck "aligned: every whole window's R-bar >= 0.95 ($(rget "$T/a" "[(w['index'], w['n'], w['r_bar'] if w['r_bar'] is None else round(w['r_bar'], 4)) for w in $W['aligned']['actions'][0]['windows']]" 2>/dev/null))" \
+rcheck "aligned: every whole window's R-bar >= 0.95 ($(windows "$T/a" aligned))" \
     "all(w['r_bar'] >= 0.95 for w in $W['aligned']['actions'][0]['windows'] if not w['partial'] and w['n'] >= 50)
      and sum(not w['partial'] for w in $W['aligned']['actions'][0]['windows']) >= 3" "$T/a"
 rcheck "aligned: the max-sync checks fail in the phase and the run, observed R-bar >= 0.95" \
@@ -104,7 +108,7 @@ BEFORE=$(puts)
 run_plan "$T/s" "$T/s.yaml"
 SPUTS=$(($(puts) - BEFORE))
 expect_rc "spread: max-sync 0.3 passes the run (exit 0, got $RUN_RC)" "$T/s" 0
-rcheck "spread: every whole window's R-bar < 0.1 ($(rget "$T/s" "[(w['index'], w['n'], w['r_bar'] if w['r_bar'] is None else round(w['r_bar'], 4)) for w in $W['spread']['actions'][0]['windows']]" 2>/dev/null))" \
+rcheck "spread: every whole window's R-bar < 0.1 ($(windows "$T/s" spread))" \
     "all(w['r_bar'] is not None and w['r_bar'] < 0.1 for w in $W['spread']['actions'][0]['windows'] if not w['partial'])
      and sum(not w['partial'] for w in $W['spread']['actions'][0]['windows']) >= 3" "$T/s"
 rcheck "spread: the sends gauged (windows and past the last) = the target's PUT answers ($SPUTS)" \
@@ -139,7 +143,7 @@ rcheck "merged windows: each n is the sum of the shards' ($N1 + $N2)" \
     "{w['index']: w['n'] for w in $W['shard']['actions'][0]['windows']} == {k: $N1.get(k, 0) + $N2.get(k, 0) for k in set($N1) | set($N2)}" "$T/mm"
 rcheck "merged sends = the target's PUT answers during the shards ($MPUTS) = the single run's sends" \
     "sum(w['n'] for w in $W['shard']['actions'][0]['windows']) + $W['shard']['actions'][0]['outside'] == $MPUTS == $SPUTS" "$T/mm"
-rcheck "merged whole windows: R-bar < 0.1 ($(rget "$T/mm" "[(w['index'], w['n'], w['r_bar'] if w['r_bar'] is None else round(w['r_bar'], 4)) for w in $W['shard']['actions'][0]['windows']]" 2>/dev/null))" \
+rcheck "merged whole windows: R-bar < 0.1 ($(windows "$T/mm" shard))" \
     "all(w['r_bar'] is not None and w['r_bar'] < 0.1 for w in $W['shard']['actions'][0]['windows'] if not w['partial'])" "$T/mm"
 [ "$FAILED" = 0 ] && echo "sync-gauge: all passed"
 exit "$FAILED"

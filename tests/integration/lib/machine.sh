@@ -101,6 +101,7 @@ machine_probe_stop() {
     kill -TERM "$_MACHINE_PROBE_PID" 2>/dev/null
     wait "$_MACHINE_PROBE_PID" 2>/dev/null
     read -r p50 p99 max n <"$_MACHINE_PROBE_OUT"
+    rm -f "$_MACHINE_PROBE_OUT"
     MACHINE_WAKE_P99=${p99:-nan}
     _MACHINE_PROBE_TEXT="a 1 ms sleep woke late by p50 ${p50:-?} ms, p99 ${p99:-?} ms, max ${max:-?} ms over ${n:-0} sleeps"
 }
